@@ -1,0 +1,31 @@
+/* cmd: one function per subcommand, called from the table in main.c.
+ *
+ * Adding a subcommand: (1) write src/cmd/<verb>.c with cmd_<verb>(),
+ * (2) add its row to the table in main.c, (3) add a CLI test under
+ * tests/cli/, (4) document it in man/packbook.1, README and --help.
+ *
+ * A command returns a pb_code; on failure it has filled err, which main
+ * prints once. Commands may print their results and usage text. */
+#ifndef PB_CMD_H
+#define PB_CMD_H
+
+#include "../core/pb_error.h"
+
+struct app {
+    const char *prog; /* argv[0] as shown in messages */
+    int some_failed;  /* a batch command had failures: exit status 1 */
+};
+
+enum pb_code cmd_analyze(int argc, char **argv, struct app *app, struct pb_error *err);
+enum pb_code cmd_chemistry(int argc, char **argv, struct app *app, struct pb_error *err);
+
+/* Parses a number option value; returns 0 or fills err (usage). */
+int cmd_parse_double(const char *opt, const char *val, double lo, double hi, double *out,
+                     struct pb_error *err);
+int cmd_parse_int(const char *opt, const char *val, int lo, int hi, int *out,
+                  struct pb_error *err);
+
+/* Flushes stdout and checks every write reached it. */
+enum pb_code cmd_finish_stdout(struct pb_error *err);
+
+#endif

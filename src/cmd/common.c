@@ -1,0 +1,42 @@
+#include <errno.h>
+#include <limits.h>
+#include <stdio.h>
+#include <stdlib.h>
+
+#include "cmd.h"
+
+int cmd_parse_double(const char *opt, const char *val, double lo, double hi, double *out,
+                     struct pb_error *err)
+{
+    char *end = NULL;
+    errno = 0;
+    double v = strtod(val, &end);
+    if (end == val || *end != '\0' || errno == ERANGE || !(v >= lo && v <= hi)) {
+        pb_error_set(err, PB_EUSAGE, "%s: expected a number from %g to %g, got '%s'", opt, lo, hi,
+                     val);
+        return -1;
+    }
+    *out = v;
+    return 0;
+}
+
+int cmd_parse_int(const char *opt, const char *val, int lo, int hi, int *out, struct pb_error *err)
+{
+    char *end = NULL;
+    errno = 0;
+    long v = strtol(val, &end, 10);
+    if (end == val || *end != '\0' || errno == ERANGE || v < lo || v > hi) {
+        pb_error_set(err, PB_EUSAGE, "%s: expected a whole number from %d to %d, got '%s'", opt,
+                     lo, hi, val);
+        return -1;
+    }
+    *out = (int)v;
+    return 0;
+}
+
+enum pb_code cmd_finish_stdout(struct pb_error *err)
+{
+    if (fflush(stdout) != 0 || ferror(stdout))
+        return pb_error_set(err, PB_EOUTPUT, "cannot write the output");
+    return PB_OK;
+}

@@ -1,0 +1,197 @@
+#include "fit.h"
+
+#include <gsl/gsl_cdf.h>
+#include <gsl/gsl_eigen.h>
+#include <gsl/gsl_matrix.h>
+#include <gsl/gsl_statistics_double.h>
+#include <math.h>
+#include <string.h>
+
+#define BISQUARE_C 4.685
+#define MAD_TO_SIGMA 1.4826
+#define EIG_RTOL 1e-11
+
+struct normal_eq {
+    double a[FIT_MAX_P][FIT_MAX_P]; /* X'WX, upper triangle filled */
+    double b[FIT_MAX_P];            /* X'Wy */
+    double yy;                      /* y'Wy */
+    double wsum;
+    size_t n_used;
+    size_t n_low;
+};
+
+enum pass { PASS_PLAIN, PASS_WEIGHTED, PASS_RESIDUALS };
+
+static double dot(const double *x, const double *beta, int p)
+{
+    double s = 0.0;
+    for (int j = 0; j < p; j++)
+        s += x[j] * beta[j];
+    return s;
+}
+
+/* One pass over the rows. PASS_RESIDUALS stores |r| in scratch and returns
+ * the count through ne->n_used; the others sum the normal equations. */
+static void run_pass(size_t n, int p, fit_row_fn row, void *ctx, enum pass mode,
+                     const double *beta, double scale, double *scratch, struct normal_eq *ne)
+{
+    double x[FIT_MAX_P], y;
+    memset(ne, 0, sizeof *ne);
+    for (size_t k = 0; k < n; k++) {
+        if (!row(ctx, k, x, &y))
+            continue;
+        if (mode == PASS_RESIDUALS) {
+            scratch[ne->n_used++] = fabs(y - dot(x, beta, p));
+            continue;
+        }
+        double w = 1.0;
+        if (mode == PASS_WEIGHTED) {
+            double u = (y - dot(x, beta, p)) / (BISQUARE_C * scale);
+            w = fabs(u) < 1.0 ? (1.0 - u * u) * (1.0 - u * u) : 0.0;
+            ne->n_low += w < 0.5;
+            if (w == 0.0) {
+                ne->n_used++;
+                continue;
+            }
+        }
+        for (int i = 0; i < p; i++) {
+            double wx = w * x[i];
+            for (int j = i; j < p; j++)
+                ne->a[i][j] += wx * x[j];
+            ne->b[i] += wx * y;
+        }
+        ne->yy += w * y * y;
+        ne->wsum += w;
+        ne->n_used++;
+    }
+}
+
+/* Solves the normal equations; fills beta, the unscaled inverse in inv and
+ * the rank. Returns -1 when GSL fails. */
+static int solve(const struct normal_eq *ne, int p, double *beta, double inv[FIT_MAX_P][FIT_MAX_P],
+                 int *rank)
+{
+    double d[FIT_MAX_P];
+    gsl_matrix *a = gsl_matrix_alloc((size_t)p, (size_t)p);
+    gsl_matrix *evec = gsl_matrix_alloc((size_t)p, (size_t)p);
+    gsl_vector *eval = gsl_vector_alloc((size_t)p);
+    gsl_eigen_symmv_workspace *ws = gsl_eigen_symmv_alloc((size_t)p);
+    int rc = -1;
+    if (!a || !evec || !eval || !ws)
+        goto cleanup;
+    for (int i = 0; i < p; i++)
+        d[i] = ne->a[i][i] > 0.0 ? 1.0 / sqrt(ne->a[i][i]) : 0.0;
+    for (int i = 0; i < p; i++)
+        for (int j = 0; j < p; j++) {
+            double v = i <= j ? ne->a[i][j] : ne->a[j][i];
+            gsl_matrix_set(a, (size_t)i, (size_t)j, v * d[i] * d[j]);
+        }
+    if (gsl_eigen_symmv(a, eval, evec, ws) != 0)
+        goto cleanup;
+    double lmax = 0.0;
+    for (int i = 0; i < p; i++)
+        lmax = fmax(lmax, gsl_vector_get(eval, (size_t)i));
+    *rank = 0;
+    for (int i = 0; i < p; i++)
+        for (int j = 0; j < p; j++)
+            inv[i][j] = 0.0;
+    for (int m = 0; m < p; m++) {
+        double l = gsl_vector_get(eval, (size_t)m);
+        if (!(l > EIG_RTOL * lmax))
+            continue;
+        (*rank)++;
+        for (int i = 0; i < p; i++)
+            for (int j = 0; j < p; j++)
+                inv[i][j] += gsl_matrix_get(evec, (size_t)i, (size_t)m) *
+                             gsl_matrix_get(evec, (size_t)j, (size_t)m) / l;
+    }
+    for (int i = 0; i < p; i++)
+        for (int j = 0; j < p; j++)
+            inv[i][j] *= d[i] * d[j];
+    for (int i = 0; i < p; i++) {
+        beta[i] = 0.0;
+        for (int j = 0; j < p; j++)
+            beta[i] += inv[i][j] * ne->b[j];
+    }
+    rc = 0;
+cleanup:
+    gsl_eigen_symmv_free(ws);
+    gsl_vector_free(eval);
+    gsl_matrix_free(evec);
+    gsl_matrix_free(a);
+    return rc;
+}
+
+double fit_median(double *a, size_t n)
+{
+    /* gsl_stats_median selects in place (it reorders a) */
+    return gsl_stats_median(a, 1, n);
+}
+
+enum pb_code fit_linear(size_t n, int p, fit_row_fn row, void *ctx, int robust, double *scratch,
+                        struct fit_result *out, struct pb_error *err)
+{
+    struct normal_eq ne;
+    double inv[FIT_MAX_P][FIT_MAX_P];
+    double beta[FIT_MAX_P] = {0};
+    int rank = 0;
+
+    memset(out, 0, sizeof *out);
+    if (p < 1 || p > FIT_MAX_P)
+        return pb_error_set(err, PB_ENUMERIC, "fit: %d columns is out of range", p);
+    out->p = p;
+    run_pass(n, p, row, ctx, PASS_PLAIN, NULL, 0.0, NULL, &ne);
+    if (ne.n_used <= (size_t)p)
+        return pb_error_set(err, PB_ENUMERIC, "fit: %zu rows for %d unknowns", ne.n_used, p);
+    if (solve(&ne, p, beta, inv, &rank) != 0)
+        return pb_error_set(err, PB_ENUMERIC, "fit: eigensolver failed");
+    out->iterations = 0;
+    if (robust && scratch) {
+        for (int it = 1; it <= 25; it++) {
+            struct normal_eq rq;
+            run_pass(n, p, row, ctx, PASS_RESIDUALS, beta, 0.0, scratch, &rq);
+            double scale = MAD_TO_SIGMA * fit_median(scratch, rq.n_used);
+            if (!(scale > 0.0))
+                break; /* an exact fit: nothing to reweight */
+            double prev[FIT_MAX_P];
+            memcpy(prev, beta, sizeof prev);
+            run_pass(n, p, row, ctx, PASS_WEIGHTED, beta, scale, NULL, &ne);
+            if (ne.wsum <= p || solve(&ne, p, beta, inv, &rank) != 0)
+                return pb_error_set(err, PB_ENUMERIC, "fit: reweighting left too few rows");
+            out->iterations = it;
+            double change = 0.0;
+            for (int j = 0; j < p; j++)
+                change = fmax(change, fabs(beta[j] - prev[j]) / (fabs(prev[j]) + 1e-9));
+            if (change < 1e-7)
+                break;
+        }
+        out->n_downweighted = ne.n_low;
+    }
+    /* residual sum of squares from the sums: y'Wy - beta'X'Wy */
+    double rss = ne.yy;
+    for (int j = 0; j < p; j++)
+        rss -= beta[j] * ne.b[j];
+    if (rss < 0.0)
+        rss = 0.0;
+    double dof = ne.wsum - rank;
+    out->rank = rank;
+    out->rss = rss;
+    out->dof = dof;
+    out->n_used = ne.n_used;
+    out->sigma = dof > 0 ? sqrt(rss / dof) : 0.0;
+    double s2 = out->sigma * out->sigma;
+    for (int i = 0; i < p; i++) {
+        out->beta[i] = beta[i];
+        for (int j = 0; j < p; j++)
+            out->cov[i][j] = s2 * inv[i][j];
+    }
+    return PB_OK;
+}
+
+double fit_ci95(const struct fit_result *f, int j)
+{
+    if (f->dof < 1.0)
+        return NAN;
+    double t = gsl_cdf_tdist_Pinv(0.975, f->dof);
+    return t * sqrt(fmax(f->cov[j][j], 0.0));
+}

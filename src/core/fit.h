@@ -1,0 +1,49 @@
+/* fit: weighted linear least squares over rows made on the fly.
+ *
+ * Owns nothing but what it allocates inside one call. The design matrix is
+ * never stored: a callback makes row k (x[0..p), y) and the fit sums the
+ * normal equations, which it solves after equilibrating the columns, through
+ * GSL's symmetric eigensolver (a pseudo-inverse, so a rank-deficient design
+ * is reported, not divided by zero). Rows are asked for in order 0..n-1 on
+ * every pass, so a callback may carry state from row to row.
+ *
+ * Robust mode is iteratively reweighted least squares with Tukey's
+ * bisquare weight (c = 4.685) and scale = 1.4826 * median |residual|. */
+#ifndef PB_FIT_H
+#define PB_FIT_H
+
+#include <stddef.h>
+
+#include "pb_error.h"
+
+#define FIT_MAX_P 8
+
+/* Makes row k; returns 0 to leave the row out, 1 to use it. A callback
+ * that keeps state across rows resets it when k == 0. */
+typedef int (*fit_row_fn)(void *ctx, size_t k, double *x, double *y);
+
+struct fit_result {
+    int p;
+    int rank;                     /* numerical rank of the design */
+    double beta[FIT_MAX_P];
+    double cov[FIT_MAX_P][FIT_MAX_P];
+    double sigma;                 /* residual standard deviation (weighted) */
+    double rss;                   /* weighted residual sum of squares */
+    double dof;                   /* effective rows minus rank */
+    size_t n_used;                /* rows the callback gave */
+    size_t n_downweighted;        /* rows with final weight < 0.5 (robust) */
+    int iterations;
+};
+
+/* Fits n rows of p columns. scratch: n doubles for robust mode (unused,
+ * may be NULL, when robust == 0). Returns PB_OK or an error in err. */
+enum pb_code fit_linear(size_t n, int p, fit_row_fn row, void *ctx, int robust, double *scratch,
+                        struct fit_result *out, struct pb_error *err);
+
+/* Half-width of the two-sided 95 % interval of coefficient j (Student t). */
+double fit_ci95(const struct fit_result *f, int j);
+
+/* Median of a[0..n) by selection; reorders a. n > 0. */
+double fit_median(double *a, size_t n);
+
+#endif

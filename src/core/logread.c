@@ -1,0 +1,825 @@
+#define _GNU_SOURCE
+#include "logread.h"
+
+#include <csv.h>
+#include <ctype.h>
+#include <math.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include "isotime.h"
+#include "numparse.h"
+
+#define BLOCK_BYTES (1u << 20)
+#define SNIFF_LINES 32
+#define HEADER_KEEP 128 /* bytes of each first-row field kept for mapping */
+
+enum slot { SLOT_T = 0, SLOT_V, SLOT_I, SLOT_TEMP, SLOT_CELL0 };
+#define NSLOTS (SLOT_CELL0 + PB_MAX_CELLS)
+
+enum bad_kind { BAD_NONE = 0, BAD_NUMBER, BAD_NONFINITE, BAD_EMPTY };
+
+enum tmode { TM_UNDECIDED = 0, TM_NUMBER, TM_ISO };
+
+struct reader {
+    const struct logread_opts *opts;
+    const char *name;
+    struct logread_stats *st;
+    struct pb_error *err;
+    int failed;
+
+    size_t line;          /* physical line being fed, 1-based */
+    size_t row_line;      /* line where the current record began */
+    int field;            /* index of the next field in the record */
+    int comment;          /* current record is a # comment */
+
+    int mapped;           /* columns are known */
+    int ncols;            /* fields in the layout */
+    char **first_row;     /* first record's fields, until mapped */
+    int first_row_n;
+
+    int slot_col[NSLOTS]; /* column index of each slot, -1 none */
+    struct col_spec spec[NSLOTS];
+    int *col_slot;        /* slot of each column, -1 none */
+    int need_fields;      /* fields a record must have */
+    int ncells;
+
+    enum tmode tmode;
+    double t_scale;
+    double t_first;       /* first kept absolute/raw time, in seconds */
+    double t_prev;
+    double temp_prev;
+    int have_temp_prev;
+
+    double val[NSLOTS];
+    enum bad_kind bad;
+    int bad_col;
+
+    struct series *s;
+};
+
+static void count_event(struct logread_event *ev, size_t line, int column)
+{
+    if (ev->count++ == 0) {
+        ev->first_line = line;
+        ev->first_column = column;
+    }
+}
+
+static void fail(struct reader *r, enum pb_code code, size_t line, int column, const char *fmt,
+                 const char *detail)
+{
+    char what[PB_ERRMSG_MAX];
+    if (r->failed)
+        return;
+    r->failed = 1;
+    snprintf(what, sizeof what, fmt, detail ? detail : "");
+    if (column > 0)
+        pb_error_set(r->err, code, "%s:%zu:%d: %s", r->name, line, column, what);
+    else if (line > 0)
+        pb_error_set(r->err, code, "%s:%zu: %s", r->name, line, what);
+    else
+        pb_error_set(r->err, code, "%s: %s", r->name, what);
+}
+
+/* libcsv's buffer grows through this hook, which is how one field's
+ * length (and so the memory one line can take) is bounded. */
+static void *bounded_realloc(void *p, size_t size)
+{
+    if (size > LOGREAD_MAX_FIELD_BYTES + 64)
+        return NULL;
+    return realloc(p, size);
+}
+
+static int space_only(unsigned char c)
+{
+    return c == CSV_SPACE;
+}
+
+/* ---- dialect ---------------------------------------------------------- */
+
+static int count_outside_quotes(const char *p, size_t len, char d)
+{
+    int n = 0, q = 0;
+    for (size_t k = 0; k < len; k++) {
+        if (p[k] == '"')
+            q = !q;
+        else if (!q && p[k] == d)
+            n++;
+    }
+    return n;
+}
+
+/* Picks the delimiter whose count is the same on most of the first lines,
+ * then whether numbers use a decimal comma. */
+static void sniff(const char *buf, size_t len, char *delim, char *decimal)
+{
+    static const char cands[] = {',', ';', '\t'};
+    const char *lines[SNIFF_LINES];
+    size_t lens[SNIFF_LINES];
+    int nl = 0;
+    size_t at = 0;
+    while (at < len && nl < SNIFF_LINES) {
+        const char *e = memchr(buf + at, '\n', len - at);
+        size_t l = e ? (size_t)(e - (buf + at)) : len - at;
+        const char *p = buf + at;
+        size_t skip = 0;
+        while (skip < l && (p[skip] == ' ' || p[skip] == '\r'))
+            skip++;
+        if (skip < l && p[skip] != '#') {
+            lines[nl] = p;
+            lens[nl] = l;
+            nl++;
+        }
+        if (!e)
+            break;
+        at += l + 1;
+    }
+    /* the last line may be cut by the block end: leave it out if others exist */
+    if (nl > 2)
+        nl--;
+    double best_score = -1.0;
+    char best = ',';
+    for (size_t c = 0; c < sizeof cands; c++) {
+        int counts[SNIFF_LINES];
+        for (int k = 0; k < nl; k++)
+            counts[k] = count_outside_quotes(lines[k], lens[k], cands[c]);
+        /* agreement with the count of the data lines' mode */
+        int mode = 0, mode_n = 0;
+        for (int k = 0; k < nl; k++) {
+            int same = 0;
+            for (int j = 0; j < nl; j++)
+                same += counts[j] == counts[k];
+            if (counts[k] > 0 && (same > mode_n || (same == mode_n && counts[k] > mode))) {
+                mode = counts[k];
+                mode_n = same;
+            }
+        }
+        if (mode == 0)
+            continue;
+        double score = (double)mode_n / nl + 0.001 * mode;
+        if (score > best_score) {
+            best_score = score;
+            best = cands[c];
+        }
+    }
+    *delim = best;
+    *decimal = '.';
+    if (best == ',')
+        return;
+    /* decimal comma: fields like "16,82" and no "16.82" on data lines */
+    int comma_nums = 0, dot_nums = 0;
+    for (int k = 1; k < nl; k++) {
+        const char *p = lines[k];
+        for (size_t j = 1; j + 1 < lens[k]; j++) {
+            if (isdigit((unsigned char)p[j - 1]) && isdigit((unsigned char)p[j + 1])) {
+                comma_nums += p[j] == ',';
+                dot_nums += p[j] == '.';
+            }
+        }
+    }
+    if (comma_nums > 0 && dot_nums == 0)
+        *decimal = ',';
+}
+
+/* ---- layout ----------------------------------------------------------- */
+
+static int slot_for(const struct col_spec *sp)
+{
+    switch (sp->role) {
+    case COL_TIME: return SLOT_T;
+    case COL_VOLTAGE: return SLOT_V;
+    case COL_CURRENT:
+    case COL_CURRENT_RAW: return SLOT_I;
+    case COL_TEMP: return SLOT_TEMP;
+    case COL_CELL: return sp->cell <= PB_MAX_CELLS ? SLOT_CELL0 + sp->cell - 1 : -1;
+    case COL_IGNORE: return -1;
+    }
+    return -1;
+}
+
+static int assign(struct reader *r, int col, const struct col_spec *sp, const char *name,
+                  int override)
+{
+    int slot = slot_for(sp);
+    if (slot < 0) {
+        r->st->ignored_columns++;
+        return 0;
+    }
+    if (r->slot_col[slot] >= 0 && !override) {
+        /* a physical current beats raw counts; otherwise the first column wins */
+        if (slot == SLOT_I && r->spec[slot].role == COL_CURRENT_RAW && sp->role == COL_CURRENT) {
+            r->col_slot[r->slot_col[slot]] = -1;
+        } else {
+            count_event(&r->st->duplicate_role, r->row_line, col + 1);
+            r->st->ignored_columns++;
+            return 0;
+        }
+    }
+    if (r->slot_col[slot] >= 0)
+        r->col_slot[r->slot_col[slot]] = -1;
+    for (int s = 0; s < NSLOTS; s++) /* an override moves a column out of its old slot */
+        if (override && r->slot_col[s] == col)
+            r->slot_col[s] = -1;
+    (void)name;
+    r->slot_col[slot] = col;
+    r->spec[slot] = *sp;
+    r->col_slot[col] = slot;
+    return 0;
+}
+
+static int parse_name(struct reader *r, const char *name, size_t len, struct col_spec *sp,
+                      int column, const char *what)
+{
+    if (colname_parse(name, len, sp) != 0) {
+        char shown[80];
+        snprintf(shown, sizeof shown, "%.*s", (int)(len > 60 ? 60 : len), name);
+        char msg[160];
+        snprintf(msg, sizeof msg, "%s '%%s' has a unit that does not fit its quantity", what);
+        fail(r, PB_EINPUT, r->row_line, column, msg, shown);
+        return -1;
+    }
+    return 0;
+}
+
+/* Applies "ROLE[_UNIT]=NAME|INDEX,..." on top of the detected layout. */
+static int apply_map(struct reader *r, char **names, int n)
+{
+    const char *p = r->opts->map;
+    while (p && *p) {
+        const char *end = strchr(p, ',');
+        size_t len = end ? (size_t)(end - p) : strlen(p);
+        const char *eq = memchr(p, '=', len);
+        if (!eq) {
+            pb_error_set(r->err, PB_EUSAGE, "--map: expected ROLE=COLUMN, got '%.*s'", (int)len, p);
+            r->failed = 1;
+            return -1;
+        }
+        struct col_spec sp;
+        if (colname_parse(p, (size_t)(eq - p), &sp) != 0 || sp.role == COL_IGNORE) {
+            pb_error_set(r->err, PB_EUSAGE, "--map: unknown quantity '%.*s' (try time_s, voltage_v, "
+                         "current_a, current_adc, temp_c, cell1_v)", (int)(eq - p), p);
+            r->failed = 1;
+            return -1;
+        }
+        const char *target = eq + 1;
+        size_t tlen = len - (size_t)(target - p);
+        int col = -1;
+        char *iend = NULL;
+        long idx = strtol(target, &iend, 10);
+        if (tlen > 0 && iend == target + tlen && idx >= 1 && idx <= n)
+            col = (int)idx - 1;
+        for (int c = 0; c < n && col < 0; c++)
+            if (names && names[c] && strlen(names[c]) == tlen && strncasecmp(names[c], target, tlen) == 0)
+                col = c;
+        if (col < 0) {
+            pb_error_set(r->err, PB_EUSAGE, "--map: no column '%.*s' in %s", (int)tlen, target, r->name);
+            r->failed = 1;
+            return -1;
+        }
+        assign(r, col, &sp, names ? names[col] : "", 1);
+        p = end ? end + 1 : NULL;
+    }
+    return 0;
+}
+
+static int field_is_number(const char *f, char decimal)
+{
+    double v;
+    enum num_status st = num_parse(f, strlen(f), decimal, &v);
+    return st == NUM_OK || st == NUM_NONFINITE;
+}
+
+/* Decides the layout from the first record (or --columns). Returns 1 when
+ * the first record is a header, 0 when it is data, -1 on failure. */
+static int map_columns(struct reader *r)
+{
+    int is_header = 0;
+    for (int c = 0; c < r->first_row_n; c++) {
+        const char *f = r->first_row[c];
+        if (f[0] != '\0' && !field_is_number(f, r->st->decimal) &&
+            isotime_parse(f, strlen(f), &(double){0}, NULL) != 0)
+            is_header = 1;
+    }
+    r->st->has_header = is_header;
+    r->st->header_line = is_header ? r->row_line : 0;
+
+    char **names = r->first_row;
+    int n = r->first_row_n;
+    char **layout = NULL;
+    int nlayout = 0;
+    if (r->opts->columns) {
+        /* positional layout from the command line */
+        const char *p = r->opts->columns;
+        nlayout = 1;
+        for (const char *q = p; *q; q++)
+            nlayout += *q == ',';
+        if (nlayout > LOGREAD_MAX_COLUMNS) {
+            fail(r, PB_EUSAGE, 0, 0, "--columns lists too many columns%s", NULL);
+            return -1;
+        }
+        layout = calloc((size_t)nlayout, sizeof *layout);
+        if (!layout) {
+            fail(r, PB_ENOMEM, 0, 0, "out of memory%s", NULL);
+            return -1;
+        }
+        for (int c = 0; c < nlayout; c++) {
+            const char *e = strchr(p, ',');
+            size_t l = e ? (size_t)(e - p) : strlen(p);
+            layout[c] = strndup(p, l);
+            if (!layout[c]) {
+                fail(r, PB_ENOMEM, 0, 0, "out of memory%s", NULL);
+                goto cleanup;
+            }
+            p = e ? e + 1 : p + l;
+        }
+        names = layout;
+        n = nlayout;
+    } else if (!is_header) {
+        fail(r, PB_EINPUT, r->row_line, 0,
+             "no header line: give the column layout with --columns (for example --columns "
+             "time_s,voltage_v,current_a)%s", NULL);
+        return -1;
+    }
+
+    r->ncols = n > r->first_row_n ? n : r->first_row_n;
+    r->col_slot = malloc((size_t)r->ncols * sizeof *r->col_slot);
+    if (!r->col_slot) {
+        fail(r, PB_ENOMEM, 0, 0, "out of memory%s", NULL);
+        goto cleanup;
+    }
+    for (int c = 0; c < r->ncols; c++)
+        r->col_slot[c] = -1;
+    for (int c = 0; c < n; c++) {
+        struct col_spec sp;
+        if (strcmp(names[c], "-") == 0)
+            continue;
+        if (parse_name(r, names[c], strlen(names[c]), &sp, c + 1,
+                       layout ? "--columns entry" : "column") != 0)
+            goto cleanup;
+        assign(r, c, &sp, names[c], 0);
+    }
+    if (r->opts->map && apply_map(r, is_header ? r->first_row : layout, n) != 0)
+        goto cleanup;
+
+    const char *where = layout ? "--columns" : "the header";
+    if (r->slot_col[SLOT_T] < 0) {
+        fail(r, PB_EINPUT, r->row_line, 0,
+             "no time column found in %s (name one with --map time_s=COLUMN)", where);
+        goto cleanup;
+    }
+    r->ncells = 0;
+    for (int c = 0; c < PB_MAX_CELLS; c++)
+        if (r->slot_col[SLOT_CELL0 + c] >= 0)
+            r->ncells = c + 1;
+    for (int c = 0; c < r->ncells; c++) {
+        if (r->slot_col[SLOT_CELL0 + c] < 0) {
+            char what[32];
+            snprintf(what, sizeof what, "%d", c + 1);
+            fail(r, PB_EINPUT, r->row_line, 0,
+                 "cell voltage columns skip cell %s (cells must be numbered 1..N)", what);
+            goto cleanup;
+        }
+    }
+    if (r->slot_col[SLOT_V] < 0 && r->ncells == 0) {
+        fail(r, PB_EINPUT, r->row_line, 0,
+             "no voltage column found in %s (name one with --map voltage_v=COLUMN)", where);
+        goto cleanup;
+    }
+    r->st->voltage_from_cells = r->slot_col[SLOT_V] < 0;
+    if (r->slot_col[SLOT_I] >= 0 && r->spec[SLOT_I].role == COL_CURRENT_RAW) {
+        r->st->current_is_raw = 1;
+        if (!r->opts->have_adc) {
+            fail(r, PB_EUSAGE, r->row_line, r->slot_col[SLOT_I] + 1,
+                 "this column holds current as ADC counts: give --adc-scale A_PER_COUNT, or the "
+                 "sense chain --adc-bits, --adc-vref, --sense-ratio and --sense-ohm%s", NULL);
+            goto cleanup;
+        }
+    }
+    r->need_fields = 0;
+    for (int s = 0; s < NSLOTS; s++)
+        if (r->slot_col[s] >= 0 && r->slot_col[s] + 1 > r->need_fields)
+            r->need_fields = r->slot_col[s] + 1;
+    r->st->time_column = r->slot_col[SLOT_T] + 1;
+    r->st->voltage_column = r->slot_col[SLOT_V] + 1;
+    r->st->current_column = r->slot_col[SLOT_I] + 1;
+    r->st->temp_column = r->slot_col[SLOT_TEMP] + 1;
+    r->t_scale = r->spec[SLOT_T].scale;
+
+    r->s = series_new(r->slot_col[SLOT_I] >= 0, r->slot_col[SLOT_TEMP] >= 0, r->ncells);
+    if (!r->s) {
+        fail(r, PB_ENOMEM, 0, 0, "out of memory%s", NULL);
+        goto cleanup;
+    }
+    r->mapped = 1;
+cleanup:
+    if (layout) {
+        for (int c = 0; c < nlayout; c++)
+            free(layout[c]);
+        free(layout);
+    }
+    if (r->failed)
+        return -1;
+    return is_header;
+}
+
+/* ---- records ---------------------------------------------------------- */
+
+static void take_time(struct reader *r, const char *f, size_t len, int column)
+{
+    double v = 0.0;
+    if (r->tmode == TM_UNDECIDED) {
+        enum num_status st = num_parse(f, len, r->st->decimal, &v);
+        if (st == NUM_OK || st == NUM_NONFINITE)
+            r->tmode = TM_NUMBER;
+        else if (isotime_parse(f, len, &v, NULL) == 0)
+            r->tmode = TM_ISO;
+        else
+            r->tmode = TM_NUMBER; /* reported as a bad number below */
+        r->st->time_is_iso = r->tmode == TM_ISO;
+    }
+    if (r->tmode == TM_ISO) {
+        if (isotime_parse(f, len, &v, NULL) != 0) {
+            size_t k = 0;
+            while (k < len && f[k] == ' ')
+                k++;
+            r->bad = k == len ? BAD_EMPTY : BAD_NUMBER;
+            r->bad_col = column;
+            return;
+        }
+        r->val[SLOT_T] = v;
+        return;
+    }
+    enum num_status st = num_parse(f, len, r->st->decimal, &v);
+    if (st != NUM_OK) {
+        r->bad = st == NUM_EMPTY ? BAD_EMPTY : st == NUM_NONFINITE ? BAD_NONFINITE : BAD_NUMBER;
+        r->bad_col = column;
+        return;
+    }
+    r->val[SLOT_T] = v * r->t_scale;
+}
+
+static void on_field(void *data, size_t len, void *ctx)
+{
+    struct reader *r = ctx;
+    const char *f = data ? data : "";
+    if (r->failed)
+        return;
+    int col = r->field++;
+    if (col == 0) {
+        size_t k = 0;
+        while (k < len && f[k] == ' ')
+            k++;
+        r->comment = k < len && f[k] == '#';
+        r->row_line = r->line;
+        r->bad = BAD_NONE;
+    }
+    if (r->comment)
+        return;
+    if (col >= LOGREAD_MAX_COLUMNS) {
+        if (col == LOGREAD_MAX_COLUMNS)
+            fail(r, PB_EINPUT, r->line, col + 1, "more than %s fields on one line", "1024");
+        return;
+    }
+    if (!r->mapped) {
+        /* keep the first record until the layout is known */
+        char **row = realloc(r->first_row, (size_t)(col + 1) * sizeof *row);
+        if (!row) {
+            fail(r, PB_ENOMEM, 0, 0, "out of memory%s", NULL);
+            return;
+        }
+        r->first_row = row;
+        row[col] = strndup(f, len < HEADER_KEEP ? len : HEADER_KEEP);
+        r->first_row_n = col + 1;
+        if (!row[col])
+            fail(r, PB_ENOMEM, 0, 0, "out of memory%s", NULL);
+        return;
+    }
+    if (col >= r->ncols || r->bad != BAD_NONE)
+        return;
+    int slot = r->col_slot[col];
+    if (slot < 0)
+        return;
+    if (slot == SLOT_T) {
+        take_time(r, f, len, col + 1);
+        return;
+    }
+    double v;
+    enum num_status st = num_parse(f, len, r->st->decimal, &v);
+    if (st == NUM_OK) {
+        r->val[slot] = v * r->spec[slot].scale + r->spec[slot].offset;
+        return;
+    }
+    if (slot == SLOT_TEMP) {
+        /* temperature is context, not a reason to lose the sample */
+        r->val[slot] = NAN;
+        return;
+    }
+    r->bad = st == NUM_EMPTY ? BAD_EMPTY : st == NUM_NONFINITE ? BAD_NONFINITE : BAD_NUMBER;
+    r->bad_col = col + 1;
+}
+
+static void keep_sample(struct reader *r)
+{
+    struct logread_stats *st = r->st;
+    struct series *s = r->s;
+    double t = r->val[SLOT_T];
+    if (s->n == 0) {
+        r->t_first = t;
+        /* numbers that only make sense as Unix time (years 2000..2099) */
+        if (r->tmode == TM_ISO || r->spec[SLOT_T].time == TIME_EPOCH ||
+            (t >= 9.4e8 && t < 4.1e9)) {
+            s->has_epoch = 1;
+            s->start_epoch_s = t;
+            st->time_is_epoch = r->tmode != TM_ISO;
+        } else if (t >= 9.4e11 && t < 4.1e12 && r->spec[SLOT_T].time == TIME_AUTO) {
+            /* epoch milliseconds in a column without a unit */
+            r->t_scale = 1e-3;
+            t *= 1e-3;
+            r->t_first = t;
+            s->has_epoch = 1;
+            s->start_epoch_s = r->t_first;
+            st->time_is_epoch = 1;
+        }
+    }
+    double rel = t - r->t_first;
+    if (s->n > 0) {
+        if (rel == r->t_prev) {
+            count_event(&st->duplicate_time, r->row_line, r->slot_col[SLOT_T] + 1);
+            return;
+        }
+        if (rel < r->t_prev) {
+            char what[96];
+            snprintf(what, sizeof what, "%.6g s after %.6g s", rel, r->t_prev);
+            fail(r, PB_EINPUT, r->row_line, r->slot_col[SLOT_T] + 1,
+                 "time goes backwards (%s); split the log where the clock restarts", what);
+            return;
+        }
+    }
+    if (series_reserve_one(s) != 0) {
+        fail(r, PB_ENOMEM, 0, 0, "out of memory%s", NULL);
+        return;
+    }
+    size_t k = s->n;
+    s->t_s[k] = rel;
+    double v_sum = 0.0;
+    for (int c = 0; c < r->ncells; c++) {
+        s->cell_v[c][k] = r->val[SLOT_CELL0 + c];
+        v_sum += s->cell_v[c][k];
+    }
+    s->v_v[k] = st->voltage_from_cells ? v_sum : r->val[SLOT_V];
+    if (s->i_a) {
+        double i = r->val[SLOT_I];
+        if (st->current_is_raw)
+            i = (i - r->opts->adc_offset_counts) * r->opts->adc_a_per_count;
+        s->i_a[k] = i;
+    }
+    if (s->temp_c) {
+        double tc = r->val[SLOT_TEMP];
+        if (!isfinite(tc)) {
+            count_event(&st->temp_repaired, r->row_line, r->slot_col[SLOT_TEMP] + 1);
+            tc = r->have_temp_prev ? r->temp_prev : NAN;
+        }
+        if (isfinite(tc)) {
+            r->temp_prev = tc;
+            r->have_temp_prev = 1;
+        }
+        s->temp_c[k] = tc;
+    }
+    r->t_prev = rel;
+    s->n++;
+    st->kept++;
+}
+
+static void on_row(int c, void *ctx)
+{
+    struct reader *r = ctx;
+    (void)c;
+    int nfields = r->field;
+    r->field = 0;
+    if (r->failed)
+        return;
+    if (r->comment || nfields == 0) {
+        r->st->comment_lines += r->comment;
+        r->comment = 0;
+        return;
+    }
+    if (!r->mapped) {
+        int header = map_columns(r);
+        if (header < 0)
+            return;
+        if (header == 1)
+            return;
+        /* the first record was data: run it through the field path again */
+        int n = r->first_row_n;
+        char **row = r->first_row;
+        r->first_row = NULL;
+        r->first_row_n = 0;
+        for (int k = 0; k < n; k++)
+            on_field(row[k], strlen(row[k]), r);
+        for (int k = 0; k < n; k++)
+            free(row[k]);
+        free(row);
+        nfields = r->field;
+        r->field = 0;
+    }
+    r->st->records++;
+    if (nfields < r->need_fields) {
+        count_event(&r->st->short_row, r->row_line, nfields + 1);
+        return;
+    }
+    if (nfields > r->ncols)
+        count_event(&r->st->long_row, r->row_line, r->ncols + 1);
+    switch (r->bad) {
+    case BAD_NONE: keep_sample(r); break;
+    case BAD_NUMBER: count_event(&r->st->bad_number, r->row_line, r->bad_col); break;
+    case BAD_NONFINITE: count_event(&r->st->nonfinite, r->row_line, r->bad_col); break;
+    case BAD_EMPTY: count_event(&r->st->empty_field, r->row_line, r->bad_col); break;
+    }
+    r->bad = BAD_NONE;
+}
+
+/* ---- sign ------------------------------------------------------------- */
+
+/* Discharge-negative logs: most loaded samples negative while the voltage
+ * falls from start to end. Charging logs (voltage rising) are left alone. */
+static int looks_discharge_negative(const struct series *s)
+{
+    size_t neg = 0, loaded = 0;
+    double imax = 0.0;
+    for (size_t k = 0; k < s->n; k++)
+        if (fabs(s->i_a[k]) > imax)
+            imax = fabs(s->i_a[k]);
+    if (imax <= 0.0)
+        return 0;
+    for (size_t k = 0; k < s->n; k++) {
+        if (fabs(s->i_a[k]) > 0.1 * imax) {
+            loaded++;
+            neg += s->i_a[k] < 0.0;
+        }
+    }
+    size_t w = s->n / 20 + 1;
+    double v0 = 0.0, v1 = 0.0;
+    for (size_t k = 0; k < w; k++) {
+        v0 += s->v_v[k];
+        v1 += s->v_v[s->n - 1 - k];
+    }
+    return loaded > 0 && neg > 0.8 * loaded && v1 < v0;
+}
+
+static void resolve_sign(struct reader *r)
+{
+    struct series *s = r->s;
+    int flip = 0;
+    if (!s->i_a)
+        return;
+    if (r->opts->sign == SIGN_DISCHARGE_NEGATIVE)
+        flip = 1;
+    else if (r->opts->sign == SIGN_AUTO && looks_discharge_negative(s)) {
+        flip = 1;
+        r->st->sign_flipped = 1;
+    }
+    if (flip)
+        for (size_t k = 0; k < s->n; k++)
+            s->i_a[k] = -s->i_a[k];
+}
+
+/* ---- driver ----------------------------------------------------------- */
+
+double logread_adc_a_per_count(int bits, double vref_v, double ratio, double r_ohm)
+{
+    /* volts per count / volts per amp; the sense output is I/ratio in r_ohm */
+    double v_per_count = vref_v / ldexp(1.0, bits);
+    double v_per_a = r_ohm / ratio;
+    return v_per_count / v_per_a;
+}
+
+static void feed(struct reader *r, struct csv_parser *p, const char *buf, size_t len)
+{
+    size_t at = 0;
+    while (at < len && !r->failed) {
+        const char *nl = memchr(buf + at, '\n', len - at);
+        size_t l = nl ? (size_t)(nl - (buf + at)) + 1 : len - at;
+        if (csv_parse(p, buf + at, l, on_field, on_row, r) != l) {
+            int e = csv_error(p);
+            if (e == CSV_ENOMEM)
+                fail(r, PB_EINPUT, r->line, r->field + 1, "field longer than %s bytes", "65536");
+            else
+                fail(r, PB_EINPUT, r->line, r->field + 1, "cannot parse: %s", csv_strerror(e));
+            return;
+        }
+        if (nl)
+            r->line++;
+        at += l;
+    }
+}
+
+struct series *logread_file(FILE *fp, const char *name, const struct logread_opts *opts,
+                            struct logread_stats *stats, struct pb_error *err)
+{
+    struct reader r = {0};
+    struct csv_parser p;
+    struct series *out = NULL;
+    char *buf = NULL;
+    int parser_ready = 0;
+
+    memset(stats, 0, sizeof *stats);
+    r.opts = opts;
+    r.name = name;
+    r.st = stats;
+    r.err = err;
+    r.line = 1;
+    for (int s = 0; s < NSLOTS; s++)
+        r.slot_col[s] = -1;
+
+    buf = malloc(BLOCK_BYTES);
+    if (!buf) {
+        pb_error_set(err, PB_ENOMEM, "out of memory");
+        goto cleanup;
+    }
+    size_t len = fread(buf, 1, BLOCK_BYTES, fp);
+    if (ferror(fp)) {
+        pb_error_set(err, PB_EINPUT, "%s: read error", name);
+        goto cleanup;
+    }
+    if (len == 0) {
+        pb_error_set(err, PB_EINPUT, "%s: empty file", name);
+        goto cleanup;
+    }
+    size_t start = 0;
+    if (len >= 3 && memcmp(buf, "\xEF\xBB\xBF", 3) == 0) {
+        stats->bom = 1;
+        start = 3;
+    }
+    char delim, decimal;
+    sniff(buf + start, len - start, &delim, &decimal);
+    stats->delimiter = opts->delimiter ? opts->delimiter : delim;
+    stats->decimal = opts->decimal ? opts->decimal : decimal;
+    if (stats->delimiter == stats->decimal) {
+        pb_error_set(err, PB_EUSAGE, "%s: the delimiter and the decimal separator are both '%c'",
+                     name, stats->delimiter);
+        goto cleanup;
+    }
+
+    if (csv_init(&p, 0) != 0) {
+        pb_error_set(err, PB_ENOMEM, "out of memory");
+        goto cleanup;
+    }
+    parser_ready = 1;
+    csv_set_delim(&p, (unsigned char)stats->delimiter);
+    csv_set_space_func(&p, space_only);
+    csv_set_realloc_func(&p, bounded_realloc);
+    csv_set_free_func(&p, free);
+
+    feed(&r, &p, buf + start, len - start);
+    char last = buf[len - 1];
+    while (!r.failed && (len = fread(buf, 1, BLOCK_BYTES, fp)) > 0) {
+        feed(&r, &p, buf, len);
+        last = buf[len - 1];
+    }
+    if (!r.failed && ferror(fp)) {
+        pb_error_set(err, PB_EINPUT, "%s: read error", name);
+        goto cleanup;
+    }
+    if (!r.failed) {
+        size_t short_before = stats->short_row.count;
+        csv_fini(&p, on_field, on_row, &r);
+        if (last != '\n' && stats->short_row.count > short_before)
+            stats->truncated_last_line = 1;
+    }
+    stats->lines = r.line - (last == '\n' ? 1 : 0);
+    if (r.failed)
+        goto cleanup;
+    if (!r.mapped) {
+        pb_error_set(err, PB_EINPUT, "%s: no data: the file has only comments or blank lines", name);
+        goto cleanup;
+    }
+    if (r.s->n < 2) {
+        if (stats->records == 0)
+            pb_error_set(err, PB_EINPUT, "%s:%zu: header only, no samples", name,
+                         stats->header_line);
+        else
+            pb_error_set(err, PB_EINPUT,
+                         "%s: %zu usable sample%s of %zu records; at least 2 are needed "
+                         "(first problem at line %zu)", name, r.s->n, r.s->n == 1 ? "" : "s",
+                         stats->records,
+                         stats->bad_number.count ? stats->bad_number.first_line
+                         : stats->nonfinite.count ? stats->nonfinite.first_line
+                         : stats->empty_field.count ? stats->empty_field.first_line
+                         : stats->short_row.first_line);
+        goto cleanup;
+    }
+    resolve_sign(&r);
+    out = r.s;
+    r.s = NULL;
+cleanup:
+    if (parser_ready)
+        csv_free(&p);
+    free(buf);
+    for (int k = 0; k < r.first_row_n; k++)
+        free(r.first_row[k]);
+    free(r.first_row);
+    free(r.col_slot);
+    series_free(r.s);
+    return out;
+}

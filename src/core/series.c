@@ -1,0 +1,72 @@
+#include "series.h"
+
+#include <stdlib.h>
+#include <string.h>
+
+struct series *series_new(int has_current, int has_temp, int ncells)
+{
+    if (ncells < 0 || ncells > PB_MAX_CELLS)
+        return NULL;
+    struct series *s = calloc(1, sizeof *s);
+    if (!s)
+        return NULL;
+    s->ncells = ncells;
+    /* The optional columns start non-NULL only so the reserve loop grows
+     * them; a zero-size placeholder is freed and replaced on first growth. */
+    s->i_a = has_current ? malloc(sizeof(double)) : NULL;
+    s->temp_c = has_temp ? malloc(sizeof(double)) : NULL;
+    s->t_s = malloc(sizeof(double));
+    s->v_v = malloc(sizeof(double));
+    int bad = !s->t_s || !s->v_v || (has_current && !s->i_a) || (has_temp && !s->temp_c);
+    for (int c = 0; c < ncells; c++) {
+        s->cell_v[c] = malloc(sizeof(double));
+        bad |= !s->cell_v[c];
+    }
+    if (bad) {
+        series_free(s);
+        return NULL;
+    }
+    s->cap = 1;
+    return s;
+}
+
+void series_free(struct series *s)
+{
+    if (!s)
+        return;
+    free(s->t_s);
+    free(s->v_v);
+    free(s->i_a);
+    free(s->temp_c);
+    for (int c = 0; c < s->ncells; c++)
+        free(s->cell_v[c]);
+    free(s);
+}
+
+static int grow(double **col, size_t cap)
+{
+    if (!*col)
+        return 0;
+    double *p = realloc(*col, cap * sizeof(double));
+    if (!p)
+        return -1;
+    *col = p;
+    return 0;
+}
+
+int series_reserve_one(struct series *s)
+{
+    if (s->n < s->cap)
+        return 0;
+    /* Grow by half: large blocks are mremap'd by glibc, so growth costs no
+     * copy and peak memory stays near 1.5x the data. */
+    size_t cap = s->cap < 1024 ? 1024 : s->cap + s->cap / 2;
+    if (grow(&s->t_s, cap) || grow(&s->v_v, cap) || grow(&s->i_a, cap) ||
+        grow(&s->temp_c, cap))
+        return -1;
+    for (int c = 0; c < s->ncells; c++)
+        if (grow(&s->cell_v[c], cap))
+            return -1;
+    s->cap = cap;
+    return 0;
+}

@@ -1,0 +1,68 @@
+/* packbook: command dispatch. Each subcommand lives in src/cmd/; errors
+ * from any of them are printed here, once, and mapped to the exit status. */
+#include <gsl/gsl_errno.h>
+#include <stdio.h>
+#include <string.h>
+
+#include "cmd/cmd.h"
+
+#ifndef PACKBOOK_VERSION
+#define PACKBOOK_VERSION "0.0.0"
+#endif
+
+struct command {
+    const char *name;
+    enum pb_code (*run)(int argc, char **argv, struct app *app, struct pb_error *err);
+    const char *summary;
+};
+
+static const struct command commands[] = {
+    {"analyze", cmd_analyze, "one flight log in, the pack's facts out"},
+    {"chemistry", cmd_chemistry, "the OCV tables and limits used, with their sources"},
+};
+
+static void print_usage(FILE *out)
+{
+    fprintf(out, "usage: packbook COMMAND [options] [ARGS]\n"
+                 "       packbook --help | --version\n\ncommands:\n");
+    for (size_t k = 0; k < sizeof commands / sizeof *commands; k++)
+        fprintf(out, "  %-12s %s\n", commands[k].name, commands[k].summary);
+    fprintf(out, "\n'packbook COMMAND --help' shows a command's options; man packbook has the\n"
+                 "rest, including exit statuses and the JSON keys.\n"
+                 "Estimates only: never a substitute for the aircraft's low-voltage protection.\n");
+}
+
+int main(int argc, char **argv)
+{
+    struct app app = {argv[0], 0};
+    struct pb_error err = {PB_OK, ""};
+
+    /* GSL would abort on error; every GSL call's status is checked instead */
+    gsl_set_error_handler_off();
+
+    if (argc < 2) {
+        print_usage(stderr);
+        return PB_EXIT_USAGE;
+    }
+    const char *verb = argv[1];
+    if (strcmp(verb, "--help") == 0 || strcmp(verb, "-h") == 0 || strcmp(verb, "help") == 0) {
+        print_usage(stdout);
+        return fflush(stdout) == 0 ? PB_EXIT_OK : PB_EXIT_INTERNAL;
+    }
+    if (strcmp(verb, "--version") == 0) {
+        printf("packbook %s\n", PACKBOOK_VERSION);
+        return fflush(stdout) == 0 ? PB_EXIT_OK : PB_EXIT_INTERNAL;
+    }
+    for (size_t k = 0; k < sizeof commands / sizeof *commands; k++) {
+        if (strcmp(commands[k].name, verb) != 0)
+            continue;
+        enum pb_code rc = commands[k].run(argc - 1, argv + 1, &app, &err);
+        if (rc != PB_OK) {
+            fprintf(stderr, "packbook: %s\n", err.msg[0] ? err.msg : pb_strerror(rc));
+            return pb_exit_status(rc);
+        }
+        return app.some_failed ? PB_EXIT_SOME_FAILED : PB_EXIT_OK;
+    }
+    fprintf(stderr, "packbook: unknown command '%s' (see 'packbook --help')\n", verb);
+    return PB_EXIT_USAGE;
+}

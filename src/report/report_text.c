@@ -1,0 +1,173 @@
+#include <math.h>
+#include <stdio.h>
+#include <string.h>
+
+#include "../core/isotime.h"
+#include "report.h"
+
+#define KEY_W 16
+
+static void key(FILE *out, const char *k)
+{
+    fprintf(out, "  %-*s", KEY_W, k);
+}
+
+static void duration(FILE *out, double s)
+{
+    long t = lround(s);
+    if (t >= 3600)
+        fprintf(out, "%ld h %02ld min %02ld s", t / 3600, (t / 60) % 60, t % 60);
+    else if (t >= 60)
+        fprintf(out, "%ld min %02ld s", t / 60, t % 60);
+    else
+        fprintf(out, "%.1f s", s);
+}
+
+static void est(FILE *out, struct estimate e, const char *fmt, const char *unit)
+{
+    if (!isfinite(e.value)) {
+        fprintf(out, "unknown");
+        return;
+    }
+    fprintf(out, fmt, e.value);
+    if (isfinite(e.ci95)) {
+        fprintf(out, " +/- ");
+        fprintf(out, fmt, e.ci95);
+    }
+    fprintf(out, " %s", unit);
+}
+
+int report_analysis_text(FILE *out, const struct analysis *a, const struct report_input *in)
+{
+    char when[40];
+    fprintf(out, "packbook analysis: %s\n", in->name);
+
+    key(out, "log");
+    fprintf(out, "%zu samples over ", a->samples);
+    duration(out, a->duration_s);
+    if (a->has_epoch)
+        fprintf(out, ", starting %s", isotime_format(a->start_epoch_s, when, sizeof when));
+    fprintf(out, "\n");
+
+    key(out, "pack");
+    if (a->cells > 0)
+        fprintf(out, "%dS %s (%s)", a->cells, a->chem->label, a->cells_source);
+    else
+        fprintf(out, "%s, cell count unknown", a->chem->label);
+    if (in->opts->capacity_mah > 0)
+        fprintf(out, ", rated %.0f mAh", in->opts->capacity_mah);
+    fprintf(out, "\n");
+
+    if (a->has_current) {
+        key(out, "charge used");
+        fprintf(out, "%.0f mAh (%.0f out, %.0f back by regeneration)\n", a->charge_used_mah,
+                a->cc.discharged_mah, a->cc.regen_mah);
+        key(out, "energy used");
+        fprintf(out, "%.2f Wh (%.2f out, %.2f back)\n", a->energy_used_wh, a->cc.discharged_wh,
+                a->cc.regen_wh);
+        key(out, "current");
+        fprintf(out, "mean %.2f A, max %.2f A", a->current_mean_a, a->current_max_a);
+        if (isfinite(a->c_rate_max))
+            fprintf(out, " (mean %.2f C, max %.2f C)", a->c_rate_mean, a->c_rate_max);
+        fprintf(out, "\n");
+        key(out, "power");
+        fprintf(out, "mean %.0f W, peak %.0f W\n", a->power_mean_w, a->power_max_w);
+    }
+    key(out, "voltage");
+    fprintf(out, "%.3f V at start, lowest %.3f V", a->voltage_start_v, a->voltage_min_v);
+    if (a->cells > 0)
+        fprintf(out, " (%.3f V/cell)", a->cell_min_loaded_v);
+    fprintf(out, ", %.3f V at end\n", a->voltage_end_v);
+    if (a->cells > 0) {
+        key(out, "below floor");
+        fprintf(out, "%.1f s under %.2f V/cell\n", a->time_below_floor_s, a->floor_v);
+    }
+    if (a->has_current) {
+        key(out, "resistance");
+        est(out, a->r0_mohm, "%.2f", "mOhm");
+        if (isfinite(a->r0_mohm.value)) {
+            if (a->cells > 0)
+                fprintf(out, " (%.2f mOhm/cell)", a->r0_mohm.value / a->cells);
+            fprintf(out, ", %s model", strcmp(a->r0_method, "rc") == 0 ? "R0 + RC" : "R0-only");
+        }
+        fprintf(out, "\n");
+        if (isfinite(a->tau_s.value)) {
+            key(out, "polarisation");
+            est(out, a->r1_mohm, "%.2f", "mOhm");
+            fprintf(out, ", time constant %.2f s\n", a->tau_s.value);
+        }
+    }
+    key(out, "open circuit");
+    fprintf(out, "%.3f V at start (%s), %.3f V at end (%s)\n", a->ocv_start_v,
+            a->ocv_start_method, a->ocv_end_v, a->ocv_end_method);
+    key(out, "state of charge");
+    est(out, a->soc_start_pct, "%.0f", "%");
+    if (a->state_start)
+        fprintf(out, " (%s)", a->state_start);
+    fprintf(out, " at start, ");
+    est(out, a->soc_end_pct, "%.0f", "%");
+    if (a->state_end)
+        fprintf(out, " (%s)", a->state_end);
+    fprintf(out, " at end\n");
+    key(out, "capacity");
+    est(out, a->capacity_mah, "%.0f", "mAh");
+    if (isfinite(a->capacity_mah.value) && in->opts->capacity_mah > 0)
+        fprintf(out, " (%.0f %% of rated)", 100.0 * a->capacity_mah.value / in->opts->capacity_mah);
+    fprintf(out, "\n");
+    if (a->has_temp && isfinite(a->temp_min_c)) {
+        key(out, "temperature");
+        fprintf(out, "%.1f to %.1f degC\n", a->temp_min_c, a->temp_max_c);
+    }
+    if (a->ncells_detail > 0) {
+        key(out, "cell spread");
+        if (isfinite(a->spread_rest_mv))
+            fprintf(out, "%.0f mV at rest", a->spread_rest_mv);
+        else
+            fprintf(out, "unknown at rest");
+        if (isfinite(a->spread_load_mv))
+            fprintf(out, ", up to %.0f mV under load", a->spread_load_mv);
+        fprintf(out, "; weakest cell %d\n", a->weakest_cell);
+        fprintf(out, "\n  %-6s %12s %18s %14s\n", "cell", "lowest V", "R0 mOhm", "rest V");
+        for (int c = 0; c < a->ncells_detail; c++) {
+            const struct cell_detail *d = &a->cell[c];
+            char r0[40] = "unknown", rest[24] = "unknown";
+            if (isfinite(d->r0_mohm.value))
+                snprintf(r0, sizeof r0, "%.2f +/- %.2f", d->r0_mohm.value, d->r0_mohm.ci95);
+            if (isfinite(d->voltage_rest_v))
+                snprintf(rest, sizeof rest, "%.3f", d->voltage_rest_v);
+            fprintf(out, "  %-6d %12.3f %18s %14s%s\n", d->index, d->voltage_min_v, r0, rest,
+                    d->index == a->weakest_cell ? "  <- weakest" : "");
+        }
+    }
+    const struct logread_stats *st = in->stats;
+    size_t dropped = st->bad_number.count + st->nonfinite.count + st->empty_field.count +
+                     st->short_row.count + st->duplicate_time.count;
+    fprintf(out, "\n  read %zu records, kept %zu, dropped %zu, repaired %zu\n", st->records,
+            st->kept, dropped, st->temp_repaired.count);
+    if (a->nwarnings) {
+        fprintf(out, "\nwarnings\n");
+        for (size_t k = 0; k < a->nwarnings; k++)
+            fprintf(out, "  [%s] %s\n", a->warnings[k].code, a->warnings[k].message);
+    }
+    fprintf(out, "\nEstimates, not guarantees: trust the aircraft's own low-voltage protection "
+                 "and the pack maker's limits.\n");
+    return ferror(out) ? -1 : 0;
+}
+
+int report_chemistry_text(FILE *out)
+{
+    for (int k = 0; k < CHEM_COUNT; k++) {
+        const struct chem_info *c = ocv_chem((enum chemistry)k);
+        fprintf(out, "%s (%s)\n  source: %s\n", c->name, c->label, c->source);
+        fprintf(out, "  floor %.2f V/cell loaded; full at rest >= %.2f V, empty <= %.2f V\n",
+                c->floor_v, c->full_rest_v, c->empty_rest_v);
+        fprintf(out, "  SoC %%  :");
+        for (size_t j = 0; j < c->npoints; j++)
+            fprintf(out, " %5.0f", c->soc_pct[j]);
+        fprintf(out, "\n  OCV V  :");
+        for (size_t j = 0; j < c->npoints; j++)
+            fprintf(out, " %5.2f", c->ocv_v[j]);
+        fprintf(out, "\n\n");
+    }
+    return ferror(out) ? -1 : 0;
+}
