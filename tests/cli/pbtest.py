@@ -1,0 +1,40 @@
+"""Shared helpers for packbook's CLI tests (run by meson with Debian's python3).
+
+PACKBOOK in the environment is the binary under test; meson sets it.
+"""
+import json
+import os
+import subprocess
+import tempfile
+
+HERE = os.path.dirname(os.path.abspath(__file__))
+ROOT = os.path.normpath(os.path.join(HERE, "..", ".."))
+DATA = os.path.join(ROOT, "tests", "data")
+PACKBOOK = os.environ.get("PACKBOOK") or os.path.join(ROOT, "build", "packbook")
+
+
+def run(*args, stdin=None, timeout=120):
+    """Runs packbook; returns (exit status, stdout, stderr)."""
+    p = subprocess.run([PACKBOOK, *map(str, args)], input=stdin, capture_output=True,
+                       timeout=timeout)
+    return p.returncode, p.stdout.decode("utf-8", "replace"), p.stderr.decode("utf-8", "replace")
+
+
+def analyze_json(path, *args):
+    """analyze --json on a file; returns the parsed document (asserts exit 0)."""
+    rc, out, err = run("analyze", path, "--json", *args)
+    if rc != 0:
+        raise AssertionError(f"packbook analyze {path} exited {rc}: {err}")
+    return json.loads(out)
+
+
+def write_temp(text, suffix=".csv", mode="w"):
+    """Writes text (or bytes with mode='wb') to a temporary file; returns its path."""
+    fd, path = tempfile.mkstemp(suffix=suffix, prefix="pbtest-")
+    with os.fdopen(fd, mode) as f:
+        f.write(text)
+    return path
+
+
+def warning_codes(doc):
+    return [w["code"] for w in doc["warnings"]]
