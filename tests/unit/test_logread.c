@@ -1,1 +1,220 @@
-int main(void){return 0;}
+/* logread: dialects, header mapping and the places named in messages.
+ * Inputs are small in-memory logs; the expected values are the logs' own
+ * numbers after the unit in the header (mV -> V, ms -> s, SI prefixes). */
+#define _GNU_SOURCE
+#include <setjmp.h>
+#include <stdarg.h>
+#include <stddef.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include <cmocka.h>
+
+#include "logread.h"
+#include "testutil.h"
+
+static struct series *read_text(const char *text, const struct logread_opts *o,
+                                struct logread_stats *st, struct pb_error *err)
+{
+    FILE *fp = fmemopen((void *)text, strlen(text), "r");
+    assert_non_null(fp);
+    struct series *s = logread_file(fp, "mem.csv", o, st, err);
+    fclose(fp);
+    return s;
+}
+
+static void test_semicolon_decimal_comma_ms_mv(void **state)
+{
+    (void)state;
+    const char *text = "\xEF\xBB\xBF# logger 7\r\nt_ms;vbat_mV;ibat_mA\r\n0;16800;1500,5\r\n"
+                       "100;16790;2500,0\r\n200;16780;3000,0\r\n";
+    struct logread_opts o = {0};
+    struct logread_stats st;
+    struct pb_error err = {0};
+    struct series *s = read_text(text, &o, &st, &err);
+    assert_non_null(s);
+    assert_int_equal(st.delimiter, ';');
+    assert_int_equal(st.decimal, ',');
+    assert_int_equal(st.bom, 1);
+    assert_int_equal(st.comment_lines, 1);
+    assert_int_equal(st.header_line, 2);
+    assert_int_equal(s->n, 3);
+    check_close(s->t_s[2], 0.2, 1e-12, "ms to s");
+    check_close(s->v_v[0], 16.8, 1e-12, "mV to V");
+    check_close(s->i_a[0], 1.5005, 1e-12, "mA with decimal comma to A");
+    series_free(s);
+}
+
+static void test_tab_quotes_trailing_empty(void **state)
+{
+    (void)state;
+    const char *text = "\"Time(s)\"\t\"Voltage(V)\"\t\"Current(A)\"\t\n1\t\"4.1\"\t2\t\n2\t4.0\t3\t\n";
+    struct logread_opts o = {0};
+    struct logread_stats st;
+    struct pb_error err = {0};
+    struct series *s = read_text(text, &o, &st, &err);
+    assert_non_null(s);
+    assert_int_equal(st.delimiter, '\t');
+    assert_int_equal(s->n, 2);
+    check_close(s->v_v[0], 4.1, 0.0, "quoted number");
+    check_close(s->t_s[1], 1.0, 0.0, "times relative to the first sample");
+    series_free(s);
+}
+
+static void test_counts_and_places(void **state)
+{
+    (void)state;
+    const char *text = "time_s,voltage_v,current_a\n"
+                       "0,16.0,1\n"
+                       "1,abc,1\n"     /* line 3 col 2: bad number */
+                       "2,nan,1\n"     /* line 4 col 2: non-finite */
+                       "2.5,,1\n"      /* line 5 col 2: empty */
+                       "3,16.0\n"      /* line 6: short */
+                       "4,15.9,2\n"
+                       "4,15.9,2\n"    /* line 8: duplicate time */
+                       "5,15.8,2,9\n"  /* line 9: extra field */
+                       "6,15.7";       /* line 10: truncated */
+    struct logread_opts o = {0};
+    struct logread_stats st;
+    struct pb_error err = {0};
+    struct series *s = read_text(text, &o, &st, &err);
+    assert_non_null(s);
+    assert_int_equal(s->n, 3);
+    assert_int_equal(st.bad_number.count, 1);
+    assert_int_equal(st.bad_number.first_line, 3);
+    assert_int_equal(st.bad_number.first_column, 2);
+    assert_int_equal(st.nonfinite.first_line, 4);
+    assert_int_equal(st.empty_field.first_line, 5);
+    assert_int_equal(st.short_row.count, 2);
+    assert_int_equal(st.short_row.first_line, 6);
+    assert_int_equal(st.duplicate_time.first_line, 8);
+    assert_int_equal(st.long_row.first_line, 9);
+    assert_int_equal(st.truncated_last_line, 1);
+    series_free(s);
+}
+
+static void test_backwards_time_fails_with_place(void **state)
+{
+    (void)state;
+    const char *text = "time_s,voltage_v\n0,16\n1,16\n0.5,16\n";
+    struct logread_opts o = {0};
+    struct logread_stats st;
+    struct pb_error err = {0};
+    assert_null(read_text(text, &o, &st, &err));
+    assert_int_equal(err.code, PB_EINPUT);
+    assert_non_null(strstr(err.msg, "mem.csv:4:1:"));
+    assert_non_null(strstr(err.msg, "backwards"));
+}
+
+static void test_headerless_needs_columns(void **state)
+{
+    (void)state;
+    const char *text = "0,16.0,2\n1,15.9,3\n2,15.8,4\n";
+    struct logread_opts o = {0};
+    struct logread_stats st;
+    struct pb_error err = {0};
+    assert_null(read_text(text, &o, &st, &err));
+    assert_non_null(strstr(err.msg, "--columns"));
+    o.columns = "time_s,voltage_v,current_a";
+    struct series *s = read_text(text, &o, &st, &err);
+    assert_non_null(s);
+    assert_int_equal(s->n, 3);
+    series_free(s);
+}
+
+static void test_epoch_and_iso(void **state)
+{
+    (void)state;
+    struct logread_opts o = {0};
+    struct logread_stats st;
+    struct pb_error err = {0};
+    struct series *s = read_text("time,voltage\n946684800.5,4\n946684801.5,4\n", &o, &st, &err);
+    assert_non_null(s);
+    assert_int_equal(s->has_epoch, 1);
+    check_close(s->start_epoch_s, 946684800.5, 1e-6, "epoch start");
+    check_close(s->t_s[1], 1.0, 1e-9, "epoch relative");
+    series_free(s);
+    s = read_text("timestamp,voltage\n2000-01-01T00:00:00Z,4\n2000-01-01T00:00:00.5Z,4\n", &o, &st,
+                  &err);
+    assert_non_null(s);
+    assert_int_equal(st.time_is_iso, 1);
+    check_close(s->start_epoch_s, 946684800.0, 1e-6, "ISO start (POSIX epoch)");
+    check_close(s->t_s[1], 0.5, 1e-9, "ISO fraction");
+    series_free(s);
+    s = read_text("time,voltage\n946684800000,4\n946684800250,4\n", &o, &st, &err);
+    assert_non_null(s);
+    check_close(s->t_s[1], 0.25, 1e-9, "epoch milliseconds");
+    series_free(s);
+}
+
+static void test_cells_and_sign(void **state)
+{
+    (void)state;
+    /* discharge logged negative, voltage falling: auto flips the sign */
+    const char *text = "time_s,current_a,cell1_v,cell2_v\n0,-10,4.1,4.0\n1,-12,4.0,3.9\n"
+                       "2,-11,3.9,3.8\n3,-10,3.85,3.75\n";
+    struct logread_opts o = {0};
+    struct logread_stats st;
+    struct pb_error err = {0};
+    struct series *s = read_text(text, &o, &st, &err);
+    assert_non_null(s);
+    assert_int_equal(s->ncells, 2);
+    assert_int_equal(st.voltage_from_cells, 1);
+    assert_int_equal(st.sign_flipped, 1);
+    check_close(s->v_v[0], 8.1, 1e-12, "pack voltage as the sum of cells");
+    check_close(s->i_a[1], 12.0, 0.0, "flipped current");
+    series_free(s);
+}
+
+static void test_adc_sense_chain(void **state)
+{
+    (void)state;
+    /* common practice: 14000:1 sense ratio into 510 ohm gives 510/14000 =
+     * 0.0364 V per A; a 10-bit ADC at 3.3 V has 3.3/1024 V per count, so
+     * 0.0885 A per count (about 0.089) */
+    double a = logread_adc_a_per_count(10, 3.3, 14000.0, 510.0);
+    check_close(a, 0.089, 0.0006, "A per count, sense chain (common practice)");
+    check_close(510.0 / 14000.0, 0.036, 0.0005, "V per A (common practice)");
+    struct logread_opts o = {.have_adc = 1, .adc_a_per_count = a, .adc_offset_counts = 12};
+    struct logread_stats st;
+    struct pb_error err = {0};
+    struct series *s = read_text("time_s,voltage_v,current_adc\n0,16,12\n1,16,112\n", &o, &st, &err);
+    assert_non_null(s);
+    check_close(s->i_a[1], 100 * a, 1e-12, "counts minus offset times scale");
+    series_free(s);
+}
+
+static void test_field_too_long(void **state)
+{
+    (void)state;
+    size_t n = 200000;
+    char *text = malloc(n + 64);
+    strcpy(text, "time_s,voltage_v\n0,");
+    size_t at = strlen(text);
+    memset(text + at, '7', n);
+    strcpy(text + at + n, "\n");
+    struct logread_opts o = {0};
+    struct logread_stats st;
+    struct pb_error err = {0};
+    assert_null(read_text(text, &o, &st, &err));
+    assert_non_null(strstr(err.msg, "mem.csv:2:2:"));
+    assert_non_null(strstr(err.msg, "longer than"));
+    free(text);
+}
+
+int main(void)
+{
+    const struct CMUnitTest tests[] = {
+        cmocka_unit_test(test_semicolon_decimal_comma_ms_mv),
+        cmocka_unit_test(test_tab_quotes_trailing_empty),
+        cmocka_unit_test(test_counts_and_places),
+        cmocka_unit_test(test_backwards_time_fails_with_place),
+        cmocka_unit_test(test_headerless_needs_columns),
+        cmocka_unit_test(test_epoch_and_iso),
+        cmocka_unit_test(test_cells_and_sign),
+        cmocka_unit_test(test_adc_sense_chain),
+        cmocka_unit_test(test_field_too_long),
+    };
+    return cmocka_run_group_tests(tests, NULL, NULL);
+}
