@@ -510,8 +510,13 @@ static enum pb_code fit_pack(struct analysis *a, const struct series *s,
         return PB_OK;
     double r1 = fr.beta[p], r1_ci = fit_ci95(&fr, p);
     double r0 = fr.beta[p - 1];
-    int better = bic(fr_plain.rss, s->n, p + 2) < bic(fs_plain.rss, s->n, p) - BIC_MARGIN;
-    if (!better || !(r1 > r1_ci) || !(r0 > 0.0))
+    /* the branch must explain real residual (not rounding of an exact fit),
+     * beat the static model by the information criterion, and be a
+     * polarisation worth the name: R1 significant and above 2 % of R0 */
+    double sigma_static = sqrt(fs_plain.rss / (double)s->n);
+    int better = sigma_static > 1e-6 && fr_plain.rss < 0.95 * fs_plain.rss &&
+                 bic(fr_plain.rss, s->n, p + 2) < bic(fs_plain.rss, s->n, p) - BIC_MARGIN;
+    if (!better || !(r1 > r1_ci) || !(r1 > 0.02 * r0) || !(r0 > 0.0))
         return PB_OK;
     a->r1_mohm = (struct estimate){1000.0 * r1, 1000.0 * r1_ci};
     a->tau_s = (struct estimate){tau, NAN};
