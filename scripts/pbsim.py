@@ -152,7 +152,7 @@ def main():
         out.write("t_ms;vbat_mV;ibat_mA\n")
         for k in range(len(t)):
             out.write(f"{int(round(t[k] * 1000))};{int(round(v_meas[k] * 1000))};"
-                      f"{i_meas[k] * 1000:.0f}\n".replace(".", ","))
+                      f"{i_meas[k] * 1000:.1f}\n".replace(".", ","))
     else:
         head = {"plain": "time_s,voltage_v,current_a", "cells": "time_s,voltage_v,current_a",
                 "adc": "time_s,voltage_v,current_adc", "voltage-only": "time_s,voltage_v",

@@ -309,20 +309,18 @@ static void infer_cells(struct analysis *a, const struct series *s, const struct
         return;
     }
     a->cells_source = "inferred";
+    /* Every count that keeps the cells between the chemistry's charged
+     * limit and its lowest loaded voltage fits; the fewest cells is the
+     * likeliest, since packs are mostly flown from (near) full charge. */
     int best = 0;
-    double best_d = HUGE_VAL;
-    double mid = ocv_from_soc(c, 50.0);
     for (int n = 1; n <= PB_MAX_CELLS; n++) {
         double hi = a->voltage_max_v / n, lo = a->voltage_min_v / n;
         if (hi > c->max_v * 1.01 || lo < c->min_loaded_v * 0.99)
             continue;
         if (a->n_cells_alternatives < 4)
             a->cells_alternatives[a->n_cells_alternatives++] = n;
-        double d = fabs(a->voltage_start_v / n - mid);
-        if (d < best_d) {
-            best_d = d;
+        if (!best)
             best = n;
-        }
     }
     a->cells = best;
     if (best == 0) {
