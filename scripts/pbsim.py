@@ -109,6 +109,7 @@ def main():
     ap.add_argument("--adc-a-per-count", type=float, default=0.0)
     ap.add_argument("--start-epoch", type=float, default=1776496930.0)
     ap.add_argument("--temp-c", type=float, default=float("nan"))
+    ap.add_argument("--comment", action="append", default=[], help="a '# ' line at the top")
     ap.add_argument("--packbook", default=None)
     ap.add_argument("--truth", default=None, help="write the truth as JSON here")
     ap.add_argument("-o", "--output", default="-")
@@ -147,6 +148,8 @@ def main():
 
     out = sys.stdout if a.output == "-" else open(a.output, "w", newline="")
     f = a.format
+    for line in a.comment:
+        out.write(f"# {line}\n")
     if f == "semicolon":
         out.write("# time in ms, decimal comma\n")
         out.write("t_ms;vbat_mV;ibat_mA\n")
