@@ -14,7 +14,9 @@
 #define MIN_SOC_SWING_PCT 15.0 /* below this, capacity = Q / dSoC is too uncertain */
 #define REST_MIN_START_S 2.0   /* rest at the start long enough to read OCV */
 #define REST_MIN_END_S 60.0    /* rest at the end: polarisation must have relaxed */
-#define TAU_GRID 14
+#define TAU_GRID 10
+#define TAU_MAX_S 300.0       /* polarisation slower than this is left to the OCV drift */
+#define SEARCH_ROWS 200000    /* rows the tau searches look at (evenly spread) */
 #define BIC_MARGIN 10.0        /* the RC model must beat the static one by this */
 
 struct analysis *analysis_new(void)
@@ -71,9 +73,12 @@ struct model {
     double q_ah;
     double rc;          /* first-order filtered current for the RC branch */
     double tau_s;
+    double a_dt, a_val;  /* last interval and its exp(-dt/tau), reused while dt repeats */
     double dt_med;
     /* ARX row selection */
     double dt_tol;
+    /* searches use every stride-th row (the state still advances on all) */
+    size_t stride;
 };
 
 static void advance_charge(struct model *m, size_t k)
@@ -82,14 +87,18 @@ static void advance_charge(struct model *m, size_t k)
     if (k == 0) {
         m->q_ah = 0.0;
         m->rc = s->i_a[0];
+        m->a_dt = -1.0;
         return;
     }
     double dt = s->t_s[k] - s->t_s[k - 1];
     m->q_ah += coulomb_step_ah(dt, s->i_a[k - 1], s->i_a[k]);
     if (m->tau_s > 0.0) {
         /* zero-order hold of the current over the interval */
-        double a = exp(-dt / m->tau_s);
-        m->rc = a * m->rc + (1.0 - a) * s->i_a[k - 1];
+        if (fabs(dt - m->a_dt) > 1e-9 * dt) {
+            m->a_dt = dt;
+            m->a_val = exp(-dt / m->tau_s);
+        }
+        m->rc = m->a_val * m->rc + (1.0 - m->a_val) * s->i_a[k - 1];
     }
 }
 
@@ -109,6 +118,8 @@ static int row_static(void *ctx, size_t k, double *x, double *y)
 {
     struct model *m = ctx;
     advance_charge(m, k);
+    if (m->stride > 1 && k % m->stride)
+        return 0;
     int j = ocv_basis(m, x);
     x[j] = -m->s->i_a[k];
     *y = m->y_v[k] - m->v_ref;
@@ -120,6 +131,8 @@ static int row_rc(void *ctx, size_t k, double *x, double *y)
 {
     struct model *m = ctx;
     advance_charge(m, k);
+    if (m->stride > 1 && k % m->stride)
+        return 0;
     int j = ocv_basis(m, x);
     x[j] = -m->s->i_a[k];
     x[j + 1] = -m->rc;
@@ -133,7 +146,7 @@ static int row_arx(void *ctx, size_t k, double *x, double *y)
     struct model *m = ctx;
     const struct series *s = m->s;
     advance_charge(m, k);
-    if (k == 0)
+    if (k == 0 || (m->stride > 1 && k % m->stride))
         return 0;
     double dt = s->t_s[k] - s->t_s[k - 1];
     if (fabs(dt - m->dt_med) > m->dt_tol)
@@ -175,7 +188,7 @@ static double rss_at(double log_tau, void *ctx)
     struct tau_search *ts = ctx;
     struct fit_result f;
     ts->m->tau_s = exp(log_tau);
-    if (fit_linear(ts->m->s->n, ts->p, row_rc, ts->m, 0, NULL, &f, NULL) != PB_OK) {
+    if (fit_linear(ts->m->s->n, ts->p, row_rc, ts->m, 0, &f, NULL) != PB_OK) {
         ts->failed = 1;
         return HUGE_VAL;
     }
@@ -188,7 +201,7 @@ static double rss_at(double log_tau, void *ctx)
 static double search_tau(struct model *m, int p, double tau_arx, double duration_s)
 {
     double lo = log(fmax(m->dt_med, 1e-3));
-    double hi = log(fmax(duration_s / 3.0, 2.0 * m->dt_med));
+    double hi = log(fmax(fmin(duration_s / 3.0, TAU_MAX_S), 2.0 * m->dt_med));
     if (hi - lo < 1.0)
         return NAN;
     struct tau_search ts = {m, p, HUGE_VAL, 0};
@@ -226,7 +239,7 @@ static double search_tau(struct model *m, int p, double tau_arx, double duration
                 break;
             double a = gsl_min_fminimizer_x_lower(mz), b = gsl_min_fminimizer_x_upper(mz);
             x = gsl_min_fminimizer_x_minimum(mz);
-            if (gsl_min_test_interval(a, b, 1e-4, 0.0) == GSL_SUCCESS)
+            if (gsl_min_test_interval(a, b, 1e-3, 0.0) == GSL_SUCCESS)
                 break;
         }
     }
@@ -455,7 +468,7 @@ static size_t index_at_or_after(const struct series *s, double t)
 
 /* Fits the resistance models to pack voltage; fills r0, rc, OCV ends. */
 static enum pb_code fit_pack(struct analysis *a, const struct series *s,
-                             const struct analyze_opts *o, double *scratch, struct pb_error *err,
+                             const struct analyze_opts *o, struct pb_error *err,
                              struct fit_result *chosen, struct model *chosen_model, int *chosen_p)
 {
     struct model m = {.s = s, .y_v = s->v_v, .v_ref = s->v_v[0],
@@ -466,7 +479,7 @@ static enum pb_code fit_pack(struct analysis *a, const struct series *s,
     a->q_end_ah = m.q_end_ah;
     int p = m.degree + 2;
     struct fit_result fs;
-    enum pb_code rc = fit_linear(s->n, p, row_static, &m, !o->plain_fit, scratch, &fs, err);
+    enum pb_code rc = fit_linear(s->n, p, row_static, &m, !o->plain_fit, &fs, err);
     if (rc != PB_OK)
         return rc;
     *chosen = fs;
@@ -476,15 +489,17 @@ static enum pb_code fit_pack(struct analysis *a, const struct series *s,
     a->r_static_mohm = (struct estimate){1000.0 * r_static, 1000.0 * fit_ci95(&fs, p - 1)};
     a->fit_sigma_mv = 1000.0 * fs.sigma;
     a->fit_downweighted = fs.n_downweighted;
+    a->fit_iterations = fs.iterations;
 
     /* RC branch: only with step changes in current and a regular sampling */
     if (a->current_steps == 0 || s->n < 50)
         return PB_OK;
     struct model ma = m;
     ma.dt_tol = 0.1 * a->median_dt_s;
+    ma.stride = s->n / SEARCH_ROWS + 1;
     struct fit_result fa;
     double tau_arx = NAN;
-    if (fit_linear(s->n, 5, row_arx, &ma, !o->plain_fit, scratch, &fa, NULL) == PB_OK &&
+    if (fit_linear(s->n, 5, row_arx, &ma, !o->plain_fit, &fa, NULL) == PB_OK &&
         fa.rank == 5) {
         double a1 = fa.beta[1];
         if (a1 > 0.0 && a1 < 1.0)
@@ -492,28 +507,25 @@ static enum pb_code fit_pack(struct analysis *a, const struct series *s,
     }
     struct model mr = m;
     mr.tau_s = 1.0;
+    mr.stride = s->n / SEARCH_ROWS + 1;
     double tau = search_tau(&mr, p + 1, tau_arx, a->duration_s);
     if (!isfinite(tau))
         return PB_OK;
     mr.tau_s = tau;
+    mr.stride = 1;
     struct fit_result fr;
-    if (fit_linear(s->n, p + 1, row_rc, &mr, !o->plain_fit, scratch, &fr, NULL) != PB_OK ||
+    if (fit_linear(s->n, p + 1, row_rc, &mr, !o->plain_fit, &fr, NULL) != PB_OK ||
         fr.rank < p + 1)
-        return PB_OK;
-    /* compare plain residual sums, the RC model paying for R1 and tau */
-    struct fit_result fs_plain, fr_plain;
-    struct model m2 = m, mr2 = mr;
-    if (fit_linear(s->n, p, row_static, &m2, 0, NULL, &fs_plain, NULL) != PB_OK ||
-        fit_linear(s->n, p + 1, row_rc, &mr2, 0, NULL, &fr_plain, NULL) != PB_OK)
         return PB_OK;
     double r1 = fr.beta[p], r1_ci = fit_ci95(&fr, p);
     double r0 = fr.beta[p - 1];
     /* the branch must explain real residual (not rounding of an exact fit),
      * beat the static model by the information criterion, and be a
      * polarisation worth the name: R1 significant and above 2 % of R0 */
-    double sigma_static = sqrt(fs_plain.rss / (double)s->n);
-    int better = sigma_static > 1e-6 && fr_plain.rss < 0.95 * fs_plain.rss &&
-                 bic(fr_plain.rss, s->n, p + 2) < bic(fs_plain.rss, s->n, p) - BIC_MARGIN;
+    /* compared on the plain residual sums, the RC model paying for R1 and tau */
+    double sigma_static = sqrt(fs.rss_plain / (double)s->n);
+    int better = sigma_static > 1e-6 && fr.rss_plain < 0.95 * fs.rss_plain &&
+                 bic(fr.rss_plain, s->n, p + 2) < bic(fs.rss_plain, s->n, p) - BIC_MARGIN;
     if (!better || !(r1 > r1_ci) || !(r1 > 0.02 * r0) || !(r0 > 0.0))
         return PB_OK;
     a->r1_mohm = (struct estimate){1000.0 * r1, 1000.0 * r1_ci};
@@ -523,6 +535,7 @@ static enum pb_code fit_pack(struct analysis *a, const struct series *s,
     *chosen_p = p + 1;
     a->fit_sigma_mv = 1000.0 * fr.sigma;
     a->fit_downweighted = fr.n_downweighted;
+    a->fit_iterations = fr.iterations;
     return PB_OK;
 }
 
@@ -562,7 +575,7 @@ static void ends_from_rest(struct analysis *a, const struct series *s, double r_
 /* Per-cell figures; the resistance uses the pack's chosen model (with the
  * pack's tau when the RC branch was fitted) so cells compare with the pack. */
 static void per_cell(struct analysis *a, const struct series *s, const struct analyze_opts *o,
-                     double *scratch, int identifiable)
+                     int identifiable)
 {
     a->ncells_detail = s->ncells;
     for (int c = 0; c < s->ncells; c++) {
@@ -581,8 +594,8 @@ static void per_cell(struct analysis *a, const struct series *s, const struct an
             int jr = m.degree + 1;
             m.tau_s = is_rc ? a->tau_s.value : 0.0;
             struct fit_result f;
-            if (fit_linear(s->n, p, is_rc ? row_rc : row_static, &m, !o->plain_fit, scratch, &f,
-                           NULL) == PB_OK)
+            if (fit_linear(s->n, p, is_rc ? row_rc : row_static, &m, !o->plain_fit, &f, NULL) ==
+                PB_OK)
                 d->r0_mohm = (struct estimate){1000.0 * f.beta[jr], 1000.0 * fit_ci95(&f, jr)};
         }
     }
@@ -630,7 +643,6 @@ enum pb_code analyze_series(const struct series *s, const struct logread_stats *
                             const char *name, const struct analyze_opts *o, struct analysis *a,
                             struct pb_error *err)
 {
-    double *scratch = NULL;
     enum pb_code rc = PB_OK;
 
     a->samples = s->n;
@@ -673,12 +685,6 @@ enum pb_code analyze_series(const struct series *s, const struct logread_stats *
             a->temp_min_c = a->temp_max_c = NAN;
     }
 
-    scratch = malloc(s->n * sizeof *scratch);
-    if (!scratch) {
-        rc = pb_error_set(err, PB_ENOMEM, "out of memory");
-        goto cleanup;
-    }
-
     int identifiable = 0;
     double r_ohm = 0.0;
     if (!s->i_a) {
@@ -692,7 +698,7 @@ enum pb_code analyze_series(const struct series *s, const struct logread_stats *
         struct fit_result f;
         struct model m;
         int p = 0;
-        rc = fit_pack(a, s, o, scratch, err, &f, &m, &p);
+        rc = fit_pack(a, s, o, err, &f, &m, &p);
         if (rc != PB_OK)
             goto cleanup;
         int is_rc = isfinite(a->tau_s.value);
@@ -775,7 +781,7 @@ enum pb_code analyze_series(const struct series *s, const struct logread_stats *
     }
     if (a->cells <= 0)
         warn(a, "soc_not_estimable", "SoC needs the cell count (give --cells)");
-    per_cell(a, s, o, scratch, identifiable);
+    per_cell(a, s, o, identifiable);
     if (s->ncells > 0 && !st->voltage_from_cells) {
         double worst = 0.0;
         for (size_t k = 0; k < s->n; k += 1 + s->n / 1000) {
@@ -790,6 +796,5 @@ enum pb_code analyze_series(const struct series *s, const struct logread_stats *
                  "balance lead and the column mapping", 100.0 * worst);
     }
 cleanup:
-    free(scratch);
     return rc;
 }

@@ -86,6 +86,7 @@ struct analysis {
     const char *r0_method;         /* "rc", "static" or NULL */
     double fit_sigma_mv;
     size_t fit_downweighted;
+    int fit_iterations;            /* reweighting passes of the chosen fit */
     int ocv_degree;                /* polynomial degree of the OCV drift */
     double ocv_coef_v[OCV_POLY_MAX];/* OCV(u) = sum c_j u^j, u = 2 q/q_end - 1 */
     double q_end_ah;

@@ -5,6 +5,7 @@
 #include <gsl/gsl_matrix.h>
 #include <gsl/gsl_statistics_double.h>
 #include <math.h>
+#include <stdlib.h>
 #include <string.h>
 
 #define BISQUARE_C 4.685
@@ -20,7 +21,12 @@ struct normal_eq {
     size_t n_low;
 };
 
-enum pass { PASS_PLAIN, PASS_WEIGHTED, PASS_RESIDUALS };
+#define SCALE_SAMPLES 65536 /* residuals kept for the robust scale */
+
+struct scale_sample {
+    double *r;    /* |residual| of every m-th used row */
+    size_t n, m;
+};
 
 static double dot(const double *x, const double *beta, int p)
 {
@@ -30,30 +36,33 @@ static double dot(const double *x, const double *beta, int p)
     return s;
 }
 
-/* One pass over the rows. PASS_RESIDUALS stores |r| in scratch and returns
- * the count through ne->n_used; the others sum the normal equations. */
-static void run_pass(size_t n, int p, fit_row_fn row, void *ctx, enum pass mode,
-                     const double *beta, double scale, double *scratch, struct normal_eq *ne)
+/* One pass over the rows: sums the normal equations, weighted by Tukey's
+ * bisquare at the given scale when beta is not NULL, and keeps a sample of
+ * the |residuals| at beta for the next scale when ss is not NULL. */
+static void run_pass(size_t n, int p, fit_row_fn row, void *ctx, const double *beta, double scale,
+                     struct scale_sample *ss, struct normal_eq *ne)
 {
     double x[FIT_MAX_P], y;
     memset(ne, 0, sizeof *ne);
+    if (ss)
+        ss->n = 0;
     for (size_t k = 0; k < n; k++) {
         if (!row(ctx, k, x, &y))
             continue;
-        if (mode == PASS_RESIDUALS) {
-            scratch[ne->n_used++] = fabs(y - dot(x, beta, p));
-            continue;
-        }
         double w = 1.0;
-        if (mode == PASS_WEIGHTED) {
-            double u = (y - dot(x, beta, p)) / (BISQUARE_C * scale);
-            w = fabs(u) < 1.0 ? (1.0 - u * u) * (1.0 - u * u) : 0.0;
-            ne->n_low += w < 0.5;
-            if (w == 0.0) {
-                ne->n_used++;
-                continue;
+        if (beta) {
+            double r = y - dot(x, beta, p);
+            if (ss && ne->n_used % ss->m == 0 && ss->n < SCALE_SAMPLES)
+                ss->r[ss->n++] = fabs(r);
+            if (scale > 0.0) {
+                double u = r / (BISQUARE_C * scale);
+                w = fabs(u) < 1.0 ? (1.0 - u * u) * (1.0 - u * u) : 0.0;
+                ne->n_low += w < 0.5;
             }
         }
+        ne->n_used++;
+        if (w == 0.0)
+            continue;
         for (int i = 0; i < p; i++) {
             double wx = w * x[i];
             for (int j = i; j < p; j++)
@@ -62,7 +71,6 @@ static void run_pass(size_t n, int p, fit_row_fn row, void *ctx, enum pass mode,
         }
         ne->yy += w * y * y;
         ne->wsum += w;
-        ne->n_used++;
     }
 }
 
@@ -128,43 +136,62 @@ double fit_median(double *a, size_t n)
     return gsl_stats_median(a, 1, n);
 }
 
-enum pb_code fit_linear(size_t n, int p, fit_row_fn row, void *ctx, int robust, double *scratch,
+enum pb_code fit_linear(size_t n, int p, fit_row_fn row, void *ctx, int robust,
                         struct fit_result *out, struct pb_error *err)
 {
     struct normal_eq ne;
     double inv[FIT_MAX_P][FIT_MAX_P];
     double beta[FIT_MAX_P] = {0};
     int rank = 0;
+    struct scale_sample ss = {NULL, 0, n / SCALE_SAMPLES + 1};
 
     memset(out, 0, sizeof *out);
     if (p < 1 || p > FIT_MAX_P)
         return pb_error_set(err, PB_ENUMERIC, "fit: %d columns is out of range", p);
     out->p = p;
-    run_pass(n, p, row, ctx, PASS_PLAIN, NULL, 0.0, NULL, &ne);
+    run_pass(n, p, row, ctx, NULL, 0.0, NULL, &ne);
     if (ne.n_used <= (size_t)p)
         return pb_error_set(err, PB_ENUMERIC, "fit: %zu rows for %d unknowns", ne.n_used, p);
     if (solve(&ne, p, beta, inv, &rank) != 0)
         return pb_error_set(err, PB_ENUMERIC, "fit: eigensolver failed");
-    out->iterations = 0;
-    if (robust && scratch) {
-        for (int it = 1; it <= 25; it++) {
-            struct normal_eq rq;
-            run_pass(n, p, row, ctx, PASS_RESIDUALS, beta, 0.0, scratch, &rq);
-            double scale = MAD_TO_SIGMA * fit_median(scratch, rq.n_used);
-            if (!(scale > 0.0))
-                break; /* an exact fit: nothing to reweight */
+    out->rss_plain = ne.yy;
+    for (int j = 0; j < p; j++)
+        out->rss_plain -= beta[j] * ne.b[j];
+    out->rss_plain = fmax(out->rss_plain, 0.0);
+    if (robust) {
+        ss.r = malloc(SCALE_SAMPLES * sizeof *ss.r);
+        if (!ss.r)
+            return pb_error_set(err, PB_ENOMEM, "out of memory");
+        /* each pass weights by the scale of the previous pass's residuals
+         * and samples its own; at convergence the two agree */
+        double scale = 0.0;
+        for (int it = 1; it <= 15; it++) {
             double prev[FIT_MAX_P];
             memcpy(prev, beta, sizeof prev);
-            run_pass(n, p, row, ctx, PASS_WEIGHTED, beta, scale, NULL, &ne);
-            if (ne.wsum <= p || solve(&ne, p, beta, inv, &rank) != 0)
-                return pb_error_set(err, PB_ENUMERIC, "fit: reweighting left too few rows");
-            out->iterations = it;
-            double change = 0.0;
-            for (int j = 0; j < p; j++)
-                change = fmax(change, fabs(beta[j] - prev[j]) / (fabs(prev[j]) + 1e-9));
-            if (change < 1e-7)
-                break;
+            run_pass(n, p, row, ctx, beta, scale, &ss, &ne);
+            double next = MAD_TO_SIGMA * fit_median(ss.r, ss.n);
+            if (!(next > 0.0))
+                break; /* an exact fit: nothing to reweight */
+            if (scale > 0.0) {
+                if (ne.wsum <= p || solve(&ne, p, beta, inv, &rank) != 0) {
+                    free(ss.r);
+                    return pb_error_set(err, PB_ENUMERIC, "fit: reweighting left too few rows");
+                }
+                out->iterations = it - 1;
+                /* converged when no coefficient moves by more than a
+                 * twentieth of its own standard error: far below what
+                 * is reported, and IRLS on a misfitting model creeps */
+                double change = 0.0;
+                for (int j = 0; j < p; j++) {
+                    double se = next * sqrt(fmax(inv[j][j], 0.0));
+                    change = fmax(change, fabs(beta[j] - prev[j]) / (se + 1e-300));
+                }
+                if (change < 0.05)
+                    break;
+            }
+            scale = next;
         }
+        free(ss.r);
         out->n_downweighted = ne.n_low;
     }
     /* residual sum of squares from the sums: y'Wy - beta'X'Wy */

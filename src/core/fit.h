@@ -8,7 +8,8 @@
  * every pass, so a callback may carry state from row to row.
  *
  * Robust mode is iteratively reweighted least squares with Tukey's
- * bisquare weight (c = 4.685) and scale = 1.4826 * median |residual|. */
+ * bisquare weight (c = 4.685) and scale = 1.4826 * median |residual|, the
+ * median taken over an even sample of at most 65536 rows. */
 #ifndef PB_FIT_H
 #define PB_FIT_H
 
@@ -29,15 +30,16 @@ struct fit_result {
     double cov[FIT_MAX_P][FIT_MAX_P];
     double sigma;                 /* residual standard deviation (weighted) */
     double rss;                   /* weighted residual sum of squares */
+    double rss_plain;             /* residual sum of squares of the unweighted fit */
     double dof;                   /* effective rows minus rank */
     size_t n_used;                /* rows the callback gave */
     size_t n_downweighted;        /* rows with final weight < 0.5 (robust) */
     int iterations;
 };
 
-/* Fits n rows of p columns. scratch: n doubles for robust mode (unused,
- * may be NULL, when robust == 0). Returns PB_OK or an error in err. */
-enum pb_code fit_linear(size_t n, int p, fit_row_fn row, void *ctx, int robust, double *scratch,
+/* Fits n rows of p columns (robust: reweighted). Returns PB_OK or an
+ * error in err. */
+enum pb_code fit_linear(size_t n, int p, fit_row_fn row, void *ctx, int robust,
                         struct fit_result *out, struct pb_error *err);
 
 /* Half-width of the two-sided 95 % interval of coefficient j (Student t). */
