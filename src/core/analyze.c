@@ -62,49 +62,38 @@ static struct estimate none(void)
 
 /* Shared by every fit: the series, the reference voltage subtracted from y
  * (so the sums do not lose the residuals to cancellation), which y column,
- * and the running charge for the OCV drift term. */
+ * and the normalised charge u = 2 q / q_end - 1 of every sample. */
 struct model {
     const struct series *s;
     const double *y_v;  /* pack or one cell's voltage */
     double v_ref;
     int degree;         /* OCV polynomial degree */
-    double q_end_ah;
-    /* running state, reset at k == 0 */
-    double q_ah;
-    double rc;          /* first-order filtered current for the RC branch */
+    const double *u;    /* normalised charge per sample */
+    /* RC branch state, reset at k == 0 */
+    double rc;          /* first-order filtered current */
     double tau_s;
-    double a_dt, a_val;  /* last interval and its exp(-dt/tau), reused while dt repeats */
+    double a_dt, a_val; /* last interval and its exp(-dt/tau), reused while dt repeats */
     double dt_med;
-    /* ARX row selection */
-    double dt_tol;
-    /* searches use every stride-th row (the state still advances on all) */
+    double dt_tol;      /* ARX: rows whose interval is within this of the median */
+    /* searches use every stride-th row; the RC state still advances on all */
     size_t stride;
 };
 
-static void advance_charge(struct model *m, size_t k)
+/* Row j of a fit that needs no running state is sample j * stride. */
+static size_t rows_of(const struct model *m)
 {
-    const struct series *s = m->s;
-    if (k == 0) {
-        m->q_ah = 0.0;
-        m->rc = s->i_a[0];
-        m->a_dt = -1.0;
-        return;
-    }
-    double dt = s->t_s[k] - s->t_s[k - 1];
-    m->q_ah += coulomb_step_ah(dt, s->i_a[k - 1], s->i_a[k]);
-    if (m->tau_s > 0.0) {
-        /* zero-order hold of the current over the interval */
-        if (fabs(dt - m->a_dt) > 1e-9 * dt) {
-            m->a_dt = dt;
-            m->a_val = exp(-dt / m->tau_s);
-        }
-        m->rc = m->a_val * m->rc + (1.0 - m->a_val) * s->i_a[k - 1];
-    }
+    size_t st = m->stride > 1 ? m->stride : 1;
+    return (m->s->n + st - 1) / st;
 }
 
-static int ocv_basis(const struct model *m, double *x)
+static size_t sample_of(const struct model *m, size_t j)
 {
-    double u = m->q_end_ah != 0.0 ? 2.0 * m->q_ah / m->q_end_ah - 1.0 : 0.0;
+    return m->stride > 1 ? j * m->stride : j;
+}
+
+static int ocv_basis(const struct model *m, size_t k, double *x)
+{
+    double u = m->u[k];
     double p = 1.0;
     for (int j = 0; j <= m->degree; j++) {
         x[j] = p;
@@ -113,40 +102,50 @@ static int ocv_basis(const struct model *m, double *x)
     return m->degree + 1;
 }
 
-/* V = OCV(q) - R I */
-static int row_static(void *ctx, size_t k, double *x, double *y)
+/* V = OCV(q) - R I; row j is sample j * stride */
+static int row_static(void *ctx, size_t j, double *x, double *y)
 {
     struct model *m = ctx;
-    advance_charge(m, k);
-    if (m->stride > 1 && k % m->stride)
-        return 0;
-    int j = ocv_basis(m, x);
-    x[j] = -m->s->i_a[k];
+    size_t k = sample_of(m, j);
+    int c = ocv_basis(m, k, x);
+    x[c] = -m->s->i_a[k];
     *y = m->y_v[k] - m->v_ref;
     return 1;
 }
 
-/* V = OCV(q) - R0 I - R1 i_rc(tau) */
+/* V = OCV(q) - R0 I - R1 i_rc(tau); visits every sample, uses every stride-th */
 static int row_rc(void *ctx, size_t k, double *x, double *y)
 {
     struct model *m = ctx;
-    advance_charge(m, k);
+    const struct series *s = m->s;
+    if (k == 0) {
+        m->rc = s->i_a[0];
+        m->a_dt = -1.0;
+    } else {
+        /* zero-order hold of the current over the interval */
+        double dt = s->t_s[k] - s->t_s[k - 1];
+        if (fabs(dt - m->a_dt) > 1e-9 * dt) {
+            m->a_dt = dt;
+            m->a_val = exp(-dt / m->tau_s);
+        }
+        m->rc = m->a_val * m->rc + (1.0 - m->a_val) * s->i_a[k - 1];
+    }
     if (m->stride > 1 && k % m->stride)
         return 0;
-    int j = ocv_basis(m, x);
-    x[j] = -m->s->i_a[k];
-    x[j + 1] = -m->rc;
+    int c = ocv_basis(m, k, x);
+    x[c] = -s->i_a[k];
+    x[c + 1] = -m->rc;
     *y = m->y_v[k] - m->v_ref;
     return 1;
 }
 
 /* ARX: V[k] = a0 + a1 V[k-1] + b0 I[k] + b1 I[k-1] + c q, on evenly spaced rows */
-static int row_arx(void *ctx, size_t k, double *x, double *y)
+static int row_arx(void *ctx, size_t j, double *x, double *y)
 {
     struct model *m = ctx;
     const struct series *s = m->s;
-    advance_charge(m, k);
-    if (k == 0 || (m->stride > 1 && k % m->stride))
+    size_t k = sample_of(m, j);
+    if (k == 0)
         return 0;
     double dt = s->t_s[k] - s->t_s[k - 1];
     if (fabs(dt - m->dt_med) > m->dt_tol)
@@ -155,9 +154,34 @@ static int row_arx(void *ctx, size_t k, double *x, double *y)
     x[1] = m->y_v[k - 1] - m->v_ref;
     x[2] = s->i_a[k];
     x[3] = s->i_a[k - 1];
-    x[4] = m->q_end_ah != 0.0 ? m->q_ah / m->q_end_ah : 0.0;
+    x[4] = m->u[k];
     *y = m->y_v[k] - m->v_ref;
     return 1;
+}
+
+/* Rows a fit over this model visits: RC rows carry state, so all samples. */
+static size_t fit_rows(const struct model *m, fit_row_fn row)
+{
+    return row == row_rc ? m->s->n : rows_of(m);
+}
+
+/* A robust fit of all rows, converged first on an even subsample when the
+ * log is long (the full-data passes then only polish); plain fits are one
+ * pass anyway. */
+static enum pb_code fit_model(struct model *m, fit_row_fn row, int p, int robust,
+                              struct fit_result *out, struct pb_error *err)
+{
+    size_t n = m->s->n;
+    m->stride = 1;
+    if (!robust || n < 4 * SEARCH_ROWS)
+        return fit_linear(fit_rows(m, row), p, row, m, robust, out, err);
+    struct fit_result sub;
+    m->stride = n / SEARCH_ROWS + 1;
+    enum pb_code rc = fit_linear(fit_rows(m, row), p, row, m, 1, &sub, err);
+    m->stride = 1;
+    if (rc != PB_OK)
+        return rc;
+    return fit_linear_from(n, p, row, m, &sub, out, err);
 }
 
 static double median_interval(const struct series *s)
@@ -467,19 +491,15 @@ static size_t index_at_or_after(const struct series *s, double t)
 }
 
 /* Fits the resistance models to pack voltage; fills r0, rc, OCV ends. */
-static enum pb_code fit_pack(struct analysis *a, const struct series *s,
+static enum pb_code fit_pack(struct analysis *a, const struct series *s, const double *u,
                              const struct analyze_opts *o, struct pb_error *err,
                              struct fit_result *chosen, struct model *chosen_model, int *chosen_p)
 {
-    struct model m = {.s = s, .y_v = s->v_v, .v_ref = s->v_v[0],
-                      .q_end_ah = a->charge_used_mah / 1000.0, .dt_med = a->median_dt_s};
-    /* degree of the drift: cubic when the charge moves, constant when it does not */
-    m.degree = fabs(a->charge_used_mah) > 1e-3 && s->n >= 40 ? 3 : 0;
-    a->ocv_degree = m.degree;
-    a->q_end_ah = m.q_end_ah;
+    struct model m = {.s = s, .y_v = s->v_v, .v_ref = s->v_v[0], .u = u,
+                      .dt_med = a->median_dt_s, .degree = a->ocv_degree};
     int p = m.degree + 2;
     struct fit_result fs;
-    enum pb_code rc = fit_linear(s->n, p, row_static, &m, !o->plain_fit, &fs, err);
+    enum pb_code rc = fit_model(&m, row_static, p, !o->plain_fit, &fs, err);
     if (rc != PB_OK)
         return rc;
     *chosen = fs;
@@ -499,7 +519,7 @@ static enum pb_code fit_pack(struct analysis *a, const struct series *s,
     ma.stride = s->n / SEARCH_ROWS + 1;
     struct fit_result fa;
     double tau_arx = NAN;
-    if (fit_linear(s->n, 5, row_arx, &ma, !o->plain_fit, &fa, NULL) == PB_OK &&
+    if (fit_linear(rows_of(&ma), 5, row_arx, &ma, !o->plain_fit, &fa, NULL) == PB_OK &&
         fa.rank == 5) {
         double a1 = fa.beta[1];
         if (a1 > 0.0 && a1 < 1.0)
@@ -514,7 +534,7 @@ static enum pb_code fit_pack(struct analysis *a, const struct series *s,
     mr.tau_s = tau;
     mr.stride = 1;
     struct fit_result fr;
-    if (fit_linear(s->n, p + 1, row_rc, &mr, !o->plain_fit, &fr, NULL) != PB_OK ||
+    if (fit_model(&mr, row_rc, p + 1, !o->plain_fit, &fr, NULL) != PB_OK ||
         fr.rank < p + 1)
         return PB_OK;
     double r1 = fr.beta[p], r1_ci = fit_ci95(&fr, p);
@@ -574,8 +594,8 @@ static void ends_from_rest(struct analysis *a, const struct series *s, double r_
 
 /* Per-cell figures; the resistance uses the pack's chosen model (with the
  * pack's tau when the RC branch was fitted) so cells compare with the pack. */
-static void per_cell(struct analysis *a, const struct series *s, const struct analyze_opts *o,
-                     int identifiable)
+static void per_cell(struct analysis *a, const struct series *s, const double *u,
+                     const struct analyze_opts *o, int identifiable)
 {
     a->ncells_detail = s->ncells;
     for (int c = 0; c < s->ncells; c++) {
@@ -587,15 +607,14 @@ static void per_cell(struct analysis *a, const struct series *s, const struct an
         d->r0_mohm = none();
         d->voltage_rest_v = NAN;
         if (s->i_a && identifiable) {
-            struct model m = {.s = s, .y_v = s->cell_v[c], .v_ref = s->cell_v[c][0],
-                              .degree = a->ocv_degree, .q_end_ah = a->q_end_ah};
+            struct model m = {.s = s, .y_v = s->cell_v[c], .v_ref = s->cell_v[c][0], .u = u,
+                              .degree = a->ocv_degree};
             int is_rc = isfinite(a->tau_s.value);
             int p = m.degree + 2 + is_rc;
             int jr = m.degree + 1;
             m.tau_s = is_rc ? a->tau_s.value : 0.0;
             struct fit_result f;
-            if (fit_linear(s->n, p, is_rc ? row_rc : row_static, &m, !o->plain_fit, &f, NULL) ==
-                PB_OK)
+            if (fit_model(&m, is_rc ? row_rc : row_static, p, !o->plain_fit, &f, NULL) == PB_OK)
                 d->r0_mohm = (struct estimate){1000.0 * f.beta[jr], 1000.0 * fit_ci95(&f, jr)};
         }
     }
@@ -644,6 +663,7 @@ enum pb_code analyze_series(const struct series *s, const struct logread_stats *
                             struct pb_error *err)
 {
     enum pb_code rc = PB_OK;
+    double *u = NULL;
 
     a->samples = s->n;
     a->duration_s = s->t_s[s->n - 1];
@@ -695,10 +715,25 @@ enum pb_code analyze_series(const struct series *s, const struct logread_stats *
         current_stats(a, s, o);
         double sd;
         identifiable = current_varies(s, fmax(fabs(a->current_max_a), 1e-9), &sd);
+        /* the OCV drift runs on the charge drawn, normalised to [-1, 1]:
+         * cubic when the charge moves, constant when it does not */
+        a->q_end_ah = a->charge_used_mah / 1000.0;
+        a->ocv_degree = fabs(a->charge_used_mah) > 1e-3 && s->n >= 40 ? 3 : 0;
+        u = malloc(s->n * sizeof *u);
+        if (!u) {
+            rc = pb_error_set(err, PB_ENOMEM, "out of memory");
+            goto cleanup;
+        }
+        double q_ah = 0.0;
+        for (size_t k = 0; k < s->n; k++) {
+            if (k > 0)
+                q_ah += coulomb_step_ah(s->t_s[k] - s->t_s[k - 1], s->i_a[k - 1], s->i_a[k]);
+            u[k] = a->ocv_degree > 0 ? 2.0 * q_ah / a->q_end_ah - 1.0 : 0.0;
+        }
         struct fit_result f;
         struct model m;
         int p = 0;
-        rc = fit_pack(a, s, o, err, &f, &m, &p);
+        rc = fit_pack(a, s, u, o, err, &f, &m, &p);
         if (rc != PB_OK)
             goto cleanup;
         int is_rc = isfinite(a->tau_s.value);
@@ -781,7 +816,7 @@ enum pb_code analyze_series(const struct series *s, const struct logread_stats *
     }
     if (a->cells <= 0)
         warn(a, "soc_not_estimable", "SoC needs the cell count (give --cells)");
-    per_cell(a, s, o, identifiable);
+    per_cell(a, s, u, o, identifiable);
     if (s->ncells > 0 && !st->voltage_from_cells) {
         double worst = 0.0;
         for (size_t k = 0; k < s->n; k += 1 + s->n / 1000) {
@@ -796,5 +831,6 @@ enum pb_code analyze_series(const struct series *s, const struct logread_stats *
                  "balance lead and the column mapping", 100.0 * worst);
     }
 cleanup:
+    free(u);
     return rc;
 }

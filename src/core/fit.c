@@ -42,8 +42,12 @@ static double dot(const double *x, const double *beta, int p)
 static void run_pass(size_t n, int p, fit_row_fn row, void *ctx, const double *beta, double scale,
                      struct scale_sample *ss, struct normal_eq *ne)
 {
+    /* local sums, so the compiler keeps them out of memory the callback
+     * could alias; folded into ne at the end */
+    double a[FIT_MAX_P][FIT_MAX_P] = {{0}}, b[FIT_MAX_P] = {0};
+    double yy = 0.0, wsum = 0.0;
+    size_t n_used = 0, n_low = 0;
     double x[FIT_MAX_P], y;
-    memset(ne, 0, sizeof *ne);
     if (ss)
         ss->n = 0;
     for (size_t k = 0; k < n; k++) {
@@ -52,26 +56,32 @@ static void run_pass(size_t n, int p, fit_row_fn row, void *ctx, const double *b
         double w = 1.0;
         if (beta) {
             double r = y - dot(x, beta, p);
-            if (ss && ne->n_used % ss->m == 0 && ss->n < SCALE_SAMPLES)
+            if (ss && n_used % ss->m == 0 && ss->n < SCALE_SAMPLES)
                 ss->r[ss->n++] = fabs(r);
             if (scale > 0.0) {
                 double u = r / (BISQUARE_C * scale);
                 w = fabs(u) < 1.0 ? (1.0 - u * u) * (1.0 - u * u) : 0.0;
-                ne->n_low += w < 0.5;
+                n_low += w < 0.5;
             }
         }
-        ne->n_used++;
+        n_used++;
         if (w == 0.0)
             continue;
         for (int i = 0; i < p; i++) {
             double wx = w * x[i];
             for (int j = i; j < p; j++)
-                ne->a[i][j] += wx * x[j];
-            ne->b[i] += wx * y;
+                a[i][j] += wx * x[j];
+            b[i] += wx * y;
         }
-        ne->yy += w * y * y;
-        ne->wsum += w;
+        yy += w * y * y;
+        wsum += w;
     }
+    memcpy(ne->a, a, sizeof a);
+    memcpy(ne->b, b, sizeof b);
+    ne->yy = yy;
+    ne->wsum = wsum;
+    ne->n_used = n_used;
+    ne->n_low = n_low;
 }
 
 /* Solves the normal equations; fills beta, the unscaled inverse in inv and
@@ -136,35 +146,41 @@ double fit_median(double *a, size_t n)
     return gsl_stats_median(a, 1, n);
 }
 
-enum pb_code fit_linear(size_t n, int p, fit_row_fn row, void *ctx, int robust,
-                        struct fit_result *out, struct pb_error *err)
+static enum pb_code fit_core(size_t n, int p, fit_row_fn row, void *ctx, int robust,
+                             const struct fit_result *start, struct fit_result *out,
+                             struct pb_error *err)
 {
     struct normal_eq ne;
     double inv[FIT_MAX_P][FIT_MAX_P];
     double beta[FIT_MAX_P] = {0};
     int rank = 0;
     struct scale_sample ss = {NULL, 0, n / SCALE_SAMPLES + 1};
+    double scale = 0.0;
 
     memset(out, 0, sizeof *out);
     if (p < 1 || p > FIT_MAX_P)
         return pb_error_set(err, PB_ENUMERIC, "fit: %d columns is out of range", p);
     out->p = p;
-    run_pass(n, p, row, ctx, NULL, 0.0, NULL, &ne);
-    if (ne.n_used <= (size_t)p)
-        return pb_error_set(err, PB_ENUMERIC, "fit: %zu rows for %d unknowns", ne.n_used, p);
-    if (solve(&ne, p, beta, inv, &rank) != 0)
-        return pb_error_set(err, PB_ENUMERIC, "fit: eigensolver failed");
-    out->rss_plain = ne.yy;
-    for (int j = 0; j < p; j++)
-        out->rss_plain -= beta[j] * ne.b[j];
-    out->rss_plain = fmax(out->rss_plain, 0.0);
+    if (start) {
+        memcpy(beta, start->beta, sizeof beta);
+        scale = start->scale;
+    } else {
+        run_pass(n, p, row, ctx, NULL, 0.0, NULL, &ne);
+        if (ne.n_used <= (size_t)p)
+            return pb_error_set(err, PB_ENUMERIC, "fit: %zu rows for %d unknowns", ne.n_used, p);
+        if (solve(&ne, p, beta, inv, &rank) != 0)
+            return pb_error_set(err, PB_ENUMERIC, "fit: eigensolver failed");
+        out->rss_plain = ne.yy;
+        for (int j = 0; j < p; j++)
+            out->rss_plain -= beta[j] * ne.b[j];
+        out->rss_plain = fmax(out->rss_plain, 0.0);
+    }
     if (robust) {
         ss.r = malloc(SCALE_SAMPLES * sizeof *ss.r);
         if (!ss.r)
             return pb_error_set(err, PB_ENOMEM, "out of memory");
         /* each pass weights by the scale of the previous pass's residuals
          * and samples its own; at convergence the two agree */
-        double scale = 0.0;
         for (int it = 1; it <= 15; it++) {
             double prev[FIT_MAX_P];
             memcpy(prev, beta, sizeof prev);
@@ -173,7 +189,7 @@ enum pb_code fit_linear(size_t n, int p, fit_row_fn row, void *ctx, int robust,
             if (!(next > 0.0))
                 break; /* an exact fit: nothing to reweight */
             if (scale > 0.0) {
-                if (ne.wsum <= p || solve(&ne, p, beta, inv, &rank) != 0) {
+                if (ne.n_used <= (size_t)p || ne.wsum <= p || solve(&ne, p, beta, inv, &rank) != 0) {
                     free(ss.r);
                     return pb_error_set(err, PB_ENUMERIC, "fit: reweighting left too few rows");
                 }
@@ -193,6 +209,13 @@ enum pb_code fit_linear(size_t n, int p, fit_row_fn row, void *ctx, int robust,
         }
         free(ss.r);
         out->n_downweighted = ne.n_low;
+        out->scale = scale;
+    }
+    if (start) {
+        if (!robust || ne.n_used <= (size_t)p)
+            return pb_error_set(err, PB_ENUMERIC, "fit: a warm start needs a robust fit");
+        /* the start's plain residual, scaled from its rows to these */
+        out->rss_plain = start->rss_plain * (double)ne.n_used / (double)start->n_used;
     }
     /* residual sum of squares from the sums: y'Wy - beta'X'Wy */
     double rss = ne.yy;
@@ -213,6 +236,19 @@ enum pb_code fit_linear(size_t n, int p, fit_row_fn row, void *ctx, int robust,
             out->cov[i][j] = s2 * inv[i][j];
     }
     return PB_OK;
+}
+
+enum pb_code fit_linear(size_t n, int p, fit_row_fn row, void *ctx, int robust,
+                        struct fit_result *out, struct pb_error *err)
+{
+    return fit_core(n, p, row, ctx, robust, NULL, out, err);
+}
+
+enum pb_code fit_linear_from(size_t n, int p, fit_row_fn row, void *ctx,
+                             const struct fit_result *start, struct fit_result *out,
+                             struct pb_error *err)
+{
+    return fit_core(n, p, row, ctx, 1, start, out, err);
 }
 
 double fit_ci95(const struct fit_result *f, int j)

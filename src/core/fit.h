@@ -31,6 +31,7 @@ struct fit_result {
     double sigma;                 /* residual standard deviation (weighted) */
     double rss;                   /* weighted residual sum of squares */
     double rss_plain;             /* residual sum of squares of the unweighted fit */
+    double scale;                 /* robust residual scale (0 for plain fits) */
     double dof;                   /* effective rows minus rank */
     size_t n_used;                /* rows the callback gave */
     size_t n_downweighted;        /* rows with final weight < 0.5 (robust) */
@@ -41,6 +42,13 @@ struct fit_result {
  * error in err. */
 enum pb_code fit_linear(size_t n, int p, fit_row_fn row, void *ctx, int robust,
                         struct fit_result *out, struct pb_error *err);
+
+/* Robust fit continued from an earlier one (its beta and scale), e.g. one
+ * made on a subsample of the rows: skips the plain pass, so rss_plain is
+ * the start's, scaled to this fit's row count. */
+enum pb_code fit_linear_from(size_t n, int p, fit_row_fn row, void *ctx,
+                             const struct fit_result *start, struct fit_result *out,
+                             struct pb_error *err);
 
 /* Half-width of the two-sided 95 % interval of coefficient j (Student t). */
 double fit_ci95(const struct fit_result *f, int j);
