@@ -1,0 +1,118 @@
+#!/usr/bin/python3
+"""Time and measure packbook, the bare libcsv scan and the pandas reference on one
+log, then print the figures and the targets. A report, not a gate: the exit status
+is 1 only when a measured command failed.
+
+    measure.py --log LOG --rows N --tmp DIR --peakrss EXE --csvscan EXE --packbook EXE
+"""
+import argparse
+import os
+import subprocess
+import sys
+import time
+
+REPEATS = 3
+PYTHON = "/usr/bin/python3"  # Debian's, with numpy and pandas
+HERE = os.path.dirname(os.path.abspath(__file__))
+
+# (what, wanted, limit) -- bench/README.md says why these
+TARGETS = [
+    ("packbook speed vs pandas", ">= 10x", 10.0),
+    ("packbook speed vs libcsv scan", ">= 0.5", 0.5),
+    ("packbook peak RSS per row", "<= 48 B", 48.0),
+]
+
+
+def measure(cmd, args, stdout_path):
+    """Best wall time of REPEATS runs (s) and peak RSS (bytes), or None on failure.
+
+    Time is taken around the peakrss launcher; the launcher's own fork+exec costs
+    well under a millisecond, far below the run-to-run spread."""
+    rss_path = os.path.join(args.tmp, "rss")
+    best, peak = float("inf"), 0
+    for _ in range(REPEATS):
+        with open(stdout_path, "wb") as out:
+            t0 = time.perf_counter()
+            r = subprocess.run([args.peakrss, rss_path, *cmd], stdout=out, stderr=subprocess.PIPE)
+            elapsed = time.perf_counter() - t0
+        if r.returncode != 0:
+            err = r.stderr.decode("utf-8", "replace").strip()
+            print(f"FAILED (exit {r.returncode}): {' '.join(cmd)}", file=sys.stderr)
+            if err:
+                print("  " + err, file=sys.stderr)
+            return None
+        with open(rss_path) as f:
+            peak = max(peak, int(f.read()) * 1024)  # ru_maxrss is in KiB on Linux
+        best = min(best, elapsed)
+    return best, peak
+
+
+def main():
+    ap = argparse.ArgumentParser()
+    for name in ("--log", "--tmp", "--peakrss", "--csvscan", "--packbook"):
+        ap.add_argument(name, required=True)
+    ap.add_argument("--rows", type=int, required=True)
+    args = ap.parse_args()
+
+    out_path = os.path.join(args.tmp, "stdout")
+    failed = False
+    results = {}  # name -> (seconds, bytes)
+
+    # (a) the tool under test; its JSON goes to /dev/null, as a user's pipe would take it
+    if os.access(args.packbook, os.X_OK):
+        results["packbook"] = measure([args.packbook, "analyze", args.log, "--json"], args,
+                                      os.devnull)
+        failed |= results["packbook"] is None
+    else:
+        print("packbook not built: run meson setup build && ninja -C build")
+
+    # (b) and (c): their short output is shown, so one can see they read the whole file
+    for name, cmd in (("libcsv scan", [args.csvscan, args.log]),
+                      ("pandas + numpy", [PYTHON, os.path.join(HERE, "pandas_ref.py"), args.log])):
+        results[name] = measure(cmd, args, out_path)
+        failed |= results[name] is None
+        if results[name] is not None:
+            with open(out_path) as f:
+                print(f"{name}: " + "; ".join(f.read().split("\n")).strip("; "))
+
+    print()
+    print(f"| {args.rows} rows, {os.path.getsize(args.log) / 1e6:.1f} MB | best of {REPEATS} (s) "
+          f"| peak RSS (MiB) | peak RSS per row (B) |")
+    print("| --- | ---: | ---: | ---: |")
+    for name in ("packbook", "libcsv scan", "pandas + numpy"):
+        r = results.get(name)
+        if r is None:
+            why = "failed" if name in results else "not built"
+            print(f"| {name} | {why} | | |")
+        else:
+            print(f"| {name} | {r[0]:.3f} | {r[1] / 2**20:.1f} | {r[1] / args.rows:.1f} |")
+
+    pb, scan, pd_ = (results.get(k) for k in ("packbook", "libcsv scan", "pandas + numpy"))
+    values = [
+        pd_[0] / pb[0] if pb and pd_ else None,     # higher is better
+        scan[0] / pb[0] if pb and scan else None,   # higher is better
+        pb[1] / args.rows if pb else None,          # lower is better
+    ]
+    print()
+    print("| target | wanted | measured | |")
+    print("| --- | --- | ---: | --- |")
+    for (what, wanted, limit), value in zip(TARGETS, values):
+        if value is None:
+            print(f"| {what} | {wanted} | n/a | SKIP |")
+            continue
+        ok = value <= limit if wanted.startswith("<=") else value >= limit
+        if wanted.endswith("x"):
+            shown = f"{value:.1f}x"
+        elif limit < 1:
+            shown = f"{value:.2f}"
+        else:
+            shown = f"{value:.1f}"
+        print(f"| {what} | {wanted} | {shown} | {'PASS' if ok else 'MISS'} |")
+    if args.rows < 1000000:
+        print("\n(per-row memory is only meaningful at the default 1,000,000 rows: "
+              "fixed costs dominate smaller logs)")
+    return 1 if failed else 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
