@@ -28,7 +28,8 @@ struct reader {
     struct pb_error *err;
     int failed;
 
-    size_t line;          /* physical line being fed, 1-based */
+    size_t line;          /* physical line being read, 1-based */
+    int after_cr;         /* the last line end was a CR (an LF now completes it) */
     size_t row_line;      /* line where the current record began */
     int field;            /* index of the next field in the record */
     int comment;          /* current record is a # comment */
@@ -591,10 +592,20 @@ static void keep_sample(struct reader *r)
     st->kept++;
 }
 
+static void end_record(struct reader *r);
+
 static void on_row(int c, void *ctx)
 {
     struct reader *r = ctx;
-    (void)c;
+    end_record(r);
+    /* a CR, an LF or a CR LF pair ends one line */
+    if (c == '\r' || (c == '\n' && !r->after_cr))
+        r->line++;
+    r->after_cr = c == '\r';
+}
+
+static void end_record(struct reader *r)
+{
     int nfields = r->field;
     r->field = 0;
     if (r->failed)
@@ -694,23 +705,16 @@ double logread_adc_a_per_count(int bits, double vref_v, double ratio, double r_o
     return v_per_count / v_per_a;
 }
 
+/* Whole blocks go to libcsv; lines are counted in on_row, which
+ * CSV_REPALL_NL calls for every unquoted CR and LF. */
 static void feed(struct reader *r, struct csv_parser *p, const char *buf, size_t len)
 {
-    size_t at = 0;
-    while (at < len && !r->failed) {
-        const char *nl = memchr(buf + at, '\n', len - at);
-        size_t l = nl ? (size_t)(nl - (buf + at)) + 1 : len - at;
-        if (csv_parse(p, buf + at, l, on_field, on_row, r) != l) {
-            int e = csv_error(p);
-            if (e == CSV_ENOMEM)
-                fail(r, PB_EINPUT, r->line, r->field + 1, "field longer than %s bytes", "65536");
-            else
-                fail(r, PB_EINPUT, r->line, r->field + 1, "cannot parse: %s", csv_strerror(e));
-            return;
-        }
-        if (nl)
-            r->line++;
-        at += l;
+    if (csv_parse(p, buf, len, on_field, on_row, r) != len && !r->failed) {
+        int e = csv_error(p);
+        if (e == CSV_ENOMEM)
+            fail(r, PB_EINPUT, r->line, r->field + 1, "field longer than %s bytes", "65536");
+        else
+            fail(r, PB_EINPUT, r->line, r->field + 1, "cannot parse: %s", csv_strerror(e));
     }
 }
 
@@ -761,7 +765,7 @@ struct series *logread_file(FILE *fp, const char *name, const struct logread_opt
         goto cleanup;
     }
 
-    if (csv_init(&p, 0) != 0) {
+    if (csv_init(&p, CSV_REPALL_NL) != 0) {
         pb_error_set(err, PB_ENOMEM, "out of memory");
         goto cleanup;
     }
