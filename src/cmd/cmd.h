@@ -25,6 +25,10 @@ int cmd_parse_double(const char *opt, const char *val, double lo, double hi, dou
 int cmd_parse_int(const char *opt, const char *val, int lo, int hi, int *out,
                   struct pb_error *err);
 
+/* The usage error for an option getopt_long did not know or that lacked
+ * its value; verb names the command for the hint. */
+enum pb_code cmd_bad_option(const char *verb, int argc, char **argv, struct pb_error *err);
+
 /* Flushes stdout and checks every write reached it. */
 enum pb_code cmd_finish_stdout(struct pb_error *err);
 

@@ -1,4 +1,5 @@
 #include <errno.h>
+#include <getopt.h>
 #include <limits.h>
 #include <stdio.h>
 #include <stdlib.h>
@@ -39,4 +40,14 @@ enum pb_code cmd_finish_stdout(struct pb_error *err)
     if (fflush(stdout) != 0 || ferror(stdout))
         return pb_error_set(err, PB_EOUTPUT, "cannot write the output");
     return PB_OK;
+}
+
+enum pb_code cmd_bad_option(const char *verb, int argc, char **argv, struct pb_error *err)
+{
+    const char *arg = optind - 1 < argc && optind > 0 ? argv[optind - 1] : "?";
+    if (optopt)
+        return pb_error_set(err, PB_EUSAGE, "%s: option '%s' is unknown or needs a value (see "
+                            "'packbook %s --help')", verb, arg, verb);
+    return pb_error_set(err, PB_EUSAGE, "%s: unknown option '%s' (see 'packbook %s --help')", verb,
+                        arg, verb);
 }

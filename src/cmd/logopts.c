@@ -1,0 +1,160 @@
+#include "logopts.h"
+
+#include <stdio.h>
+#include <string.h>
+
+const char logopts_usage[] =
+    "  --floor V              loaded per-cell voltage floor (default: per chemistry)\n"
+    "reading the log:\n"
+    "  --columns LIST         column layout for a log without a header, e.g.\n"
+    "                         time_s,voltage_v,current_a ('-' skips a column)\n"
+    "  --map LIST             override detection, e.g. voltage_v=VBAT,current_ma=3\n"
+    "  --delimiter D          comma, semicolon, tab or one character (default: detected)\n"
+    "  --decimal D            point or comma (default: detected)\n"
+    "  --current-sign S       auto, discharge-positive or discharge-negative (default: auto)\n"
+    "  --adc-scale A          amps per ADC count for a raw current column\n"
+    "  --adc-offset COUNTS    ADC reading at zero current (default 0)\n"
+    "  --adc-bits N --adc-vref V --sense-ratio R --sense-ohm OHM\n"
+    "                         or the sense chain, from which amps per count follow\n"
+    "analysis:\n"
+    "  --gap S                intervals longer than this are reported as gaps\n"
+    "                         (default: the larger of 1 s and 5 median intervals)\n"
+    "  --rest-current A       |current| at or below this counts as rest\n"
+    "                         (default: the larger of 0.05 A and 1 % of peak)\n"
+    "  --fit M                robust (default) or ols (plain least squares)\n";
+
+void logopts_init(struct log_cli *cli)
+{
+    memset(cli, 0, sizeof *cli);
+    cli->an.chemistry = -1;
+}
+
+static int parse_char_choice(const char *opt, const char *v, char *out, struct pb_error *err)
+{
+    if (strcmp(v, "comma") == 0)
+        *out = ',';
+    else if (strcmp(v, "semicolon") == 0)
+        *out = ';';
+    else if (strcmp(v, "tab") == 0)
+        *out = '\t';
+    else if (strcmp(v, "point") == 0)
+        *out = '.';
+    else if (strlen(v) == 1 && v[0] != '"' && v[0] != '\n')
+        *out = v[0];
+    else {
+        pb_error_set(err, PB_EUSAGE, "%s: expected comma, semicolon, tab, point or one character, "
+                     "got '%s'", opt, v);
+        return -1;
+    }
+    return 0;
+}
+
+int logopts_take(int c, const char *v, struct log_cli *cli, struct pb_error *err)
+{
+    int bad = 0;
+    switch (c) {
+    case LO_FLOOR: bad = cmd_parse_double("--floor", v, 0.5, 5.0, &cli->an.floor_v, err); break;
+    case LO_COLUMNS: cli->read.columns = v; break;
+    case LO_MAP: cli->read.map = v; break;
+    case LO_DELIM: bad = parse_char_choice("--delimiter", v, &cli->read.delimiter, err); break;
+    case LO_DECIMAL:
+        bad = parse_char_choice("--decimal", v, &cli->read.decimal, err);
+        if (!bad && cli->read.decimal != '.' && cli->read.decimal != ',') {
+            pb_error_set(err, PB_EUSAGE, "--decimal: expected point or comma, got '%s'", v);
+            bad = 1;
+        }
+        break;
+    case LO_SIGN:
+        if (strcmp(v, "auto") == 0)
+            cli->read.sign = SIGN_AUTO;
+        else if (strcmp(v, "discharge-positive") == 0)
+            cli->read.sign = SIGN_DISCHARGE_POSITIVE;
+        else if (strcmp(v, "discharge-negative") == 0)
+            cli->read.sign = SIGN_DISCHARGE_NEGATIVE;
+        else {
+            pb_error_set(err, PB_EUSAGE, "--current-sign: expected auto, discharge-positive or "
+                         "discharge-negative, got '%s'", v);
+            bad = 1;
+        }
+        break;
+    case LO_ADC_SCALE:
+        bad = cmd_parse_double("--adc-scale", v, -1e6, 1e6, &cli->read.adc_a_per_count, err);
+        cli->read.have_adc = 1;
+        break;
+    case LO_ADC_OFFSET:
+        bad = cmd_parse_double("--adc-offset", v, -1e9, 1e9, &cli->read.adc_offset_counts, err);
+        break;
+    case LO_ADC_BITS: bad = cmd_parse_int("--adc-bits", v, 1, 32, &cli->adc_bits, err); break;
+    case LO_ADC_VREF: bad = cmd_parse_double("--adc-vref", v, 1e-3, 100, &cli->adc_vref, err); break;
+    case LO_SENSE_RATIO:
+        bad = cmd_parse_double("--sense-ratio", v, 1e-6, 1e9, &cli->sense_ratio, err);
+        break;
+    case LO_SENSE_OHM: bad = cmd_parse_double("--sense-ohm", v, 1e-9, 1e9, &cli->sense_ohm, err); break;
+    case LO_GAP: bad = cmd_parse_double("--gap", v, 1e-6, 1e9, &cli->an.gap_s, err); break;
+    case LO_REST: bad = cmd_parse_double("--rest-current", v, 0.0, 1e4, &cli->an.rest_a, err); break;
+    case LO_FIT:
+        if (strcmp(v, "robust") == 0)
+            cli->an.plain_fit = 0;
+        else if (strcmp(v, "ols") == 0)
+            cli->an.plain_fit = 1;
+        else {
+            pb_error_set(err, PB_EUSAGE, "--fit: expected robust or ols, got '%s'", v);
+            bad = 1;
+        }
+        break;
+    default: return 0;
+    }
+    return bad ? -1 : 1;
+}
+
+enum pb_code logopts_finish(struct log_cli *cli, struct pb_error *err)
+{
+    int chain = cli->adc_bits || cli->adc_vref > 0 || cli->sense_ratio > 0 || cli->sense_ohm > 0;
+    if (!chain)
+        return PB_OK;
+    if (!cli->adc_bits || !(cli->adc_vref > 0) || !(cli->sense_ratio > 0) || !(cli->sense_ohm > 0))
+        return pb_error_set(err, PB_EUSAGE, "the sense chain needs all of --adc-bits, --adc-vref, "
+                            "--sense-ratio and --sense-ohm");
+    if (cli->read.have_adc)
+        return pb_error_set(err, PB_EUSAGE, "give --adc-scale or the sense chain, not both");
+    cli->read.adc_a_per_count =
+        logread_adc_a_per_count(cli->adc_bits, cli->adc_vref, cli->sense_ratio, cli->sense_ohm);
+    cli->read.have_adc = 1;
+    return PB_OK;
+}
+
+enum pb_code logopts_analyze(const char *path, const struct log_cli *cli,
+                             struct logread_stats *stats, struct analysis **out,
+                             struct pb_error *err)
+{
+    int is_stdin = strcmp(path, "-") == 0;
+    const char *name = is_stdin ? "(stdin)" : path;
+    struct series *s = NULL;
+    struct analysis *a = NULL;
+    enum pb_code rc = PB_OK;
+    *out = NULL;
+    FILE *fp = is_stdin ? stdin : fopen(path, "rb");
+    if (!fp)
+        return pb_error_set(err, PB_EINPUT, "cannot open '%s': %m", path);
+    s = logread_file(fp, name, &cli->read, stats, err);
+    if (!s) {
+        rc = err->code;
+        goto cleanup;
+    }
+    a = analysis_new();
+    if (!a) {
+        rc = pb_error_set(err, PB_ENOMEM, "out of memory");
+        goto cleanup;
+    }
+    rc = analyze_series(s, stats, name, &cli->an, a, err);
+    if (rc != PB_OK)
+        goto cleanup;
+    *out = a;
+    a = NULL;
+cleanup:
+    if (!is_stdin)
+        fclose(fp);
+    analysis_free(a);
+    series_free(s);
+    return rc;
+}

@@ -1,0 +1,215 @@
+#include "health.h"
+
+#include <gsl/gsl_cdf.h>
+#include <gsl/gsl_multifit.h>
+#include <gsl/gsl_statistics_double.h>
+#include <math.h>
+#include <stdarg.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+
+void health_rules_default(struct health_rules *r)
+{
+    r->retire_capacity_pct = 80.0;
+    r->watch_capacity_pct = 85.0;
+    r->retire_r0_ratio = 2.0;
+    r->watch_r0_ratio = 1.5;
+    r->retire_spread_mv = 60.0;
+    r->watch_spread_mv = 30.0;
+    r->retire_overdischarge = 3;
+    r->watch_overdischarge = 1;
+    r->baseline_flights = 3;
+    r->recent_flights = 5;
+}
+
+const char *health_status_name(enum health_status s)
+{
+    switch (s) {
+    case HEALTH_OK: return "ok";
+    case HEALTH_WATCH: return "watch";
+    case HEALTH_RETIRE: return "retire";
+    }
+    return "?";
+}
+
+/* Median of the first (or last) `want` known values of one field. */
+static double median_end(const struct health_flight *f, size_t n,
+                         double (*get)(const struct health_flight *), size_t want, int last)
+{
+    double buf[64];
+    size_t m = 0;
+    for (size_t j = 0; j < n && m < want && m < 64; j++) {
+        double v = get(&f[last ? n - 1 - j : j]);
+        if (isfinite(v))
+            buf[m++] = v;
+    }
+    return m ? gsl_stats_median(buf, 1, m) : NAN;
+}
+
+static double get_r0(const struct health_flight *f)
+{
+    return f->r0_mohm;
+}
+static double get_cap(const struct health_flight *f)
+{
+    return f->capacity_mah;
+}
+static double get_spread(const struct health_flight *f)
+{
+    return f->spread_rest_mv;
+}
+
+static void add_reason(struct pack_health *h, enum health_status level, const char *fmt, ...)
+    __attribute__((format(printf, 3, 4)));
+
+static void add_reason(struct pack_health *h, enum health_status level, const char *fmt, ...)
+{
+    if (level > h->status)
+        h->status = level;
+    size_t used = strlen(h->reason);
+    if (used + 3 >= sizeof h->reason)
+        return;
+    if (used)
+        used += (size_t)snprintf(h->reason + used, sizeof h->reason - used, "; ");
+    va_list ap;
+    va_start(ap, fmt);
+    vsnprintf(h->reason + used, sizeof h->reason - used, fmt, ap);
+    va_end(ap);
+}
+
+void health_assess(const struct health_flight *f, size_t n, int cells, double rated_mah,
+                   const struct health_rules *r, struct pack_health *h)
+{
+    memset(h, 0, sizeof *h);
+    h->flights = n;
+    h->last_epoch_s = n ? f[n - 1].epoch_s : NAN;
+    double q = 0.0;
+    for (size_t k = 0; k < n; k++) {
+        if (isfinite(f[k].charge_mah) && f[k].charge_mah > 0)
+            q += f[k].charge_mah;
+        h->overdischarges += f[k].below_floor != 0;
+    }
+    h->cycles = rated_mah > 0 ? q / rated_mah : NAN;
+    size_t recent = (size_t)r->recent_flights;
+    /* baseline from the first flights, "now" from the last ones */
+    h->r0_base_mohm_cell = median_end(f, n, get_r0, (size_t)r->baseline_flights, 0) / cells;
+    h->r0_now_mohm_cell = median_end(f, n, get_r0, recent, 1) / cells;
+    h->r0_ratio = h->r0_now_mohm_cell / h->r0_base_mohm_cell;
+    h->capacity_pct = 100.0 * median_end(f, n, get_cap, recent, 1) / rated_mah;
+    h->spread_mv = median_end(f, n, get_spread, recent, 1);
+    if (n == 0) {
+        snprintf(h->reason, sizeof h->reason, "no flights yet");
+        return;
+    }
+    if (h->capacity_pct <= r->retire_capacity_pct)
+        add_reason(h, HEALTH_RETIRE, "capacity %.0f %% of rated <= %.0f %%", h->capacity_pct,
+                   r->retire_capacity_pct);
+    else if (h->capacity_pct <= r->watch_capacity_pct)
+        add_reason(h, HEALTH_WATCH, "capacity %.0f %% of rated <= %.0f %%", h->capacity_pct,
+                   r->watch_capacity_pct);
+    /* a ratio means something only once "now" is more than the baseline */
+    if (n > (size_t)r->baseline_flights && isfinite(h->r0_ratio)) {
+        if (h->r0_ratio >= r->retire_r0_ratio)
+            add_reason(h, HEALTH_RETIRE, "R0 %.2f mOhm/cell is %.2fx its baseline %.2f (>= %.1fx)",
+                       h->r0_now_mohm_cell, h->r0_ratio, h->r0_base_mohm_cell, r->retire_r0_ratio);
+        else if (h->r0_ratio >= r->watch_r0_ratio)
+            add_reason(h, HEALTH_WATCH, "R0 %.2f mOhm/cell is %.2fx its baseline %.2f (>= %.1fx)",
+                       h->r0_now_mohm_cell, h->r0_ratio, h->r0_base_mohm_cell, r->watch_r0_ratio);
+    }
+    if (h->spread_mv >= r->retire_spread_mv)
+        add_reason(h, HEALTH_RETIRE, "cell spread at rest %.0f mV >= %.0f mV", h->spread_mv,
+                   r->retire_spread_mv);
+    else if (h->spread_mv >= r->watch_spread_mv)
+        add_reason(h, HEALTH_WATCH, "cell spread at rest %.0f mV >= %.0f mV", h->spread_mv,
+                   r->watch_spread_mv);
+    if (h->overdischarges >= r->retire_overdischarge)
+        add_reason(h, HEALTH_RETIRE, "%d flights below the voltage floor (>= %d)",
+                   h->overdischarges, r->retire_overdischarge);
+    else if (h->overdischarges >= r->watch_overdischarge)
+        add_reason(h, HEALTH_WATCH, "%d flight%s below the voltage floor", h->overdischarges,
+                   h->overdischarges == 1 ? "" : "s");
+    if (h->status == HEALTH_OK)
+        snprintf(h->reason, sizeof h->reason, "within all limits");
+}
+
+struct line_fit health_line(const double *x, const double *y, size_t n, int plain)
+{
+    struct line_fit l = {0};
+    size_t m = 0;
+    for (size_t k = 0; k < n; k++)
+        m += isfinite(x[k]) && isfinite(y[k]);
+    l.n = m;
+    if (m < 3)
+        return l;
+    gsl_matrix *X = gsl_matrix_alloc(m, 2);
+    gsl_vector *Y = gsl_vector_alloc(m);
+    gsl_vector *c = gsl_vector_alloc(2);
+    gsl_matrix *cov = gsl_matrix_alloc(2, 2);
+    if (!X || !Y || !c || !cov)
+        goto cleanup;
+    size_t j = 0;
+    double xmin = HUGE_VAL, xmax = -HUGE_VAL;
+    for (size_t k = 0; k < n; k++) {
+        if (!(isfinite(x[k]) && isfinite(y[k])))
+            continue;
+        gsl_matrix_set(X, j, 0, 1.0);
+        gsl_matrix_set(X, j, 1, x[k]);
+        gsl_vector_set(Y, j, y[k]);
+        xmin = fmin(xmin, x[k]);
+        xmax = fmax(xmax, x[k]);
+        j++;
+    }
+    if (!(xmax > xmin))
+        goto cleanup;
+    int rc;
+    double sigma;
+    if (plain || m < 5) {
+        /* too few points for reweighting to mean anything */
+        double chisq;
+        gsl_multifit_linear_workspace *w = gsl_multifit_linear_alloc(m, 2);
+        if (!w)
+            goto cleanup;
+        rc = gsl_multifit_linear(X, Y, c, cov, &chisq, w);
+        gsl_multifit_linear_free(w);
+        sigma = sqrt(chisq / (double)(m - 2));
+        /* gsl_multifit_linear's cov is (X'X)^-1 scaled by the residual variance */
+    } else {
+        gsl_multifit_robust_workspace *w =
+            gsl_multifit_robust_alloc(gsl_multifit_robust_bisquare, m, 2);
+        if (!w)
+            goto cleanup;
+        rc = gsl_multifit_robust(X, Y, c, cov, w);
+        gsl_multifit_robust_stats st = gsl_multifit_robust_statistics(w);
+        sigma = st.sigma;
+        gsl_multifit_robust_free(w);
+    }
+    if (rc != 0)
+        goto cleanup;
+    l.ok = 1;
+    l.a = gsl_vector_get(c, 0);
+    l.b = gsl_vector_get(c, 1);
+    l.sigma = sigma;
+    l.b_ci95 = gsl_cdf_tdist_Pinv(0.975, (double)(m - 2)) * sqrt(gsl_matrix_get(cov, 1, 1));
+cleanup:
+    gsl_matrix_free(X);
+    gsl_vector_free(Y);
+    gsl_vector_free(c);
+    gsl_matrix_free(cov);
+    return l;
+}
+
+int health_crossing(const struct line_fit *l, double level, int rising, double x_now,
+                    double *x_cross)
+{
+    if (!l->ok)
+        return 0;
+    double y_now = l->a + l->b * x_now;
+    if (rising ? y_now >= level : y_now <= level)
+        return -1;
+    /* heading the other way, or a slope its own interval cannot tell from 0 */
+    if ((rising ? l->b <= 0.0 : l->b >= 0.0) || fabs(l->b) <= l->b_ci95)
+        return 0;
+    *x_cross = (level - l->a) / l->b;
+    return 1;
+}

@@ -1,0 +1,77 @@
+/* health: a pack's history turned into its state, trend and retirement.
+ *
+ * Owns nothing beyond its result structs (plain values). Pure: flights in,
+ * figures out. Resistance is compared per cell (mOhm per series cell) and
+ * capacity as % of the rated capacity. */
+#ifndef PB_HEALTH_H
+#define PB_HEALTH_H
+
+#include <stddef.h>
+
+struct health_flight {
+    double epoch_s;
+    double charge_mah;       /* net charge used */
+    double r0_mohm;          /* pack, NAN when unknown */
+    double capacity_mah;     /* NAN when unknown */
+    double spread_rest_mv;   /* NAN when unknown */
+    int below_floor;         /* the loaded voltage crossed the per-cell floor */
+};
+
+/* Thresholds. Defaults (health_rules_default): capacity at or below 80 %
+ * of rated (the end-of-life criterion of battery standards and practice),
+ * R0 at or above 2x the pack's baseline (common practice), resting cell
+ * spread at or above 60 mV (common practice, from memory), 3 or more
+ * flights below the floor; "watch" levels at 85 %, 1.5x, 30 mV and 1. */
+struct health_rules {
+    double retire_capacity_pct, watch_capacity_pct;
+    double retire_r0_ratio, watch_r0_ratio;
+    double retire_spread_mv, watch_spread_mv;
+    int retire_overdischarge, watch_overdischarge;
+    int baseline_flights;    /* first flights that set the baseline */
+    int recent_flights;      /* last flights that set "now" */
+};
+
+enum health_status { HEALTH_OK = 0, HEALTH_WATCH, HEALTH_RETIRE };
+
+struct pack_health {
+    size_t flights;
+    double cycles;              /* equivalent full cycles: total charge / rated */
+    double last_epoch_s;        /* NAN without flights */
+    double r0_now_mohm_cell;    /* median of the recent flights */
+    double r0_base_mohm_cell;   /* median of the baseline flights */
+    double r0_ratio;            /* now / baseline */
+    double capacity_pct;        /* median of the recent estimates, % of rated */
+    double spread_mv;           /* median of the recent resting spreads */
+    int overdischarges;         /* flights below the floor */
+    enum health_status status;
+    char reason[320];           /* which rules fired, with the numbers */
+};
+
+void health_rules_default(struct health_rules *r);
+
+/* Assesses n flights (oldest first) of a pack with cells series cells and
+ * the given rated capacity. */
+void health_assess(const struct health_flight *f, size_t n, int cells, double rated_mah,
+                   const struct health_rules *rules, struct pack_health *out);
+
+const char *health_status_name(enum health_status s);
+
+/* A straight-line fit y = a + b x with the slope's 95 % interval. */
+struct line_fit {
+    int ok;          /* enough points (>= 3) with spread in x */
+    size_t n;
+    double a, b, b_ci95;
+    double sigma;
+};
+
+/* Fits y on x (NAN points skipped); robust (bisquare, GSL) unless plain. */
+struct line_fit health_line(const double *x, const double *y, size_t n, int plain);
+
+/* Where a line reaches level (from below when rising, from above when
+ * not), beyond x_now: sets *x_cross and returns 1; returns 0 when the line
+ * heads away or its slope is not told from zero by its interval, -1 when
+ * the fitted line is at or past the level at x_now already. */
+int health_crossing(const struct line_fit *l, double level, int rising, double x_now,
+                    double *x_cross);
+
+#endif

@@ -1,0 +1,100 @@
+/* store: the pack history, behind one small interface.
+ *
+ * Owns struct store (store_open/store_close) and the records it returns
+ * (free them with store_packs_free / store_flights_free). The SQLite file
+ * is the embedded default; another backend implements these functions.
+ * Writes of one flight are atomic: a flight is stored whole or not at all.
+ * Every function returns a pb_code and fills err on failure (PB_ESTORE for
+ * the database, PB_EUSAGE for an unknown or duplicate pack). */
+#ifndef PB_STORE_H
+#define PB_STORE_H
+
+#include <stddef.h>
+#include <stdint.h>
+
+#include "../core/pb_error.h"
+#include "../core/series.h"
+
+#define STORE_SCHEMA_VERSION 2
+
+struct store;
+
+struct pack_rec {
+    int64_t id;
+    char label[128];
+    int cells;
+    int parallel;
+    char chemistry[16];
+    double capacity_mah;
+    char since[32];          /* ISO date or "" */
+    char note[256];
+    char created_at[32];
+    char retired_at[32];     /* "" while in service */
+    char retire_reason[256];
+};
+
+struct flight_cell_rec {
+    int index;
+    double r0_mohm, voltage_min_v, voltage_rest_v;
+};
+
+/* One flight's summary. NAN for unknown numbers. */
+struct flight_rec {
+    int64_t id;
+    int64_t pack_id;
+    char content_hash[40];
+    char source[256];
+    double flown_epoch_s;
+    char date_source[16];    /* "log", "option" or "mtime" */
+    double duration_s;
+    double charge_used_mah, energy_used_wh;
+    double current_max_a, current_mean_a, power_mean_w;
+    double voltage_min_v, cell_voltage_min_v, time_below_floor_s;
+    double r0_mohm, r0_ci95_mohm, r1_mohm, tau_s;
+    double soc_start_pct, soc_end_pct;
+    double capacity_mah, capacity_ci95_mah;
+    double cell_spread_rest_mv, cell_spread_load_mv;
+    int weakest_cell;
+    double temperature_max_c;
+    int warnings;
+    int ncells;
+    struct flight_cell_rec cell[PB_MAX_CELLS];
+};
+
+/* Opens (creating if needed, when create) and migrates the store at path.
+ * Parent directories are created. */
+enum pb_code store_open(const char *path, int create, struct store **out, struct pb_error *err);
+
+/* Closes st; NULL is a no-op. */
+void store_close(struct store *st);
+
+/* Schema version of an open store (PRAGMA user_version). */
+int store_schema_version(struct store *st);
+
+enum pb_code store_pack_add(struct store *st, struct pack_rec *p, struct pb_error *err);
+enum pb_code store_pack_get(struct store *st, const char *label, struct pack_rec *out,
+                            struct pb_error *err);
+enum pb_code store_pack_list(struct store *st, struct pack_rec **out, size_t *n,
+                             struct pb_error *err);
+enum pb_code store_pack_retire(struct store *st, const char *label, const char *reason,
+                               struct pb_error *err);
+void store_packs_free(struct pack_rec *p);
+
+/* Stores a flight with its full JSON report. When a flight with the same
+ * content hash exists, stores nothing and sets *duplicate (its pack's label
+ * in dup_label, which may be NULL). Retries while another writer holds the
+ * database, up to the busy timeout. */
+enum pb_code store_flight_put(struct store *st, const struct flight_rec *f, const char *report_json,
+                              int *duplicate, char *dup_label, size_t dup_cap,
+                              struct pb_error *err);
+
+/* Flights of one pack, oldest first. */
+enum pb_code store_flights_of(struct store *st, int64_t pack_id, struct flight_rec **out, size_t *n,
+                              struct pb_error *err);
+void store_flights_free(struct flight_rec *f);
+
+/* The default path: $PACKBOOK_DB, else $XDG_DATA_HOME/packbook/packbook.db,
+ * else $HOME/.local/share/packbook/packbook.db. Writes into buf. */
+int store_default_path(char *buf, size_t cap);
+
+#endif

@@ -1,0 +1,580 @@
+/* store_sqlite: the history store in one SQLite file (WAL, foreign keys,
+ * prepared statements, one transaction per flight). */
+#define _GNU_SOURCE
+#include <errno.h>
+#include <math.h>
+#include <sqlite3.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+#include <sys/stat.h>
+#include <time.h>
+#include <unistd.h>
+
+#include "../core/isotime.h"
+#include "store.h"
+
+#define BUSY_TIMEOUT_MS 15000
+#define BUSY_RETRIES 8
+
+struct store {
+    sqlite3 *db;
+    char path[1024];
+};
+
+/* Schema steps: migrations[k] takes the schema from version k to k + 1.
+ * Never edit a released step; add one. The man page documents the result. */
+static const char *const migrations[] = {
+    /* 0 -> 1: packs and flights */
+    "CREATE TABLE packs ("
+    "  id INTEGER PRIMARY KEY,"
+    "  label TEXT NOT NULL UNIQUE,"
+    "  cells INTEGER NOT NULL CHECK (cells BETWEEN 1 AND 24),"
+    "  parallel INTEGER NOT NULL DEFAULT 1 CHECK (parallel >= 1),"
+    "  chemistry TEXT NOT NULL,"
+    "  capacity_mah REAL NOT NULL CHECK (capacity_mah > 0),"
+    "  since TEXT,"
+    "  note TEXT,"
+    "  created_at TEXT NOT NULL,"
+    "  retired_at TEXT,"
+    "  retire_reason TEXT);"
+    "CREATE TABLE flights ("
+    "  id INTEGER PRIMARY KEY,"
+    "  pack_id INTEGER NOT NULL REFERENCES packs(id),"
+    "  content_hash TEXT NOT NULL UNIQUE,"
+    "  source TEXT NOT NULL,"
+    "  flown_at TEXT NOT NULL,"
+    "  flown_epoch_s REAL NOT NULL,"
+    "  date_source TEXT NOT NULL,"
+    "  imported_at TEXT NOT NULL,"
+    "  duration_s REAL, charge_used_mah REAL, energy_used_wh REAL,"
+    "  current_max_a REAL, current_mean_a REAL, power_mean_w REAL,"
+    "  voltage_min_v REAL, cell_voltage_min_v REAL, time_below_floor_s REAL,"
+    "  r0_mohm REAL, r0_ci95_mohm REAL, r1_mohm REAL, tau_s REAL,"
+    "  soc_start_pct REAL, soc_end_pct REAL,"
+    "  capacity_mah REAL, capacity_ci95_mah REAL,"
+    "  cell_spread_rest_mv REAL, cell_spread_load_mv REAL, weakest_cell INTEGER,"
+    "  temperature_max_c REAL, warnings INTEGER NOT NULL DEFAULT 0,"
+    "  report_json TEXT NOT NULL);",
+    /* 1 -> 2: per-cell figures, and the per-pack time index */
+    "CREATE TABLE flight_cells ("
+    "  flight_id INTEGER NOT NULL REFERENCES flights(id) ON DELETE CASCADE,"
+    "  cell INTEGER NOT NULL,"
+    "  r0_mohm REAL, voltage_min_v REAL, voltage_rest_v REAL,"
+    "  PRIMARY KEY (flight_id, cell));"
+    "CREATE INDEX flights_by_pack_time ON flights(pack_id, flown_epoch_s);",
+};
+
+static enum pb_code db_error(struct store *st, struct pb_error *err, const char *what)
+{
+    int code = sqlite3_extended_errcode(st->db);
+    const char *hint = "";
+    if ((code & 0xff) == SQLITE_READONLY)
+        hint = " (the database or its folder is read-only)";
+    else if ((code & 0xff) == SQLITE_FULL)
+        hint = " (disk full: nothing of this step was stored)";
+    else if ((code & 0xff) == SQLITE_BUSY)
+        hint = " (another packbook kept the database busy too long)";
+    return pb_error_set(err, PB_ESTORE, "%s: %s: %s%s", st->path, what, sqlite3_errmsg(st->db),
+                        hint);
+}
+
+static int mkdir_parents(const char *path)
+{
+    char buf[1024];
+    snprintf(buf, sizeof buf, "%s", path);
+    for (char *p = buf + 1; *p; p++) {
+        if (*p != '/')
+            continue;
+        *p = '\0';
+        if (mkdir(buf, 0755) != 0 && errno != EEXIST)
+            return -1;
+        *p = '/';
+    }
+    return 0;
+}
+
+int store_default_path(char *buf, size_t cap)
+{
+    const char *env = getenv("PACKBOOK_DB");
+    if (env && *env)
+        return snprintf(buf, cap, "%s", env) < (int)cap ? 0 : -1;
+    const char *xdg = getenv("XDG_DATA_HOME");
+    if (xdg && *xdg == '/')
+        return snprintf(buf, cap, "%s/packbook/packbook.db", xdg) < (int)cap ? 0 : -1;
+    const char *home = getenv("HOME");
+    if (!home || !*home)
+        return -1;
+    return snprintf(buf, cap, "%s/.local/share/packbook/packbook.db", home) < (int)cap ? 0 : -1;
+}
+
+static void now_iso(char *buf, size_t cap)
+{
+    struct timespec ts;
+    clock_gettime(CLOCK_REALTIME, &ts);
+    isotime_format((double)ts.tv_sec, buf, cap);
+}
+
+int store_schema_version(struct store *st)
+{
+    sqlite3_stmt *s = NULL;
+    int v = -1;
+    if (sqlite3_prepare_v2(st->db, "PRAGMA user_version", -1, &s, NULL) == SQLITE_OK &&
+        sqlite3_step(s) == SQLITE_ROW)
+        v = sqlite3_column_int(s, 0);
+    sqlite3_finalize(s);
+    return v;
+}
+
+static enum pb_code migrate(struct store *st, struct pb_error *err)
+{
+    int have = store_schema_version(st);
+    if (have < 0)
+        return db_error(st, err, "not a packbook database");
+    int want = (int)(sizeof migrations / sizeof *migrations);
+    if (have > want)
+        return pb_error_set(err, PB_ESTORE,
+                            "%s: schema version %d is newer than this packbook knows (%d): "
+                            "upgrade packbook", st->path, have, want);
+    for (int v = have; v < want; v++) {
+        char setver[64];
+        snprintf(setver, sizeof setver, "PRAGMA user_version = %d", v + 1);
+        if (sqlite3_exec(st->db, "BEGIN IMMEDIATE", NULL, NULL, NULL) != SQLITE_OK)
+            return db_error(st, err, "cannot start the schema upgrade");
+        /* re-read inside the lock: another process may have migrated */
+        if (store_schema_version(st) != v) {
+            sqlite3_exec(st->db, "ROLLBACK", NULL, NULL, NULL);
+            v = store_schema_version(st) - 1;
+            continue;
+        }
+        if (sqlite3_exec(st->db, migrations[v], NULL, NULL, NULL) != SQLITE_OK ||
+            sqlite3_exec(st->db, setver, NULL, NULL, NULL) != SQLITE_OK) {
+            enum pb_code rc = db_error(st, err, "schema upgrade failed");
+            sqlite3_exec(st->db, "ROLLBACK", NULL, NULL, NULL);
+            return rc;
+        }
+        if (sqlite3_exec(st->db, "COMMIT", NULL, NULL, NULL) != SQLITE_OK)
+            return db_error(st, err, "schema upgrade failed");
+    }
+    return PB_OK;
+}
+
+enum pb_code store_open(const char *path, int create, struct store **out, struct pb_error *err)
+{
+    *out = NULL;
+    struct store *st = calloc(1, sizeof *st);
+    if (!st)
+        return pb_error_set(err, PB_ENOMEM, "out of memory");
+    snprintf(st->path, sizeof st->path, "%s", path);
+    if (!create && access(path, F_OK) != 0) {
+        free(st);
+        return pb_error_set(err, PB_ESTORE, "%s: no history yet (add a pack with 'packbook pack add')",
+                            path);
+    }
+    if (create && mkdir_parents(path) != 0) {
+        free(st);
+        return pb_error_set(err, PB_ESTORE, "cannot create the folder for '%s': %s", path,
+                            strerror(errno));
+    }
+    int flags = SQLITE_OPEN_READWRITE | (create ? SQLITE_OPEN_CREATE : 0);
+    if (sqlite3_open_v2(path, &st->db, flags, NULL) != SQLITE_OK) {
+        enum pb_code rc = st->db ? db_error(st, err, "cannot open")
+                                 : pb_error_set(err, PB_ENOMEM, "out of memory");
+        store_close(st);
+        return rc;
+    }
+    sqlite3_busy_timeout(st->db, BUSY_TIMEOUT_MS);
+    sqlite3_extended_result_codes(st->db, 1);
+    /* the first statement that reads the file tells a non-SQLite file */
+    enum pb_code rc = PB_OK;
+    char *msg = NULL;
+    if (sqlite3_exec(st->db, "PRAGMA foreign_keys = ON; PRAGMA journal_mode = WAL;"
+                             "PRAGMA synchronous = NORMAL;", NULL, NULL, &msg) != SQLITE_OK) {
+        int code = sqlite3_errcode(st->db);
+        if (code == SQLITE_NOTADB || code == SQLITE_CORRUPT)
+            rc = pb_error_set(err, PB_ESTORE, "%s: not a packbook database (not an SQLite file)",
+                              path);
+        else
+            rc = db_error(st, err, "cannot open");
+        sqlite3_free(msg);
+        store_close(st);
+        return rc;
+    }
+    rc = migrate(st, err);
+    if (rc != PB_OK) {
+        store_close(st);
+        return rc;
+    }
+    *out = st;
+    return PB_OK;
+}
+
+void store_close(struct store *st)
+{
+    if (!st)
+        return;
+    sqlite3_close(st->db);
+    free(st);
+}
+
+/* ---- packs ------------------------------------------------------------ */
+
+static void copy_text(char *dst, size_t cap, sqlite3_stmt *s, int col)
+{
+    const unsigned char *t = sqlite3_column_text(s, col);
+    snprintf(dst, cap, "%s", t ? (const char *)t : "");
+}
+
+static void read_pack(sqlite3_stmt *s, struct pack_rec *p)
+{
+    memset(p, 0, sizeof *p);
+    p->id = sqlite3_column_int64(s, 0);
+    copy_text(p->label, sizeof p->label, s, 1);
+    p->cells = sqlite3_column_int(s, 2);
+    p->parallel = sqlite3_column_int(s, 3);
+    copy_text(p->chemistry, sizeof p->chemistry, s, 4);
+    p->capacity_mah = sqlite3_column_double(s, 5);
+    copy_text(p->since, sizeof p->since, s, 6);
+    copy_text(p->note, sizeof p->note, s, 7);
+    copy_text(p->created_at, sizeof p->created_at, s, 8);
+    copy_text(p->retired_at, sizeof p->retired_at, s, 9);
+    copy_text(p->retire_reason, sizeof p->retire_reason, s, 10);
+}
+
+#define PACK_COLS "id, label, cells, parallel, chemistry, capacity_mah, since, note, created_at, " \
+                  "retired_at, retire_reason"
+
+static void bind_text_or_null(sqlite3_stmt *s, int i, const char *t)
+{
+    if (t && *t)
+        sqlite3_bind_text(s, i, t, -1, SQLITE_TRANSIENT);
+    else
+        sqlite3_bind_null(s, i);
+}
+
+enum pb_code store_pack_add(struct store *st, struct pack_rec *p, struct pb_error *err)
+{
+    sqlite3_stmt *s = NULL;
+    now_iso(p->created_at, sizeof p->created_at);
+    if (sqlite3_prepare_v2(st->db,
+                           "INSERT INTO packs (label, cells, parallel, chemistry, capacity_mah, "
+                           "since, note, created_at) VALUES (?, ?, ?, ?, ?, ?, ?, ?)",
+                           -1, &s, NULL) != SQLITE_OK)
+        return db_error(st, err, "cannot add the pack");
+    sqlite3_bind_text(s, 1, p->label, -1, SQLITE_TRANSIENT);
+    sqlite3_bind_int(s, 2, p->cells);
+    sqlite3_bind_int(s, 3, p->parallel);
+    sqlite3_bind_text(s, 4, p->chemistry, -1, SQLITE_TRANSIENT);
+    sqlite3_bind_double(s, 5, p->capacity_mah);
+    bind_text_or_null(s, 6, p->since);
+    bind_text_or_null(s, 7, p->note);
+    sqlite3_bind_text(s, 8, p->created_at, -1, SQLITE_TRANSIENT);
+    int rc = sqlite3_step(s);
+    sqlite3_finalize(s);
+    if (rc == SQLITE_CONSTRAINT)
+        return pb_error_set(err, PB_EUSAGE, "pack '%s' exists already", p->label);
+    if (rc != SQLITE_DONE)
+        return db_error(st, err, "cannot add the pack");
+    p->id = sqlite3_last_insert_rowid(st->db);
+    return PB_OK;
+}
+
+enum pb_code store_pack_get(struct store *st, const char *label, struct pack_rec *out,
+                            struct pb_error *err)
+{
+    sqlite3_stmt *s = NULL;
+    if (sqlite3_prepare_v2(st->db, "SELECT " PACK_COLS " FROM packs WHERE label = ?", -1, &s,
+                           NULL) != SQLITE_OK)
+        return db_error(st, err, "cannot read packs");
+    sqlite3_bind_text(s, 1, label, -1, SQLITE_TRANSIENT);
+    int rc = sqlite3_step(s);
+    if (rc == SQLITE_ROW)
+        read_pack(s, out);
+    sqlite3_finalize(s);
+    if (rc == SQLITE_DONE)
+        return pb_error_set(err, PB_EUSAGE, "unknown pack '%s' (see 'packbook pack list')", label);
+    if (rc != SQLITE_ROW)
+        return db_error(st, err, "cannot read packs");
+    return PB_OK;
+}
+
+enum pb_code store_pack_list(struct store *st, struct pack_rec **out, size_t *n,
+                             struct pb_error *err)
+{
+    sqlite3_stmt *s = NULL;
+    struct pack_rec *v = NULL;
+    size_t len = 0, cap = 0;
+    *out = NULL;
+    *n = 0;
+    if (sqlite3_prepare_v2(st->db, "SELECT " PACK_COLS " FROM packs ORDER BY label", -1, &s,
+                           NULL) != SQLITE_OK)
+        return db_error(st, err, "cannot read packs");
+    int rc;
+    while ((rc = sqlite3_step(s)) == SQLITE_ROW) {
+        if (len == cap) {
+            cap = cap ? 2 * cap : 16;
+            struct pack_rec *nv = realloc(v, cap * sizeof *v);
+            if (!nv) {
+                free(v);
+                sqlite3_finalize(s);
+                return pb_error_set(err, PB_ENOMEM, "out of memory");
+            }
+            v = nv;
+        }
+        read_pack(s, &v[len++]);
+    }
+    sqlite3_finalize(s);
+    if (rc != SQLITE_DONE) {
+        free(v);
+        return db_error(st, err, "cannot read packs");
+    }
+    *out = v;
+    *n = len;
+    return PB_OK;
+}
+
+void store_packs_free(struct pack_rec *p)
+{
+    free(p);
+}
+
+enum pb_code store_pack_retire(struct store *st, const char *label, const char *reason,
+                               struct pb_error *err)
+{
+    struct pack_rec p;
+    enum pb_code code = store_pack_get(st, label, &p, err);
+    if (code != PB_OK)
+        return code;
+    if (p.retired_at[0])
+        return pb_error_set(err, PB_EUSAGE, "pack '%s' was retired already on %s (%s)", label,
+                            p.retired_at, p.retire_reason);
+    char now[32];
+    now_iso(now, sizeof now);
+    sqlite3_stmt *s = NULL;
+    if (sqlite3_prepare_v2(st->db, "UPDATE packs SET retired_at = ?, retire_reason = ? WHERE id = ?",
+                           -1, &s, NULL) != SQLITE_OK)
+        return db_error(st, err, "cannot retire the pack");
+    sqlite3_bind_text(s, 1, now, -1, SQLITE_TRANSIENT);
+    sqlite3_bind_text(s, 2, reason, -1, SQLITE_TRANSIENT);
+    sqlite3_bind_int64(s, 3, p.id);
+    int rc = sqlite3_step(s);
+    sqlite3_finalize(s);
+    if (rc != SQLITE_DONE)
+        return db_error(st, err, "cannot retire the pack");
+    return PB_OK;
+}
+
+/* ---- flights ---------------------------------------------------------- */
+
+static void bind_num(sqlite3_stmt *s, int i, double v)
+{
+    if (isfinite(v))
+        sqlite3_bind_double(s, i, v);
+    else
+        sqlite3_bind_null(s, i);
+}
+
+static double col_num(sqlite3_stmt *s, int i)
+{
+    return sqlite3_column_type(s, i) == SQLITE_NULL ? NAN : sqlite3_column_double(s, i);
+}
+
+#define FLIGHT_NUMS                                                                                \
+    X(duration_s) X(charge_used_mah) X(energy_used_wh) X(current_max_a) X(current_mean_a)          \
+    X(power_mean_w) X(voltage_min_v) X(cell_voltage_min_v) X(time_below_floor_s) X(r0_mohm)         \
+    X(r0_ci95_mohm) X(r1_mohm) X(tau_s) X(soc_start_pct) X(soc_end_pct) X(capacity_mah)            \
+    X(capacity_ci95_mah) X(cell_spread_rest_mv) X(cell_spread_load_mv) X(temperature_max_c)
+
+#define X(name) #name ", "
+static const char flight_num_cols[] = FLIGHT_NUMS;
+#undef X
+
+/* One attempt at storing a flight inside a transaction. */
+static int put_once(struct store *st, const struct flight_rec *f, const char *json, int *duplicate,
+                    char *dup_label, size_t dup_cap)
+{
+    sqlite3_stmt *s = NULL;
+    int rc = sqlite3_exec(st->db, "BEGIN IMMEDIATE", NULL, NULL, NULL);
+    if (rc != SQLITE_OK)
+        return rc;
+    rc = sqlite3_prepare_v2(st->db,
+                            "SELECT p.label FROM flights f JOIN packs p ON p.id = f.pack_id "
+                            "WHERE f.content_hash = ?", -1, &s, NULL);
+    if (rc != SQLITE_OK)
+        goto fail;
+    sqlite3_bind_text(s, 1, f->content_hash, -1, SQLITE_TRANSIENT);
+    rc = sqlite3_step(s);
+    if (rc == SQLITE_ROW) {
+        *duplicate = 1;
+        if (dup_label)
+            copy_text(dup_label, dup_cap, s, 0);
+        sqlite3_finalize(s);
+        sqlite3_exec(st->db, "ROLLBACK", NULL, NULL, NULL);
+        return SQLITE_OK;
+    }
+    sqlite3_finalize(s);
+    s = NULL;
+    if (rc != SQLITE_DONE)
+        goto fail;
+
+    char sql[2048], when[40], now[40];
+    int used = snprintf(sql, sizeof sql,
+                        "INSERT INTO flights (pack_id, content_hash, source, flown_at, "
+                        "flown_epoch_s, date_source, imported_at, weakest_cell, warnings, "
+                        "report_json, %.*s) VALUES (?", (int)strlen(flight_num_cols) - 2,
+                        flight_num_cols);
+    /* one placeholder per column: 10 named above plus the numeric ones */
+    int ncols = 10;
+    for (const char *q = flight_num_cols; *q; q++)
+        ncols += *q == ',';
+    for (int k = 1; k < ncols; k++)
+        used += snprintf(sql + used, sizeof sql - (size_t)used, ", ?");
+    snprintf(sql + used, sizeof sql - (size_t)used, ")");
+    rc = sqlite3_prepare_v2(st->db, sql, -1, &s, NULL);
+    if (rc != SQLITE_OK)
+        goto fail;
+    now_iso(now, sizeof now);
+    isotime_format(f->flown_epoch_s, when, sizeof when);
+    sqlite3_bind_int64(s, 1, f->pack_id);
+    sqlite3_bind_text(s, 2, f->content_hash, -1, SQLITE_TRANSIENT);
+    sqlite3_bind_text(s, 3, f->source, -1, SQLITE_TRANSIENT);
+    sqlite3_bind_text(s, 4, when, -1, SQLITE_TRANSIENT);
+    sqlite3_bind_double(s, 5, f->flown_epoch_s);
+    sqlite3_bind_text(s, 6, f->date_source, -1, SQLITE_TRANSIENT);
+    sqlite3_bind_text(s, 7, now, -1, SQLITE_TRANSIENT);
+    if (f->weakest_cell > 0)
+        sqlite3_bind_int(s, 8, f->weakest_cell);
+    else
+        sqlite3_bind_null(s, 8);
+    sqlite3_bind_int(s, 9, f->warnings);
+    sqlite3_bind_text(s, 10, json, -1, SQLITE_TRANSIENT);
+    int i = 11;
+#define X(name) bind_num(s, i++, f->name);
+    FLIGHT_NUMS
+#undef X
+    rc = sqlite3_step(s);
+    sqlite3_finalize(s);
+    s = NULL;
+    if (rc != SQLITE_DONE)
+        goto fail;
+    sqlite3_int64 fid = sqlite3_last_insert_rowid(st->db);
+    rc = sqlite3_prepare_v2(st->db,
+                            "INSERT INTO flight_cells (flight_id, cell, r0_mohm, voltage_min_v, "
+                            "voltage_rest_v) VALUES (?, ?, ?, ?, ?)", -1, &s, NULL);
+    if (rc != SQLITE_OK)
+        goto fail;
+    for (int c = 0; c < f->ncells; c++) {
+        sqlite3_reset(s);
+        sqlite3_bind_int64(s, 1, fid);
+        sqlite3_bind_int(s, 2, f->cell[c].index);
+        bind_num(s, 3, f->cell[c].r0_mohm);
+        bind_num(s, 4, f->cell[c].voltage_min_v);
+        bind_num(s, 5, f->cell[c].voltage_rest_v);
+        rc = sqlite3_step(s);
+        if (rc != SQLITE_DONE)
+            goto fail;
+    }
+    sqlite3_finalize(s);
+    s = NULL;
+    rc = sqlite3_exec(st->db, "COMMIT", NULL, NULL, NULL);
+    if (rc != SQLITE_OK)
+        goto fail;
+    return SQLITE_OK;
+fail:
+    sqlite3_finalize(s);
+    {
+        /* keep the error of the failing step, not the rollback's */
+        int keep = sqlite3_extended_errcode(st->db);
+        sqlite3_exec(st->db, "ROLLBACK", NULL, NULL, NULL);
+        return keep ? keep : rc;
+    }
+}
+
+enum pb_code store_flight_put(struct store *st, const struct flight_rec *f, const char *report_json,
+                              int *duplicate, char *dup_label, size_t dup_cap,
+                              struct pb_error *err)
+{
+    *duplicate = 0;
+    for (int attempt = 0; attempt < BUSY_RETRIES; attempt++) {
+        int rc = put_once(st, f, report_json, duplicate, dup_label, dup_cap);
+        if (rc == SQLITE_OK)
+            return PB_OK;
+        if ((rc & 0xff) != SQLITE_BUSY && (rc & 0xff) != SQLITE_LOCKED)
+            return db_error(st, err, "cannot store the flight");
+        usleep(50000u * (unsigned)(attempt + 1));
+    }
+    return db_error(st, err, "cannot store the flight");
+}
+
+enum pb_code store_flights_of(struct store *st, int64_t pack_id, struct flight_rec **out, size_t *n,
+                              struct pb_error *err)
+{
+    char sql[2048];
+    sqlite3_stmt *s = NULL, *c = NULL;
+    struct flight_rec *v = NULL;
+    size_t len = 0, cap = 0;
+    *out = NULL;
+    *n = 0;
+    snprintf(sql, sizeof sql,
+             "SELECT id, pack_id, content_hash, source, flown_epoch_s, date_source, weakest_cell, "
+             "warnings, %.*s FROM flights WHERE pack_id = ? ORDER BY flown_epoch_s, id",
+             (int)strlen(flight_num_cols) - 2, flight_num_cols);
+    if (sqlite3_prepare_v2(st->db, sql, -1, &s, NULL) != SQLITE_OK ||
+        sqlite3_prepare_v2(st->db, "SELECT cell, r0_mohm, voltage_min_v, voltage_rest_v FROM "
+                                   "flight_cells WHERE flight_id = ? ORDER BY cell",
+                           -1, &c, NULL) != SQLITE_OK) {
+        sqlite3_finalize(s);
+        return db_error(st, err, "cannot read flights");
+    }
+    sqlite3_bind_int64(s, 1, pack_id);
+    int rc;
+    while ((rc = sqlite3_step(s)) == SQLITE_ROW) {
+        if (len == cap) {
+            cap = cap ? 2 * cap : 32;
+            struct flight_rec *nv = realloc(v, cap * sizeof *v);
+            if (!nv) {
+                rc = SQLITE_NOMEM;
+                break;
+            }
+            v = nv;
+        }
+        struct flight_rec *f = &v[len++];
+        memset(f, 0, sizeof *f);
+        f->id = sqlite3_column_int64(s, 0);
+        f->pack_id = sqlite3_column_int64(s, 1);
+        copy_text(f->content_hash, sizeof f->content_hash, s, 2);
+        copy_text(f->source, sizeof f->source, s, 3);
+        f->flown_epoch_s = sqlite3_column_double(s, 4);
+        copy_text(f->date_source, sizeof f->date_source, s, 5);
+        f->weakest_cell = sqlite3_column_int(s, 6);
+        f->warnings = sqlite3_column_int(s, 7);
+        int i = 8;
+#define X(name) f->name = col_num(s, i++);
+        FLIGHT_NUMS
+#undef X
+        sqlite3_reset(c);
+        sqlite3_bind_int64(c, 1, f->id);
+        while (sqlite3_step(c) == SQLITE_ROW && f->ncells < PB_MAX_CELLS) {
+            struct flight_cell_rec *fc = &f->cell[f->ncells++];
+            fc->index = sqlite3_column_int(c, 0);
+            fc->r0_mohm = col_num(c, 1);
+            fc->voltage_min_v = col_num(c, 2);
+            fc->voltage_rest_v = col_num(c, 3);
+        }
+    }
+    sqlite3_finalize(s);
+    sqlite3_finalize(c);
+    if (rc != SQLITE_DONE) {
+        free(v);
+        return rc == SQLITE_NOMEM ? pb_error_set(err, PB_ENOMEM, "out of memory")
+                                  : db_error(st, err, "cannot read flights");
+    }
+    *out = v;
+    *n = len;
+    return PB_OK;
+}
+
+void store_flights_free(struct flight_rec *f)
+{
+    free(f);
+}
