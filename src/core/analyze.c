@@ -113,6 +113,16 @@ static int row_static(void *ctx, size_t j, double *x, double *y)
     return 1;
 }
 
+/* V = OCV(q): the loaded-voltage trend, for logs whose resistance is unknown */
+static int row_ocv_only(void *ctx, size_t j, double *x, double *y)
+{
+    struct model *m = ctx;
+    size_t k = sample_of(m, j);
+    ocv_basis(m, k, x);
+    *y = m->y_v[k] - m->v_ref;
+    return 1;
+}
+
 /* V = OCV(q) - R0 I - R1 i_rc(tau); visits every sample, uses every stride-th */
 static int row_rc(void *ctx, size_t k, double *x, double *y)
 {
@@ -766,7 +776,17 @@ enum pb_code analyze_series(const struct series *s, const struct logread_stats *
         ocv_at(&f, m.degree, 1.0, m.v_ref, &a->ocv_end_v, &se1);
         a->ocv_start_method = a->ocv_end_method = "fit";
         if (!identifiable) {
-            /* without a resistance the fit's OCV is the loaded voltage trend */
+            /* without a resistance, the R column would trade off against the
+             * constant term: the OCV ends come from the loaded voltage trend */
+            struct model mv = {.s = s, .y_v = s->v_v, .v_ref = s->v_v[0], .u = u,
+                               .degree = a->ocv_degree};
+            struct fit_result fv;
+            if (fit_model(&mv, row_ocv_only, mv.degree + 1, !o->plain_fit, &fv, NULL) == PB_OK) {
+                ocv_at(&fv, mv.degree, -1.0, mv.v_ref, &a->ocv_start_v, &se0);
+                ocv_at(&fv, mv.degree, 1.0, mv.v_ref, &a->ocv_end_v, &se1);
+                for (int j = 0; j <= mv.degree && j < OCV_POLY_MAX; j++)
+                    a->ocv_coef_v[j] = fv.beta[j] + (j == 0 ? mv.v_ref : 0.0);
+            }
             a->ocv_start_method = a->ocv_end_method = "loaded";
         }
         ends_from_rest(a, s, r_ohm);
@@ -781,13 +801,15 @@ enum pb_code analyze_series(const struct series *s, const struct logread_stats *
                      "open-circuit voltage %.3f V/cell lies outside the %s table: SoC clamped; "
                      "check --cells and --chemistry",
                      (cl0 ? a->ocv_start_v : a->ocv_end_v) / a->cells, a->chem->label);
+            /* a charging log works too: charge and SoC swing both negative */
             double dsoc = a->soc_start_pct.value - a->soc_end_pct.value;
             if (cl0 || cl1) {
                 warn(a, "capacity_not_estimable", "capacity needs SoC inside the table at both ends");
-            } else if (dsoc < MIN_SOC_SWING_PCT) {
+            } else if (fabs(dsoc) < MIN_SOC_SWING_PCT || (dsoc > 0) != (a->charge_used_mah > 0)) {
                 warn(a, "capacity_not_estimable",
-                     "capacity needs a SoC swing of at least %.0f points; this log has %.1f",
-                     MIN_SOC_SWING_PCT, dsoc);
+                     "capacity needs a SoC swing of at least %.0f points in the direction of the "
+                     "charge drawn; this log has %.1f points for %.0f mAh",
+                     MIN_SOC_SWING_PCT, -dsoc, a->charge_used_mah);
             } else {
                 double cap = a->charge_used_mah / (dsoc / 100.0);
                 double rel = hypot(a->soc_start_pct.ci95, a->soc_end_pct.ci95) / dsoc;

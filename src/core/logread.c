@@ -295,10 +295,21 @@ static int field_is_number(const char *f, char decimal)
  * the first record is a header, 0 when it is data, -1 on failure. */
 static int map_columns(struct reader *r)
 {
+    /* a header has a field that is neither a number nor a date; with
+     * --columns only the columns it maps count (data lines may carry text
+     * in the skipped ones) */
     int is_header = 0;
+    const char *lp = r->opts->columns;
     for (int c = 0; c < r->first_row_n; c++) {
         const char *f = r->first_row[c];
-        if (f[0] != '\0' && !field_is_number(f, r->st->decimal) &&
+        int mapped = 1;
+        if (lp) {
+            const char *e = lp ? strchr(lp, ',') : NULL;
+            size_t l = e ? (size_t)(e - lp) : strlen(lp);
+            mapped = *lp && !(l == 1 && lp[0] == '-');
+            lp = e ? e + 1 : lp + l;
+        }
+        if (mapped && f[0] != '\0' && !field_is_number(f, r->st->decimal) &&
             isotime_parse(f, strlen(f), &(double){0}, NULL) != 0)
             is_header = 1;
     }
@@ -742,6 +753,8 @@ struct series *logread_file(FILE *fp, const char *name, const struct logread_opt
         goto cleanup;
     }
     size_t len = fread(buf, 1, BLOCK_BYTES, fp);
+    if (opts->on_block && len)
+        opts->on_block(opts->block_ctx, buf, len);
     if (ferror(fp)) {
         pb_error_set(err, PB_EINPUT, "%s: read error", name);
         goto cleanup;
@@ -778,6 +791,8 @@ struct series *logread_file(FILE *fp, const char *name, const struct logread_opt
     feed(&r, &p, buf + start, len - start);
     char last = buf[len - 1];
     while (!r.failed && (len = fread(buf, 1, BLOCK_BYTES, fp)) > 0) {
+        if (opts->on_block)
+            opts->on_block(opts->block_ctx, buf, len);
         feed(&r, &p, buf, len);
         last = buf[len - 1];
     }
