@@ -19,6 +19,11 @@ struct command {
 static const struct command commands[] = {
     {"analyze", cmd_analyze, "one flight log in, the pack's facts out"},
     {"chemistry", cmd_chemistry, "the OCV tables and limits used, with their sources"},
+    {"pack", cmd_pack, "register packs: add, list, show, retire"},
+    {"import", cmd_import, "analyse logs and store them as a pack's flights"},
+    {"fleet", cmd_fleet, "every pack's state, with retirement flags and reasons"},
+    {"trend", cmd_trend, "a pack's resistance and capacity over weeks and cycles"},
+    {"compare", cmd_compare, "packs side by side"},
 };
 
 static void print_usage(FILE *out)

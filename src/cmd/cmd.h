@@ -18,6 +18,11 @@ struct app {
 
 enum pb_code cmd_analyze(int argc, char **argv, struct app *app, struct pb_error *err);
 enum pb_code cmd_chemistry(int argc, char **argv, struct app *app, struct pb_error *err);
+enum pb_code cmd_pack(int argc, char **argv, struct app *app, struct pb_error *err);
+enum pb_code cmd_import(int argc, char **argv, struct app *app, struct pb_error *err);
+enum pb_code cmd_fleet(int argc, char **argv, struct app *app, struct pb_error *err);
+enum pb_code cmd_trend(int argc, char **argv, struct app *app, struct pb_error *err);
+enum pb_code cmd_compare(int argc, char **argv, struct app *app, struct pb_error *err);
 
 /* Parses a number option value; returns 0 or fills err (usage). */
 int cmd_parse_double(const char *opt, const char *val, double lo, double hi, double *out,

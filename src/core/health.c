@@ -1,3 +1,4 @@
+#define _GNU_SOURCE
 #include "health.h"
 
 #include <gsl/gsl_cdf.h>
@@ -8,6 +9,9 @@
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
+#include <time.h>
+
+#include "isotime.h"
 
 void health_rules_default(struct health_rules *r)
 {
@@ -212,4 +216,125 @@ int health_crossing(const struct line_fit *l, double level, int rising, double x
         return 0;
     *x_cross = (level - l->a) / l->b;
     return 1;
+}
+
+/* ---- trends ------------------------------------------------------------ */
+
+static void bucket_key(enum trend_by by, double epoch_s, double cycles, char *key, size_t cap)
+{
+    if (by == TREND_CYCLE) {
+        double lo = floor(cycles / TREND_CYCLE_BUCKET) * TREND_CYCLE_BUCKET;
+        snprintf(key, cap, "cycles %g-%g", lo, lo + TREND_CYCLE_BUCKET);
+        return;
+    }
+    if (by == TREND_MONTH) {
+        time_t t = (time_t)floor(epoch_s);
+        struct tm tm;
+        gmtime_r(&t, &tm);
+        snprintf(key, cap, "%04d-%02d", tm.tm_year + 1900, tm.tm_mon + 1);
+        return;
+    }
+    int y = 0, w = 0;
+    isotime_week(epoch_s, &y, &w);
+    snprintf(key, cap, "%04d-W%02d", y, w);
+}
+
+static void trend_line_fit(struct trend_line *tl, const double *cyc, const double *days,
+                           const double *y, size_t n, int plain, double level, int rising,
+                           double cycles_now, double days_now, double first_epoch,
+                           double horizon)
+{
+    tl->vs_cycles = health_line(cyc, y, n, plain);
+    tl->vs_days = health_line(days, y, n, plain);
+    tl->level = level;
+    tl->cross_cycles = tl->cross_epoch_s = NAN;
+    if (!isfinite(level))
+        return;
+    double xc, xd;
+    int c = health_crossing(&tl->vs_cycles, level, rising, cycles_now, &xc);
+    if (c < 0) {
+        tl->crossed = 1;
+        return;
+    }
+    if (c > 0) {
+        if (xc - cycles_now > horizon)
+            tl->beyond_horizon = 1;
+        else
+            tl->cross_cycles = xc;
+    }
+    if (health_crossing(&tl->vs_days, level, rising, days_now, &xd) > 0 && !tl->beyond_horizon)
+        tl->cross_epoch_s = first_epoch + xd * 86400.0;
+}
+
+int health_trend(const struct health_flight *f, size_t n, int cells, double rated_mah,
+                 const struct health_rules *rules, enum trend_by by, int plain, double horizon,
+                 struct pack_trend *t)
+{
+    memset(t, 0, sizeof *t);
+    if (n == 0)
+        return 0;
+    double *cyc = malloc(n * sizeof *cyc), *days = malloc(n * sizeof *days);
+    double *r0 = malloc(n * sizeof *r0), *cap = malloc(n * sizeof *cap);
+    t->buckets = calloc(n, sizeof *t->buckets);
+    if (!cyc || !days || !r0 || !cap || !t->buckets) {
+        free(cyc), free(days), free(r0), free(cap);
+        health_trend_release(t);
+        return -1;
+    }
+    double q = 0.0;
+    for (size_t k = 0; k < n; k++) {
+        /* a flight's cycle count is the charge drawn before and during it */
+        if (isfinite(f[k].charge_mah) && f[k].charge_mah > 0)
+            q += f[k].charge_mah;
+        cyc[k] = q / rated_mah;
+        days[k] = (f[k].epoch_s - f[0].epoch_s) / 86400.0;
+        r0[k] = f[k].r0_mohm / cells;
+        cap[k] = 100.0 * f[k].capacity_mah / rated_mah;
+
+        char key[40];
+        bucket_key(by, f[k].epoch_s, cyc[k], key, sizeof key);
+        struct trend_bucket *b = t->nbuckets ? &t->buckets[t->nbuckets - 1] : NULL;
+        if (!b || strcmp(b->key, key) != 0) {
+            b = &t->buckets[t->nbuckets++];
+            snprintf(b->key, sizeof b->key, "%s", key);
+            b->first_epoch_s = f[k].epoch_s;
+            b->r0_mohm_cell = b->capacity_pct = 0.0;
+        }
+        b->flights++;
+        b->last_epoch_s = f[k].epoch_s;
+        if (isfinite(f[k].charge_mah))
+            b->charge_mah += f[k].charge_mah;
+    }
+    /* bucket means of the known values */
+    size_t k = 0;
+    for (size_t j = 0; j < t->nbuckets; j++) {
+        struct trend_bucket *b = &t->buckets[j];
+        double rs = 0, cs = 0;
+        size_t rn = 0, cn = 0;
+        for (size_t m = 0; m < b->flights; m++, k++) {
+            if (isfinite(r0[k]))
+                rs += r0[k], rn++;
+            if (isfinite(cap[k]))
+                cs += cap[k], cn++;
+        }
+        b->r0_mohm_cell = rn ? rs / rn : NAN;
+        b->capacity_pct = cn ? cs / cn : NAN;
+    }
+    t->cycles_now = cyc[n - 1];
+    t->days_now = days[n - 1];
+    struct pack_health h;
+    health_assess(f, n, cells, rated_mah, rules, &h);
+    trend_line_fit(&t->r0, cyc, days, r0, n, plain, rules->retire_r0_ratio * h.r0_base_mohm_cell,
+                   1, t->cycles_now, t->days_now, f[0].epoch_s, horizon);
+    trend_line_fit(&t->capacity, cyc, days, cap, n, plain, rules->retire_capacity_pct, 0,
+                   t->cycles_now, t->days_now, f[0].epoch_s, horizon);
+    free(cyc), free(days), free(r0), free(cap);
+    return 0;
+}
+
+void health_trend_release(struct pack_trend *t)
+{
+    free(t->buckets);
+    t->buckets = NULL;
+    t->nbuckets = 0;
 }

@@ -74,4 +74,50 @@ struct line_fit health_line(const double *x, const double *y, size_t n, int plai
 int health_crossing(const struct line_fit *l, double level, int rising, double x_now,
                     double *x_cross);
 
+
+/* ---- trends ------------------------------------------------------------ */
+
+enum trend_by { TREND_WEEK = 0, TREND_MONTH, TREND_CYCLE };
+
+#define TREND_CYCLE_BUCKET 5.0 /* equivalent cycles per bucket with --by cycle */
+
+struct trend_bucket {
+    char key[40];          /* "2026-W15", "2026-04" or "cycles 5-10" */
+    size_t flights;
+    double first_epoch_s, last_epoch_s;
+    double charge_mah;
+    double r0_mohm_cell;   /* mean of known values, NAN when none */
+    double capacity_pct;
+};
+
+/* One quantity's regression against cycles and against days, and when it
+ * crosses its retirement level. cross_* NAN when it does not within the
+ * horizon; crossed set when the fitted line is there already. */
+struct trend_line {
+    struct line_fit vs_cycles, vs_days;
+    double level;          /* the retirement level it is checked against */
+    int crossed;
+    double cross_cycles;   /* equivalent cycles at the crossing */
+    double cross_epoch_s;  /* date of the crossing, from the time fit */
+    int beyond_horizon;    /* a crossing exists, but later than the horizon */
+};
+
+struct pack_trend {
+    size_t nbuckets;
+    struct trend_bucket *buckets; /* owned: free with health_trend_release */
+    double cycles_now, days_now;
+    struct trend_line r0;        /* mOhm per cell, level = retire ratio x baseline */
+    struct trend_line capacity;  /* % of rated, level = retire capacity % */
+};
+
+/* Aggregates and regressions of a pack's flights (oldest first). horizon:
+ * crossings further than this many cycles ahead are "not within". Returns
+ * 0, or -1 when out of memory. */
+int health_trend(const struct health_flight *f, size_t n, int cells, double rated_mah,
+                 const struct health_rules *rules, enum trend_by by, int plain, double horizon,
+                 struct pack_trend *out);
+
+/* Frees the buckets of t (not t itself); safe on a zeroed struct. */
+void health_trend_release(struct pack_trend *t);
+
 #endif

@@ -31,6 +31,9 @@ struct logread_opts {
     int have_adc;         /* raw current calibration given */
     double adc_a_per_count;
     double adc_offset_counts;
+    /* called with every block of raw bytes as read (e.g. to hash the log) */
+    void (*on_block)(void *ctx, const char *buf, size_t len);
+    void *block_ctx;
 };
 
 /* A counted event: how often, and where first. */

@@ -271,7 +271,7 @@ enum pb_code store_pack_add(struct store *st, struct pack_rec *p, struct pb_erro
     sqlite3_bind_text(s, 8, p->created_at, -1, SQLITE_TRANSIENT);
     int rc = sqlite3_step(s);
     sqlite3_finalize(s);
-    if (rc == SQLITE_CONSTRAINT)
+    if ((rc & 0xff) == SQLITE_CONSTRAINT)
         return pb_error_set(err, PB_EUSAGE, "pack '%s' exists already", p->label);
     if (rc != SQLITE_DONE)
         return db_error(st, err, "cannot add the pack");

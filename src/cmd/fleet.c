@@ -1,0 +1,154 @@
+/* packbook fleet: one row per pack with its state and the reason. */
+#include <getopt.h>
+#include <math.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include "cmd.h"
+#include "packview.h"
+
+static const char usage[] =
+    "usage: packbook fleet [--json|--csv] [--sort KEY] [--status S] [--all] [--db PATH]\n"
+    "\n"
+    "One row per pack in service: flights, equivalent full cycles, last flown,\n"
+    "R0 now (mOhm per cell, median of the last 5 flights) and against its baseline\n"
+    "(median of its first 3), capacity as %% of rated, resting cell spread, flights\n"
+    "below the voltage floor, status (ok, watch, retire) and why.\n"
+    "  --sort KEY             status (default: retire first), pack, cycles, r0, capacity, last\n"
+    "  --status S             only packs with status ok, watch, retire or retired\n"
+    "  --all                  include retired packs\n"
+    "  --json, --csv          machine-readable output (CSV cells starting = + - @ are\n"
+    "                         prefixed with ' so spreadsheets do not run them)\n";
+
+enum { F_JSON = 256, F_CSV, F_SORT, F_STATUS, F_ALL, F_DB };
+
+static const struct option longopts[] = {
+    {"json", no_argument, NULL, F_JSON},           {"csv", no_argument, NULL, F_CSV},
+    {"sort", required_argument, NULL, F_SORT},     {"status", required_argument, NULL, F_STATUS},
+    {"all", no_argument, NULL, F_ALL},             {"db", required_argument, NULL, F_DB},
+    {"help", no_argument, NULL, 'h'},              RULEOPTS_LONG,
+    {NULL, 0, NULL, 0},
+};
+
+static const char *sort_key;
+
+static int rank_of(const struct pack_view *v)
+{
+    return v->pack.retired_at[0] ? -1 : (int)v->health.status;
+}
+
+/* unknown values sort last in either direction */
+static int cmp_num(double a, double b, int desc)
+{
+    if (!isfinite(a) || !isfinite(b))
+        return isfinite(a) ? -1 : isfinite(b) ? 1 : 0;
+    if (a == b)
+        return 0;
+    return (a < b) == !desc ? -1 : 1;
+}
+
+static int compare_views(const void *pa, const void *pb)
+{
+    const struct pack_view *a = pa, *b = pb;
+    int c = 0;
+    if (strcmp(sort_key, "status") == 0)
+        c = rank_of(b) - rank_of(a);
+    else if (strcmp(sort_key, "cycles") == 0)
+        c = cmp_num(a->health.cycles, b->health.cycles, 1);
+    else if (strcmp(sort_key, "r0") == 0)
+        c = cmp_num(a->health.r0_ratio, b->health.r0_ratio, 1);
+    else if (strcmp(sort_key, "capacity") == 0)
+        c = cmp_num(a->health.capacity_pct, b->health.capacity_pct, 0);
+    else if (strcmp(sort_key, "last") == 0)
+        c = cmp_num(a->health.last_epoch_s, b->health.last_epoch_s, 1);
+    return c ? c : strcmp(a->pack.label, b->pack.label);
+}
+
+enum pb_code cmd_fleet(int argc, char **argv, struct app *app, struct pb_error *err)
+{
+    struct health_rules rules;
+    enum fleet_format fmt = FLEET_TEXT;
+    const char *db = NULL, *status = NULL;
+    int all = 0, c;
+    (void)app;
+    health_rules_default(&rules);
+    sort_key = "status";
+    optind = 1;
+    opterr = 0;
+    while ((c = getopt_long(argc, argv, "h", longopts, NULL)) != -1) {
+        int taken = ruleopts_take(c, optarg, &rules, err);
+        if (taken < 0)
+            return PB_EUSAGE;
+        if (taken)
+            continue;
+        switch (c) {
+        case F_JSON: fmt = FLEET_JSON; break;
+        case F_CSV: fmt = FLEET_CSV; break;
+        case F_SORT:
+            if (strcmp(optarg, "status") && strcmp(optarg, "pack") && strcmp(optarg, "cycles") &&
+                strcmp(optarg, "r0") && strcmp(optarg, "capacity") && strcmp(optarg, "last"))
+                return pb_error_set(err, PB_EUSAGE, "--sort: expected status, pack, cycles, r0, "
+                                    "capacity or last, got '%s'", optarg);
+            sort_key = optarg;
+            break;
+        case F_STATUS:
+            if (strcmp(optarg, "ok") && strcmp(optarg, "watch") && strcmp(optarg, "retire") &&
+                strcmp(optarg, "retired"))
+                return pb_error_set(err, PB_EUSAGE, "--status: expected ok, watch, retire or "
+                                    "retired, got '%s'", optarg);
+            status = optarg;
+            break;
+        case F_ALL: all = 1; break;
+        case F_DB: db = optarg; break;
+        case 'h':
+            fputs(usage, stdout);
+            fputs(ruleopts_usage, stdout);
+            return cmd_finish_stdout(err);
+        default: return cmd_bad_option("fleet", argc, argv, err);
+        }
+    }
+    if (optind < argc)
+        return pb_error_set(err, PB_EUSAGE, "fleet: unexpected argument '%s'", argv[optind]);
+    struct store *st = NULL;
+    struct pack_rec *packs = NULL;
+    struct pack_view *views = NULL;
+    size_t np = 0, nv = 0;
+    enum pb_code rc = packview_open_store(db, 1, &st, err);
+    if (rc != PB_OK)
+        return rc;
+    rc = store_pack_list(st, &packs, &np, err);
+    if (rc != PB_OK)
+        goto cleanup;
+    views = calloc(np ? np : 1, sizeof *views);
+    if (!views) {
+        rc = pb_error_set(err, PB_ENOMEM, "out of memory");
+        goto cleanup;
+    }
+    if (status && strcmp(status, "retired") == 0)
+        all = 1;
+    for (size_t k = 0; k < np; k++) {
+        if (packs[k].retired_at[0] && !all)
+            continue;
+        rc = packview_load(st, &packs[k], &rules, TREND_WEEK, 0, 1000.0, &views[nv], err);
+        if (rc != PB_OK)
+            goto cleanup;
+        nv++;
+        const char *s = packs[k].retired_at[0] ? "retired"
+                                               : health_status_name(views[nv - 1].health.status);
+        if (status && strcmp(s, status) != 0)
+            pack_view_release(&views[--nv]);
+    }
+    qsort(views, nv, sizeof *views, compare_views);
+    if (report_fleet(stdout, views, nv, fmt) != 0)
+        rc = pb_error_set(err, PB_EOUTPUT, "cannot write the output");
+    else
+        rc = cmd_finish_stdout(err);
+cleanup:
+    for (size_t k = 0; k < nv; k++)
+        pack_view_release(&views[k]);
+    free(views);
+    store_packs_free(packs);
+    store_close(st);
+    return rc;
+}

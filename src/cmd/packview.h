@@ -1,0 +1,34 @@
+/* packview: loads a pack with its flights from the store and assesses it. */
+#ifndef PB_PACKVIEW_H
+#define PB_PACKVIEW_H
+
+#include "../report/report_health.h"
+#include "cmd.h"
+
+struct rules_cli {
+    struct health_rules rules;
+};
+
+/* Options that change the retirement rules, for a command's table. */
+enum { RO_CAP = 400, RO_R0, RO_SPREAD, RO_OVER };
+#define RULEOPTS_LONG                                                                              \
+    {"retire-capacity", required_argument, NULL, RO_CAP},                                          \
+    {"retire-r0-ratio", required_argument, NULL, RO_R0},                                           \
+    {"retire-spread", required_argument, NULL, RO_SPREAD},                                         \
+    {"retire-overdischarge", required_argument, NULL, RO_OVER}
+
+extern const char ruleopts_usage[];
+
+/* Takes a rule option: 1 taken, 0 not ours, -1 bad value. */
+int ruleopts_take(int c, const char *arg, struct health_rules *r, struct pb_error *err);
+
+/* Opens the store named by --db (NULL: the default path). */
+enum pb_code packview_open_store(const char *db, int create, struct store **out,
+                                 struct pb_error *err);
+
+/* Fills v for pack p: flights, health, trend. */
+enum pb_code packview_load(struct store *st, const struct pack_rec *p,
+                           const struct health_rules *rules, enum trend_by by, int plain,
+                           double horizon, struct pack_view *v, struct pb_error *err);
+
+#endif

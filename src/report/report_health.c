@@ -1,0 +1,388 @@
+#include "report_health.h"
+
+#include <jansson.h>
+#include <math.h>
+#include <string.h>
+
+#include "../core/isotime.h"
+
+void pack_view_release(struct pack_view *v)
+{
+    if (!v)
+        return;
+    store_flights_free(v->flights);
+    v->flights = NULL;
+    health_trend_release(&v->trend);
+}
+
+static json_t *num(double x)
+{
+    return isfinite(x) ? json_real(x) : json_null();
+}
+
+static json_t *str_or_null(const char *s)
+{
+    return s && *s ? json_string(s) : json_null();
+}
+
+static json_t *date_or_null(double epoch_s)
+{
+    char buf[40];
+    return isfinite(epoch_s) ? json_string(isotime_format(epoch_s, buf, sizeof buf)) : json_null();
+}
+
+static int dump(FILE *out, json_t *o)
+{
+    if (!o)
+        return -1;
+    int rc = json_dumpf(o, out, JSON_INDENT(2) | JSON_REAL_PRECISION(10) | JSON_PRESERVE_ORDER);
+    json_decref(o);
+    return rc != 0 || fputc('\n', out) == EOF ? -1 : 0;
+}
+
+/* "2026-04-18" of an epoch, or "-" */
+static const char *day(double epoch_s, char *buf, size_t cap)
+{
+    if (!isfinite(epoch_s))
+        return "-";
+    isotime_format(epoch_s, buf, cap);
+    buf[10] = '\0';
+    return buf;
+}
+
+/* A number with a format, or "-" when unknown. */
+static const char *fmt_num(char *buf, size_t cap, const char *fmt, double v)
+{
+    if (!isfinite(v))
+        return "-";
+    snprintf(buf, cap, fmt, v);
+    return buf;
+}
+
+static json_t *pack_obj(const struct pack_rec *p)
+{
+    return json_pack("{s:s, s:i, s:i, s:s, s:f, s:o, s:o, s:s, s:o, s:o}", "id", p->label, "cells",
+                     p->cells, "parallel", p->parallel, "chemistry", p->chemistry, "capacity_mah",
+                     p->capacity_mah, "since", str_or_null(p->since), "note", str_or_null(p->note),
+                     "created_at", p->created_at, "retired_at", str_or_null(p->retired_at),
+                     "retire_reason", str_or_null(p->retire_reason));
+}
+
+int report_pack_list(FILE *out, const struct pack_rec *p, size_t n, int json)
+{
+    if (json) {
+        json_t *a = json_array();
+        for (size_t k = 0; k < n; k++)
+            json_array_append_new(a, pack_obj(&p[k]));
+        return dump(out, a);
+    }
+    fprintf(out, "%-16s %-7s %-5s %10s  %-10s  %s\n", "pack", "layout", "chem", "rated mAh",
+            "since", "state");
+    for (size_t k = 0; k < n; k++) {
+        char layout[24];
+        snprintf(layout, sizeof layout, "%dS%dP", p[k].cells, p[k].parallel);
+        fprintf(out, "%-16s %-7s %-5s %10.0f  %-10s  %s%s\n", p[k].label, layout, p[k].chemistry,
+                p[k].capacity_mah, p[k].since[0] ? p[k].since : "-",
+                p[k].retired_at[0] ? "retired " : "in service", p[k].retired_at);
+    }
+    if (n == 0)
+        fprintf(out, "(no packs yet: packbook pack add ID --cells N --chemistry C --capacity MAH)\n");
+    return ferror(out) ? -1 : 0;
+}
+
+static json_t *health_obj(const struct pack_view *v)
+{
+    const struct pack_health *h = &v->health;
+    return json_pack("{s:I, s:o, s:o, s:o, s:o, s:o, s:o, s:o, s:i, s:s, s:s}", "flights",
+                     (json_int_t)h->flights, "equivalent_cycles", num(h->cycles), "last_flown",
+                     date_or_null(h->last_epoch_s), "r0_mohm_per_cell", num(h->r0_now_mohm_cell),
+                     "r0_baseline_mohm_per_cell", num(h->r0_base_mohm_cell), "r0_ratio",
+                     num(h->r0_ratio), "capacity_pct", num(h->capacity_pct), "cell_spread_mv",
+                     num(h->spread_mv), "overdischarges", h->overdischarges, "status",
+                     v->pack.retired_at[0] ? "retired" : health_status_name(h->status), "reason",
+                     v->pack.retired_at[0] ? v->pack.retire_reason : h->reason);
+}
+
+static const char *status_of(const struct pack_view *v)
+{
+    return v->pack.retired_at[0] ? "retired" : health_status_name(v->health.status);
+}
+
+static json_t *flight_obj(const struct flight_rec *f)
+{
+    return json_pack("{s:o, s:s, s:s, s:o, s:o, s:o, s:o, s:o, s:o, s:o, s:o, s:i}", "flown_at",
+                     date_or_null(f->flown_epoch_s), "date_source", f->date_source, "source",
+                     f->source, "duration_s", num(f->duration_s), "charge_used_mah",
+                     num(f->charge_used_mah), "r0_mohm", num(f->r0_mohm), "capacity_mah",
+                     num(f->capacity_mah), "soc_start_pct", num(f->soc_start_pct), "soc_end_pct",
+                     num(f->soc_end_pct), "cell_spread_rest_mv", num(f->cell_spread_rest_mv),
+                     "time_below_floor_s", num(f->time_below_floor_s), "warnings", f->warnings);
+}
+
+int report_pack_show(FILE *out, const struct pack_view *v, int json)
+{
+    const struct pack_rec *p = &v->pack;
+    const struct pack_health *h = &v->health;
+    if (json) {
+        json_t *o = pack_obj(p);
+        json_object_set_new(o, "health", health_obj(v));
+        json_t *fl = json_array();
+        for (size_t k = 0; k < v->nflights; k++)
+            json_array_append_new(fl, flight_obj(&v->flights[k]));
+        json_object_set_new(o, "flights", fl);
+        return dump(out, o);
+    }
+    char b1[32], b2[32], b3[32];
+    fprintf(out, "pack %s: %dS%dP %s, rated %.0f mAh", p->label, p->cells, p->parallel,
+            p->chemistry, p->capacity_mah);
+    if (p->since[0])
+        fprintf(out, ", in service since %s", p->since);
+    fprintf(out, "\n");
+    if (p->note[0])
+        fprintf(out, "  note: %s\n", p->note);
+    if (p->retired_at[0])
+        fprintf(out, "  retired %s: %s\n", p->retired_at, p->retire_reason);
+    fprintf(out, "  %zu flights, %.1f equivalent cycles, last flown %s\n", h->flights,
+            isfinite(h->cycles) ? h->cycles : 0.0, day(h->last_epoch_s, b1, sizeof b1));
+    fprintf(out, "  R0 %s mOhm/cell now, baseline %s (x%s); capacity %s %% of rated; spread %s mV\n",
+            fmt_num(b1, sizeof b1, "%.2f", h->r0_now_mohm_cell),
+            fmt_num(b2, sizeof b2, "%.2f", h->r0_base_mohm_cell),
+            fmt_num(b3, sizeof b3, "%.2f", h->r0_ratio),
+            fmt_num((char[32]){0}, 32, "%.0f", h->capacity_pct),
+            fmt_num((char[32]){0}, 32, "%.0f", h->spread_mv));
+    fprintf(out, "  status: %s (%s)\n", status_of(v), p->retired_at[0] ? p->retire_reason : h->reason);
+    if (v->nflights) {
+        fprintf(out, "\n  %-10s %8s %9s %9s %10s %11s %6s\n", "date", "min", "mAh", "R0 mOhm",
+                "cap mAh", "SoC %", "warn");
+        for (size_t k = 0; k < v->nflights; k++) {
+            const struct flight_rec *f = &v->flights[k];
+            char soc[24];
+            if (isfinite(f->soc_start_pct) && isfinite(f->soc_end_pct))
+                snprintf(soc, sizeof soc, "%.0f->%.0f", f->soc_start_pct, f->soc_end_pct);
+            else
+                snprintf(soc, sizeof soc, "-");
+            fprintf(out, "  %-10s %8.1f %9s %9s %10s %11s %6d\n", day(f->flown_epoch_s, b1, sizeof b1),
+                    f->duration_s / 60.0, fmt_num(b2, sizeof b2, "%.0f", f->charge_used_mah),
+                    fmt_num(b3, sizeof b3, "%.2f", f->r0_mohm),
+                    fmt_num((char[32]){0}, 32, "%.0f", f->capacity_mah), soc, f->warnings);
+        }
+    }
+    return ferror(out) ? -1 : 0;
+}
+
+void report_csv_cell(FILE *out, const char *t)
+{
+    int formula = t[0] == '=' || t[0] == '+' || t[0] == '-' || t[0] == '@' || t[0] == '\t' ||
+                  t[0] == '\r';
+    int quote = formula || strpbrk(t, ",\"\n\r") != NULL;
+    if (quote)
+        fputc('"', out);
+    if (formula)
+        fputc('\'', out);
+    for (const char *c = t; *c; c++) {
+        if (*c == '"')
+            fputc('"', out);
+        fputc(*c, out);
+    }
+    if (quote)
+        fputc('"', out);
+}
+
+static void csv_num(FILE *out, const char *fmt, double v)
+{
+    fputc(',', out);
+    if (isfinite(v))
+        fprintf(out, fmt, v);
+}
+
+int report_fleet(FILE *out, const struct pack_view *v, size_t n, enum fleet_format fmt)
+{
+    if (fmt == FLEET_JSON) {
+        json_t *a = json_array();
+        for (size_t k = 0; k < n; k++) {
+            json_t *o = json_pack("{s:s, s:i, s:s, s:f}", "id", v[k].pack.label, "cells",
+                                  v[k].pack.cells, "chemistry", v[k].pack.chemistry,
+                                  "rated_capacity_mah", v[k].pack.capacity_mah);
+            json_t *h = health_obj(&v[k]);
+            json_object_update(o, h);
+            json_decref(h);
+            json_array_append_new(a, o);
+        }
+        return dump(out, a);
+    }
+    if (fmt == FLEET_CSV) {
+        fprintf(out, "pack,flights,equivalent_cycles,last_flown,r0_mohm_per_cell,r0_ratio,"
+                     "capacity_pct,cell_spread_mv,overdischarges,status,reason\n");
+        char b[32];
+        for (size_t k = 0; k < n; k++) {
+            const struct pack_health *h = &v[k].health;
+            report_csv_cell(out, v[k].pack.label);
+            fprintf(out, ",%zu", h->flights);
+            csv_num(out, "%.2f", h->cycles);
+            fprintf(out, ",%s", isfinite(h->last_epoch_s) ? day(h->last_epoch_s, b, sizeof b) : "");
+            csv_num(out, "%.3f", h->r0_now_mohm_cell);
+            csv_num(out, "%.3f", h->r0_ratio);
+            csv_num(out, "%.1f", h->capacity_pct);
+            csv_num(out, "%.1f", h->spread_mv);
+            fprintf(out, ",%d,%s,", h->overdischarges, status_of(&v[k]));
+            report_csv_cell(out, v[k].pack.retired_at[0] ? v[k].pack.retire_reason : h->reason);
+            fputc('\n', out);
+        }
+        return ferror(out) ? -1 : 0;
+    }
+    fprintf(out, "%-14s %7s %7s %-10s %9s %7s %6s %7s %5s  %-7s %s\n", "pack", "flights",
+            "cycles", "last", "R0 mOhm", "R0 vs", "cap %", "spread", "over", "status", "why");
+    fprintf(out, "%-14s %7s %7s %-10s %9s %7s %6s %7s %5s  %-7s\n", "", "", "", "flown",
+            "per cell", "base", "rated", "mV", "disch", "");
+    for (size_t k = 0; k < n; k++) {
+        const struct pack_health *h = &v[k].health;
+        char b[6][32];
+        fprintf(out, "%-14s %7zu %7s %-10s %9s %7s %6s %7s %5d  %-7s %s\n", v[k].pack.label,
+                h->flights, fmt_num(b[0], 32, "%.1f", h->cycles), day(h->last_epoch_s, b[1], 32),
+                fmt_num(b[2], 32, "%.2f", h->r0_now_mohm_cell),
+                fmt_num(b[3], 32, "x%.2f", h->r0_ratio), fmt_num(b[4], 32, "%.0f", h->capacity_pct),
+                fmt_num(b[5], 32, "%.0f", h->spread_mv), h->overdischarges, status_of(&v[k]),
+                v[k].pack.retired_at[0] ? v[k].pack.retire_reason : h->reason);
+    }
+    if (n == 0)
+        fprintf(out, "(no packs match)\n");
+    return ferror(out) ? -1 : 0;
+}
+
+static json_t *line_obj(const struct line_fit *l)
+{
+    if (!l->ok)
+        return json_null();
+    return json_pack("{s:f, s:f, s:f, s:I}", "intercept", l->a, "slope", l->b, "slope_ci95",
+                     l->b_ci95, "points", (json_int_t)l->n);
+}
+
+static json_t *trend_line_obj(const struct trend_line *t)
+{
+    return json_pack("{s:o, s:o, s:o, s:b, s:o, s:o, s:b}", "vs_cycles", line_obj(&t->vs_cycles),
+                     "per_day", line_obj(&t->vs_days), "retire_level", num(t->level),
+                     "crossed", t->crossed, "crossing_cycles", num(t->cross_cycles),
+                     "crossing_date", date_or_null(t->cross_epoch_s), "beyond_horizon",
+                     t->beyond_horizon);
+}
+
+static void text_projection(FILE *out, const char *what, const struct trend_line *t,
+                            const char *unit, double horizon, double cycles_now)
+{
+    char b[40];
+    fprintf(out, "  %-10s ", what);
+    if (!t->vs_cycles.ok) {
+        fprintf(out, "too few flights for a trend (need 3 with a value)\n");
+        return;
+    }
+    fprintf(out, "%+.4f +/- %.4f %s per cycle, %+.4f +/- %.4f per day; ", t->vs_cycles.b,
+            t->vs_cycles.b_ci95, unit, t->vs_days.b, t->vs_days.b_ci95);
+    if (!isfinite(t->level))
+        fprintf(out, "no retirement level (no baseline)\n");
+    else if (t->crossed)
+        fprintf(out, "at or past the retirement level %.2f already\n", t->level);
+    else if (isfinite(t->cross_cycles))
+        fprintf(out, "reaches %.2f at cycle %.0f (%.0f from now)%s%s\n", t->level, t->cross_cycles,
+                t->cross_cycles - cycles_now, isfinite(t->cross_epoch_s) ? ", around " : "",
+                isfinite(t->cross_epoch_s) ? day(t->cross_epoch_s, b, sizeof b) : "");
+    else
+        fprintf(out, "not within %.0f cycles of %.2f\n", horizon, t->level);
+}
+
+int report_trend(FILE *out, const struct pack_view *v, enum trend_by by, double horizon, int json)
+{
+    const struct pack_trend *t = &v->trend;
+    static const char *const bynames[] = {"week", "month", "cycle"};
+    if (json) {
+        json_t *b = json_array();
+        for (size_t k = 0; k < t->nbuckets; k++) {
+            const struct trend_bucket *x = &t->buckets[k];
+            json_array_append_new(b, json_pack("{s:s, s:I, s:o, s:o, s:o, s:o, s:o}", "bucket",
+                                               x->key, "flights", (json_int_t)x->flights, "first",
+                                               date_or_null(x->first_epoch_s), "last",
+                                               date_or_null(x->last_epoch_s), "charge_mah",
+                                               num(x->charge_mah), "r0_mohm_per_cell",
+                                               num(x->r0_mohm_cell), "capacity_pct",
+                                               num(x->capacity_pct)));
+        }
+        json_t *o = json_pack("{s:s, s:s, s:f, s:o, s:o, s:o, s:o, s:o}", "id", v->pack.label, "by",
+                              bynames[by], "horizon_cycles", horizon, "equivalent_cycles",
+                              num(t->cycles_now), "buckets", b, "r0_mohm_per_cell",
+                              trend_line_obj(&t->r0), "capacity_pct",
+                              trend_line_obj(&t->capacity), "health", health_obj(v));
+        return dump(out, o);
+    }
+    char b1[32], b2[32], b3[32];
+    fprintf(out, "trend of pack %s by %s: %zu flights, %.1f equivalent cycles\n\n", v->pack.label,
+            bynames[by], v->nflights, isfinite(t->cycles_now) ? t->cycles_now : 0.0);
+    fprintf(out, "  %-14s %7s %-10s %9s %9s %8s\n", by == TREND_CYCLE ? "cycles" : "period",
+            "flights", "from", "mAh", "R0 mOhm", "cap %");
+    fprintf(out, "  %-14s %7s %-10s %9s %9s %8s\n", "", "", "", "", "per cell", "rated");
+    for (size_t k = 0; k < t->nbuckets; k++) {
+        const struct trend_bucket *x = &t->buckets[k];
+        fprintf(out, "  %-14s %7zu %-10s %9.0f %9s %8s\n", x->key, x->flights,
+                day(x->first_epoch_s, b1, sizeof b1), x->charge_mah,
+                fmt_num(b2, sizeof b2, "%.2f", x->r0_mohm_cell),
+                fmt_num(b3, sizeof b3, "%.1f", x->capacity_pct));
+    }
+    fprintf(out, "\n");
+    text_projection(out, "R0", &t->r0, "mOhm/cell", horizon, t->cycles_now);
+    text_projection(out, "capacity", &t->capacity, "%", horizon, t->cycles_now);
+    fprintf(out, "\n  status: %s (%s)\n", status_of(v),
+            v->pack.retired_at[0] ? v->pack.retire_reason : v->health.reason);
+    fprintf(out, "  Projections extend a straight line; a pack can fail sooner. Inspect it.\n");
+    return ferror(out) ? -1 : 0;
+}
+
+int report_compare(FILE *out, const struct pack_view *v, size_t n, int json)
+{
+    if (json) {
+        json_t *a = json_array();
+        for (size_t k = 0; k < n; k++) {
+            json_t *o = json_pack("{s:s, s:o, s:o, s:o}", "id", v[k].pack.label, "health",
+                                  health_obj(&v[k]), "r0_mohm_per_cell",
+                                  trend_line_obj(&v[k].trend.r0), "capacity_pct",
+                                  trend_line_obj(&v[k].trend.capacity));
+            json_array_append_new(a, o);
+        }
+        return dump(out, a);
+    }
+    char b[32];
+#define ROW(label, expr)                                                                           \
+    do {                                                                                           \
+        fprintf(out, "%-26s", label);                                                              \
+        for (size_t k = 0; k < n; k++) {                                                           \
+            const struct pack_view *x = &v[k];                                                     \
+            (void)x;                                                                               \
+            fprintf(out, " %14s", (expr));                                                         \
+        }                                                                                          \
+        fprintf(out, "\n");                                                                        \
+    } while (0)
+    ROW("pack", x->pack.label);
+    ROW("chemistry", x->pack.chemistry);
+    ROW("rated mAh", fmt_num(b, sizeof b, "%.0f", x->pack.capacity_mah));
+    ROW("flights", fmt_num(b, sizeof b, "%.0f", (double)x->health.flights));
+    ROW("equivalent cycles", fmt_num(b, sizeof b, "%.1f", x->health.cycles));
+    ROW("last flown", day(x->health.last_epoch_s, b, sizeof b));
+    ROW("R0 mOhm/cell now", fmt_num(b, sizeof b, "%.2f", x->health.r0_now_mohm_cell));
+    ROW("R0 vs baseline", fmt_num(b, sizeof b, "x%.2f", x->health.r0_ratio));
+    ROW("R0 per 100 cycles", fmt_num(b, sizeof b, "%+.3f",
+                                     x->trend.r0.vs_cycles.ok ? 100 * x->trend.r0.vs_cycles.b : NAN));
+    ROW("capacity % of rated", fmt_num(b, sizeof b, "%.0f", x->health.capacity_pct));
+    ROW("capacity per 100 cycles", fmt_num(b, sizeof b, "%+.2f",
+                                           x->trend.capacity.vs_cycles.ok
+                                               ? 100 * x->trend.capacity.vs_cycles.b : NAN));
+    ROW("cell spread mV", fmt_num(b, sizeof b, "%.0f", x->health.spread_mv));
+    ROW("flights below floor", fmt_num(b, sizeof b, "%.0f", (double)x->health.overdischarges));
+    ROW("capacity limit at cycle", x->trend.capacity.crossed ? "reached"
+                                   : fmt_num(b, sizeof b, "%.0f", x->trend.capacity.cross_cycles));
+    ROW("R0 limit at cycle", x->trend.r0.crossed ? "reached"
+                             : fmt_num(b, sizeof b, "%.0f", x->trend.r0.cross_cycles));
+    ROW("status", status_of(x));
+#undef ROW
+    for (size_t k = 0; k < n; k++)
+        if (v[k].health.status != HEALTH_OK || v[k].pack.retired_at[0])
+            fprintf(out, "  %s: %s\n", v[k].pack.label,
+                    v[k].pack.retired_at[0] ? v[k].pack.retire_reason : v[k].health.reason);
+    return ferror(out) ? -1 : 0;
+}
