@@ -13,7 +13,7 @@ static const char usage[] =
     "\n"
     "One row per pack in service: flights, equivalent full cycles, last flown,\n"
     "R0 now (mOhm per cell, median of the last 5 flights) and against its baseline\n"
-    "(median of its first 3), capacity as %% of rated, resting cell spread, flights\n"
+    "(median of its first 3), capacity as % of rated, resting cell spread, flights\n"
     "below the voltage floor, status (ok, watch, retire) and why.\n"
     "  --sort KEY             status (default: retire first), pack, cycles, r0, capacity, last\n"
     "  --status S             only packs with status ok, watch, retire or retired\n"

@@ -6,7 +6,7 @@
 
 const char ruleopts_usage[] =
     "retirement rules (retire level; watch levels are 85 %, 1.5x, 30 mV and 1):\n"
-    "  --retire-capacity PCT  capacity at or below PCT %% of rated (default 80)\n"
+    "  --retire-capacity PCT  capacity at or below PCT % of rated (default 80)\n"
     "  --retire-r0-ratio X    R0 at or above X times its baseline (default 2)\n"
     "  --retire-spread MV     resting cell spread at or above MV (default 60)\n"
     "  --retire-overdischarge N  N flights below the voltage floor (default 3)\n";

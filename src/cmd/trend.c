@@ -12,9 +12,9 @@ static const char trend_usage[] =
     "                         [--json] [--db PATH]\n"
     "\n"
     "Per ISO week (default), month or 5-cycle bucket: flights, charge, mean R0 per\n"
-    "cell and capacity %% of rated. Then straight-line fits of R0 and capacity\n"
+    "cell and capacity % of rated. Then straight-line fits of R0 and capacity\n"
     "against equivalent cycles and against days (robust unless --fit ols), slopes\n"
-    "with 95 %% intervals, and the cycle and date at which each reaches its\n"
+    "with 95 % intervals, and the cycle and date at which each reaches its\n"
     "retirement level, or 'not within N cycles' (--horizon, default 1000).\n";
 
 static const char compare_usage[] =
