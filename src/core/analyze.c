@@ -15,6 +15,7 @@
 #define REST_MIN_START_S 2.0   /* rest at the start long enough to read OCV */
 #define REST_MIN_END_S 60.0    /* rest at the end: polarisation must have relaxed */
 #define TAU_GRID 10
+#define MIN_FIT_SAMPLES 8     /* fewer samples than this: no fits */
 #define TAU_MAX_S 300.0       /* polarisation slower than this is left to the OCV drift */
 #define SEARCH_ROWS 200000    /* rows the tau searches look at (evenly spread) */
 #define BIC_MARGIN 10.0        /* the RC model must beat the static one by this */
@@ -399,7 +400,8 @@ static void voltage_stats(struct analysis *a, const struct series *s)
     a->voltage_end_v = s->v_v[s->n - 1];
 }
 
-static void current_stats(struct analysis *a, const struct series *s, const struct analyze_opts *o)
+static void current_stats(struct analysis *a, const struct series *s, const struct analyze_opts *o,
+                          const char *name)
 {
     coulomb_count(s->t_s, s->v_v, s->i_a, s->n, a->gap_s, &a->cc);
     a->charge_used_mah = a->cc.discharged_mah - a->cc.regen_mah;
@@ -433,10 +435,11 @@ static void current_stats(struct analysis *a, const struct series *s, const stru
         a->current_steps += fabs(s->i_a[j] - s->i_a[j - 1]) > step_a;
     if (a->cc.gaps)
         warn(a, "gaps",
-             "%zu gap(s) longer than %.3g s in the log (%.1f s in all, longest %.1f s, first ending "
-             "at %.1f s); %.1f mAh was bridged across them by straight lines",
+             "%zu gap(s) longer than %.3g s in the log (%.1f s in all, longest %.1f s, the first "
+             "ending at %.1f s, %s:%u); %.1f mAh was bridged across them by straight lines",
              a->cc.gaps, a->gap_s, a->cc.gap_total_s, a->cc.gap_longest_s,
-             s->t_s[a->cc.gap_first_index], a->cc.gap_charge_mah);
+             s->t_s[a->cc.gap_first_index], name, s->line[a->cc.gap_first_index],
+             a->cc.gap_charge_mah);
     if (o->capacity_mah > 0.0) {
         a->c_rate_max = a->current_max_a / (o->capacity_mah / 1000.0);
         a->c_rate_mean = a->current_mean_a / (o->capacity_mah / 1000.0);
@@ -721,8 +724,16 @@ enum pb_code analyze_series(const struct series *s, const struct logread_stats *
         warn(a, "voltage_only",
              "the log has no current: charge, energy, resistance and capacity need a current "
              "sensor; SoC is read from the loaded voltage and is a lower bound");
+    } else if (s->n < MIN_FIT_SAMPLES) {
+        current_stats(a, s, o, name);
+        warn(a, "too_few_samples",
+             "%zu samples are too few to fit resistance or open-circuit voltage (need %d)", s->n,
+             MIN_FIT_SAMPLES);
+        a->ocv_start_v = a->voltage_start_v;
+        a->ocv_end_v = a->voltage_end_v;
+        a->ocv_start_method = a->ocv_end_method = "loaded";
     } else {
-        current_stats(a, s, o);
+        current_stats(a, s, o, name);
         double sd;
         identifiable = current_varies(s, fmax(fabs(a->current_max_a), 1e-9), &sd);
         /* the OCV drift runs on the charge drawn, normalised to [-1, 1]:

@@ -150,7 +150,7 @@ static enum pb_code fit_core(size_t n, int p, fit_row_fn row, void *ctx, int rob
                              const struct fit_result *start, struct fit_result *out,
                              struct pb_error *err)
 {
-    struct normal_eq ne;
+    struct normal_eq ne = {0};
     double inv[FIT_MAX_P][FIT_MAX_P];
     double beta[FIT_MAX_P] = {0};
     int rank = 0;
@@ -184,14 +184,23 @@ static enum pb_code fit_core(size_t n, int p, fit_row_fn row, void *ctx, int rob
         for (int it = 1; it <= 15; it++) {
             double prev[FIT_MAX_P];
             memcpy(prev, beta, sizeof prev);
+            struct normal_eq keep = ne;
             run_pass(n, p, row, ctx, beta, scale, &ss, &ne);
             double next = MAD_TO_SIGMA * fit_median(ss.r, ss.n);
-            if (!(next > 0.0))
-                break; /* an exact fit: nothing to reweight */
+            /* an exact fit (residuals at rounding level): nothing to reweight */
+            double y_rms = ne.n_used ? sqrt(fmax(ne.yy, keep.yy) / (double)ne.n_used) : 0.0;
+            if (!(next > 1e-12 * y_rms)) {
+                if (scale > 0.0)
+                    ne = keep;
+                break;
+            }
             if (scale > 0.0) {
                 if (ne.n_used <= (size_t)p || ne.wsum <= p || solve(&ne, p, beta, inv, &rank) != 0) {
-                    free(ss.r);
-                    return pb_error_set(err, PB_ENUMERIC, "fit: reweighting left too few rows");
+                    /* reweighting cannot leave fewer rows than unknowns: keep the last fit */
+                    memcpy(beta, prev, sizeof prev);
+                    ne = keep;
+                    solve(&ne, p, beta, inv, &rank);
+                    break;
                 }
                 out->iterations = it - 1;
                 /* converged when no coefficient moves by more than a

@@ -30,6 +30,7 @@ struct reader {
 
     size_t line;          /* physical line being read, 1-based */
     int after_cr;         /* the last line end was a CR (an LF now completes it) */
+    size_t record_line;   /* line where the next record starts */
     size_t row_line;      /* line where the current record began */
     int field;            /* index of the next field in the record */
     int comment;          /* current record is a # comment */
@@ -478,12 +479,17 @@ static void on_field(void *data, size_t len, void *ctx)
     if (r->failed)
         return;
     int col = r->field++;
+    /* a quoted field's own line breaks: later lines keep their numbers
+     * (the record is placed where it started) */
+    size_t start_line = r->line;
+    for (const char *q = memchr(f, '\n', len); q; q = memchr(q + 1, '\n', len - (size_t)(q + 1 - f)))
+        r->line++;
     if (col == 0) {
         size_t k = 0;
         while (k < len && f[k] == ' ')
             k++;
         r->comment = k < len && f[k] == '#';
-        r->row_line = r->line;
+        r->row_line = start_line;
         r->bad = BAD_NONE;
     }
     if (r->comment)
@@ -574,6 +580,7 @@ static void keep_sample(struct reader *r)
     }
     size_t k = s->n;
     s->t_s[k] = rel;
+    s->line[k] = r->row_line < UINT32_MAX ? (uint32_t)r->row_line : UINT32_MAX;
     double v_sum = 0.0;
     for (int c = 0; c < r->ncells; c++) {
         s->cell_v[c][k] = r->val[SLOT_CELL0 + c];
@@ -613,6 +620,7 @@ static void on_row(int c, void *ctx)
     if (c == '\r' || (c == '\n' && !r->after_cr))
         r->line++;
     r->after_cr = c == '\r';
+    r->record_line = r->line;
 }
 
 static void end_record(struct reader *r)
@@ -729,6 +737,18 @@ static void feed(struct reader *r, struct csv_parser *p, const char *buf, size_t
     }
 }
 
+/* The earliest line any sample was dropped at, 0 when none was. */
+static size_t first_problem_line(const struct logread_stats *st)
+{
+    const struct logread_event *evs[] = {&st->bad_number, &st->nonfinite, &st->empty_field,
+                                         &st->short_row, &st->duplicate_time};
+    size_t first = 0;
+    for (size_t k = 0; k < sizeof evs / sizeof *evs; k++)
+        if (evs[k]->count && (first == 0 || evs[k]->first_line < first))
+            first = evs[k]->first_line;
+    return first;
+}
+
 struct series *logread_file(FILE *fp, const char *name, const struct logread_opts *opts,
                             struct logread_stats *stats, struct pb_error *err)
 {
@@ -744,6 +764,7 @@ struct series *logread_file(FILE *fp, const char *name, const struct logread_opt
     r.st = stats;
     r.err = err;
     r.line = 1;
+    r.record_line = 1;
     for (int s = 0; s < NSLOTS; s++)
         r.slot_col[s] = -1;
 
@@ -767,6 +788,17 @@ struct series *logread_file(FILE *fp, const char *name, const struct logread_opt
     if (len >= 3 && memcmp(buf, "\xEF\xBB\xBF", 3) == 0) {
         stats->bom = 1;
         start = 3;
+    }
+    const char *nul = memchr(buf, '\0', len);
+    if (nul) {
+        size_t line = 1, col = 1;
+        for (const char *q = buf; q < nul; q++) {
+            col = *q == '\n' ? 1 : col + 1;
+            line += *q == '\n';
+        }
+        pb_error_set(err, PB_EINPUT, "%s:%zu:%zu: not a text log (a NUL byte): is this a binary "
+                     "file?", name, line, col);
+        goto cleanup;
     }
     char delim, decimal;
     sniff(buf + start, len - start, &delim, &decimal);
@@ -802,11 +834,19 @@ struct series *logread_file(FILE *fp, const char *name, const struct logread_opt
     }
     if (!r.failed) {
         size_t short_before = stats->short_row.count;
-        csv_fini(&p, on_field, on_row, &r);
-        if (last != '\n' && stats->short_row.count > short_before)
+        /* the file ended inside a quoted field (libcsv.c's FIELD_BEGUN is
+         * state 2; CSV_STRICT_FINI alone needs strict mode, which would
+         * refuse stray quotes that the lenient mode reads well) */
+        if (p.quoted && p.pstate == 2)
+            fail(&r, PB_EINPUT, r.record_line, r.field + 1,
+                 "this quoted field is never closed, so the rest of the file would be one "
+                 "field%s", NULL);
+        else
+            csv_fini(&p, on_field, on_row, &r);
+        if (last != '\n' && last != '\r' && stats->short_row.count > short_before)
             stats->truncated_last_line = 1;
     }
-    stats->lines = r.line - (last == '\n' ? 1 : 0);
+    stats->lines = r.line - (last == '\n' || last == '\r' ? 1 : 0);
     if (r.failed)
         goto cleanup;
     if (!r.mapped) {
@@ -817,15 +857,14 @@ struct series *logread_file(FILE *fp, const char *name, const struct logread_opt
         if (stats->records == 0)
             pb_error_set(err, PB_EINPUT, "%s:%zu: header only, no samples", name,
                          stats->header_line);
-        else
-            pb_error_set(err, PB_EINPUT,
-                         "%s: %zu usable sample%s of %zu records; at least 2 are needed "
-                         "(first problem at line %zu)", name, r.s->n, r.s->n == 1 ? "" : "s",
-                         stats->records,
-                         stats->bad_number.count ? stats->bad_number.first_line
-                         : stats->nonfinite.count ? stats->nonfinite.first_line
-                         : stats->empty_field.count ? stats->empty_field.first_line
-                         : stats->short_row.first_line);
+        else {
+            size_t first = first_problem_line(stats);
+            char where[48] = "";
+            if (first)
+                snprintf(where, sizeof where, " (first problem at line %zu)", first);
+            pb_error_set(err, PB_EINPUT, "%s: %zu usable sample%s of %zu records; at least 2 are "
+                         "needed%s", name, r.s->n, r.s->n == 1 ? "" : "s", stats->records, where);
+        }
         goto cleanup;
     }
     resolve_sign(&r);

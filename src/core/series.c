@@ -17,7 +17,8 @@ struct series *series_new(int has_current, int has_temp, int ncells)
     s->temp_c = has_temp ? malloc(sizeof(double)) : NULL;
     s->t_s = malloc(sizeof(double));
     s->v_v = malloc(sizeof(double));
-    int bad = !s->t_s || !s->v_v || (has_current && !s->i_a) || (has_temp && !s->temp_c);
+    s->line = malloc(sizeof(uint32_t));
+    int bad = !s->t_s || !s->v_v || !s->line || (has_current && !s->i_a) || (has_temp && !s->temp_c);
     for (int c = 0; c < ncells; c++) {
         s->cell_v[c] = malloc(sizeof(double));
         bad |= !s->cell_v[c];
@@ -38,6 +39,7 @@ void series_free(struct series *s)
     free(s->v_v);
     free(s->i_a);
     free(s->temp_c);
+    free(s->line);
     for (int c = 0; c < s->ncells; c++)
         free(s->cell_v[c]);
     free(s);
@@ -64,6 +66,10 @@ int series_reserve_one(struct series *s)
     if (grow(&s->t_s, cap) || grow(&s->v_v, cap) || grow(&s->i_a, cap) ||
         grow(&s->temp_c, cap))
         return -1;
+    uint32_t *l = realloc(s->line, cap * sizeof *l);
+    if (!l)
+        return -1;
+    s->line = l;
     for (int c = 0; c < s->ncells; c++)
         if (grow(&s->cell_v[c], cap))
             return -1;

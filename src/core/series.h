@@ -4,12 +4,14 @@
  * read: n >= 1; t_s strictly increasing and t_s[0] == 0 (times are relative
  * to the first kept sample, whose absolute time is start_epoch_s when
  * has_epoch); i_a is NULL when the log has no current; temp_c is NULL when
- * it has no temperature; cell_v[c] for c < ncells holds cell c+1's voltage.
+ * it has no temperature; cell_v[c] for c < ncells holds cell c+1's voltage;
+ * line[k] is the input line sample k came from (saturating at UINT32_MAX).
  * Current is positive when discharging. Values are finite. */
 #ifndef PB_SERIES_H
 #define PB_SERIES_H
 
 #include <stddef.h>
+#include <stdint.h>
 
 #define PB_MAX_CELLS 24
 
@@ -20,6 +22,7 @@ struct series {
     double *v_v;
     double *i_a;
     double *temp_c;
+    uint32_t *line;
     int ncells;
     double *cell_v[PB_MAX_CELLS];
     int has_epoch;
