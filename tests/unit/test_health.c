@@ -1,0 +1,142 @@
+/* health: rules, straight-line fits and crossings.
+ * Sources: an exact line is recovered exactly by least squares
+ * (mathematics, tolerance 1e-9); the slope's 95 % half-width for n points
+ * with Student t (n - 2 dof) against the textbook formula
+ * t * s / sqrt(Sxx); capacity <= 80 % of rated as end of life (battery
+ * standards' usual criterion) and R0 >= 2x baseline (common practice). */
+#include <gsl/gsl_cdf.h>
+#include <gsl/gsl_errno.h>
+#include <math.h>
+#include <setjmp.h>
+#include <stdarg.h>
+#include <stddef.h>
+#include <string.h>
+
+#include <cmocka.h>
+
+#include "health.h"
+#include "testutil.h"
+
+static void test_exact_line(void **state)
+{
+    (void)state;
+    double x[10], y[10];
+    for (int k = 0; k < 10; k++) {
+        x[k] = k * 3.0;
+        y[k] = 4.0 + 0.25 * x[k];
+    }
+    for (int plain = 0; plain <= 1; plain++) {
+        struct line_fit l = health_line(x, y, 10, plain);
+        assert_true(l.ok);
+        check_close(l.a, 4.0, 1e-9, "intercept");
+        check_close(l.b, 0.25, 1e-9, "slope");
+    }
+}
+
+static void test_slope_ci_textbook(void **state)
+{
+    (void)state;
+    double x[] = {0, 1, 2, 3, 4, 5, 6, 7};
+    double y[] = {1.1, 1.9, 3.2, 3.8, 5.1, 6.2, 6.8, 8.1};
+    struct line_fit l = health_line(x, y, 8, 1);
+    double xbar = 3.5, sxx = 0, rss = 0;
+    for (int k = 0; k < 8; k++)
+        sxx += (x[k] - xbar) * (x[k] - xbar);
+    for (int k = 0; k < 8; k++) {
+        double r = y[k] - l.a - l.b * x[k];
+        rss += r * r;
+    }
+    double want = gsl_cdf_tdist_Pinv(0.975, 6) * sqrt(rss / 6) / sqrt(sxx);
+    check_rel(l.b_ci95, want, 1e-9, "slope 95 % half-width");
+}
+
+static void test_crossing_directions(void **state)
+{
+    (void)state;
+    struct line_fit up = {.ok = 1, .a = 10.0, .b = 0.1, .b_ci95 = 0.01};
+    double x = 0;
+    assert_int_equal(health_crossing(&up, 20.0, 1, 50.0, &x), 1);
+    check_close(x, 100.0, 1e-9, "rising line reaches 20 at x = 100");
+    assert_int_equal(health_crossing(&up, 12.0, 1, 50.0, &x), -1); /* 15 at x = 50: past */
+    assert_int_equal(health_crossing(&up, 5.0, 0, 50.0, &x), 0);   /* falling level, rising line */
+    struct line_fit flat = {.ok = 1, .a = 10.0, .b = 0.1, .b_ci95 = 0.2};
+    assert_int_equal(health_crossing(&flat, 20.0, 1, 50.0, &x), 0); /* not significant */
+    struct line_fit down = {.ok = 1, .a = 100.0, .b = -0.5, .b_ci95 = 0.1};
+    assert_int_equal(health_crossing(&down, 80.0, 0, 10.0, &x), 1);
+    check_close(x, 40.0, 1e-9, "falling line reaches 80 at x = 40");
+}
+
+static void test_rules(void **state)
+{
+    (void)state;
+    struct health_rules r;
+    health_rules_default(&r);
+    struct health_flight f[10];
+    for (int k = 0; k < 10; k++) {
+        f[k] = (struct health_flight){.epoch_s = 1e9 + k * 86400.0, .charge_mah = 4000,
+                                      .r0_mohm = 16.0, .capacity_mah = 4900,
+                                      .spread_rest_mv = 5, .below_floor = 0};
+    }
+    struct pack_health h;
+    health_assess(f, 10, 4, 5000, &r, &h);
+    assert_int_equal(h.status, HEALTH_OK);
+    check_close(h.cycles, 8.0, 1e-12, "40000 mAh over 5000 mAh rated");
+    check_close(h.r0_now_mohm_cell, 4.0, 1e-12, "16 mOhm over 4 cells");
+    /* the last five at 3999 mAh: 79.98 % of rated, at or below 80 % */
+    for (int k = 5; k < 10; k++)
+        f[k].capacity_mah = 3999;
+    health_assess(f, 10, 4, 5000, &r, &h);
+    assert_int_equal(h.status, HEALTH_RETIRE);
+    assert_non_null(strstr(h.reason, "capacity 80 %"));
+    /* R0 doubled against the first three */
+    for (int k = 0; k < 10; k++)
+        f[k].capacity_mah = 4900;
+    for (int k = 5; k < 10; k++)
+        f[k].r0_mohm = 32.0;
+    health_assess(f, 10, 4, 5000, &r, &h);
+    assert_int_equal(h.status, HEALTH_RETIRE);
+    check_close(h.r0_ratio, 2.0, 1e-12, "R0 ratio");
+    /* one over-discharge is a watch */
+    for (int k = 5; k < 10; k++)
+        f[k].r0_mohm = 16.0;
+    f[9].below_floor = 1;
+    health_assess(f, 10, 4, 5000, &r, &h);
+    assert_int_equal(h.status, HEALTH_WATCH);
+}
+
+static void test_trend_buckets_iso_weeks(void **state)
+{
+    (void)state;
+    /* 2021-01-03 is in 2020-W53 and 2021-01-04 in 2021-W01 (ISO 8601) */
+    struct health_rules r;
+    health_rules_default(&r);
+    struct health_flight f[3] = {
+        {.epoch_s = 1609632000.0 + 3600, .charge_mah = 1000, .r0_mohm = 10, .capacity_mah = NAN,
+         .spread_rest_mv = NAN}, /* 2021-01-03T01:00Z */
+        {.epoch_s = 1609718400.0 + 3600, .charge_mah = 1000, .r0_mohm = 10, .capacity_mah = NAN,
+         .spread_rest_mv = NAN}, /* 2021-01-04T01:00Z */
+        {.epoch_s = 1609718400.0 + 7200, .charge_mah = 1000, .r0_mohm = 12, .capacity_mah = NAN,
+         .spread_rest_mv = NAN},
+    };
+    struct pack_trend t;
+    assert_int_equal(health_trend(f, 3, 1, 5000, &r, TREND_WEEK, 1, 1000, &t), 0);
+    assert_int_equal(t.nbuckets, 2);
+    assert_string_equal(t.buckets[0].key, "2020-W53");
+    assert_string_equal(t.buckets[1].key, "2021-W01");
+    assert_int_equal(t.buckets[1].flights, 2);
+    check_close(t.buckets[1].r0_mohm_cell, 11.0, 1e-12, "mean of the week");
+    health_trend_release(&t);
+}
+
+int main(void)
+{
+    gsl_set_error_handler_off();
+    const struct CMUnitTest tests[] = {
+        cmocka_unit_test(test_exact_line),
+        cmocka_unit_test(test_slope_ci_textbook),
+        cmocka_unit_test(test_crossing_directions),
+        cmocka_unit_test(test_rules),
+        cmocka_unit_test(test_trend_buckets_iso_weeks),
+    };
+    return cmocka_run_group_tests(tests, NULL, NULL);
+}
