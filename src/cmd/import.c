@@ -116,6 +116,7 @@ static void fill_flight(struct flight_rec *f, const struct analysis *a, const st
     f->current_max_a = a->current_max_a;
     f->current_mean_a = a->current_mean_a;
     f->power_mean_w = a->power_mean_w;
+    f->power_cruise_w = a->power_cruise_w;
     f->voltage_min_v = a->voltage_min_v;
     f->cell_voltage_min_v = a->cell_min_loaded_v;
     f->time_below_floor_s = a->cells > 0 ? a->time_below_floor_s : NAN;

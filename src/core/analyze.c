@@ -430,6 +430,16 @@ static void current_stats(struct analysis *a, const struct series *s, const stru
             e--;
         a->rest_end_s = s->t_s[s->n - 1] - s->t_s[e + (e + 1 < s->n ? 1 : 0)];
     }
+    /* cruise: intervals whose both ends draw more than the rest current */
+    double e_ws = 0.0, t_loaded = 0.0;
+    for (size_t j = 1; j < s->n; j++) {
+        if (s->i_a[j - 1] > a->rest_a && s->i_a[j] > a->rest_a) {
+            double dt = s->t_s[j] - s->t_s[j - 1];
+            e_ws += dt * 0.5 * (s->v_v[j - 1] * s->i_a[j - 1] + s->v_v[j] * s->i_a[j]);
+            t_loaded += dt;
+        }
+    }
+    a->power_cruise_w = t_loaded > 0.0 ? e_ws / t_loaded : NAN;
     double step_a = fmax(0.25 * (a->current_max_a - imin), 0.5);
     for (size_t j = 1; j < s->n; j++)
         a->current_steps += fabs(s->i_a[j] - s->i_a[j - 1]) > step_a;
@@ -689,6 +699,7 @@ enum pb_code analyze_series(const struct series *s, const struct logread_stats *
     a->ocv_start_v = a->ocv_end_v = NAN;
     a->charge_used_mah = a->energy_used_wh = NAN;
     a->current_max_a = a->current_mean_a = a->power_max_w = a->power_mean_w = NAN;
+    a->power_cruise_w = NAN;
     a->c_rate_max = a->c_rate_mean = NAN;
     a->cell_min_loaded_v = NAN;
     a->spread_rest_mv = a->spread_load_mv = NAN;

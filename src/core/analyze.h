@@ -68,6 +68,7 @@ struct analysis {
     double current_mean_a;   /* net charge over duration */
     double power_max_w;
     double power_mean_w;
+    double power_cruise_w;  /* mean power while loaded (|I| above the rest threshold) */
     double voltage_min_v, voltage_max_v, voltage_start_v, voltage_end_v;
     double cell_min_loaded_v;/* voltage_min_v / cells */
     double floor_v;

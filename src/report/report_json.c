@@ -68,6 +68,7 @@ static json_t *analysis_obj(const struct analysis *a, const struct report_input 
     json_object_set_new(o, "c_rate_mean", num(a->c_rate_mean));
     json_object_set_new(o, "power_max_w", num(a->power_max_w));
     json_object_set_new(o, "power_mean_w", num(a->power_mean_w));
+    json_object_set_new(o, "power_cruise_w", num(a->power_cruise_w));
     json_object_set_new(o, "voltage_min_v", num(a->voltage_min_v));
     json_object_set_new(o, "voltage_max_v", num(a->voltage_max_v));
     json_object_set_new(o, "voltage_start_v", num(a->voltage_start_v));

@@ -15,7 +15,7 @@
 #include "../core/pb_error.h"
 #include "../core/series.h"
 
-#define STORE_SCHEMA_VERSION 2
+#define STORE_SCHEMA_VERSION 3
 
 struct store;
 
@@ -48,7 +48,7 @@ struct flight_rec {
     char date_source[16];    /* "log", "option" or "mtime" */
     double duration_s;
     double charge_used_mah, energy_used_wh;
-    double current_max_a, current_mean_a, power_mean_w;
+    double current_max_a, current_mean_a, power_mean_w, power_cruise_w;
     double voltage_min_v, cell_voltage_min_v, time_below_floor_s;
     double r0_mohm, r0_ci95_mohm, r1_mohm, tau_s;
     double soc_start_pct, soc_end_pct;

@@ -63,6 +63,8 @@ static const char *const migrations[] = {
     "  r0_mohm REAL, voltage_min_v REAL, voltage_rest_v REAL,"
     "  PRIMARY KEY (flight_id, cell));"
     "CREATE INDEX flights_by_pack_time ON flights(pack_id, flown_epoch_s);",
+    /* 2 -> 3: mean power while loaded, the load for predictions */
+    "ALTER TABLE flights ADD COLUMN power_cruise_w REAL;",
 };
 
 static enum pb_code db_error(struct store *st, struct pb_error *err, const char *what)
@@ -383,7 +385,8 @@ static double col_num(sqlite3_stmt *s, int i)
     X(duration_s) X(charge_used_mah) X(energy_used_wh) X(current_max_a) X(current_mean_a)          \
     X(power_mean_w) X(voltage_min_v) X(cell_voltage_min_v) X(time_below_floor_s) X(r0_mohm)         \
     X(r0_ci95_mohm) X(r1_mohm) X(tau_s) X(soc_start_pct) X(soc_end_pct) X(capacity_mah)            \
-    X(capacity_ci95_mah) X(cell_spread_rest_mv) X(cell_spread_load_mv) X(temperature_max_c)
+    X(capacity_ci95_mah) X(cell_spread_rest_mv) X(cell_spread_load_mv) X(temperature_max_c)        \
+    X(power_cruise_w)
 
 #define X(name) #name ", "
 static const char flight_num_cols[] = FLIGHT_NUMS;
