@@ -24,6 +24,7 @@ static const struct command commands[] = {
     {"fleet", cmd_fleet, "every pack's state, with retirement flags and reasons"},
     {"trend", cmd_trend, "a pack's resistance and capacity over weeks and cycles"},
     {"compare", cmd_compare, "packs side by side"},
+    {"predict", cmd_predict, "safe flight time for the next sortie, with its uncertainty"},
 };
 
 static void print_usage(FILE *out)

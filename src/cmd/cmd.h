@@ -23,6 +23,7 @@ enum pb_code cmd_import(int argc, char **argv, struct app *app, struct pb_error 
 enum pb_code cmd_fleet(int argc, char **argv, struct app *app, struct pb_error *err);
 enum pb_code cmd_trend(int argc, char **argv, struct app *app, struct pb_error *err);
 enum pb_code cmd_compare(int argc, char **argv, struct app *app, struct pb_error *err);
+enum pb_code cmd_predict(int argc, char **argv, struct app *app, struct pb_error *err);
 
 /* Parses a number option value; returns 0 or fills err (usage). */
 int cmd_parse_double(const char *opt, const char *val, double lo, double hi, double *out,
@@ -33,6 +34,9 @@ int cmd_parse_int(const char *opt, const char *val, int lo, int hi, int *out,
 /* The usage error for an option getopt_long did not know or that lacked
  * its value; verb names the command for the hint. */
 enum pb_code cmd_bad_option(const char *verb, int argc, char **argv, struct pb_error *err);
+
+/* qsort comparison for doubles, ascending. */
+int cmd_cmp_double(const void *a, const void *b);
 
 /* Flushes stdout and checks every write reached it. */
 enum pb_code cmd_finish_stdout(struct pb_error *err);

@@ -51,3 +51,9 @@ enum pb_code cmd_bad_option(const char *verb, int argc, char **argv, struct pb_e
     return pb_error_set(err, PB_EUSAGE, "%s: unknown option '%s' (see 'packbook %s --help')", verb,
                         arg, verb);
 }
+
+int cmd_cmp_double(const void *a, const void *b)
+{
+    double x = *(const double *)a, y = *(const double *)b;
+    return (x > y) - (x < y);
+}

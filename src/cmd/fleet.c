@@ -18,15 +18,18 @@ static const char usage[] =
     "  --sort KEY             status (default: retire first), pack, cycles, r0, capacity, last\n"
     "  --status S             only packs with status ok, watch, retire or retired\n"
     "  --all                  include retired packs\n"
+    "  --predict [--power W]  add the conservative safe flight time (minutes) to a 30 %\n"
+    "                         reserve at the pack's recent cruise power, or at W\n"
     "  --json, --csv          machine-readable output (CSV cells starting = + - @ are\n"
     "                         prefixed with ' so spreadsheets do not run them)\n";
 
-enum { F_JSON = 256, F_CSV, F_SORT, F_STATUS, F_ALL, F_DB };
+enum { F_JSON = 256, F_CSV, F_SORT, F_STATUS, F_ALL, F_DB, F_PREDICT, F_POWER };
 
 static const struct option longopts[] = {
     {"json", no_argument, NULL, F_JSON},           {"csv", no_argument, NULL, F_CSV},
     {"sort", required_argument, NULL, F_SORT},     {"status", required_argument, NULL, F_STATUS},
     {"all", no_argument, NULL, F_ALL},             {"db", required_argument, NULL, F_DB},
+    {"predict", no_argument, NULL, F_PREDICT},     {"power", required_argument, NULL, F_POWER},
     {"help", no_argument, NULL, 'h'},              RULEOPTS_LONG,
     {NULL, 0, NULL, 0},
 };
@@ -70,7 +73,8 @@ enum pb_code cmd_fleet(int argc, char **argv, struct app *app, struct pb_error *
     struct health_rules rules;
     enum fleet_format fmt = FLEET_TEXT;
     const char *db = NULL, *status = NULL;
-    int all = 0, c;
+    int all = 0, predict = 0, c;
+    double power_w = NAN;
     (void)app;
     health_rules_default(&rules);
     sort_key = "status";
@@ -100,6 +104,12 @@ enum pb_code cmd_fleet(int argc, char **argv, struct app *app, struct pb_error *
             status = optarg;
             break;
         case F_ALL: all = 1; break;
+        case F_PREDICT: predict = 1; break;
+        case F_POWER:
+            if (cmd_parse_double("--power", optarg, 0, 1e6, &power_w, err))
+                return PB_EUSAGE;
+            predict = 1;
+            break;
         case F_DB: db = optarg; break;
         case 'h':
             fputs(usage, stdout);
@@ -113,6 +123,7 @@ enum pb_code cmd_fleet(int argc, char **argv, struct app *app, struct pb_error *
     struct store *st = NULL;
     struct pack_rec *packs = NULL;
     struct pack_view *views = NULL;
+    double *safe = NULL;
     size_t np = 0, nv = 0;
     enum pb_code rc = packview_open_store(db, 1, &st, err);
     if (rc != PB_OK)
@@ -140,7 +151,24 @@ enum pb_code cmd_fleet(int argc, char **argv, struct app *app, struct pb_error *
             pack_view_release(&views[--nv]);
     }
     qsort(views, nv, sizeof *views, compare_views);
-    if (report_fleet(stdout, views, nv, fmt) != 0)
+    if (predict) {
+        safe = malloc(2 * (nv ? nv : 1) * sizeof *safe);
+        if (!safe) {
+            rc = pb_error_set(err, PB_ENOMEM, "out of memory");
+            goto cleanup;
+        }
+        for (size_t k = 0; k < nv; k++) {
+            struct predict_inputs in;
+            struct predict_mc mc;
+            struct pb_error e = {PB_OK, ""};
+            safe[2 * k] = safe[2 * k + 1] = NAN;
+            if (predict_view(&views[k], power_w, &in, &mc, &e) == PB_OK) {
+                safe[2 * k] = mc.t_p05_s;
+                safe[2 * k + 1] = mc.t_median_s;
+            }
+        }
+    }
+    if (report_fleet(stdout, views, nv, fmt, safe) != 0)
         rc = pb_error_set(err, PB_EOUTPUT, "cannot write the output");
     else
         rc = cmd_finish_stdout(err);
@@ -148,6 +176,7 @@ cleanup:
     for (size_t k = 0; k < nv; k++)
         pack_view_release(&views[k]);
     free(views);
+    free(safe);
     store_packs_free(packs);
     store_close(st);
     return rc;

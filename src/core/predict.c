@@ -160,10 +160,8 @@ int predict_run(const struct predict_pack *p, const struct predict_load *l,
             out->soc_after_pct = prev_soc + f * (s.soc - prev_soc);
             out->v_after_v = isfinite(prev_v) ? prev_v + f * (v - prev_v) : v;
         }
-        /* keep going after the first limit, to time the others */
-        if (isfinite(out->t_empty_s) ||
-            (stopped && isfinite(out->t_reserve_s) && isfinite(out->t_floor_s) &&
-             (o->stop_after_s <= 0.0 || isfinite(out->soc_after_pct))))
+        /* keep going after the first limit, to time the others, until empty */
+        if (isfinite(out->t_empty_s) && (o->stop_after_s <= 0.0 || isfinite(out->soc_after_pct)))
             break;
         /* midpoint rule: current at the half step drives the whole step */
         double soc_mid = s.soc - 0.5 * dt * soc_rate(p, o, i);

@@ -195,7 +195,8 @@ static void csv_num(FILE *out, const char *fmt, double v)
         fprintf(out, fmt, v);
 }
 
-int report_fleet(FILE *out, const struct pack_view *v, size_t n, enum fleet_format fmt)
+int report_fleet(FILE *out, const struct pack_view *v, size_t n, enum fleet_format fmt,
+                 const double *safe)
 {
     if (fmt == FLEET_JSON) {
         json_t *a = json_array();
@@ -206,13 +207,18 @@ int report_fleet(FILE *out, const struct pack_view *v, size_t n, enum fleet_form
             json_t *h = health_obj(&v[k]);
             json_object_update(o, h);
             json_decref(h);
+            if (safe)
+                json_object_set_new(o, "safe_time_s",
+                                    json_pack("{s:o, s:o}", "conservative", num(safe[2 * k]),
+                                              "median", num(safe[2 * k + 1])));
             json_array_append_new(a, o);
         }
         return dump(out, a);
     }
     if (fmt == FLEET_CSV) {
         fprintf(out, "pack,flights,equivalent_cycles,last_flown,r0_mohm_per_cell,r0_ratio,"
-                     "capacity_pct,cell_spread_mv,overdischarges,status,reason\n");
+                     "capacity_pct,cell_spread_mv,overdischarges,status,reason%s\n",
+                safe ? ",safe_time_conservative_s,safe_time_median_s" : "");
         char b[32];
         for (size_t k = 0; k < n; k++) {
             const struct pack_health *h = &v[k].health;
@@ -226,24 +232,36 @@ int report_fleet(FILE *out, const struct pack_view *v, size_t n, enum fleet_form
             csv_num(out, "%.1f", h->spread_mv);
             fprintf(out, ",%d,%s,", h->overdischarges, status_of(&v[k]));
             report_csv_cell(out, v[k].pack.retired_at[0] ? v[k].pack.retire_reason : h->reason);
+            if (safe) {
+                csv_num(out, "%.0f", safe[2 * k]);
+                csv_num(out, "%.0f", safe[2 * k + 1]);
+            }
             fputc('\n', out);
         }
         return ferror(out) ? -1 : 0;
     }
-    fprintf(out, "%-14s %7s %7s %-10s %9s %7s %6s %7s %5s  %-7s %s\n", "pack", "flights",
-            "cycles", "last", "R0 mOhm", "R0 vs", "cap %", "spread", "over", "status", "why");
-    fprintf(out, "%-14s %7s %7s %-10s %9s %7s %6s %7s %5s  %-7s\n", "", "", "", "flown",
-            "per cell", "base", "rated", "mV", "disch", "");
+    fprintf(out, "%-14s %7s %7s %-10s %9s %7s %6s %7s %5s%s  %-7s %s\n", "pack", "flights",
+            "cycles", "last", "R0 mOhm", "R0 vs", "cap %", "spread", "over",
+            safe ? "  safe min" : "", "status", "why");
+    fprintf(out, "%-14s %7s %7s %-10s %9s %7s %6s %7s %5s%s  %-7s\n", "", "", "", "flown",
+            "per cell", "base", "rated", "mV", "disch", safe ? "  (5th pct)" : "", "");
     for (size_t k = 0; k < n; k++) {
         const struct pack_health *h = &v[k].health;
-        char b[6][32];
-        fprintf(out, "%-14s %7zu %7s %-10s %9s %7s %6s %7s %5d  %-7s %s\n", v[k].pack.label,
+        char b[7][32];
+        char sm[40] = "";
+        if (safe)
+            snprintf(sm, sizeof sm, "  %9s", fmt_num(b[6], 32, "%.1f", safe[2 * k] / 60.0));
+        fprintf(out, "%-14s %7zu %7s %-10s %9s %7s %6s %7s %5d%s  %-7s %s\n", v[k].pack.label,
                 h->flights, fmt_num(b[0], 32, "%.1f", h->cycles), day(h->last_epoch_s, b[1], 32),
                 fmt_num(b[2], 32, "%.2f", h->r0_now_mohm_cell),
                 fmt_num(b[3], 32, "x%.2f", h->r0_ratio), fmt_num(b[4], 32, "%.0f", h->capacity_pct),
-                fmt_num(b[5], 32, "%.0f", h->spread_mv), h->overdischarges, status_of(&v[k]),
+                fmt_num(b[5], 32, "%.0f", h->spread_mv), h->overdischarges, sm, status_of(&v[k]),
                 v[k].pack.retired_at[0] ? v[k].pack.retire_reason : h->reason);
     }
+    if (safe)
+        fprintf(out, "safe min: conservative safe flight time to a 30 %% reserve at %s; an estimate,\n"
+                     "not a substitute for the aircraft's low-voltage protection\n",
+                "each pack's recent cruise power (or --power)");
     if (n == 0)
         fprintf(out, "(no packs match)\n");
     return ferror(out) ? -1 : 0;

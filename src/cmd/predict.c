@@ -1,0 +1,535 @@
+/* packbook predict: safe flight time for the next sortie, from a pack's
+ * history or from one log, with the landing reserve and its uncertainty. */
+#include <getopt.h>
+#include <jansson.h>
+#include <math.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include "../core/logread.h"
+#include "../core/predict.h"
+#include "../report/report.h"
+#include "cmd.h"
+#include "logopts.h"
+#include "packview.h"
+
+static const char usage_head[] =
+    "usage: packbook predict ID [options]\n"
+    "       packbook predict --log LOG [--cells N --chemistry C --capacity MAH] [options]\n"
+    "\n"
+    "Simulates the pack from a start state under a load until the first of: SoC\n"
+    "down to the landing reserve, loaded voltage down to the floor, or a power the\n"
+    "pack cannot deliver (voltage collapse). Capacity, R0 and the load are drawn\n"
+    "from their uncertainty (Monte Carlo, fixed seed); the conservative figure is\n"
+    "the 5th percentile of the safe time.\n"
+    "\n"
+    "start:\n"
+    "  --soc PCT              start SoC (default 100: a full charge)\n"
+    "  --ocv V                or the pack voltage measured at rest\n"
+    "load (default: the median cruise power of the last 5 flights, or of the log):\n"
+    "  --power W | --current A   constant power or current\n"
+    "  --profile LOG          the power of a logged flight, repeated (may be given again:\n"
+    "                         the profiles are flown one after the other)\n"
+    "limits:\n"
+    "  --reserve PCT          landing reserve SoC (default 30, common practice)\n"
+    "  --floor V              loaded per-cell floor (default: per chemistry)\n"
+    "model:\n"
+    "  --temp C               pack temperature: R0 is scaled by the Arrhenius form\n"
+    "  --tref C               temperature R0 was measured at (default 25)\n"
+    "  --ea J_PER_MOL         activation energy for R(T) (default 30000)\n"
+    "  --peukert K            Peukert exponent (rated-capacity form t = H (C/(I H))^K)\n"
+    "  --peukert-hours H      rated discharge time H for Peukert (default 1)\n"
+    "  --runs N --seed N      Monte Carlo runs (default 400) and seed (default 1)\n"
+    "  --for S                also report the state after S seconds\n"
+    "  --db PATH              history database\n"
+    "  --json                 JSON on standard output\n"
+    "reading --log and --profile logs:\n"
+    "  --cells N --chemistry C --capacity MAH (for --log)\n";
+
+enum {
+    R_LOG = 256, R_SOC, R_OCV, R_POWER, R_CURRENT, R_PROFILE, R_RESERVE, R_TEMP, R_TREF, R_EA,
+    R_PEUK, R_PEUKH, R_RUNS, R_SEED, R_FOR, R_DB, R_JSON, R_CELLS, R_CHEM, R_CAP,
+};
+
+static const struct option longopts[] = {
+    {"log", required_argument, NULL, R_LOG},         {"soc", required_argument, NULL, R_SOC},
+    {"ocv", required_argument, NULL, R_OCV},         {"power", required_argument, NULL, R_POWER},
+    {"current", required_argument, NULL, R_CURRENT}, {"profile", required_argument, NULL, R_PROFILE},
+    {"reserve", required_argument, NULL, R_RESERVE}, {"temp", required_argument, NULL, R_TEMP},
+    {"tref", required_argument, NULL, R_TREF},       {"ea", required_argument, NULL, R_EA},
+    {"peukert", required_argument, NULL, R_PEUK},    {"peukert-hours", required_argument, NULL, R_PEUKH},
+    {"runs", required_argument, NULL, R_RUNS},       {"seed", required_argument, NULL, R_SEED},
+    {"for", required_argument, NULL, R_FOR},         {"db", required_argument, NULL, R_DB},
+    {"json", no_argument, NULL, R_JSON},             {"cells", required_argument, NULL, R_CELLS},
+    {"chemistry", required_argument, NULL, R_CHEM},  {"capacity", required_argument, NULL, R_CAP},
+    {"help", no_argument, NULL, 'h'},                LOGOPTS_LONG,
+    {NULL, 0, NULL, 0},
+};
+
+#define MAX_PROFILES 16
+
+struct predict_cli {
+    struct log_cli log;
+    const char *log_path, *db, *id;
+    const char *profiles[MAX_PROFILES];
+    int nprofiles;
+    double soc, ocv_v, power_w, current_a, reserve, temp_c, tref_c, ea, peuk, peukh, for_s;
+    int runs, json;
+    unsigned long seed;
+};
+
+static double median_sd(const double *v, size_t n, double *sd)
+{
+    double buf[64];
+    size_t m = 0;
+    for (size_t k = 0; k < n && m < 64; k++)
+        if (isfinite(v[k]))
+            buf[m++] = v[k];
+    if (!m) {
+        *sd = NAN;
+        return NAN;
+    }
+    double mean = 0, ss = 0;
+    for (size_t k = 0; k < m; k++)
+        mean += buf[k] / m;
+    for (size_t k = 0; k < m; k++)
+        ss += (buf[k] - mean) * (buf[k] - mean);
+    *sd = m > 1 ? sqrt(ss / (m - 1)) : 0.0;
+    qsort(buf, m, sizeof *buf, cmd_cmp_double);
+    return m % 2 ? buf[m / 2] : 0.5 * (buf[m / 2 - 1] + buf[m / 2]);
+}
+
+/* From the last (up to 5) flights of a pack. */
+static enum pb_code inputs_from_history(const struct pack_view *v, struct predict_inputs *in,
+                                        struct pb_error *err)
+{
+    double cap[5], capci[5], r0[5], r0ci[5], r1[5], tau[5], pw[5];
+    size_t m = 0;
+    for (size_t k = v->nflights; k > 0 && m < 5; k--, m++) {
+        const struct flight_rec *f = &v->flights[k - 1];
+        cap[m] = f->capacity_mah;
+        capci[m] = f->capacity_ci95_mah;
+        r0[m] = f->r0_mohm;
+        r0ci[m] = f->r0_ci95_mohm;
+        r1[m] = f->r1_mohm;
+        tau[m] = f->tau_s;
+        pw[m] = f->power_cruise_w;
+    }
+    double sd, ci_sd;
+    memset(in, 0, sizeof *in);
+    in->chem = ocv_chem_by_name(v->pack.chemistry);
+    in->cells = v->pack.cells;
+    in->rated_mah = v->pack.capacity_mah;
+    snprintf(in->source, sizeof in->source, "the last %zu flights of pack %s", m, v->pack.label);
+    in->capacity_mah = median_sd(cap, m, &sd);
+    double ci = median_sd(capci, m, &ci_sd);
+    in->capacity_sd_mah = fmax(isfinite(sd) ? sd : 0.0, isfinite(ci) ? ci / 1.96 : 0.0);
+    if (!isfinite(in->capacity_mah)) {
+        in->capacity_mah = v->pack.capacity_mah;
+        in->capacity_sd_mah = 0.05 * v->pack.capacity_mah;
+        in->capacity_assumed = 1;
+    }
+    in->r0_mohm = median_sd(r0, m, &sd);
+    ci = median_sd(r0ci, m, &ci_sd);
+    in->r0_sd_mohm = fmax(isfinite(sd) ? sd : 0.0, isfinite(ci) ? ci / 1.96 : 0.0);
+    in->r1_mohm = median_sd(r1, m, &sd);
+    in->tau_s = median_sd(tau, m, &sd);
+    in->power_w = median_sd(pw, m, &in->power_sd_w);
+    if (!isfinite(in->r0_mohm))
+        return pb_error_set(err, PB_EUSAGE, "pack '%s' has no flight with a known resistance: "
+                            "nothing to predict from (import flights with load changes)",
+                            v->pack.label);
+    return PB_OK;
+}
+
+/* From one analysed log. */
+static void inputs_from_analysis(const struct analysis *a, double rated_mah, const char *name,
+                                 struct predict_inputs *in)
+{
+    memset(in, 0, sizeof *in);
+    in->chem = a->chem;
+    in->cells = a->cells;
+    in->rated_mah = rated_mah;
+    snprintf(in->source, sizeof in->source, "the log %s", name);
+    in->capacity_mah = a->capacity_mah.value;
+    in->capacity_sd_mah = a->capacity_mah.ci95 / 1.96;
+    if (!isfinite(in->capacity_mah) && rated_mah > 0) {
+        in->capacity_mah = rated_mah;
+        in->capacity_sd_mah = 0.05 * rated_mah;
+        in->capacity_assumed = 1;
+    }
+    in->r0_mohm = a->r0_mohm.value;
+    in->r0_sd_mohm = a->r0_mohm.ci95 / 1.96;
+    in->r1_mohm = a->r1_mohm.value;
+    in->tau_s = a->tau_s.value;
+    in->power_w = a->power_cruise_w;
+    in->power_sd_w = 0.0;
+}
+
+static void setup(const struct predict_inputs *in, const struct predict_cli *cli,
+                  struct predict_pack *p, struct predict_opts *o, struct predict_spread *sp)
+{
+    memset(p, 0, sizeof *p);
+    p->chem = in->chem;
+    p->cells = in->cells;
+    p->capacity_ah = in->capacity_mah / 1000.0;
+    p->r0_ohm = in->r0_mohm / 1000.0;
+    if (isfinite(in->r1_mohm) && isfinite(in->tau_s)) {
+        p->r1_ohm = in->r1_mohm / 1000.0;
+        p->tau_s = in->tau_s;
+    }
+    p->t_ref_c = cli ? cli->tref_c : 25.0;
+    predict_opts_default(o);
+    sp->capacity_sd_ah = in->capacity_sd_mah / 1000.0;
+    sp->r0_sd_ohm = isfinite(in->r0_sd_mohm) ? in->r0_sd_mohm / 1000.0 : 0.0;
+    sp->runs = 400;
+    sp->seed = 1;
+    if (!cli)
+        return;
+    if (isfinite(cli->soc))
+        o->soc0_pct = cli->soc;
+    if (isfinite(cli->ocv_v))
+        o->soc0_pct = ocv_to_soc(in->chem, cli->ocv_v / in->cells, NULL);
+    o->reserve_pct = cli->reserve;
+    if (cli->log.an.floor_v > 0)
+        o->floor_v = cli->log.an.floor_v;
+    o->temp_c = cli->temp_c;
+    o->ea_j_mol = cli->ea;
+    o->peukert_k = cli->peuk;
+    o->peukert_h = cli->peukh;
+    o->stop_after_s = cli->for_s;
+    sp->runs = cli->runs;
+    sp->seed = cli->seed;
+}
+
+enum pb_code predict_view(const struct pack_view *v, double power_w, struct predict_inputs *in,
+                          struct predict_mc *mc, struct pb_error *err)
+{
+    enum pb_code rc = inputs_from_history(v, in, err);
+    if (rc != PB_OK)
+        return rc;
+    struct predict_pack p;
+    struct predict_opts o;
+    struct predict_spread sp;
+    setup(in, NULL, &p, &o, &sp);
+    struct predict_load l = {.kind = LOAD_POWER, .power_w = isfinite(power_w) ? power_w : in->power_w};
+    sp.load_sd = isfinite(power_w) ? 0.0 : (isfinite(in->power_sd_w) ? in->power_sd_w : 0.0);
+    sp.runs = 200;
+    if (!isfinite(l.power_w))
+        return pb_error_set(err, PB_EUSAGE, "pack '%s': no cruise power in its history: give --power",
+                            v->pack.label);
+    if (predict_monte_carlo(&p, &l, &o, &sp, mc) != 0)
+        return pb_error_set(err, PB_ENUMERIC, "pack '%s': the simulation failed", v->pack.label);
+    return PB_OK;
+}
+
+/* Reads a log's power (V x I) as a profile from its start. */
+static enum pb_code load_profiles(const struct predict_cli *cli, double **t, double **w, size_t *n,
+                                  double *period, struct pb_error *err)
+{
+    *t = *w = NULL;
+    *n = 0;
+    *period = 0.0;
+    for (int k = 0; k < cli->nprofiles; k++) {
+        FILE *fp = fopen(cli->profiles[k], "rb");
+        if (!fp)
+            return pb_error_set(err, PB_EINPUT, "cannot open '%s': %m", cli->profiles[k]);
+        struct logread_stats st;
+        struct series *s = logread_file(fp, cli->profiles[k], &cli->log.read, &st, err);
+        fclose(fp);
+        if (!s)
+            return err->code;
+        if (!s->i_a) {
+            series_free(s);
+            return pb_error_set(err, PB_EINPUT, "%s: a load profile needs a current column",
+                                cli->profiles[k]);
+        }
+        double *nt = realloc(*t, (*n + s->n) * sizeof *nt);
+        double *nw = nt ? realloc(*w, (*n + s->n) * sizeof *nw) : NULL;
+        if (!nt || !nw) {
+            if (nt)
+                *t = nt;
+            series_free(s);
+            return pb_error_set(err, PB_ENOMEM, "out of memory");
+        }
+        *t = nt;
+        *w = nw;
+        for (size_t j = 0; j < s->n; j++) {
+            (*t)[*n + j] = *period + s->t_s[j];
+            (*w)[*n + j] = fmax(0.0, s->v_v[j] * s->i_a[j]);
+        }
+        *n += s->n;
+        double dt = s->n > 1 ? s->t_s[s->n - 1] / (double)(s->n - 1) : 1.0;
+        *period += s->t_s[s->n - 1] + dt;
+        series_free(s);
+    }
+    return PB_OK;
+}
+
+static void mmss(char *buf, size_t cap, double s)
+{
+    if (!isfinite(s)) {
+        snprintf(buf, cap, "not reached in %.0f h", 6.0);
+        return;
+    }
+    long t = lround(s);
+    snprintf(buf, cap, "%ld min %02ld s", t / 60, t % 60);
+}
+
+static json_t *num(double x)
+{
+    return isfinite(x) ? json_real(x) : json_null();
+}
+
+static int write_json(const struct predict_inputs *in, const struct predict_load *l, double load_sd,
+                      const struct predict_opts *o, const struct predict_run *r,
+                      const struct predict_mc *mc, const char *const *warn, int nwarn)
+{
+    static const char *const kinds[] = {"power", "current", "profile"};
+    json_t *w = json_array();
+    for (int k = 0; k < nwarn; k++)
+        json_array_append_new(w, json_string(warn[k]));
+    json_t *counts = json_object();
+    for (int k = 0; k < 5; k++)
+        json_object_set_new(counts, predict_limit_name((enum predict_limit)k),
+                            json_integer(mc->binding_count[k]));
+    double value = l->kind == LOAD_POWER ? l->power_w : l->kind == LOAD_CURRENT ? l->current_a : NAN;
+    json_t *doc = json_pack(
+        "{s:s, s:{s:o, s:o, s:o, s:i}, s:s, s:o, s:{s:o, s:o, s:o, s:o, s:o, s:o, s:o, s:o, s:o, s:o},"
+        " s:{s:s, s:i, s:s, s:o, s:o, s:b, s:o, s:o, s:o, s:o, s:{s:s, s:o, s:o}, s:o, s:o, s:o, s:o,"
+        " s:o, s:o}, s:o}",
+        "caution", "an estimate: it does not replace the aircraft's own low-voltage protection",
+        "safe_time_s", "conservative", num(mc->t_p05_s), "median", num(mc->t_median_s), "p95",
+        num(mc->t_p95_s), "runs", mc->runs, "binding_limit", predict_limit_name(r->binding),
+        "binding_counts", counts, "nominal", "t_safe_s", num(r->t_safe_s), "soc_at_stop_pct",
+        num(r->soc_at_stop_pct), "v_at_stop_v", num(r->v_at_stop_v), "i_at_stop_a",
+        num(r->i_at_stop_a), "t_reserve_s", num(r->t_reserve_s), "t_floor_s", num(r->t_floor_s),
+        "t_collapse_s", num(r->t_collapse_s), "t_empty_s", num(r->t_empty_s), "soc_after_pct",
+        num(r->soc_after_pct), "v_after_v", num(r->v_after_v), "inputs", "source", in->source,
+        "cells", in->cells, "chemistry", in->chem->name, "capacity_mah", num(in->capacity_mah),
+        "capacity_sd_mah", num(in->capacity_sd_mah), "capacity_assumed", in->capacity_assumed,
+        "r0_mohm", num(in->r0_mohm), "r0_sd_mohm", num(in->r0_sd_mohm), "r1_mohm",
+        num(in->r1_mohm), "tau_s", num(in->tau_s), "load", "kind", kinds[l->kind], "value",
+        num(value), "sd", num(load_sd), "soc0_pct", num(o->soc0_pct), "reserve_pct",
+        num(o->reserve_pct), "floor_v_per_cell",
+        num(isfinite(o->floor_v) ? o->floor_v : in->chem->floor_v), "temp_c", num(o->temp_c),
+        "ea_j_mol", num(o->ea_j_mol), "peukert_k", num(o->peukert_k > 0 ? o->peukert_k : NAN),
+        "warnings", w);
+    if (!doc)
+        return -1;
+    int rc = json_dumpf(doc, stdout, JSON_INDENT(2) | JSON_REAL_PRECISION(10) | JSON_PRESERVE_ORDER);
+    json_decref(doc);
+    return rc != 0 || fputc('\n', stdout) == EOF ? -1 : 0;
+}
+
+static int write_text(const struct predict_inputs *in, const struct predict_load *l, double load_sd,
+                      const struct predict_opts *o, const struct predict_run *r,
+                      const struct predict_mc *mc, const char *const *warn, int nwarn)
+{
+    char a[40], b[40];
+    printf("packbook prediction from %s\n", in->source);
+    printf("  %-15s %dS %s, capacity %.0f +/- %.0f mAh%s, R0 %.2f +/- %.2f mOhm", "pack", in->cells,
+           in->chem->label, in->capacity_mah, in->capacity_sd_mah,
+           in->capacity_assumed ? " (rated, no estimate)" : "", in->r0_mohm, in->r0_sd_mohm);
+    if (isfinite(in->r1_mohm) && isfinite(in->tau_s))
+        printf(", RC %.2f mOhm / %.1f s", in->r1_mohm, in->tau_s);
+    printf("\n");
+    if (l->kind == LOAD_POWER)
+        printf("  %-15s %.0f W constant power (sd %.0f W)\n", "load", l->power_w, load_sd);
+    else if (l->kind == LOAD_CURRENT)
+        printf("  %-15s %.2f A constant current (sd %.2f A)\n", "load", l->current_a, load_sd);
+    else
+        printf("  %-15s a logged power profile of %.0f s, repeated\n", "load", l->prof_period_s);
+    printf("  %-15s SoC %.0f %% at the start, landing reserve %.0f %%, floor %.2f V/cell\n", "limits",
+           o->soc0_pct, o->reserve_pct, isfinite(o->floor_v) ? o->floor_v : in->chem->floor_v);
+    mmss(a, sizeof a, mc->t_p05_s);
+    mmss(b, sizeof b, mc->t_median_s);
+    printf("  %-15s %s conservative (5th percentile of %d runs), %s median\n", "SAFE TIME", a,
+           mc->runs, b);
+    printf("  %-15s %s (%d of %d runs)\n", "binding limit", predict_limit_name(r->binding),
+           mc->binding_count[r->binding], mc->runs);
+    printf("  %-15s SoC %.0f %%, %.2f V loaded (%.3f V/cell), %.1f A\n", "at the limit",
+           r->soc_at_stop_pct, r->v_at_stop_v, r->v_at_stop_v / in->cells, r->i_at_stop_a);
+    char c[40], d[40], e[40];
+    mmss(a, sizeof a, r->t_reserve_s);
+    mmss(c, sizeof c, r->t_floor_s);
+    mmss(d, sizeof d, r->t_collapse_s);
+    mmss(e, sizeof e, r->t_empty_s);
+    printf("  %-15s reserve %s, floor %s, collapse %s, empty %s (nominal run)\n", "each limit", a, c,
+           d, e);
+    if (isfinite(r->soc_after_pct))
+        printf("  %-15s SoC %.1f %%, %.2f V loaded\n", "after --for", r->soc_after_pct, r->v_after_v);
+    for (int k = 0; k < nwarn; k++)
+        printf("  warning: %s\n", warn[k]);
+    printf("\nCaution: an estimate from logged data. It does not replace the aircraft's own\n"
+           "low-voltage protection, the pack maker's limits or your operation's rules.\n");
+    return ferror(stdout) ? -1 : 0;
+}
+
+enum pb_code cmd_predict(int argc, char **argv, struct app *app, struct pb_error *err)
+{
+    struct predict_cli cli = {0};
+    int c;
+    (void)app;
+    logopts_init(&cli.log);
+    cli.soc = cli.ocv_v = cli.power_w = cli.current_a = cli.temp_c = NAN;
+    cli.reserve = 30.0;
+    cli.tref_c = 25.0;
+    cli.ea = 30000.0;
+    cli.peukh = 1.0;
+    cli.runs = 400;
+    cli.seed = 1;
+    optind = 1;
+    opterr = 0;
+    while ((c = getopt_long(argc, argv, "h", longopts, NULL)) != -1) {
+        const char *v = optarg;
+        int bad = 0, n = 0;
+        int taken = logopts_take(c, v, &cli.log, err);
+        if (taken < 0)
+            return PB_EUSAGE;
+        if (taken)
+            continue;
+        switch (c) {
+        case R_LOG: cli.log_path = v; break;
+        case R_SOC: bad = cmd_parse_double("--soc", v, 0, 100, &cli.soc, err); break;
+        case R_OCV: bad = cmd_parse_double("--ocv", v, 0.5, 200, &cli.ocv_v, err); break;
+        case R_POWER: bad = cmd_parse_double("--power", v, 0, 1e6, &cli.power_w, err); break;
+        case R_CURRENT: bad = cmd_parse_double("--current", v, 0, 1e5, &cli.current_a, err); break;
+        case R_PROFILE:
+            if (cli.nprofiles == MAX_PROFILES)
+                return pb_error_set(err, PB_EUSAGE, "--profile: at most %d", MAX_PROFILES);
+            cli.profiles[cli.nprofiles++] = v;
+            break;
+        case R_RESERVE: bad = cmd_parse_double("--reserve", v, 0, 99, &cli.reserve, err); break;
+        case R_TEMP: bad = cmd_parse_double("--temp", v, -60, 90, &cli.temp_c, err); break;
+        case R_TREF: bad = cmd_parse_double("--tref", v, -60, 90, &cli.tref_c, err); break;
+        case R_EA: bad = cmd_parse_double("--ea", v, 0, 500000, &cli.ea, err); break;
+        case R_PEUK: bad = cmd_parse_double("--peukert", v, 1.0, 2.0, &cli.peuk, err); break;
+        case R_PEUKH: bad = cmd_parse_double("--peukert-hours", v, 0.01, 1000, &cli.peukh, err); break;
+        case R_RUNS: bad = cmd_parse_int("--runs", v, 10, 100000, &cli.runs, err); break;
+        case R_SEED:
+            bad = cmd_parse_int("--seed", v, 0, 2000000000, &n, err);
+            cli.seed = (unsigned long)n;
+            break;
+        case R_FOR: bad = cmd_parse_double("--for", v, 0.001, 1e6, &cli.for_s, err); break;
+        case R_DB: cli.db = v; break;
+        case R_JSON: cli.json = 1; break;
+        case R_CELLS: bad = cmd_parse_int("--cells", v, 1, PB_MAX_CELLS, &cli.log.an.cells, err); break;
+        case R_CHEM: {
+            const struct chem_info *ch = ocv_chem_by_name(v);
+            if (!ch)
+                return pb_error_set(err, PB_EUSAGE, "--chemistry: expected lipo, lihv, nmc or lfp, "
+                                    "got '%s'", v);
+            cli.log.an.chemistry = (int)ch->id;
+            break;
+        }
+        case R_CAP: bad = cmd_parse_double("--capacity", v, 1, 1e7, &cli.log.an.capacity_mah, err); break;
+        case 'h':
+            fputs(usage_head, stdout);
+            fputs(logopts_usage, stdout);
+            return cmd_finish_stdout(err);
+        default: return cmd_bad_option("predict", argc, argv, err);
+        }
+        if (bad)
+            return PB_EUSAGE;
+    }
+    enum pb_code rc = logopts_finish(&cli.log, err);
+    if (rc != PB_OK)
+        return rc;
+    int loads = isfinite(cli.power_w) + isfinite(cli.current_a) + (cli.nprofiles > 0);
+    if (loads > 1)
+        return pb_error_set(err, PB_EUSAGE, "predict: give one of --power, --current or --profile");
+    if (isfinite(cli.soc) && isfinite(cli.ocv_v))
+        return pb_error_set(err, PB_EUSAGE, "predict: give --soc or --ocv, not both");
+    if (!cli.log_path) {
+        if (optind + 1 != argc)
+            return pb_error_set(err, PB_EUSAGE, "predict: give one pack ID, or --log LOG");
+        cli.id = argv[optind];
+    } else if (optind != argc) {
+        return pb_error_set(err, PB_EUSAGE, "predict: --log and a pack ID do not go together");
+    }
+
+    struct predict_inputs in;
+    struct store *st = NULL;
+    struct pack_view view = {0};
+    struct analysis *a = NULL;
+    double *pt = NULL, *pw = NULL;
+    const char *warn[8];
+    int nwarn = 0;
+    if (cli.id) {
+        struct pack_rec p;
+        struct health_rules rules;
+        health_rules_default(&rules);
+        if ((rc = packview_open_store(cli.db, 1, &st, err)) != PB_OK ||
+            (rc = store_pack_get(st, cli.id, &p, err)) != PB_OK ||
+            (rc = packview_load(st, &p, &rules, TREND_WEEK, 0, 1000, &view, err)) != PB_OK ||
+            (rc = inputs_from_history(&view, &in, err)) != PB_OK)
+            goto cleanup;
+        if (p.retired_at[0])
+            warn[nwarn++] = "this pack is retired";
+    } else {
+        struct logread_stats stats;
+        if ((rc = logopts_analyze(cli.log_path, &cli.log, &stats, &a, err)) != PB_OK)
+            goto cleanup;
+        if (a->cells <= 0 || !isfinite(a->r0_mohm.value)) {
+            rc = pb_error_set(err, PB_EUSAGE, "%s: %s: cannot predict from this log", cli.log_path,
+                              a->cells <= 0 ? "the cell count is unknown (give --cells)"
+                                            : "its resistance is unknown (see 'packbook analyze')");
+            goto cleanup;
+        }
+        inputs_from_analysis(a, cli.log.an.capacity_mah, cli.log_path, &in);
+        if (!isfinite(in.capacity_mah)) {
+            rc = pb_error_set(err, PB_EUSAGE, "%s: no capacity estimate: give --capacity", cli.log_path);
+            goto cleanup;
+        }
+    }
+    if (in.capacity_assumed)
+        warn[nwarn++] = "no capacity estimate: the rated capacity is used with a 5 % spread";
+
+    struct predict_pack p;
+    struct predict_opts o;
+    struct predict_spread sp;
+    setup(&in, &cli, &p, &o, &sp);
+    struct predict_load l = {.kind = LOAD_POWER};
+    if (isfinite(cli.power_w)) {
+        l.power_w = cli.power_w;
+    } else if (isfinite(cli.current_a)) {
+        l.kind = LOAD_CURRENT;
+        l.current_a = cli.current_a;
+    } else if (cli.nprofiles) {
+        l.kind = LOAD_PROFILE;
+        if ((rc = load_profiles(&cli, &pt, &pw, &l.prof_n, &l.prof_period_s, err)) != PB_OK)
+            goto cleanup;
+        l.prof_t_s = pt;
+        l.prof_w = pw;
+    } else {
+        if (!isfinite(in.power_w)) {
+            rc = pb_error_set(err, PB_EUSAGE, "no cruise power known from %s: give --power W",
+                              in.source);
+            goto cleanup;
+        }
+        l.power_w = in.power_w;
+        sp.load_sd = isfinite(in.power_sd_w) ? in.power_sd_w : 0.0;
+    }
+    struct predict_run r;
+    struct predict_mc mc;
+    if (predict_run(&p, &l, &o, &r) != 0 || predict_monte_carlo(&p, &l, &o, &sp, &mc) != 0) {
+        rc = pb_error_set(err, PB_ENUMERIC, "the simulation failed for these inputs");
+        goto cleanup;
+    }
+    if (r.binding == LIMIT_COLLAPSE)
+        warn[nwarn++] = "the pack cannot deliver this power down to the reserve: voltage collapse";
+    if (r.t_safe_s <= 0.0)
+        warn[nwarn++] = "a limit is reached at the start: do not fly this load from this state";
+    int wrc = cli.json ? write_json(&in, &l, sp.load_sd, &o, &r, &mc, warn, nwarn)
+                       : write_text(&in, &l, sp.load_sd, &o, &r, &mc, warn, nwarn);
+    rc = wrc ? pb_error_set(err, PB_EOUTPUT, "cannot write the output") : cmd_finish_stdout(err);
+cleanup:
+    free(pt);
+    free(pw);
+    analysis_free(a);
+    pack_view_release(&view);
+    store_close(st);
+    return rc;
+}
