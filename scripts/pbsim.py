@@ -140,6 +140,9 @@ def main():
         "r0_mohm": a.r0_mohm_cell * float(cell_r.sum()), "r1_mohm": a.r1_mohm_cell * float(cell_r.sum()),
         "tau_s": a.tau_s, "charge_used_mah": charge_mah, "energy_used_wh": energy_wh,
         "samples": len(t), "duration_s": float(t[-1]),
+        # first time the weakest cell's SoC is at or below 30 %, from the log's start
+        "t_soc30_s": (float(t[np.argmax(soc.min(axis=0) <= 30.0)])
+                      if (soc.min(axis=0) <= 30.0).any() else None),
     }
     # what the logger sees: noise and quantisation
     v_meas = np.round(v_pack + rng.normal(0, a.noise_mv / 1000.0, len(t)), 3)
