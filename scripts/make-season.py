@@ -56,7 +56,7 @@ FLEET = [
     ("TM-01", 4, "lipo", 5000, 22, "healthy", 4.0, 20.0, 540, "north transect quad"),
     ("TM-02", 4, "lipo", 5000, 20, "healthy", 4.4, 20.0, 540, "north transect quad"),
     ("TM-03", 4, "lipo", 5000, 24, "fading", 4.0, 19.0, 540, "reed-bed quad, bought used"),
-    ("TM-04", 4, "lipo", 5000, 20, "weak-cell", 4.2, 22.0, 600, "reed-bed quad, cell-voltage logger"),
+    ("TM-04", 4, "lipo", 5000, 20, "weak-cell", 4.2, 22.0, 600, "reed-bed quad, cell logger"),
     ("TM-05", 4, "lipo", 5000, 3, "healthy", 4.1, 20.0, 540, "spare"),
     ("TM-06", 6, "lihv", 4200, 16, "healthy", 5.0, 18.0, 540, "heavy-lift hexa"),
 ]

@@ -307,12 +307,14 @@ enum pb_code cmd_import(int argc, char **argv, struct app *app, struct pb_error 
             fprintf(stderr, "\r%*s\r", 60, "");
         if (o == OUT_FAILED) {
             failed++;
-            fprintf(stderr, "packbook: not imported: %s\n", e.msg);
             if (e.code == PB_ESTORE || e.code == PB_ENOMEM) {
                 /* the store itself failed: later logs would fail the same way */
+                printf("%zu imported, %zu already there; stopped at %s\n", stored, dups,
+                       paths.v[k]);
                 rc = pb_error_set(err, e.code, "%s", e.msg);
                 goto cleanup;
             }
+            fprintf(stderr, "packbook: not imported: %s\n", e.msg);
         } else {
             stored += o == OUT_STORED;
             dups += o == OUT_DUPLICATE;

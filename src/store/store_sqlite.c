@@ -20,6 +20,8 @@
 struct store {
     sqlite3 *db;
     char path[1024];
+    int saved_code;        /* error of a failed transaction step, kept past its ROLLBACK */
+    char saved_msg[256];
 };
 
 /* Schema steps: migrations[k] takes the schema from version k to k + 1.
@@ -70,6 +72,13 @@ static const char *const migrations[] = {
 static enum pb_code db_error(struct store *st, struct pb_error *err, const char *what)
 {
     int code = sqlite3_extended_errcode(st->db);
+    const char *msg = sqlite3_errmsg(st->db);
+    if (st->saved_code) {
+        /* a ROLLBACK after the failure has cleared SQLite's own record of it */
+        code = st->saved_code;
+        msg = st->saved_msg;
+        st->saved_code = 0;
+    }
     const char *hint = "";
     if ((code & 0xff) == SQLITE_READONLY)
         hint = " (the database or its folder is read-only)";
@@ -77,8 +86,7 @@ static enum pb_code db_error(struct store *st, struct pb_error *err, const char 
         hint = " (disk full: nothing of this step was stored)";
     else if ((code & 0xff) == SQLITE_BUSY)
         hint = " (another packbook kept the database busy too long)";
-    return pb_error_set(err, PB_ESTORE, "%s: %s: %s%s", st->path, what, sqlite3_errmsg(st->db),
-                        hint);
+    return pb_error_set(err, PB_ESTORE, "%s: %s: %s%s", st->path, what, msg, hint);
 }
 
 static int mkdir_parents(const char *path)
@@ -398,8 +406,11 @@ static int put_once(struct store *st, const struct flight_rec *f, const char *js
 {
     sqlite3_stmt *s = NULL;
     int rc = sqlite3_exec(st->db, "BEGIN IMMEDIATE", NULL, NULL, NULL);
-    if (rc != SQLITE_OK)
+    if (rc != SQLITE_OK) {
+        st->saved_code = sqlite3_extended_errcode(st->db);
+        snprintf(st->saved_msg, sizeof st->saved_msg, "%s", sqlite3_errmsg(st->db));
         return rc;
+    }
     rc = sqlite3_prepare_v2(st->db,
                             "SELECT p.label FROM flights f JOIN packs p ON p.id = f.pack_id "
                             "WHERE f.content_hash = ?", -1, &s, NULL);
@@ -488,6 +499,8 @@ fail:
     {
         /* keep the error of the failing step, not the rollback's */
         int keep = sqlite3_extended_errcode(st->db);
+        st->saved_code = keep ? keep : rc;
+        snprintf(st->saved_msg, sizeof st->saved_msg, "%s", sqlite3_errmsg(st->db));
         sqlite3_exec(st->db, "ROLLBACK", NULL, NULL, NULL);
         return keep ? keep : rc;
     }
@@ -499,6 +512,7 @@ enum pb_code store_flight_put(struct store *st, const struct flight_rec *f, cons
 {
     *duplicate = 0;
     for (int attempt = 0; attempt < BUSY_RETRIES; attempt++) {
+        st->saved_code = 0;
         int rc = put_once(st, f, report_json, duplicate, dup_label, dup_cap);
         if (rc == SQLITE_OK)
             return PB_OK;
