@@ -1,0 +1,57 @@
+/* libFuzzer target: any bytes through the log reader and the analysis.
+ * Build: CC=clang meson setup build-fuzz -Dfuzz=true && ninja -C build-fuzz
+ * Run:   build-fuzz/tests/fuzz_analyze -max_len=65536 CORPUS_DIR
+ * The first byte picks options (header-less layout, sign, decimal), so the
+ * fuzzer reaches those paths too. */
+#define _GNU_SOURCE
+#include <gsl/gsl_errno.h>
+#include <stdint.h>
+#include <stdio.h>
+#include <string.h>
+
+#include "analyze.h"
+#include "logread.h"
+
+int LLVMFuzzerTestOneInput(const uint8_t *data, size_t size);
+
+int LLVMFuzzerTestOneInput(const uint8_t *data, size_t size)
+{
+    static int ready;
+    if (!ready) {
+        gsl_set_error_handler_off();
+        ready = 1;
+    }
+    if (size < 1)
+        return 0;
+    uint8_t sel = data[0];
+    data++;
+    size--;
+    FILE *fp = fmemopen((void *)data, size, "rb");
+    if (!fp)
+        return 0;
+    struct logread_opts ro = {0};
+    if (sel & 1)
+        ro.columns = "time_s,voltage_v,current_a,cell1_v,cell2_v";
+    if (sel & 2)
+        ro.sign = SIGN_DISCHARGE_NEGATIVE;
+    if (sel & 4)
+        ro.decimal = ',';
+    if (sel & 8) {
+        ro.have_adc = 1;
+        ro.adc_a_per_count = 0.0885;
+    }
+    struct logread_stats st;
+    struct pb_error err = {0};
+    struct series *s = logread_file(fp, "fuzz", &ro, &st, &err);
+    fclose(fp);
+    if (s) {
+        struct analysis *a = analysis_new();
+        struct analyze_opts ao = {.chemistry = (sel >> 4) % 4, .cells = (sel & 16) ? 2 : 0,
+                                  .plain_fit = (sel >> 6) & 1};
+        if (a)
+            analyze_series(s, &st, "fuzz", &ao, a, &err);
+        analysis_free(a);
+        series_free(s);
+    }
+    return 0;
+}
