@@ -78,6 +78,7 @@ struct model {
     double dt_tol;      /* ARX: rows whose interval is within this of the median */
     /* searches use every stride-th row; the RC state still advances on all */
     size_t stride;
+    size_t *work;       /* rows visited by every fit, summed (NULL: not counted) */
 };
 
 /* Row j of a fit that needs no running state is sample j * stride. */
@@ -184,15 +185,25 @@ static enum pb_code fit_model(struct model *m, fit_row_fn row, int p, int robust
 {
     size_t n = m->s->n;
     m->stride = 1;
-    if (!robust || n < 4 * SEARCH_ROWS)
-        return fit_linear(fit_rows(m, row), p, row, m, robust, out, err);
+    enum pb_code rc;
+    if (!robust || n < 4 * SEARCH_ROWS) {
+        rc = fit_linear(fit_rows(m, row), p, row, m, robust, out, err);
+        if (m->work)
+            *m->work += out->rows_visited;
+        return rc;
+    }
     struct fit_result sub;
     m->stride = n / SEARCH_ROWS + 1;
-    enum pb_code rc = fit_linear(fit_rows(m, row), p, row, m, 1, &sub, err);
+    rc = fit_linear(fit_rows(m, row), p, row, m, 1, &sub, err);
     m->stride = 1;
+    if (m->work)
+        *m->work += sub.rows_visited;
     if (rc != PB_OK)
         return rc;
-    return fit_linear_from(n, p, row, m, &sub, out, err);
+    rc = fit_linear_from(n, p, row, m, &sub, out, err);
+    if (m->work)
+        *m->work += out->rows_visited;
+    return rc;
 }
 
 static double median_interval(const struct series *s)
@@ -223,7 +234,10 @@ static double rss_at(double log_tau, void *ctx)
     struct tau_search *ts = ctx;
     struct fit_result f;
     ts->m->tau_s = exp(log_tau);
-    if (fit_linear(ts->m->s->n, ts->p, row_rc, ts->m, 0, &f, NULL) != PB_OK) {
+    enum pb_code rc = fit_linear(ts->m->s->n, ts->p, row_rc, ts->m, 0, &f, NULL);
+    if (ts->m->work)
+        *ts->m->work += f.rows_visited;
+    if (rc != PB_OK) {
         ts->failed = 1;
         return HUGE_VAL;
     }
@@ -519,7 +533,8 @@ static enum pb_code fit_pack(struct analysis *a, const struct series *s, const d
                              struct fit_result *chosen, struct model *chosen_model, int *chosen_p)
 {
     struct model m = {.s = s, .y_v = s->v_v, .v_ref = s->v_v[0], .u = u,
-                      .dt_med = a->median_dt_s, .degree = a->ocv_degree};
+                      .dt_med = a->median_dt_s, .degree = a->ocv_degree,
+                      .work = &a->fit_rows_visited};
     int p = m.degree + 2;
     struct fit_result fs;
     enum pb_code rc = fit_model(&m, row_static, p, !o->plain_fit, &fs, err);
@@ -542,7 +557,9 @@ static enum pb_code fit_pack(struct analysis *a, const struct series *s, const d
     ma.stride = s->n / SEARCH_ROWS + 1;
     struct fit_result fa;
     double tau_arx = NAN;
-    if (fit_linear(rows_of(&ma), 5, row_arx, &ma, !o->plain_fit, &fa, NULL) == PB_OK &&
+    enum pb_code arc = fit_linear(rows_of(&ma), 5, row_arx, &ma, !o->plain_fit, &fa, NULL);
+    a->fit_rows_visited += fa.rows_visited;
+    if (arc == PB_OK &&
         fa.rank == 5) {
         double a1 = fa.beta[1];
         if (a1 > 0.0 && a1 < 1.0)
@@ -631,7 +648,7 @@ static void per_cell(struct analysis *a, const struct series *s, const double *u
         d->voltage_rest_v = NAN;
         if (s->i_a && identifiable) {
             struct model m = {.s = s, .y_v = s->cell_v[c], .v_ref = s->cell_v[c][0], .u = u,
-                              .degree = a->ocv_degree};
+                              .degree = a->ocv_degree, .work = &a->fit_rows_visited};
             int is_rc = isfinite(a->tau_s.value);
             int p = m.degree + 2 + is_rc;
             int jr = m.degree + 1;
@@ -801,7 +818,7 @@ enum pb_code analyze_series(const struct series *s, const struct logread_stats *
             /* without a resistance, the R column would trade off against the
              * constant term: the OCV ends come from the loaded voltage trend */
             struct model mv = {.s = s, .y_v = s->v_v, .v_ref = s->v_v[0], .u = u,
-                               .degree = a->ocv_degree};
+                               .degree = a->ocv_degree, .work = &a->fit_rows_visited};
             struct fit_result fv;
             if (fit_model(&mv, row_ocv_only, mv.degree + 1, !o->plain_fit, &fv, NULL) == PB_OK) {
                 ocv_at(&fv, mv.degree, -1.0, mv.v_ref, &a->ocv_start_v, &se0);

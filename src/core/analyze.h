@@ -88,6 +88,7 @@ struct analysis {
     double fit_sigma_mv;
     size_t fit_downweighted;
     int fit_iterations;            /* reweighting passes of the chosen fit */
+    size_t fit_rows_visited;       /* rows visited by all fits: the work, for bounds tests */
     int ocv_degree;                /* polynomial degree of the OCV drift */
     double ocv_coef_v[OCV_POLY_MAX];/* OCV(u) = sum c_j u^j, u = 2 q/q_end - 1 */
     double q_end_ah;

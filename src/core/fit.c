@@ -156,6 +156,7 @@ static enum pb_code fit_core(size_t n, int p, fit_row_fn row, void *ctx, int rob
     int rank = 0;
     struct scale_sample ss = {NULL, 0, n / SCALE_SAMPLES + 1};
     double scale = 0.0;
+    size_t visited = 0;
 
     memset(out, 0, sizeof *out);
     if (p < 1 || p > FIT_MAX_P)
@@ -166,6 +167,7 @@ static enum pb_code fit_core(size_t n, int p, fit_row_fn row, void *ctx, int rob
         scale = start->scale;
     } else {
         run_pass(n, p, row, ctx, NULL, 0.0, NULL, &ne);
+        visited += n;
         if (ne.n_used <= (size_t)p)
             return pb_error_set(err, PB_ENUMERIC, "fit: %zu rows for %d unknowns", ne.n_used, p);
         if (solve(&ne, p, beta, inv, &rank) != 0)
@@ -186,6 +188,7 @@ static enum pb_code fit_core(size_t n, int p, fit_row_fn row, void *ctx, int rob
             memcpy(prev, beta, sizeof prev);
             struct normal_eq keep = ne;
             run_pass(n, p, row, ctx, beta, scale, &ss, &ne);
+            visited += n;
             double next = MAD_TO_SIGMA * fit_median(ss.r, ss.n);
             /* an exact fit (residuals at rounding level): nothing to reweight */
             double y_rms = ne.n_used ? sqrt(fmax(ne.yy, keep.yy) / (double)ne.n_used) : 0.0;
@@ -234,6 +237,7 @@ static enum pb_code fit_core(size_t n, int p, fit_row_fn row, void *ctx, int rob
         rss = 0.0;
     double dof = ne.wsum - rank;
     out->rank = rank;
+    out->rows_visited = visited;
     out->rss = rss;
     out->dof = dof;
     out->n_used = ne.n_used;

@@ -36,6 +36,7 @@ struct fit_result {
     size_t n_used;                /* rows the callback gave */
     size_t n_downweighted;        /* rows with final weight < 0.5 (robust) */
     int iterations;
+    size_t rows_visited;          /* callback calls over all passes: the work done */
 };
 
 /* Fits n rows of p columns (robust: reweighted). Returns PB_OK or an

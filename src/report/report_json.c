@@ -107,13 +107,14 @@ static json_t *analysis_obj(const struct analysis *a, const struct report_input 
     for (int j = 0; a->has_current && j <= a->ocv_degree && j < OCV_POLY_MAX; j++)
         json_array_append_new(coef, num(a->ocv_coef_v[j]));
     json_object_set_new(o, "fit",
-                        json_pack("{s:s, s:o, s:I, s:i, s:i, s:o, s:o, s:o, s:I}", "method",
+                        json_pack("{s:s, s:o, s:I, s:i, s:i, s:o, s:o, s:o, s:I, s:I}", "method",
                                   in->plain_fit ? "ols" : "robust", "sigma_mv",
                                   num(a->has_current ? a->fit_sigma_mv : NAN), "downweighted",
                                   (json_int_t)a->fit_downweighted, "iterations", a->fit_iterations, "ocv_degree", a->ocv_degree,
                                   "ocv_coef_v", coef, "q_end_ah", num(a->q_end_ah),
                                   "median_interval_s", num(a->median_dt_s), "current_steps",
-                                  (json_int_t)a->current_steps));
+                                  (json_int_t)a->current_steps, "rows_visited",
+                                  (json_int_t)a->fit_rows_visited));
     json_t *cells = json_array();
     for (int c = 0; c < a->ncells_detail; c++) {
         const struct cell_detail *d = &a->cell[c];
