@@ -14,7 +14,7 @@
 #include "../core/isotime.h"
 #include "store.h"
 
-#define BUSY_TIMEOUT_MS 15000
+#define BUSY_TIMEOUT_MS 60000
 #define BUSY_RETRIES 8
 
 struct store {
@@ -68,6 +68,19 @@ static const char *const migrations[] = {
     /* 2 -> 3: mean power while loaded, the load for predictions */
     "ALTER TABLE flights ADD COLUMN power_cruise_w REAL;",
 };
+
+/* Busy handler: short jittered sleeps, so a waiting writer gets its turn
+ * between another importer's flights (SQLite's default handler backs off to
+ * 100 ms sleeps and lets a busy importer take the lock again each time). */
+static int on_busy(void *ctx, int count)
+{
+    (void)ctx;
+    if ((long)count * 3 > BUSY_TIMEOUT_MS)
+        return 0;
+    struct timespec ts = {0, (long)(1000000L + (rand() % 3000000L))};
+    nanosleep(&ts, NULL);
+    return 1;
+}
 
 static enum pb_code db_error(struct store *st, struct pb_error *err, const char *what)
 {
@@ -193,7 +206,8 @@ enum pb_code store_open(const char *path, int create, struct store **out, struct
         store_close(st);
         return rc;
     }
-    sqlite3_busy_timeout(st->db, BUSY_TIMEOUT_MS);
+    srand((unsigned)getpid()); /* jitter differs between processes */
+    sqlite3_busy_handler(st->db, on_busy, NULL);
     sqlite3_extended_result_codes(st->db, 1);
     /* the first statement that reads the file tells a non-SQLite file */
     enum pb_code rc = PB_OK;

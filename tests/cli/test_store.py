@@ -446,9 +446,18 @@ class Concurrency(unittest.TestCase):
                 add_pack(self, db, "TM-08")
                 add_pack(self, db, "TM-09")
                 same = rnd == 2  # last round: both into the same pack
+                # hold the write lock while both start, so that they surely
+                # contend for it (busy timeout and retries) instead of one
+                # finishing before the other begins on a loaded machine
+                gate = sqlite3.connect(db, timeout=30)
+                gate.execute("BEGIN IMMEDIATE")
                 ps = [self._start(db, "TM-08", self.sets["A"]),
                       self._start(db, "TM-08" if same else "TM-09", self.sets["B"])]
-                res = [(p.wait(timeout=120), *p.communicate()) for p in ps]
+                time.sleep(1.5)
+                gate.rollback()
+                gate.close()
+                res = [(*p.communicate(timeout=120), p.returncode) for p in ps]
+                res = [(rc, out, err) for out, err, rc in res]
                 for rc, out, err in res:
                     self.assertEqual(rc, EXIT_OK, err)
                     self.assertIn("12 imported, 0 already there, 0 failed", out)
