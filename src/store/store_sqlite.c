@@ -212,8 +212,20 @@ enum pb_code store_open(const char *path, int create, struct store **out, struct
     /* the first statement that reads the file tells a non-SQLite file */
     enum pb_code rc = PB_OK;
     char *msg = NULL;
-    if (sqlite3_exec(st->db, "PRAGMA foreign_keys = ON; PRAGMA journal_mode = WAL;"
-                             "PRAGMA synchronous = NORMAL;", NULL, NULL, &msg) != SQLITE_OK) {
+    int prc;
+    /* switching a new file to WAL takes an exclusive lock that SQLite does
+     * not wait for (its busy handler is skipped to avoid deadlock): retry */
+    for (int attempt = 0;; attempt++) {
+        prc = sqlite3_exec(st->db, "PRAGMA foreign_keys = ON; PRAGMA journal_mode = WAL;"
+                                   "PRAGMA synchronous = NORMAL;", NULL, NULL, &msg);
+        if ((prc & 0xff) != SQLITE_BUSY || attempt >= 200)
+            break;
+        sqlite3_free(msg);
+        msg = NULL;
+        struct timespec ts = {0, 5000000L + (rand() % 20000000L)};
+        nanosleep(&ts, NULL);
+    }
+    if (prc != SQLITE_OK) {
         int code = sqlite3_errcode(st->db);
         if (code == SQLITE_NOTADB || code == SQLITE_CORRUPT)
             rc = pb_error_set(err, PB_ESTORE, "%s: not a packbook database (not an SQLite file)",
