@@ -9,6 +9,7 @@
 
 #include "../core/logread.h"
 #include "../core/predict.h"
+#include "../report/jsonout.h"
 #include "../report/report.h"
 #include "cmd.h"
 #include "logopts.h"
@@ -277,11 +278,6 @@ static void mmss(char *buf, size_t cap, double s)
     snprintf(buf, cap, "%ld min %02ld s", t / 60, t % 60);
 }
 
-static json_t *num(double x)
-{
-    return isfinite(x) ? json_real(x) : json_null();
-}
-
 static int write_json(const struct predict_inputs *in, const struct predict_load *l, double load_sd,
                       const struct predict_opts *o, const struct predict_run *r,
                       const struct predict_mc *mc, const char *const *warn, int nwarn)
@@ -300,27 +296,23 @@ static int write_json(const struct predict_inputs *in, const struct predict_load
         " s:{s:s, s:i, s:s, s:o, s:o, s:b, s:o, s:o, s:o, s:o, s:{s:s, s:o, s:o}, s:o, s:o, s:o, s:o,"
         " s:o, s:o}, s:o}",
         "caution", "an estimate: it does not replace the aircraft's own low-voltage protection",
-        "safe_time_s", "conservative", num(mc->t_p05_s), "median", num(mc->t_median_s), "p95",
-        num(mc->t_p95_s), "runs", mc->runs, "binding_limit", predict_limit_name(r->binding),
-        "binding_counts", counts, "nominal", "t_safe_s", num(r->t_safe_s), "soc_at_stop_pct",
-        num(r->soc_at_stop_pct), "v_at_stop_v", num(r->v_at_stop_v), "i_at_stop_a",
-        num(r->i_at_stop_a), "t_reserve_s", num(r->t_reserve_s), "t_floor_s", num(r->t_floor_s),
-        "t_collapse_s", num(r->t_collapse_s), "t_empty_s", num(r->t_empty_s), "soc_after_pct",
-        num(r->soc_after_pct), "v_after_v", num(r->v_after_v), "inputs", "source", in->source,
-        "cells", in->cells, "chemistry", in->chem->name, "capacity_mah", num(in->capacity_mah),
-        "capacity_sd_mah", num(in->capacity_sd_mah), "capacity_assumed", in->capacity_assumed,
-        "r0_mohm", num(in->r0_mohm), "r0_sd_mohm", num(in->r0_sd_mohm), "r1_mohm",
-        num(in->r1_mohm), "tau_s", num(in->tau_s), "load", "kind", kinds[l->kind], "value",
-        num(value), "sd", num(load_sd), "soc0_pct", num(o->soc0_pct), "reserve_pct",
-        num(o->reserve_pct), "floor_v_per_cell",
-        num(isfinite(o->floor_v) ? o->floor_v : in->chem->floor_v), "temp_c", num(o->temp_c),
-        "ea_j_mol", num(o->ea_j_mol), "peukert_k", num(o->peukert_k > 0 ? o->peukert_k : NAN),
+        "safe_time_s", "conservative", jout_num(mc->t_p05_s), "median", jout_num(mc->t_median_s), "p95",
+        jout_num(mc->t_p95_s), "runs", mc->runs, "binding_limit", predict_limit_name(r->binding),
+        "binding_counts", counts, "nominal", "t_safe_s", jout_num(r->t_safe_s), "soc_at_stop_pct",
+        jout_num(r->soc_at_stop_pct), "v_at_stop_v", jout_num(r->v_at_stop_v), "i_at_stop_a",
+        jout_num(r->i_at_stop_a), "t_reserve_s", jout_num(r->t_reserve_s), "t_floor_s", jout_num(r->t_floor_s),
+        "t_collapse_s", jout_num(r->t_collapse_s), "t_empty_s", jout_num(r->t_empty_s), "soc_after_pct",
+        jout_num(r->soc_after_pct), "v_after_v", jout_num(r->v_after_v), "inputs", "source", in->source,
+        "cells", in->cells, "chemistry", in->chem->name, "capacity_mah", jout_num(in->capacity_mah),
+        "capacity_sd_mah", jout_num(in->capacity_sd_mah), "capacity_assumed", in->capacity_assumed,
+        "r0_mohm", jout_num(in->r0_mohm), "r0_sd_mohm", jout_num(in->r0_sd_mohm), "r1_mohm",
+        jout_num(in->r1_mohm), "tau_s", jout_num(in->tau_s), "load", "kind", kinds[l->kind], "value",
+        jout_num(value), "sd", jout_num(load_sd), "soc0_pct", jout_num(o->soc0_pct), "reserve_pct",
+        jout_num(o->reserve_pct), "floor_v_per_cell",
+        jout_num(isfinite(o->floor_v) ? o->floor_v : in->chem->floor_v), "temp_c", jout_num(o->temp_c),
+        "ea_j_mol", jout_num(o->ea_j_mol), "peukert_k", jout_num(o->peukert_k > 0 ? o->peukert_k : NAN),
         "warnings", w);
-    if (!doc)
-        return -1;
-    int rc = json_dumpf(doc, stdout, JSON_INDENT(2) | JSON_REAL_PRECISION(10) | JSON_PRESERVE_ORDER);
-    json_decref(doc);
-    return rc != 0 || fputc('\n', stdout) == EOF ? -1 : 0;
+    return jout_write(stdout, doc);
 }
 
 static int write_text(const struct predict_inputs *in, const struct predict_load *l, double load_sd,

@@ -1,5 +1,7 @@
 #include "report_health.h"
 
+#include "jsonout.h"
+
 #include <jansson.h>
 #include <math.h>
 #include <string.h>
@@ -13,31 +15,6 @@ void pack_view_release(struct pack_view *v)
     store_flights_free(v->flights);
     v->flights = NULL;
     health_trend_release(&v->trend);
-}
-
-static json_t *num(double x)
-{
-    return isfinite(x) ? json_real(x) : json_null();
-}
-
-static json_t *str_or_null(const char *s)
-{
-    return s && *s ? json_string(s) : json_null();
-}
-
-static json_t *date_or_null(double epoch_s)
-{
-    char buf[40];
-    return isfinite(epoch_s) ? json_string(isotime_format(epoch_s, buf, sizeof buf)) : json_null();
-}
-
-static int dump(FILE *out, json_t *o)
-{
-    if (!o)
-        return -1;
-    int rc = json_dumpf(o, out, JSON_INDENT(2) | JSON_REAL_PRECISION(10) | JSON_PRESERVE_ORDER);
-    json_decref(o);
-    return rc != 0 || fputc('\n', out) == EOF ? -1 : 0;
 }
 
 /* "2026-04-18" of an epoch, or "-" */
@@ -63,9 +40,9 @@ static json_t *pack_obj(const struct pack_rec *p)
 {
     return json_pack("{s:s, s:i, s:i, s:s, s:f, s:o, s:o, s:s, s:o, s:o}", "id", p->label, "cells",
                      p->cells, "parallel", p->parallel, "chemistry", p->chemistry, "capacity_mah",
-                     p->capacity_mah, "since", str_or_null(p->since), "note", str_or_null(p->note),
-                     "created_at", p->created_at, "retired_at", str_or_null(p->retired_at),
-                     "retire_reason", str_or_null(p->retire_reason));
+                     p->capacity_mah, "since", jout_str(p->since), "note", jout_str(p->note),
+                     "created_at", p->created_at, "retired_at", jout_str(p->retired_at),
+                     "retire_reason", jout_str(p->retire_reason));
 }
 
 int report_pack_list(FILE *out, const struct pack_rec *p, size_t n, int json)
@@ -74,7 +51,7 @@ int report_pack_list(FILE *out, const struct pack_rec *p, size_t n, int json)
         json_t *a = json_array();
         for (size_t k = 0; k < n; k++)
             json_array_append_new(a, pack_obj(&p[k]));
-        return dump(out, a);
+        return jout_write(out, a);
     }
     fprintf(out, "%-16s %-7s %-5s %10s  %-10s  %s\n", "pack", "layout", "chem", "rated mAh",
             "since", "state");
@@ -94,11 +71,11 @@ static json_t *health_obj(const struct pack_view *v)
 {
     const struct pack_health *h = &v->health;
     return json_pack("{s:I, s:o, s:o, s:o, s:o, s:o, s:o, s:o, s:i, s:s, s:s}", "flights",
-                     (json_int_t)h->flights, "equivalent_cycles", num(h->cycles), "last_flown",
-                     date_or_null(h->last_epoch_s), "r0_mohm_per_cell", num(h->r0_now_mohm_cell),
-                     "r0_baseline_mohm_per_cell", num(h->r0_base_mohm_cell), "r0_ratio",
-                     num(h->r0_ratio), "capacity_pct", num(h->capacity_pct), "cell_spread_mv",
-                     num(h->spread_mv), "overdischarges", h->overdischarges, "status",
+                     (json_int_t)h->flights, "equivalent_cycles", jout_num(h->cycles), "last_flown",
+                     jout_date(h->last_epoch_s), "r0_mohm_per_cell", jout_num(h->r0_now_mohm_cell),
+                     "r0_baseline_mohm_per_cell", jout_num(h->r0_base_mohm_cell), "r0_ratio",
+                     jout_num(h->r0_ratio), "capacity_pct", jout_num(h->capacity_pct), "cell_spread_mv",
+                     jout_num(h->spread_mv), "overdischarges", h->overdischarges, "status",
                      v->pack.retired_at[0] ? "retired" : health_status_name(h->status), "reason",
                      v->pack.retired_at[0] ? v->pack.retire_reason : h->reason);
 }
@@ -111,12 +88,12 @@ static const char *status_of(const struct pack_view *v)
 static json_t *flight_obj(const struct flight_rec *f)
 {
     return json_pack("{s:o, s:s, s:s, s:o, s:o, s:o, s:o, s:o, s:o, s:o, s:o, s:i}", "flown_at",
-                     date_or_null(f->flown_epoch_s), "date_source", f->date_source, "source",
-                     f->source, "duration_s", num(f->duration_s), "charge_used_mah",
-                     num(f->charge_used_mah), "r0_mohm", num(f->r0_mohm), "capacity_mah",
-                     num(f->capacity_mah), "soc_start_pct", num(f->soc_start_pct), "soc_end_pct",
-                     num(f->soc_end_pct), "cell_spread_rest_mv", num(f->cell_spread_rest_mv),
-                     "time_below_floor_s", num(f->time_below_floor_s), "warnings", f->warnings);
+                     jout_date(f->flown_epoch_s), "date_source", f->date_source, "source",
+                     f->source, "duration_s", jout_num(f->duration_s), "charge_used_mah",
+                     jout_num(f->charge_used_mah), "r0_mohm", jout_num(f->r0_mohm), "capacity_mah",
+                     jout_num(f->capacity_mah), "soc_start_pct", jout_num(f->soc_start_pct), "soc_end_pct",
+                     jout_num(f->soc_end_pct), "cell_spread_rest_mv", jout_num(f->cell_spread_rest_mv),
+                     "time_below_floor_s", jout_num(f->time_below_floor_s), "warnings", f->warnings);
 }
 
 int report_pack_show(FILE *out, const struct pack_view *v, int json)
@@ -130,7 +107,7 @@ int report_pack_show(FILE *out, const struct pack_view *v, int json)
         for (size_t k = 0; k < v->nflights; k++)
             json_array_append_new(fl, flight_obj(&v->flights[k]));
         json_object_set_new(o, "flights", fl);
-        return dump(out, o);
+        return jout_write(out, o);
     }
     char b1[32], b2[32], b3[32];
     fprintf(out, "pack %s: %dS%dP %s, rated %.0f mAh", p->label, p->cells, p->parallel,
@@ -209,11 +186,11 @@ int report_fleet(FILE *out, const struct pack_view *v, size_t n, enum fleet_form
             json_decref(h);
             if (safe)
                 json_object_set_new(o, "safe_time_s",
-                                    json_pack("{s:o, s:o}", "conservative", num(safe[2 * k]),
-                                              "median", num(safe[2 * k + 1])));
+                                    json_pack("{s:o, s:o}", "conservative", jout_num(safe[2 * k]),
+                                              "median", jout_num(safe[2 * k + 1])));
             json_array_append_new(a, o);
         }
-        return dump(out, a);
+        return jout_write(out, a);
     }
     if (fmt == FLEET_CSV) {
         fprintf(out, "pack,flights,equivalent_cycles,last_flown,r0_mohm_per_cell,r0_ratio,"
@@ -278,9 +255,9 @@ static json_t *line_obj(const struct line_fit *l)
 static json_t *trend_line_obj(const struct trend_line *t)
 {
     return json_pack("{s:o, s:o, s:o, s:b, s:o, s:o, s:b}", "vs_cycles", line_obj(&t->vs_cycles),
-                     "per_day", line_obj(&t->vs_days), "retire_level", num(t->level),
-                     "crossed", t->crossed, "crossing_cycles", num(t->cross_cycles),
-                     "crossing_date", date_or_null(t->cross_epoch_s), "beyond_horizon",
+                     "per_day", line_obj(&t->vs_days), "retire_level", jout_num(t->level),
+                     "crossed", t->crossed, "crossing_cycles", jout_num(t->cross_cycles),
+                     "crossing_date", jout_date(t->cross_epoch_s), "beyond_horizon",
                      t->beyond_horizon);
 }
 
@@ -317,18 +294,18 @@ int report_trend(FILE *out, const struct pack_view *v, enum trend_by by, double 
             const struct trend_bucket *x = &t->buckets[k];
             json_array_append_new(b, json_pack("{s:s, s:I, s:o, s:o, s:o, s:o, s:o}", "bucket",
                                                x->key, "flights", (json_int_t)x->flights, "first",
-                                               date_or_null(x->first_epoch_s), "last",
-                                               date_or_null(x->last_epoch_s), "charge_mah",
-                                               num(x->charge_mah), "r0_mohm_per_cell",
-                                               num(x->r0_mohm_cell), "capacity_pct",
-                                               num(x->capacity_pct)));
+                                               jout_date(x->first_epoch_s), "last",
+                                               jout_date(x->last_epoch_s), "charge_mah",
+                                               jout_num(x->charge_mah), "r0_mohm_per_cell",
+                                               jout_num(x->r0_mohm_cell), "capacity_pct",
+                                               jout_num(x->capacity_pct)));
         }
         json_t *o = json_pack("{s:s, s:s, s:f, s:o, s:o, s:o, s:o, s:o}", "id", v->pack.label, "by",
                               bynames[by], "horizon_cycles", horizon, "equivalent_cycles",
-                              num(t->cycles_now), "buckets", b, "r0_mohm_per_cell",
+                              jout_num(t->cycles_now), "buckets", b, "r0_mohm_per_cell",
                               trend_line_obj(&t->r0), "capacity_pct",
                               trend_line_obj(&t->capacity), "health", health_obj(v));
-        return dump(out, o);
+        return jout_write(out, o);
     }
     char b1[32], b2[32], b3[32];
     fprintf(out, "trend of pack %s by %s: %zu flights, %.1f equivalent cycles\n\n", v->pack.label,
@@ -363,7 +340,7 @@ int report_compare(FILE *out, const struct pack_view *v, size_t n, int json)
                                   trend_line_obj(&v[k].trend.capacity));
             json_array_append_new(a, o);
         }
-        return dump(out, a);
+        return jout_write(out, a);
     }
     char b[32];
 #define ROW(label, expr)                                                                           \

@@ -3,23 +3,14 @@
 #include <string.h>
 
 #include "../core/isotime.h"
+#include "jsonout.h"
 #include "report.h"
 
 /* A number, or null when it is not known. */
-static json_t *num(double x)
-{
-    return isfinite(x) ? json_real(x) : json_null();
-}
-
 static json_t *est(struct estimate e)
 {
-    return json_pack("{s:o, s:o}", "value", num(e.value), "ci95",
-                     isfinite(e.value) ? num(e.ci95) : json_null());
-}
-
-static json_t *str_or_null(const char *s)
-{
-    return s ? json_string(s) : json_null();
+    return json_pack("{s:o, s:o}", "value", jout_num(e.value), "ci95",
+                     isfinite(e.value) ? jout_num(e.ci95) : json_null());
 }
 
 static json_t *input_obj(const struct report_input *in)
@@ -46,7 +37,7 @@ static json_t *analysis_obj(const struct analysis *a, const struct report_input 
     json_t *o = json_object();
     json_object_set_new(o, "file", json_string(in->name));
     json_object_set_new(o, "samples", json_integer((json_int_t)a->samples));
-    json_object_set_new(o, "duration_s", num(a->duration_s));
+    json_object_set_new(o, "duration_s", jout_num(a->duration_s));
     json_object_set_new(o, "start_time",
                         a->has_epoch ? json_string(isotime_format(a->start_epoch_s, when, sizeof when))
                                      : json_null());
@@ -56,63 +47,63 @@ static json_t *analysis_obj(const struct analysis *a, const struct report_input 
     json_object_set_new(o, "chemistry_assumed", json_boolean(a->chem_assumed));
     json_object_set_new(o, "rated_capacity_mah",
                         in->opts->capacity_mah > 0 ? json_real(in->opts->capacity_mah) : json_null());
-    json_object_set_new(o, "charge_used_mah", num(a->charge_used_mah));
-    json_object_set_new(o, "charge_discharged_mah", num(a->has_current ? a->cc.discharged_mah : NAN));
-    json_object_set_new(o, "charge_regen_mah", num(a->has_current ? a->cc.regen_mah : NAN));
-    json_object_set_new(o, "energy_used_wh", num(a->energy_used_wh));
-    json_object_set_new(o, "energy_discharged_wh", num(a->has_current ? a->cc.discharged_wh : NAN));
-    json_object_set_new(o, "energy_regen_wh", num(a->has_current ? a->cc.regen_wh : NAN));
-    json_object_set_new(o, "current_max_a", num(a->current_max_a));
-    json_object_set_new(o, "current_mean_a", num(a->current_mean_a));
-    json_object_set_new(o, "c_rate_max", num(a->c_rate_max));
-    json_object_set_new(o, "c_rate_mean", num(a->c_rate_mean));
-    json_object_set_new(o, "power_max_w", num(a->power_max_w));
-    json_object_set_new(o, "power_mean_w", num(a->power_mean_w));
-    json_object_set_new(o, "power_cruise_w", num(a->power_cruise_w));
-    json_object_set_new(o, "voltage_min_v", num(a->voltage_min_v));
-    json_object_set_new(o, "voltage_max_v", num(a->voltage_max_v));
-    json_object_set_new(o, "voltage_start_v", num(a->voltage_start_v));
-    json_object_set_new(o, "voltage_end_v", num(a->voltage_end_v));
-    json_object_set_new(o, "cell_voltage_min_v", num(a->cell_min_loaded_v));
-    json_object_set_new(o, "floor_v_per_cell", num(a->floor_v));
-    json_object_set_new(o, "time_below_floor_s", num(a->cells > 0 ? a->time_below_floor_s : NAN));
+    json_object_set_new(o, "charge_used_mah", jout_num(a->charge_used_mah));
+    json_object_set_new(o, "charge_discharged_mah", jout_num(a->has_current ? a->cc.discharged_mah : NAN));
+    json_object_set_new(o, "charge_regen_mah", jout_num(a->has_current ? a->cc.regen_mah : NAN));
+    json_object_set_new(o, "energy_used_wh", jout_num(a->energy_used_wh));
+    json_object_set_new(o, "energy_discharged_wh", jout_num(a->has_current ? a->cc.discharged_wh : NAN));
+    json_object_set_new(o, "energy_regen_wh", jout_num(a->has_current ? a->cc.regen_wh : NAN));
+    json_object_set_new(o, "current_max_a", jout_num(a->current_max_a));
+    json_object_set_new(o, "current_mean_a", jout_num(a->current_mean_a));
+    json_object_set_new(o, "c_rate_max", jout_num(a->c_rate_max));
+    json_object_set_new(o, "c_rate_mean", jout_num(a->c_rate_mean));
+    json_object_set_new(o, "power_max_w", jout_num(a->power_max_w));
+    json_object_set_new(o, "power_mean_w", jout_num(a->power_mean_w));
+    json_object_set_new(o, "power_cruise_w", jout_num(a->power_cruise_w));
+    json_object_set_new(o, "voltage_min_v", jout_num(a->voltage_min_v));
+    json_object_set_new(o, "voltage_max_v", jout_num(a->voltage_max_v));
+    json_object_set_new(o, "voltage_start_v", jout_num(a->voltage_start_v));
+    json_object_set_new(o, "voltage_end_v", jout_num(a->voltage_end_v));
+    json_object_set_new(o, "cell_voltage_min_v", jout_num(a->cell_min_loaded_v));
+    json_object_set_new(o, "floor_v_per_cell", jout_num(a->floor_v));
+    json_object_set_new(o, "time_below_floor_s", jout_num(a->cells > 0 ? a->time_below_floor_s : NAN));
     json_object_set_new(o, "r0_mohm", est(a->r0_mohm));
-    json_object_set_new(o, "r0_method", str_or_null(a->r0_method));
+    json_object_set_new(o, "r0_method", jout_str(a->r0_method));
     json_object_set_new(o, "r0_mohm_per_cell",
-                        num(a->cells > 0 ? a->r0_mohm.value / a->cells : NAN));
+                        jout_num(a->cells > 0 ? a->r0_mohm.value / a->cells : NAN));
     json_object_set_new(o, "r_static_mohm", est(a->r_static_mohm));
     json_object_set_new(o, "r1_mohm", est(a->r1_mohm));
-    json_object_set_new(o, "tau_s", num(a->tau_s.value));
-    json_object_set_new(o, "ocv_start_v", num(a->ocv_start_v));
-    json_object_set_new(o, "ocv_end_v", num(a->ocv_end_v));
-    json_object_set_new(o, "ocv_start_method", str_or_null(a->ocv_start_method));
-    json_object_set_new(o, "ocv_end_method", str_or_null(a->ocv_end_method));
-    json_object_set_new(o, "soc_start_pct", num(a->soc_start_pct.value));
-    json_object_set_new(o, "soc_start_ci95", num(a->soc_start_pct.ci95));
-    json_object_set_new(o, "soc_end_pct", num(a->soc_end_pct.value));
-    json_object_set_new(o, "soc_end_ci95", num(a->soc_end_pct.ci95));
-    json_object_set_new(o, "state_start", str_or_null(a->state_start));
-    json_object_set_new(o, "state_end", str_or_null(a->state_end));
+    json_object_set_new(o, "tau_s", jout_num(a->tau_s.value));
+    json_object_set_new(o, "ocv_start_v", jout_num(a->ocv_start_v));
+    json_object_set_new(o, "ocv_end_v", jout_num(a->ocv_end_v));
+    json_object_set_new(o, "ocv_start_method", jout_str(a->ocv_start_method));
+    json_object_set_new(o, "ocv_end_method", jout_str(a->ocv_end_method));
+    json_object_set_new(o, "soc_start_pct", jout_num(a->soc_start_pct.value));
+    json_object_set_new(o, "soc_start_ci95", jout_num(a->soc_start_pct.ci95));
+    json_object_set_new(o, "soc_end_pct", jout_num(a->soc_end_pct.value));
+    json_object_set_new(o, "soc_end_ci95", jout_num(a->soc_end_pct.ci95));
+    json_object_set_new(o, "state_start", jout_str(a->state_start));
+    json_object_set_new(o, "state_end", jout_str(a->state_end));
     json_object_set_new(o, "capacity_est_mah", est(a->capacity_mah));
-    json_object_set_new(o, "rest_start_s", num(a->has_current ? a->rest_start_s : NAN));
-    json_object_set_new(o, "rest_end_s", num(a->has_current ? a->rest_end_s : NAN));
-    json_object_set_new(o, "temperature_min_c", num(a->temp_min_c));
-    json_object_set_new(o, "temperature_max_c", num(a->temp_max_c));
+    json_object_set_new(o, "rest_start_s", jout_num(a->has_current ? a->rest_start_s : NAN));
+    json_object_set_new(o, "rest_end_s", jout_num(a->has_current ? a->rest_end_s : NAN));
+    json_object_set_new(o, "temperature_min_c", jout_num(a->temp_min_c));
+    json_object_set_new(o, "temperature_max_c", jout_num(a->temp_max_c));
     json_object_set_new(o, "gaps",
                         json_pack("{s:I, s:o, s:o, s:o, s:o}", "count", (json_int_t)a->cc.gaps,
-                                  "threshold_s", num(a->gap_s), "total_s", num(a->cc.gap_total_s),
-                                  "longest_s", num(a->cc.gap_longest_s), "charge_bridged_mah",
-                                  num(a->has_current ? a->cc.gap_charge_mah : NAN)));
+                                  "threshold_s", jout_num(a->gap_s), "total_s", jout_num(a->cc.gap_total_s),
+                                  "longest_s", jout_num(a->cc.gap_longest_s), "charge_bridged_mah",
+                                  jout_num(a->has_current ? a->cc.gap_charge_mah : NAN)));
     json_t *coef = json_array();
     for (int j = 0; a->has_current && j <= a->ocv_degree && j < OCV_POLY_MAX; j++)
-        json_array_append_new(coef, num(a->ocv_coef_v[j]));
+        json_array_append_new(coef, jout_num(a->ocv_coef_v[j]));
     json_object_set_new(o, "fit",
                         json_pack("{s:s, s:o, s:I, s:i, s:i, s:o, s:o, s:o, s:I, s:I}", "method",
                                   in->plain_fit ? "ols" : "robust", "sigma_mv",
-                                  num(a->has_current ? a->fit_sigma_mv : NAN), "downweighted",
+                                  jout_num(a->has_current ? a->fit_sigma_mv : NAN), "downweighted",
                                   (json_int_t)a->fit_downweighted, "iterations", a->fit_iterations, "ocv_degree", a->ocv_degree,
-                                  "ocv_coef_v", coef, "q_end_ah", num(a->q_end_ah),
-                                  "median_interval_s", num(a->median_dt_s), "current_steps",
+                                  "ocv_coef_v", coef, "q_end_ah", jout_num(a->q_end_ah),
+                                  "median_interval_s", jout_num(a->median_dt_s), "current_steps",
                                   (json_int_t)a->current_steps, "rows_visited",
                                   (json_int_t)a->fit_rows_visited));
     json_t *cells = json_array();
@@ -120,12 +111,12 @@ static json_t *analysis_obj(const struct analysis *a, const struct report_input 
         const struct cell_detail *d = &a->cell[c];
         json_array_append_new(cells, json_pack("{s:i, s:o, s:o, s:o}", "index", d->index,
                                                "r0_mohm", est(d->r0_mohm), "voltage_min_v",
-                                               num(d->voltage_min_v), "voltage_rest_v",
-                                               num(d->voltage_rest_v)));
+                                               jout_num(d->voltage_min_v), "voltage_rest_v",
+                                               jout_num(d->voltage_rest_v)));
     }
     json_object_set_new(o, "cells_detail", cells);
-    json_object_set_new(o, "cell_spread_rest_mv", num(a->spread_rest_mv));
-    json_object_set_new(o, "cell_spread_load_mv", num(a->spread_load_mv));
+    json_object_set_new(o, "cell_spread_rest_mv", jout_num(a->spread_rest_mv));
+    json_object_set_new(o, "cell_spread_load_mv", jout_num(a->spread_load_mv));
     json_object_set_new(o, "weakest_cell", a->weakest_cell ? json_integer(a->weakest_cell) : json_null());
     json_object_set_new(o, "input", input_obj(in));
     json_t *w = json_array();
@@ -136,20 +127,9 @@ static json_t *analysis_obj(const struct analysis *a, const struct report_input 
     return o;
 }
 
-static int dump(FILE *out, json_t *o)
-{
-    if (!o)
-        return -1;
-    int rc = json_dumpf(o, out, JSON_INDENT(2) | JSON_REAL_PRECISION(10) | JSON_PRESERVE_ORDER);
-    json_decref(o);
-    if (rc != 0 || fputc('\n', out) == EOF)
-        return -1;
-    return 0;
-}
-
 int report_analysis_json(FILE *out, const struct analysis *a, const struct report_input *in)
 {
-    return dump(out, analysis_obj(a, in));
+    return jout_write(out, analysis_obj(a, in));
 }
 
 int report_chemistry_json(FILE *out)
@@ -168,5 +148,5 @@ int report_chemistry_json(FILE *out)
                            "floor_v", c->floor_v, "full_rest_v", c->full_rest_v, "empty_rest_v",
                            c->empty_rest_v, "min_loaded_v", c->min_loaded_v, "max_v", c->max_v));
     }
-    return dump(out, arr);
+    return jout_write(out, arr);
 }
