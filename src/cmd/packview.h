@@ -32,19 +32,6 @@ enum pb_code packview_load(struct store *st, const struct pack_rec *p,
                            const struct health_rules *rules, enum trend_by by, int plain,
                            double horizon, struct pack_view *v, struct pb_error *err);
 
-/* What a prediction starts from: the pack and the load, with spreads. */
-struct predict_inputs {
-    const struct chem_info *chem;
-    int cells;
-    double rated_mah;
-    double capacity_mah, capacity_sd_mah;
-    int capacity_assumed;       /* no estimate: rated capacity, 5 % spread */
-    double r0_mohm, r0_sd_mohm;
-    double r1_mohm, tau_s;      /* NAN without an RC branch */
-    double power_w, power_sd_w; /* cruise power, NAN when unknown */
-    char source[200];
-};
-
 /* Conservative and median safe time of a pack from its history at the
  * history's cruise power (or power_w when finite), default limits. */
 enum pb_code predict_view(const struct pack_view *v, double power_w, struct predict_inputs *in,

@@ -90,4 +90,18 @@ int predict_monte_carlo(const struct predict_pack *p, const struct predict_load 
 
 const char *predict_limit_name(enum predict_limit l);
 
+/* What a prediction starts from: the pack and the load, with spreads. */
+struct predict_inputs {
+    const struct chem_info *chem;
+    int cells;
+    double rated_mah;
+    double capacity_mah, capacity_sd_mah;
+    int capacity_assumed;       /* no estimate: rated capacity, 5 % spread */
+    double r0_mohm, r0_sd_mohm;
+    double r1_mohm, tau_s;      /* NAN without an RC branch */
+    double power_w, power_sd_w; /* cruise power, NAN when unknown */
+    char source[200];
+};
+
+
 #endif
