@@ -20,10 +20,9 @@ static const char usage_head[] =
     "  --chemistry C          lipo, lihv, nmc or lfp (default: lipo, with a warning)\n"
     "  --capacity MAH         rated capacity, for C-rates and capacity as % of rated\n";
 
-static const char usage_tail[] =
-    "output:\n"
-    "  --json                 one JSON document on standard output\n"
-    "  -h, --help             this text\n";
+static const char usage_tail[] = "output:\n"
+                                 "  --json                 one JSON document on standard output\n"
+                                 "  -h, --help             this text\n";
 
 enum { OPT_CELLS = 256, OPT_CHEM, OPT_CAP, OPT_JSON };
 
@@ -74,21 +73,25 @@ static enum pb_code parse_args(int argc, char **argv, struct analyze_cli *cli, i
             if (cmd_parse_double("--capacity", v, 1, 1e7, &cli->log.an.capacity_mah, err))
                 return PB_EUSAGE;
             break;
-        case OPT_JSON: cli->json = 1; break;
+        case OPT_JSON:
+            cli->json = 1;
+            break;
         case 'h':
             fputs(usage_head, stdout);
             fputs(logopts_usage, stdout);
             fputs(usage_tail, stdout);
             *done = 1;
             return cmd_finish_stdout(err);
-        default: return cmd_bad_option("analyze", argc, argv, err);
+        default:
+            return cmd_bad_option("analyze", argc, argv, err);
         }
     }
     enum pb_code rc = logopts_finish(&cli->log, err);
     if (rc != PB_OK)
         return rc;
     if (optind >= argc)
-        return pb_error_set(err, PB_EUSAGE, "analyze: no log given (see 'packbook analyze --help')");
+        return pb_error_set(err, PB_EUSAGE,
+                            "analyze: no log given (see 'packbook analyze --help')");
     if (optind + 1 < argc)
         return pb_error_set(err, PB_EUSAGE, "analyze: one log at a time, got '%s' and '%s'",
                             argv[optind], argv[optind + 1]);
@@ -113,7 +116,8 @@ enum pb_code cmd_analyze(int argc, char **argv, struct app *app, struct pb_error
         return rc;
     const char *name = strcmp(cli.path, "-") == 0 ? "(stdin)" : cli.path;
     struct report_input in = {name, &stats, &cli.log.an, cli.log.an.plain_fit};
-    if ((cli.json ? report_analysis_json(stdout, a, &in) : report_analysis_text(stdout, a, &in)) != 0)
+    if ((cli.json ? report_analysis_json(stdout, a, &in) : report_analysis_text(stdout, a, &in)) !=
+        0)
         rc = pb_error_set(err, PB_EOUTPUT, "cannot write the output");
     else
         rc = cmd_finish_stdout(err);

@@ -20,9 +20,14 @@ enum pb_code cmd_chemistry(int argc, char **argv, struct app *app, struct pb_err
     optind = 1;
     while ((c = getopt_long(argc, argv, "h", longopts, NULL)) != -1) {
         switch (c) {
-        case 'j': json = 1; break;
-        case 'h': fputs(usage, stdout); return cmd_finish_stdout(err);
-        default: return pb_error_set(err, PB_EUSAGE, "chemistry: see 'packbook chemistry --help'");
+        case 'j':
+            json = 1;
+            break;
+        case 'h':
+            fputs(usage, stdout);
+            return cmd_finish_stdout(err);
+        default:
+            return pb_error_set(err, PB_EUSAGE, "chemistry: see 'packbook chemistry --help'");
         }
     }
     if (optind < argc)

@@ -28,8 +28,7 @@ enum pb_code cmd_predict(int argc, char **argv, struct app *app, struct pb_error
 /* Parses a number option value; returns 0 or fills err (usage). */
 int cmd_parse_double(const char *opt, const char *val, double lo, double hi, double *out,
                      struct pb_error *err);
-int cmd_parse_int(const char *opt, const char *val, int lo, int hi, int *out,
-                  struct pb_error *err);
+int cmd_parse_int(const char *opt, const char *val, int lo, int hi, int *out, struct pb_error *err);
 
 /* The usage error for an option getopt_long did not know or that lacked
  * its value; verb names the command for the hint. */

@@ -27,8 +27,8 @@ int cmd_parse_int(const char *opt, const char *val, int lo, int hi, int *out, st
     errno = 0;
     long v = strtol(val, &end, 10);
     if (end == val || *end != '\0' || errno == ERANGE || v < lo || v > hi) {
-        pb_error_set(err, PB_EUSAGE, "%s: expected a whole number from %d to %d, got '%s'", opt,
-                     lo, hi, val);
+        pb_error_set(err, PB_EUSAGE, "%s: expected a whole number from %d to %d, got '%s'", opt, lo,
+                     hi, val);
         return -1;
     }
     *out = (int)v;
@@ -46,8 +46,10 @@ enum pb_code cmd_bad_option(const char *verb, int argc, char **argv, struct pb_e
 {
     const char *arg = optind - 1 < argc && optind > 0 ? argv[optind - 1] : "?";
     if (optopt)
-        return pb_error_set(err, PB_EUSAGE, "%s: option '%s' is unknown or needs a value (see "
-                            "'packbook %s --help')", verb, arg, verb);
+        return pb_error_set(err, PB_EUSAGE,
+                            "%s: option '%s' is unknown or needs a value (see "
+                            "'packbook %s --help')",
+                            verb, arg, verb);
     return pb_error_set(err, PB_EUSAGE, "%s: unknown option '%s' (see 'packbook %s --help')", verb,
                         arg, verb);
 }

@@ -26,11 +26,16 @@ static const char usage[] =
 enum { F_JSON = 256, F_CSV, F_SORT, F_STATUS, F_ALL, F_DB, F_PREDICT, F_POWER };
 
 static const struct option longopts[] = {
-    {"json", no_argument, NULL, F_JSON},           {"csv", no_argument, NULL, F_CSV},
-    {"sort", required_argument, NULL, F_SORT},     {"status", required_argument, NULL, F_STATUS},
-    {"all", no_argument, NULL, F_ALL},             {"db", required_argument, NULL, F_DB},
-    {"predict", no_argument, NULL, F_PREDICT},     {"power", required_argument, NULL, F_POWER},
-    {"help", no_argument, NULL, 'h'},              RULEOPTS_LONG,
+    {"json", no_argument, NULL, F_JSON},
+    {"csv", no_argument, NULL, F_CSV},
+    {"sort", required_argument, NULL, F_SORT},
+    {"status", required_argument, NULL, F_STATUS},
+    {"all", no_argument, NULL, F_ALL},
+    {"db", required_argument, NULL, F_DB},
+    {"predict", no_argument, NULL, F_PREDICT},
+    {"power", required_argument, NULL, F_POWER},
+    {"help", no_argument, NULL, 'h'},
+    RULEOPTS_LONG,
     {NULL, 0, NULL, 0},
 };
 
@@ -87,35 +92,50 @@ enum pb_code cmd_fleet(int argc, char **argv, struct app *app, struct pb_error *
         if (taken)
             continue;
         switch (c) {
-        case F_JSON: fmt = FLEET_JSON; break;
-        case F_CSV: fmt = FLEET_CSV; break;
+        case F_JSON:
+            fmt = FLEET_JSON;
+            break;
+        case F_CSV:
+            fmt = FLEET_CSV;
+            break;
         case F_SORT:
             if (strcmp(optarg, "status") && strcmp(optarg, "pack") && strcmp(optarg, "cycles") &&
                 strcmp(optarg, "r0") && strcmp(optarg, "capacity") && strcmp(optarg, "last"))
-                return pb_error_set(err, PB_EUSAGE, "--sort: expected status, pack, cycles, r0, "
-                                    "capacity or last, got '%s'", optarg);
+                return pb_error_set(err, PB_EUSAGE,
+                                    "--sort: expected status, pack, cycles, r0, "
+                                    "capacity or last, got '%s'",
+                                    optarg);
             sort_key = optarg;
             break;
         case F_STATUS:
             if (strcmp(optarg, "ok") && strcmp(optarg, "watch") && strcmp(optarg, "retire") &&
                 strcmp(optarg, "retired"))
-                return pb_error_set(err, PB_EUSAGE, "--status: expected ok, watch, retire or "
-                                    "retired, got '%s'", optarg);
+                return pb_error_set(err, PB_EUSAGE,
+                                    "--status: expected ok, watch, retire or "
+                                    "retired, got '%s'",
+                                    optarg);
             status = optarg;
             break;
-        case F_ALL: all = 1; break;
-        case F_PREDICT: predict = 1; break;
+        case F_ALL:
+            all = 1;
+            break;
+        case F_PREDICT:
+            predict = 1;
+            break;
         case F_POWER:
             if (cmd_parse_double("--power", optarg, 0, 1e6, &power_w, err))
                 return PB_EUSAGE;
             predict = 1;
             break;
-        case F_DB: db = optarg; break;
+        case F_DB:
+            db = optarg;
+            break;
         case 'h':
             fputs(usage, stdout);
             fputs(ruleopts_usage, stdout);
             return cmd_finish_stdout(err);
-        default: return cmd_bad_option("fleet", argc, argv, err);
+        default:
+            return cmd_bad_option("fleet", argc, argv, err);
         }
     }
     if (optind < argc)
@@ -145,8 +165,8 @@ enum pb_code cmd_fleet(int argc, char **argv, struct app *app, struct pb_error *
         if (rc != PB_OK)
             goto cleanup;
         nv++;
-        const char *s = packs[k].retired_at[0] ? "retired"
-                                               : health_status_name(views[nv - 1].health.status);
+        const char *s =
+            packs[k].retired_at[0] ? "retired" : health_status_name(views[nv - 1].health.status);
         if (status && strcmp(s, status) != 0)
             pack_view_release(&views[--nv]);
     }

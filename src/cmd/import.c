@@ -33,9 +33,12 @@ static const char usage_head[] =
 enum { I_PACK = 256, I_DATE, I_DB, I_QUIET };
 
 static const struct option longopts[] = {
-    {"pack", required_argument, NULL, I_PACK}, {"date", required_argument, NULL, I_DATE},
-    {"db", required_argument, NULL, I_DB},     {"quiet", no_argument, NULL, I_QUIET},
-    {"help", no_argument, NULL, 'h'},          LOGOPTS_LONG,
+    {"pack", required_argument, NULL, I_PACK},
+    {"date", required_argument, NULL, I_DATE},
+    {"db", required_argument, NULL, I_DB},
+    {"quiet", no_argument, NULL, I_QUIET},
+    {"help", no_argument, NULL, 'h'},
+    LOGOPTS_LONG,
     {NULL, 0, NULL, 0},
 };
 
@@ -209,19 +212,22 @@ static enum outcome import_one(struct store *st, const struct pack_rec *pack,
     char when[40];
     isotime_format(f.flown_epoch_s, when, sizeof when);
     if (dup) {
-        snprintf(line, cap, "already imported%s%s: %s", dup_label[0] ? " for pack " : "",
-                 dup_label, name);
+        snprintf(line, cap, "already imported%s%s: %s", dup_label[0] ? " for pack " : "", dup_label,
+                 name);
         out = OUT_DUPLICATE;
     } else {
-        snprintf(line, cap, "imported %s: %.16s (date from %s), %.0f mAh, R0 %s mOhm, %zu warning%s",
-                 name, when, f.date_source, f.charge_used_mah,
+        snprintf(line, cap,
+                 "imported %s: %.16s (date from %s), %.0f mAh, R0 %s mOhm, %zu warning%s", name,
+                 when, f.date_source, f.charge_used_mah,
                  isfinite(f.r0_mohm) ? (char[32]){0} : "unknown", a->nwarnings,
                  a->nwarnings == 1 ? "" : "s");
         if (isfinite(f.r0_mohm)) {
             /* fill the R0 figure in place of the placeholder above */
-            snprintf(line, cap, "imported %s: %.16s (date from %s), %.0f mAh, R0 %.2f mOhm, %zu "
-                     "warning%s", name, when, f.date_source, f.charge_used_mah, f.r0_mohm,
-                     a->nwarnings, a->nwarnings == 1 ? "" : "s");
+            snprintf(line, cap,
+                     "imported %s: %.16s (date from %s), %.0f mAh, R0 %.2f mOhm, %zu "
+                     "warning%s",
+                     name, when, f.date_source, f.charge_used_mah, f.r0_mohm, a->nwarnings,
+                     a->nwarnings == 1 ? "" : "s");
         }
         out = OUT_STORED;
     }
@@ -235,8 +241,8 @@ cleanup:
 static void progress(size_t done, size_t total)
 {
     int width = 30, filled = (int)(width * done / (total ? total : 1));
-    fprintf(stderr, "\r[%.*s%*s] %zu/%zu", filled, "##############################",
-            width - filled, "", done, total);
+    fprintf(stderr, "\r[%.*s%*s] %zu/%zu", filled, "##############################", width - filled,
+            "", done, total);
     if (done == total)
         fprintf(stderr, "\r%*s\r", width + 24, "");
     fflush(stderr);
@@ -256,20 +262,29 @@ enum pb_code cmd_import(int argc, char **argv, struct app *app, struct pb_error 
         if (taken)
             continue;
         switch (c) {
-        case I_PACK: cli.pack = optarg; break;
-        case I_DB: cli.db = optarg; break;
-        case I_QUIET: cli.quiet = 1; break;
+        case I_PACK:
+            cli.pack = optarg;
+            break;
+        case I_DB:
+            cli.db = optarg;
+            break;
+        case I_QUIET:
+            cli.quiet = 1;
+            break;
         case I_DATE:
             if (isotime_parse(optarg, strlen(optarg), &cli.date_epoch_s, NULL) != 0)
-                return pb_error_set(err, PB_EUSAGE, "--date: expected an ISO 8601 date such as "
-                                    "2026-04-18 or 2026-04-18T07:30:00Z, got '%s'", optarg);
+                return pb_error_set(err, PB_EUSAGE,
+                                    "--date: expected an ISO 8601 date such as "
+                                    "2026-04-18 or 2026-04-18T07:30:00Z, got '%s'",
+                                    optarg);
             cli.have_date = 1;
             break;
         case 'h':
             fputs(usage_head, stdout);
             fputs(logopts_usage, stdout);
             return cmd_finish_stdout(err);
-        default: return cmd_bad_option("import", argc, argv, err);
+        default:
+            return cmd_bad_option("import", argc, argv, err);
         }
     }
     enum pb_code rc = logopts_finish(&cli.log, err);

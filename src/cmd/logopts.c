@@ -42,8 +42,10 @@ static int parse_char_choice(const char *opt, const char *v, char *out, struct p
     else if (strlen(v) == 1 && v[0] != '"' && v[0] != '\n')
         *out = v[0];
     else {
-        pb_error_set(err, PB_EUSAGE, "%s: expected comma, semicolon, tab, point or one character, "
-                     "got '%s'", opt, v);
+        pb_error_set(err, PB_EUSAGE,
+                     "%s: expected comma, semicolon, tab, point or one character, "
+                     "got '%s'",
+                     opt, v);
         return -1;
     }
     return 0;
@@ -53,10 +55,18 @@ int logopts_take(int c, const char *v, struct log_cli *cli, struct pb_error *err
 {
     int bad = 0;
     switch (c) {
-    case LO_FLOOR: bad = cmd_parse_double("--floor", v, 0.5, 5.0, &cli->an.floor_v, err); break;
-    case LO_COLUMNS: cli->read.columns = v; break;
-    case LO_MAP: cli->read.map = v; break;
-    case LO_DELIM: bad = parse_char_choice("--delimiter", v, &cli->read.delimiter, err); break;
+    case LO_FLOOR:
+        bad = cmd_parse_double("--floor", v, 0.5, 5.0, &cli->an.floor_v, err);
+        break;
+    case LO_COLUMNS:
+        cli->read.columns = v;
+        break;
+    case LO_MAP:
+        cli->read.map = v;
+        break;
+    case LO_DELIM:
+        bad = parse_char_choice("--delimiter", v, &cli->read.delimiter, err);
+        break;
     case LO_DECIMAL:
         bad = parse_char_choice("--decimal", v, &cli->read.decimal, err);
         if (!bad && cli->read.decimal != '.' && cli->read.decimal != ',') {
@@ -72,8 +82,10 @@ int logopts_take(int c, const char *v, struct log_cli *cli, struct pb_error *err
         else if (strcmp(v, "discharge-negative") == 0)
             cli->read.sign = SIGN_DISCHARGE_NEGATIVE;
         else {
-            pb_error_set(err, PB_EUSAGE, "--current-sign: expected auto, discharge-positive or "
-                         "discharge-negative, got '%s'", v);
+            pb_error_set(err, PB_EUSAGE,
+                         "--current-sign: expected auto, discharge-positive or "
+                         "discharge-negative, got '%s'",
+                         v);
             bad = 1;
         }
         break;
@@ -84,14 +96,24 @@ int logopts_take(int c, const char *v, struct log_cli *cli, struct pb_error *err
     case LO_ADC_OFFSET:
         bad = cmd_parse_double("--adc-offset", v, -1e9, 1e9, &cli->read.adc_offset_counts, err);
         break;
-    case LO_ADC_BITS: bad = cmd_parse_int("--adc-bits", v, 1, 32, &cli->adc_bits, err); break;
-    case LO_ADC_VREF: bad = cmd_parse_double("--adc-vref", v, 1e-3, 100, &cli->adc_vref, err); break;
+    case LO_ADC_BITS:
+        bad = cmd_parse_int("--adc-bits", v, 1, 32, &cli->adc_bits, err);
+        break;
+    case LO_ADC_VREF:
+        bad = cmd_parse_double("--adc-vref", v, 1e-3, 100, &cli->adc_vref, err);
+        break;
     case LO_SENSE_RATIO:
         bad = cmd_parse_double("--sense-ratio", v, 1e-6, 1e9, &cli->sense_ratio, err);
         break;
-    case LO_SENSE_OHM: bad = cmd_parse_double("--sense-ohm", v, 1e-9, 1e9, &cli->sense_ohm, err); break;
-    case LO_GAP: bad = cmd_parse_double("--gap", v, 1e-6, 1e9, &cli->an.gap_s, err); break;
-    case LO_REST: bad = cmd_parse_double("--rest-current", v, 0.0, 1e4, &cli->an.rest_a, err); break;
+    case LO_SENSE_OHM:
+        bad = cmd_parse_double("--sense-ohm", v, 1e-9, 1e9, &cli->sense_ohm, err);
+        break;
+    case LO_GAP:
+        bad = cmd_parse_double("--gap", v, 1e-6, 1e9, &cli->an.gap_s, err);
+        break;
+    case LO_REST:
+        bad = cmd_parse_double("--rest-current", v, 0.0, 1e4, &cli->an.rest_a, err);
+        break;
     case LO_FIT:
         if (strcmp(v, "robust") == 0)
             cli->an.plain_fit = 0;
@@ -102,7 +124,8 @@ int logopts_take(int c, const char *v, struct log_cli *cli, struct pb_error *err
             bad = 1;
         }
         break;
-    default: return 0;
+    default:
+        return 0;
     }
     return bad ? -1 : 1;
 }
@@ -113,7 +136,8 @@ enum pb_code logopts_finish(struct log_cli *cli, struct pb_error *err)
     if (!chain)
         return PB_OK;
     if (!cli->adc_bits || !(cli->adc_vref > 0) || !(cli->sense_ratio > 0) || !(cli->sense_ohm > 0))
-        return pb_error_set(err, PB_EUSAGE, "the sense chain needs all of --adc-bits, --adc-vref, "
+        return pb_error_set(err, PB_EUSAGE,
+                            "the sense chain needs all of --adc-bits, --adc-vref, "
                             "--sense-ratio and --sense-ohm");
     if (cli->read.have_adc)
         return pb_error_set(err, PB_EUSAGE, "give --adc-scale or the sense chain, not both");

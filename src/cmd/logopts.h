@@ -11,28 +11,42 @@
 #include "cmd.h"
 
 enum {
-    LO_FLOOR = 300, LO_COLUMNS, LO_MAP, LO_DELIM, LO_DECIMAL, LO_SIGN, LO_ADC_SCALE,
-    LO_ADC_OFFSET, LO_ADC_BITS, LO_ADC_VREF, LO_SENSE_RATIO, LO_SENSE_OHM, LO_GAP, LO_REST,
+    LO_FLOOR = 300,
+    LO_COLUMNS,
+    LO_MAP,
+    LO_DELIM,
+    LO_DECIMAL,
+    LO_SIGN,
+    LO_ADC_SCALE,
+    LO_ADC_OFFSET,
+    LO_ADC_BITS,
+    LO_ADC_VREF,
+    LO_SENSE_RATIO,
+    LO_SENSE_OHM,
+    LO_GAP,
+    LO_REST,
     LO_FIT,
 };
 
 /* Entries for a command's getopt_long table. */
 #define LOGOPTS_LONG                                                                               \
     {"floor", required_argument, NULL, LO_FLOOR},                                                  \
-    {"columns", required_argument, NULL, LO_COLUMNS},                                              \
-    {"map", required_argument, NULL, LO_MAP},                                                      \
-    {"delimiter", required_argument, NULL, LO_DELIM},                                              \
-    {"decimal", required_argument, NULL, LO_DECIMAL},                                              \
-    {"current-sign", required_argument, NULL, LO_SIGN},                                            \
-    {"adc-scale", required_argument, NULL, LO_ADC_SCALE},                                          \
-    {"adc-offset", required_argument, NULL, LO_ADC_OFFSET},                                        \
-    {"adc-bits", required_argument, NULL, LO_ADC_BITS},                                            \
-    {"adc-vref", required_argument, NULL, LO_ADC_VREF},                                            \
-    {"sense-ratio", required_argument, NULL, LO_SENSE_RATIO},                                      \
-    {"sense-ohm", required_argument, NULL, LO_SENSE_OHM},                                          \
-    {"gap", required_argument, NULL, LO_GAP},                                                      \
-    {"rest-current", required_argument, NULL, LO_REST},                                           \
-    {"fit", required_argument, NULL, LO_FIT}
+        {"columns", required_argument, NULL, LO_COLUMNS},                                          \
+        {"map", required_argument, NULL, LO_MAP},                                                  \
+        {"delimiter", required_argument, NULL, LO_DELIM},                                          \
+        {"decimal", required_argument, NULL, LO_DECIMAL},                                          \
+        {"current-sign", required_argument, NULL, LO_SIGN},                                        \
+        {"adc-scale", required_argument, NULL, LO_ADC_SCALE},                                      \
+        {"adc-offset", required_argument, NULL, LO_ADC_OFFSET},                                    \
+        {"adc-bits", required_argument, NULL, LO_ADC_BITS},                                        \
+        {"adc-vref", required_argument, NULL, LO_ADC_VREF},                                        \
+        {"sense-ratio", required_argument, NULL, LO_SENSE_RATIO},                                  \
+        {"sense-ohm", required_argument, NULL, LO_SENSE_OHM},                                      \
+        {"gap", required_argument, NULL, LO_GAP},                                                  \
+        {"rest-current", required_argument, NULL, LO_REST},                                        \
+    {                                                                                              \
+        "fit", required_argument, NULL, LO_FIT                                                     \
+    }
 
 /* The help text for those options. */
 extern const char logopts_usage[];

@@ -23,11 +23,16 @@ static const char usage[] =
 enum { P_CELLS = 256, P_PAR, P_CHEM, P_CAP, P_SINCE, P_NOTE, P_REASON, P_JSON, P_DB };
 
 static const struct option longopts[] = {
-    {"cells", required_argument, NULL, P_CELLS},   {"parallel", required_argument, NULL, P_PAR},
-    {"chemistry", required_argument, NULL, P_CHEM}, {"capacity", required_argument, NULL, P_CAP},
-    {"since", required_argument, NULL, P_SINCE},   {"note", required_argument, NULL, P_NOTE},
-    {"reason", required_argument, NULL, P_REASON}, {"json", no_argument, NULL, P_JSON},
-    {"db", required_argument, NULL, P_DB},         {"help", no_argument, NULL, 'h'},
+    {"cells", required_argument, NULL, P_CELLS},
+    {"parallel", required_argument, NULL, P_PAR},
+    {"chemistry", required_argument, NULL, P_CHEM},
+    {"capacity", required_argument, NULL, P_CAP},
+    {"since", required_argument, NULL, P_SINCE},
+    {"note", required_argument, NULL, P_NOTE},
+    {"reason", required_argument, NULL, P_REASON},
+    {"json", no_argument, NULL, P_JSON},
+    {"db", required_argument, NULL, P_DB},
+    {"help", no_argument, NULL, 'h'},
     {NULL, 0, NULL, 0},
 };
 
@@ -40,7 +45,8 @@ struct pack_cli {
 static enum pb_code cmd_add(struct store *st, struct pack_cli *cli, struct pb_error *err)
 {
     if (!cli->have_cells || !cli->have_chem || !cli->have_cap)
-        return pb_error_set(err, PB_EUSAGE, "pack add: --cells, --chemistry and --capacity are needed");
+        return pb_error_set(err, PB_EUSAGE,
+                            "pack add: --cells, --chemistry and --capacity are needed");
     enum pb_code rc = store_pack_add(st, &cli->rec, err);
     if (rc != PB_OK)
         return rc;
@@ -128,19 +134,33 @@ enum pb_code cmd_pack(int argc, char **argv, struct app *app, struct pb_error *e
             break;
         case P_SINCE:
             if (!valid_date(v))
-                return pb_error_set(err, PB_EUSAGE, "--since: expected a date like 2026-03-01, got '%s'", v);
+                return pb_error_set(err, PB_EUSAGE,
+                                    "--since: expected a date like 2026-03-01, got '%s'", v);
             snprintf(cli.rec.since, sizeof cli.rec.since, "%.10s", v);
             break;
-        case P_NOTE: snprintf(cli.rec.note, sizeof cli.rec.note, "%s", v); break;
-        case P_REASON: cli.reason = v; break;
-        case P_JSON: cli.json = 1; break;
-        case P_DB: cli.db = v; break;
-        case 'h': fputs(usage, stdout); return cmd_finish_stdout(err);
-        default: return cmd_bad_option("pack", argc, argv, err);
+        case P_NOTE:
+            snprintf(cli.rec.note, sizeof cli.rec.note, "%s", v);
+            break;
+        case P_REASON:
+            cli.reason = v;
+            break;
+        case P_JSON:
+            cli.json = 1;
+            break;
+        case P_DB:
+            cli.db = v;
+            break;
+        case 'h':
+            fputs(usage, stdout);
+            return cmd_finish_stdout(err);
+        default:
+            return cmd_bad_option("pack", argc, argv, err);
         }
     }
     if (optind >= argc)
-        return pb_error_set(err, PB_EUSAGE, "pack: expected add, list, show or retire (see 'packbook pack --help')");
+        return pb_error_set(
+            err, PB_EUSAGE,
+            "pack: expected add, list, show or retire (see 'packbook pack --help')");
     const char *sub = argv[optind];
     int needs_id = strcmp(sub, "list") != 0;
     if (needs_id) {
@@ -164,7 +184,8 @@ enum pb_code cmd_pack(int argc, char **argv, struct app *app, struct pb_error *e
     else if (strcmp(sub, "retire") == 0)
         run = cmd_retire;
     else
-        return pb_error_set(err, PB_EUSAGE, "pack: unknown action '%s' (add, list, show, retire)", sub);
+        return pb_error_set(err, PB_EUSAGE, "pack: unknown action '%s' (add, list, show, retire)",
+                            sub);
     struct store *st = NULL;
     enum pb_code rc = packview_open_store(cli.db, 1, &st, err);
     if (rc != PB_OK)

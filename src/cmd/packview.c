@@ -32,7 +32,8 @@ int ruleopts_take(int c, const char *v, struct health_rules *r, struct pb_error 
         r->retire_overdischarge = n;
         r->watch_overdischarge = 1;
         break;
-    default: return 0;
+    default:
+        return 0;
     }
     return bad ? -1 : 1;
 }
@@ -44,7 +45,8 @@ enum pb_code packview_open_store(const char *db, int create, struct store **out,
     if (db)
         snprintf(path, sizeof path, "%s", db);
     else if (store_default_path(path, sizeof path) != 0)
-        return pb_error_set(err, PB_EUSAGE, "no database path: set PACKBOOK_DB or HOME, or give --db");
+        return pb_error_set(err, PB_EUSAGE,
+                            "no database path: set PACKBOOK_DB or HOME, or give --db");
     return store_open(path, create, out, err);
 }
 

@@ -14,9 +14,11 @@ struct rules_cli {
 enum { RO_CAP = 400, RO_R0, RO_SPREAD, RO_OVER };
 #define RULEOPTS_LONG                                                                              \
     {"retire-capacity", required_argument, NULL, RO_CAP},                                          \
-    {"retire-r0-ratio", required_argument, NULL, RO_R0},                                           \
-    {"retire-spread", required_argument, NULL, RO_SPREAD},                                         \
-    {"retire-overdischarge", required_argument, NULL, RO_OVER}
+        {"retire-r0-ratio", required_argument, NULL, RO_R0},                                       \
+        {"retire-spread", required_argument, NULL, RO_SPREAD},                                     \
+    {                                                                                              \
+        "retire-overdischarge", required_argument, NULL, RO_OVER                                   \
+    }
 
 extern const char ruleopts_usage[];
 

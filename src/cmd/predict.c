@@ -48,22 +48,51 @@ static const char usage_head[] =
     "  --cells N --chemistry C --capacity MAH (for --log)\n";
 
 enum {
-    R_LOG = 256, R_SOC, R_OCV, R_POWER, R_CURRENT, R_PROFILE, R_RESERVE, R_TEMP, R_TREF, R_EA,
-    R_PEUK, R_PEUKH, R_RUNS, R_SEED, R_FOR, R_DB, R_JSON, R_CELLS, R_CHEM, R_CAP,
+    R_LOG = 256,
+    R_SOC,
+    R_OCV,
+    R_POWER,
+    R_CURRENT,
+    R_PROFILE,
+    R_RESERVE,
+    R_TEMP,
+    R_TREF,
+    R_EA,
+    R_PEUK,
+    R_PEUKH,
+    R_RUNS,
+    R_SEED,
+    R_FOR,
+    R_DB,
+    R_JSON,
+    R_CELLS,
+    R_CHEM,
+    R_CAP,
 };
 
 static const struct option longopts[] = {
-    {"log", required_argument, NULL, R_LOG},         {"soc", required_argument, NULL, R_SOC},
-    {"ocv", required_argument, NULL, R_OCV},         {"power", required_argument, NULL, R_POWER},
-    {"current", required_argument, NULL, R_CURRENT}, {"profile", required_argument, NULL, R_PROFILE},
-    {"reserve", required_argument, NULL, R_RESERVE}, {"temp", required_argument, NULL, R_TEMP},
-    {"tref", required_argument, NULL, R_TREF},       {"ea", required_argument, NULL, R_EA},
-    {"peukert", required_argument, NULL, R_PEUK},    {"peukert-hours", required_argument, NULL, R_PEUKH},
-    {"runs", required_argument, NULL, R_RUNS},       {"seed", required_argument, NULL, R_SEED},
-    {"for", required_argument, NULL, R_FOR},         {"db", required_argument, NULL, R_DB},
-    {"json", no_argument, NULL, R_JSON},             {"cells", required_argument, NULL, R_CELLS},
-    {"chemistry", required_argument, NULL, R_CHEM},  {"capacity", required_argument, NULL, R_CAP},
-    {"help", no_argument, NULL, 'h'},                LOGOPTS_LONG,
+    {"log", required_argument, NULL, R_LOG},
+    {"soc", required_argument, NULL, R_SOC},
+    {"ocv", required_argument, NULL, R_OCV},
+    {"power", required_argument, NULL, R_POWER},
+    {"current", required_argument, NULL, R_CURRENT},
+    {"profile", required_argument, NULL, R_PROFILE},
+    {"reserve", required_argument, NULL, R_RESERVE},
+    {"temp", required_argument, NULL, R_TEMP},
+    {"tref", required_argument, NULL, R_TREF},
+    {"ea", required_argument, NULL, R_EA},
+    {"peukert", required_argument, NULL, R_PEUK},
+    {"peukert-hours", required_argument, NULL, R_PEUKH},
+    {"runs", required_argument, NULL, R_RUNS},
+    {"seed", required_argument, NULL, R_SEED},
+    {"for", required_argument, NULL, R_FOR},
+    {"db", required_argument, NULL, R_DB},
+    {"json", no_argument, NULL, R_JSON},
+    {"cells", required_argument, NULL, R_CELLS},
+    {"chemistry", required_argument, NULL, R_CHEM},
+    {"capacity", required_argument, NULL, R_CAP},
+    {"help", no_argument, NULL, 'h'},
+    LOGOPTS_LONG,
     {NULL, 0, NULL, 0},
 };
 
@@ -137,7 +166,8 @@ static enum pb_code inputs_from_history(const struct pack_view *v, struct predic
     in->tau_s = median_sd(tau, m, &sd);
     in->power_w = median_sd(pw, m, &in->power_sd_w);
     if (!isfinite(in->r0_mohm))
-        return pb_error_set(err, PB_EUSAGE, "pack '%s' has no flight with a known resistance: "
+        return pb_error_set(err, PB_EUSAGE,
+                            "pack '%s' has no flight with a known resistance: "
                             "nothing to predict from (import flights with load changes)",
                             v->pack.label);
     return PB_OK;
@@ -213,11 +243,13 @@ enum pb_code predict_view(const struct pack_view *v, double power_w, struct pred
     struct predict_opts o;
     struct predict_spread sp;
     setup(in, NULL, &p, &o, &sp);
-    struct predict_load l = {.kind = LOAD_POWER, .power_w = isfinite(power_w) ? power_w : in->power_w};
+    struct predict_load l = {.kind = LOAD_POWER,
+                             .power_w = isfinite(power_w) ? power_w : in->power_w};
     sp.load_sd = isfinite(power_w) ? 0.0 : (isfinite(in->power_sd_w) ? in->power_sd_w : 0.0);
     sp.runs = 200;
     if (!isfinite(l.power_w))
-        return pb_error_set(err, PB_EUSAGE, "pack '%s': no cruise power in its history: give --power",
+        return pb_error_set(err, PB_EUSAGE,
+                            "pack '%s': no cruise power in its history: give --power",
                             v->pack.label);
     if (predict_monte_carlo(&p, &l, &o, &sp, mc) != 0)
         return pb_error_set(err, PB_ENUMERIC, "pack '%s': the simulation failed", v->pack.label);
@@ -291,45 +323,82 @@ enum pb_code cmd_predict(int argc, char **argv, struct app *app, struct pb_error
         if (taken)
             continue;
         switch (c) {
-        case R_LOG: cli.log_path = v; break;
-        case R_SOC: bad = cmd_parse_double("--soc", v, 0, 100, &cli.soc, err); break;
-        case R_OCV: bad = cmd_parse_double("--ocv", v, 0.5, 200, &cli.ocv_v, err); break;
-        case R_POWER: bad = cmd_parse_double("--power", v, 0, 1e6, &cli.power_w, err); break;
-        case R_CURRENT: bad = cmd_parse_double("--current", v, 0, 1e5, &cli.current_a, err); break;
+        case R_LOG:
+            cli.log_path = v;
+            break;
+        case R_SOC:
+            bad = cmd_parse_double("--soc", v, 0, 100, &cli.soc, err);
+            break;
+        case R_OCV:
+            bad = cmd_parse_double("--ocv", v, 0.5, 200, &cli.ocv_v, err);
+            break;
+        case R_POWER:
+            bad = cmd_parse_double("--power", v, 0, 1e6, &cli.power_w, err);
+            break;
+        case R_CURRENT:
+            bad = cmd_parse_double("--current", v, 0, 1e5, &cli.current_a, err);
+            break;
         case R_PROFILE:
             if (cli.nprofiles == MAX_PROFILES)
                 return pb_error_set(err, PB_EUSAGE, "--profile: at most %d", MAX_PROFILES);
             cli.profiles[cli.nprofiles++] = v;
             break;
-        case R_RESERVE: bad = cmd_parse_double("--reserve", v, 0, 99, &cli.reserve, err); break;
-        case R_TEMP: bad = cmd_parse_double("--temp", v, -60, 90, &cli.temp_c, err); break;
-        case R_TREF: bad = cmd_parse_double("--tref", v, -60, 90, &cli.tref_c, err); break;
-        case R_EA: bad = cmd_parse_double("--ea", v, 0, 500000, &cli.ea, err); break;
-        case R_PEUK: bad = cmd_parse_double("--peukert", v, 1.0, 2.0, &cli.peuk, err); break;
-        case R_PEUKH: bad = cmd_parse_double("--peukert-hours", v, 0.01, 1000, &cli.peukh, err); break;
-        case R_RUNS: bad = cmd_parse_int("--runs", v, 10, 100000, &cli.runs, err); break;
+        case R_RESERVE:
+            bad = cmd_parse_double("--reserve", v, 0, 99, &cli.reserve, err);
+            break;
+        case R_TEMP:
+            bad = cmd_parse_double("--temp", v, -60, 90, &cli.temp_c, err);
+            break;
+        case R_TREF:
+            bad = cmd_parse_double("--tref", v, -60, 90, &cli.tref_c, err);
+            break;
+        case R_EA:
+            bad = cmd_parse_double("--ea", v, 0, 500000, &cli.ea, err);
+            break;
+        case R_PEUK:
+            bad = cmd_parse_double("--peukert", v, 1.0, 2.0, &cli.peuk, err);
+            break;
+        case R_PEUKH:
+            bad = cmd_parse_double("--peukert-hours", v, 0.01, 1000, &cli.peukh, err);
+            break;
+        case R_RUNS:
+            bad = cmd_parse_int("--runs", v, 10, 100000, &cli.runs, err);
+            break;
         case R_SEED:
             bad = cmd_parse_int("--seed", v, 0, 2000000000, &n, err);
             cli.seed = (unsigned long)n;
             break;
-        case R_FOR: bad = cmd_parse_double("--for", v, 0.001, 1e6, &cli.for_s, err); break;
-        case R_DB: cli.db = v; break;
-        case R_JSON: cli.json = 1; break;
-        case R_CELLS: bad = cmd_parse_int("--cells", v, 1, PB_MAX_CELLS, &cli.log.an.cells, err); break;
+        case R_FOR:
+            bad = cmd_parse_double("--for", v, 0.001, 1e6, &cli.for_s, err);
+            break;
+        case R_DB:
+            cli.db = v;
+            break;
+        case R_JSON:
+            cli.json = 1;
+            break;
+        case R_CELLS:
+            bad = cmd_parse_int("--cells", v, 1, PB_MAX_CELLS, &cli.log.an.cells, err);
+            break;
         case R_CHEM: {
             const struct chem_info *ch = ocv_chem_by_name(v);
             if (!ch)
-                return pb_error_set(err, PB_EUSAGE, "--chemistry: expected lipo, lihv, nmc or lfp, "
-                                    "got '%s'", v);
+                return pb_error_set(err, PB_EUSAGE,
+                                    "--chemistry: expected lipo, lihv, nmc or lfp, "
+                                    "got '%s'",
+                                    v);
             cli.log.an.chemistry = (int)ch->id;
             break;
         }
-        case R_CAP: bad = cmd_parse_double("--capacity", v, 1, 1e7, &cli.log.an.capacity_mah, err); break;
+        case R_CAP:
+            bad = cmd_parse_double("--capacity", v, 1, 1e7, &cli.log.an.capacity_mah, err);
+            break;
         case 'h':
             fputs(usage_head, stdout);
             fputs(logopts_usage, stdout);
             return cmd_finish_stdout(err);
-        default: return cmd_bad_option("predict", argc, argv, err);
+        default:
+            return cmd_bad_option("predict", argc, argv, err);
         }
         if (bad)
             return PB_EUSAGE;
@@ -380,7 +449,8 @@ enum pb_code cmd_predict(int argc, char **argv, struct app *app, struct pb_error
         }
         inputs_from_analysis(a, cli.log.an.capacity_mah, cli.log_path, &in);
         if (!isfinite(in.capacity_mah)) {
-            rc = pb_error_set(err, PB_EUSAGE, "%s: no capacity estimate: give --capacity", cli.log_path);
+            rc = pb_error_set(err, PB_EUSAGE, "%s: no capacity estimate: give --capacity",
+                              cli.log_path);
             goto cleanup;
         }
     }

@@ -26,9 +26,12 @@ static const char compare_usage[] =
 enum { T_BY = 256, T_HORIZON, T_FIT, T_JSON, T_DB };
 
 static const struct option longopts[] = {
-    {"by", required_argument, NULL, T_BY},   {"horizon", required_argument, NULL, T_HORIZON},
-    {"fit", required_argument, NULL, T_FIT}, {"json", no_argument, NULL, T_JSON},
-    {"db", required_argument, NULL, T_DB},   {"help", no_argument, NULL, 'h'},
+    {"by", required_argument, NULL, T_BY},
+    {"horizon", required_argument, NULL, T_HORIZON},
+    {"fit", required_argument, NULL, T_FIT},
+    {"json", no_argument, NULL, T_JSON},
+    {"db", required_argument, NULL, T_DB},
+    {"help", no_argument, NULL, 'h'},
     RULEOPTS_LONG,
     {NULL, 0, NULL, 0},
 };
@@ -74,17 +77,23 @@ static enum pb_code parse(const char *verb, const char *usage, int argc, char **
             break;
         case T_FIT:
             if (strcmp(optarg, "robust") && strcmp(optarg, "ols"))
-                return pb_error_set(err, PB_EUSAGE, "--fit: expected robust or ols, got '%s'", optarg);
+                return pb_error_set(err, PB_EUSAGE, "--fit: expected robust or ols, got '%s'",
+                                    optarg);
             cli->plain = strcmp(optarg, "ols") == 0;
             break;
-        case T_JSON: cli->json = 1; break;
-        case T_DB: cli->db = optarg; break;
+        case T_JSON:
+            cli->json = 1;
+            break;
+        case T_DB:
+            cli->db = optarg;
+            break;
         case 'h':
             fputs(usage, stdout);
             fputs(ruleopts_usage, stdout);
             *done = 1;
             return cmd_finish_stdout(err);
-        default: return cmd_bad_option(verb, argc, argv, err);
+        default:
+            return cmd_bad_option(verb, argc, argv, err);
         }
     }
     return PB_OK;
@@ -107,8 +116,8 @@ static enum pb_code load_named(int argc, char **argv, const struct trend_cli *cl
         rc = store_pack_get(*st, argv[k], &p, err);
         if (rc != PB_OK)
             return rc;
-        rc = packview_load(*st, &p, &cli->rules, cli->by, cli->plain, cli->horizon,
-                           &(*views)[*nv], err);
+        rc = packview_load(*st, &p, &cli->rules, cli->by, cli->plain, cli->horizon, &(*views)[*nv],
+                           err);
         if (rc != PB_OK)
             return rc;
         (*nv)++;
@@ -121,13 +130,15 @@ static enum pb_code run(int compare, int argc, char **argv, struct pb_error *err
     const char *verb = compare ? "compare" : "trend";
     struct trend_cli cli = {0};
     int done = 0;
-    enum pb_code rc = parse(verb, compare ? compare_usage : trend_usage, argc, argv, &cli, &done, err);
+    enum pb_code rc =
+        parse(verb, compare ? compare_usage : trend_usage, argc, argv, &cli, &done, err);
     if (rc != PB_OK || done)
         return rc;
     int have = argc - optind;
     if (compare ? have < 2 : have != 1)
-        return pb_error_set(err, PB_EUSAGE, compare ? "compare: give two or more pack IDs"
-                                                    : "trend: give one pack ID");
+        return pb_error_set(err, PB_EUSAGE,
+                            compare ? "compare: give two or more pack IDs"
+                                    : "trend: give one pack ID");
     struct store *st = NULL;
     struct pack_view *views = NULL;
     size_t nv = 0;
@@ -135,7 +146,8 @@ static enum pb_code run(int compare, int argc, char **argv, struct pb_error *err
     if (rc == PB_OK) {
         int w = compare ? report_compare(stdout, views, nv, cli.json)
                         : report_trend(stdout, &views[0], cli.by, cli.horizon, cli.json);
-        rc = w != 0 ? pb_error_set(err, PB_EOUTPUT, "cannot write the output") : cmd_finish_stdout(err);
+        rc = w != 0 ? pb_error_set(err, PB_EOUTPUT, "cannot write the output")
+                    : cmd_finish_stdout(err);
     }
     for (size_t k = 0; k < nv; k++)
         pack_view_release(&views[k]);

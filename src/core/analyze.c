@@ -15,10 +15,10 @@
 #define REST_MIN_START_S 2.0   /* rest at the start long enough to read OCV */
 #define REST_MIN_END_S 60.0    /* rest at the end: polarisation must have relaxed */
 #define TAU_GRID 10
-#define MIN_FIT_SAMPLES 8     /* fewer samples than this: no fits */
-#define TAU_MAX_S 300.0       /* polarisation slower than this is left to the OCV drift */
-#define SEARCH_ROWS 200000    /* rows the tau searches look at (evenly spread) */
-#define BIC_MARGIN 10.0        /* the RC model must beat the static one by this */
+#define MIN_FIT_SAMPLES 8  /* fewer samples than this: no fits */
+#define TAU_MAX_S 300.0    /* polarisation slower than this is left to the OCV drift */
+#define SEARCH_ROWS 200000 /* rows the tau searches look at (evenly spread) */
+#define BIC_MARGIN 10.0    /* the RC model must beat the static one by this */
 
 struct analysis *analysis_new(void)
 {
@@ -66,19 +66,19 @@ static struct estimate none(void)
  * and the normalised charge u = 2 q / q_end - 1 of every sample. */
 struct model {
     const struct series *s;
-    const double *y_v;  /* pack or one cell's voltage */
+    const double *y_v; /* pack or one cell's voltage */
     double v_ref;
-    int degree;         /* OCV polynomial degree */
-    const double *u;    /* normalised charge per sample */
+    int degree;      /* OCV polynomial degree */
+    const double *u; /* normalised charge per sample */
     /* RC branch state, reset at k == 0 */
-    double rc;          /* first-order filtered current */
+    double rc; /* first-order filtered current */
     double tau_s;
     double a_dt, a_val; /* last interval and its exp(-dt/tau), reused while dt repeats */
     double dt_med;
-    double dt_tol;      /* ARX: rows whose interval is within this of the median */
+    double dt_tol; /* ARX: rows whose interval is within this of the median */
     /* searches use every stride-th row; the RC state still advances on all */
     size_t stride;
-    size_t *work;       /* rows visited by every fit, summed (NULL: not counted) */
+    size_t *work; /* rows visited by every fit, summed (NULL: not counted) */
 };
 
 /* Row j of a fit that needs no running state is sample j * stride. */
@@ -330,14 +330,20 @@ static void reader_warnings(struct analysis *a, const struct logread_stats *st, 
         const char *code;
         const char *what;
     } evs[] = {
-        {&st->bad_number, "dropped_bad_number", "sample(s) dropped: text where a number was expected"},
-        {&st->nonfinite, "dropped_nonfinite", "sample(s) dropped: NaN, infinity or a number out of range"},
+        {&st->bad_number, "dropped_bad_number",
+         "sample(s) dropped: text where a number was expected"},
+        {&st->nonfinite, "dropped_nonfinite",
+         "sample(s) dropped: NaN, infinity or a number out of range"},
         {&st->empty_field, "dropped_empty_field", "sample(s) dropped: a required field is empty"},
-        {&st->short_row, "dropped_short_row", "sample(s) dropped: fewer fields than the columns need"},
-        {&st->duplicate_time, "dropped_duplicate_time", "sample(s) dropped: same time as the previous sample"},
+        {&st->short_row, "dropped_short_row",
+         "sample(s) dropped: fewer fields than the columns need"},
+        {&st->duplicate_time, "dropped_duplicate_time",
+         "sample(s) dropped: same time as the previous sample"},
         {&st->long_row, "extra_fields", "line(s) with more fields than the header: extras ignored"},
-        {&st->temp_repaired, "temperature_repaired", "unreadable temperature(s) replaced by the previous reading"},
-        {&st->duplicate_role, "duplicate_column", "column(s) repeat a quantity already mapped: ignored"},
+        {&st->temp_repaired, "temperature_repaired",
+         "unreadable temperature(s) replaced by the previous reading"},
+        {&st->duplicate_role, "duplicate_column",
+         "column(s) repeat a quantity already mapped: ignored"},
     };
     for (size_t k = 0; k < sizeof evs / sizeof *evs; k++) {
         const struct logread_event *ev = evs[k].ev;
@@ -346,8 +352,8 @@ static void reader_warnings(struct analysis *a, const struct logread_stats *st, 
                  ev->first_line, ev->first_column);
     }
     if (st->truncated_last_line)
-        warn(a, "truncated_last_line", "the last line of %s is cut short (no final newline); it was dropped",
-             name);
+        warn(a, "truncated_last_line",
+             "the last line of %s is cut short (no final newline); it was dropped", name);
     if (st->sign_flipped)
         warn(a, "current_sign_flipped",
              "current logged negative while discharging: sign flipped (set --current-sign to "
@@ -388,14 +394,15 @@ static void infer_cells(struct analysis *a, const struct series *s, const struct
     if (best == 0) {
         warn(a, "cells_unknown",
              "no %s cell count fits the voltages (%.2f..%.2f V): give --cells; per-cell figures "
-             "and SoC are left out", c->label, a->voltage_min_v, a->voltage_max_v);
+             "and SoC are left out",
+             c->label, a->voltage_min_v, a->voltage_max_v);
     } else if (a->n_cells_alternatives > 1) {
         char alts[64] = "";
         size_t used = 0;
         for (int k = 0; k < a->n_cells_alternatives; k++)
             if (a->cells_alternatives[k] != best)
-                used += (size_t)snprintf(alts + used, sizeof alts - used, "%s%dS",
-                                         used ? ", " : "", a->cells_alternatives[k]);
+                used += (size_t)snprintf(alts + used, sizeof alts - used, "%s%dS", used ? ", " : "",
+                                         a->cells_alternatives[k]);
         warn(a, "cells_ambiguous",
              "cell count inferred as %dS but %s also fit the voltages: give --cells to be sure",
              best, alts);
@@ -482,8 +489,8 @@ static void floor_stats(struct analysis *a, const struct series *s)
     if (a->voltage_min_v < floor_pack)
         warn(a, "below_floor",
              "loaded voltage went below the %.2f V/cell floor (lowest %.3f V/cell, %.1f s below): "
-             "check the pack for damage before charging", a->floor_v, a->cell_min_loaded_v,
-             a->time_below_floor_s);
+             "check the pack for damage before charging",
+             a->floor_v, a->cell_min_loaded_v, a->time_below_floor_s);
 }
 
 static const char *rest_state(const struct chem_info *c, double ocv_cell_v)
@@ -532,8 +539,12 @@ static enum pb_code fit_pack(struct analysis *a, const struct series *s, const d
                              const struct analyze_opts *o, struct pb_error *err,
                              struct fit_result *chosen, struct model *chosen_model, int *chosen_p)
 {
-    struct model m = {.s = s, .y_v = s->v_v, .v_ref = s->v_v[0], .u = u,
-                      .dt_med = a->median_dt_s, .degree = a->ocv_degree,
+    struct model m = {.s = s,
+                      .y_v = s->v_v,
+                      .v_ref = s->v_v[0],
+                      .u = u,
+                      .dt_med = a->median_dt_s,
+                      .degree = a->ocv_degree,
                       .work = &a->fit_rows_visited};
     int p = m.degree + 2;
     struct fit_result fs;
@@ -559,8 +570,7 @@ static enum pb_code fit_pack(struct analysis *a, const struct series *s, const d
     double tau_arx = NAN;
     enum pb_code arc = fit_linear(rows_of(&ma), 5, row_arx, &ma, !o->plain_fit, &fa, NULL);
     a->fit_rows_visited += fa.rows_visited;
-    if (arc == PB_OK &&
-        fa.rank == 5) {
+    if (arc == PB_OK && fa.rank == 5) {
         double a1 = fa.beta[1];
         if (a1 > 0.0 && a1 < 1.0)
             tau_arx = -a->median_dt_s / log(a1);
@@ -574,8 +584,7 @@ static enum pb_code fit_pack(struct analysis *a, const struct series *s, const d
     mr.tau_s = tau;
     mr.stride = 1;
     struct fit_result fr;
-    if (fit_model(&mr, row_rc, p + 1, !o->plain_fit, &fr, NULL) != PB_OK ||
-        fr.rank < p + 1)
+    if (fit_model(&mr, row_rc, p + 1, !o->plain_fit, &fr, NULL) != PB_OK || fr.rank < p + 1)
         return PB_OK;
     double r1 = fr.beta[p], r1_ci = fit_ci95(&fr, p);
     double r0 = fr.beta[p - 1];
@@ -647,8 +656,12 @@ static void per_cell(struct analysis *a, const struct series *s, const double *u
         d->r0_mohm = none();
         d->voltage_rest_v = NAN;
         if (s->i_a && identifiable) {
-            struct model m = {.s = s, .y_v = s->cell_v[c], .v_ref = s->cell_v[c][0], .u = u,
-                              .degree = a->ocv_degree, .work = &a->fit_rows_visited};
+            struct model m = {.s = s,
+                              .y_v = s->cell_v[c],
+                              .v_ref = s->cell_v[c][0],
+                              .u = u,
+                              .degree = a->ocv_degree,
+                              .work = &a->fit_rows_visited};
             int is_rc = isfinite(a->tau_s.value);
             int p = m.degree + 2 + is_rc;
             int jr = m.degree + 1;
@@ -791,13 +804,14 @@ enum pb_code analyze_series(const struct series *s, const struct logread_stats *
         if (!identifiable) {
             warn(a, "r0_not_identifiable",
                  "the current barely varies (sd %.3g A): resistance cannot be told apart from "
-                 "the falling open-circuit voltage, so it is not reported", sd);
+                 "the falling open-circuit voltage, so it is not reported",
+                 sd);
             a->r_static_mohm = none();
             a->r1_mohm = a->tau_s = none();
         } else if (f.rank < p || !(fabs(r0_ci) < fabs(r0))) {
             warn(a, "r0_uncertain",
-                 "the resistance fit is too uncertain to report (%.3g +/- %.3g mOhm)",
-                 1000.0 * r0, 1000.0 * r0_ci);
+                 "the resistance fit is too uncertain to report (%.3g +/- %.3g mOhm)", 1000.0 * r0,
+                 1000.0 * r0_ci);
             identifiable = 0;
             a->r_static_mohm = a->r1_mohm = a->tau_s = none();
         } else {
@@ -805,7 +819,8 @@ enum pb_code analyze_series(const struct series *s, const struct logread_stats *
             a->r0_method = is_rc ? "rc" : "static";
             r_ohm = r0;
             if (r0 < 0.0)
-                warn(a, "r0_negative", "the fitted resistance is negative: the log's voltage and "
+                warn(a, "r0_negative",
+                     "the fitted resistance is negative: the log's voltage and "
                      "current may be out of step or the current sign wrong");
         }
         for (int j = 0; j <= m.degree && j < OCV_POLY_MAX; j++)
@@ -817,8 +832,12 @@ enum pb_code analyze_series(const struct series *s, const struct logread_stats *
         if (!identifiable) {
             /* without a resistance, the R column would trade off against the
              * constant term: the OCV ends come from the loaded voltage trend */
-            struct model mv = {.s = s, .y_v = s->v_v, .v_ref = s->v_v[0], .u = u,
-                               .degree = a->ocv_degree, .work = &a->fit_rows_visited};
+            struct model mv = {.s = s,
+                               .y_v = s->v_v,
+                               .v_ref = s->v_v[0],
+                               .u = u,
+                               .degree = a->ocv_degree,
+                               .work = &a->fit_rows_visited};
             struct fit_result fv;
             if (fit_model(&mv, row_ocv_only, mv.degree + 1, !o->plain_fit, &fv, NULL) == PB_OK) {
                 ocv_at(&fv, mv.degree, -1.0, mv.v_ref, &a->ocv_start_v, &se0);
@@ -843,7 +862,8 @@ enum pb_code analyze_series(const struct series *s, const struct logread_stats *
             /* a charging log works too: charge and SoC swing both negative */
             double dsoc = a->soc_start_pct.value - a->soc_end_pct.value;
             if (cl0 || cl1) {
-                warn(a, "capacity_not_estimable", "capacity needs SoC inside the table at both ends");
+                warn(a, "capacity_not_estimable",
+                     "capacity needs SoC inside the table at both ends");
             } else if (fabs(dsoc) < MIN_SOC_SWING_PCT || (dsoc > 0) != (a->charge_used_mah > 0)) {
                 warn(a, "capacity_not_estimable",
                      "capacity needs a SoC swing of at least %.0f points in the direction of the "
@@ -853,12 +873,13 @@ enum pb_code analyze_series(const struct series *s, const struct logread_stats *
                 double cap = a->charge_used_mah / (dsoc / 100.0);
                 double rel = hypot(a->soc_start_pct.ci95, a->soc_end_pct.ci95) / dsoc;
                 double q_rel = a->charge_used_mah != 0.0
-                                   ? fabs(a->cc.gap_charge_mah) / a->charge_used_mah : 0.0;
+                                   ? fabs(a->cc.gap_charge_mah) / a->charge_used_mah
+                                   : 0.0;
                 a->capacity_mah = (struct estimate){cap, cap * hypot(rel, q_rel)};
                 if (o->capacity_mah > 0.0 && cap < 0.8 * o->capacity_mah)
                     warn(a, "capacity_low",
-                         "estimated capacity %.0f mAh is %.0f %% of the rated %.0f mAh",
-                         cap, 100.0 * cap / o->capacity_mah, o->capacity_mah);
+                         "estimated capacity %.0f mAh is %.0f %% of the rated %.0f mAh", cap,
+                         100.0 * cap / o->capacity_mah, o->capacity_mah);
             }
         }
     }
@@ -889,7 +910,8 @@ enum pb_code analyze_series(const struct series *s, const struct logread_stats *
         if (worst > 0.03)
             warn(a, "cells_sum_mismatch",
                  "the cell voltages differ from the pack voltage by up to %.1f %%: check the "
-                 "balance lead and the column mapping", 100.0 * worst);
+                 "balance lead and the column mapping",
+                 100.0 * worst);
     }
 cleanup:
     free(u);

@@ -20,13 +20,13 @@
 #define OCV_POLY_MAX 4 /* OCV drift polynomial: up to cubic (4 coefficients) */
 
 struct analyze_opts {
-    int cells;            /* series cells; 0 = from cell columns or inferred */
-    int chemistry;        /* enum chemistry, or -1 = not given (LiPo assumed) */
-    double capacity_mah;  /* rated capacity; 0 = not given */
-    double floor_v;       /* loaded per-cell floor; 0 = chemistry default */
-    double gap_s;         /* gap threshold; 0 = max(1 s, 5 x median interval) */
-    double rest_a;        /* rest current threshold; 0 = max(0.05 A, 1 % of peak) */
-    int plain_fit;        /* 1 = ordinary least squares, no reweighting */
+    int cells;           /* series cells; 0 = from cell columns or inferred */
+    int chemistry;       /* enum chemistry, or -1 = not given (LiPo assumed) */
+    double capacity_mah; /* rated capacity; 0 = not given */
+    double floor_v;      /* loaded per-cell floor; 0 = chemistry default */
+    double gap_s;        /* gap threshold; 0 = max(1 s, 5 x median interval) */
+    double rest_a;       /* rest current threshold; 0 = max(0.05 A, 1 % of peak) */
+    int plain_fit;       /* 1 = ordinary least squares, no reweighting */
 };
 
 /* A value with the half-width of its 95 % interval (NAN when unknown). */
@@ -41,9 +41,9 @@ struct pb_warning {
 };
 
 struct cell_detail {
-    int index;               /* 1-based */
+    int index; /* 1-based */
     double voltage_min_v;
-    double voltage_rest_v;   /* mean at rest, NAN without rest samples */
+    double voltage_rest_v; /* mean at rest, NAN without rest samples */
     struct estimate r0_mohm;
 };
 
@@ -55,22 +55,22 @@ struct analysis {
 
     const struct chem_info *chem;
     int chem_assumed;
-    int cells;               /* 0 = unknown */
-    const char *cells_source;/* "given", "cell columns", "inferred" */
+    int cells;                /* 0 = unknown */
+    const char *cells_source; /* "given", "cell columns", "inferred" */
     int cells_alternatives[4];
     int n_cells_alternatives;
 
     int has_current;
     struct coulomb_result cc;
-    double charge_used_mah;  /* net: discharged minus regenerated */
+    double charge_used_mah; /* net: discharged minus regenerated */
     double energy_used_wh;
     double current_max_a;
-    double current_mean_a;   /* net charge over duration */
+    double current_mean_a; /* net charge over duration */
     double power_max_w;
     double power_mean_w;
-    double power_cruise_w;  /* mean power while loaded (|I| above the rest threshold) */
+    double power_cruise_w; /* mean power while loaded (|I| above the rest threshold) */
     double voltage_min_v, voltage_max_v, voltage_start_v, voltage_end_v;
-    double cell_min_loaded_v;/* voltage_min_v / cells */
+    double cell_min_loaded_v; /* voltage_min_v / cells */
     double floor_v;
     double time_below_floor_s;
     double c_rate_max, c_rate_mean;
@@ -84,13 +84,13 @@ struct analysis {
     struct estimate r_static_mohm; /* from the model without RC branch */
     struct estimate r1_mohm;       /* RC branch, when fitted */
     struct estimate tau_s;
-    const char *r0_method;         /* "rc", "static" or NULL */
+    const char *r0_method; /* "rc", "static" or NULL */
     double fit_sigma_mv;
     size_t fit_downweighted;
-    int fit_iterations;            /* reweighting passes of the chosen fit */
-    size_t fit_rows_visited;       /* rows visited by all fits: the work, for bounds tests */
-    int ocv_degree;                /* polynomial degree of the OCV drift */
-    double ocv_coef_v[OCV_POLY_MAX];/* OCV(u) = sum c_j u^j, u = 2 q/q_end - 1 */
+    int fit_iterations;              /* reweighting passes of the chosen fit */
+    size_t fit_rows_visited;         /* rows visited by all fits: the work, for bounds tests */
+    int ocv_degree;                  /* polynomial degree of the OCV drift */
+    double ocv_coef_v[OCV_POLY_MAX]; /* OCV(u) = sum c_j u^j, u = 2 q/q_end - 1 */
     double q_end_ah;
 
     double ocv_start_v, ocv_end_v;
@@ -105,7 +105,7 @@ struct analysis {
     int ncells_detail;
     struct cell_detail cell[PB_MAX_CELLS];
     double spread_rest_mv, spread_load_mv;
-    int weakest_cell;              /* 1-based, 0 = none */
+    int weakest_cell; /* 1-based, 0 = none */
 
     size_t nwarnings, capwarnings;
     struct pb_warning *warnings;
@@ -120,7 +120,7 @@ void analysis_free(struct analysis *a);
 /* Analyses s (read with stats st, which supplies the repair counts and
  * their places for the warnings; name is the log's name for them). */
 enum pb_code analyze_series(const struct series *s, const struct logread_stats *st,
-                            const char *name, const struct analyze_opts *opts,
-                            struct analysis *out, struct pb_error *err);
+                            const char *name, const struct analyze_opts *opts, struct analysis *out,
+                            struct pb_error *err);
 
 #endif

@@ -45,7 +45,9 @@ static const struct unit_entry units[] = {
     {"cnt", COL_CURRENT_RAW, 1.0, 0.0, 0},
     {"c", COL_TEMP, 1.0, 0.0, 0},
     {"degc", COL_TEMP, 1.0, 0.0, 0},
-    {"\xc2\xb0" "c", COL_TEMP, 1.0, 0.0, 0},
+    {"\xc2\xb0"
+     "c",
+     COL_TEMP, 1.0, 0.0, 0},
     {"celsius", COL_TEMP, 1.0, 0.0, 0},
     {"k", COL_TEMP, 1.0, -273.15, 0},
     {"kelvin", COL_TEMP, 1.0, -273.15, 0},
@@ -58,32 +60,58 @@ struct base_entry {
 
 /* Base names (unit removed), after lower-casing and punctuation to '_'. */
 static const struct base_entry bases[] = {
-    {"time", COL_TIME},          {"t", COL_TIME},
-    {"timestamp", COL_TIME},     {"elapsed", COL_TIME},
-    {"datetime", COL_TIME},      {"date_time", COL_TIME},
-    {"clock", COL_TIME},         {"time_utc", COL_TIME},
-    {"utc", COL_TIME},           {"epoch", COL_TIME},
-    {"unix_time", COL_TIME},     {"time_unix", COL_TIME},
-    {"test_time", COL_TIME},     {"elapsed_time", COL_TIME},
-    {"voltage", COL_VOLTAGE},    {"v", COL_VOLTAGE},
-    {"volt", COL_VOLTAGE},       {"vbat", COL_VOLTAGE},
-    {"v_bat", COL_VOLTAGE},      {"vpack", COL_VOLTAGE},
-    {"v_pack", COL_VOLTAGE},     {"bat_v", COL_VOLTAGE},
-    {"batt_v", COL_VOLTAGE},     {"u", COL_VOLTAGE},
-    {"pack_voltage", COL_VOLTAGE}, {"battery_voltage", COL_VOLTAGE},
-    {"bat_voltage", COL_VOLTAGE}, {"batt_voltage", COL_VOLTAGE},
-    {"voltage_pack", COL_VOLTAGE}, {"ubat", COL_VOLTAGE},
-    {"current", COL_CURRENT},    {"i", COL_CURRENT},
-    {"ibat", COL_CURRENT},       {"i_bat", COL_CURRENT},
-    {"curr", COL_CURRENT},       {"amps", COL_CURRENT},
-    {"ipack", COL_CURRENT},      {"i_pack", COL_CURRENT},
-    {"pack_current", COL_CURRENT}, {"battery_current", COL_CURRENT},
-    {"bat_current", COL_CURRENT}, {"batt_current", COL_CURRENT},
-    {"bat_i", COL_CURRENT},      {"batt_i", COL_CURRENT},
-    {"temp", COL_TEMP},          {"temperature", COL_TEMP},
-    {"pack_temp", COL_TEMP},     {"battery_temp", COL_TEMP},
-    {"bat_temp", COL_TEMP},      {"batt_temp", COL_TEMP},
-    {"tbat", COL_TEMP},          {"t_bat", COL_TEMP},
+    {"time", COL_TIME},
+    {"t", COL_TIME},
+    {"timestamp", COL_TIME},
+    {"elapsed", COL_TIME},
+    {"datetime", COL_TIME},
+    {"date_time", COL_TIME},
+    {"clock", COL_TIME},
+    {"time_utc", COL_TIME},
+    {"utc", COL_TIME},
+    {"epoch", COL_TIME},
+    {"unix_time", COL_TIME},
+    {"time_unix", COL_TIME},
+    {"test_time", COL_TIME},
+    {"elapsed_time", COL_TIME},
+    {"voltage", COL_VOLTAGE},
+    {"v", COL_VOLTAGE},
+    {"volt", COL_VOLTAGE},
+    {"vbat", COL_VOLTAGE},
+    {"v_bat", COL_VOLTAGE},
+    {"vpack", COL_VOLTAGE},
+    {"v_pack", COL_VOLTAGE},
+    {"bat_v", COL_VOLTAGE},
+    {"batt_v", COL_VOLTAGE},
+    {"u", COL_VOLTAGE},
+    {"pack_voltage", COL_VOLTAGE},
+    {"battery_voltage", COL_VOLTAGE},
+    {"bat_voltage", COL_VOLTAGE},
+    {"batt_voltage", COL_VOLTAGE},
+    {"voltage_pack", COL_VOLTAGE},
+    {"ubat", COL_VOLTAGE},
+    {"current", COL_CURRENT},
+    {"i", COL_CURRENT},
+    {"ibat", COL_CURRENT},
+    {"i_bat", COL_CURRENT},
+    {"curr", COL_CURRENT},
+    {"amps", COL_CURRENT},
+    {"ipack", COL_CURRENT},
+    {"i_pack", COL_CURRENT},
+    {"pack_current", COL_CURRENT},
+    {"battery_current", COL_CURRENT},
+    {"bat_current", COL_CURRENT},
+    {"batt_current", COL_CURRENT},
+    {"bat_i", COL_CURRENT},
+    {"batt_i", COL_CURRENT},
+    {"temp", COL_TEMP},
+    {"temperature", COL_TEMP},
+    {"pack_temp", COL_TEMP},
+    {"battery_temp", COL_TEMP},
+    {"bat_temp", COL_TEMP},
+    {"batt_temp", COL_TEMP},
+    {"tbat", COL_TEMP},
+    {"t_bat", COL_TEMP},
     {"pack_temperature", COL_TEMP},
 };
 
@@ -127,8 +155,8 @@ static enum col_role find_base(const char *b)
 /* A raw-current base: a current name with a raw marker before or after. */
 static int raw_current_base(const char *b)
 {
-    static const char *const raws[] = {"current_adc", "current_raw", "adc_current", "raw_current",
-                                       "i_adc",       "i_raw",       "ibat_adc",    "ibat_raw",
+    static const char *const raws[] = {"current_adc", "current_raw", "adc_current",   "raw_current",
+                                       "i_adc",       "i_raw",       "ibat_adc",      "ibat_raw",
                                        "curr_adc",    "curr_raw",    "current_counts"};
     for (size_t k = 0; k < sizeof raws / sizeof *raws; k++)
         if (strcmp(raws[k], b) == 0)
@@ -219,13 +247,20 @@ int colname_parse(const char *name, size_t len, struct col_spec *out)
 const char *colname_role_name(enum col_role role)
 {
     switch (role) {
-    case COL_IGNORE: return "ignored";
-    case COL_TIME: return "time";
-    case COL_VOLTAGE: return "voltage";
-    case COL_CURRENT: return "current";
-    case COL_CURRENT_RAW: return "current (ADC counts)";
-    case COL_TEMP: return "temperature";
-    case COL_CELL: return "cell voltage";
+    case COL_IGNORE:
+        return "ignored";
+    case COL_TIME:
+        return "time";
+    case COL_VOLTAGE:
+        return "voltage";
+    case COL_CURRENT:
+        return "current";
+    case COL_CURRENT_RAW:
+        return "current (ADC counts)";
+    case COL_TEMP:
+        return "temperature";
+    case COL_CELL:
+        return "cell voltage";
     }
     return "?";
 }

@@ -16,7 +16,7 @@ enum col_role {
     COL_CURRENT,     /* pack current, physical units */
     COL_CURRENT_RAW, /* pack current as ADC counts */
     COL_TEMP,
-    COL_CELL,        /* one cell's voltage */
+    COL_CELL, /* one cell's voltage */
 };
 
 enum time_kind {

@@ -14,11 +14,11 @@ struct coulomb_result {
     double regen_mah;      /* charge into the pack (current < 0), positive */
     double discharged_wh;
     double regen_wh;
-    size_t gaps;           /* intervals longer than the gap threshold */
+    size_t gaps; /* intervals longer than the gap threshold */
     double gap_total_s;
     double gap_longest_s;
-    size_t gap_first_index;/* sample index that ends the first gap */
-    double gap_charge_mah; /* net charge bridged across gaps (included above) */
+    size_t gap_first_index; /* sample index that ends the first gap */
+    double gap_charge_mah;  /* net charge bridged across gaps (included above) */
 };
 
 /* Integrates n samples. gap_s: intervals longer than this are counted as

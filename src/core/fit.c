@@ -24,7 +24,7 @@ struct normal_eq {
 #define SCALE_SAMPLES 65536 /* residuals kept for the robust scale */
 
 struct scale_sample {
-    double *r;    /* |residual| of every m-th used row */
+    double *r; /* |residual| of every m-th used row */
     size_t n, m;
 };
 
@@ -198,7 +198,8 @@ static enum pb_code fit_core(size_t n, int p, fit_row_fn row, void *ctx, int rob
                 break;
             }
             if (scale > 0.0) {
-                if (ne.n_used <= (size_t)p || ne.wsum <= p || solve(&ne, p, beta, inv, &rank) != 0) {
+                if (ne.n_used <= (size_t)p || ne.wsum <= p ||
+                    solve(&ne, p, beta, inv, &rank) != 0) {
                     /* reweighting cannot leave fewer rows than unknowns: keep the last fit */
                     memcpy(beta, prev, sizeof prev);
                     ne = keep;

@@ -25,18 +25,18 @@ typedef int (*fit_row_fn)(void *ctx, size_t k, double *x, double *y);
 
 struct fit_result {
     int p;
-    int rank;                     /* numerical rank of the design */
+    int rank; /* numerical rank of the design */
     double beta[FIT_MAX_P];
     double cov[FIT_MAX_P][FIT_MAX_P];
-    double sigma;                 /* residual standard deviation (weighted) */
-    double rss;                   /* weighted residual sum of squares */
-    double rss_plain;             /* residual sum of squares of the unweighted fit */
-    double scale;                 /* robust residual scale (0 for plain fits) */
-    double dof;                   /* effective rows minus rank */
-    size_t n_used;                /* rows the callback gave */
-    size_t n_downweighted;        /* rows with final weight < 0.5 (robust) */
+    double sigma;          /* residual standard deviation (weighted) */
+    double rss;            /* weighted residual sum of squares */
+    double rss_plain;      /* residual sum of squares of the unweighted fit */
+    double scale;          /* robust residual scale (0 for plain fits) */
+    double dof;            /* effective rows minus rank */
+    size_t n_used;         /* rows the callback gave */
+    size_t n_downweighted; /* rows with final weight < 0.5 (robust) */
     int iterations;
-    size_t rows_visited;          /* callback calls over all passes: the work done */
+    size_t rows_visited; /* callback calls over all passes: the work done */
 };
 
 /* Fits n rows of p columns (robust: reweighted). Returns PB_OK or an

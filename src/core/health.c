@@ -30,9 +30,12 @@ void health_rules_default(struct health_rules *r)
 const char *health_status_name(enum health_status s)
 {
     switch (s) {
-    case HEALTH_OK: return "ok";
-    case HEALTH_WATCH: return "watch";
-    case HEALTH_RETIRE: return "retire";
+    case HEALTH_OK:
+        return "ok";
+    case HEALTH_WATCH:
+        return "watch";
+    case HEALTH_RETIRE:
+        return "retire";
     }
     return "?";
 }
@@ -241,8 +244,7 @@ static void bucket_key(enum trend_by by, double epoch_s, double cycles, char *ke
 
 static void trend_line_fit(struct trend_line *tl, const double *cyc, const double *days,
                            const double *y, size_t n, int plain, double level, int rising,
-                           double cycles_now, double days_now, double first_epoch,
-                           double horizon)
+                           double cycles_now, double days_now, double first_epoch, double horizon)
 {
     tl->vs_cycles = health_line(cyc, y, n, plain);
     tl->vs_days = health_line(days, y, n, plain);
@@ -324,8 +326,8 @@ int health_trend(const struct health_flight *f, size_t n, int cells, double rate
     t->days_now = days[n - 1];
     struct pack_health h;
     health_assess(f, n, cells, rated_mah, rules, &h);
-    trend_line_fit(&t->r0, cyc, days, r0, n, plain, rules->retire_r0_ratio * h.r0_base_mohm_cell,
-                   1, t->cycles_now, t->days_now, f[0].epoch_s, horizon);
+    trend_line_fit(&t->r0, cyc, days, r0, n, plain, rules->retire_r0_ratio * h.r0_base_mohm_cell, 1,
+                   t->cycles_now, t->days_now, f[0].epoch_s, horizon);
     trend_line_fit(&t->capacity, cyc, days, cap, n, plain, rules->retire_capacity_pct, 0,
                    t->cycles_now, t->days_now, f[0].epoch_s, horizon);
     free(cyc), free(days), free(r0), free(cap);

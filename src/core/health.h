@@ -10,11 +10,11 @@
 
 struct health_flight {
     double epoch_s;
-    double charge_mah;       /* net charge used */
-    double r0_mohm;          /* pack, NAN when unknown */
-    double capacity_mah;     /* NAN when unknown */
-    double spread_rest_mv;   /* NAN when unknown */
-    int below_floor;         /* the loaded voltage crossed the per-cell floor */
+    double charge_mah;     /* net charge used */
+    double r0_mohm;        /* pack, NAN when unknown */
+    double capacity_mah;   /* NAN when unknown */
+    double spread_rest_mv; /* NAN when unknown */
+    int below_floor;       /* the loaded voltage crossed the per-cell floor */
 };
 
 /* Thresholds. Defaults (health_rules_default): capacity at or below 80 %
@@ -27,24 +27,24 @@ struct health_rules {
     double retire_r0_ratio, watch_r0_ratio;
     double retire_spread_mv, watch_spread_mv;
     int retire_overdischarge, watch_overdischarge;
-    int baseline_flights;    /* first flights that set the baseline */
-    int recent_flights;      /* last flights that set "now" */
+    int baseline_flights; /* first flights that set the baseline */
+    int recent_flights;   /* last flights that set "now" */
 };
 
 enum health_status { HEALTH_OK = 0, HEALTH_WATCH, HEALTH_RETIRE };
 
 struct pack_health {
     size_t flights;
-    double cycles;              /* equivalent full cycles: total charge / rated */
-    double last_epoch_s;        /* NAN without flights */
-    double r0_now_mohm_cell;    /* median of the recent flights */
-    double r0_base_mohm_cell;   /* median of the baseline flights */
-    double r0_ratio;            /* now / baseline */
-    double capacity_pct;        /* median of the recent estimates, % of rated */
-    double spread_mv;           /* median of the recent resting spreads */
-    int overdischarges;         /* flights below the floor */
+    double cycles;            /* equivalent full cycles: total charge / rated */
+    double last_epoch_s;      /* NAN without flights */
+    double r0_now_mohm_cell;  /* median of the recent flights */
+    double r0_base_mohm_cell; /* median of the baseline flights */
+    double r0_ratio;          /* now / baseline */
+    double capacity_pct;      /* median of the recent estimates, % of rated */
+    double spread_mv;         /* median of the recent resting spreads */
+    int overdischarges;       /* flights below the floor */
     enum health_status status;
-    char reason[320];           /* which rules fired, with the numbers */
+    char reason[320]; /* which rules fired, with the numbers */
 };
 
 void health_rules_default(struct health_rules *r);
@@ -58,7 +58,7 @@ const char *health_status_name(enum health_status s);
 
 /* A straight-line fit y = a + b x with the slope's 95 % interval. */
 struct line_fit {
-    int ok;          /* enough points (>= 3) with spread in x */
+    int ok; /* enough points (>= 3) with spread in x */
     size_t n;
     double a, b, b_ci95;
     double sigma;
@@ -74,7 +74,6 @@ struct line_fit health_line(const double *x, const double *y, size_t n, int plai
 int health_crossing(const struct line_fit *l, double level, int rising, double x_now,
                     double *x_cross);
 
-
 /* ---- trends ------------------------------------------------------------ */
 
 enum trend_by { TREND_WEEK = 0, TREND_MONTH, TREND_CYCLE };
@@ -82,11 +81,11 @@ enum trend_by { TREND_WEEK = 0, TREND_MONTH, TREND_CYCLE };
 #define TREND_CYCLE_BUCKET 5.0 /* equivalent cycles per bucket with --by cycle */
 
 struct trend_bucket {
-    char key[40];          /* "2026-W15", "2026-04" or "cycles 5-10" */
+    char key[40]; /* "2026-W15", "2026-04" or "cycles 5-10" */
     size_t flights;
     double first_epoch_s, last_epoch_s;
     double charge_mah;
-    double r0_mohm_cell;   /* mean of known values, NAN when none */
+    double r0_mohm_cell; /* mean of known values, NAN when none */
     double capacity_pct;
 };
 
@@ -95,19 +94,19 @@ struct trend_bucket {
  * horizon; crossed set when the fitted line is there already. */
 struct trend_line {
     struct line_fit vs_cycles, vs_days;
-    double level;          /* the retirement level it is checked against */
+    double level; /* the retirement level it is checked against */
     int crossed;
-    double cross_cycles;   /* equivalent cycles at the crossing */
-    double cross_epoch_s;  /* date of the crossing, from the time fit */
-    int beyond_horizon;    /* a crossing exists, but later than the horizon */
+    double cross_cycles;  /* equivalent cycles at the crossing */
+    double cross_epoch_s; /* date of the crossing, from the time fit */
+    int beyond_horizon;   /* a crossing exists, but later than the horizon */
 };
 
 struct pack_trend {
     size_t nbuckets;
     struct trend_bucket *buckets; /* owned: free with health_trend_release */
     double cycles_now, days_now;
-    struct trend_line r0;        /* mOhm per cell, level = retire ratio x baseline */
-    struct trend_line capacity;  /* % of rated, level = retire capacity % */
+    struct trend_line r0;       /* mOhm per cell, level = retire ratio x baseline */
+    struct trend_line capacity; /* % of rated, level = retire capacity % */
 };
 
 /* Aggregates and regressions of a pack's flights (oldest first). horizon:

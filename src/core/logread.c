@@ -28,27 +28,27 @@ struct reader {
     struct pb_error *err;
     int failed;
 
-    size_t line;          /* physical line being read, 1-based */
-    int after_cr;         /* the last line end was a CR (an LF now completes it) */
-    size_t record_line;   /* line where the next record starts */
-    size_t row_line;      /* line where the current record began */
-    int field;            /* index of the next field in the record */
-    int comment;          /* current record is a # comment */
+    size_t line;        /* physical line being read, 1-based */
+    int after_cr;       /* the last line end was a CR (an LF now completes it) */
+    size_t record_line; /* line where the next record starts */
+    size_t row_line;    /* line where the current record began */
+    int field;          /* index of the next field in the record */
+    int comment;        /* current record is a # comment */
 
-    int mapped;           /* columns are known */
-    int ncols;            /* fields in the layout */
-    char **first_row;     /* first record's fields, until mapped */
+    int mapped;       /* columns are known */
+    int ncols;        /* fields in the layout */
+    char **first_row; /* first record's fields, until mapped */
     int first_row_n;
 
     int slot_col[NSLOTS]; /* column index of each slot, -1 none */
     struct col_spec spec[NSLOTS];
-    int *col_slot;        /* slot of each column, -1 none */
-    int need_fields;      /* fields a record must have */
+    int *col_slot;   /* slot of each column, -1 none */
+    int need_fields; /* fields a record must have */
     int ncells;
 
     enum tmode tmode;
     double t_scale;
-    double t_first;       /* first kept absolute/raw time, in seconds */
+    double t_first; /* first kept absolute/raw time, in seconds */
     double t_prev;
     double temp_prev;
     int have_temp_prev;
@@ -189,13 +189,19 @@ static void sniff(const char *buf, size_t len, char *delim, char *decimal)
 static int slot_for(const struct col_spec *sp)
 {
     switch (sp->role) {
-    case COL_TIME: return SLOT_T;
-    case COL_VOLTAGE: return SLOT_V;
+    case COL_TIME:
+        return SLOT_T;
+    case COL_VOLTAGE:
+        return SLOT_V;
     case COL_CURRENT:
-    case COL_CURRENT_RAW: return SLOT_I;
-    case COL_TEMP: return SLOT_TEMP;
-    case COL_CELL: return sp->cell <= PB_MAX_CELLS ? SLOT_CELL0 + sp->cell - 1 : -1;
-    case COL_IGNORE: return -1;
+    case COL_CURRENT_RAW:
+        return SLOT_I;
+    case COL_TEMP:
+        return SLOT_TEMP;
+    case COL_CELL:
+        return sp->cell <= PB_MAX_CELLS ? SLOT_CELL0 + sp->cell - 1 : -1;
+    case COL_IGNORE:
+        return -1;
     }
     return -1;
 }
@@ -259,8 +265,10 @@ static int apply_map(struct reader *r, char **names, int n)
         }
         struct col_spec sp;
         if (colname_parse(p, (size_t)(eq - p), &sp) != 0 || sp.role == COL_IGNORE) {
-            pb_error_set(r->err, PB_EUSAGE, "--map: unknown quantity '%.*s' (try time_s, voltage_v, "
-                         "current_a, current_adc, temp_c, cell1_v)", (int)(eq - p), p);
+            pb_error_set(r->err, PB_EUSAGE,
+                         "--map: unknown quantity '%.*s' (try time_s, voltage_v, "
+                         "current_a, current_adc, temp_c, cell1_v)",
+                         (int)(eq - p), p);
             r->failed = 1;
             return -1;
         }
@@ -272,10 +280,12 @@ static int apply_map(struct reader *r, char **names, int n)
         if (tlen > 0 && iend == target + tlen && idx >= 1 && idx <= n)
             col = (int)idx - 1;
         for (int c = 0; c < n && col < 0; c++)
-            if (names && names[c] && strlen(names[c]) == tlen && strncasecmp(names[c], target, tlen) == 0)
+            if (names && names[c] && strlen(names[c]) == tlen &&
+                strncasecmp(names[c], target, tlen) == 0)
                 col = c;
         if (col < 0) {
-            pb_error_set(r->err, PB_EUSAGE, "--map: no column '%.*s' in %s", (int)tlen, target, r->name);
+            pb_error_set(r->err, PB_EUSAGE, "--map: no column '%.*s' in %s", (int)tlen, target,
+                         r->name);
             r->failed = 1;
             return -1;
         }
@@ -351,7 +361,8 @@ static int map_columns(struct reader *r)
     } else if (!is_header) {
         fail(r, PB_EINPUT, r->row_line, 0,
              "no header line: give the column layout with --columns (for example --columns "
-             "time_s,voltage_v,current_a)%s", NULL);
+             "time_s,voltage_v,current_a)%s",
+             NULL);
         return -1;
     }
 
@@ -405,7 +416,8 @@ static int map_columns(struct reader *r)
         if (!r->opts->have_adc) {
             fail(r, PB_EUSAGE, r->row_line, r->slot_col[SLOT_I] + 1,
                  "this column holds current as ADC counts: give --adc-scale A_PER_COUNT, or the "
-                 "sense chain --adc-bits, --adc-vref, --sense-ratio and --sense-ohm%s", NULL);
+                 "sense chain --adc-bits, --adc-vref, --sense-ratio and --sense-ohm%s",
+                 NULL);
             goto cleanup;
         }
     }
@@ -482,7 +494,8 @@ static void on_field(void *data, size_t len, void *ctx)
     /* a quoted field's own line breaks: later lines keep their numbers
      * (the record is placed where it started) */
     size_t start_line = r->line;
-    for (const char *q = memchr(f, '\n', len); q; q = memchr(q + 1, '\n', len - (size_t)(q + 1 - f)))
+    for (const char *q = memchr(f, '\n', len); q;
+         q = memchr(q + 1, '\n', len - (size_t)(q + 1 - f)))
         r->line++;
     if (col == 0) {
         size_t k = 0;
@@ -545,8 +558,7 @@ static void keep_sample(struct reader *r)
     if (s->n == 0) {
         r->t_first = t;
         /* numbers that only make sense as Unix time (years 2000..2099) */
-        if (r->tmode == TM_ISO || r->spec[SLOT_T].time == TIME_EPOCH ||
-            (t >= 9.4e8 && t < 4.1e9)) {
+        if (r->tmode == TM_ISO || r->spec[SLOT_T].time == TIME_EPOCH || (t >= 9.4e8 && t < 4.1e9)) {
             s->has_epoch = 1;
             s->start_epoch_s = t;
             st->time_is_epoch = r->tmode != TM_ISO;
@@ -661,10 +673,18 @@ static void end_record(struct reader *r)
     if (nfields > r->ncols)
         count_event(&r->st->long_row, r->row_line, r->ncols + 1);
     switch (r->bad) {
-    case BAD_NONE: keep_sample(r); break;
-    case BAD_NUMBER: count_event(&r->st->bad_number, r->row_line, r->bad_col); break;
-    case BAD_NONFINITE: count_event(&r->st->nonfinite, r->row_line, r->bad_col); break;
-    case BAD_EMPTY: count_event(&r->st->empty_field, r->row_line, r->bad_col); break;
+    case BAD_NONE:
+        keep_sample(r);
+        break;
+    case BAD_NUMBER:
+        count_event(&r->st->bad_number, r->row_line, r->bad_col);
+        break;
+    case BAD_NONFINITE:
+        count_event(&r->st->nonfinite, r->row_line, r->bad_col);
+        break;
+    case BAD_EMPTY:
+        count_event(&r->st->empty_field, r->row_line, r->bad_col);
+        break;
     }
     r->bad = BAD_NONE;
 }
@@ -796,8 +816,10 @@ struct series *logread_file(FILE *fp, const char *name, const struct logread_opt
             col = *q == '\n' ? 1 : col + 1;
             line += *q == '\n';
         }
-        pb_error_set(err, PB_EINPUT, "%s:%zu:%zu: not a text log (a NUL byte): is this a binary "
-                     "file?", name, line, col);
+        pb_error_set(err, PB_EINPUT,
+                     "%s:%zu:%zu: not a text log (a NUL byte): is this a binary "
+                     "file?",
+                     name, line, col);
         goto cleanup;
     }
     char delim, decimal;
@@ -840,7 +862,8 @@ struct series *logread_file(FILE *fp, const char *name, const struct logread_opt
         if (p.quoted && p.pstate == 2)
             fail(&r, PB_EINPUT, r.record_line, r.field + 1,
                  "this quoted field is never closed, so the rest of the file would be one "
-                 "field%s", NULL);
+                 "field%s",
+                 NULL);
         else
             csv_fini(&p, on_field, on_row, &r);
         if (last != '\n' && last != '\r' && stats->short_row.count > short_before)
@@ -850,7 +873,8 @@ struct series *logread_file(FILE *fp, const char *name, const struct logread_opt
     if (r.failed)
         goto cleanup;
     if (!r.mapped) {
-        pb_error_set(err, PB_EINPUT, "%s: no data: the file has only comments or blank lines", name);
+        pb_error_set(err, PB_EINPUT, "%s: no data: the file has only comments or blank lines",
+                     name);
         goto cleanup;
     }
     if (r.s->n < 2) {
@@ -862,8 +886,10 @@ struct series *logread_file(FILE *fp, const char *name, const struct logread_opt
             char where[48] = "";
             if (first)
                 snprintf(where, sizeof where, " (first problem at line %zu)", first);
-            pb_error_set(err, PB_EINPUT, "%s: %zu usable sample%s of %zu records; at least 2 are "
-                         "needed%s", name, r.s->n, r.s->n == 1 ? "" : "s", stats->records, where);
+            pb_error_set(err, PB_EINPUT,
+                         "%s: %zu usable sample%s of %zu records; at least 2 are "
+                         "needed%s",
+                         name, r.s->n, r.s->n == 1 ? "" : "s", stats->records, where);
         }
         goto cleanup;
     }

@@ -17,18 +17,18 @@
 #define LOGREAD_MAX_FIELD_BYTES 65536
 
 enum current_sign {
-    SIGN_AUTO = 0,           /* discharge positive unless the data clearly say otherwise */
+    SIGN_AUTO = 0, /* discharge positive unless the data clearly say otherwise */
     SIGN_DISCHARGE_POSITIVE,
     SIGN_DISCHARGE_NEGATIVE,
 };
 
 struct logread_opts {
-    const char *columns;  /* positional layout, comma-separated names, "-" skips */
-    const char *map;      /* overrides "ROLE[_UNIT]=NAME|INDEX,..." */
-    char delimiter;       /* 0: detect among , ; tab */
-    char decimal;         /* 0: detect ('.' or ',') */
+    const char *columns; /* positional layout, comma-separated names, "-" skips */
+    const char *map;     /* overrides "ROLE[_UNIT]=NAME|INDEX,..." */
+    char delimiter;      /* 0: detect among , ; tab */
+    char decimal;        /* 0: detect ('.' or ',') */
     enum current_sign sign;
-    int have_adc;         /* raw current calibration given */
+    int have_adc; /* raw current calibration given */
     double adc_a_per_count;
     double adc_offset_counts;
     /* called with every block of raw bytes as read (e.g. to hash the log) */
@@ -49,26 +49,26 @@ struct logread_stats {
     int bom;
     int has_header;
     size_t header_line;
-    size_t lines;          /* physical lines seen */
+    size_t lines; /* physical lines seen */
     size_t comment_lines;
-    size_t records;        /* data records seen (kept or not) */
+    size_t records; /* data records seen (kept or not) */
     size_t kept;
     int time_column, voltage_column, current_column, temp_column; /* 1-based, 0 = none */
     int current_is_raw;
     int time_is_iso;
     int time_is_epoch;
     int ignored_columns;
-    int sign_flipped;      /* auto-detected discharge-negative and flipped */
+    int sign_flipped; /* auto-detected discharge-negative and flipped */
     int voltage_from_cells;
-    struct logread_event bad_number;    /* text where a number was due: sample dropped */
-    struct logread_event nonfinite;     /* nan/inf/overflow: sample dropped */
-    struct logread_event empty_field;   /* empty required field: sample dropped */
-    struct logread_event short_row;     /* too few fields: sample dropped */
-    struct logread_event long_row;      /* more fields than the header: extras ignored */
-    struct logread_event duplicate_time;/* same time as the previous sample: dropped */
-    struct logread_event temp_repaired; /* bad temperature: previous value kept */
-    struct logread_event duplicate_role;/* a second column for the same role: ignored */
-    int truncated_last_line;            /* last line had no newline and was short */
+    struct logread_event bad_number;     /* text where a number was due: sample dropped */
+    struct logread_event nonfinite;      /* nan/inf/overflow: sample dropped */
+    struct logread_event empty_field;    /* empty required field: sample dropped */
+    struct logread_event short_row;      /* too few fields: sample dropped */
+    struct logread_event long_row;       /* more fields than the header: extras ignored */
+    struct logread_event duplicate_time; /* same time as the previous sample: dropped */
+    struct logread_event temp_repaired;  /* bad temperature: previous value kept */
+    struct logread_event duplicate_role; /* a second column for the same role: ignored */
+    int truncated_last_line;             /* last line had no newline and was short */
 };
 
 /* Reads a log. name is used in messages ("-" for stdin). On success

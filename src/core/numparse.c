@@ -24,8 +24,8 @@ static int is_blank(char c)
 static enum num_status word_value(const char *s, size_t len)
 {
     /* Words that some loggers write for missing or overflowed values. */
-    static const char *const words[] = {"nan", "+nan", "-nan", "inf", "+inf", "-inf",
-                                        "infinity", "+infinity", "-infinity"};
+    static const char *const words[] = {"nan",  "+nan",     "-nan",      "inf",      "+inf",
+                                        "-inf", "infinity", "+infinity", "-infinity"};
     for (size_t k = 0; k < sizeof words / sizeof *words; k++)
         if (strlen(words[k]) == len && strncasecmp(s, words[k], len) == 0)
             return NUM_NONFINITE;
@@ -75,11 +75,11 @@ enum num_status num_parse(const char *s, size_t len, char decimal, double *out)
         k++;
     }
     uint64_t mant = 0;
-    int digits = 0;     /* significant digits kept in mant */
-    int dropped = 0;    /* integer digits beyond what mant holds */
+    int digits = 0;  /* significant digits kept in mant */
+    int dropped = 0; /* integer digits beyond what mant holds */
     int frac_digits = 0;
     int any_digit = 0;
-    int lost = 0;       /* nonzero digits that did not fit */
+    int lost = 0; /* nonzero digits that did not fit */
     while (k < len && s[k] >= '0' && s[k] <= '9') {
         any_digit = 1;
         if (digits < 19) {

@@ -5,7 +5,7 @@
 /* LiPo (LiCoO2-type pouch, 4.20 V charged). Source: from memory, the
  * resting-voltage chart widely used in hobby and commercial multirotor
  * practice; 10-point steps with the usual knee below 10 %. */
-static const double lipo_soc[] = {0, 5, 10, 15, 20, 25, 30, 35, 40, 45, 50,
+static const double lipo_soc[] = {0,  5,  10, 15, 20, 25, 30, 35, 40, 45, 50,
                                   55, 60, 65, 70, 75, 80, 85, 90, 95, 100};
 static const double lipo_ocv[] = {3.27, 3.61, 3.69, 3.71, 3.73, 3.75, 3.77, 3.79, 3.80, 3.82, 3.84,
                                   3.85, 3.87, 3.91, 3.95, 3.98, 4.02, 4.08, 4.11, 4.15, 4.20};
@@ -13,17 +13,20 @@ static const double lipo_ocv[] = {3.27, 3.61, 3.69, 3.71, 3.73, 3.75, 3.77, 3.79
 /* LiHV (high-voltage LiPo, 4.35 V charged). Source: from memory, the LiPo
  * curve lifted toward the 4.35 V charge limit as LiHV makers chart it. */
 static const double lihv_soc[] = {0, 5, 10, 20, 30, 40, 50, 60, 70, 80, 90, 100};
-static const double lihv_ocv[] = {3.30, 3.65, 3.72, 3.77, 3.81, 3.85, 3.90, 3.96, 4.04, 4.13, 4.24, 4.35};
+static const double lihv_ocv[] = {3.30, 3.65, 3.72, 3.77, 3.81, 3.85,
+                                  3.90, 3.96, 4.04, 4.13, 4.24, 4.35};
 
 /* Li-ion NMC (cylindrical 18650/21700 cells, 4.20 V charged, 2.5-3.0 V
  * cut-off). Source: from memory, typical rested OCV of NMC cells. */
 static const double nmc_soc[] = {0, 5, 10, 20, 30, 40, 50, 60, 70, 80, 90, 100};
-static const double nmc_ocv[] = {3.00, 3.35, 3.45, 3.55, 3.61, 3.67, 3.74, 3.81, 3.89, 3.98, 4.08, 4.20};
+static const double nmc_ocv[] = {3.00, 3.35, 3.45, 3.55, 3.61, 3.67,
+                                 3.74, 3.81, 3.89, 3.98, 4.08, 4.20};
 
 /* LiFePO4 (3.65 V charge limit). Source: from memory, typical rested OCV;
  * the plateau makes SoC from OCV weak between 20 and 90 %. */
 static const double lfp_soc[] = {0, 5, 10, 20, 30, 40, 50, 60, 70, 80, 90, 100};
-static const double lfp_ocv[] = {2.50, 2.90, 3.00, 3.20, 3.22, 3.25, 3.26, 3.27, 3.30, 3.32, 3.35, 3.40};
+static const double lfp_ocv[] = {2.50, 2.90, 3.00, 3.20, 3.22, 3.25,
+                                 3.26, 3.27, 3.30, 3.32, 3.35, 3.40};
 
 #define N(a) (sizeof(a) / sizeof *(a))
 
@@ -34,8 +37,8 @@ static const struct chem_info chems[CHEM_COUNT] = {
      lipo_soc, lipo_ocv, 3.30, 4.15, 3.75, 2.90, 4.25},
     {CHEM_LIHV, "lihv", "LiHV", "from memory: LiHV (4.35 V) resting-voltage chart", N(lihv_soc),
      lihv_soc, lihv_ocv, 3.40, 4.30, 3.80, 3.00, 4.40},
-    {CHEM_NMC, "nmc", "Li-ion NMC", "from memory: typical NMC cell rested OCV", N(nmc_soc),
-     nmc_soc, nmc_ocv, 2.90, 4.15, 3.40, 2.50, 4.25},
+    {CHEM_NMC, "nmc", "Li-ion NMC", "from memory: typical NMC cell rested OCV", N(nmc_soc), nmc_soc,
+     nmc_ocv, 2.90, 4.15, 3.40, 2.50, 4.25},
     {CHEM_LFP, "lfp", "LiFePO4", "from memory: typical LiFePO4 rested OCV", N(lfp_soc), lfp_soc,
      lfp_ocv, 2.60, 3.40, 3.00, 2.00, 3.70},
 };

@@ -17,17 +17,17 @@ enum chemistry { CHEM_LIPO = 0, CHEM_LIHV, CHEM_NMC, CHEM_LFP, CHEM_COUNT };
 
 struct chem_info {
     enum chemistry id;
-    const char *name;        /* option spelling: lipo, lihv, nmc, lfp */
-    const char *label;       /* human name */
-    const char *source;      /* where the table comes from */
+    const char *name;   /* option spelling: lipo, lihv, nmc, lfp */
+    const char *label;  /* human name */
+    const char *source; /* where the table comes from */
     size_t npoints;
-    const double *soc_pct;   /* ascending, 0..100 */
-    const double *ocv_v;     /* per cell, ascending */
-    double floor_v;          /* default loaded per-cell floor (common practice) */
-    double full_rest_v;      /* rest voltage at or above which a cell counts as full */
-    double empty_rest_v;     /* rest voltage at or below which it counts as empty */
-    double min_loaded_v;     /* lowest plausible loaded cell voltage, for cell count */
-    double max_v;            /* highest plausible cell voltage (charged) */
+    const double *soc_pct; /* ascending, 0..100 */
+    const double *ocv_v;   /* per cell, ascending */
+    double floor_v;        /* default loaded per-cell floor (common practice) */
+    double full_rest_v;    /* rest voltage at or above which a cell counts as full */
+    double empty_rest_v;   /* rest voltage at or below which it counts as empty */
+    double min_loaded_v;   /* lowest plausible loaded cell voltage, for cell count */
+    double max_v;          /* highest plausible cell voltage (charged) */
 };
 
 /* Table for a chemistry; NULL for an unknown id. */

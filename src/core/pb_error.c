@@ -32,13 +32,20 @@ void pb_error_prefix(struct pb_error *err, const char *fmt, ...)
 const char *pb_strerror(enum pb_code code)
 {
     switch (code) {
-    case PB_OK: return "ok";
-    case PB_EUSAGE: return "usage error";
-    case PB_EINPUT: return "unusable input";
-    case PB_ENOMEM: return "out of memory";
-    case PB_ENUMERIC: return "numerical failure";
-    case PB_EOUTPUT: return "cannot write output";
-    case PB_ESTORE: return "history store error";
+    case PB_OK:
+        return "ok";
+    case PB_EUSAGE:
+        return "usage error";
+    case PB_EINPUT:
+        return "unusable input";
+    case PB_ENOMEM:
+        return "out of memory";
+    case PB_ENUMERIC:
+        return "numerical failure";
+    case PB_EOUTPUT:
+        return "cannot write output";
+    case PB_ESTORE:
+        return "history store error";
     }
     return "unknown error";
 }
@@ -46,13 +53,18 @@ const char *pb_strerror(enum pb_code code)
 int pb_exit_status(enum pb_code code)
 {
     switch (code) {
-    case PB_OK: return PB_EXIT_OK;
-    case PB_EUSAGE: return PB_EXIT_USAGE;
-    case PB_EINPUT: return PB_EXIT_INPUT;
-    case PB_ESTORE: return PB_EXIT_STORE;
+    case PB_OK:
+        return PB_EXIT_OK;
+    case PB_EUSAGE:
+        return PB_EXIT_USAGE;
+    case PB_EINPUT:
+        return PB_EXIT_INPUT;
+    case PB_ESTORE:
+        return PB_EXIT_STORE;
     case PB_ENOMEM:
     case PB_ENUMERIC:
-    case PB_EOUTPUT: return PB_EXIT_INTERNAL;
+    case PB_EOUTPUT:
+        return PB_EXIT_INTERNAL;
     }
     return PB_EXIT_INTERNAL;
 }

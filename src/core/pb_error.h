@@ -11,12 +11,12 @@
 
 enum pb_code {
     PB_OK = 0,
-    PB_EUSAGE,    /* bad command line */
-    PB_EINPUT,    /* input unreadable or not a log we can use */
-    PB_ENOMEM,    /* out of memory */
-    PB_ENUMERIC,  /* a numerical routine failed */
-    PB_EOUTPUT,   /* writing the output failed */
-    PB_ESTORE,    /* history store error (reserved for the store) */
+    PB_EUSAGE,   /* bad command line */
+    PB_EINPUT,   /* input unreadable or not a log we can use */
+    PB_ENOMEM,   /* out of memory */
+    PB_ENUMERIC, /* a numerical routine failed */
+    PB_EOUTPUT,  /* writing the output failed */
+    PB_ESTORE,   /* history store error (reserved for the store) */
 };
 
 /* Documented exit statuses (man page, EXIT STATUS). */

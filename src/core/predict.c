@@ -25,11 +25,16 @@ void predict_opts_default(struct predict_opts *o)
 const char *predict_limit_name(enum predict_limit l)
 {
     switch (l) {
-    case LIMIT_NONE: return "none";
-    case LIMIT_RESERVE: return "reserve";
-    case LIMIT_FLOOR: return "floor";
-    case LIMIT_COLLAPSE: return "collapse";
-    case LIMIT_EMPTY: return "empty";
+    case LIMIT_NONE:
+        return "none";
+    case LIMIT_RESERVE:
+        return "reserve";
+    case LIMIT_FLOOR:
+        return "floor";
+    case LIMIT_COLLAPSE:
+        return "collapse";
+    case LIMIT_EMPTY:
+        return "empty";
     }
     return "?";
 }

@@ -20,44 +20,44 @@ struct predict_pack {
     const struct chem_info *chem;
     int cells;
     double capacity_ah;
-    double r0_ohm;          /* pack R0 at t_ref_c */
-    double r1_ohm, tau_s;   /* RC branch; r1_ohm = 0 for none */
-    double t_ref_c;         /* temperature R0 was measured at */
+    double r0_ohm;        /* pack R0 at t_ref_c */
+    double r1_ohm, tau_s; /* RC branch; r1_ohm = 0 for none */
+    double t_ref_c;       /* temperature R0 was measured at */
 };
 
 enum load_kind { LOAD_POWER = 0, LOAD_CURRENT, LOAD_PROFILE };
 
 struct predict_load {
     enum load_kind kind;
-    double power_w;          /* LOAD_POWER */
-    double current_a;        /* LOAD_CURRENT */
-    const double *prof_t_s;  /* LOAD_PROFILE: times (ascending, from 0) ... */
-    const double *prof_w;    /* ... and power at each, held until the next; repeated */
+    double power_w;         /* LOAD_POWER */
+    double current_a;       /* LOAD_CURRENT */
+    const double *prof_t_s; /* LOAD_PROFILE: times (ascending, from 0) ... */
+    const double *prof_w;   /* ... and power at each, held until the next; repeated */
     size_t prof_n;
-    double prof_period_s;    /* length of one repetition */
+    double prof_period_s; /* length of one repetition */
 };
 
 struct predict_opts {
-    double soc0_pct;         /* start SoC */
-    double reserve_pct;      /* landing reserve */
-    double floor_v;          /* loaded per-cell floor */
-    double temp_c;           /* pack temperature; NAN = t_ref_c */
-    double ea_j_mol;         /* activation energy for R(T) */
-    double dt_s;             /* step */
-    double t_max_s;          /* give up after this */
-    double stop_after_s;     /* > 0: also report the state at this time */
-    double peukert_k;        /* > 0: Peukert exponent (rated-capacity form) */
-    double peukert_h;        /* rated discharge time in hours for Peukert */
+    double soc0_pct;     /* start SoC */
+    double reserve_pct;  /* landing reserve */
+    double floor_v;      /* loaded per-cell floor */
+    double temp_c;       /* pack temperature; NAN = t_ref_c */
+    double ea_j_mol;     /* activation energy for R(T) */
+    double dt_s;         /* step */
+    double t_max_s;      /* give up after this */
+    double stop_after_s; /* > 0: also report the state at this time */
+    double peukert_k;    /* > 0: Peukert exponent (rated-capacity form) */
+    double peukert_h;    /* rated discharge time in hours for Peukert */
 };
 
 enum predict_limit { LIMIT_NONE = 0, LIMIT_RESERVE, LIMIT_FLOOR, LIMIT_COLLAPSE, LIMIT_EMPTY };
 
 struct predict_run {
-    double t_safe_s;          /* first of the limits */
+    double t_safe_s; /* first of the limits */
     enum predict_limit binding;
     double soc_at_stop_pct, v_at_stop_v, i_at_stop_a;
     double t_reserve_s, t_floor_s, t_collapse_s, t_empty_s; /* NAN when not reached */
-    double soc_after_pct, v_after_v; /* state at stop_after_s, when asked */
+    double soc_after_pct, v_after_v;                        /* state at stop_after_s, when asked */
 };
 
 void predict_opts_default(struct predict_opts *o);
@@ -81,7 +81,7 @@ struct predict_spread {
 struct predict_mc {
     int runs;
     double t_median_s, t_p05_s, t_p95_s;
-    int binding_count[5];     /* runs per limit */
+    int binding_count[5]; /* runs per limit */
 };
 
 int predict_monte_carlo(const struct predict_pack *p, const struct predict_load *l,
@@ -96,12 +96,11 @@ struct predict_inputs {
     int cells;
     double rated_mah;
     double capacity_mah, capacity_sd_mah;
-    int capacity_assumed;       /* no estimate: rated capacity, 5 % spread */
+    int capacity_assumed; /* no estimate: rated capacity, 5 % spread */
     double r0_mohm, r0_sd_mohm;
     double r1_mohm, tau_s;      /* NAN without an RC branch */
     double power_w, power_sd_w; /* cruise power, NAN when unknown */
     char source[200];
 };
-
 
 #endif

@@ -18,7 +18,8 @@ struct series *series_new(int has_current, int has_temp, int ncells)
     s->t_s = malloc(sizeof(double));
     s->v_v = malloc(sizeof(double));
     s->line = malloc(sizeof(uint32_t));
-    int bad = !s->t_s || !s->v_v || !s->line || (has_current && !s->i_a) || (has_temp && !s->temp_c);
+    int bad =
+        !s->t_s || !s->v_v || !s->line || (has_current && !s->i_a) || (has_temp && !s->temp_c);
     for (int c = 0; c < ncells; c++) {
         s->cell_v[c] = malloc(sizeof(double));
         bad |= !s->cell_v[c];
@@ -63,8 +64,7 @@ int series_reserve_one(struct series *s)
     /* Grow by half: large blocks are mremap'd by glibc, so growth costs no
      * copy and peak memory stays near 1.5x the data. */
     size_t cap = s->cap < 1024 ? 1024 : s->cap + s->cap / 2;
-    if (grow(&s->t_s, cap) || grow(&s->v_v, cap) || grow(&s->i_a, cap) ||
-        grow(&s->temp_c, cap))
+    if (grow(&s->t_s, cap) || grow(&s->v_v, cap) || grow(&s->i_a, cap) || grow(&s->temp_c, cap))
         return -1;
     uint32_t *l = realloc(s->line, cap * sizeof *l);
     if (!l)

@@ -63,7 +63,8 @@ int report_pack_list(FILE *out, const struct pack_rec *p, size_t n, int json)
                 p[k].retired_at[0] ? "retired " : "in service", p[k].retired_at);
     }
     if (n == 0)
-        fprintf(out, "(no packs yet: packbook pack add ID --cells N --chemistry C --capacity MAH)\n");
+        fprintf(out,
+                "(no packs yet: packbook pack add ID --cells N --chemistry C --capacity MAH)\n");
     return ferror(out) ? -1 : 0;
 }
 
@@ -74,10 +75,10 @@ static json_t *health_obj(const struct pack_view *v)
                      (json_int_t)h->flights, "equivalent_cycles", jout_num(h->cycles), "last_flown",
                      jout_date(h->last_epoch_s), "r0_mohm_per_cell", jout_num(h->r0_now_mohm_cell),
                      "r0_baseline_mohm_per_cell", jout_num(h->r0_base_mohm_cell), "r0_ratio",
-                     jout_num(h->r0_ratio), "capacity_pct", jout_num(h->capacity_pct), "cell_spread_mv",
-                     jout_num(h->spread_mv), "overdischarges", h->overdischarges, "status",
-                     v->pack.retired_at[0] ? "retired" : health_status_name(h->status), "reason",
-                     v->pack.retired_at[0] ? v->pack.retire_reason : h->reason);
+                     jout_num(h->r0_ratio), "capacity_pct", jout_num(h->capacity_pct),
+                     "cell_spread_mv", jout_num(h->spread_mv), "overdischarges", h->overdischarges,
+                     "status", v->pack.retired_at[0] ? "retired" : health_status_name(h->status),
+                     "reason", v->pack.retired_at[0] ? v->pack.retire_reason : h->reason);
 }
 
 static const char *status_of(const struct pack_view *v)
@@ -91,9 +92,10 @@ static json_t *flight_obj(const struct flight_rec *f)
                      jout_date(f->flown_epoch_s), "date_source", f->date_source, "source",
                      f->source, "duration_s", jout_num(f->duration_s), "charge_used_mah",
                      jout_num(f->charge_used_mah), "r0_mohm", jout_num(f->r0_mohm), "capacity_mah",
-                     jout_num(f->capacity_mah), "soc_start_pct", jout_num(f->soc_start_pct), "soc_end_pct",
-                     jout_num(f->soc_end_pct), "cell_spread_rest_mv", jout_num(f->cell_spread_rest_mv),
-                     "time_below_floor_s", jout_num(f->time_below_floor_s), "warnings", f->warnings);
+                     jout_num(f->capacity_mah), "soc_start_pct", jout_num(f->soc_start_pct),
+                     "soc_end_pct", jout_num(f->soc_end_pct), "cell_spread_rest_mv",
+                     jout_num(f->cell_spread_rest_mv), "time_below_floor_s",
+                     jout_num(f->time_below_floor_s), "warnings", f->warnings);
 }
 
 int report_pack_show(FILE *out, const struct pack_view *v, int json)
@@ -121,13 +123,15 @@ int report_pack_show(FILE *out, const struct pack_view *v, int json)
         fprintf(out, "  retired %s: %s\n", p->retired_at, p->retire_reason);
     fprintf(out, "  %zu flights, %.1f equivalent cycles, last flown %s\n", h->flights,
             isfinite(h->cycles) ? h->cycles : 0.0, day(h->last_epoch_s, b1, sizeof b1));
-    fprintf(out, "  R0 %s mOhm/cell now, baseline %s (x%s); capacity %s %% of rated; spread %s mV\n",
+    fprintf(out,
+            "  R0 %s mOhm/cell now, baseline %s (x%s); capacity %s %% of rated; spread %s mV\n",
             fmt_num(b1, sizeof b1, "%.2f", h->r0_now_mohm_cell),
             fmt_num(b2, sizeof b2, "%.2f", h->r0_base_mohm_cell),
             fmt_num(b3, sizeof b3, "%.2f", h->r0_ratio),
             fmt_num((char[32]){0}, 32, "%.0f", h->capacity_pct),
             fmt_num((char[32]){0}, 32, "%.0f", h->spread_mv));
-    fprintf(out, "  status: %s (%s)\n", status_of(v), p->retired_at[0] ? p->retire_reason : h->reason);
+    fprintf(out, "  status: %s (%s)\n", status_of(v),
+            p->retired_at[0] ? p->retire_reason : h->reason);
     if (v->nflights) {
         fprintf(out, "\n  %-10s %8s %9s %9s %10s %11s %6s\n", "date", "min", "mAh", "R0 mOhm",
                 "cap mAh", "SoC %", "warn");
@@ -138,8 +142,9 @@ int report_pack_show(FILE *out, const struct pack_view *v, int json)
                 snprintf(soc, sizeof soc, "%.0f->%.0f", f->soc_start_pct, f->soc_end_pct);
             else
                 snprintf(soc, sizeof soc, "-");
-            fprintf(out, "  %-10s %8.1f %9s %9s %10s %11s %6d\n", day(f->flown_epoch_s, b1, sizeof b1),
-                    f->duration_s / 60.0, fmt_num(b2, sizeof b2, "%.0f", f->charge_used_mah),
+            fprintf(out, "  %-10s %8.1f %9s %9s %10s %11s %6d\n",
+                    day(f->flown_epoch_s, b1, sizeof b1), f->duration_s / 60.0,
+                    fmt_num(b2, sizeof b2, "%.0f", f->charge_used_mah),
                     fmt_num(b3, sizeof b3, "%.2f", f->r0_mohm),
                     fmt_num((char[32]){0}, 32, "%.0f", f->capacity_mah), soc, f->warnings);
         }
@@ -149,8 +154,8 @@ int report_pack_show(FILE *out, const struct pack_view *v, int json)
 
 void report_csv_cell(FILE *out, const char *t)
 {
-    int formula = t[0] == '=' || t[0] == '+' || t[0] == '-' || t[0] == '@' || t[0] == '\t' ||
-                  t[0] == '\r';
+    int formula =
+        t[0] == '=' || t[0] == '+' || t[0] == '-' || t[0] == '@' || t[0] == '\t' || t[0] == '\r';
     int quote = formula || strpbrk(t, ",\"\n\r") != NULL;
     if (quote)
         fputc('"', out);
@@ -193,8 +198,9 @@ int report_fleet(FILE *out, const struct pack_view *v, size_t n, enum fleet_form
         return jout_write(out, a);
     }
     if (fmt == FLEET_CSV) {
-        fprintf(out, "pack,flights,equivalent_cycles,last_flown,r0_mohm_per_cell,r0_ratio,"
-                     "capacity_pct,cell_spread_mv,overdischarges,status,reason%s\n",
+        fprintf(out,
+                "pack,flights,equivalent_cycles,last_flown,r0_mohm_per_cell,r0_ratio,"
+                "capacity_pct,cell_spread_mv,overdischarges,status,reason%s\n",
                 safe ? ",safe_time_conservative_s,safe_time_median_s" : "");
         char b[32];
         for (size_t k = 0; k < n; k++) {
@@ -236,8 +242,9 @@ int report_fleet(FILE *out, const struct pack_view *v, size_t n, enum fleet_form
                 v[k].pack.retired_at[0] ? v[k].pack.retire_reason : h->reason);
     }
     if (safe)
-        fprintf(out, "safe min: conservative safe flight time to a 30 %% reserve at %s; an estimate,\n"
-                     "not a substitute for the aircraft's low-voltage protection\n",
+        fprintf(out,
+                "safe min: conservative safe flight time to a 30 %% reserve at %s; an estimate,\n"
+                "not a substitute for the aircraft's low-voltage protection\n",
                 "each pack's recent cruise power (or --power)");
     if (n == 0)
         fprintf(out, "(no packs match)\n");
@@ -292,19 +299,18 @@ int report_trend(FILE *out, const struct pack_view *v, enum trend_by by, double 
         json_t *b = json_array();
         for (size_t k = 0; k < t->nbuckets; k++) {
             const struct trend_bucket *x = &t->buckets[k];
-            json_array_append_new(b, json_pack("{s:s, s:I, s:o, s:o, s:o, s:o, s:o}", "bucket",
-                                               x->key, "flights", (json_int_t)x->flights, "first",
-                                               jout_date(x->first_epoch_s), "last",
-                                               jout_date(x->last_epoch_s), "charge_mah",
-                                               jout_num(x->charge_mah), "r0_mohm_per_cell",
-                                               jout_num(x->r0_mohm_cell), "capacity_pct",
-                                               jout_num(x->capacity_pct)));
+            json_array_append_new(
+                b, json_pack("{s:s, s:I, s:o, s:o, s:o, s:o, s:o}", "bucket", x->key, "flights",
+                             (json_int_t)x->flights, "first", jout_date(x->first_epoch_s), "last",
+                             jout_date(x->last_epoch_s), "charge_mah", jout_num(x->charge_mah),
+                             "r0_mohm_per_cell", jout_num(x->r0_mohm_cell), "capacity_pct",
+                             jout_num(x->capacity_pct)));
         }
         json_t *o = json_pack("{s:s, s:s, s:f, s:o, s:o, s:o, s:o, s:o}", "id", v->pack.label, "by",
                               bynames[by], "horizon_cycles", horizon, "equivalent_cycles",
                               jout_num(t->cycles_now), "buckets", b, "r0_mohm_per_cell",
-                              trend_line_obj(&t->r0), "capacity_pct",
-                              trend_line_obj(&t->capacity), "health", health_obj(v));
+                              trend_line_obj(&t->r0), "capacity_pct", trend_line_obj(&t->capacity),
+                              "health", health_obj(v));
         return jout_write(out, o);
     }
     char b1[32], b2[32], b3[32];
@@ -334,10 +340,10 @@ int report_compare(FILE *out, const struct pack_view *v, size_t n, int json)
     if (json) {
         json_t *a = json_array();
         for (size_t k = 0; k < n; k++) {
-            json_t *o = json_pack("{s:s, s:o, s:o, s:o}", "id", v[k].pack.label, "health",
-                                  health_obj(&v[k]), "r0_mohm_per_cell",
-                                  trend_line_obj(&v[k].trend.r0), "capacity_pct",
-                                  trend_line_obj(&v[k].trend.capacity));
+            json_t *o =
+                json_pack("{s:s, s:o, s:o, s:o}", "id", v[k].pack.label, "health",
+                          health_obj(&v[k]), "r0_mohm_per_cell", trend_line_obj(&v[k].trend.r0),
+                          "capacity_pct", trend_line_obj(&v[k].trend.capacity));
             json_array_append_new(a, o);
         }
         return jout_write(out, a);
@@ -361,18 +367,20 @@ int report_compare(FILE *out, const struct pack_view *v, size_t n, int json)
     ROW("last flown", day(x->health.last_epoch_s, b, sizeof b));
     ROW("R0 mOhm/cell now", fmt_num(b, sizeof b, "%.2f", x->health.r0_now_mohm_cell));
     ROW("R0 vs baseline", fmt_num(b, sizeof b, "x%.2f", x->health.r0_ratio));
-    ROW("R0 per 100 cycles", fmt_num(b, sizeof b, "%+.3f",
-                                     x->trend.r0.vs_cycles.ok ? 100 * x->trend.r0.vs_cycles.b : NAN));
+    ROW("R0 per 100 cycles",
+        fmt_num(b, sizeof b, "%+.3f",
+                x->trend.r0.vs_cycles.ok ? 100 * x->trend.r0.vs_cycles.b : NAN));
     ROW("capacity % of rated", fmt_num(b, sizeof b, "%.0f", x->health.capacity_pct));
-    ROW("capacity per 100 cycles", fmt_num(b, sizeof b, "%+.2f",
-                                           x->trend.capacity.vs_cycles.ok
-                                               ? 100 * x->trend.capacity.vs_cycles.b : NAN));
+    ROW("capacity per 100 cycles",
+        fmt_num(b, sizeof b, "%+.2f",
+                x->trend.capacity.vs_cycles.ok ? 100 * x->trend.capacity.vs_cycles.b : NAN));
     ROW("cell spread mV", fmt_num(b, sizeof b, "%.0f", x->health.spread_mv));
     ROW("flights below floor", fmt_num(b, sizeof b, "%.0f", (double)x->health.overdischarges));
-    ROW("capacity limit at cycle", x->trend.capacity.crossed ? "reached"
-                                   : fmt_num(b, sizeof b, "%.0f", x->trend.capacity.cross_cycles));
-    ROW("R0 limit at cycle", x->trend.r0.crossed ? "reached"
-                             : fmt_num(b, sizeof b, "%.0f", x->trend.r0.cross_cycles));
+    ROW("capacity limit at cycle",
+        x->trend.capacity.crossed ? "reached"
+                                  : fmt_num(b, sizeof b, "%.0f", x->trend.capacity.cross_cycles));
+    ROW("R0 limit at cycle",
+        x->trend.r0.crossed ? "reached" : fmt_num(b, sizeof b, "%.0f", x->trend.r0.cross_cycles));
     ROW("status", status_of(x));
 #undef ROW
     for (size_t k = 0; k < n; k++)

@@ -20,15 +20,14 @@ static json_t *input_obj(const struct report_input *in)
                      st->short_row.count + st->duplicate_time.count;
     char delim[2] = {st->delimiter, 0}, dec[2] = {st->decimal, 0};
     const char *tf = st->time_is_iso ? "iso8601" : st->time_is_epoch ? "unix" : "relative";
-    return json_pack("{s:s, s:s, s:b, s:I, s:I, s:I, s:I, s:I, s:I, s:s, s:s, s:b, s:b}",
-                     "delimiter", strcmp(delim, "\t") == 0 ? "tab" : delim, "decimal", dec,
-                     "header", st->has_header, "header_line", (json_int_t)st->header_line,
-                     "lines", (json_int_t)st->lines, "records", (json_int_t)st->records, "kept",
-                     (json_int_t)st->kept, "dropped", (json_int_t)dropped, "repaired",
-                     (json_int_t)st->temp_repaired.count, "time_format", tf, "current_sign",
-                     st->sign_flipped ? "flipped (logged discharge-negative)" : "as logged",
-                     "current_from_adc", st->current_is_raw, "voltage_from_cells",
-                     st->voltage_from_cells);
+    return json_pack(
+        "{s:s, s:s, s:b, s:I, s:I, s:I, s:I, s:I, s:I, s:s, s:s, s:b, s:b}", "delimiter",
+        strcmp(delim, "\t") == 0 ? "tab" : delim, "decimal", dec, "header", st->has_header,
+        "header_line", (json_int_t)st->header_line, "lines", (json_int_t)st->lines, "records",
+        (json_int_t)st->records, "kept", (json_int_t)st->kept, "dropped", (json_int_t)dropped,
+        "repaired", (json_int_t)st->temp_repaired.count, "time_format", tf, "current_sign",
+        st->sign_flipped ? "flipped (logged discharge-negative)" : "as logged", "current_from_adc",
+        st->current_is_raw, "voltage_from_cells", st->voltage_from_cells);
 }
 
 static json_t *analysis_obj(const struct analysis *a, const struct report_input *in)
@@ -39,19 +38,23 @@ static json_t *analysis_obj(const struct analysis *a, const struct report_input 
     json_object_set_new(o, "samples", json_integer((json_int_t)a->samples));
     json_object_set_new(o, "duration_s", jout_num(a->duration_s));
     json_object_set_new(o, "start_time",
-                        a->has_epoch ? json_string(isotime_format(a->start_epoch_s, when, sizeof when))
-                                     : json_null());
+                        a->has_epoch
+                            ? json_string(isotime_format(a->start_epoch_s, when, sizeof when))
+                            : json_null());
     json_object_set_new(o, "cells", a->cells > 0 ? json_integer(a->cells) : json_null());
     json_object_set_new(o, "cells_source", json_string(a->cells_source));
     json_object_set_new(o, "chemistry", json_string(a->chem->name));
     json_object_set_new(o, "chemistry_assumed", json_boolean(a->chem_assumed));
     json_object_set_new(o, "rated_capacity_mah",
-                        in->opts->capacity_mah > 0 ? json_real(in->opts->capacity_mah) : json_null());
+                        in->opts->capacity_mah > 0 ? json_real(in->opts->capacity_mah)
+                                                   : json_null());
     json_object_set_new(o, "charge_used_mah", jout_num(a->charge_used_mah));
-    json_object_set_new(o, "charge_discharged_mah", jout_num(a->has_current ? a->cc.discharged_mah : NAN));
+    json_object_set_new(o, "charge_discharged_mah",
+                        jout_num(a->has_current ? a->cc.discharged_mah : NAN));
     json_object_set_new(o, "charge_regen_mah", jout_num(a->has_current ? a->cc.regen_mah : NAN));
     json_object_set_new(o, "energy_used_wh", jout_num(a->energy_used_wh));
-    json_object_set_new(o, "energy_discharged_wh", jout_num(a->has_current ? a->cc.discharged_wh : NAN));
+    json_object_set_new(o, "energy_discharged_wh",
+                        jout_num(a->has_current ? a->cc.discharged_wh : NAN));
     json_object_set_new(o, "energy_regen_wh", jout_num(a->has_current ? a->cc.regen_wh : NAN));
     json_object_set_new(o, "current_max_a", jout_num(a->current_max_a));
     json_object_set_new(o, "current_mean_a", jout_num(a->current_mean_a));
@@ -66,7 +69,8 @@ static json_t *analysis_obj(const struct analysis *a, const struct report_input 
     json_object_set_new(o, "voltage_end_v", jout_num(a->voltage_end_v));
     json_object_set_new(o, "cell_voltage_min_v", jout_num(a->cell_min_loaded_v));
     json_object_set_new(o, "floor_v_per_cell", jout_num(a->floor_v));
-    json_object_set_new(o, "time_below_floor_s", jout_num(a->cells > 0 ? a->time_below_floor_s : NAN));
+    json_object_set_new(o, "time_below_floor_s",
+                        jout_num(a->cells > 0 ? a->time_below_floor_s : NAN));
     json_object_set_new(o, "r0_mohm", est(a->r0_mohm));
     json_object_set_new(o, "r0_method", jout_str(a->r0_method));
     json_object_set_new(o, "r0_mohm_per_cell",
@@ -91,33 +95,35 @@ static json_t *analysis_obj(const struct analysis *a, const struct report_input 
     json_object_set_new(o, "temperature_max_c", jout_num(a->temp_max_c));
     json_object_set_new(o, "gaps",
                         json_pack("{s:I, s:o, s:o, s:o, s:o}", "count", (json_int_t)a->cc.gaps,
-                                  "threshold_s", jout_num(a->gap_s), "total_s", jout_num(a->cc.gap_total_s),
-                                  "longest_s", jout_num(a->cc.gap_longest_s), "charge_bridged_mah",
+                                  "threshold_s", jout_num(a->gap_s), "total_s",
+                                  jout_num(a->cc.gap_total_s), "longest_s",
+                                  jout_num(a->cc.gap_longest_s), "charge_bridged_mah",
                                   jout_num(a->has_current ? a->cc.gap_charge_mah : NAN)));
     json_t *coef = json_array();
     for (int j = 0; a->has_current && j <= a->ocv_degree && j < OCV_POLY_MAX; j++)
         json_array_append_new(coef, jout_num(a->ocv_coef_v[j]));
-    json_object_set_new(o, "fit",
-                        json_pack("{s:s, s:o, s:I, s:i, s:i, s:o, s:o, s:o, s:I, s:I}", "method",
-                                  in->plain_fit ? "ols" : "robust", "sigma_mv",
-                                  jout_num(a->has_current ? a->fit_sigma_mv : NAN), "downweighted",
-                                  (json_int_t)a->fit_downweighted, "iterations", a->fit_iterations, "ocv_degree", a->ocv_degree,
-                                  "ocv_coef_v", coef, "q_end_ah", jout_num(a->q_end_ah),
-                                  "median_interval_s", jout_num(a->median_dt_s), "current_steps",
-                                  (json_int_t)a->current_steps, "rows_visited",
-                                  (json_int_t)a->fit_rows_visited));
+    json_object_set_new(
+        o, "fit",
+        json_pack("{s:s, s:o, s:I, s:i, s:i, s:o, s:o, s:o, s:I, s:I}", "method",
+                  in->plain_fit ? "ols" : "robust", "sigma_mv",
+                  jout_num(a->has_current ? a->fit_sigma_mv : NAN), "downweighted",
+                  (json_int_t)a->fit_downweighted, "iterations", a->fit_iterations, "ocv_degree",
+                  a->ocv_degree, "ocv_coef_v", coef, "q_end_ah", jout_num(a->q_end_ah),
+                  "median_interval_s", jout_num(a->median_dt_s), "current_steps",
+                  (json_int_t)a->current_steps, "rows_visited", (json_int_t)a->fit_rows_visited));
     json_t *cells = json_array();
     for (int c = 0; c < a->ncells_detail; c++) {
         const struct cell_detail *d = &a->cell[c];
-        json_array_append_new(cells, json_pack("{s:i, s:o, s:o, s:o}", "index", d->index,
-                                               "r0_mohm", est(d->r0_mohm), "voltage_min_v",
+        json_array_append_new(cells, json_pack("{s:i, s:o, s:o, s:o}", "index", d->index, "r0_mohm",
+                                               est(d->r0_mohm), "voltage_min_v",
                                                jout_num(d->voltage_min_v), "voltage_rest_v",
                                                jout_num(d->voltage_rest_v)));
     }
     json_object_set_new(o, "cells_detail", cells);
     json_object_set_new(o, "cell_spread_rest_mv", jout_num(a->spread_rest_mv));
     json_object_set_new(o, "cell_spread_load_mv", jout_num(a->spread_load_mv));
-    json_object_set_new(o, "weakest_cell", a->weakest_cell ? json_integer(a->weakest_cell) : json_null());
+    json_object_set_new(o, "weakest_cell",
+                        a->weakest_cell ? json_integer(a->weakest_cell) : json_null());
     json_object_set_new(o, "input", input_obj(in));
     json_t *w = json_array();
     for (size_t k = 0; k < a->nwarnings; k++)

@@ -98,8 +98,8 @@ int report_analysis_text(FILE *out, const struct analysis *a, const struct repor
         }
     }
     key(out, "open circuit");
-    fprintf(out, "%.3f V at start (%s), %.3f V at end (%s)\n", a->ocv_start_v,
-            a->ocv_start_method, a->ocv_end_v, a->ocv_end_method);
+    fprintf(out, "%.3f V at start (%s), %.3f V at end (%s)\n", a->ocv_start_v, a->ocv_start_method,
+            a->ocv_end_v, a->ocv_end_method);
     key(out, "state of charge");
     est(out, a->soc_start_pct, "%.0f", "%");
     if (a->state_start)

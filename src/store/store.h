@@ -26,10 +26,10 @@ struct pack_rec {
     int parallel;
     char chemistry[16];
     double capacity_mah;
-    char since[32];          /* ISO date or "" */
+    char since[32]; /* ISO date or "" */
     char note[256];
     char created_at[32];
-    char retired_at[32];     /* "" while in service */
+    char retired_at[32]; /* "" while in service */
     char retire_reason[256];
 };
 
@@ -45,7 +45,7 @@ struct flight_rec {
     char content_hash[40];
     char source[256];
     double flown_epoch_s;
-    char date_source[16];    /* "log", "option" or "mtime" */
+    char date_source[16]; /* "log", "option" or "mtime" */
     double duration_s;
     double charge_used_mah, energy_used_wh;
     double current_max_a, current_mean_a, power_mean_w, power_cruise_w;

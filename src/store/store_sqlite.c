@@ -20,7 +20,7 @@
 struct store {
     sqlite3 *db;
     char path[1024];
-    int saved_code;        /* error of a failed transaction step, kept past its ROLLBACK */
+    int saved_code; /* error of a failed transaction step, kept past its ROLLBACK */
     char saved_msg[256];
 };
 
@@ -158,7 +158,8 @@ static enum pb_code migrate(struct store *st, struct pb_error *err)
     if (have > want)
         return pb_error_set(err, PB_ESTORE,
                             "%s: schema version %d is newer than this packbook knows (%d): "
-                            "upgrade packbook", st->path, have, want);
+                            "upgrade packbook",
+                            st->path, have, want);
     for (int v = have; v < want; v++) {
         char setver[64];
         snprintf(setver, sizeof setver, "PRAGMA user_version = %d", v + 1);
@@ -191,8 +192,8 @@ enum pb_code store_open(const char *path, int create, struct store **out, struct
     snprintf(st->path, sizeof st->path, "%s", path);
     if (!create && access(path, F_OK) != 0) {
         free(st);
-        return pb_error_set(err, PB_ESTORE, "%s: no history yet (add a pack with 'packbook pack add')",
-                            path);
+        return pb_error_set(err, PB_ESTORE,
+                            "%s: no history yet (add a pack with 'packbook pack add')", path);
     }
     if (create && mkdir_parents(path) != 0) {
         free(st);
@@ -216,8 +217,10 @@ enum pb_code store_open(const char *path, int create, struct store **out, struct
     /* switching a new file to WAL takes an exclusive lock that SQLite does
      * not wait for (its busy handler is skipped to avoid deadlock): retry */
     for (int attempt = 0;; attempt++) {
-        prc = sqlite3_exec(st->db, "PRAGMA foreign_keys = ON; PRAGMA journal_mode = WAL;"
-                                   "PRAGMA synchronous = NORMAL;", NULL, NULL, &msg);
+        prc = sqlite3_exec(st->db,
+                           "PRAGMA foreign_keys = ON; PRAGMA journal_mode = WAL;"
+                           "PRAGMA synchronous = NORMAL;",
+                           NULL, NULL, &msg);
         if ((prc & 0xff) != SQLITE_BUSY || attempt >= 200)
             break;
         sqlite3_free(msg);
@@ -277,8 +280,9 @@ static void read_pack(sqlite3_stmt *s, struct pack_rec *p)
     copy_text(p->retire_reason, sizeof p->retire_reason, s, 10);
 }
 
-#define PACK_COLS "id, label, cells, parallel, chemistry, capacity_mah, since, note, created_at, " \
-                  "retired_at, retire_reason"
+#define PACK_COLS                                                                                  \
+    "id, label, cells, parallel, chemistry, capacity_mah, since, note, created_at, "               \
+    "retired_at, retire_reason"
 
 static void bind_text_or_null(sqlite3_stmt *s, int i, const char *t)
 {
@@ -387,8 +391,9 @@ enum pb_code store_pack_retire(struct store *st, const char *label, const char *
     char now[32];
     now_iso(now, sizeof now);
     sqlite3_stmt *s = NULL;
-    if (sqlite3_prepare_v2(st->db, "UPDATE packs SET retired_at = ?, retire_reason = ? WHERE id = ?",
-                           -1, &s, NULL) != SQLITE_OK)
+    if (sqlite3_prepare_v2(st->db,
+                           "UPDATE packs SET retired_at = ?, retire_reason = ? WHERE id = ?", -1,
+                           &s, NULL) != SQLITE_OK)
         return db_error(st, err, "cannot retire the pack");
     sqlite3_bind_text(s, 1, now, -1, SQLITE_TRANSIENT);
     sqlite3_bind_text(s, 2, reason, -1, SQLITE_TRANSIENT);
@@ -416,11 +421,12 @@ static double col_num(sqlite3_stmt *s, int i)
 }
 
 #define FLIGHT_NUMS                                                                                \
-    X(duration_s) X(charge_used_mah) X(energy_used_wh) X(current_max_a) X(current_mean_a)          \
-    X(power_mean_w) X(voltage_min_v) X(cell_voltage_min_v) X(time_below_floor_s) X(r0_mohm)         \
-    X(r0_ci95_mohm) X(r1_mohm) X(tau_s) X(soc_start_pct) X(soc_end_pct) X(capacity_mah)            \
-    X(capacity_ci95_mah) X(cell_spread_rest_mv) X(cell_spread_load_mv) X(temperature_max_c)        \
-    X(power_cruise_w)
+    X(duration_s)                                                                                  \
+    X(charge_used_mah) X(energy_used_wh) X(current_max_a) X(current_mean_a) X(power_mean_w)        \
+        X(voltage_min_v) X(cell_voltage_min_v) X(time_below_floor_s) X(r0_mohm) X(r0_ci95_mohm)    \
+            X(r1_mohm) X(tau_s) X(soc_start_pct) X(soc_end_pct) X(capacity_mah)                    \
+                X(capacity_ci95_mah) X(cell_spread_rest_mv) X(cell_spread_load_mv)                 \
+                    X(temperature_max_c) X(power_cruise_w)
 
 #define X(name) #name ", "
 static const char flight_num_cols[] = FLIGHT_NUMS;
@@ -439,7 +445,8 @@ static int put_once(struct store *st, const struct flight_rec *f, const char *js
     }
     rc = sqlite3_prepare_v2(st->db,
                             "SELECT p.label FROM flights f JOIN packs p ON p.id = f.pack_id "
-                            "WHERE f.content_hash = ?", -1, &s, NULL);
+                            "WHERE f.content_hash = ?",
+                            -1, &s, NULL);
     if (rc != SQLITE_OK)
         goto fail;
     sqlite3_bind_text(s, 1, f->content_hash, -1, SQLITE_TRANSIENT);
@@ -461,8 +468,8 @@ static int put_once(struct store *st, const struct flight_rec *f, const char *js
     int used = snprintf(sql, sizeof sql,
                         "INSERT INTO flights (pack_id, content_hash, source, flown_at, "
                         "flown_epoch_s, date_source, imported_at, weakest_cell, warnings, "
-                        "report_json, %.*s) VALUES (?", (int)strlen(flight_num_cols) - 2,
-                        flight_num_cols);
+                        "report_json, %.*s) VALUES (?",
+                        (int)strlen(flight_num_cols) - 2, flight_num_cols);
     /* one placeholder per column: 10 named above plus the numeric ones */
     int ncols = 10;
     for (const char *q = flight_num_cols; *q; q++)
@@ -500,7 +507,8 @@ static int put_once(struct store *st, const struct flight_rec *f, const char *js
     sqlite3_int64 fid = sqlite3_last_insert_rowid(st->db);
     rc = sqlite3_prepare_v2(st->db,
                             "INSERT INTO flight_cells (flight_id, cell, r0_mohm, voltage_min_v, "
-                            "voltage_rest_v) VALUES (?, ?, ?, ?, ?)", -1, &s, NULL);
+                            "voltage_rest_v) VALUES (?, ?, ?, ?, ?)",
+                            -1, &s, NULL);
     if (rc != SQLITE_OK)
         goto fail;
     for (int c = 0; c < f->ncells; c++) {
@@ -533,8 +541,7 @@ fail:
 }
 
 enum pb_code store_flight_put(struct store *st, const struct flight_rec *f, const char *report_json,
-                              int *duplicate, char *dup_label, size_t dup_cap,
-                              struct pb_error *err)
+                              int *duplicate, char *dup_label, size_t dup_cap, struct pb_error *err)
 {
     *duplicate = 0;
     for (int attempt = 0; attempt < BUSY_RETRIES; attempt++) {
@@ -563,8 +570,9 @@ enum pb_code store_flights_of(struct store *st, int64_t pack_id, struct flight_r
              "warnings, %.*s FROM flights WHERE pack_id = ? ORDER BY flown_epoch_s, id",
              (int)strlen(flight_num_cols) - 2, flight_num_cols);
     if (sqlite3_prepare_v2(st->db, sql, -1, &s, NULL) != SQLITE_OK ||
-        sqlite3_prepare_v2(st->db, "SELECT cell, r0_mohm, voltage_min_v, voltage_rest_v FROM "
-                                   "flight_cells WHERE flight_id = ? ORDER BY cell",
+        sqlite3_prepare_v2(st->db,
+                           "SELECT cell, r0_mohm, voltage_min_v, voltage_rest_v FROM "
+                           "flight_cells WHERE flight_id = ? ORDER BY cell",
                            -1, &c, NULL) != SQLITE_OK) {
         sqlite3_finalize(s);
         return db_error(st, err, "cannot read flights");

@@ -46,8 +46,8 @@ int LLVMFuzzerTestOneInput(const uint8_t *data, size_t size)
     fclose(fp);
     if (s) {
         struct analysis *a = analysis_new();
-        struct analyze_opts ao = {.chemistry = (sel >> 4) % 4, .cells = (sel & 16) ? 2 : 0,
-                                  .plain_fit = (sel >> 6) & 1};
+        struct analyze_opts ao = {
+            .chemistry = (sel >> 4) % 4, .cells = (sel & 16) ? 2 : 0, .plain_fit = (sel >> 6) & 1};
         if (a)
             analyze_series(s, &st, "fuzz", &ao, a, &err);
         analysis_free(a);

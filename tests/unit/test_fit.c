@@ -116,10 +116,8 @@ int main(void)
 {
     gsl_set_error_handler_off();
     const struct CMUnitTest tests[] = {
-        cmocka_unit_test(test_exact),
-        cmocka_unit_test(test_slope_se),
-        cmocka_unit_test(test_robust_outliers),
-        cmocka_unit_test(test_rank_deficient),
+        cmocka_unit_test(test_exact),           cmocka_unit_test(test_slope_se),
+        cmocka_unit_test(test_robust_outliers), cmocka_unit_test(test_rank_deficient),
         cmocka_unit_test(test_too_few_rows),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);

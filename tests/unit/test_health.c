@@ -73,9 +73,12 @@ static void test_rules(void **state)
     health_rules_default(&r);
     struct health_flight f[10];
     for (int k = 0; k < 10; k++) {
-        f[k] = (struct health_flight){.epoch_s = 1e9 + k * 86400.0, .charge_mah = 4000,
-                                      .r0_mohm = 16.0, .capacity_mah = 4900,
-                                      .spread_rest_mv = 5, .below_floor = 0};
+        f[k] = (struct health_flight){.epoch_s = 1e9 + k * 86400.0,
+                                      .charge_mah = 4000,
+                                      .r0_mohm = 16.0,
+                                      .capacity_mah = 4900,
+                                      .spread_rest_mv = 5,
+                                      .below_floor = 0};
     }
     struct pack_health h;
     health_assess(f, 10, 4, 5000, &r, &h);
@@ -111,11 +114,20 @@ static void test_trend_buckets_iso_weeks(void **state)
     struct health_rules r;
     health_rules_default(&r);
     struct health_flight f[3] = {
-        {.epoch_s = 1609632000.0 + 3600, .charge_mah = 1000, .r0_mohm = 10, .capacity_mah = NAN,
+        {.epoch_s = 1609632000.0 + 3600,
+         .charge_mah = 1000,
+         .r0_mohm = 10,
+         .capacity_mah = NAN,
          .spread_rest_mv = NAN}, /* 2021-01-03T01:00Z */
-        {.epoch_s = 1609718400.0 + 3600, .charge_mah = 1000, .r0_mohm = 10, .capacity_mah = NAN,
+        {.epoch_s = 1609718400.0 + 3600,
+         .charge_mah = 1000,
+         .r0_mohm = 10,
+         .capacity_mah = NAN,
          .spread_rest_mv = NAN}, /* 2021-01-04T01:00Z */
-        {.epoch_s = 1609718400.0 + 7200, .charge_mah = 1000, .r0_mohm = 12, .capacity_mah = NAN,
+        {.epoch_s = 1609718400.0 + 7200,
+         .charge_mah = 1000,
+         .r0_mohm = 12,
+         .capacity_mah = NAN,
          .spread_rest_mv = NAN},
     };
     struct pack_trend t;

@@ -49,7 +49,8 @@ static void test_semicolon_decimal_comma_ms_mv(void **state)
 static void test_tab_quotes_trailing_empty(void **state)
 {
     (void)state;
-    const char *text = "\"Time(s)\"\t\"Voltage(V)\"\t\"Current(A)\"\t\n1\t\"4.1\"\t2\t\n2\t4.0\t3\t\n";
+    const char *text =
+        "\"Time(s)\"\t\"Voltage(V)\"\t\"Current(A)\"\t\n1\t\"4.1\"\t2\t\n2\t4.0\t3\t\n";
     struct logread_opts o = {0};
     struct logread_stats st;
     struct pb_error err = {0};
@@ -67,14 +68,14 @@ static void test_counts_and_places(void **state)
     (void)state;
     const char *text = "time_s,voltage_v,current_a\n"
                        "0,16.0,1\n"
-                       "1,abc,1\n"     /* line 3 col 2: bad number */
-                       "2,nan,1\n"     /* line 4 col 2: non-finite */
-                       "2.5,,1\n"      /* line 5 col 2: empty */
-                       "3,16.0\n"      /* line 6: short */
+                       "1,abc,1\n" /* line 3 col 2: bad number */
+                       "2,nan,1\n" /* line 4 col 2: non-finite */
+                       "2.5,,1\n"  /* line 5 col 2: empty */
+                       "3,16.0\n"  /* line 6: short */
                        "4,15.9,2\n"
-                       "4,15.9,2\n"    /* line 8: duplicate time */
-                       "5,15.8,2,9\n"  /* line 9: extra field */
-                       "6,15.7";       /* line 10: truncated */
+                       "4,15.9,2\n"   /* line 8: duplicate time */
+                       "5,15.8,2,9\n" /* line 9: extra field */
+                       "6,15.7";      /* line 10: truncated */
     struct logread_opts o = {0};
     struct logread_stats st;
     struct pb_error err = {0};
@@ -179,7 +180,8 @@ static void test_adc_sense_chain(void **state)
     struct logread_opts o = {.have_adc = 1, .adc_a_per_count = a, .adc_offset_counts = 12};
     struct logread_stats st;
     struct pb_error err = {0};
-    struct series *s = read_text("time_s,voltage_v,current_adc\n0,16,12\n1,16,112\n", &o, &st, &err);
+    struct series *s =
+        read_text("time_s,voltage_v,current_adc\n0,16,12\n1,16,112\n", &o, &st, &err);
     assert_non_null(s);
     check_close(s->i_a[1], 100 * a, 1e-12, "counts minus offset times scale");
     series_free(s);

@@ -24,8 +24,8 @@
 
 static const double lin_soc[] = {0, 100};
 static const double lin_ocv[] = {3.0, 4.2};
-static const struct chem_info linear = {CHEM_LIPO, "linear", "linear", "test", 2, lin_soc, lin_ocv,
-                                        3.0, 4.15, 3.4, 2.5, 4.2};
+static const struct chem_info linear = {CHEM_LIPO, "linear", "linear", "test", 2,   lin_soc,
+                                        lin_ocv,   3.0,      4.15,     3.4,    2.5, 4.2};
 
 static void test_constant_current_closed_form(void **state)
 {

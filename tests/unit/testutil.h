@@ -9,7 +9,7 @@
     do {                                                                                           \
         double g_ = (got), w_ = (want), t_ = (tol);                                                \
         if (!(fabs(g_ - w_) <= t_))                                                                \
-            fail_msg("%s: got %.12g, want %.12g (tolerance %g)", (what), g_, w_, t_);           \
+            fail_msg("%s: got %.12g, want %.12g (tolerance %g)", (what), g_, w_, t_);              \
     } while (0)
 
 /* Relative form: |got - want| <= rel * |want|. */
