@@ -1,4 +1,5 @@
 #include <getopt.h>
+#include <math.h>
 #include <stdio.h>
 #include <string.h>
 
@@ -22,15 +23,18 @@ static const char usage_head[] =
 
 static const char usage_tail[] = "output:\n"
                                  "  --json                 one JSON document on standard output\n"
+                                 "  --series FILE          every sample as CSV: time, voltage, current, sag-corrected\n"
+                                 "                         OCV, SoC by counting, SoC from the OCV ('-': stdout)\n"
                                  "  -h, --help             this text\n";
 
-enum { OPT_CELLS = 256, OPT_CHEM, OPT_CAP, OPT_JSON };
+enum { OPT_CELLS = 256, OPT_CHEM, OPT_CAP, OPT_JSON, OPT_SERIES };
 
 static const struct option longopts[] = {
     {"cells", required_argument, NULL, OPT_CELLS},
     {"chemistry", required_argument, NULL, OPT_CHEM},
     {"capacity", required_argument, NULL, OPT_CAP},
     {"json", no_argument, NULL, OPT_JSON},
+    {"series", required_argument, NULL, OPT_SERIES},
     {"help", no_argument, NULL, 'h'},
     LOGOPTS_LONG,
     {NULL, 0, NULL, 0},
@@ -40,6 +44,7 @@ struct analyze_cli {
     struct log_cli log;
     int json;
     const char *path;
+    const char *series; /* --series FILE */
 };
 
 /* Fills cli from argv; sets *done when --help was printed instead. */
@@ -76,6 +81,9 @@ static enum pb_code parse_args(int argc, char **argv, struct analyze_cli *cli, i
         case OPT_JSON:
             cli->json = 1;
             break;
+        case OPT_SERIES:
+            cli->series = v;
+            break;
         case 'h':
             fputs(usage_head, stdout);
             fputs(logopts_usage, stdout);
@@ -99,11 +107,41 @@ static enum pb_code parse_args(int argc, char **argv, struct analyze_cli *cli, i
     return PB_OK;
 }
 
+static void emit_row(void *ctx, const struct sample_row *r)
+{
+    FILE *out = ctx;
+    double v[6] = {r->t_s, r->v_v, r->i_a, r->ocv_v, r->soc_cc_pct, r->soc_ocv_pct};
+    static const char *const fmt[6] = {"%.6g", "%.4f", "%.3f", "%.4f", "%.2f", "%.2f"};
+    for (int k = 0; k < 6; k++) {
+        if (k)
+            fputc(',', out);
+        if (isfinite(v[k]))
+            fprintf(out, fmt[k], v[k]);
+    }
+    fputc('\n', out);
+}
+
+static enum pb_code write_series(const char *path, const struct series *s,
+                                 const struct analysis *a, double rated_mah, struct pb_error *err)
+{
+    int to_stdout = strcmp(path, "-") == 0;
+    FILE *out = to_stdout ? stdout : fopen(path, "w");
+    if (!out)
+        return pb_error_set(err, PB_EOUTPUT, "cannot write '%s': %m", path);
+    fprintf(out, "time_s,voltage_v,current_a,ocv_v,soc_counted_pct,soc_ocv_pct\n");
+    analyze_rows(s, a, rated_mah, emit_row, out);
+    int bad = ferror(out);
+    if (!to_stdout)
+        bad |= fclose(out) != 0;
+    return bad ? pb_error_set(err, PB_EOUTPUT, "cannot write '%s'", path) : PB_OK;
+}
+
 enum pb_code cmd_analyze(int argc, char **argv, struct app *app, struct pb_error *err)
 {
     struct analyze_cli cli = {0};
     struct logread_stats stats;
     struct analysis *a = NULL;
+    struct series *s = NULL;
     (void)app;
 
     logopts_init(&cli.log);
@@ -111,16 +149,22 @@ enum pb_code cmd_analyze(int argc, char **argv, struct app *app, struct pb_error
     enum pb_code rc = parse_args(argc, argv, &cli, &done, err);
     if (rc != PB_OK || done)
         return rc;
-    rc = logopts_analyze(cli.path, &cli.log, &stats, &a, err);
+    rc = logopts_analyze(cli.path, &cli.log, &stats, &a, cli.series ? &s : NULL, err);
     if (rc != PB_OK)
         return rc;
     const char *name = strcmp(cli.path, "-") == 0 ? "(stdin)" : cli.path;
     struct report_input in = {name, &stats, &cli.log.an, cli.log.an.plain_fit};
-    if ((cli.json ? report_analysis_json(stdout, a, &in) : report_analysis_text(stdout, a, &in)) !=
-        0)
+    if (cli.series && (rc = write_series(cli.series, s, a, cli.log.an.capacity_mah, err)) != PB_OK)
+        goto cleanup;
+    if (cli.series && strcmp(cli.series, "-") == 0)
+        rc = cmd_finish_stdout(err); /* the series is the output */
+    else if ((cli.json ? report_analysis_json(stdout, a, &in)
+                       : report_analysis_text(stdout, a, &in)) != 0)
         rc = pb_error_set(err, PB_EOUTPUT, "cannot write the output");
     else
         rc = cmd_finish_stdout(err);
+cleanup:
+    series_free(s);
     analysis_free(a);
     return rc;
 }

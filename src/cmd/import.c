@@ -171,7 +171,7 @@ static enum outcome import_one(struct store *st, const struct pack_rec *pack,
     lc.an.capacity_mah = pack->capacity_mah;
     int is_stdin = strcmp(path, "-") == 0;
     const char *name = is_stdin ? "(stdin)" : path;
-    if (logopts_analyze(path, &lc, &stats, &a, err) != PB_OK)
+    if (logopts_analyze(path, &lc, &stats, &a, NULL, err) != PB_OK)
         goto cleanup;
 
     struct flight_rec f;

@@ -149,7 +149,7 @@ enum pb_code logopts_finish(struct log_cli *cli, struct pb_error *err)
 
 enum pb_code logopts_analyze(const char *path, const struct log_cli *cli,
                              struct logread_stats *stats, struct analysis **out,
-                             struct pb_error *err)
+                             struct series **series_out, struct pb_error *err)
 {
     int is_stdin = strcmp(path, "-") == 0;
     const char *name = is_stdin ? "(stdin)" : path;
@@ -175,6 +175,10 @@ enum pb_code logopts_analyze(const char *path, const struct log_cli *cli,
         goto cleanup;
     *out = a;
     a = NULL;
+    if (series_out) {
+        *series_out = s;
+        s = NULL;
+    }
 cleanup:
     if (!is_stdin)
         fclose(fp);

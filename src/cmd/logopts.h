@@ -68,9 +68,10 @@ int logopts_take(int c, const char *arg, struct log_cli *cli, struct pb_error *e
 enum pb_code logopts_finish(struct log_cli *cli, struct pb_error *err);
 
 /* Reads and analyses one log ("-" is stdin). On success *stats is filled
- * and *out is an analysis owned by the caller (analysis_free). */
+ * and *out is an analysis owned by the caller (analysis_free); so is the
+ * series in *series_out when that is not NULL (series_free). */
 enum pb_code logopts_analyze(const char *path, const struct log_cli *cli,
                              struct logread_stats *stats, struct analysis **out,
-                             struct pb_error *err);
+                             struct series **series_out, struct pb_error *err);
 
 #endif

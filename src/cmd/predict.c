@@ -439,7 +439,7 @@ enum pb_code cmd_predict(int argc, char **argv, struct app *app, struct pb_error
             warn[nwarn++] = "this pack is retired";
     } else {
         struct logread_stats stats;
-        if ((rc = logopts_analyze(cli.log_path, &cli.log, &stats, &a, err)) != PB_OK)
+        if ((rc = logopts_analyze(cli.log_path, &cli.log, &stats, &a, NULL, err)) != PB_OK)
             goto cleanup;
         if (a->cells <= 0 || !isfinite(a->r0_mohm.value)) {
             rc = pb_error_set(err, PB_EUSAGE, "%s: %s: cannot predict from this log", cli.log_path,

@@ -917,3 +917,38 @@ cleanup:
     free(u);
     return rc;
 }
+
+void analyze_rows(const struct series *s, const struct analysis *a, double rated_mah,
+                  void (*emit)(void *ctx, const struct sample_row *row), void *ctx)
+{
+    double r0 = a->r0_mohm.value / 1000.0;
+    double r1 = a->r1_mohm.value / 1000.0, tau = a->tau_s.value;
+    int rc = isfinite(r1) && isfinite(tau) && tau > 0;
+    double cap_ah = isfinite(a->capacity_mah.value) ? a->capacity_mah.value / 1000.0
+                    : rated_mah > 0                  ? rated_mah / 1000.0
+                                                     : NAN;
+    double q_ah = 0.0, v1 = 0.0;
+    for (size_t k = 0; k < s->n; k++) {
+        struct sample_row row = {s->t_s[k], s->v_v[k], s->i_a ? s->i_a[k] : NAN, NAN, NAN, NAN};
+        if (s->i_a) {
+            if (k > 0) {
+                double dt = s->t_s[k] - s->t_s[k - 1];
+                q_ah += coulomb_step_ah(dt, s->i_a[k - 1], s->i_a[k]);
+                if (rc) {
+                    double al = exp(-dt / tau);
+                    v1 = al * v1 + (1.0 - al) * r1 * s->i_a[k - 1];
+                }
+            } else if (rc) {
+                v1 = r1 * s->i_a[0];
+            }
+            if (isfinite(r0))
+                row.ocv_v = s->v_v[k] + r0 * s->i_a[k] + (rc ? v1 : 0.0);
+            if (isfinite(cap_ah) && isfinite(a->soc_start_pct.value))
+                row.soc_cc_pct = a->soc_start_pct.value - 100.0 * q_ah / cap_ah;
+        }
+        double v_ocv = isfinite(row.ocv_v) ? row.ocv_v : s->v_v[k];
+        if (a->cells > 0)
+            row.soc_ocv_pct = ocv_to_soc(a->chem, v_ocv / a->cells, NULL);
+        emit(ctx, &row);
+    }
+}

@@ -123,4 +123,18 @@ enum pb_code analyze_series(const struct series *s, const struct logread_stats *
                             const char *name, const struct analyze_opts *opts, struct analysis *out,
                             struct pb_error *err);
 
+/* One sample with what the analysis says of it. */
+struct sample_row {
+    double t_s, v_v, i_a;
+    double ocv_v;       /* sag-corrected open-circuit voltage (NAN without R0) */
+    double soc_cc_pct;  /* SoC by coulomb counting from the start SoC and the capacity */
+    double soc_ocv_pct; /* SoC read from ocv_v (or the loaded voltage) in the table */
+};
+
+/* Calls emit for every sample of s in order, with the sag-corrected OCV
+ * (V + R0 I, plus the RC branch's voltage when it was fitted) and both SoC
+ * series. Capacity for counting: the estimate, else rated_mah, else none. */
+void analyze_rows(const struct series *s, const struct analysis *a, double rated_mah,
+                  void (*emit)(void *ctx, const struct sample_row *row), void *ctx);
+
 #endif

@@ -105,6 +105,21 @@ class Truth(unittest.TestCase):
         self.assertEqual(doc["input"]["decimal"], ",")
         self.check_core(doc, truth, 51)
 
+    def test_series_output(self):
+        log, truth = generate(self.tmp, "series", "--seed", 71, "--cells", 4, "--soc0", 95)
+        out = os.path.join(self.tmp, "series.csv")
+        doc = pbtest.analyze_json(log, "--chemistry", "lipo", "--cells", 4, "--series", out)
+        import csv
+        with open(out) as f:
+            rows = list(csv.DictReader(f))
+        self.assertEqual(len(rows), doc["samples"])
+        # counted SoC ends where the generator's SoC ended (5 points, the start target)
+        self.assertLess(abs(float(rows[-1]["soc_counted_pct"]) - truth["soc_end_pct"]), 5.0)
+        # the sag-corrected OCV under load sits above the loaded voltage by about R0 I
+        k = max(range(len(rows)), key=lambda j: float(rows[j]["current_a"]))
+        lift = float(rows[k]["ocv_v"]) - float(rows[k]["voltage_v"])
+        self.assertGreater(lift, 0.9 * doc["r0_mohm"]["value"] / 1000 * float(rows[k]["current_a"]))
+
     def test_voltage_only(self):
         log, truth = generate(self.tmp, "vonly", "--seed", 61, "--format", "voltage-only",
                               "--soc0", 90)
