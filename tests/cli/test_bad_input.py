@@ -288,9 +288,10 @@ class BadInput(unittest.TestCase):
         p = subprocess.Popen(cmd, stdin=subprocess.PIPE, stdout=subprocess.DEVNULL,
                              stderr=subprocess.PIPE, preexec_fn=self._limit)
         written = 0
+        pieces = (data[at:at + 65536] for at in range(0, len(data), 65536)) \
+            if isinstance(data, bytes) else data
         try:
-            for at in range(0, len(data), 65536):
-                piece = data[at:at + 65536]
+            for piece in pieces:
                 p.stdin.write(piece)
                 p.stdin.flush()
                 written += len(piece)
@@ -320,6 +321,19 @@ class BadInput(unittest.TestCase):
         self.assertEqual(err.splitlines(), [msg.replace(path, "(stdin)", 1)])
         self.assertLess(written, self.CONSUMED_MAX,
                         f"it read {written} bytes of the long line before giving up")
+
+    def test_1gb_line_from_a_generator(self):
+        # 1 GiB of one line, made on the fly and never stored: packbook must
+        # refuse it after reading a few MiB, under the same memory bound
+        def gigabyte():
+            yield b"time_s,voltage_v,current_a\n0,"
+            chunk = b"7" * 65536
+            for _ in range(16384):
+                yield chunk
+        rc, err, written = self._piped_run(gigabyte())
+        self.assertEqual(rc, EXIT_INPUT, err)
+        self.assertIn("(stdin):2:2: field longer than 65536 bytes", err)
+        self.assertLess(written, self.CONSUMED_MAX, f"read {written} bytes of a 1 GiB line")
 
     def test_10mb_single_line(self):
         self.assert_big_line_fails(b"7" * (10 * 1024 * 1024) + b"\n", 1, 1,
