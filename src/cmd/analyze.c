@@ -21,21 +21,20 @@ static const char usage_head[] =
     "  --chemistry C          lipo, lihv, nmc or lfp (default: lipo, with a warning)\n"
     "  --capacity MAH         rated capacity, for C-rates and capacity as % of rated\n";
 
-static const char usage_tail[] = "output:\n"
-                                 "  --json                 one JSON document on standard output\n"
-                                 "  --series FILE          every sample as CSV: time, voltage, current, sag-corrected\n"
-                                 "                         OCV, SoC by counting, SoC from the OCV ('-': stdout)\n"
-                                 "  -h, --help             this text\n";
+static const char usage_tail[] =
+    "output:\n"
+    "  --json                 one JSON document on standard output\n"
+    "  --series FILE          every sample as CSV: time, voltage, current, sag-corrected\n"
+    "                         OCV, SoC by counting, SoC from the OCV ('-': stdout)\n"
+    "  -h, --help             this text\n";
 
-enum { OPT_CELLS = 256, OPT_CHEM, OPT_CAP, OPT_JSON, OPT_SERIES };
+enum { OPT_JSON = 256, OPT_SERIES };
 
 static const struct option longopts[] = {
-    {"cells", required_argument, NULL, OPT_CELLS},
-    {"chemistry", required_argument, NULL, OPT_CHEM},
-    {"capacity", required_argument, NULL, OPT_CAP},
     {"json", no_argument, NULL, OPT_JSON},
     {"series", required_argument, NULL, OPT_SERIES},
     {"help", no_argument, NULL, 'h'},
+    LOGOPTS_PACK_LONG,
     LOGOPTS_LONG,
     {NULL, 0, NULL, 0},
 };
@@ -62,22 +61,6 @@ static enum pb_code parse_args(int argc, char **argv, struct analyze_cli *cli, i
         if (taken)
             continue;
         switch (c) {
-        case OPT_CELLS:
-            if (cmd_parse_int("--cells", v, 1, PB_MAX_CELLS, &cli->log.an.cells, err))
-                return PB_EUSAGE;
-            break;
-        case OPT_CHEM: {
-            const struct chem_info *ch = ocv_chem_by_name(v);
-            if (!ch)
-                return pb_error_set(err, PB_EUSAGE,
-                                    "--chemistry: expected lipo, lihv, nmc or lfp, got '%s'", v);
-            cli->log.an.chemistry = (int)ch->id;
-            break;
-        }
-        case OPT_CAP:
-            if (cmd_parse_double("--capacity", v, 1, 1e7, &cli->log.an.capacity_mah, err))
-                return PB_EUSAGE;
-            break;
         case OPT_JSON:
             cli->json = 1;
             break;
@@ -121,8 +104,8 @@ static void emit_row(void *ctx, const struct sample_row *r)
     fputc('\n', out);
 }
 
-static enum pb_code write_series(const char *path, const struct series *s,
-                                 const struct analysis *a, double rated_mah, struct pb_error *err)
+static enum pb_code write_series(const char *path, const struct series *s, const struct analysis *a,
+                                 double rated_mah, struct pb_error *err)
 {
     int to_stdout = strcmp(path, "-") == 0;
     FILE *out = to_stdout ? stdout : fopen(path, "w");

@@ -124,6 +124,23 @@ int logopts_take(int c, const char *v, struct log_cli *cli, struct pb_error *err
             bad = 1;
         }
         break;
+    case LO_CELLS:
+        bad = cmd_parse_int("--cells", v, 1, PB_MAX_CELLS, &cli->an.cells, err);
+        break;
+    case LO_CHEM: {
+        const struct chem_info *ch = ocv_chem_by_name(v);
+        if (!ch) {
+            pb_error_set(err, PB_EUSAGE, "--chemistry: expected lipo, lihv, nmc or lfp, got '%s'",
+                         v);
+            bad = 1;
+        } else {
+            cli->an.chemistry = (int)ch->id;
+        }
+        break;
+    }
+    case LO_CAP:
+        bad = cmd_parse_double("--capacity", v, 1, 1e7, &cli->an.capacity_mah, err);
+        break;
     default:
         return 0;
     }

@@ -26,6 +26,9 @@ enum {
     LO_GAP,
     LO_REST,
     LO_FIT,
+    LO_CELLS,
+    LO_CHEM,
+    LO_CAP,
 };
 
 /* Entries for a command's getopt_long table. */
@@ -46,6 +49,14 @@ enum {
         {"rest-current", required_argument, NULL, LO_REST},                                        \
     {                                                                                              \
         "fit", required_argument, NULL, LO_FIT                                                     \
+    }
+
+/* The pack of a single log, for commands that read one without the
+ * history (analyze, predict --log): --cells, --chemistry, --capacity. */
+#define LOGOPTS_PACK_LONG                                                                          \
+    {"cells", required_argument, NULL, LO_CELLS}, {"chemistry", required_argument, NULL, LO_CHEM}, \
+    {                                                                                              \
+        "capacity", required_argument, NULL, LO_CAP                                                \
     }
 
 /* The help text for those options. */

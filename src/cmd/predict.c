@@ -65,9 +65,6 @@ enum {
     R_FOR,
     R_DB,
     R_JSON,
-    R_CELLS,
-    R_CHEM,
-    R_CAP,
 };
 
 static const struct option longopts[] = {
@@ -88,10 +85,8 @@ static const struct option longopts[] = {
     {"for", required_argument, NULL, R_FOR},
     {"db", required_argument, NULL, R_DB},
     {"json", no_argument, NULL, R_JSON},
-    {"cells", required_argument, NULL, R_CELLS},
-    {"chemistry", required_argument, NULL, R_CHEM},
-    {"capacity", required_argument, NULL, R_CAP},
     {"help", no_argument, NULL, 'h'},
+    LOGOPTS_PACK_LONG,
     LOGOPTS_LONG,
     {NULL, 0, NULL, 0},
 };
@@ -376,22 +371,6 @@ enum pb_code cmd_predict(int argc, char **argv, struct app *app, struct pb_error
             break;
         case R_JSON:
             cli.json = 1;
-            break;
-        case R_CELLS:
-            bad = cmd_parse_int("--cells", v, 1, PB_MAX_CELLS, &cli.log.an.cells, err);
-            break;
-        case R_CHEM: {
-            const struct chem_info *ch = ocv_chem_by_name(v);
-            if (!ch)
-                return pb_error_set(err, PB_EUSAGE,
-                                    "--chemistry: expected lipo, lihv, nmc or lfp, "
-                                    "got '%s'",
-                                    v);
-            cli.log.an.chemistry = (int)ch->id;
-            break;
-        }
-        case R_CAP:
-            bad = cmd_parse_double("--capacity", v, 1, 1e7, &cli.log.an.capacity_mah, err);
             break;
         case 'h':
             fputs(usage_head, stdout);
