@@ -167,7 +167,15 @@ static enum outcome import_one(struct store *st, const struct pack_rec *pack,
     lc.read.on_block = hash_block;
     lc.read.block_ctx = hs;
     lc.an.cells = pack->cells;
-    lc.an.chemistry = (int)ocv_chem_by_name(pack->chemistry)->id;
+    const struct chem_info *chem = ocv_chem_by_name(pack->chemistry);
+    if (!chem) {
+        /* only a database edited by hand gets here: packs are checked when added */
+        pb_error_set(err, PB_ESTORE, "pack '%s' has an unknown chemistry '%s' in the database",
+                     pack->label, pack->chemistry);
+        XXH3_freeState(hs);
+        return OUT_FAILED;
+    }
+    lc.an.chemistry = (int)chem->id;
     lc.an.capacity_mah = pack->capacity_mah;
     int is_stdin = strcmp(path, "-") == 0;
     const char *name = is_stdin ? "(stdin)" : path;

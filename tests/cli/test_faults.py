@@ -58,5 +58,24 @@ class DiskFull(unittest.TestCase):
         shutil.rmtree(tmp)
 
 
+class HandEdited(unittest.TestCase):
+    def test_unknown_chemistry_in_the_database(self):
+        # a pack row edited outside packbook: a clear store error, no crash
+        db = os.path.join(tempfile.mkdtemp(prefix="pbedit-"), "h.db")
+        rc, out, err = pbtest.run("pack", "add", "TM-10", "--cells", 4, "--chemistry", "lipo",
+                                  "--capacity", 5000, "--db", db)
+        self.assertEqual(rc, 0, err)
+        c = sqlite3.connect(db)
+        c.execute("UPDATE packs SET chemistry = 'nicd'")
+        c.commit()
+        c.close()
+        log = os.path.join(pbtest.ROOT, "samples", "tm07-plain.csv")
+        rc, out, err = pbtest.run("import", "--pack", "TM-10", "--db", db, log)
+        self.assertEqual(rc, 4, err)
+        self.assertIn("unknown chemistry 'nicd'", err)
+        rc, out, err = pbtest.run("predict", "TM-10", "--db", db)
+        self.assertIn(rc, (2, 4), err)
+
+
 if __name__ == "__main__":
     unittest.main(verbosity=2)
