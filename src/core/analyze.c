@@ -883,7 +883,9 @@ enum pb_code analyze_series(const struct series *s, const struct logread_stats *
             }
         }
     }
-    if (!s->i_a) {
+    int few = s->i_a && s->n < MIN_FIT_SAMPLES;
+    if (!s->i_a || few) {
+        /* no resistance to correct the sag: SoC from the loaded voltage */
         a->ocv_start_v = a->voltage_start_v;
         a->ocv_end_v = a->voltage_end_v;
         a->ocv_start_method = a->ocv_end_method = "loaded";
@@ -894,7 +896,9 @@ enum pb_code analyze_series(const struct series *s, const struct logread_stats *
             a->state_start = rest_state(a->chem, a->ocv_start_v / a->cells);
             a->state_end = rest_state(a->chem, a->ocv_end_v / a->cells);
         }
-        warn(a, "capacity_not_estimable", "capacity needs a current sensor");
+        warn(a, "capacity_not_estimable",
+             few ? "capacity needs a fitted open-circuit voltage at both ends"
+                 : "capacity needs a current sensor");
     }
     if (a->cells <= 0)
         warn(a, "soc_not_estimable", "SoC needs the cell count (give --cells)");

@@ -150,6 +150,30 @@ static void test_voltage_only(void **state)
     series_free(s);
 }
 
+static void test_few_samples_soc_from_loaded_voltage(void **state)
+{
+    (void)state;
+    /* 5 samples: no fits, but SoC still read from the (loaded) voltage;
+     * common practice: a 2S LiPo resting at 8.32 V (above 8.3 V) is full */
+    struct series *s = series_new(1, 0, 0);
+    for (size_t k = 0; k < 5; k++) {
+        assert_int_equal(series_reserve_one(s), 0);
+        s->t_s[k] = (double)k;
+        s->v_v[k] = 8.32;
+        s->i_a[k] = 0.0;
+        s->line[k] = (uint32_t)(k + 2);
+        s->n = k + 1;
+    }
+    struct analyze_opts o = {.cells = 2, .chemistry = CHEM_LIPO};
+    struct analysis *a = run(s, o);
+    assert_true(has_warning(a, "too_few_samples"));
+    assert_true(isfinite(a->soc_start_pct.value));
+    assert_string_equal(a->state_start, "full");
+    assert_string_equal(a->ocv_start_method, "loaded");
+    analysis_free(a);
+    series_free(s);
+}
+
 int main(void)
 {
     gsl_set_error_handler_off();
@@ -158,6 +182,7 @@ int main(void)
         cmocka_unit_test(test_exact_static_model),
         cmocka_unit_test(test_constant_current_not_identifiable),
         cmocka_unit_test(test_voltage_only),
+        cmocka_unit_test(test_few_samples_soc_from_loaded_voltage),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
 }
