@@ -512,6 +512,16 @@ static struct estimate soc_of(const struct analysis *a, double ocv_pack_v, doubl
     return (struct estimate){soc, hypot(fit_ci, OCV_TABLE_SOC_ERR_PCT)};
 }
 
+/* SoC and rest state at both ends from the OCVs set in a (se: their
+ * standard errors); *cl0, *cl1 tell whether the table clamped them. */
+static void soc_ends(struct analysis *a, double se0, double se1, int *cl0, int *cl1)
+{
+    a->soc_start_pct = soc_of(a, a->ocv_start_v, se0, cl0);
+    a->soc_end_pct = soc_of(a, a->ocv_end_v, se1, cl1);
+    a->state_start = rest_state(a->chem, a->ocv_start_v / a->cells);
+    a->state_end = rest_state(a->chem, a->ocv_end_v / a->cells);
+}
+
 /* Mean voltage (and current) of samples [k0, k1) */
 static double mean_corrected(const struct series *s, size_t k0, size_t k1, double r_ohm)
 {
@@ -770,9 +780,6 @@ enum pb_code analyze_series(const struct series *s, const struct logread_stats *
         warn(a, "too_few_samples",
              "%zu samples are too few to fit resistance or open-circuit voltage (need %d)", s->n,
              MIN_FIT_SAMPLES);
-        a->ocv_start_v = a->voltage_start_v;
-        a->ocv_end_v = a->voltage_end_v;
-        a->ocv_start_method = a->ocv_end_method = "loaded";
     } else {
         current_stats(a, s, o, name);
         double sd;
@@ -850,10 +857,7 @@ enum pb_code analyze_series(const struct series *s, const struct logread_stats *
         ends_from_rest(a, s, r_ohm);
         if (a->cells > 0) {
             int cl0 = 0, cl1 = 0;
-            a->soc_start_pct = soc_of(a, a->ocv_start_v, se0, &cl0);
-            a->soc_end_pct = soc_of(a, a->ocv_end_v, se1, &cl1);
-            a->state_start = rest_state(a->chem, a->ocv_start_v / a->cells);
-            a->state_end = rest_state(a->chem, a->ocv_end_v / a->cells);
+            soc_ends(a, se0, se1, &cl0, &cl1);
             if (cl0 || cl1)
                 warn(a, "ocv_outside_table",
                      "open-circuit voltage %.3f V/cell lies outside the %s table: SoC clamped; "
@@ -891,10 +895,7 @@ enum pb_code analyze_series(const struct series *s, const struct logread_stats *
         a->ocv_start_method = a->ocv_end_method = "loaded";
         if (a->cells > 0) {
             int cl0 = 0, cl1 = 0;
-            a->soc_start_pct = soc_of(a, a->ocv_start_v, 0.0, &cl0);
-            a->soc_end_pct = soc_of(a, a->ocv_end_v, 0.0, &cl1);
-            a->state_start = rest_state(a->chem, a->ocv_start_v / a->cells);
-            a->state_end = rest_state(a->chem, a->ocv_end_v / a->cells);
+            soc_ends(a, 0.0, 0.0, &cl0, &cl1);
         }
         warn(a, "capacity_not_estimable",
              few ? "capacity needs a fitted open-circuit voltage at both ends"
