@@ -546,7 +546,7 @@ static size_t index_at_or_after(const struct series *s, double t)
 
 /* Fits the resistance models to pack voltage; fills r0, rc, OCV ends. */
 static enum pb_code fit_pack(struct analysis *a, const struct series *s, const double *u,
-                             const struct analyze_opts *o, struct pb_error *err,
+                             const struct analyze_opts *o, int identifiable, struct pb_error *err,
                              struct fit_result *chosen, struct model *chosen_model, int *chosen_p)
 {
     struct model m = {.s = s,
@@ -570,8 +570,9 @@ static enum pb_code fit_pack(struct analysis *a, const struct series *s, const d
     a->fit_downweighted = fs.n_downweighted;
     a->fit_iterations = fs.iterations;
 
-    /* RC branch: only with step changes in current and a regular sampling */
-    if (a->current_steps == 0 || s->n < 50)
+    /* RC branch: only with step changes in current and a regular sampling,
+     * and never for a log whose resistance will not be reported anyway */
+    if (!identifiable || a->current_steps == 0 || s->n < 50)
         return PB_OK;
     struct model ma = m;
     ma.dt_tol = 0.1 * a->median_dt_s;
@@ -802,7 +803,7 @@ enum pb_code analyze_series(const struct series *s, const struct logread_stats *
         struct fit_result f;
         struct model m;
         int p = 0;
-        rc = fit_pack(a, s, u, o, err, &f, &m, &p);
+        rc = fit_pack(a, s, u, o, identifiable, err, &f, &m, &p);
         if (rc != PB_OK)
             goto cleanup;
         int is_rc = isfinite(a->tau_s.value);
