@@ -25,6 +25,7 @@ static const struct command commands[] = {
     {"trend", cmd_trend, "a pack's resistance and capacity over weeks and cycles"},
     {"compare", cmd_compare, "packs side by side"},
     {"predict", cmd_predict, "safe flight time for the next sortie, with its uncertainty"},
+    {"plot", cmd_plot, "figures of a flight, a pack's trend or the fleet (PNG, SVG, PDF)"},
 };
 
 static void print_usage(FILE *out)

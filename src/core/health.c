@@ -197,13 +197,25 @@ struct line_fit health_line(const double *x, const double *y, size_t n, int plai
     l.a = gsl_vector_get(c, 0);
     l.b = gsl_vector_get(c, 1);
     l.sigma = sigma;
-    l.b_ci95 = gsl_cdf_tdist_Pinv(0.975, (double)(m - 2)) * sqrt(gsl_matrix_get(cov, 1, 1));
+    l.t95 = gsl_cdf_tdist_Pinv(0.975, (double)(m - 2));
+    l.cov_aa = gsl_matrix_get(cov, 0, 0);
+    l.cov_ab = gsl_matrix_get(cov, 0, 1);
+    l.cov_bb = gsl_matrix_get(cov, 1, 1);
+    l.b_ci95 = l.t95 * sqrt(l.cov_bb);
 cleanup:
     gsl_matrix_free(X);
     gsl_vector_free(Y);
     gsl_vector_free(c);
     gsl_matrix_free(cov);
     return l;
+}
+
+double health_line_band(const struct line_fit *l, double x)
+{
+    if (!l->ok)
+        return NAN;
+    double var = l->cov_aa + 2.0 * x * l->cov_ab + x * x * l->cov_bb;
+    return l->t95 * sqrt(var > 0.0 ? var : 0.0);
 }
 
 int health_crossing(const struct line_fit *l, double level, int rising, double x_now,

@@ -62,10 +62,16 @@ struct line_fit {
     size_t n;
     double a, b, b_ci95;
     double sigma;
+    double cov_aa, cov_ab, cov_bb; /* covariance of (a, b) */
+    double t95;                    /* Student t for the 95 % intervals, n - 2 dof */
 };
 
 /* Fits y on x (NAN points skipped); robust (bisquare, GSL) unless plain. */
 struct line_fit health_line(const double *x, const double *y, size_t n, int plain);
+
+/* Half-width of the 95 % confidence band of the fitted line's mean at x
+ * (t95 sqrt(var(a + b x))); NAN when the fit is not ok. */
+double health_line_band(const struct line_fit *l, double x);
 
 /* Where a line reaches level (from below when rising, from above when
  * not), beyond x_now: sets *x_cross and returns 1; returns 0 when the line

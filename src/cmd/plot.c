@@ -1,0 +1,285 @@
+/* packbook plot LOG | plot trend ID | plot fleet: the figures. */
+#include <getopt.h>
+#include <math.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include "../report/plot.h"
+#include "../report/plots.h"
+#include "cmd.h"
+#include "logopts.h"
+#include "packview.h"
+
+static const char usage_head[] =
+    "usage: packbook plot [options] LOG -o FILE\n"
+    "       packbook plot trend ID -o FILE [--x cycles|date] [--by week|month|cycle]\n"
+    "                               [--fit robust|ols] [--horizon N] [--db PATH]\n"
+    "       packbook plot fleet -o FILE [--all] [--db PATH]\n"
+    "\n"
+    "Draws a figure as PNG, SVG or PDF, chosen by the output's extension.\n"
+    "  LOG      the flight: voltage with the sag-corrected OCV, current and power,\n"
+    "           SoC counted and from the OCV, per-cell voltages (weakest marked);\n"
+    "           time below the floor tinted, missing data hatched. Takes the\n"
+    "           analyze options below. (A log named 'trend' or 'fleet': ./trend.)\n"
+    "  trend    a pack's R0 per cell and capacity % against equivalent cycles (or\n"
+    "           --x date): flights, bucket means, fitted line with its 95 % band,\n"
+    "           retirement levels and the projected crossing\n"
+    "  fleet    every pack in service (--all: and retired) at capacity % against\n"
+    "           R0 change from its baseline, by status, packs needing attention named\n"
+    "\n"
+    "figure:\n"
+    "  -o, --output FILE      the figure: FILE.png, FILE.svg or FILE.pdf (required)\n"
+    "  --size WxH             size in pixels (points for SVG and PDF); default\n"
+    "                         1600x1100 (1600x1300 with cells), trend 1600x1000,\n"
+    "                         fleet 1400x1000\n"
+    "  --title TEXT           the title (default: the log's or pack's name)\n"
+    "  --axes-json FILE       also write each panel's rectangle and axis ranges as JSON\n"
+    "\n"
+    "pack (LOG):\n"
+    "  --cells N, --chemistry C, --capacity MAH   as for analyze\n";
+
+enum { P_OUT = 'o', P_SIZE = 256, P_TITLE, P_AXES, P_X, P_BY, P_FIT, P_HORIZON, P_DB, P_ALL };
+
+static const struct option longopts[] = {
+    {"output", required_argument, NULL, P_OUT},
+    {"size", required_argument, NULL, P_SIZE},
+    {"title", required_argument, NULL, P_TITLE},
+    {"axes-json", required_argument, NULL, P_AXES},
+    {"x", required_argument, NULL, P_X},
+    {"by", required_argument, NULL, P_BY},
+    {"fit", required_argument, NULL, P_FIT},
+    {"horizon", required_argument, NULL, P_HORIZON},
+    {"db", required_argument, NULL, P_DB},
+    {"all", no_argument, NULL, P_ALL},
+    {"help", no_argument, NULL, 'h'},
+    LOGOPTS_PACK_LONG,
+    LOGOPTS_LONG,
+    RULEOPTS_LONG,
+    {NULL, 0, NULL, 0},
+};
+
+enum plot_kind { KIND_FLIGHT = 0, KIND_TREND, KIND_FLEET };
+
+struct plot_cli {
+    enum plot_kind kind;
+    struct plot_opts fig;
+    const char *out;
+    struct log_cli log;
+    int log_opts_given; /* an analyze option, which only a flight takes */
+    int by_date, plain, all, history_opts_given;
+    enum trend_by by;
+    double horizon;
+    const char *db;
+    struct health_rules rules;
+};
+
+static enum pb_code parse(int argc, char **argv, struct plot_cli *cli, int *done,
+                          struct pb_error *err)
+{
+    int c;
+    const char *first_history_opt = NULL, *first_log_opt = NULL;
+    optind = 1;
+    opterr = 0;
+    while ((c = getopt_long(argc, argv, "ho:", longopts, NULL)) != -1) {
+        const char *opt = argv[optind - 1];
+        int taken = logopts_take(c, optarg, &cli->log, err);
+        if (taken < 0)
+            return PB_EUSAGE;
+        if (taken) {
+            first_log_opt = first_log_opt ? first_log_opt : opt;
+            continue;
+        }
+        taken = ruleopts_take(c, optarg, &cli->rules, err);
+        if (taken < 0)
+            return PB_EUSAGE;
+        if (taken)
+            continue;
+        switch (c) {
+        case P_OUT:
+            cli->out = optarg;
+            break;
+        case P_SIZE:
+            if (plot_parse_size(optarg, &cli->fig.width, &cli->fig.height, err))
+                return PB_EUSAGE;
+            break;
+        case P_TITLE:
+            cli->fig.title = optarg;
+            break;
+        case P_AXES:
+            cli->fig.axes_json = optarg;
+            break;
+        case P_X:
+            if (strcmp(optarg, "cycles") && strcmp(optarg, "date"))
+                return pb_error_set(err, PB_EUSAGE, "--x: expected cycles or date, got '%s'",
+                                    optarg);
+            cli->by_date = strcmp(optarg, "date") == 0;
+            first_history_opt = first_history_opt ? first_history_opt : "--x";
+            break;
+        case P_BY:
+            if (strcmp(optarg, "week") == 0)
+                cli->by = TREND_WEEK;
+            else if (strcmp(optarg, "month") == 0)
+                cli->by = TREND_MONTH;
+            else if (strcmp(optarg, "cycle") == 0)
+                cli->by = TREND_CYCLE;
+            else
+                return pb_error_set(err, PB_EUSAGE, "--by: expected week, month or cycle, got '%s'",
+                                    optarg);
+            first_history_opt = first_history_opt ? first_history_opt : "--by";
+            break;
+        case P_FIT:
+            if (strcmp(optarg, "robust") && strcmp(optarg, "ols"))
+                return pb_error_set(err, PB_EUSAGE, "--fit: expected robust or ols, got '%s'",
+                                    optarg);
+            cli->plain = strcmp(optarg, "ols") == 0;
+            cli->log.an.plain_fit = cli->plain; /* the flight's fits follow it too */
+            break;
+        case P_HORIZON:
+            if (cmd_parse_double("--horizon", optarg, 1, 1e6, &cli->horizon, err))
+                return PB_EUSAGE;
+            first_history_opt = first_history_opt ? first_history_opt : "--horizon";
+            break;
+        case P_DB:
+            cli->db = optarg;
+            first_history_opt = first_history_opt ? first_history_opt : "--db";
+            break;
+        case P_ALL:
+            cli->all = 1;
+            first_history_opt = first_history_opt ? first_history_opt : "--all";
+            break;
+        case 'h':
+            fputs(usage_head, stdout);
+            fputs(logopts_usage, stdout);
+            fputs(ruleopts_usage, stdout);
+            *done = 1;
+            return cmd_finish_stdout(err);
+        default:
+            return cmd_bad_option("plot", argc, argv, err);
+        }
+    }
+    enum pb_code rc = logopts_finish(&cli->log, err);
+    if (rc != PB_OK)
+        return rc;
+    int rest = argc - optind;
+    if (rest >= 1 && strcmp(argv[optind], "trend") == 0) {
+        cli->kind = KIND_TREND;
+        if (rest != 2)
+            return pb_error_set(err, PB_EUSAGE, "plot trend: give one pack ID");
+    } else if (rest >= 1 && strcmp(argv[optind], "fleet") == 0) {
+        cli->kind = KIND_FLEET;
+        if (rest != 1)
+            return pb_error_set(err, PB_EUSAGE, "plot fleet: unexpected argument '%s'",
+                                argv[optind + 1]);
+    } else {
+        cli->kind = KIND_FLIGHT;
+        if (rest < 1)
+            return pb_error_set(err, PB_EUSAGE,
+                                "plot: give a log, 'trend ID' or 'fleet' (see 'packbook plot "
+                                "--help')");
+        if (rest > 1)
+            return pb_error_set(err, PB_EUSAGE, "plot: one log at a time, got '%s' and '%s'",
+                                argv[optind], argv[optind + 1]);
+    }
+    if (cli->kind == KIND_FLIGHT && first_history_opt)
+        return pb_error_set(err, PB_EUSAGE, "plot: %s is for 'plot trend' or 'plot fleet'",
+                            first_history_opt);
+    if (cli->kind != KIND_FLIGHT && first_log_opt)
+        return pb_error_set(err, PB_EUSAGE,
+                            "plot %s: %s is for a log (the history keeps each flight's analysis)",
+                            argv[optind], first_log_opt);
+    if (cli->kind == KIND_FLEET && cli->by_date)
+        return pb_error_set(err, PB_EUSAGE, "plot fleet: --x is for 'plot trend'");
+    if (!cli->out)
+        return pb_error_set(err, PB_EUSAGE, "plot: -o FILE is required (.png, .svg or .pdf)");
+    if (plot_format_of(cli->out) < 0)
+        return pb_error_set(err, PB_EUSAGE,
+                            "plot: '%s': the output's name must end in .png, .svg or .pdf",
+                            cli->out);
+    return PB_OK;
+}
+
+static enum pb_code plot_log(const struct plot_cli *cli, const char *path, struct pb_error *err)
+{
+    struct logread_stats stats;
+    struct analysis *a = NULL;
+    struct series *s = NULL;
+    enum pb_code rc = logopts_analyze(path, &cli->log, &stats, &a, &s, err);
+    if (rc == PB_OK)
+        rc = plot_flight(cli->out, &cli->fig, s, a, cli->log.an.capacity_mah,
+                         strcmp(path, "-") == 0 ? "(stdin)" : path, err);
+    series_free(s);
+    analysis_free(a);
+    return rc;
+}
+
+static enum pb_code plot_history(const struct plot_cli *cli, const char *id, struct pb_error *err)
+{
+    struct store *st = NULL;
+    struct pack_rec *packs = NULL;
+    struct pack_view *views = NULL;
+    size_t np = 0, nv = 0;
+    enum pb_code rc = packview_open_store(cli->db, 1, &st, err);
+    if (rc != PB_OK)
+        return rc;
+    if (cli->kind == KIND_TREND) {
+        struct pack_rec p;
+        views = calloc(1, sizeof *views);
+        if (!views)
+            rc = pb_error_set(err, PB_ENOMEM, "out of memory");
+        if (rc == PB_OK)
+            rc = store_pack_get(st, id, &p, err);
+        if (rc == PB_OK)
+            rc = packview_load(st, &p, &cli->rules, cli->by, cli->plain, cli->horizon, views, err);
+        if (rc == PB_OK) {
+            nv = 1;
+            rc = plot_trend(cli->out, &cli->fig, views, &cli->rules, cli->by_date, err);
+        }
+        goto cleanup;
+    }
+    rc = store_pack_list(st, &packs, &np, err);
+    if (rc != PB_OK)
+        goto cleanup;
+    views = calloc(np ? np : 1, sizeof *views);
+    if (!views) {
+        rc = pb_error_set(err, PB_ENOMEM, "out of memory");
+        goto cleanup;
+    }
+    for (size_t k = 0; k < np; k++) {
+        if (packs[k].retired_at[0] && !cli->all)
+            continue;
+        rc = packview_load(st, &packs[k], &cli->rules, TREND_WEEK, 0, 1000.0, &views[nv], err);
+        if (rc != PB_OK)
+            goto cleanup;
+        nv++;
+    }
+    rc = plot_fleet(cli->out, &cli->fig, views, nv, &cli->rules, err);
+cleanup:
+    for (size_t k = 0; k < nv; k++)
+        pack_view_release(&views[k]);
+    free(views);
+    store_packs_free(packs);
+    store_close(st);
+    return rc;
+}
+
+enum pb_code cmd_plot(int argc, char **argv, struct app *app, struct pb_error *err)
+{
+    struct plot_cli cli = {0};
+    (void)app;
+    logopts_init(&cli.log);
+    health_rules_default(&cli.rules);
+    cli.by = TREND_WEEK;
+    cli.horizon = 1000.0;
+    int done = 0;
+    enum pb_code rc = parse(argc, argv, &cli, &done, err);
+    if (rc != PB_OK || done)
+        return rc;
+    if (cli.kind == KIND_FLIGHT)
+        rc = plot_log(&cli, argv[optind], err);
+    else
+        rc = plot_history(&cli, cli.kind == KIND_TREND ? argv[optind + 1] : NULL, err);
+    if (rc == PB_OK)
+        printf("wrote %s\n", cli.out);
+    return rc == PB_OK ? cmd_finish_stdout(err) : rc;
+}

@@ -1,0 +1,885 @@
+#define _GNU_SOURCE /* mkstemp, fchmod, strdup, gmtime_r, M_PI */
+#include "plot.h"
+
+#include <cairo-pdf.h>
+#include <cairo-svg.h>
+#include <cairo.h>
+#include <errno.h>
+#include <jansson.h>
+#include <math.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+#include <sys/stat.h>
+#include <time.h>
+#include <unistd.h>
+
+enum { FMT_PNG = 0, FMT_SVG, FMT_PDF };
+
+struct plot {
+    int fmt;
+    double w, h;
+    double font; /* base font size */
+    double lw;   /* base line width */
+    cairo_surface_t *surface;
+    cairo_t *cr;
+    FILE *tmp;
+    int write_failed;
+    char *path, *tmp_path;
+    int finished;
+};
+
+static const char font_family[] = "DejaVu Sans"; /* fonts-dejavu-core; fontconfig falls back */
+
+int plot_format_of(const char *path)
+{
+    const char *dot = strrchr(path, '.');
+    if (!dot || strchr(dot, '/'))
+        return -1;
+    if (strcasecmp(dot, ".png") == 0)
+        return FMT_PNG;
+    if (strcasecmp(dot, ".svg") == 0)
+        return FMT_SVG;
+    if (strcasecmp(dot, ".pdf") == 0)
+        return FMT_PDF;
+    return -1;
+}
+
+static cairo_status_t write_tmp(void *closure, const unsigned char *data, unsigned int len)
+{
+    struct plot *p = closure;
+    if (fwrite(data, 1, len, p->tmp) != len) {
+        p->write_failed = 1;
+        return CAIRO_STATUS_WRITE_ERROR;
+    }
+    return CAIRO_STATUS_SUCCESS;
+}
+
+struct plot *plot_new(const char *path, int w, int h, struct pb_error *err)
+{
+    int fmt = plot_format_of(path);
+    if (fmt < 0) {
+        pb_error_set(err, PB_EUSAGE, "'%s': the plot's name must end in .png, .svg or .pdf", path);
+        return NULL;
+    }
+    struct plot *p = calloc(1, sizeof *p);
+    if (!p) {
+        pb_error_set(err, PB_ENOMEM, "out of memory");
+        return NULL;
+    }
+    p->fmt = fmt;
+    p->w = w;
+    p->h = h;
+    double side = w < h ? w : h;
+    p->font = fmax(9.0, fmin(side / 58.0, 64.0));
+    p->lw = p->font / 10.0;
+    size_t len = strlen(path);
+    p->path = strdup(path);
+    p->tmp_path = malloc(len + 16);
+    if (!p->path || !p->tmp_path) {
+        pb_error_set(err, PB_ENOMEM, "out of memory");
+        plot_free(p);
+        return NULL;
+    }
+    snprintf(p->tmp_path, len + 16, "%s.tmp-XXXXXX", path);
+    int fd = mkstemp(p->tmp_path);
+    if (fd < 0) {
+        pb_error_set(err, PB_EOUTPUT, "cannot write '%s': %s", path, strerror(errno));
+        p->tmp_path[0] = '\0';
+        plot_free(p);
+        return NULL;
+    }
+    /* mkstemp makes the file private; a plot is a document like any other */
+    mode_t mask = umask(0);
+    umask(mask);
+    (void)fchmod(fd, 0666 & ~mask);
+    p->tmp = fdopen(fd, "wb");
+    if (!p->tmp) {
+        close(fd);
+        pb_error_set(err, PB_EOUTPUT, "cannot write '%s': %s", path, strerror(errno));
+        plot_free(p);
+        return NULL;
+    }
+    if (fmt == FMT_PNG)
+        p->surface = cairo_image_surface_create(CAIRO_FORMAT_ARGB32, w, h);
+    else if (fmt == FMT_SVG)
+        p->surface = cairo_svg_surface_create_for_stream(write_tmp, p, w, h);
+    else
+        p->surface = cairo_pdf_surface_create_for_stream(write_tmp, p, w, h);
+    p->cr = cairo_create(p->surface);
+    if (cairo_status(p->cr) != CAIRO_STATUS_SUCCESS) {
+        pb_error_set(err, PB_ENOMEM, "cannot start the plot: %s",
+                     cairo_status_to_string(cairo_status(p->cr)));
+        plot_free(p);
+        return NULL;
+    }
+    if (fmt == FMT_PDF)
+        cairo_pdf_surface_set_metadata(p->surface, CAIRO_PDF_METADATA_CREATOR, "packbook");
+    cairo_set_source_rgb(p->cr, 1, 1, 1);
+    cairo_paint(p->cr);
+    return p;
+}
+
+enum pb_code plot_finish(struct plot *p, struct pb_error *err)
+{
+    cairo_status_t s = cairo_status(p->cr);
+    cairo_destroy(p->cr);
+    p->cr = NULL;
+    if (s == CAIRO_STATUS_SUCCESS && p->fmt == FMT_PNG)
+        s = cairo_surface_write_to_png_stream(p->surface, write_tmp, p);
+    cairo_surface_finish(p->surface);
+    if (s == CAIRO_STATUS_SUCCESS)
+        s = cairo_surface_status(p->surface);
+    cairo_surface_destroy(p->surface);
+    p->surface = NULL;
+    int bad = p->write_failed || ferror(p->tmp);
+    bad |= fclose(p->tmp) != 0;
+    p->tmp = NULL;
+    if (s != CAIRO_STATUS_SUCCESS || bad)
+        return pb_error_set(err, PB_EOUTPUT, "cannot write '%s': %s", p->path,
+                            bad ? "write failed" : cairo_status_to_string(s));
+    if (rename(p->tmp_path, p->path) != 0)
+        return pb_error_set(err, PB_EOUTPUT, "cannot write '%s': %s", p->path, strerror(errno));
+    p->finished = 1;
+    return PB_OK;
+}
+
+void plot_free(struct plot *p)
+{
+    if (!p)
+        return;
+    if (p->cr)
+        cairo_destroy(p->cr);
+    if (p->surface) {
+        cairo_surface_finish(p->surface);
+        cairo_surface_destroy(p->surface);
+    }
+    if (p->tmp)
+        fclose(p->tmp);
+    if (!p->finished && p->tmp_path && p->tmp_path[0])
+        unlink(p->tmp_path);
+    free(p->path);
+    free(p->tmp_path);
+    free(p);
+}
+
+double plot_width(const struct plot *p) { return p->w; }
+double plot_height(const struct plot *p) { return p->h; }
+double plot_font(const struct plot *p) { return p->font; }
+
+int plot_parse_size(const char *arg, int *w, int *h, struct pb_error *err)
+{
+    char *end;
+    errno = 0;
+    long a = strtol(arg, &end, 10);
+    long b = 0;
+    int ok = end != arg && (*end == 'x' || *end == 'X') && errno == 0;
+    if (ok) {
+        const char *q = end + 1;
+        b = strtol(q, &end, 10);
+        ok = end != q && *end == '\0' && errno == 0;
+    }
+    if (!ok || a < PLOT_MIN_W || b < PLOT_MIN_H || a > PLOT_MAX_SIDE || b > PLOT_MAX_SIDE) {
+        pb_error_set(err, PB_EUSAGE,
+                     "--size: expected WIDTHxHEIGHT from %dx%d to %dx%d (pixels, or points "
+                     "for SVG and PDF), got '%s'",
+                     PLOT_MIN_W, PLOT_MIN_H, PLOT_MAX_SIDE, PLOT_MAX_SIDE, arg);
+        return -1;
+    }
+    *w = (int)a;
+    *h = (int)b;
+    return 0;
+}
+
+static void set_font(struct plot *p, double size, int bold)
+{
+    cairo_select_font_face(p->cr, font_family, CAIRO_FONT_SLANT_NORMAL,
+                           bold ? CAIRO_FONT_WEIGHT_BOLD : CAIRO_FONT_WEIGHT_NORMAL);
+    cairo_set_font_size(p->cr, size);
+}
+
+double plot_text_width(struct plot *p, const char *text, double size, int bold)
+{
+    cairo_text_extents_t e;
+    set_font(p, size, bold);
+    cairo_text_extents(p->cr, text, &e);
+    return e.x_advance;
+}
+
+static void set_rgb(struct plot *p, uint32_t rgb, double alpha)
+{
+    cairo_set_source_rgba(p->cr, ((rgb >> 16) & 255) / 255.0, ((rgb >> 8) & 255) / 255.0,
+                          (rgb & 255) / 255.0, alpha > 0 ? alpha : 1.0);
+}
+
+static void set_style(struct plot *p, const struct plot_style *st)
+{
+    double w = p->lw * (st->width > 0 ? st->width : 1.0);
+    set_rgb(p, st->rgb, st->alpha);
+    cairo_set_line_width(p->cr, w);
+    cairo_set_line_join(p->cr, CAIRO_LINE_JOIN_ROUND);
+    if (st->dash == DASH_LONG) {
+        double d[2] = {5.0 * w, 2.5 * w};
+        cairo_set_line_cap(p->cr, CAIRO_LINE_CAP_BUTT);
+        cairo_set_dash(p->cr, d, 2, 0);
+    } else if (st->dash == DASH_DOT) {
+        double d[2] = {0.01, 2.2 * w};
+        cairo_set_line_cap(p->cr, CAIRO_LINE_CAP_ROUND);
+        cairo_set_dash(p->cr, d, 2, 0);
+    } else {
+        cairo_set_line_cap(p->cr, CAIRO_LINE_CAP_ROUND);
+        cairo_set_dash(p->cr, NULL, 0, 0);
+    }
+}
+
+double plot_text(struct plot *p, double fx, double fy, int anchor, double size, int bold,
+                 uint32_t rgb, const char *text)
+{
+    double w = plot_text_width(p, text, size, bold);
+    cairo_move_to(p->cr, fx - (anchor == 1 ? w / 2 : anchor == 2 ? w : 0), fy);
+    set_rgb(p, rgb, 1);
+    cairo_show_text(p->cr, text);
+    return w;
+}
+
+/* Text over data: a white halo keeps it readable over lines and grid. */
+static void text_halo(struct plot *p, double fx, double fy, int anchor, double size, uint32_t rgb,
+                      const char *text)
+{
+    double w = plot_text_width(p, text, size, 0);
+    double x = fx - (anchor == 1 ? w / 2 : anchor == 2 ? w : 0);
+    cairo_save(p->cr);
+    cairo_new_path(p->cr);
+    cairo_move_to(p->cr, x, fy);
+    cairo_text_path(p->cr, text);
+    cairo_set_source_rgb(p->cr, 1, 1, 1);
+    cairo_set_line_width(p->cr, size * 0.3);
+    cairo_set_line_join(p->cr, CAIRO_LINE_JOIN_ROUND);
+    cairo_set_dash(p->cr, NULL, 0, 0);
+    cairo_stroke(p->cr);
+    cairo_move_to(p->cr, x, fy);
+    set_rgb(p, rgb, 1);
+    cairo_show_text(p->cr, text);
+    cairo_restore(p->cr);
+}
+
+/* ---- axes ---------------------------------------------------------------- */
+
+void plot_tick_text(const struct plot_axis *ax, double x, char *buf, size_t cap)
+{
+    if (ax->dates) {
+        time_t t = (time_t)llround(ax->date_base_s + x * 86400.0);
+        struct tm tm;
+        gmtime_r(&t, &tm);
+        strftime(buf, cap, ax->ticks.step < 1.0 ? "%m-%d %H:%M" : "%Y-%m-%d", &tm);
+        return;
+    }
+    if (fabs(x) < ax->ticks.step * 1e-9)
+        x = 0.0; /* no "-0" */
+    snprintf(buf, cap, "%.*f", ax->ticks.decimals, x);
+}
+
+double plot_axis_label_width(struct plot *p, const struct plot_axis *ax)
+{
+    double widest = 0.0;
+    char buf[48];
+    for (int k = 0; k < ax->ticks.count; k++) {
+        plot_tick_text(ax, ax->ticks.first + k * ax->ticks.step, buf, sizeof buf);
+        widest = fmax(widest, plot_text_width(p, buf, p->font * 0.85, 0));
+    }
+    return widest;
+}
+
+static void axis_set(struct plot_axis *ax, double lo, double hi, int max_ticks)
+{
+    if (ticks_nice(lo, hi, max_ticks, &ax->ticks) != 0)
+        ticks_nice(0.0, 1.0, max_ticks, &ax->ticks);
+    /* date steps under a day read as hours only from a clock-sized step */
+    ax->lo = ax->ticks.first;
+    ax->hi = ax->ticks.first + (ax->ticks.count - 1) * ax->ticks.step;
+}
+
+void plot_axis_fit(struct plot *p, struct plot_axis *ax, double lo, double hi, double len_px,
+                   int vertical)
+{
+    if (!isfinite(lo) || !isfinite(hi)) {
+        lo = 0.0;
+        hi = 1.0;
+    }
+    double fs = p->font * 0.85;
+    if (vertical) {
+        int fit = ticks_fit(len_px, fs, fs * 1.8);
+        axis_set(ax, lo, hi, fit < 9 ? fit : 9);
+        return;
+    }
+    /* labels' width depends on the ticks chosen: settle in a few rounds */
+    int max_ticks = 11;
+    for (int round = 0; round < 6; round++) {
+        axis_set(ax, lo, hi, max_ticks);
+        int fit = ticks_fit(len_px, plot_axis_label_width(p, ax), fs * 1.5);
+        if (ax->ticks.count <= fit)
+            return;
+        max_ticks = fit < ax->ticks.count - 1 ? fit : ax->ticks.count - 1;
+    }
+}
+
+void plot_axis_fit_tight(struct plot *p, struct plot_axis *ax, double lo, double hi,
+                         double len_px)
+{
+    plot_axis_fit(p, ax, lo, hi, len_px, 0);
+    if (!isfinite(lo) || !isfinite(hi) || !(hi > lo))
+        return;
+    double step = ax->ticks.step;
+    double first = ceil(lo / step - 1e-9) * step;
+    int count = (int)floor((hi - first) / step + 1e-9) + 1;
+    if (count < 2)
+        return; /* too few ticks inside: keep the round ends */
+    ax->ticks.first = first;
+    ax->ticks.count = count;
+    ax->lo = lo;
+    ax->hi = hi;
+}
+
+/* The smallest 1, 2, 2.5 or 5 times a power of ten at or above x > 0. */
+static double nice_ceil(double x)
+{
+    static const double mult[] = {1.0, 2.0, 2.5, 5.0, 10.0};
+    double p = pow(10.0, floor(log10(x)));
+    for (int k = 0; k < 5; k++)
+        if (mult[k] * p >= x * (1 - 1e-12))
+            return mult[k] * p;
+    return 10.0 * p;
+}
+
+void plot_axis_align(struct plot *p, struct plot_axis *ax2, double lo, double hi,
+                     const struct plot_axis *ref, double len_px)
+{
+    const struct ticks *t = &ref->ticks;
+    double z = -t->first / t->step; /* index of the zero tick */
+    int below = (int)llround(z), above = t->count - 1 - below;
+    if (fabs(z - below) > 1e-6 || below < 0 || above < 0 || !isfinite(lo) || !isfinite(hi) ||
+        (lo < 0 && below == 0) || (hi > 0 && above == 0)) {
+        plot_axis_fit(p, ax2, lo, hi, len_px, 1);
+        return;
+    }
+    double need = 0.0;
+    if (hi > 0)
+        need = fmax(need, hi / above);
+    if (lo < 0)
+        need = fmax(need, -lo / below);
+    double step = need > 0 ? nice_ceil(need) : 1.0;
+    ax2->ticks.step = step;
+    ax2->ticks.first = -below * step;
+    ax2->ticks.count = t->count;
+    int d = (int)-floor(log10(step) + 1e-9);
+    if (fabs(step / pow(10.0, floor(log10(step))) - 2.5) < 1e-9)
+        d++; /* 2.5 x 10^n needs one more digit */
+    ax2->ticks.decimals = d > 0 ? d : 0;
+    ax2->lo = ax2->ticks.first;
+    ax2->hi = ax2->ticks.first + (t->count - 1) * step;
+}
+
+double plot_px(const struct plot_panel *pa, double x)
+{
+    return pa->x0 + (x - pa->x.lo) / (pa->x.hi - pa->x.lo) * (pa->x1 - pa->x0);
+}
+
+static double map_y(const struct plot_panel *pa, const struct plot_axis *ax, double y)
+{
+    return pa->y1 - (y - ax->lo) / (ax->hi - ax->lo) * (pa->y1 - pa->y0);
+}
+
+double plot_py(const struct plot_panel *pa, double y) { return map_y(pa, &pa->y, y); }
+double plot_py2(const struct plot_panel *pa, double y) { return map_y(pa, &pa->y2, y); }
+
+static void clip_panel(struct plot *p, const struct plot_panel *pa)
+{
+    cairo_save(p->cr);
+    cairo_new_path(p->cr);
+    cairo_rectangle(p->cr, pa->x0, pa->y0, pa->x1 - pa->x0, pa->y1 - pa->y0);
+    cairo_clip(p->cr);
+}
+
+static void unclip(struct plot *p)
+{
+    cairo_new_path(p->cr);
+    cairo_restore(p->cr);
+}
+
+static void rotated_title(struct plot *p, double fx, double fy, const char *text)
+{
+    double w = plot_text_width(p, text, p->font, 0);
+    cairo_save(p->cr);
+    cairo_translate(p->cr, fx, fy);
+    cairo_rotate(p->cr, -M_PI / 2);
+    cairo_move_to(p->cr, -w / 2, 0);
+    set_rgb(p, 0x222222u, 1);
+    cairo_show_text(p->cr, text);
+    cairo_restore(p->cr);
+}
+
+void plot_panel_draw(struct plot *p, const struct plot_panel *pa)
+{
+    cairo_t *cr = p->cr;
+    double fs = p->font * 0.85, tick = p->font * 0.35;
+    char buf[48];
+    cairo_save(cr);
+    cairo_set_dash(cr, NULL, 0, 0);
+    cairo_set_line_cap(cr, CAIRO_LINE_CAP_BUTT);
+    /* grid: light enough to read past, there to read values off */
+    cairo_set_line_width(cr, p->lw * 0.6);
+    set_rgb(p, 0xDDDDDDu, 1);
+    for (int k = 0; k < pa->x.ticks.count; k++) {
+        double fx = plot_px(pa, pa->x.ticks.first + k * pa->x.ticks.step);
+        cairo_move_to(cr, fx, pa->y0);
+        cairo_line_to(cr, fx, pa->y1);
+    }
+    for (int k = 0; k < pa->y.ticks.count; k++) {
+        double fy = plot_py(pa, pa->y.ticks.first + k * pa->y.ticks.step);
+        cairo_move_to(cr, pa->x0, fy);
+        cairo_line_to(cr, pa->x1, fy);
+    }
+    cairo_stroke(cr);
+    /* frame and ticks */
+    cairo_set_line_width(cr, p->lw * 0.8);
+    set_rgb(p, 0x444444u, 1);
+    cairo_rectangle(cr, pa->x0, pa->y0, pa->x1 - pa->x0, pa->y1 - pa->y0);
+    for (int k = 0; k < pa->x.ticks.count; k++) {
+        double fx = plot_px(pa, pa->x.ticks.first + k * pa->x.ticks.step);
+        cairo_move_to(cr, fx, pa->y1);
+        cairo_line_to(cr, fx, pa->y1 + tick);
+    }
+    for (int k = 0; k < pa->y.ticks.count; k++) {
+        double fy = plot_py(pa, pa->y.ticks.first + k * pa->y.ticks.step);
+        cairo_move_to(cr, pa->x0 - tick, fy);
+        cairo_line_to(cr, pa->x0, fy);
+    }
+    if (pa->has_y2)
+        for (int k = 0; k < pa->y2.ticks.count; k++) {
+            double fy = plot_py2(pa, pa->y2.ticks.first + k * pa->y2.ticks.step);
+            cairo_move_to(cr, pa->x1, fy);
+            cairo_line_to(cr, pa->x1 + tick, fy);
+        }
+    cairo_stroke(cr);
+    cairo_restore(cr);
+
+    for (int k = 0; k < pa->y.ticks.count; k++) {
+        double v = pa->y.ticks.first + k * pa->y.ticks.step;
+        plot_tick_text(&pa->y, v, buf, sizeof buf);
+        set_font(p, fs, 0);
+        plot_text(p, pa->x0 - tick * 1.8, plot_py(pa, v) + fs * 0.35, 2, fs, 0, 0x222222u, buf);
+    }
+    double wy = plot_axis_label_width(p, &pa->y);
+    rotated_title(p, pa->x0 - tick * 1.8 - wy - p->font * 0.6, (pa->y0 + pa->y1) / 2,
+                  pa->y.label);
+    if (pa->has_y2) {
+        for (int k = 0; k < pa->y2.ticks.count; k++) {
+            double v = pa->y2.ticks.first + k * pa->y2.ticks.step;
+            plot_tick_text(&pa->y2, v, buf, sizeof buf);
+            plot_text(p, pa->x1 + tick * 1.8, plot_py2(pa, v) + fs * 0.35, 0, fs, 0, 0x222222u,
+                      buf);
+        }
+        double w2 = plot_axis_label_width(p, &pa->y2);
+        rotated_title(p, pa->x1 + tick * 1.8 + w2 + p->font * 1.4, (pa->y0 + pa->y1) / 2,
+                      pa->y2.label);
+    }
+    if (pa->x_labels) {
+        for (int k = 0; k < pa->x.ticks.count; k++) {
+            double v = pa->x.ticks.first + k * pa->x.ticks.step;
+            plot_tick_text(&pa->x, v, buf, sizeof buf);
+            plot_text(p, plot_px(pa, v), pa->y1 + tick + fs * 1.15, 1, fs, 0, 0x222222u, buf);
+        }
+        plot_text(p, (pa->x0 + pa->x1) / 2, pa->y1 + tick + fs * 1.15 + p->font * 1.45, 1,
+                  p->font, 0, 0x222222u, pa->x.label);
+    }
+}
+
+/* ---- data ---------------------------------------------------------------- */
+
+struct pen {
+    cairo_t *cr;
+    int down;
+};
+
+static void pen_to(struct pen *pen, double fx, double fy)
+{
+    if (pen->down)
+        cairo_line_to(pen->cr, fx, fy);
+    else
+        cairo_move_to(pen->cr, fx, fy);
+    pen->down = 1;
+}
+
+/* One pixel column's points, reduced to first, lowest, highest, last. */
+struct column {
+    int used;
+    long col;
+    double fx_first, fy_first, fx_last, fy_last;
+    double fy_lo, fy_hi, fx_lo, fx_hi;
+    size_t k_lo, k_hi;
+};
+
+static void column_flush(struct column *c, struct pen *pen)
+{
+    if (!c->used)
+        return;
+    pen_to(pen, c->fx_first, c->fy_first);
+    if (c->k_lo < c->k_hi) {
+        pen_to(pen, c->fx_lo, c->fy_lo);
+        pen_to(pen, c->fx_hi, c->fy_hi);
+    } else {
+        pen_to(pen, c->fx_hi, c->fy_hi);
+        pen_to(pen, c->fx_lo, c->fy_lo);
+    }
+    pen_to(pen, c->fx_last, c->fy_last);
+    c->used = 0;
+}
+
+void plot_line(struct plot *p, const struct plot_panel *pa, int right, const double *x,
+               const double *y, size_t n, double x_div, double break_dx,
+               const struct plot_style *st)
+{
+    const struct plot_axis *ay = right ? &pa->y2 : &pa->y;
+    struct pen pen = {p->cr, 0};
+    struct column c = {0};
+    /* reduce only when there are several points per pixel column */
+    int reduce = (double)n > 4.0 * (pa->x1 - pa->x0);
+    clip_panel(p, pa);
+    set_style(p, st);
+    cairo_new_path(p->cr);
+    double xprev = NAN;
+    for (size_t k = 0; k < n; k++) {
+        int ok = isfinite(x[k]) && isfinite(y[k]);
+        if (!ok || (break_dx > 0 && isfinite(xprev) && x[k] - xprev > break_dx)) {
+            column_flush(&c, &pen);
+            pen.down = 0;
+        }
+        if (isfinite(x[k]))
+            xprev = x[k];
+        if (!ok)
+            continue;
+        double fx = plot_px(pa, x[k] / x_div), fy = map_y(pa, ay, y[k]);
+        if (!reduce) {
+            pen_to(&pen, fx, fy);
+            continue;
+        }
+        long col = (long)floor(fx);
+        if (c.used && col != c.col)
+            column_flush(&c, &pen);
+        if (!c.used) {
+            c = (struct column){1, col, fx, fy, fx, fy, fy, fy, fx, fx, k, k};
+            continue;
+        }
+        c.fx_last = fx;
+        c.fy_last = fy;
+        if (fy < c.fy_lo) {
+            c.fy_lo = fy, c.fx_lo = fx, c.k_lo = k;
+        }
+        if (fy > c.fy_hi) {
+            c.fy_hi = fy, c.fx_hi = fx, c.k_hi = k;
+        }
+    }
+    column_flush(&c, &pen);
+    cairo_stroke(p->cr);
+    unclip(p);
+}
+
+void plot_band(struct plot *p, const struct plot_panel *pa, const double *x, const double *lo,
+               const double *hi, size_t n, const struct plot_style *st)
+{
+    clip_panel(p, pa);
+    set_rgb(p, st->rgb, st->alpha);
+    size_t k = 0;
+    while (k < n) {
+        while (k < n && !(isfinite(x[k]) && isfinite(lo[k]) && isfinite(hi[k])))
+            k++;
+        size_t start = k;
+        while (k < n && isfinite(x[k]) && isfinite(lo[k]) && isfinite(hi[k]))
+            k++;
+        if (k - start < 2)
+            continue;
+        cairo_new_path(p->cr);
+        for (size_t j = start; j < k; j++)
+            cairo_line_to(p->cr, plot_px(pa, x[j]), plot_py(pa, hi[j]));
+        for (size_t j = k; j-- > start;)
+            cairo_line_to(p->cr, plot_px(pa, x[j]), plot_py(pa, lo[j]));
+        cairo_close_path(p->cr);
+        cairo_fill(p->cr);
+    }
+    unclip(p);
+}
+
+void plot_vspan(struct plot *p, const struct plot_panel *pa, double xa, double xb, int hatched,
+                const struct plot_style *st)
+{
+    double fa = fmax(plot_px(pa, xa), pa->x0), fb = fmin(plot_px(pa, xb), pa->x1);
+    if (!(fb > fa))
+        return;
+    if (fb - fa < p->lw)
+        fb = fa + p->lw; /* a short interval stays visible */
+    clip_panel(p, pa);
+    cairo_rectangle(p->cr, fa, pa->y0, fb - fa, pa->y1 - pa->y0);
+    if (!hatched) {
+        set_rgb(p, st->rgb, st->alpha);
+        cairo_fill(p->cr);
+    } else {
+        cairo_clip(p->cr);
+        struct plot_style s = *st;
+        s.width = 0.7;
+        set_style(p, &s);
+        double gap = p->font * 0.5, hgt = pa->y1 - pa->y0;
+        for (double x = fa - hgt; x < fb; x += gap) {
+            cairo_move_to(p->cr, x, pa->y1);
+            cairo_line_to(p->cr, x + hgt, pa->y0);
+        }
+        cairo_stroke(p->cr);
+    }
+    unclip(p);
+}
+
+void plot_hline(struct plot *p, const struct plot_panel *pa, double y, const struct plot_style *st,
+                const char *label)
+{
+    double fy = plot_py(pa, y);
+    if (!(fy >= pa->y0 && fy <= pa->y1))
+        return;
+    clip_panel(p, pa);
+    set_style(p, st);
+    cairo_move_to(p->cr, pa->x0, fy);
+    cairo_line_to(p->cr, pa->x1, fy);
+    cairo_stroke(p->cr);
+    unclip(p);
+    if (label && *label) {
+        double fs = p->font * 0.8;
+        /* above the line unless that leaves the plot area */
+        double by = fy - fs * 0.45 - fs > pa->y0 ? fy - fs * 0.45 : fy + fs * 1.15;
+        text_halo(p, pa->x1 - p->font * 0.4, by, 2, fs, st->rgb == PLOT_YELLOW ? 0 : st->rgb,
+                  label);
+    }
+}
+
+void plot_vline(struct plot *p, const struct plot_panel *pa, double x, const struct plot_style *st,
+                const char *label)
+{
+    double fx = plot_px(pa, x);
+    if (!(fx >= pa->x0 && fx <= pa->x1))
+        return;
+    clip_panel(p, pa);
+    set_style(p, st);
+    cairo_move_to(p->cr, fx, pa->y0);
+    cairo_line_to(p->cr, fx, pa->y1);
+    cairo_stroke(p->cr);
+    unclip(p);
+    if (label && *label) {
+        double fs = p->font * 0.8;
+        double w = plot_text_width(p, label, fs, 0);
+        /* to the left of the line when it would run off the right edge */
+        int anchor = fx + fs * 0.4 + w > pa->x1 ? 2 : 0;
+        text_halo(p, anchor ? fx - fs * 0.4 : fx + fs * 0.4, pa->y0 + fs * 1.3, anchor, fs,
+                  st->rgb, label);
+    }
+}
+
+void plot_marker_at(struct plot *p, double fx, double fy, enum plot_mark m, int filled,
+                    const struct plot_style *st)
+{
+    cairo_t *cr = p->cr;
+    double r = p->font * 0.32 * (st->width > 0 ? st->width : 1.0);
+    cairo_save(cr);
+    cairo_new_path(cr);
+    switch (m) {
+    case MARK_CIRCLE:
+        cairo_arc(cr, fx, fy, r, 0, 2 * M_PI);
+        break;
+    case MARK_TRIANGLE:
+        cairo_move_to(cr, fx, fy - 1.2 * r);
+        cairo_line_to(cr, fx + 1.1 * r, fy + 0.75 * r);
+        cairo_line_to(cr, fx - 1.1 * r, fy + 0.75 * r);
+        cairo_close_path(cr);
+        break;
+    case MARK_SQUARE:
+        cairo_rectangle(cr, fx - 0.9 * r, fy - 0.9 * r, 1.8 * r, 1.8 * r);
+        break;
+    case MARK_DIAMOND:
+        cairo_move_to(cr, fx, fy - 1.25 * r);
+        cairo_line_to(cr, fx + 1.0 * r, fy);
+        cairo_line_to(cr, fx, fy + 1.25 * r);
+        cairo_line_to(cr, fx - 1.0 * r, fy);
+        cairo_close_path(cr);
+        break;
+    case MARK_CROSS:
+        cairo_move_to(cr, fx - r, fy - r);
+        cairo_line_to(cr, fx + r, fy + r);
+        cairo_move_to(cr, fx - r, fy + r);
+        cairo_line_to(cr, fx + r, fy - r);
+        filled = 0;
+        break;
+    }
+    set_rgb(p, st->rgb, st->alpha);
+    cairo_set_dash(cr, NULL, 0, 0);
+    cairo_set_line_width(cr, p->lw * (m == MARK_CROSS ? 1.6 : 1.1));
+    if (filled) {
+        cairo_fill_preserve(cr);
+        set_rgb(p, 0x222222u, 1); /* a dark edge keeps light fills visible in greyscale */
+        cairo_set_line_width(cr, p->lw * 0.6);
+    }
+    cairo_stroke(cr);
+    cairo_restore(cr);
+}
+
+void plot_marker(struct plot *p, const struct plot_panel *pa, double x, double y,
+                 enum plot_mark m, int filled, const struct plot_style *st)
+{
+    if (!isfinite(x) || !isfinite(y))
+        return;
+    double fx = plot_px(pa, x), fy = plot_py(pa, y);
+    if (fx < pa->x0 - 0.5 || fx > pa->x1 + 0.5 || fy < pa->y0 - 0.5 || fy > pa->y1 + 0.5)
+        return;
+    clip_panel(p, pa);
+    plot_marker_at(p, fx, fy, m, filled, st);
+    unclip(p);
+}
+
+/* ---- legend -------------------------------------------------------------- */
+
+static double key_width(struct plot *p, const struct plot_key *k)
+{
+    return p->font * 2.4 + plot_text_width(p, k->text, p->font * 0.85, 0) + p->font * 1.2;
+}
+
+static void key_draw(struct plot *p, const struct plot_key *k, double fx, double fy)
+{
+    double sw = p->font * 2.0, mid = fy - p->font * 0.3;
+    if (k->box) {
+        struct plot_panel box = {.x0 = fx, .x1 = fx + sw, .y0 = fy - p->font * 0.75, .y1 = fy};
+        box.x.lo = 0, box.x.hi = 1;
+        plot_vspan(p, &box, 0, 1, k->box == 2, &k->st);
+        cairo_save(p->cr);
+        cairo_set_dash(p->cr, NULL, 0, 0);
+        cairo_set_line_width(p->cr, p->lw * 0.5);
+        set_rgb(p, 0x888888u, 1);
+        cairo_rectangle(p->cr, box.x0, box.y0, sw, box.y1 - box.y0);
+        cairo_stroke(p->cr);
+        cairo_restore(p->cr);
+    } else if (k->mark >= 0) {
+        plot_marker_at(p, fx + sw / 2, mid, (enum plot_mark)k->mark, k->filled, &k->st);
+    } else {
+        set_style(p, &k->st);
+        cairo_new_path(p->cr);
+        cairo_move_to(p->cr, fx, mid);
+        cairo_line_to(p->cr, fx + sw, mid);
+        cairo_stroke(p->cr);
+    }
+    plot_text(p, fx + sw + p->font * 0.4, fy, 0, p->font * 0.85, 0, 0x222222u, k->text);
+}
+
+void plot_legend(struct plot *p, const struct plot_panel *pa, const struct plot_key *k, size_t n)
+{
+    double avail = pa->x1 - pa->x0, fy = pa->legend_y;
+    size_t start = 0;
+    while (start < n) {
+        /* as many keys as fit on this row, kept in their order */
+        double w = 0;
+        size_t end = start;
+        while (end < n && (end == start || w + key_width(p, &k[end]) <= avail))
+            w += key_width(p, &k[end++]);
+        double fx = pa->x1 - w + p->font * 1.2;
+        for (size_t j = start; j < end; j++) {
+            key_draw(p, &k[j], fx, fy);
+            fx += key_width(p, &k[j]);
+        }
+        start = end;
+        fy -= p->font * 1.35;
+    }
+}
+
+int plot_legend_rows(struct plot *p, double width_px, const struct plot_key *k, size_t n)
+{
+    int rows = 0;
+    size_t start = 0;
+    while (start < n) {
+        double w = 0;
+        size_t end = start;
+        while (end < n && (end == start || w + key_width(p, &k[end]) <= width_px))
+            w += key_width(p, &k[end++]);
+        start = end;
+        rows++;
+    }
+    return rows;
+}
+
+double plot_fit_size(struct plot *p, const char *text, double size, int bold, double width_px)
+{
+    double w = plot_text_width(p, text, size, bold);
+    return w > width_px && w > 0 ? size * width_px / w : size;
+}
+
+void plot_stack(struct plot *p, double top, double bottom, double left, double right,
+                const double *weight, const int *legend_rows, size_t n, struct plot_panel *pa)
+{
+    double row = p->font * 1.35, gap = p->font * 0.7, total_w = 0, avail = bottom - top;
+    for (size_t k = 0; k < n; k++) {
+        total_w += weight[k];
+        avail -= legend_rows[k] * row + gap;
+    }
+    double y = top;
+    for (size_t k = 0; k < n; k++) {
+        y += legend_rows[k] * row + gap;
+        pa[k].legend_y = y - gap * 0.9;
+        pa[k].x0 = left;
+        pa[k].x1 = right;
+        pa[k].y0 = y;
+        y += fmax(avail, p->font * 3 * (double)n) * weight[k] / total_w;
+        pa[k].y1 = y;
+        pa[k].x_labels = k + 1 == n;
+    }
+}
+
+void plot_margins(struct plot *p, const struct plot_panel *pa, size_t n, double *left,
+                  double *right)
+{
+    double tick = p->font * 0.35, wl = 0, wr = 0;
+    int any_y2 = 0;
+    for (size_t k = 0; k < n; k++) {
+        wl = fmax(wl, plot_axis_label_width(p, &pa[k].y));
+        if (pa[k].has_y2) {
+            any_y2 = 1;
+            wr = fmax(wr, plot_axis_label_width(p, &pa[k].y2));
+        }
+    }
+    *left = tick * 1.8 + wl + p->font * 2.2;
+    *right = any_y2 ? tick * 1.8 + wr + p->font * 2.6 : p->font * 1.5;
+}
+
+/* ---- axes map ------------------------------------------------------------ */
+
+static json_t *axis_json(const struct plot_axis *ax)
+{
+    return json_pack("{s:f, s:f, s:f, s:f, s:i, s:s, s:b}", "min", ax->lo, "max", ax->hi,
+                     "tick_first", ax->ticks.first, "tick_step", ax->ticks.step, "ticks",
+                     ax->ticks.count, "label", ax->label, "dates", ax->dates);
+}
+
+int plot_axes_json(const char *path, const struct plot *p, const struct plot_panel *pa, size_t n)
+{
+    static const char *const names[] = {"png", "svg", "pdf"};
+    json_t *root = json_pack("{s:f, s:f, s:s, s:[]}", "width", p->w, "height", p->h, "format",
+                             names[p->fmt], "panels");
+    if (!root)
+        return -1;
+    json_t *arr = json_object_get(root, "panels");
+    for (size_t k = 0; k < n; k++) {
+        json_t *o = json_pack("{s:s, s:f, s:f, s:f, s:f, s:o, s:o}", "name", pa[k].name, "left",
+                              pa[k].x0, "top", pa[k].y0, "right", pa[k].x1, "bottom", pa[k].y1,
+                              "x", axis_json(&pa[k].x), "y", axis_json(&pa[k].y));
+        if (o && pa[k].has_y2)
+            json_object_set_new(o, "y2", axis_json(&pa[k].y2));
+        if (!o || json_array_append_new(arr, o) != 0) {
+            json_decref(root);
+            return -1;
+        }
+    }
+    int rc = json_dump_file(root, path, JSON_INDENT(2) | JSON_REAL_PRECISION(12));
+    json_decref(root);
+    return rc == 0 ? 0 : -1;
+}

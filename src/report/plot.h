@@ -1,0 +1,193 @@
+/* plot: a small drawing layer over cairo for packbook's figures.
+ *
+ * Owns struct plot (plot_new/plot_free): one output file being drawn, in
+ * PNG, SVG or PDF by its extension. Nothing reaches the named file until
+ * plot_finish succeeds: drawing goes to a temporary file beside it that is
+ * renamed at the end (and removed by plot_free otherwise).
+ *
+ * Coordinates are in pixels (PNG) or points (SVG, PDF), origin top left;
+ * a figure of W x H has the same layout in every format. A panel maps data
+ * to a rectangle; its axes span round ticks (core/ticks) so the first and
+ * last tick are the edges. Lines skip non-finite values and break across
+ * gaps; long series are reduced to each pixel column's first, lowest,
+ * highest and last value, which draws the same picture. */
+#ifndef PB_PLOT_H
+#define PB_PLOT_H
+
+#include <stddef.h>
+#include <stdint.h>
+
+#include "../core/pb_error.h"
+#include "../core/ticks.h"
+
+/* Okabe & Ito (2008), "Color Universal Design": a set told apart with any
+ * common colour-vision deficiency; series also differ by dash and width so
+ * they survive greyscale printing. */
+#define PLOT_BLACK 0x000000u
+#define PLOT_ORANGE 0xE69F00u
+#define PLOT_SKY 0x56B4E9u
+#define PLOT_GREEN 0x009E73u
+#define PLOT_YELLOW 0xF0E442u
+#define PLOT_BLUE 0x0072B2u
+#define PLOT_VERMILION 0xD55E00u
+#define PLOT_PURPLE 0xCC79A7u
+#define PLOT_GREY 0x8C8C8Cu
+
+#define PLOT_MIN_W 480
+#define PLOT_MIN_H 360
+#define PLOT_MAX_SIDE 12000
+
+enum plot_dash { DASH_SOLID = 0, DASH_LONG, DASH_DOT };
+enum plot_mark { MARK_CIRCLE = 0, MARK_TRIANGLE, MARK_SQUARE, MARK_CROSS, MARK_DIAMOND };
+
+struct plot_style {
+    uint32_t rgb;
+    double width; /* line width or marker size, in units of the figure's base line */
+    enum plot_dash dash;
+    double alpha; /* 0 means opaque */
+};
+
+struct plot_axis {
+    double lo, hi;      /* data range shown: the first and last tick */
+    struct ticks ticks; /* labels at ticks.first + k ticks.step */
+    char label[96];     /* axis title with its unit, e.g. "voltage (V)" */
+    int dates;          /* values are days since date_base_s; labels as ISO dates */
+    double date_base_s;
+};
+
+struct plot_panel {
+    char name[24];          /* for the axes map: "voltage", "current", ... */
+    double x0, y0, x1, y1;  /* plot area, x0 < x1, y0 < y1 (top edge y0) */
+    struct plot_axis x, y;  /* y is the left axis */
+    struct plot_axis y2;    /* right axis, when has_y2 */
+    int has_y2;
+    int x_labels;           /* draw the x tick labels and title under this panel */
+    double legend_y;        /* baseline of the legend row above the plot area */
+};
+
+struct plot;
+
+/* Figure kind in the output's name: PNG, SVG or PDF; -1 when unknown. */
+int plot_format_of(const char *path);
+
+/* A figure of w x h drawn to path. Returns NULL with err filled. */
+struct plot *plot_new(const char *path, int w, int h, struct pb_error *err);
+
+/* Writes the figure and moves it to its name. Returns PB_OK or fills err. */
+enum pb_code plot_finish(struct plot *p, struct pb_error *err);
+
+/* Frees p, removing the temporary file when not finished; NULL is a no-op. */
+void plot_free(struct plot *p);
+
+double plot_width(const struct plot *p);
+double plot_height(const struct plot *p);
+double plot_font(const struct plot *p); /* base font size */
+double plot_text_width(struct plot *p, const char *text, double size, int bold);
+
+/* Parses "WxH" for --size; 0, or -1 with err filled. */
+int plot_parse_size(const char *arg, int *w, int *h, struct pb_error *err);
+
+/* Sets ax to the round ticks spanning [lo, hi] with at most what fits
+ * along len_px (labels about label_px long). Non-finite or empty ranges
+ * fall back to [0, 1]. */
+void plot_axis_fit(struct plot *p, struct plot_axis *ax, double lo, double hi, double len_px,
+                   int vertical);
+
+/* As plot_axis_fit, but the axis spans exactly [lo, hi] with the round
+ * ticks inside it (a time axis that ends where the log ends). */
+void plot_axis_fit_tight(struct plot *p, struct plot_axis *ax, double lo, double hi,
+                         double len_px);
+
+/* Sets ax2 (a right axis) to cover [lo, hi] with as many ticks as ref and
+ * its zero on ref's zero, so both axes share the grid lines; ref must
+ * contain 0. Falls back to plot_axis_fit otherwise. */
+void plot_axis_align(struct plot *p, struct plot_axis *ax2, double lo, double hi,
+                     const struct plot_axis *ref, double len_px);
+
+/* Width of the widest tick label of ax. */
+double plot_axis_label_width(struct plot *p, const struct plot_axis *ax);
+
+/* Tick label text for value x of ax. */
+void plot_tick_text(const struct plot_axis *ax, double x, char *buf, size_t cap);
+
+/* Data to figure coordinates. */
+double plot_px(const struct plot_panel *pa, double x);
+double plot_py(const struct plot_panel *pa, double y);
+double plot_py2(const struct plot_panel *pa, double y);
+
+/* Frame, grid, ticks, tick labels and axis titles of a panel. */
+void plot_panel_draw(struct plot *p, const struct plot_panel *pa);
+
+/* A line through (x[k], y[k]), on the right axis when right. Values are
+ * taken as x[k] / x_div; the line breaks where a value is not finite or
+ * where x steps by more than break_dx (in x's own units; <= 0: never). */
+void plot_line(struct plot *p, const struct plot_panel *pa, int right, const double *x,
+               const double *y, size_t n, double x_div, double break_dx,
+               const struct plot_style *st);
+
+/* Filled band between lo[k] and hi[k]. */
+void plot_band(struct plot *p, const struct plot_panel *pa, const double *x, const double *lo,
+               const double *hi, size_t n, const struct plot_style *st);
+
+/* Shades x in [xa, xb] over the whole panel height; hatched draws
+ * diagonal lines (missing data) instead of a tint. */
+void plot_vspan(struct plot *p, const struct plot_panel *pa, double xa, double xb, int hatched,
+                const struct plot_style *st);
+
+/* Horizontal (or vertical) reference line across the panel, with an
+ * optional label at its right (or top) end inside the plot area. */
+void plot_hline(struct plot *p, const struct plot_panel *pa, double y, const struct plot_style *st,
+                const char *label);
+void plot_vline(struct plot *p, const struct plot_panel *pa, double x, const struct plot_style *st,
+                const char *label);
+
+/* A marker at data (x, y); filled or hollow. */
+void plot_marker(struct plot *p, const struct plot_panel *pa, double x, double y,
+                 enum plot_mark m, int filled, const struct plot_style *st);
+
+/* A marker at figure coordinates (for legends). */
+void plot_marker_at(struct plot *p, double fx, double fy, enum plot_mark m, int filled,
+                    const struct plot_style *st);
+
+/* Text at figure coordinates: anchor 0 left, 1 centre, 2 right; y is the
+ * baseline. Returns the text's width. */
+double plot_text(struct plot *p, double fx, double fy, int anchor, double size, int bold,
+                 uint32_t rgb, const char *text);
+
+/* A legend entry: a line sample (or a marker when mark >= 0, or a shaded
+ * box when box) and its text. */
+struct plot_key {
+    const char *text;
+    struct plot_style st;
+    int mark;   /* enum plot_mark, or -1 for a line sample */
+    int filled; /* for marks */
+    int box;    /* 1 tint, 2 hatched */
+};
+
+/* Lays the keys out in a row ending at the panel's right edge, on the
+ * panel's legend baseline, wrapping leftwards never: keys that do not fit
+ * go on a second row above. */
+void plot_legend(struct plot *p, const struct plot_panel *pa, const struct plot_key *k, size_t n);
+
+/* Rows plot_legend needs for the keys in a panel width_px wide. */
+int plot_legend_rows(struct plot *p, double width_px, const struct plot_key *k, size_t n);
+
+/* The largest size (at most size) at which text fits in width_px. */
+double plot_fit_size(struct plot *p, const char *text, double size, int bold, double width_px);
+
+/* Stacks n panels from top to bottom (the last one's plot area ends at
+ * bottom): panel k gets legend_rows[k] legend rows above it and a share
+ * of the height by weight[k]; x0/x1 are left and right. Only the last
+ * panel draws x labels. */
+void plot_stack(struct plot *p, double top, double bottom, double left, double right,
+                const double *weight, const int *legend_rows, size_t n, struct plot_panel *pa);
+
+/* The left and right margins the panels' y tick labels and titles need. */
+void plot_margins(struct plot *p, const struct plot_panel *pa, size_t n, double *left,
+                  double *right);
+
+/* Axes map as JSON (panel rectangles and ranges), for checking the
+ * figure or placing annotations over it. Returns 0, or -1 on failure. */
+int plot_axes_json(const char *path, const struct plot *p, const struct plot_panel *pa, size_t n);
+
+#endif

@@ -1,0 +1,230 @@
+#define _GNU_SOURCE /* gmtime_r */
+/* The fleet figure: every pack as one mark, capacity against resistance growth. */
+#include <math.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+#include <time.h>
+
+#include "plot.h"
+#include "plots.h"
+
+enum { S_OK = 0, S_WATCH, S_RETIRE, S_RETIRED, S_COUNT };
+
+static const char *const status_text[S_COUNT] = {"ok", "watch", "retire", "retired"};
+static const struct plot_style status_style[S_COUNT] = {
+    {PLOT_GREEN, 1.15, DASH_SOLID, 0},
+    {PLOT_ORANGE, 1.3, DASH_SOLID, 0},
+    {PLOT_VERMILION, 1.2, DASH_SOLID, 0},
+    {PLOT_GREY, 1.1, DASH_SOLID, 0},
+};
+static const enum plot_mark status_mark[S_COUNT] = {MARK_CIRCLE, MARK_TRIANGLE, MARK_SQUARE,
+                                                    MARK_CROSS};
+
+static int status_of(const struct pack_view *v)
+{
+    if (v->pack.retired_at[0])
+        return S_RETIRED;
+    return v->health.status == HEALTH_RETIRE ? S_RETIRE
+           : v->health.status == HEALTH_WATCH ? S_WATCH
+                                              : S_OK;
+}
+
+struct box {
+    double x0, y0, x1, y1;
+};
+
+static int overlaps(const struct box *a, const struct box *b)
+{
+    return a->x0 < b->x1 && b->x0 < a->x1 && a->y0 < b->y1 && b->y0 < a->y1;
+}
+
+/* Appends "name, " to a list line while it fits; counts the rest. */
+static void list_add(char *buf, size_t cap, const char *item, size_t *more)
+{
+    size_t len = strlen(buf), add = strlen(item) + 2;
+    if (*more || len + add + 24 >= cap) {
+        (*more)++;
+        return;
+    }
+    snprintf(buf + len, cap - len, "%s%s", len ? ", " : "", item);
+}
+
+enum pb_code plot_fleet(const char *path, const struct plot_opts *o, const struct pack_view *v,
+                        size_t n, const struct health_rules *rules, struct pb_error *err)
+{
+    int w = o->width ? o->width : 1400, h = o->height ? o->height : 1000;
+    struct plot *p = plot_new(path, w, h, err);
+    if (!p)
+        return err->code;
+    enum pb_code rc = PB_OK;
+    double fs = plot_font(p);
+    size_t count[S_COUNT] = {0}, placed = 0;
+    double xlo = 0.0, xhi = (rules->retire_r0_ratio - 1.0) * 100.0 * 1.15;
+    double ylo = rules->retire_capacity_pct - 5.0, yhi = 100.0;
+    for (size_t k = 0; k < n; k++) {
+        count[status_of(&v[k])]++;
+        double xr = (v[k].health.r0_ratio - 1.0) * 100.0, yc = v[k].health.capacity_pct;
+        if (isfinite(xr) && isfinite(yc)) {
+            placed++;
+            xlo = fmin(xlo, xr), xhi = fmax(xhi, xr);
+            ylo = fmin(ylo, yc), yhi = fmax(yhi, yc);
+        }
+    }
+    struct plot_panel pa;
+    memset(&pa, 0, sizeof pa);
+    snprintf(pa.name, sizeof pa.name, "fleet");
+    snprintf(pa.y.label, sizeof pa.y.label, "capacity (%% of rated, median of recent flights)");
+    snprintf(pa.x.label, sizeof pa.x.label,
+             "R0 change from the pack's baseline (%%, median of recent vs first flights)");
+    char ktext[S_COUNT][48];
+    struct plot_key keys[S_COUNT + 2];
+    size_t nk = 0;
+    for (int s = 0; s < S_COUNT; s++) {
+        if (s == S_RETIRED && !count[s])
+            continue;
+        snprintf(ktext[s], sizeof ktext[s], "%s (%zu)", status_text[s], count[s]);
+        keys[nk++] = (struct plot_key){ktext[s], status_style[s], (int)status_mark[s], s != S_RETIRED,
+                                       0};
+    }
+    static const struct plot_style st_retire = {PLOT_VERMILION, 1.3, DASH_LONG, 0};
+    static const struct plot_style st_watch = {PLOT_ORANGE, 1.2, DASH_DOT, 0};
+    keys[nk++] = (struct plot_key){"retire level", st_retire, -1, 0, 0};
+    keys[nk++] = (struct plot_key){"watch level", st_watch, -1, 0, 0};
+
+    double top = fs * 4.2, bottom = h - fs * 8.2, left = fs * 6, right = w - fs * 2;
+    double weight = 1;
+    int rows = plot_legend_rows(p, right - left, keys, nk);
+    plot_stack(p, top, bottom, left, right, &weight, &rows, 1, &pa);
+    plot_axis_fit(p, &pa.y, ylo, yhi, pa.y1 - pa.y0, 1);
+    plot_margins(p, &pa, 1, &left, &right);
+    pa.x0 = left;
+    pa.x1 = w - right;
+    plot_axis_fit(p, &pa.x, xlo, xhi, pa.x1 - pa.x0, 0);
+
+    /* title */
+    char line[640], when[40] = "";
+    time_t now = time(NULL);
+    struct tm tm;
+    gmtime_r(&now, &tm);
+    strftime(when, sizeof when, "%Y-%m-%d", &tm);
+    snprintf(line, sizeof line, "%s", o->title ? o->title : "Fleet");
+    char meta[160];
+    snprintf(meta, sizeof meta, "%zu pack%s \u00b7 %zu placed \u00b7 drawn %s", n,
+             n == 1 ? "" : "s", placed, when);
+    double mw = plot_text_width(p, meta, fs, 0);
+    plot_text(p, pa.x0, fs * 1.7, 0,
+              plot_fit_size(p, line, fs * 1.35, 1, pa.x1 - pa.x0 - mw - fs), 1, 0x111111u, line);
+    plot_text(p, pa.x1, fs * 1.7, 2, fs, 0, 0x333333u, meta);
+
+    plot_panel_draw(p, &pa);
+    char lab[96];
+    snprintf(lab, sizeof lab, "retire %.0f %%", rules->retire_capacity_pct);
+    plot_hline(p, &pa, rules->retire_capacity_pct, &st_retire, lab);
+    snprintf(lab, sizeof lab, "watch %.0f %%", rules->watch_capacity_pct);
+    plot_hline(p, &pa, rules->watch_capacity_pct, &st_watch, lab);
+    snprintf(lab, sizeof lab, "retire %.1f\u00d7", rules->retire_r0_ratio);
+    plot_vline(p, &pa, (rules->retire_r0_ratio - 1.0) * 100.0, &st_retire, lab);
+    snprintf(lab, sizeof lab, "watch %.1f\u00d7", rules->watch_r0_ratio);
+    plot_vline(p, &pa, (rules->watch_r0_ratio - 1.0) * 100.0, &st_watch, lab);
+
+    /* marks: ok first so the packs needing attention sit on top */
+    for (int s = 0; s < S_COUNT; s++)
+        for (size_t k = 0; k < n; k++)
+            if (status_of(&v[k]) == s)
+                plot_marker(p, &pa, (v[k].health.r0_ratio - 1.0) * 100.0,
+                            v[k].health.capacity_pct, status_mark[s], s != S_RETIRED,
+                            &status_style[s]);
+
+    /* labels on the packs needing attention, where they do not collide
+     * with another label or leave the plot; the list below names them all */
+    struct box *used = calloc(n ? n : 1, sizeof *used);
+    if (!used) {
+        rc = pb_error_set(err, PB_ENOMEM, "out of memory");
+        goto cleanup;
+    }
+    size_t nused = 0;
+    double ls = fs * 0.8, r = fs * 0.6;
+    static const double off[8][2] = {{1, -1}, {1, 1}, {-1, -1}, {-1, 1},
+                                     {1, 0},  {-1, 0}, {0, -1.6}, {0, 1.6}};
+    for (int s = S_RETIRE; s >= S_WATCH; s--)
+        for (size_t k = 0; k < n; k++) {
+            if (status_of(&v[k]) != s)
+                continue;
+            double xr = (v[k].health.r0_ratio - 1.0) * 100.0, yc = v[k].health.capacity_pct;
+            if (!isfinite(xr) || !isfinite(yc))
+                continue;
+            double fx = plot_px(&pa, xr), fy = plot_py(&pa, yc);
+            double tw = plot_text_width(p, v[k].pack.label, ls, 0);
+            for (int t = 0; t < 8; t++) {
+                double bx = off[t][0] > 0 ? fx + r : off[t][0] < 0 ? fx - r - tw : fx - tw / 2;
+                double by = fy + off[t][1] * r + (off[t][1] >= 0 ? ls * 0.8 : 0);
+                struct box b = {bx, by - ls * 0.8, bx + tw, by + ls * 0.2};
+                int ok = b.x0 >= pa.x0 && b.x1 <= pa.x1 && b.y0 >= pa.y0 && b.y1 <= pa.y1;
+                for (size_t u = 0; ok && u < nused; u++)
+                    ok = !overlaps(&b, &used[u]);
+                if (!ok)
+                    continue;
+                used[nused++] = b;
+                plot_text(p, bx, by, 0, ls, 0, 0x111111u, v[k].pack.label);
+                break;
+            }
+        }
+    free(used);
+
+    /* under the plot: the packs needing attention and the ones not placed */
+    char attn[600] = "", unplaced[400] = "";
+    size_t more_attn = 0, more_un = 0, nunplaced = 0;
+    for (int s = S_RETIRE; s >= S_WATCH; s--)
+        for (size_t k = 0; k < n; k++)
+            if (status_of(&v[k]) == s) {
+                char item[200];
+                snprintf(item, sizeof item, "%s (%s: %.120s)", v[k].pack.label, status_text[s],
+                         v[k].health.reason);
+                list_add(attn, sizeof attn, item, &more_attn);
+            }
+    for (size_t k = 0; k < n; k++) {
+        double xr = (v[k].health.r0_ratio - 1.0) * 100.0, yc = v[k].health.capacity_pct;
+        if (isfinite(xr) && isfinite(yc))
+            continue;
+        char item[160];
+        snprintf(item, sizeof item, "%s (no %s)", v[k].pack.label,
+                 !isfinite(yc) && !isfinite(xr) ? "capacity or R0 yet"
+                 : !isfinite(yc)                 ? "capacity estimate yet"
+                                                 : "R0 baseline yet");
+        list_add(unplaced, sizeof unplaced, item, &more_un);
+        nunplaced++;
+    }
+    double ty = pa.y1 + fs * 4.6, avail = pa.x1 - pa.x0;
+    if (attn[0]) {
+        if (more_attn)
+            snprintf(attn + strlen(attn), sizeof attn - strlen(attn),
+                     " and %zu more (packbook fleet)", more_attn);
+        snprintf(line, sizeof line, "Needing attention: %s", attn);
+    } else {
+        snprintf(line, sizeof line, "No pack needs attention under the current rules.");
+    }
+    plot_text(p, pa.x0, ty, 0, plot_fit_size(p, line, fs * 0.85, 0, avail), 0, 0x222222u, line);
+    if (nunplaced) {
+        if (more_un)
+            snprintf(unplaced + strlen(unplaced), sizeof unplaced - strlen(unplaced),
+                     " and %zu more", more_un);
+        snprintf(line, sizeof line, "Not placed (%zu): %s", nunplaced, unplaced);
+        plot_text(p, pa.x0, ty + fs * 1.3, 0, plot_fit_size(p, line, fs * 0.85, 0, avail), 0,
+                  0x222222u, line);
+    }
+    snprintf(line, sizeof line,
+             "packbook %s \u00b7 flags from the recorded flights only: inspect packs and follow "
+             "the manufacturer's limits before retiring or flying them",
+             PACKBOOK_VERSION);
+    plot_text(p, pa.x0, h - fs * 0.6, 0, plot_fit_size(p, line, fs * 0.72, 0, avail), 0,
+              0x666666u, line);
+    plot_legend(p, &pa, keys, nk);
+    if (o->axes_json && plot_axes_json(o->axes_json, p, &pa, 1) != 0)
+        rc = pb_error_set(err, PB_EOUTPUT, "cannot write the axes map '%s'", o->axes_json);
+    if (rc == PB_OK)
+        rc = plot_finish(p, err);
+cleanup:
+    plot_free(p);
+    return rc;
+}

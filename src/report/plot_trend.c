@@ -1,0 +1,296 @@
+#define _GNU_SOURCE /* gmtime_r */
+/* The trend figure: one pack's resistance and capacity across its history. */
+#include <math.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+#include <time.h>
+
+#include "plot.h"
+#include "plots.h"
+
+#define LINE_POINTS 120 /* samples along a fitted line and its band */
+
+static void iso_day(double epoch_s, char *buf, size_t cap)
+{
+    time_t t = (time_t)llround(epoch_s);
+    struct tm tm;
+    gmtime_r(&t, &tm);
+    strftime(buf, cap, "%Y-%m-%d", &tm);
+}
+
+/* One quantity's panel: its per-flight values, level and fitted line. */
+struct quantity {
+    const char *name, *unit;
+    double *y; /* per flight, NAN when unknown */
+    const struct trend_line *tl;
+    double watch_level;
+};
+
+/* What the line says about the retirement level, for the title block. */
+static void crossing_text(const struct trend_line *tl, const struct line_fit *l, const char *what,
+                          const char *unit, double per, const char *per_unit, char *buf,
+                          size_t cap)
+{
+    char slope[96] = "", when[96];
+    if (!l->ok) {
+        snprintf(buf, cap, "%s: too few flights with a value for a line (3 needed, %zu)", what,
+                 l->n);
+        return;
+    }
+    snprintf(slope, sizeof slope, "%+.2f \u00b1 %.2f %s per %g %s", l->b * per, l->b_ci95 * per,
+             unit, per, per_unit);
+    if (tl->crossed)
+        snprintf(when, sizeof when, "at or past the retirement level now");
+    else if (isfinite(tl->cross_cycles)) {
+        char day[32] = "";
+        if (isfinite(tl->cross_epoch_s))
+            iso_day(tl->cross_epoch_s, day, sizeof day);
+        snprintf(when, sizeof when, "reaches the retirement level at \u2248 %.0f cycles%s%s%s",
+                 tl->cross_cycles, day[0] ? " (" : "", day, day[0] ? ")" : "");
+    } else if (tl->beyond_horizon)
+        snprintf(when, sizeof when, "no crossing within the horizon");
+    else
+        snprintf(when, sizeof when, "no crossing projected (slope not told from zero, or away)");
+    snprintf(buf, cap, "%s: %s \u00b7 %s", what, slope, when);
+}
+
+enum pb_code plot_trend(const char *path, const struct plot_opts *o, const struct pack_view *v,
+                        const struct health_rules *rules, int by_date, struct pb_error *err)
+{
+    int w = o->width ? o->width : 1600, h = o->height ? o->height : 1000;
+    struct plot *p = plot_new(path, w, h, err);
+    if (!p)
+        return err->code;
+    enum pb_code rc = PB_OK;
+    size_t n = v->nflights;
+    const struct pack_rec *pk = &v->pack;
+    double rated = pk->capacity_mah, cells = pk->cells > 0 ? pk->cells : 1;
+    double *x = malloc((n ? n : 1) * sizeof *x);
+    double *r0 = malloc((n ? n : 1) * sizeof *r0);
+    double *cap = malloc((n ? n : 1) * sizeof *cap);
+    double *lx = malloc(LINE_POINTS * sizeof *lx), *ly = malloc(LINE_POINTS * sizeof *ly);
+    double *lo = malloc(LINE_POINTS * sizeof *lo), *hi = malloc(LINE_POINTS * sizeof *hi);
+    if (!x || !r0 || !cap || !lx || !ly || !lo || !hi) {
+        rc = pb_error_set(err, PB_ENOMEM, "out of memory");
+        goto cleanup;
+    }
+    double first_epoch = n ? v->flights[0].flown_epoch_s : 0.0, q = 0.0;
+    for (size_t k = 0; k < n; k++) {
+        const struct flight_rec *f = &v->flights[k];
+        /* as health_trend counts them: the charge drawn before and during */
+        if (isfinite(f->charge_used_mah) && f->charge_used_mah > 0)
+            q += f->charge_used_mah;
+        x[k] = by_date ? (f->flown_epoch_s - first_epoch) / 86400.0 : q / rated;
+        r0[k] = f->r0_mohm / cells;
+        cap[k] = 100.0 * f->capacity_mah / rated;
+    }
+    double x_now = n ? x[n - 1] : 0.0;
+    double base_r0 = v->health.r0_base_mohm_cell;
+    struct quantity qs[2] = {
+        {"R0", "m\u03a9/cell", r0, &v->trend.r0, base_r0 * rules->watch_r0_ratio},
+        {"capacity", "% of rated", cap, &v->trend.capacity, rules->watch_capacity_pct},
+    };
+
+    /* x range: the history, and the crossing when it is near enough to
+     * show without squeezing the flights into a corner */
+    double x_hi = x_now > 0 ? x_now : 1.0;
+    for (int j = 0; j < 2; j++) {
+        const struct trend_line *tl = qs[j].tl;
+        double xc = by_date ? (tl->cross_epoch_s - first_epoch) / 86400.0 : tl->cross_cycles;
+        if (isfinite(xc) && xc > x_hi && xc <= x_now * 3.0)
+            x_hi = xc * 1.04;
+    }
+
+    double fs = plot_font(p);
+    struct plot_panel pa[2];
+    memset(pa, 0, sizeof pa);
+    static const struct plot_style st_pt[2] = {{PLOT_BLUE, 1, DASH_SOLID, 0},
+                                               {PLOT_GREEN, 1, DASH_SOLID, 0}};
+    static const struct plot_style st_bucket = {PLOT_BLACK, 1.25, DASH_SOLID, 0};
+    static const struct plot_style st_line = {PLOT_BLACK, 1.4, DASH_SOLID, 0};
+    static const struct plot_style st_band = {PLOT_SKY, 1, DASH_SOLID, 0.35};
+    static const struct plot_style st_retire = {PLOT_VERMILION, 1.4, DASH_LONG, 0};
+    static const struct plot_style st_watch = {PLOT_ORANGE, 1.3, DASH_DOT, 0};
+    static const struct plot_style st_cross = {PLOT_VERMILION, 1.2, DASH_DOT, 0};
+    const char *bucket_name = v->trend.nbuckets && strchr(v->trend.buckets[0].key, 'W')
+                                  ? "weekly mean"
+                              : v->trend.nbuckets && strncmp(v->trend.buckets[0].key, "cycles", 6)
+                                  ? "monthly mean"
+                                  : "5-cycle mean";
+    struct plot_key keys[2][6];
+    size_t nk[2] = {0, 0};
+    for (int j = 0; j < 2; j++) {
+        keys[j][nk[j]++] = (struct plot_key){"flight", st_pt[j], MARK_CIRCLE, 0, 0};
+        keys[j][nk[j]++] = (struct plot_key){bucket_name, st_bucket, MARK_DIAMOND, 1, 0};
+        keys[j][nk[j]++] = (struct plot_key){"fitted line", st_line, -1, 0, 0};
+        keys[j][nk[j]++] = (struct plot_key){"95 % band", st_band, -1, 0, 1};
+        keys[j][nk[j]++] = (struct plot_key){"retire", st_retire, -1, 0, 0};
+        keys[j][nk[j]++] = (struct plot_key){"watch", st_watch, -1, 0, 0};
+    }
+    double top = fs * 6.8, bottom = h - fs * 4.6, left = fs * 6, right = w - fs * 2;
+    double weight[2] = {1, 1};
+    int rows[2];
+    for (int j = 0; j < 2; j++)
+        rows[j] = plot_legend_rows(p, right - left, keys[j], nk[j]);
+    plot_stack(p, top, bottom, left, right, weight, rows, 2, pa);
+    for (int j = 0; j < 2; j++) {
+        struct plot_panel *pp = &pa[j];
+        const struct trend_line *tl = qs[j].tl;
+        const struct line_fit *l = by_date ? &tl->vs_days : &tl->vs_cycles;
+        snprintf(pp->name, sizeof pp->name, "%s", j == 0 ? "r0" : "capacity");
+        snprintf(pp->y.label, sizeof pp->y.label, j == 0 ? "R0 (m\u03a9 per cell)"
+                                                        : "capacity (%% of rated)");
+        double ylo = HUGE_VAL, yhi = -HUGE_VAL;
+        for (size_t k = 0; k < n; k++)
+            if (isfinite(qs[j].y[k])) {
+                ylo = fmin(ylo, qs[j].y[k]);
+                yhi = fmax(yhi, qs[j].y[k]);
+            }
+        double levels[2] = {tl->level, qs[j].watch_level};
+        for (int m = 0; m < 2; m++)
+            if (isfinite(levels[m])) {
+                ylo = fmin(ylo, levels[m]);
+                yhi = fmax(yhi, levels[m]);
+            }
+        if (j == 1)
+            yhi = fmax(yhi, 100.0);
+        if (l->ok) {
+            double ya = l->a + l->b * x[0], yb = l->a + l->b * x_hi;
+            ylo = fmin(ylo, fmin(ya, yb));
+            yhi = fmax(yhi, fmax(ya, yb));
+        }
+        if (!(yhi >= ylo))
+            ylo = 0, yhi = j == 0 ? 10 : 100;
+        if (j == 0)
+            ylo = fmin(ylo, 0.0) < 0 ? ylo : fmax(0.0, ylo - 0.1 * (yhi - ylo));
+        plot_axis_fit(p, &pp->y, ylo, yhi, pp->y1 - pp->y0, 1);
+    }
+    plot_margins(p, pa, 2, &left, &right);
+    right = w - right;
+    struct plot_axis xa = {0};
+    if (by_date) {
+        xa.dates = 1;
+        xa.date_base_s = first_epoch;
+        snprintf(xa.label, sizeof xa.label, "date of flight (UTC)");
+    } else {
+        snprintf(xa.label, sizeof xa.label,
+                 "equivalent full cycles (charge drawn / rated %.0f mAh)", rated);
+    }
+    plot_axis_fit(p, &xa, 0.0, x_hi, right - left, 0);
+    for (int j = 0; j < 2; j++) {
+        pa[j].x0 = left;
+        pa[j].x1 = right;
+        pa[j].x = xa;
+    }
+
+    /* title block: the pack, then what each line says */
+    char line[512], ln[2][320];
+    snprintf(line, sizeof line, "%s", o->title ? o->title : pk->label);
+    char meta[256];
+    snprintf(meta, sizeof meta, "%dS %s %.0f mAh \u00b7 %zu flight%s \u00b7 %.1f cycles \u00b7 %s",
+             pk->cells, pk->chemistry, rated, n, n == 1 ? "" : "s", v->health.cycles,
+             pk->retired_at[0] ? "retired" : health_status_name(v->health.status));
+    double mw = plot_text_width(p, meta, fs * 1.0, 0);
+    plot_text(p, left, fs * 1.7, 0, plot_fit_size(p, line, fs * 1.35, 1, right - left - mw - fs),
+              1, 0x111111u, line);
+    plot_text(p, right, fs * 1.7, 2, fs, 0, 0x333333u, meta);
+    for (int j = 0; j < 2; j++) {
+        const struct trend_line *tl = qs[j].tl;
+        crossing_text(tl, by_date ? &tl->vs_days : &tl->vs_cycles, qs[j].name, qs[j].unit, by_date ? 30 : 100, by_date ? "days" : "cycles",
+                      ln[j], sizeof ln[j]);
+        plot_text(p, left, fs * (3.15 + 1.3 * j), 0,
+                  plot_fit_size(p, ln[j], fs * 0.9, 0, right - left), 0, 0x222222u, ln[j]);
+    }
+    if (v->health.status != HEALTH_OK && v->health.reason[0]) {
+        snprintf(line, sizeof line, "%s: %s", health_status_name(v->health.status),
+                 v->health.reason);
+        plot_text(p, left, fs * 5.75, 0, plot_fit_size(p, line, fs * 0.9, 0, right - left), 0,
+                  PLOT_VERMILION, line);
+    }
+
+    for (int j = 0; j < 2; j++) {
+        struct plot_panel *pp = &pa[j];
+        const struct trend_line *tl = qs[j].tl;
+        const struct line_fit *l = by_date ? &tl->vs_days : &tl->vs_cycles;
+        plot_panel_draw(p, pp);
+        char lab[96];
+        if (isfinite(tl->level)) {
+            if (j == 0)
+                snprintf(lab, sizeof lab, "retire %.1f m\u03a9/cell (%.1f\u00d7 baseline)",
+                         tl->level, rules->retire_r0_ratio);
+            else
+                snprintf(lab, sizeof lab, "retire %.0f %% of rated", tl->level);
+            plot_hline(p, pp, tl->level, &st_retire, lab);
+        }
+        if (isfinite(qs[j].watch_level)) {
+            if (j == 0)
+                snprintf(lab, sizeof lab, "watch %.1f m\u03a9/cell", qs[j].watch_level);
+            else
+                snprintf(lab, sizeof lab, "watch %.0f %%", qs[j].watch_level);
+            plot_hline(p, pp, qs[j].watch_level, &st_watch, lab);
+        }
+        if (l->ok) {
+            double xa0 = x[0], xa1 = x_hi;
+            for (int k = 0; k < LINE_POINTS; k++) {
+                lx[k] = xa0 + (xa1 - xa0) * k / (LINE_POINTS - 1);
+                ly[k] = l->a + l->b * lx[k];
+                double hw = health_line_band(l, lx[k]);
+                lo[k] = ly[k] - hw;
+                hi[k] = ly[k] + hw;
+            }
+            plot_band(p, pp, lx, lo, hi, LINE_POINTS, &st_band);
+            plot_line(p, pp, 0, lx, ly, LINE_POINTS, 1.0, 0, &st_line);
+        }
+        for (size_t k = 0; k < n; k++)
+            plot_marker(p, pp, x[k], qs[j].y[k], MARK_CIRCLE, 0, &st_pt[j]);
+        /* bucket means at the mean x of their flights */
+        for (size_t b = 0; b < v->trend.nbuckets; b++) {
+            const struct trend_bucket *tb = &v->trend.buckets[b];
+            double sx = 0;
+            size_t m = 0;
+            for (size_t k = 0; k < n; k++)
+                if (v->flights[k].flown_epoch_s >= tb->first_epoch_s &&
+                    v->flights[k].flown_epoch_s <= tb->last_epoch_s)
+                    sx += x[k], m++;
+            double yb = j == 0 ? tb->r0_mohm_cell : tb->capacity_pct;
+            if (m)
+                plot_marker(p, pp, sx / m, yb, MARK_DIAMOND, 1, &st_bucket);
+        }
+        double xc = by_date ? (tl->cross_epoch_s - first_epoch) / 86400.0 : tl->cross_cycles;
+        if (isfinite(xc)) {
+            char day[32] = "";
+            if (isfinite(tl->cross_epoch_s))
+                iso_day(tl->cross_epoch_s, day, sizeof day);
+            if (xc <= pp->x.hi) {
+                snprintf(lab, sizeof lab, "projected: %.0f cycles%s%s", tl->cross_cycles,
+                         day[0] ? ", " : "", day);
+                plot_vline(p, pp, xc, &st_cross, lab);
+                plot_marker(p, pp, xc, tl->level, MARK_CROSS, 0, &st_cross);
+            } else {
+                /* off the right edge: say where, at the edge */
+                snprintf(lab, sizeof lab, "projected: %.0f cycles%s%s \u2192", tl->cross_cycles,
+                         day[0] ? ", " : "", day);
+                plot_vline(p, pp, pp->x.hi, &st_cross, lab);
+            }
+        }
+        if (n == 0)
+            plot_text(p, (pp->x0 + pp->x1) / 2, (pp->y0 + pp->y1) / 2, 1, fs, 0, 0x444444u,
+                      "no flights recorded for this pack");
+        plot_legend(p, pp, keys[j], nk[j]);
+    }
+    snprintf(line, sizeof line,
+             "packbook %s \u00b7 projections are straight-line fits, not guarantees: inspect "
+             "packs and follow the manufacturer's limits",
+             PACKBOOK_VERSION);
+    plot_text(p, left, h - fs * 0.6, 0, plot_fit_size(p, line, fs * 0.72, 0, right - left), 0,
+              0x666666u, line);
+    if (o->axes_json && plot_axes_json(o->axes_json, p, pa, 2) != 0)
+        rc = pb_error_set(err, PB_EOUTPUT, "cannot write the axes map '%s'", o->axes_json);
+    if (rc == PB_OK)
+        rc = plot_finish(p, err);
+cleanup:
+    free(x), free(r0), free(cap), free(lx), free(ly), free(lo), free(hi);
+    plot_free(p);
+    return rc;
+}
