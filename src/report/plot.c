@@ -242,6 +242,20 @@ double plot_text(struct plot *p, double fx, double fy, int anchor, double size, 
     return w;
 }
 
+/* A colour dark enough for text on white: the palette's light members
+ * (orange, yellow, sky) are fine as lines but faint as letters, so they
+ * are scaled towards black until their luminance is at most 0.3. */
+static uint32_t text_rgb(uint32_t rgb)
+{
+    double r = ((rgb >> 16) & 255) / 255.0, g = ((rgb >> 8) & 255) / 255.0, b = (rgb & 255) / 255.0;
+    double lum = 0.2126 * r + 0.7152 * g + 0.0722 * b;
+    if (lum <= 0.3)
+        return rgb;
+    double f = 0.3 / lum;
+    return ((uint32_t)lround(r * f * 255) << 16) | ((uint32_t)lround(g * f * 255) << 8) |
+           (uint32_t)lround(b * f * 255);
+}
+
 /* Text over data: a white halo keeps it readable over lines and grid. */
 static void text_halo(struct plot *p, double fx, double fy, int anchor, double size, uint32_t rgb,
                       const char *text)
@@ -258,7 +272,7 @@ static void text_halo(struct plot *p, double fx, double fy, int anchor, double s
     cairo_set_dash(p->cr, NULL, 0, 0);
     cairo_stroke(p->cr);
     cairo_move_to(p->cr, x, fy);
-    set_rgb(p, rgb, 1);
+    set_rgb(p, text_rgb(rgb), 1);
     cairo_show_text(p->cr, text);
     cairo_restore(p->cr);
 }
@@ -638,7 +652,7 @@ void plot_vspan(struct plot *p, const struct plot_panel *pa, double xa, double x
 }
 
 void plot_hline(struct plot *p, const struct plot_panel *pa, double y, const struct plot_style *st,
-                const char *label)
+                const char *label, int label_left)
 {
     double fy = plot_py(pa, y);
     if (!(fy >= pa->y0 && fy <= pa->y1))
@@ -653,8 +667,8 @@ void plot_hline(struct plot *p, const struct plot_panel *pa, double y, const str
         double fs = p->font * 0.8;
         /* above the line unless that leaves the plot area */
         double by = fy - fs * 0.45 - fs > pa->y0 ? fy - fs * 0.45 : fy + fs * 1.15;
-        text_halo(p, pa->x1 - p->font * 0.4, by, 2, fs, st->rgb == PLOT_YELLOW ? 0 : st->rgb,
-                  label);
+        text_halo(p, label_left ? pa->x0 + p->font * 0.4 : pa->x1 - p->font * 0.4, by,
+                  label_left ? 0 : 2, fs, st->rgb, label);
     }
 }
 
@@ -735,9 +749,8 @@ void plot_marker(struct plot *p, const struct plot_panel *pa, double x, double y
     double fx = plot_px(pa, x), fy = plot_py(pa, y);
     if (fx < pa->x0 - 0.5 || fx > pa->x1 + 0.5 || fy < pa->y0 - 0.5 || fy > pa->y1 + 0.5)
         return;
-    clip_panel(p, pa);
+    /* not clipped: a mark on the frame stays whole */
     plot_marker_at(p, fx, fy, m, filled, st);
-    unclip(p);
 }
 
 /* ---- legend -------------------------------------------------------------- */
@@ -849,6 +862,43 @@ void plot_margins(struct plot *p, const struct plot_panel *pa, size_t n, double 
     }
     *left = tick * 1.8 + wl + p->font * 2.2;
     *right = any_y2 ? tick * 1.8 + wr + p->font * 2.6 : p->font * 1.5;
+}
+
+int plot_text_wrap(struct plot *p, double fx, double fy, double width_px, double size,
+                   int max_lines, uint32_t rgb, const char *text)
+{
+    size_t len = strlen(text), start = 0;
+    char *buf = malloc(len + 1);
+    if (!buf)
+        return 0;
+    int lines = 0;
+    while (start < len && lines < max_lines) {
+        while (text[start] == ' ')
+            start++;
+        size_t end = len;
+        if (lines + 1 < max_lines) {
+            /* the longest run of whole words that fits */
+            size_t best = 0;
+            for (size_t k = start; k <= len; k++) {
+                if (k < len && text[k] != ' ')
+                    continue;
+                memcpy(buf, text + start, k - start);
+                buf[k - start] = '\0';
+                if (best && plot_text_width(p, buf, size, 0) > width_px)
+                    break;
+                best = k;
+            }
+            end = best ? best : len;
+        }
+        memcpy(buf, text + start, end - start);
+        buf[end - start] = '\0';
+        plot_text(p, fx, fy + lines * size * 1.3, 0, plot_fit_size(p, buf, size, 0, width_px), 0,
+                  rgb, buf);
+        lines++;
+        start = end;
+    }
+    free(buf);
+    return lines;
 }
 
 /* ---- axes map ------------------------------------------------------------ */

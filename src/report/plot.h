@@ -135,9 +135,10 @@ void plot_vspan(struct plot *p, const struct plot_panel *pa, double xa, double x
                 const struct plot_style *st);
 
 /* Horizontal (or vertical) reference line across the panel, with an
- * optional label at its right (or top) end inside the plot area. */
+ * optional label inside the plot area at its right end (left end when
+ * label_left), or at its top for a vertical line. */
 void plot_hline(struct plot *p, const struct plot_panel *pa, double y, const struct plot_style *st,
-                const char *label);
+                const char *label, int label_left);
 void plot_vline(struct plot *p, const struct plot_panel *pa, double x, const struct plot_style *st,
                 const char *label);
 
@@ -185,6 +186,12 @@ void plot_stack(struct plot *p, double top, double bottom, double left, double r
 /* The left and right margins the panels' y tick labels and titles need. */
 void plot_margins(struct plot *p, const struct plot_panel *pa, size_t n, double *left,
                   double *right);
+
+/* Text wrapped at spaces into lines of at most width_px, from baseline fy
+ * down; at most max_lines, the last one shrunk to fit what remains.
+ * Returns the lines used. */
+int plot_text_wrap(struct plot *p, double fx, double fy, double width_px, double size,
+                   int max_lines, uint32_t rgb, const char *text);
 
 /* Axes map as JSON (panel rectangles and ranges), for checking the
  * figure or placing annotations over it. Returns 0, or -1 on failure. */

@@ -39,15 +39,21 @@ static int overlaps(const struct box *a, const struct box *b)
     return a->x0 < b->x1 && b->x0 < a->x1 && a->y0 < b->y1 && b->y0 < a->y1;
 }
 
-/* Appends "name, " to a list line while it fits; counts the rest. */
-static void list_add(char *buf, size_t cap, const char *item, size_t *more)
+/* Appends "item" to a comma-separated list while the list stays within
+ * budget_px at size; counts the items left out in *more. */
+static void list_add(struct plot *p, char *buf, size_t cap, const char *item, double size,
+                     double budget_px, size_t *more)
 {
-    size_t len = strlen(buf), add = strlen(item) + 2;
-    if (*more || len + add + 24 >= cap) {
+    size_t len = strlen(buf);
+    if (*more || len + strlen(item) + 3 >= cap) {
         (*more)++;
         return;
     }
     snprintf(buf + len, cap - len, "%s%s", len ? ", " : "", item);
+    if (plot_text_width(p, buf, size, 0) > budget_px) {
+        buf[len] = '\0';
+        (*more)++;
+    }
 }
 
 enum pb_code plot_fleet(const char *path, const struct plot_opts *o, const struct pack_view *v,
@@ -92,7 +98,7 @@ enum pb_code plot_fleet(const char *path, const struct plot_opts *o, const struc
     keys[nk++] = (struct plot_key){"retire level", st_retire, -1, 0, 0};
     keys[nk++] = (struct plot_key){"watch level", st_watch, -1, 0, 0};
 
-    double top = fs * 4.2, bottom = h - fs * 8.2, left = fs * 6, right = w - fs * 2;
+    double top = fs * 4.2, bottom = h - fs * 9.6, left = fs * 6, right = w - fs * 2;
     double weight = 1;
     int rows = plot_legend_rows(p, right - left, keys, nk);
     plot_stack(p, top, bottom, left, right, &weight, &rows, 1, &pa);
@@ -103,14 +109,21 @@ enum pb_code plot_fleet(const char *path, const struct plot_opts *o, const struc
     plot_axis_fit(p, &pa.x, xlo, xhi, pa.x1 - pa.x0, 0);
 
     /* title */
-    char line[640], when[40] = "";
-    time_t now = time(NULL);
-    struct tm tm;
-    gmtime_r(&now, &tm);
-    strftime(when, sizeof when, "%Y-%m-%d", &tm);
-    snprintf(line, sizeof line, "%s", o->title ? o->title : "Fleet");
+    char line[3200], when[40] = "no flights yet";
+    /* dated by the newest flight, so the same history draws the same figure */
+    double newest = -HUGE_VAL;
+    for (size_t k = 0; k < n; k++)
+        if (isfinite(v[k].health.last_epoch_s))
+            newest = fmax(newest, v[k].health.last_epoch_s);
+    if (isfinite(newest)) {
+        time_t t = (time_t)llround(newest);
+        struct tm tm;
+        gmtime_r(&t, &tm);
+        strftime(when, sizeof when, "latest flight %Y-%m-%d", &tm);
+    }
+    snprintf(line, sizeof line, "%s", o->title ? o->title : "Fleet health");
     char meta[160];
-    snprintf(meta, sizeof meta, "%zu pack%s \u00b7 %zu placed \u00b7 drawn %s", n,
+    snprintf(meta, sizeof meta, "%zu pack%s \u00b7 %zu placed \u00b7 %s", n,
              n == 1 ? "" : "s", placed, when);
     double mw = plot_text_width(p, meta, fs, 0);
     plot_text(p, pa.x0, fs * 1.7, 0,
@@ -120,9 +133,9 @@ enum pb_code plot_fleet(const char *path, const struct plot_opts *o, const struc
     plot_panel_draw(p, &pa);
     char lab[96];
     snprintf(lab, sizeof lab, "retire %.0f %%", rules->retire_capacity_pct);
-    plot_hline(p, &pa, rules->retire_capacity_pct, &st_retire, lab);
+    plot_hline(p, &pa, rules->retire_capacity_pct, &st_retire, lab, 0);
     snprintf(lab, sizeof lab, "watch %.0f %%", rules->watch_capacity_pct);
-    plot_hline(p, &pa, rules->watch_capacity_pct, &st_watch, lab);
+    plot_hline(p, &pa, rules->watch_capacity_pct, &st_watch, lab, 0);
     snprintf(lab, sizeof lab, "retire %.1f\u00d7", rules->retire_r0_ratio);
     plot_vline(p, &pa, (rules->retire_r0_ratio - 1.0) * 100.0, &st_retire, lab);
     snprintf(lab, sizeof lab, "watch %.1f\u00d7", rules->watch_r0_ratio);
@@ -172,46 +185,47 @@ enum pb_code plot_fleet(const char *path, const struct plot_opts *o, const struc
         }
     free(used);
 
-    /* under the plot: the packs needing attention and the ones not placed */
-    char attn[600] = "", unplaced[400] = "";
-    size_t more_attn = 0, more_un = 0, nunplaced = 0;
+    /* under the plot: the packs needing attention and the ones not placed,
+     * as many as fit in a few lines, then how many more */
+    char attn[2048] = "", unplaced[1024] = "";
+    size_t more_attn = 0, more_un = 0, nunplaced = 0, nattn = count[S_WATCH] + count[S_RETIRE];
+    double ts = fs * 0.85, avail = pa.x1 - pa.x0;
     for (int s = S_RETIRE; s >= S_WATCH; s--)
         for (size_t k = 0; k < n; k++)
             if (status_of(&v[k]) == s) {
-                char item[200];
-                snprintf(item, sizeof item, "%s (%s: %.120s)", v[k].pack.label, status_text[s],
+                char item[400];
+                snprintf(item, sizeof item, "%s (%s: %s)", v[k].pack.label, status_text[s],
                          v[k].health.reason);
-                list_add(attn, sizeof attn, item, &more_attn);
+                list_add(p, attn, sizeof attn, item, ts, avail * 2.6, &more_attn);
             }
     for (size_t k = 0; k < n; k++) {
         double xr = (v[k].health.r0_ratio - 1.0) * 100.0, yc = v[k].health.capacity_pct;
         if (isfinite(xr) && isfinite(yc))
             continue;
-        char item[160];
+        char item[200];
         snprintf(item, sizeof item, "%s (no %s)", v[k].pack.label,
                  !isfinite(yc) && !isfinite(xr) ? "capacity or R0 yet"
                  : !isfinite(yc)                 ? "capacity estimate yet"
                                                  : "R0 baseline yet");
-        list_add(unplaced, sizeof unplaced, item, &more_un);
+        list_add(p, unplaced, sizeof unplaced, item, ts, avail * 0.85, &more_un);
         nunplaced++;
     }
-    double ty = pa.y1 + fs * 4.6, avail = pa.x1 - pa.x0;
-    if (attn[0]) {
+    double ty = pa.y1 + fs * 4.4;
+    if (nattn) {
+        snprintf(line, sizeof line, "Needing attention (%zu): %s", nattn, attn);
         if (more_attn)
-            snprintf(attn + strlen(attn), sizeof attn - strlen(attn),
-                     " and %zu more (packbook fleet)", more_attn);
-        snprintf(line, sizeof line, "Needing attention: %s", attn);
+            snprintf(line + strlen(line), sizeof line - strlen(line),
+                     " and %zu more (see packbook fleet)", more_attn);
     } else {
         snprintf(line, sizeof line, "No pack needs attention under the current rules.");
     }
-    plot_text(p, pa.x0, ty, 0, plot_fit_size(p, line, fs * 0.85, 0, avail), 0, 0x222222u, line);
+    int used_lines = plot_text_wrap(p, pa.x0, ty, avail, ts, 3, 0x222222u, line);
     if (nunplaced) {
-        if (more_un)
-            snprintf(unplaced + strlen(unplaced), sizeof unplaced - strlen(unplaced),
-                     " and %zu more", more_un);
         snprintf(line, sizeof line, "Not placed (%zu): %s", nunplaced, unplaced);
-        plot_text(p, pa.x0, ty + fs * 1.3, 0, plot_fit_size(p, line, fs * 0.85, 0, avail), 0,
-                  0x222222u, line);
+        if (more_un)
+            snprintf(line + strlen(line), sizeof line - strlen(line), " and %zu more", more_un);
+        plot_text(p, pa.x0, ty + used_lines * ts * 1.3, 0, plot_fit_size(p, line, ts, 0, avail),
+                  0, 0x222222u, line);
     }
     snprintf(line, sizeof line,
              "packbook %s \u00b7 flags from the recorded flights only: inspect packs and follow "

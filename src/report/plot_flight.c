@@ -382,7 +382,7 @@ enum pb_code plot_flight(const char *path, const struct plot_opts *o, const stru
         switch (which[j]) {
         case P_VOLT:
             if (floor_shown)
-                plot_hline(p, q, floor_pack, &st_floor, NULL);
+                plot_hline(p, q, floor_pack, &st_floor, NULL, 0);
             plot_line(p, q, 0, s->t_s, s->v_v, s->n, x_div, a->gap_s, &st_v);
             if (has_ocv)
                 plot_line(p, q, 0, s->t_s, c.ocv_v, s->n, x_div, a->gap_s, &st_ocv);
@@ -398,7 +398,7 @@ enum pb_code plot_flight(const char *path, const struct plot_opts *o, const stru
                 plot_line(p, q, 0, s->t_s, c.soc_cc, s->n, x_div, a->gap_s, &st_cc);
             break;
         case P_CELLS:
-            plot_hline(p, q, a->floor_v, &st_floor, NULL);
+            plot_hline(p, q, a->floor_v, &st_floor, NULL, 0);
             for (int cl = 0; cl < s->ncells; cl++)
                 if (cl + 1 != a->weakest_cell)
                     plot_line(p, q, 0, s->t_s, s->cell_v[cl], s->n, x_div, a->gap_s, &st_cell);

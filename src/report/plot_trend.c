@@ -184,12 +184,15 @@ enum pb_code plot_trend(const char *path, const struct plot_opts *o, const struc
         pa[j].x = xa;
     }
 
+    /* slopes per 100 cycles (30 days), or per 10 (7) for a short history */
+    double per = by_date ? (x_now < 60 ? 7 : 30) : (x_now < 50 ? 10 : 100);
+    const struct chem_info *chem = ocv_chem_by_name(pk->chemistry);
     /* title block: the pack, then what each line says */
     char line[512], ln[2][320];
     snprintf(line, sizeof line, "%s", o->title ? o->title : pk->label);
     char meta[256];
     snprintf(meta, sizeof meta, "%dS %s %.0f mAh \u00b7 %zu flight%s \u00b7 %.1f cycles \u00b7 %s",
-             pk->cells, pk->chemistry, rated, n, n == 1 ? "" : "s", v->health.cycles,
+             pk->cells, chem ? chem->label : pk->chemistry, rated, n, n == 1 ? "" : "s", v->health.cycles,
              pk->retired_at[0] ? "retired" : health_status_name(v->health.status));
     double mw = plot_text_width(p, meta, fs * 1.0, 0);
     plot_text(p, left, fs * 1.7, 0, plot_fit_size(p, line, fs * 1.35, 1, right - left - mw - fs),
@@ -197,7 +200,7 @@ enum pb_code plot_trend(const char *path, const struct plot_opts *o, const struc
     plot_text(p, right, fs * 1.7, 2, fs, 0, 0x333333u, meta);
     for (int j = 0; j < 2; j++) {
         const struct trend_line *tl = qs[j].tl;
-        crossing_text(tl, by_date ? &tl->vs_days : &tl->vs_cycles, qs[j].name, qs[j].unit, by_date ? 30 : 100, by_date ? "days" : "cycles",
+        crossing_text(tl, by_date ? &tl->vs_days : &tl->vs_cycles, qs[j].name, qs[j].unit, per, by_date ? "days" : "cycles",
                       ln[j], sizeof ln[j]);
         plot_text(p, left, fs * (3.15 + 1.3 * j), 0,
                   plot_fit_size(p, ln[j], fs * 0.9, 0, right - left), 0, 0x222222u, ln[j]);
@@ -221,14 +224,14 @@ enum pb_code plot_trend(const char *path, const struct plot_opts *o, const struc
                          tl->level, rules->retire_r0_ratio);
             else
                 snprintf(lab, sizeof lab, "retire %.0f %% of rated", tl->level);
-            plot_hline(p, pp, tl->level, &st_retire, lab);
+            plot_hline(p, pp, tl->level, &st_retire, lab, 1);
         }
         if (isfinite(qs[j].watch_level)) {
             if (j == 0)
                 snprintf(lab, sizeof lab, "watch %.1f m\u03a9/cell", qs[j].watch_level);
             else
                 snprintf(lab, sizeof lab, "watch %.0f %%", qs[j].watch_level);
-            plot_hline(p, pp, qs[j].watch_level, &st_watch, lab);
+            plot_hline(p, pp, qs[j].watch_level, &st_watch, lab, 1);
         }
         if (l->ok) {
             double xa0 = x[0], xa1 = x_hi;
