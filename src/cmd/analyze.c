@@ -5,6 +5,8 @@
 
 #include "../core/analyze.h"
 #include "../core/logread.h"
+#include "../report/plot.h"
+#include "../report/plots.h"
 #include "../report/report.h"
 #include "cmd.h"
 #include "logopts.h"
@@ -26,13 +28,16 @@ static const char usage_tail[] =
     "  --json                 one JSON document on standard output\n"
     "  --series FILE          every sample as CSV: time, voltage, current, sag-corrected\n"
     "                         OCV, SoC by counting, SoC from the OCV ('-': stdout)\n"
+    "  --plot FILE            also draw the flight as FILE.png, .svg or .pdf (the\n"
+    "                         figure of 'packbook plot'; that command sets its size)\n"
     "  -h, --help             this text\n";
 
-enum { OPT_JSON = 256, OPT_SERIES };
+enum { OPT_JSON = 256, OPT_SERIES, OPT_PLOT };
 
 static const struct option longopts[] = {
     {"json", no_argument, NULL, OPT_JSON},
     {"series", required_argument, NULL, OPT_SERIES},
+    {"plot", required_argument, NULL, OPT_PLOT},
     {"help", no_argument, NULL, 'h'},
     LOGOPTS_PACK_LONG,
     LOGOPTS_LONG,
@@ -44,6 +49,7 @@ struct analyze_cli {
     int json;
     const char *path;
     const char *series; /* --series FILE */
+    const char *plot;   /* --plot FILE */
 };
 
 /* Fills cli from argv; sets *done when --help was printed instead. */
@@ -66,6 +72,14 @@ static enum pb_code parse_args(int argc, char **argv, struct analyze_cli *cli, i
             break;
         case OPT_SERIES:
             cli->series = v;
+            break;
+        case OPT_PLOT:
+            if (plot_format_of(v) < 0)
+                return pb_error_set(err, PB_EUSAGE,
+                                    "--plot: '%s': the figure's name must end in .png, .svg or "
+                                    ".pdf",
+                                    v);
+            cli->plot = v;
             break;
         case 'h':
             fputs(usage_head, stdout);
@@ -132,12 +146,16 @@ enum pb_code cmd_analyze(int argc, char **argv, struct app *app, struct pb_error
     enum pb_code rc = parse_args(argc, argv, &cli, &done, err);
     if (rc != PB_OK || done)
         return rc;
-    rc = logopts_analyze(cli.path, &cli.log, &stats, &a, cli.series ? &s : NULL, err);
+    rc = logopts_analyze(cli.path, &cli.log, &stats, &a, cli.series || cli.plot ? &s : NULL, err);
     if (rc != PB_OK)
         return rc;
     const char *name = strcmp(cli.path, "-") == 0 ? "(stdin)" : cli.path;
     struct report_input in = {name, &stats, &cli.log.an, cli.log.an.plain_fit};
     if (cli.series && (rc = write_series(cli.series, s, a, cli.log.an.capacity_mah, err)) != PB_OK)
+        goto cleanup;
+    struct plot_opts fig = {0};
+    if (cli.plot && (rc = plot_flight(cli.plot, &fig, s, a, cli.log.an.capacity_mah, name, err)) !=
+                        PB_OK)
         goto cleanup;
     if (cli.series && strcmp(cli.series, "-") == 0)
         rc = cmd_finish_stdout(err); /* the series is the output */

@@ -4,18 +4,22 @@
 #include <stdlib.h>
 #include <string.h>
 
+#include "../report/plot.h"
+#include "../report/plots.h"
 #include "cmd.h"
 #include "packview.h"
 
 static const char trend_usage[] =
     "usage: packbook trend ID [--by week|month|cycle] [--horizon N] [--fit robust|ols]\n"
-    "                         [--json] [--db PATH]\n"
+    "                         [--json] [--plot FILE] [--db PATH]\n"
     "\n"
     "Per ISO week (default), month or 5-cycle bucket: flights, charge, mean R0 per\n"
     "cell and capacity % of rated. Then straight-line fits of R0 and capacity\n"
     "against equivalent cycles and against days (robust unless --fit ols), slopes\n"
     "with 95 % intervals, and the cycle and date at which each reaches its\n"
-    "retirement level, or 'not within N cycles' (--horizon, default 1000).\n";
+    "retirement level, or 'not within N cycles' (--horizon, default 1000).\n"
+    "  --plot FILE            also draw the trend as FILE.png, .svg or .pdf against\n"
+    "                         cycles ('packbook plot trend' has --x date and --size)\n";
 
 static const char compare_usage[] =
     "usage: packbook compare ID ID... [--json] [--db PATH]\n"
@@ -23,7 +27,7 @@ static const char compare_usage[] =
     "The packs side by side: use, resistance and capacity now and per 100 cycles,\n"
     "projected limits and status.\n";
 
-enum { T_BY = 256, T_HORIZON, T_FIT, T_JSON, T_DB };
+enum { T_BY = 256, T_HORIZON, T_FIT, T_JSON, T_DB, T_PLOT };
 
 static const struct option longopts[] = {
     {"by", required_argument, NULL, T_BY},
@@ -31,6 +35,7 @@ static const struct option longopts[] = {
     {"fit", required_argument, NULL, T_FIT},
     {"json", no_argument, NULL, T_JSON},
     {"db", required_argument, NULL, T_DB},
+    {"plot", required_argument, NULL, T_PLOT},
     {"help", no_argument, NULL, 'h'},
     RULEOPTS_LONG,
     {NULL, 0, NULL, 0},
@@ -41,6 +46,7 @@ struct trend_cli {
     double horizon;
     int plain, json;
     const char *db;
+    const char *plot; /* trend --plot FILE */
     struct health_rules rules;
 };
 
@@ -86,6 +92,18 @@ static enum pb_code parse(const char *verb, const char *usage, int argc, char **
             break;
         case T_DB:
             cli->db = optarg;
+            break;
+        case T_PLOT:
+            if (strcmp(verb, "trend") != 0)
+                return pb_error_set(err, PB_EUSAGE,
+                                    "compare: --plot draws one pack: use 'packbook trend ID "
+                                    "--plot FILE' or 'packbook plot fleet'");
+            if (plot_format_of(optarg) < 0)
+                return pb_error_set(err, PB_EUSAGE,
+                                    "--plot: '%s': the figure's name must end in .png, .svg or "
+                                    ".pdf",
+                                    optarg);
+            cli->plot = optarg;
             break;
         case 'h':
             fputs(usage, stdout);
@@ -143,6 +161,10 @@ static enum pb_code run(int compare, int argc, char **argv, struct pb_error *err
     struct pack_view *views = NULL;
     size_t nv = 0;
     rc = load_named(argc, argv, &cli, &st, &views, &nv, err);
+    if (rc == PB_OK && cli.plot) {
+        struct plot_opts fig = {0};
+        rc = plot_trend(cli.plot, &fig, &views[0], &cli.rules, 0, err);
+    }
     if (rc == PB_OK) {
         int w = compare ? report_compare(stdout, views, nv, cli.json)
                         : report_trend(stdout, &views[0], cli.by, cli.horizon, cli.json);
