@@ -113,6 +113,12 @@ struct plot *plot_new(const char *path, int w, int h, struct pb_error *err)
         plot_free(p);
         return NULL;
     }
+    /* unhinted metrics: text widths scale with the size, so measured
+     * layouts (shrink to fit, label spacing) hold in every format */
+    cairo_font_options_t *fo = cairo_font_options_create();
+    cairo_font_options_set_hint_metrics(fo, CAIRO_HINT_METRICS_OFF);
+    cairo_set_font_options(p->cr, fo);
+    cairo_font_options_destroy(fo);
     if (fmt == FMT_PDF)
         cairo_pdf_surface_set_metadata(p->surface, CAIRO_PDF_METADATA_CREATOR, "packbook");
     cairo_set_source_rgb(p->cr, 1, 1, 1);

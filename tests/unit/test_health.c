@@ -2,7 +2,11 @@
  * Sources: an exact line is recovered exactly by least squares
  * (mathematics, tolerance 1e-9); the slope's 95 % half-width for n points
  * with Student t (n - 2 dof) against the textbook formula
- * t * s / sqrt(Sxx); capacity <= 80 % of rated as end of life (battery
+ * t * s / sqrt(Sxx), and the 95 % band of the mean response against
+ * t * s * sqrt(1/n + (x - xbar)^2 / Sxx) (the textbook confidence interval
+ * on the mean response of simple linear regression, e.g. Montgomery and
+ * Runger, Applied Statistics and Probability for Engineers; from memory);
+ * capacity <= 80 % of rated as end of life (battery
  * standards' usual criterion) and R0 >= 2x baseline (common practice). */
 #include <gsl/gsl_cdf.h>
 #include <gsl/gsl_errno.h>
@@ -48,6 +52,30 @@ static void test_slope_ci_textbook(void **state)
     }
     double want = gsl_cdf_tdist_Pinv(0.975, 6) * sqrt(rss / 6) / sqrt(sxx);
     check_rel(l.b_ci95, want, 1e-9, "slope 95 % half-width");
+}
+
+static void test_band_textbook(void **state)
+{
+    (void)state;
+    double x[] = {0, 1, 2, 3, 4, 5, 6, 7};
+    double y[] = {1.1, 1.9, 3.2, 3.8, 5.1, 6.2, 6.8, 8.1};
+    struct line_fit l = health_line(x, y, 8, 1);
+    double xbar = 3.5, sxx = 0, rss = 0;
+    for (int k = 0; k < 8; k++) {
+        double r = y[k] - l.a - l.b * x[k];
+        sxx += (x[k] - xbar) * (x[k] - xbar);
+        rss += r * r;
+    }
+    double t = gsl_cdf_tdist_Pinv(0.975, 6), s = sqrt(rss / 6);
+    /* inside, at the centre (narrowest) and extrapolated well beyond */
+    const double at[] = {0.0, 3.5, 7.0, 20.0};
+    for (size_t k = 0; k < sizeof at / sizeof *at; k++) {
+        double want = t * s * sqrt(1.0 / 8 + (at[k] - xbar) * (at[k] - xbar) / sxx);
+        check_rel(health_line_band(&l, at[k]), want, 1e-9, "band half-width");
+    }
+    assert_true(health_line_band(&l, 3.5) < health_line_band(&l, 0.0));
+    struct line_fit none = {0};
+    assert_true(isnan(health_line_band(&none, 1.0)));
 }
 
 static void test_crossing_directions(void **state)
@@ -146,6 +174,7 @@ int main(void)
     const struct CMUnitTest tests[] = {
         cmocka_unit_test(test_exact_line),
         cmocka_unit_test(test_slope_ci_textbook),
+        cmocka_unit_test(test_band_textbook),
         cmocka_unit_test(test_crossing_directions),
         cmocka_unit_test(test_rules),
         cmocka_unit_test(test_trend_buckets_iso_weeks),
