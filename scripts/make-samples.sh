@@ -22,3 +22,12 @@ $sim --seed 104 --cells 4 --capacity-mah 5000 --soc0 92 --r0-mohm-cell 5.0 --hov
     --duration-s 480 --rate-hz 2 --format voltage-only \
     --comment "Tallowmere Survey Co-op - pack TM-09 (4S 5000 mAh LiPo) - older airframe, no current sensor" \
     -o samples/tm09-voltage-only.csv
+# TM-15 flown on past the floor, with a 24 s logger dropout (rows removed): the
+# flight figure's shaded intervals; absolute time, so the figure has a date.
+$sim --seed 105 --cells 4 --capacity-mah 5000 --soc0 55 --r0-mohm-cell 7.0 --hover-a 26 \
+    --duration-s 480 --rate-hz 5 --format epoch --start-epoch 1773913200 -o samples/tm15-deep.csv.tmp
+{
+    echo "# Tallowmere Survey Co-op - pack TM-15 (4S 5000 mAh LiPo) - flown past the floor; logger dropped 24 s"
+    awk -F, 'NR == 1 || $1 < 1773913400 || $1 >= 1773913424' samples/tm15-deep.csv.tmp
+} > samples/tm15-deep.csv
+rm samples/tm15-deep.csv.tmp
