@@ -268,6 +268,7 @@ enum pb_code cmd_plot(int argc, char **argv, struct app *app, struct pb_error *e
     struct plot_cli cli = {0};
     (void)app;
     logopts_init(&cli.log);
+    cli.log.read.min_samples = 1; /* a figure of one sample still says what there is */
     health_rules_default(&cli.rules);
     cli.by = TREND_WEEK;
     cli.horizon = 1000.0;

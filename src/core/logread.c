@@ -877,7 +877,8 @@ struct series *logread_file(FILE *fp, const char *name, const struct logread_opt
                      name);
         goto cleanup;
     }
-    if (r.s->n < 2) {
+    size_t need = opts && opts->min_samples ? opts->min_samples : 2;
+    if (r.s->n < need || r.s->n == 0) {
         if (stats->records == 0)
             pb_error_set(err, PB_EINPUT, "%s:%zu: header only, no samples", name,
                          stats->header_line);
@@ -887,9 +888,10 @@ struct series *logread_file(FILE *fp, const char *name, const struct logread_opt
             if (first)
                 snprintf(where, sizeof where, " (first problem at line %zu)", first);
             pb_error_set(err, PB_EINPUT,
-                         "%s: %zu usable sample%s of %zu records; at least 2 are "
+                         "%s: %zu usable sample%s of %zu records; at least %zu %s "
                          "needed%s",
-                         name, r.s->n, r.s->n == 1 ? "" : "s", stats->records, where);
+                         name, r.s->n, r.s->n == 1 ? "" : "s", stats->records, need,
+                         need == 1 ? "is" : "are", where);
         }
         goto cleanup;
     }

@@ -31,6 +31,7 @@ struct logread_opts {
     int have_adc; /* raw current calibration given */
     double adc_a_per_count;
     double adc_offset_counts;
+    size_t min_samples; /* fewest usable samples accepted; 0 means 2 (what analysis needs) */
     /* called with every block of raw bytes as read (e.g. to hash the log) */
     void (*on_block)(void *ctx, const char *buf, size_t len);
     void *block_ctx;

@@ -193,7 +193,7 @@ enum pb_code plot_fleet(const char *path, const struct plot_opts *o, const struc
     for (int s = S_RETIRE; s >= S_WATCH; s--)
         for (size_t k = 0; k < n; k++)
             if (status_of(&v[k]) == s) {
-                char item[400];
+                char item[sizeof v[k].pack.label + sizeof v[k].health.reason + 16];
                 snprintf(item, sizeof item, "%s (%s: %s)", v[k].pack.label, status_text[s],
                          v[k].health.reason);
                 list_add(p, attn, sizeof attn, item, ts, avail * 2.6, &more_attn);

@@ -176,8 +176,8 @@ static void title_block(struct plot *p, const struct series *s, const struct ana
     if (a->nwarnings)
         snprintf(warns, sizeof warns, " \u00b7 %zu warning%s (see analyze)", a->nwarnings,
                  a->nwarnings == 1 ? "" : "s");
-    snprintf(line, sizeof line, "%s \u00b7 %zu samples, %.1f min%s%s%s%s%s", cells, s->n,
-             a->duration_s / 60.0, minv, floor_txt, gaps, spread, warns);
+    snprintf(line, sizeof line, "%s \u00b7 %zu sample%s, %.1f min%s%s%s%s%s", cells, s->n,
+             s->n == 1 ? "" : "s", a->duration_s / 60.0, minv, floor_txt, gaps, spread, warns);
     y += fs * 1.3;
     plot_text(p, left, y, 0, plot_fit_size(p, line, fs * 0.9, 0, avail), 0, 0x222222u, line);
 }
@@ -413,8 +413,11 @@ enum pb_code plot_flight(const char *path, const struct plot_opts *o, const stru
                         : which[j] == P_CURRENT ? c.i_a
                         : which[j] == P_SOC     ? (has_soc_cc ? c.soc_cc : c.soc_ocv)
                                                 : s->cell_v[0];
-            plot_marker(p, q, s->t_s[0] / x_div, y[0], MARK_CIRCLE, 1,
-                        which[j] == P_VOLT ? &st_v : &st_cc);
+            const struct plot_style *ms = which[j] == P_VOLT      ? &st_v
+                                          : which[j] == P_CURRENT ? &st_i
+                                          : which[j] == P_SOC     ? (has_soc_cc ? &st_cc : &st_socv)
+                                                                  : &st_cell;
+            plot_marker(p, q, s->t_s[0] / x_div, y[0], MARK_CIRCLE, 1, ms);
         }
         plot_legend(p, q, keys[j], nkeys[j]);
     }
