@@ -804,10 +804,13 @@ static void key_draw(struct plot *p, const struct plot_key *k, double fx, double
     plot_text(p, fx + sw + p->font * 0.4, fy, 0, p->font * 0.85, 0, 0x222222u, k->text);
 }
 
-void plot_legend(struct plot *p, const struct plot_panel *pa, const struct plot_key *k, size_t n)
+void plot_legend(struct plot *p, struct plot_panel *pa, const struct plot_key *k, size_t n)
 {
     double avail = pa->x1 - pa->x0, fy = pa->legend_y;
     size_t start = 0;
+    pa->lg_x0 = pa->lg_x1 = pa->lg_y0 = pa->lg_y1 = 0;
+    if (n)
+        pa->lg_x0 = pa->x1, pa->lg_x1 = pa->x1, pa->lg_y1 = fy + p->font * 0.4;
     while (start < n) {
         /* as many keys as fit on this row, kept in their order */
         double w = 0;
@@ -815,6 +818,8 @@ void plot_legend(struct plot *p, const struct plot_panel *pa, const struct plot_
         while (end < n && (end == start || w + key_width(p, &k[end]) <= avail))
             w += key_width(p, &k[end++]);
         double fx = pa->x1 - w + p->font * 1.2;
+        pa->lg_x0 = fmin(pa->lg_x0, fx - p->font * 0.2);
+        pa->lg_y0 = fy - p->font * 1.1;
         for (size_t j = start; j < end; j++) {
             key_draw(p, &k[j], fx, fy);
             fx += key_width(p, &k[j]);
@@ -942,6 +947,11 @@ int plot_axes_json(const char *path, const struct plot *p, const struct plot_pan
                               "x", axis_json(&pa[k].x), "y", axis_json(&pa[k].y));
         if (o && pa[k].has_y2)
             json_object_set_new(o, "y2", axis_json(&pa[k].y2));
+        if (o && pa[k].lg_x1 > pa[k].lg_x0)
+            json_object_set_new(o, "legend",
+                                json_pack("{s:f, s:f, s:f, s:f}", "left", pa[k].lg_x0, "top",
+                                          pa[k].lg_y0, "right", pa[k].lg_x1, "bottom",
+                                          pa[k].lg_y1));
         if (!o || json_array_append_new(arr, o) != 0) {
             json_decref(root);
             return -1;

@@ -63,6 +63,7 @@ struct plot_panel {
     int has_y2;
     int x_labels;           /* draw the x tick labels and title under this panel */
     double legend_y;        /* baseline of the legend row above the plot area */
+    double lg_x0, lg_y0, lg_x1, lg_y1; /* the legend drawn (plot_legend), 0 when none */
 };
 
 struct plot;
@@ -168,7 +169,7 @@ struct plot_key {
 /* Lays the keys out in a row ending at the panel's right edge, on the
  * panel's legend baseline, wrapping leftwards never: keys that do not fit
  * go on a second row above. */
-void plot_legend(struct plot *p, const struct plot_panel *pa, const struct plot_key *k, size_t n);
+void plot_legend(struct plot *p, struct plot_panel *pa, const struct plot_key *k, size_t n);
 
 /* Rows plot_legend needs for the keys in a panel width_px wide. */
 int plot_legend_rows(struct plot *p, double width_px, const struct plot_key *k, size_t n);
@@ -193,7 +194,8 @@ void plot_margins(struct plot *p, const struct plot_panel *pa, size_t n, double 
 int plot_text_wrap(struct plot *p, double fx, double fy, double width_px, double size,
                    int max_lines, uint32_t rgb, const char *text);
 
-/* Axes map as JSON (panel rectangles and ranges), for checking the
+/* Axes map as JSON (panel rectangles, ranges and legend boxes; the
+ * legend's samples repeat the series' colours), for checking the
  * figure or placing annotations over it. Returns 0, or -1 on failure. */
 int plot_axes_json(const char *path, const struct plot *p, const struct plot_panel *pa, size_t n);
 
