@@ -154,8 +154,8 @@ enum pb_code cmd_analyze(int argc, char **argv, struct app *app, struct pb_error
     if (cli.series && (rc = write_series(cli.series, s, a, cli.log.an.capacity_mah, err)) != PB_OK)
         goto cleanup;
     struct plot_opts fig = {0};
-    if (cli.plot && (rc = plot_flight(cli.plot, &fig, s, a, cli.log.an.capacity_mah, name, err)) !=
-                        PB_OK)
+    if (cli.plot &&
+        (rc = plot_flight(cli.plot, &fig, s, a, cli.log.an.capacity_mah, name, err)) != PB_OK)
         goto cleanup;
     if (cli.series && strcmp(cli.series, "-") == 0)
         rc = cmd_finish_stdout(err); /* the series is the output */

@@ -181,9 +181,18 @@ void plot_free(struct plot *p)
     }
 }
 
-double plot_width(const struct plot *p) { return p->w; }
-double plot_height(const struct plot *p) { return p->h; }
-double plot_font(const struct plot *p) { return p->font; }
+double plot_width(const struct plot *p)
+{
+    return p->w;
+}
+double plot_height(const struct plot *p)
+{
+    return p->h;
+}
+double plot_font(const struct plot *p)
+{
+    return p->font;
+}
 
 int plot_parse_size(const char *arg, int *w, int *h, struct pb_error *err)
 {
@@ -355,8 +364,7 @@ void plot_axis_fit(struct plot *p, struct plot_axis *ax, double lo, double hi, d
     }
 }
 
-void plot_axis_fit_tight(struct plot *p, struct plot_axis *ax, double lo, double hi,
-                         double len_px)
+void plot_axis_fit_tight(struct plot *p, struct plot_axis *ax, double lo, double hi, double len_px)
 {
     plot_axis_fit(p, ax, lo, hi, len_px, 0);
     if (!isfinite(lo) || !isfinite(hi) || !(hi > lo))
@@ -421,8 +429,14 @@ static double map_y(const struct plot_panel *pa, const struct plot_axis *ax, dou
     return pa->y1 - (y - ax->lo) / (ax->hi - ax->lo) * (pa->y1 - pa->y0);
 }
 
-double plot_py(const struct plot_panel *pa, double y) { return map_y(pa, &pa->y, y); }
-double plot_py2(const struct plot_panel *pa, double y) { return map_y(pa, &pa->y2, y); }
+double plot_py(const struct plot_panel *pa, double y)
+{
+    return map_y(pa, &pa->y, y);
+}
+double plot_py2(const struct plot_panel *pa, double y)
+{
+    return map_y(pa, &pa->y2, y);
+}
 
 static void clip_panel(struct plot *p, const struct plot_panel *pa)
 {
@@ -502,8 +516,7 @@ void plot_panel_draw(struct plot *p, const struct plot_panel *pa)
         plot_text(p, pa->x0 - tick * 1.8, plot_py(pa, v) + fs * 0.35, 2, fs, 0, 0x222222u, buf);
     }
     double wy = plot_axis_label_width(p, &pa->y);
-    rotated_title(p, pa->x0 - tick * 1.8 - wy - p->font * 0.6, (pa->y0 + pa->y1) / 2,
-                  pa->y.label);
+    rotated_title(p, pa->x0 - tick * 1.8 - wy - p->font * 0.6, (pa->y0 + pa->y1) / 2, pa->y.label);
     if (pa->has_y2) {
         for (int k = 0; k < pa->y2.ticks.count; k++) {
             double v = pa->y2.ticks.first + k * pa->y2.ticks.step;
@@ -521,8 +534,8 @@ void plot_panel_draw(struct plot *p, const struct plot_panel *pa)
             plot_tick_text(&pa->x, v, buf, sizeof buf);
             plot_text(p, plot_px(pa, v), pa->y1 + tick + fs * 1.15, 1, fs, 0, 0x222222u, buf);
         }
-        plot_text(p, (pa->x0 + pa->x1) / 2, pa->y1 + tick + fs * 1.15 + p->font * 1.45, 1,
-                  p->font, 0, 0x222222u, pa->x.label);
+        plot_text(p, (pa->x0 + pa->x1) / 2, pa->y1 + tick + fs * 1.15 + p->font * 1.45, 1, p->font,
+                  0, 0x222222u, pa->x.label);
     }
 }
 
@@ -707,8 +720,8 @@ void plot_vline(struct plot *p, const struct plot_panel *pa, double x, const str
         double w = plot_text_width(p, label, fs, 0);
         /* to the left of the line when it would run off the right edge */
         int anchor = fx + fs * 0.4 + w > pa->x1 ? 2 : 0;
-        text_halo(p, anchor ? fx - fs * 0.4 : fx + fs * 0.4, pa->y0 + fs * 1.3, anchor, fs,
-                  st->rgb, label);
+        text_halo(p, anchor ? fx - fs * 0.4 : fx + fs * 0.4, pa->y0 + fs * 1.3, anchor, fs, st->rgb,
+                  label);
     }
 }
 
@@ -759,8 +772,8 @@ void plot_marker_at(struct plot *p, double fx, double fy, enum plot_mark m, int 
     cairo_restore(cr);
 }
 
-void plot_marker(struct plot *p, const struct plot_panel *pa, double x, double y,
-                 enum plot_mark m, int filled, const struct plot_style *st)
+void plot_marker(struct plot *p, const struct plot_panel *pa, double x, double y, enum plot_mark m,
+                 int filled, const struct plot_style *st)
 {
     if (!isfinite(x) || !isfinite(y))
         return;
@@ -943,8 +956,8 @@ int plot_axes_json(const char *path, const struct plot *p, const struct plot_pan
     json_t *arr = json_object_get(root, "panels");
     for (size_t k = 0; k < n; k++) {
         json_t *o = json_pack("{s:s, s:f, s:f, s:f, s:f, s:o, s:o}", "name", pa[k].name, "left",
-                              pa[k].x0, "top", pa[k].y0, "right", pa[k].x1, "bottom", pa[k].y1,
-                              "x", axis_json(&pa[k].x), "y", axis_json(&pa[k].y));
+                              pa[k].x0, "top", pa[k].y0, "right", pa[k].x1, "bottom", pa[k].y1, "x",
+                              axis_json(&pa[k].x), "y", axis_json(&pa[k].y));
         if (o && pa[k].has_y2)
             json_object_set_new(o, "y2", axis_json(&pa[k].y2));
         if (o && pa[k].lg_x1 > pa[k].lg_x0)

@@ -56,13 +56,13 @@ struct plot_axis {
 };
 
 struct plot_panel {
-    char name[24];          /* for the axes map: "voltage", "current", ... */
-    double x0, y0, x1, y1;  /* plot area, x0 < x1, y0 < y1 (top edge y0) */
-    struct plot_axis x, y;  /* y is the left axis */
-    struct plot_axis y2;    /* right axis, when has_y2 */
+    char name[24];         /* for the axes map: "voltage", "current", ... */
+    double x0, y0, x1, y1; /* plot area, x0 < x1, y0 < y1 (top edge y0) */
+    struct plot_axis x, y; /* y is the left axis */
+    struct plot_axis y2;   /* right axis, when has_y2 */
     int has_y2;
-    int x_labels;           /* draw the x tick labels and title under this panel */
-    double legend_y;        /* baseline of the legend row above the plot area */
+    int x_labels;                      /* draw the x tick labels and title under this panel */
+    double legend_y;                   /* baseline of the legend row above the plot area */
     double lg_x0, lg_y0, lg_x1, lg_y1; /* the legend drawn (plot_legend), 0 when none */
 };
 
@@ -96,8 +96,7 @@ void plot_axis_fit(struct plot *p, struct plot_axis *ax, double lo, double hi, d
 
 /* As plot_axis_fit, but the axis spans exactly [lo, hi] with the round
  * ticks inside it (a time axis that ends where the log ends). */
-void plot_axis_fit_tight(struct plot *p, struct plot_axis *ax, double lo, double hi,
-                         double len_px);
+void plot_axis_fit_tight(struct plot *p, struct plot_axis *ax, double lo, double hi, double len_px);
 
 /* Sets ax2 (a right axis) to cover [lo, hi] with as many ticks as ref and
  * its zero on ref's zero, so both axes share the grid lines; ref must
@@ -144,8 +143,8 @@ void plot_vline(struct plot *p, const struct plot_panel *pa, double x, const str
                 const char *label);
 
 /* A marker at data (x, y); filled or hollow. */
-void plot_marker(struct plot *p, const struct plot_panel *pa, double x, double y,
-                 enum plot_mark m, int filled, const struct plot_style *st);
+void plot_marker(struct plot *p, const struct plot_panel *pa, double x, double y, enum plot_mark m,
+                 int filled, const struct plot_style *st);
 
 /* A marker at figure coordinates (for legends). */
 void plot_marker_at(struct plot *p, double fx, double fy, enum plot_mark m, int filled,

@@ -25,7 +25,7 @@ static int status_of(const struct pack_view *v)
 {
     if (v->pack.retired_at[0])
         return S_RETIRED;
-    return v->health.status == HEALTH_RETIRE ? S_RETIRE
+    return v->health.status == HEALTH_RETIRE  ? S_RETIRE
            : v->health.status == HEALTH_WATCH ? S_WATCH
                                               : S_OK;
 }
@@ -90,8 +90,8 @@ enum pb_code plot_fleet(const char *path, const struct plot_opts *o, const struc
         if (s == S_RETIRED && !count[s])
             continue;
         snprintf(ktext[s], sizeof ktext[s], "%s (%zu)", status_text[s], count[s]);
-        keys[nk++] = (struct plot_key){ktext[s], status_style[s], (int)status_mark[s], s != S_RETIRED,
-                                       0};
+        keys[nk++] =
+            (struct plot_key){ktext[s], status_style[s], (int)status_mark[s], s != S_RETIRED, 0};
     }
     static const struct plot_style st_retire = {PLOT_VERMILION, 1.3, DASH_LONG, 0};
     static const struct plot_style st_watch = {PLOT_ORANGE, 1.2, DASH_DOT, 0};
@@ -123,11 +123,11 @@ enum pb_code plot_fleet(const char *path, const struct plot_opts *o, const struc
     }
     snprintf(line, sizeof line, "%s", o->title ? o->title : "Fleet health");
     char meta[160];
-    snprintf(meta, sizeof meta, "%zu pack%s \u00b7 %zu placed \u00b7 %s", n,
-             n == 1 ? "" : "s", placed, when);
+    snprintf(meta, sizeof meta, "%zu pack%s \u00b7 %zu placed \u00b7 %s", n, n == 1 ? "" : "s",
+             placed, when);
     double mw = plot_text_width(p, meta, fs, 0);
-    plot_text(p, pa.x0, fs * 1.7, 0,
-              plot_fit_size(p, line, fs * 1.35, 1, pa.x1 - pa.x0 - mw - fs), 1, 0x111111u, line);
+    plot_text(p, pa.x0, fs * 1.7, 0, plot_fit_size(p, line, fs * 1.35, 1, pa.x1 - pa.x0 - mw - fs),
+              1, 0x111111u, line);
     plot_text(p, pa.x1, fs * 1.7, 2, fs, 0, 0x333333u, meta);
 
     plot_panel_draw(p, &pa);
@@ -145,9 +145,8 @@ enum pb_code plot_fleet(const char *path, const struct plot_opts *o, const struc
     for (int s = 0; s < S_COUNT; s++)
         for (size_t k = 0; k < n; k++)
             if (status_of(&v[k]) == s)
-                plot_marker(p, &pa, (v[k].health.r0_ratio - 1.0) * 100.0,
-                            v[k].health.capacity_pct, status_mark[s], s != S_RETIRED,
-                            &status_style[s]);
+                plot_marker(p, &pa, (v[k].health.r0_ratio - 1.0) * 100.0, v[k].health.capacity_pct,
+                            status_mark[s], s != S_RETIRED, &status_style[s]);
 
     /* labels on the packs needing attention, where they do not collide
      * with another label or leave the plot; the list below names them all */
@@ -158,7 +157,7 @@ enum pb_code plot_fleet(const char *path, const struct plot_opts *o, const struc
     }
     size_t nused = 0;
     double ls = fs * 0.8, r = fs * 0.6;
-    static const double off[8][2] = {{1, -1}, {1, 1}, {-1, -1}, {-1, 1},
+    static const double off[8][2] = {{1, -1}, {1, 1},  {-1, -1},  {-1, 1},
                                      {1, 0},  {-1, 0}, {0, -1.6}, {0, 1.6}};
     for (int s = S_RETIRE; s >= S_WATCH; s--)
         for (size_t k = 0; k < n; k++) {
@@ -205,8 +204,8 @@ enum pb_code plot_fleet(const char *path, const struct plot_opts *o, const struc
         char item[200];
         snprintf(item, sizeof item, "%s (no %s)", v[k].pack.label,
                  !isfinite(yc) && !isfinite(xr) ? "capacity or R0 yet"
-                 : !isfinite(yc)                 ? "capacity estimate yet"
-                                                 : "R0 baseline yet");
+                 : !isfinite(yc)                ? "capacity estimate yet"
+                                                : "R0 baseline yet");
         list_add(p, unplaced, sizeof unplaced, item, ts, avail * 0.85, &more_un);
         nunplaced++;
     }
@@ -224,15 +223,15 @@ enum pb_code plot_fleet(const char *path, const struct plot_opts *o, const struc
         snprintf(line, sizeof line, "Not placed (%zu): %s", nunplaced, unplaced);
         if (more_un)
             snprintf(line + strlen(line), sizeof line - strlen(line), " and %zu more", more_un);
-        plot_text(p, pa.x0, ty + used_lines * ts * 1.3, 0, plot_fit_size(p, line, ts, 0, avail),
-                  0, 0x222222u, line);
+        plot_text(p, pa.x0, ty + used_lines * ts * 1.3, 0, plot_fit_size(p, line, ts, 0, avail), 0,
+                  0x222222u, line);
     }
     snprintf(line, sizeof line,
              "packbook %s \u00b7 flags from the recorded flights only: inspect packs and follow "
              "the manufacturer's limits before retiring or flying them",
              PACKBOOK_VERSION);
-    plot_text(p, pa.x0, h - fs * 0.6, 0, plot_fit_size(p, line, fs * 0.72, 0, avail), 0,
-              0x666666u, line);
+    plot_text(p, pa.x0, h - fs * 0.6, 0, plot_fit_size(p, line, fs * 0.72, 0, avail), 0, 0x666666u,
+              line);
     plot_legend(p, &pa, keys, nk);
     if (o->axes_json && plot_axes_json(o->axes_json, p, &pa, 1) != 0)
         rc = pb_error_set(err, PB_EOUTPUT, "cannot write the axes map '%s'", o->axes_json);

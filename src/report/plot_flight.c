@@ -190,8 +190,8 @@ static void footer(struct plot *p, double left, double right)
              "packbook %s \u00b7 estimates from the log, not a substitute for the aircraft's "
              "low-voltage protection or the manufacturer's limits",
              PACKBOOK_VERSION);
-    plot_text(p, left, plot_height(p) - fs * 0.8, 0,
-              plot_fit_size(p, line, fs, 0, right - left), 0, 0x666666u, line);
+    plot_text(p, left, plot_height(p) - fs * 0.8, 0, plot_fit_size(p, line, fs, 0, right - left), 0,
+              0x666666u, line);
 }
 
 enum pb_code plot_flight(const char *path, const struct plot_opts *o, const struct series *s,
@@ -365,8 +365,8 @@ enum pb_code plot_flight(const char *path, const struct plot_opts *o, const stru
     plot_margins(p, pa, (size_t)np, &left, &right);
     right = w - right;
     struct plot_axis xa = {0};
-    snprintf(xa.label, sizeof xa.label, x_div > 1 ? "time since first sample (min)"
-                                                  : "time since first sample (s)");
+    snprintf(xa.label, sizeof xa.label,
+             x_div > 1 ? "time since first sample (min)" : "time since first sample (s)");
     plot_axis_fit_tight(p, &xa, tlo, thi, right - left);
     for (int j = 0; j < np; j++) {
         pa[j].x0 = left;

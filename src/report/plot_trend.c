@@ -29,8 +29,7 @@ struct quantity {
 
 /* What the line says about the retirement level, for the title block. */
 static void crossing_text(const struct trend_line *tl, const struct line_fit *l, const char *what,
-                          const char *unit, double per, const char *per_unit, char *buf,
-                          size_t cap)
+                          const char *unit, double per, const char *per_unit, char *buf, size_t cap)
 {
     char slope[96] = "", when[96];
     if (!l->ok) {
@@ -113,11 +112,10 @@ enum pb_code plot_trend(const char *path, const struct plot_opts *o, const struc
     static const struct plot_style st_retire = {PLOT_VERMILION, 1.4, DASH_LONG, 0};
     static const struct plot_style st_watch = {PLOT_ORANGE, 1.3, DASH_DOT, 0};
     static const struct plot_style st_cross = {PLOT_VERMILION, 1.2, DASH_DOT, 0};
-    const char *bucket_name = v->trend.nbuckets && strchr(v->trend.buckets[0].key, 'W')
-                                  ? "weekly mean"
-                              : v->trend.nbuckets && strncmp(v->trend.buckets[0].key, "cycles", 6)
-                                  ? "monthly mean"
-                                  : "5-cycle mean";
+    const char *bucket_name =
+        v->trend.nbuckets && strchr(v->trend.buckets[0].key, 'W')            ? "weekly mean"
+        : v->trend.nbuckets && strncmp(v->trend.buckets[0].key, "cycles", 6) ? "monthly mean"
+                                                                             : "5-cycle mean";
     struct plot_key keys[2][6];
     size_t nk[2] = {0, 0};
     for (int j = 0; j < 2; j++) {
@@ -139,8 +137,8 @@ enum pb_code plot_trend(const char *path, const struct plot_opts *o, const struc
         const struct trend_line *tl = qs[j].tl;
         const struct line_fit *l = by_date ? &tl->vs_days : &tl->vs_cycles;
         snprintf(pp->name, sizeof pp->name, "%s", j == 0 ? "r0" : "capacity");
-        snprintf(pp->y.label, sizeof pp->y.label, j == 0 ? "R0 (m\u03a9 per cell)"
-                                                        : "capacity (%% of rated)");
+        snprintf(pp->y.label, sizeof pp->y.label,
+                 j == 0 ? "R0 (m\u03a9 per cell)" : "capacity (%% of rated)");
         double ylo = HUGE_VAL, yhi = -HUGE_VAL;
         for (size_t k = 0; k < n; k++)
             if (isfinite(qs[j].y[k])) {
@@ -192,16 +190,17 @@ enum pb_code plot_trend(const char *path, const struct plot_opts *o, const struc
     snprintf(line, sizeof line, "%s", o->title ? o->title : pk->label);
     char meta[256];
     snprintf(meta, sizeof meta, "%dS %s %.0f mAh \u00b7 %zu flight%s \u00b7 %.1f cycles \u00b7 %s",
-             pk->cells, chem ? chem->label : pk->chemistry, rated, n, n == 1 ? "" : "s", v->health.cycles,
+             pk->cells, chem ? chem->label : pk->chemistry, rated, n, n == 1 ? "" : "s",
+             v->health.cycles,
              pk->retired_at[0] ? "retired" : health_status_name(v->health.status));
     double mw = plot_text_width(p, meta, fs * 1.0, 0);
-    plot_text(p, left, fs * 1.7, 0, plot_fit_size(p, line, fs * 1.35, 1, right - left - mw - fs),
-              1, 0x111111u, line);
+    plot_text(p, left, fs * 1.7, 0, plot_fit_size(p, line, fs * 1.35, 1, right - left - mw - fs), 1,
+              0x111111u, line);
     plot_text(p, right, fs * 1.7, 2, fs, 0, 0x333333u, meta);
     for (int j = 0; j < 2; j++) {
         const struct trend_line *tl = qs[j].tl;
-        crossing_text(tl, by_date ? &tl->vs_days : &tl->vs_cycles, qs[j].name, qs[j].unit, per, by_date ? "days" : "cycles",
-                      ln[j], sizeof ln[j]);
+        crossing_text(tl, by_date ? &tl->vs_days : &tl->vs_cycles, qs[j].name, qs[j].unit, per,
+                      by_date ? "days" : "cycles", ln[j], sizeof ln[j]);
         plot_text(p, left, fs * (3.15 + 1.3 * j), 0,
                   plot_fit_size(p, ln[j], fs * 0.9, 0, right - left), 0, 0x222222u, ln[j]);
     }

@@ -12,9 +12,9 @@
 #include "report_health.h"
 
 struct plot_opts {
-    int width, height;      /* 0: the figure's default */
-    const char *title;      /* NULL: the log's or pack's name */
-    const char *axes_json;  /* NULL: no axes map */
+    int width, height;     /* 0: the figure's default */
+    const char *title;     /* NULL: the log's or pack's name */
+    const char *axes_json; /* NULL: no axes map */
 };
 
 /* Flight: voltage with the sag-corrected OCV, current and power, SoC by

@@ -172,12 +172,9 @@ int main(void)
 {
     gsl_set_error_handler_off();
     const struct CMUnitTest tests[] = {
-        cmocka_unit_test(test_exact_line),
-        cmocka_unit_test(test_slope_ci_textbook),
-        cmocka_unit_test(test_band_textbook),
-        cmocka_unit_test(test_crossing_directions),
-        cmocka_unit_test(test_rules),
-        cmocka_unit_test(test_trend_buckets_iso_weeks),
+        cmocka_unit_test(test_exact_line),    cmocka_unit_test(test_slope_ci_textbook),
+        cmocka_unit_test(test_band_textbook), cmocka_unit_test(test_crossing_directions),
+        cmocka_unit_test(test_rules),         cmocka_unit_test(test_trend_buckets_iso_weeks),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
 }
