@@ -532,7 +532,10 @@ void plot_panel_draw(struct plot *p, const struct plot_panel *pa)
         for (int k = 0; k < pa->x.ticks.count; k++) {
             double v = pa->x.ticks.first + k * pa->x.ticks.step;
             plot_tick_text(&pa->x, v, buf, sizeof buf);
-            plot_text(p, plot_px(pa, v), pa->y1 + tick + fs * 1.15, 1, fs, 0, 0x222222u, buf);
+            /* centred on its tick, but kept inside the figure at either end */
+            double w = plot_text_width(p, buf, fs, 0), cx = plot_px(pa, v);
+            cx = fmin(fmax(cx, w / 2 + 2), p->w - w / 2 - 2);
+            plot_text(p, cx, pa->y1 + tick + fs * 1.15, 1, fs, 0, 0x222222u, buf);
         }
         plot_text(p, (pa->x0 + pa->x1) / 2, pa->y1 + tick + fs * 1.15 + p->font * 1.45, 1, p->font,
                   0, 0x222222u, pa->x.label);

@@ -27,11 +27,31 @@ struct quantity {
     double watch_level;
 };
 
-/* What the line says about the retirement level, for the title block. */
-static void crossing_text(const struct trend_line *tl, const struct line_fit *l, const char *what,
-                          const char *unit, double per, const char *per_unit, char *buf, size_t cap)
+/* Where the line of this view (cycles or dates) reaches the retire level,
+ * as text: "17 cycles, 2026-06-16", "2026-09-16" or "17 cycles". Returns 0
+ * when this view's line projects no crossing. */
+static int crossing_where(const struct trend_line *tl, int by_date, char *buf, size_t cap)
 {
-    char slope[96] = "", when[96];
+    int cyc = isfinite(tl->cross_cycles), day = isfinite(tl->cross_epoch_s);
+    if (by_date ? !day : !cyc)
+        return 0;
+    char d[32] = "", c[40] = "";
+    if (day)
+        iso_day(tl->cross_epoch_s, d, sizeof d);
+    if (cyc)
+        snprintf(c, sizeof c, "%.0f cycles", tl->cross_cycles);
+    /* each view leads with its own axis */
+    snprintf(buf, cap, "%s%s%s", by_date ? d : c, d[0] && c[0] ? ", " : "", by_date ? c : d);
+    return 1;
+}
+
+/* What the line says about the retirement level, for the title block. */
+static void crossing_text(const struct trend_line *tl, const struct line_fit *l, int by_date,
+                          const char *what, const char *unit, double per, const char *per_unit,
+                          char *buf, size_t cap)
+{
+    char where[64];
+    char slope[96] = "", when[160];
     if (!l->ok) {
         snprintf(buf, cap, "%s: too few flights with a value for a line (3 needed, %zu)", what,
                  l->n);
@@ -41,13 +61,9 @@ static void crossing_text(const struct trend_line *tl, const struct line_fit *l,
              unit, per, per_unit);
     if (tl->crossed)
         snprintf(when, sizeof when, "at or past the retirement level now");
-    else if (isfinite(tl->cross_cycles)) {
-        char day[32] = "";
-        if (isfinite(tl->cross_epoch_s))
-            iso_day(tl->cross_epoch_s, day, sizeof day);
-        snprintf(when, sizeof when, "reaches the retirement level at \u2248 %.0f cycles%s%s%s",
-                 tl->cross_cycles, day[0] ? " (" : "", day, day[0] ? ")" : "");
-    } else if (tl->beyond_horizon)
+    else if (crossing_where(tl, by_date, where, sizeof where))
+        snprintf(when, sizeof when, "reaches the retirement level at \u2248 %s", where);
+    else if (tl->beyond_horizon)
         snprintf(when, sizeof when, "no crossing within the horizon");
     else
         snprintf(when, sizeof when, "no crossing projected (slope not told from zero, or away)");
@@ -199,8 +215,8 @@ enum pb_code plot_trend(const char *path, const struct plot_opts *o, const struc
     plot_text(p, right, fs * 1.7, 2, fs, 0, 0x333333u, meta);
     for (int j = 0; j < 2; j++) {
         const struct trend_line *tl = qs[j].tl;
-        crossing_text(tl, by_date ? &tl->vs_days : &tl->vs_cycles, qs[j].name, qs[j].unit, per,
-                      by_date ? "days" : "cycles", ln[j], sizeof ln[j]);
+        crossing_text(tl, by_date ? &tl->vs_days : &tl->vs_cycles, by_date, qs[j].name, qs[j].unit,
+                      per, by_date ? "days" : "cycles", ln[j], sizeof ln[j]);
         plot_text(p, left, fs * (3.15 + 1.3 * j), 0,
                   plot_fit_size(p, ln[j], fs * 0.9, 0, right - left), 0, 0x222222u, ln[j]);
     }
@@ -216,7 +232,7 @@ enum pb_code plot_trend(const char *path, const struct plot_opts *o, const struc
         const struct trend_line *tl = qs[j].tl;
         const struct line_fit *l = by_date ? &tl->vs_days : &tl->vs_cycles;
         plot_panel_draw(p, pp);
-        char lab[96];
+        char lab[160];
         if (isfinite(tl->level)) {
             if (j == 0)
                 snprintf(lab, sizeof lab, "retire %.1f m\u03a9/cell (%.1f\u00d7 baseline)",
@@ -260,19 +276,15 @@ enum pb_code plot_trend(const char *path, const struct plot_opts *o, const struc
                 plot_marker(p, pp, sx / m, yb, MARK_DIAMOND, 1, &st_bucket);
         }
         double xc = by_date ? (tl->cross_epoch_s - first_epoch) / 86400.0 : tl->cross_cycles;
-        if (isfinite(xc)) {
-            char day[32] = "";
-            if (isfinite(tl->cross_epoch_s))
-                iso_day(tl->cross_epoch_s, day, sizeof day);
+        char where[64];
+        if (isfinite(xc) && crossing_where(tl, by_date, where, sizeof where)) {
             if (xc <= pp->x.hi) {
-                snprintf(lab, sizeof lab, "projected: %.0f cycles%s%s", tl->cross_cycles,
-                         day[0] ? ", " : "", day);
+                snprintf(lab, sizeof lab, "projected: %s", where);
                 plot_vline(p, pp, xc, &st_cross, lab);
                 plot_marker(p, pp, xc, tl->level, MARK_CROSS, 0, &st_cross);
             } else {
                 /* off the right edge: say where, at the edge */
-                snprintf(lab, sizeof lab, "projected: %.0f cycles%s%s \u2192", tl->cross_cycles,
-                         day[0] ? ", " : "", day);
+                snprintf(lab, sizeof lab, "projected: %s \u2192", where);
                 plot_vline(p, pp, pp->x.hi, &st_cross, lab);
             }
         }
