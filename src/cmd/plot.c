@@ -78,16 +78,22 @@ static enum pb_code parse(int argc, char **argv, struct plot_cli *cli, int *done
                           struct pb_error *err)
 {
     int c;
-    const char *first_history_opt = NULL, *first_log_opt = NULL;
+    const char *first_history_opt = NULL;
+    char first_log_opt[48] = "";
     optind = 1;
     opterr = 0;
-    while ((c = getopt_long(argc, argv, "ho:", longopts, NULL)) != -1) {
-        const char *opt = argv[optind - 1];
+    int li = -1;
+    while ((c = getopt_long(argc, argv, "ho:", longopts, &li)) != -1) {
+        /* the option's own name for messages (argv[optind - 1] may be its value) */
+        char opt[48];
+        snprintf(opt, sizeof opt, "--%s", li >= 0 ? longopts[li].name : "?");
+        li = -1;
         int taken = logopts_take(c, optarg, &cli->log, err);
         if (taken < 0)
             return PB_EUSAGE;
         if (taken) {
-            first_log_opt = first_log_opt ? first_log_opt : opt;
+            if (!first_log_opt[0])
+                snprintf(first_log_opt, sizeof first_log_opt, "%s", opt);
             continue;
         }
         taken = ruleopts_take(c, optarg, &cli->rules, err);
@@ -184,7 +190,7 @@ static enum pb_code parse(int argc, char **argv, struct plot_cli *cli, int *done
     if (cli->kind == KIND_FLIGHT && first_history_opt)
         return pb_error_set(err, PB_EUSAGE, "plot: %s is for 'plot trend' or 'plot fleet'",
                             first_history_opt);
-    if (cli->kind != KIND_FLIGHT && first_log_opt)
+    if (cli->kind != KIND_FLIGHT && first_log_opt[0])
         return pb_error_set(err, PB_EUSAGE,
                             "plot %s: %s is for a log (the history keeps each flight's analysis)",
                             argv[optind], first_log_opt);

@@ -285,6 +285,10 @@ int health_trend(const struct health_flight *f, size_t n, int cells, double rate
                  struct pack_trend *t)
 {
     memset(t, 0, sizeof *t);
+    /* nothing known yet: no level (no baseline), no crossing */
+    t->r0.level = t->capacity.level = NAN;
+    t->r0.cross_cycles = t->r0.cross_epoch_s = NAN;
+    t->capacity.cross_cycles = t->capacity.cross_epoch_s = NAN;
     if (n == 0)
         return 0;
     double *cyc = malloc(n * sizeof *cyc), *days = malloc(n * sizeof *days);

@@ -154,6 +154,41 @@ enum pb_code plot_finish(struct plot *p, struct pb_error *err)
     return PB_OK;
 }
 
+enum pb_code plot_finish_map(struct plot *p, const char *map_path, const struct plot_panel *pa,
+                             size_t n, struct pb_error *err)
+{
+    if (!map_path)
+        return plot_finish(p, err);
+    size_t len = strlen(map_path) + 16;
+    char *tmp = malloc(len);
+    if (!tmp)
+        return pb_error_set(err, PB_ENOMEM, "out of memory");
+    snprintf(tmp, len, "%s.tmp-XXXXXX", map_path);
+    int fd = mkstemp(tmp);
+    if (fd < 0) {
+        pb_error_set(err, PB_EOUTPUT, "cannot write the axes map '%s': %s", map_path,
+                     strerror(errno));
+        free(tmp);
+        return PB_EOUTPUT;
+    }
+    mode_t mask = umask(0);
+    umask(mask);
+    (void)fchmod(fd, 0666 & ~mask);
+    close(fd);
+    enum pb_code rc = PB_OK;
+    if (plot_axes_json(tmp, p, pa, n) != 0)
+        rc = pb_error_set(err, PB_EOUTPUT, "cannot write the axes map '%s'", map_path);
+    if (rc == PB_OK)
+        rc = plot_finish(p, err);
+    if (rc == PB_OK && rename(tmp, map_path) != 0)
+        rc = pb_error_set(err, PB_EOUTPUT, "cannot write the axes map '%s': %s", map_path,
+                          strerror(errno));
+    if (rc != PB_OK)
+        unlink(tmp);
+    free(tmp);
+    return rc;
+}
+
 void plot_free(struct plot *p)
 {
     if (!p)
@@ -364,9 +399,10 @@ void plot_axis_fit(struct plot *p, struct plot_axis *ax, double lo, double hi, d
     }
 }
 
-void plot_axis_fit_tight(struct plot *p, struct plot_axis *ax, double lo, double hi, double len_px)
+void plot_axis_fit_tight(struct plot *p, struct plot_axis *ax, double lo, double hi, double len_px,
+                         int vertical)
 {
-    plot_axis_fit(p, ax, lo, hi, len_px, 0);
+    plot_axis_fit(p, ax, lo, hi, len_px, vertical);
     if (!isfinite(lo) || !isfinite(hi) || !(hi > lo))
         return;
     double step = ax->ticks.step;

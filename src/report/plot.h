@@ -77,6 +77,13 @@ struct plot *plot_new(const char *path, int w, int h, struct pb_error *err);
 /* Writes the figure and moves it to its name. Returns PB_OK or fills err. */
 enum pb_code plot_finish(struct plot *p, struct pb_error *err);
 
+/* plot_finish, with the axes map of the n panels written to map_path too
+ * (NULL: none). The map is written first under a temporary name and moved
+ * into place only once the figure is: a failure of either leaves neither
+ * (an older figure and map stay as they were). */
+enum pb_code plot_finish_map(struct plot *p, const char *map_path, const struct plot_panel *pa,
+                             size_t n, struct pb_error *err);
+
 /* Frees p, removing the temporary file when not finished; NULL is a no-op. */
 void plot_free(struct plot *p);
 
@@ -96,7 +103,8 @@ void plot_axis_fit(struct plot *p, struct plot_axis *ax, double lo, double hi, d
 
 /* As plot_axis_fit, but the axis spans exactly [lo, hi] with the round
  * ticks inside it (a time axis that ends where the log ends). */
-void plot_axis_fit_tight(struct plot *p, struct plot_axis *ax, double lo, double hi, double len_px);
+void plot_axis_fit_tight(struct plot *p, struct plot_axis *ax, double lo, double hi, double len_px,
+                         int vertical);
 
 /* Sets ax2 (a right axis) to cover [lo, hi] with as many ticks as ref and
  * its zero on ref's zero, so both axes share the grid lines; ref must

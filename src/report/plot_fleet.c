@@ -77,6 +77,9 @@ enum pb_code plot_fleet(const char *path, const struct plot_opts *o, const struc
             ylo = fmin(ylo, yc), yhi = fmax(yhi, yc);
         }
     }
+    /* room around the marks so none sits on the frame */
+    double xpad = 0.04 * (xhi - xlo), ypad = 0.04 * (yhi - ylo);
+    xlo -= xpad, xhi += xpad, ylo -= ypad, yhi += ypad;
     struct plot_panel pa;
     memset(&pa, 0, sizeof pa);
     snprintf(pa.name, sizeof pa.name, "fleet");
@@ -102,11 +105,11 @@ enum pb_code plot_fleet(const char *path, const struct plot_opts *o, const struc
     double weight = 1;
     int rows = plot_legend_rows(p, right - left, keys, nk);
     plot_stack(p, top, bottom, left, right, &weight, &rows, 1, &pa);
-    plot_axis_fit(p, &pa.y, ylo, yhi, pa.y1 - pa.y0, 1);
+    plot_axis_fit_tight(p, &pa.y, ylo, yhi, pa.y1 - pa.y0, 1);
     plot_margins(p, &pa, 1, &left, &right);
     pa.x0 = left;
     pa.x1 = w - right;
-    plot_axis_fit(p, &pa.x, xlo, xhi, pa.x1 - pa.x0, 0);
+    plot_axis_fit_tight(p, &pa.x, xlo, xhi, pa.x1 - pa.x0, 0);
 
     /* title */
     char line[3200], when[40] = "no flights yet";
@@ -233,10 +236,7 @@ enum pb_code plot_fleet(const char *path, const struct plot_opts *o, const struc
     plot_text(p, pa.x0, h - fs * 0.6, 0, plot_fit_size(p, line, fs * 0.72, 0, avail), 0, 0x666666u,
               line);
     plot_legend(p, &pa, keys, nk);
-    if (o->axes_json && plot_axes_json(o->axes_json, p, &pa, 1) != 0)
-        rc = pb_error_set(err, PB_EOUTPUT, "cannot write the axes map '%s'", o->axes_json);
-    if (rc == PB_OK)
-        rc = plot_finish(p, err);
+    rc = plot_finish_map(p, o->axes_json, &pa, 1, err);
 cleanup:
     plot_free(p);
     return rc;

@@ -340,6 +340,8 @@ enum pb_code plot_flight(const char *path, const struct plot_opts *o, const stru
              * this scale; a whole tick interval for it would waste the panel */
             if (lo < 0 && -lo < 0.01 * hi)
                 lo = 0, plo = fmax(plo, 0);
+            hi += 0.02 * (hi - lo); /* a round maximum stays off the frame */
+            phi += 0.02 * (phi - plo);
             plot_axis_fit(p, &q->y, lo, hi, hgt, 1);
             plot_axis_align(p, &q->y2, plo, phi, &q->y, hgt);
             continue;
@@ -360,6 +362,12 @@ enum pb_code plot_flight(const char *path, const struct plot_opts *o, const stru
                 lo = fmin(lo, a->floor_v);
             break;
         }
+        if (which[j] != P_SOC) {
+            /* a round extreme would sit on the frame, half clipped */
+            double pad = 0.02 * (hi - lo);
+            lo -= pad;
+            hi += pad;
+        }
         plot_axis_fit(p, &q->y, lo, hi, hgt, 1);
     }
     plot_margins(p, pa, (size_t)np, &left, &right);
@@ -367,7 +375,7 @@ enum pb_code plot_flight(const char *path, const struct plot_opts *o, const stru
     struct plot_axis xa = {0};
     snprintf(xa.label, sizeof xa.label,
              x_div > 1 ? "time since first sample (min)" : "time since first sample (s)");
-    plot_axis_fit_tight(p, &xa, tlo, thi, right - left);
+    plot_axis_fit_tight(p, &xa, tlo, thi, right - left, 0);
     for (int j = 0; j < np; j++) {
         pa[j].x0 = left;
         pa[j].x1 = right;
@@ -422,11 +430,7 @@ enum pb_code plot_flight(const char *path, const struct plot_opts *o, const stru
         plot_legend(p, q, keys[j], nkeys[j]);
     }
     footer(p, left, right);
-    rc = PB_OK;
-    if (o->axes_json && plot_axes_json(o->axes_json, p, pa, (size_t)np) != 0)
-        rc = pb_error_set(err, PB_EOUTPUT, "cannot write the axes map '%s'", o->axes_json);
-    if (rc == PB_OK)
-        rc = plot_finish(p, err);
+    rc = plot_finish_map(p, o->axes_json, pa, (size_t)np, err);
 cleanup:
     cols_free(&c);
     plot_free(p);

@@ -176,8 +176,10 @@ enum pb_code plot_trend(const char *path, const struct plot_opts *o, const struc
         }
         if (!(yhi >= ylo))
             ylo = 0, yhi = j == 0 ? 10 : 100;
-        if (j == 0)
-            ylo = fmin(ylo, 0.0) < 0 ? ylo : fmax(0.0, ylo - 0.1 * (yhi - ylo));
+        /* a little room so marks and level lines do not sit on the frame */
+        double pad = 0.03 * (yhi - ylo);
+        ylo = j == 0 ? fmax(0.0, ylo - 0.1 * (yhi - ylo)) : ylo - pad;
+        yhi += pad;
         plot_axis_fit(p, &pp->y, ylo, yhi, pp->y1 - pp->y0, 1);
     }
     plot_margins(p, pa, 2, &left, &right);
@@ -260,8 +262,6 @@ enum pb_code plot_trend(const char *path, const struct plot_opts *o, const struc
             plot_band(p, pp, lx, lo, hi, LINE_POINTS, &st_band);
             plot_line(p, pp, 0, lx, ly, LINE_POINTS, 1.0, 0, &st_line);
         }
-        for (size_t k = 0; k < n; k++)
-            plot_marker(p, pp, x[k], qs[j].y[k], MARK_CIRCLE, 0, &st_pt[j]);
         /* bucket means at the mean x of their flights */
         for (size_t b = 0; b < v->trend.nbuckets; b++) {
             const struct trend_bucket *tb = &v->trend.buckets[b];
@@ -275,6 +275,9 @@ enum pb_code plot_trend(const char *path, const struct plot_opts *o, const struc
             if (m)
                 plot_marker(p, pp, sx / m, yb, MARK_DIAMOND, 1, &st_bucket);
         }
+        /* flights over the bucket means: a flight alone in its bucket stays visible */
+        for (size_t k = 0; k < n; k++)
+            plot_marker(p, pp, x[k], qs[j].y[k], MARK_CIRCLE, 0, &st_pt[j]);
         double xc = by_date ? (tl->cross_epoch_s - first_epoch) / 86400.0 : tl->cross_cycles;
         char where[64];
         if (isfinite(xc) && crossing_where(tl, by_date, where, sizeof where)) {
@@ -299,10 +302,7 @@ enum pb_code plot_trend(const char *path, const struct plot_opts *o, const struc
              PACKBOOK_VERSION);
     plot_text(p, left, h - fs * 0.6, 0, plot_fit_size(p, line, fs * 0.72, 0, right - left), 0,
               0x666666u, line);
-    if (o->axes_json && plot_axes_json(o->axes_json, p, pa, 2) != 0)
-        rc = pb_error_set(err, PB_EOUTPUT, "cannot write the axes map '%s'", o->axes_json);
-    if (rc == PB_OK)
-        rc = plot_finish(p, err);
+    rc = plot_finish_map(p, o->axes_json, pa, 2, err);
 cleanup:
     free(x), free(r0), free(cap), free(lx), free(ly), free(lo), free(hi);
     plot_free(p);

@@ -168,13 +168,33 @@ static void test_trend_buckets_iso_weeks(void **state)
     health_trend_release(&t);
 }
 
+static void test_trend_without_flights(void **state)
+{
+    (void)state;
+    struct health_rules r;
+    health_rules_default(&r);
+    struct pack_trend t;
+    assert_int_equal(health_trend(NULL, 0, 4, 5000, &r, TREND_WEEK, 0, 1000, &t), 0);
+    /* no baseline, so no level and no crossing: unknown, not zero (a zero
+     * level once drew "retire 0.0 mOhm/cell" and a 1970 crossing) */
+    assert_true(isnan(t.r0.level) && isnan(t.capacity.level));
+    assert_true(isnan(t.r0.cross_cycles) && isnan(t.r0.cross_epoch_s));
+    assert_true(isnan(t.capacity.cross_cycles) && isnan(t.capacity.cross_epoch_s));
+    assert_false(t.r0.vs_cycles.ok);
+    health_trend_release(&t);
+}
+
 int main(void)
 {
     gsl_set_error_handler_off();
     const struct CMUnitTest tests[] = {
-        cmocka_unit_test(test_exact_line),    cmocka_unit_test(test_slope_ci_textbook),
-        cmocka_unit_test(test_band_textbook), cmocka_unit_test(test_crossing_directions),
-        cmocka_unit_test(test_rules),         cmocka_unit_test(test_trend_buckets_iso_weeks),
+        cmocka_unit_test(test_exact_line),
+        cmocka_unit_test(test_slope_ci_textbook),
+        cmocka_unit_test(test_band_textbook),
+        cmocka_unit_test(test_crossing_directions),
+        cmocka_unit_test(test_rules),
+        cmocka_unit_test(test_trend_buckets_iso_weeks),
+        cmocka_unit_test(test_trend_without_flights),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
 }

@@ -75,7 +75,7 @@ static void test_tight_axis(void **state)
     (void)state;
     struct plot *p = new_plot("tight.png");
     struct plot_axis ax = {0};
-    plot_axis_fit_tight(p, &ax, 0.0, 11.0, 600);
+    plot_axis_fit_tight(p, &ax, 0.0, 11.0, 600, 0);
     check_close(ax.lo, 0.0, 0, "tight lo is the data's");
     check_close(ax.hi, 11.0, 0, "tight hi is the data's");
     double last = ax.ticks.first + (ax.ticks.count - 1) * ax.ticks.step;
