@@ -153,13 +153,21 @@ enum pb_code plot_fleet(const char *path, const struct plot_opts *o, const struc
 
     /* labels on the packs needing attention, where they do not collide
      * with another label or leave the plot; the list below names them all */
-    struct box *used = calloc(n ? n : 1, sizeof *used);
+    struct box *used = calloc(2 * n + 1, sizeof *used);
     if (!used) {
         rc = pb_error_set(err, PB_ENOMEM, "out of memory");
         goto cleanup;
     }
     size_t nused = 0;
     double ls = fs * 0.8, r = fs * 0.6;
+    /* every mark is taken space: a label must not cover another pack */
+    for (size_t k = 0; k < n; k++) {
+        double xr = (v[k].health.r0_ratio - 1.0) * 100.0, yc = v[k].health.capacity_pct;
+        if (!isfinite(xr) || !isfinite(yc))
+            continue;
+        double fx = plot_px(&pa, xr), fy = plot_py(&pa, yc), m = r * 0.75;
+        used[nused++] = (struct box){fx - m, fy - m, fx + m, fy + m};
+    }
     static const double off[8][2] = {{1, -1}, {1, 1},  {-1, -1},  {-1, 1},
                                      {1, 0},  {-1, 0}, {0, -1.6}, {0, 1.6}};
     for (int s = S_RETIRE; s >= S_WATCH; s--)
