@@ -2,8 +2,10 @@
 
 PACKBOOK in the environment is the binary under test; meson sets it.
 """
+import atexit
 import json
 import os
+import shutil
 import subprocess
 import tempfile
 
@@ -28,9 +30,32 @@ def analyze_json(path, *args):
     return json.loads(out)
 
 
+_CLEANUP = []
+
+
+@atexit.register
+def _remove_temporaries():
+    """Temporary files and folders go when the test program ends (CI's machine is fresh, but a
+    developer's /tmp is not)."""
+    for path in reversed(_CLEANUP):
+        if os.path.isdir(path):
+            shutil.rmtree(path, ignore_errors=True)
+        elif os.path.exists(path):
+            os.unlink(path)
+
+
+def temp_dir(prefix):
+    """A new temporary folder, removed when the test program ends."""
+    path = tempfile.mkdtemp(prefix=prefix)
+    _CLEANUP.append(path)
+    return path
+
+
 def write_temp(text, suffix=".csv", mode="w"):
-    """Writes text (or bytes with mode='wb') to a temporary file; returns its path."""
+    """Writes text (or bytes with mode='wb') to a temporary file, removed when the test program
+    ends; returns its path."""
     fd, path = tempfile.mkstemp(suffix=suffix, prefix="pbtest-")
+    _CLEANUP.append(path)
     with os.fdopen(fd, mode) as f:
         f.write(text)
     return path

@@ -15,7 +15,6 @@ import json
 import os
 import subprocess
 import sys
-import tempfile
 import unittest
 
 sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
@@ -34,7 +33,7 @@ def make(tmp, duration, *extra):
 
 class Bounds(unittest.TestCase):
     def test_work_doubles_with_the_input(self):
-        tmp = tempfile.mkdtemp(prefix="pbbounds-")
+        tmp = pbtest.temp_dir("pbbounds-")
         for fit in ("robust", "ols"):
             work, lines = [], []
             for d in (1500, 3000, 6000):

@@ -64,7 +64,7 @@ class DiskFull(unittest.TestCase):
 class HandEdited(unittest.TestCase):
     def test_unknown_chemistry_in_the_database(self):
         # a pack row edited outside packbook: a clear store error, no crash
-        db = os.path.join(tempfile.mkdtemp(prefix="pbedit-"), "h.db")
+        db = os.path.join(pbtest.temp_dir("pbedit-"), "h.db")
         rc, out, err = pbtest.run("pack", "add", "TM-10", "--cells", 4, "--chemistry", "lipo",
                                   "--capacity", 5000, "--db", db)
         self.assertEqual(rc, 0, err)

@@ -14,7 +14,6 @@ import json
 import os
 import subprocess
 import sys
-import tempfile
 import unittest
 
 import numpy as np
@@ -70,7 +69,7 @@ def sim(tmp, name, *args):
 
 class Predict(unittest.TestCase):
     def setUp(self):
-        self.tmp = tempfile.mkdtemp(prefix="pbpredict-")
+        self.tmp = pbtest.temp_dir("pbpredict-")
         self.env_db = os.path.join(self.tmp, "history.db")
 
     def test_constant_power_against_solve_ivp(self):

@@ -11,7 +11,6 @@ import json
 import os
 import subprocess
 import sys
-import tempfile
 import unittest
 
 sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
@@ -31,7 +30,7 @@ def generate(tmp, name, *args):
 
 class Truth(unittest.TestCase):
     def setUp(self):
-        self.tmp = tempfile.mkdtemp(prefix="pbtruth-")
+        self.tmp = pbtest.temp_dir("pbtruth-")
 
     def check_core(self, doc, truth, seed):
         msg = f"seed {seed}"
