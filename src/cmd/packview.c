@@ -11,6 +11,31 @@ const char ruleopts_usage[] =
     "  --retire-spread MV     resting cell spread at or above MV (default 60)\n"
     "  --retire-overdischarge N  N flights below the voltage floor (default 3)\n";
 
+int trendopts_by(const char *arg, enum trend_by *by, struct pb_error *err)
+{
+    if (strcmp(arg, "week") == 0)
+        *by = TREND_WEEK;
+    else if (strcmp(arg, "month") == 0)
+        *by = TREND_MONTH;
+    else if (strcmp(arg, "cycle") == 0)
+        *by = TREND_CYCLE;
+    else {
+        pb_error_set(err, PB_EUSAGE, "--by: expected week, month or cycle, got '%s'", arg);
+        return -1;
+    }
+    return 0;
+}
+
+int trendopts_fit(const char *arg, int *plain, struct pb_error *err)
+{
+    if (strcmp(arg, "robust") && strcmp(arg, "ols")) {
+        pb_error_set(err, PB_EUSAGE, "--fit: expected robust or ols, got '%s'", arg);
+        return -1;
+    }
+    *plain = strcmp(arg, "ols") == 0;
+    return 0;
+}
+
 int ruleopts_take(int c, const char *v, struct health_rules *r, struct pb_error *err)
 {
     int bad = 0, n = 0;

@@ -25,6 +25,11 @@ extern const char ruleopts_usage[];
 /* Takes a rule option: 1 taken, 0 not ours, -1 bad value. */
 int ruleopts_take(int c, const char *arg, struct health_rules *r, struct pb_error *err);
 
+/* --by week|month|cycle and --fit robust|ols, as trend and plot trend take
+ * them: 0, or -1 with err filled (usage). */
+int trendopts_by(const char *arg, enum trend_by *by, struct pb_error *err);
+int trendopts_fit(const char *arg, int *plain, struct pb_error *err);
+
 /* Opens the store named by --db (NULL: the default path). */
 enum pb_code packview_open_store(const char *db, int create, struct store **out,
                                  struct pb_error *err);

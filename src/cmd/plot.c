@@ -123,22 +123,13 @@ static enum pb_code parse(int argc, char **argv, struct plot_cli *cli, int *done
             first_history_opt = first_history_opt ? first_history_opt : "--x";
             break;
         case P_BY:
-            if (strcmp(optarg, "week") == 0)
-                cli->by = TREND_WEEK;
-            else if (strcmp(optarg, "month") == 0)
-                cli->by = TREND_MONTH;
-            else if (strcmp(optarg, "cycle") == 0)
-                cli->by = TREND_CYCLE;
-            else
-                return pb_error_set(err, PB_EUSAGE, "--by: expected week, month or cycle, got '%s'",
-                                    optarg);
+            if (trendopts_by(optarg, &cli->by, err))
+                return PB_EUSAGE;
             first_history_opt = first_history_opt ? first_history_opt : "--by";
             break;
         case P_FIT:
-            if (strcmp(optarg, "robust") && strcmp(optarg, "ols"))
-                return pb_error_set(err, PB_EUSAGE, "--fit: expected robust or ols, got '%s'",
-                                    optarg);
-            cli->plain = strcmp(optarg, "ols") == 0;
+            if (trendopts_fit(optarg, &cli->plain, err))
+                return PB_EUSAGE;
             cli->log.an.plain_fit = cli->plain; /* the flight's fits follow it too */
             break;
         case P_HORIZON:

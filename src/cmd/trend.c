@@ -67,25 +67,16 @@ static enum pb_code parse(const char *verb, const char *usage, int argc, char **
             continue;
         switch (c) {
         case T_BY:
-            if (strcmp(optarg, "week") == 0)
-                cli->by = TREND_WEEK;
-            else if (strcmp(optarg, "month") == 0)
-                cli->by = TREND_MONTH;
-            else if (strcmp(optarg, "cycle") == 0)
-                cli->by = TREND_CYCLE;
-            else
-                return pb_error_set(err, PB_EUSAGE, "--by: expected week, month or cycle, got '%s'",
-                                    optarg);
+            if (trendopts_by(optarg, &cli->by, err))
+                return PB_EUSAGE;
             break;
         case T_HORIZON:
             if (cmd_parse_double("--horizon", optarg, 1, 1e6, &cli->horizon, err))
                 return PB_EUSAGE;
             break;
         case T_FIT:
-            if (strcmp(optarg, "robust") && strcmp(optarg, "ols"))
-                return pb_error_set(err, PB_EUSAGE, "--fit: expected robust or ols, got '%s'",
-                                    optarg);
-            cli->plain = strcmp(optarg, "ols") == 0;
+            if (trendopts_fit(optarg, &cli->plain, err))
+                return PB_EUSAGE;
             break;
         case T_JSON:
             cli->json = 1;
