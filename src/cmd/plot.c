@@ -37,9 +37,23 @@ static const char usage_head[] =
     "  --axes-json FILE       also write each panel's rectangle and axis ranges as JSON\n"
     "\n"
     "pack (LOG):\n"
-    "  --cells N, --chemistry C, --capacity MAH   as for analyze\n";
+    "  --pack ID [--db PATH]  a registered pack: its cells, chemistry and capacity, and\n"
+    "                         its name in the title\n"
+    "  --cells N, --chemistry C, --capacity MAH   as for analyze (instead of --pack)\n";
 
-enum { P_OUT = 'o', P_SIZE = 256, P_TITLE, P_AXES, P_X, P_BY, P_FIT, P_HORIZON, P_DB, P_ALL };
+enum {
+    P_OUT = 'o',
+    P_SIZE = 256,
+    P_TITLE,
+    P_AXES,
+    P_X,
+    P_BY,
+    P_FIT,
+    P_HORIZON,
+    P_DB,
+    P_ALL,
+    P_PACK
+};
 
 static const struct option longopts[] = {
     {"output", required_argument, NULL, P_OUT},
@@ -52,6 +66,7 @@ static const struct option longopts[] = {
     {"horizon", required_argument, NULL, P_HORIZON},
     {"db", required_argument, NULL, P_DB},
     {"all", no_argument, NULL, P_ALL},
+    {"pack", required_argument, NULL, P_PACK},
     {"help", no_argument, NULL, 'h'},
     LOGOPTS_PACK_LONG,
     LOGOPTS_LONG,
@@ -71,6 +86,9 @@ struct plot_cli {
     enum trend_by by;
     double horizon;
     const char *db;
+    const char *pack;  /* plot LOG --pack ID */
+    char pack_opt[48]; /* the first of --cells, --chemistry, --capacity given */
+    char title[256];   /* "ID - log" for --pack without --title */
     struct health_rules rules;
 };
 
@@ -94,6 +112,8 @@ static enum pb_code parse(int argc, char **argv, struct plot_cli *cli, int *done
         if (taken) {
             if (!first_log_opt[0])
                 snprintf(first_log_opt, sizeof first_log_opt, "%s", opt);
+            if ((c == LO_CELLS || c == LO_CHEM || c == LO_CAP) && !cli->pack_opt[0])
+                snprintf(cli->pack_opt, sizeof cli->pack_opt, "%s", opt);
             continue;
         }
         taken = ruleopts_take(c, optarg, &cli->rules, err);
@@ -139,7 +159,9 @@ static enum pb_code parse(int argc, char **argv, struct plot_cli *cli, int *done
             break;
         case P_DB:
             cli->db = optarg;
-            first_history_opt = first_history_opt ? first_history_opt : "--db";
+            break;
+        case P_PACK:
+            cli->pack = optarg;
             break;
         case P_ALL:
             cli->all = 1;
@@ -178,6 +200,15 @@ static enum pb_code parse(int argc, char **argv, struct plot_cli *cli, int *done
             return pb_error_set(err, PB_EUSAGE, "plot: one log at a time, got '%s' and '%s'",
                                 argv[optind], argv[optind + 1]);
     }
+    if (cli->kind == KIND_FLIGHT && cli->db && !cli->pack)
+        return pb_error_set(err, PB_EUSAGE,
+                            "plot: --db is for --pack, 'plot trend' or 'plot fleet'");
+    if (cli->kind != KIND_FLIGHT && cli->pack)
+        return pb_error_set(err, PB_EUSAGE, "plot %s: --pack is for a log", argv[optind]);
+    if (cli->pack && cli->pack_opt[0])
+        return pb_error_set(err, PB_EUSAGE,
+                            "plot: %s with --pack: the pack sets cells, chemistry and capacity",
+                            cli->pack_opt);
     if (cli->kind == KIND_FLIGHT && first_history_opt)
         return pb_error_set(err, PB_EUSAGE, "plot: %s is for 'plot trend' or 'plot fleet'",
                             first_history_opt);
@@ -196,12 +227,42 @@ static enum pb_code parse(int argc, char **argv, struct plot_cli *cli, int *done
     return PB_OK;
 }
 
-static enum pb_code plot_log(const struct plot_cli *cli, const char *path, struct pb_error *err)
+/* --pack: the pack's cells, chemistry and capacity, and its name in the title. */
+static enum pb_code take_pack(struct plot_cli *cli, const char *path, struct pb_error *err)
+{
+    struct store *st = NULL;
+    struct pack_rec p;
+    enum pb_code rc = packview_open_store(cli->db, 0, &st, err);
+    if (rc == PB_OK)
+        rc = store_pack_get(st, cli->pack, &p, err);
+    store_close(st);
+    if (rc != PB_OK)
+        return rc;
+    const struct chem_info *chem = ocv_chem_by_name(p.chemistry);
+    if (!chem)
+        return pb_error_set(err, PB_ESTORE,
+                            "pack '%s' has an unknown chemistry '%s' in the database", p.label,
+                            p.chemistry);
+    cli->log.an.cells = p.cells;
+    cli->log.an.chemistry = (int)chem->id;
+    cli->log.an.capacity_mah = p.capacity_mah;
+    if (!cli->fig.title) {
+        const char *base = strrchr(path, '/') ? strrchr(path, '/') + 1 : path;
+        snprintf(cli->title, sizeof cli->title, "%s \u00b7 %s", p.label,
+                 strcmp(path, "-") == 0 ? "(stdin)" : base);
+        cli->fig.title = cli->title;
+    }
+    return PB_OK;
+}
+
+static enum pb_code plot_log(struct plot_cli *cli, const char *path, struct pb_error *err)
 {
     struct logread_stats stats;
     struct analysis *a = NULL;
     struct series *s = NULL;
-    enum pb_code rc = logopts_analyze(path, &cli->log, &stats, &a, &s, err);
+    enum pb_code rc = cli->pack ? take_pack(cli, path, err) : PB_OK;
+    if (rc == PB_OK)
+        rc = logopts_analyze(path, &cli->log, &stats, &a, &s, err);
     if (rc == PB_OK)
         rc = plot_flight(cli->out, &cli->fig, s, a, cli->log.an.capacity_mah,
                          strcmp(path, "-") == 0 ? "(stdin)" : path, err);

@@ -121,8 +121,8 @@ static void fmt_est(char *buf, size_t cap, const struct estimate *e, int min_dec
 }
 
 static void title_block(struct plot *p, const struct series *s, const struct analysis *a,
-                        const struct plot_opts *o, const char *name, const struct spans *sp,
-                        double left, double right)
+                        double rated_mah, const struct plot_opts *o, const char *name,
+                        const struct spans *sp, double left, double right)
 {
     double fs = plot_font(p), avail = right - left, y = fs * 1.7;
     char line[512], when[64] = "date not in log", r0[64], soc0[48], soc1[48];
@@ -147,15 +147,28 @@ static void title_block(struct plot *p, const struct series *s, const struct ana
         snprintf(charge, sizeof charge, "charge used %.0f mAh", a->charge_used_mah);
         snprintf(energy, sizeof energy, " \u00b7 energy %.1f Wh", a->energy_used_wh);
     }
-    snprintf(line, sizeof line, "%s%s \u00b7 R0 %s%s \u00b7 SoC %s \u2192 %s", charge, energy, r0,
-             isfinite(a->r0_mohm.ci95) ? " (pack, 95 %)" : "", soc0, soc1);
+    char cap[96] = "";
+    if (isfinite(a->capacity_mah.value)) {
+        char c[48], pct[32] = "";
+        fmt_est(c, sizeof c, &a->capacity_mah, 0, "mAh");
+        if (rated_mah > 0)
+            snprintf(pct, sizeof pct, " (%.0f %% of rated)",
+                     100.0 * a->capacity_mah.value / rated_mah);
+        snprintf(cap, sizeof cap, " \u00b7 capacity %s%s", c, pct);
+    }
+    snprintf(line, sizeof line, "%s%s \u00b7 R0 %s%s \u00b7 SoC %s \u2192 %s%s", charge, energy, r0,
+             isfinite(a->r0_mohm.ci95) ? " (pack, 95 %)" : "", soc0, soc1, cap);
     y += fs * 1.45;
     plot_text(p, left, y, 0, plot_fit_size(p, line, fs, 0, avail), 0, 0x222222u, line);
 
     char cells[96] = "cell count unknown", minv[64] = "", spread[80] = "", floor_txt[96];
-    if (a->cells > 0)
-        snprintf(cells, sizeof cells, "%s %dS (%s%s)", a->chem->label, a->cells, a->cells_source,
-                 a->chem_assumed ? ", chemistry assumed" : "");
+    if (a->cells > 0) {
+        char rated[40] = "";
+        if (rated_mah > 0)
+            snprintf(rated, sizeof rated, " %.0f mAh rated", rated_mah);
+        snprintf(cells, sizeof cells, "%dS %s%s (cell count %s%s)", a->cells, a->chem->label, rated,
+                 a->cells_source, a->chem_assumed ? ", chemistry assumed" : "");
+    }
     if (a->cells > 0 && isfinite(a->cell_min_loaded_v))
         snprintf(minv, sizeof minv, " \u00b7 lowest %.2f V/cell loaded", a->cell_min_loaded_v);
     if (a->weakest_cell > 0 && isfinite(a->spread_rest_mv))
@@ -382,7 +395,7 @@ enum pb_code plot_flight(const char *path, const struct plot_opts *o, const stru
         pa[j].x = xa;
     }
 
-    title_block(p, s, a, o, name, &sp, left, right);
+    title_block(p, s, a, rated_mah, o, name, &sp, left, right);
     for (int j = 0; j < np; j++) {
         struct plot_panel *q = &pa[j];
         shade(p, q, s, a, x_div);

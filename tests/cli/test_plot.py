@@ -1127,6 +1127,38 @@ class Shortcuts(FigureChecks, unittest.TestCase):
                                            np.asarray(ib.convert("RGB"))),
                             f"{a} and {b} differ")
 
+    def test_flight_of_a_registered_pack(self):
+        """plot LOG --pack ID takes the pack's cells, chemistry and capacity from the history
+        and names it in the title: the same pixels as giving those by hand with the title
+        "ID · log" (the pack is registered here with tm12's own values, invented for the
+        test)."""
+        log = sample("tm12-cells.csv")
+        with tempfile.TemporaryDirectory() as d:
+            db = os.path.join(d, "h.db")
+            rc, _, err = pb(db, "pack", "add", "RB-01", "--cells", 6, "--chemistry", "lihv",
+                            "--capacity", 4200)
+            self.assertEqual(rc, EXIT_OK, err)
+            a, b = os.path.join(d, "a.png"), os.path.join(d, "b.png")
+            self.plot(log, "--pack", "RB-01", "--db", db, "-o", a)
+            self.plot(log, "--cells", 6, "--chemistry", "lihv", "--capacity", 4200,
+                      "--title", "RB-01 \u00b7 tm12-cells.csv", "-o", b)
+            self.same_pixels(a, b)
+            # a different capacity draws a different figure (the check can fail)
+            c = os.path.join(d, "c.png")
+            self.plot(log, "--cells", 6, "--chemistry", "lihv", "--capacity", 3000,
+                      "--title", "RB-01 \u00b7 tm12-cells.csv", "-o", c)
+            with Image.open(a) as ia, Image.open(c) as ic:
+                self.assertFalse(np.array_equal(np.asarray(ia), np.asarray(ic)))
+            for args, status in (((log, "--pack", "RB-01", "--cells", 6), EXIT_USAGE),
+                                 ((log, "--pack", "NOPE"), EXIT_USAGE),
+                                 ((log, "--cells", 6), EXIT_USAGE),  # --db without --pack
+                                 (("fleet", "--pack", "RB-01"), EXIT_USAGE)):
+                with self.subTest(args=args):
+                    out = os.path.join(d, "x.png")
+                    rc, _, err = pb(db, "plot", *args, "-o", out)
+                    self.assertEqual(rc, status, err)
+                    self.assertFalse(os.path.exists(out))
+
     def test_analyze_plot(self):
         log, opts = sample("tm12-cells.csv"), SAMPLE_OPTS["tm12-cells.csv"]
         with tempfile.TemporaryDirectory() as d:
