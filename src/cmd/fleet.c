@@ -141,35 +141,17 @@ enum pb_code cmd_fleet(int argc, char **argv, struct app *app, struct pb_error *
     if (optind < argc)
         return pb_error_set(err, PB_EUSAGE, "fleet: unexpected argument '%s'", argv[optind]);
     struct store *st = NULL;
-    struct pack_rec *packs = NULL;
     struct pack_view *views = NULL;
     double *safe = NULL;
-    size_t np = 0, nv = 0;
+    size_t nv = 0;
     enum pb_code rc = packview_open_store(db, 1, &st, err);
     if (rc != PB_OK)
         return rc;
-    rc = store_pack_list(st, &packs, &np, err);
-    if (rc != PB_OK)
-        goto cleanup;
-    views = calloc(np ? np : 1, sizeof *views);
-    if (!views) {
-        rc = pb_error_set(err, PB_ENOMEM, "out of memory");
-        goto cleanup;
-    }
     if (status && strcmp(status, "retired") == 0)
         all = 1;
-    for (size_t k = 0; k < np; k++) {
-        if (packs[k].retired_at[0] && !all)
-            continue;
-        rc = packview_load(st, &packs[k], &rules, TREND_WEEK, 0, 1000.0, &views[nv], err);
-        if (rc != PB_OK)
-            goto cleanup;
-        nv++;
-        const char *s =
-            packs[k].retired_at[0] ? "retired" : health_status_name(views[nv - 1].health.status);
-        if (status && strcmp(s, status) != 0)
-            pack_view_release(&views[--nv]);
-    }
+    rc = packview_load_fleet(st, &rules, all, status, &views, &nv, err);
+    if (rc != PB_OK)
+        goto cleanup;
     qsort(views, nv, sizeof *views, compare_views);
     if (predict) {
         safe = malloc(2 * (nv ? nv : 1) * sizeof *safe);
@@ -193,11 +175,8 @@ enum pb_code cmd_fleet(int argc, char **argv, struct app *app, struct pb_error *
     else
         rc = cmd_finish_stdout(err);
 cleanup:
-    for (size_t k = 0; k < nv; k++)
-        pack_view_release(&views[k]);
-    free(views);
+    packview_free_all(views, nv);
     free(safe);
-    store_packs_free(packs);
     store_close(st);
     return rc;
 }

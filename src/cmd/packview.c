@@ -87,6 +87,52 @@ static void to_health(const struct flight_rec *f, size_t n, struct health_flight
     }
 }
 
+enum pb_code packview_load_fleet(struct store *st, const struct health_rules *rules, int all,
+                                 const char *status, struct pack_view **views, size_t *nv,
+                                 struct pb_error *err)
+{
+    struct pack_rec *packs = NULL;
+    size_t np = 0;
+    *views = NULL;
+    *nv = 0;
+    enum pb_code rc = store_pack_list(st, &packs, &np, err);
+    if (rc != PB_OK)
+        return rc;
+    struct pack_view *v = calloc(np ? np : 1, sizeof *v);
+    size_t n = 0;
+    if (!v)
+        rc = pb_error_set(err, PB_ENOMEM, "out of memory");
+    for (size_t k = 0; rc == PB_OK && k < np; k++) {
+        if (packs[k].retired_at[0] && !all)
+            continue;
+        rc = packview_load(st, &packs[k], rules, TREND_WEEK, 0, 1000.0, &v[n], err);
+        if (rc != PB_OK)
+            break;
+        const char *s = packs[k].retired_at[0] ? "retired" : health_status_name(v[n].health.status);
+        if (status && strcmp(s, status) != 0)
+            pack_view_release(&v[n]);
+        else
+            n++;
+    }
+    store_packs_free(packs);
+    if (rc != PB_OK) {
+        packview_free_all(v, n);
+        return rc;
+    }
+    *views = v;
+    *nv = n;
+    return PB_OK;
+}
+
+void packview_free_all(struct pack_view *views, size_t n)
+{
+    if (!views)
+        return;
+    for (size_t k = 0; k < n; k++)
+        pack_view_release(&views[k]);
+    free(views);
+}
+
 enum pb_code packview_load(struct store *st, const struct pack_rec *p,
                            const struct health_rules *rules, enum trend_by by, int plain,
                            double horizon, struct pack_view *v, struct pb_error *err)
@@ -97,14 +143,18 @@ enum pb_code packview_load(struct store *st, const struct pack_rec *p,
     if (rc != PB_OK)
         return rc;
     struct health_flight *h = malloc((v->nflights ? v->nflights : 1) * sizeof *h);
-    if (!h)
+    if (!h) {
+        pack_view_release(v); /* a failed load leaves nothing to free */
         return pb_error_set(err, PB_ENOMEM, "out of memory");
+    }
     to_health(v->flights, v->nflights, h);
     health_assess(h, v->nflights, p->cells, p->capacity_mah, rules, &v->health);
     int trc = health_trend(h, v->nflights, p->cells, p->capacity_mah, rules, by, plain, horizon,
                            &v->trend);
     free(h);
-    if (trc != 0)
+    if (trc != 0) {
+        pack_view_release(v);
         return pb_error_set(err, PB_ENOMEM, "out of memory");
+    }
     return PB_OK;
 }

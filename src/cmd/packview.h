@@ -34,10 +34,21 @@ int trendopts_fit(const char *arg, int *plain, struct pb_error *err);
 enum pb_code packview_open_store(const char *db, int create, struct store **out,
                                  struct pb_error *err);
 
-/* Fills v for pack p: flights, health, trend. */
+/* Fills v for pack p: flights, health, trend. On failure v holds nothing to release. */
 enum pb_code packview_load(struct store *st, const struct pack_rec *p,
                            const struct health_rules *rules, enum trend_by by, int plain,
                            double horizon, struct pack_view *v, struct pb_error *err);
+
+/* Views of every pack in service (all: retired ones too), in the store's
+ * order, assessed with rules (weekly buckets, robust fits); status, when
+ * not NULL, keeps only the packs with that status (ok, watch, retire or
+ * retired). The caller frees *views with packview_free_all. */
+enum pb_code packview_load_fleet(struct store *st, const struct health_rules *rules, int all,
+                                 const char *status, struct pack_view **views, size_t *nv,
+                                 struct pb_error *err);
+
+/* Releases n views and frees the array; NULL is a no-op. */
+void packview_free_all(struct pack_view *views, size_t n);
 
 /* Conservative and median safe time of a pack from its history at the
  * history's cruise power (or power_w when finite), default limits. */

@@ -274,49 +274,28 @@ static enum pb_code plot_log(struct plot_cli *cli, const char *path, struct pb_e
 static enum pb_code plot_history(const struct plot_cli *cli, const char *id, struct pb_error *err)
 {
     struct store *st = NULL;
-    struct pack_rec *packs = NULL;
     struct pack_view *views = NULL;
-    size_t np = 0, nv = 0;
+    size_t nv = 0;
     enum pb_code rc = packview_open_store(cli->db, 1, &st, err);
     if (rc != PB_OK)
         return rc;
     if (cli->kind == KIND_TREND) {
         struct pack_rec p;
-        views = calloc(1, sizeof *views);
-        if (!views)
-            rc = pb_error_set(err, PB_ENOMEM, "out of memory");
+        struct pack_view v;
+        rc = store_pack_get(st, id, &p, err);
         if (rc == PB_OK)
-            rc = store_pack_get(st, id, &p, err);
-        if (rc == PB_OK)
-            rc = packview_load(st, &p, &cli->rules, cli->by, cli->plain, cli->horizon, views, err);
+            rc = packview_load(st, &p, &cli->rules, cli->by, cli->plain, cli->horizon, &v, err);
         if (rc == PB_OK) {
-            nv = 1;
-            rc = plot_trend(cli->out, &cli->fig, views, &cli->rules, cli->by_date, err);
+            rc = plot_trend(cli->out, &cli->fig, &v, &cli->rules, cli->by_date, err);
+            pack_view_release(&v);
         }
-        goto cleanup;
+        store_close(st);
+        return rc;
     }
-    rc = store_pack_list(st, &packs, &np, err);
-    if (rc != PB_OK)
-        goto cleanup;
-    views = calloc(np ? np : 1, sizeof *views);
-    if (!views) {
-        rc = pb_error_set(err, PB_ENOMEM, "out of memory");
-        goto cleanup;
-    }
-    for (size_t k = 0; k < np; k++) {
-        if (packs[k].retired_at[0] && !cli->all)
-            continue;
-        rc = packview_load(st, &packs[k], &cli->rules, TREND_WEEK, 0, 1000.0, &views[nv], err);
-        if (rc != PB_OK)
-            goto cleanup;
-        nv++;
-    }
-    rc = plot_fleet(cli->out, &cli->fig, views, nv, &cli->rules, err);
-cleanup:
-    for (size_t k = 0; k < nv; k++)
-        pack_view_release(&views[k]);
-    free(views);
-    store_packs_free(packs);
+    rc = packview_load_fleet(st, &cli->rules, cli->all, NULL, &views, &nv, err);
+    if (rc == PB_OK)
+        rc = plot_fleet(cli->out, &cli->fig, views, nv, &cli->rules, err);
+    packview_free_all(views, nv);
     store_close(st);
     return rc;
 }

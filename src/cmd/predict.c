@@ -144,7 +144,8 @@ static enum pb_code inputs_from_history(const struct pack_view *v, struct predic
     memset(in, 0, sizeof *in);
     in->chem = ocv_chem_by_name(v->pack.chemistry);
     if (!in->chem)
-        return pb_error_set(err, PB_ESTORE, "pack '%s' has an unknown chemistry '%s' in the database",
+        return pb_error_set(err, PB_ESTORE,
+                            "pack '%s' has an unknown chemistry '%s' in the database",
                             v->pack.label, v->pack.chemistry);
     in->cells = v->pack.cells;
     in->rated_mah = v->pack.capacity_mah;
