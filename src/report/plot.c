@@ -154,6 +154,9 @@ enum pb_code plot_finish(struct plot *p, struct pb_error *err)
     return PB_OK;
 }
 
+static int plot_axes_json(const char *path, const struct plot *p, const struct plot_panel *pa,
+                          size_t n);
+
 enum pb_code plot_finish_map(struct plot *p, const char *map_path, const struct plot_panel *pa,
                              size_t n, struct pb_error *err)
 {
@@ -216,10 +219,6 @@ void plot_free(struct plot *p)
     }
 }
 
-double plot_width(const struct plot *p)
-{
-    return p->w;
-}
 double plot_height(const struct plot *p)
 {
     return p->h;
@@ -341,7 +340,7 @@ static void text_halo(struct plot *p, double fx, double fy, int anchor, double s
 
 /* ---- axes ---------------------------------------------------------------- */
 
-void plot_tick_text(const struct plot_axis *ax, double x, char *buf, size_t cap)
+static void plot_tick_text(const struct plot_axis *ax, double x, char *buf, size_t cap)
 {
     if (ax->dates) {
         time_t t = (time_t)llround(ax->date_base_s + x * 86400.0);
@@ -355,7 +354,7 @@ void plot_tick_text(const struct plot_axis *ax, double x, char *buf, size_t cap)
     snprintf(buf, cap, "%.*f", ax->ticks.decimals, x);
 }
 
-double plot_axis_label_width(struct plot *p, const struct plot_axis *ax)
+static double plot_axis_label_width(struct plot *p, const struct plot_axis *ax)
 {
     double widest = 0.0;
     char buf[48];
@@ -469,7 +468,7 @@ double plot_py(const struct plot_panel *pa, double y)
 {
     return map_y(pa, &pa->y, y);
 }
-double plot_py2(const struct plot_panel *pa, double y)
+static double plot_py2(const struct plot_panel *pa, double y)
 {
     return map_y(pa, &pa->y2, y);
 }
@@ -764,8 +763,8 @@ void plot_vline(struct plot *p, const struct plot_panel *pa, double x, const str
     }
 }
 
-void plot_marker_at(struct plot *p, double fx, double fy, enum plot_mark m, int filled,
-                    const struct plot_style *st)
+static void plot_marker_at(struct plot *p, double fx, double fy, enum plot_mark m, int filled,
+                           const struct plot_style *st)
 {
     cairo_t *cr = p->cr;
     double r = p->font * 0.32 * (st->width > 0 ? st->width : 1.0);
@@ -985,7 +984,9 @@ static json_t *axis_json(const struct plot_axis *ax)
                      ax->ticks.count, "label", ax->label, "dates", ax->dates);
 }
 
-int plot_axes_json(const char *path, const struct plot *p, const struct plot_panel *pa, size_t n)
+/* The axes map (see plot_finish_map) as JSON at path: 0, or -1. */
+static int plot_axes_json(const char *path, const struct plot *p, const struct plot_panel *pa,
+                          size_t n)
 {
     static const char *const names[] = {"png", "svg", "pdf"};
     json_t *root = json_pack("{s:f, s:f, s:s, s:[]}", "width", p->w, "height", p->h, "format",

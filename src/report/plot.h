@@ -77,7 +77,8 @@ struct plot *plot_new(const char *path, int w, int h, struct pb_error *err);
 /* Writes the figure and moves it to its name. Returns PB_OK or fills err. */
 enum pb_code plot_finish(struct plot *p, struct pb_error *err);
 
-/* plot_finish, with the axes map of the n panels written to map_path too
+/* plot_finish, with the axes map of the n panels (their rectangles, axis
+ * ranges and ticks, legend boxes; JSON) written to map_path too
  * (NULL: none). The map is written first under a temporary name and moved
  * into place only once the figure is: a failure of either leaves neither
  * (an older figure and map stay as they were). */
@@ -87,7 +88,6 @@ enum pb_code plot_finish_map(struct plot *p, const char *map_path, const struct 
 /* Frees p, removing the temporary file when not finished; NULL is a no-op. */
 void plot_free(struct plot *p);
 
-double plot_width(const struct plot *p);
 double plot_height(const struct plot *p);
 double plot_font(const struct plot *p); /* base font size */
 double plot_text_width(struct plot *p, const char *text, double size, int bold);
@@ -112,17 +112,9 @@ void plot_axis_fit_tight(struct plot *p, struct plot_axis *ax, double lo, double
 void plot_axis_align(struct plot *p, struct plot_axis *ax2, double lo, double hi,
                      const struct plot_axis *ref, double len_px);
 
-/* Width of the widest tick label of ax. */
-double plot_axis_label_width(struct plot *p, const struct plot_axis *ax);
-
-/* Tick label text for value x of ax. */
-void plot_tick_text(const struct plot_axis *ax, double x, char *buf, size_t cap);
-
 /* Data to figure coordinates. */
 double plot_px(const struct plot_panel *pa, double x);
 double plot_py(const struct plot_panel *pa, double y);
-double plot_py2(const struct plot_panel *pa, double y);
-
 /* Frame, grid, ticks, tick labels and axis titles of a panel. */
 void plot_panel_draw(struct plot *p, const struct plot_panel *pa);
 
@@ -153,10 +145,6 @@ void plot_vline(struct plot *p, const struct plot_panel *pa, double x, const str
 /* A marker at data (x, y); filled or hollow. */
 void plot_marker(struct plot *p, const struct plot_panel *pa, double x, double y, enum plot_mark m,
                  int filled, const struct plot_style *st);
-
-/* A marker at figure coordinates (for legends). */
-void plot_marker_at(struct plot *p, double fx, double fy, enum plot_mark m, int filled,
-                    const struct plot_style *st);
 
 /* Text at figure coordinates: anchor 0 left, 1 centre, 2 right; y is the
  * baseline. Returns the text's width. */
@@ -200,10 +188,5 @@ void plot_margins(struct plot *p, const struct plot_panel *pa, size_t n, double 
  * Returns the lines used. */
 int plot_text_wrap(struct plot *p, double fx, double fy, double width_px, double size,
                    int max_lines, uint32_t rgb, const char *text);
-
-/* Axes map as JSON (panel rectangles, ranges and legend boxes; the
- * legend's samples repeat the series' colours), for checking the
- * figure or placing annotations over it. Returns 0, or -1 on failure. */
-int plot_axes_json(const char *path, const struct plot *p, const struct plot_panel *pa, size_t n);
 
 #endif
