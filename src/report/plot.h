@@ -80,8 +80,8 @@ enum pb_code plot_finish(struct plot *p, struct pb_error *err);
 /* plot_finish, with the axes map of the n panels (their rectangles, axis
  * ranges and ticks, legend boxes; JSON) written to map_path too
  * (NULL: none). The map is written first under a temporary name and moved
- * into place only once the figure is: a failure of either leaves neither
- * (an older figure and map stay as they were). */
+ * into place only once the figure is: a map that cannot be written leaves
+ * no figure, and a figure that fails leaves no map (older ones stay). */
 enum pb_code plot_finish_map(struct plot *p, const char *map_path, const struct plot_panel *pa,
                              size_t n, struct pb_error *err);
 

@@ -233,8 +233,8 @@ enum pb_code plot_flight(const char *path, const struct plot_opts *o, const stru
     analyze_rows(s, a, rated_mah, collect, &c);
 
     double fs = plot_font(p);
-    /* minutes read better than seconds beyond a few minutes */
-    double x_div = a->duration_s > 180.0 ? 60.0 : 1.0;
+    /* minutes read better than seconds beyond a few minutes, hours beyond a few hours */
+    double x_div = a->duration_s > 3 * 3600.0 ? 3600.0 : a->duration_s > 180.0 ? 60.0 : 1.0;
     double floor_pack = a->cells > 0 ? a->floor_v * a->cells : NAN;
     int has_ocv = 0, has_soc_cc = 0, has_soc_ocv = 0;
     for (size_t k = 0; k < s->n; k++) {
@@ -387,7 +387,9 @@ enum pb_code plot_flight(const char *path, const struct plot_opts *o, const stru
     right = w - right;
     struct plot_axis xa = {0};
     snprintf(xa.label, sizeof xa.label,
-             x_div > 1 ? "time since first sample (min)" : "time since first sample (s)");
+             x_div > 60  ? "time since first sample (h)"
+             : x_div > 1 ? "time since first sample (min)"
+                         : "time since first sample (s)");
     plot_axis_fit_tight(p, &xa, tlo, thi, right - left, 0);
     for (int j = 0; j < np; j++) {
         pa[j].x0 = left;

@@ -168,6 +168,24 @@ def fmt_rows(rows):
     return [f"{t:.3f},{v:.4f},{i:.3f}" for t, v, i in rows]
 
 
+def time_unit(duration_s):
+    """The flight figure's time unit (man packbook, plot LOG): minutes over 3 minutes, hours
+    over 3 hours, else seconds; returns (label ending, seconds per unit)."""
+    if duration_s > 3 * 3600:
+        return "(h)", 3600.0
+    if duration_s > 180:
+        return "(min)", 60.0
+    return "(s)", 1.0
+
+
+def seconds_per_unit(label):
+    """Seconds per unit of a flight figure's time axis, from its label's unit."""
+    for end, div in (("(h)", 3600.0), ("(min)", 60.0), ("(s)", 1.0)):
+        if label.endswith(end):
+            return div
+    raise AssertionError(f"time axis label without a unit: {label!r}")
+
+
 def axes_map(path):
     with open(path) as f:
         return json.load(f)
@@ -334,12 +352,11 @@ class FigureChecks:
 
     def check_time_and_voltage(self, amap, t, v):
         dur = t[-1] - t[0]
-        minutes = dur > 180
+        unit, div = time_unit(dur)
         for p in amap["panels"]:
             x = p["x"]
-            self.assertTrue(x["label"].endswith("(min)" if minutes else "(s)"),
+            self.assertTrue(x["label"].endswith(unit),
                             f"{p['name']}: x label {x['label']!r} for a {dur} s log")
-            div = 60.0 if minutes else 1.0
             eps = 1e-9 * max(1.0, dur / div)  # 12 significant digits in the map
             self.assertLessEqual(x["min"], 0 + eps, f"{p['name']}: x starts at the first sample")
             self.assertGreaterEqual(x["max"], dur / div - eps, f"{p['name']}: x reaches the end")
@@ -352,7 +369,7 @@ class FigureChecks:
         first sample), 3 px clear of both, the voltage panel has no trace (the line breaks)
         and has the grey hatch."""
         pan = panel(m, "voltage")
-        div = 60.0 if pan["x"]["label"].endswith("(min)") else 1.0
+        div = seconds_per_unit(pan["x"]["label"])
         xa, _ = to_px(pan, t_before / div, 0)
         xb, _ = to_px(pan, t_after / div, 0)
         r0, r1 = int(pan["top"]) + SLACK, int(pan["bottom"]) - SLACK
@@ -643,20 +660,24 @@ class EdgeCases(FigureChecks, unittest.TestCase):
             m, _ = self.render_png(log, "--cells", 4, panels=["voltage", "soc"])
             self.assertTrue(panel(m, "voltage")["x"]["label"].endswith("(min)"), "300 s: minutes")
 
-    def test_minutes_from_just_over_180_s(self):
-        # plot: minutes "when the log lasts over 180 s": 180 s exactly stays in seconds
+    def test_time_unit_boundaries(self):
+        # plot: minutes when the log lasts over 180 s (180 s exactly stays in seconds), hours
+        # over 3 hours (3 hours exactly stays in minutes)
         with tempfile.TemporaryDirectory() as d:
-            for dur, unit in ((180.0, "(s)"), (180.5, "(min)")):
+            for dur, unit in ((180.0, "(s)"), (180.5, "(min)"), (10800.0, "(min)"),
+                              (10801.0, "(h)")):
                 with self.subTest(duration=dur):
-                    rows = [f"{t:.2f},{16.4 - 0.003 * t:.4f},{10 + 10 * (int(t) // 20 % 2)}"
-                            for t in list(np.arange(0, dur, 0.5)) + [dur]]
+                    step = 0.5 if dur < 1000 else 10.0  # a long log, sparsely
+                    rows = [f"{t:.2f},{16.4 - 0.003 * t / max(1, dur / 180):.4f},"
+                            f"{10 + 10 * (int(t / step) // 40 % 2)}"
+                            for t in list(np.arange(0, dur, step)) + [dur]]
                     log = write_log(os.path.join(d, f"d{dur}.csv"), "time_s,voltage_v,current_a",
                                     rows, "invented: boundary of the time unit")
                     m, _ = self.render_png(log, "--cells", 4)
                     x = panel(m, "voltage")["x"]
                     self.assertTrue(x["label"].endswith(unit), x["label"])
-                    div = 60.0 if unit == "(min)" else 1.0
-                    self.assertGreaterEqual(x["max"], dur / div - 1e-9)
+                    self.assertEqual(time_unit(dur)[0], unit)
+                    self.assertGreaterEqual(x["max"], dur / time_unit(dur)[1] - 1e-9)
 
     def test_time_not_starting_at_zero(self):
         # the x axis is time since the first sample, whatever the log's clock says
@@ -701,7 +722,7 @@ class VoltageTrace(FigureChecks, unittest.TestCase):
             self.assertEqual(img.shape[:2], (m["height"], m["width"]))
             pan = panel(m, "voltage")
             self.check_time_and_voltage(m, t, v)
-            div = 60.0 if pan["x"]["label"].endswith("(min)") else 1.0
+            div = seconds_per_unit(pan["x"]["label"])
             x = (t - t[0]) / div
             loose = colour_mask(img, BLUE, NEAR)
             idx = np.unique(np.linspace(0, len(t) - 1, 240).round().astype(int))
