@@ -15,6 +15,10 @@
 
 enum { P_VOLT = 0, P_CURRENT, P_SOC, P_CELLS, P_MAX };
 
+/* Time under the floor is tinted, missing data hatched, in every panel. */
+static const struct plot_style tint = {PLOT_VERMILION, 1, DASH_SOLID, 0.16};
+static const struct plot_style hatch = {PLOT_GREY, 1, DASH_SOLID, 0};
+
 /* The per-sample series the panels draw. */
 struct flight_cols {
     size_t n, k;
@@ -83,8 +87,6 @@ static void spans_count(const struct series *s, const struct analysis *a, struct
 static void shade(struct plot *p, const struct plot_panel *pa, const struct series *s,
                   const struct analysis *a, double x_div)
 {
-    static const struct plot_style tint = {PLOT_VERMILION, 1, DASH_SOLID, 0.16};
-    static const struct plot_style hatch = {PLOT_GREY, 1, DASH_SOLID, 0};
     double floor_pack = a->cells > 0 ? a->floor_v * a->cells : -HUGE_VAL;
     for (size_t k = 0; k < s->n; k++) {
         if (!(s->v_v[k] < floor_pack))
@@ -265,8 +267,6 @@ enum pb_code plot_flight(const char *path, const struct plot_opts *o, const stru
     static const struct plot_style st_socv = {PLOT_SKY, 1.7, DASH_LONG, 0};
     static const struct plot_style st_cell = {PLOT_GREY, 0.8, DASH_SOLID, 0};
     static const struct plot_style st_weak = {PLOT_VERMILION, 1.8, DASH_SOLID, 0};
-    static const struct plot_style tint = {PLOT_VERMILION, 1, DASH_SOLID, 0.16};
-    static const struct plot_style hatch = {PLOT_GREY, 1, DASH_SOLID, 0};
     char floor_key[64], weak_key[48];
     double vlo = HUGE_VAL, vhi = -HUGE_VAL;
     range_of(s->v_v, s->n, &vlo, &vhi);
