@@ -13,6 +13,10 @@ HERE = os.path.dirname(os.path.abspath(__file__))
 ROOT = os.path.normpath(os.path.join(HERE, "..", ".."))
 DATA = os.path.join(ROOT, "tests", "data")
 PACKBOOK = os.environ.get("PACKBOOK") or os.path.join(ROOT, "build", "packbook")
+if os.sep in PACKBOOK:
+    PACKBOOK = os.path.abspath(PACKBOOK)  # tests that change directory still find it
+PY = "/usr/bin/python3"  # Debian's, with numpy (the simulator needs it)
+PBSIM = os.path.join(ROOT, "scripts", "pbsim.py")  # the flight simulator with known truth
 
 
 def run(*args, stdin=None, timeout=120):

@@ -20,7 +20,7 @@ import unittest
 sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
 import pbtest  # noqa: E402
 
-PBSIM = os.path.join(pbtest.ROOT, "scripts", "pbsim.py")
+PBSIM = pbtest.PBSIM
 
 
 def make(tmp, duration, *extra):

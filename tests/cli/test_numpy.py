@@ -24,7 +24,7 @@ import numpy as np
 sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
 import pbtest  # noqa: E402
 
-PBSIM = os.path.join(pbtest.ROOT, "scripts", "pbsim.py")
+PBSIM = pbtest.PBSIM
 T975 = 1.9604  # Student t, 0.975 quantile, dof > 5000 (tables; differs from 1.95996 z by 0.02 %)
 
 

@@ -22,7 +22,7 @@ from scipy.integrate import solve_ivp
 sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
 import pbtest  # noqa: E402
 
-PBSIM = os.path.join(pbtest.ROOT, "scripts", "pbsim.py")
+PBSIM = pbtest.PBSIM
 
 
 def table(chem):

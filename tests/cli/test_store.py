@@ -51,11 +51,7 @@ sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
 import pbtest  # noqa: E402
 from pbtest import ROOT, analyze_json, run, write_temp  # noqa: E402
 
-if os.sep in pbtest.PACKBOOK:
-    pbtest.PACKBOOK = os.path.abspath(pbtest.PACKBOOK)
-PACKBOOK = pbtest.PACKBOOK
-PY = "/usr/bin/python3"  # Debian's, with numpy (pbsim needs it)
-PBSIM = os.path.join(ROOT, "scripts", "pbsim.py")
+PACKBOOK, PY, PBSIM = pbtest.PACKBOOK, pbtest.PY, pbtest.PBSIM
 STORE_C = os.path.join(ROOT, "src", "store", "store_sqlite.c")
 SEED = int(os.environ.get("PB_SEED", "20260302"))
 JOBS = max(2, os.cpu_count() or 2)
