@@ -13,10 +13,12 @@
  * each segment's first sample, increasing, seg_start[0] == 0; nseg == 0 (a
  * series built by hand, seg_start NULL) means one segment. The interval
  * that ends at seg_start[j], j >= 1, is a joint of UNKNOWN length: its t_s
- * step is a placeholder (the step before it), so code that does not know
- * about segments sees an ordinary step, but charge counting and the fits
- * must not bridge it (coulomb_count_segments, series_is_joint). Within a
- * segment the logged times are kept as they were, shifted. */
+ * step is a placeholder, a thousandth of the step before it, so code that
+ * does not know about segments bridges next to nothing across it and the
+ * duration is about the sum of the segments; charge counting and the fits
+ * should still not bridge it (coulomb_count_segments, series_is_joint), nor
+ * take it as a time scale. Within a segment the logged times are kept as
+ * they were, shifted. */
 #ifndef PB_SERIES_H
 #define PB_SERIES_H
 

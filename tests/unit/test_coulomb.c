@@ -80,9 +80,9 @@ static void test_gaps(void **state)
 static void test_segments_not_bridged(void **state)
 {
     (void)state;
-    /* two segments of a restarted clock: 2 A for 2 s, then 4 A for 1 s; the joint
-     * (index 3, placeholder step 1 s at 30 A -> 2 A) holds no counted charge and
-     * is not a gap: 4 + 4 A s = 8 A s (mathematics) */
+    /* two segments of a restarted clock, 1 s steps: 2, 2, 30 A (2 + 16 A s), then
+     * 4, 4 A (4 A s); the joint from 30 A to 4 A (index 3, a placeholder step) is
+     * neither counted nor a gap: 22 A s in all (mathematics) */
     double t[] = {0, 1, 2, 3, 4}, v[] = {10, 10, 10, 10, 10}, i[] = {2, 2, 30, 4, 4};
     size_t seg[] = {0, 3};
     struct coulomb_result r;
