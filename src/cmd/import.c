@@ -28,15 +28,19 @@ static const char usage_head[] =
     "  --date DATE            date for logs without absolute time (ISO 8601)\n"
     "  --db PATH              history database (default: $PACKBOOK_DB, else\n"
     "                         $XDG_DATA_HOME/packbook/packbook.db)\n"
-    "  --quiet                no line per log, only the summary\n";
+    "  --quiet                no line per log, only the summary\n"
+    "  --force                store a log that cannot be one flight (over a day\n"
+    "                         long, or over twice the rated charge drawn): it is\n"
+    "                         refused otherwise; the warning is kept either way\n";
 
-enum { I_PACK = 256, I_DATE, I_DB, I_QUIET };
+enum { I_PACK = 256, I_DATE, I_DB, I_QUIET, I_FORCE };
 
 static const struct option longopts[] = {
     {"pack", required_argument, NULL, I_PACK},
     {"date", required_argument, NULL, I_DATE},
     {"db", required_argument, NULL, I_DB},
     {"quiet", no_argument, NULL, I_QUIET},
+    {"force", no_argument, NULL, I_FORCE},
     {"help", no_argument, NULL, 'h'},
     LOGOPTS_LONG,
     {NULL, 0, NULL, 0},
@@ -45,7 +49,7 @@ static const struct option longopts[] = {
 struct import_cli {
     struct log_cli log;
     const char *pack, *db;
-    int have_date, quiet;
+    int have_date, quiet, force;
     double date_epoch_s;
 };
 
@@ -177,6 +181,7 @@ static enum outcome import_one(struct store *st, const struct pack_rec *pack,
     }
     lc.an.chemistry = (int)chem->id;
     lc.an.capacity_mah = pack->capacity_mah;
+    lc.refuse_implausible = !cli->force; /* nothing impossible reaches the store */
     int is_stdin = strcmp(path, "-") == 0;
     const char *name = is_stdin ? "(stdin)" : path;
     if (logopts_analyze(path, &lc, &stats, &a, NULL, err) != PB_OK)
@@ -278,6 +283,9 @@ enum pb_code cmd_import(int argc, char **argv, struct app *app, struct pb_error 
             break;
         case I_QUIET:
             cli.quiet = 1;
+            break;
+        case I_FORCE:
+            cli.force = 1;
             break;
         case I_DATE:
             if (isotime_parse(optarg, strlen(optarg), &cli.date_epoch_s, NULL) != 0)

@@ -215,6 +215,16 @@ enum pb_code logopts_analyze(const char *path, const struct log_cli *cli,
     if (rc != PB_OK)
         goto cleanup;
     logread_warnings(stats, name, add_warning, a);
+    struct plausible pl;
+    plausible_log(s, stats, name, cli->an.capacity_mah, &pl);
+    for (size_t k = 0; k < pl.n; k++) {
+        if (pl.f[k].impossible && cli->refuse_implausible) {
+            rc = pb_error_set(err, PB_EINPUT, "%s: refused (--force takes it anyway)",
+                              pl.f[k].message);
+            goto cleanup;
+        }
+        add_warning(a, pl.f[k].code, pl.f[k].message);
+    }
     *out = a;
     a = NULL;
     if (series_out) {

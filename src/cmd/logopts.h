@@ -8,6 +8,7 @@
 
 #include "../core/analyze.h"
 #include "../core/logread.h"
+#include "../core/plausible.h"
 #include "cmd.h"
 
 enum {
@@ -65,6 +66,7 @@ extern const char logopts_usage[];
 struct log_cli {
     struct logread_opts read;
     struct analyze_opts an;
+    int refuse_implausible; /* a log no flight can be (plausible.h) fails, naming why */
     int adc_bits;
     double adc_vref, sense_ratio, sense_ohm;
 };
@@ -78,7 +80,9 @@ int logopts_take(int c, const char *arg, struct log_cli *cli, struct pb_error *e
 /* Checks the options together (the sense chain) once all are parsed. */
 enum pb_code logopts_finish(struct log_cli *cli, struct pb_error *err);
 
-/* Reads and analyses one log ("-" is stdin). On success *stats is filled
+/* Reads and analyses one log ("-" is stdin), then checks it as a whole
+ * (plausible.h): findings become warnings, and with refuse_implausible a
+ * log that cannot be one flight fails with PB_EINPUT. On success *stats is filled
  * and *out is an analysis owned by the caller (analysis_free); so is the
  * series in *series_out when that is not NULL (series_free). */
 enum pb_code logopts_analyze(const char *path, const struct log_cli *cli,

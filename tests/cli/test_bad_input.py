@@ -522,6 +522,67 @@ class BadInput(unittest.TestCase):
                                 "1 usable sample of 1 records", "at least 2")
         self.assertNotIn("line 0", msg, "there is no line 0")
 
+    # -- whole-log plausibility (issue 10 item 4) --
+
+    def ms_log(self, n):
+        """The base flight's current steps with its time column in ms but no unit in the
+        name, and a voltage that falls slowly enough to stay a 4S pack's for n samples."""
+        cols = [("t", lambda k, t, v, i: f"{100 * k}"),
+                ("voltage_v", lambda k, t, v, i: f"{16.6 - 0.0002 * k - 0.012 * i:.4f}"), STD[2]]
+        return self.temp(make_log(cols, n=n))
+
+    def test_ms_time_without_unit_days_and_charge(self):
+        # 6600 samples 100 "s" apart: 183 h and, at 5-30 A, far beyond a 5000 mAh pack.
+        # analyze warns with the likely fix; the same log with --map time_ms=1 is 11 min
+        path = self.ms_log(6600)
+        doc = analyze_ok(path, "--capacity", "5000")
+        days = self.warning(doc, "log_of_days")
+        self.assertIn("183.3 h", days)
+        self.assertIn("--map time_ms=1", days)
+        self.assertIn("--map time_ms=1", self.warning(doc, "charge_beyond_rated"))
+        fixed = analyze_ok(path, "--capacity", "5000", "--map", "time_ms=1")
+        self.assertAlmostEqual(fixed["duration_s"], 659.9, delta=1e-6)
+        for code in ("log_of_days", "charge_beyond_rated", "time_maybe_ms"):
+            self.assertNotIn(code, warning_codes(fixed))
+
+    def test_ms_time_without_unit_short_log(self):
+        # 400 samples: 11.1 h read as seconds, under a day, no rating given: a warning only
+        doc = analyze_ok(self.ms_log(400))
+        msg = self.warning(doc, "time_maybe_ms")
+        self.assertIn("--map time_ms=1", msg)
+        self.assertNotIn("log_of_days", warning_codes(doc))
+
+    def test_base_log_is_plausible(self):
+        doc = analyze_ok(self.temp(make_log()), "--capacity", "5000")
+        for code in ("log_of_days", "charge_beyond_rated", "time_maybe_ms"):
+            self.assertNotIn(code, warning_codes(doc))
+
+    def test_import_refuses_an_impossible_log_unless_forced(self):
+        # nothing impossible reaches the store: refused with the reason (exit 1, the batch's
+        # failure status), stored with --force, its warnings kept
+        path = self.ms_log(6600)
+        db = os.path.join(pbtest.temp_dir("pb-plaus-"), "p.db")
+        rc, out, err = pb("pack", "add", "P1", "--cells", "4", "--chemistry", "lipo",
+                          "--capacity", "5000", "--db", db)
+        self.assertEqual(rc, 0, err)
+        rc, out, err = pb("import", "--pack", "P1", "--db", db, "--date", "2026-01-01", path)
+        self.assertEqual(rc, 1, err)
+        self.assertIn("0 imported", out)
+        self.assertIn(f"not imported: {path} spans 183.3 h", err)
+        self.assertIn("--force", err)
+        rc, out, err = pb("import", "--pack", "P1", "--db", db, "--date", "2026-01-01", "--force",
+                          path)
+        self.assertEqual(rc, 0, err)
+        self.assertIn("1 imported", out)
+        import sqlite3  # the schema is documented (man packbook, DATABASE SCHEMA)
+        con = sqlite3.connect(db)
+        try:
+            (report,) = con.execute("SELECT report_json FROM flights").fetchone()
+        finally:
+            con.close()
+        self.assertIn("log_of_days", warning_codes(json.loads(report)),
+                      "the stored report keeps the warning")
+
     def test_iso8601_timestamps(self):
         cols = [("timestamp", lambda k, t, v, i: f"2024-05-01T10:00:{t:06.3f}Z"), STD[1], STD[2]]
         path = self.temp(make_log(cols))
