@@ -807,8 +807,8 @@ static void order_times(struct reader *r)
 }
 
 /* Drops a voltage that leaves both its neighbours (in its segment) by more
- * than LOGREAD_SPIKE_FRACTION for one sample while the current stays with at
- * least one of them: no cell does that, a sensor or a logger does. */
+ * than LOGREAD_SPIKE_FRACTION for one sample while the current holds steady
+ * across all three: no cell does that, a sensor or a logger does. */
 static void drop_spikes(struct reader *r)
 {
     struct series *s = r->s;
@@ -836,8 +836,10 @@ static void drop_spikes(struct reader *r)
             int spike =
                 v < lo * (1.0 - LOGREAD_SPIKE_FRACTION) || v > hi * (1.0 + LOGREAD_SPIKE_FRACTION);
             if (spike && s->i_a) {
+                /* a current that moves on either side explains the voltage (a load
+                 * switched off right after the cut-off sample, say) */
                 double i = s->i_a[k];
-                spike = fabs(i - s->i_a[w - 1]) <= tol_a || fabs(i - s->i_a[k + 1]) <= tol_a;
+                spike = fabs(i - s->i_a[w - 1]) <= tol_a && fabs(i - s->i_a[k + 1]) <= tol_a;
             }
             if (spike) {
                 count_event(&r->st->glitch_spike, s->line[k], vcol);
@@ -976,8 +978,8 @@ void logread_warnings(const struct logread_stats *st, const char *name,
          "sample(s) dropped: a current no pack delivers (a logger's sentinel, or over 200 C of "
          "the rated capacity)"},
         {&st->glitch_spike, "dropped_voltage_spike",
-         "sample(s) dropped: the voltage left both neighbours by over 20 % for one sample while "
-         "the current did not (a sensor glitch, not a floor crossing)"},
+         "sample(s) dropped: the voltage left both neighbours by over 20 % for one sample at a "
+         "steady current (a sensor glitch, not a floor crossing)"},
         {&st->stray_time, "dropped_stray_time", "sample(s) dropped: a lone row out of time order"},
     };
     char msg[320];

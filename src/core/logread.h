@@ -10,7 +10,8 @@
  * count when it is known), |current| above LOGREAD_MAX_CURRENT_A, or above
  * LOGREAD_MAX_C_RATE times the rated capacity when that is known, and a
  * voltage that leaves both neighbours by more than a fifth for one sample
- * while the current does not move with it (a spike: never a floor crossing).
+ * while the current holds steady across the three (a spike: never a floor
+ * crossing; a current step on either side explains the voltage).
  *
  * Time order: a lone row behind (or ahead of) its neighbours is a stray,
  * dropped and counted; a restart (time jumps back and goes on) starts a new

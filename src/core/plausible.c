@@ -3,7 +3,6 @@
 #include <math.h>
 #include <stdarg.h>
 #include <stdio.h>
-#include <stdlib.h>
 #include <string.h>
 
 #include "coulomb.h"
@@ -25,26 +24,14 @@ static void add(struct plausible *p, const char *code, int impossible, const cha
     va_end(ap);
 }
 
-static int cmp_double(const void *a, const void *b)
+/* Steps of at least min_step: more than half of them means the median step
+ * is that long (counted, so nothing is held beside the series). */
+static int most_steps_at_least(const struct series *s, double min_step)
 {
-    double x = *(const double *)a, y = *(const double *)b;
-    return (x > y) - (x < y);
-}
-
-/* Median step of the logged times (NAN when it cannot be had). */
-static double median_step(const struct series *s)
-{
-    if (s->n < 2)
-        return NAN;
-    double *d = malloc((s->n - 1) * sizeof *d);
-    if (!d)
-        return NAN;
+    size_t long_steps = 0;
     for (size_t k = 1; k < s->n; k++)
-        d[k - 1] = s->t_s[k] - s->t_s[k - 1];
-    qsort(d, s->n - 1, sizeof *d, cmp_double);
-    double m = d[(s->n - 1) / 2];
-    free(d);
-    return m;
+        long_steps += s->t_s[k] - s->t_s[k - 1] >= min_step;
+    return 2 * long_steps > s->n - 1;
 }
 
 /* Relative numbers, with no unit given, that step by whole numbers of 10 or
@@ -60,7 +47,7 @@ static int looks_like_ms(const struct series *s, const struct logread_stats *st)
     for (size_t k = 0; k < s->n; k++)
         if (s->t_s[k] != floor(s->t_s[k]))
             return 0;
-    return median_step(s) >= PLAUSIBLE_MS_MIN_STEP;
+    return most_steps_at_least(s, PLAUSIBLE_MS_MIN_STEP);
 }
 
 void plausible_log(const struct series *s, const struct logread_stats *st, const char *name,
@@ -93,7 +80,7 @@ void plausible_log(const struct series *s, const struct logread_stats *st, const
     }
     if (ms && !out->impossible)
         add(out, "time_maybe_ms", 0,
-            "the time column (%d) has no unit and steps by whole numbers (median %.0f) over "
-            "%.1f h: if it counts milliseconds, give --map time_ms=%d",
-            st->time_column, median_step(s), span_s / 3600.0, st->time_column);
+            "the time column (%d) has no unit and steps by whole numbers, mostly %.0f or more, "
+            "over %.1f h: if it counts milliseconds, give --map time_ms=%d",
+            st->time_column, PLAUSIBLE_MS_MIN_STEP, span_s / 3600.0, st->time_column);
 }

@@ -16,7 +16,7 @@
 
 #define PLAUSIBLE_MAX_FLIGHT_S (24.0 * 3600.0) /* no multirotor flies a day on one charge */
 #define PLAUSIBLE_MAX_CHARGE_RATIO 2.0         /* discharged / rated: far beyond any flight */
-#define PLAUSIBLE_MS_MIN_STEP 10.0             /* a median step of 10+ "s" in whole numbers... */
+#define PLAUSIBLE_MS_MIN_STEP 10.0             /* most steps 10+ "s", in whole numbers... */
 #define PLAUSIBLE_MS_MIN_SPAN_S 3600.0         /* ...over an hour or more: likely ms */
 #define PLAUSIBLE_MAX_FINDINGS 4
 

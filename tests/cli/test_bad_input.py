@@ -489,13 +489,24 @@ class BadInput(unittest.TestCase):
         self.assertEqual(doc["time_below_floor_s"], 0.0)
 
     def test_one_sample_voltage_dip_is_not_a_floor_crossing(self):
-        # 9 V (2.25 V/cell) for one sample at a steady current: a glitch, not a crossing
+        # 9 V (2.25 V/cell) for one sample inside a steady 8 A step (samples 80-99): a
+        # glitch, not a crossing
+        ls = lines_of(make_log())
+        ls[85] = self.set_field(ls[85], 1, 2, "9.0000")
+        path = self.temp("".join(ls))
+        doc = analyze_ok(path, "--cells", "4")
+        self.assert_counted(doc, "dropped_voltage_spike", 1, path, 86, 2)
+        self.assertNotIn("below_floor", warning_codes(doc))
+
+    def test_voltage_at_a_current_step_is_kept(self):
+        # the same 9 V on the first sample of the 8 A step (line 82, after 25 A): the
+        # current moved, so the reader cannot call it a glitch and keeps it
         ls = lines_of(make_log())
         ls[81] = self.set_field(ls[81], 1, 2, "9.0000")
         path = self.temp("".join(ls))
         doc = analyze_ok(path, "--cells", "4")
-        self.assert_counted(doc, "dropped_voltage_spike", 1, path, 82, 2)
-        self.assertNotIn("below_floor", warning_codes(doc))
+        self.assertNotIn("dropped_voltage_spike", warning_codes(doc))
+        self.assertEqual(doc["samples"], N)
 
     def test_duplicate_timestamps_dropped(self):
         ls = lines_of(make_log())

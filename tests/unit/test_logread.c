@@ -228,19 +228,23 @@ static void test_voltage_spike_is_not_a_crossing(void **state)
 {
     (void)state;
     /* line 4: 3 V between 16.4 and 16.3 V at a steady 10 A: dropped; line 7:
-     * 12.5 V with the current at 90 A for that sample: a real sag, kept */
+     * 12.5 V with the current at 90 A for that sample: a real sag, kept; line
+     * 9: 12.0 V at 10 A, then the load goes off (0 A) and the voltage is back:
+     * kept, as at the cut-off of NASA PCoE B0007 cycle 14 (2.24, 1.79 V at 2 A,
+     * then 2.75 V at rest) */
     const char *text = "time_s,voltage_v,current_a\n"
                        "0,16.5,10\n1,16.4,10\n"
                        "2,3.0,10\n"
                        "3,16.3,10\n4,16.3,10\n"
                        "5,12.5,90\n"
-                       "6,16.2,10\n7,16.2,10\n";
+                       "6,16.2,10\n7,16.2,10\n"
+                       "8,12.0,10\n9,16.4,0\n";
     struct logread_opts o = {0};
     struct logread_stats st;
     struct pb_error err = {0};
     struct series *s = read_text(text, &o, &st, &err);
     assert_non_null(s);
-    assert_int_equal(s->n, 7);
+    assert_int_equal(s->n, 9);
     assert_int_equal(st.glitch_spike.count, 1);
     assert_int_equal(st.glitch_spike.first_line, 4);
     assert_int_equal(st.glitch_spike.first_column, 2);
