@@ -27,6 +27,7 @@ import gzip
 import json
 import math
 import os
+import re
 import statistics
 import sys
 
@@ -173,8 +174,11 @@ def nasa_cycle_facts(t, v, i, cutoff_v, ref_ah):
         if k == k1:
             p1 = p0 + f * (p1 - p0)
         e_ws += dt * 0.5 * (p0 + p1)
-    return {"q_cut_ah": q[k_cut], "q_all_ah": q[-1], "t70_s": t70 - t[k0],
-            "p70_w": e_ws / (t70 - t[k0])}
+    # the load came on somewhere between samples k0 and k0 + 1; the trapezoid counts that
+    # interval as a step at its middle, so the time runs from there
+    t_on = 0.5 * (t[k0] + t[k0 + 1])
+    return {"q_cut_ah": q[k_cut], "q_all_ah": q[-1], "t70_s": t70 - t_on,
+            "p70_w": e_ws / (t70 - t_on)}
 
 
 def check_nasa_cell(cell, tmp):
@@ -313,18 +317,20 @@ def check_nasa_cell(cell, tmp):
         row(f"{cell}: fleet capacity_pct after cycle {n}", f"{fmt(pct, 1)} % (ref {want:.1f} %)",
             "within 5 points", NASA_SRC, pct is not None and abs(pct - want) <= 5.0)
 
-    # The capacity rule: first cycle after which the fleet says retire for capacity, against
-    # the first cycle whose reference is at or below 80 % of rated (the rule's own level).
+    # The capacity rule: first cycle after which the fleet says retire for capacity at the
+    # retire level (its reason "capacity X % of rated <= 80 %"; the watch level, 85 %, and
+    # the other rules - these cells go to the cut-off, below any floor, every cycle - do not
+    # count), against the first cycle whose reference is at or below 80 % of rated.
     cross = next(n for n in sorted(ref) if 1000.0 * ref[n] <= 0.8 * NASA_RATED_MAH)
-    flagged = next((n for n in sorted(fleet)
-                    if fleet[n]["status"] == "retire" and "capacity" in fleet[n]["reason"].lower()),
-                   None)
+    flagged = next((n for n in sorted(fleet) if fleet[n]["status"] == "retire" and re.search(
+        r"capacity [0-9.]+ % of rated <= 80 %", fleet[n]["reason"])), None)
     row(f"{cell}: capacity rule (retire at 80 %) fires", f"cycle {flagged} (ref crosses at {cross})",
         "within 5 cycles", NASA_SRC, flagged is not None and abs(flagged - cross) <= 5)
 
     # Predict: the conservative time to a 30 % reserve at the next cycle's logged power (mean
     # V*I while it drew 70 % of its reference charge) against the real time it took to draw
-    # that 70 % (from the last sample before the load, the trapezoid's own start).
+    # that 70 % (from the load coming on: the middle of the interval it came on in, where the
+    # reference's trapezoid puts it).
     over, errs, lines = 0, [], []
     for n, doc in sorted(preds.items()):
         real = facts[n + 1]["t70_s"]
@@ -479,16 +485,19 @@ def check_ornl(tmp):
     row("ornl HPPC: test's pulse-edge median (premise)", f"{med:.3f} mOhm, IQR {q1:.2f}-{q3:.2f}, {cnt} edges",
         "1.58 ± 0.01 (issue 10)", ORNL_SRC, abs(med - 1.58) <= 0.01)
     doc, err = analyze(path, *ORNL_PACK)
-    for name in ("r_edge_mohm", "r0_mohm"):
-        what = f"ornl HPPC whole file: {name}, interval covers Δ to edges"
-        target = f"within 10 % of {med:.2f}, ci95 >= abs Δ"
+    # The step estimate is held to the edges; the circuit model also to an interval that
+    # covers the difference it admits from them (issue 10: "an interval that covers the
+    # model difference it admits").
+    for name, cover in (("r_edge_mohm", False), ("r0_mohm", True)):
+        what = f"ornl HPPC whole file: {name}" + (", interval covers Δ to edges" if cover else "")
+        target = f"within 10 % of {med:.2f}" + (", ci95 >= abs Δ" if cover else "")
         if doc is None:
             row(what, err, target, ORNL_SRC + " (pulse edges)", False)
             continue
         try:
             val, ci = vci(doc, name)
-            ok = (val is not None and ci is not None and abs(val - med) <= 0.1 * med
-                  and abs(val - med) <= ci)
+            ok = (val is not None and abs(val - med) <= 0.1 * med
+                  and (not cover or (ci is not None and abs(val - med) <= ci)))
             row(what, f"{fmt(val, 3)} ± {fmt(ci, 3)} mOhm", target, ORNL_SRC + " (pulse edges)", ok)
         except Missing as e:
             missing_row(what, e, target, ORNL_SRC + " (pulse edges)")
