@@ -1,6 +1,7 @@
 #include "logopts.h"
 
 #include <stdio.h>
+#include <stdlib.h>
 #include <string.h>
 
 const char logopts_usage[] =
@@ -164,6 +165,25 @@ enum pb_code logopts_finish(struct log_cli *cli, struct pb_error *err)
     return PB_OK;
 }
 
+/* Appends a warning to a's list (the analysis owns it; analysis_free frees
+ * it). The reader's plausibility and clock events are worded by
+ * logread_warnings; analyze's reader_warnings() does not name them yet. */
+static void add_warning(void *ctx, const char *code, const char *message)
+{
+    struct analysis *a = ctx;
+    if (a->nwarnings == a->capwarnings) {
+        size_t cap = a->capwarnings ? 2 * a->capwarnings : 16;
+        struct pb_warning *w = realloc(a->warnings, cap * sizeof *w);
+        if (!w)
+            return; /* as analyze does: a lost warning is better than a lost analysis */
+        a->warnings = w;
+        a->capwarnings = cap;
+    }
+    struct pb_warning *w = &a->warnings[a->nwarnings++];
+    snprintf(w->code, sizeof w->code, "%s", code);
+    snprintf(w->message, sizeof w->message, "%s", message);
+}
+
 enum pb_code logopts_analyze(const char *path, const struct log_cli *cli,
                              struct logread_stats *stats, struct analysis **out,
                              struct series **series_out, struct pb_error *err)
@@ -177,7 +197,11 @@ enum pb_code logopts_analyze(const char *path, const struct log_cli *cli,
     FILE *fp = is_stdin ? stdin : fopen(path, "rb");
     if (!fp)
         return pb_error_set(err, PB_EINPUT, "cannot open '%s': %m", path);
-    s = logread_file(fp, name, &cli->read, stats, err);
+    /* the pack's cell count and rating bound what a sample may hold */
+    struct logread_opts ro = cli->read;
+    ro.cells = cli->an.cells;
+    ro.rated_mah = cli->an.capacity_mah;
+    s = logread_file(fp, name, &ro, stats, err);
     if (!s) {
         rc = err->code;
         goto cleanup;
@@ -190,6 +214,7 @@ enum pb_code logopts_analyze(const char *path, const struct log_cli *cli,
     rc = analyze_series(s, stats, name, &cli->an, a, err);
     if (rc != PB_OK)
         goto cleanup;
+    logread_warnings(stats, name, add_warning, a);
     *out = a;
     a = NULL;
     if (series_out) {

@@ -24,8 +24,22 @@ static void add_piece(struct coulomb_result *r, double dt, double v0, double v1,
 void coulomb_count(const double *t_s, const double *v_v, const double *i_a, size_t n, double gap_s,
                    struct coulomb_result *out)
 {
+    coulomb_count_segments(t_s, v_v, i_a, n, NULL, 0, gap_s, out);
+}
+
+void coulomb_count_segments(const double *t_s, const double *v_v, const double *i_a, size_t n,
+                            const size_t *seg_start, size_t nseg, double gap_s,
+                            struct coulomb_result *out)
+{
     struct coulomb_result r = {0};
+    size_t next_seg = 1; /* the next joint is at seg_start[next_seg] */
     for (size_t k = 1; k < n; k++) {
+        if (next_seg < nseg && seg_start[next_seg] == k) {
+            /* the clock restarted: how long the pack ran meanwhile is unknown */
+            next_seg++;
+            r.joints++;
+            continue;
+        }
         double dt = t_s[k] - t_s[k - 1];
         double i0 = i_a[k - 1], i1 = i_a[k];
         double v0 = v_v[k - 1], v1 = v_v[k];

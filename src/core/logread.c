@@ -430,6 +430,7 @@ static int map_columns(struct reader *r)
     r->st->current_column = r->slot_col[SLOT_I] + 1;
     r->st->temp_column = r->slot_col[SLOT_TEMP] + 1;
     r->t_scale = r->spec[SLOT_T].scale;
+    r->st->time_unit_given = r->spec[SLOT_T].unit_given;
 
     r->s = series_new(r->slot_col[SLOT_I] >= 0, r->slot_col[SLOT_TEMP] >= 0, r->ncells);
     if (!r->s) {
@@ -550,6 +551,50 @@ static void on_field(void *data, size_t len, void *ctx)
     r->bad_col = col + 1;
 }
 
+/* The current of the record being read, in A (raw ADC counts converted). */
+static double current_a(const struct reader *r)
+{
+    double i = r->val[SLOT_I];
+    if (r->st->current_is_raw)
+        i = (i - r->opts->adc_offset_counts) * r->opts->adc_a_per_count;
+    return i;
+}
+
+/* A sample no pack can produce: counted and dropped (see logread.h). */
+static int is_glitch(struct reader *r)
+{
+    struct logread_stats *st = r->st;
+    for (int c = 0; c < r->ncells; c++) {
+        double v = r->val[SLOT_CELL0 + c];
+        if (!(v >= LOGREAD_CELL_MIN_V && v <= LOGREAD_CELL_MAX_V)) {
+            count_event(&st->glitch_voltage, r->row_line, r->slot_col[SLOT_CELL0 + c] + 1);
+            return 1;
+        }
+    }
+    if (!st->voltage_from_cells) {
+        /* the cell count when given; else at least one cell per cell column */
+        int given = r->opts->cells;
+        double v = r->val[SLOT_V];
+        double lo = LOGREAD_CELL_MIN_V * (given > 0 ? given : r->ncells > 0 ? r->ncells : 1);
+        double hi = LOGREAD_CELL_MAX_V * (given > 0 ? given : PB_MAX_CELLS);
+        if (!(v >= lo && v <= hi)) {
+            count_event(&st->glitch_voltage, r->row_line, r->slot_col[SLOT_V] + 1);
+            return 1;
+        }
+    }
+    if (r->slot_col[SLOT_I] >= 0) {
+        double i = current_a(r);
+        double max_a = LOGREAD_MAX_CURRENT_A;
+        if (r->opts->rated_mah > 0.0)
+            max_a = fmin(max_a, LOGREAD_MAX_C_RATE * r->opts->rated_mah / 1000.0);
+        if (!(fabs(i) <= max_a)) {
+            count_event(&st->glitch_current, r->row_line, r->slot_col[SLOT_I] + 1);
+            return 1;
+        }
+    }
+    return 0;
+}
+
 static void keep_sample(struct reader *r)
 {
     struct logread_stats *st = r->st;
@@ -573,19 +618,14 @@ static void keep_sample(struct reader *r)
         }
     }
     double rel = t - r->t_first;
-    if (s->n > 0) {
-        if (rel == r->t_prev) {
-            count_event(&st->duplicate_time, r->row_line, r->slot_col[SLOT_T] + 1);
-            return;
-        }
-        if (rel < r->t_prev) {
-            char what[96];
-            snprintf(what, sizeof what, "%.6g s after %.6g s", rel, r->t_prev);
-            fail(r, PB_EINPUT, r->row_line, r->slot_col[SLOT_T] + 1,
-                 "time goes backwards (%s); split the log where the clock restarts", what);
-            return;
-        }
+    /* times out of order are kept as read here and sorted out once the
+     * whole log is in (order_times: strays and restarts) */
+    if (s->n > 0 && rel == r->t_prev) {
+        count_event(&st->duplicate_time, r->row_line, r->slot_col[SLOT_T] + 1);
+        return;
     }
+    if (is_glitch(r))
+        return;
     if (series_reserve_one(s) != 0) {
         fail(r, PB_ENOMEM, 0, 0, "out of memory%s", NULL);
         return;
@@ -599,12 +639,8 @@ static void keep_sample(struct reader *r)
         v_sum += s->cell_v[c][k];
     }
     s->v_v[k] = st->voltage_from_cells ? v_sum : r->val[SLOT_V];
-    if (s->i_a) {
-        double i = r->val[SLOT_I];
-        if (st->current_is_raw)
-            i = (i - r->opts->adc_offset_counts) * r->opts->adc_a_per_count;
-        s->i_a[k] = i;
-    }
+    if (s->i_a)
+        s->i_a[k] = current_a(r);
     if (s->temp_c) {
         double tc = r->val[SLOT_TEMP];
         if (!isfinite(tc)) {
@@ -689,6 +725,131 @@ static void end_record(struct reader *r)
     r->bad = BAD_NONE;
 }
 
+/* ---- time order and spikes -------------------------------------------- */
+
+/* Copies sample from into place to (to <= from) in every column. */
+static void move_sample(struct series *s, size_t from, size_t to)
+{
+    if (from == to)
+        return;
+    s->t_s[to] = s->t_s[from];
+    s->v_v[to] = s->v_v[from];
+    s->line[to] = s->line[from];
+    if (s->i_a)
+        s->i_a[to] = s->i_a[from];
+    if (s->temp_c)
+        s->temp_c[to] = s->temp_c[from];
+    for (int c = 0; c < s->ncells; c++)
+        s->cell_v[c][to] = s->cell_v[c][from];
+}
+
+/* The times were kept as read; here each sample that steps back is sorted
+ * out, in place: a lone row behind its neighbours (the row after it goes on
+ * from the row before) is a stray, and so is a lone row ahead of them (the
+ * row after it goes back to between its neighbours); anything else that
+ * goes back is a restart, which starts a new segment whose times are
+ * shifted to follow on after a placeholder step (series.h). */
+static void order_times(struct reader *r)
+{
+    struct series *s = r->s;
+    struct logread_stats *st = r->st;
+    int tcol = r->slot_col[SLOT_T] + 1;
+    size_t n = s->n, w = 1;
+    double off = 0.0;                            /* added to this segment's logged times */
+    double last = s->t_s[0], before = -HUGE_VAL; /* logged times of the last two kept */
+    int last_starts = 1;                         /* the last kept sample starts a segment */
+    for (size_t k = 1; k < n; k++) {
+        double t = s->t_s[k];
+        if (t > last) {
+            move_sample(s, k, w);
+            s->t_s[w++] = t + off;
+            before = last;
+            last = t;
+            last_starts = 0;
+            continue;
+        }
+        if (t == last) { /* possible again once a stray between them is gone */
+            count_event(&st->duplicate_time, s->line[k], tcol);
+            continue;
+        }
+        st->time_back_steps++;
+        if (k + 1 == n || s->t_s[k + 1] > last) {
+            count_event(&st->stray_time, s->line[k], tcol); /* behind: drop it */
+            continue;
+        }
+        if (!last_starts && t > before && s->t_s[k + 1] > t) {
+            /* the last kept row was ahead of its neighbours: drop that one
+             * (the sample before it, logged at `before`, stays before this) */
+            w--;
+            count_event(&st->stray_time, s->line[w], tcol);
+            move_sample(s, k, w);
+            s->t_s[w++] = t + off;
+            last = t;
+            continue;
+        }
+        /* a placeholder for the unknown time between segments (series.h) */
+        double step = w >= 2 ? s->t_s[w - 1] - s->t_s[w - 2] : 1.0;
+        double at = s->t_s[w - 1] + fmax(1e-3 * step, 1e-9 * fabs(s->t_s[w - 1]));
+        if (series_add_segment(s, w) != 0) {
+            fail(r, PB_ENOMEM, 0, 0, "out of memory%s", NULL);
+            return;
+        }
+        count_event(&st->clock_restart, s->line[k], tcol);
+        off = at - t;
+        move_sample(s, k, w);
+        s->t_s[w++] = at;
+        before = -HUGE_VAL;
+        last = t;
+        last_starts = 1;
+    }
+    st->kept -= n - w;
+    s->n = w;
+}
+
+/* Drops a voltage that leaves both its neighbours (in its segment) by more
+ * than LOGREAD_SPIKE_FRACTION for one sample while the current stays with at
+ * least one of them: no cell does that, a sensor or a logger does. */
+static void drop_spikes(struct reader *r)
+{
+    struct series *s = r->s;
+    size_t n = s->n, w = 1;
+    if (n < 3)
+        return;
+    double peak = 0.0;
+    for (size_t k = 0; s->i_a && k < n; k++)
+        peak = fmax(peak, fabs(s->i_a[k]));
+    double tol_a = fmax(0.1, 0.05 * peak);
+    size_t seg = 1; /* the next segment start, by index as read */
+    int vcol = r->st->voltage_from_cells ? r->slot_col[SLOT_CELL0] + 1 : r->slot_col[SLOT_V] + 1;
+    for (size_t k = 1; k < n; k++) {
+        if (seg < s->nseg && s->seg_start[seg] == k) {
+            s->seg_start[seg++] = w; /* a segment's first sample stays, at its new index */
+            move_sample(s, k, w++);
+            continue;
+        }
+        /* neighbours: the last kept sample (w - 1, same segment: segment starts
+         * are kept) and the next one read, unless a segment starts there */
+        int last_of_segment = k + 1 == n || (seg < s->nseg && s->seg_start[seg] == k + 1);
+        if (!last_of_segment) {
+            double vp = s->v_v[w - 1], v = s->v_v[k], vn = s->v_v[k + 1];
+            double lo = fmin(vp, vn), hi = fmax(vp, vn);
+            int spike =
+                v < lo * (1.0 - LOGREAD_SPIKE_FRACTION) || v > hi * (1.0 + LOGREAD_SPIKE_FRACTION);
+            if (spike && s->i_a) {
+                double i = s->i_a[k];
+                spike = fabs(i - s->i_a[w - 1]) <= tol_a || fabs(i - s->i_a[k + 1]) <= tol_a;
+            }
+            if (spike) {
+                count_event(&r->st->glitch_spike, s->line[k], vcol);
+                continue;
+            }
+        }
+        move_sample(s, k, w++);
+    }
+    r->st->kept -= n - w;
+    s->n = w;
+}
+
 /* ---- sign ------------------------------------------------------------- */
 
 /* Discharge-negative logs: most loaded samples negative while the voltage
@@ -760,13 +921,83 @@ static void feed(struct reader *r, struct csv_parser *p, const char *buf, size_t
 /* The earliest line any sample was dropped at, 0 when none was. */
 static size_t first_problem_line(const struct logread_stats *st)
 {
-    const struct logread_event *evs[] = {&st->bad_number, &st->nonfinite, &st->empty_field,
-                                         &st->short_row, &st->duplicate_time};
+    const struct logread_event *evs[] = {
+        &st->bad_number,     &st->nonfinite,      &st->empty_field,
+        &st->short_row,      &st->duplicate_time, &st->glitch_voltage,
+        &st->glitch_current, &st->glitch_spike,   &st->stray_time};
     size_t first = 0;
     for (size_t k = 0; k < sizeof evs / sizeof *evs; k++)
         if (evs[k]->count && (first == 0 || evs[k]->first_line < first))
             first = evs[k]->first_line;
     return first;
+}
+
+/* The line of the first time step back (a stray or a restart). */
+static size_t first_back_line(const struct logread_stats *st)
+{
+    size_t a = st->stray_time.count ? st->stray_time.first_line : 0;
+    size_t b = st->clock_restart.count ? st->clock_restart.first_line : 0;
+    return a && (!b || a < b) ? a : b;
+}
+
+/* Why most samples went, when it was a plausibility check: a hint for the
+ * message of a log left with too few samples ("" otherwise). */
+static const char *glitch_hint(const struct logread_stats *st)
+{
+    size_t most = st->bad_number.count + st->nonfinite.count + st->empty_field.count +
+                  st->short_row.count + st->duplicate_time.count;
+    if (st->glitch_current.count > most && st->glitch_current.count >= st->glitch_voltage.count)
+        return "; most had a current no pack delivers: if the column holds mA, give --map "
+               "current_ma=COLUMN (and check --capacity)";
+    if (st->glitch_voltage.count > most)
+        return "; most had a voltage no cell shows: if the column holds mV, give --map "
+               "voltage_mv=COLUMN (and check --cells)";
+    return "";
+}
+
+size_t logread_dropped(const struct logread_stats *st)
+{
+    return st->bad_number.count + st->nonfinite.count + st->empty_field.count +
+           st->short_row.count + st->duplicate_time.count + st->glitch_voltage.count +
+           st->glitch_current.count + st->glitch_spike.count + st->stray_time.count;
+}
+
+void logread_warnings(const struct logread_stats *st, const char *name,
+                      void (*emit)(void *ctx, const char *code, const char *message), void *ctx)
+{
+    const struct {
+        const struct logread_event *ev;
+        const char *code;
+        const char *what;
+    } evs[] = {
+        {&st->glitch_voltage, "dropped_glitch_voltage",
+         "sample(s) dropped: a voltage no cell shows (per cell outside 0.5..5 V)"},
+        {&st->glitch_current, "dropped_glitch_current",
+         "sample(s) dropped: a current no pack delivers (a logger's sentinel, or over 200 C of "
+         "the rated capacity)"},
+        {&st->glitch_spike, "dropped_voltage_spike",
+         "sample(s) dropped: the voltage left both neighbours by over 20 % for one sample while "
+         "the current did not (a sensor glitch, not a floor crossing)"},
+        {&st->stray_time, "dropped_stray_time", "sample(s) dropped: a lone row out of time order"},
+    };
+    char msg[320];
+    for (size_t k = 0; k < sizeof evs / sizeof *evs; k++) {
+        const struct logread_event *ev = evs[k].ev;
+        if (!ev->count)
+            continue;
+        snprintf(msg, sizeof msg, "%zu %s (first at %s:%zu:%d)", ev->count, evs[k].what, name,
+                 ev->first_line, ev->first_column);
+        emit(ctx, evs[k].code, msg);
+    }
+    if (st->clock_restart.count) {
+        size_t nseg = st->clock_restart.count + 1;
+        snprintf(msg, sizeof msg,
+                 "the clock restarted %zu time(s) (first at %s:%zu:%d): analysed as %zu segments "
+                 "together, charge summed; the time between them is unknown and not counted",
+                 st->clock_restart.count, name, st->clock_restart.first_line,
+                 st->clock_restart.first_column, nseg);
+        emit(ctx, "clock_restart", msg);
+    }
 }
 
 struct series *logread_file(FILE *fp, const char *name, const struct logread_opts *opts,
@@ -877,6 +1108,22 @@ struct series *logread_file(FILE *fp, const char *name, const struct logread_opt
                      name);
         goto cleanup;
     }
+    if (r.s->n > 1) {
+        order_times(&r);
+        if (r.failed)
+            goto cleanup;
+        /* a clock restarts now and then; a column that goes back at every
+         * few rows is not a clock */
+        if (stats->time_back_steps > 10 && stats->time_back_steps > stats->records / 100) {
+            pb_error_set(err, PB_EINPUT,
+                         "%s:%zu:%d: the time column goes back at %zu places (this is the "
+                         "first): is it the time? (name the time column with --map "
+                         "time_s=COLUMN)",
+                         name, first_back_line(stats), stats->time_column, stats->time_back_steps);
+            goto cleanup;
+        }
+        drop_spikes(&r);
+    }
     size_t need = opts && opts->min_samples ? opts->min_samples : 2;
     if (r.s->n < need || r.s->n == 0) {
         if (stats->records == 0)
@@ -889,9 +1136,9 @@ struct series *logread_file(FILE *fp, const char *name, const struct logread_opt
                 snprintf(where, sizeof where, " (first problem at line %zu)", first);
             pb_error_set(err, PB_EINPUT,
                          "%s: %zu usable sample%s of %zu records; at least %zu %s "
-                         "needed%s",
+                         "needed%s%s",
                          name, r.s->n, r.s->n == 1 ? "" : "s", stats->records, need,
-                         need == 1 ? "is" : "are", where);
+                         need == 1 ? "is" : "are", where, glitch_hint(stats));
         }
         goto cleanup;
     }

@@ -3,7 +3,19 @@
  * Owns the dialect detection and the per-sample checks. Reads a FILE in
  * large blocks through libcsv and never holds the whole text. Every sample
  * it drops or repairs is counted in struct logread_stats with the first
- * place (line, column) it happened. The caller owns the returned series. */
+ * place (line, column) it happened. The caller owns the returned series.
+ *
+ * Plausibility: a sample no pack can produce is a glitch, dropped and
+ * counted: a per-cell voltage outside 0.5..5 V (pack voltage over the cell
+ * count when it is known), |current| above LOGREAD_MAX_CURRENT_A, or above
+ * LOGREAD_MAX_C_RATE times the rated capacity when that is known, and a
+ * voltage that leaves both neighbours by more than a fifth for one sample
+ * while the current does not move with it (a spike: never a floor crossing).
+ *
+ * Time order: a lone row behind (or ahead of) its neighbours is a stray,
+ * dropped and counted; a restart (time jumps back and goes on) starts a new
+ * segment of the series (series.h), counted. A time column that goes back
+ * at very many places is refused as not a clock. */
 #ifndef PB_LOGREAD_H
 #define PB_LOGREAD_H
 
@@ -15,6 +27,11 @@
 
 #define LOGREAD_MAX_COLUMNS 1024
 #define LOGREAD_MAX_FIELD_BYTES 65536
+#define LOGREAD_CELL_MIN_V 0.5      /* no Li cell reads below this and works (issue 10) */
+#define LOGREAD_CELL_MAX_V 5.0      /* nor above this (LiHV charges to 4.35-4.45 V) */
+#define LOGREAD_MAX_C_RATE 200.0    /* |current| / rated capacity (1/h) no pack delivers */
+#define LOGREAD_MAX_CURRENT_A 1.0e5 /* whatever the pack: a sentinel, not a current */
+#define LOGREAD_SPIKE_FRACTION 0.2  /* one-sample voltage jump, of the neighbours' voltage */
 
 enum current_sign {
     SIGN_AUTO = 0, /* discharge positive unless the data clearly say otherwise */
@@ -32,6 +49,8 @@ struct logread_opts {
     double adc_a_per_count;
     double adc_offset_counts;
     size_t min_samples; /* fewest usable samples accepted; 0 means 2 (what analysis needs) */
+    int cells;          /* series cells when known (0: unknown), for the voltage check */
+    double rated_mah;   /* rated capacity when known (0: unknown), for the current check */
     /* called with every block of raw bytes as read (e.g. to hash the log) */
     void (*on_block)(void *ctx, const char *buf, size_t len);
     void *block_ctx;
@@ -58,6 +77,7 @@ struct logread_stats {
     int current_is_raw;
     int time_is_iso;
     int time_is_epoch;
+    int time_unit_given; /* the time column's name (or --columns/--map) carried a unit */
     int ignored_columns;
     int sign_flipped; /* auto-detected discharge-negative and flipped */
     int voltage_from_cells;
@@ -70,6 +90,12 @@ struct logread_stats {
     struct logread_event temp_repaired;  /* bad temperature: previous value kept */
     struct logread_event duplicate_role; /* a second column for the same role: ignored */
     int truncated_last_line;             /* last line had no newline and was short */
+    struct logread_event glitch_voltage; /* voltage no cell shows: sample dropped */
+    struct logread_event glitch_current; /* current no pack delivers: sample dropped */
+    struct logread_event glitch_spike;   /* one-sample voltage spike: sample dropped */
+    struct logread_event stray_time;     /* a lone row out of time order: dropped */
+    struct logread_event clock_restart;  /* time jumped back and went on: new segment */
+    size_t time_back_steps;              /* times seen going back (strays and restarts) */
 };
 
 /* Reads a log. name is used in messages ("-" for stdin). On success
@@ -78,6 +104,16 @@ struct logread_stats {
  * "NAME:LINE:COLUMN: what was expected". stats is always filled. */
 struct series *logread_file(FILE *fp, const char *name, const struct logread_opts *opts,
                             struct logread_stats *stats, struct pb_error *err);
+
+/* Samples dropped for any reason (the reader's counted events). */
+size_t logread_dropped(const struct logread_stats *st);
+
+/* Calls emit(ctx, code, message) once for each kind of plausibility and
+ * time-order event in st (glitch_voltage, glitch_current, glitch_spike,
+ * stray_time, clock_restart), with the count and the first place
+ * "NAME:LINE:COLUMN". The other reader events are worded by analyze. */
+void logread_warnings(const struct logread_stats *st, const char *name,
+                      void (*emit)(void *ctx, const char *code, const char *message), void *ctx);
 
 /* Sense-chain calibration: amps per ADC count for a current-sense output
  * of I/ratio through r_ohm, read by a bits-bit ADC with reference vref_v. */

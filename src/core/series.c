@@ -41,6 +41,7 @@ void series_free(struct series *s)
     free(s->i_a);
     free(s->temp_c);
     free(s->line);
+    free(s->seg_start);
     for (int c = 0; c < s->ncells; c++)
         free(s->cell_v[c]);
     free(s);
@@ -75,4 +76,32 @@ int series_reserve_one(struct series *s)
             return -1;
     s->cap = cap;
     return 0;
+}
+
+int series_add_segment(struct series *s, size_t start)
+{
+    size_t need = s->nseg ? s->nseg + 1 : 2;
+    size_t *p = realloc(s->seg_start, need * sizeof *p);
+    if (!p)
+        return -1;
+    s->seg_start = p;
+    if (s->nseg == 0)
+        p[s->nseg++] = 0;
+    p[s->nseg++] = start;
+    return 0;
+}
+
+int series_is_joint(const struct series *s, size_t k)
+{
+    if (s->nseg < 2 || k == 0)
+        return 0;
+    size_t lo = 1, hi = s->nseg; /* search seg_start[1..nseg-1] for k */
+    while (lo < hi) {
+        size_t mid = lo + (hi - lo) / 2;
+        if (s->seg_start[mid] < k)
+            lo = mid + 1;
+        else
+            hi = mid;
+    }
+    return lo < s->nseg && s->seg_start[lo] == k;
 }

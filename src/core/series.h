@@ -6,7 +6,19 @@
  * has_epoch); i_a is NULL when the log has no current; temp_c is NULL when
  * it has no temperature; cell_v[c] for c < ncells holds cell c+1's voltage;
  * line[k] is the input line sample k came from (saturating at UINT32_MAX).
- * Current is positive when discharging. Values are finite. */
+ * Current is positive when discharging. Values are finite.
+ *
+ * Segments: a log whose clock restarted (time jumped back and went on) is
+ * kept as segments of one series. seg_start[0..nseg-1] are the indices of
+ * each segment's first sample, increasing, seg_start[0] == 0; nseg == 0 (a
+ * series built by hand, seg_start NULL) means one segment. The interval
+ * that ends at seg_start[j], j >= 1, is a joint of UNKNOWN length: its t_s
+ * step is a placeholder, a thousandth of the step before it, so code that
+ * does not know about segments bridges next to nothing across it and the
+ * duration is about the sum of the segments; charge counting and the fits
+ * should still not bridge it (coulomb_count_segments, series_is_joint), nor
+ * take it as a time scale. Within a segment the logged times are kept as
+ * they were, shifted. */
 #ifndef PB_SERIES_H
 #define PB_SERIES_H
 
@@ -27,6 +39,8 @@ struct series {
     double *cell_v[PB_MAX_CELLS];
     int has_epoch;
     double start_epoch_s;
+    size_t nseg;       /* segments; 0 or 1: one */
+    size_t *seg_start; /* first sample of each segment, NULL when nseg == 0 */
 };
 
 /* New empty series with the given columns; NULL when out of memory. */
@@ -37,5 +51,14 @@ void series_free(struct series *s);
 
 /* Makes room for one more sample; returns 0, or -1 when out of memory. */
 int series_reserve_one(struct series *s);
+
+/* Records that a new segment starts at sample index start (after the last
+ * one recorded; the first call also records segment 0 at index 0). Returns
+ * 0, or -1 when out of memory. */
+int series_add_segment(struct series *s, size_t start);
+
+/* 1 when the interval from sample k-1 to k is a joint between segments (of
+ * unknown length), else 0. O(log nseg). */
+int series_is_joint(const struct series *s, size_t k);
 
 #endif

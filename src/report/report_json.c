@@ -16,8 +16,7 @@ static json_t *est(struct estimate e)
 static json_t *input_obj(const struct report_input *in)
 {
     const struct logread_stats *st = in->stats;
-    size_t dropped = st->bad_number.count + st->nonfinite.count + st->empty_field.count +
-                     st->short_row.count + st->duplicate_time.count;
+    size_t dropped = logread_dropped(st);
     char delim[2] = {st->delimiter, 0}, dec[2] = {st->decimal, 0};
     const char *tf = st->time_is_iso ? "iso8601" : st->time_is_epoch ? "unix" : "relative";
     return json_pack(

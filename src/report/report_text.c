@@ -163,8 +163,7 @@ int report_analysis_text(FILE *out, const struct analysis *a, const struct repor
         }
     }
     const struct logread_stats *st = in->stats;
-    size_t dropped = st->bad_number.count + st->nonfinite.count + st->empty_field.count +
-                     st->short_row.count + st->duplicate_time.count;
+    size_t dropped = logread_dropped(st);
     fprintf(out, "\n  read %zu records, kept %zu, dropped %zu, repaired %zu\n", st->records,
             st->kept, dropped, st->temp_repaired.count);
     if (a->nwarnings) {

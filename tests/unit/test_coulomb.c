@@ -77,13 +77,36 @@ static void test_gaps(void **state)
     check_close(r.discharged_mah, 26.0 / 3.6, 1e-12, "total charge includes the bridge");
 }
 
+static void test_segments_not_bridged(void **state)
+{
+    (void)state;
+    /* two segments of a restarted clock, 1 s steps: 2, 2, 30 A (2 + 16 A s), then
+     * 4, 4 A (4 A s); the joint from 30 A to 4 A (index 3, a placeholder step) is
+     * neither counted nor a gap: 22 A s in all (mathematics) */
+    double t[] = {0, 1, 2, 3, 4}, v[] = {10, 10, 10, 10, 10}, i[] = {2, 2, 30, 4, 4};
+    size_t seg[] = {0, 3};
+    struct coulomb_result r;
+    coulomb_count_segments(t, v, i, 5, seg, 2, 0.5, &r);
+    check_close(r.discharged_mah, (2.0 * 1 + 16.0 * 1 + 4.0) / 3.6, 1e-12,
+                "the sum over the segments");
+    assert_int_equal(r.joints, 1);
+    assert_int_equal(r.gaps, 3); /* every other 1 s step is longer than 0.5 s */
+    check_close(r.gap_total_s, 3.0, 0.0, "the joint is not a gap");
+
+    /* one segment (nseg 0 or 1) is coulomb_count */
+    struct coulomb_result a, b;
+    coulomb_count_segments(t, v, i, 5, seg, 1, 10.0, &a);
+    coulomb_count(t, v, i, 5, 10.0, &b);
+    check_close(a.discharged_mah, b.discharged_mah, 0.0, "nseg 1");
+    assert_int_equal(a.joints, 0);
+}
+
 int main(void)
 {
     const struct CMUnitTest tests[] = {
-        cmocka_unit_test(test_iec61434_it),
-        cmocka_unit_test(test_piecewise_linear_exact),
-        cmocka_unit_test(test_sign_split),
-        cmocka_unit_test(test_gaps),
+        cmocka_unit_test(test_iec61434_it),          cmocka_unit_test(test_piecewise_linear_exact),
+        cmocka_unit_test(test_sign_split),           cmocka_unit_test(test_gaps),
+        cmocka_unit_test(test_segments_not_bridged),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
 }

@@ -95,17 +95,157 @@ static void test_counts_and_places(void **state)
     series_free(s);
 }
 
-static void test_backwards_time_fails_with_place(void **state)
+/* Times strictly increasing, starting at 0 (the series invariant). */
+static void check_increasing(const struct series *s)
+{
+    check_close(s->t_s[0], 0.0, 0.0, "first time");
+    for (size_t k = 1; k < s->n; k++)
+        if (!(s->t_s[k] > s->t_s[k - 1]))
+            fail_msg("t_s[%zu] = %g after %g", k, s->t_s[k], s->t_s[k - 1]);
+}
+
+static void test_stray_rows_dropped_with_place(void **state)
 {
     (void)state;
-    const char *text = "time_s,voltage_v\n0,16\n1,16\n0.5,16\n";
+    /* line 4 is behind its neighbours, line 7 ahead of them: both lone rows */
+    const char *text = "voltage_v,time_s\n16,0\n16,1\n16,0.5\n16,2\n16,3\n16,99\n16,4\n16,5\n";
+    struct logread_opts o = {0};
+    struct logread_stats st;
+    struct pb_error err = {0};
+    struct series *s = read_text(text, &o, &st, &err);
+    assert_non_null(s);
+    assert_int_equal(s->n, 6);
+    check_increasing(s);
+    check_close(s->t_s[5], 5.0, 0.0, "times as logged: no segment");
+    assert_int_equal(st.stray_time.count, 2);
+    assert_int_equal(st.stray_time.first_line, 4);
+    assert_int_equal(st.stray_time.first_column, 2);
+    assert_int_equal(st.clock_restart.count, 0);
+    assert_int_equal(st.kept, 6);
+    assert_int_equal(s->line[4], 8); /* the row after the one ahead */
+    assert_true(s->nseg <= 1);
+    assert_int_equal(logread_dropped(&st), 2);
+    series_free(s);
+}
+
+static void test_restart_makes_segments(void **state)
+{
+    (void)state;
+    /* the clock restarts at line 5 and again at line 8 (to a time within the
+     * segment before, so they overlap in time): three segments, none lost */
+    const char *text = "time_s,voltage_v,current_a\n"
+                       "10,16,2\n11,16,2\n12,16,2\n" /* lines 2-4 */
+                       "0,16,2\n1,16,2\n2,16,2\n"    /* lines 5-7 */
+                       "0.5,16,2\n1.5,16,2\n2.5,16,2\n";
+    struct logread_opts o = {0};
+    struct logread_stats st;
+    struct pb_error err = {0};
+    struct series *s = read_text(text, &o, &st, &err);
+    assert_non_null(s);
+    assert_int_equal(s->n, 9);
+    check_increasing(s);
+    assert_int_equal(st.clock_restart.count, 2);
+    assert_int_equal(st.clock_restart.first_line, 5);
+    assert_int_equal(st.clock_restart.first_column, 1);
+    assert_int_equal(st.stray_time.count, 0);
+    assert_int_equal(s->nseg, 3);
+    assert_int_equal(s->seg_start[0], 0);
+    assert_int_equal(s->seg_start[1], 3);
+    assert_int_equal(s->seg_start[2], 6);
+    assert_int_equal(series_is_joint(s, 3), 1);
+    assert_int_equal(series_is_joint(s, 6), 1);
+    assert_int_equal(series_is_joint(s, 4), 0);
+    assert_int_equal(series_is_joint(s, 0), 0);
+    /* within a segment the logged steps stay; the joint is a placeholder of a
+     * thousandth of the step before it (series.h) */
+    check_close(s->t_s[4] - s->t_s[3], 1.0, 1e-12, "step in segment 2");
+    check_close(s->t_s[3] - s->t_s[2], 1e-3, 1e-12, "joint placeholder");
+    check_close(s->t_s[8] - s->t_s[6], 2.0, 1e-12, "steps in segment 3");
+    assert_int_equal(s->line[6], 8);
+    series_free(s);
+}
+
+static void test_time_that_is_not_a_clock(void **state)
+{
+    (void)state;
+    /* a column that goes back on every other row: refused, naming the first place */
+    char text[4096] = "time_s,voltage_v\n";
+    for (int k = 0; k < 60; k++) {
+        char row[32];
+        snprintf(row, sizeof row, "%d,16\n", k % 2 ? k : 100 - k);
+        strcat(text, row);
+    }
     struct logread_opts o = {0};
     struct logread_stats st;
     struct pb_error err = {0};
     assert_null(read_text(text, &o, &st, &err));
     assert_int_equal(err.code, PB_EINPUT);
-    assert_non_null(strstr(err.msg, "mem.csv:4:1:"));
-    assert_non_null(strstr(err.msg, "backwards"));
+    assert_non_null(strstr(err.msg, "mem.csv:3:1:"));
+    assert_non_null(strstr(err.msg, "goes back at"));
+}
+
+static void test_glitches_dropped_with_place(void **state)
+{
+    (void)state;
+    /* 4 cells: a 0 V pack reading (line 4), a 1e38 current sentinel (line 6,
+     * any pack), 1.2 V for 4 cells (0.3 V/cell, line 7), 1500 A on a 5000 mAh
+     * pack (300 C, line 8) and a cell at 9 V (line 9); 900 A (180 C) stays */
+    const char *text = "time_s,voltage_v,current_a,cell1_v\n"
+                       "0,16.0,10,4.0\n1,15.9,10,4.0\n"
+                       "2,0,10,4.0\n"
+                       "3,15.8,10,4.0\n"
+                       "4,15.8,3.4e38,4.0\n"
+                       "5,1.2,10,4.0\n"
+                       "6,15.7,1500,4.0\n"
+                       "7,15.7,10,9.0\n"
+                       "8,15.6,900,3.9\n9,15.6,10,3.9\n";
+    struct logread_opts o = {.cells = 4, .rated_mah = 5000};
+    struct logread_stats st;
+    struct pb_error err = {0};
+    struct series *s = read_text(text, &o, &st, &err);
+    assert_non_null(s);
+    assert_int_equal(s->n, 5);
+    assert_int_equal(st.glitch_voltage.count, 3);
+    assert_int_equal(st.glitch_voltage.first_line, 4);
+    assert_int_equal(st.glitch_voltage.first_column, 2);
+    assert_int_equal(st.glitch_current.count, 2);
+    assert_int_equal(st.glitch_current.first_line, 6);
+    assert_int_equal(st.glitch_current.first_column, 3);
+    check_close(s->i_a[3], 900.0, 0.0, "180 C stays");
+    assert_int_equal(logread_dropped(&st), 5);
+    series_free(s);
+
+    /* unknown pack: only the sentinel and what no number of cells explains */
+    struct logread_opts u = {0};
+    s = read_text(text, &u, &st, &err);
+    assert_non_null(s);
+    assert_int_equal(st.glitch_current.count, 1); /* 1500 A may be a big pack */
+    assert_int_equal(st.glitch_voltage.count, 2); /* 0 V and the 9 V cell */
+    series_free(s);
+}
+
+static void test_voltage_spike_is_not_a_crossing(void **state)
+{
+    (void)state;
+    /* line 4: 3 V between 16.4 and 16.3 V at a steady 10 A: dropped; line 7:
+     * 12.5 V with the current at 90 A for that sample: a real sag, kept */
+    const char *text = "time_s,voltage_v,current_a\n"
+                       "0,16.5,10\n1,16.4,10\n"
+                       "2,3.0,10\n"
+                       "3,16.3,10\n4,16.3,10\n"
+                       "5,12.5,90\n"
+                       "6,16.2,10\n7,16.2,10\n";
+    struct logread_opts o = {0};
+    struct logread_stats st;
+    struct pb_error err = {0};
+    struct series *s = read_text(text, &o, &st, &err);
+    assert_non_null(s);
+    assert_int_equal(s->n, 7);
+    assert_int_equal(st.glitch_spike.count, 1);
+    assert_int_equal(st.glitch_spike.first_line, 4);
+    assert_int_equal(st.glitch_spike.first_column, 2);
+    check_close(s->v_v[4], 12.5, 0.0, "the sag under load stays");
+    series_free(s);
 }
 
 static void test_headerless_needs_columns(void **state)
@@ -211,7 +351,11 @@ int main(void)
         cmocka_unit_test(test_semicolon_decimal_comma_ms_mv),
         cmocka_unit_test(test_tab_quotes_trailing_empty),
         cmocka_unit_test(test_counts_and_places),
-        cmocka_unit_test(test_backwards_time_fails_with_place),
+        cmocka_unit_test(test_stray_rows_dropped_with_place),
+        cmocka_unit_test(test_restart_makes_segments),
+        cmocka_unit_test(test_time_that_is_not_a_clock),
+        cmocka_unit_test(test_glitches_dropped_with_place),
+        cmocka_unit_test(test_voltage_spike_is_not_a_crossing),
         cmocka_unit_test(test_headerless_needs_columns),
         cmocka_unit_test(test_epoch_and_iso),
         cmocka_unit_test(test_cells_and_sign),
