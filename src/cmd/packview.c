@@ -82,6 +82,7 @@ static void to_health(const struct flight_rec *f, size_t n, struct health_flight
         h[k].charge_mah = f[k].charge_used_mah;
         h[k].r0_mohm = f[k].r0_mohm;
         h[k].capacity_mah = f[k].capacity_mah;
+        h[k].capacity_ci95_mah = f[k].capacity_ci95_mah;
         h[k].spread_rest_mv = f[k].cell_spread_rest_mv;
         h[k].below_floor = isfinite(f[k].time_below_floor_s) && f[k].time_below_floor_s > 0;
     }

@@ -80,30 +80,59 @@ struct analysis {
     double rest_start_s, rest_end_s; /* length of rest at the start and end */
     size_t current_steps;
 
-    struct estimate r0_mohm;       /* ohmic resistance, pack */
+    double peak_a; /* largest |current| */
+    double step_a; /* a current step at least this large is a resistance measurement */
+
+    /* Internal resistance (IR), pack. The headline r0_mohm is the steps'
+     * figure when the log has usable steps (r0_method "steps"), else the
+     * model's R0 ("rc" or "static"); NAN with r0_reason when neither. It is
+     * never <= 0. */
+    struct estimate r0_mohm;
+    const char *r0_method;
+    struct estimate r_edge_mohm; /* median over current steps (edges.h) */
+    size_t r_edge_steps;
+    double r_edge_time_scale_s;    /* median length of the step intervals */
+    const char *r_edge_reason;     /* why r_edge_mohm is NAN */
+    struct estimate r0_model_mohm; /* the equivalent-circuit fit's R0 (ecm.h) */
+    const char *r0_reason;         /* why the model's R0 is NAN */
     struct estimate r_static_mohm; /* from the model without RC branch */
     struct estimate r1_mohm;       /* RC branch, when fitted */
     struct estimate tau_s;
-    const char *r0_method; /* "rc", "static" or NULL */
     double fit_sigma_mv;
+    double fit_rho; /* lag-1 autocorrelation of the model's residuals */
     size_t fit_downweighted;
-    int fit_iterations;              /* reweighting passes of the chosen fit */
+    int fit_iterations; /* reweighting passes of the chosen fit */
+    size_t fit_windows;
+    double fit_window_s;
     size_t fit_rows_visited;         /* rows visited by all fits: the work, for bounds tests */
-    int ocv_degree;                  /* polynomial degree of the OCV drift */
+    int ocv_degree;                  /* polynomial degree of the OCV trend */
     double ocv_coef_v[OCV_POLY_MAX]; /* OCV(u) = sum c_j u^j, u = 2 q/q_end - 1 */
     double q_end_ah;
 
     double ocv_start_v, ocv_end_v;
-    const char *ocv_start_method, *ocv_end_method; /* "rest", "fit", "loaded" */
+    double ocv_start_d_v, ocv_end_d_v; /* 95 % half-widths (pack), table error not included */
+    /* "rest", "relaxed" (final rest's relaxation extrapolated), "fit"
+     * (sag-corrected trend) or "loaded" (no resistance to correct with) */
+    const char *ocv_start_method, *ocv_end_method;
     struct estimate soc_start_pct, soc_end_pct;
     const char *state_start, *state_end; /* "full", "partial", "empty" */
+    /* Capacity: the headline is to_cutoff when the log is a discharge from
+     * full to empty (capacity.h), else soc_swing; NAN when neither. */
     struct estimate capacity_mah;
+    const char *capacity_method;
+    struct estimate capacity_cutoff_mah;
+    double capacity_cutoff_c_rate, capacity_cutoff_mean_a, capacity_cutoff_end_v_cell;
+    struct estimate capacity_soc_mah;
+    const char *capacity_soc_reason;
 
     int has_temp;
     double temp_min_c, temp_max_c;
 
     int ncells_detail;
     struct cell_detail cell[PB_MAX_CELLS];
+    /* imbalance (max - min cell) at rest before take-off, after landing, and
+     * the one to judge by (after landing when there is such a rest) */
+    double spread_rest_start_mv, spread_rest_end_mv;
     double spread_rest_mv, spread_load_mv;
     int weakest_cell; /* 1-based, 0 = none */
 

@@ -51,14 +51,15 @@ static void run_pass(size_t n, int p, fit_row_fn row, void *ctx, const double *b
     if (ss)
         ss->n = 0;
     for (size_t k = 0; k < n; k++) {
-        if (!row(ctx, k, x, &y))
+        int use = row(ctx, k, x, &y);
+        if (!use)
             continue;
         double w = 1.0;
         if (beta) {
             double r = y - dot(x, beta, p);
             if (ss && n_used % ss->m == 0 && ss->n < SCALE_SAMPLES)
                 ss->r[ss->n++] = fabs(r);
-            if (scale > 0.0) {
+            if (scale > 0.0 && use != FIT_ROW_KEEP) {
                 double u = r / (BISQUARE_C * scale);
                 w = fabs(u) < 1.0 ? (1.0 - u * u) * (1.0 - u * u) : 0.0;
                 n_low += w < 0.5;

@@ -19,8 +19,12 @@
 
 #define FIT_MAX_P 8
 
-/* Makes row k; returns 0 to leave the row out, 1 to use it. A callback
- * that keeps state across rows resets it when k == 0. */
+/* Makes row k; returns 0 to leave the row out, 1 to use it, FIT_ROW_KEEP
+ * to use it at full weight even in robust mode (rows that carry what the fit
+ * exists to identify, such as the samples either side of a current step,
+ * must not be reweighted away as outliers). A callback that keeps state
+ * across rows resets it when k == 0. */
+#define FIT_ROW_KEEP 2
 typedef int (*fit_row_fn)(void *ctx, size_t k, double *x, double *y);
 
 struct fit_result {

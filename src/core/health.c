@@ -54,13 +54,68 @@ static double median_end(const struct health_flight *f, size_t n,
     return m ? gsl_stats_median(buf, 1, m) : NAN;
 }
 
+/* Only physical values take part: a resistance or capacity <= 0 (which
+ * older versions could store) is no measurement. */
 static double get_r0(const struct health_flight *f)
 {
-    return f->r0_mohm;
+    return f->r0_mohm > 0.0 ? f->r0_mohm : NAN;
 }
 static double get_cap(const struct health_flight *f)
 {
-    return f->capacity_mah;
+    return f->capacity_mah > 0.0 ? f->capacity_mah : NAN;
+}
+
+/* The pack's capacity now: over the last `want` flights with an estimate,
+ * the median weighted by each estimate's precision (1 / half-width^2). A
+ * weighted median is the least-absolute-deviation fit of one level to the
+ * estimates, so a measurement to the cut-off (narrow interval) counts for
+ * more than a short flight's SoC swing, and one odd flight cannot move it
+ * past its neighbours. Estimates without an interval weigh as the widest. */
+static double capacity_now(const struct health_flight *f, size_t n, size_t want)
+{
+    double v[64], w[64], total = 0.0;
+    size_t m = 0;
+    for (size_t j = 0; j < n && m < want && m < 64; j++) {
+        const struct health_flight *x = &f[n - 1 - j];
+        double c = get_cap(x);
+        if (!isfinite(c))
+            continue;
+        double ci = x->capacity_ci95_mah;
+        v[m] = c;
+        w[m] = isfinite(ci) && ci > 0.0 ? 1.0 / (ci * ci) : NAN;
+        m++;
+    }
+    if (m == 0)
+        return NAN;
+    double wmin = HUGE_VAL;
+    for (size_t k = 0; k < m; k++)
+        if (isfinite(w[k]))
+            wmin = fmin(wmin, w[k]);
+    for (size_t k = 0; k < m; k++) {
+        if (!isfinite(w[k]))
+            w[k] = isfinite(wmin) ? wmin : 1.0;
+        total += w[k];
+    }
+    /* sort by value (m <= 64: insertion sort) and take the weighted middle */
+    for (size_t i = 1; i < m; i++)
+        for (size_t k = i; k > 0 && v[k - 1] > v[k]; k--) {
+            double tv = v[k], tw = w[k];
+            v[k] = v[k - 1];
+            w[k] = w[k - 1];
+            v[k - 1] = tv;
+            w[k - 1] = tw;
+        }
+    double acc = 0.0;
+    for (size_t k = 0; k < m; k++) {
+        acc += w[k];
+        if (acc >= 0.5 * total - 1e-12 * total) {
+            /* exactly half on each side: the mean of the two middle values */
+            if (fabs(acc - 0.5 * total) <= 1e-12 * total && k + 1 < m)
+                return 0.5 * (v[k] + v[k + 1]);
+            return v[k];
+        }
+    }
+    return v[m - 1];
 }
 static double get_spread(const struct health_flight *f)
 {
@@ -103,7 +158,7 @@ void health_assess(const struct health_flight *f, size_t n, int cells, double ra
     h->r0_base_mohm_cell = median_end(f, n, get_r0, (size_t)r->baseline_flights, 0) / cells;
     h->r0_now_mohm_cell = median_end(f, n, get_r0, recent, 1) / cells;
     h->r0_ratio = h->r0_now_mohm_cell / h->r0_base_mohm_cell;
-    h->capacity_pct = 100.0 * median_end(f, n, get_cap, recent, 1) / rated_mah;
+    h->capacity_pct = 100.0 * capacity_now(f, n, recent) / rated_mah;
     h->spread_mv = median_end(f, n, get_spread, recent, 1);
     if (n == 0) {
         snprintf(h->reason, sizeof h->reason, "no flights yet");
@@ -267,7 +322,9 @@ static void trend_line_fit(struct trend_line *tl, const double *cyc, const doubl
     double xc, xd;
     int c = health_crossing(&tl->vs_cycles, level, rising, cycles_now, &xc);
     if (c < 0) {
-        tl->crossed = 1;
+        /* whether the rule has fired is the caller's to say (from the
+         * pack's state), so every view words it the same */
+        tl->line_past = 1;
         return;
     }
     if (c > 0) {
@@ -306,8 +363,8 @@ int health_trend(const struct health_flight *f, size_t n, int cells, double rate
             q += f[k].charge_mah;
         cyc[k] = q / rated_mah;
         days[k] = (f[k].epoch_s - f[0].epoch_s) / 86400.0;
-        r0[k] = f[k].r0_mohm / cells;
-        cap[k] = 100.0 * f[k].capacity_mah / rated_mah;
+        r0[k] = get_r0(&f[k]) / cells;
+        cap[k] = 100.0 * get_cap(&f[k]) / rated_mah;
 
         char key[40];
         bucket_key(by, f[k].epoch_s, cyc[k], key, sizeof key);
@@ -346,6 +403,11 @@ int health_trend(const struct health_flight *f, size_t n, int cells, double rate
                    t->cycles_now, t->days_now, f[0].epoch_s, horizon);
     trend_line_fit(&t->capacity, cyc, days, cap, n, plain, rules->retire_capacity_pct, 0,
                    t->cycles_now, t->days_now, f[0].epoch_s, horizon);
+    /* "reached" means what the retirement rule says now (health_assess), in
+     * trend, compare, fleet and the figures alike */
+    t->r0.crossed = n > (size_t)rules->baseline_flights && isfinite(h.r0_ratio) &&
+                    h.r0_ratio >= rules->retire_r0_ratio;
+    t->capacity.crossed = isfinite(h.capacity_pct) && h.capacity_pct <= rules->retire_capacity_pct;
     free(cyc), free(days), free(r0), free(cap);
     return 0;
 }

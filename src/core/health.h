@@ -10,11 +10,12 @@
 
 struct health_flight {
     double epoch_s;
-    double charge_mah;     /* net charge used */
-    double r0_mohm;        /* pack, NAN when unknown */
-    double capacity_mah;   /* NAN when unknown */
-    double spread_rest_mv; /* NAN when unknown */
-    int below_floor;       /* the loaded voltage crossed the per-cell floor */
+    double charge_mah;        /* net charge used */
+    double r0_mohm;           /* pack, NAN when unknown */
+    double capacity_mah;      /* NAN when unknown */
+    double capacity_ci95_mah; /* its 95 % half-width; NAN when unknown */
+    double spread_rest_mv;    /* NAN when unknown */
+    int below_floor;          /* the loaded voltage crossed the per-cell floor */
 };
 
 /* Thresholds. Defaults (health_rules_default): capacity at or below 80 %
@@ -40,7 +41,7 @@ struct pack_health {
     double r0_now_mohm_cell;  /* median of the recent flights */
     double r0_base_mohm_cell; /* median of the baseline flights */
     double r0_ratio;          /* now / baseline */
-    double capacity_pct;      /* median of the recent estimates, % of rated */
+    double capacity_pct;      /* precision-weighted median of the recent estimates, % of rated */
     double spread_mv;         /* median of the recent resting spreads */
     int overdischarges;       /* flights below the floor */
     enum health_status status;
@@ -97,11 +98,14 @@ struct trend_bucket {
 
 /* One quantity's regression against cycles and against days, and when it
  * crosses its retirement level. cross_* NAN when it does not within the
- * horizon; crossed set when the fitted line is there already. */
+ * horizon. crossed: the retirement rule fires now (the pack's state, the
+ * same in every view); line_past: the fitted line is at the level already,
+ * whether or not the rule has fired. */
 struct trend_line {
     struct line_fit vs_cycles, vs_days;
     double level; /* the retirement level it is checked against */
     int crossed;
+    int line_past;
     double cross_cycles;  /* equivalent cycles at the crossing */
     double cross_epoch_s; /* date of the crossing, from the time fit */
     int beyond_horizon;   /* a crossing exists, but later than the horizon */

@@ -60,7 +60,9 @@ static void crossing_text(const struct trend_line *tl, const struct line_fit *l,
     snprintf(slope, sizeof slope, "%+.2f \u00b1 %.2f %s per %g %s", l->b * per, l->b_ci95 * per,
              unit, per, per_unit);
     if (tl->crossed)
-        snprintf(when, sizeof when, "at or past the retirement level now");
+        snprintf(when, sizeof when, "retirement level reached (the rule fires)");
+    else if (tl->line_past)
+        snprintf(when, sizeof when, "line past the retirement level; recent flights not yet");
     else if (crossing_where(tl, by_date, where, sizeof where))
         snprintf(when, sizeof when, "reaches the retirement level at \u2248 %s", where);
     else if (tl->beyond_horizon)

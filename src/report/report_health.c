@@ -261,11 +261,11 @@ static json_t *line_obj(const struct line_fit *l)
 
 static json_t *trend_line_obj(const struct trend_line *t)
 {
-    return json_pack("{s:o, s:o, s:o, s:b, s:o, s:o, s:b}", "vs_cycles", line_obj(&t->vs_cycles),
-                     "per_day", line_obj(&t->vs_days), "retire_level", jout_num(t->level),
-                     "crossed", t->crossed, "crossing_cycles", jout_num(t->cross_cycles),
-                     "crossing_date", jout_date(t->cross_epoch_s), "beyond_horizon",
-                     t->beyond_horizon);
+    return json_pack("{s:o, s:o, s:o, s:b, s:b, s:o, s:o, s:b}", "vs_cycles",
+                     line_obj(&t->vs_cycles), "per_day", line_obj(&t->vs_days), "retire_level",
+                     jout_num(t->level), "crossed", t->crossed, "line_past", t->line_past,
+                     "crossing_cycles", jout_num(t->cross_cycles), "crossing_date",
+                     jout_date(t->cross_epoch_s), "beyond_horizon", t->beyond_horizon);
 }
 
 static void text_projection(FILE *out, const char *what, const struct trend_line *t,
@@ -282,7 +282,12 @@ static void text_projection(FILE *out, const char *what, const struct trend_line
     if (!isfinite(t->level))
         fprintf(out, "no retirement level (no baseline)\n");
     else if (t->crossed)
-        fprintf(out, "at or past the retirement level %.2f already\n", t->level);
+        fprintf(out, "retirement level %.2f reached (the rule fires)\n", t->level);
+    else if (t->line_past)
+        fprintf(out,
+                "the fitted line is past the retirement level %.2f; the recent flights are "
+                "not yet: watch closely\n",
+                t->level);
     else if (isfinite(t->cross_cycles))
         fprintf(out, "reaches %.2f at cycle %.0f (%.0f from now)%s%s\n", t->level, t->cross_cycles,
                 t->cross_cycles - cycles_now, isfinite(t->cross_epoch_s) ? ", around " : "",
@@ -378,9 +383,13 @@ int report_compare(FILE *out, const struct pack_view *v, size_t n, int json)
     ROW("flights below floor", fmt_num(b, sizeof b, "%.0f", (double)x->health.overdischarges));
     ROW("capacity limit at cycle",
         x->trend.capacity.crossed ? "reached"
-                                  : fmt_num(b, sizeof b, "%.0f", x->trend.capacity.cross_cycles));
-    ROW("R0 limit at cycle",
-        x->trend.r0.crossed ? "reached" : fmt_num(b, sizeof b, "%.0f", x->trend.r0.cross_cycles));
+        : x->trend.capacity.line_past
+            ? "line past"
+            : fmt_num(b, sizeof b, "%.0f", x->trend.capacity.cross_cycles));
+    ROW("R0 limit at cycle", x->trend.r0.crossed ? "reached"
+                             : x->trend.r0.line_past
+                                 ? "line past"
+                                 : fmt_num(b, sizeof b, "%.0f", x->trend.r0.cross_cycles));
     ROW("status", status_of(x));
 #undef ROW
     for (size_t k = 0; k < n; k++)

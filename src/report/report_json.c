@@ -74,6 +74,17 @@ static json_t *analysis_obj(const struct analysis *a, const struct report_input 
     json_object_set_new(o, "r0_method", jout_str(a->r0_method));
     json_object_set_new(o, "r0_mohm_per_cell",
                         jout_num(a->cells > 0 ? a->r0_mohm.value / a->cells : NAN));
+    json_object_set_new(o, "step_a", jout_num(a->has_current ? a->step_a : NAN));
+    json_object_set_new(o, "r0_reason", jout_str(isfinite(a->r0_mohm.value) ? NULL : a->r0_reason));
+    json_t *edge = json_null();
+    if (isfinite(a->r_edge_mohm.value))
+        edge = json_pack("{s:o, s:o, s:I, s:o}", "value", jout_num(a->r_edge_mohm.value), "ci95",
+                         jout_num(a->r_edge_mohm.ci95), "edges", (json_int_t)a->r_edge_steps,
+                         "time_scale_s", jout_num(a->r_edge_time_scale_s));
+    json_object_set_new(o, "r_edge_mohm", edge);
+    json_object_set_new(o, "r_edge_reason", jout_str(a->r_edge_reason));
+    json_object_set_new(o, "r0_model_mohm", est(a->r0_model_mohm));
+    json_object_set_new(o, "r0_model_reason", jout_str(a->r0_reason));
     json_object_set_new(o, "r_static_mohm", est(a->r_static_mohm));
     json_object_set_new(o, "r1_mohm", est(a->r1_mohm));
     json_object_set_new(o, "tau_s", jout_num(a->tau_s.value));
@@ -88,6 +99,16 @@ static json_t *analysis_obj(const struct analysis *a, const struct report_input 
     json_object_set_new(o, "state_start", jout_str(a->state_start));
     json_object_set_new(o, "state_end", jout_str(a->state_end));
     json_object_set_new(o, "capacity_est_mah", est(a->capacity_mah));
+    json_object_set_new(o, "capacity_method", jout_str(a->capacity_method));
+    json_t *cut = json_null();
+    if (isfinite(a->capacity_cutoff_mah.value))
+        cut = json_pack(
+            "{s:o, s:o, s:o, s:o, s:o}", "value", jout_num(a->capacity_cutoff_mah.value), "ci95",
+            jout_num(a->capacity_cutoff_mah.ci95), "c_rate", jout_num(a->capacity_cutoff_c_rate),
+            "mean_current_a", jout_num(a->capacity_cutoff_mean_a), "end_v_per_cell",
+            jout_num(a->capacity_cutoff_end_v_cell));
+    json_object_set_new(o, "capacity_to_cutoff_mah", cut);
+    json_object_set_new(o, "capacity_soc_mah", est(a->capacity_soc_mah));
     json_object_set_new(o, "rest_start_s", jout_num(a->has_current ? a->rest_start_s : NAN));
     json_object_set_new(o, "rest_end_s", jout_num(a->has_current ? a->rest_end_s : NAN));
     json_object_set_new(o, "temperature_min_c", jout_num(a->temp_min_c));
@@ -103,13 +124,15 @@ static json_t *analysis_obj(const struct analysis *a, const struct report_input 
         json_array_append_new(coef, jout_num(a->ocv_coef_v[j]));
     json_object_set_new(
         o, "fit",
-        json_pack("{s:s, s:o, s:I, s:i, s:i, s:o, s:o, s:o, s:I, s:I}", "method",
+        json_pack("{s:s, s:o, s:o, s:I, s:o, s:I, s:i, s:i, s:o, s:o, s:o, s:I, s:I}", "method",
                   in->plain_fit ? "ols" : "robust", "sigma_mv",
-                  jout_num(a->has_current ? a->fit_sigma_mv : NAN), "downweighted",
-                  (json_int_t)a->fit_downweighted, "iterations", a->fit_iterations, "ocv_degree",
-                  a->ocv_degree, "ocv_coef_v", coef, "q_end_ah", jout_num(a->q_end_ah),
-                  "median_interval_s", jout_num(a->median_dt_s), "current_steps",
-                  (json_int_t)a->current_steps, "rows_visited", (json_int_t)a->fit_rows_visited));
+                  jout_num(a->has_current ? a->fit_sigma_mv : NAN), "residual_lag1_corr",
+                  jout_num(a->fit_rho), "windows", (json_int_t)a->fit_windows, "window_s",
+                  jout_num(a->fit_window_s), "downweighted", (json_int_t)a->fit_downweighted,
+                  "iterations", a->fit_iterations, "ocv_degree", a->ocv_degree, "ocv_coef_v", coef,
+                  "q_end_ah", jout_num(a->q_end_ah), "median_interval_s", jout_num(a->median_dt_s),
+                  "current_steps", (json_int_t)a->current_steps, "rows_visited",
+                  (json_int_t)a->fit_rows_visited));
     json_t *cells = json_array();
     for (int c = 0; c < a->ncells_detail; c++) {
         const struct cell_detail *d = &a->cell[c];
@@ -120,6 +143,8 @@ static json_t *analysis_obj(const struct analysis *a, const struct report_input 
     }
     json_object_set_new(o, "cells_detail", cells);
     json_object_set_new(o, "cell_spread_rest_mv", jout_num(a->spread_rest_mv));
+    json_object_set_new(o, "cell_spread_rest_start_mv", jout_num(a->spread_rest_start_mv));
+    json_object_set_new(o, "cell_spread_rest_end_mv", jout_num(a->spread_rest_end_mv));
     json_object_set_new(o, "cell_spread_load_mv", jout_num(a->spread_load_mv));
     json_object_set_new(o, "weakest_cell",
                         a->weakest_cell ? json_integer(a->weakest_cell) : json_null());

@@ -88,9 +88,20 @@ int report_analysis_text(FILE *out, const struct analysis *a, const struct repor
         if (isfinite(a->r0_mohm.value)) {
             if (a->cells > 0)
                 fprintf(out, " (%.2f mOhm/cell)", a->r0_mohm.value / a->cells);
-            fprintf(out, ", %s model", strcmp(a->r0_method, "rc") == 0 ? "R0 + RC" : "R0-only");
+            if (strcmp(a->r0_method, "steps") == 0)
+                fprintf(out, ", %zu current step%s over %.2g s", a->r_edge_steps,
+                        a->r_edge_steps == 1 ? "" : "s", a->r_edge_time_scale_s);
+            else
+                fprintf(out, ", %s model", strcmp(a->r0_method, "rc") == 0 ? "R0 + RC" : "R0-only");
+        } else {
+            fprintf(out, " (not identifiable)");
         }
         fprintf(out, "\n");
+        if (isfinite(a->r0_model_mohm.value) && strcmp(a->r0_method, "steps") == 0) {
+            key(out, "model R0");
+            est(out, a->r0_model_mohm, "%.2f", "mOhm");
+            fprintf(out, ", %s model\n", isfinite(a->tau_s.value) ? "R0 + RC" : "R0-only");
+        }
         if (isfinite(a->tau_s.value)) {
             key(out, "polarisation");
             est(out, a->r1_mohm, "%.2f", "mOhm");
@@ -113,6 +124,14 @@ int report_analysis_text(FILE *out, const struct analysis *a, const struct repor
     est(out, a->capacity_mah, "%.0f", "mAh");
     if (isfinite(a->capacity_mah.value) && in->opts->capacity_mah > 0)
         fprintf(out, " (%.0f %% of rated)", 100.0 * a->capacity_mah.value / in->opts->capacity_mah);
+    if (a->capacity_method && strcmp(a->capacity_method, "to_cutoff") == 0) {
+        fprintf(out, ", full to %.2f V/cell at %.2f A", a->capacity_cutoff_end_v_cell,
+                a->capacity_cutoff_mean_a);
+        if (isfinite(a->capacity_cutoff_c_rate))
+            fprintf(out, " (%.2g C)", a->capacity_cutoff_c_rate);
+    } else if (a->capacity_method) {
+        fprintf(out, ", from the SoC swing");
+    }
     fprintf(out, "\n");
     if (a->has_temp && isfinite(a->temp_min_c)) {
         key(out, "temperature");
@@ -120,9 +139,13 @@ int report_analysis_text(FILE *out, const struct analysis *a, const struct repor
     }
     if (a->ncells_detail > 0) {
         key(out, "cell spread");
-        if (isfinite(a->spread_rest_mv))
-            fprintf(out, "%.0f mV at rest", a->spread_rest_mv);
-        else
+        if (isfinite(a->spread_rest_start_mv))
+            fprintf(out, "%.0f mV at rest before take-off", a->spread_rest_start_mv);
+        if (isfinite(a->spread_rest_start_mv) && isfinite(a->spread_rest_end_mv))
+            fprintf(out, ", ");
+        if (isfinite(a->spread_rest_end_mv))
+            fprintf(out, "%.0f mV at rest after landing", a->spread_rest_end_mv);
+        if (!isfinite(a->spread_rest_start_mv) && !isfinite(a->spread_rest_end_mv))
             fprintf(out, "unknown at rest");
         if (isfinite(a->spread_load_mv))
             fprintf(out, ", up to %.0f mV under load", a->spread_load_mv);

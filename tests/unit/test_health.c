@@ -184,6 +184,41 @@ static void test_trend_without_flights(void **state)
     health_trend_release(&t);
 }
 
+/* A resistance <= 0 (stored by older versions) is no measurement: it never
+ * sets the baseline, so no ratio comes out negative. Weighted median by
+ * hand: values 1500 (w 1/10^2), 1900 (1/40^2), 2000 (1/20^2): total weight
+ * 0.0100 + 0.000625 + 0.0025; sorted 1500 .. 2000, the cumulative weight
+ * passes half (0.0066) at 1500 already (mathematics). */
+static void test_only_valid_values(void **state)
+{
+    (void)state;
+    struct health_flight f[6] = {0};
+    double r0[] = {-40.0, 20.0, 21.0, 22.0, 40.0, 41.0};
+    for (int k = 0; k < 6; k++) {
+        f[k].epoch_s = 86400.0 * k;
+        f[k].charge_mah = 1000.0;
+        f[k].r0_mohm = r0[k];
+        f[k].capacity_mah = f[k].capacity_ci95_mah = NAN;
+        f[k].spread_rest_mv = NAN;
+    }
+    f[3].capacity_mah = 1900.0, f[3].capacity_ci95_mah = 40.0;
+    f[4].capacity_mah = 1500.0, f[4].capacity_ci95_mah = 10.0;
+    f[5].capacity_mah = 2000.0, f[5].capacity_ci95_mah = 20.0;
+    struct health_rules r;
+    health_rules_default(&r);
+    struct pack_health h;
+    health_assess(f, 6, 1, 2000.0, &r, &h);
+    check_close(h.r0_base_mohm_cell, 21.0, 1e-9, "baseline: median of 20, 21 (and 22)");
+    assert_true(h.r0_ratio > 0.0);
+    check_close(h.capacity_pct, 75.0, 1e-9, "precision-weighted median 1500 mAh of 2000");
+    assert_int_equal(h.status, HEALTH_RETIRE);
+    /* the trend says "reached" exactly when the rule fires */
+    struct pack_trend t;
+    assert_int_equal(health_trend(f, 6, 1, 2000.0, &r, TREND_WEEK, 1, 1000.0, &t), 0);
+    assert_true(t.capacity.crossed);
+    health_trend_release(&t);
+}
+
 int main(void)
 {
     gsl_set_error_handler_off();
@@ -193,6 +228,7 @@ int main(void)
         cmocka_unit_test(test_band_textbook),
         cmocka_unit_test(test_crossing_directions),
         cmocka_unit_test(test_rules),
+        cmocka_unit_test(test_only_valid_values),
         cmocka_unit_test(test_trend_buckets_iso_weeks),
         cmocka_unit_test(test_trend_without_flights),
     };

@@ -1,0 +1,487 @@
+#include "ecm.h"
+
+#include "edges.h"
+
+#include <gsl/gsl_errno.h>
+#include <gsl/gsl_min.h>
+#include <math.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include "edges.h"
+
+#define WINDOW_MIN_S 60.0
+#define WINDOW_DT 8.0     /* a window spans at least this many sample intervals */
+#define WINDOW_MIN_ROWS 3 /* windows with fewer samples are left out */
+#define TAU_GRID 12
+#define BIC_MARGIN 10.0 /* the RC model must beat the static one by this */
+
+double ecm_window_s(double dt_med_s)
+{
+    return fmax(WINDOW_MIN_S, WINDOW_DT * dt_med_s);
+}
+
+/* One window's straight line in q for each column: z ~ mz + bz (q - mq). */
+struct win {
+    size_t k0, k1; /* samples [k0, k1) */
+    int use;       /* the window informs R (see ecm_fit) */
+    double mq, sqq;
+    double mv, bv, mi, bi, m1, b1; /* voltage, current, RC current */
+};
+
+struct ctx {
+    const struct series *s;
+    const double *y;
+    const double *q;
+    struct win *w;
+    size_t nw;
+    double step_a;
+    int p;        /* 1: R only; 2: R0 and R1 */
+    double tau_s; /* RC branch */
+    /* running state, reset at k == 0 */
+    size_t at; /* current window */
+    double i1; /* RC branch current */
+    double a_dt, a_val;
+};
+
+static void rc_advance(struct ctx *c, size_t k)
+{
+    const struct series *s = c->s;
+    if (k == 0) {
+        c->i1 = s->i_a[0];
+        c->a_dt = -1.0;
+        return;
+    }
+    double dt = s->t_s[k] - s->t_s[k - 1];
+    if (fabs(dt - c->a_dt) > 1e-9 * dt) {
+        c->a_dt = dt;
+        c->a_val = exp(-dt / c->tau_s);
+    }
+    c->i1 = c->a_val * c->i1 + (1.0 - c->a_val) * s->i_a[k - 1];
+}
+
+/* Each window's line of the RC current (the voltage and current lines are
+ * made once, by base_lines): one pass, the lag running over every sample.
+ * Since the deviations of q sum to zero in a window, the slope is
+ * sum (q - mq) i1 / sqq. */
+static void rc_lines(struct ctx *c)
+{
+    const struct series *s = c->s;
+    for (size_t j = 0; j < c->nw; j++)
+        c->w[j].m1 = c->w[j].b1 = 0.0;
+    size_t at = 0;
+    for (size_t k = 0; k < s->n; k++) {
+        rc_advance(c, k);
+        while (at < c->nw && k >= c->w[at].k1)
+            at++;
+        if (at == c->nw || k < c->w[at].k0)
+            continue;
+        struct win *w = &c->w[at];
+        w->m1 += c->i1;
+        w->b1 += (c->q[k] - w->mq) * c->i1;
+    }
+    for (size_t j = 0; j < c->nw; j++) {
+        struct win *w = &c->w[j];
+        w->m1 /= (double)(w->k1 - w->k0);
+        w->b1 = w->sqq > 0.0 ? w->b1 / w->sqq : 0.0;
+    }
+}
+
+static int row(void *vc, size_t k, double *x, double *y)
+{
+    struct ctx *c = vc;
+    const struct series *s = c->s;
+    if (k == 0)
+        c->at = 0;
+    if (c->p == 2)
+        rc_advance(c, k);
+    while (c->at < c->nw && k >= c->w[c->at].k1)
+        c->at++;
+    if (c->at == c->nw || k < c->w[c->at].k0 || !c->w[c->at].use)
+        return 0;
+    const struct win *w = &c->w[c->at];
+    double dq = c->q[k] - w->mq;
+    x[0] = -(s->i_a[k] - (w->mi + w->bi * dq));
+    if (c->p == 2)
+        x[1] = -(c->i1 - (w->m1 + w->b1 * dq));
+    *y = c->y[k] - (w->mv + w->bv * dq);
+    int step = (k > 0 && fabs(s->i_a[k] - s->i_a[k - 1]) >= c->step_a) ||
+               (k + 1 < s->n && fabs(s->i_a[k + 1] - s->i_a[k]) >= c->step_a);
+    return step ? FIT_ROW_KEEP : 1;
+}
+
+/* Cuts [0, n) into windows of at most win_s, none across a gap. */
+static struct win *make_windows(const struct series *s, double win_s, double gap_s, size_t *nw)
+{
+    size_t cap = 16, m = 0;
+    struct win *w = malloc(cap * sizeof *w);
+    if (!w)
+        return NULL;
+    size_t k0 = 0;
+    for (size_t k = 1; k <= s->n; k++) {
+        int cut = k == s->n || s->t_s[k] - s->t_s[k - 1] > gap_s || s->t_s[k] - s->t_s[k0] > win_s;
+        if (!cut)
+            continue;
+        if (k - k0 >= WINDOW_MIN_ROWS) {
+            if (m == cap) {
+                struct win *g = realloc(w, 2 * cap * sizeof *w);
+                if (!g) {
+                    free(w);
+                    return NULL;
+                }
+                w = g;
+                cap *= 2;
+            }
+            w[m++] = (struct win){.k0 = k0, .k1 = k};
+        }
+        k0 = k;
+    }
+    *nw = m;
+    return w;
+}
+
+/* Means and slopes in q of voltage and current per window. */
+static void base_lines(struct ctx *c)
+{
+    const struct series *s = c->s;
+    for (size_t j = 0; j < c->nw; j++) {
+        struct win *w = &c->w[j];
+        double n = (double)(w->k1 - w->k0), mq = 0.0, mv = 0.0, mi = 0.0;
+        for (size_t k = w->k0; k < w->k1; k++) {
+            mq += c->q[k];
+            mv += c->y[k];
+            mi += s->i_a[k];
+        }
+        mq /= n;
+        mv /= n;
+        mi /= n;
+        double sqq = 0.0, sqv = 0.0, sqi = 0.0;
+        for (size_t k = w->k0; k < w->k1; k++) {
+            double dq = c->q[k] - mq;
+            sqq += dq * dq;
+            sqv += dq * (c->y[k] - mv);
+            sqi += dq * (s->i_a[k] - mi);
+        }
+        /* a window at rest has no charge slope to fit: its line is flat */
+        int slope = sqq > 1e-18 * n;
+        w->mq = mq;
+        w->sqq = slope ? sqq : 0.0;
+        w->mv = mv;
+        w->mi = mi;
+        w->bv = slope ? sqv / sqq : 0.0;
+        w->bi = slope ? sqi / sqq : 0.0;
+        w->m1 = w->b1 = 0.0;
+    }
+}
+
+static size_t window_params(const struct ctx *c)
+{
+    size_t k = 0;
+    for (size_t j = 0; j < c->nw; j++)
+        if (c->w[j].use)
+            k += c->w[j].sqq > 0.0 ? 2 : 1;
+    return k;
+}
+
+static enum pb_code fit_at(struct ctx *c, int p, double tau_s, int robust, size_t *work,
+                           struct fit_result *f, struct pb_error *err)
+{
+    c->p = p;
+    c->tau_s = tau_s;
+    if (p == 2)
+        rc_lines(c);
+    enum pb_code rc = fit_linear(c->s->n, p, row, c, robust, f, err);
+    if (work)
+        *work += f->rows_visited + (p == 2 ? c->s->n : 0);
+    return rc;
+}
+
+/* Charges the windows' own parameters to the degrees of freedom and widens
+ * the covariance for serially correlated residuals; returns rho. */
+static double honest_cov(struct ctx *c, struct fit_result *f)
+{
+    double dof = f->dof - (double)window_params(c);
+    if (dof < 1.0) {
+        f->dof = 0.0;
+        return NAN;
+    }
+    /* lag-1 autocorrelation of the residuals, in sample order */
+    double x[FIT_MAX_P], y, prev = NAN, s01 = 0.0, s00 = 0.0;
+    size_t prev_w = (size_t)-1;
+    for (size_t k = 0; k < c->s->n; k++) {
+        if (k == 0)
+            c->at = 0;
+        if (!row(c, k, x, &y)) {
+            prev = NAN;
+            continue;
+        }
+        double r = y;
+        for (int j = 0; j < f->p; j++)
+            r -= x[j] * f->beta[j];
+        if (isfinite(prev) && prev_w == c->at)
+            s01 += r * prev;
+        s00 += r * r;
+        prev = r;
+        prev_w = c->at;
+    }
+    double rho = s00 > 0.0 ? s01 / s00 : 0.0;
+    double infl = rho > 0.0 ? (1.0 + rho) / (1.0 - fmin(rho, 0.99)) : 1.0;
+    double k = f->dof / dof * infl;
+    for (int i = 0; i < f->p; i++)
+        for (int j = 0; j < f->p; j++)
+            f->cov[i][j] *= k;
+    f->sigma *= sqrt(f->dof / dof);
+    f->dof = dof;
+    return rho;
+}
+
+struct tau_search {
+    struct ctx *c;
+    size_t *work;
+    int failed;
+};
+
+static double rss_at(double log_tau, void *vts)
+{
+    struct tau_search *ts = vts;
+    struct fit_result f;
+    if (fit_at(ts->c, 2, exp(log_tau), 0, ts->work, &f, NULL) != PB_OK) {
+        ts->failed = 1;
+        return HUGE_VAL;
+    }
+    return f.rss;
+}
+
+/* Profiles the plain RSS over log tau on a grid, then Brent's method on the
+ * best bracket. NAN when the best tau is at a grid end (not resolved). */
+static double search_tau(struct ctx *c, double lo_s, double hi_s, size_t *work)
+{
+    double lo = log(lo_s), hi = log(hi_s);
+    if (!(hi - lo > 1.0))
+        return NAN;
+    struct tau_search ts = {c, work, 0};
+    double g[TAU_GRID], f[TAU_GRID];
+    int best = 0;
+    for (int j = 0; j < TAU_GRID; j++) {
+        g[j] = lo + (hi - lo) * j / (TAU_GRID - 1);
+        f[j] = rss_at(g[j], &ts);
+        if (f[j] < f[best])
+            best = j;
+    }
+    if (ts.failed || best == 0 || best == TAU_GRID - 1)
+        return NAN;
+    gsl_function fn = {rss_at, &ts};
+    gsl_min_fminimizer *mz = gsl_min_fminimizer_alloc(gsl_min_fminimizer_brent);
+    double x = g[best];
+    if (mz &&
+        gsl_min_fminimizer_set_with_values(mz, &fn, g[best], f[best], g[best - 1], f[best - 1],
+                                           g[best + 1], f[best + 1]) == GSL_SUCCESS) {
+        for (int it = 0; it < 40; it++) {
+            if (gsl_min_fminimizer_iterate(mz) != GSL_SUCCESS)
+                break;
+            x = gsl_min_fminimizer_x_minimum(mz);
+            if (gsl_min_test_interval(gsl_min_fminimizer_x_lower(mz),
+                                      gsl_min_fminimizer_x_upper(mz), 1e-3, 0.0) == GSL_SUCCESS)
+                break;
+        }
+    }
+    gsl_min_fminimizer_free(mz);
+    return ts.failed ? NAN : exp(x);
+}
+
+static double bic(double rss, double n, int k)
+{
+    return n * log(fmax(rss, 1e-300) / n) + k * log(n);
+}
+
+enum pb_code ecm_fit(const struct series *s, const double *q_ah, const struct ecm_opts *o,
+                     struct ecm_result *out, struct pb_error *err)
+{
+    *out = (struct ecm_result){0};
+    out->r0_mohm = out->r0_ci95_mohm = out->r_static_mohm = out->r_static_ci95_mohm = NAN;
+    out->r1_mohm = out->r1_ci95_mohm = out->tau_s = out->sigma_mv = out->rho = NAN;
+    out->window_s = ecm_window_s(o->dt_med_s);
+    struct ctx c = {.s = s, .y = o->y_v, .q = q_ah, .step_a = o->step_a};
+    c.w = make_windows(s, out->window_s, o->gap_s, &c.nw);
+    if (!c.w)
+        return pb_error_set(err, PB_ENOMEM, "out of memory");
+    out->windows = c.nw;
+    enum pb_code rc = PB_OK;
+    base_lines(&c);
+    /* A window informs R only if its current varies well above the current
+     * sensor's noise: noise in a regressor biases its coefficient toward
+     * zero by var(noise) / var(total), so at least 5 noise deviations (bias
+     * under 4 %). Windows that touch the cut-off voltage are left out: near
+     * empty the resistance rises steeply and no constant R fits there. */
+    double sigma_i = edges_noise(s->i_a, s->i_a, s->n, o->step_a);
+    if (!isfinite(sigma_i))
+        sigma_i = 0.0;
+    size_t informative = 0;
+    for (size_t j = 0; j < c.nw; j++) {
+        struct win *w = &c.w[j];
+        double ss = 0.0, vmin = HUGE_VAL;
+        for (size_t k = w->k0; k < w->k1; k++) {
+            double d = s->i_a[k] - (w->mi + w->bi * (q_ah[k] - w->mq));
+            ss += d * d;
+            vmin = fmin(vmin, s->v_v[k]);
+        }
+        double n = (double)(w->k1 - w->k0);
+        w->use = ss > 25.0 * sigma_i * sigma_i * n && ss > 1e-12 * n &&
+                 !(o->cutoff_v > 0.0 && vmin <= o->cutoff_v);
+        informative += (size_t)w->use;
+    }
+    out->windows = informative;
+    if (informative == 0) {
+        out->reason = "the current does not vary above its noise within any part of the log "
+                      "away from the cut-off: resistance cannot be told apart from the falling "
+                      "open-circuit voltage";
+        goto done;
+    }
+    struct fit_result fs;
+    if (fit_at(&c, 1, 0.0, o->robust, o->work, &fs, NULL) != PB_OK || fs.rank < 1) {
+        out->reason = "the resistance fit failed (too few samples inside the windows)";
+        goto done;
+    }
+    double rho = honest_cov(&c, &fs);
+    double r_static = 1000.0 * fs.beta[0], r_static_ci = 1000.0 * fit_ci95(&fs, 0);
+    out->r_static_mohm = r_static;
+    out->r_static_ci95_mohm = r_static_ci;
+    out->sigma_mv = 1000.0 * fs.sigma;
+    out->rho = rho;
+    out->downweighted = fs.n_downweighted;
+    out->iterations = fs.iterations;
+    out->r0_mohm = r_static;
+    out->r0_ci95_mohm = r_static_ci;
+
+    int try_rc = (o->try_rc || o->tau_fixed_s > 0.0) && s->n >= 50;
+    if (try_rc) {
+        double tau = o->tau_fixed_s;
+        if (!(tau > 0.0)) {
+            /* resolvable: slower than the sampling, faster than half a window */
+            double lo = fmax(2.0 * o->dt_med_s, 1e-3), hi = 0.5 * out->window_s;
+            tau = search_tau(&c, lo, hi, o->work);
+        }
+        struct fit_result fr;
+        if (isfinite(tau) && fit_at(&c, 2, tau, o->robust, o->work, &fr, NULL) == PB_OK &&
+            fr.rank == 2) {
+            double rss_plain_rc = fr.rss_plain;
+            double rho_rc = honest_cov(&c, &fr);
+            double r0 = 1000.0 * fr.beta[0], r1 = 1000.0 * fr.beta[1];
+            double r1_ci = 1000.0 * fit_ci95(&fr, 1);
+            double n_eff = (double)fs.n_used - (double)window_params(&c);
+            /* the branch must be physical (R0 > 0, R1 >= 0), explain real
+             * residual, beat the static model by the information criterion
+             * (paying for R1 and tau) and be significant; a fixed tau (the
+             * pack's, for a cell) needs only the physical part */
+            int fixed = o->tau_fixed_s > 0.0;
+            int better =
+                fixed || (fr.rss_plain < 0.95 * fs.rss_plain &&
+                          bic(rss_plain_rc, n_eff, 3) < bic(fs.rss_plain, n_eff, 1) - BIC_MARGIN &&
+                          r1 > r1_ci);
+            if (r0 > 0.0 && r1 >= 0.0 && better) {
+                out->rc = 1;
+                out->r0_mohm = r0;
+                out->r0_ci95_mohm = 1000.0 * fit_ci95(&fr, 0);
+                out->r1_mohm = r1;
+                out->r1_ci95_mohm = r1_ci;
+                out->tau_s = tau;
+                out->sigma_mv = 1000.0 * fr.sigma;
+                out->rho = rho_rc;
+                out->downweighted = fr.n_downweighted;
+                out->iterations = fr.iterations;
+            }
+        }
+    }
+    if (!(out->r0_mohm > 0.0)) {
+        out->reason = "the fitted resistance is not positive: the log cannot separate resistance "
+                      "from the voltage drift (or voltage and current are out of step)";
+    } else if (!(out->r0_ci95_mohm < out->r0_mohm)) {
+        out->reason = "the resistance fit is too uncertain to report";
+    }
+done:
+    if (out->reason) {
+        out->r0_mohm = out->r0_ci95_mohm = NAN;
+        out->r1_mohm = out->r1_ci95_mohm = out->tau_s = NAN;
+        out->rc = 0;
+    }
+    free(c.w);
+    return rc;
+}
+
+/* ---- OCV trend with R fixed ------------------------------------------- */
+
+struct trend_ctx {
+    const struct series *s;
+    const double *q;
+    double q_scale;
+    int degree;
+    double r0, r1, tau, v_ref;
+    double i1, a_dt, a_val;
+};
+
+static int trend_row(void *vc, size_t k, double *x, double *y)
+{
+    struct trend_ctx *c = vc;
+    const struct series *s = c->s;
+    double v = s->v_v[k] + c->r0 * s->i_a[k];
+    if (c->r1 > 0.0) {
+        if (k == 0) {
+            c->i1 = s->i_a[0];
+            c->a_dt = -1.0;
+        } else {
+            double dt = s->t_s[k] - s->t_s[k - 1];
+            if (fabs(dt - c->a_dt) > 1e-9 * dt) {
+                c->a_dt = dt;
+                c->a_val = exp(-dt / c->tau);
+            }
+            c->i1 = c->a_val * c->i1 + (1.0 - c->a_val) * s->i_a[k - 1];
+        }
+        v += c->r1 * c->i1;
+    }
+    double u = c->degree > 0 ? 2.0 * c->q[k] * c->q_scale - 1.0 : 0.0;
+    double p = 1.0;
+    for (int j = 0; j <= c->degree; j++) {
+        x[j] = p;
+        p *= u;
+    }
+    *y = v - c->v_ref;
+    return 1;
+}
+
+enum pb_code ecm_ocv_trend(const struct series *s, const double *q_ah, double q_end_ah, int degree,
+                           double r0_ohm, double r1_ohm, double tau_s, int robust, size_t *work,
+                           struct fit_result *out, struct pb_error *err)
+{
+    struct trend_ctx c = {.s = s,
+                          .q = q_ah,
+                          .q_scale = q_end_ah != 0.0 ? 1.0 / q_end_ah : 0.0,
+                          .degree = degree,
+                          .r0 = r0_ohm,
+                          .r1 = tau_s > 0.0 ? r1_ohm : 0.0,
+                          .tau = tau_s,
+                          .v_ref = s->v_v[0]};
+    enum pb_code rc = fit_linear(s->n, degree + 1, trend_row, &c, robust, out, err);
+    if (work)
+        *work += out->rows_visited;
+    /* the reference voltage back into the constant term */
+    out->beta[0] += c.v_ref;
+    return rc;
+}
+
+void ecm_ocv_at(const struct fit_result *f, int degree, double u, double *v, double *se)
+{
+    double g[FIT_MAX_P] = {0};
+    double p = 1.0;
+    for (int j = 0; j <= degree; j++) {
+        g[j] = p;
+        p *= u;
+    }
+    double val = 0.0, var = 0.0;
+    for (int i = 0; i <= degree; i++) {
+        val += g[i] * f->beta[i];
+        for (int j = 0; j <= degree; j++)
+            var += g[i] * g[j] * f->cov[i][j];
+    }
+    *v = val;
+    *se = sqrt(fmax(var, 0.0));
+}

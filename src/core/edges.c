@@ -1,0 +1,148 @@
+#include "edges.h"
+
+#include <gsl/gsl_cdf.h>
+#include <math.h>
+#include <stdlib.h>
+
+#include "fit.h"
+
+#define NOISE_SAMPLES 65536
+
+double edges_noise(const double *v, const double *i, size_t n, double step_a)
+{
+    if (n < 3)
+        return NAN;
+    size_t stride = n / NOISE_SAMPLES + 1, m = 0;
+    double *d = malloc((n / stride + 1) * sizeof *d);
+    if (!d)
+        return NAN;
+    double res = HUGE_VAL;
+    for (size_t k = 1; k + 1 < n; k += stride) {
+        if (fabs(i[k + 1] - i[k]) > 0.05 * step_a || fabs(i[k] - i[k - 1]) > 0.05 * step_a)
+            continue;
+        double dv = fabs(v[k] - v[k - 1]);
+        if (dv > 0.0)
+            res = fmin(res, dv);
+        d[m++] = fabs(v[k + 1] - 2.0 * v[k] + v[k - 1]);
+    }
+    double sigma = m ? 1.4826 * fit_median(d, m) / sqrt(6.0) : NAN;
+    free(d);
+    if (isfinite(res))
+        sigma = isfinite(sigma) ? fmax(sigma, res / sqrt(12.0)) : res / sqrt(12.0);
+    return sigma;
+}
+
+static int cmp_double(const void *a, const void *b)
+{
+    double x = *(const double *)a, y = *(const double *)b;
+    return (x > y) - (x < y);
+}
+
+/* Distribution-free 95 % interval of the median from order statistics
+ * (the binomial(n, 1/2) quantiles; any textbook of nonparametric
+ * statistics, e.g. Conover, "Practical Nonparametric Statistics"): the
+ * half-width reported is the larger distance from the median. */
+static double median_ci95(const double *sorted, size_t n, double med)
+{
+    /* largest j with P(B <= j - 1) <= 0.025, B ~ Bin(n, 1/2) */
+    size_t j = 0;
+    while (j + 1 <= n / 2 && gsl_cdf_binomial_P((unsigned)j, 0.5, (unsigned)n) <= 0.025)
+        j++;
+    if (j == 0)
+        return NAN;
+    double lo = sorted[j - 1], hi = sorted[n - j];
+    return fmax(med - lo, hi - med);
+}
+
+void edges_estimate(const double *t_s, const double *v_v, const double *i_a, size_t n,
+                    const struct edges_opts *o, struct edges_result *out)
+{
+    *out = (struct edges_result){0};
+    out->r_mohm = out->ci95_mohm = out->time_scale_s = out->noise_mv = NAN;
+    double step_a = o->rated_mah > 0.0 ? 0.2 * o->rated_mah / 1000.0 : 0.2 * o->peak_a;
+    step_a = fmax(step_a, 0.1);
+    out->step_a = step_a;
+    if (!i_a || n < 2) {
+        out->reason = "no current";
+        return;
+    }
+    size_t cap = 0;
+    for (size_t k = 1; k < n; k++)
+        cap += fabs(i_a[k] - i_a[k - 1]) >= step_a;
+    if (cap == 0) {
+        out->reason = "no current step";
+        return;
+    }
+    double *r = malloc(cap * sizeof *r), *dt = malloc(cap * sizeof *dt);
+    if (!r || !dt) {
+        free(r);
+        free(dt);
+        out->reason = "out of memory";
+        return;
+    }
+    size_t m = 0;
+    for (size_t k = 1; k < n; k++) {
+        double di = i_a[k] - i_a[k - 1];
+        if (fabs(di) < step_a)
+            continue;
+        double span = t_s[k] - t_s[k - 1];
+        int near_cutoff = o->cutoff_v > 0.0 && fmin(v_v[k], v_v[k - 1]) <= o->cutoff_v;
+        if (span > o->gap_s || near_cutoff || (o->joint && o->joint[k])) {
+            out->left_out++;
+            continue;
+        }
+        /* the voltage after the step, taken back to the middle of the step
+         * interval along the next interval's slope when that interval holds
+         * the current and is about as long: the polarisation that built up
+         * within the interval is then mostly left out, so loggers of
+         * different rates give comparable figures */
+        double v_after = v_v[k];
+        if (k + 1 < n && !(o->joint && o->joint[k + 1])) {
+            double span2 = t_s[k + 1] - t_s[k];
+            if (span2 >= 0.5 * span && span2 <= 2.0 * span &&
+                fabs(i_a[k + 1] - i_a[k]) < 0.05 * fabs(di)) {
+                v_after -= (v_v[k + 1] - v_v[k]) / span2 * 0.5 * span;
+                out->extrapolated++;
+            }
+        }
+        r[m] = -1000.0 * (v_after - v_v[k - 1]) / di;
+        dt[m] = span;
+        m++;
+    }
+    out->steps = m;
+    if (m == 0) {
+        out->reason = "every current step is near the cut-off or across a gap";
+        free(r);
+        free(dt);
+        return;
+    }
+    qsort(r, m, sizeof *r, cmp_double);
+    double med = m % 2 ? r[m / 2] : 0.5 * (r[m / 2 - 1] + r[m / 2]);
+    out->time_scale_s = fit_median(dt, m);
+    double noise_v = edges_noise(v_v, i_a, n, step_a);
+    out->noise_mv = 1000.0 * noise_v;
+    /* one step's resistance error from the noise of its two voltages */
+    double di_typ = step_a;
+    double noise_ci = isfinite(noise_v) ? 1.96 * sqrt(2.0) * 1000.0 * noise_v / di_typ : NAN;
+    double ci = median_ci95(r, m, med);
+    if (!isfinite(ci) && m >= 2) {
+        /* too few steps for the order-statistic interval: Student t on their spread */
+        double mean = 0.0, ss = 0.0;
+        for (size_t k = 0; k < m; k++)
+            mean += r[k] / (double)m;
+        for (size_t k = 0; k < m; k++)
+            ss += (r[k] - mean) * (r[k] - mean);
+        ci = gsl_cdf_tdist_Pinv(0.975, (double)(m - 1)) * sqrt(ss / (double)(m - 1) / (double)m);
+    }
+    if (isfinite(noise_ci))
+        ci = isfinite(ci) ? hypot(ci, noise_ci / sqrt((double)m)) : noise_ci;
+    out->r_mohm = med;
+    out->ci95_mohm = ci;
+    if (!(med > 0.0)) {
+        out->reason = "the steps give a resistance that is not positive: voltage and current "
+                      "may be out of step or the current sign wrong";
+        out->r_mohm = NAN;
+    }
+    free(r);
+    free(dt);
+}
