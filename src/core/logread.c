@@ -1114,13 +1114,13 @@ struct series *logread_file(FILE *fp, const char *name, const struct logread_opt
         order_times(&r);
         if (r.failed)
             goto cleanup;
-        /* a clock restarts now and then; a column that goes back at every
-         * few rows is not a clock */
-        if (stats->time_back_steps > 10 && stats->time_back_steps > stats->records / 100) {
+        /* a clock restarts now and then, a buffered logger writes a row late
+         * now and then; a column that goes back at one row in 20 is not a clock */
+        if (stats->time_back_steps > 10 && stats->time_back_steps > stats->records / 20) {
             pb_error_set(err, PB_EINPUT,
                          "%s:%zu:%d: the time column goes back at %zu places (this is the "
                          "first): is it the time? (name the time column with --map "
-                         "time_s=COLUMN)",
+                         "time_s=COLUMN, or sort the rows by time)",
                          name, first_back_line(stats), stats->time_column, stats->time_back_steps);
             goto cleanup;
         }

@@ -428,6 +428,24 @@ class BadInput(unittest.TestCase):
         self.assertNotIn("clock_restart", warning_codes(doc))
         self.assertAlmostEqual(doc["duration_s"], self.base["duration_s"], delta=1e-9)
 
+    def test_rows_written_late_now_and_then(self):
+        # a buffered logger writes every 50th row one row late (lines 51/52, 101/102, ...):
+        # each late row is a lone row behind, dropped and counted; the log is kept
+        ls = lines_of(make_log())
+        for ln in (51, 101, 151):
+            ls[ln - 1], ls[ln] = ls[ln], ls[ln - 1]
+        path = self.temp("".join(ls))
+        doc = analyze_ok(path)
+        self.assert_counted(doc, "dropped_stray_time", 3, path, 52, 1)
+        self.assert_input(doc, N, N - 3, 3)
+
+    def test_time_column_that_is_not_a_clock(self):
+        # every other row goes back: refused (exit 3) at the first place, naming the fixes
+        cols = [("time_s", lambda k, t, v, i: f"{t if k % 2 else 100 - t:.1f}"), STD[1], STD[2]]
+        path = self.temp(make_log(cols))
+        self.assert_error(EXIT_INPUT, ["analyze", path], f"{path}:3:1", "goes back at",
+                          "--map time_s=COLUMN", "sort the rows")
+
     def test_lone_row_ahead_dropped(self):
         # line 31 jumps to 99 s and line 32 goes on from line 30: the row ahead is the stray
         ls = lines_of(make_log())
