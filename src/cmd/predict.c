@@ -1,13 +1,17 @@
 /* packbook predict: safe flight time for the next sortie, from a pack's
  * history or from one log, with the landing reserve and its uncertainty. */
 #include <getopt.h>
+#include <jansson.h>
+#include <gsl/gsl_cdf.h>
 #include <math.h>
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
 
+#include "../core/analyze.h"
 #include "../core/logread.h"
 #include "../core/predict.h"
+#include "../core/socest.h"
 #include "../report/report.h"
 #include "../report/report_predict.h"
 #include "cmd.h"
@@ -124,6 +128,151 @@ static double median_sd(const double *v, size_t n, double *sd)
     return m % 2 ? buf[m / 2] : 0.5 * (buf[m / 2 - 1] + buf[m / 2]);
 }
 
+/* The capacity the next flight will have, from the pack's trend: a straight
+ * line through the last (up to NEXT_CAP_FLIGHTS) capacities against flight
+ * number, at the next flight, with the spread set so that the Monte Carlo's
+ * 5th percentile is the lower end of the one-sided 95 % prediction interval
+ * of one new value (Student t, n - 2 dof; the textbook prediction interval
+ * of simple regression). A fading pack's next flight is weaker than the
+ * median of its recent ones, and the flight-to-flight scatter is wider than
+ * each measurement's own interval: the conservative time must allow for
+ * both. Needs 4 capacities; else the caller's median stands. */
+#define NEXT_CAP_FLIGHTS 10
+
+/* The value of y at x0 from a straight line through (x, y) (m points, m >=
+ * 4), and the spread for a normal draw whose 5th percentile is the lower
+ * end of the one-sided 95 % prediction interval of one new value (Student
+ * t, m - 2 dof; the textbook prediction interval of simple regression),
+ * widened for the residuals' lag-1 autocorrelation rho > 0 (variance times
+ * (1 + rho) / (1 - rho)), x in time order or reversed. Returns 0, or -1
+ * when the line cannot be fitted. */
+static int next_value(const double *x, const double *y, size_t m, double x0, double *mean,
+                      double *sd)
+{
+    if (m < 4)
+        return -1;
+    struct line_fit l = health_line(x, y, m, 1);
+    if (!l.ok)
+        return -1;
+    *mean = l.a + l.b * x0;
+    double var_mean = l.cov_aa + 2.0 * x0 * l.cov_ab + x0 * x0 * l.cov_bb;
+    double se_new = sqrt(l.sigma * l.sigma + fmax(var_mean, 0.0));
+    double s01 = 0.0, s00 = 0.0, prev = NAN;
+    for (size_t j = 0; j < m; j++) {
+        double r = y[j] - (l.a + l.b * x[j]);
+        if (isfinite(prev))
+            s01 += r * prev;
+        s00 += r * r;
+        prev = r;
+    }
+    double rho = s00 > 0.0 ? s01 / s00 : 0.0;
+    if (rho > 0.0)
+        se_new *= sqrt((1.0 + rho) / (1.0 - fmin(rho, 0.9)));
+    /* z(0.95) = 1.6449: the normal's 5th percentile lands on the t bound */
+    *sd = gsl_cdf_tdist_Pinv(0.95, (double)m - 2.0) * se_new / 1.6449;
+    return isfinite(*mean) && isfinite(*sd) ? 0 : -1;
+}
+
+/* The capacity the next flight will have, from the pack's trend: the line
+ * through the last (up to NEXT_CAP_FLIGHTS) capacities against flight
+ * number, at the next flight (next_value). A fading pack's next flight is
+ * weaker than the median of its recent ones, and the flight-to-flight
+ * scatter (with its streaks: a rest lets capacity recover, then it fades
+ * again) is wider than each measurement's own interval; the conservative
+ * time must allow for both. Fewer than 4 capacities: the caller's median. */
+static void next_capacity(const struct pack_view *v, struct predict_inputs *in)
+{
+    double x[NEXT_CAP_FLIGHTS], y[NEXT_CAP_FLIGHTS], mean, sd;
+    size_t m = 0;
+    for (size_t k = v->nflights; k > 0 && m < NEXT_CAP_FLIGHTS; k--) {
+        double c = v->flights[k - 1].capacity_mah;
+        if (!(c > 0.0))
+            continue;
+        x[m] = (double)k;
+        y[m] = c;
+        m++;
+    }
+    if (next_value(x, y, m, (double)v->nflights + 1.0, &mean, &sd) != 0 || !(mean > 0.0))
+        return;
+    in->capacity_mah = mean;
+    in->capacity_sd_mah = sd;
+}
+
+/* The pack's voltage offset (predict_voltage_offset) over its last (up to
+ * NEXT_CAP_FLIGHTS) flights: their median, spread by their standard
+ * deviation (3 or more) or else by the allowances SoC is read with (the
+ * table's spread and the polarisation a model misses, 95 % half-widths). */
+static void voltage_offset(const struct pack_view *v, struct predict_inputs *in)
+{
+    double off[NEXT_CAP_FLIGHTS];
+    size_t m = 0;
+    for (size_t k = v->nflights; k > 0 && m < NEXT_CAP_FLIGHTS; k--) {
+        const struct flight_rec *f = &v->flights[k - 1];
+        double cap = f->capacity_mah > 0.0 ? f->capacity_mah : in->capacity_mah;
+        double vm = f->energy_used_wh * 1000.0 / f->charge_used_mah;
+        double r = f->r0_mohm + (isfinite(f->r1_mohm) ? f->r1_mohm : 0.0);
+        double o = predict_voltage_offset(in->chem, in->cells, cap, f->soc_start_pct,
+                                          f->charge_used_mah, f->energy_used_wh,
+                                          f->power_cruise_w / vm, r / 1000.0);
+        if (isfinite(o))
+            off[m++] = o;
+    }
+    double allowance = hypot(SOCEST_TABLE_V, SOCEST_LOADED_V) / 1.96;
+    double sd;
+    in->v_offset_v = m ? median_sd(off, m, &sd) : 0.0;
+    in->v_offset_sd_v = m >= 3 ? sd : allowance;
+}
+
+/* Better than voltage_offset where the store has them: the recent flights'
+ * own sag-corrected OCV trends (their stored reports) against the table over
+ * the SoC span the prediction crosses, [soc_lo, soc_hi]. A generic table's
+ * shape can differ from a cell's by tens of mV in one part of the curve and
+ * not in another, so the mean over the whole flight is not enough. */
+static void curve_offset(struct store *st, const struct pack_view *v, struct predict_inputs *in,
+                         double soc_lo, double soc_hi)
+{
+    double off[NEXT_CAP_FLIGHTS], idx[NEXT_CAP_FLIGHTS];
+    size_t m = 0, tried = 0;
+    for (size_t k = v->nflights; k > 0 && tried < NEXT_CAP_FLIGHTS; k--, tried++) {
+        const struct flight_rec *f = &v->flights[k - 1];
+        char *text = NULL;
+        if (store_flight_report(st, f->id, &text, NULL) != PB_OK || !text)
+            continue;
+        json_t *doc = json_loads(text, 0, NULL);
+        free(text);
+        json_t *fit = doc ? json_object_get(doc, "fit") : NULL;
+        json_t *coef = fit ? json_object_get(fit, "ocv_coef_v") : NULL;
+        double c[OCV_POLY_MAX];
+        size_t nc = json_is_array(coef) ? json_array_size(coef) : 0;
+        for (size_t j = 0; j < nc && j < OCV_POLY_MAX; j++)
+            c[j] = json_number_value(json_array_get(coef, j));
+        double q_end = fit ? json_number_value(json_object_get(fit, "q_end_ah")) : NAN;
+        double cap = f->capacity_mah > 0.0 ? f->capacity_mah : in->capacity_mah;
+        double o = nc >= 1 && nc <= OCV_POLY_MAX
+                       ? predict_curve_offset(in->chem, in->cells, c, (int)nc - 1, q_end,
+                                              f->soc_start_pct, cap, soc_lo, soc_hi)
+                       : NAN;
+        json_decref(doc);
+        if (isfinite(o)) {
+            idx[m] = (double)k;
+            off[m++] = o;
+        }
+    }
+    if (m == 0)
+        return;
+    /* like capacity: the next flight's value from the recent trend (an
+     * ageing cell sags more every flight), else their median */
+    double sd, mean;
+    if (next_value(idx, off, m, (double)v->nflights + 1.0, &mean, &sd) == 0) {
+        in->v_offset_v = mean;
+        in->v_offset_sd_v = sd;
+        return;
+    }
+    in->v_offset_v = median_sd(off, m, &sd);
+    if (m >= 3)
+        in->v_offset_sd_v = sd;
+}
+
 /* From the last (up to 5) flights of a pack. */
 static enum pb_code inputs_from_history(const struct pack_view *v, struct predict_inputs *in,
                                         struct pb_error *err)
@@ -153,6 +302,8 @@ static enum pb_code inputs_from_history(const struct pack_view *v, struct predic
     in->capacity_mah = median_sd(cap, m, &sd);
     double ci = median_sd(capci, m, &ci_sd);
     in->capacity_sd_mah = fmax(isfinite(sd) ? sd : 0.0, isfinite(ci) ? ci / 1.96 : 0.0);
+    next_capacity(v, in);
+    voltage_offset(v, in);
     if (!isfinite(in->capacity_mah)) {
         in->capacity_mah = v->pack.capacity_mah;
         in->capacity_sd_mah = 0.05 * v->pack.capacity_mah;
@@ -194,12 +345,20 @@ static void inputs_from_analysis(const struct analysis *a, double rated_mah, con
     in->tau_s = a->tau_s.value;
     in->power_w = a->power_cruise_w;
     in->power_sd_w = 0.0;
+    double r = a->r0_mohm.value + (isfinite(a->r1_mohm.value) ? a->r1_mohm.value : 0.0);
+    double vm = a->energy_used_wh * 1000.0 / a->charge_used_mah;
+    double off = predict_voltage_offset(a->chem, a->cells, in->capacity_mah,
+                                        a->soc_start_pct.value, a->charge_used_mah,
+                                        a->energy_used_wh, a->power_cruise_w / vm, r / 1000.0);
+    in->v_offset_v = isfinite(off) ? off : 0.0;
+    in->v_offset_sd_v = hypot(SOCEST_TABLE_V, SOCEST_LOADED_V) / 1.96;
 }
 
 static void setup(const struct predict_inputs *in, const struct predict_cli *cli,
                   struct predict_pack *p, struct predict_opts *o, struct predict_spread *sp)
 {
     memset(p, 0, sizeof *p);
+    memset(sp, 0, sizeof *sp);
     p->chem = in->chem;
     p->cells = in->cells;
     p->capacity_ah = in->capacity_mah / 1000.0;
@@ -209,7 +368,9 @@ static void setup(const struct predict_inputs *in, const struct predict_cli *cli
         p->tau_s = in->tau_s;
     }
     p->t_ref_c = cli ? cli->tref_c : 25.0;
+    p->v_offset_v = isfinite(in->v_offset_v) ? in->v_offset_v : 0.0;
     predict_opts_default(o);
+    sp->v_offset_sd_v = isfinite(in->v_offset_sd_v) ? in->v_offset_sd_v : 0.0;
     sp->capacity_sd_ah = in->capacity_sd_mah / 1000.0;
     sp->r0_sd_ohm = isfinite(in->r0_sd_mohm) ? in->r0_sd_mohm / 1000.0 : 0.0;
     sp->runs = 400;
@@ -418,6 +579,7 @@ enum pb_code cmd_predict(int argc, char **argv, struct app *app, struct pb_error
             (rc = packview_load(st, &p, &rules, TREND_WEEK, 0, 1000, &view, err)) != PB_OK ||
             (rc = inputs_from_history(&view, &in, err)) != PB_OK)
             goto cleanup;
+        curve_offset(st, &view, &in, cli.reserve, isfinite(cli.soc) ? cli.soc : 100.0);
         if (p.retired_at[0])
             warn[nwarn++] = "this pack is retired";
     } else {

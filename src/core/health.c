@@ -80,7 +80,10 @@ static double capacity_now(const struct health_flight *f, size_t n, size_t want)
         double c = get_cap(x);
         if (!isfinite(c))
             continue;
-        double ci = x->capacity_ci95_mah;
+        /* no estimate counts as better than 1 % (common practice: current
+         * sensors of flight logs are calibrated to about 1 %), so equally
+         * good measurements weigh equally whatever their last interval */
+        double ci = fmax(x->capacity_ci95_mah, 0.01 * c);
         v[m] = c;
         w[m] = isfinite(ci) && ci > 0.0 ? 1.0 / (ci * ci) : NAN;
         m++;

@@ -121,7 +121,7 @@ int predict_run(const struct predict_pack *p, const struct predict_load *l,
     double prev_soc = s.soc, prev_v = NAN, prev_t = 0.0;
     int stopped = 0;
     while (s.t < o->t_max_s) {
-        double e = p->cells * ocv_from_soc(p->chem, s.soc) - s.v1;
+        double e = p->cells * (ocv_from_soc(p->chem, s.soc) + p->v_offset_v) - s.v1;
         double i, v;
         if (solve_current(l, s.t, e, r, &i, &v) != 0) {
             note(&out->t_collapse_s, s.t);
@@ -170,7 +170,7 @@ int predict_run(const struct predict_pack *p, const struct predict_load *l,
             break;
         /* midpoint rule: current at the half step drives the whole step */
         double soc_mid = s.soc - 0.5 * dt * soc_rate(p, o, i);
-        double e_mid = p->cells * ocv_from_soc(p->chem, soc_mid) - s.v1;
+        double e_mid = p->cells * (ocv_from_soc(p->chem, soc_mid) + p->v_offset_v) - s.v1;
         double i_mid, v_mid;
         if (solve_current(l, s.t + 0.5 * dt, e_mid, r, &i_mid, &v_mid) != 0)
             i_mid = i;
@@ -222,6 +222,7 @@ int predict_monte_carlo(const struct predict_pack *p, const struct predict_load 
         do
             q.r0_ohm = p->r0_ohm + gsl_ran_gaussian(rng, sp->r0_sd_ohm);
         while (q.r0_ohm <= 0.0 && p->r0_ohm > 0.0);
+        q.v_offset_v = p->v_offset_v + gsl_ran_gaussian(rng, sp->v_offset_sd_v);
         double dl = gsl_ran_gaussian(rng, sp->load_sd);
         if (l->kind == LOAD_POWER)
             m.power_w = fmax(0.0, l->power_w + dl);
@@ -245,4 +246,52 @@ int predict_monte_carlo(const struct predict_pack *p, const struct predict_load 
     out->t_p95_s = gsl_stats_quantile_from_sorted_data(t, 1, (size_t)n, 0.95);
     free(t);
     return 0;
+}
+
+double predict_voltage_offset(const struct chem_info *c, int cells, double capacity_mah,
+                              double soc0_pct, double charge_mah, double energy_wh, double i_a,
+                              double r_ohm)
+{
+    if (!c || cells <= 0 || !(capacity_mah > 0.0) || !(charge_mah > 0.0) || !(energy_wh > 0.0) ||
+        !(i_a > 0.0) || !isfinite(soc0_pct) || !isfinite(r_ohm))
+        return NAN;
+    double soc1 = soc0_pct - 100.0 * charge_mah / capacity_mah;
+    if (soc1 < -1.0 || soc0_pct - soc1 < 10.0)
+        return NAN; /* more than the capacity, or too little to average over */
+    soc1 = fmax(soc1, 0.0);
+    /* the table's mean OCV over [soc1, soc0] (midpoint rule, 1 % steps or finer) */
+    int steps = (int)ceil(soc0_pct - soc1) + 1;
+    double sum = 0.0, h = (soc0_pct - soc1) / steps;
+    for (int k = 0; k < steps; k++)
+        sum += ocv_from_soc(c, soc1 + (k + 0.5) * h);
+    double model_v = sum / steps - i_a * r_ohm / cells;
+    double logged_v = 1000.0 * energy_wh / charge_mah / cells;
+    return logged_v - model_v;
+}
+
+double predict_curve_offset(const struct chem_info *c, int cells, const double *coef, int degree,
+                            double q_end_ah, double soc0_pct, double capacity_mah, double soc_lo,
+                            double soc_hi)
+{
+    if (!c || cells <= 0 || degree < 0 || !(fabs(q_end_ah) > 0.0) || !(capacity_mah > 0.0) ||
+        !isfinite(soc0_pct))
+        return NAN;
+    double flight_lo = soc0_pct - 100.0 * 1000.0 * q_end_ah / capacity_mah;
+    double lo = fmax(soc_lo, fmin(flight_lo, soc0_pct));
+    double hi = fmin(soc_hi, fmax(flight_lo, soc0_pct));
+    if (!(hi - lo >= 10.0))
+        return NAN;
+    int steps = (int)ceil(hi - lo);
+    double h = (hi - lo) / steps, sum = 0.0;
+    for (int k = 0; k < steps; k++) {
+        double s = lo + (k + 0.5) * h;
+        double q_ah = (soc0_pct - s) / 100.0 * capacity_mah / 1000.0;
+        double u = 2.0 * q_ah / q_end_ah - 1.0, p = 1.0, ocv = 0.0;
+        for (int j = 0; j <= degree; j++) {
+            ocv += coef[j] * p;
+            p *= u;
+        }
+        sum += ocv / cells - ocv_from_soc(c, s);
+    }
+    return sum / steps;
 }

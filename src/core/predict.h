@@ -23,6 +23,8 @@ struct predict_pack {
     double r0_ohm;        /* pack R0 at t_ref_c */
     double r1_ohm, tau_s; /* RC branch; r1_ohm = 0 for none */
     double t_ref_c;       /* temperature R0 was measured at */
+    double v_offset_v;    /* per cell, added to the table's OCV: the pack's own
+                           * loaded voltage against the model (predict_voltage_offset) */
 };
 
 enum load_kind { LOAD_POWER = 0, LOAD_CURRENT, LOAD_PROFILE };
@@ -74,6 +76,7 @@ int predict_run(const struct predict_pack *p, const struct predict_load *l,
  * distributions with these standard deviations (truncated positive). */
 struct predict_spread {
     double capacity_sd_ah, r0_sd_ohm, load_sd; /* load_sd in W or A as the load */
+    double v_offset_sd_v;                      /* per cell */
     int runs;
     unsigned long seed;
 };
@@ -90,6 +93,28 @@ int predict_monte_carlo(const struct predict_pack *p, const struct predict_load 
 
 const char *predict_limit_name(enum predict_limit l);
 
+/* How far a logged flight's mean loaded voltage sat from the model's, per
+ * cell: the flight drew charge_mah for energy_wh (mean loaded voltage
+ * energy / charge) at mean current i_a, starting at soc0_pct, so by counting
+ * its SoC fell by 100 charge / capacity; the model's mean loaded voltage over
+ * that span is the table's mean OCV there minus i (R0 + R1) (at a steady load
+ * the RC branch adds its full R1). The difference holds what a generic table
+ * and a short-time resistance miss: this cell's own curve and the slow
+ * polarisation of a long load. NAN when the flight cannot tell. */
+/* The same from a flight's sag-corrected OCV trend (analyze's fit.ocv_coef_v:
+ * OCV(u) = sum c_j u^j, u = 2 q / q_end - 1, pack volts), over the SoC span
+ * [soc_lo, soc_hi] that a prediction crosses, where the flight covered it
+ * (by counting from soc0_pct with capacity_mah): the mean of trend / cells
+ * minus the table, per cell, on 1 % steps. NAN when the flight covered less
+ * than 10 points of the span. */
+double predict_curve_offset(const struct chem_info *c, int cells, const double *coef, int degree,
+                            double q_end_ah, double soc0_pct, double capacity_mah, double soc_lo,
+                            double soc_hi);
+
+double predict_voltage_offset(const struct chem_info *c, int cells, double capacity_mah,
+                              double soc0_pct, double charge_mah, double energy_wh, double i_a,
+                              double r_ohm);
+
 /* What a prediction starts from: the pack and the load, with spreads. */
 struct predict_inputs {
     const struct chem_info *chem;
@@ -100,6 +125,7 @@ struct predict_inputs {
     double r0_mohm, r0_sd_mohm;
     double r1_mohm, tau_s;      /* NAN without an RC branch */
     double power_w, power_sd_w; /* cruise power, NAN when unknown */
+    double v_offset_v, v_offset_sd_v; /* per cell; 0 and the table's allowance when unknown */
     char source[200];
 };
 

@@ -54,6 +54,11 @@ int report_predict_json(FILE *out, const struct predict_inputs *in, const struct
         "floor_v_per_cell", jout_num(isfinite(o->floor_v) ? o->floor_v : in->chem->floor_v),
         "temp_c", jout_num(o->temp_c), "ea_j_mol", jout_num(o->ea_j_mol), "peukert_k",
         jout_num(o->peukert_k > 0 ? o->peukert_k : NAN), "warnings", w);
+    json_t *inputs = doc ? json_object_get(doc, "inputs") : NULL;
+    if (inputs) {
+        json_object_set_new(inputs, "v_offset_v_per_cell", jout_num(in->v_offset_v));
+        json_object_set_new(inputs, "v_offset_sd_v_per_cell", jout_num(in->v_offset_sd_v));
+    }
     return jout_write(out, doc);
 }
 
@@ -69,6 +74,10 @@ int report_predict_text(FILE *out, const struct predict_inputs *in, const struct
     if (isfinite(in->r1_mohm) && isfinite(in->tau_s))
         fprintf(out, ", RC %.2f mOhm / %.1f s", in->r1_mohm, in->tau_s);
     fprintf(out, "\n");
+    if (isfinite(in->v_offset_v) && in->v_offset_v != 0.0)
+        fprintf(out, "  %-15s %+.0f +/- %.0f mV/cell against the %s table, from its logged voltage\n",
+                "voltage", 1000.0 * in->v_offset_v, 1000.0 * 1.96 * in->v_offset_sd_v,
+                in->chem->label);
     if (l->kind == LOAD_POWER)
         fprintf(out, "  %-15s %.0f W constant power (sd %.0f W)\n", "load", l->power_w, load_sd);
     else if (l->kind == LOAD_CURRENT)

@@ -93,6 +93,11 @@ enum pb_code store_flights_of(struct store *st, int64_t pack_id, struct flight_r
                               struct pb_error *err);
 void store_flights_free(struct flight_rec *f);
 
+/* The JSON report stored with flight flight_id, in *out (the caller frees
+ * it); *out is NULL when there is no such flight. */
+enum pb_code store_flight_report(struct store *st, int64_t flight_id, char **out,
+                                 struct pb_error *err);
+
 /* The default path: $PACKBOOK_DB, else $XDG_DATA_HOME/packbook/packbook.db,
  * else $HOME/.local/share/packbook/packbook.db. Writes into buf. */
 int store_default_path(char *buf, size_t cap);

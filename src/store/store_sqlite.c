@@ -629,3 +629,26 @@ void store_flights_free(struct flight_rec *f)
 {
     free(f);
 }
+
+enum pb_code store_flight_report(struct store *st, int64_t flight_id, char **out,
+                                 struct pb_error *err)
+{
+    sqlite3_stmt *s = NULL;
+    *out = NULL;
+    if (sqlite3_prepare_v2(st->db, "SELECT report_json FROM flights WHERE id = ?", -1, &s, NULL) !=
+        SQLITE_OK)
+        return db_error(st, err, "cannot read a flight's report");
+    sqlite3_bind_int64(s, 1, flight_id);
+    enum pb_code rc = PB_OK;
+    int r = sqlite3_step(s);
+    if (r == SQLITE_ROW) {
+        const unsigned char *t = sqlite3_column_text(s, 0);
+        *out = strdup(t ? (const char *)t : "");
+        if (!*out)
+            rc = pb_error_set(err, PB_ENOMEM, "out of memory");
+    } else if (r != SQLITE_DONE) {
+        rc = db_error(st, err, "cannot read a flight's report");
+    }
+    sqlite3_finalize(s);
+    return rc;
+}

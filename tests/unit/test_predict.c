@@ -30,7 +30,7 @@ static const struct chem_info linear = {CHEM_LIPO, "linear", "linear", "test", 2
 static void test_constant_current_closed_form(void **state)
 {
     (void)state;
-    struct predict_pack p = {&linear, 1, 2.0, 0.05, 0, 0, 25};
+    struct predict_pack p = {&linear, 1, 2.0, 0.05, 0, 0, 25, 0.0};
     struct predict_load l = {.kind = LOAD_CURRENT, .current_a = 4.0};
     struct predict_opts o;
     predict_opts_default(&o);
@@ -48,7 +48,7 @@ static void test_constant_current_closed_form(void **state)
 static void test_constant_power_closed_form(void **state)
 {
     (void)state;
-    struct predict_pack p = {&linear, 1, 2.0, 0.0, 0, 0, 25};
+    struct predict_pack p = {&linear, 1, 2.0, 0.0, 0, 0, 25, 0.0};
     struct predict_load l = {.kind = LOAD_POWER, .power_w = 10.0};
     struct predict_opts o;
     predict_opts_default(&o);
@@ -63,7 +63,7 @@ static void test_constant_power_closed_form(void **state)
 static void test_iec61434_one_hour(void **state)
 {
     (void)state;
-    struct predict_pack p = {ocv_chem(CHEM_LIPO), 1, 1.3, 0.03, 0, 0, 25};
+    struct predict_pack p = {ocv_chem(CHEM_LIPO), 1, 1.3, 0.03, 0, 0, 25, 0.0};
     struct predict_load l = {.kind = LOAD_CURRENT, .current_a = 1.3};
     struct predict_opts o;
     predict_opts_default(&o);
@@ -77,7 +77,7 @@ static void test_iec61434_one_hour(void **state)
 static void test_108s_at_c3_is_one_percent(void **state)
 {
     (void)state;
-    struct predict_pack p = {ocv_chem(CHEM_LIPO), 4, 5.0, 0.02, 0, 0, 25};
+    struct predict_pack p = {ocv_chem(CHEM_LIPO), 4, 5.0, 0.02, 0, 0, 25, 0.0};
     struct predict_load l = {.kind = LOAD_CURRENT, .current_a = 5.0 / 3.0};
     struct predict_opts o;
     predict_opts_default(&o);
@@ -91,7 +91,7 @@ static void test_108s_at_c3_is_one_percent(void **state)
 static void test_peukert(void **state)
 {
     (void)state;
-    struct predict_pack p = {&linear, 1, 2.0, 0.0, 0, 0, 25};
+    struct predict_pack p = {&linear, 1, 2.0, 0.0, 0, 0, 25, 0.0};
     struct predict_load l = {.kind = LOAD_CURRENT, .current_a = 4.0};
     struct predict_opts o;
     predict_opts_default(&o);
@@ -111,7 +111,7 @@ static void test_arrhenius_and_collapse(void **state)
     double want = 0.02 * exp(30000 / GAS_CONSTANT_J_MOL_K * (1 / 273.15 - 1 / 298.15));
     check_rel(predict_r_at(0.02, 25, 0, 30000), want, 1e-12, "R at 0 degC");
     /* 1 cell at 4.2 V with 1 ohm delivers at most E^2/4R = 4.4 W */
-    struct predict_pack p = {&linear, 1, 2.0, 1.0, 0, 0, 25};
+    struct predict_pack p = {&linear, 1, 2.0, 1.0, 0, 0, 25, 0.0};
     struct predict_load l = {.kind = LOAD_POWER, .power_w = 5.0};
     struct predict_opts o;
     predict_opts_default(&o);
@@ -125,11 +125,11 @@ static void test_arrhenius_and_collapse(void **state)
 static void test_monte_carlo_orders(void **state)
 {
     (void)state;
-    struct predict_pack p = {ocv_chem(CHEM_LIPO), 4, 5.0, 0.016, 0.008, 6, 25};
+    struct predict_pack p = {ocv_chem(CHEM_LIPO), 4, 5.0, 0.016, 0.008, 6, 25, 0.0};
     struct predict_load l = {.kind = LOAD_POWER, .power_w = 300};
     struct predict_opts o;
     predict_opts_default(&o);
-    struct predict_spread sp = {0.2, 0.002, 20, 300, 7};
+    struct predict_spread sp = {.capacity_sd_ah = 0.2, .r0_sd_ohm = 0.002, .load_sd = 20, .runs = 300, .seed = 7};
     struct predict_mc mc;
     assert_int_equal(predict_monte_carlo(&p, &l, &o, &sp, &mc), 0);
     assert_true(mc.t_p05_s < mc.t_median_s && mc.t_median_s < mc.t_p95_s);
