@@ -427,7 +427,7 @@ def check_arts(tmp):
         except Missing as e:
             miss["cap"] = str(e)
         s, sci = doc["soc_start_pct"], doc["soc_start_ci95"]
-        soc.append(f"{rate} {fmt(s, 0)}±{fmt(sci, 0)}")
+        soc.append(f"{rate} {fmt(s, 1)}±{fmt(sci, 1)}")
         bad["soc"] += s is None or sci is None or abs(s - 100.0) > sci
         print(f"  arts {rate}: charge {q:.1f} mAh (README {1000 * ref_ah:.1f}); load-on edge"
               f" {edge:.2f} mOhm; r0 {doc['r0_mohm']}; r_edge {doc.get('r_edge_mohm', 'missing')};"
