@@ -1,8 +1,8 @@
 /* packbook predict: safe flight time for the next sortie, from a pack's
  * history or from one log, with the landing reserve and its uncertainty. */
 #include <getopt.h>
-#include <jansson.h>
 #include <gsl/gsl_cdf.h>
+#include <jansson.h>
 #include <math.h>
 #include <stdio.h>
 #include <stdlib.h>
@@ -195,7 +195,8 @@ static void next_capacity(const struct pack_view *v, struct predict_inputs *in)
     if (next_value(x, y, m, (double)v->nflights + 1.0, &mean, &sd) != 0 || !(mean > 0.0))
         return;
     in->capacity_mah = mean;
-    in->capacity_sd_mah = sd;
+    /* never tighter than one measurement's own interval (the caller's) */
+    in->capacity_sd_mah = fmax(sd, in->capacity_sd_mah);
 }
 
 /* The pack's voltage offset (predict_voltage_offset) over its last (up to
@@ -211,9 +212,9 @@ static void voltage_offset(const struct pack_view *v, struct predict_inputs *in)
         double cap = f->capacity_mah > 0.0 ? f->capacity_mah : in->capacity_mah;
         double vm = f->energy_used_wh * 1000.0 / f->charge_used_mah;
         double r = f->r0_mohm + (isfinite(f->r1_mohm) ? f->r1_mohm : 0.0);
-        double o = predict_voltage_offset(in->chem, in->cells, cap, f->soc_start_pct,
-                                          f->charge_used_mah, f->energy_used_wh,
-                                          f->power_cruise_w / vm, r / 1000.0);
+        double o =
+            predict_voltage_offset(in->chem, in->cells, cap, f->soc_start_pct, f->charge_used_mah,
+                                   f->energy_used_wh, f->power_cruise_w / vm, r / 1000.0);
         if (isfinite(o))
             off[m++] = o;
     }
@@ -347,9 +348,9 @@ static void inputs_from_analysis(const struct analysis *a, double rated_mah, con
     in->power_sd_w = 0.0;
     double r = a->r0_mohm.value + (isfinite(a->r1_mohm.value) ? a->r1_mohm.value : 0.0);
     double vm = a->energy_used_wh * 1000.0 / a->charge_used_mah;
-    double off = predict_voltage_offset(a->chem, a->cells, in->capacity_mah,
-                                        a->soc_start_pct.value, a->charge_used_mah,
-                                        a->energy_used_wh, a->power_cruise_w / vm, r / 1000.0);
+    double off = predict_voltage_offset(a->chem, a->cells, in->capacity_mah, a->soc_start_pct.value,
+                                        a->charge_used_mah, a->energy_used_wh,
+                                        a->power_cruise_w / vm, r / 1000.0);
     in->v_offset_v = isfinite(off) ? off : 0.0;
     in->v_offset_sd_v = hypot(SOCEST_TABLE_V, SOCEST_LOADED_V) / 1.96;
 }

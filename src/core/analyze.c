@@ -176,7 +176,7 @@ static void voltage_stats(struct analysis *a, const struct series *s)
 static void current_stats(struct analysis *a, const struct series *s, const struct analyze_opts *o,
                           const char *name)
 {
-    coulomb_count(s->t_s, s->v_v, s->i_a, s->n, a->gap_s, &a->cc);
+    coulomb_count_segments(s->t_s, s->v_v, s->i_a, s->n, s->seg_start, s->nseg, a->gap_s, &a->cc);
     a->charge_used_mah = a->cc.discharged_mah - a->cc.regen_mah;
     a->energy_used_wh = a->cc.discharged_wh - a->cc.regen_wh;
     a->current_max_a = -HUGE_VAL;
@@ -316,7 +316,10 @@ static void per_cell(struct analysis *a, const struct series *s, const double *q
             struct edges_opts eo = {.rated_mah = o->capacity_mah,
                                     .cutoff_v = a->floor_v,
                                     .gap_s = a->gap_s,
-                                    .peak_a = a->peak_a};
+                                    .peak_a = a->peak_a,
+                                    .series = s,
+                                    .chem = a->chem,
+                                    .cells = 1};
             struct edges_result er;
             edges_estimate(s->t_s, s->cell_v[c], s->i_a, s->n, &eo, &er);
             if (isfinite(er.r_mohm))
@@ -392,7 +395,10 @@ static enum pb_code stage_resistance(struct analysis *a, const struct series *s,
     struct edges_opts eo = {.rated_mah = o->capacity_mah,
                             .cutoff_v = a->cells > 0 ? a->floor_v * a->cells : 0.0,
                             .gap_s = a->gap_s,
-                            .peak_a = a->peak_a};
+                            .peak_a = a->peak_a,
+                            .series = s,
+                            .chem = a->cells > 0 ? a->chem : NULL,
+                            .cells = a->cells};
     struct edges_result er;
     edges_estimate(s->t_s, s->v_v, s->i_a, s->n, &eo, &er);
     a->step_a = er.step_a;
@@ -559,6 +565,8 @@ static void stage_soc_capacity(struct analysis *a, const struct series *s, const
     struct soc_value s1 = socest_soc(a->chem, a->ocv_end_v / cells, a->ocv_end_d_v / cells);
     a->soc_start_pct = soc_estimate(&s0);
     a->soc_end_pct = soc_estimate(&s1);
+    a->soc_start_lo_pct = s0.lo_pct, a->soc_start_hi_pct = s0.hi_pct;
+    a->soc_end_lo_pct = s1.lo_pct, a->soc_end_hi_pct = s1.hi_pct;
     a->state_start = rest_state(a->chem, a->ocv_start_v / cells);
     a->state_end = rest_state(a->chem, a->ocv_end_v / cells);
     if (s0.clamped || s1.clamped)
@@ -640,6 +648,7 @@ enum pb_code analyze_series(const struct series *s, const struct logread_stats *
     a->r_edge_mohm = a->r0_model_mohm = none();
     a->r_edge_time_scale_s = NAN;
     a->soc_start_pct = a->soc_end_pct = a->capacity_mah = none();
+    a->soc_start_lo_pct = a->soc_start_hi_pct = a->soc_end_lo_pct = a->soc_end_hi_pct = NAN;
     a->capacity_cutoff_mah = a->capacity_soc_mah = none();
     a->capacity_cutoff_c_rate = a->capacity_cutoff_mean_a = a->capacity_cutoff_end_v_cell = NAN;
     a->ocv_start_v = a->ocv_end_v = a->ocv_start_d_v = a->ocv_end_d_v = NAN;
@@ -695,9 +704,12 @@ enum pb_code analyze_series(const struct series *s, const struct logread_stats *
             goto cleanup;
         }
         q_ah[0] = 0.0;
+        /* nothing is bridged across a joint of clock segments (unknown length) */
         for (size_t k = 1; k < s->n; k++)
-            q_ah[k] =
-                q_ah[k - 1] + coulomb_step_ah(s->t_s[k] - s->t_s[k - 1], s->i_a[k - 1], s->i_a[k]);
+            q_ah[k] = q_ah[k - 1] +
+                      (series_is_joint(s, k)
+                           ? 0.0
+                           : coulomb_step_ah(s->t_s[k] - s->t_s[k - 1], s->i_a[k - 1], s->i_a[k]));
         if (s->n < MIN_FIT_SAMPLES) {
             warn(a, "too_few_samples",
                  "%zu samples are too few to fit resistance or open-circuit voltage (need %d)",
@@ -723,6 +735,8 @@ enum pb_code analyze_series(const struct series *s, const struct logread_stats *
             struct soc_value s1 = socest_soc(a->chem, a->ocv_end_v / cells, SOCEST_LOADED_V);
             a->soc_start_pct = soc_estimate(&s0);
             a->soc_end_pct = soc_estimate(&s1);
+            a->soc_start_lo_pct = s0.lo_pct, a->soc_start_hi_pct = s0.hi_pct;
+            a->soc_end_lo_pct = s1.lo_pct, a->soc_end_hi_pct = s1.hi_pct;
             a->state_start = rest_state(a->chem, a->ocv_start_v / cells);
             a->state_end = rest_state(a->chem, a->ocv_end_v / cells);
         }

@@ -114,7 +114,9 @@ struct analysis {
     /* "rest", "relaxed" (final rest's relaxation extrapolated), "fit"
      * (sag-corrected trend) or "loaded" (no resistance to correct with) */
     const char *ocv_start_method, *ocv_end_method;
-    struct estimate soc_start_pct, soc_end_pct;
+    struct estimate soc_start_pct, soc_end_pct; /* ci95: the larger side of the range */
+    double soc_start_lo_pct, soc_start_hi_pct;  /* the 95 % range itself (socest.h) */
+    double soc_end_lo_pct, soc_end_hi_pct;
     const char *state_start, *state_end; /* "full", "partial", "empty" */
     /* Capacity: the headline is to_cutoff when the log is a discharge from
      * full to empty (capacity.h), else soc_swing; NAN when neither. */

@@ -78,7 +78,7 @@ void capacity_to_cutoff(const struct series *s, const double *q_ah, const struct
             for (size_t j = re + 1; j <= e; j++) {
                 double dt = s->t_s[j] - s->t_s[j - 1];
                 double dq = q_ah[j] - q_ah[j - 1];
-                if (dt > o->gap_s)
+                if (dt > o->gap_s || series_is_joint(s, j))
                     gap_ah += fabs(dq);
                 if (s->i_a[j] > o->rest_a && s->i_a[j - 1] > o->rest_a) {
                     t_loaded += dt;

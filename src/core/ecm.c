@@ -110,7 +110,8 @@ static int row(void *vc, size_t k, double *x, double *y)
     return step ? FIT_ROW_KEEP : 1;
 }
 
-/* Cuts [0, n) into windows of at most win_s, none across a gap. */
+/* Cuts [0, n) into windows of at most win_s, none across a gap or a joint
+ * between clock segments. */
 static struct win *make_windows(const struct series *s, double win_s, double gap_s, size_t *nw)
 {
     size_t cap = 16, m = 0;
@@ -119,7 +120,8 @@ static struct win *make_windows(const struct series *s, double win_s, double gap
         return NULL;
     size_t k0 = 0;
     for (size_t k = 1; k <= s->n; k++) {
-        int cut = k == s->n || s->t_s[k] - s->t_s[k - 1] > gap_s || s->t_s[k] - s->t_s[k0] > win_s;
+        int cut = k == s->n || s->t_s[k] - s->t_s[k - 1] > gap_s ||
+                  s->t_s[k] - s->t_s[k0] > win_s || series_is_joint(s, k);
         if (!cut)
             continue;
         if (k - k0 >= WINDOW_MIN_ROWS) {

@@ -74,9 +74,11 @@ void edges_estimate(const double *t_s, const double *v_v, const double *i_a, siz
         return;
     }
     double *r = malloc(cap * sizeof *r), *dt = malloc(cap * sizeof *dt);
-    if (!r || !dt) {
+    double *raw = malloc(cap * sizeof *raw);
+    if (!r || !dt || !raw) {
         free(r);
         free(dt);
+        free(raw);
         out->reason = "out of memory";
         return;
     }
@@ -87,7 +89,10 @@ void edges_estimate(const double *t_s, const double *v_v, const double *i_a, siz
             continue;
         double span = t_s[k] - t_s[k - 1];
         int near_cutoff = o->cutoff_v > 0.0 && fmin(v_v[k], v_v[k - 1]) <= o->cutoff_v;
-        if (span > o->gap_s || near_cutoff || (o->joint && o->joint[k])) {
+        if (o->chem && o->cells > 0 &&
+            ocv_to_soc(o->chem, fmax(v_v[k], v_v[k - 1]) / o->cells, NULL) < EDGES_EMPTY_SOC_PCT)
+            near_cutoff = 1;
+        if (span > o->gap_s || near_cutoff || (o->series && series_is_joint(o->series, k))) {
             out->left_out++;
             continue;
         }
@@ -97,7 +102,7 @@ void edges_estimate(const double *t_s, const double *v_v, const double *i_a, siz
          * within the interval is then mostly left out, so loggers of
          * different rates give comparable figures */
         double v_after = v_v[k];
-        if (k + 1 < n && !(o->joint && o->joint[k + 1])) {
+        if (k + 1 < n && !(o->series && series_is_joint(o->series, k + 1))) {
             double span2 = t_s[k + 1] - t_s[k];
             if (span2 >= 0.5 * span && span2 <= 2.0 * span &&
                 fabs(i_a[k + 1] - i_a[k]) < 0.05 * fabs(di)) {
@@ -106,6 +111,7 @@ void edges_estimate(const double *t_s, const double *v_v, const double *i_a, siz
             }
         }
         r[m] = -1000.0 * (v_after - v_v[k - 1]) / di;
+        raw[m] = -1000.0 * (v_v[k] - v_v[k - 1]) / di;
         dt[m] = span;
         m++;
     }
@@ -114,6 +120,7 @@ void edges_estimate(const double *t_s, const double *v_v, const double *i_a, siz
         out->reason = "every current step is near the cut-off or across a gap";
         free(r);
         free(dt);
+        free(raw);
         return;
     }
     qsort(r, m, sizeof *r, cmp_double);
@@ -136,6 +143,9 @@ void edges_estimate(const double *t_s, const double *v_v, const double *i_a, siz
     }
     if (isfinite(noise_ci))
         ci = isfinite(ci) ? hypot(ci, noise_ci / sqrt((double)m)) : noise_ci;
+    /* the carrying back is a model choice: the interval covers what it changed */
+    double raw_med = fit_median(raw, m);
+    ci = isfinite(ci) ? fmax(ci, fabs(raw_med - med)) : fabs(raw_med - med);
     out->r_mohm = med;
     out->ci95_mohm = ci;
     if (!(med > 0.0)) {
@@ -145,4 +155,5 @@ void edges_estimate(const double *t_s, const double *v_v, const double *i_a, siz
     }
     free(r);
     free(dt);
+    free(raw);
 }

@@ -10,25 +10,34 @@
  * within the interval is mostly taken out where the next interval allows:
  * the voltage after the step is carried back to the middle of the step
  * interval along the next interval's slope (when that interval holds the
- * current and is half to twice as long). The interval is the time scale of
- * the figure and is reported with it.
+ * current and is half to twice as long); the interval reported covers what
+ * that changed. The step interval is the time scale of the figure and is
+ * reported with it.
  *
  * Assumes: t_s strictly increasing, current positive when discharging,
  * voltages of the pack (or one cell). Steps with a voltage at or below the
- * cut-off on either side are left out: near empty the resistance rises
- * steeply and would not compare with the rest (common practice: DC-IR is
- * quoted away from the discharge end). */
+ * cut-off on either side, or whose higher voltage (the lighter-loaded side)
+ * reads below EDGES_EMPTY_SOC_PCT on the chemistry's table, are left out:
+ * near empty the resistance rises steeply and would not compare with the
+ * rest (common practice: DC-IR is quoted away from the discharge end). */
 #ifndef PB_EDGES_H
 #define PB_EDGES_H
 
 #include <stddef.h>
 
+#include "ocv.h"
+#include "series.h"
+
+#define EDGES_EMPTY_SOC_PCT 10.0
+
 struct edges_opts {
-    double rated_mah;           /* 0 = unknown */
-    double cutoff_v;            /* pack cut-off voltage: steps touching it are left out */
-    double gap_s;               /* intervals longer than this are not steps */
-    double peak_a;              /* largest |current| of the log */
-    const unsigned char *joint; /* joint[k] != 0: k starts a new clock segment (may be NULL) */
+    double rated_mah;             /* 0 = unknown */
+    double cutoff_v;              /* pack cut-off voltage: steps touching it are left out */
+    double gap_s;                 /* intervals longer than this are not steps */
+    double peak_a;                /* largest |current| of the log */
+    const struct series *series;  /* its clock segments: no step across a joint (may be NULL) */
+    const struct chem_info *chem; /* with cells: the near-empty test (NULL: none) */
+    int cells;
 };
 
 struct edges_result {

@@ -123,8 +123,8 @@ struct predict_inputs {
     double capacity_mah, capacity_sd_mah;
     int capacity_assumed; /* no estimate: rated capacity, 5 % spread */
     double r0_mohm, r0_sd_mohm;
-    double r1_mohm, tau_s;      /* NAN without an RC branch */
-    double power_w, power_sd_w; /* cruise power, NAN when unknown */
+    double r1_mohm, tau_s;            /* NAN without an RC branch */
+    double power_w, power_sd_w;       /* cruise power, NAN when unknown */
     double v_offset_v, v_offset_sd_v; /* per cell; 0 and the table's allowance when unknown */
     char source[200];
 };

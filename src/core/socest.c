@@ -22,6 +22,11 @@ struct soc_value socest_soc(const struct chem_info *c, double ocv_cell_v, double
     s.soc_pct = ocv_to_soc(c, ocv_cell_v, &s.clamped);
     s.lo_pct = ocv_to_soc(c, ocv_cell_v - d, NULL);
     s.hi_pct = ocv_to_soc(c, ocv_cell_v + d, NULL);
+    /* a table's top point is the charge voltage, which a full cell leaves as
+     * it rests: a voltage within d of the chemistry's full-at-rest level
+     * (ocv.h, common practice) may be a full cell */
+    if (ocv_cell_v + d >= c->full_rest_v)
+        s.hi_pct = 100.0;
     s.ci95_pct = fmax(s.soc_pct - s.lo_pct, s.hi_pct - s.soc_pct);
     return s;
 }

@@ -10,7 +10,9 @@
  * model may miss (SOCEST_LOADED_V). The SoC interval is the table's image
  * of [V - d, V + d], d the root sum of squares of these; the half-width
  * reported is the larger side, so an interval near full or empty is not
- * understated by the clamp at 0 or 100 %. */
+ * understated by the clamp at 0 or 100 %. A table's top point is the charge
+ * voltage, which a full cell leaves as it rests, so the interval reaches
+ * 100 % whenever V + d reaches the chemistry's full-at-rest level. */
 #ifndef PB_SOCEST_H
 #define PB_SOCEST_H
 

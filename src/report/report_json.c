@@ -96,6 +96,12 @@ static json_t *analysis_obj(const struct analysis *a, const struct report_input 
     json_object_set_new(o, "soc_start_ci95", jout_num(a->soc_start_pct.ci95));
     json_object_set_new(o, "soc_end_pct", jout_num(a->soc_end_pct.value));
     json_object_set_new(o, "soc_end_ci95", jout_num(a->soc_end_pct.ci95));
+    json_object_set_new(
+        o, "soc_start_range_pct",
+        json_pack("[o, o]", jout_num(a->soc_start_lo_pct), jout_num(a->soc_start_hi_pct)));
+    json_object_set_new(
+        o, "soc_end_range_pct",
+        json_pack("[o, o]", jout_num(a->soc_end_lo_pct), jout_num(a->soc_end_hi_pct)));
     json_object_set_new(o, "state_start", jout_str(a->state_start));
     json_object_set_new(o, "state_end", jout_str(a->state_end));
     json_object_set_new(o, "capacity_est_mah", est(a->capacity_mah));

@@ -75,9 +75,9 @@ int report_predict_text(FILE *out, const struct predict_inputs *in, const struct
         fprintf(out, ", RC %.2f mOhm / %.1f s", in->r1_mohm, in->tau_s);
     fprintf(out, "\n");
     if (isfinite(in->v_offset_v) && in->v_offset_v != 0.0)
-        fprintf(out, "  %-15s %+.0f +/- %.0f mV/cell against the %s table, from its logged voltage\n",
-                "voltage", 1000.0 * in->v_offset_v, 1000.0 * 1.96 * in->v_offset_sd_v,
-                in->chem->label);
+        fprintf(
+            out, "  %-15s %+.0f +/- %.0f mV/cell against the %s table, from its logged voltage\n",
+            "voltage", 1000.0 * in->v_offset_v, 1000.0 * 1.96 * in->v_offset_sd_v, in->chem->label);
     if (l->kind == LOAD_POWER)
         fprintf(out, "  %-15s %.0f W constant power (sd %.0f W)\n", "load", l->power_w, load_sd);
     else if (l->kind == LOAD_CURRENT)

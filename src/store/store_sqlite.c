@@ -422,11 +422,12 @@ static double col_num(sqlite3_stmt *s, int i)
 
 #define FLIGHT_NUMS                                                                                \
     X(duration_s)                                                                                  \
-    X(charge_used_mah) X(energy_used_wh) X(current_max_a) X(current_mean_a) X(power_mean_w)        \
-        X(voltage_min_v) X(cell_voltage_min_v) X(time_below_floor_s) X(r0_mohm) X(r0_ci95_mohm)    \
-            X(r1_mohm) X(tau_s) X(soc_start_pct) X(soc_end_pct) X(capacity_mah)                    \
-                X(capacity_ci95_mah) X(cell_spread_rest_mv) X(cell_spread_load_mv)                 \
-                    X(temperature_max_c) X(power_cruise_w)
+    X(charge_used_mah)                                                                             \
+    X(energy_used_wh) X(current_max_a) X(current_mean_a) X(power_mean_w) X(voltage_min_v)          \
+        X(cell_voltage_min_v) X(time_below_floor_s) X(r0_mohm) X(r0_ci95_mohm) X(r1_mohm) X(tau_s) \
+            X(soc_start_pct) X(soc_end_pct) X(capacity_mah) X(capacity_ci95_mah)                   \
+                X(cell_spread_rest_mv) X(cell_spread_load_mv) X(temperature_max_c)                 \
+                    X(power_cruise_w)
 
 #define X(name) #name ", "
 static const char flight_num_cols[] = FLIGHT_NUMS;

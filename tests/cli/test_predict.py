@@ -33,11 +33,12 @@ def table(chem):
     raise AssertionError(chem)
 
 
-def reference_times(cells, cap_ah, r0, r1, tau, power, soc0, reserve, floor_v, chem="lipo"):
+def reference_times(cells, cap_ah, r0, r1, tau, power, soc0, reserve, floor_v, chem="lipo",
+                    v_offset=0.0):
     soc_t, ocv_t, _ = table(chem)
 
     def current(soc, v1):
-        e = cells * np.interp(soc, soc_t, ocv_t) - v1
+        e = cells * (np.interp(soc, soc_t, ocv_t) + v_offset) - v1
         i = (e - np.sqrt(e * e - 4 * r0 * power)) / (2 * r0)
         return i, e - r0 * i
 
@@ -82,8 +83,10 @@ class Predict(unittest.TestCase):
             inp = doc["inputs"]
             r1 = (inp["r1_mohm"] or 0) / 1000.0
             tau = inp["tau_s"] or 0.0
+            # the pack's own voltage against the table (documented in man packbook, predict)
             t_res, t_floor = reference_times(4, inp["capacity_mah"] / 1000.0, inp["r0_mohm"] / 1000.0,
-                                             r1, tau, power, soc0, 30.0, inp["floor_v_per_cell"])
+                                             r1, tau, power, soc0, 30.0, inp["floor_v_per_cell"],
+                                             v_offset=inp["v_offset_v_per_cell"])
             nom = doc["nominal"]
             print(f"  {power:.0f} W from {soc0:.0f} %: reserve packbook {nom['t_reserve_s']:.2f} s, "
                   f"scipy {t_res:.2f} s; floor packbook {nom['t_floor_s']}, scipy {t_floor}")
