@@ -746,9 +746,10 @@ static void move_sample(struct series *s, size_t from, size_t to)
 /* The times were kept as read; here each sample that steps back is sorted
  * out, in place: a lone row behind its neighbours (the row after it goes on
  * from the row before) is a stray, and so is a lone row ahead of them (the
- * row after it goes back to between its neighbours); anything else that
- * goes back is a restart, which starts a new segment whose times are
- * shifted to follow on after a placeholder step (series.h). */
+ * row after it goes back to between its neighbours, or the first row when
+ * the rows after it go on from below it); anything else that goes back is
+ * a restart, which starts a new segment whose times are shifted to follow
+ * on after a placeholder step (series.h). */
 static void order_times(struct reader *r)
 {
     struct series *s = r->s;
@@ -784,6 +785,18 @@ static void order_times(struct reader *r)
             count_event(&st->stray_time, s->line[w], tcol);
             move_sample(s, k, w);
             s->t_s[w++] = t + off;
+            last = t;
+            continue;
+        }
+        if (w == 1 && s->t_s[k + 1] > t) {
+            /* the first row was ahead of all that follows: a stray too; times
+             * are now relative to this sample, the first kept */
+            count_event(&st->stray_time, s->line[0], tcol);
+            if (s->has_epoch)
+                s->start_epoch_s += t;
+            off = -t;
+            move_sample(s, k, 0);
+            s->t_s[0] = 0.0;
             last = t;
             continue;
         }

@@ -440,10 +440,11 @@ class BadInput(unittest.TestCase):
         self.assert_input(doc, N, N - 3, 3)
 
     def test_time_column_that_is_not_a_clock(self):
-        # every other row goes back: refused (exit 3) at the first place, naming the fixes
+        # every other row goes back: refused (exit 3) at the first place (the first row,
+        # ahead of those after it), naming the fixes
         cols = [("time_s", lambda k, t, v, i: f"{t if k % 2 else 100 - t:.1f}"), STD[1], STD[2]]
         path = self.temp(make_log(cols))
-        self.assert_error(EXIT_INPUT, ["analyze", path], f"{path}:3:1", "goes back at",
+        self.assert_error(EXIT_INPUT, ["analyze", path], f"{path}:2:1", "goes back at",
                           "--map time_s=COLUMN", "sort the rows")
 
     def test_lone_row_ahead_dropped(self):

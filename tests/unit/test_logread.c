@@ -128,6 +128,37 @@ static void test_stray_rows_dropped_with_place(void **state)
     series_free(s);
 }
 
+static void test_first_row_ahead_is_a_stray(void **state)
+{
+    (void)state;
+    /* a logger's first row carries a time from before it was set (line 2): the rows
+     * after go on from below it, so it is the stray, not a one-row segment */
+    const char *text = "time_s,voltage_v\n5000,16\n10,16\n11,16\n12.5,16\n";
+    struct logread_opts o = {0};
+    struct logread_stats st;
+    struct pb_error err = {0};
+    struct series *s = read_text(text, &o, &st, &err);
+    assert_non_null(s);
+    assert_int_equal(s->n, 3);
+    check_increasing(s);
+    check_close(s->t_s[2], 2.5, 1e-12, "times from the first kept sample");
+    assert_int_equal(st.stray_time.count, 1);
+    assert_int_equal(st.stray_time.first_line, 2);
+    assert_int_equal(st.clock_restart.count, 0);
+    assert_int_equal(s->line[0], 3);
+    assert_true(s->nseg <= 1);
+    series_free(s);
+
+    /* the same with Unix times: the start is the first kept sample's */
+    const char *epoch = "time,voltage_v\n1800000000,16\n1714557600,16\n1714557601,16\n";
+    s = read_text(epoch, &o, &st, &err);
+    assert_non_null(s);
+    assert_int_equal(s->n, 2);
+    assert_int_equal(s->has_epoch, 1);
+    check_close(s->start_epoch_s, 1714557600.0, 0.0, "start of the kept samples");
+    series_free(s);
+}
+
 static void test_restart_makes_segments(void **state)
 {
     (void)state;
@@ -180,7 +211,8 @@ static void test_time_that_is_not_a_clock(void **state)
     struct pb_error err = {0};
     assert_null(read_text(text, &o, &st, &err));
     assert_int_equal(err.code, PB_EINPUT);
-    assert_non_null(strstr(err.msg, "mem.csv:3:1:"));
+    /* the first row, 100, is ahead of the 1, 98, 3 ... after it: the first stray */
+    assert_non_null(strstr(err.msg, "mem.csv:2:1:"));
     assert_non_null(strstr(err.msg, "goes back at"));
 }
 
@@ -356,6 +388,7 @@ int main(void)
         cmocka_unit_test(test_tab_quotes_trailing_empty),
         cmocka_unit_test(test_counts_and_places),
         cmocka_unit_test(test_stray_rows_dropped_with_place),
+        cmocka_unit_test(test_first_row_ahead_is_a_stray),
         cmocka_unit_test(test_restart_makes_segments),
         cmocka_unit_test(test_time_that_is_not_a_clock),
         cmocka_unit_test(test_glitches_dropped_with_place),
