@@ -165,25 +165,6 @@ enum pb_code logopts_finish(struct log_cli *cli, struct pb_error *err)
     return PB_OK;
 }
 
-/* Appends a warning to a's list (the analysis owns it; analysis_free frees
- * it). The reader's plausibility and clock events are worded by
- * logread_warnings; analyze's reader_warnings() does not name them yet. */
-static void add_warning(void *ctx, const char *code, const char *message)
-{
-    struct analysis *a = ctx;
-    if (a->nwarnings == a->capwarnings) {
-        size_t cap = a->capwarnings ? 2 * a->capwarnings : 16;
-        struct pb_warning *w = realloc(a->warnings, cap * sizeof *w);
-        if (!w)
-            return; /* as analyze does: a lost warning is better than a lost analysis */
-        a->warnings = w;
-        a->capwarnings = cap;
-    }
-    struct pb_warning *w = &a->warnings[a->nwarnings++];
-    snprintf(w->code, sizeof w->code, "%s", code);
-    snprintf(w->message, sizeof w->message, "%s", message);
-}
-
 enum pb_code logopts_analyze(const char *path, const struct log_cli *cli,
                              struct logread_stats *stats, struct analysis **out,
                              struct series **series_out, struct pb_error *err)
@@ -214,7 +195,6 @@ enum pb_code logopts_analyze(const char *path, const struct log_cli *cli,
     rc = analyze_series(s, stats, name, &cli->an, a, err);
     if (rc != PB_OK)
         goto cleanup;
-    logread_warnings(stats, name, add_warning, a);
     struct plausible pl;
     plausible_log(s, stats, name, cli->an.capacity_mah, &pl);
     for (size_t k = 0; k < pl.n; k++) {
@@ -223,7 +203,7 @@ enum pb_code logopts_analyze(const char *path, const struct log_cli *cli,
                               pl.f[k].message);
             goto cleanup;
         }
-        add_warning(a, pl.f[k].code, pl.f[k].message);
+        analysis_add_warning(a, pl.f[k].code, pl.f[k].message);
     }
     *out = a;
     a = NULL;

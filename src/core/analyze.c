@@ -52,6 +52,16 @@ static void warn(struct analysis *a, const char *code, const char *fmt, ...)
     va_end(ap);
 }
 
+void analysis_add_warning(struct analysis *a, const char *code, const char *message)
+{
+    warn(a, code, "%s", message);
+}
+
+static void emit_reader_warning(void *ctx, const char *code, const char *message)
+{
+    analysis_add_warning(ctx, code, message);
+}
+
 static struct estimate none(void)
 {
     return (struct estimate){NAN, NAN};
@@ -106,6 +116,8 @@ static void reader_warnings(struct analysis *a, const struct logread_stats *st, 
     if (st->truncated_last_line)
         warn(a, "truncated_last_line",
              "the last line of %s is cut short (no final newline); it was dropped", name);
+    /* plausibility and clock events, worded by the reader */
+    logread_warnings(st, name, emit_reader_warning, a);
     if (st->sign_flipped)
         warn(a, "current_sign_flipped",
              "current logged negative while discharging: sign flipped (set --current-sign to "

@@ -148,6 +148,10 @@ struct analysis *analysis_new(void);
 /* Frees a and its warnings; NULL is a no-op. */
 void analysis_free(struct analysis *a);
 
+/* Appends a warning (code and message copied, cut to their fields) to a's
+ * list, for findings made beside the analysis (whole-log checks). */
+void analysis_add_warning(struct analysis *a, const char *code, const char *message);
+
 /* Analyses s (read with stats st, which supplies the repair counts and
  * their places for the warnings; name is the log's name for them). */
 enum pb_code analyze_series(const struct series *s, const struct logread_stats *st,
