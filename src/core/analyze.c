@@ -565,6 +565,21 @@ static struct estimate soc_estimate(const struct soc_value *v)
     return (struct estimate){v->soc_pct, v->ci95_pct};
 }
 
+/* SoC, its range and the rest state at both ends from the OCVs and their
+ * half-widths set in a (a->cells > 0). */
+static void soc_ends(struct analysis *a, struct soc_value *s0, struct soc_value *s1)
+{
+    double cells = a->cells;
+    *s0 = socest_soc(a->chem, a->ocv_start_v / cells, a->ocv_start_d_v / cells);
+    *s1 = socest_soc(a->chem, a->ocv_end_v / cells, a->ocv_end_d_v / cells);
+    a->soc_start_pct = soc_estimate(s0);
+    a->soc_end_pct = soc_estimate(s1);
+    a->soc_start_lo_pct = s0->lo_pct, a->soc_start_hi_pct = s0->hi_pct;
+    a->soc_end_lo_pct = s1->lo_pct, a->soc_end_hi_pct = s1->hi_pct;
+    a->state_start = rest_state(a->chem, a->ocv_start_v / cells);
+    a->state_end = rest_state(a->chem, a->ocv_end_v / cells);
+}
+
 /* Stage: SoC at the ends and capacity (capacity.h): to the cut-off when the
  * log is such a discharge, else from the SoC swing. */
 static void stage_soc_capacity(struct analysis *a, const struct series *s, const double *q_ah,
@@ -573,14 +588,8 @@ static void stage_soc_capacity(struct analysis *a, const struct series *s, const
     if (a->cells <= 0)
         return;
     double cells = a->cells;
-    struct soc_value s0 = socest_soc(a->chem, a->ocv_start_v / cells, a->ocv_start_d_v / cells);
-    struct soc_value s1 = socest_soc(a->chem, a->ocv_end_v / cells, a->ocv_end_d_v / cells);
-    a->soc_start_pct = soc_estimate(&s0);
-    a->soc_end_pct = soc_estimate(&s1);
-    a->soc_start_lo_pct = s0.lo_pct, a->soc_start_hi_pct = s0.hi_pct;
-    a->soc_end_lo_pct = s1.lo_pct, a->soc_end_hi_pct = s1.hi_pct;
-    a->state_start = rest_state(a->chem, a->ocv_start_v / cells);
-    a->state_end = rest_state(a->chem, a->ocv_end_v / cells);
+    struct soc_value s0, s1;
+    soc_ends(a, &s0, &s1);
     if (s0.clamped || s1.clamped)
         warn(a, "ocv_outside_table",
              "open-circuit voltage %.3f V/cell lies outside the %s table: SoC clamped; "
@@ -743,14 +752,8 @@ enum pb_code analyze_series(const struct series *s, const struct logread_stats *
         a->ocv_start_d_v = a->ocv_end_d_v = SOCEST_LOADED_V * cells;
         a->ocv_start_method = a->ocv_end_method = "loaded";
         if (a->cells > 0) {
-            struct soc_value s0 = socest_soc(a->chem, a->ocv_start_v / cells, SOCEST_LOADED_V);
-            struct soc_value s1 = socest_soc(a->chem, a->ocv_end_v / cells, SOCEST_LOADED_V);
-            a->soc_start_pct = soc_estimate(&s0);
-            a->soc_end_pct = soc_estimate(&s1);
-            a->soc_start_lo_pct = s0.lo_pct, a->soc_start_hi_pct = s0.hi_pct;
-            a->soc_end_lo_pct = s1.lo_pct, a->soc_end_hi_pct = s1.hi_pct;
-            a->state_start = rest_state(a->chem, a->ocv_start_v / cells);
-            a->state_end = rest_state(a->chem, a->ocv_end_v / cells);
+            struct soc_value s0, s1;
+            soc_ends(a, &s0, &s1);
         }
         warn(a, "capacity_not_estimable",
              s->i_a ? "capacity needs a fitted open-circuit voltage at both ends"
