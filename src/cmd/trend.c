@@ -18,6 +18,10 @@ static const char trend_usage[] =
     "against equivalent cycles and against days (robust unless --fit ols), slopes\n"
     "with 95 % intervals, and the cycle and date at which each reaches its\n"
     "retirement level, or 'not within N cycles' (--horizon, default 1000).\n"
+    "With 10 or more flights, a knee-aware projection under each: fade models\n"
+    "(line, line with a break, exponential, power law) chosen by their held-out\n"
+    "error on this pack's history, and the crossing as a range: '80 % between\n"
+    "cycle X and Y; plan for X' (JSON: crossing_cycles_range [early, middle, late])\n"
     "  --plot FILE            also draw the trend as FILE.png, .svg or .pdf against\n"
     "                         cycles ('packbook plot trend' has --x date and --size)\n";
 

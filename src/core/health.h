@@ -8,6 +8,8 @@
 
 #include <stddef.h>
 
+#include "life.h"
+
 struct health_flight {
     double epoch_s;
     double charge_mah;        /* net charge used */
@@ -109,6 +111,11 @@ struct trend_line {
     double cross_cycles;  /* equivalent cycles at the crossing */
     double cross_epoch_s; /* date of the crossing, from the time fit */
     int beyond_horizon;   /* a crossing exists, but later than the horizon */
+    /* the knee-aware projection (life.h): its early end is what to plan
+     * for; plan_epoch_s is that early end as a date at the pack's average
+     * use so far (equivalent cycles per day), NAN when unknown */
+    struct life_projection life;
+    double plan_epoch_s;
 };
 
 struct pack_trend {
@@ -125,6 +132,12 @@ struct pack_trend {
 int health_trend(const struct health_flight *f, size_t n, int cells, double rated_mah,
                  const struct health_rules *rules, enum trend_by by, int plain, double horizon,
                  struct pack_trend *out);
+
+/* What to plan for: the earlier of the two quantities' early ends
+ * (life.h). Sets *cycles, *epoch_s (NAN without a date) and *what ("R0" or
+ * "capacity"); returns 0 when neither projects a crossing within the
+ * horizon. */
+int health_plan(const struct pack_trend *t, double *cycles, double *epoch_s, const char **what);
 
 /* Frees the buckets of t (not t itself); safe on a zeroed struct. */
 void health_trend_release(struct pack_trend *t);

@@ -170,6 +170,21 @@ void report_csv_cell(FILE *out, const char *t)
         fputc('"', out);
 }
 
+/* The date to plan the pack's retirement by: "now" when a rule fires or a
+ * fade model is past its level, the early end's date, or "" */
+static const char *plan_by(const struct pack_view *v, char *buf, size_t cap)
+{
+    double pc, pe;
+    const char *what;
+    if (v->pack.retired_at[0])
+        return "";
+    if (v->health.status == HEALTH_RETIRE || v->trend.capacity.life.past || v->trend.r0.life.past)
+        return "now";
+    if (!health_plan(&v->trend, &pc, &pe, &what) || !isfinite(pe))
+        return "";
+    return day(pe, buf, cap);
+}
+
 static void csv_num(FILE *out, const char *fmt, double v)
 {
     fputc(',', out);
@@ -189,6 +204,12 @@ int report_fleet(FILE *out, const struct pack_view *v, size_t n, enum fleet_form
             json_t *h = health_obj(&v[k]);
             json_object_update(o, h);
             json_decref(h);
+            double pc, pe;
+            const char *pq;
+            health_plan(&v[k].trend, &pc, &pe, &pq);
+            json_object_set_new(o, "plan_retire_by", jout_date(pe));
+            json_object_set_new(o, "plan_retire_cycles", jout_num(pc));
+            json_object_set_new(o, "plan_retire_quantity", jout_str(pq ? pq : ""));
             if (safe)
                 json_object_set_new(o, "safe_time_s",
                                     json_pack("{s:o, s:o}", "conservative", jout_num(safe[2 * k]),
@@ -200,7 +221,7 @@ int report_fleet(FILE *out, const struct pack_view *v, size_t n, enum fleet_form
     if (fmt == FLEET_CSV) {
         fprintf(out,
                 "pack,flights,equivalent_cycles,last_flown,r0_mohm_per_cell,r0_ratio,"
-                "capacity_pct,cell_spread_mv,overdischarges,status,reason%s\n",
+                "capacity_pct,cell_spread_mv,overdischarges,status,reason,plan_retire_by%s\n",
                 safe ? ",safe_time_conservative_s,safe_time_median_s" : "");
         char b[32];
         for (size_t k = 0; k < n; k++) {
@@ -215,6 +236,7 @@ int report_fleet(FILE *out, const struct pack_view *v, size_t n, enum fleet_form
             csv_num(out, "%.1f", h->spread_mv);
             fprintf(out, ",%d,%s,", h->overdischarges, status_of(&v[k]));
             report_csv_cell(out, v[k].pack.retired_at[0] ? v[k].pack.retire_reason : h->reason);
+            fprintf(out, ",%s", plan_by(&v[k], b, sizeof b));
             if (safe) {
                 csv_num(out, "%.0f", safe[2 * k]);
                 csv_num(out, "%.0f", safe[2 * k + 1]);
@@ -223,24 +245,30 @@ int report_fleet(FILE *out, const struct pack_view *v, size_t n, enum fleet_form
         }
         return ferror(out) ? -1 : 0;
     }
-    fprintf(out, "%-14s %7s %7s %-10s %9s %7s %6s %7s %5s%s  %-7s %s\n", "pack", "flights",
+    fprintf(out, "%-14s %7s %7s %-10s %9s %7s %6s %7s %5s%s  %-10s  %-7s %s\n", "pack", "flights",
             "cycles", "last", "R0 mOhm", "R0 vs", "cap %", "spread", "over",
-            safe ? "  safe min" : "", "status", "why");
-    fprintf(out, "%-14s %7s %7s %-10s %9s %7s %6s %7s %5s%s  %-7s\n", "", "", "", "flown",
-            "per cell", "base", "rated", "mV", "disch", safe ? "  (5th pct)" : "", "");
+            safe ? "  safe min" : "", "plan to", "status", "why");
+    fprintf(out, "%-14s %7s %7s %-10s %9s %7s %6s %7s %5s%s  %-10s  %-7s\n", "", "", "", "flown",
+            "per cell", "base", "rated", "mV", "disch", safe ? "  (5th pct)" : "", "retire by", "");
     for (size_t k = 0; k < n; k++) {
         const struct pack_health *h = &v[k].health;
         char b[7][32];
         char sm[40] = "";
         if (safe)
             snprintf(sm, sizeof sm, "  %9s", fmt_num(b[6], 32, "%.1f", safe[2 * k] / 60.0));
-        fprintf(out, "%-14s %7zu %7s %-10s %9s %7s %6s %7s %5d%s  %-7s %s\n", v[k].pack.label,
-                h->flights, fmt_num(b[0], 32, "%.1f", h->cycles), day(h->last_epoch_s, b[1], 32),
-                fmt_num(b[2], 32, "%.2f", h->r0_now_mohm_cell),
+        char pb[32];
+        const char *plan = plan_by(&v[k], pb, sizeof pb);
+        fprintf(out, "%-14s %7zu %7s %-10s %9s %7s %6s %7s %5d%s  %-10s  %-7s %s\n",
+                v[k].pack.label, h->flights, fmt_num(b[0], 32, "%.1f", h->cycles),
+                day(h->last_epoch_s, b[1], 32), fmt_num(b[2], 32, "%.2f", h->r0_now_mohm_cell),
                 fmt_num(b[3], 32, "x%.2f", h->r0_ratio), fmt_num(b[4], 32, "%.0f", h->capacity_pct),
-                fmt_num(b[5], 32, "%.0f", h->spread_mv), h->overdischarges, sm, status_of(&v[k]),
+                fmt_num(b[5], 32, "%.0f", h->spread_mv), h->overdischarges, sm,
+                plan[0] ? plan : "-", status_of(&v[k]),
                 v[k].pack.retired_at[0] ? v[k].pack.retire_reason : h->reason);
     }
+    if (n)
+        fprintf(out, "plan to retire by: the early end of the knee-aware projection of capacity\n"
+                     "or R0 (packbook trend ID), as a date at the pack's use so far\n");
     if (safe)
         fprintf(out,
                 "safe min: conservative safe flight time to a 30 %% reserve at %s; an estimate,\n"
@@ -259,13 +287,56 @@ static json_t *line_obj(const struct line_fit *l)
                      l->b_ci95, "points", (json_int_t)l->n);
 }
 
+static json_t *fade_obj(const struct life_projection *p)
+{
+    if (p->model == LIFE_NONE)
+        return json_null();
+    return json_pack("{s:s, s:o, s:o, s:o, s:b}", "model", life_model_name(p->model), "shape",
+                     jout_num(p->shape), "holdout_error", jout_num(p->holdout_err),
+                     "error_per_cycle", jout_num(p->err_rate), "past", p->past);
+}
+
 static json_t *trend_line_obj(const struct trend_line *t)
 {
-    return json_pack("{s:o, s:o, s:o, s:b, s:b, s:o, s:o, s:b}", "vs_cycles",
-                     line_obj(&t->vs_cycles), "per_day", line_obj(&t->vs_days), "retire_level",
-                     jout_num(t->level), "crossed", t->crossed, "line_past", t->line_past,
-                     "crossing_cycles", jout_num(t->cross_cycles), "crossing_date",
-                     jout_date(t->cross_epoch_s), "beyond_horizon", t->beyond_horizon);
+    const struct life_projection *p = &t->life;
+    return json_pack(
+        "{s:o, s:o, s:o, s:b, s:b, s:o, s:o, s:b, s:[o, o, o], s:o, s:o}", "vs_cycles",
+        line_obj(&t->vs_cycles), "per_day", line_obj(&t->vs_days), "retire_level",
+        jout_num(t->level), "crossed", t->crossed, "line_past", t->line_past, "crossing_cycles",
+        jout_num(t->cross_cycles), "crossing_date", jout_date(t->cross_epoch_s), "beyond_horizon",
+        t->beyond_horizon, "crossing_cycles_range", jout_num(p->early), jout_num(p->middle),
+        jout_num(p->late), "plan_date", jout_date(t->plan_epoch_s), "fade_model", fade_obj(p));
+}
+
+int report_life_text(const struct trend_line *t, const char *unit, double horizon, char *buf,
+                     size_t cap)
+{
+    const struct life_projection *p = &t->life;
+    if (p->model == LIFE_NONE || !isfinite(t->level))
+        return 0;
+    int pct = strcmp(unit, "%") == 0;
+    char lvl[48];
+    snprintf(lvl, sizeof lvl, pct ? "%.0f %%" : "%.2f %s", t->level, unit);
+    if (p->past)
+        snprintf(buf, cap, "%s: the %s fit is at the level already; plan for now", lvl,
+                 life_model_name(p->model));
+    else if (!isfinite(p->early))
+        snprintf(buf, cap, "%s: not within %.0f cycles (%s fit)", lvl, horizon,
+                 life_model_name(p->model));
+    else if (!isfinite(p->late))
+        snprintf(buf, cap,
+                 "%s from cycle %.0f (middle %.0f, late end beyond %.0f cycles; %s fit); "
+                 "plan for %.0f%s%s",
+                 lvl, p->early, p->middle, horizon, life_model_name(p->model), p->early,
+                 isfinite(t->plan_epoch_s) ? ", around " : "",
+                 isfinite(t->plan_epoch_s) ? day(t->plan_epoch_s, (char[32]){0}, 32) : "");
+    else
+        snprintf(buf, cap,
+                 "%s between cycle %.0f and %.0f (middle %.0f, %s fit); plan for %.0f%s%s", lvl,
+                 p->early, p->late, p->middle, life_model_name(p->model), p->early,
+                 isfinite(t->plan_epoch_s) ? ", around " : "",
+                 isfinite(t->plan_epoch_s) ? day(t->plan_epoch_s, (char[32]){0}, 32) : "");
+    return 1;
 }
 
 static void text_projection(FILE *out, const char *what, const struct trend_line *t,
@@ -294,6 +365,9 @@ static void text_projection(FILE *out, const char *what, const struct trend_line
                 isfinite(t->cross_epoch_s) ? day(t->cross_epoch_s, b, sizeof b) : "");
     else
         fprintf(out, "not within %.0f cycles of %.2f\n", horizon, t->level);
+    char lb[200];
+    if (isfinite(t->level) && !t->crossed && report_life_text(t, unit, horizon, lb, sizeof lb))
+        fprintf(out, "  %-10s %s\n", "", lb);
 }
 
 int report_trend(FILE *out, const struct pack_view *v, enum trend_by by, double horizon, int json)
@@ -336,7 +410,9 @@ int report_trend(FILE *out, const struct pack_view *v, enum trend_by by, double 
     text_projection(out, "capacity", &t->capacity, "%", horizon, t->cycles_now);
     fprintf(out, "\n  status: %s (%s)\n", status_of(v),
             v->pack.retired_at[0] ? v->pack.retire_reason : v->health.reason);
-    fprintf(out, "  Projections extend a straight line; a pack can fail sooner. Inspect it.\n");
+    fprintf(out, "  The first line of each is a straight line; the second chooses among fade\n"
+                 "  models (line, break, exponential, power law) by their held-out error on\n"
+                 "  this pack's history. A pack can fail sooner than any of them: inspect it.\n");
     return ferror(out) ? -1 : 0;
 }
 

@@ -29,6 +29,12 @@ int report_pack_show(FILE *out, const struct pack_view *v, int json);
  * (safe[2k], safe[2k + 1]; NAN when no prediction was possible). */
 int report_fleet(FILE *out, const struct pack_view *v, size_t n, enum fleet_format fmt,
                  const double *safe);
+/* The knee-aware projection of one quantity in words ("80 % between cycle
+ * X and Y (middle Z, exponential fit); plan for X, around DATE") into buf;
+ * returns 0 (buf untouched) when there is none to tell. */
+int report_life_text(const struct trend_line *t, const char *unit, double horizon, char *buf,
+                     size_t cap);
+
 int report_trend(FILE *out, const struct pack_view *v, enum trend_by by, double horizon, int json);
 int report_compare(FILE *out, const struct pack_view *v, size_t n, int json);
 
