@@ -77,7 +77,8 @@ double life_value(const struct life_projection *p, double x)
 /* One robust fit of a model with a given shape to n points; sets coef and
  * the bisquare-weighted residual sum of squares. Returns 0, or -1. */
 static int fit_shape(enum life_model m, double shape, double scale, const double *x,
-                     const double *y, size_t n, double coef[3], double *wsse, double *sigma)
+                     const double *y, size_t n, double coef[3], double *wsse, double *sigma,
+                     double cov_out[9])
 {
     double row[3];
     size_t p = basis(m, shape, scale, 0.0, row);
@@ -112,6 +113,11 @@ static int fit_shape(enum life_model m, double shape, double scale, const double
         coef[j] = gsl_vector_get(c, j);
     *wsse = s;
     *sigma = st.sigma;
+    for (size_t i = 0; i < 9; i++)
+        cov_out[i] = 0.0;
+    for (size_t i = 0; i < p; i++)
+        for (size_t j = 0; j < p; j++)
+            cov_out[3 * i + j] = gsl_matrix_get(cov, i, j);
     ok = isfinite(s) && isfinite(coef[0]) && isfinite(coef[1]) && isfinite(coef[2]) ? 0 : -1;
 cleanup:
     gsl_multifit_robust_free(w);
@@ -125,7 +131,7 @@ cleanup:
 /* The best shape of a model on n points (least weighted residual); sets
  * that residual and the fit's robust scale when wsse, sigma are not NULL. */
 static int fit_model(enum life_model m, const double *x, const double *y, size_t n, double *shape,
-                     double *scale, double coef[3], double *wsse, double *sigma)
+                     double *scale, double coef[3], double *wsse, double *sigma, double cov[9])
 {
     double grid[BREAK_GRID > 7 ? BREAK_GRID : 7];
     size_t ng = 1;
@@ -150,11 +156,13 @@ static int fit_model(enum life_model m, const double *x, const double *y, size_t
     }
     double best = HUGE_VAL, best_sigma = NAN;
     for (size_t g = 0; g < ng; g++) {
-        double c[3], s, sg;
-        if (fit_shape(m, grid[g], *scale, x, y, n, c, &s, &sg) != 0 || !(s < best))
+        double c[3], s, sg, cv[9];
+        if (fit_shape(m, grid[g], *scale, x, y, n, c, &s, &sg, cv) != 0 || !(s < best))
             continue;
         best = s;
         best_sigma = sg;
+        if (cov)
+            memcpy(cov, cv, sizeof cv);
         *shape = grid[g];
         memcpy(coef, c, sizeof c);
     }
@@ -193,15 +201,20 @@ static int holdout(enum life_model m, const double *x, const double *y, size_t n
     *ne = 0;
     for (int o = 0; o < 2; o++) {
         size_t org = origins[o];
-        double shape = NAN, scale, coef[3];
-        if (fit_model(m, x, y, org, &shape, &scale, coef, NULL, NULL) != 0)
+        double shape = NAN, scale, coef[3], sigma;
+        if (fit_model(m, x, y, org, &shape, &scale, coef, NULL, &sigma, NULL) != 0)
             return -1;
+        if (!isfinite(sigma))
+            sigma = 0.0;
         for (size_t k = org; k < n; k++) {
             double e = fabs(y[k] - eval(m, shape, scale, coef, x[k]));
             double d = x[k] - x[org - 1];
             err[(*ne)++] = e;
+            /* what grows with the cycles ahead is the error beyond one
+             * flight's own scatter about the model (its robust sigma):
+             * the crossing is of the pack's state, not of one flight */
             if (d > 0.0)
-                scratch[nr++] = e / d;
+                scratch[nr++] = fmax(e - sigma, 0.0) / d;
         }
     }
     *rate = MAD_SD * median_of(scratch, nr);
@@ -210,13 +223,28 @@ static int holdout(enum life_model m, const double *x, const double *y, size_t n
     return isfinite(*med_err) && isfinite(*rate) ? 0 : -1;
 }
 
+/* One standard deviation of the model's value at x, d cycles ahead of x0:
+ * its parameters' (the fit's covariance, shape held) and the held-out
+ * error growth, independent. */
+static double life_halfwidth(const struct life_projection *p, double x, double x0)
+{
+    double row[3];
+    size_t np = basis(p->model, p->shape, p->scale_x, x, row);
+    double var = 0.0;
+    for (size_t i = 0; i < np; i++)
+        for (size_t j = 0; j < np; j++)
+            var += row[i] * p->cov[3 * i + j] * row[j];
+    double g = p->err_rate * (x - x0);
+    return sqrt(fmax(var, 0.0) + g * g);
+}
+
 /* The first x in [x0, x0 + horizon] where the falling g(x) - k rate (x - x0)
  * is at or below level (g already negated for a rising quantity); NAN when
  * none. A scan in steps of horizon / 4000, then bisection within the step. */
 static double first_cross(const struct life_projection *p, double sign, double level, double k,
                           double x0, double horizon)
 {
-#define G(xx) (sign * life_value(p, (xx)) - k * p->err_rate * ((xx)-x0))
+#define G(xx) (sign * life_value(p, (xx)) - k * life_halfwidth(p, (xx), x0))
     if (G(x0) <= level)
         return x0;
     double step = horizon / 4000.0, lo = x0;
@@ -236,6 +264,31 @@ static double first_cross(const struct life_projection *p, double sign, double l
     }
     return NAN;
 #undef G
+}
+
+/* One model fitted to the whole history and projected: its crossing
+ * (middle) and range. Returns 0, or -1 when it cannot be fitted. */
+static int project_one(enum life_model model, double med, double rate, const double *xs,
+                       const double *ys, size_t m, double sign, double lvl, double x_now,
+                       double horizon, struct life_projection *p)
+{
+    memset(p, 0, sizeof *p);
+    p->model = model;
+    p->holdout_err = med;
+    p->err_rate = rate;
+    p->early = p->middle = p->late = NAN;
+    if (fit_model(model, xs, ys, m, &p->shape, &p->scale_x, p->coef, NULL, NULL, p->cov) != 0)
+        return -1;
+    p->past = sign * life_value(p, x_now) <= lvl;
+    p->middle = first_cross(p, sign, lvl, 0.0, x_now, horizon);
+    /* a model that does not reach the level projects no crossing: an early
+     * end from the error allowance alone would be noise (a new pack's
+     * falling resistance would get a date) */
+    if (!isfinite(p->middle))
+        return 0;
+    p->early = first_cross(p, sign, lvl, Z95, x_now, horizon);
+    p->late = first_cross(p, sign, lvl, -Z95, x_now, horizon);
+    return 0;
 }
 
 int life_project(const double *x, const double *y, size_t n, double level, int rising, double x_now,
@@ -267,33 +320,49 @@ int life_project(const double *x, const double *y, size_t n, double level, int r
     double med[NC], rate[NC];
     size_t ne[NC];
     int ok[NC], best = -1;
+    struct life_projection pr[NC];
+    double sign = rising ? -1.0 : 1.0, lvl = sign * level;
     for (int c = 0; c < NC; c++) {
         ok[c] = holdout(cand[c], xs, ys, m, err + (size_t)c * 2 * m, &ne[c], pc, &med[c],
-                        &rate[c]) == 0;
+                        &rate[c]) == 0 &&
+                project_one(cand[c], med[c], rate[c], xs, ys, m, sign, lvl, x_now, horizon,
+                            &pr[c]) == 0;
+        /* the least median held-out error wins; the simpler model keeps a tie */
         if (ok[c] && (best < 0 || med[c] < med[best]))
             best = c;
     }
-    /* the least median held-out error wins; the simpler model keeps a tie */
     if (best >= 0) {
-        out->model = cand[best];
-        out->holdout_err = med[best];
-        out->err_rate = rate[best];
+        *out = pr[best];
+        /* Which model is right is uncertain too: the range spans every
+         * model whose held-out errors exceed the chosen one's by no more
+         * than the standard error of that excess (paired, point by point;
+         * the one-standard-error rule of Hastie, Tibshirani and Friedman,
+         * The Elements of Statistical Learning, 7.10, from memory). A curve
+         * picked by a few noisy flights then still shows the line's later
+         * end, and the line a curve's earlier one. */
+        int late_open = isfinite(out->middle) && !isfinite(out->late);
+        for (int c = 0; c < NC && isfinite(out->middle); c++) {
+            if (!ok[c] || c == best || ne[c] != ne[best])
+                continue;
+            const double *ec = err + (size_t)c * 2 * m, *eb = err + (size_t)best * 2 * m;
+            double sum = 0.0, sum2 = 0.0, k = (double)ne[c];
+            for (size_t i = 0; i < ne[c]; i++) {
+                double d = ec[i] - eb[i];
+                sum += d;
+                sum2 += d * d;
+            }
+            double mean = sum / k, var = k > 1 ? (sum2 - k * mean * mean) / (k - 1.0) : 0.0;
+            if (!(mean <= sqrt(fmax(var, 0.0) / k)))
+                continue;
+            out->early = fmin(out->early, isfinite(pr[c].early) ? pr[c].early : pr[c].middle);
+            if (!isfinite(pr[c].late))
+                late_open = 1;
+            else
+                out->late = fmax(out->late, pr[c].late);
+        }
+        if (late_open)
+            out->late = NAN;
     }
-    if (out->model != LIFE_NONE &&
-        fit_model(out->model, xs, ys, m, &out->shape, &out->scale_x, out->coef, NULL, NULL) != 0)
-        out->model = LIFE_NONE;
     free(xs), free(ys), free(err), free(pc);
-    if (out->model == LIFE_NONE)
-        return 0;
-    double sign = rising ? -1.0 : 1.0, lvl = sign * level;
-    out->past = sign * life_value(out, x_now) <= lvl;
-    out->middle = first_cross(out, sign, lvl, 0.0, x_now, horizon);
-    /* a model that does not reach the level projects no crossing: an early
-     * end from the error allowance alone would be noise (a new pack's
-     * falling resistance would get a date) */
-    if (!isfinite(out->middle))
-        return 0;
-    out->early = first_cross(out, sign, lvl, Z95, x_now, horizon);
-    out->late = first_cross(out, sign, lvl, -Z95, x_now, horizon);
     return 0;
 }

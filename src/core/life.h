@@ -8,11 +8,15 @@
  * robust least squares (bisquare, GSL) with its shape (break point, rate,
  * power) taken from a fixed grid; the model is chosen by its held-out error
  * on the pack's own history (fitted to the earlier flights, scored on the
- * later ones: the median absolute error at two forecast origins). Its
- * crossing of the level is the middle of the range; the ends come from the
- * same held-out errors, as the rate at which the chosen model's forecast
- * error grew with the cycles ahead (1.4826 x the median of |error| /
- * cycles ahead, a normal-consistent scale), 1.96 of them either side. */
+ * later ones: the median absolute error at two forecast origins).  Its
+ * crossing of the level is the middle of the range. Each end is where the
+ * model, 1.96 standard deviations away, reaches the level; the deviation
+ * joins the fit's own (its parameters' covariance, shape held) and the
+ * held-out error beyond one flight's scatter as it grew per cycle ahead
+ * (1.4826 x the median of (|error| - sigma)+ / cycles ahead). The range
+ * then spans every other model whose held-out errors exceed the chosen
+ * one's by no more than their standard error (paired), so which model is
+ * right is part of the uncertainty. */
 #ifndef PB_LIFE_H
 #define PB_LIFE_H
 
@@ -28,7 +32,9 @@ struct life_projection {
     double coef[3];        /* intercept, then the model's terms */
     double scale_x;        /* x is divided by this in the exponential and power terms */
     double holdout_err;    /* median absolute held-out error of the chosen model (y units) */
-    double err_rate;       /* its forecast error growth per cycle ahead (y units per cycle) */
+    double err_rate;       /* its forecast error growth per cycle ahead beyond one flight's
+                              scatter (y units per cycle) */
+    double cov[9];         /* covariance of coef (row-major 3 x 3), shape held */
     /* equivalent cycles at the crossing: early (what to plan for), middle
      * (the model's own), late; NAN when not within the horizon (all
      * three when the model itself does not reach the level) */
