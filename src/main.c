@@ -21,6 +21,7 @@ static const struct command commands[] = {
     {"chemistry", cmd_chemistry, "the OCV tables and limits used, with their sources"},
     {"pack", cmd_pack, "register packs: add, list, show, retire"},
     {"import", cmd_import, "analyse logs and store them as a pack's flights"},
+    {"flight", cmd_flight, "acknowledge a flight that left its pack's trend"},
     {"fleet", cmd_fleet, "every pack's state, with retirement flags and reasons"},
     {"trend", cmd_trend, "a pack's resistance and capacity over weeks and cycles"},
     {"compare", cmd_compare, "packs side by side"},

@@ -23,6 +23,9 @@ static const char usage_head[] =
     "the flight. A log already imported (same content) is recognised and skipped.\n"
     "The flight date is the log's absolute time, else --date, else the file's\n"
     "modification time. A failing log does not stop the batch (exit status 1).\n"
+    "A flight that left its pack's trend (R0 or cell spread up, capacity down by 4\n"
+    "standard deviations or more) is named after the summary, with how to\n"
+    "acknowledge it once inspected ('packbook flight ack').\n"
     "\n"
     "  --pack ID              the pack that flew (see 'packbook pack list')\n"
     "  --date DATE            date for logs without absolute time (ISO 8601)\n"
@@ -154,7 +157,7 @@ enum outcome { OUT_STORED, OUT_DUPLICATE, OUT_FAILED };
 /* Imports one log; on OUT_FAILED err says why. */
 static enum outcome import_one(struct store *st, const struct pack_rec *pack,
                                const struct import_cli *cli, const char *path, char *line,
-                               size_t cap, struct pb_error *err)
+                               size_t cap, char hash[40], struct pb_error *err)
 {
     struct log_cli lc = cli->log;
     XXH3_state_t *hs = XXH3_createState();
@@ -243,12 +246,45 @@ static enum outcome import_one(struct store *st, const struct pack_rec *pack,
                      a->nwarnings == 1 ? "" : "s");
         }
         out = OUT_STORED;
+        memcpy(hash, f.content_hash, sizeof f.content_hash);
     }
 cleanup:
     free(json);
     analysis_free(a);
     XXH3_freeState(hs);
     return out;
+}
+
+/* The flights just stored (by content hash) that left the pack's trend
+ * (departure.h), each with how to acknowledge it. Printed even with
+ * --quiet: it is why the operator should look at the pack now. */
+static enum pb_code report_departures(struct store *st, const struct pack_rec *pack,
+                                      char (*hashes)[40], size_t nh, struct pb_error *err)
+{
+    struct health_rules rules;
+    health_rules_default(&rules);
+    struct pack_view v;
+    enum pb_code rc = packview_load(st, pack, &rules, TREND_WEEK, 0, 1000.0, &v, err);
+    if (rc != PB_OK)
+        return rc;
+    for (size_t k = 0; k < v.nflights; k++) {
+        const struct flight_rec *f = &v.flights[k];
+        if (!v.dep[k].flagged || pack_view_ack(&v, f->id))
+            continue;
+        int fresh = 0;
+        for (size_t j = 0; j < nh && !fresh; j++)
+            fresh = strcmp(hashes[j], f->content_hash) == 0;
+        if (!fresh)
+            continue;
+        char what[128], day[40];
+        departure_text(&v.dep[k], what, sizeof what);
+        isotime_format(f->flown_epoch_s, day, sizeof day);
+        printf("inspect: flight %lld (%.10s, %s): %s; after inspecting the pack: packbook flight "
+               "ack %lld --note TEXT\n",
+               (long long)f->id, day, f->source, what, (long long)f->id);
+    }
+    pack_view_release(&v);
+    return PB_OK;
 }
 
 static void progress(size_t done, size_t total)
@@ -313,6 +349,7 @@ enum pb_code cmd_import(int argc, char **argv, struct app *app, struct pb_error 
 
     struct store *st = NULL;
     struct path_list paths = {0};
+    char(*hashes)[40] = NULL; /* content hashes of the flights stored now */
     rc = packview_open_store(cli.db, 1, &st, err);
     if (rc != PB_OK)
         return rc;
@@ -330,10 +367,16 @@ enum pb_code cmd_import(int argc, char **argv, struct app *app, struct pb_error 
             goto cleanup;
     size_t stored = 0, dups = 0, failed = 0;
     int bar = isatty(STDERR_FILENO) && paths.n > 1;
+    hashes = calloc(paths.n ? paths.n : 1, sizeof *hashes);
+    if (!hashes) {
+        rc = pb_error_set(err, PB_ENOMEM, "out of memory");
+        goto cleanup;
+    }
     for (size_t k = 0; k < paths.n; k++) {
         char line[600];
         struct pb_error e = {PB_OK, ""};
-        enum outcome o = import_one(st, &pack, &cli, paths.v[k], line, sizeof line, &e);
+        enum outcome o =
+            import_one(st, &pack, &cli, paths.v[k], line, sizeof line, hashes[stored], &e);
         if (bar)
             fprintf(stderr, "\r%*s\r", 60, "");
         if (o == OUT_FAILED) {
@@ -358,8 +401,11 @@ enum pb_code cmd_import(int argc, char **argv, struct app *app, struct pb_error 
     printf("%zu imported, %zu already there, %zu failed (pack %s)\n", stored, dups, failed,
            pack.label);
     app->some_failed = failed > 0;
-    rc = cmd_finish_stdout(err);
+    rc = stored ? report_departures(st, &pack, hashes, stored, err) : PB_OK;
+    if (rc == PB_OK)
+        rc = cmd_finish_stdout(err);
 cleanup:
+    free(hashes);
     for (size_t k = 0; k < paths.n; k++)
         free(paths.v[k]);
     free(paths.v);

@@ -17,6 +17,8 @@ static const char usage[] =
     "       packbook pack retire ID --reason TEXT\n"
     "\n"
     "ID is the label written on the pack (free text). Retired packs are kept.\n"
+    "show lists the flights with their numbers and those that left their trend\n"
+    "(acknowledge with 'packbook flight ack N --note TEXT').\n"
     "  --db PATH              history database (default: $PACKBOOK_DB, else\n"
     "                         $XDG_DATA_HOME/packbook/packbook.db)\n";
 

@@ -143,6 +143,14 @@ static void add_reason(struct pack_health *h, enum health_status level, const ch
     va_end(ap);
 }
 
+void health_add_finding(struct pack_health *h, enum health_status level, const char *text)
+{
+    /* "within all limits" no longer holds */
+    if (h->status == HEALTH_OK)
+        h->reason[0] = '\0';
+    add_reason(h, level, "%s", text);
+}
+
 void health_assess(const struct health_flight *f, size_t n, int cells, double rated_mah,
                    const struct health_rules *r, struct pack_health *h)
 {

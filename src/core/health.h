@@ -18,6 +18,7 @@ struct health_flight {
     double capacity_ci95_mah; /* its 95 % half-width; NAN when unknown */
     double spread_rest_mv;    /* NAN when unknown */
     int below_floor;          /* the loaded voltage crossed the per-cell floor */
+    double r0_ci95_mohm;      /* its 95 % half-width; NAN or 0 when unknown */
 };
 
 /* Thresholds. Defaults (health_rules_default): capacity at or below 80 %
@@ -58,6 +59,10 @@ void health_assess(const struct health_flight *f, size_t n, int cells, double ra
                    const struct health_rules *rules, struct pack_health *out);
 
 const char *health_status_name(enum health_status s);
+
+/* Adds a finding made outside health_assess (text, e.g. a flight that left
+ * its trend) to h's reason, raising its status to at least level. */
+void health_add_finding(struct pack_health *h, enum health_status level, const char *text);
 
 /* A straight-line fit y = a + b x with the slope's 95 % interval. */
 struct line_fit {

@@ -141,7 +141,8 @@ enum pb_code plot_trend(const char *path, const struct plot_opts *o, const struc
         v->trend.nbuckets && strchr(v->trend.buckets[0].key, 'W')            ? "weekly mean"
         : v->trend.nbuckets && strncmp(v->trend.buckets[0].key, "cycles", 6) ? "monthly mean"
                                                                              : "5-cycle mean";
-    struct plot_key keys[2][7];
+    struct plot_key keys[2][8];
+    static const struct plot_style st_dep = {PLOT_VERMILION, 2.2, DASH_SOLID, 0};
     size_t nk[2] = {0, 0};
     for (int j = 0; j < 2; j++) {
         keys[j][nk[j]++] = (struct plot_key){"flight", st_pt[j], MARK_CIRCLE, 0, 0};
@@ -152,6 +153,8 @@ enum pb_code plot_trend(const char *path, const struct plot_opts *o, const struc
         keys[j][nk[j]++] = (struct plot_key){"watch", st_watch, -1, 0, 0};
         if (!by_date && qs[j].tl->life.model != LIFE_NONE)
             keys[j][nk[j]++] = (struct plot_key){"fade model", st_fade, -1, 0, 0};
+        if (v->departures)
+            keys[j][nk[j]++] = (struct plot_key){"left its trend", st_dep, MARK_SQUARE, 0, 0};
     }
     double top = fs * 6.8, bottom = h - fs * 4.6, left = fs * 6, right = w - fs * 2;
     double weight[2] = {1, 1};
@@ -302,6 +305,17 @@ enum pb_code plot_trend(const char *path, const struct plot_opts *o, const struc
         /* flights over the bucket means: a flight alone in its bucket stays visible */
         for (size_t k = 0; k < n; k++)
             plot_marker(p, pp, x[k], qs[j].y[k], MARK_CIRCLE, 0, &st_pt[j]);
+        /* a flight that left its trend and nobody has acknowledged: a square
+         * round it in the panel of the quantity that left (both panels for
+         * the cell spread, which has none) */
+        for (size_t k = 0; v->dep && k < n; k++) {
+            const struct departure *d = &v->dep[k];
+            if (!d->flagged || pack_view_ack(v, v->flights[k].id))
+                continue;
+            int here = d->quantity == DEP_SPREAD || (d->quantity == DEP_R0) == (j == 0);
+            if (here && isfinite(qs[j].y[k]))
+                plot_marker(p, pp, x[k], qs[j].y[k], MARK_SQUARE, 0, &st_dep);
+        }
         double xc = by_date ? (tl->cross_epoch_s - first_epoch) / 86400.0 : tl->cross_cycles;
         char where[64];
         if (isfinite(xc) && crossing_where(tl, by_date, where, sizeof where)) {
@@ -316,7 +330,7 @@ enum pb_code plot_trend(const char *path, const struct plot_opts *o, const struc
             }
         }
         double xp = by_date ? (tl->plan_epoch_s - first_epoch) / 86400.0 : tl->life.early;
-        if (isfinite(xp) && !tl->crossed && xp >= x_now) {
+        if (isfinite(xp) && !tl->crossed && xp >= x_now && xp <= pp->x.hi) {
             char pd[32];
             iso_day(tl->plan_epoch_s, pd, sizeof pd);
             if (by_date)
@@ -326,7 +340,7 @@ enum pb_code plot_trend(const char *path, const struct plot_opts *o, const struc
                          tl->life.early, tl->life.late);
             else
                 snprintf(lab, sizeof lab, "plan for %.0f", tl->life.early);
-            plot_vline(p, pp, xp <= pp->x.hi ? xp : pp->x.hi, &st_plan, lab);
+            plot_vline(p, pp, xp, &st_plan, lab);
         }
         if (n == 0)
             plot_text(p, (pp->x0 + pp->x1) / 2, (pp->y0 + pp->y1) / 2, 1, fs, 0, 0x444444u,

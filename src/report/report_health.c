@@ -4,6 +4,7 @@
 
 #include <jansson.h>
 #include <math.h>
+#include <stdlib.h>
 #include <string.h>
 
 #include "../core/isotime.h"
@@ -15,6 +16,19 @@ void pack_view_release(struct pack_view *v)
     store_flights_free(v->flights);
     v->flights = NULL;
     health_trend_release(&v->trend);
+    free(v->dep);
+    v->dep = NULL;
+    store_acks_free(v->acks);
+    v->acks = NULL;
+    v->nacks = v->departures = 0;
+}
+
+const struct flight_ack *pack_view_ack(const struct pack_view *v, int64_t id)
+{
+    for (size_t k = 0; k < v->nacks; k++)
+        if (v->acks[k].flight_id == id)
+            return &v->acks[k];
+    return NULL;
 }
 
 /* "2026-04-18" of an epoch, or "-" */
@@ -81,9 +95,31 @@ static json_t *health_obj(const struct pack_view *v)
                      "reason", v->pack.retired_at[0] ? v->pack.retire_reason : h->reason);
 }
 
+/* health_obj with the count of flights that left their trend, unacknowledged */
+static json_t *health_obj_dep(const struct pack_view *v)
+{
+    json_t *o = health_obj(v);
+    json_object_set_new(o, "departures_unacknowledged", json_integer((json_int_t)v->departures));
+    return o;
+}
+
 static const char *status_of(const struct pack_view *v)
 {
     return v->pack.retired_at[0] ? "retired" : health_status_name(v->health.status);
+}
+
+static json_t *departure_obj(const struct pack_view *v, size_t k)
+{
+    const struct departure *d = v->dep ? &v->dep[k] : NULL;
+    if (!d || !d->flagged)
+        return json_null();
+    const struct flight_ack *a = pack_view_ack(v, v->flights[k].id);
+    return json_pack("{s:s, s:o, s:o, s:o, s:o, s:b, s:o, s:o}", "quantity",
+                     departure_name(d->quantity), "value", jout_num(d->value), "expected",
+                     jout_num(d->expected), "change_pct", jout_num(d->change_pct), "sigmas",
+                     jout_num(d->z), "acknowledged", a != NULL, "note",
+                     a ? jout_str(a->note) : json_null(), "acknowledged_at",
+                     a ? jout_str(a->acked_at) : json_null());
 }
 
 static json_t *flight_obj(const struct flight_rec *f)
@@ -104,10 +140,14 @@ int report_pack_show(FILE *out, const struct pack_view *v, int json)
     const struct pack_health *h = &v->health;
     if (json) {
         json_t *o = pack_obj(p);
-        json_object_set_new(o, "health", health_obj(v));
+        json_object_set_new(o, "health", health_obj_dep(v));
         json_t *fl = json_array();
-        for (size_t k = 0; k < v->nflights; k++)
-            json_array_append_new(fl, flight_obj(&v->flights[k]));
+        for (size_t k = 0; k < v->nflights; k++) {
+            json_t *fo = flight_obj(&v->flights[k]);
+            json_object_set_new(fo, "id", json_integer((json_int_t)v->flights[k].id));
+            json_object_set_new(fo, "departure", departure_obj(v, k));
+            json_array_append_new(fl, fo);
+        }
         json_object_set_new(o, "flights", fl);
         return jout_write(out, o);
     }
@@ -132,9 +172,24 @@ int report_pack_show(FILE *out, const struct pack_view *v, int json)
             fmt_num((char[32]){0}, 32, "%.0f", h->spread_mv));
     fprintf(out, "  status: %s (%s)\n", status_of(v),
             p->retired_at[0] ? p->retire_reason : h->reason);
+    for (size_t k = 0; v->dep && k < v->nflights; k++) {
+        if (!v->dep[k].flagged)
+            continue;
+        char what[128];
+        const struct flight_ack *a = pack_view_ack(v, v->flights[k].id);
+        departure_text(&v->dep[k], what, sizeof what);
+        fprintf(out, "  %s flight %lld (%s): %s",
+                a ? "left its trend:" : "inspect:", (long long)v->flights[k].id,
+                day(v->flights[k].flown_epoch_s, b1, sizeof b1), what);
+        if (a)
+            fprintf(out, "; acknowledged %.10s: %s\n", a->acked_at, a->note);
+        else
+            fprintf(out, "; after inspecting: packbook flight ack %lld --note TEXT\n",
+                    (long long)v->flights[k].id);
+    }
     if (v->nflights) {
-        fprintf(out, "\n  %-10s %8s %9s %9s %10s %11s %6s\n", "date", "min", "mAh", "R0 mOhm",
-                "cap mAh", "SoC %", "warn");
+        fprintf(out, "\n  %6s %-10s %8s %9s %9s %10s %11s %6s\n", "flight", "date", "min", "mAh",
+                "R0 mOhm", "cap mAh", "SoC %", "warn");
         for (size_t k = 0; k < v->nflights; k++) {
             const struct flight_rec *f = &v->flights[k];
             char soc[24];
@@ -142,11 +197,12 @@ int report_pack_show(FILE *out, const struct pack_view *v, int json)
                 snprintf(soc, sizeof soc, "%.0f->%.0f", f->soc_start_pct, f->soc_end_pct);
             else
                 snprintf(soc, sizeof soc, "-");
-            fprintf(out, "  %-10s %8.1f %9s %9s %10s %11s %6d\n",
+            fprintf(out, "  %6lld %-10s %8.1f %9s %9s %10s %11s %6d%s\n", (long long)f->id,
                     day(f->flown_epoch_s, b1, sizeof b1), f->duration_s / 60.0,
                     fmt_num(b2, sizeof b2, "%.0f", f->charge_used_mah),
                     fmt_num(b3, sizeof b3, "%.2f", f->r0_mohm),
-                    fmt_num((char[32]){0}, 32, "%.0f", f->capacity_mah), soc, f->warnings);
+                    fmt_num((char[32]){0}, 32, "%.0f", f->capacity_mah), soc, f->warnings,
+                    v->dep && v->dep[k].flagged && !pack_view_ack(v, f->id) ? "  inspect" : "");
         }
     }
     return ferror(out) ? -1 : 0;
@@ -201,7 +257,7 @@ int report_fleet(FILE *out, const struct pack_view *v, size_t n, enum fleet_form
             json_t *o = json_pack("{s:s, s:i, s:s, s:f}", "id", v[k].pack.label, "cells",
                                   v[k].pack.cells, "chemistry", v[k].pack.chemistry,
                                   "rated_capacity_mah", v[k].pack.capacity_mah);
-            json_t *h = health_obj(&v[k]);
+            json_t *h = health_obj_dep(&v[k]);
             json_object_update(o, h);
             json_decref(h);
             double pc, pe;
@@ -389,7 +445,7 @@ int report_trend(FILE *out, const struct pack_view *v, enum trend_by by, double 
                               bynames[by], "horizon_cycles", horizon, "equivalent_cycles",
                               jout_num(t->cycles_now), "buckets", b, "r0_mohm_per_cell",
                               trend_line_obj(&t->r0), "capacity_pct", trend_line_obj(&t->capacity),
-                              "health", health_obj(v));
+                              "health", health_obj_dep(v));
         return jout_write(out, o);
     }
     char b1[32], b2[32], b3[32];

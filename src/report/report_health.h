@@ -8,6 +8,7 @@
 
 #include <stdio.h>
 
+#include "../core/departure.h"
 #include "../core/health.h"
 #include "../store/store.h"
 
@@ -17,7 +18,14 @@ struct pack_view {
     size_t nflights;
     struct pack_health health;
     struct pack_trend trend;
+    struct departure *dep;   /* per flight (nflights): did it leave its trend */
+    struct flight_ack *acks; /* the operator's acknowledgements, by flight id */
+    size_t nacks;
+    size_t departures; /* flights that left their trend, not acknowledged */
 };
+
+/* The acknowledgement of flight id in v, or NULL. */
+const struct flight_ack *pack_view_ack(const struct pack_view *v, int64_t id);
 
 void pack_view_release(struct pack_view *v);
 

@@ -15,7 +15,7 @@
 #include "../core/pb_error.h"
 #include "../core/series.h"
 
-#define STORE_SCHEMA_VERSION 3
+#define STORE_SCHEMA_VERSION 4
 
 struct store;
 
@@ -97,6 +97,25 @@ void store_flights_free(struct flight_rec *f);
  * it); *out is NULL when there is no such flight. */
 enum pb_code store_flight_report(struct store *st, int64_t flight_id, char **out,
                                  struct pb_error *err);
+
+/* An operator's acknowledgement of a flight that left its pack's trend. */
+struct flight_ack {
+    int64_t flight_id;
+    char note[256];
+    char acked_at[32]; /* ISO 8601 UTC */
+};
+
+/* Acknowledgements of one pack's flights, by flight id. Free with
+ * store_acks_free (NULL is a no-op). */
+enum pb_code store_acks_of(struct store *st, int64_t pack_id, struct flight_ack **out, size_t *n,
+                           struct pb_error *err);
+void store_acks_free(struct flight_ack *a);
+
+/* Acknowledges flight flight_id with note (replacing an earlier one) and
+ * copies its pack's label into pack_label; PB_EUSAGE when there is no
+ * such flight. */
+enum pb_code store_flight_ack(struct store *st, int64_t flight_id, const char *note,
+                              char *pack_label, size_t cap, struct pb_error *err);
 
 /* The default path: $PACKBOOK_DB, else $XDG_DATA_HOME/packbook/packbook.db,
  * else $HOME/.local/share/packbook/packbook.db. Writes into buf. */

@@ -67,6 +67,11 @@ static const char *const migrations[] = {
     "CREATE INDEX flights_by_pack_time ON flights(pack_id, flown_epoch_s);",
     /* 2 -> 3: mean power while loaded, the load for predictions */
     "ALTER TABLE flights ADD COLUMN power_cruise_w REAL;",
+    /* 3 -> 4: the operator's acknowledgement of a flight that left its trend */
+    "CREATE TABLE flight_acks ("
+    "  flight_id INTEGER PRIMARY KEY REFERENCES flights(id) ON DELETE CASCADE,"
+    "  note TEXT NOT NULL,"
+    "  acked_at TEXT NOT NULL);",
 };
 
 /* Busy handler: short jittered sleeps, so a waiting writer gets its turn
@@ -423,11 +428,11 @@ static double col_num(sqlite3_stmt *s, int i)
 #define FLIGHT_NUMS                                                                                \
     X(duration_s)                                                                                  \
     X(charge_used_mah)                                                                             \
-    X(energy_used_wh) X(current_max_a) X(current_mean_a) X(power_mean_w) X(voltage_min_v)          \
-        X(cell_voltage_min_v) X(time_below_floor_s) X(r0_mohm) X(r0_ci95_mohm) X(r1_mohm) X(tau_s) \
-            X(soc_start_pct) X(soc_end_pct) X(capacity_mah) X(capacity_ci95_mah)                   \
-                X(cell_spread_rest_mv) X(cell_spread_load_mv) X(temperature_max_c)                 \
-                    X(power_cruise_w)
+    X(energy_used_wh)                                                                              \
+    X(current_max_a) X(current_mean_a) X(power_mean_w) X(voltage_min_v) X(cell_voltage_min_v)      \
+        X(time_below_floor_s) X(r0_mohm) X(r0_ci95_mohm) X(r1_mohm) X(tau_s) X(soc_start_pct)      \
+            X(soc_end_pct) X(capacity_mah) X(capacity_ci95_mah) X(cell_spread_rest_mv)             \
+                X(cell_spread_load_mv) X(temperature_max_c) X(power_cruise_w)
 
 #define X(name) #name ", "
 static const char flight_num_cols[] = FLIGHT_NUMS;
@@ -652,4 +657,86 @@ enum pb_code store_flight_report(struct store *st, int64_t flight_id, char **out
     }
     sqlite3_finalize(s);
     return rc;
+}
+
+enum pb_code store_acks_of(struct store *st, int64_t pack_id, struct flight_ack **out, size_t *n,
+                           struct pb_error *err)
+{
+    sqlite3_stmt *s = NULL;
+    struct flight_ack *v = NULL;
+    size_t len = 0, cap = 0;
+    *out = NULL;
+    *n = 0;
+    if (sqlite3_prepare_v2(st->db,
+                           "SELECT a.flight_id, a.note, a.acked_at FROM flight_acks a JOIN flights "
+                           "f ON f.id = a.flight_id WHERE f.pack_id = ? ORDER BY a.flight_id",
+                           -1, &s, NULL) != SQLITE_OK)
+        return db_error(st, err, "cannot read acknowledgements");
+    sqlite3_bind_int64(s, 1, pack_id);
+    int rc;
+    while ((rc = sqlite3_step(s)) == SQLITE_ROW) {
+        if (len == cap) {
+            cap = cap ? 2 * cap : 8;
+            struct flight_ack *nv = realloc(v, cap * sizeof *v);
+            if (!nv) {
+                rc = SQLITE_NOMEM;
+                break;
+            }
+            v = nv;
+        }
+        struct flight_ack *a = &v[len++];
+        a->flight_id = sqlite3_column_int64(s, 0);
+        copy_text(a->note, sizeof a->note, s, 1);
+        copy_text(a->acked_at, sizeof a->acked_at, s, 2);
+    }
+    sqlite3_finalize(s);
+    if (rc != SQLITE_DONE) {
+        free(v);
+        return rc == SQLITE_NOMEM ? pb_error_set(err, PB_ENOMEM, "out of memory")
+                                  : db_error(st, err, "cannot read acknowledgements");
+    }
+    *out = v;
+    *n = len;
+    return PB_OK;
+}
+
+void store_acks_free(struct flight_ack *a)
+{
+    free(a);
+}
+
+enum pb_code store_flight_ack(struct store *st, int64_t flight_id, const char *note,
+                              char *pack_label, size_t cap, struct pb_error *err)
+{
+    sqlite3_stmt *s = NULL;
+    if (sqlite3_prepare_v2(st->db,
+                           "SELECT p.label FROM flights f JOIN packs p ON p.id = f.pack_id WHERE "
+                           "f.id = ?",
+                           -1, &s, NULL) != SQLITE_OK)
+        return db_error(st, err, "cannot read the flight");
+    sqlite3_bind_int64(s, 1, flight_id);
+    int r = sqlite3_step(s);
+    if (r == SQLITE_ROW)
+        copy_text(pack_label, cap, s, 0);
+    sqlite3_finalize(s);
+    if (r == SQLITE_DONE)
+        return pb_error_set(err, PB_EUSAGE,
+                            "no flight %lld (the ids are in 'packbook pack show ID')",
+                            (long long)flight_id);
+    if (r != SQLITE_ROW)
+        return db_error(st, err, "cannot read the flight");
+    char now[32];
+    now_iso(now, sizeof now);
+    if (sqlite3_prepare_v2(st->db,
+                           "INSERT INTO flight_acks (flight_id, note, acked_at) VALUES (?, ?, ?) "
+                           "ON CONFLICT(flight_id) DO UPDATE SET note = excluded.note, "
+                           "acked_at = excluded.acked_at",
+                           -1, &s, NULL) != SQLITE_OK)
+        return db_error(st, err, "cannot store the acknowledgement");
+    sqlite3_bind_int64(s, 1, flight_id);
+    sqlite3_bind_text(s, 2, note, -1, SQLITE_TRANSIENT);
+    sqlite3_bind_text(s, 3, now, -1, SQLITE_TRANSIENT);
+    r = sqlite3_step(s);
+    sqlite3_finalize(s);
+    return r == SQLITE_DONE ? PB_OK : db_error(st, err, "cannot store the acknowledgement");
 }
