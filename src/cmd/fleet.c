@@ -17,7 +17,8 @@ static const char usage[] =
     "below the voltage floor, a date to plan to retire by (the early end of the\n"
     "knee-aware projection in 'packbook trend', at the pack's use so far), status\n"
     "(ok, watch, retire) and why ('inspect: flight N ...' for a flight that left\n"
-    "its trend, until 'packbook flight ack').\n"
+    "its trend, until 'packbook flight ack'). Registered pairs ('packbook pack\n"
+    "pair') are listed together, and a pair beyond its limits is a watch finding.\n"
     "  --sort KEY             status (default: retire first), pack, cycles, r0, capacity, last\n"
     "  --status S             only packs with status ok, watch, retire or retired\n"
     "  --all                  include retired packs\n"
@@ -153,9 +154,12 @@ enum pb_code cmd_fleet(int argc, char **argv, struct app *app, struct pb_error *
     if (status && strcmp(status, "retired") == 0)
         all = 1;
     rc = packview_load_fleet(st, &rules, all, status, &views, &nv, err);
+    if (rc == PB_OK)
+        rc = packview_pairs(st, views, nv, err);
     if (rc != PB_OK)
         goto cleanup;
     qsort(views, nv, sizeof *views, compare_views);
+    packview_keep_pairs_together(views, nv);
     if (predict) {
         safe = malloc(2 * (nv ? nv : 1) * sizeof *safe);
         if (!safe) {

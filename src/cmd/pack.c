@@ -15,6 +15,7 @@ static const char usage[] =
     "       packbook pack list [--json]\n"
     "       packbook pack show ID [--json]\n"
     "       packbook pack retire ID --reason TEXT\n"
+    "       packbook pack pair [ID ID] | pack unpair ID   (see packbook pack pair --help)\n"
     "\n"
     "ID is the label written on the pack (free text). Retired packs are kept.\n"
     "show lists the flights with their numbers and those that left their trend\n"
@@ -80,6 +81,9 @@ static enum pb_code cmd_show(struct store *st, struct pack_cli *cli, struct pb_e
     health_rules_default(&rules);
     struct pack_view v;
     rc = packview_load(st, &p, &rules, TREND_WEEK, 0, 1000.0, &v, err);
+    if (rc != PB_OK)
+        return rc;
+    rc = packview_pairs(st, &v, 1, err);
     if (rc == PB_OK && report_pack_show(stdout, &v, cli->json) != 0)
         rc = pb_error_set(err, PB_EOUTPUT, "cannot write the output");
     pack_view_release(&v);
@@ -107,6 +111,9 @@ enum pb_code cmd_pack(int argc, char **argv, struct app *app, struct pb_error *e
     struct pack_cli cli = {0};
     int c;
     (void)app;
+    /* pair and unpair have their own options (pair.c) */
+    if (argc >= 2 && (strcmp(argv[1], "pair") == 0 || strcmp(argv[1], "unpair") == 0))
+        return cmd_pack_pair(argc - 1, argv + 1, err);
     cli.rec.parallel = 1;
     optind = 1;
     opterr = 0;

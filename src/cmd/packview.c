@@ -180,6 +180,7 @@ enum pb_code packview_load(struct store *st, const struct pack_rec *p,
                            double horizon, struct pack_view *v, struct pb_error *err)
 {
     memset(v, 0, sizeof *v);
+    v->pair_distance = NAN;
     v->pack = *p;
     enum pb_code rc = store_flights_of(st, p->id, &v->flights, &v->nflights, err);
     if (rc != PB_OK)

@@ -141,6 +141,7 @@ int report_pack_show(FILE *out, const struct pack_view *v, int json)
     if (json) {
         json_t *o = pack_obj(p);
         json_object_set_new(o, "health", health_obj_dep(v));
+        json_object_set_new(o, "paired_with", jout_str(v->paired_with));
         json_t *fl = json_array();
         for (size_t k = 0; k < v->nflights; k++) {
             json_t *fo = flight_obj(&v->flights[k]);
@@ -159,6 +160,8 @@ int report_pack_show(FILE *out, const struct pack_view *v, int json)
     fprintf(out, "\n");
     if (p->note[0])
         fprintf(out, "  note: %s\n", p->note);
+    if (v->paired_with[0])
+        fprintf(out, "  paired with %s (packbook pack pair)\n", v->paired_with);
     if (p->retired_at[0])
         fprintf(out, "  retired %s: %s\n", p->retired_at, p->retire_reason);
     fprintf(out, "  %zu flights, %.1f equivalent cycles, last flown %s\n", h->flights,
@@ -262,6 +265,8 @@ int report_fleet(FILE *out, const struct pack_view *v, size_t n, enum fleet_form
             json_decref(h);
             double pc, pe;
             const char *pq;
+            json_object_set_new(o, "paired_with", jout_str(v[k].paired_with));
+            json_object_set_new(o, "pair_distance", jout_num(v[k].pair_distance));
             health_plan(&v[k].trend, &pc, &pe, &pq);
             json_object_set_new(o, "plan_retire_by", jout_date(pe));
             json_object_set_new(o, "plan_retire_cycles", jout_num(pc));
@@ -322,6 +327,13 @@ int report_fleet(FILE *out, const struct pack_view *v, size_t n, enum fleet_form
                 plan[0] ? plan : "-", status_of(&v[k]),
                 v[k].pack.retired_at[0] ? v[k].pack.retire_reason : h->reason);
     }
+    for (size_t k = 0; k < n; k++)
+        if (v[k].paired_with[0] && strcmp(v[k].pack.label, v[k].paired_with) < 0) {
+            char d[32];
+            fprintf(out, "pair: %s + %s, mismatch d %s (limit 1; packbook pack pair)\n",
+                    v[k].pack.label, v[k].paired_with,
+                    fmt_num(d, sizeof d, "%.2f", v[k].pair_distance));
+        }
     if (n)
         fprintf(out, "plan to retire by: the early end of the knee-aware projection of capacity\n"
                      "or R0 (packbook trend ID), as a date at the pack's use so far\n");

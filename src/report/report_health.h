@@ -22,6 +22,8 @@ struct pack_view {
     struct flight_ack *acks; /* the operator's acknowledgements, by flight id */
     size_t nacks;
     size_t departures; /* flights that left their trend, not acknowledged */
+    char paired_with[128]; /* the registered partner's label, "" when none */
+    double pair_distance;  /* their mismatch now (pairs.h), NAN when not known */
 };
 
 /* The acknowledgement of flight id in v, or NULL. */

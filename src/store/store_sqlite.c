@@ -72,6 +72,12 @@ static const char *const migrations[] = {
     "  flight_id INTEGER PRIMARY KEY REFERENCES flights(id) ON DELETE CASCADE,"
     "  note TEXT NOT NULL,"
     "  acked_at TEXT NOT NULL);",
+    /* 4 -> 5: packs registered to fly together (each pack in one pair at most) */
+    "CREATE TABLE pack_pairs ("
+    "  pack_a INTEGER NOT NULL UNIQUE REFERENCES packs(id),"
+    "  pack_b INTEGER NOT NULL UNIQUE REFERENCES packs(id),"
+    "  created_at TEXT NOT NULL,"
+    "  CHECK (pack_a < pack_b));",
 };
 
 /* Busy handler: short jittered sleeps, so a waiting writer gets its turn
@@ -429,10 +435,11 @@ static double col_num(sqlite3_stmt *s, int i)
     X(duration_s)                                                                                  \
     X(charge_used_mah)                                                                             \
     X(energy_used_wh)                                                                              \
-    X(current_max_a) X(current_mean_a) X(power_mean_w) X(voltage_min_v) X(cell_voltage_min_v)      \
-        X(time_below_floor_s) X(r0_mohm) X(r0_ci95_mohm) X(r1_mohm) X(tau_s) X(soc_start_pct)      \
-            X(soc_end_pct) X(capacity_mah) X(capacity_ci95_mah) X(cell_spread_rest_mv)             \
-                X(cell_spread_load_mv) X(temperature_max_c) X(power_cruise_w)
+    X(current_max_a)                                                                               \
+    X(current_mean_a) X(power_mean_w) X(voltage_min_v) X(cell_voltage_min_v) X(time_below_floor_s) \
+        X(r0_mohm) X(r0_ci95_mohm) X(r1_mohm) X(tau_s) X(soc_start_pct) X(soc_end_pct)             \
+            X(capacity_mah) X(capacity_ci95_mah) X(cell_spread_rest_mv) X(cell_spread_load_mv)     \
+                X(temperature_max_c) X(power_cruise_w)
 
 #define X(name) #name ", "
 static const char flight_num_cols[] = FLIGHT_NUMS;
@@ -739,4 +746,104 @@ enum pb_code store_flight_ack(struct store *st, int64_t flight_id, const char *n
     r = sqlite3_step(s);
     sqlite3_finalize(s);
     return r == SQLITE_DONE ? PB_OK : db_error(st, err, "cannot store the acknowledgement");
+}
+
+enum pb_code store_pairs_list(struct store *st, struct pair_rec **out, size_t *n,
+                              struct pb_error *err)
+{
+    sqlite3_stmt *s = NULL;
+    struct pair_rec *v = NULL;
+    size_t len = 0, cap = 0;
+    *out = NULL;
+    *n = 0;
+    if (sqlite3_prepare_v2(st->db,
+                           "SELECT pp.pack_a, a.label, pp.pack_b, b.label, pp.created_at FROM "
+                           "pack_pairs pp JOIN packs a ON a.id = pp.pack_a JOIN packs b ON b.id = "
+                           "pp.pack_b ORDER BY a.label, b.label",
+                           -1, &s, NULL) != SQLITE_OK)
+        return db_error(st, err, "cannot read the pairs");
+    int rc;
+    while ((rc = sqlite3_step(s)) == SQLITE_ROW) {
+        if (len == cap) {
+            cap = cap ? 2 * cap : 8;
+            struct pair_rec *nv = realloc(v, cap * sizeof *v);
+            if (!nv) {
+                rc = SQLITE_NOMEM;
+                break;
+            }
+            v = nv;
+        }
+        struct pair_rec *r = &v[len++];
+        r->a_id = sqlite3_column_int64(s, 0);
+        copy_text(r->a, sizeof r->a, s, 1);
+        r->b_id = sqlite3_column_int64(s, 2);
+        copy_text(r->b, sizeof r->b, s, 3);
+        copy_text(r->created_at, sizeof r->created_at, s, 4);
+    }
+    sqlite3_finalize(s);
+    if (rc != SQLITE_DONE) {
+        free(v);
+        return rc == SQLITE_NOMEM ? pb_error_set(err, PB_ENOMEM, "out of memory")
+                                  : db_error(st, err, "cannot read the pairs");
+    }
+    *out = v;
+    *n = len;
+    return PB_OK;
+}
+
+void store_pairs_free(struct pair_rec *p)
+{
+    free(p);
+}
+
+enum pb_code store_pair_add(struct store *st, const struct pack_rec *a, const struct pack_rec *b,
+                            struct pb_error *err)
+{
+    if (a->id == b->id)
+        return pb_error_set(err, PB_EUSAGE, "pack pair: '%s' cannot pair with itself", a->label);
+    const struct pack_rec *lo = a->id < b->id ? a : b, *hi = a->id < b->id ? b : a;
+    sqlite3_stmt *s = NULL;
+    if (sqlite3_prepare_v2(st->db,
+                           "SELECT count(*) FROM pack_pairs WHERE pack_a IN (?1, ?2) OR pack_b IN "
+                           "(?1, ?2)",
+                           -1, &s, NULL) != SQLITE_OK)
+        return db_error(st, err, "cannot read the pairs");
+    sqlite3_bind_int64(s, 1, lo->id);
+    sqlite3_bind_int64(s, 2, hi->id);
+    int busy = sqlite3_step(s) == SQLITE_ROW ? sqlite3_column_int(s, 0) : -1;
+    sqlite3_finalize(s);
+    if (busy < 0)
+        return db_error(st, err, "cannot read the pairs");
+    if (busy > 0)
+        return pb_error_set(err, PB_EUSAGE,
+                            "pack pair: '%s' or '%s' is paired already (packbook pack unpair ID)",
+                            a->label, b->label);
+    char now[32];
+    now_iso(now, sizeof now);
+    if (sqlite3_prepare_v2(st->db,
+                           "INSERT INTO pack_pairs (pack_a, pack_b, created_at) VALUES (?, ?, ?)",
+                           -1, &s, NULL) != SQLITE_OK)
+        return db_error(st, err, "cannot store the pair");
+    sqlite3_bind_int64(s, 1, lo->id);
+    sqlite3_bind_int64(s, 2, hi->id);
+    sqlite3_bind_text(s, 3, now, -1, SQLITE_TRANSIENT);
+    int r = sqlite3_step(s);
+    sqlite3_finalize(s);
+    return r == SQLITE_DONE ? PB_OK : db_error(st, err, "cannot store the pair");
+}
+
+enum pb_code store_pair_remove(struct store *st, const struct pack_rec *p, int *removed,
+                               struct pb_error *err)
+{
+    sqlite3_stmt *s = NULL;
+    if (sqlite3_prepare_v2(st->db, "DELETE FROM pack_pairs WHERE pack_a = ?1 OR pack_b = ?1", -1,
+                           &s, NULL) != SQLITE_OK)
+        return db_error(st, err, "cannot remove the pair");
+    sqlite3_bind_int64(s, 1, p->id);
+    int r = sqlite3_step(s);
+    sqlite3_finalize(s);
+    if (r != SQLITE_DONE)
+        return db_error(st, err, "cannot remove the pair");
+    *removed = sqlite3_changes(st->db);
+    return PB_OK;
 }
