@@ -19,8 +19,9 @@ struct command {
 static const struct command commands[] = {
     {"analyze", cmd_analyze, "one flight log in, the pack's facts out"},
     {"chemistry", cmd_chemistry, "the OCV tables and limits used, with their sources"},
-    {"pack", cmd_pack, "register packs: add, list, show, retire"},
+    {"pack", cmd_pack, "register packs: add, list, show, edit, retire, unretire"},
     {"import", cmd_import, "analyse logs and store them as a pack's flights"},
+    {"flight", cmd_flight, "stored flights: list, remove, move to another pack"},
     {"fleet", cmd_fleet, "every pack's state, with retirement flags and reasons"},
     {"trend", cmd_trend, "a pack's resistance and capacity over weeks and cycles"},
     {"compare", cmd_compare, "packs side by side"},

@@ -1,6 +1,7 @@
 #include "packview.h"
 
 #include <math.h>
+#include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
 
@@ -157,4 +158,48 @@ enum pb_code packview_load(struct store *st, const struct pack_rec *p,
         return pb_error_set(err, PB_ENOMEM, "out of memory");
     }
     return PB_OK;
+}
+
+enum pb_code packview_summary(struct store *st, const struct pack_rec *p, struct pack_summary *out,
+                              struct pb_error *err)
+{
+    struct health_rules rules;
+    struct pack_view v;
+    health_rules_default(&rules);
+    memset(out, 0, sizeof *out);
+    enum pb_code rc = packview_load(st, p, &rules, TREND_WEEK, 0, 1000.0, &v, err);
+    if (rc != PB_OK)
+        return rc;
+    snprintf(out->label, sizeof out->label, "%s", p->label);
+    out->flights = v.health.flights;
+    out->cycles = isfinite(v.health.cycles) ? v.health.cycles : 0.0;
+    out->r0_base_mohm_cell = v.health.r0_base_mohm_cell;
+    snprintf(out->status, sizeof out->status, "%s",
+             p->retired_at[0] ? "retired" : health_status_name(v.health.status));
+    snprintf(out->reason, sizeof out->reason, "%s",
+             p->retired_at[0] ? p->retire_reason : v.health.reason);
+    pack_view_release(&v);
+    return PB_OK;
+}
+
+static int same_num(double a, double b)
+{
+    return (!isfinite(a) && !isfinite(b)) || fabs(a - b) < 0.005;
+}
+
+void packview_print_change(FILE *out, const struct pack_summary *b, const struct pack_summary *a)
+{
+    fprintf(out, "  %s: %zu -> %zu flight%s, %.1f -> %.1f equivalent cycles\n", a->label,
+            b->flights, a->flights, a->flights == 1 ? "" : "s", b->cycles, a->cycles);
+    if (!same_num(b->r0_base_mohm_cell, a->r0_base_mohm_cell)) {
+        char x[32] = "none", y[32] = "none";
+        if (isfinite(b->r0_base_mohm_cell))
+            snprintf(x, sizeof x, "%.2f", b->r0_base_mohm_cell);
+        if (isfinite(a->r0_base_mohm_cell))
+            snprintf(y, sizeof y, "%.2f", a->r0_base_mohm_cell);
+        fprintf(out, "  %s: baseline R0 %s -> %s mOhm/cell (median of the first flights)\n",
+                a->label, x, y);
+    }
+    if (strcmp(b->status, a->status) != 0)
+        fprintf(out, "  %s: status %s -> %s (%s)\n", a->label, b->status, a->status, a->reason);
 }

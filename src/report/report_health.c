@@ -152,6 +152,70 @@ int report_pack_show(FILE *out, const struct pack_view *v, int json)
     return ferror(out) ? -1 : 0;
 }
 
+static void csv_num(FILE *out, const char *fmt, double v)
+{
+    fputc(',', out);
+    if (isfinite(v))
+        fprintf(out, fmt, v);
+}
+
+int report_flight_list(FILE *out, const struct flight_rec *f, const char *const *labels, size_t n,
+                       enum fleet_format fmt)
+{
+    if (fmt == FLEET_JSON) {
+        json_t *a = json_array();
+        for (size_t k = 0; k < n; k++) {
+            json_t *o = json_pack("{s:I, s:s}", "id", (json_int_t)f[k].id, "pack", labels[k]);
+            json_t *x = flight_obj(&f[k]);
+            json_object_update(o, x);
+            json_decref(x);
+            json_array_append_new(a, o);
+        }
+        return jout_write(out, a);
+    }
+    char b[8][32];
+    if (fmt == FLEET_CSV) {
+        fprintf(out, "id,pack,flown_at,date_source,source,duration_s,charge_used_mah,r0_mohm,"
+                     "capacity_mah,soc_start_pct,soc_end_pct,cell_spread_rest_mv,"
+                     "time_below_floor_s,warnings\n");
+        for (size_t k = 0; k < n; k++) {
+            fprintf(out, "%lld,", (long long)f[k].id);
+            report_csv_cell(out, labels[k]);
+            isotime_format(f[k].flown_epoch_s, b[0], sizeof b[0]);
+            fprintf(out, ",%s,%s,", b[0], f[k].date_source);
+            report_csv_cell(out, f[k].source);
+            csv_num(out, "%.1f", f[k].duration_s);
+            csv_num(out, "%.1f", f[k].charge_used_mah);
+            csv_num(out, "%.3f", f[k].r0_mohm);
+            csv_num(out, "%.1f", f[k].capacity_mah);
+            csv_num(out, "%.1f", f[k].soc_start_pct);
+            csv_num(out, "%.1f", f[k].soc_end_pct);
+            csv_num(out, "%.1f", f[k].cell_spread_rest_mv);
+            csv_num(out, "%.1f", f[k].time_below_floor_s);
+            fprintf(out, ",%d\n", f[k].warnings);
+        }
+        return ferror(out) ? -1 : 0;
+    }
+    fprintf(out, "%6s  %-12s %-10s %-6s %7s %7s %8s %8s %9s %6s  %s\n", "id", "pack", "date",
+            "from", "min", "mAh", "R0 mOhm", "cap mAh", "SoC %", "warn", "file");
+    for (size_t k = 0; k < n; k++) {
+        char soc[24];
+        if (isfinite(f[k].soc_start_pct) && isfinite(f[k].soc_end_pct))
+            snprintf(soc, sizeof soc, "%.0f->%.0f", f[k].soc_start_pct, f[k].soc_end_pct);
+        else
+            snprintf(soc, sizeof soc, "-");
+        fprintf(out, "%6lld  %-12s %-10s %-6s %7s %7s %8s %8s %9s %6d  %s\n", (long long)f[k].id,
+                labels[k], day(f[k].flown_epoch_s, b[0], 32), f[k].date_source,
+                fmt_num(b[1], 32, "%.1f", f[k].duration_s / 60.0),
+                fmt_num(b[2], 32, "%.0f", f[k].charge_used_mah),
+                fmt_num(b[3], 32, "%.2f", f[k].r0_mohm),
+                fmt_num(b[4], 32, "%.0f", f[k].capacity_mah), soc, f[k].warnings, f[k].source);
+    }
+    if (n == 0)
+        fprintf(out, "(no flights)\n");
+    return ferror(out) ? -1 : 0;
+}
+
 void report_csv_cell(FILE *out, const char *t)
 {
     int formula =
@@ -168,13 +232,6 @@ void report_csv_cell(FILE *out, const char *t)
     }
     if (quote)
         fputc('"', out);
-}
-
-static void csv_num(FILE *out, const char *fmt, double v)
-{
-    fputc(',', out);
-    if (isfinite(v))
-        fprintf(out, fmt, v);
 }
 
 int report_fleet(FILE *out, const struct pack_view *v, size_t n, enum fleet_format fmt,

@@ -30,6 +30,11 @@ int report_pack_show(FILE *out, const struct pack_view *v, int json);
 int report_fleet(FILE *out, const struct pack_view *v, size_t n, enum fleet_format fmt,
                  const double *safe);
 int report_trend(FILE *out, const struct pack_view *v, enum trend_by by, double horizon, int json);
+/* The flights of the listing, each with its pack's label (labels[k]):
+ * id, date, file, duration, charge, R0, capacity, SoC, resting cell
+ * imbalance, time under the cut-off and warnings. */
+int report_flight_list(FILE *out, const struct flight_rec *f, const char *const *labels, size_t n,
+                       enum fleet_format fmt);
 int report_compare(FILE *out, const struct pack_view *v, size_t n, int json);
 
 /* A CSV cell that a spreadsheet would not run as a formula: cells that

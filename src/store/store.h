@@ -80,6 +80,25 @@ enum pb_code store_pack_retire(struct store *st, const char *label, const char *
                                struct pb_error *err);
 void store_packs_free(struct pack_rec *p);
 
+/* Pack by its row id (flights name their pack by id). */
+enum pb_code store_pack_by_id(struct store *st, int64_t id, struct pack_rec *out,
+                              struct pb_error *err);
+
+/* Replaces the registered facts of pack p->id (label, cells, parallel,
+ * chemistry, capacity, since, note); retirement is left as it is. A label
+ * another pack has is a usage error. */
+enum pb_code store_pack_update(struct store *st, const struct pack_rec *p, struct pb_error *err);
+
+/* Returns a retired pack to service (clears retired_at and its reason). */
+enum pb_code store_pack_unretire(struct store *st, const char *label, struct pb_error *err);
+
+/* How many flights of pack_id were analysed with another cell count or
+ * chemistry than given (the "cells" and "chemistry" of their stored
+ * report); sets *n. */
+enum pb_code store_flights_analysed_otherwise(struct store *st, int64_t pack_id, int cells,
+                                              const char *chemistry, size_t *n,
+                                              struct pb_error *err);
+
 /* Stores a flight with its full JSON report. When a flight with the same
  * content hash exists, stores nothing and sets *duplicate (its pack's label
  * in dup_label, which may be NULL). Retries while another writer holds the
@@ -92,6 +111,22 @@ enum pb_code store_flight_put(struct store *st, const struct flight_rec *f, cons
 enum pb_code store_flights_of(struct store *st, int64_t pack_id, struct flight_rec **out, size_t *n,
                               struct pb_error *err);
 void store_flights_free(struct flight_rec *f);
+
+/* One flight by its id (without its cells); unknown id is a usage error. */
+enum pb_code store_flight_get(struct store *st, int64_t id, struct flight_rec *out,
+                              struct pb_error *err);
+
+/* The cell count and chemistry a stored flight was analysed with (from its
+ * report); cells 0 and chemistry "" when the report does not say. */
+enum pb_code store_flight_analysed_as(struct store *st, int64_t id, int *cells, char *chemistry,
+                                      size_t cap, struct pb_error *err);
+
+/* Deletes a flight and its cells (one transaction). */
+enum pb_code store_flight_remove(struct store *st, int64_t id, struct pb_error *err);
+
+/* Gives a flight to another pack. */
+enum pb_code store_flight_move(struct store *st, int64_t id, int64_t to_pack_id,
+                               struct pb_error *err);
 
 /* The default path: $PACKBOOK_DB, else $XDG_DATA_HOME/packbook/packbook.db,
  * else $HOME/.local/share/packbook/packbook.db. Writes into buf. */

@@ -256,6 +256,36 @@ void store_close(struct store *st)
     free(st);
 }
 
+/* Runs one statement with an id (and a second id when id2 >= 0) in its own
+ * transaction; *changed is the number of rows it changed. */
+static enum pb_code exec_by_id(struct store *st, const char *sql, int64_t id, int64_t id2,
+                               int *changed, const char *what, struct pb_error *err)
+{
+    sqlite3_stmt *s = NULL;
+    if (sqlite3_exec(st->db, "BEGIN IMMEDIATE", NULL, NULL, NULL) != SQLITE_OK)
+        return db_error(st, err, what);
+    int rc = sqlite3_prepare_v2(st->db, sql, -1, &s, NULL);
+    if (rc == SQLITE_OK) {
+        sqlite3_bind_int64(s, 1, id);
+        if (id2 >= 0)
+            sqlite3_bind_int64(s, 2, id2);
+        rc = sqlite3_step(s);
+    }
+    sqlite3_finalize(s);
+    if (rc != SQLITE_DONE) {
+        st->saved_code = sqlite3_extended_errcode(st->db);
+        snprintf(st->saved_msg, sizeof st->saved_msg, "%s", sqlite3_errmsg(st->db));
+        sqlite3_exec(st->db, "ROLLBACK", NULL, NULL, NULL);
+        return db_error(st, err, what);
+    }
+    *changed = sqlite3_changes(st->db);
+    if (sqlite3_exec(st->db, "COMMIT", NULL, NULL, NULL) != SQLITE_OK) {
+        sqlite3_exec(st->db, "ROLLBACK", NULL, NULL, NULL);
+        return db_error(st, err, what);
+    }
+    return PB_OK;
+}
+
 /* ---- packs ------------------------------------------------------------ */
 
 static void copy_text(char *dst, size_t cap, sqlite3_stmt *s, int col)
@@ -405,6 +435,64 @@ enum pb_code store_pack_retire(struct store *st, const char *label, const char *
     return PB_OK;
 }
 
+enum pb_code store_pack_by_id(struct store *st, int64_t id, struct pack_rec *out,
+                              struct pb_error *err)
+{
+    sqlite3_stmt *s = NULL;
+    if (sqlite3_prepare_v2(st->db, "SELECT " PACK_COLS " FROM packs WHERE id = ?", -1, &s, NULL) !=
+        SQLITE_OK)
+        return db_error(st, err, "cannot read packs");
+    sqlite3_bind_int64(s, 1, id);
+    int rc = sqlite3_step(s);
+    if (rc == SQLITE_ROW)
+        read_pack(s, out);
+    sqlite3_finalize(s);
+    if (rc == SQLITE_DONE)
+        return pb_error_set(err, PB_ESTORE, "%s: a flight names pack row %lld, which is missing",
+                            st->path, (long long)id);
+    if (rc != SQLITE_ROW)
+        return db_error(st, err, "cannot read packs");
+    return PB_OK;
+}
+
+enum pb_code store_pack_update(struct store *st, const struct pack_rec *p, struct pb_error *err)
+{
+    sqlite3_stmt *s = NULL;
+    if (sqlite3_prepare_v2(st->db,
+                           "UPDATE packs SET label = ?, cells = ?, parallel = ?, chemistry = ?, "
+                           "capacity_mah = ?, since = ?, note = ? WHERE id = ?",
+                           -1, &s, NULL) != SQLITE_OK)
+        return db_error(st, err, "cannot change the pack");
+    sqlite3_bind_text(s, 1, p->label, -1, SQLITE_TRANSIENT);
+    sqlite3_bind_int(s, 2, p->cells);
+    sqlite3_bind_int(s, 3, p->parallel);
+    sqlite3_bind_text(s, 4, p->chemistry, -1, SQLITE_TRANSIENT);
+    sqlite3_bind_double(s, 5, p->capacity_mah);
+    bind_text_or_null(s, 6, p->since);
+    bind_text_or_null(s, 7, p->note);
+    sqlite3_bind_int64(s, 8, p->id);
+    int rc = sqlite3_step(s);
+    sqlite3_finalize(s);
+    if ((rc & 0xff) == SQLITE_CONSTRAINT)
+        return pb_error_set(err, PB_EUSAGE, "pack '%s' exists already", p->label);
+    if (rc != SQLITE_DONE)
+        return db_error(st, err, "cannot change the pack");
+    return PB_OK;
+}
+
+enum pb_code store_pack_unretire(struct store *st, const char *label, struct pb_error *err)
+{
+    struct pack_rec p;
+    enum pb_code code = store_pack_get(st, label, &p, err);
+    if (code != PB_OK)
+        return code;
+    if (!p.retired_at[0])
+        return pb_error_set(err, PB_EUSAGE, "pack '%s' is in service already", label);
+    int changed = 0;
+    return exec_by_id(st, "UPDATE packs SET retired_at = NULL, retire_reason = NULL WHERE id = ?",
+                      p.id, -1, &changed, "cannot return the pack to service", err);
+}
+
 /* ---- flights ---------------------------------------------------------- */
 
 static void bind_num(sqlite3_stmt *s, int i, double v)
@@ -422,11 +510,12 @@ static double col_num(sqlite3_stmt *s, int i)
 
 #define FLIGHT_NUMS                                                                                \
     X(duration_s)                                                                                  \
-    X(charge_used_mah) X(energy_used_wh) X(current_max_a) X(current_mean_a) X(power_mean_w)        \
-        X(voltage_min_v) X(cell_voltage_min_v) X(time_below_floor_s) X(r0_mohm) X(r0_ci95_mohm)    \
-            X(r1_mohm) X(tau_s) X(soc_start_pct) X(soc_end_pct) X(capacity_mah)                    \
-                X(capacity_ci95_mah) X(cell_spread_rest_mv) X(cell_spread_load_mv)                 \
-                    X(temperature_max_c) X(power_cruise_w)
+    X(charge_used_mah)                                                                             \
+    X(energy_used_wh) X(current_max_a) X(current_mean_a) X(power_mean_w) X(voltage_min_v)          \
+        X(cell_voltage_min_v) X(time_below_floor_s) X(r0_mohm) X(r0_ci95_mohm) X(r1_mohm) X(tau_s) \
+            X(soc_start_pct) X(soc_end_pct) X(capacity_mah) X(capacity_ci95_mah)                   \
+                X(cell_spread_rest_mv) X(cell_spread_load_mv) X(temperature_max_c)                 \
+                    X(power_cruise_w)
 
 #define X(name) #name ", "
 static const char flight_num_cols[] = FLIGHT_NUMS;
@@ -556,6 +645,27 @@ enum pb_code store_flight_put(struct store *st, const struct flight_rec *f, cons
     return db_error(st, err, "cannot store the flight");
 }
 
+#define FLIGHT_HEAD_COLS                                                                           \
+    "id, pack_id, content_hash, source, flown_epoch_s, date_source, weakest_cell, warnings"
+
+/* A row of FLIGHT_HEAD_COLS then the numeric columns; cells are not read. */
+static void read_flight(sqlite3_stmt *s, struct flight_rec *f)
+{
+    memset(f, 0, sizeof *f);
+    f->id = sqlite3_column_int64(s, 0);
+    f->pack_id = sqlite3_column_int64(s, 1);
+    copy_text(f->content_hash, sizeof f->content_hash, s, 2);
+    copy_text(f->source, sizeof f->source, s, 3);
+    f->flown_epoch_s = sqlite3_column_double(s, 4);
+    copy_text(f->date_source, sizeof f->date_source, s, 5);
+    f->weakest_cell = sqlite3_column_int(s, 6);
+    f->warnings = sqlite3_column_int(s, 7);
+    int i = 8;
+#define X(name) f->name = col_num(s, i++);
+    FLIGHT_NUMS
+#undef X
+}
+
 enum pb_code store_flights_of(struct store *st, int64_t pack_id, struct flight_rec **out, size_t *n,
                               struct pb_error *err)
 {
@@ -566,9 +676,8 @@ enum pb_code store_flights_of(struct store *st, int64_t pack_id, struct flight_r
     *out = NULL;
     *n = 0;
     snprintf(sql, sizeof sql,
-             "SELECT id, pack_id, content_hash, source, flown_epoch_s, date_source, weakest_cell, "
-             "warnings, %.*s FROM flights WHERE pack_id = ? ORDER BY flown_epoch_s, id",
-             (int)strlen(flight_num_cols) - 2, flight_num_cols);
+             "SELECT %s, %.*s FROM flights WHERE pack_id = ? ORDER BY flown_epoch_s, id",
+             FLIGHT_HEAD_COLS, (int)strlen(flight_num_cols) - 2, flight_num_cols);
     if (sqlite3_prepare_v2(st->db, sql, -1, &s, NULL) != SQLITE_OK ||
         sqlite3_prepare_v2(st->db,
                            "SELECT cell, r0_mohm, voltage_min_v, voltage_rest_v FROM "
@@ -590,19 +699,7 @@ enum pb_code store_flights_of(struct store *st, int64_t pack_id, struct flight_r
             v = nv;
         }
         struct flight_rec *f = &v[len++];
-        memset(f, 0, sizeof *f);
-        f->id = sqlite3_column_int64(s, 0);
-        f->pack_id = sqlite3_column_int64(s, 1);
-        copy_text(f->content_hash, sizeof f->content_hash, s, 2);
-        copy_text(f->source, sizeof f->source, s, 3);
-        f->flown_epoch_s = sqlite3_column_double(s, 4);
-        copy_text(f->date_source, sizeof f->date_source, s, 5);
-        f->weakest_cell = sqlite3_column_int(s, 6);
-        f->warnings = sqlite3_column_int(s, 7);
-        int i = 8;
-#define X(name) f->name = col_num(s, i++);
-        FLIGHT_NUMS
-#undef X
+        read_flight(s, f);
         sqlite3_reset(c);
         sqlite3_bind_int64(c, 1, f->id);
         while (sqlite3_step(c) == SQLITE_ROW && f->ncells < PB_MAX_CELLS) {
@@ -628,4 +725,101 @@ enum pb_code store_flights_of(struct store *st, int64_t pack_id, struct flight_r
 void store_flights_free(struct flight_rec *f)
 {
     free(f);
+}
+
+enum pb_code store_flight_get(struct store *st, int64_t id, struct flight_rec *out,
+                              struct pb_error *err)
+{
+    char sql[2048];
+    sqlite3_stmt *s = NULL;
+    snprintf(sql, sizeof sql, "SELECT %s, %.*s FROM flights WHERE id = ?", FLIGHT_HEAD_COLS,
+             (int)strlen(flight_num_cols) - 2, flight_num_cols);
+    if (sqlite3_prepare_v2(st->db, sql, -1, &s, NULL) != SQLITE_OK)
+        return db_error(st, err, "cannot read flights");
+    sqlite3_bind_int64(s, 1, id);
+    int rc = sqlite3_step(s);
+    if (rc == SQLITE_ROW)
+        read_flight(s, out);
+    sqlite3_finalize(s);
+    if (rc == SQLITE_DONE)
+        return pb_error_set(err, PB_EUSAGE, "no flight %lld (see 'packbook flight list')",
+                            (long long)id);
+    if (rc != SQLITE_ROW)
+        return db_error(st, err, "cannot read flights");
+    return PB_OK;
+}
+
+enum pb_code store_flight_analysed_as(struct store *st, int64_t id, int *cells, char *chemistry,
+                                      size_t cap, struct pb_error *err)
+{
+    sqlite3_stmt *s = NULL;
+    *cells = 0;
+    chemistry[0] = '\0';
+    if (sqlite3_prepare_v2(st->db,
+                           "SELECT json_extract(report_json, '$.cells'), "
+                           "json_extract(report_json, '$.chemistry') FROM flights WHERE id = ?",
+                           -1, &s, NULL) != SQLITE_OK)
+        return db_error(st, err, "cannot read flights");
+    sqlite3_bind_int64(s, 1, id);
+    int rc = sqlite3_step(s);
+    if (rc == SQLITE_ROW) {
+        *cells = sqlite3_column_int(s, 0);
+        copy_text(chemistry, cap, s, 1);
+    }
+    sqlite3_finalize(s);
+    if (rc == SQLITE_DONE)
+        return pb_error_set(err, PB_EUSAGE, "no flight %lld (see 'packbook flight list')",
+                            (long long)id);
+    if (rc != SQLITE_ROW)
+        return db_error(st, err, "cannot read flights");
+    return PB_OK;
+}
+
+enum pb_code store_flights_analysed_otherwise(struct store *st, int64_t pack_id, int cells,
+                                              const char *chemistry, size_t *n,
+                                              struct pb_error *err)
+{
+    sqlite3_stmt *s = NULL;
+    /* a report that does not say (hand-made rows) counts as not contradicting */
+    if (sqlite3_prepare_v2(st->db,
+                           "SELECT count(*) FROM flights WHERE pack_id = ? AND ("
+                           "coalesce(json_extract(report_json, '$.cells'), ?2) != ?2 OR "
+                           "lower(coalesce(json_extract(report_json, '$.chemistry'), ?3)) "
+                           "!= lower(?3))",
+                           -1, &s, NULL) != SQLITE_OK)
+        return db_error(st, err, "cannot read flights");
+    sqlite3_bind_int64(s, 1, pack_id);
+    sqlite3_bind_int(s, 2, cells);
+    sqlite3_bind_text(s, 3, chemistry, -1, SQLITE_TRANSIENT);
+    int rc = sqlite3_step(s);
+    if (rc == SQLITE_ROW)
+        *n = (size_t)sqlite3_column_int64(s, 0);
+    sqlite3_finalize(s);
+    if (rc != SQLITE_ROW)
+        return db_error(st, err, "cannot read flights");
+    return PB_OK;
+}
+
+enum pb_code store_flight_remove(struct store *st, int64_t id, struct pb_error *err)
+{
+    int changed = 0;
+    /* flight_cells rows go with it (ON DELETE CASCADE, foreign keys on) */
+    enum pb_code rc = exec_by_id(st, "DELETE FROM flights WHERE id = ?", id, -1, &changed,
+                                 "cannot remove the flight", err);
+    if (rc == PB_OK && changed == 0)
+        return pb_error_set(err, PB_EUSAGE, "no flight %lld (see 'packbook flight list')",
+                            (long long)id);
+    return rc;
+}
+
+enum pb_code store_flight_move(struct store *st, int64_t id, int64_t to_pack_id,
+                               struct pb_error *err)
+{
+    int changed = 0;
+    enum pb_code rc = exec_by_id(st, "UPDATE flights SET pack_id = ?2 WHERE id = ?1", id,
+                                 to_pack_id, &changed, "cannot move the flight", err);
+    if (rc == PB_OK && changed == 0)
+        return pb_error_set(err, PB_EUSAGE, "no flight %lld (see 'packbook flight list')",
+                            (long long)id);
+    return rc;
 }
