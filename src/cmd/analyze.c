@@ -20,7 +20,7 @@ static const char usage_head[] =
     "\n"
     "pack:\n"
     "  --cells N              series cell count (default: from cell columns or inferred)\n"
-    "  --chemistry C          lipo, lihv, nmc or lfp (default: lipo, with a warning)\n"
+    "  --chemistry C          lipo, lihv, nmc or lfp, any case (default: lipo, with a warning)\n"
     "  --capacity MAH         rated capacity, for C-rates and capacity as % of rated\n";
 
 static const char usage_tail[] =

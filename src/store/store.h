@@ -15,7 +15,7 @@
 #include "../core/pb_error.h"
 #include "../core/series.h"
 
-#define STORE_SCHEMA_VERSION 3
+#define STORE_SCHEMA_VERSION 4
 
 struct store;
 
@@ -43,6 +43,7 @@ struct flight_rec {
     int64_t id;
     int64_t pack_id;
     char content_hash[40];
+    char samples_hash[40]; /* of the parsed samples: "" when unknown (before schema 4) */
     char source[256];
     double flown_epoch_s;
     char date_source[16]; /* "log", "option" or "mtime" */
@@ -99,13 +100,23 @@ enum pb_code store_flights_analysed_otherwise(struct store *st, int64_t pack_id,
                                               const char *chemistry, size_t *n,
                                               struct pb_error *err);
 
+/* What store_flight_put found already stored. */
+enum store_dup_kind { DUP_NONE = 0, DUP_BYTES, DUP_SAMPLES };
+struct store_dup {
+    enum store_dup_kind kind; /* a flight with the same bytes or the same samples */
+    int64_t id;               /* that flight */
+    char label[128];          /* its pack */
+    int64_t near_id;          /* a flight of the same start time (from a log) and duration, or 0 */
+    char near_label[128];
+};
+
 /* Stores a flight with its full JSON report. When a flight with the same
- * content hash exists, stores nothing and sets *duplicate (its pack's label
- * in dup_label, which may be NULL). Retries while another writer holds the
- * database, up to the busy timeout. */
+ * content hash or samples hash exists, stores nothing and says which in
+ * dup->kind. A flight that only starts at the same logged time and lasts as
+ * long (within 1 s) is stored, and named in dup->near_id. Retries while
+ * another writer holds the database, up to the busy timeout. */
 enum pb_code store_flight_put(struct store *st, const struct flight_rec *f, const char *report_json,
-                              int *duplicate, char *dup_label, size_t dup_cap,
-                              struct pb_error *err);
+                              struct store_dup *dup, struct pb_error *err);
 
 /* Flights of one pack, oldest first. */
 enum pb_code store_flights_of(struct store *st, int64_t pack_id, struct flight_rec **out, size_t *n,

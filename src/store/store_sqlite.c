@@ -67,6 +67,9 @@ static const char *const migrations[] = {
     "CREATE INDEX flights_by_pack_time ON flights(pack_id, flown_epoch_s);",
     /* 2 -> 3: mean power while loaded, the load for predictions */
     "ALTER TABLE flights ADD COLUMN power_cruise_w REAL;",
+    /* 3 -> 4: a hash of the parsed samples, so a re-exported log is known */
+    "ALTER TABLE flights ADD COLUMN samples_hash TEXT;"
+    "CREATE INDEX flights_by_samples ON flights(samples_hash);",
 };
 
 /* Busy handler: short jittered sleeps, so a waiting writer gets its turn
@@ -511,39 +514,44 @@ static double col_num(sqlite3_stmt *s, int i)
 #define FLIGHT_NUMS                                                                                \
     X(duration_s)                                                                                  \
     X(charge_used_mah)                                                                             \
-    X(energy_used_wh) X(current_max_a) X(current_mean_a) X(power_mean_w) X(voltage_min_v)          \
-        X(cell_voltage_min_v) X(time_below_floor_s) X(r0_mohm) X(r0_ci95_mohm) X(r1_mohm) X(tau_s) \
-            X(soc_start_pct) X(soc_end_pct) X(capacity_mah) X(capacity_ci95_mah)                   \
-                X(cell_spread_rest_mv) X(cell_spread_load_mv) X(temperature_max_c)                 \
-                    X(power_cruise_w)
+    X(energy_used_wh)                                                                              \
+    X(current_max_a) X(current_mean_a) X(power_mean_w) X(voltage_min_v) X(cell_voltage_min_v)      \
+        X(time_below_floor_s) X(r0_mohm) X(r0_ci95_mohm) X(r1_mohm) X(tau_s) X(soc_start_pct)      \
+            X(soc_end_pct) X(capacity_mah) X(capacity_ci95_mah) X(cell_spread_rest_mv)             \
+                X(cell_spread_load_mv) X(temperature_max_c) X(power_cruise_w)
 
 #define X(name) #name ", "
 static const char flight_num_cols[] = FLIGHT_NUMS;
 #undef X
 
 /* One attempt at storing a flight inside a transaction. */
-static int put_once(struct store *st, const struct flight_rec *f, const char *json, int *duplicate,
-                    char *dup_label, size_t dup_cap)
+static int put_once(struct store *st, const struct flight_rec *f, const char *json,
+                    struct store_dup *dup)
 {
     sqlite3_stmt *s = NULL;
+    memset(dup, 0, sizeof *dup);
     int rc = sqlite3_exec(st->db, "BEGIN IMMEDIATE", NULL, NULL, NULL);
     if (rc != SQLITE_OK) {
         st->saved_code = sqlite3_extended_errcode(st->db);
         snprintf(st->saved_msg, sizeof st->saved_msg, "%s", sqlite3_errmsg(st->db));
         return rc;
     }
+    /* the same bytes first, then the same samples under other bytes */
     rc = sqlite3_prepare_v2(st->db,
-                            "SELECT p.label FROM flights f JOIN packs p ON p.id = f.pack_id "
-                            "WHERE f.content_hash = ?",
+                            "SELECT f.id, p.label, f.content_hash = ?1 FROM flights f "
+                            "JOIN packs p ON p.id = f.pack_id "
+                            "WHERE f.content_hash = ?1 OR (?2 != '' AND f.samples_hash = ?2) "
+                            "ORDER BY f.content_hash = ?1 DESC LIMIT 1",
                             -1, &s, NULL);
     if (rc != SQLITE_OK)
         goto fail;
     sqlite3_bind_text(s, 1, f->content_hash, -1, SQLITE_TRANSIENT);
+    sqlite3_bind_text(s, 2, f->samples_hash, -1, SQLITE_TRANSIENT);
     rc = sqlite3_step(s);
     if (rc == SQLITE_ROW) {
-        *duplicate = 1;
-        if (dup_label)
-            copy_text(dup_label, dup_cap, s, 0);
+        dup->kind = sqlite3_column_int(s, 2) ? DUP_BYTES : DUP_SAMPLES;
+        dup->id = sqlite3_column_int64(s, 0);
+        copy_text(dup->label, sizeof dup->label, s, 1);
         sqlite3_finalize(s);
         sqlite3_exec(st->db, "ROLLBACK", NULL, NULL, NULL);
         return SQLITE_OK;
@@ -552,15 +560,37 @@ static int put_once(struct store *st, const struct flight_rec *f, const char *js
     s = NULL;
     if (rc != SQLITE_DONE)
         goto fail;
+    if (strcmp(f->date_source, "log") == 0) {
+        /* dates given by option or file time say nothing about sameness */
+        rc = sqlite3_prepare_v2(st->db,
+                                "SELECT f.id, p.label FROM flights f JOIN packs p ON "
+                                "p.id = f.pack_id WHERE f.date_source = 'log' AND "
+                                "abs(f.flown_epoch_s - ?1) <= 1 AND abs(f.duration_s - ?2) <= 1 "
+                                "ORDER BY f.id LIMIT 1",
+                                -1, &s, NULL);
+        if (rc != SQLITE_OK)
+            goto fail;
+        sqlite3_bind_double(s, 1, f->flown_epoch_s);
+        bind_num(s, 2, f->duration_s);
+        rc = sqlite3_step(s);
+        if (rc == SQLITE_ROW) {
+            dup->near_id = sqlite3_column_int64(s, 0);
+            copy_text(dup->near_label, sizeof dup->near_label, s, 1);
+        }
+        sqlite3_finalize(s);
+        s = NULL;
+        if (rc != SQLITE_ROW && rc != SQLITE_DONE)
+            goto fail;
+    }
 
     char sql[2048], when[40], now[40];
     int used = snprintf(sql, sizeof sql,
                         "INSERT INTO flights (pack_id, content_hash, source, flown_at, "
                         "flown_epoch_s, date_source, imported_at, weakest_cell, warnings, "
-                        "report_json, %.*s) VALUES (?",
+                        "report_json, samples_hash, %.*s) VALUES (?",
                         (int)strlen(flight_num_cols) - 2, flight_num_cols);
-    /* one placeholder per column: 10 named above plus the numeric ones */
-    int ncols = 10;
+    /* one placeholder per column: 11 named above plus the numeric ones */
+    int ncols = 11;
     for (const char *q = flight_num_cols; *q; q++)
         ncols += *q == ',';
     for (int k = 1; k < ncols; k++)
@@ -584,7 +614,8 @@ static int put_once(struct store *st, const struct flight_rec *f, const char *js
         sqlite3_bind_null(s, 8);
     sqlite3_bind_int(s, 9, f->warnings);
     sqlite3_bind_text(s, 10, json, -1, SQLITE_TRANSIENT);
-    int i = 11;
+    bind_text_or_null(s, 11, f->samples_hash);
+    int i = 12;
 #define X(name) bind_num(s, i++, f->name);
     FLIGHT_NUMS
 #undef X
@@ -630,12 +661,11 @@ fail:
 }
 
 enum pb_code store_flight_put(struct store *st, const struct flight_rec *f, const char *report_json,
-                              int *duplicate, char *dup_label, size_t dup_cap, struct pb_error *err)
+                              struct store_dup *dup, struct pb_error *err)
 {
-    *duplicate = 0;
     for (int attempt = 0; attempt < BUSY_RETRIES; attempt++) {
         st->saved_code = 0;
-        int rc = put_once(st, f, report_json, duplicate, dup_label, dup_cap);
+        int rc = put_once(st, f, report_json, dup);
         if (rc == SQLITE_OK)
             return PB_OK;
         if ((rc & 0xff) != SQLITE_BUSY && (rc & 0xff) != SQLITE_LOCKED)

@@ -232,6 +232,120 @@ class PackEdit(unittest.TestCase):
                          [(6, "lihv")])
 
 
+def sim(path, seed, *args):
+    cmd = [pbtest.PY, pbtest.PBSIM, "--packbook", pbtest.PACKBOOK, "--seed", str(seed),
+           "--duration-s", "240", "--rate-hz", "2", "-o", path, *map(str, args)]
+    p = subprocess.run(cmd, capture_output=True, text=True)
+    assert p.returncode == 0, p.stderr
+    return path
+
+
+class ImportChecks(unittest.TestCase):
+    """A log that clearly is another pack's is refused (import --help); duplicates are
+    recognised by their samples as well as their bytes."""
+
+    def fresh(self, name, cells=4, cap=5000):
+        db = os.path.join(pbtest.temp_dir(f"pbmanage-{name}-"), "h.db")
+        rc, out, err = pb(db, "pack", "add", "TR-31", "--cells", cells, "--chemistry", "lipo",
+                          "--capacity", cap)
+        self.assertEqual(rc, EXIT_OK, err)
+        return db
+
+    def refused(self, db, log, *phrases):
+        rc, out, err = pb(db, "import", "--pack", "TR-31", "--date", "2026-04-02", log)
+        self.assertEqual(rc, EXIT_SOME_FAILED, err)
+        self.assertIn("0 imported, 0 already there, 1 failed", out)
+        self.assertIn("does not fit pack 'TR-31'", err)
+        self.assertIn("--force", err)
+        for p in phrases:
+            self.assertIn(p, err)
+        self.assertEqual(query(db, "SELECT count(*) FROM flights"), [(0,)])
+        rc, out, err = pb(db, "import", "--pack", "TR-31", "--date", "2026-04-02", "--force", log)
+        self.assertEqual(rc, EXIT_OK, err)
+        self.assertIn("1 imported", out)
+        self.assertIn("stored with --force", err)
+
+    def test_other_cell_columns(self):
+        # samples/tm12-cells.csv: 6 cell columns (a 6S LiHV pack) filed under a 4S pack
+        log = os.path.join(pbtest.ROOT, "samples", "tm12-cells.csv")
+        self.refused(self.fresh("cols"), log, "6 cell columns and the pack is 4S")
+
+    def test_voltage_of_another_cell_count(self):
+        # a 6S LiPo log without cell columns: 6 x ~4.2 V = ~25 V, over 6 V per cell as 4S
+        log = sim(os.path.join(SCRATCH, "six.csv"), 801, "--cells", 6)
+        self.refused(self.fresh("volts"), log, "per cell for 4S")
+        # the right pack takes it silently
+        db = self.fresh("volts-ok", cells=6)
+        rc, out, err = pb(db, "import", "--pack", "TR-31", "--date", "2026-04-02", log)
+        self.assertEqual((rc, err.count("does not fit")), (EXIT_OK, 0), err)
+
+    def test_more_charge_than_the_pack_holds(self):
+        # pbsim's 240 s flight of a 5000 mAh pack draws about 0.9 Ah (its truth), over
+        # 125 % of a 600 mAh rating
+        log = sim(os.path.join(SCRATCH, "big.csv"), 802)
+        self.refused(self.fresh("charge", cap=600), log, "rated 600 mAh", "drew")
+
+    def test_same_samples_other_writing(self):
+        db = self.fresh("samples")
+        comma = sim(os.path.join(SCRATCH, "epoch.csv"), 803, "--format", "epoch",
+                    "--start-epoch", EPOCH0)
+        with open(comma) as f:
+            text = f.read()
+        semi = os.path.join(SCRATCH, "epoch-semicolon.csv")
+        with open(semi, "w") as f:
+            f.write("# re-exported by the ground station\n" + text.replace(",", ";"))
+        rc, out, err = pb(db, "import", "--pack", "TR-31", comma, semi)
+        self.assertEqual(rc, EXIT_OK, err)
+        self.assertIn("1 imported, 1 already there", out)
+        self.assertIn("(same samples): " + semi, out)
+        rc, out, err = pb(db, "import", "--pack", "TR-31", comma)
+        self.assertIn("(same bytes): " + comma, out)
+        self.assertEqual(query(db, "SELECT count(*) FROM flights"), [(1,)])
+        self.assertEqual(query(db, "SELECT count(DISTINCT samples_hash) FROM flights"), [(1,)])
+
+    def test_date_from_file_time_warns(self):
+        db = self.fresh("mtime")
+        log = sim(os.path.join(SCRATCH, "plain.csv"), 804)
+        rc, out, err = pb(db, "import", "--pack", "TR-31", log)
+        self.assertEqual(rc, EXIT_OK, err)
+        self.assertIn("(date from mtime)", out)
+        self.assertIn("modification time", err)
+        self.assertIn("--date", err)
+
+    def test_status_change_is_printed(self):
+        # a flight under the cut-off: watch at 1 over-discharge (man packbook, Retirement
+        # rules); samples/tm15-deep.csv spends minutes below 3.3 V per cell
+        db = self.fresh("status")
+        log = os.path.join(pbtest.ROOT, "samples", "tm15-deep.csv")
+        rc, out, err = pb(db, "import", "--pack", "TR-31", log)
+        self.assertEqual(rc, EXIT_OK, err)
+        self.assertIn("pack TR-31: status ok -> watch", out)
+        rc, out, err = pb(db, "import", "--pack", "TR-31", LOGS[0])
+        self.assertEqual(rc, EXIT_OK, err)
+        self.assertNotIn("status", out, "unchanged: not repeated")
+
+
+class ChemistryNames(unittest.TestCase):
+    def test_any_case(self):
+        db = os.path.join(pbtest.temp_dir("pbmanage-case-"), "h.db")
+        rc, out, err = pb(db, "pack", "add", "TR-41", "--cells", 4, "--chemistry", "LiPo",
+                          "--capacity", 5000)
+        self.assertEqual(rc, EXIT_OK, err)
+        self.assertIn("4S1P lipo", out)
+        self.assertEqual(query(db, "SELECT chemistry FROM packs"), [("lipo",)],
+                         "stored in the one spelling the man page lists")
+        rc, out, err = pb(db, "pack", "edit", "TR-41", "--chemistry", "LIHV")
+        self.assertEqual(rc, EXIT_OK, err)
+        self.assertIn("chemistry: lipo -> lihv", out)
+        log = os.path.join(pbtest.ROOT, "samples", "tm07-plain.csv")
+        a = pbtest.analyze_json(log, "--cells", 4, "--chemistry", "LiPo", "--capacity", 5000)
+        b = pbtest.analyze_json(log, "--cells", 4, "--chemistry", "lipo", "--capacity", 5000)
+        self.assertEqual(a["chemistry"], "lipo")
+        self.assertEqual(a["soc_start_pct"], b["soc_start_pct"])
+        rc, out, err = run("analyze", log, "--chemistry", "LiPoo")
+        self.assertEqual(rc, EXIT_USAGE)
+
+
 class Unretire(unittest.TestCase):
     def test_retire_then_unretire(self):
         db = history(self, "unretire")
