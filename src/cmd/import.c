@@ -15,6 +15,7 @@
 #include "../report/report.h"
 #include "cmd.h"
 #include "logopts.h"
+#include "packopts.h"
 #include "packview.h"
 
 static const char usage_head[] =
@@ -30,6 +31,8 @@ static const char usage_head[] =
     "The flight date is the log's absolute time, else --date, else the file's\n"
     "modification time (with a warning). A failing log does not stop the batch\n"
     "(exit status 1). When the pack's status changes, it is printed.\n"
+    "The pack's remembered reading settings (pack add/edit) apply; the options\n"
+    "below override them.\n"
     "\n"
     "  --pack ID              the pack that flew (see 'packbook pack list')\n"
     "  --date DATE            date for logs without absolute time (ISO 8601)\n"
@@ -53,6 +56,7 @@ static const struct option longopts[] = {
 
 struct import_cli {
     struct log_cli log;
+    struct packopts_seen seen;
     const char *pack, *db;
     int have_date, quiet, force;
     double date_epoch_s;
@@ -339,7 +343,7 @@ enum pb_code cmd_import(int argc, char **argv, struct app *app, struct pb_error 
     opterr = 0;
     while ((c = getopt_long(argc, argv, "h", longopts, NULL)) != -1) {
         int taken = logopts_take(c, optarg, &cli.log, err);
-        if (taken < 0)
+        if (taken < 0 || (taken && packopts_note(&cli.seen, c, optarg, err) < 0))
             return PB_EUSAGE;
         if (taken)
             continue;
@@ -394,6 +398,11 @@ enum pb_code cmd_import(int argc, char **argv, struct app *app, struct pb_error 
                           pack.label, pack.retired_at);
         goto cleanup;
     }
+    /* the summaries below copy the pack before its settings are split */
+    struct pack_rec settings_owner = pack;
+    rc = packopts_apply(settings_owner.settings, &cli.seen, &cli.log, err);
+    if (rc != PB_OK)
+        goto cleanup;
     for (int k = optind; k < argc; k++)
         if ((rc = expand(argv[k], &paths, err)) != PB_OK)
             goto cleanup;

@@ -7,15 +7,17 @@
 #include "../core/isotime.h"
 #include "../core/ocv.h"
 #include "cmd.h"
+#include "packopts.h"
 #include "packview.h"
 
 static const char usage[] =
     "usage: packbook pack add ID --cells N --chemistry C --capacity MAH\n"
-    "                         [--parallel P] [--since DATE] [--note TEXT]\n"
+    "                         [--parallel P] [--since DATE] [--note TEXT] [READING]\n"
     "       packbook pack list [--json]\n"
     "       packbook pack show ID [--json]\n"
     "       packbook pack edit ID [--name NEW-ID] [--cells N] [--chemistry C]\n"
     "                         [--capacity MAH] [--parallel P] [--since DATE] [--note TEXT]\n"
+    "                         [READING] [--clear-settings]\n"
     "       packbook pack retire ID --reason TEXT\n"
     "       packbook pack unretire ID\n"
     "\n"
@@ -26,10 +28,29 @@ static const char usage[] =
     "and --chemistry change only while no stored flight was analysed otherwise\n"
     "(remove those flights first, then import their logs again). --since ''\n"
     "and --note '' clear the field.\n"
+    "\n"
+    "READING: the options of 'packbook analyze' that say how to read and analyse\n"
+    "this pack's logs (--floor, --map, --columns, --current-sign, --adc-scale or\n"
+    "the sense chain, --gap, --rest-current, ...). The pack remembers them and\n"
+    "every command given --pack ID uses them; options given there override them\n"
+    "(any ADC or sense-chain option replaces the whole remembered chain). edit\n"
+    "adds to or replaces the remembered ones; --clear-settings forgets them first.\n"
     "  --db PATH              history database (default: $PACKBOOK_DB, else\n"
     "                         $XDG_DATA_HOME/packbook/packbook.db)\n";
 
-enum { P_CELLS = 256, P_PAR, P_CHEM, P_CAP, P_SINCE, P_NOTE, P_REASON, P_JSON, P_DB, P_NAME };
+enum {
+    P_CELLS = 256,
+    P_PAR,
+    P_CHEM,
+    P_CAP,
+    P_SINCE,
+    P_NOTE,
+    P_REASON,
+    P_JSON,
+    P_DB,
+    P_NAME,
+    P_CLEAR
+};
 
 static const struct option longopts[] = {
     {"cells", required_argument, NULL, P_CELLS},
@@ -40,6 +61,8 @@ static const struct option longopts[] = {
     {"note", required_argument, NULL, P_NOTE},
     {"reason", required_argument, NULL, P_REASON},
     {"name", required_argument, NULL, P_NAME},
+    {"clear-settings", no_argument, NULL, P_CLEAR},
+    LOGOPTS_LONG,
     {"json", no_argument, NULL, P_JSON},
     {"db", required_argument, NULL, P_DB},
     {"help", no_argument, NULL, 'h'},
@@ -49,7 +72,8 @@ static const struct option longopts[] = {
 struct pack_cli {
     struct pack_rec rec;
     const char *reason, *db, *name;
-    int json, have_cells, have_chem, have_cap, have_par, have_since, have_note;
+    int json, have_cells, have_chem, have_cap, have_par, have_since, have_note, clear;
+    struct packopts_seen seen; /* reading options to remember */
 };
 
 static enum pb_code cmd_add(struct store *st, struct pack_cli *cli, struct pb_error *err)
@@ -57,11 +81,19 @@ static enum pb_code cmd_add(struct store *st, struct pack_cli *cli, struct pb_er
     if (!cli->have_cells || !cli->have_chem || !cli->have_cap)
         return pb_error_set(err, PB_EUSAGE,
                             "pack add: --cells, --chemistry and --capacity are needed");
-    enum pb_code rc = store_pack_add(st, &cli->rec, err);
+    enum pb_code rc =
+        packopts_merge("", &cli->seen, 0, cli->rec.settings, sizeof cli->rec.settings, err);
+    if (rc == PB_OK)
+        rc = store_pack_add(st, &cli->rec, err);
     if (rc != PB_OK)
         return rc;
     printf("added pack '%s': %dS%dP %s, %.0f mAh\n", cli->rec.label, cli->rec.cells,
            cli->rec.parallel, cli->rec.chemistry, cli->rec.capacity_mah);
+    if (cli->rec.settings[0]) {
+        char d[1200];
+        packopts_describe(cli->rec.settings, d, sizeof d);
+        printf("  reading settings: %s\n", d);
+    }
     return PB_OK;
 }
 
@@ -144,6 +176,9 @@ static enum pb_code cmd_edit(struct store *st, struct pack_cli *cli, struct pb_e
         snprintf(p.since, sizeof p.since, "%s", cli->rec.since);
     if (cli->have_note)
         snprintf(p.note, sizeof p.note, "%s", cli->rec.note);
+    rc = packopts_merge(old.settings, &cli->seen, cli->clear, p.settings, sizeof p.settings, err);
+    if (rc != PB_OK)
+        return rc;
     if (p.cells != old.cells || strcmp(p.chemistry, old.chemistry) != 0) {
         size_t n = 0;
         rc = store_flights_analysed_otherwise(st, old.id, p.cells, p.chemistry, &n, err);
@@ -180,6 +215,10 @@ static enum pb_code cmd_edit(struct store *st, struct pack_cli *cli, struct pb_e
     say_change("rated capacity", a, b);
     say_change("in service since", old.since, p.since);
     say_change("note", old.note, p.note);
+    char ds[1200], dn[1200];
+    packopts_describe(old.settings, ds, sizeof ds);
+    packopts_describe(p.settings, dn, sizeof dn);
+    say_change("reading settings", ds, dn);
     rc = packview_summary(st, &p, &after, err);
     if (rc == PB_OK && (before.cycles != after.cycles || strcmp(before.status, after.status) != 0 ||
                         strcmp(before.label, after.label) != 0))
@@ -203,6 +242,11 @@ enum pb_code cmd_pack(int argc, char **argv, struct app *app, struct pb_error *e
     opterr = 0;
     while ((c = getopt_long(argc, argv, "h", longopts, NULL)) != -1) {
         const char *v = optarg;
+        int noted = packopts_note(&cli.seen, c, v, err);
+        if (noted < 0)
+            return PB_EUSAGE;
+        if (noted)
+            continue;
         switch (c) {
         case P_CELLS:
             if (cmd_parse_int("--cells", v, 1, PB_MAX_CELLS, &cli.rec.cells, err))
@@ -250,6 +294,9 @@ enum pb_code cmd_pack(int argc, char **argv, struct app *app, struct pb_error *e
                 return pb_error_set(err, PB_EUSAGE, "--name: the ID must be 1 to %zu bytes",
                                     sizeof cli.rec.label - 1);
             cli.name = v;
+            break;
+        case P_CLEAR:
+            cli.clear = 1;
             break;
         case P_JSON:
             cli.json = 1;
@@ -300,6 +347,10 @@ enum pb_code cmd_pack(int argc, char **argv, struct app *app, struct pb_error *e
                             sub);
     if (cli.name && run != cmd_edit)
         return pb_error_set(err, PB_EUSAGE, "pack %s: --name is for 'pack edit'", sub);
+    if ((cli.seen.n || cli.clear) && run != cmd_edit && run != cmd_add)
+        return pb_error_set(err, PB_EUSAGE,
+                            "pack %s: reading options are remembered by 'pack add' and 'pack edit'",
+                            sub);
     struct store *st = NULL;
     enum pb_code rc = packview_open_store(cli.db, 1, &st, err);
     if (rc != PB_OK)

@@ -9,6 +9,7 @@
 #include "../report/plots.h"
 #include "cmd.h"
 #include "logopts.h"
+#include "packopts.h"
 #include "packview.h"
 
 static const char usage_head[] =
@@ -37,7 +38,8 @@ static const char usage_head[] =
     "  --axes-json FILE       also write each panel's rectangle and axis ranges as JSON\n"
     "\n"
     "pack (LOG):\n"
-    "  --pack ID [--db PATH]  a registered pack: its cells, chemistry and capacity, and\n"
+    "  --pack ID [--db PATH]  a registered pack: its cells, chemistry, capacity and\n"
+    "                         remembered reading settings (options override them), and\n"
     "                         its name in the title\n"
     "  --cells N, --chemistry C, --capacity MAH   as for analyze (instead of --pack)\n";
 
@@ -86,9 +88,11 @@ struct plot_cli {
     enum trend_by by;
     double horizon;
     const char *db;
-    const char *pack;  /* plot LOG --pack ID */
-    char pack_opt[48]; /* the first of --cells, --chemistry, --capacity given */
-    char title[256];   /* "ID - log" for --pack without --title */
+    const char *pack;          /* plot LOG --pack ID */
+    char pack_opt[48];         /* the first of --cells, --chemistry, --capacity given */
+    char title[256];           /* "ID - log" for --pack without --title */
+    struct packopts_seen seen; /* reading options given, over the pack's */
+    char pack_settings[1024];  /* the pack's, split by packopts_apply */
     struct health_rules rules;
 };
 
@@ -107,7 +111,7 @@ static enum pb_code parse(int argc, char **argv, struct plot_cli *cli, int *done
         snprintf(opt, sizeof opt, "--%s", li >= 0 ? longopts[li].name : "?");
         li = -1;
         int taken = logopts_take(c, optarg, &cli->log, err);
-        if (taken < 0)
+        if (taken < 0 || (taken && packopts_note(&cli->seen, c, optarg, err) < 0))
             return PB_EUSAGE;
         if (taken) {
             if (!first_log_opt[0])
@@ -246,6 +250,10 @@ static enum pb_code take_pack(struct plot_cli *cli, const char *path, struct pb_
     cli->log.an.cells = p.cells;
     cli->log.an.chemistry = (int)chem->id;
     cli->log.an.capacity_mah = p.capacity_mah;
+    memcpy(cli->pack_settings, p.settings, sizeof cli->pack_settings);
+    rc = packopts_apply(cli->pack_settings, &cli->seen, &cli->log, err);
+    if (rc != PB_OK)
+        return rc;
     if (!cli->fig.title) {
         const char *base = strrchr(path, '/') ? strrchr(path, '/') + 1 : path;
         snprintf(cli->title, sizeof cli->title, "%s \u00b7 %s", p.label,

@@ -12,6 +12,7 @@
 #include "../report/report_predict.h"
 #include "cmd.h"
 #include "logopts.h"
+#include "packopts.h"
 #include "packview.h"
 
 static const char usage_head[] =
@@ -22,7 +23,8 @@ static const char usage_head[] =
     "down to the landing reserve, loaded voltage down to the floor, or a power the\n"
     "pack cannot deliver (voltage collapse). Capacity, R0 and the load are drawn\n"
     "from their uncertainty (Monte Carlo, fixed seed); the conservative figure is\n"
-    "the 5th percentile of the safe time.\n"
+    "the 5th percentile of the safe time. For a retired pack, or one flagged\n"
+    "retire, that is said first.\n"
     "\n"
     "start:\n"
     "  --soc PCT              start SoC (default 100: a full charge)\n"
@@ -33,7 +35,8 @@ static const char usage_head[] =
     "                         the profiles are flown one after the other)\n"
     "limits:\n"
     "  --reserve PCT          landing reserve SoC (default 30, common practice)\n"
-    "  --floor V              loaded per-cell floor (default: per chemistry)\n"
+    "  --floor V              loaded per-cell floor (default: the pack's remembered\n"
+    "                         --floor, else per chemistry)\n"
     "model:\n"
     "  --temp C               pack temperature: R0 is scaled by the Arrhenius form\n"
     "  --tref C               temperature R0 was measured at (default 25)\n"
@@ -409,6 +412,7 @@ enum pb_code cmd_predict(int argc, char **argv, struct app *app, struct pb_error
     double *pt = NULL, *pw = NULL;
     const char *warn[8];
     int nwarn = 0;
+    char status_line[1024] = "";
     if (cli.id) {
         struct pack_rec p;
         struct health_rules rules;
@@ -418,8 +422,26 @@ enum pb_code cmd_predict(int argc, char **argv, struct app *app, struct pb_error
             (rc = packview_load(st, &p, &rules, TREND_WEEK, 0, 1000, &view, err)) != PB_OK ||
             (rc = inputs_from_history(&view, &in, err)) != PB_OK)
             goto cleanup;
-        if (p.retired_at[0])
+        /* the pack's remembered cut-off, unless --floor was given */
+        struct log_cli remembered;
+        logopts_init(&remembered);
+        if ((rc = packopts_apply(p.settings, NULL, &remembered, err)) != PB_OK)
+            goto cleanup;
+        if (!(cli.log.an.floor_v > 0) && remembered.an.floor_v > 0)
+            cli.log.an.floor_v = remembered.an.floor_v;
+        /* said first: a figure for a pack that should not fly is read as leave to fly it */
+        if (p.retired_at[0]) {
+            snprintf(status_line, sizeof status_line,
+                     "pack %s is RETIRED (%s, %.10s): do not fly it; figures for reference only",
+                     p.label, p.retire_reason, p.retired_at);
             warn[nwarn++] = "this pack is retired";
+        } else if (view.health.status == HEALTH_RETIRE) {
+            snprintf(status_line, sizeof status_line,
+                     "pack %s is flagged for RETIREMENT (%s): inspect it before flying; figures "
+                     "for reference only",
+                     p.label, view.health.reason);
+            warn[nwarn++] = "this pack is flagged for retirement";
+        }
     } else {
         struct logread_stats stats;
         if ((rc = logopts_analyze(cli.log_path, &cli.log, &stats, &a, NULL, err)) != PB_OK)
@@ -475,6 +497,8 @@ enum pb_code cmd_predict(int argc, char **argv, struct app *app, struct pb_error
         warn[nwarn++] = "the pack cannot deliver this power down to the reserve: voltage collapse";
     if (r.t_safe_s <= 0.0)
         warn[nwarn++] = "a limit is reached at the start: do not fly this load from this state";
+    if (status_line[0] && !cli.json)
+        printf("%s\n\n", status_line);
     int wrc = cli.json ? report_predict_json(stdout, &in, &l, sp.load_sd, &o, &r, &mc, warn, nwarn)
                        : report_predict_text(stdout, &in, &l, sp.load_sd, &o, &r, &mc, warn, nwarn);
     rc = wrc ? pb_error_set(err, PB_EOUTPUT, "cannot write the output") : cmd_finish_stdout(err);

@@ -36,13 +36,33 @@ static const char *fmt_num(char *buf, size_t cap, const char *fmt, double v)
     return buf;
 }
 
+/* The remembered reading options as {"name": "value"}. */
+static json_t *settings_obj(const char *settings)
+{
+    json_t *o = json_object();
+    for (const char *p = settings; *p;) {
+        const char *end = strchr(p, '\n');
+        size_t len = end ? (size_t)(end - p) : strlen(p);
+        const char *eq = memchr(p, '=', len);
+        if (eq) {
+            char key[64];
+            snprintf(key, sizeof key, "%.*s", (int)(eq - p), p);
+            json_object_set_new(o, key, json_stringn(eq + 1, len - (size_t)(eq - p) - 1));
+        }
+        p += len + (end != NULL);
+    }
+    return o;
+}
+
 static json_t *pack_obj(const struct pack_rec *p)
 {
-    return json_pack("{s:s, s:i, s:i, s:s, s:f, s:o, s:o, s:s, s:o, s:o}", "id", p->label, "cells",
-                     p->cells, "parallel", p->parallel, "chemistry", p->chemistry, "capacity_mah",
-                     p->capacity_mah, "since", jout_str(p->since), "note", jout_str(p->note),
-                     "created_at", p->created_at, "retired_at", jout_str(p->retired_at),
-                     "retire_reason", jout_str(p->retire_reason));
+    json_t *o = json_pack("{s:s, s:i, s:i, s:s, s:f, s:o, s:o, s:s, s:o, s:o}", "id", p->label,
+                          "cells", p->cells, "parallel", p->parallel, "chemistry", p->chemistry,
+                          "capacity_mah", p->capacity_mah, "since", jout_str(p->since), "note",
+                          jout_str(p->note), "created_at", p->created_at, "retired_at",
+                          jout_str(p->retired_at), "retire_reason", jout_str(p->retire_reason));
+    json_object_set_new(o, "reading_settings", settings_obj(p->settings));
+    return o;
 }
 
 int report_pack_list(FILE *out, const struct pack_rec *p, size_t n, int json)
@@ -119,6 +139,19 @@ int report_pack_show(FILE *out, const struct pack_view *v, int json)
     fprintf(out, "\n");
     if (p->note[0])
         fprintf(out, "  note: %s\n", p->note);
+    if (p->settings[0]) {
+        fprintf(out, "  reading settings:");
+        for (const char *q = p->settings; *q;) {
+            const char *end = strchr(q, '\n');
+            size_t len = end ? (size_t)(end - q) : strlen(q);
+            const char *eq = memchr(q, '=', len);
+            if (eq)
+                fprintf(out, " --%.*s %.*s", (int)(eq - q), q, (int)(len - (size_t)(eq - q) - 1),
+                        eq + 1);
+            q += len + (end != NULL);
+        }
+        fprintf(out, "\n");
+    }
     if (p->retired_at[0])
         fprintf(out, "  retired %s: %s\n", p->retired_at, p->retire_reason);
     fprintf(out, "  %zu flights, %.1f equivalent cycles, last flown %s\n", h->flights,

@@ -15,7 +15,7 @@
 #include "../core/pb_error.h"
 #include "../core/series.h"
 
-#define STORE_SCHEMA_VERSION 4
+#define STORE_SCHEMA_VERSION 5
 
 struct store;
 
@@ -31,6 +31,7 @@ struct pack_rec {
     char created_at[32];
     char retired_at[32]; /* "" while in service */
     char retire_reason[256];
+    char settings[1024]; /* reading options, "name=value" lines (packopts); "" when none */
 };
 
 struct flight_cell_rec {
@@ -86,7 +87,7 @@ enum pb_code store_pack_by_id(struct store *st, int64_t id, struct pack_rec *out
                               struct pb_error *err);
 
 /* Replaces the registered facts of pack p->id (label, cells, parallel,
- * chemistry, capacity, since, note); retirement is left as it is. A label
+ * chemistry, capacity, since, note, settings); retirement is left as it is. A label
  * another pack has is a usage error. */
 enum pb_code store_pack_update(struct store *st, const struct pack_rec *p, struct pb_error *err);
 

@@ -70,6 +70,8 @@ static const char *const migrations[] = {
     /* 3 -> 4: a hash of the parsed samples, so a re-exported log is known */
     "ALTER TABLE flights ADD COLUMN samples_hash TEXT;"
     "CREATE INDEX flights_by_samples ON flights(samples_hash);",
+    /* 4 -> 5: a pack's remembered reading options (cut-off, sense chain, map) */
+    "ALTER TABLE packs ADD COLUMN read_settings TEXT;",
 };
 
 /* Busy handler: short jittered sleeps, so a waiting writer gets its turn
@@ -311,11 +313,12 @@ static void read_pack(sqlite3_stmt *s, struct pack_rec *p)
     copy_text(p->created_at, sizeof p->created_at, s, 8);
     copy_text(p->retired_at, sizeof p->retired_at, s, 9);
     copy_text(p->retire_reason, sizeof p->retire_reason, s, 10);
+    copy_text(p->settings, sizeof p->settings, s, 11);
 }
 
 #define PACK_COLS                                                                                  \
     "id, label, cells, parallel, chemistry, capacity_mah, since, note, created_at, "               \
-    "retired_at, retire_reason"
+    "retired_at, retire_reason, read_settings"
 
 static void bind_text_or_null(sqlite3_stmt *s, int i, const char *t)
 {
@@ -331,7 +334,8 @@ enum pb_code store_pack_add(struct store *st, struct pack_rec *p, struct pb_erro
     now_iso(p->created_at, sizeof p->created_at);
     if (sqlite3_prepare_v2(st->db,
                            "INSERT INTO packs (label, cells, parallel, chemistry, capacity_mah, "
-                           "since, note, created_at) VALUES (?, ?, ?, ?, ?, ?, ?, ?)",
+                           "since, note, created_at, read_settings) VALUES (?, ?, ?, ?, ?, ?, ?, "
+                           "?, ?)",
                            -1, &s, NULL) != SQLITE_OK)
         return db_error(st, err, "cannot add the pack");
     sqlite3_bind_text(s, 1, p->label, -1, SQLITE_TRANSIENT);
@@ -342,6 +346,7 @@ enum pb_code store_pack_add(struct store *st, struct pack_rec *p, struct pb_erro
     bind_text_or_null(s, 6, p->since);
     bind_text_or_null(s, 7, p->note);
     sqlite3_bind_text(s, 8, p->created_at, -1, SQLITE_TRANSIENT);
+    bind_text_or_null(s, 9, p->settings);
     int rc = sqlite3_step(s);
     sqlite3_finalize(s);
     if ((rc & 0xff) == SQLITE_CONSTRAINT)
@@ -463,7 +468,7 @@ enum pb_code store_pack_update(struct store *st, const struct pack_rec *p, struc
     sqlite3_stmt *s = NULL;
     if (sqlite3_prepare_v2(st->db,
                            "UPDATE packs SET label = ?, cells = ?, parallel = ?, chemistry = ?, "
-                           "capacity_mah = ?, since = ?, note = ? WHERE id = ?",
+                           "capacity_mah = ?, since = ?, note = ?, read_settings = ? WHERE id = ?",
                            -1, &s, NULL) != SQLITE_OK)
         return db_error(st, err, "cannot change the pack");
     sqlite3_bind_text(s, 1, p->label, -1, SQLITE_TRANSIENT);
@@ -473,7 +478,8 @@ enum pb_code store_pack_update(struct store *st, const struct pack_rec *p, struc
     sqlite3_bind_double(s, 5, p->capacity_mah);
     bind_text_or_null(s, 6, p->since);
     bind_text_or_null(s, 7, p->note);
-    sqlite3_bind_int64(s, 8, p->id);
+    bind_text_or_null(s, 8, p->settings);
+    sqlite3_bind_int64(s, 9, p->id);
     int rc = sqlite3_step(s);
     sqlite3_finalize(s);
     if ((rc & 0xff) == SQLITE_CONSTRAINT)
@@ -515,10 +521,11 @@ static double col_num(sqlite3_stmt *s, int i)
     X(duration_s)                                                                                  \
     X(charge_used_mah)                                                                             \
     X(energy_used_wh)                                                                              \
-    X(current_max_a) X(current_mean_a) X(power_mean_w) X(voltage_min_v) X(cell_voltage_min_v)      \
-        X(time_below_floor_s) X(r0_mohm) X(r0_ci95_mohm) X(r1_mohm) X(tau_s) X(soc_start_pct)      \
-            X(soc_end_pct) X(capacity_mah) X(capacity_ci95_mah) X(cell_spread_rest_mv)             \
-                X(cell_spread_load_mv) X(temperature_max_c) X(power_cruise_w)
+    X(current_max_a)                                                                               \
+    X(current_mean_a) X(power_mean_w) X(voltage_min_v) X(cell_voltage_min_v) X(time_below_floor_s) \
+        X(r0_mohm) X(r0_ci95_mohm) X(r1_mohm) X(tau_s) X(soc_start_pct) X(soc_end_pct)             \
+            X(capacity_mah) X(capacity_ci95_mah) X(cell_spread_rest_mv) X(cell_spread_load_mv)     \
+                X(temperature_max_c) X(power_cruise_w)
 
 #define X(name) #name ", "
 static const char flight_num_cols[] = FLIGHT_NUMS;

@@ -346,6 +346,102 @@ class ChemistryNames(unittest.TestCase):
         self.assertEqual(rc, EXIT_USAGE)
 
 
+ADC_CHAIN = ["--adc-bits", "10", "--adc-vref", "3.3", "--sense-ratio", "14000", "--sense-ohm",
+             "510"]  # samples/tm03-adc.csv, as README lists it
+ADC_LOG = os.path.join(pbtest.ROOT, "samples", "tm03-adc.csv")
+PACK4 = ["--cells", "4", "--chemistry", "lipo", "--capacity", "5000"]
+
+
+class RememberedSettings(unittest.TestCase):
+    """A pack remembers its reading options (pack add/edit) and every verb given --pack uses
+    them under the options given there. The reference is the same command with the options
+    written out: the results must be identical (same code path, exact)."""
+
+    def fresh(self, name):
+        db = os.path.join(pbtest.temp_dir(f"pbmanage-{name}-"), "h.db")
+        rc, out, err = pb(db, "pack", "add", "TM-03", *PACK4, *ADC_CHAIN, "--floor", "3.4")
+        self.assertEqual(rc, EXIT_OK, err)
+        self.assertIn("reading settings: --adc-bits 10", out)
+        return db
+
+    def test_stored_and_shown(self):
+        db = self.fresh("shown")
+        self.assertEqual(query(db, "SELECT read_settings FROM packs"),
+                         [("adc-bits=10\nadc-vref=3.3\nsense-ratio=14000\nsense-ohm=510\n"
+                           "floor=3.4\n",)])
+        rc, out, err = pb(db, "pack", "show", "TM-03", "--json")
+        self.assertEqual(json.loads(out)["reading_settings"],
+                         {"adc-bits": "10", "adc-vref": "3.3", "sense-ratio": "14000",
+                          "sense-ohm": "510", "floor": "3.4"})
+        rc, out, err = pb(db, "pack", "edit", "TM-03", "--floor", "3.3", "--gap", "2")
+        self.assertEqual(rc, EXIT_OK, err)
+        self.assertIn("--floor 3.4 -> --adc-bits 10", out)
+        self.assertIn("--floor 3.3 --gap 2", out)
+        # an incomplete chain is refused when remembered, not when first used
+        rc, out, err = pb(db, "pack", "edit", "TM-03", "--clear-settings", "--sense-ohm", "510")
+        self.assertEqual(rc, EXIT_USAGE)
+        self.assertIn("the sense chain needs all of", err)
+        rc, out, err = pb(db, "pack", "edit", "TM-03", "--clear-settings")
+        self.assertEqual(rc, EXIT_OK, err)
+        self.assertIn("-> (none)", out)
+        self.assertEqual(query(db, "SELECT read_settings FROM packs"), [(None,)])
+        rc, out, err = pb(db, "pack", "show", "TM-03", "--floor", "3")
+        self.assertEqual(rc, EXIT_USAGE)
+
+    def test_analyze_import_plot_use_them(self):
+        db = self.fresh("use")
+        want = pbtest.analyze_json(ADC_LOG, *PACK4, *ADC_CHAIN, "--floor", "3.4")
+        got = pbtest.analyze_json(ADC_LOG, "--pack", "TM-03", "--db", db)
+        for key in ("charge_used_mah", "r0_mohm", "floor_v_per_cell", "cells", "chemistry",
+                    "rated_capacity_mah"):
+            self.assertEqual(got[key], want[key], key)
+        self.assertEqual(got["floor_v_per_cell"], 3.4)
+        # an option given overrides the remembered one
+        over = pbtest.analyze_json(ADC_LOG, "--pack", "TM-03", "--db", db, "--floor", "3.5")
+        self.assertEqual(over["floor_v_per_cell"], 3.5)
+        self.assertEqual(over["charge_used_mah"], want["charge_used_mah"])
+        # --adc-scale replaces the whole remembered chain. The chain's amps per count, from
+        # the sense-amplifier arithmetic (Vref / 2^bits volts per count over R / ratio volts
+        # per amp), gives the same charge (relative 1e-9); half of it, half the charge
+        # (coulomb counting is linear in current; the log's zero offset is 0)
+        a_per_count = 3.3 / 2 ** 10 / (510 / 14000)
+        for scale in (1.0, 0.5):
+            got = pbtest.analyze_json(ADC_LOG, "--pack", "TM-03", "--db", db, "--adc-scale",
+                                      repr(a_per_count * scale))
+            self.assertAlmostEqual(got["charge_discharged_mah"],
+                                   scale * want["charge_discharged_mah"],
+                                   delta=1e-9 * want["charge_discharged_mah"])
+        rc, out, err = pb(db, "analyze", ADC_LOG, "--pack", "TM-03", "--cells", "4")
+        self.assertEqual(rc, EXIT_USAGE)
+        self.assertIn("--cells with --pack", err)
+        rc, out, err = pb(db, "import", "--pack", "TM-03", "--date", "2026-04-01", ADC_LOG)
+        self.assertEqual(rc, EXIT_OK, err)
+        self.assertAlmostEqual(query(db, "SELECT charge_used_mah FROM flights")[0][0],
+                               want["charge_used_mah"], delta=1e-6 * want["charge_used_mah"])
+        png = os.path.join(pbtest.temp_dir("pbmanage-plot-"), "f.png")
+        rc, out, err = pb(db, "plot", ADC_LOG, "--pack", "TM-03", "-o", png)
+        self.assertEqual(rc, EXIT_OK, err)
+        # without them the log cannot be read: its current is in ADC counts
+        rc, out, err = pb(db, "pack", "edit", "TM-03", "--clear-settings")
+        rc, out, err = pb(db, "analyze", ADC_LOG, "--pack", "TM-03")
+        self.assertEqual(rc, EXIT_USAGE, err)  # a missing option (man packbook, EXIT STATUS)
+        self.assertIn("ADC counts", err)
+
+    def test_predict_uses_the_cut_off_and_says_retired_first(self):
+        db = self.fresh("predict")
+        rc, out, err = pb(db, "import", "--pack", "TM-03", "--date", "2026-04-01", ADC_LOG)
+        self.assertEqual(rc, EXIT_OK, err)
+        rc, out, err = pb(db, "predict", "TM-03", "--json", "--runs", "20")
+        self.assertEqual(rc, EXIT_OK, err)
+        self.assertEqual(json.loads(out)["inputs"]["floor_v_per_cell"], 3.4)
+        rc, out, err = pb(db, "predict", "TM-03", "--json", "--runs", "20", "--floor", "3.2")
+        self.assertEqual(json.loads(out)["inputs"]["floor_v_per_cell"], 3.2)
+        rc, out, err = pb(db, "pack", "retire", "TM-03", "--reason", "puffed")
+        rc, out, err = pb(db, "predict", "TM-03", "--runs", "20")
+        self.assertEqual(rc, EXIT_OK, err)
+        self.assertTrue(out.startswith("pack TM-03 is RETIRED (puffed"), out[:200])
+
+
 class Unretire(unittest.TestCase):
     def test_retire_then_unretire(self):
         db = history(self, "unretire")
