@@ -5,6 +5,7 @@
 #include <string.h>
 
 #include "cmd/cmd.h"
+#include "cmd/config.h"
 
 #ifndef PACKBOOK_VERSION
 #define PACKBOOK_VERSION "0.0.0"
@@ -26,6 +27,7 @@ static const struct command commands[] = {
     {"trend", cmd_trend, "a pack's resistance and capacity over weeks and cycles"},
     {"compare", cmd_compare, "packs side by side"},
     {"predict", cmd_predict, "safe flight time for the next sortie, with its uncertainty"},
+    {"config", cmd_config, "the settings in force and where each comes from"},
     {"plot", cmd_plot, "figures of a flight, a pack's trend or the fleet (PNG, SVG, PDF)"},
 };
 
@@ -64,7 +66,10 @@ int main(int argc, char **argv)
     for (size_t k = 0; k < sizeof commands / sizeof *commands; k++) {
         if (strcmp(commands[k].name, verb) != 0)
             continue;
-        enum pb_code rc = commands[k].run(argc - 1, argv + 1, &app, &err);
+        /* the settings file first: a broken one is reported before anything runs */
+        enum pb_code rc = config_load(&err);
+        if (rc == PB_OK)
+            rc = commands[k].run(argc - 1, argv + 1, &app, &err);
         if (rc != PB_OK) {
             fprintf(stderr, "packbook: %s\n", err.msg[0] ? err.msg : pb_strerror(rc));
             return pb_exit_status(rc);

@@ -6,6 +6,7 @@
 #include <string.h>
 
 #include "cmd.h"
+#include "config.h"
 #include "packview.h"
 
 static const char usage[] =
@@ -18,8 +19,9 @@ static const char usage[] =
     "  --sort KEY             status (default: retire first), pack, cycles, r0, capacity, last\n"
     "  --status S             only packs with status ok, watch, retire or retired\n"
     "  --all                  include retired packs\n"
-    "  --predict [--power W]  add the conservative safe flight time (minutes) to a 30 %\n"
-    "                         reserve at the pack's recent cruise power, or at W\n"
+    "  --predict [--power W]  add the conservative safe flight time (minutes) to the\n"
+    "                         landing reserve (30 %, or the settings file's 'reserve')\n"
+    "                         at the pack's recent cruise power, or at W\n"
     "  --json, --csv          machine-readable output (CSV cells starting = + - @ are\n"
     "                         prefixed with ' so spreadsheets do not run them)\n";
 
@@ -81,7 +83,7 @@ enum pb_code cmd_fleet(int argc, char **argv, struct app *app, struct pb_error *
     int all = 0, predict = 0, c;
     double power_w = NAN;
     (void)app;
-    health_rules_default(&rules);
+    config_rules(&rules);
     sort_key = "status";
     optind = 1;
     opterr = 0;
@@ -170,7 +172,7 @@ enum pb_code cmd_fleet(int argc, char **argv, struct app *app, struct pb_error *
             }
         }
     }
-    if (report_fleet(stdout, views, nv, fmt, safe) != 0)
+    if (report_fleet(stdout, views, nv, fmt, safe, config_reserve()) != 0)
         rc = pb_error_set(err, PB_EOUTPUT, "cannot write the output");
     else
         rc = cmd_finish_stdout(err);

@@ -28,8 +28,9 @@ static const char usage[] =
     "  --to PACK              the pack that really flew (move)\n"
     "  --json, --csv          machine-readable list (CSV cells starting = + - @ are\n"
     "                         prefixed with ' so spreadsheets do not run them)\n"
-    "  --db PATH              history database (default: $PACKBOOK_DB, else\n"
-    "                         $XDG_DATA_HOME/packbook/packbook.db)\n";
+    "  --db PATH              history database (default: $PACKBOOK_DB, else the\n"
+    "                         settings file's db, else $XDG_DATA_HOME/packbook/packbook.db;\n"
+    "                         see 'packbook config')\n";
 
 enum { FL_JSON = 256, FL_CSV, FL_TO, FL_DB };
 

@@ -37,8 +37,9 @@ static const char usage_head[] =
     "  --pack ID              the pack that flew (see 'packbook pack list')\n"
     "  --date DATE            date for logs without absolute time (ISO 8601)\n"
     "  --force                store logs that contradict the pack all the same\n"
-    "  --db PATH              history database (default: $PACKBOOK_DB, else\n"
-    "                         $XDG_DATA_HOME/packbook/packbook.db)\n"
+    "  --db PATH              history database (default: $PACKBOOK_DB, else the\n"
+    "                         settings file's db, else $XDG_DATA_HOME/packbook/packbook.db;\n"
+    "                         see 'packbook config')\n"
     "  --quiet                no line per log, only the summary\n";
 
 enum { I_PACK = 256, I_DATE, I_DB, I_QUIET, I_FORCE };

@@ -7,6 +7,7 @@
 #include "../core/isotime.h"
 #include "../core/ocv.h"
 #include "cmd.h"
+#include "config.h"
 #include "packopts.h"
 #include "packview.h"
 
@@ -35,8 +36,9 @@ static const char usage[] =
     "every command given --pack ID uses them; options given there override them\n"
     "(any ADC or sense-chain option replaces the whole remembered chain). edit\n"
     "adds to or replaces the remembered ones; --clear-settings forgets them first.\n"
-    "  --db PATH              history database (default: $PACKBOOK_DB, else\n"
-    "                         $XDG_DATA_HOME/packbook/packbook.db)\n";
+    "  --db PATH              history database (default: $PACKBOOK_DB, else the\n"
+    "                         settings file's db, else $XDG_DATA_HOME/packbook/packbook.db;\n"
+    "                         see 'packbook config')\n";
 
 enum {
     P_CELLS = 256,
@@ -117,7 +119,7 @@ static enum pb_code cmd_show(struct store *st, struct pack_cli *cli, struct pb_e
     if (rc != PB_OK)
         return rc;
     struct health_rules rules;
-    health_rules_default(&rules);
+    config_rules(&rules);
     struct pack_view v;
     rc = packview_load(st, &p, &rules, TREND_WEEK, 0, 1000.0, &v, err);
     if (rc == PB_OK && report_pack_show(stdout, &v, cli->json) != 0)

@@ -1,5 +1,7 @@
 #include "packview.h"
 
+#include "config.h"
+
 #include <math.h>
 #include <stdio.h>
 #include <stdlib.h>
@@ -68,8 +70,11 @@ enum pb_code packview_open_store(const char *db, int create, struct store **out,
                                  struct pb_error *err)
 {
     char path[1024];
+    const char *env = getenv("PACKBOOK_DB");
     if (db)
         snprintf(path, sizeof path, "%s", db);
+    else if (!(env && *env) && config_db()) /* the settings file, under the environment */
+        snprintf(path, sizeof path, "%s", config_db());
     else if (store_default_path(path, sizeof path) != 0)
         return pb_error_set(err, PB_EUSAGE,
                             "no database path: set PACKBOOK_DB or HOME, or give --db");
@@ -165,7 +170,7 @@ enum pb_code packview_summary(struct store *st, const struct pack_rec *p, struct
 {
     struct health_rules rules;
     struct pack_view v;
-    health_rules_default(&rules);
+    config_rules(&rules);
     memset(out, 0, sizeof *out);
     enum pb_code rc = packview_load(st, p, &rules, TREND_WEEK, 0, 1000.0, &v, err);
     if (rc != PB_OK)

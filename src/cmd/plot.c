@@ -8,6 +8,7 @@
 #include "../report/plot.h"
 #include "../report/plots.h"
 #include "cmd.h"
+#include "config.h"
 #include "logopts.h"
 #include "packopts.h"
 #include "packview.h"
@@ -314,7 +315,7 @@ enum pb_code cmd_plot(int argc, char **argv, struct app *app, struct pb_error *e
     (void)app;
     logopts_init(&cli.log);
     cli.log.read.min_samples = 1; /* a figure of one sample still says what there is */
-    health_rules_default(&cli.rules);
+    config_rules(&cli.rules);
     cli.by = TREND_WEEK;
     cli.horizon = 1000.0;
     int done = 0;

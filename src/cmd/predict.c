@@ -11,6 +11,7 @@
 #include "../report/report.h"
 #include "../report/report_predict.h"
 #include "cmd.h"
+#include "config.h"
 #include "logopts.h"
 #include "packopts.h"
 #include "packview.h"
@@ -217,6 +218,7 @@ static void setup(const struct predict_inputs *in, const struct predict_cli *cli
     sp->r0_sd_ohm = isfinite(in->r0_sd_mohm) ? in->r0_sd_mohm / 1000.0 : 0.0;
     sp->runs = 400;
     sp->seed = 1;
+    o->reserve_pct = config_reserve();
     if (!cli)
         return;
     if (isfinite(cli->soc))
@@ -308,7 +310,7 @@ enum pb_code cmd_predict(int argc, char **argv, struct app *app, struct pb_error
     (void)app;
     logopts_init(&cli.log);
     cli.soc = cli.ocv_v = cli.power_w = cli.current_a = cli.temp_c = NAN;
-    cli.reserve = 30.0;
+    cli.reserve = config_reserve();
     cli.tref_c = 25.0;
     cli.ea = 30000.0;
     cli.peukh = 1.0;
@@ -416,7 +418,7 @@ enum pb_code cmd_predict(int argc, char **argv, struct app *app, struct pb_error
     if (cli.id) {
         struct pack_rec p;
         struct health_rules rules;
-        health_rules_default(&rules);
+        config_rules(&rules);
         if ((rc = packview_open_store(cli.db, 1, &st, err)) != PB_OK ||
             (rc = store_pack_get(st, cli.id, &p, err)) != PB_OK ||
             (rc = packview_load(st, &p, &rules, TREND_WEEK, 0, 1000, &view, err)) != PB_OK ||

@@ -7,6 +7,7 @@
 #include "../report/plot.h"
 #include "../report/plots.h"
 #include "cmd.h"
+#include "config.h"
 #include "packview.h"
 
 static const char trend_usage[] =
@@ -56,7 +57,7 @@ static enum pb_code parse(const char *verb, const char *usage, int argc, char **
     int c;
     cli->by = TREND_WEEK;
     cli->horizon = 1000.0;
-    health_rules_default(&cli->rules);
+    config_rules(&cli->rules);
     optind = 1;
     opterr = 0;
     while ((c = getopt_long(argc, argv, "h", longopts, NULL)) != -1) {

@@ -268,7 +268,7 @@ void report_csv_cell(FILE *out, const char *t)
 }
 
 int report_fleet(FILE *out, const struct pack_view *v, size_t n, enum fleet_format fmt,
-                 const double *safe)
+                 const double *safe, double reserve_pct)
 {
     if (fmt == FLEET_JSON) {
         json_t *a = json_array();
@@ -333,9 +333,9 @@ int report_fleet(FILE *out, const struct pack_view *v, size_t n, enum fleet_form
     }
     if (safe)
         fprintf(out,
-                "safe min: conservative safe flight time to a 30 %% reserve at %s; an estimate,\n"
+                "safe min: conservative safe flight time to a %.0f %% reserve at %s; an estimate,\n"
                 "not a substitute for the aircraft's low-voltage protection\n",
-                "each pack's recent cruise power (or --power)");
+                reserve_pct, "each pack's recent cruise power (or --power)");
     if (n == 0)
         fprintf(out, "(no packs match)\n");
     return ferror(out) ? -1 : 0;

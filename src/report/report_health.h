@@ -26,9 +26,10 @@ enum fleet_format { FLEET_TEXT = 0, FLEET_JSON, FLEET_CSV };
 int report_pack_list(FILE *out, const struct pack_rec *p, size_t n, int json);
 int report_pack_show(FILE *out, const struct pack_view *v, int json);
 /* safe: NULL, or per pack the conservative and median safe times in s
- * (safe[2k], safe[2k + 1]; NAN when no prediction was possible). */
+ * (safe[2k], safe[2k + 1]; NAN when no prediction was possible) to the
+ * landing reserve reserve_pct. */
 int report_fleet(FILE *out, const struct pack_view *v, size_t n, enum fleet_format fmt,
-                 const double *safe);
+                 const double *safe, double reserve_pct);
 int report_trend(FILE *out, const struct pack_view *v, enum trend_by by, double horizon, int json);
 /* The flights of the listing, each with its pack's label (labels[k]):
  * id, date, file, duration, charge, R0, capacity, SoC, resting cell
