@@ -16,7 +16,9 @@ static const char usage[] =
     "R0 now (mOhm per cell, median of the last 5 flights) and against its baseline\n"
     "(median of its first 3), capacity as % of rated, resting cell spread, flights\n"
     "below the voltage floor, status (ok, watch, retire) and why.\n"
-    "  --sort KEY             status (default: retire first), pack, cycles, r0, capacity, last\n"
+    "  --sort KEY             status (default: retire first), pack, cycles, r0 (resistance\n"
+    "                         per cell, highest first), r0-ratio (against the baseline),\n"
+    "                         capacity (lowest first), imbalance, last\n"
     "  --status S             only packs with status ok, watch, retire or retired\n"
     "  --all                  include retired packs\n"
     "  --predict [--power W]  add the conservative safe flight time (minutes) to the\n"
@@ -67,7 +69,11 @@ static int compare_views(const void *pa, const void *pb)
     else if (strcmp(sort_key, "cycles") == 0)
         c = cmp_num(a->health.cycles, b->health.cycles, 1);
     else if (strcmp(sort_key, "r0") == 0)
+        c = cmp_num(a->health.r0_now_mohm_cell, b->health.r0_now_mohm_cell, 1);
+    else if (strcmp(sort_key, "r0-ratio") == 0)
         c = cmp_num(a->health.r0_ratio, b->health.r0_ratio, 1);
+    else if (strcmp(sort_key, "imbalance") == 0)
+        c = cmp_num(a->health.spread_mv, b->health.spread_mv, 1);
     else if (strcmp(sort_key, "capacity") == 0)
         c = cmp_num(a->health.capacity_pct, b->health.capacity_pct, 0);
     else if (strcmp(sort_key, "last") == 0)
@@ -102,10 +108,11 @@ enum pb_code cmd_fleet(int argc, char **argv, struct app *app, struct pb_error *
             break;
         case F_SORT:
             if (strcmp(optarg, "status") && strcmp(optarg, "pack") && strcmp(optarg, "cycles") &&
-                strcmp(optarg, "r0") && strcmp(optarg, "capacity") && strcmp(optarg, "last"))
+                strcmp(optarg, "r0") && strcmp(optarg, "r0-ratio") && strcmp(optarg, "capacity") &&
+                strcmp(optarg, "imbalance") && strcmp(optarg, "last"))
                 return pb_error_set(err, PB_EUSAGE,
-                                    "--sort: expected status, pack, cycles, r0, "
-                                    "capacity or last, got '%s'",
+                                    "--sort: expected status, pack, cycles, r0, r0-ratio, "
+                                    "capacity, imbalance or last, got '%s'",
                                     optarg);
             sort_key = optarg;
             break;

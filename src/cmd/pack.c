@@ -14,8 +14,8 @@
 static const char usage[] =
     "usage: packbook pack add ID --cells N --chemistry C --capacity MAH\n"
     "                         [--parallel P] [--since DATE] [--note TEXT] [READING]\n"
-    "       packbook pack list [--json]\n"
-    "       packbook pack show ID [--json]\n"
+    "       packbook pack list [--json|--csv]\n"
+    "       packbook pack show ID [--json|--csv]\n"
     "       packbook pack edit ID [--name NEW-ID] [--cells N] [--chemistry C]\n"
     "                         [--capacity MAH] [--parallel P] [--since DATE] [--note TEXT]\n"
     "                         [READING] [--clear-settings]\n"
@@ -51,7 +51,8 @@ enum {
     P_JSON,
     P_DB,
     P_NAME,
-    P_CLEAR
+    P_CLEAR,
+    P_CSV
 };
 
 static const struct option longopts[] = {
@@ -66,6 +67,7 @@ static const struct option longopts[] = {
     {"clear-settings", no_argument, NULL, P_CLEAR},
     LOGOPTS_LONG,
     {"json", no_argument, NULL, P_JSON},
+    {"csv", no_argument, NULL, P_CSV},
     {"db", required_argument, NULL, P_DB},
     {"help", no_argument, NULL, 'h'},
     {NULL, 0, NULL, 0},
@@ -99,6 +101,11 @@ static enum pb_code cmd_add(struct store *st, struct pack_cli *cli, struct pb_er
     return PB_OK;
 }
 
+static enum fleet_format format_of(const struct pack_cli *cli)
+{
+    return cli->json == 2 ? FLEET_CSV : cli->json ? FLEET_JSON : FLEET_TEXT;
+}
+
 static enum pb_code cmd_list(struct store *st, struct pack_cli *cli, struct pb_error *err)
 {
     struct pack_rec *p = NULL;
@@ -106,7 +113,7 @@ static enum pb_code cmd_list(struct store *st, struct pack_cli *cli, struct pb_e
     enum pb_code rc = store_pack_list(st, &p, &n, err);
     if (rc != PB_OK)
         return rc;
-    if (report_pack_list(stdout, p, n, cli->json) != 0)
+    if (report_pack_list(stdout, p, n, format_of(cli)) != 0)
         rc = pb_error_set(err, PB_EOUTPUT, "cannot write the output");
     store_packs_free(p);
     return rc;
@@ -122,7 +129,7 @@ static enum pb_code cmd_show(struct store *st, struct pack_cli *cli, struct pb_e
     config_rules(&rules);
     struct pack_view v;
     rc = packview_load(st, &p, &rules, TREND_WEEK, 0, 1000.0, &v, err);
-    if (rc == PB_OK && report_pack_show(stdout, &v, cli->json) != 0)
+    if (rc == PB_OK && report_pack_show(stdout, &v, format_of(cli)) != 0)
         rc = pb_error_set(err, PB_EOUTPUT, "cannot write the output");
     pack_view_release(&v);
     return rc;
@@ -302,6 +309,9 @@ enum pb_code cmd_pack(int argc, char **argv, struct app *app, struct pb_error *e
             break;
         case P_JSON:
             cli.json = 1;
+            break;
+        case P_CSV:
+            cli.json = 2; /* CSV: the flights' table */
             break;
         case P_DB:
             cli.db = v;

@@ -90,6 +90,7 @@ static void to_health(const struct flight_rec *f, size_t n, struct health_flight
         h[k].capacity_mah = f[k].capacity_mah;
         h[k].spread_rest_mv = f[k].cell_spread_rest_mv;
         h[k].below_floor = isfinite(f[k].time_below_floor_s) && f[k].time_below_floor_s > 0;
+        h[k].weakest_cell = f[k].weakest_cell;
     }
 }
 

@@ -105,6 +105,19 @@ void health_assess(const struct health_flight *f, size_t n, int cells, double ra
     h->r0_ratio = h->r0_now_mohm_cell / h->r0_base_mohm_cell;
     h->capacity_pct = 100.0 * median_end(f, n, get_cap, recent, 1) / rated_mah;
     h->spread_mv = median_end(f, n, get_spread, recent, 1);
+    /* the weakest cell: the one named most often by the last flights that name one (a tie
+     * goes to the one named most recently) */
+    int seen[64] = {0};
+    for (size_t k = n; k-- > 0 && h->weakest_of < recent;) {
+        int c = f[k].weakest_cell;
+        if (c < 1 || c > 63)
+            continue;
+        h->weakest_of++;
+        if (++seen[c] > (int)h->weakest_count) {
+            h->weakest_count = (size_t)seen[c];
+            h->weakest_cell = c;
+        }
+    }
     if (n == 0) {
         snprintf(h->reason, sizeof h->reason, "no flights yet");
         return;

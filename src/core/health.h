@@ -15,6 +15,7 @@ struct health_flight {
     double capacity_mah;   /* NAN when unknown */
     double spread_rest_mv; /* NAN when unknown */
     int below_floor;       /* the loaded voltage crossed the per-cell floor */
+    int weakest_cell;      /* 1-based cell lowest under load, 0 when the log had no cells */
 };
 
 /* Thresholds. Defaults (health_rules_default): capacity at or below 80 %
@@ -43,6 +44,9 @@ struct pack_health {
     double capacity_pct;      /* median of the recent estimates, % of rated */
     double spread_mv;         /* median of the recent resting spreads */
     int overdischarges;       /* flights below the floor */
+    int weakest_cell;     /* the cell most often weakest in the recent flights naming one, 0 none */
+    size_t weakest_count; /* in how many of them it was */
+    size_t weakest_of;    /* how many recent flights named a weakest cell */
     enum health_status status;
     char reason[320]; /* which rules fired, with the numbers */
 };

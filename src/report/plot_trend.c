@@ -200,8 +200,8 @@ enum pb_code plot_trend(const char *path, const struct plot_opts *o, const struc
         pa[j].x = xa;
     }
 
-    /* slopes per 100 cycles (30 days), or per 10 (7) for a short history */
-    double per = by_date ? (x_now < 60 ? 7 : 30) : (x_now < 50 ? 10 : 100);
+    /* slopes per 10 cycles, the one unit of every view (per 7 or 30 days by date) */
+    double per = by_date ? (x_now < 60 ? 7 : 30) : 10;
     const struct chem_info *chem = ocv_chem_by_name(pk->chemistry);
     /* title block: the pack, then what each line says */
     char line[512], ln[2][320];

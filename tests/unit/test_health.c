@@ -135,6 +135,35 @@ static void test_rules(void **state)
     assert_int_equal(h.status, HEALTH_WATCH);
 }
 
+static void test_weakest_cell(void **state)
+{
+    (void)state;
+    /* the cell named most often by the last recent_flights (5) flights that name one; a tie
+     * goes to the most recent; flights without cell columns (0) are passed over */
+    struct health_rules r;
+    health_rules_default(&r);
+    struct health_flight f[8];
+    static const int weak[8] = {1, 1, 1, 2, 0, 3, 2, 3};
+    for (int k = 0; k < 8; k++)
+        f[k] = (struct health_flight){.epoch_s = 1e9 + k * 86400.0,
+                                      .charge_mah = 1000,
+                                      .r0_mohm = 16,
+                                      .capacity_mah = NAN,
+                                      .spread_rest_mv = NAN,
+                                      .weakest_cell = weak[k]};
+    struct pack_health h;
+    health_assess(f, 8, 4, 5000, &r, &h);
+    /* last five naming one: 3, 2, 3, 2, 1 -> 3 and 2 twice each, 3 the most recent */
+    assert_int_equal(h.weakest_cell, 3);
+    assert_int_equal(h.weakest_count, 2);
+    assert_int_equal(h.weakest_of, 5);
+    for (int k = 0; k < 8; k++)
+        f[k].weakest_cell = 0;
+    health_assess(f, 8, 4, 5000, &r, &h);
+    assert_int_equal(h.weakest_cell, 0);
+    assert_int_equal(h.weakest_of, 0);
+}
+
 static void test_trend_buckets_iso_weeks(void **state)
 {
     (void)state;
@@ -193,6 +222,7 @@ int main(void)
         cmocka_unit_test(test_band_textbook),
         cmocka_unit_test(test_crossing_directions),
         cmocka_unit_test(test_rules),
+        cmocka_unit_test(test_weakest_cell),
         cmocka_unit_test(test_trend_buckets_iso_weeks),
         cmocka_unit_test(test_trend_without_flights),
     };
