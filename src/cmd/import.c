@@ -6,6 +6,7 @@
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
+#include <strings.h>
 #include <sys/stat.h>
 #include <unistd.h>
 #include <xxhash.h>
@@ -19,7 +20,7 @@
 #include "packview.h"
 
 static const char usage_head[] =
-    "usage: packbook import --pack ID [options] LOG|DIR|- ...\n"
+    "usage: packbook import --pack ID [-r] [options] LOG|DIR|- ...\n"
     "\n"
     "Analyses each log with the pack's cells, chemistry and capacity and stores\n"
     "the flight. A log already imported is recognised and skipped: the same bytes,\n"
@@ -37,12 +38,16 @@ static const char usage_head[] =
     "  --pack ID              the pack that flew (see 'packbook pack list')\n"
     "  --date DATE            date for logs without absolute time (ISO 8601)\n"
     "  --force                store logs that contradict the pack all the same\n"
+    "  -r, --recursive        also the logs in sub-folders of a DIR\n"
+    "A DIR's files that are not logs (another name than .csv, .tsv, .txt, .log,\n"
+    ".dat or none, or binary) are skipped with a note, not counted as failures.\n"
     "  --db PATH              history database (default: $PACKBOOK_DB, else the\n"
     "                         settings file's db, else $XDG_DATA_HOME/packbook/packbook.db;\n"
     "                         see 'packbook config')\n"
     "  --quiet                no line per log, only the summary\n";
 
 enum { I_PACK = 256, I_DATE, I_DB, I_QUIET, I_FORCE };
+#define I_RECURSIVE 'r'
 
 static const struct option longopts[] = {
     {"pack", required_argument, NULL, I_PACK},
@@ -50,6 +55,7 @@ static const struct option longopts[] = {
     {"db", required_argument, NULL, I_DB},
     {"quiet", no_argument, NULL, I_QUIET},
     {"force", no_argument, NULL, I_FORCE},
+    {"recursive", no_argument, NULL, I_RECURSIVE},
     {"help", no_argument, NULL, 'h'},
     LOGOPTS_LONG,
     {NULL, 0, NULL, 0},
@@ -59,7 +65,7 @@ struct import_cli {
     struct log_cli log;
     struct packopts_seen seen;
     const char *pack, *db;
-    int have_date, quiet, force;
+    int have_date, quiet, force, recursive;
     double date_epoch_s;
 };
 
@@ -87,35 +93,102 @@ static int by_name(const void *a, const void *b)
     return strcmp(*(char *const *)a, *(char *const *)b);
 }
 
-/* A directory's regular files (not hidden), sorted by name; a file or "-" as is. */
-static enum pb_code expand(const char *arg, struct path_list *out, struct pb_error *err)
+/* Whether a file found in a folder is worth reading as a log: a log's name
+ * (.csv, .tsv, .txt, .log, .dat, or none) and no NUL byte in its first
+ * 4 KiB. why says what it is otherwise. Named files are always read. */
+static int looks_like_log(const char *path, char *why, size_t cap)
+{
+    static const char *const exts[] = {"csv", "tsv", "txt", "log", "dat"};
+    const char *base = strrchr(path, '/') ? strrchr(path, '/') + 1 : path;
+    const char *dot = strrchr(base, '.');
+    if (dot) {
+        int known = 0;
+        for (size_t k = 0; k < sizeof exts / sizeof *exts; k++)
+            known |= strcasecmp(dot + 1, exts[k]) == 0;
+        if (!known) {
+            snprintf(why, cap, "its name ends in '%s', not .csv, .tsv, .txt, .log or .dat", dot);
+            return 0;
+        }
+    }
+    FILE *f = fopen(path, "rb");
+    if (!f)
+        return 1; /* reading it will say why it cannot be read */
+    char buf[4096];
+    size_t n = fread(buf, 1, sizeof buf, f);
+    fclose(f);
+    if (memchr(buf, '\0', n)) {
+        snprintf(why, cap, "it holds binary data");
+        return 0;
+    }
+    return 1;
+}
+
+struct expand_ctx {
+    int recursive;
+    size_t skipped; /* files that are not logs, and sub-folders without -r */
+};
+
+/* A directory's files (not hidden) that look like logs, sorted by name, and
+ * with recursive those of its sub-folders after them; a file or "-" as is. */
+static enum pb_code expand(const char *arg, int depth, struct expand_ctx *x, struct path_list *out,
+                           struct pb_error *err)
 {
     struct stat sb;
     if (strcmp(arg, "-") == 0 || stat(arg, &sb) != 0 || !S_ISDIR(sb.st_mode))
         return push(out, arg) ? pb_error_set(err, PB_ENOMEM, "out of memory") : PB_OK;
+    if (depth > 32)
+        return pb_error_set(err, PB_EINPUT, "'%s': folders nested over 32 deep", arg);
     DIR *d = opendir(arg);
     if (!d)
         return pb_error_set(err, PB_EINPUT, "cannot read folder '%s': %m", arg);
-    size_t first = out->n;
+    struct path_list files = {0}, dirs = {0};
+    enum pb_code rc = PB_OK;
     struct dirent *e;
-    while ((e = readdir(d)) != NULL) {
+    while (rc == PB_OK && (e = readdir(d)) != NULL) {
         if (e->d_name[0] == '.')
             continue;
         char *p = NULL;
         if (asprintf(&p, "%s/%s", arg, e->d_name) < 0) {
-            closedir(d);
-            return pb_error_set(err, PB_ENOMEM, "out of memory");
+            rc = pb_error_set(err, PB_ENOMEM, "out of memory");
+            break;
         }
-        if (stat(p, &sb) == 0 && S_ISREG(sb.st_mode) && push(out, p) != 0) {
-            free(p);
-            closedir(d);
-            return pb_error_set(err, PB_ENOMEM, "out of memory");
+        if (stat(p, &sb) == 0 && S_ISDIR(sb.st_mode)) {
+            if (push(&dirs, p) != 0)
+                rc = pb_error_set(err, PB_ENOMEM, "out of memory");
+        } else if (stat(p, &sb) == 0 && S_ISREG(sb.st_mode)) {
+            if (push(&files, p) != 0)
+                rc = pb_error_set(err, PB_ENOMEM, "out of memory");
         }
         free(p);
     }
     closedir(d);
-    qsort(out->v + first, out->n - first, sizeof *out->v, by_name);
-    return PB_OK;
+    qsort(files.v, files.n, sizeof *files.v, by_name);
+    qsort(dirs.v, dirs.n, sizeof *dirs.v, by_name);
+    for (size_t k = 0; rc == PB_OK && k < files.n; k++) {
+        char why[160];
+        if (!looks_like_log(files.v[k], why, sizeof why)) {
+            x->skipped++;
+            fprintf(stderr, "packbook: note: skipped %s: not a log (%s)\n", files.v[k], why);
+        } else if (push(out, files.v[k]) != 0) {
+            rc = pb_error_set(err, PB_ENOMEM, "out of memory");
+        }
+    }
+    for (size_t k = 0; rc == PB_OK && k < dirs.n; k++) {
+        if (x->recursive) {
+            rc = expand(dirs.v[k], depth + 1, x, out, err);
+        } else {
+            x->skipped++;
+            fprintf(stderr, "packbook: note: skipped folder %s (give -r to import sub-folders)\n",
+                    dirs.v[k]);
+        }
+    }
+    for (size_t k = 0; k < files.n; k++)
+        free(files.v[k]);
+    for (size_t k = 0; k < dirs.n; k++)
+        free(dirs.v[k]);
+    free(files.v);
+    free(dirs.v);
+    return rc;
 }
 
 static void hash_block(void *ctx, const char *buf, size_t len)
@@ -342,7 +415,7 @@ enum pb_code cmd_import(int argc, char **argv, struct app *app, struct pb_error 
     logopts_init(&cli.log);
     optind = 1;
     opterr = 0;
-    while ((c = getopt_long(argc, argv, "h", longopts, NULL)) != -1) {
+    while ((c = getopt_long(argc, argv, "hr", longopts, NULL)) != -1) {
         int taken = logopts_take(c, optarg, &cli.log, err);
         if (taken < 0 || (taken && packopts_note(&cli.seen, c, optarg, err) < 0))
             return PB_EUSAGE;
@@ -360,6 +433,9 @@ enum pb_code cmd_import(int argc, char **argv, struct app *app, struct pb_error 
             break;
         case I_FORCE:
             cli.force = 1;
+            break;
+        case I_RECURSIVE:
+            cli.recursive = 1;
             break;
         case I_DATE:
             if (isotime_parse(optarg, strlen(optarg), &cli.date_epoch_s, NULL) != 0)
@@ -404,8 +480,9 @@ enum pb_code cmd_import(int argc, char **argv, struct app *app, struct pb_error 
     rc = packopts_apply(settings_owner.settings, &cli.seen, &cli.log, err);
     if (rc != PB_OK)
         goto cleanup;
+    struct expand_ctx ex = {cli.recursive, 0};
     for (int k = optind; k < argc; k++)
-        if ((rc = expand(argv[k], &paths, err)) != PB_OK)
+        if ((rc = expand(argv[k], 0, &ex, &paths, err)) != PB_OK)
             goto cleanup;
     size_t stored = 0, dups = 0, failed = 0;
     int bar = isatty(STDERR_FILENO) && paths.n > 1;
@@ -441,8 +518,12 @@ enum pb_code cmd_import(int argc, char **argv, struct app *app, struct pb_error 
         if (bar)
             progress(k + 1, paths.n);
     }
-    printf("%zu imported, %zu already there, %zu failed (pack %s)\n", stored, dups, failed,
-           pack.label);
+    if (ex.skipped)
+        printf("%zu imported, %zu already there, %zu failed, %zu skipped as not logs (pack %s)\n",
+               stored, dups, failed, ex.skipped, pack.label);
+    else
+        printf("%zu imported, %zu already there, %zu failed (pack %s)\n", stored, dups, failed,
+               pack.label);
     if (stored > 0) {
         rc = packview_summary(st, &pack, &after, err);
         if (rc != PB_OK)

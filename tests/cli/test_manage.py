@@ -19,6 +19,7 @@ import csv
 import io
 import json
 import os
+import shutil
 import sqlite3
 import statistics
 import subprocess
@@ -311,6 +312,38 @@ class ImportChecks(unittest.TestCase):
         self.assertIn("(date from mtime)", out)
         self.assertIn("modification time", err)
         self.assertIn("--date", err)
+
+    def test_folders(self):
+        # a folder as the ground station leaves it: logs, a sub-folder, a figure, notes and a
+        # binary file named like a log
+        db = self.fresh("folder")
+        top = pbtest.temp_dir("pbmanage-folder-")
+        sub = os.path.join(top, "day2")
+        os.makedirs(sub)
+        shutil.copy(LOGS[0], os.path.join(top, "a.csv"))
+        shutil.copy(LOGS[1], os.path.join(sub, "b.CSV"))
+        with open(os.path.join(top, "photo.png"), "wb") as f:
+            f.write(b"\x89PNG\r\n\x1a\n\0\0")
+        with open(os.path.join(top, "notes.md"), "w") as f:
+            f.write("windy\n")
+        with open(os.path.join(top, "dump.csv"), "wb") as f:
+            f.write(b"time_s,voltage_v\n\0\0\0")
+        rc, out, err = pb(db, "import", "--pack", "TR-31", top)
+        self.assertEqual(rc, EXIT_OK, err)
+        self.assertIn("1 imported, 0 already there, 0 failed, 4 skipped as not logs", out)
+        self.assertIn("skipped " + os.path.join(top, "photo.png") + ": not a log", err)
+        self.assertIn("skipped " + os.path.join(top, "dump.csv") + ": not a log (it holds binary",
+                      err)
+        self.assertIn("give -r", err)
+        rc, out, err = pb(db, "import", "--pack", "TR-31", "-r", top)
+        self.assertEqual(rc, EXIT_OK, err)
+        self.assertIn("1 imported, 1 already there, 0 failed, 3 skipped as not logs", out)
+        self.assertIn("b.CSV", out)
+        self.assertEqual(query(db, "SELECT count(*) FROM flights"), [(2,)])
+        # a file named on the command line is always read: a binary one fails as a log
+        rc, out, err = pb(db, "import", "--pack", "TR-31", os.path.join(top, "notes.md"))
+        self.assertEqual(rc, EXIT_SOME_FAILED)
+        self.assertIn("1 failed", out)
 
     def test_status_change_is_printed(self):
         # a flight under the cut-off: watch at 1 over-discharge (man packbook, Retirement
