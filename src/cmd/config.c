@@ -24,7 +24,7 @@ static struct entry entries[] = {
     {"db", 0, "history database path", "", ""},
     {"retire-capacity", RO_CAP, "retire at capacity <= PCT % of rated", "", ""},
     {"retire-r0-ratio", RO_R0, "retire at R0 >= X times its baseline", "", ""},
-    {"retire-spread", RO_SPREAD, "retire at resting cell imbalance >= MV", "", ""},
+    {"retire-imbalance", RO_SPREAD, "retire at resting cell imbalance >= MV", "", ""},
     {"retire-overdischarge", RO_OVER, "retire after N flights under the cut-off", "", ""},
     {"reserve", 0, "landing reserve SoC % for predict", "", ""},
 };
@@ -103,13 +103,15 @@ enum pb_code config_load(struct pb_error *err)
         *eq = '\0';
         char *key = trim(s), *val = trim(eq + 1);
         struct entry *e = NULL;
+        if (strcmp(key, "retire-spread") == 0) /* the old name, kept */
+            key = "retire-imbalance";
         for (size_t k = 0; k < NENTRIES; k++)
             if (strcmp(entries[k].key, key) == 0)
                 e = &entries[k];
         if (!e) {
             rc = pb_error_set(err, PB_EUSAGE,
                               "%s:%d: unknown key '%s' (db, retire-capacity, retire-r0-ratio, "
-                              "retire-spread, retire-overdischarge, reserve)",
+                              "retire-imbalance, retire-overdischarge, reserve)",
                               config_path, no, key);
             break;
         }
@@ -165,7 +167,8 @@ static const char usage[] =
     "the environment ($PACKBOOK_DB), the settings file or the built-in default.\n"
     "The settings file is $PACKBOOK_CONFIG, else $XDG_CONFIG_HOME/packbook/config,\n"
     "else ~/.config/packbook/config: one 'key = value' per line, '#' comments.\n"
-    "Keys: db, retire-capacity, retire-r0-ratio, retire-spread,\n"
+    "Keys: db, retire-capacity, retire-r0-ratio, retire-imbalance (or its old name\n"
+    "retire-spread),\n"
     "retire-overdischarge (the fleet, trend, compare, plot options of those names)\n"
     "and reserve (predict's --reserve). Options on a command override the file.\n";
 

@@ -4,7 +4,8 @@
 #include <string.h>
 
 const char logopts_usage[] =
-    "  --floor V              loaded per-cell voltage floor (default: per chemistry)\n"
+    "  --cut-off V            cut-off voltage per cell under load (default: per\n"
+    "                         chemistry; --floor is the old name)\n"
     "reading the log:\n"
     "  --columns LIST         column layout for a log without a header, e.g.\n"
     "                         time_s,voltage_v,current_a ('-' skips a column)\n"
@@ -56,7 +57,7 @@ int logopts_take(int c, const char *v, struct log_cli *cli, struct pb_error *err
     int bad = 0;
     switch (c) {
     case LO_FLOOR:
-        bad = cmd_parse_double("--floor", v, 0.5, 5.0, &cli->an.floor_v, err);
+        bad = cmd_parse_double("--cut-off", v, 0.5, 5.0, &cli->an.floor_v, err);
         break;
     case LO_COLUMNS:
         cli->read.columns = v;

@@ -33,7 +33,8 @@ enum {
 
 /* Entries for a command's getopt_long table. */
 #define LOGOPTS_LONG                                                                               \
-    {"floor", required_argument, NULL, LO_FLOOR},                                                  \
+    {"cut-off", required_argument, NULL, LO_FLOOR},                                                \
+        {"floor", required_argument, NULL, LO_FLOOR}, /* the old name, kept */                     \
         {"columns", required_argument, NULL, LO_COLUMNS},                                          \
         {"map", required_argument, NULL, LO_MAP},                                                  \
         {"delimiter", required_argument, NULL, LO_DELIM},                                          \

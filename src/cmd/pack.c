@@ -31,7 +31,7 @@ static const char usage[] =
     "and --note '' clear the field.\n"
     "\n"
     "READING: the options of 'packbook analyze' that say how to read and analyse\n"
-    "this pack's logs (--floor, --map, --columns, --current-sign, --adc-scale or\n"
+    "this pack's logs (--cut-off, --map, --columns, --current-sign, --adc-scale or\n"
     "the sense chain, --gap, --rest-current, ...). The pack remembers them and\n"
     "every command given --pack ID uses them; options given there override them\n"
     "(any ADC or sense-chain option replaces the whole remembered chain). edit\n"

@@ -10,9 +10,12 @@
 const char ruleopts_usage[] =
     "retirement rules (retire level; watch levels are 85 %, 1.5x, 30 mV and 1):\n"
     "  --retire-capacity PCT  capacity at or below PCT % of rated (default 80)\n"
-    "  --retire-r0-ratio X    R0 at or above X times its baseline (default 2)\n"
-    "  --retire-spread MV     resting cell spread at or above MV (default 60)\n"
-    "  --retire-overdischarge N  N flights below the voltage floor (default 3)\n";
+    "  --retire-r0-ratio X    internal resistance (R0) at or above X times its\n"
+    "                         baseline (default 2)\n"
+    "  --retire-imbalance MV  resting cell imbalance at or above MV (default 60;\n"
+    "                         --retire-spread is the old name)\n"
+    "  --retire-overdischarge N  N over-discharges: flights under the cut-off\n"
+    "                         voltage (default 3)\n";
 
 int trendopts_by(const char *arg, enum trend_by *by, struct pb_error *err)
 {
@@ -52,7 +55,7 @@ int ruleopts_take(int c, const char *v, struct health_rules *r, struct pb_error 
         r->watch_r0_ratio = 1.0 + 0.5 * (r->retire_r0_ratio - 1.0);
         break;
     case RO_SPREAD:
-        bad = cmd_parse_double("--retire-spread", v, 1, 5000, &r->retire_spread_mv, err);
+        bad = cmd_parse_double("--retire-imbalance", v, 1, 5000, &r->retire_spread_mv, err);
         r->watch_spread_mv = 0.5 * r->retire_spread_mv;
         break;
     case RO_OVER:
@@ -203,7 +206,7 @@ void packview_print_change(FILE *out, const struct pack_summary *b, const struct
             snprintf(x, sizeof x, "%.2f", b->r0_base_mohm_cell);
         if (isfinite(a->r0_base_mohm_cell))
             snprintf(y, sizeof y, "%.2f", a->r0_base_mohm_cell);
-        fprintf(out, "  %s: baseline R0 %s -> %s mOhm/cell (median of the first flights)\n",
+        fprintf(out, "  %s: baseline IR (R0) %s -> %s mOhm/cell (median of the first flights)\n",
                 a->label, x, y);
     }
     if (strcmp(b->status, a->status) != 0)

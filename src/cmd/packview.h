@@ -14,6 +14,7 @@ struct rules_cli {
 enum { RO_CAP = 400, RO_R0, RO_SPREAD, RO_OVER };
 #define RULEOPTS_LONG                                                                              \
     {"retire-capacity", required_argument, NULL, RO_CAP},                                          \
+        {"retire-imbalance", required_argument, NULL, RO_SPREAD},                                  \
         {"retire-r0-ratio", required_argument, NULL, RO_R0},                                       \
         {"retire-spread", required_argument, NULL, RO_SPREAD},                                     \
     {                                                                                              \

@@ -22,7 +22,7 @@ static const char usage_head[] =
     "Draws a figure as PNG, SVG or PDF, chosen by the output's extension.\n"
     "  LOG      the flight: voltage with the sag-corrected OCV, current and power,\n"
     "           SoC counted and from the OCV, per-cell voltages (weakest marked);\n"
-    "           time below the floor tinted, missing data hatched. Takes the\n"
+    "           time under the cut-off tinted, missing data hatched. Takes the\n"
     "           analyze options below. (A log named 'trend' or 'fleet': ./trend.)\n"
     "  trend    a pack's R0 per cell and capacity % against equivalent cycles (or\n"
     "           --x date): flights, bucket means, fitted line with its 95 % band,\n"

@@ -21,7 +21,7 @@ static const char usage_head[] =
     "       packbook predict --log LOG [--cells N --chemistry C --capacity MAH] [options]\n"
     "\n"
     "Simulates the pack from a start state under a load until the first of: SoC\n"
-    "down to the landing reserve, loaded voltage down to the floor, or a power the\n"
+    "down to the landing reserve, loaded voltage down to the cut-off, or a power the\n"
     "pack cannot deliver (voltage collapse). Capacity, R0 and the load are drawn\n"
     "from their uncertainty (Monte Carlo, fixed seed); the conservative figure is\n"
     "the 5th percentile of the safe time. For a retired pack, or one flagged\n"
@@ -36,8 +36,8 @@ static const char usage_head[] =
     "                         the profiles are flown one after the other)\n"
     "limits:\n"
     "  --reserve PCT          landing reserve SoC (default 30, common practice)\n"
-    "  --floor V              loaded per-cell floor (default: the pack's remembered\n"
-    "                         --floor, else per chemistry)\n"
+    "  --cut-off V            cut-off voltage per cell under load (default: the pack's\n"
+    "                         remembered one, else per chemistry; --floor: old name)\n"
     "model:\n"
     "  --temp C               pack temperature: R0 is scaled by the Arrhenius form\n"
     "  --tref C               temperature R0 was measured at (default 25)\n"
@@ -153,7 +153,11 @@ static enum pb_code inputs_from_history(const struct pack_view *v, struct predic
                             v->pack.label, v->pack.chemistry);
     in->cells = v->pack.cells;
     in->rated_mah = v->pack.capacity_mah;
-    snprintf(in->source, sizeof in->source, "the last %zu flights of pack %s", m, v->pack.label);
+    if (m == 1)
+        snprintf(in->source, sizeof in->source, "the one flight of pack %s", v->pack.label);
+    else
+        snprintf(in->source, sizeof in->source, "the last %zu flights of pack %s", m,
+                 v->pack.label);
     in->capacity_mah = median_sd(cap, m, &sd);
     double ci = median_sd(capci, m, &ci_sd);
     in->capacity_sd_mah = fmax(isfinite(sd) ? sd : 0.0, isfinite(ci) ? ci / 1.96 : 0.0);

@@ -131,23 +131,25 @@ void health_assess(const struct health_flight *f, size_t n, int cells, double ra
     /* a ratio means something only once "now" is more than the baseline */
     if (n > (size_t)r->baseline_flights && isfinite(h->r0_ratio)) {
         if (h->r0_ratio >= r->retire_r0_ratio)
-            add_reason(h, HEALTH_RETIRE, "R0 %.2f mOhm/cell is %.2fx its baseline %.2f (>= %.1fx)",
+            add_reason(h, HEALTH_RETIRE, "IR %.2f mOhm/cell is %.2fx its baseline %.2f (>= %.1fx)",
                        h->r0_now_mohm_cell, h->r0_ratio, h->r0_base_mohm_cell, r->retire_r0_ratio);
         else if (h->r0_ratio >= r->watch_r0_ratio)
-            add_reason(h, HEALTH_WATCH, "R0 %.2f mOhm/cell is %.2fx its baseline %.2f (>= %.1fx)",
+            add_reason(h, HEALTH_WATCH, "IR %.2f mOhm/cell is %.2fx its baseline %.2f (>= %.1fx)",
                        h->r0_now_mohm_cell, h->r0_ratio, h->r0_base_mohm_cell, r->watch_r0_ratio);
     }
     if (h->spread_mv >= r->retire_spread_mv)
-        add_reason(h, HEALTH_RETIRE, "cell spread at rest %.0f mV >= %.0f mV", h->spread_mv,
+        add_reason(h, HEALTH_RETIRE, "cell imbalance at rest %.0f mV >= %.0f mV", h->spread_mv,
                    r->retire_spread_mv);
     else if (h->spread_mv >= r->watch_spread_mv)
-        add_reason(h, HEALTH_WATCH, "cell spread at rest %.0f mV >= %.0f mV", h->spread_mv,
+        add_reason(h, HEALTH_WATCH, "cell imbalance at rest %.0f mV >= %.0f mV", h->spread_mv,
                    r->watch_spread_mv);
     if (h->overdischarges >= r->retire_overdischarge)
-        add_reason(h, HEALTH_RETIRE, "%d flights below the voltage floor (>= %d)",
+        add_reason(h, HEALTH_RETIRE,
+                   "%d over-discharges (flights under the cut-off voltage, >= %d)",
                    h->overdischarges, r->retire_overdischarge);
     else if (h->overdischarges >= r->watch_overdischarge)
-        add_reason(h, HEALTH_WATCH, "%d flight%s below the voltage floor", h->overdischarges,
+        add_reason(h, HEALTH_WATCH, "%d over-discharge%s (flight%s under the cut-off voltage)",
+                   h->overdischarges, h->overdischarges == 1 ? "" : "s",
                    h->overdischarges == 1 ? "" : "s");
     if (h->status == HEALTH_OK)
         snprintf(h->reason, sizeof h->reason, "within all limits");

@@ -174,15 +174,15 @@ static void title_block(struct plot *p, const struct series *s, const struct ana
     if (a->cells > 0 && isfinite(a->cell_min_loaded_v))
         snprintf(minv, sizeof minv, " \u00b7 lowest %.2f V/cell loaded", a->cell_min_loaded_v);
     if (a->weakest_cell > 0 && isfinite(a->spread_rest_mv))
-        snprintf(spread, sizeof spread, " \u00b7 cell spread %.0f mV at rest, weakest cell %d",
+        snprintf(spread, sizeof spread, " \u00b7 cell imbalance %.0f mV at rest, weakest cell %d",
                  a->spread_rest_mv, a->weakest_cell);
     if (a->cells <= 0)
         floor_txt[0] = '\0'; /* no floor without a cell count */
     else if (sp->floor_runs)
-        snprintf(floor_txt, sizeof floor_txt, " \u00b7 below floor %zu\u00d7, %.0f s",
+        snprintf(floor_txt, sizeof floor_txt, " \u00b7 under the cut-off %zu\u00d7, %.0f s",
                  sp->floor_runs, sp->floor_s);
     else
-        snprintf(floor_txt, sizeof floor_txt, " \u00b7 never below floor");
+        snprintf(floor_txt, sizeof floor_txt, " \u00b7 never under the cut-off");
     char gaps[64] = "";
     if (sp->gaps)
         snprintf(gaps, sizeof gaps, " \u00b7 %zu gap%s, %.0f s", sp->gaps, sp->gaps == 1 ? "" : "s",
@@ -275,7 +275,7 @@ enum pb_code plot_flight(const char *path, const struct plot_opts *o, const stru
      * squash the trace into a line, so the key says where it is */
     int floor_shown = isfinite(floor_pack) && floor_pack >= vlo - 0.35 * fmax(vhi - vlo, 0.5);
     if (isfinite(floor_pack))
-        snprintf(floor_key, sizeof floor_key, "floor %.2f V/cell%s", a->floor_v,
+        snprintf(floor_key, sizeof floor_key, "cut-off %.2f V/cell%s", a->floor_v,
                  floor_shown ? "" : " (below the axis)");
     struct plot_key keys[P_MAX][6];
     size_t nkeys[P_MAX] = {0};
@@ -290,7 +290,7 @@ enum pb_code plot_flight(const char *path, const struct plot_opts *o, const stru
             if (isfinite(floor_pack))
                 k[(*nk)++] = (struct plot_key){floor_key, st_floor, -1, 0, 0};
             if (sp.floor_runs)
-                k[(*nk)++] = (struct plot_key){"below floor", tint, -1, 0, 1};
+                k[(*nk)++] = (struct plot_key){"under cut-off", tint, -1, 0, 1};
             if (sp.gaps)
                 k[(*nk)++] = (struct plot_key){"no data", hatch, -1, 0, 2};
             break;

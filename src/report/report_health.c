@@ -201,10 +201,12 @@ int report_pack_show(FILE *out, const struct pack_view *v, enum fleet_format fmt
     }
     if (p->retired_at[0])
         fprintf(out, "  retired %s: %s\n", p->retired_at, p->retire_reason);
-    fprintf(out, "  %zu flights, %.1f equivalent cycles, last flown %s\n", h->flights,
-            isfinite(h->cycles) ? h->cycles : 0.0, day(h->last_epoch_s, b1, sizeof b1));
+    fprintf(out, "  %zu flight%s, %.1f equivalent cycles, last flown %s\n", h->flights,
+            h->flights == 1 ? "" : "s", isfinite(h->cycles) ? h->cycles : 0.0,
+            day(h->last_epoch_s, b1, sizeof b1));
     fprintf(out,
-            "  R0 %s mOhm/cell now, baseline %s (x%s); capacity %s %% of rated; spread %s mV\n",
+            "  IR (R0) %s mOhm/cell now, baseline %s (x%s); capacity %s %% of rated; cell "
+            "imbalance %s mV at rest\n",
             fmt_num(b1, sizeof b1, "%.2f", h->r0_now_mohm_cell),
             fmt_num(b2, sizeof b2, "%.2f", h->r0_base_mohm_cell),
             fmt_num(b3, sizeof b3, "%.2f", h->r0_ratio),
@@ -212,14 +214,14 @@ int report_pack_show(FILE *out, const struct pack_view *v, enum fleet_format fmt
             fmt_num((char[32]){0}, 32, "%.0f", h->spread_mv));
     if (h->weakest_cell)
         fprintf(out,
-                "  weakest cell: %d, the lowest under load in %zu of the last %zu flights "
+                "  weakest cell: %d, the lowest under load in %zu of the last %zu flight%s "
                 "with cell voltages\n",
-                h->weakest_cell, h->weakest_count, h->weakest_of);
+                h->weakest_cell, h->weakest_count, h->weakest_of, h->weakest_of == 1 ? "" : "s");
     fprintf(out, "  status: %s (%s)\n", status_of(v),
             p->retired_at[0] ? p->retire_reason : h->reason);
     if (v->nflights) {
         fprintf(out, "\n  %6s  %-10s %8s %9s %9s %10s %11s %5s %6s\n", "id", "date", "min", "mAh",
-                "R0 mOhm", "cap mAh", "SoC %", "weak", "warn");
+                "IR mOhm", "cap mAh", "SoC %", "weak", "warn");
         for (size_t k = 0; k < v->nflights; k++) {
             const struct flight_rec *f = &v->flights[k];
             char soc[24];
@@ -288,7 +290,7 @@ int report_flight_list(FILE *out, const struct flight_rec *f, const char *const 
         return ferror(out) ? -1 : 0;
     }
     fprintf(out, "%6s  %-12s %-10s %-6s %7s %7s %8s %8s %9s %5s %6s  %s\n", "id", "pack", "date",
-            "from", "min", "mAh", "R0 mOhm", "cap mAh", "SoC %", "weak", "warn", "file");
+            "from", "min", "mAh", "IR mOhm", "cap mAh", "SoC %", "weak", "warn", "file");
     for (size_t k = 0; k < n; k++) {
         char soc[24];
         if (isfinite(f[k].soc_start_pct) && isfinite(f[k].soc_end_pct))
@@ -379,11 +381,12 @@ int report_fleet(FILE *out, const struct pack_view *v, size_t n, enum fleet_form
         }
         return ferror(out) ? -1 : 0;
     }
-    fprintf(out, "%-14s %7s %7s %-10s %9s %7s %6s %7s %-9s %5s%s  %-7s %s\n", "pack", "flights",
-            "cycles", "last", "R0 mOhm", "R0 vs", "cap %", "spread", "weakest", "over",
+    fprintf(out, "%-14s %7s %7s %-10s %9s %7s %6s %9s %-9s %10s%s  %-7s %s\n", "pack", "flights",
+            "cycles", "last", "IR mOhm", "IR vs", "cap %", "cell imb.", "weakest", "over-",
             safe ? "  safe min" : "", "status", "why");
-    fprintf(out, "%-14s %7s %7s %-10s %9s %7s %6s %7s %-9s %5s%s  %-7s\n", "", "", "", "flown",
-            "per cell", "base", "rated", "mV", "cell", "disch", safe ? "  (5th pct)" : "", "");
+    fprintf(out, "%-14s %7s %7s %-10s %9s %7s %6s %9s %-9s %10s%s  %-7s\n", "", "", "", "flown",
+            "per cell", "base", "rated", "mV rest", "cell", "discharges", safe ? "  (5th pct)" : "",
+            "");
     for (size_t k = 0; k < n; k++) {
         const struct pack_health *h = &v[k].health;
         char b[7][32];
@@ -391,7 +394,7 @@ int report_fleet(FILE *out, const struct pack_view *v, size_t n, enum fleet_form
         if (safe)
             snprintf(sm, sizeof sm, "  %9s", fmt_num(b[6], 32, "%.1f", safe[2 * k] / 60.0));
         char wk[32];
-        fprintf(out, "%-14s %7zu %7s %-10s %9s %7s %6s %7s %-9s %5d%s  %-7s %s\n", v[k].pack.label,
+        fprintf(out, "%-14s %7zu %7s %-10s %9s %7s %6s %9s %-9s %10d%s  %-7s %s\n", v[k].pack.label,
                 h->flights, fmt_num(b[0], 32, "%.1f", h->cycles), day(h->last_epoch_s, b[1], 32),
                 fmt_num(b[2], 32, "%.2f", h->r0_now_mohm_cell),
                 fmt_num(b[3], 32, "x%.2f", h->r0_ratio), fmt_num(b[4], 32, "%.0f", h->capacity_pct),
@@ -584,11 +587,11 @@ int report_trend(FILE *out, const struct pack_view *v, size_t n, enum trend_by b
                 v[k].pack.label, bynames[by], v[k].nflights, v[k].nflights == 1 ? "" : "s",
                 isfinite(t->cycles_now) ? t->cycles_now : 0.0);
         fprintf(out, "  %-14s %7s %-10s %9s %9s %8s\n", by == TREND_CYCLE ? "cycles" : "period",
-                "flights", "from", "mAh", "R0 mOhm", "cap %");
+                "flights", "from", "mAh", "IR mOhm", "cap %");
         fprintf(out, "  %-14s %7s %-10s %9s %9s %8s\n", "", "", "", "", "per cell", "rated");
         each_period(out, &v[k], by, text_row, text_gap);
         fprintf(out, "\n");
-        text_projection(out, "R0", &t->r0, "mOhm/cell", horizon, t->cycles_now);
+        text_projection(out, "IR (R0)", &t->r0, "mOhm/cell", horizon, t->cycles_now);
         text_projection(out, "capacity", &t->capacity, "% of rated", horizon, t->cycles_now);
         fprintf(out, "\n  status: %s (%s)\n", status_of(&v[k]),
                 v[k].pack.retired_at[0] ? v[k].pack.retire_reason : v[k].health.reason);
@@ -686,16 +689,16 @@ static const struct compare_row compare_rows[] = {
     {"flights", "flights", cr_flights},
     {"equivalent cycles", "equivalent_cycles", cr_cycles},
     {"last flown", "last_flown", cr_last},
-    {"R0 mOhm/cell now", "r0_mohm_per_cell", cr_r0},
-    {"R0 vs baseline (x)", "r0_ratio", cr_ratio},
-    {"R0 mOhm/cell per 10 cyc", "r0_mohm_per_cell_per_10_cycles", cr_r0_slope},
+    {"IR (R0) mOhm/cell now", "r0_mohm_per_cell", cr_r0},
+    {"IR vs baseline (x)", "r0_ratio", cr_ratio},
+    {"IR mOhm/cell per 10 cyc", "r0_mohm_per_cell_per_10_cycles", cr_r0_slope},
     {"capacity % of rated", "capacity_pct", cr_cap},
     {"capacity % per 10 cyc", "capacity_pct_per_10_cycles", cr_cap_slope},
-    {"cell spread mV", "cell_spread_mv", cr_spread},
+    {"cell imbalance mV rest", "cell_spread_mv", cr_spread},
     {"weakest cell (of last)", "weakest_cell", cr_weakest},
-    {"flights below floor", "overdischarges", cr_over},
+    {"over-discharges", "overdischarges", cr_over},
     {"capacity limit at cycle", "capacity_limit_cycle", cr_cap_limit},
-    {"R0 limit at cycle", "r0_limit_cycle", cr_r0_limit},
+    {"IR limit at cycle", "r0_limit_cycle", cr_r0_limit},
     {"status", "status", cr_status},
 };
 #define NCOMPARE (sizeof compare_rows / sizeof *compare_rows)

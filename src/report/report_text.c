@@ -79,16 +79,18 @@ int report_analysis_text(FILE *out, const struct analysis *a, const struct repor
         fprintf(out, " (%.3f V/cell)", a->cell_min_loaded_v);
     fprintf(out, ", %.3f V at end\n", a->voltage_end_v);
     if (a->cells > 0) {
-        key(out, "below floor");
-        fprintf(out, "%.1f s under %.2f V/cell\n", a->time_below_floor_s, a->floor_v);
+        key(out, "cut-off");
+        fprintf(out, "%.1f s under the cut-off voltage %.2f V/cell\n", a->time_below_floor_s,
+                a->floor_v);
     }
     if (a->has_current) {
-        key(out, "resistance");
+        key(out, "IR");
         est(out, a->r0_mohm, "%.2f", "mOhm");
         if (isfinite(a->r0_mohm.value)) {
             if (a->cells > 0)
                 fprintf(out, " (%.2f mOhm/cell)", a->r0_mohm.value / a->cells);
-            fprintf(out, ", %s model", strcmp(a->r0_method, "rc") == 0 ? "R0 + RC" : "R0-only");
+            fprintf(out, ", internal resistance: R0 of the %s model",
+                    strcmp(a->r0_method, "rc") == 0 ? "R0 + RC" : "R0-only");
         }
         fprintf(out, "\n");
         if (isfinite(a->tau_s.value)) {
@@ -119,7 +121,7 @@ int report_analysis_text(FILE *out, const struct analysis *a, const struct repor
         fprintf(out, "%.1f to %.1f degC\n", a->temp_min_c, a->temp_max_c);
     }
     if (a->ncells_detail > 0) {
-        key(out, "cell spread");
+        key(out, "cell imbalance");
         if (isfinite(a->spread_rest_mv))
             fprintf(out, "%.0f mV at rest", a->spread_rest_mv);
         else
@@ -159,7 +161,7 @@ int report_chemistry_text(FILE *out)
     for (int k = 0; k < CHEM_COUNT; k++) {
         const struct chem_info *c = ocv_chem((enum chemistry)k);
         fprintf(out, "%s (%s)\n  source: %s\n", c->name, c->label, c->source);
-        fprintf(out, "  floor %.2f V/cell loaded; full at rest >= %.2f V, empty <= %.2f V\n",
+        fprintf(out, "  cut-off %.2f V/cell under load; full at rest >= %.2f V, empty <= %.2f V\n",
                 c->floor_v, c->full_rest_v, c->empty_rest_v);
         fprintf(out, "  SoC %%  :");
         for (size_t j = 0; j < c->npoints; j++)

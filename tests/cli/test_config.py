@@ -69,7 +69,7 @@ class Config(unittest.TestCase):
         # defaults: man packbook (Retirement rules) and predict --help (30 %, common practice)
         self.assertEqual(s["retire-capacity"], ("80", "default"))
         self.assertEqual(s["retire-r0-ratio"], ("2", "default"))
-        self.assertEqual(s["retire-spread"], ("60", "default"))
+        self.assertEqual(s["retire-imbalance"], ("60", "default"))
         self.assertEqual(s["retire-overdischarge"], ("3", "default"))
         self.assertEqual(s["reserve"], ("30", "default"))
         self.assertEqual(s["db"], (os.path.join(home, "data", "packbook", "packbook.db"),
@@ -135,6 +135,17 @@ class Config(unittest.TestCase):
         rc, out, err = go(home, "predict", "TC-03", "--json", "--runs", 20, "--db", db,
                           "--reserve", 30)
         self.assertEqual(json.loads(out)["inputs"]["reserve_pct"], 30)
+
+    def test_old_names_are_aliases(self):
+        # the trade's word is cell imbalance; the old key and option still work
+        home = pbtest.temp_dir("pbconfig-alias-")
+        path = write_config(home, "retire-spread = 45\n")
+        rc, out, err = go(home, "config", "--json")
+        self.assertEqual(rc, EXIT_OK, err)
+        self.assertEqual(shown(out)["retire-imbalance"], ("45", f"{path}:1"))
+        for opt in ("--retire-spread", "--retire-imbalance"):
+            rc, out, err = go(home, "config", "--json", opt, 50)
+            self.assertEqual(shown(out)["retire-imbalance"], ("50", "option"), opt)
 
     def test_malformed_file(self):
         home = pbtest.temp_dir("pbconfig-bad-")

@@ -150,7 +150,7 @@ class RemoveAndMove(unittest.TestCase):
         n1, c1, b1 = self.check_pack(db, "TR-21", out)
         self.assertEqual(n1, n0 - 1)
         self.assertGreater(b1, b0, "the lowest-R0 flight went: the baseline rises")
-        self.assertIn(f"baseline R0 {b0:.2f} -> {b1:.2f} mOhm/cell", out)
+        self.assertIn(f"baseline IR (R0) {b0:.2f} -> {b1:.2f} mOhm/cell", out)
         self.assertEqual(query(db, "SELECT count(*) FROM flight_cells WHERE flight_id = ?",
                                first[0]), [(0,)])
         self.assertEqual(query(db, "PRAGMA foreign_key_check"), [])
@@ -401,15 +401,15 @@ class RememberedSettings(unittest.TestCase):
         db = self.fresh("shown")
         self.assertEqual(query(db, "SELECT read_settings FROM packs"),
                          [("adc-bits=10\nadc-vref=3.3\nsense-ratio=14000\nsense-ohm=510\n"
-                           "floor=3.4\n",)])
+                           "cut-off=3.4\n",)], "--floor is remembered under its new name")
         rc, out, err = pb(db, "pack", "show", "TM-03", "--json")
         self.assertEqual(json.loads(out)["reading_settings"],
                          {"adc-bits": "10", "adc-vref": "3.3", "sense-ratio": "14000",
-                          "sense-ohm": "510", "floor": "3.4"})
-        rc, out, err = pb(db, "pack", "edit", "TM-03", "--floor", "3.3", "--gap", "2")
+                          "sense-ohm": "510", "cut-off": "3.4"})
+        rc, out, err = pb(db, "pack", "edit", "TM-03", "--cut-off", "3.3", "--gap", "2")
         self.assertEqual(rc, EXIT_OK, err)
-        self.assertIn("--floor 3.4 -> --adc-bits 10", out)
-        self.assertIn("--floor 3.3 --gap 2", out)
+        self.assertIn("--cut-off 3.4 -> --adc-bits 10", out)
+        self.assertIn("--cut-off 3.3 --gap 2", out)
         # an incomplete chain is refused when remembered, not when first used
         rc, out, err = pb(db, "pack", "edit", "TM-03", "--clear-settings", "--sense-ohm", "510")
         self.assertEqual(rc, EXIT_USAGE)
@@ -430,7 +430,7 @@ class RememberedSettings(unittest.TestCase):
             self.assertEqual(got[key], want[key], key)
         self.assertEqual(got["floor_v_per_cell"], 3.4)
         # an option given overrides the remembered one
-        over = pbtest.analyze_json(ADC_LOG, "--pack", "TM-03", "--db", db, "--floor", "3.5")
+        over = pbtest.analyze_json(ADC_LOG, "--pack", "TM-03", "--db", db, "--cut-off", "3.5")
         self.assertEqual(over["floor_v_per_cell"], 3.5)
         self.assertEqual(over["charge_used_mah"], want["charge_used_mah"])
         # --adc-scale replaces the whole remembered chain. The chain's amps per count, from

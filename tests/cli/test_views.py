@@ -138,7 +138,7 @@ class TrendViews(unittest.TestCase):
         slope = doc["r0_mohm_per_cell"]["vs_cycles"]["slope"]
         ci = doc["r0_mohm_per_cell"]["vs_cycles"]["slope_ci95"]
         rc, text, err = pb("trend", "TV-02")
-        m = re.search(r"R0\s+([+-][0-9.]+) \+/- ([0-9.]+) mOhm/cell per 10 cycles", text)
+        m = re.search(r"IR \(R0\)\s+([+-][0-9.]+) \+/- ([0-9.]+) mOhm/cell per 10 cycles", text)
         self.assertIsNotNone(m, text)
         self.assertAlmostEqual(float(m.group(1)), 10 * slope, delta=0.0005 + 1e-12)
         self.assertAlmostEqual(float(m.group(2)), 10 * ci, delta=0.0005 + 1e-12)
@@ -150,7 +150,7 @@ class TrendViews(unittest.TestCase):
         self.assertAlmostEqual(float(tv02["r0_mohm_per_cell_per_10_cycles"]), 10 * slope,
                                delta=0.0005 + 1e-12)
         rc, out, err = pb("compare", "TV-01", "TV-02")
-        self.assertIn("R0 mOhm/cell per 10 cyc", out)
+        self.assertIn("IR mOhm/cell per 10 cyc", out)
 
 
 class FleetSort(unittest.TestCase):
