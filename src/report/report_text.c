@@ -146,6 +146,10 @@ int report_analysis_text(FILE *out, const struct analysis *a, const struct repor
                      st->short_row.count + st->duplicate_time.count;
     fprintf(out, "\n  read %zu records, kept %zu, dropped %zu, repaired %zu\n", st->records,
             st->kept, dropped, st->temp_repaired.count);
+    if (st->ignored_names[0])
+        fprintf(out, "  columns ignored: %s\n", st->ignored_names);
+    if (st->time_is_clock)
+        fprintf(out, "  times of day read as a clock (relative; no date in the log)\n");
     if (a->nwarnings) {
         fprintf(out, "\nwarnings\n");
         for (size_t k = 0; k < a->nwarnings; k++)

@@ -205,6 +205,31 @@ static void test_field_too_long(void **state)
     free(text);
 }
 
+static void test_clock_time_and_ignored_names(void **state)
+{
+    (void)state;
+    /* times of day across midnight: 23:59:59.500 to 00:00:00.250 is 0.75 s (arithmetic); the
+     * columns read as nothing are named, the one taken as a duplicate too */
+    const char *text = "Clock,Bat(V),Loop,Bat(A),Voltage\n"
+                       "23:59:59.500,16.80,1,0.1,1\n"
+                       "24:00:00,16.79,2,5.0,1\n" /* not a time of day: dropped, counted */
+                       "00:00:00.250,16.70,3,5.0,1\n"
+                       "00:00:01,16.60,4,5.0,1\n";
+    struct logread_opts o = {0};
+    struct logread_stats st;
+    struct pb_error err = {0};
+    struct series *s = read_text(text, &o, &st, &err);
+    assert_non_null(s);
+    assert_int_equal(st.time_is_clock, 1);
+    assert_int_equal(s->has_epoch, 0);
+    check_close(s->t_s[1], 0.75, 1e-9, "across midnight");
+    check_close(s->t_s[s->n - 1], 1.5, 1e-9, "00:00:01 is 1.5 s after 23:59:59.500");
+    assert_int_equal(st.bad_number.count, 1);
+    assert_int_equal(st.bad_number.first_line, 3);
+    assert_string_equal(st.ignored_names, "Loop, Voltage");
+    series_free(s);
+}
+
 int main(void)
 {
     const struct CMUnitTest tests[] = {
@@ -217,6 +242,7 @@ int main(void)
         cmocka_unit_test(test_cells_and_sign),
         cmocka_unit_test(test_adc_sense_chain),
         cmocka_unit_test(test_field_too_long),
+        cmocka_unit_test(test_clock_time_and_ignored_names),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
 }
