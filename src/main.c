@@ -1,11 +1,15 @@
 /* packbook: command dispatch. Each subcommand lives in src/cmd/; errors
  * from any of them are printed here, once, and mapped to the exit status. */
 #include <gsl/gsl_errno.h>
+#include <langinfo.h>
+#include <locale.h>
 #include <stdio.h>
 #include <string.h>
+#include <unistd.h>
 
 #include "cmd/cmd.h"
 #include "cmd/config.h"
+#include "report/report.h"
 
 #ifndef PACKBOOK_VERSION
 #define PACKBOOK_VERSION "0.0.0"
@@ -49,6 +53,13 @@ int main(int argc, char **argv)
 
     /* GSL would abort on error; every GSL call's status is checked instead */
     gsl_set_error_handler_off();
+
+    /* mΩ on a UTF-8 terminal, mOhm in pipes, files and other terminals; the
+     * locale is only asked, then put back (numbers never depend on it) */
+    if (isatty(STDOUT_FILENO) && setlocale(LC_CTYPE, "")) {
+        report_set_utf8(strcmp(nl_langinfo(CODESET), "UTF-8") == 0);
+        setlocale(LC_CTYPE, "C");
+    }
 
     if (argc < 2) {
         print_usage(stderr);

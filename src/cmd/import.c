@@ -368,8 +368,8 @@ static enum outcome import_one(struct store *st, const struct pack_rec *pack,
     char r0[48] = "unknown";
     if (isfinite(f.r0_mohm))
         snprintf(r0, sizeof r0, "%.2f", f.r0_mohm);
-    snprintf(line, cap, "imported %s: %.16s (date from %s), %.0f mAh, R0 %s mOhm, %zu warning%s",
-             name, when, f.date_source, f.charge_used_mah, r0, a->nwarnings,
+    snprintf(line, cap, "imported %s: %.16s (date from %s), %.0f mAh, IR %s %s, %zu warning%s",
+             name, when, f.date_source, f.charge_used_mah, r0, report_mohm(), a->nwarnings,
              a->nwarnings == 1 ? "" : "s");
     size_t used = 0;
     if (misfit)

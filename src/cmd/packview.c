@@ -1,5 +1,6 @@
 #include "packview.h"
 
+#include "../report/report.h"
 #include "config.h"
 
 #include <math.h>
@@ -206,8 +207,8 @@ void packview_print_change(FILE *out, const struct pack_summary *b, const struct
             snprintf(x, sizeof x, "%.2f", b->r0_base_mohm_cell);
         if (isfinite(a->r0_base_mohm_cell))
             snprintf(y, sizeof y, "%.2f", a->r0_base_mohm_cell);
-        fprintf(out, "  %s: baseline IR (R0) %s -> %s mOhm/cell (median of the first flights)\n",
-                a->label, x, y);
+        fprintf(out, "  %s: baseline IR (R0) %s -> %s %s/cell (median of the first flights)\n",
+                a->label, x, y, report_mohm());
     }
     if (strcmp(b->status, a->status) != 0)
         fprintf(out, "  %s: status %s -> %s (%s)\n", a->label, b->status, a->status, a->reason);

@@ -2,6 +2,7 @@
 #include "report_health.h"
 
 #include "jsonout.h"
+#include "report.h"
 
 #include <jansson.h>
 #include <math.h>
@@ -18,6 +19,12 @@ void pack_view_release(struct pack_view *v)
     store_flights_free(v->flights);
     v->flights = NULL;
     health_trend_release(&v->trend);
+}
+
+/* "IR mOhm" in the milliohm symbol of the output */
+static void ir_header(char *buf, size_t cap)
+{
+    snprintf(buf, cap, "IR %s", report_mohm());
 }
 
 /* "2026-04-18" of an epoch, or "-" */
@@ -135,6 +142,12 @@ static json_t *health_obj(const struct pack_view *v)
     return o;
 }
 
+/* The reason for the status, in the output's units (text only). */
+static const char *why_text(const struct pack_view *v, char *buf, size_t cap)
+{
+    return report_units(v->pack.retired_at[0] ? v->pack.retire_reason : v->health.reason, buf, cap);
+}
+
 static const char *status_of(const struct pack_view *v)
 {
     return v->pack.retired_at[0] ? "retired" : health_status_name(v->health.status);
@@ -205,9 +218,9 @@ int report_pack_show(FILE *out, const struct pack_view *v, enum fleet_format fmt
             h->flights == 1 ? "" : "s", isfinite(h->cycles) ? h->cycles : 0.0,
             day(h->last_epoch_s, b1, sizeof b1));
     fprintf(out,
-            "  IR (R0) %s mOhm/cell now, baseline %s (x%s); capacity %s %% of rated; cell "
+            "  IR (R0) %s %s/cell now, baseline %s (x%s); capacity %s %% of rated; cell "
             "imbalance %s mV at rest\n",
-            fmt_num(b1, sizeof b1, "%.2f", h->r0_now_mohm_cell),
+            fmt_num(b1, sizeof b1, "%.2f", h->r0_now_mohm_cell), report_mohm(),
             fmt_num(b2, sizeof b2, "%.2f", h->r0_base_mohm_cell),
             fmt_num(b3, sizeof b3, "%.2f", h->r0_ratio),
             fmt_num((char[32]){0}, 32, "%.0f", h->capacity_pct),
@@ -217,11 +230,12 @@ int report_pack_show(FILE *out, const struct pack_view *v, enum fleet_format fmt
                 "  weakest cell: %d, the lowest under load in %zu of the last %zu flight%s "
                 "with cell voltages\n",
                 h->weakest_cell, h->weakest_count, h->weakest_of, h->weakest_of == 1 ? "" : "s");
-    fprintf(out, "  status: %s (%s)\n", status_of(v),
-            p->retired_at[0] ? p->retire_reason : h->reason);
+    fprintf(out, "  status: %s (%s)\n", status_of(v), why_text(v, (char[400]){0}, 400));
     if (v->nflights) {
-        fprintf(out, "\n  %6s  %-10s %8s %9s %9s %10s %11s %5s %6s\n", "id", "date", "min", "mAh",
-                "IR mOhm", "cap mAh", "SoC %", "weak", "warn");
+        char ir[24];
+        ir_header(ir, sizeof ir);
+        fprintf(out, "\n  %6s  %-10s %8s %9s %*s %10s %11s %5s %6s\n", "id", "date", "min", "mAh",
+                report_width(ir, 9), ir, "cap mAh", "SoC %", "weak", "warn");
         for (size_t k = 0; k < v->nflights; k++) {
             const struct flight_rec *f = &v->flights[k];
             char soc[24];
@@ -289,8 +303,11 @@ int report_flight_list(FILE *out, const struct flight_rec *f, const char *const 
         }
         return ferror(out) ? -1 : 0;
     }
-    fprintf(out, "%6s  %-12s %-10s %-6s %7s %7s %8s %8s %9s %5s %6s  %s\n", "id", "pack", "date",
-            "from", "min", "mAh", "IR mOhm", "cap mAh", "SoC %", "weak", "warn", "file");
+    char ir[24];
+    ir_header(ir, sizeof ir);
+    fprintf(out, "%6s  %-12s %-10s %-6s %7s %7s %*s %8s %9s %5s %6s  %s\n", "id", "pack", "date",
+            "from", "min", "mAh", report_width(ir, 8), ir, "cap mAh", "SoC %", "weak", "warn",
+            "file");
     for (size_t k = 0; k < n; k++) {
         char soc[24];
         if (isfinite(f[k].soc_start_pct) && isfinite(f[k].soc_end_pct))
@@ -381,9 +398,11 @@ int report_fleet(FILE *out, const struct pack_view *v, size_t n, enum fleet_form
         }
         return ferror(out) ? -1 : 0;
     }
-    fprintf(out, "%-14s %7s %7s %-10s %9s %7s %6s %9s %-9s %10s%s  %-7s %s\n", "pack", "flights",
-            "cycles", "last", "IR mOhm", "IR vs", "cap %", "cell imb.", "weakest", "over-",
-            safe ? "  safe min" : "", "status", "why");
+    char ir[24];
+    ir_header(ir, sizeof ir);
+    fprintf(out, "%-14s %7s %7s %-10s %*s %7s %6s %9s %-9s %10s%s  %-7s %s\n", "pack", "flights",
+            "cycles", "last", report_width(ir, 9), ir, "IR vs", "cap %", "cell imb.", "weakest",
+            "over-", safe ? "  safe min" : "", "status", "why");
     fprintf(out, "%-14s %7s %7s %-10s %9s %7s %6s %9s %-9s %10s%s  %-7s\n", "", "", "", "flown",
             "per cell", "base", "rated", "mV rest", "cell", "discharges", safe ? "  (5th pct)" : "",
             "");
@@ -399,8 +418,7 @@ int report_fleet(FILE *out, const struct pack_view *v, size_t n, enum fleet_form
                 fmt_num(b[2], 32, "%.2f", h->r0_now_mohm_cell),
                 fmt_num(b[3], 32, "x%.2f", h->r0_ratio), fmt_num(b[4], 32, "%.0f", h->capacity_pct),
                 fmt_num(b[5], 32, "%.0f", h->spread_mv), weakest_text(h, wk, sizeof wk),
-                h->overdischarges, sm, status_of(&v[k]),
-                v[k].pack.retired_at[0] ? v[k].pack.retire_reason : h->reason);
+                h->overdischarges, sm, status_of(&v[k]), why_text(&v[k], (char[400]){0}, 400));
     }
     if (safe)
         fprintf(out,
@@ -586,15 +604,19 @@ int report_trend(FILE *out, const struct pack_view *v, size_t n, enum trend_by b
         fprintf(out, "trend of pack %s by %s: %zu flight%s, %.1f equivalent cycles\n\n",
                 v[k].pack.label, bynames[by], v[k].nflights, v[k].nflights == 1 ? "" : "s",
                 isfinite(t->cycles_now) ? t->cycles_now : 0.0);
-        fprintf(out, "  %-14s %7s %-10s %9s %9s %8s\n", by == TREND_CYCLE ? "cycles" : "period",
-                "flights", "from", "mAh", "IR mOhm", "cap %");
+        char ir[24];
+        ir_header(ir, sizeof ir);
+        fprintf(out, "  %-14s %7s %-10s %9s %*s %8s\n", by == TREND_CYCLE ? "cycles" : "period",
+                "flights", "from", "mAh", report_width(ir, 9), ir, "cap %");
         fprintf(out, "  %-14s %7s %-10s %9s %9s %8s\n", "", "", "", "", "per cell", "rated");
         each_period(out, &v[k], by, text_row, text_gap);
         fprintf(out, "\n");
-        text_projection(out, "IR (R0)", &t->r0, "mOhm/cell", horizon, t->cycles_now);
+        char unit[24];
+        snprintf(unit, sizeof unit, "%s/cell", report_mohm());
+        text_projection(out, "IR (R0)", &t->r0, unit, horizon, t->cycles_now);
         text_projection(out, "capacity", &t->capacity, "% of rated", horizon, t->cycles_now);
         fprintf(out, "\n  status: %s (%s)\n", status_of(&v[k]),
-                v[k].pack.retired_at[0] ? v[k].pack.retire_reason : v[k].health.reason);
+                why_text(&v[k], (char[400]){0}, 400));
     }
     fprintf(out, "  Projections extend a straight line; a pack can fail sooner. Inspect it.\n");
     return ferror(out) ? -1 : 0;
@@ -745,7 +767,9 @@ int report_compare(FILE *out, const struct pack_view *v, size_t n, enum fleet_fo
         return ferror(out) ? -1 : 0;
     }
     for (size_t r = 0; r < NCOMPARE; r++) {
-        fprintf(out, "%-26s", compare_rows[r].label);
+        char lab[64];
+        report_units(compare_rows[r].label, lab, sizeof lab);
+        fprintf(out, "%-*s", report_width(lab, 26), lab);
         for (size_t k = 0; k < n; k++) {
             const char *t = compare_rows[r].text(&v[k], b, sizeof b);
             fprintf(out, " %14s", *t ? t : "-");
@@ -754,7 +778,6 @@ int report_compare(FILE *out, const struct pack_view *v, size_t n, enum fleet_fo
     }
     for (size_t k = 0; k < n; k++)
         if (v[k].health.status != HEALTH_OK || v[k].pack.retired_at[0])
-            fprintf(out, "  %s: %s\n", v[k].pack.label,
-                    v[k].pack.retired_at[0] ? v[k].pack.retire_reason : v[k].health.reason);
+            fprintf(out, "  %s: %s\n", v[k].pack.label, why_text(&v[k], (char[400]){0}, 400));
     return ferror(out) ? -1 : 0;
 }

@@ -4,6 +4,7 @@
 #include <stdio.h>
 
 #include "jsonout.h"
+#include "report.h"
 
 static void mmss(char *buf, size_t cap, double s)
 {
@@ -63,11 +64,12 @@ int report_predict_text(FILE *out, const struct predict_inputs *in, const struct
 {
     char a[40], b[40];
     fprintf(out, "packbook prediction from %s\n", in->source);
-    fprintf(out, "  %-15s %dS %s, capacity %.0f +/- %.0f mAh%s, R0 %.2f +/- %.2f mOhm", "pack",
+    fprintf(out, "  %-15s %dS %s, capacity %.0f +/- %.0f mAh%s, R0 %.2f +/- %.2f %s", "pack",
             in->cells, in->chem->label, in->capacity_mah, in->capacity_sd_mah,
-            in->capacity_assumed ? " (rated, no estimate)" : "", in->r0_mohm, in->r0_sd_mohm);
+            in->capacity_assumed ? " (rated, no estimate)" : "", in->r0_mohm, in->r0_sd_mohm,
+            report_mohm());
     if (isfinite(in->r1_mohm) && isfinite(in->tau_s))
-        fprintf(out, ", RC %.2f mOhm / %.1f s", in->r1_mohm, in->tau_s);
+        fprintf(out, ", RC %.2f %s / %.1f s", in->r1_mohm, report_mohm(), in->tau_s);
     fprintf(out, "\n");
     if (l->kind == LOAD_POWER)
         fprintf(out, "  %-15s %.0f W constant power (sd %.0f W)\n", "load", l->power_w, load_sd);

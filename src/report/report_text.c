@@ -7,6 +7,45 @@
 
 #define KEY_W 16
 
+static int utf8_out;
+
+void report_set_utf8(int utf8)
+{
+    utf8_out = utf8;
+}
+
+const char *report_mohm(void)
+{
+    return utf8_out ? "m\u03a9" : "mOhm";
+}
+
+const char *report_units(const char *s, char *buf, size_t cap)
+{
+    size_t used = 0;
+    buf[0] = '\0';
+    while (*s && used + 1 < cap) {
+        if (strncmp(s, "mOhm", 4) == 0) {
+            int n = snprintf(buf + used, cap - used, "%s", report_mohm());
+            used += n > 0 ? (size_t)n : 0;
+            s += 4;
+        } else {
+            buf[used++] = *s++;
+            buf[used] = '\0';
+        }
+    }
+    if (used >= cap)
+        buf[cap - 1] = '\0';
+    return buf;
+}
+
+int report_width(const char *s, int width)
+{
+    int extra = 0;
+    for (const unsigned char *p = (const unsigned char *)s; *p; p++)
+        extra += (*p & 0xC0) == 0x80; /* continuation bytes take no column */
+    return width + extra;
+}
+
 static void key(FILE *out, const char *k)
 {
     fprintf(out, "  %-*s", KEY_W, k);
@@ -85,17 +124,17 @@ int report_analysis_text(FILE *out, const struct analysis *a, const struct repor
     }
     if (a->has_current) {
         key(out, "IR");
-        est(out, a->r0_mohm, "%.2f", "mOhm");
+        est(out, a->r0_mohm, "%.2f", report_mohm());
         if (isfinite(a->r0_mohm.value)) {
             if (a->cells > 0)
-                fprintf(out, " (%.2f mOhm/cell)", a->r0_mohm.value / a->cells);
+                fprintf(out, " (%.2f %s/cell)", a->r0_mohm.value / a->cells, report_mohm());
             fprintf(out, ", internal resistance: R0 of the %s model",
                     strcmp(a->r0_method, "rc") == 0 ? "R0 + RC" : "R0-only");
         }
         fprintf(out, "\n");
         if (isfinite(a->tau_s.value)) {
             key(out, "polarisation");
-            est(out, a->r1_mohm, "%.2f", "mOhm");
+            est(out, a->r1_mohm, "%.2f", report_mohm());
             fprintf(out, ", time constant %.2f s\n", a->tau_s.value);
         }
     }
@@ -129,7 +168,10 @@ int report_analysis_text(FILE *out, const struct analysis *a, const struct repor
         if (isfinite(a->spread_load_mv))
             fprintf(out, ", up to %.0f mV under load", a->spread_load_mv);
         fprintf(out, "; weakest cell %d\n", a->weakest_cell);
-        fprintf(out, "\n  %-6s %12s %18s %14s\n", "cell", "lowest V", "R0 mOhm", "rest V");
+        char h[32];
+        report_units("R0 mOhm", h, sizeof h);
+        fprintf(out, "\n  %-6s %12s %*s %14s\n", "cell", "lowest V", report_width(h, 18), h,
+                "rest V");
         for (int c = 0; c < a->ncells_detail; c++) {
             const struct cell_detail *d = &a->cell[c];
             char r0[40] = "unknown", rest[24] = "unknown";

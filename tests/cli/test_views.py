@@ -153,6 +153,53 @@ class TrendViews(unittest.TestCase):
         self.assertIn("IR mOhm/cell per 10 cyc", out)
 
 
+def on_terminal(*args, locale="C.UTF-8"):
+    """packbook with its standard output on a pseudo-terminal (Python's pty); returns the text."""
+    import pty
+    master, slave = pty.openpty()
+    env = {k: v for k, v in os.environ.items() if not k.startswith("LC_") and k != "LANG"}
+    env["LC_ALL"] = locale
+    p = subprocess.Popen([pbtest.PACKBOOK, *map(str, args)], stdout=slave, stderr=subprocess.PIPE,
+                         env=env)
+    os.close(slave)
+    chunks = []
+    while True:
+        try:
+            b = os.read(master, 65536)
+        except OSError:  # EIO: the other side closed
+            break
+        if not b:
+            break
+        chunks.append(b)
+    os.close(master)
+    p.wait(timeout=60)
+    return b"".join(chunks).decode("utf-8").replace("\r\n", "\n")
+
+
+class OhmSymbol(unittest.TestCase):
+    """mΩ where standard output is a UTF-8 terminal, mOhm otherwise (pipes, files, C locale);
+    columns stay aligned in display columns (a header's right edge over its values')."""
+
+    def test_terminal_and_pipe(self):
+        utf = on_terminal("fleet", "--db", DB)
+        self.assertIn("IR m\u03a9", utf)
+        self.assertNotIn("mOhm", utf)
+        lines = utf.splitlines()
+        head = lines[0]
+        end = head.index("IR m\u03a9") + len("IR m\u03a9")
+        row = [l for l in lines if l.startswith("TV-02")][0]
+        # the per-cell IR value ends where its header ends (both right-aligned, 9 columns)
+        rc, js, err = pb("fleet", "--json")
+        ir = [p for p in json.loads(js) if p["id"] == "TV-02"][0]["r0_mohm_per_cell"]
+        val = f"{ir:.2f}"
+        self.assertEqual(row.index(" " + val + " ") + 1 + len(val), end, utf)
+        plain = on_terminal("fleet", "--db", DB, locale="C")
+        self.assertIn("IR mOhm", plain)
+        rc, out, err = pb("fleet")
+        self.assertIn("IR mOhm", out, "a pipe gets mOhm")
+        self.assertIn("m\u03a9/cell per 10 cycles", on_terminal("trend", "TV-02", "--db", DB))
+
+
 class FleetSort(unittest.TestCase):
     def test_r0_and_ratio_keys(self):
         rc, out, err = pb("fleet", "--json")
