@@ -74,6 +74,7 @@ static const struct base_entry bases[] = {
     {"time_unix", COL_TIME},
     {"test_time", COL_TIME},
     {"elapsed_time", COL_TIME},
+    {"date", COL_DATE},
     {"voltage", COL_VOLTAGE},
     {"v", COL_VOLTAGE},
     {"volt", COL_VOLTAGE},
@@ -259,7 +260,9 @@ int colname_parse(const char *name, size_t len, struct col_spec *out)
         if (role == COL_CURRENT && unit_role == COL_CURRENT_RAW) {
             role = COL_CURRENT_RAW;
         } else {
-            enum col_role want = role == COL_CELL ? COL_VOLTAGE : role;
+            enum col_role want = role == COL_CELL   ? COL_VOLTAGE
+                                 : role == COL_DATE ? COL_TIME
+                                                    : role;
             /* "t" with "c" would be temperature in some loggers, but "t" is
              * time here; a time base with a temperature unit is rejected */
             if (want != unit_role && !(want == COL_CURRENT_RAW && unit_role == COL_CURRENT_RAW))
@@ -293,6 +296,8 @@ const char *colname_role_name(enum col_role role)
         return "temperature";
     case COL_CELL:
         return "cell voltage";
+    case COL_DATE:
+        return "date";
     }
     return "?";
 }

@@ -14,7 +14,7 @@
 #define SNIFF_LINES 32
 #define HEADER_KEEP 128 /* bytes of each first-row field kept for mapping */
 
-enum slot { SLOT_T = 0, SLOT_V, SLOT_I, SLOT_TEMP, SLOT_CELL0 };
+enum slot { SLOT_T = 0, SLOT_V, SLOT_I, SLOT_TEMP, SLOT_DATE, SLOT_CELL0 };
 #define NSLOTS (SLOT_CELL0 + PB_MAX_CELLS)
 
 enum bad_kind { BAD_NONE = 0, BAD_NUMBER, BAD_NONFINITE, BAD_EMPTY };
@@ -202,6 +202,8 @@ static int slot_for(const struct col_spec *sp)
         return SLOT_TEMP;
     case COL_CELL:
         return sp->cell <= PB_MAX_CELLS ? SLOT_CELL0 + sp->cell - 1 : -1;
+    case COL_DATE:
+        return SLOT_DATE;
     case COL_IGNORE:
         return -1;
     }
@@ -431,6 +433,7 @@ static int map_columns(struct reader *r)
     r->st->voltage_column = r->slot_col[SLOT_V] + 1;
     r->st->current_column = r->slot_col[SLOT_I] + 1;
     r->st->temp_column = r->slot_col[SLOT_TEMP] + 1;
+    r->st->date_column = r->slot_col[SLOT_DATE] + 1;
     r->t_scale = r->spec[SLOT_T].scale;
     /* every named column that carries nothing read, by name, so the report can say so */
     for (int c = 0; c < n; c++) {
@@ -521,9 +524,10 @@ static void take_time(struct reader *r, const char *f, size_t len, int column)
             r->bad_col = column;
             return;
         }
-        /* a clock that falls back by more than 12 h passed midnight */
+        /* a clock that falls back by more than 12 h passed midnight (unless a
+         * date column says which day it is) */
         c += r->clock_days * 86400.0;
-        if (r->clock_seen && c < r->clock_prev - 43200.0) {
+        if (r->clock_seen && c < r->clock_prev - 43200.0 && r->slot_col[SLOT_DATE] < 0) {
             r->clock_days++;
             c += 86400.0;
         }
@@ -604,6 +608,19 @@ static void on_field(void *data, size_t len, void *ctx)
         take_time(r, f, len, col + 1);
         return;
     }
+    if (slot == SLOT_DATE) {
+        double d;
+        if (isotime_parse(f, len, &d, NULL) == 0) {
+            r->val[SLOT_DATE] = d;
+        } else {
+            size_t k = 0;
+            while (k < len && f[k] == ' ')
+                k++;
+            r->bad = k == len ? BAD_EMPTY : BAD_NUMBER;
+            r->bad_col = col + 1;
+        }
+        return;
+    }
     double v;
     enum num_status st = num_parse(f, len, r->st->decimal, &v);
     if (st == NUM_OK) {
@@ -624,13 +641,16 @@ static void keep_sample(struct reader *r)
     struct logread_stats *st = r->st;
     struct series *s = r->s;
     double t = r->val[SLOT_T];
+    /* a date column and times of day make absolute times */
+    if (r->slot_col[SLOT_DATE] >= 0 && r->tmode == TM_CLOCK)
+        t += r->val[SLOT_DATE];
     if (s->n == 0) {
         r->t_first = t;
         /* numbers that only make sense as Unix time (years 2000..2099) */
         if (r->tmode == TM_ISO || r->spec[SLOT_T].time == TIME_EPOCH || (t >= 9.4e8 && t < 4.1e9)) {
             s->has_epoch = 1;
             s->start_epoch_s = t;
-            st->time_is_epoch = r->tmode != TM_ISO;
+            st->time_is_epoch = r->tmode != TM_ISO && r->tmode != TM_CLOCK;
         } else if (t >= 9.4e11 && t < 4.1e12 && r->spec[SLOT_T].time == TIME_AUTO) {
             /* epoch milliseconds in a column without a unit */
             r->t_scale = 1e-3;

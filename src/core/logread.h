@@ -61,6 +61,7 @@ struct logread_stats {
     int ignored_columns;
     char ignored_names[512]; /* the ignored columns' names, ", "-separated ("..." when cut) */
     int time_is_clock;       /* times of day (HH:MM:SS): relative, across midnight */
+    int date_column;         /* 1-based column of dates joined to the times of day, 0 = none */
     int sign_flipped;        /* auto-detected discharge-negative and flipped */
     int voltage_from_cells;
     struct logread_event bad_number;     /* text where a number was due: sample dropped */

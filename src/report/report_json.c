@@ -21,7 +21,7 @@ static json_t *input_obj(const struct report_input *in)
     char delim[2] = {st->delimiter, 0}, dec[2] = {st->decimal, 0};
     const char *tf = st->time_is_iso     ? "iso8601"
                      : st->time_is_epoch ? "unix"
-                     : st->time_is_clock ? "clock"
+                     : st->time_is_clock ? (st->date_column ? "date and clock" : "clock")
                                          : "relative";
     json_t *ignored = json_array();
     for (const char *p = st->ignored_names; *p;) {

@@ -190,7 +190,10 @@ int report_analysis_text(FILE *out, const struct analysis *a, const struct repor
             st->kept, dropped, st->temp_repaired.count);
     if (st->ignored_names[0])
         fprintf(out, "  columns ignored: %s\n", st->ignored_names);
-    if (st->time_is_clock)
+    if (st->time_is_clock && st->date_column)
+        fprintf(out, "  dates and times of day from separate columns (%d and %d)\n",
+                st->date_column, st->time_column);
+    else if (st->time_is_clock)
         fprintf(out, "  times of day read as a clock (relative; no date in the log)\n");
     if (a->nwarnings) {
         fprintf(out, "\nwarnings\n");

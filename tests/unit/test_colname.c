@@ -52,6 +52,8 @@ static const struct row rows[] = {
     {"Bat(C)", COL_TEMP, 0, 1.0, 0.0},
     {"Battery", COL_IGNORE, 0, 1.0, 0.0},
     {"Pack", COL_IGNORE, 0, 1.0, 0.0},
+    {"Date", COL_DATE, 0, 1.0, 0.0},
+    {"date_utc", COL_DATE, 0, 1.0, 0.0},
     {"Capacity(Ah)", COL_IGNORE, 0, 1.0, 0.0},
     {"StepTime(s)", COL_IGNORE, 0, 1.0, 0.0},
     {"Loop", COL_IGNORE, 0, 1.0, 0.0},
