@@ -7,10 +7,9 @@
 #include <stdlib.h>
 #include <string.h>
 
+#include "../core/predict.h"
 #include "../report/jsonout.h"
 #include "packview.h"
-
-#define RESERVE_DEFAULT_PCT 30.0 /* landing reserve: common practice */
 
 struct entry {
     const char *key;
@@ -155,7 +154,7 @@ void config_rules(struct health_rules *r)
 double config_reserve(void)
 {
     const struct entry *e = entry_of("reserve");
-    return e->value[0] ? strtod(e->value, NULL) : RESERVE_DEFAULT_PCT;
+    return e->value[0] ? strtod(e->value, NULL) : (double)PREDICT_RESERVE_PCT;
 }
 
 /* ---- packbook config ---------------------------------------------------- */
@@ -236,7 +235,7 @@ enum pb_code cmd_config(int argc, char **argv, struct app *app, struct pb_error 
     snprintf(defaults[2], 64, "%g", def.retire_r0_ratio);
     snprintf(defaults[3], 64, "%g", def.retire_spread_mv);
     snprintf(defaults[4], 64, "%d", def.retire_overdischarge);
-    snprintf(defaults[5], 64, "%g", RESERVE_DEFAULT_PCT);
+    snprintf(defaults[5], 64, "%g", (double)PREDICT_RESERVE_PCT);
     json_t *arr = json ? json_array() : NULL;
     if (!json)
         printf("settings file: %s\n\n%-21s %-28s %s\n", config_path[0] ? config_path : "(none)",

@@ -30,26 +30,44 @@ static const char usage_head[] =
     "start:\n"
     "  --soc PCT              start SoC (default 100: a full charge)\n"
     "  --ocv V                or the pack voltage measured at rest\n"
-    "load (default: the median cruise power of the last 5 flights, or of the log):\n"
-    "  --power W | --current A   constant power or current\n"
-    "  --profile LOG          the power of a logged flight, repeated (may be given again:\n"
-    "                         the profiles are flown one after the other)\n"
-    "limits:\n"
-    "  --reserve PCT          landing reserve SoC (default 30, common practice)\n"
-    "  --cut-off V            cut-off voltage per cell under load (default: the pack's\n"
-    "                         remembered one, else per chemistry; --floor: old name)\n"
-    "model:\n"
-    "  --temp C               pack temperature: R0 is scaled by the Arrhenius form\n"
-    "  --tref C               temperature R0 was measured at (default 25)\n"
-    "  --ea J_PER_MOL         activation energy for R(T) (default 30000)\n"
-    "  --peukert K            Peukert exponent (rated-capacity form t = H (C/(I H))^K)\n"
-    "  --peukert-hours H      rated discharge time H for Peukert (default 1)\n"
-    "  --runs N --seed N      Monte Carlo runs (default 400) and seed (default 1)\n"
-    "  --for S                also report the state after S seconds\n"
-    "  --db PATH              history database\n"
-    "  --json                 JSON on standard output\n"
-    "reading --log and --profile logs:\n"
-    "  --cells N --chemistry C --capacity MAH (for --log)\n";
+    "load (default: the median cruise power of the last " HEALTH_STR(
+        HEALTH_RECENT_FLIGHTS) " flights, or of the log):\n"
+                               "  --power W | --current A   constant power or current\n"
+                               "  --profile LOG          the power of a logged flight, repeated "
+                               "(may be given again:\n"
+                               "                         the profiles are flown one after the "
+                               "other)\n"
+                               "limits:\n"
+                               "  --reserve PCT          landing reserve SoC (default " PREDICT_STR(
+                                   PREDICT_RESERVE_PCT) ", common practice, or the settings "
+                                                        "file's)\n"
+                                                        "  --cut-off V            cut-off voltage "
+                                                        "per cell under load (default: the pack's\n"
+                                                        "                         remembered one, "
+                                                        "else per chemistry; --floor: old name)\n"
+                                                        "model:\n"
+                                                        "  --temp C               pack "
+                                                        "temperature: R0 is scaled by the "
+                                                        "Arrhenius form\n"
+                                                        "  --tref C               temperature R0 "
+                                                        "was measured at (default 25)\n"
+                                                        "  --ea J_PER_MOL         activation "
+                                                        "energy for R(T) (default 30000)\n"
+                                                        "  --peukert K            Peukert exponent "
+                                                        "(rated-capacity form t = H (C/(I H))^K)\n"
+                                                        "  --peukert-hours H      rated discharge "
+                                                        "time H for Peukert (default 1)\n"
+                                                        "  --runs N --seed N      Monte Carlo runs "
+                                                        "(default 400) and seed (default 1)\n"
+                                                        "  --for S                also report the "
+                                                        "state after S seconds\n"
+                                                        "  --db PATH              history "
+                                                        "database\n"
+                                                        "  --json                 JSON on standard "
+                                                        "output\n"
+                                                        "reading --log and --profile logs:\n"
+                                                        "  --cells N --chemistry C --capacity MAH "
+                                                        "(for --log)\n";
 
 enum {
     R_LOG = 256,
@@ -128,13 +146,15 @@ static double median_sd(const double *v, size_t n, double *sd)
     return m % 2 ? buf[m / 2] : 0.5 * (buf[m / 2 - 1] + buf[m / 2]);
 }
 
-/* From the last (up to 5) flights of a pack. */
+/* From the last (up to HEALTH_RECENT_FLIGHTS) flights of a pack: the same
+ * flights the health view calls "now". */
 static enum pb_code inputs_from_history(const struct pack_view *v, struct predict_inputs *in,
                                         struct pb_error *err)
 {
-    double cap[5], capci[5], r0[5], r0ci[5], r1[5], tau[5], pw[5];
+    enum { N = HEALTH_RECENT_FLIGHTS };
+    double cap[N], capci[N], r0[N], r0ci[N], r1[N], tau[N], pw[N];
     size_t m = 0;
-    for (size_t k = v->nflights; k > 0 && m < 5; k--, m++) {
+    for (size_t k = v->nflights; k > 0 && m < N; k--, m++) {
         const struct flight_rec *f = &v->flights[k - 1];
         cap[m] = f->capacity_mah;
         capci[m] = f->capacity_ci95_mah;

@@ -15,16 +15,16 @@
 
 void health_rules_default(struct health_rules *r)
 {
-    r->retire_capacity_pct = 80.0;
-    r->watch_capacity_pct = 85.0;
-    r->retire_r0_ratio = 2.0;
-    r->watch_r0_ratio = 1.5;
-    r->retire_spread_mv = 60.0;
-    r->watch_spread_mv = 30.0;
-    r->retire_overdischarge = 3;
-    r->watch_overdischarge = 1;
-    r->baseline_flights = 3;
-    r->recent_flights = 5;
+    r->retire_capacity_pct = HEALTH_RETIRE_CAPACITY_PCT;
+    r->watch_capacity_pct = HEALTH_WATCH_CAPACITY_PCT;
+    r->retire_r0_ratio = HEALTH_RETIRE_R0_RATIO;
+    r->watch_r0_ratio = HEALTH_WATCH_R0_RATIO;
+    r->retire_spread_mv = HEALTH_RETIRE_IMBALANCE_MV;
+    r->watch_spread_mv = HEALTH_WATCH_IMBALANCE_MV;
+    r->retire_overdischarge = HEALTH_RETIRE_OVERDISCHARGES;
+    r->watch_overdischarge = HEALTH_WATCH_OVERDISCHARGES;
+    r->baseline_flights = HEALTH_BASELINE_FLIGHTS;
+    r->recent_flights = HEALTH_RECENT_FLIGHTS;
 }
 
 const char *health_status_name(enum health_status s)

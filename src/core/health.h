@@ -23,6 +23,22 @@ struct health_flight {
  * R0 at or above 2x the pack's baseline (common practice), resting cell
  * spread at or above 60 mV (common practice, from memory), 3 or more
  * flights below the floor; "watch" levels at 85 %, 1.5x, 30 mV and 1. */
+/* The policy values, named once; reports and help print them from here.
+ * Whole numbers where they can be, so they read the same when stringised
+ * (HEALTH_STR) into help texts. */
+#define HEALTH_RETIRE_CAPACITY_PCT 80
+#define HEALTH_WATCH_CAPACITY_PCT 85
+#define HEALTH_RETIRE_R0_RATIO 2
+#define HEALTH_WATCH_R0_RATIO 1.5
+#define HEALTH_RETIRE_IMBALANCE_MV 60
+#define HEALTH_WATCH_IMBALANCE_MV 30
+#define HEALTH_RETIRE_OVERDISCHARGES 3
+#define HEALTH_WATCH_OVERDISCHARGES 1
+#define HEALTH_BASELINE_FLIGHTS 3 /* first flights that set the baseline */
+#define HEALTH_RECENT_FLIGHTS 5   /* last flights that set "now" */
+#define HEALTH_STR_(x) #x
+#define HEALTH_STR(x) HEALTH_STR_(x)
+
 struct health_rules {
     double retire_capacity_pct, watch_capacity_pct;
     double retire_r0_ratio, watch_r0_ratio;
