@@ -192,7 +192,9 @@ enum pb_code cmd_analyze(int argc, char **argv, struct app *app, struct pb_error
     enum pb_code rc = parse_args(argc, argv, &cli, &done, err);
     if (rc != PB_OK || done)
         return rc;
-    if (cli.pack && (rc = take_pack(&cli, err)) != PB_OK)
+    /* the settings file's reading defaults, a pack's settings, then the options */
+    rc = cli.pack ? take_pack(&cli, err) : packopts_apply(NULL, &cli.seen, &cli.log, err);
+    if (rc != PB_OK)
         return rc;
     rc = logopts_analyze(cli.path, &cli.log, &stats, &a, cli.series || cli.plot ? &s : NULL, err);
     if (rc != PB_OK)

@@ -9,6 +9,7 @@
 
 #include "../core/predict.h"
 #include "../report/jsonout.h"
+#include "packopts.h"
 #include "packview.h"
 
 struct entry {
@@ -30,6 +31,14 @@ static struct entry entries[] = {
 #define NENTRIES (sizeof entries / sizeof *entries)
 
 static char config_path[1024];
+
+/* reading defaults: "name=value" lines, and where each came from */
+#define READING_MAX 32
+static char reading[1024];
+static struct {
+    char name[32], value[256], where[1100];
+} reading_src[READING_MAX];
+static int nreading;
 
 static void find_path(void)
 {
@@ -107,10 +116,28 @@ enum pb_code config_load(struct pb_error *err)
         for (size_t k = 0; k < NENTRIES; k++)
             if (strcmp(entries[k].key, key) == 0)
                 e = &entries[k];
+        if (!e && packopts_known(key, strlen(key))) {
+            /* a reading default: checked with the others once all are read */
+            size_t used = strlen(reading);
+            if (nreading >= READING_MAX || strchr(val, '\n') ||
+                used + strlen(key) + strlen(val) + 3 > sizeof reading) {
+                rc = pb_error_set(err, PB_EUSAGE, "%s:%d: too many reading defaults", config_path,
+                                  no);
+                break;
+            }
+            snprintf(reading + used, sizeof reading - used, "%s=%s\n", key, val);
+            snprintf(reading_src[nreading].name, sizeof reading_src[0].name, "%s", key);
+            snprintf(reading_src[nreading].value, sizeof reading_src[0].value, "%s", val);
+            snprintf(reading_src[nreading].where, sizeof reading_src[0].where, "%s:%d", config_path,
+                     no);
+            nreading++;
+            continue;
+        }
         if (!e) {
             rc = pb_error_set(err, PB_EUSAGE,
                               "%s:%d: unknown key '%s' (db, retire-capacity, retire-r0-ratio, "
-                              "retire-imbalance, retire-overdischarge, reserve)",
+                              "retire-imbalance, retire-overdischarge, reserve, or a reading "
+                              "option of analyze such as cut-off)",
                               config_path, no, key);
             break;
         }
@@ -125,6 +152,19 @@ enum pb_code config_load(struct pb_error *err)
     if (rc == PB_OK && ferror(f))
         rc = pb_error_set(err, PB_EUSAGE, "cannot read '%s'", config_path);
     fclose(f);
+    if (rc == PB_OK && reading[0]) {
+        /* the reading defaults together, as every log will be read with them */
+        char merged[1024];
+        struct packopts_seen none = {0};
+        struct pb_error e2 = {PB_OK, ""};
+        char mine[1024];
+        snprintf(mine, sizeof mine, "%s", reading);
+        reading[0] = '\0'; /* not yet in force while it is checked */
+        if (packopts_merge(mine, &none, 0, merged, sizeof merged, &e2) != PB_OK)
+            rc = pb_error_set(err, PB_EUSAGE, "%s: reading defaults: %s", config_path, e2.msg);
+        else
+            snprintf(reading, sizeof reading, "%s", mine);
+    }
     return rc;
 }
 
@@ -151,6 +191,11 @@ void config_rules(struct health_rules *r)
             (void)ruleopts_take(entries[k].opt, entries[k].value, r, &err); /* checked at load */
 }
 
+const char *config_reading(void)
+{
+    return reading;
+}
+
 double config_reserve(void)
 {
     const struct entry *e = entry_of("reserve");
@@ -168,8 +213,11 @@ static const char usage[] =
     "else ~/.config/packbook/config: one 'key = value' per line, '#' comments.\n"
     "Keys: db, retire-capacity, retire-r0-ratio, retire-imbalance (or its old name\n"
     "retire-spread),\n"
-    "retire-overdischarge (the fleet, trend, compare, plot options of those names)\n"
-    "and reserve (predict's --reserve). Options on a command override the file.\n";
+    "retire-overdischarge (the fleet, trend, compare, plot options of those names),\n"
+    "reserve (predict's --reserve), and any reading option of analyze without its\n"
+    "dashes (cut-off, map, current-sign, adc-scale, gap, ...) as a default for every\n"
+    "log. Options on a command override the file; a pack's remembered reading\n"
+    "settings override its reading defaults.\n";
 
 enum { C_DB = 256, C_RESERVE, C_JSON };
 
@@ -256,6 +304,15 @@ enum pb_code cmd_config(int argc, char **argv, struct app *app, struct pb_error 
                 arr, json_pack("{s:s, s:s, s:s}", "key", e->key, "value", val, "from", from));
         else
             printf("%-21s %-28s %s\n", e->key, val, from);
+    }
+    for (int k = 0; k < nreading; k++) {
+        if (json)
+            json_array_append_new(arr,
+                                  json_pack("{s:s, s:s, s:s}", "key", reading_src[k].name, "value",
+                                            reading_src[k].value, "from", reading_src[k].where));
+        else
+            printf("%-21s %-28s %s\n", reading_src[k].name, reading_src[k].value,
+                   reading_src[k].where);
     }
     if (json && jout_write(stdout, json_pack("{s:o, s:o}", "file", jout_str(config_path),
                                              "settings", arr)) != 0)

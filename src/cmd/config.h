@@ -3,9 +3,11 @@
  * $PACKBOOK_CONFIG, else $XDG_CONFIG_HOME/packbook/config, else
  * ~/.config/packbook/config; a missing file is no error. Format: one
  * "key = value" per line, '#' starts a comment line; keys: db,
- * retire-capacity, retire-r0-ratio, retire-spread, retire-overdischarge,
- * reserve. Options given on the command line override it; for the
- * database $PACKBOOK_DB does too.
+ * retire-capacity, retire-r0-ratio, retire-imbalance (retire-spread),
+ * retire-overdischarge, reserve, and the reading options of analyze
+ * (cut-off, map, current-sign, ...) as defaults for every log. Options
+ * given on the command line override it (a pack's remembered settings
+ * too); for the database $PACKBOOK_DB does too.
  *
  * Owns one read-only table filled by config_load (the only state of the
  * command layer: read once, never written after). */
@@ -25,7 +27,10 @@ const char *config_db(void);
  * watch levels follow as for the options). */
 void config_rules(struct health_rules *r);
 
-/* The landing reserve for predictions (%): the file's, else 30. */
+/* The landing reserve for predictions (%): the file's, else the default. */
 double config_reserve(void);
+
+/* The file's reading defaults as "name=value" lines ("" when none). */
+const char *config_reading(void);
 
 #endif

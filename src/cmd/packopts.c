@@ -1,5 +1,7 @@
 #include "packopts.h"
 
+#include "config.h"
+
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
@@ -42,6 +44,26 @@ int packopts_note(struct packopts_seen *seen, int c, const char *arg, struct pb_
     return 1;
 }
 
+int packopts_known(const char *name, size_t len)
+{
+    return by_name(name, len) != NULL;
+}
+
+/* Whether the settings text holds option c (or, for an ADC option, any). */
+static int text_has(const char *settings, int c)
+{
+    for (const char *p = settings ? settings : ""; *p;) {
+        const char *end = strchr(p, '\n');
+        size_t len = end ? (size_t)(end - p) : strlen(p);
+        const char *eq = memchr(p, '=', len);
+        const struct option *o = eq ? by_name(p, (size_t)(eq - p)) : NULL;
+        if (o && (o->val == c || (adc_group(c) && adc_group(o->val))))
+            return 1;
+        p += len + (end != NULL);
+    }
+    return 0;
+}
+
 static int seen_has(const struct packopts_seen *seen, int c)
 {
     for (int k = 0; seen && k < seen->n; k++)
@@ -79,10 +101,27 @@ enum pb_code packopts_apply(char *settings, const struct packopts_seen *seen, st
 {
     int cells = log->an.cells, chem = log->an.chemistry;
     double cap = log->an.capacity_mah;
+    size_t min_samples = log->read.min_samples; /* the verb's, not a reading option */
     logopts_init(log);
     log->an.cells = cells;
     log->an.chemistry = chem;
     log->an.capacity_mah = cap;
+    log->read.min_samples = min_samples;
+    /* the settings file's defaults, under the pack's and the command line's;
+     * config_reading() is read-only text that lives as long as the process */
+    static char defaults[1024];
+    snprintf(defaults, sizeof defaults, "%s", config_reading());
+    for (char *p = defaults; *p;) {
+        char *end = strchr(p, '\n');
+        if (end)
+            *end = '\0';
+        char *eq = strchr(p, '=');
+        const struct option *o = eq ? by_name(p, (size_t)(eq - p)) : NULL;
+        if (o && !seen_has(seen, o->val) && !text_has(settings, o->val) &&
+            logopts_take(o->val, eq + 1, log, err) < 0)
+            return err->code;
+        p = end ? end + 1 : p + strlen(p);
+    }
     /* split in place: --map and --columns keep pointing into the lines */
     for (char *p = settings ? settings : (char *)""; *p;) {
         char *end = strchr(p, '\n');

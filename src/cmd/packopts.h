@@ -22,10 +22,11 @@ struct packopts_seen {
  * is one, 0 otherwise, -1 (err filled) when there are too many. */
 int packopts_note(struct packopts_seen *seen, int c, const char *arg, struct pb_error *err);
 
-/* Rebuilds *log from the pack's settings, then the options seen on the
- * command line over them (a command line that gives any ADC or sense-chain
- * option replaces the pack's whole chain), keeping log's cells, chemistry
- * and capacity; checks the result (logopts_finish). settings (NULL: none)
+/* Rebuilds *log from the settings file's reading defaults, then the pack's
+ * settings over them, then the options seen on the command line over both
+ * (a later layer that gives any ADC or sense-chain option replaces the
+ * earlier layers' whole chain), keeping log's cells, chemistry, capacity
+ * and fewest samples; checks the result (logopts_finish). settings (NULL: none)
  * is split into its lines in place and must outlive log, which points
  * into it. */
 enum pb_code packopts_apply(char *settings, const struct packopts_seen *seen, struct log_cli *log,
@@ -36,6 +37,9 @@ enum pb_code packopts_apply(char *settings, const struct packopts_seen *seen, st
  * clear drops old first. */
 enum pb_code packopts_merge(const char *old, const struct packopts_seen *seen, int clear, char *out,
                             size_t cap, struct pb_error *err);
+
+/* Whether name (len bytes) is a reading option's long name. */
+int packopts_known(const char *name, size_t len);
 
 /* The settings as command-line text ("--floor 3.4 --adc-bits 12"), or
  * "(none)". */

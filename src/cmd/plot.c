@@ -156,6 +156,8 @@ static enum pb_code parse(int argc, char **argv, struct plot_cli *cli, int *done
             if (trendopts_fit(optarg, &cli->plain, err))
                 return PB_EUSAGE;
             cli->log.an.plain_fit = cli->plain; /* the flight's fits follow it too */
+            if (packopts_note(&cli->seen, LO_FIT, optarg, err) < 0)
+                return PB_EUSAGE;
             break;
         case P_HORIZON:
             if (cmd_parse_double("--horizon", optarg, 1, 1e6, &cli->horizon, err))
@@ -269,7 +271,9 @@ static enum pb_code plot_log(struct plot_cli *cli, const char *path, struct pb_e
     struct logread_stats stats;
     struct analysis *a = NULL;
     struct series *s = NULL;
-    enum pb_code rc = cli->pack ? take_pack(cli, path, err) : PB_OK;
+    /* without --pack: the settings file's reading defaults under the options */
+    enum pb_code rc =
+        cli->pack ? take_pack(cli, path, err) : packopts_apply(NULL, &cli->seen, &cli->log, err);
     if (rc == PB_OK)
         rc = logopts_analyze(path, &cli->log, &stats, &a, &s, err);
     if (rc == PB_OK)

@@ -117,6 +117,7 @@ static const struct option longopts[] = {
 
 struct predict_cli {
     struct log_cli log;
+    struct packopts_seen seen; /* reading options given, over the settings file's */
     const char *log_path, *db, *id;
     const char *profiles[MAX_PROFILES];
     int nprofiles;
@@ -346,7 +347,7 @@ enum pb_code cmd_predict(int argc, char **argv, struct app *app, struct pb_error
         const char *v = optarg;
         int bad = 0, n = 0;
         int taken = logopts_take(c, v, &cli.log, err);
-        if (taken < 0)
+        if (taken < 0 || (taken && packopts_note(&cli.seen, c, v, err) < 0))
             return PB_EUSAGE;
         if (taken)
             continue;
@@ -470,7 +471,9 @@ enum pb_code cmd_predict(int argc, char **argv, struct app *app, struct pb_error
         }
     } else {
         struct logread_stats stats;
-        if ((rc = logopts_analyze(cli.log_path, &cli.log, &stats, &a, NULL, err)) != PB_OK)
+        /* the settings file's reading defaults under the options given */
+        if ((rc = packopts_apply(NULL, &cli.seen, &cli.log, err)) != PB_OK ||
+            (rc = logopts_analyze(cli.log_path, &cli.log, &stats, &a, NULL, err)) != PB_OK)
             goto cleanup;
         if (a->cells <= 0 || !isfinite(a->r0_mohm.value)) {
             rc = pb_error_set(err, PB_EUSAGE, "%s: %s: cannot predict from this log", cli.log_path,

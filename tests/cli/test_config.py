@@ -147,6 +147,39 @@ class Config(unittest.TestCase):
             rc, out, err = go(home, "config", "--json", opt, 50)
             self.assertEqual(shown(out)["retire-imbalance"], ("50", "option"), opt)
 
+    def test_reading_defaults(self):
+        # precedence (man packbook, FILES): option > the pack's remembered settings > the file >
+        # the chemistry's default (LiPo 3.30 V, man packbook ANALYZE OPTIONS)
+        home = pbtest.temp_dir("pbconfig-reading-")
+        db = os.path.join(home, "h.db")
+        path = write_config(home, "cut-off = 3.5\n# the ground station's export\n"
+                                  "current-sign = discharge-positive\n")
+        rc, out, err = go(home, "config", "--json")
+        s = shown(out)
+        self.assertEqual(s["cut-off"], ("3.5", f"{path}:1"))
+        self.assertEqual(s["current-sign"], ("discharge-positive", f"{path}:3"))
+
+        def floor(*args):
+            rc, out, err = go(home, "analyze", LOG, "--json", *args)
+            self.assertEqual(rc, EXIT_OK, err)
+            return json.loads(out)["floor_v_per_cell"]
+
+        self.assertEqual(floor("--cells", 4), 3.5, "the file's")
+        self.assertEqual(floor("--cells", 4, "--cut-off", 3.2), 3.2, "the option's")
+        go(home, "pack", "add", "TC-04", "--cells", 4, "--chemistry", "lipo", "--capacity", 5000,
+           "--cut-off", 3.3, "--db", db)
+        self.assertEqual(floor("--pack", "TC-04", "--db", db), 3.3, "the pack's")
+        self.assertEqual(floor("--pack", "TC-04", "--db", db, "--floor", 3.1), 3.1)
+        go(home, "pack", "edit", "TC-04", "--clear-settings", "--db", db)
+        self.assertEqual(floor("--pack", "TC-04", "--db", db), 3.5, "the file's again")
+        write_config(home, "")
+        self.assertEqual(floor("--cells", 4), 3.3, "LiPo's own")
+        # defaults that do not go together are refused where they are written
+        path = write_config(home, "sense-ohm = 510\n")
+        rc, out, err = go(home, "fleet")
+        self.assertEqual(rc, EXIT_USAGE)
+        self.assertIn(f"{path}: reading defaults: the sense chain needs all of", err)
+
     def test_malformed_file(self):
         home = pbtest.temp_dir("pbconfig-bad-")
         for text, line, phrase in (("reserve = 40\nbogus = 1\n", 2, "unknown key 'bogus'"),
