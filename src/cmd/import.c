@@ -162,8 +162,11 @@ static enum pb_code expand(const char *arg, int depth, struct expand_ctx *x, str
         free(p);
     }
     closedir(d);
-    qsort(files.v, files.n, sizeof *files.v, by_name);
-    qsort(dirs.v, dirs.n, sizeof *dirs.v, by_name);
+    /* qsort's array may not be NULL, even for no elements */
+    if (files.n)
+        qsort(files.v, files.n, sizeof *files.v, by_name);
+    if (dirs.n)
+        qsort(dirs.v, dirs.n, sizeof *dirs.v, by_name);
     for (size_t k = 0; rc == PB_OK && k < files.n; k++) {
         char why[160];
         if (!looks_like_log(files.v[k], why, sizeof why)) {

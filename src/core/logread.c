@@ -444,7 +444,7 @@ static int map_columns(struct reader *r)
         const char *nm = names[c][0] ? names[c] : "(no name)";
         if (used + strlen(nm) + 6 < cap)
             snprintf(buf + used, cap - used, "%s%s", used ? ", " : "", nm);
-        else if (used + 5 < cap && strcmp(buf + used - 3, "...") != 0)
+        else if (used >= 3 && used + 5 < cap && strcmp(buf + used - 3, "...") != 0)
             snprintf(buf + used, cap - used, ", ...");
     }
 
