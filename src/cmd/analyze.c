@@ -9,6 +9,7 @@
 #include "../report/plots.h"
 #include "../report/report.h"
 #include "cmd.h"
+#include "config.h"
 #include "logopts.h"
 #include "packopts.h"
 #include "packview.h"
@@ -204,6 +205,7 @@ enum pb_code cmd_analyze(int argc, char **argv, struct app *app, struct pb_error
     if (cli.series && (rc = write_series(cli.series, s, a, cli.log.an.capacity_mah, err)) != PB_OK)
         goto cleanup;
     struct plot_opts fig = {0};
+    fig.reserve_pct = config_reserve();
     if (cli.plot &&
         (rc = plot_flight(cli.plot, &fig, s, a, cli.log.an.capacity_mah, name, err)) != PB_OK)
         goto cleanup;

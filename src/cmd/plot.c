@@ -320,6 +320,7 @@ enum pb_code cmd_plot(int argc, char **argv, struct app *app, struct pb_error *e
     logopts_init(&cli.log);
     cli.log.read.min_samples = 1; /* a figure of one sample still says what there is */
     config_rules(&cli.rules);
+    cli.fig.reserve_pct = config_reserve();
     cli.by = TREND_WEEK;
     cli.horizon = 1000.0;
     int done = 0;

@@ -267,7 +267,8 @@ enum pb_code plot_flight(const char *path, const struct plot_opts *o, const stru
     static const struct plot_style st_socv = {PLOT_SKY, 1.7, DASH_LONG, 0};
     static const struct plot_style st_cell = {PLOT_GREY, 0.8, DASH_SOLID, 0};
     static const struct plot_style st_weak = {PLOT_VERMILION, 1.8, DASH_SOLID, 0};
-    char floor_key[64], weak_key[48];
+    char floor_key[64], weak_key[48], reserve_key[48];
+    snprintf(reserve_key, sizeof reserve_key, "landing reserve %.0f %%", o->reserve_pct);
     double vlo = HUGE_VAL, vhi = -HUGE_VAL;
     range_of(s->v_v, s->n, &vlo, &vhi);
     range_of(c.ocv_v, s->n, &vlo, &vhi);
@@ -304,6 +305,8 @@ enum pb_code plot_flight(const char *path, const struct plot_opts *o, const stru
             if (has_soc_ocv)
                 k[(*nk)++] = (struct plot_key){has_ocv ? "from OCV" : "from loaded voltage",
                                                st_socv, -1, 0, 0};
+            if (o->reserve_pct > 0)
+                k[(*nk)++] = (struct plot_key){reserve_key, st_floor, -1, 0, 0};
             break;
         case P_CELLS:
             k[(*nk)++] = (struct plot_key){"cells", st_cell, -1, 0, 0};
@@ -415,6 +418,9 @@ enum pb_code plot_flight(const char *path, const struct plot_opts *o, const stru
             plot_line(p, q, 0, s->t_s, c.i_a, s->n, x_div, a->gap_s, &st_i);
             break;
         case P_SOC:
+            /* the reserve under the traces: a limit, like the cut-off on the voltage */
+            if (o->reserve_pct > 0)
+                plot_hline(p, q, o->reserve_pct, &st_floor, NULL, 0);
             if (has_soc_ocv)
                 plot_line(p, q, 0, s->t_s, c.soc_ocv, s->n, x_div, a->gap_s, &st_socv);
             if (has_soc_cc)

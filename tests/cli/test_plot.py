@@ -698,6 +698,29 @@ class EdgeCases(FigureChecks, unittest.TestCase):
 
 # ---- 3. the voltage trace is where the map says, and nowhere else --------------------------
 
+class LandingReserve(FigureChecks, unittest.TestCase):
+    def test_reserve_on_the_soc_panel(self):
+        """The landing reserve (30 %, predict's default, common practice) is a vermilion line
+        across the SoC panel: every vermilion pixel inside that panel lies within 2 px of the
+        row the axes map puts 30 % at, and the line spans most of the panel's width."""
+        with tempfile.TemporaryDirectory() as d:
+            out, amap = os.path.join(d, "r.png"), os.path.join(d, "r.json")
+            log = os.path.join(ROOT, "samples", "tm07-plain.csv")
+            self.plot(log, "--cells", 4, "--chemistry", "lipo", "--capacity", 5000, "-o", out,
+                      "--axes-json", amap)
+            m = axes_map(amap)
+            pan = panel(m, "soc")
+            _, y30 = to_px(pan, 0, 30.0)
+            red = interior(colour_mask(load_rgb(out), VERMILION, NEAR), pan, SLACK)
+            rows, cols = np.nonzero(red)
+            self.assertGreater(len(rows), 0, "no reserve line")
+            rows = rows + int(math.ceil(pan["top"])) + SLACK
+            off = sorted({int(r) for r in rows if abs(r + 0.5 - y30) > 2})
+            self.assertEqual(off[:10], [], "vermilion off the 30 % row")
+            # a dotted line: its dots spread over at least 80 % of the panel's width
+            self.assertGreater(cols.max() - cols.min(), 0.8 * (pan["right"] - pan["left"] - 20))
+
+
 class VoltageTrace(FigureChecks, unittest.TestCase):
     def check_trace(self, log, opts, t, v, min_checked):
         """Renders log; every sampled (t, v) of the log must have a pixel close to #0072B2
