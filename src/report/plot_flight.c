@@ -158,8 +158,8 @@ static void title_block(struct plot *p, const struct series *s, const struct ana
                      100.0 * a->capacity_mah.value / rated_mah);
         snprintf(cap, sizeof cap, " \u00b7 capacity %s%s", c, pct);
     }
-    snprintf(line, sizeof line, "%s%s \u00b7 R0 %s%s \u00b7 SoC %s \u2192 %s%s", charge, energy, r0,
-             isfinite(a->r0_mohm.ci95) ? " (pack, 95 %)" : "", soc0, soc1, cap);
+    snprintf(line, sizeof line, "%s%s \u00b7 IR (R0) %s%s \u00b7 SoC %s \u2192 %s%s", charge,
+             energy, r0, isfinite(a->r0_mohm.ci95) ? " (pack, 95 %)" : "", soc0, soc1, cap);
     y += fs * 1.45;
     plot_text(p, left, y, 0, plot_fit_size(p, line, fs, 0, avail), 0, 0x222222u, line);
 

@@ -103,7 +103,7 @@ enum pb_code plot_trend(const char *path, const struct plot_opts *o, const struc
     double x_now = n ? x[n - 1] : 0.0;
     double base_r0 = v->health.r0_base_mohm_cell;
     struct quantity qs[2] = {
-        {"R0", "m\u03a9/cell", r0, &v->trend.r0, base_r0 * rules->watch_r0_ratio},
+        {"IR (R0)", "m\u03a9/cell", r0, &v->trend.r0, base_r0 * rules->watch_r0_ratio},
         {"capacity", "% of rated", cap, &v->trend.capacity, rules->watch_capacity_pct},
     };
 
@@ -154,7 +154,7 @@ enum pb_code plot_trend(const char *path, const struct plot_opts *o, const struc
         const struct line_fit *l = by_date ? &tl->vs_days : &tl->vs_cycles;
         snprintf(pp->name, sizeof pp->name, "%s", j == 0 ? "r0" : "capacity");
         snprintf(pp->y.label, sizeof pp->y.label,
-                 j == 0 ? "R0 (m\u03a9 per cell)" : "capacity (%% of rated)");
+                 j == 0 ? "IR, R0 (m\u03a9 per cell)" : "capacity (%% of rated)");
         double ylo = HUGE_VAL, yhi = -HUGE_VAL;
         for (size_t k = 0; k < n; k++)
             if (isfinite(qs[j].y[k])) {
@@ -223,8 +223,9 @@ enum pb_code plot_trend(const char *path, const struct plot_opts *o, const struc
                   plot_fit_size(p, ln[j], fs * 0.9, 0, right - left), 0, 0x222222u, ln[j]);
     }
     if (v->health.status != HEALTH_OK && v->health.reason[0]) {
-        snprintf(line, sizeof line, "%s: %s", health_status_name(v->health.status),
-                 v->health.reason);
+        char why[sizeof v->health.reason + 16];
+        plot_ohm_text(v->health.reason, why, sizeof why);
+        snprintf(line, sizeof line, "%s: %s", health_status_name(v->health.status), why);
         plot_text(p, left, fs * 5.75, 0, plot_fit_size(p, line, fs * 0.9, 0, right - left), 0,
                   PLOT_VERMILION, line);
     }
