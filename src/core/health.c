@@ -233,6 +233,14 @@ double health_line_band(const struct line_fit *l, double x)
     return l->t95 * sqrt(var > 0.0 ? var : 0.0);
 }
 
+double health_line_predict_band(const struct line_fit *l, double x)
+{
+    if (!l->ok)
+        return NAN;
+    double var = l->cov_aa + 2.0 * x * l->cov_ab + x * x * l->cov_bb;
+    return l->t95 * sqrt(l->sigma * l->sigma + (var > 0.0 ? var : 0.0));
+}
+
 int health_crossing(const struct line_fit *l, double level, int rising, double x_now,
                     double *x_cross)
 {

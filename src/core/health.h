@@ -93,6 +93,10 @@ struct line_fit health_line(const double *x, const double *y, size_t n, int plai
  * (t95 sqrt(var(a + b x))); NAN when the fit is not ok. */
 double health_line_band(const struct line_fit *l, double x);
 
+/* Half-width of the 95 % prediction band at x, where a new point is expected:
+ * t95 sqrt(sigma^2 + var(a + b x)); NAN when the fit is not ok. */
+double health_line_predict_band(const struct line_fit *l, double x);
+
 /* Where a line reaches level (from below when rising, from above when
  * not), beyond x_now: sets *x_cross and returns 1; returns 0 when the line
  * heads away or its slope is not told from zero by its interval, -1 when

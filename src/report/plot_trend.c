@@ -125,6 +125,7 @@ enum pb_code plot_trend(const char *path, const struct plot_opts *o, const struc
     static const struct plot_style st_bucket = {PLOT_BLACK, 1.25, DASH_SOLID, 0};
     static const struct plot_style st_line = {PLOT_BLACK, 1.4, DASH_SOLID, 0};
     static const struct plot_style st_band = {PLOT_SKY, 1, DASH_SOLID, 0.35};
+    static const struct plot_style st_pband = {PLOT_SKY, 1, DASH_SOLID, 0.14};
     static const struct plot_style st_retire = {PLOT_VERMILION, 1.4, DASH_LONG, 0};
     static const struct plot_style st_watch = {PLOT_ORANGE, 1.3, DASH_DOT, 0};
     static const struct plot_style st_cross = {PLOT_VERMILION, 1.2, DASH_DOT, 0};
@@ -132,13 +133,14 @@ enum pb_code plot_trend(const char *path, const struct plot_opts *o, const struc
         v->trend.nbuckets && strchr(v->trend.buckets[0].key, 'W')            ? "weekly mean"
         : v->trend.nbuckets && strncmp(v->trend.buckets[0].key, "cycles", 6) ? "monthly mean"
                                                                              : "5-cycle mean";
-    struct plot_key keys[2][6];
+    struct plot_key keys[2][8];
     size_t nk[2] = {0, 0};
     for (int j = 0; j < 2; j++) {
         keys[j][nk[j]++] = (struct plot_key){"flight", st_pt[j], MARK_CIRCLE, 0, 0};
         keys[j][nk[j]++] = (struct plot_key){bucket_name, st_bucket, MARK_DIAMOND, 1, 0};
         keys[j][nk[j]++] = (struct plot_key){"fitted line", st_line, -1, 0, 0};
-        keys[j][nk[j]++] = (struct plot_key){"95 % band", st_band, -1, 0, 1};
+        keys[j][nk[j]++] = (struct plot_key){"95 % band of the line", st_band, -1, 0, 1};
+        keys[j][nk[j]++] = (struct plot_key){"95 % of flights expected", st_pband, -1, 0, 1};
         keys[j][nk[j]++] = (struct plot_key){"retire", st_retire, -1, 0, 0};
         keys[j][nk[j]++] = (struct plot_key){"watch", st_watch, -1, 0, 0};
     }
@@ -253,9 +255,17 @@ enum pb_code plot_trend(const char *path, const struct plot_opts *o, const struc
         }
         if (l->ok) {
             double xa0 = x[0], xa1 = x_hi;
+            /* where the next flights are expected (prediction band), then the
+             * line's own uncertainty inside it */
             for (int k = 0; k < LINE_POINTS; k++) {
                 lx[k] = xa0 + (xa1 - xa0) * k / (LINE_POINTS - 1);
                 ly[k] = l->a + l->b * lx[k];
+                double hw = health_line_predict_band(l, lx[k]);
+                lo[k] = ly[k] - hw;
+                hi[k] = ly[k] + hw;
+            }
+            plot_band(p, pp, lx, lo, hi, LINE_POINTS, &st_pband);
+            for (int k = 0; k < LINE_POINTS; k++) {
                 double hw = health_line_band(l, lx[k]);
                 lo[k] = ly[k] - hw;
                 hi[k] = ly[k] + hw;

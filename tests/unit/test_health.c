@@ -213,6 +213,23 @@ static void test_trend_without_flights(void **state)
     health_trend_release(&t);
 }
 
+static void test_prediction_band(void **state)
+{
+    (void)state;
+    /* numpy.linalg.lstsq and scipy.stats.t.ppf(0.975, 4) (Debian python3-numpy/scipy) on
+     * these six points: the 95 % half-widths of the mean and of a new point at x = 2.5 and
+     * x = 8 (beyond the data); relative 1e-6 */
+    const double x[6] = {0, 1, 2, 3, 4, 5}, y[6] = {1.0, 2.1, 2.9, 4.2, 4.8, 6.1};
+    struct line_fit l = health_line(x, y, 6, 1);
+    assert_true(l.ok);
+    check_rel(health_line_band(&l, 2.5), 0.18641376864717255, 1e-6, "mean, x 2.5");
+    check_rel(health_line_predict_band(&l, 2.5), 0.493204472798748, 1e-6, "new point, x 2.5");
+    check_rel(health_line_band(&l, 8.0), 0.6286161006577212, 1e-6, "mean, x 8");
+    check_rel(health_line_predict_band(&l, 8.0), 0.7769547997493599, 1e-6, "new point, x 8");
+    struct line_fit none = {0};
+    assert_true(isnan(health_line_predict_band(&none, 1.0)));
+}
+
 int main(void)
 {
     gsl_set_error_handler_off();
@@ -223,6 +240,7 @@ int main(void)
         cmocka_unit_test(test_crossing_directions),
         cmocka_unit_test(test_rules),
         cmocka_unit_test(test_weakest_cell),
+        cmocka_unit_test(test_prediction_band),
         cmocka_unit_test(test_trend_buckets_iso_weeks),
         cmocka_unit_test(test_trend_without_flights),
     };
