@@ -122,9 +122,34 @@ static void fmt_est(char *buf, size_t cap, const struct estimate *e, int min_dec
         snprintf(buf, cap, "%.*f %s", d, e->value, unit);
 }
 
-static void title_block(struct plot *p, const struct series *s, const struct analysis *a,
-                        double rated_mah, const struct plot_opts *o, const char *name,
-                        const struct spans *sp, double left, double right)
+/* Lines a title line takes: one when it fits at 80 % of its size or more
+ * (shrunk to fit, as before), else wrapped over up to three at 85 %, so
+ * small figures (480x360) stay readable. */
+static int block_lines(struct plot *p, const char *text, double size, double avail)
+{
+    if (plot_fit_size(p, text, size, 0, avail) >= 0.8 * size)
+        return 1;
+    int n = (int)ceil(plot_text_width(p, text, size * 0.85, 0) / avail * 1.15);
+    return n < 2 ? 2 : n > 3 ? 3 : n;
+}
+
+/* Draws a title line over lines (block_lines); returns the height used. */
+static double block_draw(struct plot *p, int draw, double x, double y, double avail, double size,
+                         uint32_t rgb, const char *text)
+{
+    int lines = block_lines(p, text, size, avail);
+    if (draw && lines == 1)
+        plot_text(p, x, y, 0, plot_fit_size(p, text, size, 0, avail), 0, rgb, text);
+    else if (draw)
+        plot_text_wrap(p, x, y, avail, size * 0.85, lines, rgb, text);
+    return (lines - 1) * size * 0.85 * 1.3;
+}
+
+/* The title block; draws nothing unless draw. Returns how much taller it is
+ * than its three-line height (wrapped lines on small figures). */
+static double title_block(struct plot *p, int draw, const struct series *s,
+                          const struct analysis *a, double rated_mah, const struct plot_opts *o,
+                          const char *name, const struct spans *sp, double left, double right)
 {
     double fs = plot_font(p), avail = right - left, y = fs * 1.7;
     char line[512], when[64] = "date not in log", r0[64], soc0[48], soc1[48];
@@ -138,8 +163,11 @@ static void title_block(struct plot *p, const struct series *s, const struct ana
     snprintf(line, sizeof line, "%s", o->title ? o->title : base);
     double ww = plot_text_width(p, when, fs * 1.05, 0);
     double ts = plot_fit_size(p, line, fs * 1.35, 1, avail - ww - fs * 2);
-    plot_text(p, left, y, 0, ts, 1, 0x111111u, line);
-    plot_text(p, right, y, 2, fs * 1.05, 0, 0x333333u, when);
+    if (draw) {
+        plot_text(p, left, y, 0, ts, 1, 0x111111u, line);
+        plot_text(p, right, y, 2, fs * 1.05, 0, 0x333333u, when);
+    }
+    double extra = 0.0;
 
     fmt_est(r0, sizeof r0, &a->r0_mohm, 1, "m\u03a9");
     fmt_est(soc0, sizeof soc0, &a->soc_start_pct, 0, "%");
@@ -161,7 +189,9 @@ static void title_block(struct plot *p, const struct series *s, const struct ana
     snprintf(line, sizeof line, "%s%s \u00b7 IR (R0) %s%s \u00b7 SoC %s \u2192 %s%s", charge,
              energy, r0, isfinite(a->r0_mohm.ci95) ? " (pack, 95 %)" : "", soc0, soc1, cap);
     y += fs * 1.45;
-    plot_text(p, left, y, 0, plot_fit_size(p, line, fs, 0, avail), 0, 0x222222u, line);
+    double more = block_draw(p, draw, left, y, avail, fs, 0x222222u, line);
+    y += more;
+    extra += more;
 
     char cells[96] = "cell count unknown", minv[64] = "", spread[80] = "", floor_txt[96];
     if (a->cells > 0) {
@@ -194,7 +224,8 @@ static void title_block(struct plot *p, const struct series *s, const struct ana
     snprintf(line, sizeof line, "%s \u00b7 %zu sample%s, %.1f min%s%s%s%s%s", cells, s->n,
              s->n == 1 ? "" : "s", a->duration_s / 60.0, minv, floor_txt, gaps, spread, warns);
     y += fs * 1.3;
-    plot_text(p, left, y, 0, plot_fit_size(p, line, fs * 0.9, 0, avail), 0, 0x222222u, line);
+    extra += block_draw(p, draw, left, y, avail, fs * 0.9, 0x222222u, line);
+    return extra;
 }
 
 static void footer(struct plot *p, double left, double right)
@@ -324,6 +355,10 @@ enum pb_code plot_flight(const char *path, const struct plot_opts *o, const stru
     double weight[P_MAX];
     int rows[P_MAX];
     double top = fs * 5.4, bottom = h - fs * 4.6, left = fs * 6, right = w - fs * 6;
+    /* room for title lines wrapped on a small figure, measured a little
+     * narrower than the final margins can leave, so drawing never needs more */
+    double title_extra = title_block(p, 0, s, a, rated_mah, o, name, &sp, fs * 8, w - fs * 8);
+    top += title_extra;
     for (int j = 0; j < np; j++) {
         weight[j] = weight_of[which[j]];
         rows[j] = plot_legend_rows(p, right - left, keys[j], nkeys[j]);
@@ -400,7 +435,7 @@ enum pb_code plot_flight(const char *path, const struct plot_opts *o, const stru
         pa[j].x = xa;
     }
 
-    title_block(p, s, a, rated_mah, o, name, &sp, left, right);
+    (void)title_block(p, 1, s, a, rated_mah, o, name, &sp, left, right);
     for (int j = 0; j < np; j++) {
         struct plot_panel *q = &pa[j];
         shade(p, q, s, a, x_div);
