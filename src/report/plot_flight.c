@@ -13,7 +13,7 @@
 #define PACKBOOK_VERSION "0.0.0"
 #endif
 
-enum { P_VOLT = 0, P_CURRENT, P_SOC, P_CELLS, P_MAX };
+enum { P_VOLT = 0, P_CURRENT, P_SOC, P_CELLS, P_TEMP, P_MAX };
 
 /* Time under the floor is tinted, missing data hatched, in every panel. */
 static const struct plot_style tint = {PLOT_VERMILION, 1, DASH_SOLID, 0.16};
@@ -287,6 +287,9 @@ enum pb_code plot_flight(const char *path, const struct plot_opts *o, const stru
     which[np++] = P_SOC;
     if (has_cells)
         which[np++] = P_CELLS;
+    int has_temp = a->has_temp && s->temp_c && isfinite(a->temp_max_c);
+    if (has_temp)
+        which[np++] = P_TEMP;
 
     /* legend keys per panel */
     static const struct plot_style st_v = {PLOT_BLUE, 1.3, DASH_SOLID, 0};
@@ -298,6 +301,7 @@ enum pb_code plot_flight(const char *path, const struct plot_opts *o, const stru
     static const struct plot_style st_socv = {PLOT_SKY, 1.7, DASH_LONG, 0};
     static const struct plot_style st_cell = {PLOT_GREY, 0.8, DASH_SOLID, 0};
     static const struct plot_style st_weak = {PLOT_VERMILION, 1.8, DASH_SOLID, 0};
+    static const struct plot_style st_temp = {PLOT_PURPLE, 1.3, DASH_SOLID, 0};
     char floor_key[64], weak_key[48], reserve_key[48];
     snprintf(reserve_key, sizeof reserve_key, "landing reserve %.0f %%", o->reserve_pct);
     double vlo = HUGE_VAL, vhi = -HUGE_VAL;
@@ -346,12 +350,15 @@ enum pb_code plot_flight(const char *path, const struct plot_opts *o, const stru
                 k[(*nk)++] = (struct plot_key){weak_key, st_weak, -1, 0, 0};
             }
             break;
+        case P_TEMP:
+            k[(*nk)++] = (struct plot_key){"pack temperature", st_temp, -1, 0, 0};
+            break;
         }
     }
 
     /* layout: margins estimated wide for the legend rows, then set from
      * the tick labels the panels actually need */
-    static const double weight_of[P_MAX] = {1.45, 1.0, 0.9, 1.0};
+    static const double weight_of[P_MAX] = {1.45, 1.0, 0.9, 1.0, 0.6};
     double weight[P_MAX];
     int rows[P_MAX];
     double top = fs * 5.4, bottom = h - fs * 4.6, left = fs * 6, right = w - fs * 6;
@@ -412,6 +419,15 @@ enum pb_code plot_flight(const char *path, const struct plot_opts *o, const stru
             if (a->floor_v >= lo - 0.35 * fmax(hi - lo, 0.1))
                 lo = fmin(lo, a->floor_v);
             break;
+        case P_TEMP:
+            snprintf(q->name, sizeof q->name, "temp");
+            snprintf(q->y.label, sizeof q->y.label, "temperature (\u00b0C)");
+            range_of(s->temp_c, s->n, &lo, &hi);
+            if (!(hi - lo > 1.0)) { /* a steady temperature: a 2-degree window around it */
+                double mid = 0.5 * (lo + hi);
+                lo = mid - 1.0, hi = mid + 1.0;
+            }
+            break;
         }
         if (which[j] != P_SOC) {
             /* a round extreme would sit on the frame, half clipped */
@@ -470,16 +486,21 @@ enum pb_code plot_flight(const char *path, const struct plot_opts *o, const stru
                 plot_line(p, q, 0, s->t_s, s->cell_v[a->weakest_cell - 1], s->n, x_div, a->gap_s,
                           &st_weak);
             break;
+        case P_TEMP:
+            plot_line(p, q, 0, s->t_s, s->temp_c, s->n, x_div, a->gap_s, &st_temp);
+            break;
         }
         if (s->n == 1) {
             /* a single sample draws no line: mark it */
             double *y = which[j] == P_VOLT      ? s->v_v
                         : which[j] == P_CURRENT ? c.i_a
                         : which[j] == P_SOC     ? (has_soc_cc ? c.soc_cc : c.soc_ocv)
+                        : which[j] == P_TEMP    ? s->temp_c
                                                 : s->cell_v[0];
             const struct plot_style *ms = which[j] == P_VOLT      ? &st_v
                                           : which[j] == P_CURRENT ? &st_i
                                           : which[j] == P_SOC     ? (has_soc_cc ? &st_cc : &st_socv)
+                                          : which[j] == P_TEMP    ? &st_temp
                                                                   : &st_cell;
             plot_marker(p, q, s->t_s[0] / x_div, y[0], MARK_CIRCLE, 1, ms);
         }

@@ -97,7 +97,7 @@ SAMPLE_OPTS = {
 # which panels each should get (plot --help: current only with current, cells only with cells)
 SAMPLE_PANELS = {
     "tm07-plain.csv": ["voltage", "current", "soc"],
-    "tm12-cells.csv": ["voltage", "current", "soc", "cells"],
+    "tm12-cells.csv": ["voltage", "current", "soc", "cells", "temp"],  # it logs temp_c
     "tm09-voltage-only.csv": ["voltage", "soc"],
     "tm03-adc.csv": ["voltage", "current", "soc"],
     "tm15-deep.csv": ["voltage", "current", "soc"],
@@ -719,6 +719,29 @@ class LandingReserve(FigureChecks, unittest.TestCase):
             self.assertEqual(off[:10], [], "vermilion off the 30 % row")
             # a dotted line: its dots spread over at least 80 % of the panel's width
             self.assertGreater(cols.max() - cols.min(), 0.8 * (pan["right"] - pan["left"] - 20))
+
+
+class TemperaturePanel(FigureChecks, unittest.TestCase):
+    def test_temperature_trace(self):
+        """samples/tm12-cells.csv logs temp_c: a 'temp' panel draws it in #CC79A7; every 25th
+        sample's (t, temperature) from the log has a pixel of that colour within 2 px of where
+        the axes map puts it (the log's own numbers are the reference)."""
+        log = os.path.join(ROOT, "samples", "tm12-cells.csv")
+        with open(log) as f:
+            rows = list(csv.DictReader(line for line in f if not line.startswith("#")))
+        with tempfile.TemporaryDirectory() as d:
+            out, amap = os.path.join(d, "t.png"), os.path.join(d, "t.json")
+            self.plot(log, "--chemistry", "lihv", "--capacity", 4200, "-o", out, "--axes-json",
+                      amap)
+            m = axes_map(amap)
+            pan = panel(m, "temp")
+            div = seconds_per_unit(pan["x"]["label"])
+            purple = colour_mask(load_rgb(out), (0xCC, 0x79, 0xA7), NEAR)
+            t0 = float(rows[0]["time_s"])
+            for r in rows[::25]:
+                fx, fy = to_px(pan, (float(r["time_s"]) - t0) / div, float(r["temp_c"]))
+                self.assertTrue(near(purple, fx, fy, 2), f"no temperature at {r['time_s']} s")
+        # a log without temperature has no such panel (see SAMPLE_PANELS for tm07)
 
 
 class VoltageTrace(FigureChecks, unittest.TestCase):
