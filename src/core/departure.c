@@ -10,11 +10,11 @@ const char *departure_name(enum departure_quantity q)
 {
     switch (q) {
     case DEP_R0:
-        return "R0";
+        return "IR";
     case DEP_CAPACITY:
         return "capacity";
     case DEP_SPREAD:
-        return "cell spread";
+        return "cell imbalance";
     case DEP_NQ:
         break;
     }

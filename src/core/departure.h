@@ -14,7 +14,7 @@
  * with m flights in the history the ratio is a Student t of m - 2 degrees
  * of freedom, put on the normal scale by its tail probability. A flight
  * whose residual reaches DEPARTURE_Z of those in the damaging direction
- * (R0 or spread up, capacity down) departs. A recovery (capacity
+ * (IR or imbalance up, capacity down) departs. A recovery (capacity
  * up after a rest, resistance down) never flags. */
 #ifndef PB_DEPARTURE_H
 #define PB_DEPARTURE_H
@@ -52,10 +52,10 @@ struct departure {
 int departure_scan(const struct health_flight *f, size_t n, int cells, double rated_mah,
                    const int *acked, struct departure *out);
 
-/* "R0", "capacity" or "cell spread". */
+/* "IR" (internal resistance, R0), "capacity" or "cell imbalance". */
 const char *departure_name(enum departure_quantity q);
 
-/* "R0 up 35 % against its trend (4.1 σ)" into buf (UTF-8 sigma). */
+/* "IR up 35 % against its trend (4.1 σ)" into buf (UTF-8 sigma). */
 void departure_text(const struct departure *d, char *buf, size_t cap);
 
 #endif

@@ -84,9 +84,9 @@ def check_step(tmp):
     assert rcode == 0, err
     line = next((x for x in out.splitlines() if x.startswith("inspect:")), "")
     dep = departures(db, "ST-01")
-    ok = len(dep) == 1 and dep[0][1]["quantity"] == "R0" and "R0 up" in line
+    ok = len(dep) == 1 and dep[0][1]["quantity"] == "IR" and "IR up" in line
     row("step: R0 +35 % on flight 31, import names it", line[:90] or "no inspect line",
-        "flagged on that flight (R0 up)", "injected step", ok)
+        "flagged on that flight (IR up)", "injected step", ok)
     if not dep:
         return
     fid, d = dep[-1]

@@ -83,7 +83,7 @@ static void test_r0_step_found_on_its_flight(void **state)
     check_close(d[150].change_pct, 35.0, 3.5, "R0 step, % against trend");
     char text[128];
     departure_text(&d[150], text, sizeof text);
-    assert_non_null(strstr(text, "R0 up"));
+    assert_non_null(strstr(text, "IR up"));
     /* unacknowledged, the step stays out of the trend: the later flights
      * are still off it; acknowledged, the trend starts afresh from it and
      * the later flights are ordinary again */
