@@ -77,10 +77,12 @@ static const char *const migrations[] = {
     "  flight_id INTEGER PRIMARY KEY REFERENCES flights(id) ON DELETE CASCADE,"
     "  note TEXT NOT NULL,"
     "  acked_at TEXT NOT NULL);",
-    /* 6 -> 7: packs registered to fly together (each pack in one pair at most) */
+    /* 6 -> 7: packs registered to fly together (each pack in one pair at
+     * most: store_pair_add checks both columns; pack_a is the rowid, so the
+     * table needs no index of its own and a nearly full disk no extra page) */
     "CREATE TABLE pack_pairs ("
-    "  pack_a INTEGER NOT NULL UNIQUE REFERENCES packs(id),"
-    "  pack_b INTEGER NOT NULL UNIQUE REFERENCES packs(id),"
+    "  pack_a INTEGER PRIMARY KEY REFERENCES packs(id),"
+    "  pack_b INTEGER NOT NULL REFERENCES packs(id),"
     "  created_at TEXT NOT NULL,"
     "  CHECK (pack_a < pack_b));",
 };
