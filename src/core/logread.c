@@ -206,8 +206,7 @@ static int slot_for(const struct col_spec *sp)
     return -1;
 }
 
-static int assign(struct reader *r, int col, const struct col_spec *sp, const char *name,
-                  int override)
+static int assign(struct reader *r, int col, const struct col_spec *sp, int override)
 {
     int slot = slot_for(sp);
     if (slot < 0) {
@@ -229,7 +228,6 @@ static int assign(struct reader *r, int col, const struct col_spec *sp, const ch
     for (int s = 0; s < NSLOTS; s++) /* an override moves a column out of its old slot */
         if (override && r->slot_col[s] == col)
             r->slot_col[s] = -1;
-    (void)name;
     r->slot_col[slot] = col;
     r->spec[slot] = *sp;
     r->col_slot[col] = slot;
@@ -250,8 +248,19 @@ static int parse_name(struct reader *r, const char *name, size_t len, struct col
     return 0;
 }
 
-/* Applies "ROLE[_UNIT]=NAME|INDEX,..." on top of the detected layout. */
-static int apply_map(struct reader *r, char **names, int n)
+/* Applies "ROLE[_UNIT]=NAME|INDEX,..." on top of the detected layout. A name
+ * is looked up among the header's fields and the --columns entries (each list
+ * with its own length: the two can differ); an index may be any of the ncols
+ * columns. */
+static int find_name(char **names, int n, const char *target, size_t tlen)
+{
+    for (int c = 0; names && c < n; c++)
+        if (names[c] && strlen(names[c]) == tlen && strncasecmp(names[c], target, tlen) == 0)
+            return c;
+    return -1;
+}
+
+static int apply_map(struct reader *r, char **header, int nheader, char **layout, int nlayout)
 {
     const char *p = r->opts->map;
     while (p && *p) {
@@ -277,19 +286,19 @@ static int apply_map(struct reader *r, char **names, int n)
         int col = -1;
         char *iend = NULL;
         long idx = strtol(target, &iend, 10);
-        if (tlen > 0 && iend == target + tlen && idx >= 1 && idx <= n)
+        if (tlen > 0 && iend == target + tlen && idx >= 1 && idx <= r->ncols)
             col = (int)idx - 1;
-        for (int c = 0; c < n && col < 0; c++)
-            if (names && names[c] && strlen(names[c]) == tlen &&
-                strncasecmp(names[c], target, tlen) == 0)
-                col = c;
+        if (col < 0)
+            col = find_name(header, nheader, target, tlen);
+        if (col < 0)
+            col = find_name(layout, nlayout, target, tlen);
         if (col < 0) {
             pb_error_set(r->err, PB_EUSAGE, "--map: no column '%.*s' in %s", (int)tlen, target,
                          r->name);
             r->failed = 1;
             return -1;
         }
-        assign(r, col, &sp, names ? names[col] : "", 1);
+        assign(r, col, &sp, 1);
         p = end ? end + 1 : NULL;
     }
     return 0;
@@ -381,9 +390,10 @@ static int map_columns(struct reader *r)
         if (parse_name(r, names[c], strlen(names[c]), &sp, c + 1,
                        layout ? "--columns entry" : "column") != 0)
             goto cleanup;
-        assign(r, c, &sp, names[c], 0);
+        assign(r, c, &sp, 0);
     }
-    if (r->opts->map && apply_map(r, is_header ? r->first_row : layout, n) != 0)
+    if (r->opts->map && apply_map(r, is_header ? r->first_row : NULL,
+                                  is_header ? r->first_row_n : 0, layout, nlayout) != 0)
         goto cleanup;
 
     const char *where = layout ? "--columns" : "the header";
