@@ -189,6 +189,13 @@ static enum outcome import_one(struct store *st, const struct pack_rec *pack,
              (unsigned long long)h.high64, (unsigned long long)h.low64);
     snprintf(f.source, sizeof f.source, "%s", name);
     struct stat sb;
+    if (a->has_epoch &&
+        !(a->start_epoch_s >= ISOTIME_EPOCH_MIN_S && a->start_epoch_s < ISOTIME_EPOCH_END_S)) {
+        /* a Unix-time column can hold any number; the history keeps 1970-2100 */
+        pb_error_set(err, PB_EINPUT, "%s: the log starts at Unix time %.0f, outside %d-%d", name,
+                     a->start_epoch_s, ISOTIME_YEAR_MIN, ISOTIME_YEAR_MAX);
+        goto cleanup;
+    }
     if (a->has_epoch) {
         f.flown_epoch_s = a->start_epoch_s;
         snprintf(f.date_source, sizeof f.date_source, "log");
@@ -279,14 +286,17 @@ enum pb_code cmd_import(int argc, char **argv, struct app *app, struct pb_error 
         case I_QUIET:
             cli.quiet = 1;
             break;
-        case I_DATE:
-            if (isotime_parse(optarg, strlen(optarg), &cli.date_epoch_s, NULL) != 0)
+        case I_DATE: {
+            char why[128];
+            if (isotime_parse_why(optarg, strlen(optarg), &cli.date_epoch_s, NULL, why,
+                                  sizeof why) != 0)
                 return pb_error_set(err, PB_EUSAGE,
                                     "--date: expected an ISO 8601 date such as "
-                                    "2026-04-18 or 2026-04-18T07:30:00Z, got '%s'",
-                                    optarg);
+                                    "2026-04-18 or 2026-04-18T07:30:00Z, got '%s': %s",
+                                    optarg, why);
             cli.have_date = 1;
             break;
+        }
         case 'h':
             fputs(usage_head, stdout);
             fputs(logopts_usage, stdout);

@@ -94,10 +94,10 @@ static enum pb_code cmd_retire(struct store *st, struct pack_cli *cli, struct pb
     return rc;
 }
 
-static int valid_date(const char *s)
+static int valid_date(const char *s, char *why, size_t cap)
 {
     double e;
-    return isotime_parse(s, strlen(s), &e, NULL) == 0;
+    return isotime_parse_why(s, strlen(s), &e, NULL, why, cap) == 0;
 }
 
 enum pb_code cmd_pack(int argc, char **argv, struct app *app, struct pb_error *err)
@@ -132,12 +132,15 @@ enum pb_code cmd_pack(int argc, char **argv, struct app *app, struct pb_error *e
                 return PB_EUSAGE;
             cli.have_cap = 1;
             break;
-        case P_SINCE:
-            if (!valid_date(v))
+        case P_SINCE: {
+            char why[128];
+            if (!valid_date(v, why, sizeof why))
                 return pb_error_set(err, PB_EUSAGE,
-                                    "--since: expected a date like 2026-03-01, got '%s'", v);
+                                    "--since: expected a date like 2026-03-01, got '%s': %s", v,
+                                    why);
             snprintf(cli.rec.since, sizeof cli.rec.since, "%.10s", v);
             break;
+        }
         case P_NOTE:
             snprintf(cli.rec.note, sizeof cli.rec.note, "%s", v);
             break;

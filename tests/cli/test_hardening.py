@@ -48,5 +48,66 @@ class ColumnMapping(unittest.TestCase):
         self.assertEqual(rc, EXIT_INPUT, err)
 
 
+
+def temp_db():
+    return os.path.join(pbtest.temp_dir("pbtest-db-"), "p.db")
+
+
+def add_pack(db, label="P1", *extra):
+    rc, out, err = run("pack", "add", label, "--cells", 4, "--chemistry", "lipo", "--capacity",
+                       5000, "--db", db, *extra)
+    assert rc == 0, err
+    return label
+
+
+def plain_log(n=200, t0=None):
+    """A 4S flight: 200 samples at 10 Hz, the bad-input suite's synthetic log (voltage falling
+    from 16.6 V with a 12 mOhm sag of a current stepping 5-30 A)."""
+    steps = (5.0, 30.0, 12.0, 25.0, 8.0)
+    rows = ["time_s,voltage_v,current_a"]
+    for k in range(n):
+        i = steps[(k // 20) % len(steps)]
+        rows.append(f"{k / 10:.1f},{16.6 - 0.004 * k - 0.012 * i:.4f},{i:.2f}")
+    return "\n".join(rows) + "\n"
+
+
+class Dates(unittest.TestCase):
+    """Item 7: dates were rolled over (2026-02-31T24:00 stored as 2026-03-04), stored literally
+    (--since 2026-02-31T24:00) or accepted outside any sensible range (0000, 9999)."""
+
+    def test_since_and_date_refused_with_the_reason(self):
+        db = temp_db()
+        cases = [("2026-02-31T24:00", "February 2026 has 28 days"),
+                 ("2026-02-28T24:00", "hour 24 is not 00-23"),
+                 ("2026-02-28T12:34:60", "second 60 is not 00-59"),
+                 ("0000-01-01", "year 0000 is outside 1970-2100"),
+                 ("9999-12-31T23:59:59Z", "year 9999 is outside 1970-2100")]
+        for text, why in cases:
+            with self.subTest(text=text):
+                rc, out, err = run("pack", "add", "D", "--cells", 4, "--chemistry", "lipo",
+                                   "--capacity", 5000, "--since", text, "--db", db)
+                self.assertEqual(rc, EXIT_USAGE, err)
+                self.assertIn(why, err)
+        add_pack(db)
+        log = write_temp(plain_log())
+        for text, why in cases:
+            with self.subTest(text=text):
+                rc, out, err = run("import", "--pack", "P1", "--date", text, "--db", db, log)
+                self.assertEqual(rc, EXIT_USAGE, err)
+                self.assertIn(why, err)
+        rc, out, err = run("pack", "list", "--json", "--db", db)
+        self.assertEqual([p["id"] for p in json.loads(out)], ["P1"])
+
+    def test_unix_time_column_outside_the_range_is_not_stored(self):
+        db = temp_db()
+        add_pack(db)
+        rows = ["time_unix,voltage_v,current_a"] + [
+            f"{-5e10 + k / 10:.1f},{16.5 - 0.004 * k:.3f},10" for k in range(50)]
+        log = write_temp("\n".join(rows) + "\n")
+        rc, out, err = run("import", "--pack", "P1", "--db", db, log)
+        self.assertEqual(rc, 1, err)
+        self.assertIn("outside 1970-2100", err + out)
+
+
 if __name__ == "__main__":
     unittest.main(verbosity=2)
