@@ -144,7 +144,7 @@ enum pb_code cmd_fleet(int argc, char **argv, struct app *app, struct pb_error *
     struct pack_view *views = NULL;
     double *safe = NULL;
     size_t nv = 0;
-    enum pb_code rc = packview_open_store(db, 1, &st, err);
+    enum pb_code rc = packview_open_store(db, STORE_READ, &st, err);
     if (rc != PB_OK)
         return rc;
     if (status && strcmp(status, "retired") == 0)

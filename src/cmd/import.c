@@ -315,7 +315,7 @@ enum pb_code cmd_import(int argc, char **argv, struct app *app, struct pb_error 
 
     struct store *st = NULL;
     struct path_list paths = {0};
-    rc = packview_open_store(cli.db, 1, &st, err);
+    rc = packview_open_store(cli.db, STORE_WRITE, &st, err);
     if (rc != PB_OK)
         return rc;
     struct pack_rec pack;

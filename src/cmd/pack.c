@@ -190,7 +190,11 @@ enum pb_code cmd_pack(int argc, char **argv, struct app *app, struct pb_error *e
         return pb_error_set(err, PB_EUSAGE, "pack: unknown action '%s' (add, list, show, retire)",
                             sub);
     struct store *st = NULL;
-    enum pb_code rc = packview_open_store(cli.db, 1, &st, err);
+    enum pb_code rc = packview_open_store(cli.db,
+                                          strcmp(sub, "add") == 0      ? STORE_CREATE
+                                          : strcmp(sub, "retire") == 0 ? STORE_WRITE
+                                                                       : STORE_READ,
+                                          &st, err);
     if (rc != PB_OK)
         return rc;
     rc = run(st, &cli, err);

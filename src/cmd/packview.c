@@ -63,7 +63,7 @@ int ruleopts_take(int c, const char *v, struct health_rules *r, struct pb_error 
     return bad ? -1 : 1;
 }
 
-enum pb_code packview_open_store(const char *db, int create, struct store **out,
+enum pb_code packview_open_store(const char *db, enum store_mode mode, struct store **out,
                                  struct pb_error *err)
 {
     char path[1024];
@@ -72,7 +72,7 @@ enum pb_code packview_open_store(const char *db, int create, struct store **out,
     else if (store_default_path(path, sizeof path) != 0)
         return pb_error_set(err, PB_EUSAGE,
                             "no database path: set PACKBOOK_DB or HOME, or give --db");
-    return store_open(path, create, out, err);
+    return store_open(path, mode, out, err);
 }
 
 static void to_health(const struct flight_rec *f, size_t n, struct health_flight *h)

@@ -30,8 +30,8 @@ int ruleopts_take(int c, const char *arg, struct health_rules *r, struct pb_erro
 int trendopts_by(const char *arg, enum trend_by *by, struct pb_error *err);
 int trendopts_fit(const char *arg, int *plain, struct pb_error *err);
 
-/* Opens the store named by --db (NULL: the default path). */
-enum pb_code packview_open_store(const char *db, int create, struct store **out,
+/* Opens the store named by --db (NULL: the default path) in mode. */
+enum pb_code packview_open_store(const char *db, enum store_mode mode, struct store **out,
                                  struct pb_error *err);
 
 /* Fills v for pack p: flights, health, trend. On failure v holds nothing to release. */

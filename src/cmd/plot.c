@@ -232,7 +232,7 @@ static enum pb_code take_pack(struct plot_cli *cli, const char *path, struct pb_
 {
     struct store *st = NULL;
     struct pack_rec p;
-    enum pb_code rc = packview_open_store(cli->db, 0, &st, err);
+    enum pb_code rc = packview_open_store(cli->db, STORE_READ, &st, err);
     if (rc == PB_OK)
         rc = store_pack_get(st, cli->pack, &p, err);
     store_close(st);
@@ -276,7 +276,7 @@ static enum pb_code plot_history(const struct plot_cli *cli, const char *id, str
     struct store *st = NULL;
     struct pack_view *views = NULL;
     size_t nv = 0;
-    enum pb_code rc = packview_open_store(cli->db, 1, &st, err);
+    enum pb_code rc = packview_open_store(cli->db, STORE_READ, &st, err);
     if (rc != PB_OK)
         return rc;
     if (cli->kind == KIND_TREND) {

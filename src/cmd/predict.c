@@ -413,7 +413,7 @@ enum pb_code cmd_predict(int argc, char **argv, struct app *app, struct pb_error
         struct pack_rec p;
         struct health_rules rules;
         health_rules_default(&rules);
-        if ((rc = packview_open_store(cli.db, 1, &st, err)) != PB_OK ||
+        if ((rc = packview_open_store(cli.db, STORE_READ, &st, err)) != PB_OK ||
             (rc = store_pack_get(st, cli.id, &p, err)) != PB_OK ||
             (rc = packview_load(st, &p, &rules, TREND_WEEK, 0, 1000, &view, err)) != PB_OK ||
             (rc = inputs_from_history(&view, &in, err)) != PB_OK)

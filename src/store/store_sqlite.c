@@ -183,44 +183,155 @@ static enum pb_code migrate(struct store *st, struct pb_error *err)
     return PB_OK;
 }
 
-enum pb_code store_open(const char *path, int create, struct store **out, struct pb_error *err)
+/* What the file at hand is, read before anything is written to it. */
+enum owner { OWN_EMPTY, OWN_OURS, OWN_LEGACY, OWN_FOREIGN };
+
+static int scalar_int(sqlite3 *db, const char *sql, int *out)
+{
+    sqlite3_stmt *s = NULL;
+    int rc = sqlite3_prepare_v2(db, sql, -1, &s, NULL);
+    if (rc == SQLITE_OK && (rc = sqlite3_step(s)) == SQLITE_ROW) {
+        *out = sqlite3_column_int(s, 0);
+        rc = SQLITE_OK;
+    }
+    sqlite3_finalize(s);
+    return rc;
+}
+
+static enum pb_code classify(struct store *st, enum owner *own, struct pb_error *err)
+{
+    int app = 0, ver = 0, ntables = 0, packs = 0, flights = 0;
+    char names[160] = "";
+    int rc = scalar_int(st->db, "PRAGMA application_id", &app);
+    if (rc == SQLITE_OK)
+        rc = scalar_int(st->db, "PRAGMA user_version", &ver);
+    sqlite3_stmt *s = NULL;
+    if (rc == SQLITE_OK)
+        rc = sqlite3_prepare_v2(st->db,
+                                "SELECT name FROM sqlite_master WHERE type = 'table' AND name "
+                                "NOT LIKE 'sqlite\\_%' ESCAPE '\\' ORDER BY name",
+                                -1, &s, NULL);
+    while (rc == SQLITE_OK && (rc = sqlite3_step(s)) == SQLITE_ROW) {
+        const char *name = (const char *)sqlite3_column_text(s, 0);
+        name = name ? name : "";
+        packs |= strcmp(name, "packs") == 0;
+        flights |= strcmp(name, "flights") == 0;
+        if (ntables < 3) {
+            size_t used = strlen(names);
+            snprintf(names + used, sizeof names - used, "%s'%.40s'", ntables ? ", " : "", name);
+        }
+        ntables++;
+        rc = SQLITE_OK;
+    }
+    sqlite3_finalize(s);
+    if (rc != SQLITE_DONE && rc != SQLITE_OK) {
+        int code = sqlite3_errcode(st->db);
+        if (code == SQLITE_NOTADB || code == SQLITE_CORRUPT)
+            return pb_error_set(err, PB_ESTORE, "%s: not a packbook database (not an SQLite file)",
+                                st->path);
+        return db_error(st, err, "cannot open");
+    }
+    if (app == STORE_APPLICATION_ID)
+        *own = OWN_OURS;
+    else if (app == 0 && ntables == 0 && ver == 0)
+        *own = OWN_EMPTY;
+    else if (app == 0 && ver >= 1 && packs && flights)
+        *own = OWN_LEGACY;
+    else if (app != 0)
+        return pb_error_set(err, PB_ESTORE,
+                            "%s: not a packbook database (its application id 0x%08x belongs to "
+                            "another program); left untouched",
+                            st->path, (unsigned)app);
+    else
+        return pb_error_set(err, PB_ESTORE,
+                            "%s: not a packbook database (it holds %d table%s: %s%s); left "
+                            "untouched",
+                            st->path, ntables, ntables == 1 ? "" : "s", names,
+                            ntables > 3 ? ", ..." : "");
+    return PB_OK;
+}
+
+/* A reading command on a store of an older schema: the file stays as it is,
+ * the run reads an upgraded copy in memory. */
+static enum pb_code migrate_in_memory(struct store *st, struct pb_error *err)
+{
+    sqlite3 *mem = NULL;
+    if (sqlite3_open(":memory:", &mem) != SQLITE_OK) {
+        sqlite3_close(mem);
+        return pb_error_set(err, PB_ENOMEM, "out of memory");
+    }
+    sqlite3_backup *b = sqlite3_backup_init(mem, "main", st->db, "main");
+    int rc = b ? sqlite3_backup_step(b, -1) : SQLITE_ERROR;
+    if (b)
+        sqlite3_backup_finish(b);
+    if (rc != SQLITE_DONE) {
+        enum pb_code pc = db_error(st, err, "cannot read the database");
+        sqlite3_close(mem);
+        return pc;
+    }
+    sqlite3_close(st->db);
+    st->db = mem;
+    sqlite3_extended_result_codes(st->db, 1);
+    sqlite3_exec(st->db, "PRAGMA foreign_keys = ON", NULL, NULL, NULL);
+    return migrate(st, err);
+}
+
+enum pb_code store_open(const char *path, enum store_mode mode, struct store **out,
+                        struct pb_error *err)
 {
     *out = NULL;
     struct store *st = calloc(1, sizeof *st);
     if (!st)
         return pb_error_set(err, PB_ENOMEM, "out of memory");
     snprintf(st->path, sizeof st->path, "%s", path);
-    if (!create && access(path, F_OK) != 0) {
+    if (mode != STORE_CREATE && access(path, F_OK) != 0) {
         free(st);
         return pb_error_set(err, PB_ESTORE,
                             "%s: no history yet (add a pack with 'packbook pack add')", path);
     }
-    if (create && mkdir_parents(path) != 0) {
+    if (mode == STORE_CREATE && mkdir_parents(path) != 0) {
         free(st);
         return pb_error_set(err, PB_ESTORE, "cannot create the folder for '%s': %s", path,
                             strerror(errno));
     }
-    int flags = SQLITE_OPEN_READWRITE | (create ? SQLITE_OPEN_CREATE : 0);
+    int flags = mode == STORE_READ
+                    ? SQLITE_OPEN_READONLY
+                    : SQLITE_OPEN_READWRITE | (mode == STORE_CREATE ? SQLITE_OPEN_CREATE : 0);
+    enum pb_code rc = PB_OK;
     if (sqlite3_open_v2(path, &st->db, flags, NULL) != SQLITE_OK) {
-        enum pb_code rc = st->db ? db_error(st, err, "cannot open")
-                                 : pb_error_set(err, PB_ENOMEM, "out of memory");
-        store_close(st);
-        return rc;
+        rc = st->db ? db_error(st, err, "cannot open")
+                    : pb_error_set(err, PB_ENOMEM, "out of memory");
+        goto fail;
     }
     srand((unsigned)getpid()); /* jitter differs between processes */
     sqlite3_busy_handler(st->db, on_busy, NULL);
     sqlite3_extended_result_codes(st->db, 1);
-    /* the first statement that reads the file tells a non-SQLite file */
-    enum pb_code rc = PB_OK;
+    sqlite3_exec(st->db, "PRAGMA foreign_keys = ON", NULL, NULL, NULL);
+    /* whose file this is, before a single byte of it changes (WAL included) */
+    enum owner own;
+    if ((rc = classify(st, &own, err)) != PB_OK)
+        goto fail;
+    if (mode == STORE_READ) {
+        if (own == OWN_EMPTY) {
+            rc = pb_error_set(err, PB_ESTORE,
+                              "%s: no history yet (add a pack with 'packbook pack add')", path);
+            goto fail;
+        }
+        int want = (int)(sizeof migrations / sizeof *migrations);
+        int have = store_schema_version(st);
+        rc = have >= 0 && have < want ? migrate_in_memory(st, err) : migrate(st, err);
+        if (rc != PB_OK)
+            goto fail;
+        *out = st;
+        return PB_OK;
+    }
     char *msg = NULL;
     int prc;
     /* switching a new file to WAL takes an exclusive lock that SQLite does
      * not wait for (its busy handler is skipped to avoid deadlock): retry */
     for (int attempt = 0;; attempt++) {
-        prc = sqlite3_exec(st->db,
-                           "PRAGMA foreign_keys = ON; PRAGMA journal_mode = WAL;"
-                           "PRAGMA synchronous = NORMAL;",
-                           NULL, NULL, &msg);
+        prc = sqlite3_exec(st->db, "PRAGMA journal_mode = WAL; PRAGMA synchronous = NORMAL;", NULL,
+                           NULL, &msg);
         if ((prc & 0xff) != SQLITE_BUSY || attempt >= 200)
             break;
         sqlite3_free(msg);
@@ -228,24 +339,26 @@ enum pb_code store_open(const char *path, int create, struct store **out, struct
         struct timespec ts = {0, 5000000L + (rand() % 20000000L)};
         nanosleep(&ts, NULL);
     }
+    sqlite3_free(msg);
     if (prc != SQLITE_OK) {
-        int code = sqlite3_errcode(st->db);
-        if (code == SQLITE_NOTADB || code == SQLITE_CORRUPT)
-            rc = pb_error_set(err, PB_ESTORE, "%s: not a packbook database (not an SQLite file)",
-                              path);
-        else
-            rc = db_error(st, err, "cannot open");
-        sqlite3_free(msg);
-        store_close(st);
-        return rc;
+        rc = db_error(st, err, "cannot open");
+        goto fail;
     }
-    rc = migrate(st, err);
-    if (rc != PB_OK) {
-        store_close(st);
-        return rc;
+    if ((rc = migrate(st, err)) != PB_OK)
+        goto fail;
+    if (own != OWN_OURS) {
+        char sql[64];
+        snprintf(sql, sizeof sql, "PRAGMA application_id = %d", STORE_APPLICATION_ID);
+        if (sqlite3_exec(st->db, sql, NULL, NULL, NULL) != SQLITE_OK) {
+            rc = db_error(st, err, "cannot mark the database as packbook's");
+            goto fail;
+        }
     }
     *out = st;
     return PB_OK;
+fail:
+    store_close(st);
+    return rc;
 }
 
 void store_close(struct store *st)
@@ -422,11 +535,12 @@ static double col_num(sqlite3_stmt *s, int i)
 
 #define FLIGHT_NUMS                                                                                \
     X(duration_s)                                                                                  \
-    X(charge_used_mah) X(energy_used_wh) X(current_max_a) X(current_mean_a) X(power_mean_w)        \
-        X(voltage_min_v) X(cell_voltage_min_v) X(time_below_floor_s) X(r0_mohm) X(r0_ci95_mohm)    \
-            X(r1_mohm) X(tau_s) X(soc_start_pct) X(soc_end_pct) X(capacity_mah)                    \
-                X(capacity_ci95_mah) X(cell_spread_rest_mv) X(cell_spread_load_mv)                 \
-                    X(temperature_max_c) X(power_cruise_w)
+    X(charge_used_mah)                                                                             \
+    X(energy_used_wh) X(current_max_a) X(current_mean_a) X(power_mean_w) X(voltage_min_v)          \
+        X(cell_voltage_min_v) X(time_below_floor_s) X(r0_mohm) X(r0_ci95_mohm) X(r1_mohm) X(tau_s) \
+            X(soc_start_pct) X(soc_end_pct) X(capacity_mah) X(capacity_ci95_mah)                   \
+                X(cell_spread_rest_mv) X(cell_spread_load_mv) X(temperature_max_c)                 \
+                    X(power_cruise_w)
 
 #define X(name) #name ", "
 static const char flight_num_cols[] = FLIGHT_NUMS;

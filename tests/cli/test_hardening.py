@@ -109,5 +109,83 @@ class Dates(unittest.TestCase):
         self.assertIn("outside 1970-2100", err + out)
 
 
+
+def file_state(path):
+    """The bytes of a database and of its -wal/-shm companions (absent: None)."""
+    out = []
+    for p in (path, path + "-wal", path + "-shm"):
+        out.append(open(p, "rb").read() if os.path.exists(p) else None)
+    return out
+
+
+class ForeignDatabases(unittest.TestCase):
+    """Item 3: `pack list` / `fleet` on another program's SQLite file left packbook's tables,
+    user_version 3 and WAL mode behind. sqlite3 here is Python's module (the reference library
+    that made the file)."""
+
+    def foreign(self, app_id=0):
+        db = temp_db()
+        con = sqlite3.connect(db)
+        con.execute("CREATE TABLE customers (id INTEGER PRIMARY KEY, name TEXT)")
+        con.execute("INSERT INTO customers (name) VALUES ('Ada')")
+        if app_id:
+            con.execute(f"PRAGMA application_id = {app_id}")
+        con.commit()
+        con.close()
+        return db
+
+    def test_every_verb_refuses_and_leaves_it_alone(self):
+        db = self.foreign()
+        before = file_state(db)
+        log = write_temp(plain_log())
+        for args in (("pack", "list"), ("pack", "show", "P1"), ("fleet",), ("trend", "P1"),
+                     ("compare", "P1", "P2"), ("predict", "P1"),
+                     ("pack", "add", "P1", "--cells", 4, "--chemistry", "lipo", "--capacity",
+                      5000),
+                     ("pack", "retire", "P1", "--reason", "x"), ("import", "--pack", "P1", log),
+                     ("plot", "fleet", "-o", os.path.join(os.path.dirname(db), "f.png"))):
+            with self.subTest(args=args):
+                rc, out, err = run(args[0], "--db", db, *args[1:])
+                self.assertEqual(rc, EXIT_STORE, err)
+                self.assertIn("not a packbook database", err)
+                self.assertIn("'customers'", err)
+                self.assertEqual(file_state(db), before, "the file is left as it was")
+        con = sqlite3.connect(db)
+        self.assertEqual(con.execute("PRAGMA journal_mode").fetchone()[0], "delete")
+        self.assertEqual(con.execute("PRAGMA user_version").fetchone()[0], 0)
+        con.close()
+
+    def test_another_programs_application_id(self):
+        db = self.foreign(app_id=0x12345678)
+        rc, out, err = run("fleet", "--db", db)
+        self.assertEqual(rc, EXIT_STORE, err)
+        self.assertIn("application id 0x12345678", err)
+
+    def test_reading_verbs_never_create(self):
+        d = pbtest.temp_dir("pbtest-nodb-")
+        db = os.path.join(d, "sub", "none.db")
+        for args in (("fleet",), ("pack", "list", "--json"), ("trend", "P1"),
+                     ("predict", "P1"), ("import", "--pack", "P1", "-")):
+            with self.subTest(args=args):
+                rc, out, err = run(args[0], "--db", db, *args[1:], stdin=b"")
+                self.assertEqual(rc, EXIT_STORE, err)
+                self.assertIn("no history yet", err)
+                self.assertFalse(os.path.exists(os.path.dirname(db)), "nothing created")
+
+    def test_our_database_is_marked_and_read_only_verbs_do_not_write(self):
+        db = temp_db()
+        add_pack(db)
+        con = sqlite3.connect(db)
+        self.assertEqual(con.execute("PRAGMA application_id").fetchone()[0], 0x504B424B)
+        con.close()
+        os.chmod(db, 0o444)  # root ignores this; the read-only open below does not need it
+        try:
+            for args in (("pack", "list"), ("fleet",), ("pack", "show", "P1", "--json")):
+                rc, out, err = run(args[0], "--db", db, *args[1:])
+                self.assertEqual(rc, EXIT_OK, err)
+        finally:
+            os.chmod(db, 0o644)
+
+
 if __name__ == "__main__":
     unittest.main(verbosity=2)
