@@ -11,6 +11,7 @@
 #include <xxhash.h>
 
 #include "../core/isotime.h"
+#include "../core/utf8.h"
 #include "../report/report.h"
 #include "cmd.h"
 #include "logopts.h"
@@ -187,7 +188,8 @@ static enum outcome import_one(struct store *st, const struct pack_rec *pack,
     XXH128_hash_t h = XXH3_128bits_digest(hs);
     snprintf(f.content_hash, sizeof f.content_hash, "xxh128:%016llx%016llx",
              (unsigned long long)h.high64, (unsigned long long)h.low64);
-    snprintf(f.source, sizeof f.source, "%s", name);
+    /* the name as valid UTF-8 (a Latin-1 file name gets U+FFFD), cut at a character */
+    utf8_repair(f.source, sizeof f.source, name, strlen(name));
     struct stat sb;
     if (a->has_epoch &&
         !(a->start_epoch_s >= ISOTIME_EPOCH_MIN_S && a->start_epoch_s < ISOTIME_EPOCH_END_S)) {

@@ -6,6 +6,7 @@
 
 #include "../core/isotime.h"
 #include "../core/ocv.h"
+#include "../core/utf8.h"
 #include "cmd.h"
 #include "packview.h"
 
@@ -100,6 +101,26 @@ static int valid_date(const char *s, char *why, size_t cap)
     return isotime_parse_why(s, strlen(s), &e, NULL, why, cap) == 0;
 }
 
+/* Text kept in the history: valid UTF-8 and no longer than the store keeps,
+ * refused whole rather than cut (JSON cannot carry other bytes, and a cut note
+ * or reason would read as the whole). Returns 0, or -1 with err filled. */
+static int check_text(const char *what, const char *v, size_t max_bytes, struct pb_error *err)
+{
+    size_t len = strlen(v);
+    if (!utf8_valid(v, len)) {
+        pb_error_set(err, PB_EUSAGE,
+                     "%s: not valid UTF-8 text (convert it first, e.g. with iconv -f latin1 -t "
+                     "utf-8)",
+                     what);
+        return -1;
+    }
+    if (len > max_bytes) {
+        pb_error_set(err, PB_EUSAGE, "%s: %zu bytes, at most %zu are kept", what, len, max_bytes);
+        return -1;
+    }
+    return 0;
+}
+
 enum pb_code cmd_pack(int argc, char **argv, struct app *app, struct pb_error *err)
 {
     struct pack_cli cli = {0};
@@ -142,9 +163,13 @@ enum pb_code cmd_pack(int argc, char **argv, struct app *app, struct pb_error *e
             break;
         }
         case P_NOTE:
+            if (check_text("--note", v, sizeof cli.rec.note - 1, err) != 0)
+                return PB_EUSAGE;
             snprintf(cli.rec.note, sizeof cli.rec.note, "%s", v);
             break;
         case P_REASON:
+            if (check_text("--reason", v, sizeof cli.rec.retire_reason - 1, err) != 0)
+                return PB_EUSAGE;
             cli.reason = v;
             break;
         case P_JSON:
@@ -172,6 +197,9 @@ enum pb_code cmd_pack(int argc, char **argv, struct app *app, struct pb_error *e
         if (strlen(argv[optind + 1]) >= sizeof cli.rec.label || !argv[optind + 1][0])
             return pb_error_set(err, PB_EUSAGE, "pack %s: the ID must be 1 to %zu bytes", sub,
                                 sizeof cli.rec.label - 1);
+        if (strcmp(sub, "add") == 0 &&
+            check_text("pack add: the ID", argv[optind + 1], sizeof cli.rec.label - 1, err) != 0)
+            return PB_EUSAGE;
         snprintf(cli.rec.label, sizeof cli.rec.label, "%s", argv[optind + 1]);
     }
     if (optind + 1 + needs_id < argc)

@@ -38,11 +38,11 @@ static const char *fmt_num(char *buf, size_t cap, const char *fmt, double v)
 
 static json_t *pack_obj(const struct pack_rec *p)
 {
-    return json_pack("{s:s, s:i, s:i, s:s, s:f, s:o, s:o, s:s, s:o, s:o}", "id", p->label, "cells",
-                     p->cells, "parallel", p->parallel, "chemistry", p->chemistry, "capacity_mah",
-                     p->capacity_mah, "since", jout_str(p->since), "note", jout_str(p->note),
-                     "created_at", p->created_at, "retired_at", jout_str(p->retired_at),
-                     "retire_reason", jout_str(p->retire_reason));
+    return json_pack("{s:o, s:i, s:i, s:s, s:f, s:o, s:o, s:s, s:o, s:o}", "id", jout_str(p->label),
+                     "cells", p->cells, "parallel", p->parallel, "chemistry", p->chemistry,
+                     "capacity_mah", p->capacity_mah, "since", jout_str(p->since), "note",
+                     jout_str(p->note), "created_at", p->created_at, "retired_at",
+                     jout_str(p->retired_at), "retire_reason", jout_str(p->retire_reason));
 }
 
 int report_pack_list(FILE *out, const struct pack_rec *p, size_t n, int json)
@@ -50,7 +50,7 @@ int report_pack_list(FILE *out, const struct pack_rec *p, size_t n, int json)
     if (json) {
         json_t *a = json_array();
         for (size_t k = 0; k < n; k++)
-            json_array_append_new(a, pack_obj(&p[k]));
+            jout_append(a, pack_obj(&p[k]));
         return jout_write(out, a);
     }
     fprintf(out, "%-16s %-7s %-5s %10s  %-10s  %s\n", "pack", "layout", "chem", "rated mAh",
@@ -71,14 +71,15 @@ int report_pack_list(FILE *out, const struct pack_rec *p, size_t n, int json)
 static json_t *health_obj(const struct pack_view *v)
 {
     const struct pack_health *h = &v->health;
-    return json_pack("{s:I, s:o, s:o, s:o, s:o, s:o, s:o, s:o, s:i, s:s, s:s}", "flights",
+    const char *reason = v->pack.retired_at[0] ? v->pack.retire_reason : h->reason;
+    return json_pack("{s:I, s:o, s:o, s:o, s:o, s:o, s:o, s:o, s:i, s:s, s:o}", "flights",
                      (json_int_t)h->flights, "equivalent_cycles", jout_num(h->cycles), "last_flown",
                      jout_date(h->last_epoch_s), "r0_mohm_per_cell", jout_num(h->r0_now_mohm_cell),
                      "r0_baseline_mohm_per_cell", jout_num(h->r0_base_mohm_cell), "r0_ratio",
                      jout_num(h->r0_ratio), "capacity_pct", jout_num(h->capacity_pct),
                      "cell_spread_mv", jout_num(h->spread_mv), "overdischarges", h->overdischarges,
                      "status", v->pack.retired_at[0] ? "retired" : health_status_name(h->status),
-                     "reason", v->pack.retired_at[0] ? v->pack.retire_reason : h->reason);
+                     "reason", reason[0] ? jout_str(reason) : json_string(""));
 }
 
 static const char *status_of(const struct pack_view *v)
@@ -88,9 +89,9 @@ static const char *status_of(const struct pack_view *v)
 
 static json_t *flight_obj(const struct flight_rec *f)
 {
-    return json_pack("{s:o, s:s, s:s, s:o, s:o, s:o, s:o, s:o, s:o, s:o, s:o, s:i}", "flown_at",
+    return json_pack("{s:o, s:s, s:o, s:o, s:o, s:o, s:o, s:o, s:o, s:o, s:o, s:i}", "flown_at",
                      jout_date(f->flown_epoch_s), "date_source", f->date_source, "source",
-                     f->source, "duration_s", jout_num(f->duration_s), "charge_used_mah",
+                     jout_str(f->source), "duration_s", jout_num(f->duration_s), "charge_used_mah",
                      jout_num(f->charge_used_mah), "r0_mohm", jout_num(f->r0_mohm), "capacity_mah",
                      jout_num(f->capacity_mah), "soc_start_pct", jout_num(f->soc_start_pct),
                      "soc_end_pct", jout_num(f->soc_end_pct), "cell_spread_rest_mv",
@@ -104,11 +105,11 @@ int report_pack_show(FILE *out, const struct pack_view *v, int json)
     const struct pack_health *h = &v->health;
     if (json) {
         json_t *o = pack_obj(p);
-        json_object_set_new(o, "health", health_obj(v));
+        jout_set(o, "health", health_obj(v));
         json_t *fl = json_array();
         for (size_t k = 0; k < v->nflights; k++)
-            json_array_append_new(fl, flight_obj(&v->flights[k]));
-        json_object_set_new(o, "flights", fl);
+            jout_append(fl, flight_obj(&v->flights[k]));
+        jout_set(o, "flights", fl);
         return jout_write(out, o);
     }
     char b1[32], b2[32], b3[32];
@@ -183,17 +184,18 @@ int report_fleet(FILE *out, const struct pack_view *v, size_t n, enum fleet_form
     if (fmt == FLEET_JSON) {
         json_t *a = json_array();
         for (size_t k = 0; k < n; k++) {
-            json_t *o = json_pack("{s:s, s:i, s:s, s:f}", "id", v[k].pack.label, "cells",
+            json_t *o = json_pack("{s:o, s:i, s:s, s:f}", "id", jout_str(v[k].pack.label), "cells",
                                   v[k].pack.cells, "chemistry", v[k].pack.chemistry,
                                   "rated_capacity_mah", v[k].pack.capacity_mah);
             json_t *h = health_obj(&v[k]);
-            json_object_update(o, h);
+            if (!o || !h || json_object_update(o, h) != 0)
+                jout_set(o, "health", NULL); /* marks the document: never a pack without status */
             json_decref(h);
             if (safe)
-                json_object_set_new(o, "safe_time_s",
-                                    json_pack("{s:o, s:o}", "conservative", jout_num(safe[2 * k]),
-                                              "median", jout_num(safe[2 * k + 1])));
-            json_array_append_new(a, o);
+                jout_set(o, "safe_time_s",
+                         json_pack("{s:o, s:o}", "conservative", jout_num(safe[2 * k]), "median",
+                                   jout_num(safe[2 * k + 1])));
+            jout_append(a, o);
         }
         return jout_write(out, a);
     }
@@ -299,18 +301,18 @@ int report_trend(FILE *out, const struct pack_view *v, enum trend_by by, double 
         json_t *b = json_array();
         for (size_t k = 0; k < t->nbuckets; k++) {
             const struct trend_bucket *x = &t->buckets[k];
-            json_array_append_new(
+            jout_append(
                 b, json_pack("{s:s, s:I, s:o, s:o, s:o, s:o, s:o}", "bucket", x->key, "flights",
                              (json_int_t)x->flights, "first", jout_date(x->first_epoch_s), "last",
                              jout_date(x->last_epoch_s), "charge_mah", jout_num(x->charge_mah),
                              "r0_mohm_per_cell", jout_num(x->r0_mohm_cell), "capacity_pct",
                              jout_num(x->capacity_pct)));
         }
-        json_t *o = json_pack("{s:s, s:s, s:f, s:o, s:o, s:o, s:o, s:o}", "id", v->pack.label, "by",
-                              bynames[by], "horizon_cycles", horizon, "equivalent_cycles",
-                              jout_num(t->cycles_now), "buckets", b, "r0_mohm_per_cell",
-                              trend_line_obj(&t->r0), "capacity_pct", trend_line_obj(&t->capacity),
-                              "health", health_obj(v));
+        json_t *o = json_pack("{s:o, s:s, s:f, s:o, s:o, s:o, s:o, s:o}", "id",
+                              jout_str(v->pack.label), "by", bynames[by], "horizon_cycles", horizon,
+                              "equivalent_cycles", jout_num(t->cycles_now), "buckets", b,
+                              "r0_mohm_per_cell", trend_line_obj(&t->r0), "capacity_pct",
+                              trend_line_obj(&t->capacity), "health", health_obj(v));
         return jout_write(out, o);
     }
     char b1[32], b2[32], b3[32];
@@ -341,10 +343,10 @@ int report_compare(FILE *out, const struct pack_view *v, size_t n, int json)
         json_t *a = json_array();
         for (size_t k = 0; k < n; k++) {
             json_t *o =
-                json_pack("{s:s, s:o, s:o, s:o}", "id", v[k].pack.label, "health",
+                json_pack("{s:o, s:o, s:o, s:o}", "id", jout_str(v[k].pack.label), "health",
                           health_obj(&v[k]), "r0_mohm_per_cell", trend_line_obj(&v[k].trend.r0),
                           "capacity_pct", trend_line_obj(&v[k].trend.capacity));
-            json_array_append_new(a, o);
+            jout_append(a, o);
         }
         return jout_write(out, a);
     }

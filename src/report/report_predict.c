@@ -22,11 +22,11 @@ int report_predict_json(FILE *out, const struct predict_inputs *in, const struct
     static const char *const kinds[] = {"power", "current", "profile"};
     json_t *w = json_array();
     for (int k = 0; k < nwarn; k++)
-        json_array_append_new(w, json_string(warn[k]));
+        jout_append(w, json_string(warn[k]));
     json_t *counts = json_object();
     for (int k = 0; k < 5; k++)
-        json_object_set_new(counts, predict_limit_name((enum predict_limit)k),
-                            json_integer(mc->binding_count[k]));
+        jout_set(counts, predict_limit_name((enum predict_limit)k),
+                 json_integer(mc->binding_count[k]));
     double value = l->kind == LOAD_POWER     ? l->power_w
                    : l->kind == LOAD_CURRENT ? l->current_a
                                              : NAN;

@@ -12,6 +12,7 @@
 #include <unistd.h>
 
 #include "../core/isotime.h"
+#include "../core/utf8.h"
 #include "store.h"
 
 #define BUSY_TIMEOUT_MS 60000
@@ -371,10 +372,19 @@ void store_close(struct store *st)
 
 /* ---- packs ------------------------------------------------------------ */
 
+/* Stored text into a record's field as valid UTF-8. packbook writes text that
+ * fits (the commands cap it at input), so only a file written by an older
+ * packbook or by hand gets here with more, or with bytes that are not UTF-8:
+ * those become U+FFFD, and text too long is cut at a character boundary and
+ * ends in U+2026 so it never passes for the whole. */
 static void copy_text(char *dst, size_t cap, sqlite3_stmt *s, int col)
 {
-    const unsigned char *t = sqlite3_column_text(s, col);
-    snprintf(dst, cap, "%s", t ? (const char *)t : "");
+    const char *t = (const char *)sqlite3_column_text(s, col);
+    size_t len = t ? (size_t)sqlite3_column_bytes(s, col) : 0;
+    if (utf8_repair(dst, cap, t ? t : "", len) && cap > 4) {
+        utf8_repair(dst, cap - 3, t, len);
+        strcat(dst, "\xe2\x80\xa6");
+    }
 }
 
 static void read_pack(sqlite3_stmt *s, struct pack_rec *p)
@@ -536,11 +546,11 @@ static double col_num(sqlite3_stmt *s, int i)
 #define FLIGHT_NUMS                                                                                \
     X(duration_s)                                                                                  \
     X(charge_used_mah)                                                                             \
-    X(energy_used_wh) X(current_max_a) X(current_mean_a) X(power_mean_w) X(voltage_min_v)          \
-        X(cell_voltage_min_v) X(time_below_floor_s) X(r0_mohm) X(r0_ci95_mohm) X(r1_mohm) X(tau_s) \
-            X(soc_start_pct) X(soc_end_pct) X(capacity_mah) X(capacity_ci95_mah)                   \
-                X(cell_spread_rest_mv) X(cell_spread_load_mv) X(temperature_max_c)                 \
-                    X(power_cruise_w)
+    X(energy_used_wh)                                                                              \
+    X(current_max_a) X(current_mean_a) X(power_mean_w) X(voltage_min_v) X(cell_voltage_min_v)      \
+        X(time_below_floor_s) X(r0_mohm) X(r0_ci95_mohm) X(r1_mohm) X(tau_s) X(soc_start_pct)      \
+            X(soc_end_pct) X(capacity_mah) X(capacity_ci95_mah) X(cell_spread_rest_mv)             \
+                X(cell_spread_load_mv) X(temperature_max_c) X(power_cruise_w)
 
 #define X(name) #name ", "
 static const char flight_num_cols[] = FLIGHT_NUMS;

@@ -187,5 +187,111 @@ class ForeignDatabases(unittest.TestCase):
             os.chmod(db, 0o644)
 
 
+
+def run_bytes(*args, stdin=None):
+    """packbook with arguments given as bytes where they are not text (a Latin-1 name)."""
+    argv = [a if isinstance(a, bytes) else str(a).encode() for a in args]
+    p = subprocess.run([pbtest.PACKBOOK.encode(), *argv], input=stdin, capture_output=True,
+                       timeout=120)
+    strict = b"--json" in argv  # JSON must be UTF-8; text output is checked elsewhere
+    return (p.returncode, p.stdout.decode("utf-8", "strict" if strict else "replace"),
+            p.stderr.decode("utf-8", "replace"))
+
+
+class TextThatIsNotUtf8(unittest.TestCase):
+    """Item 2: JSON dropped records whose stored text was not valid UTF-8 (`pack list --json`
+    printed [] and exit 0). RFC 8259 section 8.1: JSON text exchanged between systems is UTF-8;
+    the replacement character is U+FFFD. Python's json and bytes.decode('utf-8') (strict) are
+    the references here: every document must parse and every string decode strictly."""
+
+    def test_latin1_file_name_is_kept_as_a_flight(self):
+        db = temp_db()
+        add_pack(db)
+        d = pbtest.temp_dir("pbtest-latin1-")
+        log = os.path.join(d.encode(), b"vol_\xe9t\xe9.csv")  # "vol_ete" in Latin-1
+        with open(log, "wb") as f:
+            f.write(plain_log().encode())
+        rc, out, err = run_bytes("import", "--pack", "P1", "--date", "2026-05-01", "--db", db, log)
+        self.assertEqual(rc, EXIT_OK, err)
+        rc, out, err = run_bytes("pack", "show", "P1", "--json", "--db", db)
+        self.assertEqual(rc, EXIT_OK, err)
+        doc = json.loads(out)
+        self.assertEqual(len(doc["flights"]), 1)
+        self.assertEqual(doc["health"]["flights"], 1)
+        self.assertTrue(doc["flights"][0]["source"].endswith("vol_\ufffdt\ufffd.csv"))
+        rc, out, err = run_bytes("analyze", log, "--json")
+        self.assertEqual(rc, EXIT_OK, err)
+        self.assertTrue(json.loads(out)["file"].endswith("vol_\ufffdt\ufffd.csv"))
+
+    def test_input_text_refused_not_cut(self):
+        db = temp_db()
+        base = ("pack", "add", "P2", "--cells", 4, "--chemistry", "lipo", "--capacity", 5000,
+                "--db", db)
+        for extra, why in (((b"--note", b"caf\xe9"), "--note: not valid UTF-8"),
+                           ((b"--note", ("\u00e9" * 128).encode()), "--note: 256 bytes, at most 255"),
+                           ((), None)):
+            rc, out, err = run_bytes(*base, *extra)
+            if why:
+                self.assertEqual(rc, EXIT_USAGE, err)
+                self.assertIn(why, err)
+            else:
+                self.assertEqual(rc, EXIT_OK, err)
+        rc, out, err = run_bytes("pack", "add", b"P\xe9", "--cells", 4, "--chemistry", "lipo",
+                                 "--capacity", 5000, "--db", db)
+        self.assertEqual(rc, EXIT_USAGE, err)
+        self.assertIn("the ID: not valid UTF-8", err)
+        rc, out, err = run("pack", "retire", "P2", "--reason", "x" * 120000, "--db", db)
+        self.assertEqual(rc, EXIT_USAGE, err)
+        self.assertIn("--reason: 120000 bytes, at most 255", err)
+        # 255 bytes of 2-byte characters and one ASCII byte fit exactly
+        note = "\u00e9" * 127 + "x"
+        rc, out, err = run("pack", "add", "P3", "--cells", 4, "--chemistry", "lipo",
+                           "--capacity", 5000, "--note", note, "--db", db)
+        self.assertEqual(rc, EXIT_OK, err)
+        rc, out, err = run("pack", "show", "P3", "--json", "--db", db)
+        self.assertEqual(json.loads(out)["note"], note, "kept whole")
+
+    def test_text_written_by_an_older_packbook(self):
+        # what an older packbook stored: a note cut mid-character at 255 bytes, a 120,000-byte
+        # reason, a Latin-1 pack label
+        db = temp_db()
+        add_pack(db, "P1")
+        add_pack(db, "P2")
+        log = write_temp(plain_log())
+        rc, out, err = run("import", "--pack", "P1", "--date", "2026-05-01", "--db", db, log)
+        self.assertEqual(rc, EXIT_OK, err)
+        con = sqlite3.connect(db)
+        cut = ("\u00e9" * 128).encode()[:255]
+        con.execute("UPDATE packs SET note = CAST(? AS TEXT) WHERE label = 'P1'", (cut,))
+        con.execute("UPDATE packs SET retired_at = '2026-06-01T00:00:00Z', "
+                    "retire_reason = ? WHERE label = 'P2'", ("r" * 120000,))
+        con.execute("UPDATE packs SET label = CAST(? AS TEXT) WHERE label = 'P2'",
+                    (b"P\xe92",))
+        con.commit()
+        con.close()
+        rc, out, err = run_bytes("pack", "list", "--json", "--db", db)
+        self.assertEqual(rc, EXIT_OK, err)
+        packs = json.loads(out)
+        self.assertEqual(len(packs), 2, "no pack dropped")
+        # the stray byte becomes U+FFFD (3 bytes), which no longer fits: cut, and marked
+        self.assertEqual(packs[0]["note"], "\u00e9" * 126 + "\u2026")
+        self.assertEqual(packs[1]["id"], "P\ufffd2")
+        reason = packs[1]["retire_reason"]
+        self.assertTrue(reason.endswith("\u2026"), "a cut text says so")
+        self.assertLessEqual(len(reason.encode()), 255)
+        rc, out, err = run_bytes("pack", "show", "P1", "--json", "--db", db)
+        self.assertEqual(rc, EXIT_OK, err)
+        doc = json.loads(out)
+        self.assertEqual((len(doc["flights"]), doc["health"]["flights"]), (1, 1))
+        rc, out, err = run_bytes("fleet", "--all", "--json", "--db", db)
+        self.assertEqual(rc, EXIT_OK, err)
+        fleet = json.loads(out)
+        self.assertEqual(len(fleet), 2)
+        for p in fleet:
+            self.assertIn("status", p)
+            self.assertIn("reason", p)
+        self.assertEqual([p["status"] for p in fleet if p["id"] == "P\ufffd2"], ["retired"])
+
+
 if __name__ == "__main__":
     unittest.main(verbosity=2)
