@@ -23,6 +23,17 @@ int LLVMFuzzerTestOneInput(const uint8_t *data, size_t size);
 
 static char dir[64];
 
+static void remove_dir(void)
+{
+    static const char *const names[] = {"p.db", "p.db-wal", "p.db-shm", "out.json"};
+    char path[128];
+    for (size_t k = 0; k < sizeof names / sizeof *names; k++) {
+        snprintf(path, sizeof path, "%s/%s", dir, names[k]);
+        unlink(path);
+    }
+    rmdir(dir);
+}
+
 static char *take_line(const uint8_t **p, size_t *n)
 {
     const uint8_t *nl = memchr(*p, '\n', *n);
@@ -76,9 +87,12 @@ int LLVMFuzzerTestOneInput(const uint8_t *data, size_t size)
 {
     if (!dir[0]) {
         gsl_set_error_handler_off();
-        snprintf(dir, sizeof dir, "/tmp/fuzz_store.XXXXXX");
+        /* tmpfs when there is one: a database per input is written many times a second */
+        snprintf(dir, sizeof dir, "%s/fuzz_store.XXXXXX",
+                 access("/dev/shm", W_OK) == 0 ? "/dev/shm" : "/tmp");
         if (!mkdtemp(dir))
             abort();
+        atexit(remove_dir);
     }
     char *label = take_line(&data, &size);
     char *note = take_line(&data, &size);
