@@ -5,6 +5,7 @@
 
 #include "../core/analyze.h"
 #include "../core/logread.h"
+#include "../report/outfile.h"
 #include "../report/plot.h"
 #include "../report/plots.h"
 #include "../report/report.h"
@@ -101,7 +102,10 @@ static enum pb_code parse_args(int argc, char **argv, struct analyze_cli *cli, i
         return pb_error_set(err, PB_EUSAGE, "analyze: one log at a time, got '%s' and '%s'",
                             argv[optind], argv[optind + 1]);
     cli->path = argv[optind];
-    return PB_OK;
+    const char *ins[] = {cli->path};
+    const char *outs[] = {cli->series, cli->plot};
+    const char *what[] = {"--series", "--plot"};
+    return outfile_check_distinct(ins, 1, outs, what, 2, err);
 }
 
 static void emit_row(void *ctx, const struct sample_row *r)
@@ -122,15 +126,15 @@ static enum pb_code write_series(const char *path, const struct series *s, const
                                  double rated_mah, struct pb_error *err)
 {
     int to_stdout = strcmp(path, "-") == 0;
-    FILE *out = to_stdout ? stdout : fopen(path, "w");
-    if (!out)
-        return pb_error_set(err, PB_EOUTPUT, "cannot write '%s': %m", path);
+    struct outfile *of = to_stdout ? NULL : outfile_open(path, err);
+    if (!to_stdout && !of)
+        return err->code;
+    FILE *out = to_stdout ? stdout : outfile_fp(of);
     fprintf(out, "time_s,voltage_v,current_a,ocv_v,soc_counted_pct,soc_ocv_pct\n");
     analyze_rows(s, a, rated_mah, emit_row, out);
-    int bad = ferror(out);
     if (!to_stdout)
-        bad |= fclose(out) != 0;
-    return bad ? pb_error_set(err, PB_EOUTPUT, "cannot write '%s'", path) : PB_OK;
+        return outfile_commit(of, err);
+    return ferror(out) ? pb_error_set(err, PB_EOUTPUT, "cannot write '%s'", path) : PB_OK;
 }
 
 enum pb_code cmd_analyze(int argc, char **argv, struct app *app, struct pb_error *err)

@@ -5,6 +5,7 @@
 #include <stdlib.h>
 #include <string.h>
 
+#include "../report/outfile.h"
 #include "../report/plot.h"
 #include "../report/plots.h"
 #include "cmd.h"
@@ -224,7 +225,16 @@ static enum pb_code parse(int argc, char **argv, struct plot_cli *cli, int *done
         return pb_error_set(err, PB_EUSAGE,
                             "plot: '%s': the output's name must end in .png, .svg or .pdf",
                             cli->out);
-    return PB_OK;
+    /* the log, or the database, is never overwritten by the figure or its axes map */
+    char db[1024] = "";
+    if (cli->db)
+        snprintf(db, sizeof db, "%s", cli->db);
+    else if (store_default_path(db, sizeof db) != 0)
+        db[0] = '\0';
+    const char *ins[] = {cli->kind == KIND_FLIGHT ? argv[optind] : NULL, db[0] ? db : NULL};
+    const char *outs[] = {cli->out, cli->fig.axes_json};
+    const char *what[] = {"-o", "--axes-json"};
+    return outfile_check_distinct(ins, 2, outs, what, 2, err);
 }
 
 /* --pack: the pack's cells, chemistry and capacity, and its name in the title. */

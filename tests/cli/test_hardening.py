@@ -293,5 +293,90 @@ class TextThatIsNotUtf8(unittest.TestCase):
         self.assertEqual([p["status"] for p in fleet if p["id"] == "P\ufffd2"], ["retired"])
 
 
+
+class Outputs(unittest.TestCase):
+    """Item 4: `analyze --series` used a plain fopen("w"): it followed a symlink onto another
+    file and `--series LOG` replaced the input; two outputs with one name lost one; temporary
+    files were left behind by SIGINT/SIGTERM."""
+
+    def setUp(self):
+        self.d = pbtest.temp_dir("pbtest-out-")
+        self.log = os.path.join(self.d, "log.csv")
+        with open(self.log, "w") as f:
+            f.write(plain_log())
+        with open(self.log, "rb") as f:
+            self.log_bytes = f.read()
+
+    def assert_refused(self, args, *contains):
+        rc, out, err = run(*args)
+        self.assertEqual(rc, EXIT_USAGE, err)
+        for c in contains:
+            self.assertIn(c, err)
+        with open(self.log, "rb") as f:
+            self.assertEqual(f.read(), self.log_bytes, "the input is unchanged")
+        self.assertEqual([n for n in os.listdir(self.d) if n != "log.csv"], [],
+                         "nothing written")
+
+    def test_series_onto_the_input(self):
+        self.assert_refused(("analyze", self.log, "--series", self.log), "is the input")
+        # the same file by another spelling and through a link
+        spelled = os.path.join(self.d, ".", "log.csv")
+        self.assert_refused(("analyze", self.log, "--series", spelled), "is the input")
+        link = os.path.join(pbtest.temp_dir("pbtest-link-"), "l.csv")
+        os.symlink(self.log, link)
+        self.assert_refused(("analyze", self.log, "--series", link), "is the input")
+
+    def test_two_outputs_with_one_name(self):
+        a = os.path.join(self.d, "a.png")
+        self.assert_refused(("analyze", self.log, "--series", a, "--plot", a), "same file")
+        self.assert_refused(("plot", self.log, "-o", a, "--axes-json", a), "same file")
+        self.assert_refused(("plot", self.log, "-o", self.log.replace(".csv", ".png"),
+                             "--axes-json", self.log), "is the input")
+
+    def test_a_symlink_at_the_output_is_replaced_not_followed(self):
+        victim = os.path.join(pbtest.temp_dir("pbtest-victim-"), "precious.txt")
+        with open(victim, "w") as f:
+            f.write("keep me\n")
+        link = os.path.join(self.d, "series.csv")
+        os.symlink(victim, link)
+        rc, out, err = run("analyze", self.log, "--series", link)
+        self.assertEqual(rc, EXIT_OK, err)
+        with open(victim) as f:
+            self.assertEqual(f.read(), "keep me\n")
+        self.assertFalse(os.path.islink(link))
+        with open(link) as f:
+            self.assertTrue(f.readline().startswith("time_s,voltage_v"))
+
+    def test_temporary_files_removed_on_a_signal(self):
+        import signal
+        import time
+        big = os.path.join(self.d, "big.csv")
+        steps = (5.0, 30.0, 12.0, 25.0, 8.0)
+        with open(big, "w") as f:
+            f.write("time_s,voltage_v,current_a\n")
+            for k in range(400000):
+                i = steps[(k // 20) % 5]
+                f.write(f"{k / 10:.1f},{16.6 - 0.00001 * k - 0.012 * i:.4f},{i:.2f}\n")
+        for sig in (signal.SIGINT, signal.SIGTERM):
+            with self.subTest(sig=sig):
+                out = os.path.join(self.d, f"series-{int(sig)}.csv")
+                p = subprocess.Popen([pbtest.PACKBOOK, "analyze", big, "--series", out],
+                                     stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
+                seen, deadline = False, time.time() + 60
+                while p.poll() is None and time.time() < deadline:
+                    if any(".tmp-" in n for n in os.listdir(self.d)):
+                        seen = True
+                        p.send_signal(sig)
+                        break
+                    time.sleep(0.0005)
+                p.communicate(timeout=60)
+                if not seen:
+                    self.skipTest("the run ended before its temporary file was seen")
+                self.assertEqual(p.returncode, -sig, "ended by the signal")
+                self.assertEqual([n for n in os.listdir(self.d) if ".tmp-" in n], [],
+                                 "no temporary file left")
+                self.assertFalse(os.path.exists(out), "no half output")
+
+
 if __name__ == "__main__":
     unittest.main(verbosity=2)
