@@ -3,16 +3,17 @@
 #include <limits.h>
 #include <stdio.h>
 #include <stdlib.h>
+#include <string.h>
 
+#include "../core/numparse.h"
 #include "cmd.h"
 
 int cmd_parse_double(const char *opt, const char *val, double lo, double hi, double *out,
                      struct pb_error *err)
 {
-    char *end = NULL;
-    errno = 0;
-    double v = strtod(val, &end);
-    if (end == val || *end != '\0' || errno == ERANGE || !(v >= lo && v <= hi)) {
+    /* the log's number reader, not strtod: no hex ("0x10"), no "inf"/"nan", no locale */
+    double v = 0;
+    if (num_parse(val, strlen(val), '.', &v) != NUM_OK || !(v >= lo && v <= hi)) {
         pb_error_set(err, PB_EUSAGE, "%s: expected a number from %g to %g, got '%s'", opt, lo, hi,
                      val);
         return -1;
