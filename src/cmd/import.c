@@ -29,15 +29,18 @@ static const char usage_head[] =
     "  --date DATE            date for logs without absolute time (ISO 8601)\n"
     "  --db PATH              history database (default: $PACKBOOK_DB, else\n"
     "                         $XDG_DATA_HOME/packbook/packbook.db)\n"
-    "  --quiet                no line per log, only the summary\n";
+    "  --quiet                no line per log, only the summary\n"
+    "  --wait S               wait up to S seconds for another process's lock on the\n"
+    "                         database (default 60, for each flight)\n";
 
-enum { I_PACK = 256, I_DATE, I_DB, I_QUIET };
+enum { I_PACK = 256, I_DATE, I_DB, I_QUIET, I_WAIT };
 
 static const struct option longopts[] = {
     {"pack", required_argument, NULL, I_PACK},
     {"date", required_argument, NULL, I_DATE},
     {"db", required_argument, NULL, I_DB},
     {"quiet", no_argument, NULL, I_QUIET},
+    {"wait", required_argument, NULL, I_WAIT},
     {"help", no_argument, NULL, 'h'},
     LOGOPTS_LONG,
     {NULL, 0, NULL, 0},
@@ -48,6 +51,7 @@ struct import_cli {
     const char *pack, *db;
     int have_date, quiet;
     double date_epoch_s;
+    double wait_s; /* --wait */
 };
 
 struct path_list {
@@ -270,6 +274,7 @@ enum pb_code cmd_import(int argc, char **argv, struct app *app, struct pb_error 
     struct import_cli cli = {0};
     int c;
     logopts_init(&cli.log);
+    cli.wait_s = STORE_WAIT_DEFAULT_S;
     optind = 1;
     opterr = 0;
     while ((c = getopt_long(argc, argv, "h", longopts, NULL)) != -1) {
@@ -287,6 +292,10 @@ enum pb_code cmd_import(int argc, char **argv, struct app *app, struct pb_error 
             break;
         case I_QUIET:
             cli.quiet = 1;
+            break;
+        case I_WAIT:
+            if (cmd_parse_double("--wait", optarg, 0, 86400, &cli.wait_s, err))
+                return PB_EUSAGE;
             break;
         case I_DATE: {
             char why[128];
@@ -317,7 +326,7 @@ enum pb_code cmd_import(int argc, char **argv, struct app *app, struct pb_error 
 
     struct store *st = NULL;
     struct path_list paths = {0};
-    rc = packview_open_store(cli.db, STORE_WRITE, &st, err);
+    rc = packview_open_store_wait(cli.db, STORE_WRITE, cli.wait_s, &st, err);
     if (rc != PB_OK)
         return rc;
     struct pack_rec pack;

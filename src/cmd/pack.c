@@ -19,9 +19,11 @@ static const char usage[] =
     "\n"
     "ID is the label written on the pack (free text). Retired packs are kept.\n"
     "  --db PATH              history database (default: $PACKBOOK_DB, else\n"
-    "                         $XDG_DATA_HOME/packbook/packbook.db)\n";
+    "                         $XDG_DATA_HOME/packbook/packbook.db)\n"
+    "  --wait S               wait up to S seconds for another process's lock on the\n"
+    "                         database (default 60)\n";
 
-enum { P_CELLS = 256, P_PAR, P_CHEM, P_CAP, P_SINCE, P_NOTE, P_REASON, P_JSON, P_DB };
+enum { P_CELLS = 256, P_PAR, P_CHEM, P_CAP, P_SINCE, P_NOTE, P_REASON, P_JSON, P_DB, P_WAIT };
 
 static const struct option longopts[] = {
     {"cells", required_argument, NULL, P_CELLS},
@@ -33,6 +35,7 @@ static const struct option longopts[] = {
     {"reason", required_argument, NULL, P_REASON},
     {"json", no_argument, NULL, P_JSON},
     {"db", required_argument, NULL, P_DB},
+    {"wait", required_argument, NULL, P_WAIT},
     {"help", no_argument, NULL, 'h'},
     {NULL, 0, NULL, 0},
 };
@@ -41,6 +44,7 @@ struct pack_cli {
     struct pack_rec rec;
     const char *reason, *db;
     int json, have_cells, have_chem, have_cap;
+    double wait_s;
 };
 
 static enum pb_code cmd_add(struct store *st, struct pack_cli *cli, struct pb_error *err)
@@ -127,6 +131,7 @@ enum pb_code cmd_pack(int argc, char **argv, struct app *app, struct pb_error *e
     int c;
     (void)app;
     cli.rec.parallel = 1;
+    cli.wait_s = STORE_WAIT_DEFAULT_S;
     optind = 1;
     opterr = 0;
     while ((c = getopt_long(argc, argv, "h", longopts, NULL)) != -1) {
@@ -178,6 +183,10 @@ enum pb_code cmd_pack(int argc, char **argv, struct app *app, struct pb_error *e
         case P_DB:
             cli.db = v;
             break;
+        case P_WAIT:
+            if (cmd_parse_double("--wait", v, 0, 86400, &cli.wait_s, err))
+                return PB_EUSAGE;
+            break;
         case 'h':
             fputs(usage, stdout);
             return cmd_finish_stdout(err);
@@ -218,11 +227,11 @@ enum pb_code cmd_pack(int argc, char **argv, struct app *app, struct pb_error *e
         return pb_error_set(err, PB_EUSAGE, "pack: unknown action '%s' (add, list, show, retire)",
                             sub);
     struct store *st = NULL;
-    enum pb_code rc = packview_open_store(cli.db,
-                                          strcmp(sub, "add") == 0      ? STORE_CREATE
-                                          : strcmp(sub, "retire") == 0 ? STORE_WRITE
-                                                                       : STORE_READ,
-                                          &st, err);
+    enum pb_code rc = packview_open_store_wait(cli.db,
+                                               strcmp(sub, "add") == 0      ? STORE_CREATE
+                                               : strcmp(sub, "retire") == 0 ? STORE_WRITE
+                                                                            : STORE_READ,
+                                               cli.wait_s, &st, err);
     if (rc != PB_OK)
         return rc;
     rc = run(st, &cli, err);

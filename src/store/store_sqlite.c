@@ -15,12 +15,17 @@
 #include "../core/utf8.h"
 #include "store.h"
 
-#define BUSY_TIMEOUT_MS 60000
-#define BUSY_RETRIES 8
+#define WAIT_NOTICE_AFTER_S 3.0 /* a wait this long is said (on_wait), once */
 
 struct store {
     sqlite3 *db;
     char path[1024];
+    /* the one bounded wait for another process's lock (store_open_wait) */
+    double wait_s;
+    double busy_since_s; /* monotonic time the current operation began waiting, 0: not */
+    int announced;
+    void (*on_wait)(void *ctx, double wait_s);
+    void *wait_ctx;
     int saved_code; /* error of a failed transaction step, kept past its ROLLBACK */
     char saved_msg[256];
 };
@@ -70,17 +75,51 @@ static const char *const migrations[] = {
     "ALTER TABLE flights ADD COLUMN power_cruise_w REAL;",
 };
 
-/* Busy handler: short jittered sleeps, so a waiting writer gets its turn
- * between another importer's flights (SQLite's default handler backs off to
- * 100 ms sleeps and lets a busy importer take the lock again each time). */
-static int on_busy(void *ctx, int count)
+static double mono_s(void)
 {
-    (void)ctx;
-    if ((long)count * 3 > BUSY_TIMEOUT_MS)
+    struct timespec ts;
+    clock_gettime(CLOCK_MONOTONIC, &ts);
+    return (double)ts.tv_sec + 1e-9 * (double)ts.tv_nsec;
+}
+
+/* Starts the clock of one operation's wait (each writing call: one wait). */
+static void wait_reset(struct store *st)
+{
+    st->busy_since_s = 0.0;
+}
+
+/* Seconds the current operation has waited for the lock; starts the clock. */
+static double waited_s(struct store *st)
+{
+    double now = mono_s();
+    if (st->busy_since_s == 0.0)
+        st->busy_since_s = now;
+    return now - st->busy_since_s;
+}
+
+/* 1 while the operation may wait on (and has slept a little), 0 when its wait is
+ * used up. Says once, after a few seconds, that it is waiting. */
+static int wait_more(struct store *st)
+{
+    double w = waited_s(st);
+    if (w >= st->wait_s)
         return 0;
+    if (!st->announced && w >= WAIT_NOTICE_AFTER_S && st->on_wait) {
+        st->announced = 1;
+        st->on_wait(st->wait_ctx, st->wait_s);
+    }
+    /* short jittered sleeps, so a waiting writer gets its turn between another
+     * importer's flights (SQLite's default handler backs off to 100 ms sleeps
+     * and lets a busy importer take the lock again each time) */
     struct timespec ts = {0, (long)(1000000L + (rand() % 3000000L))};
     nanosleep(&ts, NULL);
     return 1;
+}
+
+static int on_busy(void *ctx, int count)
+{
+    (void)count;
+    return wait_more(ctx);
 }
 
 static enum pb_code db_error(struct store *st, struct pb_error *err, const char *what)
@@ -98,8 +137,15 @@ static enum pb_code db_error(struct store *st, struct pb_error *err, const char 
         hint = " (the database or its folder is read-only)";
     else if ((code & 0xff) == SQLITE_FULL)
         hint = " (disk full: nothing of this step was stored)";
-    else if ((code & 0xff) == SQLITE_BUSY)
-        hint = " (another packbook kept the database busy too long)";
+    char busy[160];
+    if ((code & 0xff) == SQLITE_BUSY || (code & 0xff) == SQLITE_LOCKED) {
+        /* who holds it is not known: another packbook, a backup, an SQLite shell */
+        snprintf(busy, sizeof busy,
+                 " (another process held it locked for the whole wait of %.0f s; nothing of "
+                 "this step was stored: try again, or wait longer with --wait S)",
+                 st->wait_s);
+        hint = busy;
+    }
     return pb_error_set(err, PB_ESTORE, "%s: %s: %s%s", st->path, what, msg, hint);
 }
 
@@ -280,11 +326,21 @@ static enum pb_code migrate_in_memory(struct store *st, struct pb_error *err)
 enum pb_code store_open(const char *path, enum store_mode mode, struct store **out,
                         struct pb_error *err)
 {
+    return store_open_wait(path, mode, STORE_WAIT_DEFAULT_S, NULL, NULL, out, err);
+}
+
+enum pb_code store_open_wait(const char *path, enum store_mode mode, double wait_s,
+                             void (*on_wait)(void *ctx, double wait_s), void *ctx,
+                             struct store **out, struct pb_error *err)
+{
     *out = NULL;
     struct store *st = calloc(1, sizeof *st);
     if (!st)
         return pb_error_set(err, PB_ENOMEM, "out of memory");
     snprintf(st->path, sizeof st->path, "%s", path);
+    st->wait_s = wait_s;
+    st->on_wait = on_wait;
+    st->wait_ctx = ctx;
     if (mode != STORE_CREATE && access(path, F_OK) != 0) {
         free(st);
         return pb_error_set(err, PB_ESTORE,
@@ -305,7 +361,7 @@ enum pb_code store_open(const char *path, enum store_mode mode, struct store **o
         goto fail;
     }
     srand((unsigned)getpid()); /* jitter differs between processes */
-    sqlite3_busy_handler(st->db, on_busy, NULL);
+    sqlite3_busy_handler(st->db, on_busy, st);
     sqlite3_extended_result_codes(st->db, 1);
     sqlite3_exec(st->db, "PRAGMA foreign_keys = ON", NULL, NULL, NULL);
     /* whose file this is, before a single byte of it changes (WAL included) */
@@ -329,16 +385,16 @@ enum pb_code store_open(const char *path, enum store_mode mode, struct store **o
     char *msg = NULL;
     int prc;
     /* switching a new file to WAL takes an exclusive lock that SQLite does
-     * not wait for (its busy handler is skipped to avoid deadlock): retry */
-    for (int attempt = 0;; attempt++) {
+     * not wait for (its busy handler is skipped to avoid deadlock): retry,
+     * within the same one wait */
+    wait_reset(st);
+    for (;;) {
         prc = sqlite3_exec(st->db, "PRAGMA journal_mode = WAL; PRAGMA synchronous = NORMAL;", NULL,
                            NULL, &msg);
-        if ((prc & 0xff) != SQLITE_BUSY || attempt >= 200)
+        if ((prc & 0xff) != SQLITE_BUSY || !wait_more(st))
             break;
         sqlite3_free(msg);
         msg = NULL;
-        struct timespec ts = {0, 5000000L + (rand() % 20000000L)};
-        nanosleep(&ts, NULL);
     }
     sqlite3_free(msg);
     if (prc != SQLITE_OK) {
@@ -417,6 +473,7 @@ static void bind_text_or_null(sqlite3_stmt *s, int i, const char *t)
 
 enum pb_code store_pack_add(struct store *st, struct pack_rec *p, struct pb_error *err)
 {
+    wait_reset(st);
     sqlite3_stmt *s = NULL;
     now_iso(p->created_at, sizeof p->created_at);
     if (sqlite3_prepare_v2(st->db,
@@ -504,6 +561,7 @@ void store_packs_free(struct pack_rec *p)
 enum pb_code store_pack_retire(struct store *st, const char *label, const char *reason,
                                struct pb_error *err)
 {
+    wait_reset(st);
     struct pack_rec p;
     enum pb_code code = store_pack_get(st, label, &p, err);
     if (code != PB_OK)
@@ -547,10 +605,11 @@ static double col_num(sqlite3_stmt *s, int i)
     X(duration_s)                                                                                  \
     X(charge_used_mah)                                                                             \
     X(energy_used_wh)                                                                              \
-    X(current_max_a) X(current_mean_a) X(power_mean_w) X(voltage_min_v) X(cell_voltage_min_v)      \
-        X(time_below_floor_s) X(r0_mohm) X(r0_ci95_mohm) X(r1_mohm) X(tau_s) X(soc_start_pct)      \
-            X(soc_end_pct) X(capacity_mah) X(capacity_ci95_mah) X(cell_spread_rest_mv)             \
-                X(cell_spread_load_mv) X(temperature_max_c) X(power_cruise_w)
+    X(current_max_a)                                                                               \
+    X(current_mean_a) X(power_mean_w) X(voltage_min_v) X(cell_voltage_min_v) X(time_below_floor_s) \
+        X(r0_mohm) X(r0_ci95_mohm) X(r1_mohm) X(tau_s) X(soc_start_pct) X(soc_end_pct)             \
+            X(capacity_mah) X(capacity_ci95_mah) X(cell_spread_rest_mv) X(cell_spread_load_mv)     \
+                X(temperature_max_c) X(power_cruise_w)
 
 #define X(name) #name ", "
 static const char flight_num_cols[] = FLIGHT_NUMS;
@@ -668,16 +727,19 @@ enum pb_code store_flight_put(struct store *st, const struct flight_rec *f, cons
                               int *duplicate, char *dup_label, size_t dup_cap, struct pb_error *err)
 {
     *duplicate = 0;
-    for (int attempt = 0; attempt < BUSY_RETRIES; attempt++) {
+    /* one wait in all: the busy handler's and these retries' (a lock SQLite
+     * reports without calling the handler) share one clock */
+    wait_reset(st);
+    for (;;) {
         st->saved_code = 0;
         int rc = put_once(st, f, report_json, duplicate, dup_label, dup_cap);
         if (rc == SQLITE_OK)
             return PB_OK;
         if ((rc & 0xff) != SQLITE_BUSY && (rc & 0xff) != SQLITE_LOCKED)
             return db_error(st, err, "cannot store the flight");
-        usleep(50000u * (unsigned)(attempt + 1));
+        if (!wait_more(st))
+            return db_error(st, err, "cannot store the flight");
     }
-    return db_error(st, err, "cannot store the flight");
 }
 
 enum pb_code store_flights_of(struct store *st, int64_t pack_id, struct flight_rec **out, size_t *n,
