@@ -5,6 +5,7 @@
 #include <string.h>
 
 #include "cmd/cmd.h"
+#include "core/utf8.h"
 
 #ifndef PACKBOOK_VERSION
 #define PACKBOOK_VERSION "0.0.0"
@@ -65,7 +66,11 @@ int main(int argc, char **argv)
             continue;
         enum pb_code rc = commands[k].run(argc - 1, argv + 1, &app, &err);
         if (rc != PB_OK) {
-            fprintf(stderr, "packbook: %s\n", err.msg[0] ? err.msg : pb_strerror(rc));
+            /* messages quote file names and the user's text: escaped, so a
+             * control sequence in them cannot reach the terminal */
+            char shown[4 * PB_ERRMSG_MAX];
+            fprintf(stderr, "packbook: %s\n",
+                    err.msg[0] ? utf8_printable(shown, sizeof shown, err.msg) : pb_strerror(rc));
             return pb_exit_status(rc);
         }
         return app.some_failed ? PB_EXIT_SOME_FAILED : PB_EXIT_OK;

@@ -20,8 +20,9 @@ static const char usage[] =
     "  --all                  include retired packs\n"
     "  --predict [--power W]  add the conservative safe flight time (minutes) to a 30 %\n"
     "                         reserve at the pack's recent cruise power, or at W\n"
-    "  --json, --csv          machine-readable output (CSV cells starting = + - @ are\n"
-    "                         prefixed with ' so spreadsheets do not run them)\n";
+    "  --json, --csv          machine-readable output (CSV cells starting = + - @, also\n"
+    "                         after spaces or zero-width characters, are prefixed with '\n"
+    "                         so spreadsheets do not run them)\n";
 
 enum { F_JSON = 256, F_CSV, F_SORT, F_STATUS, F_ALL, F_DB, F_PREDICT, F_POWER };
 

@@ -345,6 +345,7 @@ enum pb_code cmd_import(int argc, char **argv, struct app *app, struct pb_error 
     int bar = isatty(STDERR_FILENO) && paths.n > 1;
     for (size_t k = 0; k < paths.n; k++) {
         char line[600];
+        char shown[4 * sizeof line]; /* names and messages escaped for the terminal */
         struct pb_error e = {PB_OK, ""};
         enum outcome o = import_one(st, &pack, &cli, paths.v[k], line, sizeof line, &e);
         if (bar)
@@ -354,22 +355,24 @@ enum pb_code cmd_import(int argc, char **argv, struct app *app, struct pb_error 
             if (e.code == PB_ESTORE || e.code == PB_ENOMEM) {
                 /* the store itself failed: later logs would fail the same way */
                 printf("%zu imported, %zu already there; stopped at %s\n", stored, dups,
-                       paths.v[k]);
+                       utf8_printable(shown, sizeof shown, paths.v[k]));
                 rc = pb_error_set(err, e.code, "%s", e.msg);
                 goto cleanup;
             }
-            fprintf(stderr, "packbook: not imported: %s\n", e.msg);
+            fprintf(stderr, "packbook: not imported: %s\n",
+                    utf8_printable(shown, sizeof shown, e.msg));
         } else {
             stored += o == OUT_STORED;
             dups += o == OUT_DUPLICATE;
             if (!cli.quiet)
-                printf("%s\n", line);
+                printf("%s\n", utf8_printable(shown, sizeof shown, line));
         }
         if (bar)
             progress(k + 1, paths.n);
     }
+    char lb[4 * sizeof pack.label];
     printf("%zu imported, %zu already there, %zu failed (pack %s)\n", stored, dups, failed,
-           pack.label);
+           utf8_printable(lb, sizeof lb, pack.label));
     app->some_failed = failed > 0;
     rc = cmd_finish_stdout(err);
 cleanup:

@@ -55,8 +55,9 @@ static enum pb_code cmd_add(struct store *st, struct pack_cli *cli, struct pb_er
     enum pb_code rc = store_pack_add(st, &cli->rec, err);
     if (rc != PB_OK)
         return rc;
-    printf("added pack '%s': %dS%dP %s, %.0f mAh\n", cli->rec.label, cli->rec.cells,
-           cli->rec.parallel, cli->rec.chemistry, cli->rec.capacity_mah);
+    char lb[4 * sizeof cli->rec.label];
+    printf("added pack '%s': %dS%dP %s, %.0f mAh\n", utf8_printable(lb, sizeof lb, cli->rec.label),
+           cli->rec.cells, cli->rec.parallel, cli->rec.chemistry, cli->rec.capacity_mah);
     return PB_OK;
 }
 
@@ -94,8 +95,11 @@ static enum pb_code cmd_retire(struct store *st, struct pack_cli *cli, struct pb
     if (!cli->reason || !*cli->reason)
         return pb_error_set(err, PB_EUSAGE, "pack retire: give the reason with --reason TEXT");
     enum pb_code rc = store_pack_retire(st, cli->rec.label, cli->reason, err);
+    char lb[4 * sizeof cli->rec.label], rb[4 * sizeof cli->rec.retire_reason];
     if (rc == PB_OK)
-        printf("retired pack '%s': %s (its history is kept)\n", cli->rec.label, cli->reason);
+        printf("retired pack '%s': %s (its history is kept)\n",
+               utf8_printable(lb, sizeof lb, cli->rec.label),
+               utf8_printable(rb, sizeof rb, cli->reason));
     return rc;
 }
 

@@ -5,6 +5,7 @@
 #include <stdlib.h>
 #include <string.h>
 
+#include "../core/utf8.h"
 #include "../report/outfile.h"
 #include "../report/plot.h"
 #include "../report/plots.h"
@@ -328,6 +329,6 @@ enum pb_code cmd_plot(int argc, char **argv, struct app *app, struct pb_error *e
     else
         rc = plot_history(&cli, cli.kind == KIND_TREND ? argv[optind + 1] : NULL, err);
     if (rc == PB_OK)
-        printf("wrote %s\n", cli.out);
+        printf("wrote %s\n", utf8_printable((char[4096]){0}, 4096, cli.out));
     return rc == PB_OK ? cmd_finish_stdout(err) : rc;
 }

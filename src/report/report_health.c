@@ -2,6 +2,14 @@
 
 #include "jsonout.h"
 
+#include "../core/utf8.h"
+
+/* Text from the store or the user, escaped for a terminal (utf8_printable):
+ * buffers hold four times the stored length (every byte as \\xHH). */
+#define SHOWN_LABEL (4 * 128 + 4)
+#define SHOWN_TEXT (4 * 320 + 4)
+#define SHOW(buf, s) utf8_printable(buf, sizeof buf, s)
+
 #include <jansson.h>
 #include <math.h>
 #include <string.h>
@@ -58,8 +66,9 @@ int report_pack_list(FILE *out, const struct pack_rec *p, size_t n, int json)
     for (size_t k = 0; k < n; k++) {
         char layout[24];
         snprintf(layout, sizeof layout, "%dS%dP", p[k].cells, p[k].parallel);
-        fprintf(out, "%-16s %-7s %-5s %10.0f  %-10s  %s%s\n", p[k].label, layout, p[k].chemistry,
-                p[k].capacity_mah, p[k].since[0] ? p[k].since : "-",
+        char lb[SHOWN_LABEL], sb[SHOWN_LABEL];
+        fprintf(out, "%-16s %-7s %-5s %10.0f  %-10s  %s%s\n", SHOW(lb, p[k].label), layout,
+                p[k].chemistry, p[k].capacity_mah, p[k].since[0] ? SHOW(sb, p[k].since) : "-",
                 p[k].retired_at[0] ? "retired " : "in service", p[k].retired_at);
     }
     if (n == 0)
@@ -113,15 +122,16 @@ int report_pack_show(FILE *out, const struct pack_view *v, int json)
         return jout_write(out, o);
     }
     char b1[32], b2[32], b3[32];
-    fprintf(out, "pack %s: %dS%dP %s, rated %.0f mAh", p->label, p->cells, p->parallel,
+    char lb[SHOWN_LABEL], tb[SHOWN_TEXT];
+    fprintf(out, "pack %s: %dS%dP %s, rated %.0f mAh", SHOW(lb, p->label), p->cells, p->parallel,
             p->chemistry, p->capacity_mah);
     if (p->since[0])
-        fprintf(out, ", in service since %s", p->since);
+        fprintf(out, ", in service since %s", SHOW(lb, p->since));
     fprintf(out, "\n");
     if (p->note[0])
-        fprintf(out, "  note: %s\n", p->note);
+        fprintf(out, "  note: %s\n", SHOW(tb, p->note));
     if (p->retired_at[0])
-        fprintf(out, "  retired %s: %s\n", p->retired_at, p->retire_reason);
+        fprintf(out, "  retired %s: %s\n", p->retired_at, SHOW(tb, p->retire_reason));
     fprintf(out, "  %zu flights, %.1f equivalent cycles, last flown %s\n", h->flights,
             isfinite(h->cycles) ? h->cycles : 0.0, day(h->last_epoch_s, b1, sizeof b1));
     fprintf(out,
@@ -132,7 +142,7 @@ int report_pack_show(FILE *out, const struct pack_view *v, int json)
             fmt_num((char[32]){0}, 32, "%.0f", h->capacity_pct),
             fmt_num((char[32]){0}, 32, "%.0f", h->spread_mv));
     fprintf(out, "  status: %s (%s)\n", status_of(v),
-            p->retired_at[0] ? p->retire_reason : h->reason);
+            SHOW(tb, p->retired_at[0] ? p->retire_reason : h->reason));
     if (v->nflights) {
         fprintf(out, "\n  %-10s %8s %9s %9s %10s %11s %6s\n", "date", "min", "mAh", "R0 mOhm",
                 "cap mAh", "SoC %", "warn");
@@ -153,10 +163,29 @@ int report_pack_show(FILE *out, const struct pack_view *v, int json)
     return ferror(out) ? -1 : 0;
 }
 
+/* Bytes of a character a spreadsheet skips before a formula: space, tab, CR,
+ * LF, no-break space and the zero-width ones (U+200B-U+200D, U+2060, U+FEFF). */
+static size_t csv_skippable(const char *t)
+{
+    static const char *const zw[] = {"\xc2\xa0",     "\xe2\x80\x8b", "\xe2\x80\x8c",
+                                     "\xe2\x80\x8d", "\xe2\x81\xa0", "\xef\xbb\xbf"};
+    if (*t == ' ' || *t == '\t' || *t == '\r' || *t == '\n')
+        return 1;
+    for (size_t k = 0; k < sizeof zw / sizeof *zw; k++)
+        if (strncmp(t, zw[k], strlen(zw[k])) == 0)
+            return strlen(zw[k]);
+    return 0;
+}
+
 void report_csv_cell(FILE *out, const char *t)
 {
+    /* a cell that starts, after anything a spreadsheet skips, with a formula
+     * sign is written as text (a leading quote) */
+    const char *f = t;
+    for (size_t n; (n = csv_skippable(f)) > 0;)
+        f += n;
     int formula =
-        t[0] == '=' || t[0] == '+' || t[0] == '-' || t[0] == '@' || t[0] == '\t' || t[0] == '\r';
+        f[0] == '=' || f[0] == '+' || f[0] == '-' || f[0] == '@' || t[0] == '\t' || t[0] == '\r';
     int quote = formula || strpbrk(t, ",\"\n\r") != NULL;
     if (quote)
         fputc('"', out);
@@ -236,12 +265,13 @@ int report_fleet(FILE *out, const struct pack_view *v, size_t n, enum fleet_form
         char sm[40] = "";
         if (safe)
             snprintf(sm, sizeof sm, "  %9s", fmt_num(b[6], 32, "%.1f", safe[2 * k] / 60.0));
-        fprintf(out, "%-14s %7zu %7s %-10s %9s %7s %6s %7s %5d%s  %-7s %s\n", v[k].pack.label,
-                h->flights, fmt_num(b[0], 32, "%.1f", h->cycles), day(h->last_epoch_s, b[1], 32),
-                fmt_num(b[2], 32, "%.2f", h->r0_now_mohm_cell),
+        char lb[SHOWN_LABEL], tb[SHOWN_TEXT];
+        fprintf(out, "%-14s %7zu %7s %-10s %9s %7s %6s %7s %5d%s  %-7s %s\n",
+                SHOW(lb, v[k].pack.label), h->flights, fmt_num(b[0], 32, "%.1f", h->cycles),
+                day(h->last_epoch_s, b[1], 32), fmt_num(b[2], 32, "%.2f", h->r0_now_mohm_cell),
                 fmt_num(b[3], 32, "x%.2f", h->r0_ratio), fmt_num(b[4], 32, "%.0f", h->capacity_pct),
                 fmt_num(b[5], 32, "%.0f", h->spread_mv), h->overdischarges, sm, status_of(&v[k]),
-                v[k].pack.retired_at[0] ? v[k].pack.retire_reason : h->reason);
+                SHOW(tb, v[k].pack.retired_at[0] ? v[k].pack.retire_reason : h->reason));
     }
     if (safe)
         fprintf(out,
@@ -316,8 +346,10 @@ int report_trend(FILE *out, const struct pack_view *v, enum trend_by by, double 
         return jout_write(out, o);
     }
     char b1[32], b2[32], b3[32];
-    fprintf(out, "trend of pack %s by %s: %zu flights, %.1f equivalent cycles\n\n", v->pack.label,
-            bynames[by], v->nflights, isfinite(t->cycles_now) ? t->cycles_now : 0.0);
+    char lb[SHOWN_LABEL], tb[SHOWN_TEXT];
+    fprintf(out, "trend of pack %s by %s: %zu flights, %.1f equivalent cycles\n\n",
+            SHOW(lb, v->pack.label), bynames[by], v->nflights,
+            isfinite(t->cycles_now) ? t->cycles_now : 0.0);
     fprintf(out, "  %-14s %7s %-10s %9s %9s %8s\n", by == TREND_CYCLE ? "cycles" : "period",
             "flights", "from", "mAh", "R0 mOhm", "cap %");
     fprintf(out, "  %-14s %7s %-10s %9s %9s %8s\n", "", "", "", "", "per cell", "rated");
@@ -332,7 +364,7 @@ int report_trend(FILE *out, const struct pack_view *v, enum trend_by by, double 
     text_projection(out, "R0", &t->r0, "mOhm/cell", horizon, t->cycles_now);
     text_projection(out, "capacity", &t->capacity, "%", horizon, t->cycles_now);
     fprintf(out, "\n  status: %s (%s)\n", status_of(v),
-            v->pack.retired_at[0] ? v->pack.retire_reason : v->health.reason);
+            SHOW(tb, v->pack.retired_at[0] ? v->pack.retire_reason : v->health.reason));
     fprintf(out, "  Projections extend a straight line; a pack can fail sooner. Inspect it.\n");
     return ferror(out) ? -1 : 0;
 }
@@ -350,7 +382,7 @@ int report_compare(FILE *out, const struct pack_view *v, size_t n, int json)
         }
         return jout_write(out, a);
     }
-    char b[32];
+    char b[SHOWN_LABEL], tb[SHOWN_TEXT];
 #define ROW(label, expr)                                                                           \
     do {                                                                                           \
         fprintf(out, "%-26s", label);                                                              \
@@ -361,7 +393,7 @@ int report_compare(FILE *out, const struct pack_view *v, size_t n, int json)
         }                                                                                          \
         fprintf(out, "\n");                                                                        \
     } while (0)
-    ROW("pack", x->pack.label);
+    ROW("pack", SHOW(b, x->pack.label));
     ROW("chemistry", x->pack.chemistry);
     ROW("rated mAh", fmt_num(b, sizeof b, "%.0f", x->pack.capacity_mah));
     ROW("flights", fmt_num(b, sizeof b, "%.0f", (double)x->health.flights));
@@ -387,7 +419,8 @@ int report_compare(FILE *out, const struct pack_view *v, size_t n, int json)
 #undef ROW
     for (size_t k = 0; k < n; k++)
         if (v[k].health.status != HEALTH_OK || v[k].pack.retired_at[0])
-            fprintf(out, "  %s: %s\n", v[k].pack.label,
-                    v[k].pack.retired_at[0] ? v[k].pack.retire_reason : v[k].health.reason);
+            fprintf(
+                out, "  %s: %s\n", SHOW(b, v[k].pack.label),
+                SHOW(tb, v[k].pack.retired_at[0] ? v[k].pack.retire_reason : v[k].health.reason));
     return ferror(out) ? -1 : 0;
 }

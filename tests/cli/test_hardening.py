@@ -466,5 +466,80 @@ class LockWaits(unittest.TestCase):
             self.assertEqual(rc, EXIT_USAGE, f"--wait {bad}: {err}")
 
 
+
+class TerminalInjection(unittest.TestCase):
+    """Item 6: control characters in IDs, notes and file names reached the terminal raw (an
+    OSC sequence ESC ] 0 ; title BEL retitles the window; ECMA-48 for the C0/C1 ranges) and
+    newlines broke tables. Text output escapes them (\\e, \\n, \\xHH); JSON keeps the text as
+    given (its own escaping is safe)."""
+
+    OSC = "\x1b]0;pwned\x07"
+
+    @staticmethod
+    def raw_controls(text):
+        return [c for c in text if (ord(c) < 0x20 and c not in "\n") or 0x7f <= ord(c) < 0xa0]
+
+    def test_ids_notes_reasons_in_every_text_view(self):
+        db = temp_db()
+        label = "TM" + self.OSC
+        rc, out, err = run("pack", "add", label, "--cells", 4, "--chemistry", "lipo",
+                           "--capacity", 5000, "--note", "line1\nline2\x1b[2J", "--db", db)
+        self.assertEqual(rc, EXIT_OK, err)
+        self.assertIn("TM\\e]0;pwned\\x07", out)
+        log = write_temp(plain_log())
+        rc, out, err = run("import", "--pack", label, "--date", "2026-05-01", "--db", db, log)
+        self.assertEqual(rc, EXIT_OK, err)
+        self.assertEqual(self.raw_controls(out + err), [], out)
+        views = [("pack", "list"), ("pack", "show", label), ("fleet",), ("trend", label),
+                 ("compare", label, label), ("predict", label)]
+        for args in views:
+            with self.subTest(args=args):
+                rc, out, err = run(args[0], *args[1:], "--db", db)
+                self.assertEqual(rc, EXIT_OK, err)
+                self.assertEqual(self.raw_controls(out + err), [], out)
+                self.assertIn("TM\\e]0;pwned\\x07", out)
+        rc, out, err = run("pack", "show", label, "--db", db)
+        self.assertIn("note: line1\\nline2\\e[2J\n", out, "the note stays on its line")
+        rc, out, err = run("pack", "list", "--db", db)
+        self.assertEqual(len(out.strip().split("\n")), 2, "header and one row")
+        rc, out, err = run("pack", "retire", label, "--reason", "swollen\x1b[31m", "--db", db)
+        self.assertEqual(rc, EXIT_OK, err)
+        self.assertIn("swollen\\e[31m", out)
+        rc, out, err = run("pack", "show", label, "--json", "--db", db)
+        doc = json.loads(out)
+        self.assertEqual((doc["id"], doc["retire_reason"]), (label, "swollen\x1b[31m"))
+
+    def test_file_names_and_messages(self):
+        d = pbtest.temp_dir("pbtest-esc-")
+        path = os.path.join(d, "log\x1b]0;x\x07.csv")
+        with open(path, "w") as f:
+            f.write(plain_log())
+        rc, out, err = run("analyze", path)
+        self.assertEqual(rc, EXIT_OK, err)
+        self.assertEqual(self.raw_controls(out + err), [])
+        self.assertIn("log\\e]0;x\\x07.csv", out)
+        rc, out, err = run("analyze", path + "\x9b")  # a C1 CSI in a missing file's name
+        self.assertEqual(rc, EXIT_INPUT, err)
+        self.assertEqual(self.raw_controls(err), [], err)
+        self.assertIn("\\u009b", err)
+
+    def test_csv_neutraliser_sees_past_what_a_spreadsheet_skips(self):
+        db = temp_db()
+        # OWASP CSV injection guidance (common practice): a cell starting = + - @ (or tab, CR)
+        # is a formula; spreadsheets also skip leading spaces, line breaks and zero-width
+        # characters before the sign
+        labels = [" =1+1", "\n=cmd", "\u200b=HYPERLINK(1)", "\ufeff@x", "\u00a0+1", "\t-1",
+                  "plain"]
+        for lab in labels:
+            add_pack(db, lab)
+        rc, out, err = run("fleet", "--csv", "--db", db)
+        self.assertEqual(rc, EXIT_OK, err)
+        import csv
+        import io
+        got = {r[0] for r in list(csv.reader(io.StringIO(out)))[1:]}
+        want = {"'" + lab if lab != "plain" else lab for lab in labels}
+        self.assertEqual(got, want)
+
+
 if __name__ == "__main__":
     unittest.main(verbosity=2)
