@@ -126,6 +126,9 @@ enum pb_code cmd_fleet(int argc, char **argv, struct app *app, struct pb_error *
         case F_POWER:
             if (cmd_parse_double("--power", optarg, 0, 1e6, &power_w, err))
                 return PB_EUSAGE;
+            if (!(power_w > 0)) /* no load is no flight (see predict) */
+                return pb_error_set(err, PB_EUSAGE, "--power: expected a load above 0 W, got '%s'",
+                                    optarg);
             predict = 1;
             break;
         case F_DB:

@@ -60,6 +60,11 @@ struct predict_run {
     double soc_after_pct, v_after_v;                        /* state at stop_after_s, when asked */
 };
 
+/* The simulator's horizon (predict_opts_default's t_max_s) and the most
+ * Monte Carlo runs the command asks for. */
+#define PREDICT_HORIZON_S 21600.0
+#define PREDICT_RUNS_MAX 5000
+
 void predict_opts_default(struct predict_opts *o);
 
 /* R0 scaled to temp_c by R(T) = Rref exp(Ea/R (1/T - 1/Tref)). */

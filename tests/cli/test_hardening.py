@@ -541,5 +541,55 @@ class TerminalInjection(unittest.TestCase):
         self.assertEqual(got, want)
 
 
+
+class SmallOnes(unittest.TestCase):
+    """Item 8: the smaller holes."""
+
+    LOG = os.path.join(pbtest.ROOT, "samples", "tm07-plain.csv")
+    PACK = ("--cells", 4, "--chemistry", "lipo", "--capacity", 5000)
+
+    def test_no_load_is_refused(self):
+        # --power 0 printed "SAFE TIME 360 min ... SoC 0 %, 0.00 V"
+        for opt, v in (("--power", "0"), ("--power", "-5"), ("--current", "0"), ("--power", "-0")):
+            with self.subTest(opt=opt, v=v):
+                rc, out, err = run("predict", "--log", self.LOG, *self.PACK, opt, v)
+                self.assertEqual(rc, EXIT_USAGE, err)
+                self.assertEqual(out, "")
+        db = temp_db()
+        add_pack(db)
+        rc, out, err = run("fleet", "--predict", "--power", 0, "--db", db)
+        self.assertEqual(rc, EXIT_USAGE, err)
+
+    def test_given_load_has_no_spread(self):
+        # the load's spread was read from an uninitialised field ("sd": 6.9e-310); a load given
+        # as an option is exact: its sd is 0, and the Monte Carlo spread comes from capacity
+        # and R0 only, the same on every run (seeded)
+        docs = []
+        for _ in range(2):
+            rc, out, err = run("predict", "--log", self.LOG, *self.PACK, "--power", 300,
+                               "--json")
+            self.assertEqual(rc, EXIT_OK, err)
+            docs.append(json.loads(out))
+        self.assertEqual(docs[0]["inputs"]["load"]["sd"], 0.0)
+        self.assertEqual(docs[0]["safe_time_s"], docs[1]["safe_time_s"])
+
+    def test_runs_and_for_have_upper_bounds(self):
+        # a run with --runs 100000 took 205 s
+        for args in (("--runs", 100000), ("--runs", 5001), ("--for", "1e6"), ("--for", 21601)):
+            with self.subTest(args=args):
+                rc, out, err = run("predict", "--log", self.LOG, *self.PACK, "--power", 300,
+                                   *args)
+                self.assertEqual(rc, EXIT_USAGE, err)
+                self.assertIn(str(args[0]), err)
+
+    def test_hex_is_not_a_number(self):
+        for v in ("0x10", "0X1p3", "inf", "nan"):
+            with self.subTest(v=v):
+                rc, out, err = run("predict", "--log", self.LOG, *self.PACK, "--power", v)
+                self.assertEqual(rc, EXIT_USAGE, err)
+                rc, out, err = run("analyze", self.LOG, "--capacity", v)
+                self.assertEqual(rc, EXIT_USAGE, err)
+
+
 if __name__ == "__main__":
     unittest.main(verbosity=2)
