@@ -174,9 +174,9 @@ enum pb_code logopts_analyze(const char *path, const struct log_cli *cli,
     struct analysis *a = NULL;
     enum pb_code rc = PB_OK;
     *out = NULL;
-    FILE *fp = is_stdin ? stdin : fopen(path, "rb");
+    FILE *fp = is_stdin ? stdin : cmd_open_log(path, err);
     if (!fp)
-        return pb_error_set(err, PB_EINPUT, "cannot open '%s': %m", path);
+        return err->code;
     s = logread_file(fp, name, &cli->read, stats, err);
     if (!s) {
         rc = err->code;

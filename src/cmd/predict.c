@@ -266,9 +266,9 @@ static enum pb_code load_profiles(const struct predict_cli *cli, double **t, dou
     *n = 0;
     *period = 0.0;
     for (int k = 0; k < cli->nprofiles; k++) {
-        FILE *fp = fopen(cli->profiles[k], "rb");
+        FILE *fp = cmd_open_log(cli->profiles[k], err);
         if (!fp)
-            return pb_error_set(err, PB_EINPUT, "cannot open '%s': %m", cli->profiles[k]);
+            return err->code;
         struct logread_stats st;
         struct series *s = logread_file(fp, cli->profiles[k], &cli->log.read, &st, err);
         fclose(fp);

@@ -3,6 +3,7 @@
 
 #include <csv.h>
 #include <ctype.h>
+#include <errno.h>
 #include <math.h>
 #include <stdlib.h>
 #include <string.h>
@@ -99,6 +100,22 @@ static int space_only(unsigned char c)
 }
 
 /* ---- dialect ---------------------------------------------------------- */
+
+/* UTF-16 (what some Windows loggers and spreadsheet exports write): a byte-order
+ * mark FF FE or FE FF, or ASCII with a NUL in every other byte. */
+static int looks_utf16(const char *buf, size_t len)
+{
+    const unsigned char *u = (const unsigned char *)buf;
+    if (len >= 2 && ((u[0] == 0xff && u[1] == 0xfe) || (u[0] == 0xfe && u[1] == 0xff)))
+        return 1;
+    size_t n = len < 64 ? len - len % 2 : 64, nul_even = 0, nul_odd = 0;
+    for (size_t k = 0; k < n; k++)
+        if (u[k] == 0 && k % 2)
+            nul_odd++;
+        else if (u[k] == 0)
+            nul_even++;
+    return n >= 8 && (nul_odd == n / 2 || nul_even == n / 2) && nul_odd + nul_even == n / 2;
+}
 
 static int count_outside_quotes(const char *p, size_t len, char d)
 {
@@ -807,7 +824,7 @@ struct series *logread_file(FILE *fp, const char *name, const struct logread_opt
     if (opts->on_block && len)
         opts->on_block(opts->block_ctx, buf, len);
     if (ferror(fp)) {
-        pb_error_set(err, PB_EINPUT, "%s: read error", name);
+        pb_error_set(err, PB_EINPUT, "%s: read error: %s", name, strerror(errno));
         goto cleanup;
     }
     if (len == 0) {
@@ -818,6 +835,11 @@ struct series *logread_file(FILE *fp, const char *name, const struct logread_opt
     if (len >= 3 && memcmp(buf, "\xEF\xBB\xBF", 3) == 0) {
         stats->bom = 1;
         start = 3;
+    }
+    if (looks_utf16(buf, len)) {
+        pb_error_set(err, PB_EINPUT,
+                     "%s: UTF-16 text: convert it to UTF-8 (e.g. iconv -f UTF-16 -t UTF-8)", name);
+        goto cleanup;
     }
     const char *nul = memchr(buf, '\0', len);
     if (nul) {
@@ -861,7 +883,7 @@ struct series *logread_file(FILE *fp, const char *name, const struct logread_opt
         last = buf[len - 1];
     }
     if (!r.failed && ferror(fp)) {
-        pb_error_set(err, PB_EINPUT, "%s: read error", name);
+        pb_error_set(err, PB_EINPUT, "%s: read error: %s", name, strerror(errno));
         goto cleanup;
     }
     if (!r.failed) {

@@ -582,6 +582,43 @@ class SmallOnes(unittest.TestCase):
                 self.assertEqual(rc, EXIT_USAGE, err)
                 self.assertIn(str(args[0]), err)
 
+    def test_utf16_log_is_named_as_such(self):
+        # UTF-16 (RFC 2781): with a byte-order mark, and little-endian without one
+        text = plain_log(40)
+        for enc, data in (("utf-16", text.encode("utf-16")),
+                          ("utf-16-le", text.encode("utf-16-le")),
+                          ("utf-16-be", text.encode("utf-16-be"))):
+            with self.subTest(enc=enc):
+                path = write_temp(data, mode="wb")
+                rc, out, err = run("analyze", path)
+                self.assertEqual(rc, EXIT_INPUT, err)
+                self.assertIn("UTF-16", err)
+                self.assertIn("convert it to UTF-8", err)
+                self.assertNotIn("NUL byte", err)
+
+    def test_folder_and_named_pipe_as_a_log(self):
+        d = pbtest.temp_dir("pbtest-notlog-")
+        rc, out, err = run("analyze", d)
+        self.assertEqual(rc, EXIT_INPUT, err)
+        self.assertIn("is a folder, not a log", err)
+        self.assertNotIn("read error", err)
+        fifo = os.path.join(d, "pipe.csv")
+        os.mkfifo(fifo)
+        # no writer: it used to block for ever in open(); now it reads as empty at once
+        rc, out, err = run("analyze", fifo, timeout=20)
+        self.assertEqual(rc, EXIT_INPUT, err)
+        self.assertIn("empty", err)
+        # a pipe with a writer (what `<(command)` gives) is read as before
+        r, w = os.pipe()
+        p = subprocess.Popen([pbtest.PACKBOOK, "analyze", f"/dev/fd/{r}", "--json"],
+                             pass_fds=(r,), stdout=subprocess.PIPE, stderr=subprocess.PIPE)
+        os.close(r)
+        with os.fdopen(w, "w") as f:
+            f.write(plain_log())
+        out, err = p.communicate(timeout=60)
+        self.assertEqual(p.returncode, EXIT_OK, err)
+        self.assertEqual(json.loads(out)["samples"], 200)
+
     def test_hex_is_not_a_number(self):
         for v in ("0x10", "0X1p3", "inf", "nan"):
             with self.subTest(v=v):
