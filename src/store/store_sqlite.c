@@ -27,6 +27,7 @@ struct store {
     void (*on_wait)(void *ctx, double wait_s);
     void *wait_ctx;
     int saved_code; /* error of a failed transaction step, kept past its ROLLBACK */
+    int saved_errno;
     char saved_msg[256];
 };
 
@@ -125,18 +126,23 @@ static int on_busy(void *ctx, int count)
 static enum pb_code db_error(struct store *st, struct pb_error *err, const char *what)
 {
     int code = sqlite3_extended_errcode(st->db);
+    int sys = sqlite3_system_errno(st->db);
     const char *msg = sqlite3_errmsg(st->db);
     if (st->saved_code) {
         /* a ROLLBACK after the failure has cleared SQLite's own record of it */
         code = st->saved_code;
+        sys = st->saved_errno;
         msg = st->saved_msg;
         st->saved_code = 0;
     }
     const char *hint = "";
     if ((code & 0xff) == SQLITE_READONLY)
         hint = " (the database or its folder is read-only)";
-    else if ((code & 0xff) == SQLITE_FULL)
-        hint = " (disk full: nothing of this step was stored)";
+    else if ((code & 0xff) == SQLITE_FULL ||
+             ((code & 0xff) == SQLITE_IOERR && (sys == ENOSPC || sys == EDQUOT || sys == EFBIG)))
+        /* a full disk often reaches SQLite as a failed write ("disk I/O error") */
+        hint = " (no room to write: the disk is full or a file-size limit was reached; free "
+               "some space and retry, nothing of this step was stored)";
     char busy[160];
     if ((code & 0xff) == SQLITE_BUSY || (code & 0xff) == SQLITE_LOCKED) {
         /* who holds it is not known: another packbook, a backup, an SQLite shell */
@@ -606,9 +612,10 @@ static double col_num(sqlite3_stmt *s, int i)
     X(charge_used_mah)                                                                             \
     X(energy_used_wh)                                                                              \
     X(current_max_a)                                                                               \
-    X(current_mean_a) X(power_mean_w) X(voltage_min_v) X(cell_voltage_min_v) X(time_below_floor_s) \
-        X(r0_mohm) X(r0_ci95_mohm) X(r1_mohm) X(tau_s) X(soc_start_pct) X(soc_end_pct)             \
-            X(capacity_mah) X(capacity_ci95_mah) X(cell_spread_rest_mv) X(cell_spread_load_mv)     \
+    X(current_mean_a)                                                                              \
+    X(power_mean_w) X(voltage_min_v) X(cell_voltage_min_v) X(time_below_floor_s) X(r0_mohm)        \
+        X(r0_ci95_mohm) X(r1_mohm) X(tau_s) X(soc_start_pct) X(soc_end_pct) X(capacity_mah)        \
+            X(capacity_ci95_mah) X(cell_spread_rest_mv) X(cell_spread_load_mv)                     \
                 X(temperature_max_c) X(power_cruise_w)
 
 #define X(name) #name ", "
@@ -623,6 +630,7 @@ static int put_once(struct store *st, const struct flight_rec *f, const char *js
     int rc = sqlite3_exec(st->db, "BEGIN IMMEDIATE", NULL, NULL, NULL);
     if (rc != SQLITE_OK) {
         st->saved_code = sqlite3_extended_errcode(st->db);
+        st->saved_errno = sqlite3_system_errno(st->db);
         snprintf(st->saved_msg, sizeof st->saved_msg, "%s", sqlite3_errmsg(st->db));
         return rc;
     }
@@ -717,6 +725,7 @@ fail:
         /* keep the error of the failing step, not the rollback's */
         int keep = sqlite3_extended_errcode(st->db);
         st->saved_code = keep ? keep : rc;
+        st->saved_errno = sqlite3_system_errno(st->db);
         snprintf(st->saved_msg, sizeof st->saved_msg, "%s", sqlite3_errmsg(st->db));
         sqlite3_exec(st->db, "ROLLBACK", NULL, NULL, NULL);
         return keep ? keep : rc;

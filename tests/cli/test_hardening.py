@@ -619,6 +619,34 @@ class SmallOnes(unittest.TestCase):
         self.assertEqual(p.returncode, EXIT_OK, err)
         self.assertEqual(json.loads(out)["samples"], 200)
 
+    def test_no_room_to_write_is_said(self):
+        # a full disk reached the user as "disk I/O error" with no hint. A file-size limit
+        # (RLIMIT_FSIZE, SIGXFSZ ignored: writes fail with EFBIG) stands in for a full disk.
+        import resource
+        import signal
+
+        def limited(nbytes):
+            def f():
+                signal.signal(signal.SIGXFSZ, signal.SIG_IGN)
+                resource.setrlimit(resource.RLIMIT_FSIZE, (nbytes, nbytes))
+            return f
+        db = temp_db()
+        add_pack(db)
+        p = subprocess.run([pbtest.PACKBOOK, "import", "--pack", "P1", "--date", "2026-01-01",
+                            "--db", db, self.LOG], preexec_fn=limited(8192),
+                           capture_output=True, text=True)
+        self.assertEqual(p.returncode, EXIT_STORE, p.stderr)
+        self.assertIn("no room to write", p.stderr)
+        rc, out, err = run("pack", "show", "P1", "--json", "--db", db)
+        self.assertEqual(json.loads(out)["flights"], [], "nothing half-stored")
+        d = pbtest.temp_dir("pbtest-full-")
+        series = os.path.join(d, "s.csv")
+        p = subprocess.run([pbtest.PACKBOOK, "analyze", self.LOG, "--series", series],
+                           preexec_fn=limited(20000), capture_output=True, text=True)
+        self.assertEqual(p.returncode, 5, p.stderr)
+        self.assertIn("no room to write", p.stderr)
+        self.assertEqual(os.listdir(d), [], "no half file, no temporary file")
+
     def test_hex_is_not_a_number(self):
         for v in ("0x10", "0X1p3", "inf", "nan"):
             with self.subTest(v=v):
