@@ -261,7 +261,7 @@ cleanup:
 
 static void progress(size_t done, size_t total)
 {
-    int width = 30, filled = (int)(width * done / (total ? total : 1));
+    int width = 30, filled = (int)((size_t)width * done / (total ? total : 1));
     fprintf(stderr, "\r[%.*s%*s] %zu/%zu", filled, "##############################", width - filled,
             "", done, total);
     if (done == total)

@@ -117,10 +117,10 @@ static double median_sd(const double *v, size_t n, double *sd)
     }
     double mean = 0, ss = 0;
     for (size_t k = 0; k < m; k++)
-        mean += buf[k] / m;
+        mean += buf[k] / (double)m; /* counts convert exactly (far below 2^53) */
     for (size_t k = 0; k < m; k++)
         ss += (buf[k] - mean) * (buf[k] - mean);
-    *sd = m > 1 ? sqrt(ss / (m - 1)) : 0.0;
+    *sd = m > 1 ? sqrt(ss / (double)(m - 1)) : 0.0;
     qsort(buf, m, sizeof *buf, cmd_cmp_double);
     return m % 2 ? buf[m / 2] : 0.5 * (buf[m / 2 - 1] + buf[m / 2]);
 }

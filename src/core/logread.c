@@ -669,7 +669,7 @@ static void end_record(struct reader *r)
     if (r->failed)
         return;
     if (r->comment || nfields == 0) {
-        r->st->comment_lines += r->comment;
+        r->st->comment_lines += r->comment != 0;
         r->comment = 0;
         return;
     }
@@ -741,7 +741,7 @@ static int looks_discharge_negative(const struct series *s)
         v0 += s->v_v[k];
         v1 += s->v_v[s->n - 1 - k];
     }
-    return loaded > 0 && neg > 0.8 * loaded && v1 < v0;
+    return loaded > 0 && (double)neg > 0.8 * (double)loaded && v1 < v0;
 }
 
 static void resolve_sign(struct reader *r)
