@@ -139,8 +139,8 @@ enum pb_code outfile_commit(struct outfile *o, struct pb_error *err)
         rc = pb_error_set(err, PB_EOUTPUT, "cannot write '%s': %s%s", o->path,
                           saved ? strerror(saved) : "write failed",
                           saved == ENOSPC || saved == EDQUOT || saved == EFBIG
-                              ? " (no room to write: the disk is full or a file-size limit was "
-                                "reached; the old file is unchanged)"
+                              ? " (disk full, or a file-size limit reached: free some space "
+                                "and retry; the old file is unchanged)"
                               : "");
     else if (rename(o->tmp_path, o->path) != 0)
         rc = pb_error_set(err, PB_EOUTPUT, "cannot write '%s': %s", o->path, strerror(errno));

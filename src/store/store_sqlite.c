@@ -141,8 +141,8 @@ static enum pb_code db_error(struct store *st, struct pb_error *err, const char 
     else if ((code & 0xff) == SQLITE_FULL ||
              ((code & 0xff) == SQLITE_IOERR && (sys == ENOSPC || sys == EDQUOT || sys == EFBIG)))
         /* a full disk often reaches SQLite as a failed write ("disk I/O error") */
-        hint = " (no room to write: the disk is full or a file-size limit was reached; free "
-               "some space and retry, nothing of this step was stored)";
+        hint = " (disk full, or a file-size limit reached: free some space and retry; nothing "
+               "of this step was stored)";
     char busy[160];
     if ((code & 0xff) == SQLITE_BUSY || (code & 0xff) == SQLITE_LOCKED) {
         /* who holds it is not known: another packbook, a backup, an SQLite shell */
@@ -613,10 +613,10 @@ static double col_num(sqlite3_stmt *s, int i)
     X(energy_used_wh)                                                                              \
     X(current_max_a)                                                                               \
     X(current_mean_a)                                                                              \
-    X(power_mean_w) X(voltage_min_v) X(cell_voltage_min_v) X(time_below_floor_s) X(r0_mohm)        \
-        X(r0_ci95_mohm) X(r1_mohm) X(tau_s) X(soc_start_pct) X(soc_end_pct) X(capacity_mah)        \
-            X(capacity_ci95_mah) X(cell_spread_rest_mv) X(cell_spread_load_mv)                     \
-                X(temperature_max_c) X(power_cruise_w)
+    X(power_mean_w)                                                                                \
+    X(voltage_min_v) X(cell_voltage_min_v) X(time_below_floor_s) X(r0_mohm) X(r0_ci95_mohm)        \
+        X(r1_mohm) X(tau_s) X(soc_start_pct) X(soc_end_pct) X(capacity_mah) X(capacity_ci95_mah)   \
+            X(cell_spread_rest_mv) X(cell_spread_load_mv) X(temperature_max_c) X(power_cruise_w)
 
 #define X(name) #name ", "
 static const char flight_num_cols[] = FLIGHT_NUMS;

@@ -636,7 +636,7 @@ class SmallOnes(unittest.TestCase):
                             "--db", db, self.LOG], preexec_fn=limited(8192),
                            capture_output=True, text=True)
         self.assertEqual(p.returncode, EXIT_STORE, p.stderr)
-        self.assertIn("no room to write", p.stderr)
+        self.assertIn("disk full, or a file-size limit reached", p.stderr)
         rc, out, err = run("pack", "show", "P1", "--json", "--db", db)
         self.assertEqual(json.loads(out)["flights"], [], "nothing half-stored")
         d = pbtest.temp_dir("pbtest-full-")
@@ -644,7 +644,7 @@ class SmallOnes(unittest.TestCase):
         p = subprocess.run([pbtest.PACKBOOK, "analyze", self.LOG, "--series", series],
                            preexec_fn=limited(20000), capture_output=True, text=True)
         self.assertEqual(p.returncode, 5, p.stderr)
-        self.assertIn("no room to write", p.stderr)
+        self.assertIn("disk full, or a file-size limit reached", p.stderr)
         self.assertEqual(os.listdir(d), [], "no half file, no temporary file")
 
     def test_hex_is_not_a_number(self):
