@@ -125,7 +125,8 @@ int LLVMFuzzerTestOneInput(const uint8_t *data, size_t size)
             json_int_t hf =
                 json_integer_value(json_object_get(json_object_get(j, "health"), "flights"));
             if (nf != (size_t)hf || nf != (size_t)stored ||
-                !json_is_string(json_object_get(j, "note"))) {
+                !(json_is_string(json_object_get(j, "note")) ||
+                  json_is_null(json_object_get(j, "note")))) {
                 fprintf(stderr,
                         "pack show --json: %zu flights listed, health counts %lld, %d stored\n", nf,
                         (long long)hf, stored);
