@@ -159,7 +159,8 @@ static void emit_row(void *ctx, const struct sample_row *r)
 {
     FILE *out = ctx;
     double v[6] = {r->t_s, r->v_v, r->i_a, r->ocv_v, r->soc_cc_pct, r->soc_ocv_pct};
-    static const char *const fmt[6] = {"%.6g", "%.4f", "%.3f", "%.4f", "%.2f", "%.2f"};
+    /* time to the millisecond whatever the log's length (%.6g lost it past 1000 s) */
+    static const char *const fmt[6] = {"%.3f", "%.4f", "%.3f", "%.4f", "%.2f", "%.2f"};
     for (int k = 0; k < 6; k++) {
         if (k)
             fputc(',', out);

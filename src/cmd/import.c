@@ -385,11 +385,11 @@ static enum outcome import_one(struct store *st, const struct pack_rec *pack,
         out = OUT_DUPLICATE;
         goto cleanup;
     }
-    char r0[48] = "unknown";
+    char r0[48] = "not identifiable";
     if (isfinite(f.r0_mohm))
-        snprintf(r0, sizeof r0, "%.2f", f.r0_mohm);
-    snprintf(line, cap, "imported %s: %.16s (date from %s), %.0f mAh, IR %s %s, %zu warning%s",
-             name, when, f.date_source, f.charge_used_mah, r0, report_mohm(), a->nwarnings,
+        snprintf(r0, sizeof r0, "%.2f %s", f.r0_mohm, report_mohm());
+    snprintf(line, cap, "imported %s: %.16s (date from %s), %.0f mAh, IR %s, %zu warning%s", name,
+             when, f.date_source, f.charge_used_mah, r0, a->nwarnings,
              a->nwarnings == 1 ? "" : "s");
     size_t used = 0;
     if (misfit)
