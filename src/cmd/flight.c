@@ -10,6 +10,7 @@
 #include <strings.h>
 
 #include "../core/isotime.h"
+#include "../core/utf8.h"
 #include "cmd.h"
 #include "packview.h"
 
@@ -217,7 +218,9 @@ static enum pb_code do_ack(struct store *st, const struct flight_cli *cli, struc
     char label[128] = "";
     rc = store_flight_ack(st, id, cli->note, label, sizeof label, err);
     if (rc == PB_OK)
-        printf("flight %lld of pack '%s' acknowledged: %s\n", (long long)id, label, cli->note);
+        printf("flight %lld of pack '%s' acknowledged: %s\n", (long long)id,
+               utf8_printable((char[4 * 128 + 4]){0}, 4 * 128 + 4, label),
+               utf8_printable((char[4 * 256 + 4]){0}, 4 * 256 + 4, cli->note));
     return rc;
 }
 
@@ -282,7 +285,8 @@ enum pb_code cmd_flight(int argc, char **argv, struct app *app, struct pb_error 
     if (run != do_ack && cli.note)
         return pb_error_set(err, PB_EUSAGE, "flight %s: --note is for 'flight ack'", sub);
     struct store *st = NULL;
-    enum pb_code rc = packview_open_store(cli.db, 1, &st, err);
+    enum pb_code rc =
+        packview_open_store(cli.db, run == do_list ? STORE_READ : STORE_WRITE, &st, err);
     if (rc != PB_OK)
         return rc;
     rc = run(st, &cli, err);

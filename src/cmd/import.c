@@ -13,6 +13,7 @@
 
 #include "../core/isotime.h"
 #include "../core/packfit.h"
+#include "../core/utf8.h"
 #include "../report/report.h"
 #include "cmd.h"
 #include "logopts.h"
@@ -49,9 +50,11 @@ static const char usage_head[] =
     "  --db PATH              history database (default: $PACKBOOK_DB, else the\n"
     "                         settings file's db, else $XDG_DATA_HOME/packbook/packbook.db;\n"
     "                         see 'packbook config')\n"
-    "  --quiet                no line per log, only the summary\n";
+    "  --quiet                no line per log, only the summary\n"
+    "  --wait S               wait up to S seconds for another process's lock on the\n"
+    "                         database (default 60, for each flight)\n";
 
-enum { I_PACK = 256, I_DATE, I_DB, I_QUIET, I_FORCE };
+enum { I_PACK = 256, I_DATE, I_DB, I_QUIET, I_FORCE, I_WAIT };
 #define I_RECURSIVE 'r'
 
 static const struct option longopts[] = {
@@ -61,6 +64,7 @@ static const struct option longopts[] = {
     {"quiet", no_argument, NULL, I_QUIET},
     {"force", no_argument, NULL, I_FORCE},
     {"recursive", no_argument, NULL, I_RECURSIVE},
+    {"wait", required_argument, NULL, I_WAIT},
     {"help", no_argument, NULL, 'h'},
     LOGOPTS_LONG,
     {NULL, 0, NULL, 0},
@@ -72,6 +76,7 @@ struct import_cli {
     const char *pack, *db;
     int have_date, quiet, force, recursive;
     double date_epoch_s;
+    double wait_s; /* --wait */
 };
 
 struct path_list {
@@ -338,8 +343,16 @@ static enum outcome import_one(struct store *st, const struct pack_rec *pack,
     XXH128_hash_t h = XXH3_128bits_digest(hs);
     snprintf(f.content_hash, sizeof f.content_hash, "xxh128:%016llx%016llx",
              (unsigned long long)h.high64, (unsigned long long)h.low64);
-    snprintf(f.source, sizeof f.source, "%s", name);
+    /* the name as valid UTF-8 (a Latin-1 file name gets U+FFFD), cut at a character */
+    utf8_repair(f.source, sizeof f.source, name, strlen(name));
     struct stat sb;
+    if (a->has_epoch &&
+        !(a->start_epoch_s >= ISOTIME_EPOCH_MIN_S && a->start_epoch_s < ISOTIME_EPOCH_END_S)) {
+        /* a Unix-time column can hold any number; the history keeps 1970-2100 */
+        pb_error_set(err, PB_EINPUT, "%s: the log starts at Unix time %.0f, outside %d-%d", name,
+                     a->start_epoch_s, ISOTIME_YEAR_MIN, ISOTIME_YEAR_MAX);
+        goto cleanup;
+    }
     if (a->has_epoch) {
         f.flown_epoch_s = a->start_epoch_s;
         snprintf(f.date_source, sizeof f.date_source, "log");
@@ -376,11 +389,11 @@ static enum outcome import_one(struct store *st, const struct pack_rec *pack,
         out = OUT_DUPLICATE;
         goto cleanup;
     }
-    char r0[48] = "unknown";
+    char r0[48] = "not identifiable";
     if (isfinite(f.r0_mohm))
-        snprintf(r0, sizeof r0, "%.2f", f.r0_mohm);
-    snprintf(line, cap, "imported %s: %.16s (date from %s), %.0f mAh, IR %s %s, %zu warning%s",
-             name, when, f.date_source, f.charge_used_mah, r0, report_mohm(), a->nwarnings,
+        snprintf(r0, sizeof r0, "%.2f %s", f.r0_mohm, report_mohm());
+    snprintf(line, cap, "imported %s: %.16s (date from %s), %.0f mAh, IR %s, %zu warning%s", name,
+             when, f.date_source, f.charge_used_mah, r0, a->nwarnings,
              a->nwarnings == 1 ? "" : "s");
     size_t used = 0;
     if (misfit)
@@ -436,7 +449,9 @@ static enum pb_code report_departures(struct store *st, const struct pack_rec *p
         isotime_format(f->flown_epoch_s, day, sizeof day);
         printf("inspect: flight %lld (%.10s, %s): %s; after inspecting the pack: packbook flight "
                "ack %lld --note TEXT\n",
-               (long long)f->id, day, f->source, what, (long long)f->id);
+               (long long)f->id, day,
+               utf8_printable((char[4 * 256 + 4]){0}, 4 * 256 + 4, f->source),
+               report_units(what, (char[160]){0}, 160), (long long)f->id);
     }
     pack_view_release(&v);
     return PB_OK;
@@ -444,7 +459,7 @@ static enum pb_code report_departures(struct store *st, const struct pack_rec *p
 
 static void progress(size_t done, size_t total)
 {
-    int width = 30, filled = (int)(width * done / (total ? total : 1));
+    int width = 30, filled = (int)((size_t)width * done / (total ? total : 1));
     fprintf(stderr, "\r[%.*s%*s] %zu/%zu", filled, "##############################", width - filled,
             "", done, total);
     if (done == total)
@@ -457,6 +472,7 @@ enum pb_code cmd_import(int argc, char **argv, struct app *app, struct pb_error 
     struct import_cli cli = {0};
     int c;
     logopts_init(&cli.log);
+    cli.wait_s = STORE_WAIT_DEFAULT_S;
     optind = 1;
     opterr = 0;
     while ((c = getopt_long(argc, argv, "hr", longopts, NULL)) != -1) {
@@ -481,14 +497,21 @@ enum pb_code cmd_import(int argc, char **argv, struct app *app, struct pb_error 
         case I_RECURSIVE:
             cli.recursive = 1;
             break;
-        case I_DATE:
-            if (isotime_parse(optarg, strlen(optarg), &cli.date_epoch_s, NULL) != 0)
+        case I_WAIT:
+            if (cmd_parse_double("--wait", optarg, 0, 86400, &cli.wait_s, err))
+                return PB_EUSAGE;
+            break;
+        case I_DATE: {
+            char why[128];
+            if (isotime_parse_why(optarg, strlen(optarg), &cli.date_epoch_s, NULL, why,
+                                  sizeof why) != 0)
                 return pb_error_set(err, PB_EUSAGE,
                                     "--date: expected an ISO 8601 date such as "
-                                    "2026-04-18 or 2026-04-18T07:30:00Z, got '%s'",
-                                    optarg);
+                                    "2026-04-18 or 2026-04-18T07:30:00Z, got '%s': %s",
+                                    optarg, why);
             cli.have_date = 1;
             break;
+        }
         case 'h':
             fputs(usage_head, stdout);
             fputs(logopts_usage, stdout);
@@ -508,7 +531,7 @@ enum pb_code cmd_import(int argc, char **argv, struct app *app, struct pb_error 
     struct store *st = NULL;
     struct path_list paths = {0};
     char(*hashes)[40] = NULL; /* content hashes of the flights stored now */
-    rc = packview_open_store(cli.db, 1, &st, err);
+    rc = packview_open_store_wait(cli.db, STORE_WRITE, cli.wait_s, &st, err);
     if (rc != PB_OK)
         return rc;
     struct pack_rec pack;
@@ -542,6 +565,7 @@ enum pb_code cmd_import(int argc, char **argv, struct app *app, struct pb_error 
     }
     for (size_t k = 0; k < paths.n; k++) {
         char line[600], note[1600];
+        char shown[4 * sizeof line]; /* names and messages escaped for the terminal */
         struct pb_error e = {PB_OK, ""};
         enum outcome o = import_one(st, &pack, &cli, paths.v[k], line, sizeof line, note,
                                     sizeof note, hashes[stored], &e);
@@ -552,34 +576,36 @@ enum pb_code cmd_import(int argc, char **argv, struct app *app, struct pb_error 
             if (e.code == PB_ESTORE || e.code == PB_ENOMEM) {
                 /* the store itself failed: later logs would fail the same way */
                 printf("%zu imported, %zu already there; stopped at %s\n", stored, dups,
-                       paths.v[k]);
+                       utf8_printable(shown, sizeof shown, paths.v[k]));
                 rc = pb_error_set(err, e.code, "%s", e.msg);
                 goto cleanup;
             }
-            fprintf(stderr, "packbook: not imported: %s\n", e.msg);
+            fprintf(stderr, "packbook: not imported: %s\n",
+                    utf8_printable(shown, sizeof shown, e.msg));
         } else {
             stored += o == OUT_STORED;
             dups += o == OUT_DUPLICATE;
             if (!cli.quiet)
-                printf("%s\n", line);
+                printf("%s\n", utf8_printable(shown, sizeof shown, line));
             if (o == OUT_STORED && note[0])
                 fputs(note, stderr);
         }
         if (bar)
             progress(k + 1, paths.n);
     }
+    char lb[4 * sizeof pack.label];
     if (ex.skipped)
         printf("%zu imported, %zu already there, %zu failed, %zu skipped as not logs (pack %s)\n",
-               stored, dups, failed, ex.skipped, pack.label);
+               stored, dups, failed, ex.skipped, utf8_printable(lb, sizeof lb, pack.label));
     else
         printf("%zu imported, %zu already there, %zu failed (pack %s)\n", stored, dups, failed,
-               pack.label);
+               utf8_printable(lb, sizeof lb, pack.label));
     if (stored > 0) {
         rc = packview_summary(st, &pack, &after, err);
         if (rc != PB_OK)
             goto cleanup;
         if (strcmp(before.status, after.status) != 0)
-            printf("pack %s: status %s -> %s (%s)\n", pack.label, before.status, after.status,
+            printf("pack %s: status %s -> %s (%s)\n", lb, before.status, after.status,
                    after.reason);
     }
     app->some_failed = failed > 0;

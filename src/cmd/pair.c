@@ -8,6 +8,7 @@
 #include <string.h>
 
 #include "../core/pairs.h"
+#include "../core/utf8.h"
 #include "../report/jsonout.h"
 #include "cmd.h"
 #include "packview.h"
@@ -115,8 +116,11 @@ static void print_match(const struct pair_match *m, const struct pack_view *v)
         snprintf(r, sizeof r, "%.1f", m->r0_diff_pct);
     else
         snprintf(r, sizeof r, "-");
-    printf("  %-14s %-14s %10.1f %10s %8.2f  %s\n", v[m->a].pack.label, v[m->b].pack.label,
-           m->capacity_diff_pct, r, m->distance, m->distance <= 1.0 ? "within limits" : "beyond");
+    char la[4 * 128 + 4], lb[4 * 128 + 4];
+    printf("  %-14s %-14s %10.1f %10s %8.2f  %s\n",
+           utf8_printable(la, sizeof la, v[m->a].pack.label),
+           utf8_printable(lb, sizeof lb, v[m->b].pack.label), m->capacity_diff_pct, r, m->distance,
+           m->distance <= 1.0 ? "within limits" : "beyond");
 }
 
 static json_t *match_obj(const struct pair_match *m, const struct pack_view *v)
@@ -220,7 +224,7 @@ enum pb_code cmd_pack_pair(int argc, char **argv, struct pb_error *err)
                             unpair ? "pack unpair: give one pack ID"
                                    : "pack pair: give no IDs (proposals) or two (register)");
     struct store *st = NULL;
-    enum pb_code rc = packview_open_store(db, 1, &st, err);
+    enum pb_code rc = packview_open_store(db, ids ? STORE_WRITE : STORE_READ, &st, err);
     struct pack_rec a, b;
     if (rc == PB_OK && ids >= 1)
         rc = store_pack_get(st, argv[optind], &a, err);
@@ -230,7 +234,8 @@ enum pb_code cmd_pack_pair(int argc, char **argv, struct pb_error *err)
         int removed = 0;
         rc = store_pair_remove(st, &a, &removed, err);
         if (rc == PB_OK)
-            printf(removed ? "pack '%s' unpaired\n" : "pack '%s' was in no pair\n", a.label);
+            printf(removed ? "pack '%s' unpaired\n" : "pack '%s' was in no pair\n",
+                   utf8_printable((char[4 * 128 + 4]){0}, 4 * 128 + 4, a.label));
     } else if (rc == PB_OK && ids == 2) {
         if (strcmp(a.chemistry, b.chemistry) != 0 || a.cells != b.cells)
             rc = pb_error_set(err, PB_EUSAGE,
@@ -243,7 +248,9 @@ enum pb_code cmd_pack_pair(int argc, char **argv, struct pb_error *err)
         if (rc == PB_OK)
             rc = store_pair_add(st, &a, &b, err);
         if (rc == PB_OK)
-            printf("packs '%s' and '%s' paired\n", a.label, b.label);
+            printf("packs '%s' and '%s' paired\n",
+                   utf8_printable((char[4 * 128 + 4]){0}, 4 * 128 + 4, a.label),
+                   utf8_printable((char[4 * 128 + 4]){0}, 4 * 128 + 4, b.label));
     } else if (rc == PB_OK) {
         rc = show(st, json, err);
     }
