@@ -269,7 +269,7 @@ static int scalar_int(sqlite3 *db, const char *sql, int *out)
     return rc;
 }
 
-static enum pb_code classify(struct store *st, enum owner *own, struct pb_error *err)
+static enum pb_code classify_in(struct store *st, enum owner *own, struct pb_error *err)
 {
     int app = 0, ver = 0, ntables = 0, packs = 0, flights = 0;
     char names[160] = "";
@@ -320,6 +320,18 @@ static enum pb_code classify(struct store *st, enum owner *own, struct pb_error 
                             st->path, ntables, ntables == 1 ? "" : "s", names,
                             ntables > 3 ? ", ..." : "");
     return PB_OK;
+}
+
+/* The header and the table list read in one snapshot: read apart, another
+ * process migrating a new file between them showed tables with schema 0
+ * (an unknown file, refused). */
+static enum pb_code classify(struct store *st, enum owner *own, struct pb_error *err)
+{
+    int began = sqlite3_exec(st->db, "BEGIN", NULL, NULL, NULL) == SQLITE_OK;
+    enum pb_code rc = classify_in(st, own, err);
+    if (began)
+        sqlite3_exec(st->db, "COMMIT", NULL, NULL, NULL);
+    return rc;
 }
 
 /* A reading command on a store of an older schema: the file stays as it is,
@@ -389,7 +401,7 @@ enum pb_code store_open_wait(const char *path, enum store_mode mode, double wait
     sqlite3_extended_result_codes(st->db, 1);
     sqlite3_exec(st->db, "PRAGMA foreign_keys = ON", NULL, NULL, NULL);
     /* whose file this is, before a single byte of it changes (WAL included) */
-    enum owner own;
+    enum owner own = OWN_FOREIGN;
     if ((rc = classify(st, &own, err)) != PB_OK)
         goto fail;
     if (mode == STORE_READ) {
@@ -725,9 +737,10 @@ static double col_num(sqlite3_stmt *s, int i)
     X(current_mean_a)                                                                              \
     X(power_mean_w)                                                                                \
     X(voltage_min_v)                                                                               \
-    X(cell_voltage_min_v) X(time_below_floor_s) X(r0_mohm) X(r0_ci95_mohm) X(r1_mohm) X(tau_s)     \
-        X(soc_start_pct) X(soc_end_pct) X(capacity_mah) X(capacity_ci95_mah)                       \
-            X(cell_spread_rest_mv) X(cell_spread_load_mv) X(temperature_max_c) X(power_cruise_w)
+    X(cell_voltage_min_v)                                                                          \
+    X(time_below_floor_s) X(r0_mohm) X(r0_ci95_mohm) X(r1_mohm) X(tau_s) X(soc_start_pct)          \
+        X(soc_end_pct) X(capacity_mah) X(capacity_ci95_mah) X(cell_spread_rest_mv)                 \
+            X(cell_spread_load_mv) X(temperature_max_c) X(power_cruise_w)
 
 #define X(name) #name ", "
 static const char flight_num_cols[] = FLIGHT_NUMS;
@@ -1152,8 +1165,7 @@ enum pb_code store_flight_ack(struct store *st, int64_t flight_id, const char *n
         copy_text(pack_label, cap, s, 0);
     sqlite3_finalize(s);
     if (r == SQLITE_DONE)
-        return pb_error_set(err, PB_EUSAGE,
-                            "no flight %lld (see 'packbook flight list')",
+        return pb_error_set(err, PB_EUSAGE, "no flight %lld (see 'packbook flight list')",
                             (long long)flight_id);
     if (r != SQLITE_ROW)
         return db_error(st, err, "cannot read the flight");
