@@ -44,7 +44,7 @@ struct ctx {
     double a_dt, a_val;
 };
 
-static void rc_advance(struct ctx *c, size_t k)
+static inline void rc_advance(struct ctx *c, size_t k)
 {
     const struct series *s = c->s;
     if (k == 0) {
@@ -108,6 +108,38 @@ static int row(void *vc, size_t k, double *x, double *y)
     int step = (k > 0 && fabs(s->i_a[k] - s->i_a[k - 1]) >= c->step_a) ||
                (k + 1 < s->n && fabs(s->i_a[k + 1] - s->i_a[k]) >= c->step_a);
     return step ? FIT_ROW_KEEP : 1;
+}
+
+/* row() for a block of rows, without a call per row. */
+static void ecm_block(void *vc, size_t k0, size_t m, int p, double *x, double *y,
+                      unsigned char *use)
+{
+    struct ctx *c = vc;
+    const struct series *s = c->s;
+    if (k0 == 0)
+        c->at = 0;
+    const double step_a = c->step_a;
+    for (size_t j = 0; j < m; j++) {
+        size_t k = k0 + j;
+        if (p == 2)
+            rc_advance(c, k);
+        while (c->at < c->nw && k >= c->w[c->at].k1)
+            c->at++;
+        if (c->at == c->nw || k < c->w[c->at].k0 || !c->w[c->at].use) {
+            use[j] = 0;
+            continue;
+        }
+        const struct win *w = &c->w[c->at];
+        double dq = c->q[k] - w->mq;
+        double *xr = x + j * (size_t)p;
+        xr[0] = -(s->i_a[k] - (w->mi + w->bi * dq));
+        if (p == 2)
+            xr[1] = -(c->i1 - (w->m1 + w->b1 * dq));
+        y[j] = c->y[k] - (w->mv + w->bv * dq);
+        int step = (k > 0 && fabs(s->i_a[k] - s->i_a[k - 1]) >= step_a) ||
+                   (k + 1 < s->n && fabs(s->i_a[k + 1] - s->i_a[k]) >= step_a);
+        use[j] = step ? FIT_ROW_KEEP : 1;
+    }
 }
 
 /* Cuts [0, n) into windows of at most win_s, none across a gap or a joint
@@ -192,7 +224,7 @@ static enum pb_code fit_at(struct ctx *c, int p, double tau_s, int robust, size_
     c->tau_s = tau_s;
     if (p == 2)
         rc_lines(c);
-    enum pb_code rc = fit_linear(c->s->n, p, row, c, robust, f, err);
+    enum pb_code rc = fit_blocks(c->s->n, p, ecm_block, c, robust, f, err);
     if (work)
         *work += f->rows_visited + (p == 2 ? c->s->n : 0);
     return rc;
@@ -237,21 +269,113 @@ static double honest_cov(struct ctx *c, struct fit_result *f)
     return rho;
 }
 
+#define TAU_WALK_MAX 16 /* time constants summed in one walk */
+
+/* The plain residual sums of squares of the RC model at nt time constants
+ * (nt <= TAU_WALK_MAX) in one walk over the log: the lag of each runs over
+ * every sample; within a window the lags are kept (buf) until the window's
+ * lines are known, then the normal equations of every tau are summed in the
+ * same order as the row-by-row fit would. The voltage and current columns
+ * do not depend on tau. rss[j] is HUGE_VAL where a fit fails. */
+static inline __attribute__((always_inline)) void rss_walk(struct ctx *c, const double *tau_s,
+                                                           const int nt, double *buf, double *rss)
+{
+    const struct series *s = c->s;
+    const double *ia = s->i_a, *t = s->t_s, *q = c->q;
+    double i1[TAU_WALK_MAX], a_dt[TAU_WALK_MAX], a_val[TAU_WALK_MAX];
+    double a01[TAU_WALK_MAX] = {0}, a11[TAU_WALK_MAX] = {0}, b1[TAU_WALK_MAX] = {0};
+    double a00 = 0.0, b0 = 0.0, yy = 0.0;
+    size_t n_used = 0, k;
+    for (int j = 0; j < nt; j++) {
+        i1[j] = ia[0];
+        a_dt[j] = -1.0;
+        a_val[j] = 0.0;
+    }
+/* the RC lag of every tau from sample k - 1 to k (as rc_advance) */
+#define ADVANCE(k)                                                                                 \
+    do {                                                                                           \
+        double dt_ = t[k] - t[(k)-1];                                                              \
+        for (int j = 0; j < nt; j++) {                                                             \
+            if (fabs(dt_ - a_dt[j]) > 1e-9 * dt_) {                                                \
+                a_dt[j] = dt_;                                                                     \
+                a_val[j] = exp(-dt_ / tau_s[j]);                                                   \
+            }                                                                                      \
+            i1[j] = a_val[j] * i1[j] + (1.0 - a_val[j]) * ia[(k)-1];                               \
+        }                                                                                          \
+    } while (0)
+    k = 1; /* the next sample whose lag is due; i1 holds sample k - 1's */
+    for (size_t wj = 0; wj < c->nw; wj++) {
+        const struct win *w = &c->w[wj];
+        if (!w->use)
+            continue;
+        for (; k < w->k0; k++)
+            ADVANCE(k);
+        size_t len = w->k1 - w->k0;
+        double m1[TAU_WALK_MAX] = {0}, bq[TAU_WALK_MAX] = {0};
+        for (size_t r = 0; r < len; r++) {
+            size_t kk = w->k0 + r;
+            if (kk == k) {
+                ADVANCE(k);
+                k++;
+            }
+            double dq = q[kk] - w->mq;
+            for (int j = 0; j < nt; j++) {
+                buf[(size_t)j * len + r] = i1[j];
+                m1[j] += i1[j];
+                bq[j] += dq * i1[j];
+            }
+        }
+        for (int j = 0; j < nt; j++) {
+            m1[j] /= (double)len;
+            bq[j] = w->sqq > 0.0 ? bq[j] / w->sqq : 0.0;
+        }
+        for (size_t r = 0; r < len; r++) {
+            size_t kk = w->k0 + r;
+            double dq = q[kk] - w->mq;
+            double x0 = -(ia[kk] - (w->mi + w->bi * dq));
+            double y = c->y[kk] - (w->mv + w->bv * dq);
+            a00 += x0 * x0;
+            b0 += x0 * y;
+            yy += y * y;
+            for (int j = 0; j < nt; j++) {
+                double x1 = -(buf[(size_t)j * len + r] - (m1[j] + bq[j] * dq));
+                a01[j] += x0 * x1;
+                a11[j] += x1 * x1;
+                b1[j] += x1 * y;
+            }
+        }
+        n_used += len;
+    }
+#undef ADVANCE
+    for (int j = 0; j < nt; j++) {
+        struct fit_sums fs = {.yy = yy, .n_used = n_used};
+        fs.a[0][0] = a00;
+        fs.a[0][1] = a01[j];
+        fs.a[1][1] = a11[j];
+        fs.b[0] = b0;
+        fs.b[1] = b1[j];
+        struct fit_result f;
+        rss[j] = fit_solve_sums(&fs, 2, &f, NULL) == PB_OK ? f.rss : HUGE_VAL;
+    }
+}
+
 struct tau_search {
     struct ctx *c;
     size_t *work;
+    double *buf; /* TAU_WALK_MAX times the longest window */
     int failed;
 };
 
 static double rss_at(double log_tau, void *vts)
 {
     struct tau_search *ts = vts;
-    struct fit_result f;
-    if (fit_at(ts->c, 2, exp(log_tau), 0, ts->work, &f, NULL) != PB_OK) {
+    double tau = exp(log_tau), rss;
+    rss_walk(ts->c, &tau, 1, ts->buf, &rss);
+    if (ts->work)
+        *ts->work += ts->c->s->n;
+    if (!(rss < HUGE_VAL))
         ts->failed = 1;
-        return HUGE_VAL;
-    }
-    return f.rss;
+    return rss;
 }
 
 /* Profiles the plain RSS over log tau on a grid, then Brent's method on the
@@ -261,17 +385,32 @@ static double search_tau(struct ctx *c, double lo_s, double hi_s, size_t *work)
     double lo = log(lo_s), hi = log(hi_s);
     if (!(hi - lo > 1.0))
         return NAN;
-    struct tau_search ts = {c, work, 0};
-    double g[TAU_GRID], f[TAU_GRID];
+    size_t longest = 0;
+    for (size_t j = 0; j < c->nw; j++)
+        if (c->w[j].use && c->w[j].k1 - c->w[j].k0 > longest)
+            longest = c->w[j].k1 - c->w[j].k0;
+    struct tau_search ts = {c, work, malloc(TAU_WALK_MAX * longest * sizeof(double)), 0};
+    if (!ts.buf)
+        return NAN;
+    double g[TAU_GRID], f[TAU_GRID], taus[TAU_GRID];
     int best = 0;
     for (int j = 0; j < TAU_GRID; j++) {
         g[j] = lo + (hi - lo) * j / (TAU_GRID - 1);
-        f[j] = rss_at(g[j], &ts);
+        taus[j] = exp(g[j]);
+    }
+    /* the whole grid in one walk */
+    rss_walk(c, taus, TAU_GRID, ts.buf, f);
+    if (work)
+        *work += c->s->n;
+    for (int j = 0; j < TAU_GRID; j++) {
+        ts.failed |= !(f[j] < HUGE_VAL);
         if (f[j] < f[best])
             best = j;
     }
-    if (ts.failed || best == 0 || best == TAU_GRID - 1)
+    if (ts.failed || best == 0 || best == TAU_GRID - 1) {
+        free(ts.buf);
         return NAN;
+    }
     gsl_function fn = {rss_at, &ts};
     gsl_min_fminimizer *mz = gsl_min_fminimizer_alloc(gsl_min_fminimizer_brent);
     double x = g[best];
@@ -288,6 +427,7 @@ static double search_tau(struct ctx *c, double lo_s, double hi_s, size_t *work)
         }
     }
     gsl_min_fminimizer_free(mz);
+    free(ts.buf);
     return ts.failed ? NAN : exp(x);
 }
 
@@ -421,7 +561,7 @@ struct trend_ctx {
     double i1, a_dt, a_val;
 };
 
-static int trend_row(void *vc, size_t k, double *x, double *y)
+static inline int trend_row(void *vc, size_t k, double *x, double *y)
 {
     struct trend_ctx *c = vc;
     const struct series *s = c->s;
@@ -450,6 +590,13 @@ static int trend_row(void *vc, size_t k, double *x, double *y)
     return 1;
 }
 
+static void trend_block(void *vc, size_t k0, size_t m, int p, double *x, double *y,
+                        unsigned char *use)
+{
+    for (size_t j = 0; j < m; j++)
+        use[j] = (unsigned char)trend_row(vc, k0 + j, x + j * (size_t)p, &y[j]);
+}
+
 enum pb_code ecm_ocv_trend(const struct series *s, const double *q_ah, double q_end_ah, int degree,
                            double r0_ohm, double r1_ohm, double tau_s, int robust, size_t *work,
                            struct fit_result *out, struct pb_error *err)
@@ -462,7 +609,7 @@ enum pb_code ecm_ocv_trend(const struct series *s, const double *q_ah, double q_
                           .r1 = tau_s > 0.0 ? r1_ohm : 0.0,
                           .tau = tau_s,
                           .v_ref = s->v_v[0]};
-    enum pb_code rc = fit_linear(s->n, degree + 1, trend_row, &c, robust, out, err);
+    enum pb_code rc = fit_blocks(s->n, degree + 1, trend_block, &c, robust, out, err);
     if (work)
         *work += out->rows_visited;
     /* the reference voltage back into the constant term */

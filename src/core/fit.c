@@ -22,46 +22,65 @@ struct normal_eq {
 };
 
 #define SCALE_SAMPLES 65536 /* residuals kept for the robust scale */
+#define FIT_BLOCK 256       /* rows made per call */
 
 struct scale_sample {
     double *r; /* |residual| of every m-th used row */
     size_t n, m;
 };
 
-static double dot(const double *x, const double *beta, int p)
+/* Rows come in blocks; a row callback is adapted to one. */
+struct source {
+    fit_block_fn block;
+    void *ctx;
+    fit_row_fn row; /* when the caller gave rows, not blocks */
+    void *row_ctx;
+};
+
+static void rows_as_block(void *vsrc, size_t k0, size_t m, int p, double *x, double *y,
+                          unsigned char *use)
 {
-    double s = 0.0;
-    for (int j = 0; j < p; j++)
-        s += x[j] * beta[j];
-    return s;
+    struct source *src = vsrc;
+    for (size_t j = 0; j < m; j++)
+        use[j] = (unsigned char)src->row(src->row_ctx, k0 + j, x + j * (size_t)p, &y[j]);
 }
 
-/* One pass over the rows: sums the normal equations, weighted by Tukey's
- * bisquare at the given scale when beta is not NULL, and keeps a sample of
- * the |residuals| at beta for the next scale when ss is not NULL. */
-static void run_pass(size_t n, int p, fit_row_fn row, void *ctx, const double *beta, double scale,
-                     struct scale_sample *ss, struct normal_eq *ne)
+/* The sums of one block of rows, for a p known at compile time where it is
+ * inlined (the kernels below): no call, no division per row, the sums in
+ * registers. */
+static inline __attribute__((always_inline)) void
+block_sums(const int p, size_t m, const double *restrict x, const double *restrict y,
+           const unsigned char *restrict use, const double *beta, double scale,
+           struct scale_sample *ss, size_t *ss_left, struct normal_eq *ne)
 {
-    /* local sums, so the compiler keeps them out of memory the callback
-     * could alias; folded into ne at the end */
-    double a[FIT_MAX_P][FIT_MAX_P] = {{0}}, b[FIT_MAX_P] = {0};
-    double yy = 0.0, wsum = 0.0;
-    size_t n_used = 0, n_low = 0;
-    double x[FIT_MAX_P], y;
-    if (ss)
-        ss->n = 0;
-    for (size_t k = 0; k < n; k++) {
-        int use = row(ctx, k, x, &y);
-        if (!use)
+    double a[FIT_MAX_P][FIT_MAX_P], b[FIT_MAX_P];
+    for (int i = 0; i < p; i++) {
+        b[i] = ne->b[i];
+        for (int j = i; j < p; j++)
+            a[i][j] = ne->a[i][j];
+    }
+    double yy = ne->yy, wsum = ne->wsum;
+    size_t n_used = ne->n_used, n_low = ne->n_low;
+    double inv_cs = scale > 0.0 ? 1.0 / (BISQUARE_C * scale) : 0.0;
+    for (size_t r = 0; r < m; r++) {
+        int u = use[r];
+        if (!u)
             continue;
+        const double *xr = x + r * (size_t)p;
+        double yr = y[r];
         double w = 1.0;
         if (beta) {
-            double r = y - dot(x, beta, p);
-            if (ss && n_used % ss->m == 0 && ss->n < SCALE_SAMPLES)
-                ss->r[ss->n++] = fabs(r);
-            if (scale > 0.0 && use != FIT_ROW_KEEP) {
-                double u = r / (BISQUARE_C * scale);
-                w = fabs(u) < 1.0 ? (1.0 - u * u) * (1.0 - u * u) : 0.0;
+            double res = yr;
+            for (int j = 0; j < p; j++)
+                res -= xr[j] * beta[j];
+            if (ss && --*ss_left == 0) {
+                *ss_left = ss->m;
+                if (ss->n < SCALE_SAMPLES)
+                    ss->r[ss->n++] = fabs(res);
+            }
+            if (scale > 0.0 && u != FIT_ROW_KEEP) {
+                double v = res * inv_cs;
+                w = fabs(v) < 1.0 ? (1.0 - v * v) * (1.0 - v * v) : 0.0;
                 n_low += w < 0.5;
             }
         }
@@ -69,20 +88,56 @@ static void run_pass(size_t n, int p, fit_row_fn row, void *ctx, const double *b
         if (w == 0.0)
             continue;
         for (int i = 0; i < p; i++) {
-            double wx = w * x[i];
+            double wx = w * xr[i];
             for (int j = i; j < p; j++)
-                a[i][j] += wx * x[j];
-            b[i] += wx * y;
+                a[i][j] += wx * xr[j];
+            b[i] += wx * yr;
         }
-        yy += w * y * y;
+        yy += w * yr * yr;
         wsum += w;
     }
-    memcpy(ne->a, a, sizeof a);
-    memcpy(ne->b, b, sizeof b);
+    for (int i = 0; i < p; i++) {
+        ne->b[i] = b[i];
+        for (int j = i; j < p; j++)
+            ne->a[i][j] = a[i][j];
+    }
     ne->yy = yy;
     ne->wsum = wsum;
     ne->n_used = n_used;
     ne->n_low = n_low;
+}
+
+/* One pass over the rows: sums the normal equations, weighted by Tukey's
+ * bisquare at the given scale when beta is not NULL; keeps a sample of the
+ * |residuals| at beta for the next scale when ss is not NULL. */
+static void run_pass(size_t n, int p, const struct source *src, const double *beta, double scale,
+                     struct scale_sample *ss, struct normal_eq *ne)
+{
+    double x[FIT_BLOCK * FIT_MAX_P], y[FIT_BLOCK];
+    unsigned char use[FIT_BLOCK];
+    memset(ne, 0, sizeof *ne);
+    /* the first used row is taken, then every m-th (as n_used % m == 0) */
+    size_t ss_left = 1;
+    if (ss)
+        ss->n = 0;
+    for (size_t k0 = 0; k0 < n; k0 += FIT_BLOCK) {
+        size_t m = n - k0 < FIT_BLOCK ? n - k0 : FIT_BLOCK;
+        src->block(src->ctx, k0, m, p, x, y, use);
+        switch (p) {
+        case 1:
+            block_sums(1, m, x, y, use, beta, scale, ss, &ss_left, ne);
+            break;
+        case 2:
+            block_sums(2, m, x, y, use, beta, scale, ss, &ss_left, ne);
+            break;
+        case 4:
+            block_sums(4, m, x, y, use, beta, scale, ss, &ss_left, ne);
+            break;
+        default:
+            block_sums(p, m, x, y, use, beta, scale, ss, &ss_left, ne);
+            break;
+        }
+    }
 }
 
 /* Solves the normal equations; fills beta, the unscaled inverse in inv and
@@ -147,11 +202,12 @@ double fit_median(double *a, size_t n)
     return gsl_stats_median(a, 1, n);
 }
 
-static enum pb_code fit_core(size_t n, int p, fit_row_fn row, void *ctx, int robust,
+static enum pb_code fit_core(size_t n, int p, const struct source *src, int robust,
                              const struct fit_result *start, struct fit_result *out,
                              struct pb_error *err)
 {
     struct normal_eq ne = {0};
+
     double inv[FIT_MAX_P][FIT_MAX_P];
     double beta[FIT_MAX_P] = {0};
     int rank = 0;
@@ -167,7 +223,7 @@ static enum pb_code fit_core(size_t n, int p, fit_row_fn row, void *ctx, int rob
         memcpy(beta, start->beta, sizeof beta);
         scale = start->scale;
     } else {
-        run_pass(n, p, row, ctx, NULL, 0.0, NULL, &ne);
+        run_pass(n, p, src, NULL, 0.0, NULL, &ne);
         visited += n;
         if (ne.n_used <= (size_t)p)
             return pb_error_set(err, PB_ENUMERIC, "fit: %zu rows for %d unknowns", ne.n_used, p);
@@ -188,7 +244,7 @@ static enum pb_code fit_core(size_t n, int p, fit_row_fn row, void *ctx, int rob
             double prev[FIT_MAX_P];
             memcpy(prev, beta, sizeof prev);
             struct normal_eq keep = ne;
-            run_pass(n, p, row, ctx, beta, scale, &ss, &ne);
+            run_pass(n, p, src, beta, scale, &ss, &ne);
             visited += n;
             double next = MAD_TO_SIGMA * fit_median(ss.r, ss.n);
             /* an exact fit (residuals at rounding level): nothing to reweight */
@@ -256,14 +312,62 @@ static enum pb_code fit_core(size_t n, int p, fit_row_fn row, void *ctx, int rob
 enum pb_code fit_linear(size_t n, int p, fit_row_fn row, void *ctx, int robust,
                         struct fit_result *out, struct pb_error *err)
 {
-    return fit_core(n, p, row, ctx, robust, NULL, out, err);
+    struct source src = {rows_as_block, NULL, row, ctx};
+    src.ctx = &src;
+    return fit_core(n, p, &src, robust, NULL, out, err);
+}
+
+enum pb_code fit_blocks(size_t n, int p, fit_block_fn block, void *ctx, int robust,
+                        struct fit_result *out, struct pb_error *err)
+{
+    struct source src = {block, ctx, NULL, NULL};
+    return fit_core(n, p, &src, robust, NULL, out, err);
 }
 
 enum pb_code fit_linear_from(size_t n, int p, fit_row_fn row, void *ctx,
                              const struct fit_result *start, struct fit_result *out,
                              struct pb_error *err)
 {
-    return fit_core(n, p, row, ctx, 1, start, out, err);
+    struct source src = {rows_as_block, NULL, row, ctx};
+    src.ctx = &src;
+    return fit_core(n, p, &src, 1, start, out, err);
+}
+
+enum pb_code fit_solve_sums(const struct fit_sums *sums, int p, struct fit_result *out,
+                            struct pb_error *err)
+{
+    struct normal_eq ne = {0};
+    double inv[FIT_MAX_P][FIT_MAX_P], beta[FIT_MAX_P];
+    int rank = 0;
+    memset(out, 0, sizeof *out);
+    if (p < 1 || p > FIT_MAX_P)
+        return pb_error_set(err, PB_ENUMERIC, "fit: %d columns is out of range", p);
+    memcpy(ne.a, sums->a, sizeof ne.a);
+    memcpy(ne.b, sums->b, sizeof ne.b);
+    ne.yy = sums->yy;
+    ne.wsum = (double)sums->n_used;
+    ne.n_used = sums->n_used;
+    if (ne.n_used <= (size_t)p)
+        return pb_error_set(err, PB_ENUMERIC, "fit: %zu rows for %d unknowns", ne.n_used, p);
+    if (solve(&ne, p, beta, inv, &rank) != 0)
+        return pb_error_set(err, PB_ENUMERIC, "fit: eigensolver failed");
+    double rss = ne.yy;
+    for (int j = 0; j < p; j++)
+        rss -= beta[j] * ne.b[j];
+    rss = fmax(rss, 0.0);
+    double dof = ne.wsum - rank;
+    out->p = p;
+    out->rank = rank;
+    out->rss = out->rss_plain = rss;
+    out->dof = dof;
+    out->n_used = ne.n_used;
+    out->sigma = dof > 0 ? sqrt(rss / dof) : 0.0;
+    for (int i = 0; i < p; i++) {
+        out->beta[i] = beta[i];
+        for (int j = 0; j < p; j++)
+            out->cov[i][j] = out->sigma * out->sigma * inv[i][j];
+    }
+    return PB_OK;
 }
 
 double fit_ci95(const struct fit_result *f, int j)

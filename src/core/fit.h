@@ -27,6 +27,22 @@
 #define FIT_ROW_KEEP 2
 typedef int (*fit_row_fn)(void *ctx, size_t k, double *x, double *y);
 
+/* Makes rows k0..k0+m-1 (m <= 256) in order: row j's columns in
+ * x[j*p .. j*p+p), its value in y[j] and in use[j] what a row callback
+ * returns. Asked for in order 0..n-1 on every pass (k0 == 0 starts one), so
+ * it may carry state from block to block. */
+typedef void (*fit_block_fn)(void *ctx, size_t k0, size_t m, int p, double *x, double *y,
+                             unsigned char *use);
+
+/* Unweighted normal equations summed by the caller: X'X (upper triangle),
+ * X'y, y'y over n_used rows. */
+struct fit_sums {
+    double a[FIT_MAX_P][FIT_MAX_P];
+    double b[FIT_MAX_P];
+    double yy;
+    size_t n_used;
+};
+
 struct fit_result {
     int p;
     int rank; /* numerical rank of the design */
@@ -47,6 +63,15 @@ struct fit_result {
  * error in err. */
 enum pb_code fit_linear(size_t n, int p, fit_row_fn row, void *ctx, int robust,
                         struct fit_result *out, struct pb_error *err);
+
+/* fit_linear with rows made a block at a time (no call per row). */
+enum pb_code fit_blocks(size_t n, int p, fit_block_fn block, void *ctx, int robust,
+                        struct fit_result *out, struct pb_error *err);
+
+/* The plain fit of sums made by the caller (e.g. shared walks over the
+ * data for many candidate models); rows_visited is left 0. */
+enum pb_code fit_solve_sums(const struct fit_sums *sums, int p, struct fit_result *out,
+                            struct pb_error *err);
 
 /* Robust fit continued from an earlier one (its beta and scale), e.g. one
  * made on a subsample of the rows: skips the plain pass, so rss_plain is
