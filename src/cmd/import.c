@@ -113,6 +113,35 @@ static void hash_block(void *ctx, const char *buf, size_t len)
     XXH3_128bits_update(ctx, buf, len);
 }
 
+/* The content hash of a file, as the reader's on_block hook makes it
+ * (every byte as read). Returns 0, or -1 when the file cannot be read (the
+ * reader then says why). */
+static int hash_file(const char *path, char *out, size_t cap)
+{
+    FILE *fp = fopen(path, "rb");
+    if (!fp)
+        return -1;
+    XXH3_state_t *hs = XXH3_createState();
+    char *buf = malloc(1u << 16);
+    int rc = -1;
+    if (hs && buf) {
+        XXH3_128bits_reset(hs);
+        size_t len;
+        while ((len = fread(buf, 1, 1u << 16, fp)) > 0)
+            XXH3_128bits_update(hs, buf, len);
+        if (!ferror(fp)) {
+            XXH128_hash_t h = XXH3_128bits_digest(hs);
+            snprintf(out, cap, "xxh128:%016llx%016llx", (unsigned long long)h.high64,
+                     (unsigned long long)h.low64);
+            rc = 0;
+        }
+    }
+    free(buf);
+    XXH3_freeState(hs);
+    fclose(fp);
+    return rc;
+}
+
 static void fill_flight(struct flight_rec *f, const struct analysis *a, const struct pack_rec *p)
 {
     memset(f, 0, sizeof *f);
@@ -184,6 +213,21 @@ static enum outcome import_one(struct store *st, const struct pack_rec *pack,
     lc.refuse_implausible = !cli->force; /* nothing impossible reaches the store */
     int is_stdin = strcmp(path, "-") == 0;
     const char *name = is_stdin ? "(stdin)" : path;
+    /* a log already stored is known by its hash before it is analysed, so
+     * re-importing a folder costs reading it, not analysing it */
+    char pre_hash[40];
+    if (!is_stdin && hash_file(path, pre_hash, sizeof pre_hash) == 0) {
+        int found = 0;
+        char dup_label[128] = "";
+        if (store_flight_find_hash(st, pre_hash, &found, dup_label, sizeof dup_label, err) != PB_OK)
+            goto cleanup;
+        if (found) {
+            snprintf(line, cap, "already imported%s%s: %s", dup_label[0] ? " for pack " : "",
+                     dup_label, name);
+            out = OUT_DUPLICATE;
+            goto cleanup;
+        }
+    }
     if (logopts_analyze(path, &lc, &stats, &a, NULL, err) != PB_OK)
         goto cleanup;
 

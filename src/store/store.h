@@ -88,6 +88,12 @@ enum pb_code store_flight_put(struct store *st, const struct flight_rec *f, cons
                               int *duplicate, char *dup_label, size_t dup_cap,
                               struct pb_error *err);
 
+/* Whether a flight with this content hash is stored (*found; its pack's
+ * label in label, which may be NULL). Reads only: import asks before it
+ * analyses, and store_flight_put still decides inside its transaction. */
+enum pb_code store_flight_find_hash(struct store *st, const char *content_hash, int *found,
+                                    char *label, size_t cap, struct pb_error *err);
+
 /* Flights of one pack, oldest first. */
 enum pb_code store_flights_of(struct store *st, int64_t pack_id, struct flight_rec **out, size_t *n,
                               struct pb_error *err);

@@ -423,11 +423,11 @@ static double col_num(sqlite3_stmt *s, int i)
 #define FLIGHT_NUMS                                                                                \
     X(duration_s)                                                                                  \
     X(charge_used_mah)                                                                             \
-    X(energy_used_wh) X(current_max_a) X(current_mean_a) X(power_mean_w) X(voltage_min_v)          \
-        X(cell_voltage_min_v) X(time_below_floor_s) X(r0_mohm) X(r0_ci95_mohm) X(r1_mohm) X(tau_s) \
-            X(soc_start_pct) X(soc_end_pct) X(capacity_mah) X(capacity_ci95_mah)                   \
-                X(cell_spread_rest_mv) X(cell_spread_load_mv) X(temperature_max_c)                 \
-                    X(power_cruise_w)
+    X(energy_used_wh)                                                                              \
+    X(current_max_a) X(current_mean_a) X(power_mean_w) X(voltage_min_v) X(cell_voltage_min_v)      \
+        X(time_below_floor_s) X(r0_mohm) X(r0_ci95_mohm) X(r1_mohm) X(tau_s) X(soc_start_pct)      \
+            X(soc_end_pct) X(capacity_mah) X(capacity_ci95_mah) X(cell_spread_rest_mv)             \
+                X(cell_spread_load_mv) X(temperature_max_c) X(power_cruise_w)
 
 #define X(name) #name ", "
 static const char flight_num_cols[] = FLIGHT_NUMS;
@@ -539,6 +539,29 @@ fail:
         sqlite3_exec(st->db, "ROLLBACK", NULL, NULL, NULL);
         return keep ? keep : rc;
     }
+}
+
+enum pb_code store_flight_find_hash(struct store *st, const char *content_hash, int *found,
+                                    char *label, size_t cap, struct pb_error *err)
+{
+    sqlite3_stmt *s = NULL;
+    *found = 0;
+    if (sqlite3_prepare_v2(st->db,
+                           "SELECT p.label FROM flights f JOIN packs p ON p.id = f.pack_id "
+                           "WHERE f.content_hash = ?",
+                           -1, &s, NULL) != SQLITE_OK)
+        return db_error(st, err, "cannot look up the flight");
+    sqlite3_bind_text(s, 1, content_hash, -1, SQLITE_TRANSIENT);
+    int rc = sqlite3_step(s);
+    if (rc == SQLITE_ROW) {
+        *found = 1;
+        if (label)
+            copy_text(label, cap, s, 0);
+    }
+    sqlite3_finalize(s);
+    if (rc != SQLITE_ROW && rc != SQLITE_DONE)
+        return db_error(st, err, "cannot look up the flight");
+    return PB_OK;
 }
 
 enum pb_code store_flight_put(struct store *st, const struct flight_rec *f, const char *report_json,
