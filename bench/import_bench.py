@@ -58,6 +58,8 @@ def main():
     best_new = best_again = float("inf")
     for rep in range(REPEATS):
         db = os.path.join(a.tmp, f"import-{rep}.db")
+        if os.path.exists(db):
+            os.remove(db)
         env["PACKBOOK_DB"] = db
         if not run([a.packbook, "pack", "add", "B1", "--cells", "4", "--chemistry", "lipo",
                     "--capacity", "5000"], env):
