@@ -282,26 +282,25 @@ static inline __attribute__((always_inline)) void rss_walk(struct ctx *c, const 
 {
     const struct series *s = c->s;
     const double *ia = s->i_a, *t = s->t_s, *q = c->q;
-    double i1[TAU_WALK_MAX], a_dt[TAU_WALK_MAX], a_val[TAU_WALK_MAX];
+    double i1[TAU_WALK_MAX], a_val[TAU_WALK_MAX], a_dt = -1.0; /* one interval for all taus */
     double a01[TAU_WALK_MAX] = {0}, a11[TAU_WALK_MAX] = {0}, b1[TAU_WALK_MAX] = {0};
     double a00 = 0.0, b0 = 0.0, yy = 0.0;
     size_t n_used = 0, k;
     for (int j = 0; j < nt; j++) {
         i1[j] = ia[0];
-        a_dt[j] = -1.0;
         a_val[j] = 0.0;
     }
 /* the RC lag of every tau from sample k - 1 to k (as rc_advance) */
 #define ADVANCE(k)                                                                                 \
     do {                                                                                           \
         double dt_ = t[k] - t[(k)-1];                                                              \
-        for (int j = 0; j < nt; j++) {                                                             \
-            if (fabs(dt_ - a_dt[j]) > 1e-9 * dt_) {                                                \
-                a_dt[j] = dt_;                                                                     \
+        if (fabs(dt_ - a_dt) > 1e-9 * dt_) {                                                       \
+            a_dt = dt_;                                                                            \
+            for (int j = 0; j < nt; j++)                                                           \
                 a_val[j] = exp(-dt_ / tau_s[j]);                                                   \
-            }                                                                                      \
-            i1[j] = a_val[j] * i1[j] + (1.0 - a_val[j]) * ia[(k)-1];                               \
         }                                                                                          \
+        _Pragma("GCC unroll 16") for (int j = 0; j < nt; j++) i1[j] =                              \
+            a_val[j] * i1[j] + (1.0 - a_val[j]) * ia[(k)-1];                                       \
     } while (0)
     k = 1; /* the next sample whose lag is due; i1 holds sample k - 1's */
     for (size_t wj = 0; wj < c->nw; wj++) {
@@ -319,7 +318,8 @@ static inline __attribute__((always_inline)) void rss_walk(struct ctx *c, const 
                 k++;
             }
             double dq = q[kk] - w->mq;
-            for (int j = 0; j < nt; j++) {
+            _Pragma("GCC unroll 16") for (int j = 0; j < nt; j++)
+            {
                 buf[(size_t)j * len + r] = i1[j];
                 m1[j] += i1[j];
                 bq[j] += dq * i1[j];
@@ -337,7 +337,8 @@ static inline __attribute__((always_inline)) void rss_walk(struct ctx *c, const 
             a00 += x0 * x0;
             b0 += x0 * y;
             yy += y * y;
-            for (int j = 0; j < nt; j++) {
+            _Pragma("GCC unroll 16") for (int j = 0; j < nt; j++)
+            {
                 double x1 = -(buf[(size_t)j * len + r] - (m1[j] + bq[j] * dq));
                 a01[j] += x0 * x1;
                 a11[j] += x1 * x1;

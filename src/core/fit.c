@@ -22,6 +22,8 @@ struct normal_eq {
 
 #define SCALE_SAMPLES 65536 /* residuals kept for the robust scale */
 #define FIT_BLOCK 256       /* rows made per call */
+/* the kernels' loops over columns unrolled, so the sums stay in registers */
+#define PB_UNROLL _Pragma("GCC unroll 8")
 
 struct scale_sample {
     double *r; /* |residual| of every m-th used row */
@@ -52,9 +54,13 @@ block_sums(const int p, size_t m, const double *restrict x, const double *restri
            const unsigned char *restrict use, const double *beta, double scale,
            struct scale_sample *ss, size_t *ss_left, struct normal_eq *ne)
 {
-    double a[FIT_MAX_P][FIT_MAX_P], b[FIT_MAX_P];
+    if (p < 1 || p > FIT_MAX_P)
+        __builtin_unreachable(); /* fit_core checked it; lets the unrolled loops end */
+    double a[FIT_MAX_P][FIT_MAX_P] = {{0}}, b[FIT_MAX_P] = {0};
+    PB_UNROLL
     for (int i = 0; i < p; i++) {
         b[i] = ne->b[i];
+        PB_UNROLL
         for (int j = i; j < p; j++)
             a[i][j] = ne->a[i][j];
     }
@@ -70,6 +76,7 @@ block_sums(const int p, size_t m, const double *restrict x, const double *restri
         double w = 1.0;
         if (beta) {
             double res = yr;
+            PB_UNROLL
             for (int j = 0; j < p; j++)
                 res -= xr[j] * beta[j];
             if (ss && --*ss_left == 0) {
@@ -86,8 +93,10 @@ block_sums(const int p, size_t m, const double *restrict x, const double *restri
         n_used++;
         if (w == 0.0)
             continue;
+        PB_UNROLL
         for (int i = 0; i < p; i++) {
             double wx = w * xr[i];
+            PB_UNROLL
             for (int j = i; j < p; j++)
                 a[i][j] += wx * xr[j];
             b[i] += wx * yr;
@@ -95,8 +104,10 @@ block_sums(const int p, size_t m, const double *restrict x, const double *restri
         yy += w * yr * yr;
         wsum += w;
     }
+    PB_UNROLL
     for (int i = 0; i < p; i++) {
         ne->b[i] = b[i];
+        PB_UNROLL
         for (int j = i; j < p; j++)
             ne->a[i][j] = a[i][j];
     }
