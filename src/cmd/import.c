@@ -3,6 +3,7 @@
 #include <dirent.h>
 #include <getopt.h>
 #include <math.h>
+#include <pthread.h>
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
@@ -29,6 +30,8 @@ static const char usage_head[] =
     "  --db PATH              history database (default: $PACKBOOK_DB, else\n"
     "                         $XDG_DATA_HOME/packbook/packbook.db)\n"
     "  --quiet                no line per log, only the summary\n"
+    "  -j, --jobs N           logs analysed at once (default: the number of\n"
+    "                         cores); one thread writes the store, in order\n"
     "  --force                store a log that cannot be one flight (over a day\n"
     "                         long, or over twice the rated charge drawn): it is\n"
     "                         refused otherwise; the warning is kept either way\n";
@@ -41,6 +44,7 @@ static const struct option longopts[] = {
     {"db", required_argument, NULL, I_DB},
     {"quiet", no_argument, NULL, I_QUIET},
     {"force", no_argument, NULL, I_FORCE},
+    {"jobs", required_argument, NULL, 'j'},
     {"help", no_argument, NULL, 'h'},
     LOGOPTS_LONG,
     {NULL, 0, NULL, 0},
@@ -50,8 +54,11 @@ struct import_cli {
     struct log_cli log;
     const char *pack, *db;
     int have_date, quiet, force;
+    int jobs; /* analysing threads (1: none besides the writer) */
     double date_epoch_s;
 };
+
+#define IMPORT_MAX_JOBS 64
 
 struct path_list {
     char **v;
@@ -178,23 +185,57 @@ static void fill_flight(struct flight_rec *f, const struct analysis *a, const st
     }
 }
 
-enum outcome { OUT_STORED, OUT_DUPLICATE, OUT_FAILED };
+enum outcome { OUT_PENDING = 0, OUT_ANALYSED, OUT_STORED, OUT_DUPLICATE, OUT_FAILED };
 
-/* Imports one log; on OUT_FAILED err says why. */
-static enum outcome import_one(struct store *st, const struct pack_rec *pack,
-                               const struct import_cli *cli, const char *path, char *line,
-                               size_t cap, struct pb_error *err)
+/* One log of the batch: found stored by its hash, or analysed (by a
+ * worker) into a flight and its report, then stored (by the one writer). */
+struct job {
+    const char *path;
+    enum outcome out;
+    int done; /* the analysis is over (guarded by the pool's lock) */
+    struct flight_rec f;
+    char *json;
+    size_t nwarnings;
+    struct pb_error err;
+    char line[600];
+};
+
+/* Looks the log's hash up in the store before anything is analysed, so
+ * re-importing a folder costs reading it, not analysing it. Sets the job
+ * OUT_DUPLICATE with its line when stored; OUT_FAILED when the store fails. */
+static void find_stored(struct store *st, struct job *j)
+{
+    char hash[40];
+    if (strcmp(j->path, "-") == 0 || hash_file(j->path, hash, sizeof hash) != 0)
+        return; /* stdin is hashed as it is read; an unreadable file fails in the reader */
+    int found = 0;
+    char dup_label[128] = "";
+    if (store_flight_find_hash(st, hash, &found, dup_label, sizeof dup_label, &j->err) != PB_OK) {
+        j->out = OUT_FAILED;
+        return;
+    }
+    if (found) {
+        snprintf(j->line, sizeof j->line, "already imported%s%s: %s",
+                 dup_label[0] ? " for pack " : "", dup_label, j->path);
+        j->out = OUT_DUPLICATE;
+    }
+}
+
+/* Analyses one log into j->f and j->json (OUT_ANALYSED), or OUT_FAILED
+ * with j->err. Touches nothing shared: workers run it side by side. */
+static void analyse_job(const struct pack_rec *pack, const struct import_cli *cli, struct job *j)
 {
     struct log_cli lc = cli->log;
+    struct pb_error *err = &j->err;
     XXH3_state_t *hs = XXH3_createState();
     struct analysis *a = NULL;
     struct logread_stats stats;
     char *json = NULL;
     size_t json_len = 0;
-    enum outcome out = OUT_FAILED;
+    j->out = OUT_FAILED;
     if (!hs) {
         pb_error_set(err, PB_ENOMEM, "out of memory");
-        return OUT_FAILED;
+        return;
     }
     XXH3_128bits_reset(hs);
     lc.read.on_block = hash_block;
@@ -206,47 +247,33 @@ static enum outcome import_one(struct store *st, const struct pack_rec *pack,
         pb_error_set(err, PB_ESTORE, "pack '%s' has an unknown chemistry '%s' in the database",
                      pack->label, pack->chemistry);
         XXH3_freeState(hs);
-        return OUT_FAILED;
+        return;
     }
     lc.an.chemistry = (int)chem->id;
     lc.an.capacity_mah = pack->capacity_mah;
     lc.refuse_implausible = !cli->force; /* nothing impossible reaches the store */
+    const char *path = j->path;
     int is_stdin = strcmp(path, "-") == 0;
     const char *name = is_stdin ? "(stdin)" : path;
-    /* a log already stored is known by its hash before it is analysed, so
-     * re-importing a folder costs reading it, not analysing it */
-    char pre_hash[40];
-    if (!is_stdin && hash_file(path, pre_hash, sizeof pre_hash) == 0) {
-        int found = 0;
-        char dup_label[128] = "";
-        if (store_flight_find_hash(st, pre_hash, &found, dup_label, sizeof dup_label, err) != PB_OK)
-            goto cleanup;
-        if (found) {
-            snprintf(line, cap, "already imported%s%s: %s", dup_label[0] ? " for pack " : "",
-                     dup_label, name);
-            out = OUT_DUPLICATE;
-            goto cleanup;
-        }
-    }
     if (logopts_analyze(path, &lc, &stats, &a, NULL, err) != PB_OK)
         goto cleanup;
 
-    struct flight_rec f;
-    fill_flight(&f, a, pack);
+    struct flight_rec *f = &j->f;
+    fill_flight(f, a, pack);
     XXH128_hash_t h = XXH3_128bits_digest(hs);
-    snprintf(f.content_hash, sizeof f.content_hash, "xxh128:%016llx%016llx",
+    snprintf(f->content_hash, sizeof f->content_hash, "xxh128:%016llx%016llx",
              (unsigned long long)h.high64, (unsigned long long)h.low64);
-    snprintf(f.source, sizeof f.source, "%s", name);
+    snprintf(f->source, sizeof f->source, "%s", name);
     struct stat sb;
     if (a->has_epoch) {
-        f.flown_epoch_s = a->start_epoch_s;
-        snprintf(f.date_source, sizeof f.date_source, "log");
+        f->flown_epoch_s = a->start_epoch_s;
+        snprintf(f->date_source, sizeof f->date_source, "log");
     } else if (cli->have_date) {
-        f.flown_epoch_s = cli->date_epoch_s;
-        snprintf(f.date_source, sizeof f.date_source, "option");
+        f->flown_epoch_s = cli->date_epoch_s;
+        snprintf(f->date_source, sizeof f->date_source, "option");
     } else if (!is_stdin && stat(path, &sb) == 0) {
-        f.flown_epoch_s = (double)sb.st_mtim.tv_sec;
-        snprintf(f.date_source, sizeof f.date_source, "mtime");
+        f->flown_epoch_s = (double)sb.st_mtim.tv_sec;
+        snprintf(f->date_source, sizeof f->date_source, "mtime");
     } else {
         pb_error_set(err, PB_EUSAGE, "%s: the log has no absolute time: give --date", name);
         goto cleanup;
@@ -262,37 +289,76 @@ static enum outcome import_one(struct store *st, const struct pack_rec *pack,
         pb_error_set(err, PB_ENOMEM, "cannot build the flight report");
         goto cleanup;
     }
-    int dup = 0;
-    char dup_label[128] = "";
-    if (store_flight_put(st, &f, json, &dup, dup_label, sizeof dup_label, err) != PB_OK)
-        goto cleanup;
-    char when[40];
-    isotime_format(f.flown_epoch_s, when, sizeof when);
-    if (dup) {
-        snprintf(line, cap, "already imported%s%s: %s", dup_label[0] ? " for pack " : "", dup_label,
-                 name);
-        out = OUT_DUPLICATE;
-    } else {
-        snprintf(line, cap,
-                 "imported %s: %.16s (date from %s), %.0f mAh, R0 %s mOhm, %zu warning%s", name,
-                 when, f.date_source, f.charge_used_mah,
-                 isfinite(f.r0_mohm) ? (char[32]){0} : "unknown", a->nwarnings,
-                 a->nwarnings == 1 ? "" : "s");
-        if (isfinite(f.r0_mohm)) {
-            /* fill the R0 figure in place of the placeholder above */
-            snprintf(line, cap,
-                     "imported %s: %.16s (date from %s), %.0f mAh, R0 %.2f mOhm, %zu "
-                     "warning%s",
-                     name, when, f.date_source, f.charge_used_mah, f.r0_mohm, a->nwarnings,
-                     a->nwarnings == 1 ? "" : "s");
-        }
-        out = OUT_STORED;
-    }
+    j->json = json;
+    json = NULL;
+    j->nwarnings = a->nwarnings;
+    j->out = OUT_ANALYSED;
 cleanup:
     free(json);
     analysis_free(a);
     XXH3_freeState(hs);
-    return out;
+}
+
+/* Stores an analysed log (the writer's part); sets j->out and j->line. */
+static void store_job(struct store *st, struct job *j)
+{
+    const struct flight_rec *f = &j->f;
+    int dup = 0;
+    char dup_label[128] = "";
+    j->out = OUT_FAILED;
+    if (store_flight_put(st, f, j->json, &dup, dup_label, sizeof dup_label, &j->err) != PB_OK)
+        return;
+    char when[40];
+    isotime_format(f->flown_epoch_s, when, sizeof when);
+    if (dup) {
+        snprintf(j->line, sizeof j->line, "already imported%s%s: %s",
+                 dup_label[0] ? " for pack " : "", dup_label, f->source);
+        j->out = OUT_DUPLICATE;
+        return;
+    }
+    char r0[32] = "unknown";
+    if (isfinite(f->r0_mohm))
+        snprintf(r0, sizeof r0, "%.2f", f->r0_mohm);
+    snprintf(j->line, sizeof j->line,
+             "imported %s: %.16s (date from %s), %.0f mAh, R0 %s mOhm, %zu warning%s", f->source,
+             when, f->date_source, f->charge_used_mah, r0, j->nwarnings,
+             j->nwarnings == 1 ? "" : "s");
+    j->out = OUT_STORED;
+}
+
+/* Workers analyse logs ahead of the writer, at most IMPORT_AHEAD per
+ * worker: memory stays bounded however many logs are given. */
+#define IMPORT_AHEAD 4
+
+struct pool {
+    pthread_mutex_t mu;
+    pthread_cond_t done_cv, room_cv;
+    struct job *jobs;
+    size_t n, next, written, ahead;
+    int stop;
+    const struct pack_rec *pack;
+    const struct import_cli *cli;
+};
+
+static void *worker(void *vp)
+{
+    struct pool *p = vp;
+    pthread_mutex_lock(&p->mu);
+    for (;;) {
+        while (!p->stop && p->next < p->n && p->next >= p->written + p->ahead)
+            pthread_cond_wait(&p->room_cv, &p->mu);
+        if (p->stop || p->next >= p->n)
+            break;
+        struct job *j = &p->jobs[p->next++];
+        pthread_mutex_unlock(&p->mu);
+        if (j->out == OUT_PENDING)
+            analyse_job(p->pack, p->cli, j);
+        pthread_mutex_lock(&p->mu);
+        j->done = 1;
+        pthread_cond_broadcast(&p->done_cv);
+    }
+    pthread_mutex_unlock(&p->mu);
+    return NULL;
 }
 
 static void progress(size_t done, size_t total)
@@ -312,7 +378,7 @@ enum pb_code cmd_import(int argc, char **argv, struct app *app, struct pb_error 
     logopts_init(&cli.log);
     optind = 1;
     opterr = 0;
-    while ((c = getopt_long(argc, argv, "h", longopts, NULL)) != -1) {
+    while ((c = getopt_long(argc, argv, "hj:", longopts, NULL)) != -1) {
         int taken = logopts_take(c, optarg, &cli.log, err);
         if (taken < 0)
             return PB_EUSAGE;
@@ -331,6 +397,16 @@ enum pb_code cmd_import(int argc, char **argv, struct app *app, struct pb_error 
         case I_FORCE:
             cli.force = 1;
             break;
+        case 'j': {
+            char *end;
+            long v = strtol(optarg, &end, 10);
+            if (*end || end == optarg || v < 1 || v > IMPORT_MAX_JOBS)
+                return pb_error_set(err, PB_EUSAGE,
+                                    "--jobs: expected a count from 1 to %d, got '%s'",
+                                    IMPORT_MAX_JOBS, optarg);
+            cli.jobs = (int)v;
+            break;
+        }
         case I_DATE:
             if (isotime_parse(optarg, strlen(optarg), &cli.date_epoch_s, NULL) != 0)
                 return pb_error_set(err, PB_EUSAGE,
@@ -352,6 +428,10 @@ enum pb_code cmd_import(int argc, char **argv, struct app *app, struct pb_error 
         return rc;
     if (!cli.pack)
         return pb_error_set(err, PB_EUSAGE, "import: say which pack flew with --pack ID");
+    if (cli.jobs == 0) {
+        long cores = sysconf(_SC_NPROCESSORS_ONLN);
+        cli.jobs = cores < 1 ? 1 : cores > IMPORT_MAX_JOBS ? IMPORT_MAX_JOBS : (int)cores;
+    }
     if (optind >= argc)
         return pb_error_set(err, PB_EUSAGE, "import: no logs given");
 
@@ -374,31 +454,83 @@ enum pb_code cmd_import(int argc, char **argv, struct app *app, struct pb_error 
             goto cleanup;
     size_t stored = 0, dups = 0, failed = 0;
     int bar = isatty(STDERR_FILENO) && paths.n > 1;
+    struct pool pool = {.n = paths.n, .pack = &pack, .cli = &cli};
+    pool.ahead = (size_t)cli.jobs * IMPORT_AHEAD;
+    pool.jobs = calloc(paths.n ? paths.n : 1, sizeof *pool.jobs);
+    if (!pool.jobs) {
+        rc = pb_error_set(err, PB_ENOMEM, "out of memory");
+        goto cleanup;
+    }
+    for (size_t k = 0; k < paths.n; k++)
+        pool.jobs[k].path = paths.v[k];
+    /* every hash is looked up before any analysis starts (a few ms a
+     * hundred logs), so the workers never analyse a log already stored */
+    for (size_t k = 0; k < paths.n; k++)
+        find_stored(st, &pool.jobs[k]);
+    /* -j 1: no threads; else the workers analyse while this thread writes
+     * the store in the logs' order, one transaction per flight as before */
+    pthread_t tids[IMPORT_MAX_JOBS];
+    int nthreads = 0;
+    pthread_mutex_init(&pool.mu, NULL);
+    pthread_cond_init(&pool.done_cv, NULL);
+    pthread_cond_init(&pool.room_cv, NULL);
+    for (int t = 0; cli.jobs > 1 && t < cli.jobs; t++)
+        if (pthread_create(&tids[nthreads], NULL, worker, &pool) == 0)
+            nthreads++;
     for (size_t k = 0; k < paths.n; k++) {
-        char line[600];
-        struct pb_error e = {PB_OK, ""};
-        enum outcome o = import_one(st, &pack, &cli, paths.v[k], line, sizeof line, &e);
+        struct job *j = &pool.jobs[k];
+        if (nthreads == 0) {
+            if (j->out == OUT_PENDING)
+                analyse_job(&pack, &cli, j);
+        } else {
+            pthread_mutex_lock(&pool.mu);
+            while (!j->done)
+                pthread_cond_wait(&pool.done_cv, &pool.mu);
+            pthread_mutex_unlock(&pool.mu);
+        }
+        if (j->out == OUT_ANALYSED)
+            store_job(st, j);
+        free(j->json);
+        j->json = NULL;
+        pthread_mutex_lock(&pool.mu);
+        pool.written = k + 1;
+        pthread_cond_broadcast(&pool.room_cv);
+        pthread_mutex_unlock(&pool.mu);
         if (bar)
             fprintf(stderr, "\r%*s\r", 60, "");
-        if (o == OUT_FAILED) {
+        if (j->out == OUT_FAILED) {
             failed++;
-            if (e.code == PB_ESTORE || e.code == PB_ENOMEM) {
+            if (j->err.code == PB_ESTORE || j->err.code == PB_ENOMEM) {
                 /* the store itself failed: later logs would fail the same way */
                 printf("%zu imported, %zu already there; stopped at %s\n", stored, dups,
                        paths.v[k]);
-                rc = pb_error_set(err, e.code, "%s", e.msg);
-                goto cleanup;
+                rc = pb_error_set(err, j->err.code, "%s", j->err.msg);
+                break;
             }
-            fprintf(stderr, "packbook: not imported: %s\n", e.msg);
+            fprintf(stderr, "packbook: not imported: %s\n", j->err.msg);
         } else {
-            stored += o == OUT_STORED;
-            dups += o == OUT_DUPLICATE;
+            stored += j->out == OUT_STORED;
+            dups += j->out == OUT_DUPLICATE;
             if (!cli.quiet)
-                printf("%s\n", line);
+                printf("%s\n", j->line);
         }
         if (bar)
             progress(k + 1, paths.n);
     }
+    pthread_mutex_lock(&pool.mu);
+    pool.stop = 1;
+    pthread_cond_broadcast(&pool.room_cv);
+    pthread_mutex_unlock(&pool.mu);
+    for (int t = 0; t < nthreads; t++)
+        pthread_join(tids[t], NULL);
+    for (size_t k = 0; k < paths.n; k++)
+        free(pool.jobs[k].json);
+    free(pool.jobs);
+    pthread_cond_destroy(&pool.room_cv);
+    pthread_cond_destroy(&pool.done_cv);
+    pthread_mutex_destroy(&pool.mu);
+    if (rc != PB_OK)
+        goto cleanup;
     printf("%zu imported, %zu already there, %zu failed (pack %s)\n", stored, dups, failed,
            pack.label);
     app->some_failed = failed > 0;

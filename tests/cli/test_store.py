@@ -488,6 +488,29 @@ class Concurrency(unittest.TestCase):
         self.assertEqual((imported, already), (24, 24))
         self._check(db, 24)
 
+    def test_workers_store_what_one_thread_stores(self):
+        # import -j N analyses in N threads while one writes: the same flights (every column,
+        # the report included), the same lines in the same order, as -j 1
+        rows, outs = [], []
+        for jobs in (1, 2, 3):
+            db = os.path.join(newdir(self, f"jobs{jobs}"), "j.db")
+            add_pack(self, db, "TM-J")
+            rc, out, err = pb(db, "import", "-j", jobs, "--pack", "TM-J", self.sets["A"],
+                              self.sets["B"])
+            self.assertEqual(rc, EXIT_OK, err)
+            self.assertIn("24 imported, 0 already there, 0 failed", out)
+            self._check(db, 24)
+            outs.append(out)
+            rows.append(query(db, "SELECT pack_id, content_hash, source, flown_epoch_s, "
+                                  "r0_mohm, charge_used_mah, report_json FROM flights ORDER BY id"))
+        self.assertEqual(outs[1], outs[0])
+        self.assertEqual(outs[2], outs[0])
+        self.assertEqual(rows[1], rows[0])
+        self.assertEqual(rows[2], rows[0])
+        rc, out, err = pb(db, "import", "--jobs", 0, "--pack", "TM-J", self.sets["A"])
+        self.assertEqual(rc, EXIT_USAGE)
+        self.assertIn("--jobs: expected a count from 1 to 64, got '0'", err)
+
     def test_two_pack_adds_on_a_new_db(self):
         # both processes find no schema: one migrates, the other must wait and see it
         for rnd in range(5):
