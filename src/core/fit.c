@@ -28,6 +28,10 @@ struct normal_eq {
 struct scale_sample {
     double *r; /* |residual| of every m-th used row */
     size_t n, m;
+    /* the same rows themselves, kept by the plain pass (when not NULL) so
+     * the first scale, at the plain fit, needs no pass over every row */
+    double *x, *y;
+    size_t nk;
 };
 
 /* Rows come in blocks; a row callback is adapted to one. */
@@ -74,6 +78,15 @@ block_sums(const int p, size_t m, const double *restrict x, const double *restri
         const double *xr = x + r * (size_t)p;
         double yr = y[r];
         double w = 1.0;
+        if (!beta && ss && --*ss_left == 0) {
+            *ss_left = ss->m;
+            if (ss->nk < SCALE_SAMPLES) {
+                PB_UNROLL
+                for (int j = 0; j < p; j++)
+                    ss->x[ss->nk * (size_t)p + (size_t)j] = xr[j];
+                ss->y[ss->nk++] = yr;
+            }
+        }
         if (beta) {
             double res = yr;
             PB_UNROLL
@@ -128,8 +141,10 @@ static void run_pass(size_t n, int p, const struct source *src, const double *be
     memset(ne, 0, sizeof *ne);
     /* the first used row is taken, then every m-th (as n_used % m == 0) */
     size_t ss_left = 1;
-    if (ss)
+    if (ss && beta)
         ss->n = 0;
+    if (ss && !beta)
+        ss->nk = 0;
     for (size_t k0 = 0; k0 < n; k0 += FIT_BLOCK) {
         size_t m = n - k0 < FIT_BLOCK ? n - k0 : FIT_BLOCK;
         src->block(src->ctx, k0, m, p, x, y, use);
@@ -262,7 +277,7 @@ static enum pb_code fit_core(size_t n, int p, const struct source *src, int robu
     double inv[FIT_MAX_P][FIT_MAX_P];
     double beta[FIT_MAX_P] = {0};
     int rank = 0;
-    struct scale_sample ss = {NULL, 0, n / SCALE_SAMPLES + 1};
+    struct scale_sample ss = {.m = n / SCALE_SAMPLES + 1};
     double scale = 0.0;
     size_t visited = 0;
 
@@ -274,12 +289,26 @@ static enum pb_code fit_core(size_t n, int p, const struct source *src, int robu
         memcpy(beta, start->beta, sizeof beta);
         scale = start->scale;
     } else {
-        run_pass(n, p, src, NULL, 0.0, NULL, &ne);
+        if (robust) {
+            ss.x = malloc(SCALE_SAMPLES * (size_t)p * sizeof *ss.x);
+            ss.y = malloc(SCALE_SAMPLES * sizeof *ss.y);
+        }
+        int keep_rows = ss.x && ss.y;
+        run_pass(n, p, src, NULL, 0.0, keep_rows ? &ss : NULL, &ne);
         visited += n;
-        if (ne.n_used <= (size_t)p)
-            return pb_error_set(err, PB_ENUMERIC, "fit: %zu rows for %d unknowns", ne.n_used, p);
-        if (solve(&ne, p, beta, inv, &rank) != 0)
+        if (!keep_rows) {
+            free(ss.x);
+            free(ss.y);
+            ss.x = ss.y = NULL;
+        }
+        if (ne.n_used <= (size_t)p || solve(&ne, p, beta, inv, &rank) != 0) {
+            free(ss.x);
+            free(ss.y);
+            if (ne.n_used <= (size_t)p)
+                return pb_error_set(err, PB_ENUMERIC, "fit: %zu rows for %d unknowns", ne.n_used,
+                                    p);
             return pb_error_set(err, PB_ENUMERIC, "fit: eigensolver failed");
+        }
         out->rss_plain = ne.yy;
         for (int j = 0; j < p; j++)
             out->rss_plain -= beta[j] * ne.b[j];
@@ -287,16 +316,33 @@ static enum pb_code fit_core(size_t n, int p, const struct source *src, int robu
     }
     if (robust) {
         ss.r = malloc(SCALE_SAMPLES * sizeof *ss.r);
-        if (!ss.r)
+        if (!ss.r) {
+            free(ss.x);
+            free(ss.y);
             return pb_error_set(err, PB_ENOMEM, "out of memory");
+        }
         /* each pass weights by the scale of the previous pass's residuals
          * and samples its own; at convergence the two agree */
         for (int it = 1; it <= 15; it++) {
             double prev[FIT_MAX_P];
             memcpy(prev, beta, sizeof prev);
             struct normal_eq keep = ne;
-            run_pass(n, p, src, beta, scale, &ss, &ne);
-            visited += n;
+            if (it == 1 && ss.x) {
+                /* the scale at the plain fit from the kept rows: the same
+                 * residuals a pass at weight 1 would sample, and that pass's
+                 * sums are the plain pass's */
+                for (size_t k = 0; k < ss.nk; k++) {
+                    double res = ss.y[k];
+                    for (int j = 0; j < p; j++)
+                        res -= ss.x[k * (size_t)p + (size_t)j] * beta[j];
+                    ss.r[k] = fabs(res);
+                }
+                ss.n = ss.nk;
+                visited += ss.nk;
+            } else {
+                run_pass(n, p, src, beta, scale, &ss, &ne);
+                visited += n;
+            }
             double next = MAD_TO_SIGMA * fit_median(ss.r, ss.n);
             /* an exact fit (residuals at rounding level): nothing to reweight */
             double y_rms = ne.n_used ? sqrt(fmax(ne.yy, keep.yy) / (double)ne.n_used) : 0.0;
@@ -329,6 +375,8 @@ static enum pb_code fit_core(size_t n, int p, const struct source *src, int robu
             scale = next;
         }
         free(ss.r);
+        free(ss.x);
+        free(ss.y);
         out->n_downweighted = ne.n_low;
         out->scale = scale;
     }
