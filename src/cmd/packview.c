@@ -88,9 +88,14 @@ static void to_health(const struct flight_rec *f, size_t n, struct health_flight
     }
 }
 
+static enum pb_code load_view(struct store *st, const struct pack_rec *p,
+                              const struct health_rules *rules, enum trend_by by, int plain,
+                              double horizon, int with_trend, struct pack_view *v,
+                              struct pb_error *err);
+
 enum pb_code packview_load_fleet(struct store *st, const struct health_rules *rules, int all,
-                                 const char *status, struct pack_view **views, size_t *nv,
-                                 struct pb_error *err)
+                                 const char *status, packview_each_fn each, void *ctx,
+                                 struct pack_view **views, size_t *nv, struct pb_error *err)
 {
     struct pack_rec *packs = NULL;
     size_t np = 0;
@@ -106,14 +111,22 @@ enum pb_code packview_load_fleet(struct store *st, const struct health_rules *ru
     for (size_t k = 0; rc == PB_OK && k < np; k++) {
         if (packs[k].retired_at[0] && !all)
             continue;
-        rc = packview_load(st, &packs[k], rules, TREND_WEEK, 0, 1000.0, &v[n], err);
+        /* the fleet shows each pack's state, not its trend lines, and holds
+         * one pack's flights at a time */
+        rc = load_view(st, &packs[k], rules, TREND_WEEK, 0, 1000.0, 0, &v[n], err);
         if (rc != PB_OK)
             break;
         const char *s = packs[k].retired_at[0] ? "retired" : health_status_name(v[n].health.status);
-        if (status && strcmp(s, status) != 0)
+        if (status && strcmp(s, status) != 0) {
             pack_view_release(&v[n]);
-        else
-            n++;
+            continue;
+        }
+        if (each)
+            each(&v[n], n, ctx);
+        store_flights_free(v[n].flights);
+        v[n].flights = NULL;
+        v[n].nflights = 0;
+        n++;
     }
     store_packs_free(packs);
     if (rc != PB_OK) {
@@ -138,6 +151,14 @@ enum pb_code packview_load(struct store *st, const struct pack_rec *p,
                            const struct health_rules *rules, enum trend_by by, int plain,
                            double horizon, struct pack_view *v, struct pb_error *err)
 {
+    return load_view(st, p, rules, by, plain, horizon, 1, v, err);
+}
+
+static enum pb_code load_view(struct store *st, const struct pack_rec *p,
+                              const struct health_rules *rules, enum trend_by by, int plain,
+                              double horizon, int with_trend, struct pack_view *v,
+                              struct pb_error *err)
+{
     memset(v, 0, sizeof *v);
     v->pack = *p;
     enum pb_code rc = store_flights_of(st, p->id, &v->flights, &v->nflights, err);
@@ -150,8 +171,9 @@ enum pb_code packview_load(struct store *st, const struct pack_rec *p,
     }
     to_health(v->flights, v->nflights, h);
     health_assess(h, v->nflights, p->cells, p->capacity_mah, rules, &v->health);
-    int trc = health_trend(h, v->nflights, p->cells, p->capacity_mah, rules, by, plain, horizon,
-                           &v->trend);
+    int trc = with_trend ? health_trend(h, v->nflights, p->cells, p->capacity_mah, rules, by, plain,
+                                        horizon, &v->trend)
+                         : 0;
     free(h);
     if (trc != 0) {
         pack_view_release(v);

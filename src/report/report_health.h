@@ -17,6 +17,7 @@ struct pack_view {
     size_t nflights;
     struct pack_health health;
     struct pack_trend trend;
+    double safe_s[2]; /* fleet --predict: conservative and median safe time (NAN: none) */
 };
 
 void pack_view_release(struct pack_view *v);

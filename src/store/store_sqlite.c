@@ -424,10 +424,11 @@ static double col_num(sqlite3_stmt *s, int i)
     X(duration_s)                                                                                  \
     X(charge_used_mah)                                                                             \
     X(energy_used_wh)                                                                              \
-    X(current_max_a) X(current_mean_a) X(power_mean_w) X(voltage_min_v) X(cell_voltage_min_v)      \
-        X(time_below_floor_s) X(r0_mohm) X(r0_ci95_mohm) X(r1_mohm) X(tau_s) X(soc_start_pct)      \
-            X(soc_end_pct) X(capacity_mah) X(capacity_ci95_mah) X(cell_spread_rest_mv)             \
-                X(cell_spread_load_mv) X(temperature_max_c) X(power_cruise_w)
+    X(current_max_a)                                                                               \
+    X(current_mean_a) X(power_mean_w) X(voltage_min_v) X(cell_voltage_min_v) X(time_below_floor_s) \
+        X(r0_mohm) X(r0_ci95_mohm) X(r1_mohm) X(tau_s) X(soc_start_pct) X(soc_end_pct)             \
+            X(capacity_mah) X(capacity_ci95_mah) X(cell_spread_rest_mv) X(cell_spread_load_mv)     \
+                X(temperature_max_c) X(power_cruise_w)
 
 #define X(name) #name ", "
 static const char flight_num_cols[] = FLIGHT_NUMS;
@@ -595,8 +596,9 @@ enum pb_code store_flights_of(struct store *st, int64_t pack_id, struct flight_r
              (int)strlen(flight_num_cols) - 2, flight_num_cols);
     if (sqlite3_prepare_v2(st->db, sql, -1, &s, NULL) != SQLITE_OK ||
         sqlite3_prepare_v2(st->db,
-                           "SELECT cell, r0_mohm, voltage_min_v, voltage_rest_v FROM "
-                           "flight_cells WHERE flight_id = ? ORDER BY cell",
+                           "SELECT c.flight_id, c.cell, c.r0_mohm, c.voltage_min_v, "
+                           "c.voltage_rest_v FROM flights f JOIN flight_cells c ON c.flight_id "
+                           "= f.id WHERE f.pack_id = ? ORDER BY f.flown_epoch_s, f.id, c.cell",
                            -1, &c, NULL) != SQLITE_OK) {
         sqlite3_finalize(s);
         return db_error(st, err, "cannot read flights");
@@ -627,15 +629,24 @@ enum pb_code store_flights_of(struct store *st, int64_t pack_id, struct flight_r
 #define X(name) f->name = col_num(s, i++);
         FLIGHT_NUMS
 #undef X
-        sqlite3_reset(c);
-        sqlite3_bind_int64(c, 1, f->id);
-        while (sqlite3_step(c) == SQLITE_ROW && f->ncells < PB_MAX_CELLS) {
-            struct flight_cell_rec *fc = &f->cell[f->ncells++];
-            fc->index = sqlite3_column_int(c, 0);
-            fc->r0_mohm = col_num(c, 1);
-            fc->voltage_min_v = col_num(c, 2);
-            fc->voltage_rest_v = col_num(c, 3);
-        }
+    }
+    /* the cells of the whole pack in one query, in the flights' order */
+    sqlite3_bind_int64(c, 1, pack_id);
+    size_t at = 0;
+    while (rc == SQLITE_DONE && sqlite3_step(c) == SQLITE_ROW) {
+        int64_t fid = sqlite3_column_int64(c, 0);
+        while (at < len && v[at].id != fid)
+            at++;
+        if (at == len)
+            break;
+        struct flight_rec *f = &v[at];
+        if (f->ncells >= PB_MAX_CELLS)
+            continue;
+        struct flight_cell_rec *fc = &f->cell[f->ncells++];
+        fc->index = sqlite3_column_int(c, 1);
+        fc->r0_mohm = col_num(c, 2);
+        fc->voltage_min_v = col_num(c, 3);
+        fc->voltage_rest_v = col_num(c, 4);
     }
     sqlite3_finalize(s);
     sqlite3_finalize(c);
