@@ -48,8 +48,6 @@ def make_store(a, db, env):
     subprocess.run([PYTHON, os.path.join(HERE, "gen_log.py"), "9000", log], check=True,
                    stdout=subprocess.DEVNULL)
     npacks = max(2, a.flights // PER_PACK)
-    for k in range(npacks):
-        pass
     # packs through packbook (its checks), in one go through SQLite after the first
     subprocess.run([a.packbook, "pack", "add", "P0000", "--cells", "4", "--chemistry", "lipo",
                     "--capacity", "5000"], check=True, env=env, stdout=subprocess.DEVNULL)
@@ -95,6 +93,7 @@ def make_store(a, db, env):
         con.executemany(sql, rows)
         con.executemany(csql, cells)
     con.commit()
+    con.execute("PRAGMA wal_checkpoint(TRUNCATE)")  # the copies out of the WAL: half the disk
     con.close()
     return npacks
 
