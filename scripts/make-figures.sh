@@ -10,7 +10,7 @@ mkdir -p "$out"
 tmp=$(mktemp -d)
 trap 'rm -rf "$tmp"' EXIT
 $pb plot samples/tm15-deep.csv --cells 4 --chemistry lipo --capacity 5000 --size 1400x1000 \
-    --title "TM-15 - Brindle Fen, flown past the floor" -o "$out/flight-tm15.png"
+    --title "TM-15 - Brindle Fen, flown past the cut-off" -o "$out/flight-tm15.png"
 $pb plot samples/tm12-cells.csv --chemistry lihv --capacity 4200 --size 1400x1100 \
     --title "TM-12 - Brindle Fen, reed beds" -o "$out/flight-tm12.png"
 PACKBOOK_DB="$tmp/season.db" /usr/bin/python3 scripts/make-season.py --import --packbook "$pb" \

@@ -1,10 +1,15 @@
 /* packbook: command dispatch. Each subcommand lives in src/cmd/; errors
  * from any of them are printed here, once, and mapped to the exit status. */
 #include <gsl/gsl_errno.h>
+#include <langinfo.h>
+#include <locale.h>
 #include <stdio.h>
 #include <string.h>
+#include <unistd.h>
 
 #include "cmd/cmd.h"
+#include "cmd/config.h"
+#include "report/report.h"
 
 #ifndef PACKBOOK_VERSION
 #define PACKBOOK_VERSION "0.0.0"
@@ -19,12 +24,14 @@ struct command {
 static const struct command commands[] = {
     {"analyze", cmd_analyze, "one flight log in, the pack's facts out"},
     {"chemistry", cmd_chemistry, "the OCV tables and limits used, with their sources"},
-    {"pack", cmd_pack, "register packs: add, list, show, retire"},
+    {"pack", cmd_pack, "register packs: add, list, show, edit, retire, unretire"},
     {"import", cmd_import, "analyse logs and store them as a pack's flights"},
+    {"flight", cmd_flight, "stored flights: list, remove, move to another pack"},
     {"fleet", cmd_fleet, "every pack's state, with retirement flags and reasons"},
     {"trend", cmd_trend, "a pack's resistance and capacity over weeks and cycles"},
     {"compare", cmd_compare, "packs side by side"},
     {"predict", cmd_predict, "safe flight time for the next sortie, with its uncertainty"},
+    {"config", cmd_config, "the settings in force and where each comes from"},
     {"plot", cmd_plot, "figures of a flight, a pack's trend or the fleet (PNG, SVG, PDF)"},
 };
 
@@ -47,6 +54,13 @@ int main(int argc, char **argv)
     /* GSL would abort on error; every GSL call's status is checked instead */
     gsl_set_error_handler_off();
 
+    /* mΩ on a UTF-8 terminal, mOhm in pipes, files and other terminals; the
+     * locale is only asked, then put back (numbers never depend on it) */
+    if (isatty(STDOUT_FILENO) && setlocale(LC_CTYPE, "")) {
+        report_set_utf8(strcmp(nl_langinfo(CODESET), "UTF-8") == 0);
+        setlocale(LC_CTYPE, "C");
+    }
+
     if (argc < 2) {
         print_usage(stderr);
         return PB_EXIT_USAGE;
@@ -63,7 +77,10 @@ int main(int argc, char **argv)
     for (size_t k = 0; k < sizeof commands / sizeof *commands; k++) {
         if (strcmp(commands[k].name, verb) != 0)
             continue;
-        enum pb_code rc = commands[k].run(argc - 1, argv + 1, &app, &err);
+        /* the settings file first: a broken one is reported before anything runs */
+        enum pb_code rc = config_load(&err);
+        if (rc == PB_OK)
+            rc = commands[k].run(argc - 1, argv + 1, &app, &err);
         if (rc != PB_OK) {
             fprintf(stderr, "packbook: %s\n", err.msg[0] ? err.msg : pb_strerror(rc));
             return pb_exit_status(rc);

@@ -9,7 +9,10 @@
 #include "../report/plots.h"
 #include "../report/report.h"
 #include "cmd.h"
+#include "config.h"
 #include "logopts.h"
+#include "packopts.h"
+#include "packview.h"
 
 static const char usage_head[] =
     "usage: packbook analyze [options] LOG\n"
@@ -20,8 +23,11 @@ static const char usage_head[] =
     "\n"
     "pack:\n"
     "  --cells N              series cell count (default: from cell columns or inferred)\n"
-    "  --chemistry C          lipo, lihv, nmc or lfp (default: lipo, with a warning)\n"
-    "  --capacity MAH         rated capacity, for C-rates and capacity as % of rated\n";
+    "  --chemistry C          lipo, lihv, nmc or lfp, any case (default: lipo, with a warning)\n"
+    "  --capacity MAH         rated capacity, for C-rates and capacity as % of rated\n"
+    "  --pack ID [--db PATH]  a registered pack instead: its cells, chemistry, capacity\n"
+    "                         and remembered reading settings (the options below\n"
+    "                         override those)\n";
 
 static const char usage_tail[] =
     "output:\n"
@@ -32,12 +38,14 @@ static const char usage_tail[] =
     "                         figure of 'packbook plot'; that command sets its size)\n"
     "  -h, --help             this text\n";
 
-enum { OPT_JSON = 256, OPT_SERIES, OPT_PLOT };
+enum { OPT_JSON = 256, OPT_SERIES, OPT_PLOT, OPT_PACK, OPT_DB };
 
 static const struct option longopts[] = {
     {"json", no_argument, NULL, OPT_JSON},
     {"series", required_argument, NULL, OPT_SERIES},
     {"plot", required_argument, NULL, OPT_PLOT},
+    {"pack", required_argument, NULL, OPT_PACK},
+    {"db", required_argument, NULL, OPT_DB},
     {"help", no_argument, NULL, 'h'},
     LOGOPTS_PACK_LONG,
     LOGOPTS_LONG,
@@ -50,6 +58,10 @@ struct analyze_cli {
     const char *path;
     const char *series; /* --series FILE */
     const char *plot;   /* --plot FILE */
+    const char *pack, *db;
+    const char *pack_opt; /* the first of --cells, --chemistry, --capacity given */
+    struct packopts_seen seen;
+    struct pack_rec rec; /* the pack's, its settings split by packopts_apply */
 };
 
 /* Fills cli from argv; sets *done when --help was printed instead. */
@@ -62,11 +74,19 @@ static enum pb_code parse_args(int argc, char **argv, struct analyze_cli *cli, i
     while ((c = getopt_long(argc, argv, "h", longopts, NULL)) != -1) {
         const char *v = optarg;
         int taken = logopts_take(c, v, &cli->log, err);
-        if (taken < 0)
+        if (taken < 0 || (taken && packopts_note(&cli->seen, c, v, err) < 0))
             return PB_EUSAGE;
+        if (c == LO_CELLS || c == LO_CHEM || c == LO_CAP)
+            cli->pack_opt = c == LO_CELLS ? "--cells" : c == LO_CHEM ? "--chemistry" : "--capacity";
         if (taken)
             continue;
         switch (c) {
+        case OPT_PACK:
+            cli->pack = v;
+            break;
+        case OPT_DB:
+            cli->db = v;
+            break;
         case OPT_JSON:
             cli->json = 1;
             break;
@@ -101,7 +121,34 @@ static enum pb_code parse_args(int argc, char **argv, struct analyze_cli *cli, i
         return pb_error_set(err, PB_EUSAGE, "analyze: one log at a time, got '%s' and '%s'",
                             argv[optind], argv[optind + 1]);
     cli->path = argv[optind];
+    if (cli->db && !cli->pack)
+        return pb_error_set(err, PB_EUSAGE, "analyze: --db is for --pack");
+    if (cli->pack && cli->pack_opt)
+        return pb_error_set(err, PB_EUSAGE,
+                            "analyze: %s with --pack: the pack sets cells, chemistry and capacity",
+                            cli->pack_opt);
     return PB_OK;
+}
+
+/* --pack: the registered pack's facts and reading settings under the options given. */
+static enum pb_code take_pack(struct analyze_cli *cli, struct pb_error *err)
+{
+    struct store *st = NULL;
+    enum pb_code rc = packview_open_store(cli->db, 0, &st, err);
+    if (rc == PB_OK)
+        rc = store_pack_get(st, cli->pack, &cli->rec, err);
+    store_close(st);
+    if (rc != PB_OK)
+        return rc;
+    const struct chem_info *chem = ocv_chem_by_name(cli->rec.chemistry);
+    if (!chem)
+        return pb_error_set(err, PB_ESTORE,
+                            "pack '%s' has an unknown chemistry '%s' in the database",
+                            cli->rec.label, cli->rec.chemistry);
+    cli->log.an.cells = cli->rec.cells;
+    cli->log.an.chemistry = (int)chem->id;
+    cli->log.an.capacity_mah = cli->rec.capacity_mah;
+    return packopts_apply(cli->rec.settings, &cli->seen, &cli->log, err);
 }
 
 static void emit_row(void *ctx, const struct sample_row *r)
@@ -146,6 +193,10 @@ enum pb_code cmd_analyze(int argc, char **argv, struct app *app, struct pb_error
     enum pb_code rc = parse_args(argc, argv, &cli, &done, err);
     if (rc != PB_OK || done)
         return rc;
+    /* the settings file's reading defaults, a pack's settings, then the options */
+    rc = cli.pack ? take_pack(&cli, err) : packopts_apply(NULL, &cli.seen, &cli.log, err);
+    if (rc != PB_OK)
+        return rc;
     rc = logopts_analyze(cli.path, &cli.log, &stats, &a, cli.series || cli.plot ? &s : NULL, err);
     if (rc != PB_OK)
         return rc;
@@ -154,6 +205,7 @@ enum pb_code cmd_analyze(int argc, char **argv, struct app *app, struct pb_error
     if (cli.series && (rc = write_series(cli.series, s, a, cli.log.an.capacity_mah, err)) != PB_OK)
         goto cleanup;
     struct plot_opts fig = {0};
+    fig.reserve_pct = config_reserve();
     if (cli.plot &&
         (rc = plot_flight(cli.plot, &fig, s, a, cli.log.an.capacity_mah, name, err)) != PB_OK)
         goto cleanup;

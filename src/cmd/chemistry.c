@@ -9,7 +9,8 @@ static const char usage[] =
     "usage: packbook chemistry [--json]\n"
     "\n"
     "Prints the open-circuit-voltage tables (SoC against rested cell voltage),\n"
-    "floors and full/empty thresholds used for each chemistry, with their sources.\n";
+    "cut-off voltages and full/empty thresholds used for each chemistry, with their\n"
+    "sources.\n";
 
 enum pb_code cmd_chemistry(int argc, char **argv, struct app *app, struct pb_error *err)
 {

@@ -6,22 +6,68 @@
 #include <string.h>
 
 #include "cmd.h"
+#include "config.h"
 #include "packview.h"
 
 static const char usage[] =
     "usage: packbook fleet [--json|--csv] [--sort KEY] [--status S] [--all] [--db PATH]\n"
     "\n"
     "One row per pack in service: flights, equivalent full cycles, last flown,\n"
-    "R0 now (mOhm per cell, median of the last 5 flights) and against its baseline\n"
-    "(median of its first 3), capacity as % of rated, resting cell spread, flights\n"
-    "below the voltage floor, status (ok, watch, retire) and why.\n"
-    "  --sort KEY             status (default: retire first), pack, cycles, r0, capacity, last\n"
-    "  --status S             only packs with status ok, watch, retire or retired\n"
-    "  --all                  include retired packs\n"
-    "  --predict [--power W]  add the conservative safe flight time (minutes) to a 30 %\n"
-    "                         reserve at the pack's recent cruise power, or at W\n"
-    "  --json, --csv          machine-readable output (CSV cells starting = + - @ are\n"
-    "                         prefixed with ' so spreadsheets do not run them)\n";
+    "internal resistance (IR: the model's R0, mOhm per cell, median of the last " HEALTH_STR(
+        HEALTH_RECENT_FLIGHTS) "\n"
+                               "flights) and against its baseline (median of its first " HEALTH_STR(
+                                   HEALTH_BASELINE_FLIGHTS) "), capacity as % of\n"
+                                                            "rated, resting cell imbalance, the "
+                                                            "weakest cell, over-discharges "
+                                                            "(flights under\n"
+                                                            "the cut-off voltage), status (ok, "
+                                                            "watch, retire) and why.\n"
+                                                            "  --sort KEY             status "
+                                                            "(default: retire first), pack, "
+                                                            "cycles, r0 (resistance\n"
+                                                            "                         per cell, "
+                                                            "highest first), r0-ratio (against the "
+                                                            "baseline),\n"
+                                                            "                         capacity "
+                                                            "(lowest first), imbalance, last\n"
+                                                            "  --status S             only packs "
+                                                            "with status ok, watch, retire or "
+                                                            "retired\n"
+                                                            "  --all                  include "
+                                                            "retired packs\n"
+                                                            "  --predict [--power W]  add the "
+                                                            "conservative safe flight time "
+                                                            "(minutes) to the\n"
+                                                            "                         landing "
+                                                            "reserve (" PREDICT_STR(
+                                                                PREDICT_RESERVE_PCT) " %, or the "
+                                                                                     "settings "
+                                                                                     "file's "
+                                                                                     "'reserve')\n"
+                                                                                     "             "
+                                                                                     "            "
+                                                                                     "at the "
+                                                                                     "pack's "
+                                                                                     "recent "
+                                                                                     "cruise "
+                                                                                     "power, or at "
+                                                                                     "W\n"
+                                                                                     "  --json, "
+                                                                                     "--csv        "
+                                                                                     "  "
+                                                                                     "machine-"
+                                                                                     "readable "
+                                                                                     "output (CSV "
+                                                                                     "cells "
+                                                                                     "starting = + "
+                                                                                     "- @ are\n"
+                                                                                     "             "
+                                                                                     "            "
+                                                                                     "prefixed "
+                                                                                     "with ' so "
+                                                                                     "spreadsheets "
+                                                                                     "do not run "
+                                                                                     "them)\n";
 
 enum { F_JSON = 256, F_CSV, F_SORT, F_STATUS, F_ALL, F_DB, F_PREDICT, F_POWER };
 
@@ -65,7 +111,11 @@ static int compare_views(const void *pa, const void *pb)
     else if (strcmp(sort_key, "cycles") == 0)
         c = cmp_num(a->health.cycles, b->health.cycles, 1);
     else if (strcmp(sort_key, "r0") == 0)
+        c = cmp_num(a->health.r0_now_mohm_cell, b->health.r0_now_mohm_cell, 1);
+    else if (strcmp(sort_key, "r0-ratio") == 0)
         c = cmp_num(a->health.r0_ratio, b->health.r0_ratio, 1);
+    else if (strcmp(sort_key, "imbalance") == 0)
+        c = cmp_num(a->health.spread_mv, b->health.spread_mv, 1);
     else if (strcmp(sort_key, "capacity") == 0)
         c = cmp_num(a->health.capacity_pct, b->health.capacity_pct, 0);
     else if (strcmp(sort_key, "last") == 0)
@@ -107,7 +157,7 @@ enum pb_code cmd_fleet(int argc, char **argv, struct app *app, struct pb_error *
     int all = 0, predict = 0, c;
     double power_w = NAN;
     (void)app;
-    health_rules_default(&rules);
+    config_rules(&rules);
     sort_key = "status";
     optind = 1;
     opterr = 0;
@@ -126,10 +176,11 @@ enum pb_code cmd_fleet(int argc, char **argv, struct app *app, struct pb_error *
             break;
         case F_SORT:
             if (strcmp(optarg, "status") && strcmp(optarg, "pack") && strcmp(optarg, "cycles") &&
-                strcmp(optarg, "r0") && strcmp(optarg, "capacity") && strcmp(optarg, "last"))
+                strcmp(optarg, "r0") && strcmp(optarg, "r0-ratio") && strcmp(optarg, "capacity") &&
+                strcmp(optarg, "imbalance") && strcmp(optarg, "last"))
                 return pb_error_set(err, PB_EUSAGE,
-                                    "--sort: expected status, pack, cycles, r0, "
-                                    "capacity or last, got '%s'",
+                                    "--sort: expected status, pack, cycles, r0, r0-ratio, "
+                                    "capacity, imbalance or last, got '%s'",
                                     optarg);
             sort_key = optarg;
             break;
@@ -194,7 +245,7 @@ enum pb_code cmd_fleet(int argc, char **argv, struct app *app, struct pb_error *
     if (predict)
         for (size_t k = 0; k < nv; k++)
             safe[2 * k] = views[k].safe_s[0], safe[2 * k + 1] = views[k].safe_s[1];
-    if (report_fleet(stdout, views, nv, fmt, safe) != 0)
+    if (report_fleet(stdout, views, nv, fmt, safe, config_reserve()) != 0)
         rc = pb_error_set(err, PB_EOUTPUT, "cannot write the output");
     else
         rc = cmd_finish_stdout(err);

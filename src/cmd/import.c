@@ -7,36 +7,52 @@
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
+#include <strings.h>
 #include <sys/stat.h>
 #include <unistd.h>
 #include <xxhash.h>
 
 #include "../core/isotime.h"
+#include "../core/packfit.h"
 #include "../report/report.h"
 #include "cmd.h"
 #include "logopts.h"
+#include "packopts.h"
 #include "packview.h"
 
 static const char usage_head[] =
-    "usage: packbook import --pack ID [options] LOG|DIR|- ...\n"
+    "usage: packbook import --pack ID [-r] [options] LOG|DIR|- ...\n"
     "\n"
     "Analyses each log with the pack's cells, chemistry and capacity and stores\n"
-    "the flight. A log already imported (same content) is recognised and skipped.\n"
+    "the flight. A log already imported is recognised and skipped: the same bytes,\n"
+    "or the same samples however written (another delimiter, a changed comment).\n"
+    "A log starting at the same logged time and lasting as long as a stored flight\n"
+    "is stored with a warning. A log that clearly is another pack's (other cell\n"
+    "columns, pack voltages no cell of the chemistry reaches, more charge than\n"
+    "the pack holds) is refused with the reason, unless --force.\n"
     "The flight date is the log's absolute time, else --date, else the file's\n"
-    "modification time. A failing log does not stop the batch (exit status 1).\n"
+    "modification time (with a warning). A failing log does not stop the batch\n"
+    "(exit status 1). When the pack's status changes, it is printed.\n"
+    "The pack's remembered reading settings (pack add/edit) apply; the options\n"
+    "below override them.\n"
     "\n"
     "  --pack ID              the pack that flew (see 'packbook pack list')\n"
     "  --date DATE            date for logs without absolute time (ISO 8601)\n"
-    "  --db PATH              history database (default: $PACKBOOK_DB, else\n"
-    "                         $XDG_DATA_HOME/packbook/packbook.db)\n"
+    "  --force                store logs that contradict the pack, or that cannot be\n"
+    "                         one flight (over a day long, or over twice the rated\n"
+    "                         charge drawn), all the same; the warnings are kept\n"
+    "  -r, --recursive        also the logs in sub-folders of a DIR\n"
+    "A DIR's files that are not logs (another name than .csv, .tsv, .txt, .log,\n"
+    ".dat or none, or binary) are skipped with a note, not counted as failures.\n"
+    "  --db PATH              history database (default: $PACKBOOK_DB, else the\n"
+    "                         settings file's db, else $XDG_DATA_HOME/packbook/packbook.db;\n"
+    "                         see 'packbook config')\n"
     "  --quiet                no line per log, only the summary\n"
     "  -j, --jobs N           logs analysed at once (default: the number of\n"
-    "                         cores); one thread writes the store, in order\n"
-    "  --force                store a log that cannot be one flight (over a day\n"
-    "                         long, or over twice the rated charge drawn): it is\n"
-    "                         refused otherwise; the warning is kept either way\n";
+    "                         cores); one thread writes the store, in order\n";
 
 enum { I_PACK = 256, I_DATE, I_DB, I_QUIET, I_FORCE };
+#define I_RECURSIVE 'r'
 
 static const struct option longopts[] = {
     {"pack", required_argument, NULL, I_PACK},
@@ -44,6 +60,7 @@ static const struct option longopts[] = {
     {"db", required_argument, NULL, I_DB},
     {"quiet", no_argument, NULL, I_QUIET},
     {"force", no_argument, NULL, I_FORCE},
+    {"recursive", no_argument, NULL, I_RECURSIVE},
     {"jobs", required_argument, NULL, 'j'},
     {"help", no_argument, NULL, 'h'},
     LOGOPTS_LONG,
@@ -52,8 +69,9 @@ static const struct option longopts[] = {
 
 struct import_cli {
     struct log_cli log;
+    struct packopts_seen seen;
     const char *pack, *db;
-    int have_date, quiet, force;
+    int have_date, quiet, force, recursive;
     int jobs; /* analysing threads (1: none besides the writer) */
     double date_epoch_s;
 };
@@ -84,35 +102,105 @@ static int by_name(const void *a, const void *b)
     return strcmp(*(char *const *)a, *(char *const *)b);
 }
 
-/* A directory's regular files (not hidden), sorted by name; a file or "-" as is. */
-static enum pb_code expand(const char *arg, struct path_list *out, struct pb_error *err)
+/* Whether a file found in a folder is worth reading as a log: a log's name
+ * (.csv, .tsv, .txt, .log, .dat, or none) and no NUL byte in its first
+ * 4 KiB. why says what it is otherwise. Named files are always read. */
+static int looks_like_log(const char *path, char *why, size_t cap)
+{
+    static const char *const exts[] = {"csv", "tsv", "txt", "log", "dat"};
+    const char *base = strrchr(path, '/') ? strrchr(path, '/') + 1 : path;
+    const char *dot = strrchr(base, '.');
+    if (dot) {
+        int known = 0;
+        for (size_t k = 0; k < sizeof exts / sizeof *exts; k++)
+            known |= strcasecmp(dot + 1, exts[k]) == 0;
+        if (!known) {
+            snprintf(why, cap, "its name ends in '%s', not .csv, .tsv, .txt, .log or .dat", dot);
+            return 0;
+        }
+    }
+    FILE *f = fopen(path, "rb");
+    if (!f)
+        return 1; /* reading it will say why it cannot be read */
+    char buf[4096];
+    size_t n = fread(buf, 1, sizeof buf, f);
+    fclose(f);
+    if (memchr(buf, '\0', n)) {
+        snprintf(why, cap, "it holds binary data");
+        return 0;
+    }
+    return 1;
+}
+
+struct expand_ctx {
+    int recursive;
+    size_t skipped; /* files that are not logs, and sub-folders without -r */
+};
+
+/* A directory's files (not hidden) that look like logs, sorted by name, and
+ * with recursive those of its sub-folders after them; a file or "-" as is. */
+static enum pb_code expand(const char *arg, int depth, struct expand_ctx *x, struct path_list *out,
+                           struct pb_error *err)
 {
     struct stat sb;
     if (strcmp(arg, "-") == 0 || stat(arg, &sb) != 0 || !S_ISDIR(sb.st_mode))
         return push(out, arg) ? pb_error_set(err, PB_ENOMEM, "out of memory") : PB_OK;
+    if (depth > 32)
+        return pb_error_set(err, PB_EINPUT, "'%s': folders nested over 32 deep", arg);
     DIR *d = opendir(arg);
     if (!d)
         return pb_error_set(err, PB_EINPUT, "cannot read folder '%s': %m", arg);
-    size_t first = out->n;
+    struct path_list files = {0}, dirs = {0};
+    enum pb_code rc = PB_OK;
     struct dirent *e;
-    while ((e = readdir(d)) != NULL) {
+    while (rc == PB_OK && (e = readdir(d)) != NULL) {
         if (e->d_name[0] == '.')
             continue;
         char *p = NULL;
         if (asprintf(&p, "%s/%s", arg, e->d_name) < 0) {
-            closedir(d);
-            return pb_error_set(err, PB_ENOMEM, "out of memory");
+            rc = pb_error_set(err, PB_ENOMEM, "out of memory");
+            break;
         }
-        if (stat(p, &sb) == 0 && S_ISREG(sb.st_mode) && push(out, p) != 0) {
-            free(p);
-            closedir(d);
-            return pb_error_set(err, PB_ENOMEM, "out of memory");
+        if (stat(p, &sb) == 0 && S_ISDIR(sb.st_mode)) {
+            if (push(&dirs, p) != 0)
+                rc = pb_error_set(err, PB_ENOMEM, "out of memory");
+        } else if (stat(p, &sb) == 0 && S_ISREG(sb.st_mode)) {
+            if (push(&files, p) != 0)
+                rc = pb_error_set(err, PB_ENOMEM, "out of memory");
         }
         free(p);
     }
     closedir(d);
-    qsort(out->v + first, out->n - first, sizeof *out->v, by_name);
-    return PB_OK;
+    /* qsort's array may not be NULL, even for no elements */
+    if (files.n)
+        qsort(files.v, files.n, sizeof *files.v, by_name);
+    if (dirs.n)
+        qsort(dirs.v, dirs.n, sizeof *dirs.v, by_name);
+    for (size_t k = 0; rc == PB_OK && k < files.n; k++) {
+        char why[160];
+        if (!looks_like_log(files.v[k], why, sizeof why)) {
+            x->skipped++;
+            fprintf(stderr, "packbook: note: skipped %s: not a log (%s)\n", files.v[k], why);
+        } else if (push(out, files.v[k]) != 0) {
+            rc = pb_error_set(err, PB_ENOMEM, "out of memory");
+        }
+    }
+    for (size_t k = 0; rc == PB_OK && k < dirs.n; k++) {
+        if (x->recursive) {
+            rc = expand(dirs.v[k], depth + 1, x, out, err);
+        } else {
+            x->skipped++;
+            fprintf(stderr, "packbook: note: skipped folder %s (give -r to import sub-folders)\n",
+                    dirs.v[k]);
+        }
+    }
+    for (size_t k = 0; k < files.n; k++)
+        free(files.v[k]);
+    for (size_t k = 0; k < dirs.n; k++)
+        free(dirs.v[k]);
+    free(files.v);
+    free(dirs.v);
+    return rc;
 }
 
 static void hash_block(void *ctx, const char *buf, size_t len)
@@ -120,33 +208,40 @@ static void hash_block(void *ctx, const char *buf, size_t len)
     XXH3_128bits_update(ctx, buf, len);
 }
 
-/* The content hash of a file, as the reader's on_block hook makes it
- * (every byte as read). Returns 0, or -1 when the file cannot be read (the
- * reader then says why). */
-static int hash_file(const char *path, char *out, size_t cap)
+/* Feeds one value, rounded to a micro-unit so that the same reading
+ * written with other digits of noise-free formatting hashes the same. */
+static void hash_value(XXH3_state_t *h, double v)
 {
-    FILE *fp = fopen(path, "rb");
-    if (!fp)
+    int64_t q = (int64_t)llround(v * 1e6);
+    XXH3_128bits_update(h, &q, sizeof q);
+}
+
+/* A hash of what the log says, not how it is written: every sample's time,
+ * voltage, current, temperature and cell voltages, and the start time. */
+static int samples_hash(const struct series *s, char *out, size_t cap)
+{
+    XXH3_state_t *h = XXH3_createState();
+    if (!h)
         return -1;
-    XXH3_state_t *hs = XXH3_createState();
-    char *buf = malloc(1u << 16);
-    int rc = -1;
-    if (hs && buf) {
-        XXH3_128bits_reset(hs);
-        size_t len;
-        while ((len = fread(buf, 1, 1u << 16, fp)) > 0)
-            XXH3_128bits_update(hs, buf, len);
-        if (!ferror(fp)) {
-            XXH128_hash_t h = XXH3_128bits_digest(hs);
-            snprintf(out, cap, "xxh128:%016llx%016llx", (unsigned long long)h.high64,
-                     (unsigned long long)h.low64);
-            rc = 0;
-        }
+    XXH3_128bits_reset(h);
+    int32_t shape[4] = {(int32_t)s->has_epoch, s->i_a != NULL, s->temp_c != NULL, s->ncells};
+    XXH3_128bits_update(h, shape, sizeof shape);
+    hash_value(h, s->has_epoch ? s->start_epoch_s : 0.0);
+    for (size_t k = 0; k < s->n; k++) {
+        hash_value(h, s->t_s[k]);
+        hash_value(h, s->v_v[k]);
+        if (s->i_a)
+            hash_value(h, s->i_a[k]);
+        if (s->temp_c)
+            hash_value(h, s->temp_c[k]);
+        for (int c = 0; c < s->ncells; c++)
+            hash_value(h, s->cell_v[c][k]);
     }
-    free(buf);
-    XXH3_freeState(hs);
-    fclose(fp);
-    return rc;
+    XXH128_hash_t d = XXH3_128bits_digest(h);
+    XXH3_freeState(h);
+    snprintf(out, cap, "xxh128:%016llx%016llx", (unsigned long long)d.high64,
+             (unsigned long long)d.low64);
+    return 0;
 }
 
 static void fill_flight(struct flight_rec *f, const struct analysis *a, const struct pack_rec *p)
@@ -185,6 +280,35 @@ static void fill_flight(struct flight_rec *f, const struct analysis *a, const st
     }
 }
 
+/* The content hash of a file, as the reader's on_block hook makes it
+ * (every byte as read). Returns 0, or -1 when the file cannot be read (the
+ * reader then says why). */
+static int hash_file(const char *path, char *out, size_t cap)
+{
+    FILE *fp = fopen(path, "rb");
+    if (!fp)
+        return -1;
+    XXH3_state_t *hs = XXH3_createState();
+    char *buf = malloc(1u << 16);
+    int rc = -1;
+    if (hs && buf) {
+        XXH3_128bits_reset(hs);
+        size_t len;
+        while ((len = fread(buf, 1, 1u << 16, fp)) > 0)
+            XXH3_128bits_update(hs, buf, len);
+        if (!ferror(fp)) {
+            XXH128_hash_t h = XXH3_128bits_digest(hs);
+            snprintf(out, cap, "xxh128:%016llx%016llx", (unsigned long long)h.high64,
+                     (unsigned long long)h.low64);
+            rc = 0;
+        }
+    }
+    free(buf);
+    XXH3_freeState(hs);
+    fclose(fp);
+    return rc;
+}
+
 enum outcome { OUT_PENDING = 0, OUT_ANALYSED, OUT_STORED, OUT_DUPLICATE, OUT_FAILED };
 
 /* One log of the batch: found stored by its hash, or analysed (by a
@@ -196,8 +320,11 @@ struct job {
     struct flight_rec f;
     char *json;
     size_t nwarnings;
+    int misfit;    /* stored with --force though it does not fit the pack */
+    char why[320]; /* how it does not fit */
     struct pb_error err;
-    char line[600];
+    char line[600];  /* the line printed for it */
+    char note[1600]; /* its warnings (stderr), empty when none */
 };
 
 /* Looks the log's hash up in the store before anything is analysed, so
@@ -209,14 +336,15 @@ static void find_stored(struct store *st, struct job *j)
     if (strcmp(j->path, "-") == 0 || hash_file(j->path, hash, sizeof hash) != 0)
         return; /* stdin is hashed as it is read; an unreadable file fails in the reader */
     int found = 0;
-    char dup_label[128] = "";
-    if (store_flight_find_hash(st, hash, &found, dup_label, sizeof dup_label, &j->err) != PB_OK) {
+    int64_t id = 0;
+    char label[128] = "";
+    if (store_flight_find_hash(st, hash, &found, &id, label, sizeof label, &j->err) != PB_OK) {
         j->out = OUT_FAILED;
         return;
     }
     if (found) {
-        snprintf(j->line, sizeof j->line, "already imported%s%s: %s",
-                 dup_label[0] ? " for pack " : "", dup_label, j->path);
+        snprintf(j->line, sizeof j->line, "already imported as flight %lld for pack %s (%s): %s",
+                 (long long)id, label, "same bytes", j->path);
         j->out = OUT_DUPLICATE;
     }
 }
@@ -229,6 +357,7 @@ static void analyse_job(const struct pack_rec *pack, const struct import_cli *cl
     struct pb_error *err = &j->err;
     XXH3_state_t *hs = XXH3_createState();
     struct analysis *a = NULL;
+    struct series *ser = NULL;
     struct logread_stats stats;
     char *json = NULL;
     size_t json_len = 0;
@@ -252,14 +381,29 @@ static void analyse_job(const struct pack_rec *pack, const struct import_cli *cl
     lc.an.chemistry = (int)chem->id;
     lc.an.capacity_mah = pack->capacity_mah;
     lc.refuse_implausible = !cli->force; /* nothing impossible reaches the store */
+    lc.read_without_cells = 1;           /* packfit_check names another cell count */
     const char *path = j->path;
     int is_stdin = strcmp(path, "-") == 0;
     const char *name = is_stdin ? "(stdin)" : path;
-    if (logopts_analyze(path, &lc, &stats, &a, NULL, err) != PB_OK)
+    if (logopts_analyze(path, &lc, &stats, &a, &ser, err) != PB_OK)
         goto cleanup;
+    char *why = j->why;
+    struct packfit_pack pf = {pack->cells, chem, pack->capacity_mah};
+    int misfit = packfit_check(a, &pf, why, sizeof j->why);
+    if (misfit && !cli->force) {
+        pb_error_set(err, PB_EINPUT,
+                     "%s: does not fit pack '%s' (%dS %s, %.0f mAh): %s; --force stores it "
+                     "all the same",
+                     name, pack->label, pack->cells, chem->name, pack->capacity_mah, why);
+        goto cleanup;
+    }
 
     struct flight_rec *f = &j->f;
     fill_flight(f, a, pack);
+    if (samples_hash(ser, f->samples_hash, sizeof f->samples_hash) != 0) {
+        pb_error_set(err, PB_ENOMEM, "out of memory");
+        goto cleanup;
+    }
     XXH128_hash_t h = XXH3_128bits_digest(hs);
     snprintf(f->content_hash, sizeof f->content_hash, "xxh128:%016llx%016llx",
              (unsigned long long)h.high64, (unsigned long long)h.low64);
@@ -292,37 +436,60 @@ static void analyse_job(const struct pack_rec *pack, const struct import_cli *cl
     j->json = json;
     json = NULL;
     j->nwarnings = a->nwarnings;
+    j->misfit = misfit;
     j->out = OUT_ANALYSED;
 cleanup:
     free(json);
     analysis_free(a);
+    series_free(ser);
     XXH3_freeState(hs);
 }
 
-/* Stores an analysed log (the writer's part); sets j->out and j->line. */
-static void store_job(struct store *st, struct job *j)
+/* Stores an analysed log (the writer's part); sets j->out, j->line and
+ * j->note. */
+static void store_job(struct store *st, const struct pack_rec *pack, struct job *j)
 {
     const struct flight_rec *f = &j->f;
-    int dup = 0;
-    char dup_label[128] = "";
+    const char *name = f->source;
     j->out = OUT_FAILED;
-    if (store_flight_put(st, f, j->json, &dup, dup_label, sizeof dup_label, &j->err) != PB_OK)
+    j->note[0] = '\0';
+    struct store_dup dup;
+    if (store_flight_put(st, f, j->json, &dup, &j->err) != PB_OK)
         return;
     char when[40];
     isotime_format(f->flown_epoch_s, when, sizeof when);
-    if (dup) {
-        snprintf(j->line, sizeof j->line, "already imported%s%s: %s",
-                 dup_label[0] ? " for pack " : "", dup_label, f->source);
+    if (dup.kind != DUP_NONE) {
+        snprintf(j->line, sizeof j->line, "already imported as flight %lld for pack %s (%s): %s",
+                 (long long)dup.id, dup.label,
+                 dup.kind == DUP_BYTES ? "same bytes" : "same samples", name);
         j->out = OUT_DUPLICATE;
         return;
     }
-    char r0[32] = "unknown";
+    char r0[48] = "unknown";
     if (isfinite(f->r0_mohm))
         snprintf(r0, sizeof r0, "%.2f", f->r0_mohm);
     snprintf(j->line, sizeof j->line,
-             "imported %s: %.16s (date from %s), %.0f mAh, R0 %s mOhm, %zu warning%s", f->source,
-             when, f->date_source, f->charge_used_mah, r0, j->nwarnings,
+             "imported %s: %.16s (date from %s), %.0f mAh, IR %s %s, %zu warning%s", name, when,
+             f->date_source, f->charge_used_mah, r0, report_mohm(), j->nwarnings,
              j->nwarnings == 1 ? "" : "s");
+    size_t used = 0;
+    if (j->misfit)
+        used += (size_t)snprintf(j->note + used, sizeof j->note - used,
+                                 "packbook: warning: %s: stored with --force though it does not "
+                                 "fit pack '%s': %s\n",
+                                 name, pack->label, j->why);
+    if (used < sizeof j->note && strcmp(f->date_source, "mtime") == 0)
+        used += (size_t)snprintf(j->note + used, sizeof j->note - used,
+                                 "packbook: warning: %s: the log has no absolute time; its date "
+                                 "%.10s is the file's modification time, which copying changes "
+                                 "(give --date)\n",
+                                 name, when);
+    if (used < sizeof j->note && dup.near_id)
+        snprintf(j->note + used, sizeof j->note - used,
+                 "packbook: warning: %s: starts at the same time and lasts as long as flight "
+                 "%lld of pack %s: the same flight logged twice? ('packbook flight remove ID' "
+                 "undoes one)\n",
+                 name, (long long)dup.near_id, dup.near_label);
     j->out = OUT_STORED;
 }
 
@@ -378,9 +545,9 @@ enum pb_code cmd_import(int argc, char **argv, struct app *app, struct pb_error 
     logopts_init(&cli.log);
     optind = 1;
     opterr = 0;
-    while ((c = getopt_long(argc, argv, "hj:", longopts, NULL)) != -1) {
+    while ((c = getopt_long(argc, argv, "hrj:", longopts, NULL)) != -1) {
         int taken = logopts_take(c, optarg, &cli.log, err);
-        if (taken < 0)
+        if (taken < 0 || (taken && packopts_note(&cli.seen, c, optarg, err) < 0))
             return PB_EUSAGE;
         if (taken)
             continue;
@@ -396,6 +563,9 @@ enum pb_code cmd_import(int argc, char **argv, struct app *app, struct pb_error 
             break;
         case I_FORCE:
             cli.force = 1;
+            break;
+        case I_RECURSIVE:
+            cli.recursive = 1;
             break;
         case 'j': {
             char *end;
@@ -449,11 +619,21 @@ enum pb_code cmd_import(int argc, char **argv, struct app *app, struct pb_error 
                           pack.label, pack.retired_at);
         goto cleanup;
     }
+    /* the summaries below copy the pack before its settings are split */
+    struct pack_rec settings_owner = pack;
+    rc = packopts_apply(settings_owner.settings, &cli.seen, &cli.log, err);
+    if (rc != PB_OK)
+        goto cleanup;
+    struct expand_ctx ex = {cli.recursive, 0};
     for (int k = optind; k < argc; k++)
-        if ((rc = expand(argv[k], &paths, err)) != PB_OK)
+        if ((rc = expand(argv[k], 0, &ex, &paths, err)) != PB_OK)
             goto cleanup;
     size_t stored = 0, dups = 0, failed = 0;
     int bar = isatty(STDERR_FILENO) && paths.n > 1;
+    struct pack_summary before, after;
+    rc = packview_summary(st, &pack, &before, err);
+    if (rc != PB_OK)
+        goto cleanup;
     struct pool pool = {.n = paths.n, .pack = &pack, .cli = &cli};
     pool.ahead = (size_t)cli.jobs * IMPORT_AHEAD;
     pool.jobs = calloc(paths.n ? paths.n : 1, sizeof *pool.jobs);
@@ -489,7 +669,7 @@ enum pb_code cmd_import(int argc, char **argv, struct app *app, struct pb_error 
             pthread_mutex_unlock(&pool.mu);
         }
         if (j->out == OUT_ANALYSED)
-            store_job(st, j);
+            store_job(st, &pack, j);
         free(j->json);
         j->json = NULL;
         pthread_mutex_lock(&pool.mu);
@@ -513,6 +693,8 @@ enum pb_code cmd_import(int argc, char **argv, struct app *app, struct pb_error 
             dups += j->out == OUT_DUPLICATE;
             if (!cli.quiet)
                 printf("%s\n", j->line);
+            if (j->out == OUT_STORED && j->note[0])
+                fputs(j->note, stderr);
         }
         if (bar)
             progress(k + 1, paths.n);
@@ -531,8 +713,20 @@ enum pb_code cmd_import(int argc, char **argv, struct app *app, struct pb_error 
     pthread_mutex_destroy(&pool.mu);
     if (rc != PB_OK)
         goto cleanup;
-    printf("%zu imported, %zu already there, %zu failed (pack %s)\n", stored, dups, failed,
-           pack.label);
+    if (ex.skipped)
+        printf("%zu imported, %zu already there, %zu failed, %zu skipped as not logs (pack %s)\n",
+               stored, dups, failed, ex.skipped, pack.label);
+    else
+        printf("%zu imported, %zu already there, %zu failed (pack %s)\n", stored, dups, failed,
+               pack.label);
+    if (stored > 0) {
+        rc = packview_summary(st, &pack, &after, err);
+        if (rc != PB_OK)
+            goto cleanup;
+        if (strcmp(before.status, after.status) != 0)
+            printf("pack %s: status %s -> %s (%s)\n", pack.label, before.status, after.status,
+                   after.reason);
+    }
     app->some_failed = failed > 0;
     rc = cmd_finish_stdout(err);
 cleanup:

@@ -5,7 +5,8 @@
 #include <string.h>
 
 const char logopts_usage[] =
-    "  --floor V              loaded per-cell voltage floor (default: per chemistry)\n"
+    "  --cut-off V            cut-off voltage per cell under load (default: per\n"
+    "                         chemistry; --floor is the old name)\n"
     "reading the log:\n"
     "  --columns LIST         column layout for a log without a header, e.g.\n"
     "                         time_s,voltage_v,current_a ('-' skips a column)\n"
@@ -57,7 +58,7 @@ int logopts_take(int c, const char *v, struct log_cli *cli, struct pb_error *err
     int bad = 0;
     switch (c) {
     case LO_FLOOR:
-        bad = cmd_parse_double("--floor", v, 0.5, 5.0, &cli->an.floor_v, err);
+        bad = cmd_parse_double("--cut-off", v, 0.5, 5.0, &cli->an.floor_v, err);
         break;
     case LO_COLUMNS:
         cli->read.columns = v;
@@ -180,7 +181,7 @@ enum pb_code logopts_analyze(const char *path, const struct log_cli *cli,
         return pb_error_set(err, PB_EINPUT, "cannot open '%s': %m", path);
     /* the pack's cell count and rating bound what a sample may hold */
     struct logread_opts ro = cli->read;
-    ro.cells = cli->an.cells;
+    ro.cells = cli->read_without_cells ? 0 : cli->an.cells;
     ro.rated_mah = cli->an.capacity_mah;
     s = logread_file(fp, name, &ro, stats, err);
     if (!s) {

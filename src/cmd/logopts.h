@@ -34,7 +34,8 @@ enum {
 
 /* Entries for a command's getopt_long table. */
 #define LOGOPTS_LONG                                                                               \
-    {"floor", required_argument, NULL, LO_FLOOR},                                                  \
+    {"cut-off", required_argument, NULL, LO_FLOOR},                                                \
+        {"floor", required_argument, NULL, LO_FLOOR}, /* the old name, kept */                     \
         {"columns", required_argument, NULL, LO_COLUMNS},                                          \
         {"map", required_argument, NULL, LO_MAP},                                                  \
         {"delimiter", required_argument, NULL, LO_DELIM},                                          \
@@ -67,6 +68,10 @@ struct log_cli {
     struct logread_opts read;
     struct analyze_opts an;
     int refuse_implausible; /* a log no flight can be (plausible.h) fails, naming why */
+    /* the reader bounds each sample's voltage by the pack-independent limits
+     * only, not by an.cells: the caller judges the cell count itself (import
+     * checks the log against its pack and says so) */
+    int read_without_cells;
     int adc_bits;
     double adc_vref, sense_ratio, sense_ohm;
 };

@@ -1,4 +1,4 @@
-/* packbook pack add|list|show|retire: the pack register. */
+/* packbook pack add|list|show|edit|retire|unretire: the pack register. */
 #include <getopt.h>
 #include <math.h>
 #include <stdio.h>
@@ -7,20 +7,53 @@
 #include "../core/isotime.h"
 #include "../core/ocv.h"
 #include "cmd.h"
+#include "config.h"
+#include "packopts.h"
 #include "packview.h"
 
 static const char usage[] =
     "usage: packbook pack add ID --cells N --chemistry C --capacity MAH\n"
-    "                         [--parallel P] [--since DATE] [--note TEXT]\n"
-    "       packbook pack list [--json]\n"
-    "       packbook pack show ID [--json]\n"
+    "                         [--parallel P] [--since DATE] [--note TEXT] [READING]\n"
+    "       packbook pack list [--json|--csv]\n"
+    "       packbook pack show ID [--json|--csv]\n"
+    "       packbook pack edit ID [--name NEW-ID] [--cells N] [--chemistry C]\n"
+    "                         [--capacity MAH] [--parallel P] [--since DATE] [--note TEXT]\n"
+    "                         [READING] [--clear-settings]\n"
     "       packbook pack retire ID --reason TEXT\n"
+    "       packbook pack unretire ID\n"
     "\n"
-    "ID is the label written on the pack (free text). Retired packs are kept.\n"
-    "  --db PATH              history database (default: $PACKBOOK_DB, else\n"
-    "                         $XDG_DATA_HOME/packbook/packbook.db)\n";
+    "ID is the label written on the pack (free text); the chemistry is lipo, lihv,\n"
+    "nmc or lfp, in any case. Retired packs are kept;\n"
+    "unretire returns one to service. edit changes what is given and prints\n"
+    "each change with the pack's cycles and status before and after; --cells\n"
+    "and --chemistry change only while no stored flight was analysed otherwise\n"
+    "(remove those flights first, then import their logs again). --since ''\n"
+    "and --note '' clear the field.\n"
+    "\n"
+    "READING: the options of 'packbook analyze' that say how to read and analyse\n"
+    "this pack's logs (--cut-off, --map, --columns, --current-sign, --adc-scale or\n"
+    "the sense chain, --gap, --rest-current, ...). The pack remembers them and\n"
+    "every command given --pack ID uses them; options given there override them\n"
+    "(any ADC or sense-chain option replaces the whole remembered chain). edit\n"
+    "adds to or replaces the remembered ones; --clear-settings forgets them first.\n"
+    "  --db PATH              history database (default: $PACKBOOK_DB, else the\n"
+    "                         settings file's db, else $XDG_DATA_HOME/packbook/packbook.db;\n"
+    "                         see 'packbook config')\n";
 
-enum { P_CELLS = 256, P_PAR, P_CHEM, P_CAP, P_SINCE, P_NOTE, P_REASON, P_JSON, P_DB };
+enum {
+    P_CELLS = 256,
+    P_PAR,
+    P_CHEM,
+    P_CAP,
+    P_SINCE,
+    P_NOTE,
+    P_REASON,
+    P_JSON,
+    P_DB,
+    P_NAME,
+    P_CLEAR,
+    P_CSV
+};
 
 static const struct option longopts[] = {
     {"cells", required_argument, NULL, P_CELLS},
@@ -30,7 +63,11 @@ static const struct option longopts[] = {
     {"since", required_argument, NULL, P_SINCE},
     {"note", required_argument, NULL, P_NOTE},
     {"reason", required_argument, NULL, P_REASON},
+    {"name", required_argument, NULL, P_NAME},
+    {"clear-settings", no_argument, NULL, P_CLEAR},
+    LOGOPTS_LONG,
     {"json", no_argument, NULL, P_JSON},
+    {"csv", no_argument, NULL, P_CSV},
     {"db", required_argument, NULL, P_DB},
     {"help", no_argument, NULL, 'h'},
     {NULL, 0, NULL, 0},
@@ -38,8 +75,9 @@ static const struct option longopts[] = {
 
 struct pack_cli {
     struct pack_rec rec;
-    const char *reason, *db;
-    int json, have_cells, have_chem, have_cap;
+    const char *reason, *db, *name;
+    int json, have_cells, have_chem, have_cap, have_par, have_since, have_note, clear;
+    struct packopts_seen seen; /* reading options to remember */
 };
 
 static enum pb_code cmd_add(struct store *st, struct pack_cli *cli, struct pb_error *err)
@@ -47,12 +85,25 @@ static enum pb_code cmd_add(struct store *st, struct pack_cli *cli, struct pb_er
     if (!cli->have_cells || !cli->have_chem || !cli->have_cap)
         return pb_error_set(err, PB_EUSAGE,
                             "pack add: --cells, --chemistry and --capacity are needed");
-    enum pb_code rc = store_pack_add(st, &cli->rec, err);
+    enum pb_code rc =
+        packopts_merge("", &cli->seen, 0, cli->rec.settings, sizeof cli->rec.settings, err);
+    if (rc == PB_OK)
+        rc = store_pack_add(st, &cli->rec, err);
     if (rc != PB_OK)
         return rc;
     printf("added pack '%s': %dS%dP %s, %.0f mAh\n", cli->rec.label, cli->rec.cells,
            cli->rec.parallel, cli->rec.chemistry, cli->rec.capacity_mah);
+    if (cli->rec.settings[0]) {
+        char d[1200];
+        packopts_describe(cli->rec.settings, d, sizeof d);
+        printf("  reading settings: %s\n", d);
+    }
     return PB_OK;
+}
+
+static enum fleet_format format_of(const struct pack_cli *cli)
+{
+    return cli->json == 2 ? FLEET_CSV : cli->json ? FLEET_JSON : FLEET_TEXT;
 }
 
 static enum pb_code cmd_list(struct store *st, struct pack_cli *cli, struct pb_error *err)
@@ -62,7 +113,7 @@ static enum pb_code cmd_list(struct store *st, struct pack_cli *cli, struct pb_e
     enum pb_code rc = store_pack_list(st, &p, &n, err);
     if (rc != PB_OK)
         return rc;
-    if (report_pack_list(stdout, p, n, cli->json) != 0)
+    if (report_pack_list(stdout, p, n, format_of(cli)) != 0)
         rc = pb_error_set(err, PB_EOUTPUT, "cannot write the output");
     store_packs_free(p);
     return rc;
@@ -75,10 +126,10 @@ static enum pb_code cmd_show(struct store *st, struct pack_cli *cli, struct pb_e
     if (rc != PB_OK)
         return rc;
     struct health_rules rules;
-    health_rules_default(&rules);
+    config_rules(&rules);
     struct pack_view v;
     rc = packview_load(st, &p, &rules, TREND_WEEK, 0, 1000.0, &v, err);
-    if (rc == PB_OK && report_pack_show(stdout, &v, cli->json) != 0)
+    if (rc == PB_OK && report_pack_show(stdout, &v, format_of(cli)) != 0)
         rc = pb_error_set(err, PB_EOUTPUT, "cannot write the output");
     pack_view_release(&v);
     return rc;
@@ -91,6 +142,96 @@ static enum pb_code cmd_retire(struct store *st, struct pack_cli *cli, struct pb
     enum pb_code rc = store_pack_retire(st, cli->rec.label, cli->reason, err);
     if (rc == PB_OK)
         printf("retired pack '%s': %s (its history is kept)\n", cli->rec.label, cli->reason);
+    return rc;
+}
+
+static enum pb_code cmd_unretire(struct store *st, struct pack_cli *cli, struct pb_error *err)
+{
+    struct pack_rec p;
+    enum pb_code rc = store_pack_get(st, cli->rec.label, &p, err);
+    if (rc == PB_OK)
+        rc = store_pack_unretire(st, cli->rec.label, err);
+    if (rc == PB_OK)
+        printf("pack '%s' is in service again (it was retired on %s: %s)\n", p.label, p.retired_at,
+               p.retire_reason);
+    return rc;
+}
+
+static void say_change(const char *what, const char *before, const char *after)
+{
+    if (strcmp(before, after) != 0)
+        printf("  %s: %s -> %s\n", what, before[0] ? before : "(none)",
+               after[0] ? after : "(none)");
+}
+
+static enum pb_code cmd_edit(struct store *st, struct pack_cli *cli, struct pb_error *err)
+{
+    struct pack_rec old, p;
+    enum pb_code rc = store_pack_get(st, cli->rec.label, &old, err);
+    if (rc != PB_OK)
+        return rc;
+    p = old;
+    if (cli->name)
+        snprintf(p.label, sizeof p.label, "%s", cli->name);
+    if (cli->have_cells)
+        p.cells = cli->rec.cells;
+    if (cli->have_par)
+        p.parallel = cli->rec.parallel;
+    if (cli->have_chem)
+        snprintf(p.chemistry, sizeof p.chemistry, "%s", cli->rec.chemistry);
+    if (cli->have_cap)
+        p.capacity_mah = cli->rec.capacity_mah;
+    if (cli->have_since)
+        snprintf(p.since, sizeof p.since, "%s", cli->rec.since);
+    if (cli->have_note)
+        snprintf(p.note, sizeof p.note, "%s", cli->rec.note);
+    rc = packopts_merge(old.settings, &cli->seen, cli->clear, p.settings, sizeof p.settings, err);
+    if (rc != PB_OK)
+        return rc;
+    if (p.cells != old.cells || strcmp(p.chemistry, old.chemistry) != 0) {
+        size_t n = 0;
+        rc = store_flights_analysed_otherwise(st, old.id, p.cells, p.chemistry, &n, err);
+        if (rc != PB_OK)
+            return rc;
+        if (n > 0)
+            return pb_error_set(err, PB_EUSAGE,
+                                "pack edit: %zu flight%s of '%s' %s analysed as %dS %s, which the "
+                                "change to %dS %s contradicts: remove %s ('packbook flight list "
+                                "%s'), edit, then import the logs again",
+                                n, n == 1 ? "" : "s", old.label, n == 1 ? "was" : "were", old.cells,
+                                old.chemistry, p.cells, p.chemistry, n == 1 ? "it" : "them",
+                                old.label);
+    }
+    struct pack_summary before, after;
+    rc = packview_summary(st, &old, &before, err);
+    if (rc == PB_OK)
+        rc = store_pack_update(st, &p, err);
+    if (rc != PB_OK)
+        return rc;
+    char a[64], b[64];
+    printf("edited pack '%s'%s\n", p.label,
+           memcmp(&old, &p, sizeof p) == 0 ? ": nothing changed" : "");
+    say_change("id", old.label, p.label);
+    snprintf(a, sizeof a, "%d", old.cells);
+    snprintf(b, sizeof b, "%d", p.cells);
+    say_change("series cells", a, b);
+    snprintf(a, sizeof a, "%d", old.parallel);
+    snprintf(b, sizeof b, "%d", p.parallel);
+    say_change("parallel", a, b);
+    say_change("chemistry", old.chemistry, p.chemistry);
+    snprintf(a, sizeof a, "%.0f mAh", old.capacity_mah);
+    snprintf(b, sizeof b, "%.0f mAh", p.capacity_mah);
+    say_change("rated capacity", a, b);
+    say_change("in service since", old.since, p.since);
+    say_change("note", old.note, p.note);
+    char ds[1200], dn[1200];
+    packopts_describe(old.settings, ds, sizeof ds);
+    packopts_describe(p.settings, dn, sizeof dn);
+    say_change("reading settings", ds, dn);
+    rc = packview_summary(st, &p, &after, err);
+    if (rc == PB_OK && (before.cycles != after.cycles || strcmp(before.status, after.status) != 0 ||
+                        strcmp(before.label, after.label) != 0))
+        packview_print_change(stdout, &before, &after);
     return rc;
 }
 
@@ -110,6 +251,11 @@ enum pb_code cmd_pack(int argc, char **argv, struct app *app, struct pb_error *e
     opterr = 0;
     while ((c = getopt_long(argc, argv, "h", longopts, NULL)) != -1) {
         const char *v = optarg;
+        int noted = packopts_note(&cli.seen, c, v, err);
+        if (noted < 0)
+            return PB_EUSAGE;
+        if (noted)
+            continue;
         switch (c) {
         case P_CELLS:
             if (cmd_parse_int("--cells", v, 1, PB_MAX_CELLS, &cli.rec.cells, err))
@@ -119,12 +265,14 @@ enum pb_code cmd_pack(int argc, char **argv, struct app *app, struct pb_error *e
         case P_PAR:
             if (cmd_parse_int("--parallel", v, 1, 64, &cli.rec.parallel, err))
                 return PB_EUSAGE;
+            cli.have_par = 1;
             break;
         case P_CHEM:
             if (!ocv_chem_by_name(v))
                 return pb_error_set(err, PB_EUSAGE,
                                     "--chemistry: expected lipo, lihv, nmc or lfp, got '%s'", v);
-            snprintf(cli.rec.chemistry, sizeof cli.rec.chemistry, "%s", v);
+            /* the canonical spelling, whatever the case given */
+            snprintf(cli.rec.chemistry, sizeof cli.rec.chemistry, "%s", ocv_chem_by_name(v)->name);
             cli.have_chem = 1;
             break;
         case P_CAP:
@@ -133,6 +281,11 @@ enum pb_code cmd_pack(int argc, char **argv, struct app *app, struct pb_error *e
             cli.have_cap = 1;
             break;
         case P_SINCE:
+            cli.have_since = 1;
+            if (!*v) {
+                cli.rec.since[0] = '\0';
+                break;
+            }
             if (!valid_date(v))
                 return pb_error_set(err, PB_EUSAGE,
                                     "--since: expected a date like 2026-03-01, got '%s'", v);
@@ -140,12 +293,25 @@ enum pb_code cmd_pack(int argc, char **argv, struct app *app, struct pb_error *e
             break;
         case P_NOTE:
             snprintf(cli.rec.note, sizeof cli.rec.note, "%s", v);
+            cli.have_note = 1;
             break;
         case P_REASON:
             cli.reason = v;
             break;
+        case P_NAME:
+            if (!*v || strlen(v) >= sizeof cli.rec.label)
+                return pb_error_set(err, PB_EUSAGE, "--name: the ID must be 1 to %zu bytes",
+                                    sizeof cli.rec.label - 1);
+            cli.name = v;
+            break;
+        case P_CLEAR:
+            cli.clear = 1;
+            break;
         case P_JSON:
             cli.json = 1;
+            break;
+        case P_CSV:
+            cli.json = 2; /* CSV: the flights' table */
             break;
         case P_DB:
             cli.db = v;
@@ -158,9 +324,9 @@ enum pb_code cmd_pack(int argc, char **argv, struct app *app, struct pb_error *e
         }
     }
     if (optind >= argc)
-        return pb_error_set(
-            err, PB_EUSAGE,
-            "pack: expected add, list, show or retire (see 'packbook pack --help')");
+        return pb_error_set(err, PB_EUSAGE,
+                            "pack: expected add, list, show, edit, retire or unretire (see "
+                            "'packbook pack --help')");
     const char *sub = argv[optind];
     int needs_id = strcmp(sub, "list") != 0;
     if (needs_id) {
@@ -183,8 +349,19 @@ enum pb_code cmd_pack(int argc, char **argv, struct app *app, struct pb_error *e
         run = cmd_show;
     else if (strcmp(sub, "retire") == 0)
         run = cmd_retire;
+    else if (strcmp(sub, "edit") == 0)
+        run = cmd_edit;
+    else if (strcmp(sub, "unretire") == 0)
+        run = cmd_unretire;
     else
-        return pb_error_set(err, PB_EUSAGE, "pack: unknown action '%s' (add, list, show, retire)",
+        return pb_error_set(err, PB_EUSAGE,
+                            "pack: unknown action '%s' (add, list, show, edit, retire, unretire)",
+                            sub);
+    if (cli.name && run != cmd_edit)
+        return pb_error_set(err, PB_EUSAGE, "pack %s: --name is for 'pack edit'", sub);
+    if ((cli.seen.n || cli.clear) && run != cmd_edit && run != cmd_add)
+        return pb_error_set(err, PB_EUSAGE,
+                            "pack %s: reading options are remembered by 'pack add' and 'pack edit'",
                             sub);
     struct store *st = NULL;
     enum pb_code rc = packview_open_store(cli.db, 1, &st, err);

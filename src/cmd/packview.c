@@ -1,15 +1,104 @@
 #include "packview.h"
 
+#include "../report/report.h"
+#include "config.h"
+
 #include <math.h>
+#include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
 
-const char ruleopts_usage[] =
-    "retirement rules (retire level; watch levels are 85 %, 1.5x, 30 mV and 1):\n"
-    "  --retire-capacity PCT  capacity at or below PCT % of rated (default 80)\n"
-    "  --retire-r0-ratio X    R0 at or above X times its baseline (default 2)\n"
-    "  --retire-spread MV     resting cell spread at or above MV (default 60)\n"
-    "  --retire-overdischarge N  N flights below the voltage floor (default 3)\n";
+const char ruleopts_usage
+    [] = "retirement rules (retire level; watch levels are " HEALTH_STR(HEALTH_WATCH_CAPACITY_PCT) " %, " HEALTH_STR(HEALTH_WATCH_R0_RATIO) "x, " HEALTH_STR(HEALTH_WATCH_IMBALANCE_MV) " mV and " HEALTH_STR(
+        HEALTH_WATCH_OVERDISCHARGES) "):\n"
+                                     "  --retire-capacity PCT  capacity at or below PCT % of rated "
+                                     "(default " HEALTH_STR(
+                                         HEALTH_RETIRE_CAPACITY_PCT) ")\n"
+                                                                     "  --retire-r0-ratio X    "
+                                                                     "internal resistance (R0) at "
+                                                                     "or above X times its\n"
+                                                                     "                         "
+                                                                     "baseline "
+                                                                     "(default " HEALTH_STR(
+                                                                         HEALTH_RETIRE_R0_RATIO) ")"
+                                                                                                 "\n"
+                                                                                                 " "
+                                                                                                 " "
+                                                                                                 "-"
+                                                                                                 "-"
+                                                                                                 "r"
+                                                                                                 "e"
+                                                                                                 "t"
+                                                                                                 "i"
+                                                                                                 "r"
+                                                                                                 "e"
+                                                                                                 "-"
+                                                                                                 "i"
+                                                                                                 "m"
+                                                                                                 "b"
+                                                                                                 "a"
+                                                                                                 "l"
+                                                                                                 "a"
+                                                                                                 "n"
+                                                                                                 "c"
+                                                                                                 "e"
+                                                                                                 " "
+                                                                                                 "M"
+                                                                                                 "V"
+                                                                                                 " "
+                                                                                                 " "
+                                                                                                 "r"
+                                                                                                 "e"
+                                                                                                 "s"
+                                                                                                 "t"
+                                                                                                 "i"
+                                                                                                 "n"
+                                                                                                 "g"
+                                                                                                 " "
+                                                                                                 "c"
+                                                                                                 "e"
+                                                                                                 "l"
+                                                                                                 "l"
+                                                                                                 " "
+                                                                                                 "i"
+                                                                                                 "m"
+                                                                                                 "b"
+                                                                                                 "a"
+                                                                                                 "l"
+                                                                                                 "a"
+                                                                                                 "n"
+                                                                                                 "c"
+                                                                                                 "e"
+                                                                                                 " "
+                                                                                                 "a"
+                                                                                                 "t"
+                                                                                                 " "
+                                                                                                 "o"
+                                                                                                 "r"
+                                                                                                 " "
+                                                                                                 "a"
+                                                                                                 "b"
+                                                                                                 "o"
+                                                                                                 "v"
+                                                                                                 "e"
+                                                                                                 " "
+                                                                                                 "M"
+                                                                                                 "V"
+                                                                                                 " "
+                                                                                                 "("
+                                                                                                 "d"
+                                                                                                 "e"
+                                                                                                 "f"
+                                                                                                 "a"
+                                                                                                 "u"
+                                                                                                 "l"
+                                                                                                 "t"
+                                                                                                 " " HEALTH_STR(
+                                                                                                     HEALTH_RETIRE_IMBALANCE_MV) ";\n"
+                                                                                                                                 "                         --retire-spread is the old name)\n"
+                                                                                                                                 "  --retire-overdischarge N  N over-discharges: flights under the cut-off\n"
+                                                                                                                                 "                         voltage (default " HEALTH_STR(
+                                                                                                                                     HEALTH_RETIRE_OVERDISCHARGES) ")\n";
 
 int trendopts_by(const char *arg, enum trend_by *by, struct pb_error *err)
 {
@@ -49,7 +138,7 @@ int ruleopts_take(int c, const char *v, struct health_rules *r, struct pb_error 
         r->watch_r0_ratio = 1.0 + 0.5 * (r->retire_r0_ratio - 1.0);
         break;
     case RO_SPREAD:
-        bad = cmd_parse_double("--retire-spread", v, 1, 5000, &r->retire_spread_mv, err);
+        bad = cmd_parse_double("--retire-imbalance", v, 1, 5000, &r->retire_spread_mv, err);
         r->watch_spread_mv = 0.5 * r->retire_spread_mv;
         break;
     case RO_OVER:
@@ -67,8 +156,11 @@ enum pb_code packview_open_store(const char *db, int create, struct store **out,
                                  struct pb_error *err)
 {
     char path[1024];
+    const char *env = getenv("PACKBOOK_DB");
     if (db)
         snprintf(path, sizeof path, "%s", db);
+    else if (!(env && *env) && config_db()) /* the settings file, under the environment */
+        snprintf(path, sizeof path, "%s", config_db());
     else if (store_default_path(path, sizeof path) != 0)
         return pb_error_set(err, PB_EUSAGE,
                             "no database path: set PACKBOOK_DB or HOME, or give --db");
@@ -85,6 +177,7 @@ static void to_health(const struct flight_rec *f, size_t n, struct health_flight
         h[k].capacity_ci95_mah = f[k].capacity_ci95_mah;
         h[k].spread_rest_mv = f[k].cell_spread_rest_mv;
         h[k].below_floor = isfinite(f[k].time_below_floor_s) && f[k].time_below_floor_s > 0;
+        h[k].weakest_cell = f[k].weakest_cell;
     }
 }
 
@@ -180,4 +273,49 @@ static enum pb_code load_view(struct store *st, const struct pack_rec *p,
         return pb_error_set(err, PB_ENOMEM, "out of memory");
     }
     return PB_OK;
+}
+
+enum pb_code packview_summary(struct store *st, const struct pack_rec *p, struct pack_summary *out,
+                              struct pb_error *err)
+{
+    struct health_rules rules;
+    struct pack_view v;
+    config_rules(&rules);
+    memset(out, 0, sizeof *out);
+    /* the state only: no trend lines */
+    enum pb_code rc = load_view(st, p, &rules, TREND_WEEK, 0, 1000.0, 0, &v, err);
+    if (rc != PB_OK)
+        return rc;
+    snprintf(out->label, sizeof out->label, "%s", p->label);
+    out->flights = v.health.flights;
+    out->cycles = isfinite(v.health.cycles) ? v.health.cycles : 0.0;
+    out->r0_base_mohm_cell = v.health.r0_base_mohm_cell;
+    snprintf(out->status, sizeof out->status, "%s",
+             p->retired_at[0] ? "retired" : health_status_name(v.health.status));
+    snprintf(out->reason, sizeof out->reason, "%s",
+             p->retired_at[0] ? p->retire_reason : v.health.reason);
+    pack_view_release(&v);
+    return PB_OK;
+}
+
+static int same_num(double a, double b)
+{
+    return (!isfinite(a) && !isfinite(b)) || fabs(a - b) < 0.005;
+}
+
+void packview_print_change(FILE *out, const struct pack_summary *b, const struct pack_summary *a)
+{
+    fprintf(out, "  %s: %zu -> %zu flight%s, %.1f -> %.1f equivalent cycles\n", a->label,
+            b->flights, a->flights, a->flights == 1 ? "" : "s", b->cycles, a->cycles);
+    if (!same_num(b->r0_base_mohm_cell, a->r0_base_mohm_cell)) {
+        char x[32] = "none", y[32] = "none";
+        if (isfinite(b->r0_base_mohm_cell))
+            snprintf(x, sizeof x, "%.2f", b->r0_base_mohm_cell);
+        if (isfinite(a->r0_base_mohm_cell))
+            snprintf(y, sizeof y, "%.2f", a->r0_base_mohm_cell);
+        fprintf(out, "  %s: baseline IR (R0) %s -> %s %s/cell (median of the first flights)\n",
+                a->label, x, y, report_mohm());
+    }
+    if (strcmp(b->status, a->status) != 0)
+        fprintf(out, "  %s: status %s -> %s (%s)\n", a->label, b->status, a->status, a->reason);
 }

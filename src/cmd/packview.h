@@ -14,6 +14,7 @@ struct rules_cli {
 enum { RO_CAP = 400, RO_R0, RO_SPREAD, RO_OVER };
 #define RULEOPTS_LONG                                                                              \
     {"retire-capacity", required_argument, NULL, RO_CAP},                                          \
+        {"retire-imbalance", required_argument, NULL, RO_SPREAD},                                  \
         {"retire-r0-ratio", required_argument, NULL, RO_R0},                                       \
         {"retire-spread", required_argument, NULL, RO_SPREAD},                                     \
     {                                                                                              \
@@ -56,6 +57,25 @@ enum pb_code packview_load_fleet(struct store *st, const struct health_rules *ru
 
 /* Releases n views and frees the array; NULL is a no-op. */
 void packview_free_all(struct pack_view *views, size_t n);
+
+/* What a change to the history can change of a pack. */
+struct pack_summary {
+    char label[128];
+    size_t flights;
+    double cycles;            /* equivalent full cycles */
+    double r0_base_mohm_cell; /* baseline R0, NAN when none yet */
+    char status[16];
+    char reason[320];
+};
+
+/* The summary of pack p as the store holds it now, under the default rules. */
+enum pb_code packview_summary(struct store *st, const struct pack_rec *p, struct pack_summary *out,
+                              struct pb_error *err);
+
+/* Prints "  LABEL: flights a -> b, cycles, baseline and status" lines for
+ * what differs between before and after (flights and cycles always). */
+void packview_print_change(FILE *out, const struct pack_summary *before,
+                           const struct pack_summary *after);
 
 /* Conservative and median safe time of a pack from its history at the
  * history's cruise power (or power_w when finite), default limits. */

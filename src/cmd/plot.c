@@ -8,7 +8,9 @@
 #include "../report/plot.h"
 #include "../report/plots.h"
 #include "cmd.h"
+#include "config.h"
 #include "logopts.h"
+#include "packopts.h"
 #include "packview.h"
 
 static const char usage_head[] =
@@ -19,11 +21,13 @@ static const char usage_head[] =
     "\n"
     "Draws a figure as PNG, SVG or PDF, chosen by the output's extension.\n"
     "  LOG      the flight: voltage with the sag-corrected OCV, current and power,\n"
-    "           SoC counted and from the OCV, per-cell voltages (weakest marked);\n"
-    "           time below the floor tinted, missing data hatched. Takes the\n"
+    "           SoC counted and from the OCV with the landing reserve, per-cell\n"
+    "           voltages (weakest marked), temperature when logged;\n"
+    "           time under the cut-off tinted, missing data hatched. Takes the\n"
     "           analyze options below. (A log named 'trend' or 'fleet': ./trend.)\n"
-    "  trend    a pack's R0 per cell and capacity % against equivalent cycles (or\n"
-    "           --x date): flights, bucket means, fitted line with its 95 % band,\n"
+    "  trend    a pack's IR (R0) per cell and capacity % against equivalent cycles\n"
+    "           (or --x date): flights, bucket means, fitted line with its 95 % band\n"
+    "           and the band where 95 % of flights are expected,\n"
     "           retirement levels and the projected crossing\n"
     "  fleet    every pack in service (--all: and retired) at capacity % against\n"
     "           R0 change from its baseline, by status, packs needing attention named\n"
@@ -37,7 +41,8 @@ static const char usage_head[] =
     "  --axes-json FILE       also write each panel's rectangle and axis ranges as JSON\n"
     "\n"
     "pack (LOG):\n"
-    "  --pack ID [--db PATH]  a registered pack: its cells, chemistry and capacity, and\n"
+    "  --pack ID [--db PATH]  a registered pack: its cells, chemistry, capacity and\n"
+    "                         remembered reading settings (options override them), and\n"
     "                         its name in the title\n"
     "  --cells N, --chemistry C, --capacity MAH   as for analyze (instead of --pack)\n";
 
@@ -86,9 +91,11 @@ struct plot_cli {
     enum trend_by by;
     double horizon;
     const char *db;
-    const char *pack;  /* plot LOG --pack ID */
-    char pack_opt[48]; /* the first of --cells, --chemistry, --capacity given */
-    char title[256];   /* "ID - log" for --pack without --title */
+    const char *pack;          /* plot LOG --pack ID */
+    char pack_opt[48];         /* the first of --cells, --chemistry, --capacity given */
+    char title[256];           /* "ID - log" for --pack without --title */
+    struct packopts_seen seen; /* reading options given, over the pack's */
+    char pack_settings[1024];  /* the pack's, split by packopts_apply */
     struct health_rules rules;
 };
 
@@ -107,7 +114,7 @@ static enum pb_code parse(int argc, char **argv, struct plot_cli *cli, int *done
         snprintf(opt, sizeof opt, "--%s", li >= 0 ? longopts[li].name : "?");
         li = -1;
         int taken = logopts_take(c, optarg, &cli->log, err);
-        if (taken < 0)
+        if (taken < 0 || (taken && packopts_note(&cli->seen, c, optarg, err) < 0))
             return PB_EUSAGE;
         if (taken) {
             if (!first_log_opt[0])
@@ -151,6 +158,8 @@ static enum pb_code parse(int argc, char **argv, struct plot_cli *cli, int *done
             if (trendopts_fit(optarg, &cli->plain, err))
                 return PB_EUSAGE;
             cli->log.an.plain_fit = cli->plain; /* the flight's fits follow it too */
+            if (packopts_note(&cli->seen, LO_FIT, optarg, err) < 0)
+                return PB_EUSAGE;
             break;
         case P_HORIZON:
             if (cmd_parse_double("--horizon", optarg, 1, 1e6, &cli->horizon, err))
@@ -246,6 +255,10 @@ static enum pb_code take_pack(struct plot_cli *cli, const char *path, struct pb_
     cli->log.an.cells = p.cells;
     cli->log.an.chemistry = (int)chem->id;
     cli->log.an.capacity_mah = p.capacity_mah;
+    memcpy(cli->pack_settings, p.settings, sizeof cli->pack_settings);
+    rc = packopts_apply(cli->pack_settings, &cli->seen, &cli->log, err);
+    if (rc != PB_OK)
+        return rc;
     if (!cli->fig.title) {
         const char *base = strrchr(path, '/') ? strrchr(path, '/') + 1 : path;
         snprintf(cli->title, sizeof cli->title, "%s \u00b7 %s", p.label,
@@ -260,7 +273,9 @@ static enum pb_code plot_log(struct plot_cli *cli, const char *path, struct pb_e
     struct logread_stats stats;
     struct analysis *a = NULL;
     struct series *s = NULL;
-    enum pb_code rc = cli->pack ? take_pack(cli, path, err) : PB_OK;
+    /* without --pack: the settings file's reading defaults under the options */
+    enum pb_code rc =
+        cli->pack ? take_pack(cli, path, err) : packopts_apply(NULL, &cli->seen, &cli->log, err);
     if (rc == PB_OK)
         rc = logopts_analyze(path, &cli->log, &stats, &a, &s, err);
     if (rc == PB_OK)
@@ -306,7 +321,8 @@ enum pb_code cmd_plot(int argc, char **argv, struct app *app, struct pb_error *e
     (void)app;
     logopts_init(&cli.log);
     cli.log.read.min_samples = 1; /* a figure of one sample still says what there is */
-    health_rules_default(&cli.rules);
+    config_rules(&cli.rules);
+    cli.fig.reserve_pct = config_reserve();
     cli.by = TREND_WEEK;
     cli.horizon = 1000.0;
     int done = 0;

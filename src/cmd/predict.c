@@ -15,7 +15,9 @@
 #include "../report/report.h"
 #include "../report/report_predict.h"
 #include "cmd.h"
+#include "config.h"
 #include "logopts.h"
+#include "packopts.h"
 #include "packview.h"
 
 static const char usage_head[] =
@@ -23,33 +25,53 @@ static const char usage_head[] =
     "       packbook predict --log LOG [--cells N --chemistry C --capacity MAH] [options]\n"
     "\n"
     "Simulates the pack from a start state under a load until the first of: SoC\n"
-    "down to the landing reserve, loaded voltage down to the floor, or a power the\n"
+    "down to the landing reserve, loaded voltage down to the cut-off, or a power the\n"
     "pack cannot deliver (voltage collapse). Capacity, R0 and the load are drawn\n"
     "from their uncertainty (Monte Carlo, fixed seed); the conservative figure is\n"
-    "the 5th percentile of the safe time.\n"
+    "the 5th percentile of the safe time. For a retired pack, or one flagged\n"
+    "retire, that is said first.\n"
     "\n"
     "start:\n"
     "  --soc PCT              start SoC (default 100: a full charge)\n"
     "  --ocv V                or the pack voltage measured at rest\n"
-    "load (default: the median cruise power of the last 5 flights, or of the log):\n"
-    "  --power W | --current A   constant power or current\n"
-    "  --profile LOG          the power of a logged flight, repeated (may be given again:\n"
-    "                         the profiles are flown one after the other)\n"
-    "limits:\n"
-    "  --reserve PCT          landing reserve SoC (default 30, common practice)\n"
-    "  --floor V              loaded per-cell floor (default: per chemistry)\n"
-    "model:\n"
-    "  --temp C               pack temperature: R0 is scaled by the Arrhenius form\n"
-    "  --tref C               temperature R0 was measured at (default 25)\n"
-    "  --ea J_PER_MOL         activation energy for R(T) (default 30000)\n"
-    "  --peukert K            Peukert exponent (rated-capacity form t = H (C/(I H))^K)\n"
-    "  --peukert-hours H      rated discharge time H for Peukert (default 1)\n"
-    "  --runs N --seed N      Monte Carlo runs (default 400) and seed (default 1)\n"
-    "  --for S                also report the state after S seconds\n"
-    "  --db PATH              history database\n"
-    "  --json                 JSON on standard output\n"
-    "reading --log and --profile logs:\n"
-    "  --cells N --chemistry C --capacity MAH (for --log)\n";
+    "load (default: the median cruise power of the last " HEALTH_STR(
+        HEALTH_RECENT_FLIGHTS) " flights, or of the log):\n"
+                               "  --power W | --current A   constant power or current\n"
+                               "  --profile LOG          the power of a logged flight, repeated "
+                               "(may be given again:\n"
+                               "                         the profiles are flown one after the "
+                               "other)\n"
+                               "limits:\n"
+                               "  --reserve PCT          landing reserve SoC (default " PREDICT_STR(
+                                   PREDICT_RESERVE_PCT) ", common practice, or the settings "
+                                                        "file's)\n"
+                                                        "  --cut-off V            cut-off voltage "
+                                                        "per cell under load (default: the pack's\n"
+                                                        "                         remembered one, "
+                                                        "else per chemistry; --floor: old name)\n"
+                                                        "model:\n"
+                                                        "  --temp C               pack "
+                                                        "temperature: R0 is scaled by the "
+                                                        "Arrhenius form\n"
+                                                        "  --tref C               temperature R0 "
+                                                        "was measured at (default 25)\n"
+                                                        "  --ea J_PER_MOL         activation "
+                                                        "energy for R(T) (default 30000)\n"
+                                                        "  --peukert K            Peukert exponent "
+                                                        "(rated-capacity form t = H (C/(I H))^K)\n"
+                                                        "  --peukert-hours H      rated discharge "
+                                                        "time H for Peukert (default 1)\n"
+                                                        "  --runs N --seed N      Monte Carlo runs "
+                                                        "(default 400) and seed (default 1)\n"
+                                                        "  --for S                also report the "
+                                                        "state after S seconds\n"
+                                                        "  --db PATH              history "
+                                                        "database\n"
+                                                        "  --json                 JSON on standard "
+                                                        "output\n"
+                                                        "reading --log and --profile logs:\n"
+                                                        "  --cells N --chemistry C --capacity MAH "
+                                                        "(for --log)\n";
 
 enum {
     R_LOG = 256,
@@ -99,6 +121,7 @@ static const struct option longopts[] = {
 
 struct predict_cli {
     struct log_cli log;
+    struct packopts_seen seen; /* reading options given, over the settings file's */
     const char *log_path, *db, *id;
     const char *profiles[MAX_PROFILES];
     int nprofiles;
@@ -274,13 +297,15 @@ static void curve_offset(struct store *st, const struct pack_view *v, struct pre
         in->v_offset_sd_v = sd;
 }
 
-/* From the last (up to 5) flights of a pack. */
+/* From the last (up to HEALTH_RECENT_FLIGHTS) flights of a pack: the same
+ * flights the health view calls "now". */
 static enum pb_code inputs_from_history(const struct pack_view *v, struct predict_inputs *in,
                                         struct pb_error *err)
 {
-    double cap[5], capci[5], r0[5], r0ci[5], r1[5], tau[5], pw[5];
+    enum { N = HEALTH_RECENT_FLIGHTS };
+    double cap[N], capci[N], r0[N], r0ci[N], r1[N], tau[N], pw[N];
     size_t m = 0;
-    for (size_t k = v->nflights; k > 0 && m < 5; k--, m++) {
+    for (size_t k = v->nflights; k > 0 && m < N; k--, m++) {
         const struct flight_rec *f = &v->flights[k - 1];
         cap[m] = f->capacity_mah;
         capci[m] = f->capacity_ci95_mah;
@@ -299,7 +324,11 @@ static enum pb_code inputs_from_history(const struct pack_view *v, struct predic
                             v->pack.label, v->pack.chemistry);
     in->cells = v->pack.cells;
     in->rated_mah = v->pack.capacity_mah;
-    snprintf(in->source, sizeof in->source, "the last %zu flights of pack %s", m, v->pack.label);
+    if (m == 1)
+        snprintf(in->source, sizeof in->source, "the one flight of pack %s", v->pack.label);
+    else
+        snprintf(in->source, sizeof in->source, "the last %zu flights of pack %s", m,
+                 v->pack.label);
     in->capacity_mah = median_sd(cap, m, &sd);
     double ci = median_sd(capci, m, &ci_sd);
     in->capacity_sd_mah = fmax(isfinite(sd) ? sd : 0.0, isfinite(ci) ? ci / 1.96 : 0.0);
@@ -376,6 +405,7 @@ static void setup(const struct predict_inputs *in, const struct predict_cli *cli
     sp->r0_sd_ohm = isfinite(in->r0_sd_mohm) ? in->r0_sd_mohm / 1000.0 : 0.0;
     sp->runs = 400;
     sp->seed = 1;
+    o->reserve_pct = config_reserve();
     if (!cli)
         return;
     if (isfinite(cli->soc))
@@ -467,7 +497,7 @@ enum pb_code cmd_predict(int argc, char **argv, struct app *app, struct pb_error
     (void)app;
     logopts_init(&cli.log);
     cli.soc = cli.ocv_v = cli.power_w = cli.current_a = cli.temp_c = NAN;
-    cli.reserve = 30.0;
+    cli.reserve = config_reserve();
     cli.tref_c = 25.0;
     cli.ea = 30000.0;
     cli.peukh = 1.0;
@@ -479,7 +509,7 @@ enum pb_code cmd_predict(int argc, char **argv, struct app *app, struct pb_error
         const char *v = optarg;
         int bad = 0, n = 0;
         int taken = logopts_take(c, v, &cli.log, err);
-        if (taken < 0)
+        if (taken < 0 || (taken && packopts_note(&cli.seen, c, v, err) < 0))
             return PB_EUSAGE;
         if (taken)
             continue;
@@ -571,21 +601,42 @@ enum pb_code cmd_predict(int argc, char **argv, struct app *app, struct pb_error
     double *pt = NULL, *pw = NULL;
     const char *warn[8];
     int nwarn = 0;
+    char status_line[1024] = "";
     if (cli.id) {
         struct pack_rec p;
         struct health_rules rules;
-        health_rules_default(&rules);
+        config_rules(&rules);
         if ((rc = packview_open_store(cli.db, 1, &st, err)) != PB_OK ||
             (rc = store_pack_get(st, cli.id, &p, err)) != PB_OK ||
             (rc = packview_load(st, &p, &rules, TREND_WEEK, 0, 1000, &view, err)) != PB_OK ||
             (rc = inputs_from_history(&view, &in, err)) != PB_OK)
             goto cleanup;
         curve_offset(st, &view, &in, cli.reserve, isfinite(cli.soc) ? cli.soc : 100.0);
-        if (p.retired_at[0])
+        /* the pack's remembered cut-off, unless --floor was given */
+        struct log_cli remembered;
+        logopts_init(&remembered);
+        if ((rc = packopts_apply(p.settings, NULL, &remembered, err)) != PB_OK)
+            goto cleanup;
+        if (!(cli.log.an.floor_v > 0) && remembered.an.floor_v > 0)
+            cli.log.an.floor_v = remembered.an.floor_v;
+        /* said first: a figure for a pack that should not fly is read as leave to fly it */
+        if (p.retired_at[0]) {
+            snprintf(status_line, sizeof status_line,
+                     "pack %s is RETIRED (%s, %.10s): do not fly it; figures for reference only",
+                     p.label, p.retire_reason, p.retired_at);
             warn[nwarn++] = "this pack is retired";
+        } else if (view.health.status == HEALTH_RETIRE) {
+            snprintf(status_line, sizeof status_line,
+                     "pack %s is flagged for RETIREMENT (%s): inspect it before flying; figures "
+                     "for reference only",
+                     p.label, view.health.reason);
+            warn[nwarn++] = "this pack is flagged for retirement";
+        }
     } else {
         struct logread_stats stats;
-        if ((rc = logopts_analyze(cli.log_path, &cli.log, &stats, &a, NULL, err)) != PB_OK)
+        /* the settings file's reading defaults under the options given */
+        if ((rc = packopts_apply(NULL, &cli.seen, &cli.log, err)) != PB_OK ||
+            (rc = logopts_analyze(cli.log_path, &cli.log, &stats, &a, NULL, err)) != PB_OK)
             goto cleanup;
         if (a->cells <= 0 || !isfinite(a->r0_mohm.value)) {
             rc = pb_error_set(err, PB_EUSAGE, "%s: %s: cannot predict from this log", cli.log_path,
@@ -638,6 +689,8 @@ enum pb_code cmd_predict(int argc, char **argv, struct app *app, struct pb_error
         warn[nwarn++] = "the pack cannot deliver this power down to the reserve: voltage collapse";
     if (r.t_safe_s <= 0.0)
         warn[nwarn++] = "a limit is reached at the start: do not fly this load from this state";
+    if (status_line[0] && !cli.json)
+        printf("%s\n\n", status_line);
     int wrc = cli.json ? report_predict_json(stdout, &in, &l, sp.load_sd, &o, &r, &mc, warn, nwarn)
                        : report_predict_text(stdout, &in, &l, sp.load_sd, &o, &r, &mc, warn, nwarn);
     rc = wrc ? pb_error_set(err, PB_EOUTPUT, "cannot write the output") : cmd_finish_stdout(err);

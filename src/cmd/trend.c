@@ -1,4 +1,4 @@
-/* packbook trend ID and packbook compare ID ID...: a pack's history over time. */
+/* packbook trend ID... and packbook compare ID ID...: packs' histories over time. */
 #include <getopt.h>
 #include <stdio.h>
 #include <stdlib.h>
@@ -7,33 +7,38 @@
 #include "../report/plot.h"
 #include "../report/plots.h"
 #include "cmd.h"
+#include "config.h"
 #include "packview.h"
 
 static const char trend_usage[] =
-    "usage: packbook trend ID [--by week|month|cycle] [--horizon N] [--fit robust|ols]\n"
-    "                         [--json] [--plot FILE] [--db PATH]\n"
+    "usage: packbook trend ID... [--by week|month|cycle] [--horizon N] [--fit robust|ols]\n"
+    "                            [--json|--csv] [--plot FILE] [--db PATH]\n"
     "\n"
     "Per ISO week (default), month or 5-cycle bucket: flights, charge, mean R0 per\n"
-    "cell and capacity % of rated. Then straight-line fits of R0 and capacity\n"
-    "against equivalent cycles and against days (robust unless --fit ols), slopes\n"
+    "cell and capacity % of rated; weeks and months without flights are shown\n"
+    "empty. Then straight-line fits of R0 and capacity against equivalent cycles\n"
+    "and against days (robust unless --fit ols), slopes per 10 cycles and per day\n"
     "with 95 % intervals, and the cycle and date at which each reaches its\n"
-    "retirement level, or 'not within N cycles' (--horizon, default 1000).\n"
-    "  --plot FILE            also draw the trend as FILE.png, .svg or .pdf against\n"
-    "                         cycles ('packbook plot trend' has --x date and --size)\n";
+    "retirement level, or that it does not within N cycles (--horizon, default\n"
+    "1000). Several packs: one after another (CSV: one table with a pack column;\n"
+    "JSON: an array).\n"
+    "  --plot FILE            also draw the trend of one pack as FILE.png, .svg or .pdf\n"
+    "                         against cycles ('packbook plot trend' has --x date, --size)\n";
 
 static const char compare_usage[] =
-    "usage: packbook compare ID ID... [--json] [--db PATH]\n"
+    "usage: packbook compare ID ID... [--json|--csv] [--db PATH]\n"
     "\n"
-    "The packs side by side: use, resistance and capacity now and per 100 cycles,\n"
-    "projected limits and status.\n";
+    "The packs side by side: use, resistance and capacity now and per 10 cycles,\n"
+    "the weakest cell, projected limits and status (CSV: one row per pack).\n";
 
-enum { T_BY = 256, T_HORIZON, T_FIT, T_JSON, T_DB, T_PLOT };
+enum { T_BY = 256, T_HORIZON, T_FIT, T_JSON, T_DB, T_PLOT, T_CSV };
 
 static const struct option longopts[] = {
     {"by", required_argument, NULL, T_BY},
     {"horizon", required_argument, NULL, T_HORIZON},
     {"fit", required_argument, NULL, T_FIT},
     {"json", no_argument, NULL, T_JSON},
+    {"csv", no_argument, NULL, T_CSV},
     {"db", required_argument, NULL, T_DB},
     {"plot", required_argument, NULL, T_PLOT},
     {"help", no_argument, NULL, 'h'},
@@ -44,7 +49,8 @@ static const struct option longopts[] = {
 struct trend_cli {
     enum trend_by by;
     double horizon;
-    int plain, json;
+    int plain;
+    enum fleet_format fmt;
     const char *db;
     const char *plot; /* trend --plot FILE */
     struct health_rules rules;
@@ -56,7 +62,7 @@ static enum pb_code parse(const char *verb, const char *usage, int argc, char **
     int c;
     cli->by = TREND_WEEK;
     cli->horizon = 1000.0;
-    health_rules_default(&cli->rules);
+    config_rules(&cli->rules);
     optind = 1;
     opterr = 0;
     while ((c = getopt_long(argc, argv, "h", longopts, NULL)) != -1) {
@@ -79,7 +85,10 @@ static enum pb_code parse(const char *verb, const char *usage, int argc, char **
                 return PB_EUSAGE;
             break;
         case T_JSON:
-            cli->json = 1;
+            cli->fmt = FLEET_JSON;
+            break;
+        case T_CSV:
+            cli->fmt = FLEET_CSV;
             break;
         case T_DB:
             cli->db = optarg;
@@ -144,10 +153,12 @@ static enum pb_code run(int compare, int argc, char **argv, struct pb_error *err
     if (rc != PB_OK || done)
         return rc;
     int have = argc - optind;
-    if (compare ? have < 2 : have != 1)
+    if (compare ? have < 2 : have < 1)
         return pb_error_set(err, PB_EUSAGE,
                             compare ? "compare: give two or more pack IDs"
-                                    : "trend: give one pack ID");
+                                    : "trend: give one or more pack IDs");
+    if (cli.plot && have != 1)
+        return pb_error_set(err, PB_EUSAGE, "trend: --plot draws one pack: give one pack ID");
     struct store *st = NULL;
     struct pack_view *views = NULL;
     size_t nv = 0;
@@ -157,8 +168,8 @@ static enum pb_code run(int compare, int argc, char **argv, struct pb_error *err
         rc = plot_trend(cli.plot, &fig, &views[0], &cli.rules, 0, err);
     }
     if (rc == PB_OK) {
-        int w = compare ? report_compare(stdout, views, nv, cli.json)
-                        : report_trend(stdout, &views[0], cli.by, cli.horizon, cli.json);
+        int w = compare ? report_compare(stdout, views, nv, cli.fmt)
+                        : report_trend(stdout, views, nv, cli.by, cli.horizon, cli.fmt);
         rc = w != 0 ? pb_error_set(err, PB_EOUTPUT, "cannot write the output")
                     : cmd_finish_stdout(err);
     }

@@ -242,20 +242,30 @@ static void current_stats(struct analysis *a, const struct series *s, const stru
     }
 }
 
+/* Time under the cut-off voltage: only while loaded (|I| above the rest
+ * threshold) when the log has current, since a pack resting after landing
+ * at a low voltage is not being over-discharged; every interval otherwise.
+ * Joints between clock segments count no time. Call after current_stats. */
 static void floor_stats(struct analysis *a, const struct series *s)
 {
     if (a->cells <= 0)
         return;
     a->cell_min_loaded_v = a->voltage_min_v / a->cells;
     double floor_pack = a->floor_v * a->cells;
-    for (size_t k = 1; k < s->n; k++)
-        if (s->v_v[k - 1] < floor_pack)
-            a->time_below_floor_s += s->t_s[k] - s->t_s[k - 1];
-    if (a->voltage_min_v < floor_pack)
+    double v_min_loaded = HUGE_VAL;
+    for (size_t k = 0; k < s->n; k++) {
+        if (s->i_a && !(fabs(s->i_a[k]) > a->rest_a))
+            continue;
+        v_min_loaded = fmin(v_min_loaded, s->v_v[k]);
+        if (k + 1 < s->n && s->v_v[k] < floor_pack && !series_is_joint(s, k + 1))
+            a->time_below_floor_s += s->t_s[k + 1] - s->t_s[k];
+    }
+    if (v_min_loaded < floor_pack)
         warn(a, "below_floor",
-             "loaded voltage went below the %.2f V/cell floor (lowest %.3f V/cell, %.1f s below): "
-             "check the pack for damage before charging",
-             a->floor_v, a->cell_min_loaded_v, a->time_below_floor_s);
+             "the loaded voltage went below the %.2f V/cell cut-off voltage (lowest %.3f V/cell, "
+             "%.1f s under load below it): over-discharge; check the pack for damage before "
+             "charging",
+             a->floor_v, v_min_loaded / a->cells, a->time_below_floor_s);
 }
 
 static const char *rest_state(const struct chem_info *c, double ocv_cell_v)
@@ -695,7 +705,6 @@ enum pb_code analyze_series(const struct series *s, const struct logread_stats *
 
     voltage_stats(a, s);
     infer_cells(a, s, o);
-    floor_stats(a, s);
     if (s->temp_c) {
         a->temp_min_c = HUGE_VAL;
         a->temp_max_c = -HUGE_VAL;
@@ -710,11 +719,13 @@ enum pb_code analyze_series(const struct series *s, const struct logread_stats *
 
     size_t k_rest0 = 1, k_rest1 = s->n;
     if (!s->i_a) {
+        floor_stats(a, s);
         warn(a, "voltage_only",
              "the log has no current: charge, energy, resistance and capacity need a current "
              "sensor; SoC is read from the loaded voltage and is a lower bound");
     } else {
         current_stats(a, s, o, name);
+        floor_stats(a, s);
         k_rest0 = initial_rest_end(s, a->rest_a);
         k_rest1 = final_rest_start(s, a->rest_a);
         if (k_rest1 == 0) /* all rest: one run, read at the start */

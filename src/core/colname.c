@@ -74,6 +74,7 @@ static const struct base_entry bases[] = {
     {"time_unix", COL_TIME},
     {"test_time", COL_TIME},
     {"elapsed_time", COL_TIME},
+    {"date", COL_DATE},
     {"voltage", COL_VOLTAGE},
     {"v", COL_VOLTAGE},
     {"volt", COL_VOLTAGE},
@@ -90,11 +91,18 @@ static const struct base_entry bases[] = {
     {"batt_voltage", COL_VOLTAGE},
     {"voltage_pack", COL_VOLTAGE},
     {"ubat", COL_VOLTAGE},
+    {"batv", COL_VOLTAGE},
+    {"battv", COL_VOLTAGE},
+    {"packv", COL_VOLTAGE},
     {"current", COL_CURRENT},
     {"i", COL_CURRENT},
     {"ibat", COL_CURRENT},
     {"i_bat", COL_CURRENT},
     {"curr", COL_CURRENT},
+    {"cur", COL_CURRENT},
+    {"bata", COL_CURRENT},
+    {"batta", COL_CURRENT},
+    {"packa", COL_CURRENT},
     {"amps", COL_CURRENT},
     {"ipack", COL_CURRENT},
     {"i_pack", COL_CURRENT},
@@ -152,6 +160,17 @@ static enum col_role find_base(const char *b)
     return COL_IGNORE;
 }
 
+/* Names of the battery that say nothing of the quantity: the unit does
+ * ("Bat(V)", "Battery(V)", "Pack V", "bat_a"). Without a unit, ignored. */
+static int battery_base(const char *b)
+{
+    static const char *const names[] = {"bat", "batt", "battery", "pack"};
+    for (size_t k = 0; k < sizeof names / sizeof *names; k++)
+        if (strcmp(names[k], b) == 0)
+            return 1;
+    return 0;
+}
+
 /* A raw-current base: a current name with a raw marker before or after. */
 static int raw_current_base(const char *b)
 {
@@ -205,8 +224,22 @@ int colname_parse(const char *name, size_t len, struct col_spec *out)
         unit = find_unit(us + 1);
         *us = '\0';
     }
+    /* a whole name of the table whose last token looks like a unit ("bat_v")
+     * is that name, not a base without meaning and a unit */
+    if (unit && find_base(norm) == COL_IGNORE && !battery_base(norm) && !raw_current_base(norm) &&
+        !cell_index(norm)) {
+        *us = '_';
+        if (find_base(norm) != COL_IGNORE)
+            unit = NULL;
+        else
+            *us = '\0';
+    }
 
     enum col_role role = find_base(norm);
+    if (role == COL_IGNORE && unit && battery_base(norm) &&
+        (unit->role == COL_VOLTAGE || unit->role == COL_CURRENT || unit->role == COL_TEMP ||
+         unit->role == COL_CURRENT_RAW))
+        role = unit->role;
     int cell = 0;
     if (role == COL_IGNORE && raw_current_base(norm))
         role = COL_CURRENT_RAW;
@@ -227,7 +260,9 @@ int colname_parse(const char *name, size_t len, struct col_spec *out)
         if (role == COL_CURRENT && unit_role == COL_CURRENT_RAW) {
             role = COL_CURRENT_RAW;
         } else {
-            enum col_role want = role == COL_CELL ? COL_VOLTAGE : role;
+            enum col_role want = role == COL_CELL   ? COL_VOLTAGE
+                                 : role == COL_DATE ? COL_TIME
+                                                    : role;
             /* "t" with "c" would be temperature in some loggers, but "t" is
              * time here; a time base with a temperature unit is rejected */
             if (want != unit_role && !(want == COL_CURRENT_RAW && unit_role == COL_CURRENT_RAW))
@@ -261,6 +296,8 @@ const char *colname_role_name(enum col_role role)
         return "temperature";
     case COL_CELL:
         return "cell voltage";
+    case COL_DATE:
+        return "date";
     }
     return "?";
 }

@@ -17,6 +17,7 @@ enum col_role {
     COL_CURRENT_RAW, /* pack current as ADC counts */
     COL_TEMP,
     COL_CELL, /* one cell's voltage */
+    COL_DATE, /* a calendar date, beside a time-of-day column */
 };
 
 enum time_kind {

@@ -15,16 +15,16 @@
 
 void health_rules_default(struct health_rules *r)
 {
-    r->retire_capacity_pct = 80.0;
-    r->watch_capacity_pct = 85.0;
-    r->retire_r0_ratio = 2.0;
-    r->watch_r0_ratio = 1.5;
-    r->retire_spread_mv = 60.0;
-    r->watch_spread_mv = 30.0;
-    r->retire_overdischarge = 3;
-    r->watch_overdischarge = 1;
-    r->baseline_flights = 3;
-    r->recent_flights = 5;
+    r->retire_capacity_pct = HEALTH_RETIRE_CAPACITY_PCT;
+    r->watch_capacity_pct = HEALTH_WATCH_CAPACITY_PCT;
+    r->retire_r0_ratio = HEALTH_RETIRE_R0_RATIO;
+    r->watch_r0_ratio = HEALTH_WATCH_R0_RATIO;
+    r->retire_spread_mv = HEALTH_RETIRE_IMBALANCE_MV;
+    r->watch_spread_mv = HEALTH_WATCH_IMBALANCE_MV;
+    r->retire_overdischarge = HEALTH_RETIRE_OVERDISCHARGES;
+    r->watch_overdischarge = HEALTH_WATCH_OVERDISCHARGES;
+    r->baseline_flights = HEALTH_BASELINE_FLIGHTS;
+    r->recent_flights = HEALTH_RECENT_FLIGHTS;
 }
 
 const char *health_status_name(enum health_status s)
@@ -163,6 +163,19 @@ void health_assess(const struct health_flight *f, size_t n, int cells, double ra
     h->r0_ratio = h->r0_now_mohm_cell / h->r0_base_mohm_cell;
     h->capacity_pct = 100.0 * capacity_now(f, n, recent) / rated_mah;
     h->spread_mv = median_end(f, n, get_spread, recent, 1);
+    /* the weakest cell: the one named most often by the last flights that name one (a tie
+     * goes to the one named most recently) */
+    int seen[64] = {0};
+    for (size_t k = n; k-- > 0 && h->weakest_of < recent;) {
+        int c = f[k].weakest_cell;
+        if (c < 1 || c > 63)
+            continue;
+        h->weakest_of++;
+        if (++seen[c] > (int)h->weakest_count) {
+            h->weakest_count = (size_t)seen[c];
+            h->weakest_cell = c;
+        }
+    }
     if (n == 0) {
         snprintf(h->reason, sizeof h->reason, "no flights yet");
         return;
@@ -176,23 +189,25 @@ void health_assess(const struct health_flight *f, size_t n, int cells, double ra
     /* a ratio means something only once "now" is more than the baseline */
     if (n > (size_t)r->baseline_flights && isfinite(h->r0_ratio)) {
         if (h->r0_ratio >= r->retire_r0_ratio)
-            add_reason(h, HEALTH_RETIRE, "R0 %.2f mOhm/cell is %.2fx its baseline %.2f (>= %.1fx)",
+            add_reason(h, HEALTH_RETIRE, "IR %.2f mOhm/cell is %.2fx its baseline %.2f (>= %.1fx)",
                        h->r0_now_mohm_cell, h->r0_ratio, h->r0_base_mohm_cell, r->retire_r0_ratio);
         else if (h->r0_ratio >= r->watch_r0_ratio)
-            add_reason(h, HEALTH_WATCH, "R0 %.2f mOhm/cell is %.2fx its baseline %.2f (>= %.1fx)",
+            add_reason(h, HEALTH_WATCH, "IR %.2f mOhm/cell is %.2fx its baseline %.2f (>= %.1fx)",
                        h->r0_now_mohm_cell, h->r0_ratio, h->r0_base_mohm_cell, r->watch_r0_ratio);
     }
     if (h->spread_mv >= r->retire_spread_mv)
-        add_reason(h, HEALTH_RETIRE, "cell spread at rest %.0f mV >= %.0f mV", h->spread_mv,
+        add_reason(h, HEALTH_RETIRE, "cell imbalance at rest %.0f mV >= %.0f mV", h->spread_mv,
                    r->retire_spread_mv);
     else if (h->spread_mv >= r->watch_spread_mv)
-        add_reason(h, HEALTH_WATCH, "cell spread at rest %.0f mV >= %.0f mV", h->spread_mv,
+        add_reason(h, HEALTH_WATCH, "cell imbalance at rest %.0f mV >= %.0f mV", h->spread_mv,
                    r->watch_spread_mv);
     if (h->overdischarges >= r->retire_overdischarge)
-        add_reason(h, HEALTH_RETIRE, "%d flights below the voltage floor (>= %d)",
+        add_reason(h, HEALTH_RETIRE,
+                   "%d over-discharges (flights under the cut-off voltage, >= %d)",
                    h->overdischarges, r->retire_overdischarge);
     else if (h->overdischarges >= r->watch_overdischarge)
-        add_reason(h, HEALTH_WATCH, "%d flight%s below the voltage floor", h->overdischarges,
+        add_reason(h, HEALTH_WATCH, "%d over-discharge%s (flight%s under the cut-off voltage)",
+                   h->overdischarges, h->overdischarges == 1 ? "" : "s",
                    h->overdischarges == 1 ? "" : "s");
     if (h->status == HEALTH_OK)
         snprintf(h->reason, sizeof h->reason, "within all limits");
@@ -274,6 +289,14 @@ double health_line_band(const struct line_fit *l, double x)
         return NAN;
     double var = l->cov_aa + 2.0 * x * l->cov_ab + x * x * l->cov_bb;
     return l->t95 * sqrt(var > 0.0 ? var : 0.0);
+}
+
+double health_line_predict_band(const struct line_fit *l, double x)
+{
+    if (!l->ok)
+        return NAN;
+    double var = l->cov_aa + 2.0 * x * l->cov_ab + x * x * l->cov_bb;
+    return l->t95 * sqrt(l->sigma * l->sigma + (var > 0.0 ? var : 0.0));
 }
 
 int health_crossing(const struct line_fit *l, double level, int rising, double x_now,

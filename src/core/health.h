@@ -16,6 +16,7 @@ struct health_flight {
     double capacity_ci95_mah; /* its 95 % half-width; NAN when unknown */
     double spread_rest_mv;    /* NAN when unknown */
     int below_floor;          /* the loaded voltage crossed the per-cell floor */
+    int weakest_cell;         /* 1-based cell lowest under load, 0 when the log had no cells */
 };
 
 /* Thresholds. Defaults (health_rules_default): capacity at or below 80 %
@@ -23,6 +24,22 @@ struct health_flight {
  * R0 at or above 2x the pack's baseline (common practice), resting cell
  * spread at or above 60 mV (common practice, from memory), 3 or more
  * flights below the floor; "watch" levels at 85 %, 1.5x, 30 mV and 1. */
+/* The policy values, named once; reports and help print them from here.
+ * Whole numbers where they can be, so they read the same when stringised
+ * (HEALTH_STR) into help texts. */
+#define HEALTH_RETIRE_CAPACITY_PCT 80
+#define HEALTH_WATCH_CAPACITY_PCT 85
+#define HEALTH_RETIRE_R0_RATIO 2
+#define HEALTH_WATCH_R0_RATIO 1.5
+#define HEALTH_RETIRE_IMBALANCE_MV 60
+#define HEALTH_WATCH_IMBALANCE_MV 30
+#define HEALTH_RETIRE_OVERDISCHARGES 3
+#define HEALTH_WATCH_OVERDISCHARGES 1
+#define HEALTH_BASELINE_FLIGHTS 3 /* first flights that set the baseline */
+#define HEALTH_RECENT_FLIGHTS 5   /* last flights that set "now" */
+#define HEALTH_STR_(x) #x
+#define HEALTH_STR(x) HEALTH_STR_(x)
+
 struct health_rules {
     double retire_capacity_pct, watch_capacity_pct;
     double retire_r0_ratio, watch_r0_ratio;
@@ -44,6 +61,9 @@ struct pack_health {
     double capacity_pct;      /* precision-weighted median of the recent estimates, % of rated */
     double spread_mv;         /* median of the recent resting spreads */
     int overdischarges;       /* flights below the floor */
+    int weakest_cell;     /* the cell most often weakest in the recent flights naming one, 0 none */
+    size_t weakest_count; /* in how many of them it was */
+    size_t weakest_of;    /* how many recent flights named a weakest cell */
     enum health_status status;
     char reason[320]; /* which rules fired, with the numbers */
 };
@@ -73,6 +93,10 @@ struct line_fit health_line(const double *x, const double *y, size_t n, int plai
 /* Half-width of the 95 % confidence band of the fitted line's mean at x
  * (t95 sqrt(var(a + b x))); NAN when the fit is not ok. */
 double health_line_band(const struct line_fit *l, double x);
+
+/* Half-width of the 95 % prediction band at x, where a new point is expected:
+ * t95 sqrt(sigma^2 + var(a + b x)); NAN when the fit is not ok. */
+double health_line_predict_band(const struct line_fit *l, double x);
 
 /* Where a line reaches level (from below when rising, from above when
  * not), beyond x_now: sets *x_cross and returns 1; returns 0 when the line

@@ -14,12 +14,12 @@
 #define SNIFF_LINES 32
 #define HEADER_KEEP 128 /* bytes of each first-row field kept for mapping */
 
-enum slot { SLOT_T = 0, SLOT_V, SLOT_I, SLOT_TEMP, SLOT_CELL0 };
+enum slot { SLOT_T = 0, SLOT_V, SLOT_I, SLOT_TEMP, SLOT_DATE, SLOT_CELL0 };
 #define NSLOTS (SLOT_CELL0 + PB_MAX_CELLS)
 
 enum bad_kind { BAD_NONE = 0, BAD_NUMBER, BAD_NONFINITE, BAD_EMPTY };
 
-enum tmode { TM_UNDECIDED = 0, TM_NUMBER, TM_ISO };
+enum tmode { TM_UNDECIDED = 0, TM_NUMBER, TM_ISO, TM_CLOCK };
 
 struct reader {
     const struct logread_opts *opts;
@@ -47,6 +47,8 @@ struct reader {
     int ncells;
 
     enum tmode tmode;
+    int clock_seen, clock_days; /* TM_CLOCK: a time was read; midnights passed */
+    double clock_prev;
     double t_scale;
     double t_first; /* first kept absolute/raw time, in seconds */
     double t_prev;
@@ -200,6 +202,8 @@ static int slot_for(const struct col_spec *sp)
         return SLOT_TEMP;
     case COL_CELL:
         return sp->cell <= PB_MAX_CELLS ? SLOT_CELL0 + sp->cell - 1 : -1;
+    case COL_DATE:
+        return SLOT_DATE;
     case COL_IGNORE:
         return -1;
     }
@@ -429,8 +433,21 @@ static int map_columns(struct reader *r)
     r->st->voltage_column = r->slot_col[SLOT_V] + 1;
     r->st->current_column = r->slot_col[SLOT_I] + 1;
     r->st->temp_column = r->slot_col[SLOT_TEMP] + 1;
+    r->st->date_column = r->slot_col[SLOT_DATE] + 1;
     r->t_scale = r->spec[SLOT_T].scale;
     r->st->time_unit_given = r->spec[SLOT_T].unit_given;
+    /* every named column that carries nothing read, by name, so the report can say so */
+    for (int c = 0; c < n; c++) {
+        if (r->col_slot[c] >= 0 || strcmp(names[c], "-") == 0)
+            continue;
+        char *buf = r->st->ignored_names;
+        size_t used = strlen(buf), cap = sizeof r->st->ignored_names;
+        const char *nm = names[c][0] ? names[c] : "(no name)";
+        if (used + strlen(nm) + 6 < cap)
+            snprintf(buf + used, cap - used, "%s%s", used ? ", " : "", nm);
+        else if (used >= 3 && used + 5 < cap && strcmp(buf + used - 3, "...") != 0)
+            snprintf(buf + used, cap - used, ", ...");
+    }
 
     r->s = series_new(r->slot_col[SLOT_I] >= 0, r->slot_col[SLOT_TEMP] >= 0, r->ncells);
     if (!r->s) {
@@ -451,6 +468,37 @@ cleanup:
 
 /* ---- records ---------------------------------------------------------- */
 
+/* A time of day "HH:MM:SS" or "HH:MM:SS.fff" (a '.' or ',' before the
+ * fraction): seconds since midnight, or -1. */
+static double clock_seconds(const char *f, size_t len)
+{
+    size_t k = 0;
+    while (k < len && f[k] == ' ')
+        k++;
+    int part[3] = {0, 0, 0};
+    for (int p = 0; p < 3; p++) {
+        if (k + 2 > len || !isdigit((unsigned char)f[k]) || !isdigit((unsigned char)f[k + 1]))
+            return -1;
+        part[p] = (f[k] - '0') * 10 + (f[k + 1] - '0');
+        k += 2;
+        if (p < 2 && (k >= len || f[k++] != ':'))
+            return -1;
+    }
+    if (part[0] > 23 || part[1] > 59 || part[2] > 60)
+        return -1;
+    double frac = 0.0, scale = 0.1;
+    if (k < len && (f[k] == '.' || f[k] == ',')) {
+        k++;
+        if (k >= len || !isdigit((unsigned char)f[k]))
+            return -1;
+        for (; k < len && isdigit((unsigned char)f[k]); k++, scale *= 0.1)
+            frac += (f[k] - '0') * scale;
+    }
+    while (k < len && f[k] == ' ')
+        k++;
+    return k == len ? part[0] * 3600.0 + part[1] * 60.0 + part[2] + frac : -1;
+}
+
 static void take_time(struct reader *r, const char *f, size_t len, int column)
 {
     double v = 0.0;
@@ -460,9 +508,34 @@ static void take_time(struct reader *r, const char *f, size_t len, int column)
             r->tmode = TM_NUMBER;
         else if (isotime_parse(f, len, &v, NULL) == 0)
             r->tmode = TM_ISO;
+        else if (clock_seconds(f, len) >= 0)
+            r->tmode = TM_CLOCK;
         else
             r->tmode = TM_NUMBER; /* reported as a bad number below */
         r->st->time_is_iso = r->tmode == TM_ISO;
+        r->st->time_is_clock = r->tmode == TM_CLOCK;
+    }
+    if (r->tmode == TM_CLOCK) {
+        double c = clock_seconds(f, len);
+        if (c < 0) {
+            size_t k = 0;
+            while (k < len && f[k] == ' ')
+                k++;
+            r->bad = k == len ? BAD_EMPTY : BAD_NUMBER;
+            r->bad_col = column;
+            return;
+        }
+        /* a clock that falls back by more than 12 h passed midnight (unless a
+         * date column says which day it is) */
+        c += r->clock_days * 86400.0;
+        if (r->clock_seen && c < r->clock_prev - 43200.0 && r->slot_col[SLOT_DATE] < 0) {
+            r->clock_days++;
+            c += 86400.0;
+        }
+        r->clock_seen = 1;
+        r->clock_prev = c;
+        r->val[SLOT_T] = c;
+        return;
     }
     if (r->tmode == TM_ISO) {
         if (isotime_parse(f, len, &v, NULL) != 0) {
@@ -528,6 +601,19 @@ static void take_field(struct reader *r, const char *f, size_t len, size_t start
         return;
     if (slot == SLOT_T) {
         take_time(r, f, len, col + 1);
+        return;
+    }
+    if (slot == SLOT_DATE) {
+        double d;
+        if (isotime_parse(f, len, &d, NULL) == 0) {
+            r->val[SLOT_DATE] = d;
+        } else {
+            size_t k = 0;
+            while (k < len && f[k] == ' ')
+                k++;
+            r->bad = k == len ? BAD_EMPTY : BAD_NUMBER;
+            r->bad_col = col + 1;
+        }
         return;
     }
     double v;
@@ -609,13 +695,16 @@ static void keep_sample(struct reader *r)
     struct logread_stats *st = r->st;
     struct series *s = r->s;
     double t = r->val[SLOT_T];
+    /* a date column and times of day make absolute times */
+    if (r->slot_col[SLOT_DATE] >= 0 && r->tmode == TM_CLOCK)
+        t += r->val[SLOT_DATE];
     if (s->n == 0) {
         r->t_first = t;
         /* numbers that only make sense as Unix time (years 2000..2099) */
         if (r->tmode == TM_ISO || r->spec[SLOT_T].time == TIME_EPOCH || (t >= 9.4e8 && t < 4.1e9)) {
             s->has_epoch = 1;
             s->start_epoch_s = t;
-            st->time_is_epoch = r->tmode != TM_ISO;
+            st->time_is_epoch = r->tmode != TM_ISO && r->tmode != TM_CLOCK;
         } else if (t >= 9.4e11 && t < 4.1e12 && r->spec[SLOT_T].time == TIME_AUTO) {
             /* epoch milliseconds in a column without a unit */
             r->t_scale = 1e-3;

@@ -81,7 +81,10 @@ struct logread_stats {
     int time_is_epoch;
     int time_unit_given; /* the time column's name (or --columns/--map) carried a unit */
     int ignored_columns;
-    int sign_flipped; /* auto-detected discharge-negative and flipped */
+    char ignored_names[512]; /* the ignored columns' names, ", "-separated ("..." when cut) */
+    int time_is_clock;       /* times of day (HH:MM:SS): relative, across midnight */
+    int date_column;         /* 1-based column of dates joined to the times of day, 0 = none */
+    int sign_flipped;        /* auto-detected discharge-negative and flipped */
     int voltage_from_cells;
     struct logread_event bad_number;     /* text where a number was due: sample dropped */
     struct logread_event nonfinite;      /* nan/inf/overflow: sample dropped */

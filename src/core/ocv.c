@@ -1,6 +1,7 @@
 #include "ocv.h"
 
 #include <string.h>
+#include <strings.h>
 
 /* LiPo (LiCoO2-type pouch, 4.20 V charged). Source: from memory, the
  * resting-voltage chart widely used in hobby and commercial multirotor
@@ -53,7 +54,7 @@ const struct chem_info *ocv_chem(enum chemistry id)
 const struct chem_info *ocv_chem_by_name(const char *name)
 {
     for (int k = 0; k < CHEM_COUNT; k++)
-        if (strcmp(chems[k].name, name) == 0)
+        if (strcasecmp(chems[k].name, name) == 0)
             return &chems[k];
     return NULL;
 }

@@ -33,7 +33,7 @@ struct chem_info {
 /* Table for a chemistry; NULL for an unknown id. */
 const struct chem_info *ocv_chem(enum chemistry id);
 
-/* Chemistry by option name; NULL when unknown. */
+/* Chemistry by option name, in any case (LiPo, LIPO, lipo); NULL when unknown. */
 const struct chem_info *ocv_chem_by_name(const char *name);
 
 /* SoC (%) for a per-cell OCV, clamped to 0..100; *clamped set when the

@@ -11,8 +11,8 @@ void predict_opts_default(struct predict_opts *o)
 {
     memset(o, 0, sizeof *o);
     o->soc0_pct = 100.0;
-    o->reserve_pct = 30.0; /* a common-practice landing reserve */
-    o->floor_v = NAN;      /* chemistry default */
+    o->reserve_pct = PREDICT_RESERVE_PCT;
+    o->floor_v = NAN; /* chemistry default */
     o->temp_c = NAN;
     /* from memory: Li-ion resistance activation energies are quoted at
      * 20-50 kJ/mol; 30 kJ/mol is a middle value */

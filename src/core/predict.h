@@ -62,6 +62,12 @@ struct predict_run {
     double soc_after_pct, v_after_v;                        /* state at stop_after_s, when asked */
 };
 
+/* The landing reserve by default, % SoC (common practice); a whole number so
+ * help texts can print it (PREDICT_STR). */
+#define PREDICT_RESERVE_PCT 30
+#define PREDICT_STR_(x) #x
+#define PREDICT_STR(x) PREDICT_STR_(x)
+
 void predict_opts_default(struct predict_opts *o);
 
 /* R0 scaled to temp_c by R(T) = Rref exp(Ea/R (1/T - 1/Tref)). */

@@ -1014,3 +1014,19 @@ static int plot_axes_json(const char *path, const struct plot *p, const struct p
     json_decref(root);
     return rc == 0 ? 0 : -1;
 }
+
+void plot_ohm_text(const char *t, char *buf, size_t cap)
+{
+    size_t used = 0;
+    while (*t && used + 4 < cap) {
+        if (strncmp(t, "mOhm", 4) == 0) {
+            memcpy(buf + used, "m\u03a9", 3);
+            used += 3;
+            t += 4;
+        } else {
+            buf[used++] = *t++;
+        }
+    }
+    if (cap)
+        buf[used < cap ? used : cap - 1] = '\0';
+}

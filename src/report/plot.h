@@ -189,4 +189,8 @@ void plot_margins(struct plot *p, const struct plot_panel *pa, size_t n, double 
 int plot_text_wrap(struct plot *p, double fx, double fy, double width_px, double size,
                    int max_lines, uint32_t rgb, const char *text);
 
+/* t with "mOhm" written "m\u03a9" into buf (cut to cap): figures draw the symbol
+ * whatever the terminal (reasons come from the core in plain ASCII). */
+void plot_ohm_text(const char *t, char *buf, size_t cap);
+
 #endif

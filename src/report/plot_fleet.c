@@ -34,6 +34,39 @@ struct box {
     double x0, y0, x1, y1;
 };
 
+/* "TM-04 · imbalance 44 mV, cell 3": the pack and, briefly, the rules at or past
+ * their watch level, so a pack flagged for what neither axis shows (cell
+ * imbalance, over-discharges) says why where it sits. */
+static void flag_label(const struct pack_view *v, const struct health_rules *r, char *buf,
+                       size_t cap)
+{
+    const struct pack_health *h = &v->health;
+    size_t used = (size_t)snprintf(buf, cap, "%s", v->pack.label);
+    const char *sep = " \u00b7 ";
+#define ADD(...)                                                                                   \
+    do {                                                                                           \
+        if (used < cap)                                                                            \
+            used += (size_t)snprintf(buf + used, cap - used, "%s", sep);                           \
+        if (used < cap)                                                                            \
+            used += (size_t)snprintf(buf + used, cap - used, __VA_ARGS__);                         \
+        sep = ", ";                                                                                \
+    } while (0)
+    if (isfinite(h->capacity_pct) && h->capacity_pct <= r->watch_capacity_pct)
+        ADD("capacity %.0f %%", h->capacity_pct);
+    if (h->flights > (size_t)r->baseline_flights && isfinite(h->r0_ratio) &&
+        h->r0_ratio >= r->watch_r0_ratio)
+        ADD("IR %.2f\u00d7", h->r0_ratio);
+    if (isfinite(h->spread_mv) && h->spread_mv >= r->watch_spread_mv) {
+        if (h->weakest_cell)
+            ADD("imbalance %.0f mV, cell %d", h->spread_mv, h->weakest_cell);
+        else
+            ADD("imbalance %.0f mV", h->spread_mv);
+    }
+    if (h->overdischarges >= r->watch_overdischarge)
+        ADD("%d over-discharge%s", h->overdischarges, h->overdischarges == 1 ? "" : "s");
+#undef ADD
+}
+
 static int overlaps(const struct box *a, const struct box *b)
 {
     return a->x0 < b->x1 && b->x0 < a->x1 && a->y0 < b->y1 && b->y0 < a->y1;
@@ -85,7 +118,7 @@ enum pb_code plot_fleet(const char *path, const struct plot_opts *o, const struc
     snprintf(pa.name, sizeof pa.name, "fleet");
     snprintf(pa.y.label, sizeof pa.y.label, "capacity (%% of rated, median of recent flights)");
     snprintf(pa.x.label, sizeof pa.x.label,
-             "R0 change from the pack's baseline (%%, median of recent vs first flights)");
+             "IR (R0) change from the pack's baseline (%%, median of recent vs first flights)");
     char ktext[S_COUNT][48];
     struct plot_key keys[S_COUNT + 2];
     size_t nk = 0;
@@ -178,7 +211,9 @@ enum pb_code plot_fleet(const char *path, const struct plot_opts *o, const struc
             if (!isfinite(xr) || !isfinite(yc))
                 continue;
             double fx = plot_px(&pa, xr), fy = plot_py(&pa, yc);
-            double tw = plot_text_width(p, v[k].pack.label, ls, 0);
+            char tag[256];
+            flag_label(&v[k], rules, tag, sizeof tag);
+            double tw = plot_text_width(p, tag, ls, 0);
             for (int t = 0; t < 8; t++) {
                 double bx = off[t][0] > 0 ? fx + r : off[t][0] < 0 ? fx - r - tw : fx - tw / 2;
                 double by = fy + off[t][1] * r + (off[t][1] >= 0 ? ls * 0.8 : 0);
@@ -189,7 +224,7 @@ enum pb_code plot_fleet(const char *path, const struct plot_opts *o, const struc
                 if (!ok)
                     continue;
                 used[nused++] = b;
-                plot_text(p, bx, by, 0, ls, 0, 0x111111u, v[k].pack.label);
+                plot_text(p, bx, by, 0, ls, 0, 0x111111u, tag);
                 break;
             }
         }
@@ -204,8 +239,9 @@ enum pb_code plot_fleet(const char *path, const struct plot_opts *o, const struc
         for (size_t k = 0; k < n; k++)
             if (status_of(&v[k]) == s) {
                 char item[sizeof v[k].pack.label + sizeof v[k].health.reason + 16];
-                snprintf(item, sizeof item, "%s (%s: %s)", v[k].pack.label, status_text[s],
-                         v[k].health.reason);
+                char why[sizeof v[k].health.reason];
+                plot_ohm_text(v[k].health.reason, why, sizeof why);
+                snprintf(item, sizeof item, "%s (%s: %s)", v[k].pack.label, status_text[s], why);
                 list_add(p, attn, sizeof attn, item, ts, avail * 2.6, &more_attn);
             }
     for (size_t k = 0; k < n; k++) {

@@ -13,7 +13,7 @@
 #define PACKBOOK_VERSION "0.0.0"
 #endif
 
-enum { P_VOLT = 0, P_CURRENT, P_SOC, P_CELLS, P_MAX };
+enum { P_VOLT = 0, P_CURRENT, P_SOC, P_CELLS, P_TEMP, P_MAX };
 
 /* Time under the floor is tinted, missing data hatched, in every panel. */
 static const struct plot_style tint = {PLOT_VERMILION, 1, DASH_SOLID, 0.16};
@@ -165,9 +165,34 @@ static void fmt_est(char *buf, size_t cap, const struct estimate *e, int min_dec
         snprintf(buf, cap, "%.*f %s", d, e->value, unit);
 }
 
-static void title_block(struct plot *p, const struct series *s, const struct analysis *a,
-                        double rated_mah, const struct plot_opts *o, const char *name,
-                        const struct spans *sp, double left, double right)
+/* Lines a title line takes: one when it fits at 80 % of its size or more
+ * (shrunk to fit, as before), else wrapped over up to three at 85 %, so
+ * small figures (480x360) stay readable. */
+static int block_lines(struct plot *p, const char *text, double size, double avail)
+{
+    if (plot_fit_size(p, text, size, 0, avail) >= 0.8 * size)
+        return 1;
+    int n = (int)ceil(plot_text_width(p, text, size * 0.85, 0) / avail * 1.15);
+    return n < 2 ? 2 : n > 3 ? 3 : n;
+}
+
+/* Draws a title line over lines (block_lines); returns the height used. */
+static double block_draw(struct plot *p, int draw, double x, double y, double avail, double size,
+                         uint32_t rgb, const char *text)
+{
+    int lines = block_lines(p, text, size, avail);
+    if (draw && lines == 1)
+        plot_text(p, x, y, 0, plot_fit_size(p, text, size, 0, avail), 0, rgb, text);
+    else if (draw)
+        plot_text_wrap(p, x, y, avail, size * 0.85, lines, rgb, text);
+    return (lines - 1) * size * 0.85 * 1.3;
+}
+
+/* The title block; draws nothing unless draw. Returns how much taller it is
+ * than its three-line height (wrapped lines on small figures). */
+static double title_block(struct plot *p, int draw, const struct series *s,
+                          const struct analysis *a, double rated_mah, const struct plot_opts *o,
+                          const char *name, const struct spans *sp, double left, double right)
 {
     double fs = plot_font(p), avail = right - left, y = fs * 1.7;
     char line[512], when[64] = "date not in log", r0[64], soc0[48], soc1[48];
@@ -181,8 +206,11 @@ static void title_block(struct plot *p, const struct series *s, const struct ana
     snprintf(line, sizeof line, "%s", o->title ? o->title : base);
     double ww = plot_text_width(p, when, fs * 1.05, 0);
     double ts = plot_fit_size(p, line, fs * 1.35, 1, avail - ww - fs * 2);
-    plot_text(p, left, y, 0, ts, 1, 0x111111u, line);
-    plot_text(p, right, y, 2, fs * 1.05, 0, 0x333333u, when);
+    if (draw) {
+        plot_text(p, left, y, 0, ts, 1, 0x111111u, line);
+        plot_text(p, right, y, 2, fs * 1.05, 0, 0x333333u, when);
+    }
+    double extra = 0.0;
 
     fmt_est(r0, sizeof r0, &a->r0_mohm, 1, "m\u03a9");
     fmt_est(soc0, sizeof soc0, &a->soc_start_pct, 0, "%");
@@ -201,10 +229,12 @@ static void title_block(struct plot *p, const struct series *s, const struct ana
                      100.0 * a->capacity_mah.value / rated_mah);
         snprintf(cap, sizeof cap, " \u00b7 capacity %s%s", c, pct);
     }
-    snprintf(line, sizeof line, "%s%s \u00b7 R0 %s%s \u00b7 SoC %s \u2192 %s%s", charge, energy, r0,
-             isfinite(a->r0_mohm.ci95) ? " (pack, 95 %)" : "", soc0, soc1, cap);
+    snprintf(line, sizeof line, "%s%s \u00b7 IR (R0) %s%s \u00b7 SoC %s \u2192 %s%s", charge,
+             energy, r0, isfinite(a->r0_mohm.ci95) ? " (pack, 95 %)" : "", soc0, soc1, cap);
     y += fs * 1.45;
-    plot_text(p, left, y, 0, plot_fit_size(p, line, fs, 0, avail), 0, 0x222222u, line);
+    double more = block_draw(p, draw, left, y, avail, fs, 0x222222u, line);
+    y += more;
+    extra += more;
 
     char cells[96] = "cell count unknown", minv[64] = "", spread[80] = "", floor_txt[96];
     if (a->cells > 0) {
@@ -217,15 +247,15 @@ static void title_block(struct plot *p, const struct series *s, const struct ana
     if (a->cells > 0 && isfinite(a->cell_min_loaded_v))
         snprintf(minv, sizeof minv, " \u00b7 lowest %.2f V/cell loaded", a->cell_min_loaded_v);
     if (a->weakest_cell > 0 && isfinite(a->spread_rest_mv))
-        snprintf(spread, sizeof spread, " \u00b7 cell spread %.0f mV at rest, weakest cell %d",
+        snprintf(spread, sizeof spread, " \u00b7 cell imbalance %.0f mV at rest, weakest cell %d",
                  a->spread_rest_mv, a->weakest_cell);
     if (a->cells <= 0)
         floor_txt[0] = '\0'; /* no floor without a cell count */
     else if (sp->floor_runs)
-        snprintf(floor_txt, sizeof floor_txt, " \u00b7 below floor %zu\u00d7, %.0f s",
+        snprintf(floor_txt, sizeof floor_txt, " \u00b7 under the cut-off %zu\u00d7, %.0f s",
                  sp->floor_runs, sp->floor_s);
     else
-        snprintf(floor_txt, sizeof floor_txt, " \u00b7 never below floor");
+        snprintf(floor_txt, sizeof floor_txt, " \u00b7 never under the cut-off");
     char gaps[64] = "";
     if (sp->gaps)
         snprintf(gaps, sizeof gaps, " \u00b7 %zu gap%s, %.0f s", sp->gaps, sp->gaps == 1 ? "" : "s",
@@ -237,7 +267,8 @@ static void title_block(struct plot *p, const struct series *s, const struct ana
     snprintf(line, sizeof line, "%s \u00b7 %zu sample%s, %.1f min%s%s%s%s%s", cells, s->n,
              s->n == 1 ? "" : "s", a->duration_s / 60.0, minv, floor_txt, gaps, spread, warns);
     y += fs * 1.3;
-    plot_text(p, left, y, 0, plot_fit_size(p, line, fs * 0.9, 0, avail), 0, 0x222222u, line);
+    extra += block_draw(p, draw, left, y, avail, fs * 0.9, 0x222222u, line);
+    return extra;
 }
 
 static void footer(struct plot *p, double left, double right)
@@ -292,6 +323,9 @@ enum pb_code plot_flight(const char *path, const struct plot_opts *o, const stru
     which[np++] = P_SOC;
     if (has_cells)
         which[np++] = P_CELLS;
+    int has_temp = a->has_temp && s->temp_c && isfinite(a->temp_max_c);
+    if (has_temp)
+        which[np++] = P_TEMP;
 
     /* legend keys per panel */
     static const struct plot_style st_v = {PLOT_BLUE, 1.3, DASH_SOLID, 0};
@@ -303,7 +337,9 @@ enum pb_code plot_flight(const char *path, const struct plot_opts *o, const stru
     static const struct plot_style st_socv = {PLOT_SKY, 1.7, DASH_LONG, 0};
     static const struct plot_style st_cell = {PLOT_GREY, 0.8, DASH_SOLID, 0};
     static const struct plot_style st_weak = {PLOT_VERMILION, 1.8, DASH_SOLID, 0};
-    char floor_key[64], weak_key[48];
+    static const struct plot_style st_temp = {PLOT_PURPLE, 1.3, DASH_SOLID, 0};
+    char floor_key[64], weak_key[48], reserve_key[48];
+    snprintf(reserve_key, sizeof reserve_key, "landing reserve %.0f %%", o->reserve_pct);
     double vlo = HUGE_VAL, vhi = -HUGE_VAL;
     range_of(s->v_v, s->n, &vlo, &vhi);
     range_col(&c, COL_OCV, &vlo, &vhi);
@@ -311,7 +347,7 @@ enum pb_code plot_flight(const char *path, const struct plot_opts *o, const stru
      * squash the trace into a line, so the key says where it is */
     int floor_shown = isfinite(floor_pack) && floor_pack >= vlo - 0.35 * fmax(vhi - vlo, 0.5);
     if (isfinite(floor_pack))
-        snprintf(floor_key, sizeof floor_key, "floor %.2f V/cell%s", a->floor_v,
+        snprintf(floor_key, sizeof floor_key, "cut-off %.2f V/cell%s", a->floor_v,
                  floor_shown ? "" : " (below the axis)");
     struct plot_key keys[P_MAX][6];
     size_t nkeys[P_MAX] = {0};
@@ -326,7 +362,7 @@ enum pb_code plot_flight(const char *path, const struct plot_opts *o, const stru
             if (isfinite(floor_pack))
                 k[(*nk)++] = (struct plot_key){floor_key, st_floor, -1, 0, 0};
             if (sp.floor_runs)
-                k[(*nk)++] = (struct plot_key){"below floor", tint, -1, 0, 1};
+                k[(*nk)++] = (struct plot_key){"under cut-off", tint, -1, 0, 1};
             if (sp.gaps)
                 k[(*nk)++] = (struct plot_key){"no data", hatch, -1, 0, 2};
             break;
@@ -340,6 +376,8 @@ enum pb_code plot_flight(const char *path, const struct plot_opts *o, const stru
             if (has_soc_ocv)
                 k[(*nk)++] = (struct plot_key){has_ocv ? "from OCV" : "from loaded voltage",
                                                st_socv, -1, 0, 0};
+            if (o->reserve_pct > 0)
+                k[(*nk)++] = (struct plot_key){reserve_key, st_floor, -1, 0, 0};
             break;
         case P_CELLS:
             k[(*nk)++] = (struct plot_key){"cells", st_cell, -1, 0, 0};
@@ -348,15 +386,22 @@ enum pb_code plot_flight(const char *path, const struct plot_opts *o, const stru
                 k[(*nk)++] = (struct plot_key){weak_key, st_weak, -1, 0, 0};
             }
             break;
+        case P_TEMP:
+            k[(*nk)++] = (struct plot_key){"pack temperature", st_temp, -1, 0, 0};
+            break;
         }
     }
 
     /* layout: margins estimated wide for the legend rows, then set from
      * the tick labels the panels actually need */
-    static const double weight_of[P_MAX] = {1.45, 1.0, 0.9, 1.0};
+    static const double weight_of[P_MAX] = {1.45, 1.0, 0.9, 1.0, 0.6};
     double weight[P_MAX];
     int rows[P_MAX];
     double top = fs * 5.4, bottom = h - fs * 4.6, left = fs * 6, right = w - fs * 6;
+    /* room for title lines wrapped on a small figure, measured a little
+     * narrower than the final margins can leave, so drawing never needs more */
+    double title_extra = title_block(p, 0, s, a, rated_mah, o, name, &sp, fs * 8, w - fs * 8);
+    top += title_extra;
     for (int j = 0; j < np; j++) {
         weight[j] = weight_of[which[j]];
         rows[j] = plot_legend_rows(p, right - left, keys[j], nkeys[j]);
@@ -410,6 +455,15 @@ enum pb_code plot_flight(const char *path, const struct plot_opts *o, const stru
             if (a->floor_v >= lo - 0.35 * fmax(hi - lo, 0.1))
                 lo = fmin(lo, a->floor_v);
             break;
+        case P_TEMP:
+            snprintf(q->name, sizeof q->name, "temp");
+            snprintf(q->y.label, sizeof q->y.label, "temperature (\u00b0C)");
+            range_of(s->temp_c, s->n, &lo, &hi);
+            if (!(hi - lo > 1.0)) { /* a steady temperature: a 2-degree window around it */
+                double mid = 0.5 * (lo + hi);
+                lo = mid - 1.0, hi = mid + 1.0;
+            }
+            break;
         }
         if (which[j] != P_SOC) {
             /* a round extreme would sit on the frame, half clipped */
@@ -433,7 +487,7 @@ enum pb_code plot_flight(const char *path, const struct plot_opts *o, const stru
         pa[j].x = xa;
     }
 
-    title_block(p, s, a, rated_mah, o, name, &sp, left, right);
+    (void)title_block(p, 1, s, a, rated_mah, o, name, &sp, left, right);
     for (int j = 0; j < np; j++) {
         struct plot_panel *q = &pa[j];
         shade(p, q, s, a, x_div);
@@ -451,6 +505,9 @@ enum pb_code plot_flight(const char *path, const struct plot_opts *o, const stru
             plot_line(p, q, 0, s->t_s, s->i_a, s->n, x_div, a->gap_s, &st_i);
             break;
         case P_SOC:
+            /* the reserve under the traces: a limit, like the cut-off on the voltage */
+            if (o->reserve_pct > 0)
+                plot_hline(p, q, o->reserve_pct, &st_floor, NULL, 0);
             if (has_soc_ocv)
                 draw_col(p, q, 0, s, a, rated_mah, scratch, COL_SOC_OCV, x_div, &st_socv);
             if (has_soc_cc)
@@ -465,16 +522,21 @@ enum pb_code plot_flight(const char *path, const struct plot_opts *o, const stru
                 plot_line(p, q, 0, s->t_s, s->cell_v[a->weakest_cell - 1], s->n, x_div, a->gap_s,
                           &st_weak);
             break;
+        case P_TEMP:
+            plot_line(p, q, 0, s->t_s, s->temp_c, s->n, x_div, a->gap_s, &st_temp);
+            break;
         }
         if (s->n == 1) {
             /* a single sample draws no line: mark it */
             double y0 = which[j] == P_VOLT      ? s->v_v[0]
                         : which[j] == P_CURRENT ? s->i_a[0]
                         : which[j] == P_SOC     ? c.first[has_soc_cc ? COL_SOC_CC : COL_SOC_OCV]
+                        : which[j] == P_TEMP    ? s->temp_c[0]
                                                 : s->cell_v[0][0];
             const struct plot_style *ms = which[j] == P_VOLT      ? &st_v
                                           : which[j] == P_CURRENT ? &st_i
                                           : which[j] == P_SOC     ? (has_soc_cc ? &st_cc : &st_socv)
+                                          : which[j] == P_TEMP    ? &st_temp
                                                                   : &st_cell;
             plot_marker(p, q, s->t_s[0] / x_div, y0, MARK_CIRCLE, 1, ms);
         }

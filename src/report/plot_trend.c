@@ -105,7 +105,7 @@ enum pb_code plot_trend(const char *path, const struct plot_opts *o, const struc
     double x_now = n ? x[n - 1] : 0.0;
     double base_r0 = v->health.r0_base_mohm_cell;
     struct quantity qs[2] = {
-        {"R0", "m\u03a9/cell", r0, &v->trend.r0, base_r0 * rules->watch_r0_ratio},
+        {"IR (R0)", "m\u03a9/cell", r0, &v->trend.r0, base_r0 * rules->watch_r0_ratio},
         {"capacity", "% of rated", cap, &v->trend.capacity, rules->watch_capacity_pct},
     };
 
@@ -127,6 +127,7 @@ enum pb_code plot_trend(const char *path, const struct plot_opts *o, const struc
     static const struct plot_style st_bucket = {PLOT_BLACK, 1.25, DASH_SOLID, 0};
     static const struct plot_style st_line = {PLOT_BLACK, 1.4, DASH_SOLID, 0};
     static const struct plot_style st_band = {PLOT_SKY, 1, DASH_SOLID, 0.35};
+    static const struct plot_style st_pband = {PLOT_SKY, 1, DASH_SOLID, 0.14};
     static const struct plot_style st_retire = {PLOT_VERMILION, 1.4, DASH_LONG, 0};
     static const struct plot_style st_watch = {PLOT_ORANGE, 1.3, DASH_DOT, 0};
     static const struct plot_style st_cross = {PLOT_VERMILION, 1.2, DASH_DOT, 0};
@@ -134,13 +135,14 @@ enum pb_code plot_trend(const char *path, const struct plot_opts *o, const struc
         v->trend.nbuckets && strchr(v->trend.buckets[0].key, 'W')            ? "weekly mean"
         : v->trend.nbuckets && strncmp(v->trend.buckets[0].key, "cycles", 6) ? "monthly mean"
                                                                              : "5-cycle mean";
-    struct plot_key keys[2][6];
+    struct plot_key keys[2][8];
     size_t nk[2] = {0, 0};
     for (int j = 0; j < 2; j++) {
         keys[j][nk[j]++] = (struct plot_key){"flight", st_pt[j], MARK_CIRCLE, 0, 0};
         keys[j][nk[j]++] = (struct plot_key){bucket_name, st_bucket, MARK_DIAMOND, 1, 0};
         keys[j][nk[j]++] = (struct plot_key){"fitted line", st_line, -1, 0, 0};
-        keys[j][nk[j]++] = (struct plot_key){"95 % band", st_band, -1, 0, 1};
+        keys[j][nk[j]++] = (struct plot_key){"95 % band of the line", st_band, -1, 0, 1};
+        keys[j][nk[j]++] = (struct plot_key){"95 % of flights expected", st_pband, -1, 0, 1};
         keys[j][nk[j]++] = (struct plot_key){"retire", st_retire, -1, 0, 0};
         keys[j][nk[j]++] = (struct plot_key){"watch", st_watch, -1, 0, 0};
     }
@@ -156,7 +158,7 @@ enum pb_code plot_trend(const char *path, const struct plot_opts *o, const struc
         const struct line_fit *l = by_date ? &tl->vs_days : &tl->vs_cycles;
         snprintf(pp->name, sizeof pp->name, "%s", j == 0 ? "r0" : "capacity");
         snprintf(pp->y.label, sizeof pp->y.label,
-                 j == 0 ? "R0 (m\u03a9 per cell)" : "capacity (%% of rated)");
+                 j == 0 ? "IR, R0 (m\u03a9 per cell)" : "capacity (%% of rated)");
         double ylo = HUGE_VAL, yhi = -HUGE_VAL;
         for (size_t k = 0; k < n; k++)
             if (isfinite(qs[j].y[k])) {
@@ -202,8 +204,8 @@ enum pb_code plot_trend(const char *path, const struct plot_opts *o, const struc
         pa[j].x = xa;
     }
 
-    /* slopes per 100 cycles (30 days), or per 10 (7) for a short history */
-    double per = by_date ? (x_now < 60 ? 7 : 30) : (x_now < 50 ? 10 : 100);
+    /* slopes per 10 cycles, the one unit of every view (per 7 or 30 days by date) */
+    double per = by_date ? (x_now < 60 ? 7 : 30) : 10;
     const struct chem_info *chem = ocv_chem_by_name(pk->chemistry);
     /* title block: the pack, then what each line says */
     char line[512], ln[2][320];
@@ -225,8 +227,9 @@ enum pb_code plot_trend(const char *path, const struct plot_opts *o, const struc
                   plot_fit_size(p, ln[j], fs * 0.9, 0, right - left), 0, 0x222222u, ln[j]);
     }
     if (v->health.status != HEALTH_OK && v->health.reason[0]) {
-        snprintf(line, sizeof line, "%s: %s", health_status_name(v->health.status),
-                 v->health.reason);
+        char why[sizeof v->health.reason + 16];
+        plot_ohm_text(v->health.reason, why, sizeof why);
+        snprintf(line, sizeof line, "%s: %s", health_status_name(v->health.status), why);
         plot_text(p, left, fs * 5.75, 0, plot_fit_size(p, line, fs * 0.9, 0, right - left), 0,
                   PLOT_VERMILION, line);
     }
@@ -254,9 +257,17 @@ enum pb_code plot_trend(const char *path, const struct plot_opts *o, const struc
         }
         if (l->ok) {
             double xa0 = x[0], xa1 = x_hi;
+            /* where the next flights are expected (prediction band), then the
+             * line's own uncertainty inside it */
             for (int k = 0; k < LINE_POINTS; k++) {
                 lx[k] = xa0 + (xa1 - xa0) * k / (LINE_POINTS - 1);
                 ly[k] = l->a + l->b * lx[k];
+                double hw = health_line_predict_band(l, lx[k]);
+                lo[k] = ly[k] - hw;
+                hi[k] = ly[k] + hw;
+            }
+            plot_band(p, pp, lx, lo, hi, LINE_POINTS, &st_pband);
+            for (int k = 0; k < LINE_POINTS; k++) {
                 double hw = health_line_band(l, lx[k]);
                 lo[k] = ly[k] - hw;
                 hi[k] = ly[k] + hw;

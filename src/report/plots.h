@@ -15,10 +15,12 @@ struct plot_opts {
     int width, height;     /* 0: the figure's default */
     const char *title;     /* NULL: the log's or pack's name */
     const char *axes_json; /* NULL: no axes map */
+    double reserve_pct;    /* flight: the landing reserve drawn on the SoC panel; 0: none */
 };
 
 /* Flight: voltage with the sag-corrected OCV, current and power, SoC by
- * counting and from the OCV, per-cell voltages; floor crossings and gaps
+ * counting and from the OCV with the landing reserve, per-cell voltages;
+ * cut-off crossings and gaps
  * shaded; a title block with the headline figures. name: the log's name. */
 enum pb_code plot_flight(const char *path, const struct plot_opts *o, const struct series *s,
                          const struct analysis *a, double rated_mah, const char *name,

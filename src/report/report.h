@@ -21,6 +21,19 @@ struct report_input {
 int report_analysis_json(FILE *out, const struct analysis *a, const struct report_input *in);
 int report_analysis_text(FILE *out, const struct analysis *a, const struct report_input *in);
 
+/* The milliohm symbol of text output: "mΩ" when set_utf8 was called with 1
+ * (main.c does when standard output is a UTF-8 terminal), else "mOhm".
+ * Figures always draw the Ω. JSON and CSV carry no units in values. */
+void report_set_utf8(int utf8);
+const char *report_mohm(void);
+
+/* s with every "mOhm" written as report_mohm() (into buf, cut to cap). */
+const char *report_units(const char *s, char *buf, size_t cap);
+
+/* A printf width for s that pads to `width` display columns although s
+ * may hold multi-byte UTF-8 characters. */
+int report_width(const char *s, int width);
+
 /* Chemistry tables, for `packbook chemistry`. */
 int report_chemistry_json(FILE *out);
 int report_chemistry_text(FILE *out);

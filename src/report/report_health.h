@@ -24,14 +24,28 @@ void pack_view_release(struct pack_view *v);
 
 enum fleet_format { FLEET_TEXT = 0, FLEET_JSON, FLEET_CSV };
 
-int report_pack_list(FILE *out, const struct pack_rec *p, size_t n, int json);
-int report_pack_show(FILE *out, const struct pack_view *v, int json);
+int report_pack_list(FILE *out, const struct pack_rec *p, size_t n, enum fleet_format fmt);
+/* A pack with its health and flights; CSV is its flights as 'flight list --csv'. */
+int report_pack_show(FILE *out, const struct pack_view *v, enum fleet_format fmt);
 /* safe: NULL, or per pack the conservative and median safe times in s
- * (safe[2k], safe[2k + 1]; NAN when no prediction was possible). */
+ * (safe[2k], safe[2k + 1]; NAN when no prediction was possible) to the
+ * landing reserve reserve_pct. */
 int report_fleet(FILE *out, const struct pack_view *v, size_t n, enum fleet_format fmt,
-                 const double *safe);
-int report_trend(FILE *out, const struct pack_view *v, enum trend_by by, double horizon, int json);
-int report_compare(FILE *out, const struct pack_view *v, size_t n, int json);
+                 const double *safe, double reserve_pct);
+/* The flights of the listing, each with its pack's label (labels[k]):
+ * id, date, file, duration, charge, R0, capacity, SoC, resting cell
+ * imbalance, time under the cut-off and warnings. */
+int report_flight_list(FILE *out, const struct flight_rec *f, const char *const *labels, size_t n,
+                       enum fleet_format fmt);
+/* Slopes against cycles are printed per this many cycles in every text view. */
+#define REPORT_SLOPE_CYCLES 10.0
+
+/* The trends of n packs: text one after another, CSV one table (a pack
+ * column; weeks or months without flights as empty rows, as in text), JSON
+ * one object for one pack, an array for several. */
+int report_trend(FILE *out, const struct pack_view *v, size_t n, enum trend_by by, double horizon,
+                 enum fleet_format fmt);
+int report_compare(FILE *out, const struct pack_view *v, size_t n, enum fleet_format fmt);
 
 /* A CSV cell that a spreadsheet would not run as a formula: cells that
  * begin with = + - @ (or tab/CR) get a leading apostrophe; quoted as needed. */

@@ -18,8 +18,18 @@ static json_t *input_obj(const struct report_input *in)
     const struct logread_stats *st = in->stats;
     size_t dropped = logread_dropped(st);
     char delim[2] = {st->delimiter, 0}, dec[2] = {st->decimal, 0};
-    const char *tf = st->time_is_iso ? "iso8601" : st->time_is_epoch ? "unix" : "relative";
-    return json_pack(
+    const char *tf = st->time_is_iso     ? "iso8601"
+                     : st->time_is_epoch ? "unix"
+                     : st->time_is_clock ? (st->date_column ? "date and clock" : "clock")
+                                         : "relative";
+    json_t *ignored = json_array();
+    for (const char *p = st->ignored_names; *p;) {
+        const char *end = strstr(p, ", ");
+        size_t len = end ? (size_t)(end - p) : strlen(p);
+        json_array_append_new(ignored, json_stringn(p, len));
+        p += len + (end ? 2 : 0);
+    }
+    json_t *o = json_pack(
         "{s:s, s:s, s:b, s:I, s:I, s:I, s:I, s:I, s:I, s:s, s:s, s:b, s:b}", "delimiter",
         strcmp(delim, "\t") == 0 ? "tab" : delim, "decimal", dec, "header", st->has_header,
         "header_line", (json_int_t)st->header_line, "lines", (json_int_t)st->lines, "records",
@@ -27,6 +37,8 @@ static json_t *input_obj(const struct report_input *in)
         "repaired", (json_int_t)st->temp_repaired.count, "time_format", tf, "current_sign",
         st->sign_flipped ? "flipped (logged discharge-negative)" : "as logged", "current_from_adc",
         st->current_is_raw, "voltage_from_cells", st->voltage_from_cells);
+    json_object_set_new(o, "ignored_columns", ignored);
+    return o;
 }
 
 static json_t *analysis_obj(const struct analysis *a, const struct report_input *in)

@@ -4,6 +4,7 @@
 #include <stdio.h>
 
 #include "jsonout.h"
+#include "report.h"
 
 static void mmss(char *buf, size_t cap, double s)
 {
@@ -68,11 +69,12 @@ int report_predict_text(FILE *out, const struct predict_inputs *in, const struct
 {
     char a[40], b[40];
     fprintf(out, "packbook prediction from %s\n", in->source);
-    fprintf(out, "  %-15s %dS %s, capacity %.0f +/- %.0f mAh%s, R0 %.2f +/- %.2f mOhm", "pack",
+    fprintf(out, "  %-15s %dS %s, capacity %.0f +/- %.0f mAh%s, R0 %.2f +/- %.2f %s", "pack",
             in->cells, in->chem->label, in->capacity_mah, in->capacity_sd_mah,
-            in->capacity_assumed ? " (rated, no estimate)" : "", in->r0_mohm, in->r0_sd_mohm);
+            in->capacity_assumed ? " (rated, no estimate)" : "", in->r0_mohm, in->r0_sd_mohm,
+            report_mohm());
     if (isfinite(in->r1_mohm) && isfinite(in->tau_s))
-        fprintf(out, ", RC %.2f mOhm / %.1f s", in->r1_mohm, in->tau_s);
+        fprintf(out, ", RC %.2f %s / %.1f s", in->r1_mohm, report_mohm(), in->tau_s);
     fprintf(out, "\n");
     if (isfinite(in->v_offset_v) && in->v_offset_v != 0.0)
         fprintf(
@@ -86,14 +88,16 @@ int report_predict_text(FILE *out, const struct predict_inputs *in, const struct
     else
         fprintf(out, "  %-15s a logged power profile of %.0f s, repeated\n", "load",
                 l->prof_period_s);
-    fprintf(out, "  %-15s SoC %.0f %% at the start, landing reserve %.0f %%, floor %.2f V/cell\n",
+    fprintf(out, "  %-15s SoC %.0f %% at the start, landing reserve %.0f %%, cut-off %.2f V/cell\n",
             "limits", o->soc0_pct, o->reserve_pct,
             isfinite(o->floor_v) ? o->floor_v : in->chem->floor_v);
     mmss(a, sizeof a, mc->t_p05_s);
     mmss(b, sizeof b, mc->t_median_s);
     fprintf(out, "  %-15s %s conservative (5th percentile of %d runs), %s median\n", "SAFE TIME", a,
             mc->runs, b);
-    fprintf(out, "  %-15s %s (%d of %d runs)\n", "binding limit", predict_limit_name(r->binding),
+    /* the JSON keeps the name "floor"; the text says what technicians call it */
+    fprintf(out, "  %-15s %s (%d of %d runs)\n", "binding limit",
+            r->binding == LIMIT_FLOOR ? "cut-off voltage" : predict_limit_name(r->binding),
             mc->binding_count[r->binding], mc->runs);
     fprintf(out, "  %-15s SoC %.0f %%, %.2f V loaded (%.3f V/cell), %.1f A\n", "at the limit",
             r->soc_at_stop_pct, r->v_at_stop_v, r->v_at_stop_v / in->cells, r->i_at_stop_a);
@@ -102,7 +106,7 @@ int report_predict_text(FILE *out, const struct predict_inputs *in, const struct
     mmss(c, sizeof c, r->t_floor_s);
     mmss(d, sizeof d, r->t_collapse_s);
     mmss(e, sizeof e, r->t_empty_s);
-    fprintf(out, "  %-15s reserve %s, floor %s, collapse %s, empty %s (nominal run)\n",
+    fprintf(out, "  %-15s reserve %s, cut-off %s, collapse %s, empty %s (nominal run)\n",
             "each limit", a, c, d, e);
     if (isfinite(r->soc_after_pct))
         fprintf(out, "  %-15s SoC %.1f %%, %.2f V loaded\n", "after --for", r->soc_after_pct,

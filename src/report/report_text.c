@@ -7,6 +7,45 @@
 
 #define KEY_W 16
 
+static int utf8_out;
+
+void report_set_utf8(int utf8)
+{
+    utf8_out = utf8;
+}
+
+const char *report_mohm(void)
+{
+    return utf8_out ? "m\u03a9" : "mOhm";
+}
+
+const char *report_units(const char *s, char *buf, size_t cap)
+{
+    size_t used = 0;
+    buf[0] = '\0';
+    while (*s && used + 1 < cap) {
+        if (strncmp(s, "mOhm", 4) == 0) {
+            int n = snprintf(buf + used, cap - used, "%s", report_mohm());
+            used += n > 0 ? (size_t)n : 0;
+            s += 4;
+        } else {
+            buf[used++] = *s++;
+            buf[used] = '\0';
+        }
+    }
+    if (used >= cap)
+        buf[cap - 1] = '\0';
+    return buf;
+}
+
+int report_width(const char *s, int width)
+{
+    int extra = 0;
+    for (const unsigned char *p = (const unsigned char *)s; *p; p++)
+        extra += (*p & 0xC0) == 0x80; /* continuation bytes take no column */
+    return width + extra;
+}
+
 static void key(FILE *out, const char *k)
 {
     fprintf(out, "  %-*s", KEY_W, k);
@@ -79,32 +118,34 @@ int report_analysis_text(FILE *out, const struct analysis *a, const struct repor
         fprintf(out, " (%.3f V/cell)", a->cell_min_loaded_v);
     fprintf(out, ", %.3f V at end\n", a->voltage_end_v);
     if (a->cells > 0) {
-        key(out, "below floor");
-        fprintf(out, "%.1f s under %.2f V/cell\n", a->time_below_floor_s, a->floor_v);
+        key(out, "cut-off");
+        fprintf(out, "%.1f s under the cut-off voltage %.2f V/cell\n", a->time_below_floor_s,
+                a->floor_v);
     }
     if (a->has_current) {
-        key(out, "resistance");
-        est(out, a->r0_mohm, "%.2f", "mOhm");
+        key(out, "IR");
+        est(out, a->r0_mohm, "%.2f", report_mohm());
         if (isfinite(a->r0_mohm.value)) {
             if (a->cells > 0)
-                fprintf(out, " (%.2f mOhm/cell)", a->r0_mohm.value / a->cells);
+                fprintf(out, " (%.2f %s/cell)", a->r0_mohm.value / a->cells, report_mohm());
             if (strcmp(a->r0_method, "steps") == 0)
-                fprintf(out, ", %zu current step%s over %.2g s", a->r_edge_steps,
-                        a->r_edge_steps == 1 ? "" : "s", a->r_edge_time_scale_s);
+                fprintf(out, ", internal resistance from %zu current step%s over %.2g s",
+                        a->r_edge_steps, a->r_edge_steps == 1 ? "" : "s", a->r_edge_time_scale_s);
             else
-                fprintf(out, ", %s model", strcmp(a->r0_method, "rc") == 0 ? "R0 + RC" : "R0-only");
+                fprintf(out, ", internal resistance: R0 of the %s model",
+                        strcmp(a->r0_method, "rc") == 0 ? "R0 + RC" : "R0-only");
         } else {
             fprintf(out, " (not identifiable)");
         }
         fprintf(out, "\n");
         if (isfinite(a->r0_model_mohm.value) && strcmp(a->r0_method, "steps") == 0) {
             key(out, "model R0");
-            est(out, a->r0_model_mohm, "%.2f", "mOhm");
+            est(out, a->r0_model_mohm, "%.2f", report_mohm());
             fprintf(out, ", %s model\n", isfinite(a->tau_s.value) ? "R0 + RC" : "R0-only");
         }
         if (isfinite(a->tau_s.value)) {
             key(out, "polarisation");
-            est(out, a->r1_mohm, "%.2f", "mOhm");
+            est(out, a->r1_mohm, "%.2f", report_mohm());
             fprintf(out, ", time constant %.2f s\n", a->tau_s.value);
         }
     }
@@ -138,7 +179,7 @@ int report_analysis_text(FILE *out, const struct analysis *a, const struct repor
         fprintf(out, "%.1f to %.1f degC\n", a->temp_min_c, a->temp_max_c);
     }
     if (a->ncells_detail > 0) {
-        key(out, "cell spread");
+        key(out, "cell imbalance");
         if (isfinite(a->spread_rest_start_mv))
             fprintf(out, "%.0f mV at rest before take-off", a->spread_rest_start_mv);
         if (isfinite(a->spread_rest_start_mv) && isfinite(a->spread_rest_end_mv))
@@ -150,7 +191,10 @@ int report_analysis_text(FILE *out, const struct analysis *a, const struct repor
         if (isfinite(a->spread_load_mv))
             fprintf(out, ", up to %.0f mV under load", a->spread_load_mv);
         fprintf(out, "; weakest cell %d\n", a->weakest_cell);
-        fprintf(out, "\n  %-6s %12s %18s %14s\n", "cell", "lowest V", "R0 mOhm", "rest V");
+        char h[32];
+        report_units("R0 mOhm", h, sizeof h);
+        fprintf(out, "\n  %-6s %12s %*s %14s\n", "cell", "lowest V", report_width(h, 18), h,
+                "rest V");
         for (int c = 0; c < a->ncells_detail; c++) {
             const struct cell_detail *d = &a->cell[c];
             char r0[40] = "unknown", rest[24] = "unknown";
@@ -166,6 +210,13 @@ int report_analysis_text(FILE *out, const struct analysis *a, const struct repor
     size_t dropped = logread_dropped(st);
     fprintf(out, "\n  read %zu records, kept %zu, dropped %zu, repaired %zu\n", st->records,
             st->kept, dropped, st->temp_repaired.count);
+    if (st->ignored_names[0])
+        fprintf(out, "  columns ignored: %s\n", st->ignored_names);
+    if (st->time_is_clock && st->date_column)
+        fprintf(out, "  dates and times of day from separate columns (%d and %d)\n",
+                st->date_column, st->time_column);
+    else if (st->time_is_clock)
+        fprintf(out, "  times of day read as a clock (relative; no date in the log)\n");
     if (a->nwarnings) {
         fprintf(out, "\nwarnings\n");
         for (size_t k = 0; k < a->nwarnings; k++)
@@ -181,7 +232,7 @@ int report_chemistry_text(FILE *out)
     for (int k = 0; k < CHEM_COUNT; k++) {
         const struct chem_info *c = ocv_chem((enum chemistry)k);
         fprintf(out, "%s (%s)\n  source: %s\n", c->name, c->label, c->source);
-        fprintf(out, "  floor %.2f V/cell loaded; full at rest >= %.2f V, empty <= %.2f V\n",
+        fprintf(out, "  cut-off %.2f V/cell under load; full at rest >= %.2f V, empty <= %.2f V\n",
                 c->floor_v, c->full_rest_v, c->empty_rest_v);
         fprintf(out, "  SoC %%  :");
         for (size_t j = 0; j < c->npoints; j++)

@@ -15,7 +15,7 @@
 #include "../core/pb_error.h"
 #include "../core/series.h"
 
-#define STORE_SCHEMA_VERSION 3
+#define STORE_SCHEMA_VERSION 5
 
 struct store;
 
@@ -31,6 +31,7 @@ struct pack_rec {
     char created_at[32];
     char retired_at[32]; /* "" while in service */
     char retire_reason[256];
+    char settings[1024]; /* reading options, "name=value" lines (packopts); "" when none */
 };
 
 struct flight_cell_rec {
@@ -43,6 +44,7 @@ struct flight_rec {
     int64_t id;
     int64_t pack_id;
     char content_hash[40];
+    char samples_hash[40]; /* of the parsed samples: "" when unknown (before schema 4) */
     char source[256];
     double flown_epoch_s;
     char date_source[16]; /* "log", "option" or "mtime" */
@@ -80,19 +82,49 @@ enum pb_code store_pack_retire(struct store *st, const char *label, const char *
                                struct pb_error *err);
 void store_packs_free(struct pack_rec *p);
 
-/* Stores a flight with its full JSON report. When a flight with the same
- * content hash exists, stores nothing and sets *duplicate (its pack's label
- * in dup_label, which may be NULL). Retries while another writer holds the
- * database, up to the busy timeout. */
-enum pb_code store_flight_put(struct store *st, const struct flight_rec *f, const char *report_json,
-                              int *duplicate, char *dup_label, size_t dup_cap,
+/* Pack by its row id (flights name their pack by id). */
+enum pb_code store_pack_by_id(struct store *st, int64_t id, struct pack_rec *out,
                               struct pb_error *err);
 
-/* Whether a flight with this content hash is stored (*found; its pack's
- * label in label, which may be NULL). Reads only: import asks before it
- * analyses, and store_flight_put still decides inside its transaction. */
+/* Replaces the registered facts of pack p->id (label, cells, parallel,
+ * chemistry, capacity, since, note, settings); retirement is left as it is. A label
+ * another pack has is a usage error. */
+enum pb_code store_pack_update(struct store *st, const struct pack_rec *p, struct pb_error *err);
+
+/* Returns a retired pack to service (clears retired_at and its reason). */
+enum pb_code store_pack_unretire(struct store *st, const char *label, struct pb_error *err);
+
+/* How many flights of pack_id were analysed with another cell count or
+ * chemistry than given (the "cells" and "chemistry" of their stored
+ * report); sets *n. */
+enum pb_code store_flights_analysed_otherwise(struct store *st, int64_t pack_id, int cells,
+                                              const char *chemistry, size_t *n,
+                                              struct pb_error *err);
+
+/* What store_flight_put found already stored. */
+enum store_dup_kind { DUP_NONE = 0, DUP_BYTES, DUP_SAMPLES };
+struct store_dup {
+    enum store_dup_kind kind; /* a flight with the same bytes or the same samples */
+    int64_t id;               /* that flight */
+    char label[128];          /* its pack */
+    int64_t near_id;          /* a flight of the same start time (from a log) and duration, or 0 */
+    char near_label[128];
+};
+
+/* Stores a flight with its full JSON report. When a flight with the same
+ * content hash or samples hash exists, stores nothing and says which in
+ * dup->kind. A flight that only starts at the same logged time and lasts as
+ * long (within 1 s) is stored, and named in dup->near_id. Retries while
+ * another writer holds the database, up to the busy timeout. */
+enum pb_code store_flight_put(struct store *st, const struct flight_rec *f, const char *report_json,
+                              struct store_dup *dup, struct pb_error *err);
+
+/* Whether a flight with this content hash is stored (*found; its id in *id
+ * and its pack's label in label, which may be NULL). Reads only: import
+ * asks before it analyses, and store_flight_put still decides inside its
+ * transaction. */
 enum pb_code store_flight_find_hash(struct store *st, const char *content_hash, int *found,
-                                    char *label, size_t cap, struct pb_error *err);
+                                    int64_t *id, char *label, size_t cap, struct pb_error *err);
 
 /* Flights of one pack, oldest first. */
 enum pb_code store_flights_of(struct store *st, int64_t pack_id, struct flight_rec **out, size_t *n,
@@ -103,6 +135,21 @@ void store_flights_free(struct flight_rec *f);
  * it); *out is NULL when there is no such flight. */
 enum pb_code store_flight_report(struct store *st, int64_t flight_id, char **out,
                                  struct pb_error *err);
+/* One flight by its id (without its cells); unknown id is a usage error. */
+enum pb_code store_flight_get(struct store *st, int64_t id, struct flight_rec *out,
+                              struct pb_error *err);
+
+/* The cell count and chemistry a stored flight was analysed with (from its
+ * report); cells 0 and chemistry "" when the report does not say. */
+enum pb_code store_flight_analysed_as(struct store *st, int64_t id, int *cells, char *chemistry,
+                                      size_t cap, struct pb_error *err);
+
+/* Deletes a flight and its cells (one transaction). */
+enum pb_code store_flight_remove(struct store *st, int64_t id, struct pb_error *err);
+
+/* Gives a flight to another pack. */
+enum pb_code store_flight_move(struct store *st, int64_t id, int64_t to_pack_id,
+                               struct pb_error *err);
 
 /* The default path: $PACKBOOK_DB, else $XDG_DATA_HOME/packbook/packbook.db,
  * else $HOME/.local/share/packbook/packbook.db. Writes into buf. */

@@ -67,6 +67,11 @@ static const char *const migrations[] = {
     "CREATE INDEX flights_by_pack_time ON flights(pack_id, flown_epoch_s);",
     /* 2 -> 3: mean power while loaded, the load for predictions */
     "ALTER TABLE flights ADD COLUMN power_cruise_w REAL;",
+    /* 3 -> 4: a hash of the parsed samples, so a re-exported log is known */
+    "ALTER TABLE flights ADD COLUMN samples_hash TEXT;"
+    "CREATE INDEX flights_by_samples ON flights(samples_hash);",
+    /* 4 -> 5: a pack's remembered reading options (cut-off, sense chain, map) */
+    "ALTER TABLE packs ADD COLUMN read_settings TEXT;",
 };
 
 /* Busy handler: short jittered sleeps, so a waiting writer gets its turn
@@ -256,6 +261,36 @@ void store_close(struct store *st)
     free(st);
 }
 
+/* Runs one statement with an id (and a second id when id2 >= 0) in its own
+ * transaction; *changed is the number of rows it changed. */
+static enum pb_code exec_by_id(struct store *st, const char *sql, int64_t id, int64_t id2,
+                               int *changed, const char *what, struct pb_error *err)
+{
+    sqlite3_stmt *s = NULL;
+    if (sqlite3_exec(st->db, "BEGIN IMMEDIATE", NULL, NULL, NULL) != SQLITE_OK)
+        return db_error(st, err, what);
+    int rc = sqlite3_prepare_v2(st->db, sql, -1, &s, NULL);
+    if (rc == SQLITE_OK) {
+        sqlite3_bind_int64(s, 1, id);
+        if (id2 >= 0)
+            sqlite3_bind_int64(s, 2, id2);
+        rc = sqlite3_step(s);
+    }
+    sqlite3_finalize(s);
+    if (rc != SQLITE_DONE) {
+        st->saved_code = sqlite3_extended_errcode(st->db);
+        snprintf(st->saved_msg, sizeof st->saved_msg, "%s", sqlite3_errmsg(st->db));
+        sqlite3_exec(st->db, "ROLLBACK", NULL, NULL, NULL);
+        return db_error(st, err, what);
+    }
+    *changed = sqlite3_changes(st->db);
+    if (sqlite3_exec(st->db, "COMMIT", NULL, NULL, NULL) != SQLITE_OK) {
+        sqlite3_exec(st->db, "ROLLBACK", NULL, NULL, NULL);
+        return db_error(st, err, what);
+    }
+    return PB_OK;
+}
+
 /* ---- packs ------------------------------------------------------------ */
 
 static void copy_text(char *dst, size_t cap, sqlite3_stmt *s, int col)
@@ -278,11 +313,12 @@ static void read_pack(sqlite3_stmt *s, struct pack_rec *p)
     copy_text(p->created_at, sizeof p->created_at, s, 8);
     copy_text(p->retired_at, sizeof p->retired_at, s, 9);
     copy_text(p->retire_reason, sizeof p->retire_reason, s, 10);
+    copy_text(p->settings, sizeof p->settings, s, 11);
 }
 
 #define PACK_COLS                                                                                  \
     "id, label, cells, parallel, chemistry, capacity_mah, since, note, created_at, "               \
-    "retired_at, retire_reason"
+    "retired_at, retire_reason, read_settings"
 
 static void bind_text_or_null(sqlite3_stmt *s, int i, const char *t)
 {
@@ -298,7 +334,8 @@ enum pb_code store_pack_add(struct store *st, struct pack_rec *p, struct pb_erro
     now_iso(p->created_at, sizeof p->created_at);
     if (sqlite3_prepare_v2(st->db,
                            "INSERT INTO packs (label, cells, parallel, chemistry, capacity_mah, "
-                           "since, note, created_at) VALUES (?, ?, ?, ?, ?, ?, ?, ?)",
+                           "since, note, created_at, read_settings) VALUES (?, ?, ?, ?, ?, ?, ?, "
+                           "?, ?)",
                            -1, &s, NULL) != SQLITE_OK)
         return db_error(st, err, "cannot add the pack");
     sqlite3_bind_text(s, 1, p->label, -1, SQLITE_TRANSIENT);
@@ -309,6 +346,7 @@ enum pb_code store_pack_add(struct store *st, struct pack_rec *p, struct pb_erro
     bind_text_or_null(s, 6, p->since);
     bind_text_or_null(s, 7, p->note);
     sqlite3_bind_text(s, 8, p->created_at, -1, SQLITE_TRANSIENT);
+    bind_text_or_null(s, 9, p->settings);
     int rc = sqlite3_step(s);
     sqlite3_finalize(s);
     if ((rc & 0xff) == SQLITE_CONSTRAINT)
@@ -405,6 +443,65 @@ enum pb_code store_pack_retire(struct store *st, const char *label, const char *
     return PB_OK;
 }
 
+enum pb_code store_pack_by_id(struct store *st, int64_t id, struct pack_rec *out,
+                              struct pb_error *err)
+{
+    sqlite3_stmt *s = NULL;
+    if (sqlite3_prepare_v2(st->db, "SELECT " PACK_COLS " FROM packs WHERE id = ?", -1, &s, NULL) !=
+        SQLITE_OK)
+        return db_error(st, err, "cannot read packs");
+    sqlite3_bind_int64(s, 1, id);
+    int rc = sqlite3_step(s);
+    if (rc == SQLITE_ROW)
+        read_pack(s, out);
+    sqlite3_finalize(s);
+    if (rc == SQLITE_DONE)
+        return pb_error_set(err, PB_ESTORE, "%s: a flight names pack row %lld, which is missing",
+                            st->path, (long long)id);
+    if (rc != SQLITE_ROW)
+        return db_error(st, err, "cannot read packs");
+    return PB_OK;
+}
+
+enum pb_code store_pack_update(struct store *st, const struct pack_rec *p, struct pb_error *err)
+{
+    sqlite3_stmt *s = NULL;
+    if (sqlite3_prepare_v2(st->db,
+                           "UPDATE packs SET label = ?, cells = ?, parallel = ?, chemistry = ?, "
+                           "capacity_mah = ?, since = ?, note = ?, read_settings = ? WHERE id = ?",
+                           -1, &s, NULL) != SQLITE_OK)
+        return db_error(st, err, "cannot change the pack");
+    sqlite3_bind_text(s, 1, p->label, -1, SQLITE_TRANSIENT);
+    sqlite3_bind_int(s, 2, p->cells);
+    sqlite3_bind_int(s, 3, p->parallel);
+    sqlite3_bind_text(s, 4, p->chemistry, -1, SQLITE_TRANSIENT);
+    sqlite3_bind_double(s, 5, p->capacity_mah);
+    bind_text_or_null(s, 6, p->since);
+    bind_text_or_null(s, 7, p->note);
+    bind_text_or_null(s, 8, p->settings);
+    sqlite3_bind_int64(s, 9, p->id);
+    int rc = sqlite3_step(s);
+    sqlite3_finalize(s);
+    if ((rc & 0xff) == SQLITE_CONSTRAINT)
+        return pb_error_set(err, PB_EUSAGE, "pack '%s' exists already", p->label);
+    if (rc != SQLITE_DONE)
+        return db_error(st, err, "cannot change the pack");
+    return PB_OK;
+}
+
+enum pb_code store_pack_unretire(struct store *st, const char *label, struct pb_error *err)
+{
+    struct pack_rec p;
+    enum pb_code code = store_pack_get(st, label, &p, err);
+    if (code != PB_OK)
+        return code;
+    if (!p.retired_at[0])
+        return pb_error_set(err, PB_EUSAGE, "pack '%s' is in service already", label);
+    int changed = 0;
+    return exec_by_id(st, "UPDATE packs SET retired_at = NULL, retire_reason = NULL WHERE id = ?",
+                      p.id, -1, &changed, "cannot return the pack to service", err);
+}
+
 /* ---- flights ---------------------------------------------------------- */
 
 static void bind_num(sqlite3_stmt *s, int i, double v)
@@ -425,38 +522,44 @@ static double col_num(sqlite3_stmt *s, int i)
     X(charge_used_mah)                                                                             \
     X(energy_used_wh)                                                                              \
     X(current_max_a)                                                                               \
-    X(current_mean_a) X(power_mean_w) X(voltage_min_v) X(cell_voltage_min_v) X(time_below_floor_s) \
-        X(r0_mohm) X(r0_ci95_mohm) X(r1_mohm) X(tau_s) X(soc_start_pct) X(soc_end_pct)             \
-            X(capacity_mah) X(capacity_ci95_mah) X(cell_spread_rest_mv) X(cell_spread_load_mv)     \
-                X(temperature_max_c) X(power_cruise_w)
+    X(current_mean_a)                                                                              \
+    X(power_mean_w)                                                                                \
+    X(voltage_min_v) X(cell_voltage_min_v) X(time_below_floor_s) X(r0_mohm) X(r0_ci95_mohm)        \
+        X(r1_mohm) X(tau_s) X(soc_start_pct) X(soc_end_pct) X(capacity_mah) X(capacity_ci95_mah)   \
+            X(cell_spread_rest_mv) X(cell_spread_load_mv) X(temperature_max_c) X(power_cruise_w)
 
 #define X(name) #name ", "
 static const char flight_num_cols[] = FLIGHT_NUMS;
 #undef X
 
 /* One attempt at storing a flight inside a transaction. */
-static int put_once(struct store *st, const struct flight_rec *f, const char *json, int *duplicate,
-                    char *dup_label, size_t dup_cap)
+static int put_once(struct store *st, const struct flight_rec *f, const char *json,
+                    struct store_dup *dup)
 {
     sqlite3_stmt *s = NULL;
+    memset(dup, 0, sizeof *dup);
     int rc = sqlite3_exec(st->db, "BEGIN IMMEDIATE", NULL, NULL, NULL);
     if (rc != SQLITE_OK) {
         st->saved_code = sqlite3_extended_errcode(st->db);
         snprintf(st->saved_msg, sizeof st->saved_msg, "%s", sqlite3_errmsg(st->db));
         return rc;
     }
+    /* the same bytes first, then the same samples under other bytes */
     rc = sqlite3_prepare_v2(st->db,
-                            "SELECT p.label FROM flights f JOIN packs p ON p.id = f.pack_id "
-                            "WHERE f.content_hash = ?",
+                            "SELECT f.id, p.label, f.content_hash = ?1 FROM flights f "
+                            "JOIN packs p ON p.id = f.pack_id "
+                            "WHERE f.content_hash = ?1 OR (?2 != '' AND f.samples_hash = ?2) "
+                            "ORDER BY f.content_hash = ?1 DESC LIMIT 1",
                             -1, &s, NULL);
     if (rc != SQLITE_OK)
         goto fail;
     sqlite3_bind_text(s, 1, f->content_hash, -1, SQLITE_TRANSIENT);
+    sqlite3_bind_text(s, 2, f->samples_hash, -1, SQLITE_TRANSIENT);
     rc = sqlite3_step(s);
     if (rc == SQLITE_ROW) {
-        *duplicate = 1;
-        if (dup_label)
-            copy_text(dup_label, dup_cap, s, 0);
+        dup->kind = sqlite3_column_int(s, 2) ? DUP_BYTES : DUP_SAMPLES;
+        dup->id = sqlite3_column_int64(s, 0);
+        copy_text(dup->label, sizeof dup->label, s, 1);
         sqlite3_finalize(s);
         sqlite3_exec(st->db, "ROLLBACK", NULL, NULL, NULL);
         return SQLITE_OK;
@@ -465,15 +568,37 @@ static int put_once(struct store *st, const struct flight_rec *f, const char *js
     s = NULL;
     if (rc != SQLITE_DONE)
         goto fail;
+    if (strcmp(f->date_source, "log") == 0) {
+        /* dates given by option or file time say nothing about sameness */
+        rc = sqlite3_prepare_v2(st->db,
+                                "SELECT f.id, p.label FROM flights f JOIN packs p ON "
+                                "p.id = f.pack_id WHERE f.date_source = 'log' AND "
+                                "abs(f.flown_epoch_s - ?1) <= 1 AND abs(f.duration_s - ?2) <= 1 "
+                                "ORDER BY f.id LIMIT 1",
+                                -1, &s, NULL);
+        if (rc != SQLITE_OK)
+            goto fail;
+        sqlite3_bind_double(s, 1, f->flown_epoch_s);
+        bind_num(s, 2, f->duration_s);
+        rc = sqlite3_step(s);
+        if (rc == SQLITE_ROW) {
+            dup->near_id = sqlite3_column_int64(s, 0);
+            copy_text(dup->near_label, sizeof dup->near_label, s, 1);
+        }
+        sqlite3_finalize(s);
+        s = NULL;
+        if (rc != SQLITE_ROW && rc != SQLITE_DONE)
+            goto fail;
+    }
 
     char sql[2048], when[40], now[40];
     int used = snprintf(sql, sizeof sql,
                         "INSERT INTO flights (pack_id, content_hash, source, flown_at, "
                         "flown_epoch_s, date_source, imported_at, weakest_cell, warnings, "
-                        "report_json, %.*s) VALUES (?",
+                        "report_json, samples_hash, %.*s) VALUES (?",
                         (int)strlen(flight_num_cols) - 2, flight_num_cols);
-    /* one placeholder per column: 10 named above plus the numeric ones */
-    int ncols = 10;
+    /* one placeholder per column: 11 named above plus the numeric ones */
+    int ncols = 11;
     for (const char *q = flight_num_cols; *q; q++)
         ncols += *q == ',';
     for (int k = 1; k < ncols; k++)
@@ -497,7 +622,8 @@ static int put_once(struct store *st, const struct flight_rec *f, const char *js
         sqlite3_bind_null(s, 8);
     sqlite3_bind_int(s, 9, f->warnings);
     sqlite3_bind_text(s, 10, json, -1, SQLITE_TRANSIENT);
-    int i = 11;
+    bind_text_or_null(s, 11, f->samples_hash);
+    int i = 12;
 #define X(name) bind_num(s, i++, f->name);
     FLIGHT_NUMS
 #undef X
@@ -543,12 +669,12 @@ fail:
 }
 
 enum pb_code store_flight_find_hash(struct store *st, const char *content_hash, int *found,
-                                    char *label, size_t cap, struct pb_error *err)
+                                    int64_t *id, char *label, size_t cap, struct pb_error *err)
 {
     sqlite3_stmt *s = NULL;
     *found = 0;
     if (sqlite3_prepare_v2(st->db,
-                           "SELECT p.label FROM flights f JOIN packs p ON p.id = f.pack_id "
+                           "SELECT f.id, p.label FROM flights f JOIN packs p ON p.id = f.pack_id "
                            "WHERE f.content_hash = ?",
                            -1, &s, NULL) != SQLITE_OK)
         return db_error(st, err, "cannot look up the flight");
@@ -556,8 +682,9 @@ enum pb_code store_flight_find_hash(struct store *st, const char *content_hash, 
     int rc = sqlite3_step(s);
     if (rc == SQLITE_ROW) {
         *found = 1;
+        *id = sqlite3_column_int64(s, 0);
         if (label)
-            copy_text(label, cap, s, 0);
+            copy_text(label, cap, s, 1);
     }
     sqlite3_finalize(s);
     if (rc != SQLITE_ROW && rc != SQLITE_DONE)
@@ -566,12 +693,11 @@ enum pb_code store_flight_find_hash(struct store *st, const char *content_hash, 
 }
 
 enum pb_code store_flight_put(struct store *st, const struct flight_rec *f, const char *report_json,
-                              int *duplicate, char *dup_label, size_t dup_cap, struct pb_error *err)
+                              struct store_dup *dup, struct pb_error *err)
 {
-    *duplicate = 0;
     for (int attempt = 0; attempt < BUSY_RETRIES; attempt++) {
         st->saved_code = 0;
-        int rc = put_once(st, f, report_json, duplicate, dup_label, dup_cap);
+        int rc = put_once(st, f, report_json, dup);
         if (rc == SQLITE_OK)
             return PB_OK;
         if ((rc & 0xff) != SQLITE_BUSY && (rc & 0xff) != SQLITE_LOCKED)
@@ -579,6 +705,27 @@ enum pb_code store_flight_put(struct store *st, const struct flight_rec *f, cons
         usleep(50000u * (unsigned)(attempt + 1));
     }
     return db_error(st, err, "cannot store the flight");
+}
+
+#define FLIGHT_HEAD_COLS                                                                           \
+    "id, pack_id, content_hash, source, flown_epoch_s, date_source, weakest_cell, warnings"
+
+/* A row of FLIGHT_HEAD_COLS then the numeric columns; cells are not read. */
+static void read_flight(sqlite3_stmt *s, struct flight_rec *f)
+{
+    memset(f, 0, sizeof *f);
+    f->id = sqlite3_column_int64(s, 0);
+    f->pack_id = sqlite3_column_int64(s, 1);
+    copy_text(f->content_hash, sizeof f->content_hash, s, 2);
+    copy_text(f->source, sizeof f->source, s, 3);
+    f->flown_epoch_s = sqlite3_column_double(s, 4);
+    copy_text(f->date_source, sizeof f->date_source, s, 5);
+    f->weakest_cell = sqlite3_column_int(s, 6);
+    f->warnings = sqlite3_column_int(s, 7);
+    int i = 8;
+#define X(name) f->name = col_num(s, i++);
+    FLIGHT_NUMS
+#undef X
 }
 
 enum pb_code store_flights_of(struct store *st, int64_t pack_id, struct flight_rec **out, size_t *n,
@@ -591,9 +738,8 @@ enum pb_code store_flights_of(struct store *st, int64_t pack_id, struct flight_r
     *out = NULL;
     *n = 0;
     snprintf(sql, sizeof sql,
-             "SELECT id, pack_id, content_hash, source, flown_epoch_s, date_source, weakest_cell, "
-             "warnings, %.*s FROM flights WHERE pack_id = ? ORDER BY flown_epoch_s, id",
-             (int)strlen(flight_num_cols) - 2, flight_num_cols);
+             "SELECT %s, %.*s FROM flights WHERE pack_id = ? ORDER BY flown_epoch_s, id",
+             FLIGHT_HEAD_COLS, (int)strlen(flight_num_cols) - 2, flight_num_cols);
     if (sqlite3_prepare_v2(st->db, sql, -1, &s, NULL) != SQLITE_OK ||
         sqlite3_prepare_v2(st->db,
                            "SELECT c.flight_id, c.cell, c.r0_mohm, c.voltage_min_v, "
@@ -616,19 +762,7 @@ enum pb_code store_flights_of(struct store *st, int64_t pack_id, struct flight_r
             v = nv;
         }
         struct flight_rec *f = &v[len++];
-        memset(f, 0, sizeof *f);
-        f->id = sqlite3_column_int64(s, 0);
-        f->pack_id = sqlite3_column_int64(s, 1);
-        copy_text(f->content_hash, sizeof f->content_hash, s, 2);
-        copy_text(f->source, sizeof f->source, s, 3);
-        f->flown_epoch_s = sqlite3_column_double(s, 4);
-        copy_text(f->date_source, sizeof f->date_source, s, 5);
-        f->weakest_cell = sqlite3_column_int(s, 6);
-        f->warnings = sqlite3_column_int(s, 7);
-        int i = 8;
-#define X(name) f->name = col_num(s, i++);
-        FLIGHT_NUMS
-#undef X
+        read_flight(s, f);
     }
     /* the cells of the whole pack in one query, in the flights' order */
     sqlite3_bind_int64(c, 1, pack_id);
@@ -685,5 +819,102 @@ enum pb_code store_flight_report(struct store *st, int64_t flight_id, char **out
         rc = db_error(st, err, "cannot read a flight's report");
     }
     sqlite3_finalize(s);
+    return rc;
+}
+
+enum pb_code store_flight_get(struct store *st, int64_t id, struct flight_rec *out,
+                              struct pb_error *err)
+{
+    char sql[2048];
+    sqlite3_stmt *s = NULL;
+    snprintf(sql, sizeof sql, "SELECT %s, %.*s FROM flights WHERE id = ?", FLIGHT_HEAD_COLS,
+             (int)strlen(flight_num_cols) - 2, flight_num_cols);
+    if (sqlite3_prepare_v2(st->db, sql, -1, &s, NULL) != SQLITE_OK)
+        return db_error(st, err, "cannot read flights");
+    sqlite3_bind_int64(s, 1, id);
+    int rc = sqlite3_step(s);
+    if (rc == SQLITE_ROW)
+        read_flight(s, out);
+    sqlite3_finalize(s);
+    if (rc == SQLITE_DONE)
+        return pb_error_set(err, PB_EUSAGE, "no flight %lld (see 'packbook flight list')",
+                            (long long)id);
+    if (rc != SQLITE_ROW)
+        return db_error(st, err, "cannot read flights");
+    return PB_OK;
+}
+
+enum pb_code store_flight_analysed_as(struct store *st, int64_t id, int *cells, char *chemistry,
+                                      size_t cap, struct pb_error *err)
+{
+    sqlite3_stmt *s = NULL;
+    *cells = 0;
+    chemistry[0] = '\0';
+    if (sqlite3_prepare_v2(st->db,
+                           "SELECT json_extract(report_json, '$.cells'), "
+                           "json_extract(report_json, '$.chemistry') FROM flights WHERE id = ?",
+                           -1, &s, NULL) != SQLITE_OK)
+        return db_error(st, err, "cannot read flights");
+    sqlite3_bind_int64(s, 1, id);
+    int rc = sqlite3_step(s);
+    if (rc == SQLITE_ROW) {
+        *cells = sqlite3_column_int(s, 0);
+        copy_text(chemistry, cap, s, 1);
+    }
+    sqlite3_finalize(s);
+    if (rc == SQLITE_DONE)
+        return pb_error_set(err, PB_EUSAGE, "no flight %lld (see 'packbook flight list')",
+                            (long long)id);
+    if (rc != SQLITE_ROW)
+        return db_error(st, err, "cannot read flights");
+    return PB_OK;
+}
+
+enum pb_code store_flights_analysed_otherwise(struct store *st, int64_t pack_id, int cells,
+                                              const char *chemistry, size_t *n,
+                                              struct pb_error *err)
+{
+    sqlite3_stmt *s = NULL;
+    /* a report that does not say (hand-made rows) counts as not contradicting */
+    if (sqlite3_prepare_v2(st->db,
+                           "SELECT count(*) FROM flights WHERE pack_id = ? AND ("
+                           "coalesce(json_extract(report_json, '$.cells'), ?2) != ?2 OR "
+                           "lower(coalesce(json_extract(report_json, '$.chemistry'), ?3)) "
+                           "!= lower(?3))",
+                           -1, &s, NULL) != SQLITE_OK)
+        return db_error(st, err, "cannot read flights");
+    sqlite3_bind_int64(s, 1, pack_id);
+    sqlite3_bind_int(s, 2, cells);
+    sqlite3_bind_text(s, 3, chemistry, -1, SQLITE_TRANSIENT);
+    int rc = sqlite3_step(s);
+    if (rc == SQLITE_ROW)
+        *n = (size_t)sqlite3_column_int64(s, 0);
+    sqlite3_finalize(s);
+    if (rc != SQLITE_ROW)
+        return db_error(st, err, "cannot read flights");
+    return PB_OK;
+}
+
+enum pb_code store_flight_remove(struct store *st, int64_t id, struct pb_error *err)
+{
+    int changed = 0;
+    /* flight_cells rows go with it (ON DELETE CASCADE, foreign keys on) */
+    enum pb_code rc = exec_by_id(st, "DELETE FROM flights WHERE id = ?", id, -1, &changed,
+                                 "cannot remove the flight", err);
+    if (rc == PB_OK && changed == 0)
+        return pb_error_set(err, PB_EUSAGE, "no flight %lld (see 'packbook flight list')",
+                            (long long)id);
+    return rc;
+}
+
+enum pb_code store_flight_move(struct store *st, int64_t id, int64_t to_pack_id,
+                               struct pb_error *err)
+{
+    int changed = 0;
+    enum pb_code rc = exec_by_id(st, "UPDATE flights SET pack_id = ?2 WHERE id = ?1", id,
+                                 to_pack_id, &changed, "cannot move the flight", err);
+    if (rc == PB_OK && changed == 0)
+        return pb_error_set(err, PB_EUSAGE, "no flight %lld (see 'packbook flight list')",
+                            (long long)id);
     return rc;
 }

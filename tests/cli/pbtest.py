@@ -16,6 +16,10 @@ PACKBOOK = os.environ.get("PACKBOOK") or os.path.join(ROOT, "build", "packbook")
 if os.sep in PACKBOOK:
     PACKBOOK = os.path.abspath(PACKBOOK)  # tests that change directory still find it
 PY = "/usr/bin/python3"  # Debian's, with numpy (the simulator needs it)
+# A settings file of the developer's (~/.config/packbook/config) must not change what the tests
+# see: point packbook at one that does not exist (test_config sets its own per run).
+os.environ["PACKBOOK_CONFIG"] = os.path.join(tempfile.gettempdir(), "pbtest-no-such-dir",
+                                             "config")
 PBSIM = os.path.join(ROOT, "scripts", "pbsim.py")  # the flight simulator with known truth
 
 

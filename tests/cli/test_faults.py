@@ -40,12 +40,16 @@ class DiskFull(unittest.TestCase):
         src = os.path.join(pbtest.ROOT, "samples", "tm07-plain.csv")
         logs = []
         tmp = tempfile.mkdtemp(prefix="pbfull-logs-")
-        for k in range(12):  # distinct content: a comment line each
+        for k in range(12):  # distinct samples: the last one's time moved k ms
             path = os.path.join(tmp, f"f{k:02d}.csv")
             with open(src) as f, open(path, "w") as g:
-                g.write(f.read() + f"# copy {k}\n")
+                lines = f.read().splitlines()
+                last = lines[-1].split(",")
+                last[0] = f"{float(last[0]) + 0.001 * k:.3f}"
+                g.write("\n".join(lines[:-1] + [",".join(last)]) + f"\n# copy {k}\n")
             logs.append(path)
-        rc, out, err = pbtest.run("import", "--pack", "TM-09", "--db", db, *logs)
+        rc, out, err = pbtest.run("import", "--pack", "TM-09", "--db", db, "--date", "2026-04-01",
+                                  *logs)
         print(f"  exit {rc}; {out.strip().splitlines()[-1]}; {err.strip()}")
         self.assertEqual(rc, 4, "the store error status")
         self.assertIn("disk full", err)

@@ -97,7 +97,7 @@ SAMPLE_OPTS = {
 # which panels each should get (plot --help: current only with current, cells only with cells)
 SAMPLE_PANELS = {
     "tm07-plain.csv": ["voltage", "current", "soc"],
-    "tm12-cells.csv": ["voltage", "current", "soc", "cells"],
+    "tm12-cells.csv": ["voltage", "current", "soc", "cells", "temp"],  # it logs temp_c
     "tm09-voltage-only.csv": ["voltage", "soc"],
     "tm03-adc.csv": ["voltage", "current", "soc"],
     "tm15-deep.csv": ["voltage", "current", "soc"],
@@ -697,6 +697,52 @@ class EdgeCases(FigureChecks, unittest.TestCase):
 
 
 # ---- 3. the voltage trace is where the map says, and nowhere else --------------------------
+
+class LandingReserve(FigureChecks, unittest.TestCase):
+    def test_reserve_on_the_soc_panel(self):
+        """The landing reserve (30 %, predict's default, common practice) is a vermilion line
+        across the SoC panel: every vermilion pixel inside that panel lies within 2 px of the
+        row the axes map puts 30 % at, and the line spans most of the panel's width."""
+        with tempfile.TemporaryDirectory() as d:
+            out, amap = os.path.join(d, "r.png"), os.path.join(d, "r.json")
+            log = os.path.join(ROOT, "samples", "tm07-plain.csv")
+            self.plot(log, "--cells", 4, "--chemistry", "lipo", "--capacity", 5000, "-o", out,
+                      "--axes-json", amap)
+            m = axes_map(amap)
+            pan = panel(m, "soc")
+            _, y30 = to_px(pan, 0, 30.0)
+            red = interior(colour_mask(load_rgb(out), VERMILION, NEAR), pan, SLACK)
+            rows, cols = np.nonzero(red)
+            self.assertGreater(len(rows), 0, "no reserve line")
+            rows = rows + int(math.ceil(pan["top"])) + SLACK
+            off = sorted({int(r) for r in rows if abs(r + 0.5 - y30) > 2})
+            self.assertEqual(off[:10], [], "vermilion off the 30 % row")
+            # a dotted line: its dots spread over at least 80 % of the panel's width
+            self.assertGreater(cols.max() - cols.min(), 0.8 * (pan["right"] - pan["left"] - 20))
+
+
+class TemperaturePanel(FigureChecks, unittest.TestCase):
+    def test_temperature_trace(self):
+        """samples/tm12-cells.csv logs temp_c: a 'temp' panel draws it in #CC79A7; every 25th
+        sample's (t, temperature) from the log has a pixel of that colour within 2 px of where
+        the axes map puts it (the log's own numbers are the reference)."""
+        log = os.path.join(ROOT, "samples", "tm12-cells.csv")
+        with open(log) as f:
+            rows = list(csv.DictReader(line for line in f if not line.startswith("#")))
+        with tempfile.TemporaryDirectory() as d:
+            out, amap = os.path.join(d, "t.png"), os.path.join(d, "t.json")
+            self.plot(log, "--chemistry", "lihv", "--capacity", 4200, "-o", out, "--axes-json",
+                      amap)
+            m = axes_map(amap)
+            pan = panel(m, "temp")
+            div = seconds_per_unit(pan["x"]["label"])
+            purple = colour_mask(load_rgb(out), (0xCC, 0x79, 0xA7), NEAR)
+            t0 = float(rows[0]["time_s"])
+            for r in rows[::25]:
+                fx, fy = to_px(pan, (float(r["time_s"]) - t0) / div, float(r["temp_c"]))
+                self.assertTrue(near(purple, fx, fy, 2), f"no temperature at {r['time_s']} s")
+        # a log without temperature has no such panel (see SAMPLE_PANELS for tm07)
+
 
 class VoltageTrace(FigureChecks, unittest.TestCase):
     def check_trace(self, log, opts, t, v, min_checked):

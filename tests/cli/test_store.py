@@ -180,8 +180,9 @@ _cache = {}
 
 def cell_logs(n=40):
     """n distinct 4S cell-voltage logs (no absolute time), made cheaply: 8 simulated
-    flights (seeds SEED+1000..), each in n/8 variants told apart by a comment line,
-    which changes the content (and so the hash) but not the analysis."""
+    flights (seeds SEED+1000..), each in n/8 variants told apart by a comment line and
+    the last sample's time moved by a millisecond per variant, which changes the bytes and
+    the samples (so both hashes) but not the analysis to its printed precision."""
     key = ("cells", n)
     if key in _cache:
         return _cache[key]
@@ -195,9 +196,13 @@ def cell_logs(n=40):
                 "--rest-end-s", 40], None) for k in range(nbase)])
     for j in range(n):
         with open(os.path.join(base, f"b{j % nbase}.csv")) as f:
-            body = f.read()
+            lines = f.read().splitlines()
+        last = lines[-1].split(",")
+        last[0] = f"{float(last[0]) + 0.001 * (j // nbase):.3f}"
+        lines[-1] = ",".join(last)
         with open(os.path.join(d, f"sortie-{j:03d}.csv"), "w") as f:
-            f.write(f"# Tallowmere Survey Co-op, Brindle Fen, sortie {j}\n" + body)
+            f.write(f"# Tallowmere Survey Co-op, Brindle Fen, sortie {j}\n" + "\n".join(lines)
+                    + "\n")
     _cache[key] = d
     return d
 
@@ -384,7 +389,7 @@ class Reimport(unittest.TestCase):
         shutil.copyfile(a, other)
         rc, out, err = pb(db, "import", "--pack", "TM-01", other)
         self.assertEqual(rc, EXIT_OK, err)
-        self.assertIn("already imported for pack TM-01: " + other, out)
+        self.assertIn("already imported as flight 1 for pack TM-01 (same bytes): " + other, out)
         with open(a, "rb") as f:
             rc, out, err = pb(db, "import", "--pack", "TM-01", "-", stdin=f.read())
         self.assertEqual(rc, EXIT_OK, err)
@@ -392,16 +397,30 @@ class Reimport(unittest.TestCase):
         # claimed for another pack: still the same flight, not stored twice
         rc, out, err = pb(db, "import", "--pack", "TM-02", other)
         self.assertEqual(rc, EXIT_OK, err)
-        self.assertIn("already imported for pack TM-01", out)
+        self.assertIn("already imported as flight 1 for pack TM-01", out)
         self.assertEqual(query(db, "SELECT * FROM flights"), before)
 
-        # one byte more is another log
+        # one byte more (an empty line) is other bytes but the same samples: the same flight
         with open(other, "a") as f:
             f.write("\n")
         rc, out, err = pb(db, "import", "--pack", "TM-01", logs, other)
         self.assertEqual(rc, EXIT_OK, err)
+        self.assertIn("(same samples): " + other, out)
+        self.assertIn("0 imported, 2 already there, 0 failed", out)
+        # one sample's voltage changed by 1 mV is another log
+        with open(a) as f:
+            lines = f.read().splitlines()
+        row = lines[-1].split(",")
+        row[1] = f"{float(row[1]) + 0.001:.3f}"
+        lines[-1] = ",".join(row)
+        with open(other, "w") as f:
+            f.write("\n".join(lines) + "\n")
+        rc, out, err = pb(db, "import", "--pack", "TM-01", logs, other)
+        self.assertEqual(rc, EXIT_OK, err)
         self.assertIn("1 imported, 1 already there, 0 failed", out)
         self.assertEqual(scalar(db, "SELECT count(*) FROM flights"), 2)
+        # it starts at the same logged time and lasts as long: stored, with a warning
+        self.assertIn("starts at the same time and lasts as long as flight", err)
 
 
 class Concurrency(unittest.TestCase):

@@ -133,6 +133,30 @@ static void test_constant_current_not_identifiable(void **state)
     series_free(s);
 }
 
+/* Time under the cut-off counts only while loaded: 1S LiPo, 10 A at 3.2 V
+ * (below the 3.30 V cut-off) for samples 20..29 (10 intervals of 1 s, the
+ * last one ending at rest), then 60 s at rest at 3.25 V, also below the
+ * cut-off but not over-discharging anything (issue 12; arithmetic). */
+static void test_cutoff_time_only_under_load(void **state)
+{
+    (void)state;
+    struct series *s = series_new(1, 0, 0);
+    for (size_t k = 0; k < 90; k++) {
+        assert_int_equal(series_reserve_one(s), 0);
+        s->t_s[k] = (double)k;
+        int loaded = k < 30;
+        s->i_a[k] = loaded ? 10.0 : 0.0;
+        s->v_v[k] = k < 20 ? 3.6 : (loaded ? 3.2 : 3.25);
+        s->n = k + 1;
+    }
+    struct analyze_opts o = {.cells = 1, .chemistry = CHEM_LIPO, .capacity_mah = 5000};
+    struct analysis *a = run(s, o);
+    check_close(a->time_below_floor_s, 10.0, 1e-9, "10 loaded seconds below the cut-off");
+    assert_true(has_warning(a, "below_floor"));
+    analysis_free(a);
+    series_free(s);
+}
+
 static void test_voltage_only(void **state)
 {
     (void)state;
@@ -187,6 +211,7 @@ int main(void)
         cmocka_unit_test(test_exact_static_model),
         cmocka_unit_test(test_constant_current_not_identifiable),
         cmocka_unit_test(test_voltage_only),
+        cmocka_unit_test(test_cutoff_time_only_under_load),
         cmocka_unit_test(test_few_samples_soc_from_loaded_voltage),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);

@@ -135,6 +135,35 @@ static void test_rules(void **state)
     assert_int_equal(h.status, HEALTH_WATCH);
 }
 
+static void test_weakest_cell(void **state)
+{
+    (void)state;
+    /* the cell named most often by the last recent_flights (5) flights that name one; a tie
+     * goes to the most recent; flights without cell columns (0) are passed over */
+    struct health_rules r;
+    health_rules_default(&r);
+    struct health_flight f[8];
+    static const int weak[8] = {1, 1, 1, 2, 0, 3, 2, 3};
+    for (int k = 0; k < 8; k++)
+        f[k] = (struct health_flight){.epoch_s = 1e9 + k * 86400.0,
+                                      .charge_mah = 1000,
+                                      .r0_mohm = 16,
+                                      .capacity_mah = NAN,
+                                      .spread_rest_mv = NAN,
+                                      .weakest_cell = weak[k]};
+    struct pack_health h;
+    health_assess(f, 8, 4, 5000, &r, &h);
+    /* last five naming one: 3, 2, 3, 2, 1 -> 3 and 2 twice each, 3 the most recent */
+    assert_int_equal(h.weakest_cell, 3);
+    assert_int_equal(h.weakest_count, 2);
+    assert_int_equal(h.weakest_of, 5);
+    for (int k = 0; k < 8; k++)
+        f[k].weakest_cell = 0;
+    health_assess(f, 8, 4, 5000, &r, &h);
+    assert_int_equal(h.weakest_cell, 0);
+    assert_int_equal(h.weakest_of, 0);
+}
+
 static void test_trend_buckets_iso_weeks(void **state)
 {
     (void)state;
@@ -219,6 +248,23 @@ static void test_only_valid_values(void **state)
     health_trend_release(&t);
 }
 
+static void test_prediction_band(void **state)
+{
+    (void)state;
+    /* numpy.linalg.lstsq and scipy.stats.t.ppf(0.975, 4) (Debian python3-numpy/scipy) on
+     * these six points: the 95 % half-widths of the mean and of a new point at x = 2.5 and
+     * x = 8 (beyond the data); relative 1e-6 */
+    const double x[6] = {0, 1, 2, 3, 4, 5}, y[6] = {1.0, 2.1, 2.9, 4.2, 4.8, 6.1};
+    struct line_fit l = health_line(x, y, 6, 1);
+    assert_true(l.ok);
+    check_rel(health_line_band(&l, 2.5), 0.18641376864717255, 1e-6, "mean, x 2.5");
+    check_rel(health_line_predict_band(&l, 2.5), 0.493204472798748, 1e-6, "new point, x 2.5");
+    check_rel(health_line_band(&l, 8.0), 0.6286161006577212, 1e-6, "mean, x 8");
+    check_rel(health_line_predict_band(&l, 8.0), 0.7769547997493599, 1e-6, "new point, x 8");
+    struct line_fit none = {0};
+    assert_true(isnan(health_line_predict_band(&none, 1.0)));
+}
+
 int main(void)
 {
     gsl_set_error_handler_off();
@@ -229,6 +275,8 @@ int main(void)
         cmocka_unit_test(test_crossing_directions),
         cmocka_unit_test(test_rules),
         cmocka_unit_test(test_only_valid_values),
+        cmocka_unit_test(test_weakest_cell),
+        cmocka_unit_test(test_prediction_band),
         cmocka_unit_test(test_trend_buckets_iso_weeks),
         cmocka_unit_test(test_trend_without_flights),
     };

@@ -506,6 +506,58 @@ static void test_fast_path_same_across_blocks(void **state)
     free(text);
 }
 
+static void test_clock_time_and_ignored_names(void **state)
+{
+    (void)state;
+    /* times of day across midnight: 23:59:59.500 to 00:00:00.250 is 0.75 s (arithmetic); the
+     * columns read as nothing are named, the one taken as a duplicate too */
+    const char *text = "Clock,Bat(V),Loop,Bat(A),Voltage\n"
+                       "23:59:59.500,16.80,1,0.1,1\n"
+                       "24:00:00,16.79,2,5.0,1\n" /* not a time of day: dropped, counted */
+                       "00:00:00.250,16.70,3,5.0,1\n"
+                       "00:00:01,16.60,4,5.0,1\n";
+    struct logread_opts o = {0};
+    struct logread_stats st;
+    struct pb_error err = {0};
+    struct series *s = read_text(text, &o, &st, &err);
+    assert_non_null(s);
+    assert_int_equal(st.time_is_clock, 1);
+    assert_int_equal(s->has_epoch, 0);
+    check_close(s->t_s[1], 0.75, 1e-9, "across midnight");
+    check_close(s->t_s[s->n - 1], 1.5, 1e-9, "00:00:01 is 1.5 s after 23:59:59.500");
+    assert_int_equal(st.bad_number.count, 1);
+    assert_int_equal(st.bad_number.first_line, 3);
+    assert_string_equal(st.ignored_names, "Loop, Voltage");
+    series_free(s);
+}
+
+static void test_date_and_time_columns(void **state)
+{
+    (void)state;
+    /* 2026-03-19T23:59:59.5Z is 1773964799.5 s after the epoch (Python's
+     * datetime(2026, 3, 19, 23, 59, 59, 500000, tzinfo=UTC).timestamp()); the date column
+     * carries the day over midnight, the time column the time of day */
+    const char *text = "Date;Time;Bat(V);Bat(A)\n"
+                       "2026-03-19;23:59:59.500;16.8;0.1\n"
+                       "2026-03-20;00:00:00.250;16.6;10\n"
+                       "2026-03-2x;00:00:00.500;16.6;10\n" /* not a date: dropped, counted */
+                       "2026-03-20;00:00:01;16.5;0.1\n";
+    struct logread_opts o = {0};
+    struct logread_stats st;
+    struct pb_error err = {0};
+    struct series *s = read_text(text, &o, &st, &err);
+    assert_non_null(s);
+    assert_int_equal(s->has_epoch, 1);
+    check_close(s->start_epoch_s, 1773964799.5, 1e-6, "date + time of day, UTC");
+    assert_int_equal(s->n, 3);
+    check_close(s->t_s[1], 0.75, 1e-9, "over midnight by the date");
+    check_close(s->t_s[2], 1.5, 1e-9, "last sample");
+    assert_int_equal(st.date_column, 1);
+    assert_int_equal(st.bad_number.count, 1);
+    assert_int_equal(st.bad_number.first_line, 4);
+    series_free(s);
+}
+
 int main(void)
 {
     const struct CMUnitTest tests[] = {
@@ -525,6 +577,8 @@ int main(void)
         cmocka_unit_test(test_field_too_long),
         cmocka_unit_test(test_fast_path_same_on_every_file),
         cmocka_unit_test(test_fast_path_same_across_blocks),
+        cmocka_unit_test(test_clock_time_and_ignored_names),
+        cmocka_unit_test(test_date_and_time_columns),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
 }

@@ -63,6 +63,18 @@ static void test_lipo_2s_full_empty(void **state)
     assert_true(ocv_to_soc(t, 7.48 / 2, NULL) <= 25.0);
 }
 
+static void test_names_in_any_case(void **state)
+{
+    (void)state;
+    /* the spellings technicians write: LiPo, LIHV, NMC, LFP */
+    assert_ptr_equal(ocv_chem_by_name("LiPo"), ocv_chem(CHEM_LIPO));
+    assert_ptr_equal(ocv_chem_by_name("LIHV"), ocv_chem(CHEM_LIHV));
+    assert_ptr_equal(ocv_chem_by_name("Nmc"), ocv_chem(CHEM_NMC));
+    assert_ptr_equal(ocv_chem_by_name("lfp"), ocv_chem(CHEM_LFP));
+    assert_null(ocv_chem_by_name("LiPo4"));
+    assert_null(ocv_chem_by_name("li"));
+}
+
 int main(void)
 {
     const struct CMUnitTest tests[] = {
@@ -70,6 +82,7 @@ int main(void)
         cmocka_unit_test(test_round_trip),
         cmocka_unit_test(test_clamp),
         cmocka_unit_test(test_lipo_2s_full_empty),
+        cmocka_unit_test(test_names_in_any_case),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
 }
