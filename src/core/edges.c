@@ -3,6 +3,7 @@
 #include <gsl/gsl_cdf.h>
 #include <math.h>
 #include <stdlib.h>
+#include <string.h>
 
 #include "fit.h"
 
@@ -75,10 +76,12 @@ void edges_estimate(const double *t_s, const double *v_v, const double *i_a, siz
     }
     double *r = malloc(cap * sizeof *r), *dt = malloc(cap * sizeof *dt);
     double *raw = malloc(cap * sizeof *raw);
-    if (!r || !dt || !raw) {
+    size_t *at = malloc(cap * sizeof *at);
+    if (!r || !dt || !raw || !at) {
         free(r);
         free(dt);
         free(raw);
+        free(at);
         out->reason = "out of memory";
         return;
     }
@@ -89,9 +92,6 @@ void edges_estimate(const double *t_s, const double *v_v, const double *i_a, siz
             continue;
         double span = t_s[k] - t_s[k - 1];
         int near_cutoff = o->cutoff_v > 0.0 && fmin(v_v[k], v_v[k - 1]) <= o->cutoff_v;
-        if (o->chem && o->cells > 0 &&
-            ocv_to_soc(o->chem, fmax(v_v[k], v_v[k - 1]) / o->cells, NULL) < EDGES_EMPTY_SOC_PCT)
-            near_cutoff = 1;
         if (span > o->gap_s || near_cutoff || (o->series && series_is_joint(o->series, k))) {
             out->left_out++;
             continue;
@@ -113,7 +113,31 @@ void edges_estimate(const double *t_s, const double *v_v, const double *i_a, siz
         r[m] = -1000.0 * (v_after - v_v[k - 1]) / di;
         raw[m] = -1000.0 * (v_v[k] - v_v[k - 1]) / di;
         dt[m] = span;
+        at[m] = k;
         m++;
+    }
+    /* near empty: the lighter-loaded side of the step, sag-corrected with the
+     * steps' own median, reads below EDGES_EMPTY_SOC_PCT on the table */
+    if (o->chem && o->cells > 0 && m > 0) {
+        double *tmp = malloc(m * sizeof *tmp);
+        if (tmp) {
+            memcpy(tmp, r, m * sizeof *tmp);
+            double r_ohm = fmax(fit_median(tmp, m), 0.0) / 1000.0;
+            free(tmp);
+            size_t w = 0;
+            for (size_t j = 0; j < m; j++) {
+                size_t k = at[j];
+                size_t lo = fabs(i_a[k]) < fabs(i_a[k - 1]) ? k : k - 1;
+                double ocv = (v_v[lo] + r_ohm * i_a[lo]) / o->cells;
+                if (ocv_to_soc(o->chem, ocv, NULL) < EDGES_EMPTY_SOC_PCT) {
+                    out->left_out++;
+                    continue;
+                }
+                r[w] = r[j], raw[w] = raw[j], dt[w] = dt[j], at[w] = at[j];
+                w++;
+            }
+            m = w;
+        }
     }
     out->steps = m;
     if (m == 0) {
@@ -121,6 +145,7 @@ void edges_estimate(const double *t_s, const double *v_v, const double *i_a, siz
         free(r);
         free(dt);
         free(raw);
+        free(at);
         return;
     }
     qsort(r, m, sizeof *r, cmp_double);
@@ -156,4 +181,5 @@ void edges_estimate(const double *t_s, const double *v_v, const double *i_a, siz
     free(r);
     free(dt);
     free(raw);
+    free(at);
 }

@@ -16,8 +16,9 @@
  *
  * Assumes: t_s strictly increasing, current positive when discharging,
  * voltages of the pack (or one cell). Steps with a voltage at or below the
- * cut-off on either side, or whose higher voltage (the lighter-loaded side)
- * reads below EDGES_EMPTY_SOC_PCT on the chemistry's table, are left out:
+ * cut-off on either side, or whose lighter-loaded side, sag-corrected with
+ * the steps' median resistance, reads below EDGES_EMPTY_SOC_PCT on the
+ * chemistry's table, are left out:
  * near empty the resistance rises steeply and would not compare with the
  * rest (common practice: DC-IR is quoted away from the discharge end). */
 #ifndef PB_EDGES_H
