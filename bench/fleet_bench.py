@@ -8,7 +8,8 @@ timed with their peak RSS. A report, not a gate: exit status 1 only when a comma
 The store is made by packbook itself (the schema, `pack add`, one real `import` so the
 report JSON is packbook's own), then filled by copying that flight's row with SQLite: every
 pack flies 1,000 flights a day apart with a capacity falling 0.02 % a flight and R0 rising,
-each flight with its 4 cells' rows and the imported flight's report JSON (about 2.5 KB).
+each flight with its 4 cells' rows and the imported flight's report JSON (about 2.5 KB: in
+flights.report_json up to schema 5, in flight_reports from schema 6).
 Copies differ in their content hash, date and figures, which is all the views read.
 """
 import argparse
@@ -61,7 +62,14 @@ def make_store(a, db, env):
     cell_cols = [r[1] for r in con.execute("PRAGMA table_info(flight_cells)")]
     pack_row = con.execute("SELECT * FROM packs").fetchone()
     pcols = [r[1] for r in con.execute("PRAGMA table_info(packs)")]
+    # schema 6 keeps the report JSON in flight_reports; before, in flights.report_json
+    has_reports = con.execute("SELECT count(*) FROM sqlite_master WHERE name = "
+                              "'flight_reports'").fetchone()[0] > 0
+    report = (con.execute("SELECT report_json FROM flight_reports").fetchone()[0]
+              if has_reports else None)
     con.execute("DELETE FROM flight_cells")
+    if has_reports:
+        con.execute("DELETE FROM flight_reports")
     con.execute("DELETE FROM flights")
     base = dict(zip(pcols, pack_row))
     for k in range(1, npacks):
@@ -73,8 +81,9 @@ def make_store(a, db, env):
     names = [c for c in cols if c != "id"]
     sql = f"INSERT INTO flights (id,{','.join(names)}) VALUES (?{',?' * len(names)})"
     csql = f"INSERT INTO flight_cells ({','.join(cell_cols)}) VALUES ({','.join('?' * len(cell_cols))})"
+    rsql = "INSERT INTO flight_reports (flight_id, report_json) VALUES (?, ?)"
     for pid in pack_ids:
-        rows, cells = [], []
+        rows, cells, reports = [], [], []
         for j in range(PER_PACK):
             fid += 1
             if fid > a.flights:
@@ -88,10 +97,13 @@ def make_store(a, db, env):
                 if r.get(key) is not None:
                     r[key] = r[key] * f
             rows.append([fid] + [r[c] for c in names])
+            if has_reports:
+                reports.append((fid, report))
             for c in range(1, 5):
                 cells.append([fid, c, 3.0 + 0.001 * j, 3.6, 3.9][:len(cell_cols)])
         con.executemany(sql, rows)
         con.executemany(csql, cells)
+        con.executemany(rsql, reports)
     con.commit()
     con.execute("PRAGMA wal_checkpoint(TRUNCATE)")  # the copies out of the WAL: half the disk
     con.close()

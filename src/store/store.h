@@ -15,7 +15,7 @@
 #include "../core/pb_error.h"
 #include "../core/series.h"
 
-#define STORE_SCHEMA_VERSION 5
+#define STORE_SCHEMA_VERSION 6
 
 struct store;
 

@@ -72,6 +72,13 @@ static const char *const migrations[] = {
     "CREATE INDEX flights_by_samples ON flights(samples_hash);",
     /* 4 -> 5: a pack's remembered reading options (cut-off, sense chain, map) */
     "ALTER TABLE packs ADD COLUMN read_settings TEXT;",
+    /* 5 -> 6: the report JSON (about 2.5 KB) out of the flights rows, which
+     * the history views read by the thousand, into a table of its own */
+    "CREATE TABLE flight_reports ("
+    "  flight_id INTEGER PRIMARY KEY REFERENCES flights(id) ON DELETE CASCADE,"
+    "  report_json TEXT NOT NULL);"
+    "INSERT INTO flight_reports (flight_id, report_json) SELECT id, report_json FROM flights;"
+    "ALTER TABLE flights DROP COLUMN report_json;",
 };
 
 /* Busy handler: short jittered sleeps, so a waiting writer gets its turn
@@ -524,8 +531,9 @@ static double col_num(sqlite3_stmt *s, int i)
     X(current_max_a)                                                                               \
     X(current_mean_a)                                                                              \
     X(power_mean_w)                                                                                \
-    X(voltage_min_v) X(cell_voltage_min_v) X(time_below_floor_s) X(r0_mohm) X(r0_ci95_mohm)        \
-        X(r1_mohm) X(tau_s) X(soc_start_pct) X(soc_end_pct) X(capacity_mah) X(capacity_ci95_mah)   \
+    X(voltage_min_v)                                                                               \
+    X(cell_voltage_min_v) X(time_below_floor_s) X(r0_mohm) X(r0_ci95_mohm) X(r1_mohm) X(tau_s)     \
+        X(soc_start_pct) X(soc_end_pct) X(capacity_mah) X(capacity_ci95_mah)                       \
             X(cell_spread_rest_mv) X(cell_spread_load_mv) X(temperature_max_c) X(power_cruise_w)
 
 #define X(name) #name ", "
@@ -595,10 +603,10 @@ static int put_once(struct store *st, const struct flight_rec *f, const char *js
     int used = snprintf(sql, sizeof sql,
                         "INSERT INTO flights (pack_id, content_hash, source, flown_at, "
                         "flown_epoch_s, date_source, imported_at, weakest_cell, warnings, "
-                        "report_json, samples_hash, %.*s) VALUES (?",
+                        "samples_hash, %.*s) VALUES (?",
                         (int)strlen(flight_num_cols) - 2, flight_num_cols);
-    /* one placeholder per column: 11 named above plus the numeric ones */
-    int ncols = 11;
+    /* one placeholder per column: 10 named above plus the numeric ones */
+    int ncols = 10;
     for (const char *q = flight_num_cols; *q; q++)
         ncols += *q == ',';
     for (int k = 1; k < ncols; k++)
@@ -621,9 +629,8 @@ static int put_once(struct store *st, const struct flight_rec *f, const char *js
     else
         sqlite3_bind_null(s, 8);
     sqlite3_bind_int(s, 9, f->warnings);
-    sqlite3_bind_text(s, 10, json, -1, SQLITE_TRANSIENT);
-    bind_text_or_null(s, 11, f->samples_hash);
-    int i = 12;
+    bind_text_or_null(s, 10, f->samples_hash);
+    int i = 11;
 #define X(name) bind_num(s, i++, f->name);
     FLIGHT_NUMS
 #undef X
@@ -633,6 +640,17 @@ static int put_once(struct store *st, const struct flight_rec *f, const char *js
     if (rc != SQLITE_DONE)
         goto fail;
     sqlite3_int64 fid = sqlite3_last_insert_rowid(st->db);
+    rc = sqlite3_prepare_v2(
+        st->db, "INSERT INTO flight_reports (flight_id, report_json) VALUES (?, ?)", -1, &s, NULL);
+    if (rc != SQLITE_OK)
+        goto fail;
+    sqlite3_bind_int64(s, 1, fid);
+    sqlite3_bind_text(s, 2, json, -1, SQLITE_TRANSIENT);
+    rc = sqlite3_step(s);
+    sqlite3_finalize(s);
+    s = NULL;
+    if (rc != SQLITE_DONE)
+        goto fail;
     rc = sqlite3_prepare_v2(st->db,
                             "INSERT INTO flight_cells (flight_id, cell, r0_mohm, voltage_min_v, "
                             "voltage_rest_v) VALUES (?, ?, ?, ?, ?)",
@@ -804,8 +822,8 @@ enum pb_code store_flight_report(struct store *st, int64_t flight_id, char **out
 {
     sqlite3_stmt *s = NULL;
     *out = NULL;
-    if (sqlite3_prepare_v2(st->db, "SELECT report_json FROM flights WHERE id = ?", -1, &s, NULL) !=
-        SQLITE_OK)
+    if (sqlite3_prepare_v2(st->db, "SELECT report_json FROM flight_reports WHERE flight_id = ?", -1,
+                           &s, NULL) != SQLITE_OK)
         return db_error(st, err, "cannot read a flight's report");
     sqlite3_bind_int64(s, 1, flight_id);
     enum pb_code rc = PB_OK;
@@ -852,7 +870,8 @@ enum pb_code store_flight_analysed_as(struct store *st, int64_t id, int *cells, 
     chemistry[0] = '\0';
     if (sqlite3_prepare_v2(st->db,
                            "SELECT json_extract(report_json, '$.cells'), "
-                           "json_extract(report_json, '$.chemistry') FROM flights WHERE id = ?",
+                           "json_extract(report_json, '$.chemistry') FROM flight_reports "
+                           "WHERE flight_id = ?",
                            -1, &s, NULL) != SQLITE_OK)
         return db_error(st, err, "cannot read flights");
     sqlite3_bind_int64(s, 1, id);
@@ -877,7 +896,8 @@ enum pb_code store_flights_analysed_otherwise(struct store *st, int64_t pack_id,
     sqlite3_stmt *s = NULL;
     /* a report that does not say (hand-made rows) counts as not contradicting */
     if (sqlite3_prepare_v2(st->db,
-                           "SELECT count(*) FROM flights WHERE pack_id = ? AND ("
+                           "SELECT count(*) FROM flights f JOIN flight_reports r ON "
+                           "r.flight_id = f.id WHERE f.pack_id = ? AND ("
                            "coalesce(json_extract(report_json, '$.cells'), ?2) != ?2 OR "
                            "lower(coalesce(json_extract(report_json, '$.chemistry'), ?3)) "
                            "!= lower(?3))",
