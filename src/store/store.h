@@ -1,5 +1,7 @@
 /* store: the pack history, behind one small interface.
  *
+ * A struct store is used by one thread at a time (its connection has no
+ * mutex of its own).
  * Owns struct store (store_open/store_close) and the records it returns
  * (free them with store_packs_free / store_flights_free). The SQLite file
  * is the embedded default; another backend implements these functions.

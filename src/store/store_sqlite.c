@@ -212,7 +212,9 @@ enum pb_code store_open(const char *path, int create, struct store **out, struct
         return pb_error_set(err, PB_ESTORE, "cannot create the folder for '%s': %s", path,
                             strerror(errno));
     }
-    int flags = SQLITE_OPEN_READWRITE | (create ? SQLITE_OPEN_CREATE : 0);
+    /* one thread uses a connection (import's workers never touch the store):
+     * no SQLite mutex around every call, which cost a seventh of fleet */
+    int flags = SQLITE_OPEN_READWRITE | SQLITE_OPEN_NOMUTEX | (create ? SQLITE_OPEN_CREATE : 0);
     if (sqlite3_open_v2(path, &st->db, flags, NULL) != SQLITE_OK) {
         enum pb_code rc = st->db ? db_error(st, err, "cannot open")
                                  : pb_error_set(err, PB_ENOMEM, "out of memory");
