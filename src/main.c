@@ -10,6 +10,7 @@
 #include "cmd/cmd.h"
 #include "cmd/config.h"
 #include "report/report.h"
+#include "core/utf8.h"
 
 #ifndef PACKBOOK_VERSION
 #define PACKBOOK_VERSION "0.0.0"
@@ -82,7 +83,11 @@ int main(int argc, char **argv)
         if (rc == PB_OK)
             rc = commands[k].run(argc - 1, argv + 1, &app, &err);
         if (rc != PB_OK) {
-            fprintf(stderr, "packbook: %s\n", err.msg[0] ? err.msg : pb_strerror(rc));
+            /* messages quote file names and the user's text: escaped, so a
+             * control sequence in them cannot reach the terminal */
+            char shown[4 * PB_ERRMSG_MAX];
+            fprintf(stderr, "packbook: %s\n",
+                    err.msg[0] ? utf8_printable(shown, sizeof shown, err.msg) : pb_strerror(rc));
             return pb_exit_status(rc);
         }
         return app.some_failed ? PB_EXIT_SOME_FAILED : PB_EXIT_OK;

@@ -5,6 +5,7 @@
 
 #include "../core/analyze.h"
 #include "../core/logread.h"
+#include "../report/outfile.h"
 #include "../report/plot.h"
 #include "../report/plots.h"
 #include "../report/report.h"
@@ -127,14 +128,17 @@ static enum pb_code parse_args(int argc, char **argv, struct analyze_cli *cli, i
         return pb_error_set(err, PB_EUSAGE,
                             "analyze: %s with --pack: the pack sets cells, chemistry and capacity",
                             cli->pack_opt);
-    return PB_OK;
+    const char *ins[] = {cli->path};
+    const char *outs[] = {cli->series, cli->plot};
+    const char *what[] = {"--series", "--plot"};
+    return outfile_check_distinct(ins, 1, outs, what, 2, err);
 }
 
 /* --pack: the registered pack's facts and reading settings under the options given. */
 static enum pb_code take_pack(struct analyze_cli *cli, struct pb_error *err)
 {
     struct store *st = NULL;
-    enum pb_code rc = packview_open_store(cli->db, 0, &st, err);
+    enum pb_code rc = packview_open_store(cli->db, STORE_READ, &st, err);
     if (rc == PB_OK)
         rc = store_pack_get(st, cli->pack, &cli->rec, err);
     store_close(st);
@@ -155,7 +159,8 @@ static void emit_row(void *ctx, const struct sample_row *r)
 {
     FILE *out = ctx;
     double v[6] = {r->t_s, r->v_v, r->i_a, r->ocv_v, r->soc_cc_pct, r->soc_ocv_pct};
-    static const char *const fmt[6] = {"%.6g", "%.4f", "%.3f", "%.4f", "%.2f", "%.2f"};
+    /* time to the millisecond whatever the log's length (%.6g lost it past 1000 s) */
+    static const char *const fmt[6] = {"%.3f", "%.4f", "%.3f", "%.4f", "%.2f", "%.2f"};
     for (int k = 0; k < 6; k++) {
         if (k)
             fputc(',', out);
@@ -169,15 +174,15 @@ static enum pb_code write_series(const char *path, const struct series *s, const
                                  double rated_mah, struct pb_error *err)
 {
     int to_stdout = strcmp(path, "-") == 0;
-    FILE *out = to_stdout ? stdout : fopen(path, "w");
-    if (!out)
-        return pb_error_set(err, PB_EOUTPUT, "cannot write '%s': %m", path);
+    struct outfile *of = to_stdout ? NULL : outfile_open(path, err);
+    if (!to_stdout && !of)
+        return err->code;
+    FILE *out = to_stdout ? stdout : outfile_fp(of);
     fprintf(out, "time_s,voltage_v,current_a,ocv_v,soc_counted_pct,soc_ocv_pct\n");
     analyze_rows(s, a, rated_mah, emit_row, out);
-    int bad = ferror(out);
     if (!to_stdout)
-        bad |= fclose(out) != 0;
-    return bad ? pb_error_set(err, PB_EOUTPUT, "cannot write '%s'", path) : PB_OK;
+        return outfile_commit(of, err);
+    return ferror(out) ? pb_error_set(err, PB_EOUTPUT, "cannot write '%s'", path) : PB_OK;
 }
 
 enum pb_code cmd_analyze(int argc, char **argv, struct app *app, struct pb_error *err)

@@ -9,6 +9,8 @@
 #ifndef PB_CMD_H
 #define PB_CMD_H
 
+#include <stdio.h>
+
 #include "../core/pb_error.h"
 
 struct app {
@@ -39,6 +41,10 @@ enum pb_code cmd_bad_option(const char *verb, int argc, char **argv, struct pb_e
 
 /* qsort comparison for doubles, ascending. */
 int cmd_cmp_double(const void *a, const void *b);
+
+/* Opens a log for reading: a folder is refused with a message, a named pipe is
+ * opened without blocking. NULL with err filled (PB_EINPUT). */
+FILE *cmd_open_log(const char *path, struct pb_error *err);
 
 /* Flushes stdout and checks every write reached it. */
 enum pb_code cmd_finish_stdout(struct pb_error *err);

@@ -1,18 +1,23 @@
+#define _POSIX_C_SOURCE 200809L /* fdopen */
 #include <errno.h>
+#include <fcntl.h>
 #include <getopt.h>
 #include <limits.h>
 #include <stdio.h>
 #include <stdlib.h>
+#include <string.h>
+#include <sys/stat.h>
+#include <unistd.h>
 
+#include "../core/numparse.h"
 #include "cmd.h"
 
 int cmd_parse_double(const char *opt, const char *val, double lo, double hi, double *out,
                      struct pb_error *err)
 {
-    char *end = NULL;
-    errno = 0;
-    double v = strtod(val, &end);
-    if (end == val || *end != '\0' || errno == ERANGE || !(v >= lo && v <= hi)) {
+    /* the log's number reader, not strtod: no hex ("0x10"), no "inf"/"nan", no locale */
+    double v = 0;
+    if (num_parse(val, strlen(val), '.', &v) != NUM_OK || !(v >= lo && v <= hi)) {
         pb_error_set(err, PB_EUSAGE, "%s: expected a number from %g to %g, got '%s'", opt, lo, hi,
                      val);
         return -1;
@@ -33,6 +38,32 @@ int cmd_parse_int(const char *opt, const char *val, int lo, int hi, int *out, st
     }
     *out = (int)v;
     return 0;
+}
+
+FILE *cmd_open_log(const char *path, struct pb_error *err)
+{
+    struct stat sb;
+    if (stat(path, &sb) == 0 && S_ISDIR(sb.st_mode)) {
+        pb_error_set(err, PB_EINPUT,
+                     "'%s' is a folder, not a log (import takes a folder; analyze, plot and "
+                     "predict read one log)",
+                     path);
+        return NULL;
+    }
+    /* a named pipe with no writer would block open() for ever: open without
+     * waiting, then read normally (no writer reads as an empty log) */
+    int fd = open(path, O_RDONLY | O_NOCTTY | O_NONBLOCK);
+    if (fd < 0) {
+        pb_error_set(err, PB_EINPUT, "cannot open '%s': %s", path, strerror(errno));
+        return NULL;
+    }
+    int fl = fcntl(fd, F_GETFL);
+    FILE *fp = fl >= 0 && fcntl(fd, F_SETFL, fl & ~O_NONBLOCK) == 0 ? fdopen(fd, "rb") : NULL;
+    if (!fp) {
+        pb_error_set(err, PB_EINPUT, "cannot open '%s': %s", path, strerror(errno));
+        close(fd);
+    }
+    return fp;
 }
 
 enum pb_code cmd_finish_stdout(struct pb_error *err)

@@ -9,65 +9,31 @@
 #include "config.h"
 #include "packview.h"
 
+/* A help text reads best as the lines it prints. */
+/* clang-format off */
 static const char usage[] =
     "usage: packbook fleet [--json|--csv] [--sort KEY] [--status S] [--all] [--db PATH]\n"
     "\n"
     "One row per pack in service: flights, equivalent full cycles, last flown,\n"
-    "internal resistance (IR: the model's R0, mOhm per cell, median of the last " HEALTH_STR(
-        HEALTH_RECENT_FLIGHTS) "\n"
-                               "flights) and against its baseline (median of its first " HEALTH_STR(
-                                   HEALTH_BASELINE_FLIGHTS) "), capacity as % of\n"
-                                                            "rated, resting cell imbalance, the "
-                                                            "weakest cell, over-discharges "
-                                                            "(flights under\n"
-                                                            "the cut-off voltage), status (ok, "
-                                                            "watch, retire) and why.\n"
-                                                            "  --sort KEY             status "
-                                                            "(default: retire first), pack, "
-                                                            "cycles, r0 (resistance\n"
-                                                            "                         per cell, "
-                                                            "highest first), r0-ratio (against the "
-                                                            "baseline),\n"
-                                                            "                         capacity "
-                                                            "(lowest first), imbalance, last\n"
-                                                            "  --status S             only packs "
-                                                            "with status ok, watch, retire or "
-                                                            "retired\n"
-                                                            "  --all                  include "
-                                                            "retired packs\n"
-                                                            "  --predict [--power W]  add the "
-                                                            "conservative safe flight time "
-                                                            "(minutes) to the\n"
-                                                            "                         landing "
-                                                            "reserve (" PREDICT_STR(
-                                                                PREDICT_RESERVE_PCT) " %, or the "
-                                                                                     "settings "
-                                                                                     "file's "
-                                                                                     "'reserve')\n"
-                                                                                     "             "
-                                                                                     "            "
-                                                                                     "at the "
-                                                                                     "pack's "
-                                                                                     "recent "
-                                                                                     "cruise "
-                                                                                     "power, or at "
-                                                                                     "W\n"
-                                                                                     "  --json, "
-                                                                                     "--csv        "
-                                                                                     "  "
-                                                                                     "machine-"
-                                                                                     "readable "
-                                                                                     "output (CSV "
-                                                                                     "cells "
-                                                                                     "starting = + "
-                                                                                     "- @ are\n"
-                                                                                     "             "
-                                                                                     "            "
-                                                                                     "prefixed "
-                                                                                     "with ' so "
-                                                                                     "spreadsheets "
-                                                                                     "do not run "
-                                                                                     "them)\n";
+    "internal resistance (IR, mOhm per cell, median of the last "
+    HEALTH_STR(HEALTH_RECENT_FLIGHTS) "\n"
+    "flights) and against its baseline (median of its first "
+    HEALTH_STR(HEALTH_BASELINE_FLIGHTS) "), capacity as % of\n"
+    "rated, resting cell imbalance, the weakest cell, over-discharges (flights under\n"
+    "the cut-off voltage), status (ok, watch, retire) and why.\n"
+    "  --sort KEY             status (default: retire first), pack, cycles, r0 (resistance\n"
+    "                         per cell, highest first), r0-ratio (against the baseline),\n"
+    "                         capacity (lowest first), imbalance, last\n"
+    "  --status S             only packs with status ok, watch, retire or retired\n"
+    "  --all                  include retired packs\n"
+    "  --predict [--power W]  add the conservative safe flight time (minutes) to the\n"
+    "                         landing reserve (" PREDICT_STR(PREDICT_RESERVE_PCT)
+    " %, or the settings file's 'reserve')\n"
+    "                         at the pack's recent cruise power, or at W\n"
+    "  --json, --csv          machine-readable output (CSV cells starting = + - @, also\n"
+    "                         after spaces or zero-width characters, are prefixed with '\n"
+    "                         so spreadsheets do not run them)\n";
+/* clang-format on */
 
 enum { F_JSON = 256, F_CSV, F_SORT, F_STATUS, F_ALL, F_DB, F_PREDICT, F_POWER };
 
@@ -202,6 +168,9 @@ enum pb_code cmd_fleet(int argc, char **argv, struct app *app, struct pb_error *
         case F_POWER:
             if (cmd_parse_double("--power", optarg, 0, 1e6, &power_w, err))
                 return PB_EUSAGE;
+            if (!(power_w > 0)) /* no load is no flight (see predict) */
+                return pb_error_set(err, PB_EUSAGE, "--power: expected a load above 0 W, got '%s'",
+                                    optarg);
             predict = 1;
             break;
         case F_DB:
@@ -221,7 +190,7 @@ enum pb_code cmd_fleet(int argc, char **argv, struct app *app, struct pb_error *
     struct pack_view *views = NULL;
     double *safe = NULL;
     size_t nv = 0;
-    enum pb_code rc = packview_open_store(db, 1, &st, err);
+    enum pb_code rc = packview_open_store(db, STORE_READ, &st, err);
     if (rc != PB_OK)
         return rc;
     if (status && strcmp(status, "retired") == 0)

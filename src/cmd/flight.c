@@ -246,7 +246,8 @@ enum pb_code cmd_flight(int argc, char **argv, struct app *app, struct pb_error 
     if (run != do_move && cli.to)
         return pb_error_set(err, PB_EUSAGE, "flight %s: --to is for 'flight move'", sub);
     struct store *st = NULL;
-    enum pb_code rc = packview_open_store(cli.db, 1, &st, err);
+    enum pb_code rc =
+        packview_open_store(cli.db, run == do_list ? STORE_READ : STORE_WRITE, &st, err);
     if (rc != PB_OK)
         return rc;
     rc = run(st, &cli, err);

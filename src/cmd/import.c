@@ -14,6 +14,7 @@
 
 #include "../core/isotime.h"
 #include "../core/packfit.h"
+#include "../core/utf8.h"
 #include "../report/report.h"
 #include "cmd.h"
 #include "logopts.h"
@@ -49,9 +50,11 @@ static const char usage_head[] =
     "                         see 'packbook config')\n"
     "  --quiet                no line per log, only the summary\n"
     "  -j, --jobs N           logs analysed at once (default: the number of\n"
-    "                         cores); one thread writes the store, in order\n";
+    "                         cores); one thread writes the store, in order\n"
+    "  --wait S               wait up to S seconds for another process's lock on the\n"
+    "                         database (default 60, for each flight)\n";
 
-enum { I_PACK = 256, I_DATE, I_DB, I_QUIET, I_FORCE };
+enum { I_PACK = 256, I_DATE, I_DB, I_QUIET, I_FORCE, I_WAIT };
 #define I_RECURSIVE 'r'
 
 static const struct option longopts[] = {
@@ -62,6 +65,7 @@ static const struct option longopts[] = {
     {"force", no_argument, NULL, I_FORCE},
     {"recursive", no_argument, NULL, I_RECURSIVE},
     {"jobs", required_argument, NULL, 'j'},
+    {"wait", required_argument, NULL, I_WAIT},
     {"help", no_argument, NULL, 'h'},
     LOGOPTS_LONG,
     {NULL, 0, NULL, 0},
@@ -74,6 +78,7 @@ struct import_cli {
     int have_date, quiet, force, recursive;
     int jobs; /* analysing threads (1: none besides the writer) */
     double date_epoch_s;
+    double wait_s; /* --wait */
 };
 
 #define IMPORT_MAX_JOBS 64
@@ -407,8 +412,16 @@ static void analyse_job(const struct pack_rec *pack, const struct import_cli *cl
     XXH128_hash_t h = XXH3_128bits_digest(hs);
     snprintf(f->content_hash, sizeof f->content_hash, "xxh128:%016llx%016llx",
              (unsigned long long)h.high64, (unsigned long long)h.low64);
-    snprintf(f->source, sizeof f->source, "%s", name);
+    /* the name as valid UTF-8 (a Latin-1 file name gets U+FFFD), cut at a character */
+    utf8_repair(f->source, sizeof f->source, name, strlen(name));
     struct stat sb;
+    if (a->has_epoch &&
+        !(a->start_epoch_s >= ISOTIME_EPOCH_MIN_S && a->start_epoch_s < ISOTIME_EPOCH_END_S)) {
+        /* a Unix-time column can hold any number; the history keeps 1970-2100 */
+        pb_error_set(err, PB_EINPUT, "%s: the log starts at Unix time %.0f, outside %d-%d", name,
+                     a->start_epoch_s, ISOTIME_YEAR_MIN, ISOTIME_YEAR_MAX);
+        goto cleanup;
+    }
     if (a->has_epoch) {
         f->flown_epoch_s = a->start_epoch_s;
         snprintf(f->date_source, sizeof f->date_source, "log");
@@ -465,13 +478,13 @@ static void store_job(struct store *st, const struct pack_rec *pack, struct job 
         j->out = OUT_DUPLICATE;
         return;
     }
-    char r0[48] = "unknown";
+    char r0[48] = "not identifiable";
     if (isfinite(f->r0_mohm))
-        snprintf(r0, sizeof r0, "%.2f", f->r0_mohm);
+        snprintf(r0, sizeof r0, "%.2f %s", f->r0_mohm, report_mohm());
     snprintf(j->line, sizeof j->line,
-             "imported %s: %.16s (date from %s), %.0f mAh, IR %s %s, %zu warning%s", name, when,
-             f->date_source, f->charge_used_mah, r0, report_mohm(), j->nwarnings,
-             j->nwarnings == 1 ? "" : "s");
+             "imported %s: %.16s (date from %s), %.0f mAh, IR %s, %zu warning%s", name, when,
+             f->date_source, f->charge_used_mah, r0, j->nwarnings, j->nwarnings == 1 ? "" : "s");
+
     size_t used = 0;
     if (j->misfit)
         used += (size_t)snprintf(j->note + used, sizeof j->note - used,
@@ -530,7 +543,7 @@ static void *worker(void *vp)
 
 static void progress(size_t done, size_t total)
 {
-    int width = 30, filled = (int)(width * done / (total ? total : 1));
+    int width = 30, filled = (int)((size_t)width * done / (total ? total : 1));
     fprintf(stderr, "\r[%.*s%*s] %zu/%zu", filled, "##############################", width - filled,
             "", done, total);
     if (done == total)
@@ -543,6 +556,7 @@ enum pb_code cmd_import(int argc, char **argv, struct app *app, struct pb_error 
     struct import_cli cli = {0};
     int c;
     logopts_init(&cli.log);
+    cli.wait_s = STORE_WAIT_DEFAULT_S;
     optind = 1;
     opterr = 0;
     while ((c = getopt_long(argc, argv, "hrj:", longopts, NULL)) != -1) {
@@ -577,14 +591,21 @@ enum pb_code cmd_import(int argc, char **argv, struct app *app, struct pb_error 
             cli.jobs = (int)v;
             break;
         }
-        case I_DATE:
-            if (isotime_parse(optarg, strlen(optarg), &cli.date_epoch_s, NULL) != 0)
+        case I_WAIT:
+            if (cmd_parse_double("--wait", optarg, 0, 86400, &cli.wait_s, err))
+                return PB_EUSAGE;
+            break;
+        case I_DATE: {
+            char why[128];
+            if (isotime_parse_why(optarg, strlen(optarg), &cli.date_epoch_s, NULL, why,
+                                  sizeof why) != 0)
                 return pb_error_set(err, PB_EUSAGE,
                                     "--date: expected an ISO 8601 date such as "
-                                    "2026-04-18 or 2026-04-18T07:30:00Z, got '%s'",
-                                    optarg);
+                                    "2026-04-18 or 2026-04-18T07:30:00Z, got '%s': %s",
+                                    optarg, why);
             cli.have_date = 1;
             break;
+        }
         case 'h':
             fputs(usage_head, stdout);
             fputs(logopts_usage, stdout);
@@ -607,7 +628,7 @@ enum pb_code cmd_import(int argc, char **argv, struct app *app, struct pb_error 
 
     struct store *st = NULL;
     struct path_list paths = {0};
-    rc = packview_open_store(cli.db, 1, &st, err);
+    rc = packview_open_store_wait(cli.db, STORE_WRITE, cli.wait_s, &st, err);
     if (rc != PB_OK)
         return rc;
     struct pack_rec pack;
@@ -658,6 +679,7 @@ enum pb_code cmd_import(int argc, char **argv, struct app *app, struct pb_error 
         if (pthread_create(&tids[nthreads], NULL, worker, &pool) == 0)
             nthreads++;
     for (size_t k = 0; k < paths.n; k++) {
+        char shown[4 * sizeof pool.jobs[0].line]; /* names and messages escaped for the terminal */
         struct job *j = &pool.jobs[k];
         if (nthreads == 0) {
             if (j->out == OUT_PENDING)
@@ -683,16 +705,17 @@ enum pb_code cmd_import(int argc, char **argv, struct app *app, struct pb_error 
             if (j->err.code == PB_ESTORE || j->err.code == PB_ENOMEM) {
                 /* the store itself failed: later logs would fail the same way */
                 printf("%zu imported, %zu already there; stopped at %s\n", stored, dups,
-                       paths.v[k]);
+                       utf8_printable(shown, sizeof shown, paths.v[k]));
                 rc = pb_error_set(err, j->err.code, "%s", j->err.msg);
                 break;
             }
-            fprintf(stderr, "packbook: not imported: %s\n", j->err.msg);
+            fprintf(stderr, "packbook: not imported: %s\n",
+                    utf8_printable(shown, sizeof shown, j->err.msg));
         } else {
             stored += j->out == OUT_STORED;
             dups += j->out == OUT_DUPLICATE;
             if (!cli.quiet)
-                printf("%s\n", j->line);
+                printf("%s\n", utf8_printable(shown, sizeof shown, j->line));
             if (j->out == OUT_STORED && j->note[0])
                 fputs(j->note, stderr);
         }
@@ -713,18 +736,19 @@ enum pb_code cmd_import(int argc, char **argv, struct app *app, struct pb_error 
     pthread_mutex_destroy(&pool.mu);
     if (rc != PB_OK)
         goto cleanup;
+    char lb[4 * sizeof pack.label];
     if (ex.skipped)
         printf("%zu imported, %zu already there, %zu failed, %zu skipped as not logs (pack %s)\n",
-               stored, dups, failed, ex.skipped, pack.label);
+               stored, dups, failed, ex.skipped, utf8_printable(lb, sizeof lb, pack.label));
     else
         printf("%zu imported, %zu already there, %zu failed (pack %s)\n", stored, dups, failed,
-               pack.label);
+               utf8_printable(lb, sizeof lb, pack.label));
     if (stored > 0) {
         rc = packview_summary(st, &pack, &after, err);
         if (rc != PB_OK)
             goto cleanup;
         if (strcmp(before.status, after.status) != 0)
-            printf("pack %s: status %s -> %s (%s)\n", pack.label, before.status, after.status,
+            printf("pack %s: status %s -> %s (%s)\n", lb, before.status, after.status,
                    after.reason);
     }
     app->some_failed = failed > 0;

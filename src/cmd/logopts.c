@@ -176,9 +176,9 @@ enum pb_code logopts_analyze(const char *path, const struct log_cli *cli,
     struct analysis *a = NULL;
     enum pb_code rc = PB_OK;
     *out = NULL;
-    FILE *fp = is_stdin ? stdin : fopen(path, "rb");
+    FILE *fp = is_stdin ? stdin : cmd_open_log(path, err);
     if (!fp)
-        return pb_error_set(err, PB_EINPUT, "cannot open '%s': %m", path);
+        return err->code;
     /* the pack's cell count and rating bound what a sample may hold */
     struct logread_opts ro = cli->read;
     ro.cells = cli->read_without_cells ? 0 : cli->an.cells;

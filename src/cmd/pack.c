@@ -6,6 +6,7 @@
 
 #include "../core/isotime.h"
 #include "../core/ocv.h"
+#include "../core/utf8.h"
 #include "cmd.h"
 #include "config.h"
 #include "packopts.h"
@@ -38,7 +39,9 @@ static const char usage[] =
     "adds to or replaces the remembered ones; --clear-settings forgets them first.\n"
     "  --db PATH              history database (default: $PACKBOOK_DB, else the\n"
     "                         settings file's db, else $XDG_DATA_HOME/packbook/packbook.db;\n"
-    "                         see 'packbook config')\n";
+    "                         see 'packbook config')\n"
+    "  --wait S               wait up to S seconds for another process's lock on the\n"
+    "                         database (default 60)\n";
 
 enum {
     P_CELLS = 256,
@@ -52,7 +55,8 @@ enum {
     P_DB,
     P_NAME,
     P_CLEAR,
-    P_CSV
+    P_CSV,
+    P_WAIT
 };
 
 static const struct option longopts[] = {
@@ -69,6 +73,7 @@ static const struct option longopts[] = {
     {"json", no_argument, NULL, P_JSON},
     {"csv", no_argument, NULL, P_CSV},
     {"db", required_argument, NULL, P_DB},
+    {"wait", required_argument, NULL, P_WAIT},
     {"help", no_argument, NULL, 'h'},
     {NULL, 0, NULL, 0},
 };
@@ -78,6 +83,7 @@ struct pack_cli {
     const char *reason, *db, *name;
     int json, have_cells, have_chem, have_cap, have_par, have_since, have_note, clear;
     struct packopts_seen seen; /* reading options to remember */
+    double wait_s;
 };
 
 static enum pb_code cmd_add(struct store *st, struct pack_cli *cli, struct pb_error *err)
@@ -91,8 +97,9 @@ static enum pb_code cmd_add(struct store *st, struct pack_cli *cli, struct pb_er
         rc = store_pack_add(st, &cli->rec, err);
     if (rc != PB_OK)
         return rc;
-    printf("added pack '%s': %dS%dP %s, %.0f mAh\n", cli->rec.label, cli->rec.cells,
-           cli->rec.parallel, cli->rec.chemistry, cli->rec.capacity_mah);
+    char lb[4 * sizeof cli->rec.label];
+    printf("added pack '%s': %dS%dP %s, %.0f mAh\n", utf8_printable(lb, sizeof lb, cli->rec.label),
+           cli->rec.cells, cli->rec.parallel, cli->rec.chemistry, cli->rec.capacity_mah);
     if (cli->rec.settings[0]) {
         char d[1200];
         packopts_describe(cli->rec.settings, d, sizeof d);
@@ -140,8 +147,11 @@ static enum pb_code cmd_retire(struct store *st, struct pack_cli *cli, struct pb
     if (!cli->reason || !*cli->reason)
         return pb_error_set(err, PB_EUSAGE, "pack retire: give the reason with --reason TEXT");
     enum pb_code rc = store_pack_retire(st, cli->rec.label, cli->reason, err);
+    char lb[4 * sizeof cli->rec.label], rb[4 * sizeof cli->rec.retire_reason];
     if (rc == PB_OK)
-        printf("retired pack '%s': %s (its history is kept)\n", cli->rec.label, cli->reason);
+        printf("retired pack '%s': %s (its history is kept)\n",
+               utf8_printable(lb, sizeof lb, cli->rec.label),
+               utf8_printable(rb, sizeof rb, cli->reason));
     return rc;
 }
 
@@ -235,10 +245,30 @@ static enum pb_code cmd_edit(struct store *st, struct pack_cli *cli, struct pb_e
     return rc;
 }
 
-static int valid_date(const char *s)
+static int valid_date(const char *s, char *why, size_t cap)
 {
     double e;
-    return isotime_parse(s, strlen(s), &e, NULL) == 0;
+    return isotime_parse_why(s, strlen(s), &e, NULL, why, cap) == 0;
+}
+
+/* Text kept in the history: valid UTF-8 and no longer than the store keeps,
+ * refused whole rather than cut (JSON cannot carry other bytes, and a cut note
+ * or reason would read as the whole). Returns 0, or -1 with err filled. */
+static int check_text(const char *what, const char *v, size_t max_bytes, struct pb_error *err)
+{
+    size_t len = strlen(v);
+    if (!utf8_valid(v, len)) {
+        pb_error_set(err, PB_EUSAGE,
+                     "%s: not valid UTF-8 text (convert it first, e.g. with iconv -f latin1 -t "
+                     "utf-8)",
+                     what);
+        return -1;
+    }
+    if (len > max_bytes) {
+        pb_error_set(err, PB_EUSAGE, "%s: %zu bytes, at most %zu are kept", what, len, max_bytes);
+        return -1;
+    }
+    return 0;
 }
 
 enum pb_code cmd_pack(int argc, char **argv, struct app *app, struct pb_error *err)
@@ -247,6 +277,7 @@ enum pb_code cmd_pack(int argc, char **argv, struct app *app, struct pb_error *e
     int c;
     (void)app;
     cli.rec.parallel = 1;
+    cli.wait_s = STORE_WAIT_DEFAULT_S;
     optind = 1;
     opterr = 0;
     while ((c = getopt_long(argc, argv, "h", longopts, NULL)) != -1) {
@@ -280,28 +311,37 @@ enum pb_code cmd_pack(int argc, char **argv, struct app *app, struct pb_error *e
                 return PB_EUSAGE;
             cli.have_cap = 1;
             break;
-        case P_SINCE:
+        case P_SINCE: {
             cli.have_since = 1;
             if (!*v) {
                 cli.rec.since[0] = '\0';
                 break;
             }
-            if (!valid_date(v))
+            char why[128];
+            if (!valid_date(v, why, sizeof why))
                 return pb_error_set(err, PB_EUSAGE,
-                                    "--since: expected a date like 2026-03-01, got '%s'", v);
+                                    "--since: expected a date like 2026-03-01, got '%s': %s", v,
+                                    why);
             snprintf(cli.rec.since, sizeof cli.rec.since, "%.10s", v);
             break;
+        }
         case P_NOTE:
+            if (check_text("--note", v, sizeof cli.rec.note - 1, err) != 0)
+                return PB_EUSAGE;
             snprintf(cli.rec.note, sizeof cli.rec.note, "%s", v);
             cli.have_note = 1;
             break;
         case P_REASON:
+            if (check_text("--reason", v, sizeof cli.rec.retire_reason - 1, err) != 0)
+                return PB_EUSAGE;
             cli.reason = v;
             break;
         case P_NAME:
             if (!*v || strlen(v) >= sizeof cli.rec.label)
                 return pb_error_set(err, PB_EUSAGE, "--name: the ID must be 1 to %zu bytes",
                                     sizeof cli.rec.label - 1);
+            if (check_text("--name", v, sizeof cli.rec.label - 1, err) != 0)
+                return PB_EUSAGE;
             cli.name = v;
             break;
         case P_CLEAR:
@@ -315,6 +355,10 @@ enum pb_code cmd_pack(int argc, char **argv, struct app *app, struct pb_error *e
             break;
         case P_DB:
             cli.db = v;
+            break;
+        case P_WAIT:
+            if (cmd_parse_double("--wait", v, 0, 86400, &cli.wait_s, err))
+                return PB_EUSAGE;
             break;
         case 'h':
             fputs(usage, stdout);
@@ -335,6 +379,9 @@ enum pb_code cmd_pack(int argc, char **argv, struct app *app, struct pb_error *e
         if (strlen(argv[optind + 1]) >= sizeof cli.rec.label || !argv[optind + 1][0])
             return pb_error_set(err, PB_EUSAGE, "pack %s: the ID must be 1 to %zu bytes", sub,
                                 sizeof cli.rec.label - 1);
+        if (strcmp(sub, "add") == 0 &&
+            check_text("pack add: the ID", argv[optind + 1], sizeof cli.rec.label - 1, err) != 0)
+            return PB_EUSAGE;
         snprintf(cli.rec.label, sizeof cli.rec.label, "%s", argv[optind + 1]);
     }
     if (optind + 1 + needs_id < argc)
@@ -364,7 +411,12 @@ enum pb_code cmd_pack(int argc, char **argv, struct app *app, struct pb_error *e
                             "pack %s: reading options are remembered by 'pack add' and 'pack edit'",
                             sub);
     struct store *st = NULL;
-    enum pb_code rc = packview_open_store(cli.db, 1, &st, err);
+    enum pb_code rc = packview_open_store_wait(
+        cli.db,
+        run == cmd_add                                                ? STORE_CREATE
+        : run == cmd_retire || run == cmd_edit || run == cmd_unretire ? STORE_WRITE
+                                                                      : STORE_READ,
+        cli.wait_s, &st, err);
     if (rc != PB_OK)
         return rc;
     rc = run(st, &cli, err);

@@ -7,6 +7,7 @@
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
+#include <unistd.h>
 
 const char ruleopts_usage
     [] = "retirement rules (retire level; watch levels are " HEALTH_STR(HEALTH_WATCH_CAPACITY_PCT) " %, " HEALTH_STR(HEALTH_WATCH_R0_RATIO) "x, " HEALTH_STR(HEALTH_WATCH_IMBALANCE_MV) " mV and " HEALTH_STR(
@@ -152,8 +153,26 @@ int ruleopts_take(int c, const char *v, struct health_rules *r, struct pb_error 
     return bad ? -1 : 1;
 }
 
-enum pb_code packview_open_store(const char *db, int create, struct store **out,
+/* Said once when a command has waited a few seconds for another process's
+ * lock, on a terminal only (a script's log wants the result, not the wait). */
+static void say_waiting(void *ctx, double wait_s)
+{
+    (void)ctx;
+    if (isatty(STDERR_FILENO))
+        fprintf(stderr,
+                "packbook: waiting for the database lock\u2026 (another process holds it; "
+                "up to %.0f s in all, --wait S changes that)\n",
+                wait_s);
+}
+
+enum pb_code packview_open_store(const char *db, enum store_mode mode, struct store **out,
                                  struct pb_error *err)
+{
+    return packview_open_store_wait(db, mode, STORE_WAIT_DEFAULT_S, out, err);
+}
+
+enum pb_code packview_open_store_wait(const char *db, enum store_mode mode, double wait_s,
+                                      struct store **out, struct pb_error *err)
 {
     char path[1024];
     const char *env = getenv("PACKBOOK_DB");
@@ -164,7 +183,7 @@ enum pb_code packview_open_store(const char *db, int create, struct store **out,
     else if (store_default_path(path, sizeof path) != 0)
         return pb_error_set(err, PB_EUSAGE,
                             "no database path: set PACKBOOK_DB or HOME, or give --db");
-    return store_open(path, create, out, err);
+    return store_open_wait(path, mode, wait_s, say_waiting, NULL, out, err);
 }
 
 static void to_health(const struct flight_rec *f, size_t n, struct health_flight *h)

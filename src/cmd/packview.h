@@ -31,9 +31,14 @@ int ruleopts_take(int c, const char *arg, struct health_rules *r, struct pb_erro
 int trendopts_by(const char *arg, enum trend_by *by, struct pb_error *err);
 int trendopts_fit(const char *arg, int *plain, struct pb_error *err);
 
-/* Opens the store named by --db (NULL: the default path). */
-enum pb_code packview_open_store(const char *db, int create, struct store **out,
+/* Opens the store named by --db (NULL: the default path) in mode. */
+enum pb_code packview_open_store(const char *db, enum store_mode mode, struct store **out,
                                  struct pb_error *err);
+
+/* The same with the lock wait of --wait (seconds); packview_open_store waits
+ * STORE_WAIT_DEFAULT_S. Says on a terminal when it has waited a few seconds. */
+enum pb_code packview_open_store_wait(const char *db, enum store_mode mode, double wait_s,
+                                      struct store **out, struct pb_error *err);
 
 /* Fills v for pack p: flights, health, trend. On failure v holds nothing to release. */
 enum pb_code packview_load(struct store *st, const struct pack_rec *p,

@@ -5,6 +5,8 @@
 #include <stdlib.h>
 #include <string.h>
 
+#include "../core/utf8.h"
+#include "../report/outfile.h"
 #include "../report/plot.h"
 #include "../report/plots.h"
 #include "cmd.h"
@@ -233,7 +235,16 @@ static enum pb_code parse(int argc, char **argv, struct plot_cli *cli, int *done
         return pb_error_set(err, PB_EUSAGE,
                             "plot: '%s': the output's name must end in .png, .svg or .pdf",
                             cli->out);
-    return PB_OK;
+    /* the log, or the database, is never overwritten by the figure or its axes map */
+    char db[1024] = "";
+    if (cli->db)
+        snprintf(db, sizeof db, "%s", cli->db);
+    else if (store_default_path(db, sizeof db) != 0)
+        db[0] = '\0';
+    const char *ins[] = {cli->kind == KIND_FLIGHT ? argv[optind] : NULL, db[0] ? db : NULL};
+    const char *outs[] = {cli->out, cli->fig.axes_json};
+    const char *what[] = {"-o", "--axes-json"};
+    return outfile_check_distinct(ins, 2, outs, what, 2, err);
 }
 
 /* --pack: the pack's cells, chemistry and capacity, and its name in the title. */
@@ -241,7 +252,7 @@ static enum pb_code take_pack(struct plot_cli *cli, const char *path, struct pb_
 {
     struct store *st = NULL;
     struct pack_rec p;
-    enum pb_code rc = packview_open_store(cli->db, 0, &st, err);
+    enum pb_code rc = packview_open_store(cli->db, STORE_READ, &st, err);
     if (rc == PB_OK)
         rc = store_pack_get(st, cli->pack, &p, err);
     store_close(st);
@@ -291,7 +302,7 @@ static enum pb_code plot_history(const struct plot_cli *cli, const char *id, str
     struct store *st = NULL;
     struct pack_view *views = NULL;
     size_t nv = 0;
-    enum pb_code rc = packview_open_store(cli->db, 1, &st, err);
+    enum pb_code rc = packview_open_store(cli->db, STORE_READ, &st, err);
     if (rc != PB_OK)
         return rc;
     if (cli->kind == KIND_TREND) {
@@ -334,6 +345,6 @@ enum pb_code cmd_plot(int argc, char **argv, struct app *app, struct pb_error *e
     else
         rc = plot_history(&cli, cli.kind == KIND_TREND ? argv[optind + 1] : NULL, err);
     if (rc == PB_OK)
-        printf("wrote %s\n", cli.out);
+        printf("wrote %s\n", utf8_printable((char[4096]){0}, 4096, cli.out));
     return rc == PB_OK ? cmd_finish_stdout(err) : rc;
 }

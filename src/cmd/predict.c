@@ -12,6 +12,7 @@
 #include "../core/logread.h"
 #include "../core/predict.h"
 #include "../core/socest.h"
+#include "../core/utf8.h"
 #include "../report/report.h"
 #include "../report/report_predict.h"
 #include "cmd.h"
@@ -20,6 +21,8 @@
 #include "packopts.h"
 #include "packview.h"
 
+/* A help text reads best as the lines it prints. */
+/* clang-format off */
 static const char usage_head[] =
     "usage: packbook predict ID [options]\n"
     "       packbook predict --log LOG [--cells N --chemistry C --capacity MAH] [options]\n"
@@ -34,44 +37,30 @@ static const char usage_head[] =
     "start:\n"
     "  --soc PCT              start SoC (default 100: a full charge)\n"
     "  --ocv V                or the pack voltage measured at rest\n"
-    "load (default: the median cruise power of the last " HEALTH_STR(
-        HEALTH_RECENT_FLIGHTS) " flights, or of the log):\n"
-                               "  --power W | --current A   constant power or current\n"
-                               "  --profile LOG          the power of a logged flight, repeated "
-                               "(may be given again:\n"
-                               "                         the profiles are flown one after the "
-                               "other)\n"
-                               "limits:\n"
-                               "  --reserve PCT          landing reserve SoC (default " PREDICT_STR(
-                                   PREDICT_RESERVE_PCT) ", common practice, or the settings "
-                                                        "file's)\n"
-                                                        "  --cut-off V            cut-off voltage "
-                                                        "per cell under load (default: the pack's\n"
-                                                        "                         remembered one, "
-                                                        "else per chemistry; --floor: old name)\n"
-                                                        "model:\n"
-                                                        "  --temp C               pack "
-                                                        "temperature: R0 is scaled by the "
-                                                        "Arrhenius form\n"
-                                                        "  --tref C               temperature R0 "
-                                                        "was measured at (default 25)\n"
-                                                        "  --ea J_PER_MOL         activation "
-                                                        "energy for R(T) (default 30000)\n"
-                                                        "  --peukert K            Peukert exponent "
-                                                        "(rated-capacity form t = H (C/(I H))^K)\n"
-                                                        "  --peukert-hours H      rated discharge "
-                                                        "time H for Peukert (default 1)\n"
-                                                        "  --runs N --seed N      Monte Carlo runs "
-                                                        "(default 400) and seed (default 1)\n"
-                                                        "  --for S                also report the "
-                                                        "state after S seconds\n"
-                                                        "  --db PATH              history "
-                                                        "database\n"
-                                                        "  --json                 JSON on standard "
-                                                        "output\n"
-                                                        "reading --log and --profile logs:\n"
-                                                        "  --cells N --chemistry C --capacity MAH "
-                                                        "(for --log)\n";
+    "load (default: the median cruise power of the last "
+    HEALTH_STR(HEALTH_RECENT_FLIGHTS) " flights, or of the log):\n"
+    "  --power W | --current A   constant power or current\n"
+    "  --profile LOG          the power of a logged flight, repeated (may be given again:\n"
+    "                         the profiles are flown one after the other)\n"
+    "limits:\n"
+    "  --reserve PCT          landing reserve SoC (default " PREDICT_STR(PREDICT_RESERVE_PCT)
+    ", common practice, or the settings file's)\n"
+    "  --cut-off V            cut-off voltage per cell under load (default: the pack's\n"
+    "                         remembered one, else per chemistry; --floor: old name)\n"
+    "model:\n"
+    "  --temp C               pack temperature: R0 is scaled by the Arrhenius form\n"
+    "  --tref C               temperature R0 was measured at (default 25)\n"
+    "  --ea J_PER_MOL         activation energy for R(T) (default 30000)\n"
+    "  --peukert K            Peukert exponent (rated-capacity form t = H (C/(I H))^K)\n"
+    "  --peukert-hours H      rated discharge time H for Peukert (default 1)\n"
+    "  --runs N --seed N      Monte Carlo runs (default 400, at most 5000) and seed\n"
+    "                         (default 1)\n"
+    "  --for S                also report the state after S seconds (at most 21600)\n"
+    "  --db PATH              history database\n"
+    "  --json                 JSON on standard output\n"
+    "reading --log and --profile logs:\n"
+    "  --cells N --chemistry C --capacity MAH (for --log)\n";
+/* clang-format on */
 
 enum {
     R_LOG = 256,
@@ -143,10 +132,10 @@ static double median_sd(const double *v, size_t n, double *sd)
     }
     double mean = 0, ss = 0;
     for (size_t k = 0; k < m; k++)
-        mean += buf[k] / m;
+        mean += buf[k] / (double)m; /* counts convert exactly (far below 2^53) */
     for (size_t k = 0; k < m; k++)
         ss += (buf[k] - mean) * (buf[k] - mean);
-    *sd = m > 1 ? sqrt(ss / (m - 1)) : 0.0;
+    *sd = m > 1 ? sqrt(ss / (double)(m - 1)) : 0.0;
     qsort(buf, m, sizeof *buf, cmd_cmp_double);
     return m % 2 ? buf[m / 2] : 0.5 * (buf[m / 2 - 1] + buf[m / 2]);
 }
@@ -388,6 +377,7 @@ static void setup(const struct predict_inputs *in, const struct predict_cli *cli
                   struct predict_pack *p, struct predict_opts *o, struct predict_spread *sp)
 {
     memset(p, 0, sizeof *p);
+    /* every field, load_sd included: a load given as an option has no spread */
     memset(sp, 0, sizeof *sp);
     p->chem = in->chem;
     p->cells = in->cells;
@@ -455,9 +445,9 @@ static enum pb_code load_profiles(const struct predict_cli *cli, double **t, dou
     *n = 0;
     *period = 0.0;
     for (int k = 0; k < cli->nprofiles; k++) {
-        FILE *fp = fopen(cli->profiles[k], "rb");
+        FILE *fp = cmd_open_log(cli->profiles[k], err);
         if (!fp)
-            return pb_error_set(err, PB_EINPUT, "cannot open '%s': %m", cli->profiles[k]);
+            return err->code;
         struct logread_stats st;
         struct series *s = logread_file(fp, cli->profiles[k], &cli->log.read, &st, err);
         fclose(fp);
@@ -525,9 +515,16 @@ enum pb_code cmd_predict(int argc, char **argv, struct app *app, struct pb_error
             break;
         case R_POWER:
             bad = cmd_parse_double("--power", v, 0, 1e6, &cli.power_w, err);
+            /* no load is no flight: 0 W "lasted" the simulator's whole horizon */
+            if (!bad && !(cli.power_w > 0))
+                bad = pb_error_set(err, PB_EUSAGE, "--power: expected a load above 0 W, got '%s'",
+                                   v) != PB_OK;
             break;
         case R_CURRENT:
             bad = cmd_parse_double("--current", v, 0, 1e5, &cli.current_a, err);
+            if (!bad && !(cli.current_a > 0))
+                bad = pb_error_set(err, PB_EUSAGE, "--current: expected a load above 0 A, got '%s'",
+                                   v) != PB_OK;
             break;
         case R_PROFILE:
             if (cli.nprofiles == MAX_PROFILES)
@@ -553,14 +550,17 @@ enum pb_code cmd_predict(int argc, char **argv, struct app *app, struct pb_error
             bad = cmd_parse_double("--peukert-hours", v, 0.01, 1000, &cli.peukh, err);
             break;
         case R_RUNS:
-            bad = cmd_parse_int("--runs", v, 10, 100000, &cli.runs, err);
+            /* 5000 runs put the 5th percentile within about 0.3 % (binomial standard
+             * error); more only costs time (each run can step through 6 h) */
+            bad = cmd_parse_int("--runs", v, 10, PREDICT_RUNS_MAX, &cli.runs, err);
             break;
         case R_SEED:
             bad = cmd_parse_int("--seed", v, 0, 2000000000, &n, err);
             cli.seed = (unsigned long)n;
             break;
         case R_FOR:
-            bad = cmd_parse_double("--for", v, 0.001, 1e6, &cli.for_s, err);
+            /* the simulator stops at its horizon: a state later than that is never known */
+            bad = cmd_parse_double("--for", v, 0.001, PREDICT_HORIZON_S, &cli.for_s, err);
             break;
         case R_DB:
             cli.db = v;
@@ -606,7 +606,7 @@ enum pb_code cmd_predict(int argc, char **argv, struct app *app, struct pb_error
         struct pack_rec p;
         struct health_rules rules;
         config_rules(&rules);
-        if ((rc = packview_open_store(cli.db, 1, &st, err)) != PB_OK ||
+        if ((rc = packview_open_store(cli.db, STORE_READ, &st, err)) != PB_OK ||
             (rc = store_pack_get(st, cli.id, &p, err)) != PB_OK ||
             (rc = packview_load(st, &p, &rules, TREND_WEEK, 0, 1000, &view, err)) != PB_OK ||
             (rc = inputs_from_history(&view, &in, err)) != PB_OK)
@@ -689,8 +689,10 @@ enum pb_code cmd_predict(int argc, char **argv, struct app *app, struct pb_error
         warn[nwarn++] = "the pack cannot deliver this power down to the reserve: voltage collapse";
     if (r.t_safe_s <= 0.0)
         warn[nwarn++] = "a limit is reached at the start: do not fly this load from this state";
-    if (status_line[0] && !cli.json)
-        printf("%s\n\n", status_line);
+    if (status_line[0] && !cli.json) {
+        char shown[4 * sizeof status_line];
+        printf("%s\n\n", utf8_printable(shown, sizeof shown, status_line));
+    }
     int wrc = cli.json ? report_predict_json(stdout, &in, &l, sp.load_sd, &o, &r, &mc, warn, nwarn)
                        : report_predict_text(stdout, &in, &l, sp.load_sd, &o, &r, &mc, warn, nwarn);
     rc = wrc ? pb_error_set(err, PB_EOUTPUT, "cannot write the output") : cmd_finish_stdout(err);

@@ -122,7 +122,7 @@ static enum pb_code load_named(int argc, char **argv, const struct trend_cli *cl
                                struct store **st, struct pack_view **views, size_t *nv,
                                struct pb_error *err)
 {
-    enum pb_code rc = packview_open_store(cli->db, 1, st, err);
+    enum pb_code rc = packview_open_store(cli->db, STORE_READ, st, err);
     if (rc != PB_OK)
         return rc;
     size_t want = (size_t)(argc - optind);

@@ -75,7 +75,7 @@ static double median_interval(const struct series *s)
     if (!dt)
         return s->t_s[s->n - 1] / (double)n;
     for (size_t j = 0; j < take; j++) {
-        size_t k = 1 + (take == n ? j : (size_t)((double)j * n / take));
+        size_t k = 1 + (take == n ? j : (size_t)((double)j * (double)n / (double)take));
         dt[j] = s->t_s[k] - s->t_s[k - 1];
     }
     double med = fit_median(dt, take);

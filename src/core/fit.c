@@ -257,6 +257,8 @@ static double select_kth(double *a, size_t n, size_t k)
 
 double fit_median(double *a, size_t n)
 {
+    if (n == 0)
+        return 0.0; /* as gsl_stats_median did: a one-sample log has no interval */
     size_t lhs = (n - 1) / 2, rhs = n / 2;
     double m = select_kth(a, n, lhs);
     if (lhs == rhs)

@@ -418,8 +418,8 @@ int health_trend(const struct health_flight *f, size_t n, int cells, double rate
             if (isfinite(cap[k]))
                 cs += cap[k], cn++;
         }
-        b->r0_mohm_cell = rn ? rs / rn : NAN;
-        b->capacity_pct = cn ? cs / cn : NAN;
+        b->r0_mohm_cell = rn ? rs / (double)rn : NAN; /* counts convert exactly */
+        b->capacity_pct = cn ? cs / (double)cn : NAN;
     }
     t->cycles_now = cyc[n - 1];
     t->days_now = days[n - 1];

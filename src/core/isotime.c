@@ -2,6 +2,7 @@
 #include "isotime.h"
 
 #include <math.h>
+#include <stdarg.h>
 #include <stdio.h>
 #include <string.h>
 #include <time.h>
@@ -21,8 +22,45 @@ static int digits(const char *s, size_t len, size_t at, int n, int *out)
     return 0;
 }
 
+static int why_set(char *why, size_t cap, const char *fmt, ...)
+    __attribute__((format(printf, 3, 4)));
+
+static int why_set(char *why, size_t cap, const char *fmt, ...)
+{
+    if (why && cap) {
+        va_list ap;
+        va_start(ap, fmt);
+        vsnprintf(why, cap, fmt, ap);
+        va_end(ap);
+    }
+    return -1;
+}
+
+static int leap(int y)
+{
+    return (y % 4 == 0 && y % 100 != 0) || y % 400 == 0;
+}
+
+static int days_in_month(int y, int m)
+{
+    static const int dm[12] = {31, 28, 31, 30, 31, 30, 31, 31, 30, 31, 30, 31};
+    return m == 2 && leap(y) ? 29 : dm[m - 1];
+}
+
+static const char *const month_name[12] = {"January",   "February", "March",    "April",
+                                           "May",       "June",     "July",     "August",
+                                           "September", "October",  "November", "December"};
+
 int isotime_parse(const char *s, size_t len, double *epoch_s, int *zone_given)
 {
+    return isotime_parse_why(s, len, epoch_s, zone_given, NULL, 0);
+}
+
+int isotime_parse_why(const char *s, size_t len, double *epoch_s, int *zone_given, char *why,
+                      size_t cap)
+{
+    static const char form[] =
+        "not an ISO 8601 date-time (YYYY-MM-DD[Thh:mm[:ss[.fff]]][Z|+hh:mm])";
     while (len > 0 && (*s == ' ' || *s == '\t')) {
         s++;
         len--;
@@ -34,25 +72,25 @@ int isotime_parse(const char *s, size_t len, double *epoch_s, int *zone_given)
     size_t k = 0;
     if (digits(s, len, 0, 4, &year) || len < 10 || s[4] != '-' || digits(s, len, 5, 2, &mon) ||
         s[7] != '-' || digits(s, len, 8, 2, &day))
-        return -1;
+        return why_set(why, cap, "%s", form);
     k = 10;
     if (k < len) {
         if (s[k] != 'T' && s[k] != ' ')
-            return -1;
+            return why_set(why, cap, "%s", form);
         k++;
         if (digits(s, len, k, 2, &hour) || k + 2 >= len || s[k + 2] != ':' ||
             digits(s, len, k + 3, 2, &min))
-            return -1;
+            return why_set(why, cap, "%s", form);
         k += 5;
         if (k < len && s[k] == ':') {
             if (digits(s, len, k + 1, 2, &sec))
-                return -1;
+                return why_set(why, cap, "%s", form);
             k += 3;
             if (k < len && (s[k] == '.' || s[k] == ',')) {
                 double scale = 0.1;
                 k++;
                 if (k >= len || s[k] < '0' || s[k] > '9')
-                    return -1;
+                    return why_set(why, cap, "%s", form);
                 while (k < len && s[k] >= '0' && s[k] <= '9') {
                     frac += (s[k] - '0') * scale;
                     scale *= 0.1;
@@ -70,24 +108,39 @@ int isotime_parse(const char *s, size_t len, double *epoch_s, int *zone_given)
         int sign = s[k] == '-' ? -1 : 1;
         int oh, om = 0;
         if (digits(s, len, k + 1, 2, &oh))
-            return -1;
+            return why_set(why, cap, "%s", form);
         k += 3;
         if (k < len && s[k] == ':')
             k++;
         if (k < len) {
             if (digits(s, len, k, 2, &om))
-                return -1;
+                return why_set(why, cap, "%s", form);
             k += 2;
         }
-        if (oh > 23 || om > 59)
-            return -1;
+        /* real zones lie within -12:00..+14:00 */
+        if (oh > 14 || om > 59 || (oh == 14 && om > 0))
+            return why_set(why, cap, "zone offset %02d:%02d is beyond 14:00", oh, om);
         zone = 1;
         offset_s = sign * (oh * 3600L + om * 60L);
     }
     if (k != len)
-        return -1;
-    if (mon < 1 || mon > 12 || day < 1 || day > 31 || hour > 24 || min > 59 || sec > 60)
-        return -1;
+        return why_set(why, cap, "%s", form);
+    /* each field in its range, with the reason: timegm would quietly roll
+     * 31 February into March and 24:00 into the next day */
+    if (year < ISOTIME_YEAR_MIN || year > ISOTIME_YEAR_MAX)
+        return why_set(why, cap, "year %04d is outside %d-%d", year, ISOTIME_YEAR_MIN,
+                       ISOTIME_YEAR_MAX);
+    if (mon < 1 || mon > 12)
+        return why_set(why, cap, "month %02d is not 01-12", mon);
+    if (day < 1 || day > days_in_month(year, mon))
+        return why_set(why, cap, "day %02d: %s %d has %d days", day, month_name[mon - 1], year,
+                       days_in_month(year, mon));
+    if (hour > 23)
+        return why_set(why, cap, "hour %02d is not 00-23", hour);
+    if (min > 59)
+        return why_set(why, cap, "minute %02d is not 00-59", min);
+    if (sec > 59)
+        return why_set(why, cap, "second %02d is not 00-59 (leap seconds are not kept)", sec);
     struct tm tm = {0};
     tm.tm_year = year - 1900;
     tm.tm_mon = mon - 1;
@@ -96,10 +149,14 @@ int isotime_parse(const char *s, size_t len, double *epoch_s, int *zone_given)
     tm.tm_min = min;
     tm.tm_sec = sec;
     time_t t = timegm(&tm);
-    /* timegm normalises 31 February into March; reject such dates */
-    if (tm.tm_mday != day && hour < 24)
-        return -1;
-    *epoch_s = (double)t + frac - (double)offset_s;
+    double e = (double)t + frac - (double)offset_s;
+    /* the instant (as written, to the millisecond) must be inside the range too:
+     * a zone offset can move the first and last hours out of it */
+    double ms = round(e * 1000.0);
+    if (ms < ISOTIME_EPOCH_MIN_S * 1000.0 || ms >= ISOTIME_EPOCH_END_S * 1000.0)
+        return why_set(why, cap, "the time is outside %d-%d once its zone offset is applied",
+                       ISOTIME_YEAR_MIN, ISOTIME_YEAR_MAX);
+    *epoch_s = e;
     if (zone_given)
         *zone_given = zone;
     return 0;

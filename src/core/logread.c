@@ -3,6 +3,7 @@
 
 #include <csv.h>
 #include <ctype.h>
+#include <errno.h>
 #include <math.h>
 #include <stdlib.h>
 #include <string.h>
@@ -101,6 +102,22 @@ static int space_only(unsigned char c)
 }
 
 /* ---- dialect ---------------------------------------------------------- */
+
+/* UTF-16 (what some Windows loggers and spreadsheet exports write): a byte-order
+ * mark FF FE or FE FF, or ASCII with a NUL in every other byte. */
+static int looks_utf16(const char *buf, size_t len)
+{
+    const unsigned char *u = (const unsigned char *)buf;
+    if (len >= 2 && ((u[0] == 0xff && u[1] == 0xfe) || (u[0] == 0xfe && u[1] == 0xff)))
+        return 1;
+    size_t n = len < 64 ? len - len % 2 : 64, nul_even = 0, nul_odd = 0;
+    for (size_t k = 0; k < n; k++)
+        if (u[k] == 0 && k % 2)
+            nul_odd++;
+        else if (u[k] == 0)
+            nul_even++;
+    return n >= 8 && (nul_odd == n / 2 || nul_even == n / 2) && nul_odd + nul_even == n / 2;
+}
 
 static int count_outside_quotes(const char *p, size_t len, char d)
 {
@@ -210,8 +227,7 @@ static int slot_for(const struct col_spec *sp)
     return -1;
 }
 
-static int assign(struct reader *r, int col, const struct col_spec *sp, const char *name,
-                  int override)
+static int assign(struct reader *r, int col, const struct col_spec *sp, int override)
 {
     int slot = slot_for(sp);
     if (slot < 0) {
@@ -233,7 +249,6 @@ static int assign(struct reader *r, int col, const struct col_spec *sp, const ch
     for (int s = 0; s < NSLOTS; s++) /* an override moves a column out of its old slot */
         if (override && r->slot_col[s] == col)
             r->slot_col[s] = -1;
-    (void)name;
     r->slot_col[slot] = col;
     r->spec[slot] = *sp;
     r->col_slot[col] = slot;
@@ -254,8 +269,19 @@ static int parse_name(struct reader *r, const char *name, size_t len, struct col
     return 0;
 }
 
-/* Applies "ROLE[_UNIT]=NAME|INDEX,..." on top of the detected layout. */
-static int apply_map(struct reader *r, char **names, int n)
+/* Applies "ROLE[_UNIT]=NAME|INDEX,..." on top of the detected layout. A name
+ * is looked up among the header's fields and the --columns entries (each list
+ * with its own length: the two can differ); an index may be any of the ncols
+ * columns. */
+static int find_name(char **names, int n, const char *target, size_t tlen)
+{
+    for (int c = 0; names && c < n; c++)
+        if (names[c] && strlen(names[c]) == tlen && strncasecmp(names[c], target, tlen) == 0)
+            return c;
+    return -1;
+}
+
+static int apply_map(struct reader *r, char **header, int nheader, char **layout, int nlayout)
 {
     const char *p = r->opts->map;
     while (p && *p) {
@@ -281,19 +307,19 @@ static int apply_map(struct reader *r, char **names, int n)
         int col = -1;
         char *iend = NULL;
         long idx = strtol(target, &iend, 10);
-        if (tlen > 0 && iend == target + tlen && idx >= 1 && idx <= n)
+        if (tlen > 0 && iend == target + tlen && idx >= 1 && idx <= r->ncols)
             col = (int)idx - 1;
-        for (int c = 0; c < n && col < 0; c++)
-            if (names && names[c] && strlen(names[c]) == tlen &&
-                strncasecmp(names[c], target, tlen) == 0)
-                col = c;
+        if (col < 0)
+            col = find_name(header, nheader, target, tlen);
+        if (col < 0)
+            col = find_name(layout, nlayout, target, tlen);
         if (col < 0) {
             pb_error_set(r->err, PB_EUSAGE, "--map: no column '%.*s' in %s", (int)tlen, target,
                          r->name);
             r->failed = 1;
             return -1;
         }
-        assign(r, col, &sp, names ? names[col] : "", 1);
+        assign(r, col, &sp, 1);
         p = end ? end + 1 : NULL;
     }
     return 0;
@@ -385,9 +411,10 @@ static int map_columns(struct reader *r)
         if (parse_name(r, names[c], strlen(names[c]), &sp, c + 1,
                        layout ? "--columns entry" : "column") != 0)
             goto cleanup;
-        assign(r, c, &sp, names[c], 0);
+        assign(r, c, &sp, 0);
     }
-    if (r->opts->map && apply_map(r, is_header ? r->first_row : layout, n) != 0)
+    if (r->opts->map && apply_map(r, is_header ? r->first_row : NULL,
+                                  is_header ? r->first_row_n : 0, layout, nlayout) != 0)
         goto cleanup;
 
     const char *where = layout ? "--columns" : "the header";
@@ -776,7 +803,7 @@ static void end_record(struct reader *r)
     if (r->failed)
         return;
     if (r->comment || nfields == 0) {
-        r->st->comment_lines += r->comment;
+        r->st->comment_lines += r->comment != 0;
         r->comment = 0;
         return;
     }
@@ -988,7 +1015,7 @@ static int looks_discharge_negative(const struct series *s)
         v0 += s->v_v[k];
         v1 += s->v_v[s->n - 1 - k];
     }
-    return loaded > 0 && neg > 0.8 * loaded && v1 < v0;
+    return loaded > 0 && (double)neg > 0.8 * (double)loaded && v1 < v0;
 }
 
 static void resolve_sign(struct reader *r)
@@ -1218,7 +1245,7 @@ struct series *logread_file(FILE *fp, const char *name, const struct logread_opt
     if (opts->on_block && len)
         opts->on_block(opts->block_ctx, buf, len);
     if (ferror(fp)) {
-        pb_error_set(err, PB_EINPUT, "%s: read error", name);
+        pb_error_set(err, PB_EINPUT, "%s: read error: %s", name, strerror(errno));
         goto cleanup;
     }
     if (len == 0) {
@@ -1229,6 +1256,11 @@ struct series *logread_file(FILE *fp, const char *name, const struct logread_opt
     if (len >= 3 && memcmp(buf, "\xEF\xBB\xBF", 3) == 0) {
         stats->bom = 1;
         start = 3;
+    }
+    if (looks_utf16(buf, len)) {
+        pb_error_set(err, PB_EINPUT,
+                     "%s: UTF-16 text: convert it to UTF-8 (e.g. iconv -f UTF-16 -t UTF-8)", name);
+        goto cleanup;
     }
     const char *nul = memchr(buf, '\0', len);
     if (nul) {
@@ -1272,7 +1304,7 @@ struct series *logread_file(FILE *fp, const char *name, const struct logread_opt
         last = buf[len - 1];
     }
     if (!r.failed && ferror(fp)) {
-        pb_error_set(err, PB_EINPUT, "%s: read error", name);
+        pb_error_set(err, PB_EINPUT, "%s: read error: %s", name, strerror(errno));
         goto cleanup;
     }
     if (!r.failed) {

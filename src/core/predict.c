@@ -18,7 +18,7 @@ void predict_opts_default(struct predict_opts *o)
      * 20-50 kJ/mol; 30 kJ/mol is a middle value */
     o->ea_j_mol = 30000.0;
     o->dt_s = 0.5;
-    o->t_max_s = 6.0 * 3600.0;
+    o->t_max_s = PREDICT_HORIZON_S;
     o->peukert_h = 1.0;
 }
 

@@ -67,6 +67,10 @@ struct predict_run {
 #define PREDICT_RESERVE_PCT 30
 #define PREDICT_STR_(x) #x
 #define PREDICT_STR(x) PREDICT_STR_(x)
+/* The simulator's horizon (predict_opts_default's t_max_s) and the most
+ * Monte Carlo runs the command asks for. */
+#define PREDICT_HORIZON_S 21600.0
+#define PREDICT_RUNS_MAX 5000
 
 void predict_opts_default(struct predict_opts *o);
 

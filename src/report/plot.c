@@ -1,6 +1,8 @@
 #define _GNU_SOURCE /* mkstemp, fchmod, strdup, gmtime_r, M_PI */
 #include "plot.h"
 
+#include "outfile.h"
+
 #include <cairo-pdf.h>
 #include <cairo-svg.h>
 #include <cairo.h>
@@ -24,10 +26,10 @@ struct plot {
     double lw;   /* base line width */
     cairo_surface_t *surface;
     cairo_t *cr;
-    FILE *tmp;
+    struct outfile *out; /* the one atomic writer (outfile.h) */
+    FILE *tmp;           /* its stream */
     int write_failed;
-    char *path, *tmp_path;
-    int finished;
+    char *path;
 };
 
 static int live_plots; /* plots not yet freed: the last one releases the font caches */
@@ -77,33 +79,18 @@ struct plot *plot_new(const char *path, int w, int h, struct pb_error *err)
     double side = w < h ? w : h;
     p->font = fmax(9.0, fmin(side / 58.0, 64.0));
     p->lw = p->font / 10.0;
-    size_t len = strlen(path);
     p->path = strdup(path);
-    p->tmp_path = malloc(len + 16);
-    if (!p->path || !p->tmp_path) {
+    if (!p->path) {
         pb_error_set(err, PB_ENOMEM, "out of memory");
         plot_free(p);
         return NULL;
     }
-    snprintf(p->tmp_path, len + 16, "%s.tmp-XXXXXX", path);
-    int fd = mkstemp(p->tmp_path);
-    if (fd < 0) {
-        pb_error_set(err, PB_EOUTPUT, "cannot write '%s': %s", path, strerror(errno));
-        p->tmp_path[0] = '\0';
+    p->out = outfile_open(path, err);
+    if (!p->out) {
         plot_free(p);
         return NULL;
     }
-    /* mkstemp makes the file private; a plot is a document like any other */
-    mode_t mask = umask(0);
-    umask(mask);
-    (void)fchmod(fd, 0666 & ~mask);
-    p->tmp = fdopen(fd, "wb");
-    if (!p->tmp) {
-        close(fd);
-        pb_error_set(err, PB_EOUTPUT, "cannot write '%s': %s", path, strerror(errno));
-        plot_free(p);
-        return NULL;
-    }
+    p->tmp = outfile_fp(p->out);
     if (fmt == FMT_PNG)
         p->surface = cairo_image_surface_create(CAIRO_FORMAT_ARGB32, w, h);
     else if (fmt == FMT_SVG)
@@ -142,53 +129,35 @@ enum pb_code plot_finish(struct plot *p, struct pb_error *err)
         s = cairo_surface_status(p->surface);
     cairo_surface_destroy(p->surface);
     p->surface = NULL;
-    int bad = p->write_failed || ferror(p->tmp);
-    bad |= fclose(p->tmp) != 0;
+    struct outfile *out = p->out;
+    p->out = NULL;
     p->tmp = NULL;
-    if (s != CAIRO_STATUS_SUCCESS || bad)
+    if (s != CAIRO_STATUS_SUCCESS && !p->write_failed) {
+        outfile_discard(out);
         return pb_error_set(err, PB_EOUTPUT, "cannot write '%s': %s", p->path,
-                            bad ? "write failed" : cairo_status_to_string(s));
-    if (rename(p->tmp_path, p->path) != 0)
-        return pb_error_set(err, PB_EOUTPUT, "cannot write '%s': %s", p->path, strerror(errno));
-    p->finished = 1;
-    return PB_OK;
+                            cairo_status_to_string(s));
+    }
+    return outfile_commit(out, err); /* a failed write is found and said there */
 }
 
-static int plot_axes_json(const char *path, const struct plot *p, const struct plot_panel *pa,
-                          size_t n);
+static int plot_axes_json(FILE *out, const struct plot *p, const struct plot_panel *pa, size_t n);
 
 enum pb_code plot_finish_map(struct plot *p, const char *map_path, const struct plot_panel *pa,
                              size_t n, struct pb_error *err)
 {
     if (!map_path)
         return plot_finish(p, err);
-    size_t len = strlen(map_path) + 16;
-    char *tmp = malloc(len);
-    if (!tmp)
-        return pb_error_set(err, PB_ENOMEM, "out of memory");
-    snprintf(tmp, len, "%s.tmp-XXXXXX", map_path);
-    int fd = mkstemp(tmp);
-    if (fd < 0) {
-        pb_error_set(err, PB_EOUTPUT, "cannot write the axes map '%s': %s", map_path,
-                     strerror(errno));
-        free(tmp);
-        return PB_EOUTPUT;
-    }
-    mode_t mask = umask(0);
-    umask(mask);
-    (void)fchmod(fd, 0666 & ~mask);
-    close(fd);
+    struct outfile *map = outfile_open(map_path, err);
+    if (!map)
+        return err->code;
     enum pb_code rc = PB_OK;
-    if (plot_axes_json(tmp, p, pa, n) != 0)
+    if (plot_axes_json(outfile_fp(map), p, pa, n) != 0)
         rc = pb_error_set(err, PB_EOUTPUT, "cannot write the axes map '%s'", map_path);
     if (rc == PB_OK)
         rc = plot_finish(p, err);
-    if (rc == PB_OK && rename(tmp, map_path) != 0)
-        rc = pb_error_set(err, PB_EOUTPUT, "cannot write the axes map '%s': %s", map_path,
-                          strerror(errno));
-    if (rc != PB_OK)
-        unlink(tmp);
-    free(tmp);
+    if (rc == PB_OK)
+        return outfile_commit(map, err);
+    outfile_discard(map);
     return rc;
 }
 
@@ -203,12 +172,8 @@ void plot_free(struct plot *p)
         cairo_surface_finish(p->surface);
         cairo_surface_destroy(p->surface);
     }
-    if (p->tmp)
-        fclose(p->tmp);
-    if (!p->finished && p->tmp_path && p->tmp_path[0])
-        unlink(p->tmp_path);
+    outfile_discard(p->out); /* NULL once finished */
     free(p->path);
-    free(p->tmp_path);
     free(p);
     if (live_plots == 0) {
         /* cairo's and fontconfig's caches live for the process; the tool
@@ -984,9 +949,8 @@ static json_t *axis_json(const struct plot_axis *ax)
                      ax->ticks.count, "label", ax->label, "dates", ax->dates);
 }
 
-/* The axes map (see plot_finish_map) as JSON at path: 0, or -1. */
-static int plot_axes_json(const char *path, const struct plot *p, const struct plot_panel *pa,
-                          size_t n)
+/* The axes map (see plot_finish_map) as JSON on out: 0, or -1. */
+static int plot_axes_json(FILE *out, const struct plot *p, const struct plot_panel *pa, size_t n)
 {
     static const char *const names[] = {"png", "svg", "pdf"};
     json_t *root = json_pack("{s:f, s:f, s:s, s:[]}", "width", p->w, "height", p->h, "format",
@@ -1010,7 +974,7 @@ static int plot_axes_json(const char *path, const struct plot *p, const struct p
             return -1;
         }
     }
-    int rc = json_dump_file(root, path, JSON_INDENT(2) | JSON_REAL_PRECISION(12));
+    int rc = json_dumpf(root, out, JSON_INDENT(2) | JSON_REAL_PRECISION(12));
     json_decref(root);
     return rc == 0 ? 0 : -1;
 }

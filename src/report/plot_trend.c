@@ -286,7 +286,7 @@ enum pb_code plot_trend(const char *path, const struct plot_opts *o, const struc
                     sx += x[k], m++;
             double yb = j == 0 ? tb->r0_mohm_cell : tb->capacity_pct;
             if (m)
-                plot_marker(p, pp, sx / m, yb, MARK_DIAMOND, 1, &st_bucket);
+                plot_marker(p, pp, sx / (double)m, yb, MARK_DIAMOND, 1, &st_bucket);
         }
         /* flights over the bucket means: a flight alone in its bucket stays visible */
         for (size_t k = 0; k < n; k++)

@@ -4,6 +4,14 @@
 #include "jsonout.h"
 #include "report.h"
 
+#include "../core/utf8.h"
+
+/* Text from the store or the user, escaped for a terminal (utf8_printable):
+ * buffers hold four times the stored length (every byte as \\xHH). */
+#define SHOWN_LABEL (4 * 128 + 4)
+#define SHOWN_TEXT (4 * 320 + 4)
+#define SHOW(buf, s) utf8_printable(buf, sizeof buf, s)
+
 #include <jansson.h>
 #include <math.h>
 #include <stdlib.h>
@@ -57,7 +65,9 @@ static json_t *settings_obj(const char *settings)
         if (eq) {
             char key[64];
             snprintf(key, sizeof key, "%.*s", (int)(eq - p), p);
-            json_object_set_new(o, key, json_stringn(eq + 1, len - (size_t)(eq - p) - 1));
+            char val[1024];
+            snprintf(val, sizeof val, "%.*s", (int)(len - (size_t)(eq - p) - 1), eq + 1);
+            jout_set(o, key, jout_str(val));
         }
         p += len + (end != NULL);
     }
@@ -66,12 +76,13 @@ static json_t *settings_obj(const char *settings)
 
 static json_t *pack_obj(const struct pack_rec *p)
 {
-    json_t *o = json_pack("{s:s, s:i, s:i, s:s, s:f, s:o, s:o, s:s, s:o, s:o}", "id", p->label,
-                          "cells", p->cells, "parallel", p->parallel, "chemistry", p->chemistry,
-                          "capacity_mah", p->capacity_mah, "since", jout_str(p->since), "note",
-                          jout_str(p->note), "created_at", p->created_at, "retired_at",
-                          jout_str(p->retired_at), "retire_reason", jout_str(p->retire_reason));
-    json_object_set_new(o, "reading_settings", settings_obj(p->settings));
+    json_t *o =
+        json_pack("{s:o, s:i, s:i, s:s, s:f, s:o, s:o, s:s, s:o, s:o}", "id", jout_str(p->label),
+                  "cells", p->cells, "parallel", p->parallel, "chemistry", p->chemistry,
+                  "capacity_mah", p->capacity_mah, "since", jout_str(p->since), "note",
+                  jout_str(p->note), "created_at", p->created_at, "retired_at",
+                  jout_str(p->retired_at), "retire_reason", jout_str(p->retire_reason));
+    jout_set(o, "reading_settings", settings_obj(p->settings));
     return o;
 }
 
@@ -91,7 +102,7 @@ int report_pack_list(FILE *out, const struct pack_rec *p, size_t n, enum fleet_f
     if (fmt == FLEET_JSON) {
         json_t *a = json_array();
         for (size_t k = 0; k < n; k++)
-            json_array_append_new(a, pack_obj(&p[k]));
+            jout_append(a, pack_obj(&p[k]));
         return jout_write(out, a);
     }
     fprintf(out, "%-16s %-7s %-5s %10s  %-10s  %s\n", "pack", "layout", "chem", "rated mAh",
@@ -99,8 +110,9 @@ int report_pack_list(FILE *out, const struct pack_rec *p, size_t n, enum fleet_f
     for (size_t k = 0; k < n; k++) {
         char layout[24];
         snprintf(layout, sizeof layout, "%dS%dP", p[k].cells, p[k].parallel);
-        fprintf(out, "%-16s %-7s %-5s %10.0f  %-10s  %s%s\n", p[k].label, layout, p[k].chemistry,
-                p[k].capacity_mah, p[k].since[0] ? p[k].since : "-",
+        char lb[SHOWN_LABEL], sb[SHOWN_LABEL];
+        fprintf(out, "%-16s %-7s %-5s %10.0f  %-10s  %s%s\n", SHOW(lb, p[k].label), layout,
+                p[k].chemistry, p[k].capacity_mah, p[k].since[0] ? SHOW(sb, p[k].since) : "-",
                 p[k].retired_at[0] ? "retired " : "in service", p[k].retired_at);
     }
     if (n == 0)
@@ -130,22 +142,25 @@ static json_t *health_obj(const struct pack_view *v)
 {
     const struct pack_health *h = &v->health;
     json_t *o =
-        json_pack("{s:I, s:o, s:o, s:o, s:o, s:o, s:o, s:o, s:i, s:s, s:s}", "flights",
+        json_pack("{s:I, s:o, s:o, s:o, s:o, s:o, s:o, s:o, s:i, s:s, s:o}", "flights",
                   (json_int_t)h->flights, "equivalent_cycles", jout_num(h->cycles), "last_flown",
                   jout_date(h->last_epoch_s), "r0_mohm_per_cell", jout_num(h->r0_now_mohm_cell),
                   "r0_baseline_mohm_per_cell", jout_num(h->r0_base_mohm_cell), "r0_ratio",
                   jout_num(h->r0_ratio), "capacity_pct", jout_num(h->capacity_pct),
                   "cell_spread_mv", jout_num(h->spread_mv), "overdischarges", h->overdischarges,
                   "status", v->pack.retired_at[0] ? "retired" : health_status_name(h->status),
-                  "reason", v->pack.retired_at[0] ? v->pack.retire_reason : h->reason);
-    json_object_set_new(o, "weakest_cell", weakest_obj(h));
+                  "reason", jout_str(v->pack.retired_at[0] ? v->pack.retire_reason : h->reason));
+    jout_set(o, "weakest_cell", weakest_obj(h));
     return o;
 }
 
-/* The reason for the status, in the output's units (text only). */
+/* The reason for the status, in the output's units, escaped for the
+ * terminal (text only). */
 static const char *why_text(const struct pack_view *v, char *buf, size_t cap)
 {
-    return report_units(v->pack.retired_at[0] ? v->pack.retire_reason : v->health.reason, buf, cap);
+    char u[400];
+    report_units(v->pack.retired_at[0] ? v->pack.retire_reason : v->health.reason, u, sizeof u);
+    return utf8_printable(buf, cap, u);
 }
 
 static const char *status_of(const struct pack_view *v)
@@ -156,15 +171,14 @@ static const char *status_of(const struct pack_view *v)
 static json_t *flight_obj(const struct flight_rec *f)
 {
     json_t *o = json_pack(
-        "{s:o, s:s, s:s, s:o, s:o, s:o, s:o, s:o, s:o, s:o, s:o, s:i}", "flown_at",
-        jout_date(f->flown_epoch_s), "date_source", f->date_source, "source", f->source,
+        "{s:o, s:s, s:o, s:o, s:o, s:o, s:o, s:o, s:o, s:o, s:o, s:i}", "flown_at",
+        jout_date(f->flown_epoch_s), "date_source", f->date_source, "source", jout_str(f->source),
         "duration_s", jout_num(f->duration_s), "charge_used_mah", jout_num(f->charge_used_mah),
         "r0_mohm", jout_num(f->r0_mohm), "capacity_mah", jout_num(f->capacity_mah), "soc_start_pct",
         jout_num(f->soc_start_pct), "soc_end_pct", jout_num(f->soc_end_pct), "cell_spread_rest_mv",
         jout_num(f->cell_spread_rest_mv), "time_below_floor_s", jout_num(f->time_below_floor_s),
         "warnings", f->warnings);
-    json_object_set_new(o, "weakest_cell",
-                        f->weakest_cell > 0 ? json_integer(f->weakest_cell) : json_null());
+    jout_set(o, "weakest_cell", f->weakest_cell > 0 ? json_integer(f->weakest_cell) : json_null());
     return o;
 }
 
@@ -184,21 +198,22 @@ int report_pack_show(FILE *out, const struct pack_view *v, enum fleet_format fmt
     }
     if (fmt == FLEET_JSON) {
         json_t *o = pack_obj(p);
-        json_object_set_new(o, "health", health_obj(v));
+        jout_set(o, "health", health_obj(v));
         json_t *fl = json_array();
         for (size_t k = 0; k < v->nflights; k++)
-            json_array_append_new(fl, flight_obj(&v->flights[k]));
-        json_object_set_new(o, "flights", fl);
+            jout_append(fl, flight_obj(&v->flights[k]));
+        jout_set(o, "flights", fl);
         return jout_write(out, o);
     }
     char b1[32], b2[32], b3[32];
-    fprintf(out, "pack %s: %dS%dP %s, rated %.0f mAh", p->label, p->cells, p->parallel,
+    char lb[SHOWN_LABEL], tb[SHOWN_TEXT];
+    fprintf(out, "pack %s: %dS%dP %s, rated %.0f mAh", SHOW(lb, p->label), p->cells, p->parallel,
             p->chemistry, p->capacity_mah);
     if (p->since[0])
-        fprintf(out, ", in service since %s", p->since);
+        fprintf(out, ", in service since %s", SHOW(lb, p->since));
     fprintf(out, "\n");
     if (p->note[0])
-        fprintf(out, "  note: %s\n", p->note);
+        fprintf(out, "  note: %s\n", SHOW(tb, p->note));
     if (p->settings[0]) {
         fprintf(out, "  reading settings:");
         for (const char *q = p->settings; *q;) {
@@ -213,7 +228,7 @@ int report_pack_show(FILE *out, const struct pack_view *v, enum fleet_format fmt
         fprintf(out, "\n");
     }
     if (p->retired_at[0])
-        fprintf(out, "  retired %s: %s\n", p->retired_at, p->retire_reason);
+        fprintf(out, "  retired %s: %s\n", p->retired_at, SHOW(tb, p->retire_reason));
     fprintf(out, "  %zu flight%s, %.1f equivalent cycles, last flown %s\n", h->flights,
             h->flights == 1 ? "" : "s", isfinite(h->cycles) ? h->cycles : 0.0,
             day(h->last_epoch_s, b1, sizeof b1));
@@ -230,7 +245,8 @@ int report_pack_show(FILE *out, const struct pack_view *v, enum fleet_format fmt
                 "  weakest cell: %d, the lowest under load in %zu of the last %zu flight%s "
                 "with cell voltages\n",
                 h->weakest_cell, h->weakest_count, h->weakest_of, h->weakest_of == 1 ? "" : "s");
-    fprintf(out, "  status: %s (%s)\n", status_of(v), why_text(v, (char[400]){0}, 400));
+    fprintf(out, "  status: %s (%s)\n", status_of(v),
+            why_text(v, (char[SHOWN_TEXT]){0}, SHOWN_TEXT));
     if (v->nflights) {
         char ir[24];
         ir_header(ir, sizeof ir);
@@ -317,22 +333,43 @@ int report_flight_list(FILE *out, const struct flight_rec *f, const char *const 
         char wk[16] = "-";
         if (f[k].weakest_cell > 0)
             snprintf(wk, sizeof wk, "%d", f[k].weakest_cell);
+        char lb[SHOWN_LABEL], sb[SHOWN_TEXT];
         fprintf(out, "%6lld  %-12s %-10s %-6s %7s %7s %8s %8s %9s %5s %6d  %s\n",
-                (long long)f[k].id, labels[k], day(f[k].flown_epoch_s, b[0], 32), f[k].date_source,
-                fmt_num(b[1], 32, "%.1f", f[k].duration_s / 60.0),
+                (long long)f[k].id, SHOW(lb, labels[k]), day(f[k].flown_epoch_s, b[0], 32),
+                f[k].date_source, fmt_num(b[1], 32, "%.1f", f[k].duration_s / 60.0),
                 fmt_num(b[2], 32, "%.0f", f[k].charge_used_mah),
                 fmt_num(b[3], 32, "%.2f", f[k].r0_mohm),
-                fmt_num(b[4], 32, "%.0f", f[k].capacity_mah), soc, wk, f[k].warnings, f[k].source);
+                fmt_num(b[4], 32, "%.0f", f[k].capacity_mah), soc, wk, f[k].warnings,
+                SHOW(sb, f[k].source));
     }
     if (n == 0)
         fprintf(out, "(no flights)\n");
     return ferror(out) ? -1 : 0;
 }
 
+/* Bytes of a character a spreadsheet skips before a formula: space, tab, CR,
+ * LF, no-break space and the zero-width ones (U+200B-U+200D, U+2060, U+FEFF). */
+static size_t csv_skippable(const char *t)
+{
+    static const char *const zw[] = {"\xc2\xa0",     "\xe2\x80\x8b", "\xe2\x80\x8c",
+                                     "\xe2\x80\x8d", "\xe2\x81\xa0", "\xef\xbb\xbf"};
+    if (*t == ' ' || *t == '\t' || *t == '\r' || *t == '\n')
+        return 1;
+    for (size_t k = 0; k < sizeof zw / sizeof *zw; k++)
+        if (strncmp(t, zw[k], strlen(zw[k])) == 0)
+            return strlen(zw[k]);
+    return 0;
+}
+
 void report_csv_cell(FILE *out, const char *t)
 {
+    /* a cell that starts, after anything a spreadsheet skips, with a formula
+     * sign is written as text (a leading quote) */
+    const char *f = t;
+    for (size_t n; (n = csv_skippable(f)) > 0;)
+        f += n;
     int formula =
-        t[0] == '=' || t[0] == '+' || t[0] == '-' || t[0] == '@' || t[0] == '\t' || t[0] == '\r';
+        f[0] == '=' || f[0] == '+' || f[0] == '-' || f[0] == '@' || t[0] == '\t' || t[0] == '\r';
     int quote = formula || strpbrk(t, ",\"\n\r") != NULL;
     if (quote)
         fputc('"', out);
@@ -353,17 +390,18 @@ int report_fleet(FILE *out, const struct pack_view *v, size_t n, enum fleet_form
     if (fmt == FLEET_JSON) {
         json_t *a = json_array();
         for (size_t k = 0; k < n; k++) {
-            json_t *o = json_pack("{s:s, s:i, s:s, s:f}", "id", v[k].pack.label, "cells",
+            json_t *o = json_pack("{s:o, s:i, s:s, s:f}", "id", jout_str(v[k].pack.label), "cells",
                                   v[k].pack.cells, "chemistry", v[k].pack.chemistry,
                                   "rated_capacity_mah", v[k].pack.capacity_mah);
             json_t *h = health_obj(&v[k]);
-            json_object_update(o, h);
+            if (!o || !h || json_object_update(o, h) != 0)
+                jout_set(o, "health", NULL); /* marks the document: never a pack without status */
             json_decref(h);
             if (safe)
-                json_object_set_new(o, "safe_time_s",
-                                    json_pack("{s:o, s:o}", "conservative", jout_num(safe[2 * k]),
-                                              "median", jout_num(safe[2 * k + 1])));
-            json_array_append_new(a, o);
+                jout_set(o, "safe_time_s",
+                         json_pack("{s:o, s:o}", "conservative", jout_num(safe[2 * k]), "median",
+                                   jout_num(safe[2 * k + 1])));
+            jout_append(a, o);
         }
         return jout_write(out, a);
     }
@@ -412,13 +450,14 @@ int report_fleet(FILE *out, const struct pack_view *v, size_t n, enum fleet_form
         char sm[40] = "";
         if (safe)
             snprintf(sm, sizeof sm, "  %9s", fmt_num(b[6], 32, "%.1f", safe[2 * k] / 60.0));
-        char wk[32];
-        fprintf(out, "%-14s %7zu %7s %-10s %9s %7s %6s %9s %-9s %10d%s  %-7s %s\n", v[k].pack.label,
-                h->flights, fmt_num(b[0], 32, "%.1f", h->cycles), day(h->last_epoch_s, b[1], 32),
-                fmt_num(b[2], 32, "%.2f", h->r0_now_mohm_cell),
+        char wk[32], lb[SHOWN_LABEL];
+        fprintf(out, "%-14s %7zu %7s %-10s %9s %7s %6s %9s %-9s %10d%s  %-7s %s\n",
+                SHOW(lb, v[k].pack.label), h->flights, fmt_num(b[0], 32, "%.1f", h->cycles),
+                day(h->last_epoch_s, b[1], 32), fmt_num(b[2], 32, "%.2f", h->r0_now_mohm_cell),
                 fmt_num(b[3], 32, "x%.2f", h->r0_ratio), fmt_num(b[4], 32, "%.0f", h->capacity_pct),
                 fmt_num(b[5], 32, "%.0f", h->spread_mv), weakest_text(h, wk, sizeof wk),
-                h->overdischarges, sm, status_of(&v[k]), why_text(&v[k], (char[400]){0}, 400));
+                h->overdischarges, sm, status_of(&v[k]),
+                why_text(&v[k], (char[SHOWN_TEXT]){0}, SHOWN_TEXT));
     }
     if (safe)
         fprintf(out,
@@ -496,8 +535,8 @@ static json_t *trend_obj(const struct pack_view *v, enum trend_by by, double hor
                          "r0_mohm_per_cell", jout_num(x->r0_mohm_cell), "capacity_pct",
                          jout_num(x->capacity_pct)));
     }
-    return json_pack("{s:s, s:s, s:f, s:o, s:o, s:o, s:o, s:o}", "id", v->pack.label, "by",
-                     bynames[by], "horizon_cycles", horizon, "equivalent_cycles",
+    return json_pack("{s:o, s:s, s:f, s:o, s:o, s:o, s:o, s:o}", "id", jout_str(v->pack.label),
+                     "by", bynames[by], "horizon_cycles", horizon, "equivalent_cycles",
                      jout_num(t->cycles_now), "buckets", b, "r0_mohm_per_cell",
                      trend_line_obj(&t->r0), "capacity_pct", trend_line_obj(&t->capacity), "health",
                      health_obj(v));
@@ -606,9 +645,10 @@ int report_trend(FILE *out, const struct pack_view *v, size_t n, enum trend_by b
         const struct pack_trend *t = &v[k].trend;
         if (k)
             fprintf(out, "\n");
+        char lb[SHOWN_LABEL];
         fprintf(out, "trend of pack %s by %s: %zu flight%s, %.1f equivalent cycles\n\n",
-                v[k].pack.label, bynames[by], v[k].nflights, v[k].nflights == 1 ? "" : "s",
-                isfinite(t->cycles_now) ? t->cycles_now : 0.0);
+                SHOW(lb, v[k].pack.label), bynames[by], v[k].nflights,
+                v[k].nflights == 1 ? "" : "s", isfinite(t->cycles_now) ? t->cycles_now : 0.0);
         char ir[24];
         ir_header(ir, sizeof ir);
         fprintf(out, "  %-14s %7s %-10s %9s %*s %8s\n", by == TREND_CYCLE ? "cycles" : "period",
@@ -636,8 +676,7 @@ struct compare_row {
 
 static const char *cr_pack(const struct pack_view *x, char *b, size_t cap)
 {
-    (void)b, (void)cap;
-    return x->pack.label;
+    return utf8_printable(b, cap, x->pack.label);
 }
 static const char *cr_chem(const struct pack_view *x, char *b, size_t cap)
 {
@@ -740,10 +779,10 @@ int report_compare(FILE *out, const struct pack_view *v, size_t n, enum fleet_fo
         json_t *a = json_array();
         for (size_t k = 0; k < n; k++) {
             json_t *o =
-                json_pack("{s:s, s:o, s:o, s:o}", "id", v[k].pack.label, "health",
+                json_pack("{s:o, s:o, s:o, s:o}", "id", jout_str(v[k].pack.label), "health",
                           health_obj(&v[k]), "r0_mohm_per_cell", trend_line_obj(&v[k].trend.r0),
                           "capacity_pct", trend_line_obj(&v[k].trend.capacity));
-            json_array_append_new(a, o);
+            jout_append(a, o);
         }
         return jout_write(out, a);
     }
@@ -786,6 +825,7 @@ int report_compare(FILE *out, const struct pack_view *v, size_t n, enum fleet_fo
     }
     for (size_t k = 0; k < n; k++)
         if (v[k].health.status != HEALTH_OK || v[k].pack.retired_at[0])
-            fprintf(out, "  %s: %s\n", v[k].pack.label, why_text(&v[k], (char[400]){0}, 400));
+            fprintf(out, "  %s: %s\n", SHOW((char[SHOWN_LABEL]){0}, v[k].pack.label),
+                    why_text(&v[k], (char[SHOWN_TEXT]){0}, SHOWN_TEXT));
     return ferror(out) ? -1 : 0;
 }

@@ -45,79 +45,73 @@ static json_t *analysis_obj(const struct analysis *a, const struct report_input 
 {
     char when[40];
     json_t *o = json_object();
-    json_object_set_new(o, "file", json_string(in->name));
-    json_object_set_new(o, "samples", json_integer((json_int_t)a->samples));
-    json_object_set_new(o, "duration_s", jout_num(a->duration_s));
-    json_object_set_new(o, "start_time",
-                        a->has_epoch
-                            ? json_string(isotime_format(a->start_epoch_s, when, sizeof when))
-                            : json_null());
-    json_object_set_new(o, "cells", a->cells > 0 ? json_integer(a->cells) : json_null());
-    json_object_set_new(o, "cells_source", json_string(a->cells_source));
-    json_object_set_new(o, "chemistry", json_string(a->chem->name));
-    json_object_set_new(o, "chemistry_assumed", json_boolean(a->chem_assumed));
-    json_object_set_new(o, "rated_capacity_mah",
-                        in->opts->capacity_mah > 0 ? json_real(in->opts->capacity_mah)
-                                                   : json_null());
-    json_object_set_new(o, "charge_used_mah", jout_num(a->charge_used_mah));
-    json_object_set_new(o, "charge_discharged_mah",
-                        jout_num(a->has_current ? a->cc.discharged_mah : NAN));
-    json_object_set_new(o, "charge_regen_mah", jout_num(a->has_current ? a->cc.regen_mah : NAN));
-    json_object_set_new(o, "energy_used_wh", jout_num(a->energy_used_wh));
-    json_object_set_new(o, "energy_discharged_wh",
-                        jout_num(a->has_current ? a->cc.discharged_wh : NAN));
-    json_object_set_new(o, "energy_regen_wh", jout_num(a->has_current ? a->cc.regen_wh : NAN));
-    json_object_set_new(o, "current_max_a", jout_num(a->current_max_a));
-    json_object_set_new(o, "current_mean_a", jout_num(a->current_mean_a));
-    json_object_set_new(o, "c_rate_max", jout_num(a->c_rate_max));
-    json_object_set_new(o, "c_rate_mean", jout_num(a->c_rate_mean));
-    json_object_set_new(o, "power_max_w", jout_num(a->power_max_w));
-    json_object_set_new(o, "power_mean_w", jout_num(a->power_mean_w));
-    json_object_set_new(o, "power_cruise_w", jout_num(a->power_cruise_w));
-    json_object_set_new(o, "voltage_min_v", jout_num(a->voltage_min_v));
-    json_object_set_new(o, "voltage_max_v", jout_num(a->voltage_max_v));
-    json_object_set_new(o, "voltage_start_v", jout_num(a->voltage_start_v));
-    json_object_set_new(o, "voltage_end_v", jout_num(a->voltage_end_v));
-    json_object_set_new(o, "cell_voltage_min_v", jout_num(a->cell_min_loaded_v));
-    json_object_set_new(o, "floor_v_per_cell", jout_num(a->floor_v));
-    json_object_set_new(o, "time_below_floor_s",
-                        jout_num(a->cells > 0 ? a->time_below_floor_s : NAN));
-    json_object_set_new(o, "r0_mohm", est(a->r0_mohm));
-    json_object_set_new(o, "r0_method", jout_str(a->r0_method));
-    json_object_set_new(o, "r0_mohm_per_cell",
-                        jout_num(a->cells > 0 ? a->r0_mohm.value / a->cells : NAN));
-    json_object_set_new(o, "step_a", jout_num(a->has_current ? a->step_a : NAN));
-    json_object_set_new(o, "r0_reason", jout_str(isfinite(a->r0_mohm.value) ? NULL : a->r0_reason));
+    jout_set(o, "file", jout_str(in->name));
+    jout_set(o, "samples", json_integer((json_int_t)a->samples));
+    jout_set(o, "duration_s", jout_num(a->duration_s));
+    jout_set(o, "start_time",
+             a->has_epoch ? json_string(isotime_format(a->start_epoch_s, when, sizeof when))
+                          : json_null());
+    jout_set(o, "cells", a->cells > 0 ? json_integer(a->cells) : json_null());
+    jout_set(o, "cells_source", json_string(a->cells_source));
+    jout_set(o, "chemistry", json_string(a->chem->name));
+    jout_set(o, "chemistry_assumed", json_boolean(a->chem_assumed));
+    jout_set(o, "rated_capacity_mah",
+             in->opts->capacity_mah > 0 ? json_real(in->opts->capacity_mah) : json_null());
+    jout_set(o, "charge_used_mah", jout_num(a->charge_used_mah));
+    jout_set(o, "charge_discharged_mah", jout_num(a->has_current ? a->cc.discharged_mah : NAN));
+    jout_set(o, "charge_regen_mah", jout_num(a->has_current ? a->cc.regen_mah : NAN));
+    jout_set(o, "energy_used_wh", jout_num(a->energy_used_wh));
+    jout_set(o, "energy_discharged_wh", jout_num(a->has_current ? a->cc.discharged_wh : NAN));
+    jout_set(o, "energy_regen_wh", jout_num(a->has_current ? a->cc.regen_wh : NAN));
+    jout_set(o, "current_max_a", jout_num(a->current_max_a));
+    jout_set(o, "current_mean_a", jout_num(a->current_mean_a));
+    jout_set(o, "c_rate_max", jout_num(a->c_rate_max));
+    jout_set(o, "c_rate_mean", jout_num(a->c_rate_mean));
+    jout_set(o, "power_max_w", jout_num(a->power_max_w));
+    jout_set(o, "power_mean_w", jout_num(a->power_mean_w));
+    jout_set(o, "power_cruise_w", jout_num(a->power_cruise_w));
+    jout_set(o, "voltage_min_v", jout_num(a->voltage_min_v));
+    jout_set(o, "voltage_max_v", jout_num(a->voltage_max_v));
+    jout_set(o, "voltage_start_v", jout_num(a->voltage_start_v));
+    jout_set(o, "voltage_end_v", jout_num(a->voltage_end_v));
+    jout_set(o, "cell_voltage_min_v", jout_num(a->cell_min_loaded_v));
+    jout_set(o, "floor_v_per_cell", jout_num(a->floor_v));
+    jout_set(o, "time_below_floor_s", jout_num(a->cells > 0 ? a->time_below_floor_s : NAN));
+    jout_set(o, "r0_mohm", est(a->r0_mohm));
+    jout_set(o, "r0_method", jout_str(a->r0_method));
+    jout_set(o, "r0_mohm_per_cell", jout_num(a->cells > 0 ? a->r0_mohm.value / a->cells : NAN));
+    jout_set(o, "step_a", jout_num(a->has_current ? a->step_a : NAN));
+    jout_set(o, "r0_reason", jout_str(isfinite(a->r0_mohm.value) ? NULL : a->r0_reason));
     json_t *edge = json_null();
     if (isfinite(a->r_edge_mohm.value))
         edge = json_pack("{s:o, s:o, s:I, s:o}", "value", jout_num(a->r_edge_mohm.value), "ci95",
                          jout_num(a->r_edge_mohm.ci95), "edges", (json_int_t)a->r_edge_steps,
                          "time_scale_s", jout_num(a->r_edge_time_scale_s));
-    json_object_set_new(o, "r_edge_mohm", edge);
-    json_object_set_new(o, "r_edge_reason", jout_str(a->r_edge_reason));
-    json_object_set_new(o, "r0_model_mohm", est(a->r0_model_mohm));
-    json_object_set_new(o, "r0_model_reason", jout_str(a->r0_reason));
-    json_object_set_new(o, "r_static_mohm", est(a->r_static_mohm));
-    json_object_set_new(o, "r1_mohm", est(a->r1_mohm));
-    json_object_set_new(o, "tau_s", jout_num(a->tau_s.value));
-    json_object_set_new(o, "ocv_start_v", jout_num(a->ocv_start_v));
-    json_object_set_new(o, "ocv_end_v", jout_num(a->ocv_end_v));
-    json_object_set_new(o, "ocv_start_method", jout_str(a->ocv_start_method));
-    json_object_set_new(o, "ocv_end_method", jout_str(a->ocv_end_method));
-    json_object_set_new(o, "soc_start_pct", jout_num(a->soc_start_pct.value));
-    json_object_set_new(o, "soc_start_ci95", jout_num(a->soc_start_pct.ci95));
-    json_object_set_new(o, "soc_end_pct", jout_num(a->soc_end_pct.value));
-    json_object_set_new(o, "soc_end_ci95", jout_num(a->soc_end_pct.ci95));
+    jout_set(o, "r_edge_mohm", edge);
+    jout_set(o, "r_edge_reason", jout_str(a->r_edge_reason));
+    jout_set(o, "r0_model_mohm", est(a->r0_model_mohm));
+    jout_set(o, "r0_model_reason", jout_str(a->r0_reason));
+    jout_set(o, "r_static_mohm", est(a->r_static_mohm));
+    jout_set(o, "r1_mohm", est(a->r1_mohm));
+    jout_set(o, "tau_s", jout_num(a->tau_s.value));
+    jout_set(o, "ocv_start_v", jout_num(a->ocv_start_v));
+    jout_set(o, "ocv_end_v", jout_num(a->ocv_end_v));
+    jout_set(o, "ocv_start_method", jout_str(a->ocv_start_method));
+    jout_set(o, "ocv_end_method", jout_str(a->ocv_end_method));
+    jout_set(o, "soc_start_pct", jout_num(a->soc_start_pct.value));
+    jout_set(o, "soc_start_ci95", jout_num(a->soc_start_pct.ci95));
+    jout_set(o, "soc_end_pct", jout_num(a->soc_end_pct.value));
+    jout_set(o, "soc_end_ci95", jout_num(a->soc_end_pct.ci95));
     json_object_set_new(
         o, "soc_start_range_pct",
         json_pack("[o, o]", jout_num(a->soc_start_lo_pct), jout_num(a->soc_start_hi_pct)));
     json_object_set_new(
         o, "soc_end_range_pct",
         json_pack("[o, o]", jout_num(a->soc_end_lo_pct), jout_num(a->soc_end_hi_pct)));
-    json_object_set_new(o, "state_start", jout_str(a->state_start));
-    json_object_set_new(o, "state_end", jout_str(a->state_end));
-    json_object_set_new(o, "capacity_est_mah", est(a->capacity_mah));
-    json_object_set_new(o, "capacity_method", jout_str(a->capacity_method));
+    jout_set(o, "state_start", jout_str(a->state_start));
+    jout_set(o, "state_end", jout_str(a->state_end));
+    jout_set(o, "capacity_est_mah", est(a->capacity_mah));
+    jout_set(o, "capacity_method", jout_str(a->capacity_method));
     json_t *cut = json_null();
     if (isfinite(a->capacity_cutoff_mah.value))
         cut = json_pack(
@@ -125,21 +119,20 @@ static json_t *analysis_obj(const struct analysis *a, const struct report_input 
             jout_num(a->capacity_cutoff_mah.ci95), "c_rate", jout_num(a->capacity_cutoff_c_rate),
             "mean_current_a", jout_num(a->capacity_cutoff_mean_a), "end_v_per_cell",
             jout_num(a->capacity_cutoff_end_v_cell));
-    json_object_set_new(o, "capacity_to_cutoff_mah", cut);
-    json_object_set_new(o, "capacity_soc_mah", est(a->capacity_soc_mah));
-    json_object_set_new(o, "rest_start_s", jout_num(a->has_current ? a->rest_start_s : NAN));
-    json_object_set_new(o, "rest_end_s", jout_num(a->has_current ? a->rest_end_s : NAN));
-    json_object_set_new(o, "temperature_min_c", jout_num(a->temp_min_c));
-    json_object_set_new(o, "temperature_max_c", jout_num(a->temp_max_c));
-    json_object_set_new(o, "gaps",
-                        json_pack("{s:I, s:o, s:o, s:o, s:o}", "count", (json_int_t)a->cc.gaps,
-                                  "threshold_s", jout_num(a->gap_s), "total_s",
-                                  jout_num(a->cc.gap_total_s), "longest_s",
-                                  jout_num(a->cc.gap_longest_s), "charge_bridged_mah",
-                                  jout_num(a->has_current ? a->cc.gap_charge_mah : NAN)));
+    jout_set(o, "capacity_to_cutoff_mah", cut);
+    jout_set(o, "capacity_soc_mah", est(a->capacity_soc_mah));
+    jout_set(o, "rest_start_s", jout_num(a->has_current ? a->rest_start_s : NAN));
+    jout_set(o, "rest_end_s", jout_num(a->has_current ? a->rest_end_s : NAN));
+    jout_set(o, "temperature_min_c", jout_num(a->temp_min_c));
+    jout_set(o, "temperature_max_c", jout_num(a->temp_max_c));
+    jout_set(o, "gaps",
+             json_pack("{s:I, s:o, s:o, s:o, s:o}", "count", (json_int_t)a->cc.gaps, "threshold_s",
+                       jout_num(a->gap_s), "total_s", jout_num(a->cc.gap_total_s), "longest_s",
+                       jout_num(a->cc.gap_longest_s), "charge_bridged_mah",
+                       jout_num(a->has_current ? a->cc.gap_charge_mah : NAN)));
     json_t *coef = json_array();
     for (int j = 0; a->has_current && j <= a->ocv_degree && j < OCV_POLY_MAX; j++)
-        json_array_append_new(coef, jout_num(a->ocv_coef_v[j]));
+        jout_append(coef, jout_num(a->ocv_coef_v[j]));
     json_object_set_new(
         o, "fit",
         json_pack("{s:s, s:o, s:o, s:I, s:o, s:I, s:i, s:i, s:o, s:o, s:o, s:I, s:I}", "method",
@@ -154,24 +147,22 @@ static json_t *analysis_obj(const struct analysis *a, const struct report_input 
     json_t *cells = json_array();
     for (int c = 0; c < a->ncells_detail; c++) {
         const struct cell_detail *d = &a->cell[c];
-        json_array_append_new(cells, json_pack("{s:i, s:o, s:o, s:o}", "index", d->index, "r0_mohm",
-                                               est(d->r0_mohm), "voltage_min_v",
-                                               jout_num(d->voltage_min_v), "voltage_rest_v",
-                                               jout_num(d->voltage_rest_v)));
+        jout_append(cells, json_pack("{s:i, s:o, s:o, s:o}", "index", d->index, "r0_mohm",
+                                     est(d->r0_mohm), "voltage_min_v", jout_num(d->voltage_min_v),
+                                     "voltage_rest_v", jout_num(d->voltage_rest_v)));
     }
-    json_object_set_new(o, "cells_detail", cells);
-    json_object_set_new(o, "cell_spread_rest_mv", jout_num(a->spread_rest_mv));
-    json_object_set_new(o, "cell_spread_rest_start_mv", jout_num(a->spread_rest_start_mv));
-    json_object_set_new(o, "cell_spread_rest_end_mv", jout_num(a->spread_rest_end_mv));
-    json_object_set_new(o, "cell_spread_load_mv", jout_num(a->spread_load_mv));
-    json_object_set_new(o, "weakest_cell",
-                        a->weakest_cell ? json_integer(a->weakest_cell) : json_null());
-    json_object_set_new(o, "input", input_obj(in));
+    jout_set(o, "cells_detail", cells);
+    jout_set(o, "cell_spread_rest_mv", jout_num(a->spread_rest_mv));
+    jout_set(o, "cell_spread_rest_start_mv", jout_num(a->spread_rest_start_mv));
+    jout_set(o, "cell_spread_rest_end_mv", jout_num(a->spread_rest_end_mv));
+    jout_set(o, "cell_spread_load_mv", jout_num(a->spread_load_mv));
+    jout_set(o, "weakest_cell", a->weakest_cell ? json_integer(a->weakest_cell) : json_null());
+    jout_set(o, "input", input_obj(in));
     json_t *w = json_array();
     for (size_t k = 0; k < a->nwarnings; k++)
-        json_array_append_new(w, json_pack("{s:s, s:s}", "code", a->warnings[k].code, "message",
-                                           a->warnings[k].message));
-    json_object_set_new(o, "warnings", w);
+        jout_append(w, json_pack("{s:s, s:o}", "code", a->warnings[k].code, "message",
+                                 jout_str(a->warnings[k].message)));
+    jout_set(o, "warnings", w);
     return o;
 }
 
@@ -187,14 +178,14 @@ int report_chemistry_json(FILE *out)
         const struct chem_info *c = ocv_chem((enum chemistry)k);
         json_t *soc = json_array(), *ocv = json_array();
         for (size_t j = 0; j < c->npoints; j++) {
-            json_array_append_new(soc, json_real(c->soc_pct[j]));
-            json_array_append_new(ocv, json_real(c->ocv_v[j]));
+            jout_append(soc, json_real(c->soc_pct[j]));
+            jout_append(ocv, json_real(c->ocv_v[j]));
         }
-        json_array_append_new(
-            arr, json_pack("{s:s, s:s, s:s, s:o, s:o, s:f, s:f, s:f, s:f, s:f}", "name", c->name,
-                           "label", c->label, "source", c->source, "soc_pct", soc, "ocv_v", ocv,
-                           "floor_v", c->floor_v, "full_rest_v", c->full_rest_v, "empty_rest_v",
-                           c->empty_rest_v, "min_loaded_v", c->min_loaded_v, "max_v", c->max_v));
+        jout_append(arr,
+                    json_pack("{s:s, s:s, s:s, s:o, s:o, s:f, s:f, s:f, s:f, s:f}", "name", c->name,
+                              "label", c->label, "source", c->source, "soc_pct", soc, "ocv_v", ocv,
+                              "floor_v", c->floor_v, "full_rest_v", c->full_rest_v, "empty_rest_v",
+                              c->empty_rest_v, "min_loaded_v", c->min_loaded_v, "max_v", c->max_v));
     }
     return jout_write(out, arr);
 }

@@ -6,6 +6,8 @@
 #include "jsonout.h"
 #include "report.h"
 
+#include "../core/utf8.h"
+
 static void mmss(char *buf, size_t cap, double s)
 {
     if (!isfinite(s)) {
@@ -23,18 +25,18 @@ int report_predict_json(FILE *out, const struct predict_inputs *in, const struct
     static const char *const kinds[] = {"power", "current", "profile"};
     json_t *w = json_array();
     for (int k = 0; k < nwarn; k++)
-        json_array_append_new(w, json_string(warn[k]));
+        jout_append(w, json_string(warn[k]));
     json_t *counts = json_object();
     for (int k = 0; k < 5; k++)
-        json_object_set_new(counts, predict_limit_name((enum predict_limit)k),
-                            json_integer(mc->binding_count[k]));
+        jout_set(counts, predict_limit_name((enum predict_limit)k),
+                 json_integer(mc->binding_count[k]));
     double value = l->kind == LOAD_POWER     ? l->power_w
                    : l->kind == LOAD_CURRENT ? l->current_a
                                              : NAN;
     json_t *doc = json_pack(
         "{s:s, s:{s:o, s:o, s:o, s:i}, s:s, s:o, s:{s:o, s:o, s:o, s:o, s:o, s:o, s:o, s:o, s:o, "
         "s:o},"
-        " s:{s:s, s:i, s:s, s:o, s:o, s:b, s:o, s:o, s:o, s:o, s:{s:s, s:o, s:o}, s:o, s:o, s:o, "
+        " s:{s:o, s:i, s:s, s:o, s:o, s:b, s:o, s:o, s:o, s:o, s:{s:s, s:o, s:o}, s:o, s:o, s:o, "
         "s:o,"
         " s:o, s:o}, s:o}",
         "caution", "an estimate: it does not replace the aircraft's own low-voltage protection",
@@ -46,7 +48,7 @@ int report_predict_json(FILE *out, const struct predict_inputs *in, const struct
         jout_num(r->t_reserve_s), "t_floor_s", jout_num(r->t_floor_s), "t_collapse_s",
         jout_num(r->t_collapse_s), "t_empty_s", jout_num(r->t_empty_s), "soc_after_pct",
         jout_num(r->soc_after_pct), "v_after_v", jout_num(r->v_after_v), "inputs", "source",
-        in->source, "cells", in->cells, "chemistry", in->chem->name, "capacity_mah",
+        jout_str(in->source), "cells", in->cells, "chemistry", in->chem->name, "capacity_mah",
         jout_num(in->capacity_mah), "capacity_sd_mah", jout_num(in->capacity_sd_mah),
         "capacity_assumed", in->capacity_assumed, "r0_mohm", jout_num(in->r0_mohm), "r0_sd_mohm",
         jout_num(in->r0_sd_mohm), "r1_mohm", jout_num(in->r1_mohm), "tau_s", jout_num(in->tau_s),
@@ -68,7 +70,8 @@ int report_predict_text(FILE *out, const struct predict_inputs *in, const struct
                         const struct predict_mc *mc, const char *const *warn, int nwarn)
 {
     char a[40], b[40];
-    fprintf(out, "packbook prediction from %s\n", in->source);
+    char sb[4 * 1024 + 4];
+    fprintf(out, "packbook prediction from %s\n", utf8_printable(sb, sizeof sb, in->source));
     fprintf(out, "  %-15s %dS %s, capacity %.0f +/- %.0f mAh%s, R0 %.2f +/- %.2f %s", "pack",
             in->cells, in->chem->label, in->capacity_mah, in->capacity_sd_mah,
             in->capacity_assumed ? " (rated, no estimate)" : "", in->r0_mohm, in->r0_sd_mohm,

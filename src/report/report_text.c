@@ -3,6 +3,7 @@
 #include <string.h>
 
 #include "../core/isotime.h"
+#include "../core/utf8.h"
 #include "report.h"
 
 #define KEY_W 16
@@ -79,7 +80,8 @@ static void est(FILE *out, struct estimate e, const char *fmt, const char *unit)
 int report_analysis_text(FILE *out, const struct analysis *a, const struct report_input *in)
 {
     char when[40];
-    fprintf(out, "packbook analysis: %s\n", in->name);
+    char nb[4 * 1024 + 4];
+    fprintf(out, "packbook analysis: %s\n", utf8_printable(nb, sizeof nb, in->name));
 
     key(out, "log");
     fprintf(out, "%zu samples over ", a->samples);

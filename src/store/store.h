@@ -65,11 +65,41 @@ struct flight_rec {
     struct flight_cell_rec cell[PB_MAX_CELLS];
 };
 
-/* Opens (creating if needed, when create) and migrates the store at path.
- * Parent directories are created. */
-enum pb_code store_open(const char *path, int create, struct store **out, struct pb_error *err);
+/* A packbook database says so in its header (PRAGMA application_id, "PKBK");
+ * files from before the mark are known by their schema (user_version >= 1
+ * with tables packs and flights) and get the mark on their next write. */
+#define STORE_APPLICATION_ID 0x504B424B
+
+/* How a command uses the store. A reading command never creates, migrates or
+ * otherwise writes the file: it opens it read-only, and a store of an older
+ * schema is upgraded in a copy in memory for that run. */
+enum store_mode {
+    STORE_READ = 0,   /* list, show, fleet, trend, predict, plot */
+    STORE_CREATE = 1, /* pack add: creates the file (and its folders) when missing */
+    STORE_WRITE = 2,  /* import, retire: the file must exist */
+};
+
+/* Opens the store at path in mode, waiting up to STORE_WAIT_DEFAULT_S for a
+ * lock (see store_open_wait). Another program's SQLite file (tables
+ * but no packbook mark) is refused untouched, before anything is written;
+ * a missing file (or, for reading, an empty one) is "no history yet" except
+ * in STORE_CREATE. Writing modes switch the file to WAL and migrate it. */
+enum pb_code store_open(const char *path, enum store_mode mode, struct store **out,
+                        struct pb_error *err);
 
 /* Closes st; NULL is a no-op. */
+/* The longest a command waits for another process's lock, in seconds. */
+#define STORE_WAIT_DEFAULT_S 60.0
+
+/* store_open with its lock wait: each writing operation (and the open's own
+ * schema steps) waits at most wait_s seconds in all for a lock another
+ * process holds, then fails (PB_ESTORE) having stored nothing of that step.
+ * After a few seconds of waiting on_wait (may be NULL) is called once, with
+ * wait_s, so the command can say it is waiting. */
+enum pb_code store_open_wait(const char *path, enum store_mode mode, double wait_s,
+                             void (*on_wait)(void *ctx, double wait_s), void *ctx,
+                             struct store **out, struct pb_error *err);
+
 void store_close(struct store *st);
 
 /* Schema version of an open store (PRAGMA user_version). */

@@ -12,15 +12,22 @@
 #include <unistd.h>
 
 #include "../core/isotime.h"
+#include "../core/utf8.h"
 #include "store.h"
 
-#define BUSY_TIMEOUT_MS 60000
-#define BUSY_RETRIES 8
+#define WAIT_NOTICE_AFTER_S 3.0 /* a wait this long is said (on_wait), once */
 
 struct store {
     sqlite3 *db;
     char path[1024];
+    /* the one bounded wait for another process's lock (store_open_wait) */
+    double wait_s;
+    double busy_since_s; /* monotonic time the current operation began waiting, 0: not */
+    int announced;
+    void (*on_wait)(void *ctx, double wait_s);
+    void *wait_ctx;
     int saved_code; /* error of a failed transaction step, kept past its ROLLBACK */
+    int saved_errno;
     char saved_msg[256];
 };
 
@@ -81,36 +88,82 @@ static const char *const migrations[] = {
     "ALTER TABLE flights DROP COLUMN report_json;",
 };
 
-/* Busy handler: short jittered sleeps, so a waiting writer gets its turn
- * between another importer's flights (SQLite's default handler backs off to
- * 100 ms sleeps and lets a busy importer take the lock again each time). */
-static int on_busy(void *ctx, int count)
+static double mono_s(void)
 {
-    (void)ctx;
-    if ((long)count * 3 > BUSY_TIMEOUT_MS)
+    struct timespec ts;
+    clock_gettime(CLOCK_MONOTONIC, &ts);
+    return (double)ts.tv_sec + 1e-9 * (double)ts.tv_nsec;
+}
+
+/* Starts the clock of one operation's wait (each writing call: one wait). */
+static void wait_reset(struct store *st)
+{
+    st->busy_since_s = 0.0;
+}
+
+/* Seconds the current operation has waited for the lock; starts the clock. */
+static double waited_s(struct store *st)
+{
+    double now = mono_s();
+    if (st->busy_since_s == 0.0)
+        st->busy_since_s = now;
+    return now - st->busy_since_s;
+}
+
+/* 1 while the operation may wait on (and has slept a little), 0 when its wait is
+ * used up. Says once, after a few seconds, that it is waiting. */
+static int wait_more(struct store *st)
+{
+    double w = waited_s(st);
+    if (w >= st->wait_s)
         return 0;
+    if (!st->announced && w >= WAIT_NOTICE_AFTER_S && st->on_wait) {
+        st->announced = 1;
+        st->on_wait(st->wait_ctx, st->wait_s);
+    }
+    /* short jittered sleeps, so a waiting writer gets its turn between another
+     * importer's flights (SQLite's default handler backs off to 100 ms sleeps
+     * and lets a busy importer take the lock again each time) */
     struct timespec ts = {0, (long)(1000000L + (rand() % 3000000L))};
     nanosleep(&ts, NULL);
     return 1;
 }
 
+static int on_busy(void *ctx, int count)
+{
+    (void)count;
+    return wait_more(ctx);
+}
+
 static enum pb_code db_error(struct store *st, struct pb_error *err, const char *what)
 {
     int code = sqlite3_extended_errcode(st->db);
+    int sys = sqlite3_system_errno(st->db);
     const char *msg = sqlite3_errmsg(st->db);
     if (st->saved_code) {
         /* a ROLLBACK after the failure has cleared SQLite's own record of it */
         code = st->saved_code;
+        sys = st->saved_errno;
         msg = st->saved_msg;
         st->saved_code = 0;
     }
     const char *hint = "";
     if ((code & 0xff) == SQLITE_READONLY)
         hint = " (the database or its folder is read-only)";
-    else if ((code & 0xff) == SQLITE_FULL)
-        hint = " (disk full: nothing of this step was stored)";
-    else if ((code & 0xff) == SQLITE_BUSY)
-        hint = " (another packbook kept the database busy too long)";
+    else if ((code & 0xff) == SQLITE_FULL ||
+             ((code & 0xff) == SQLITE_IOERR && (sys == ENOSPC || sys == EDQUOT || sys == EFBIG)))
+        /* a full disk often reaches SQLite as a failed write ("disk I/O error") */
+        hint = " (disk full, or a file-size limit reached: free some space and retry; nothing "
+               "of this step was stored)";
+    char busy[160];
+    if ((code & 0xff) == SQLITE_BUSY || (code & 0xff) == SQLITE_LOCKED) {
+        /* who holds it is not known: another packbook, a backup, an SQLite shell */
+        snprintf(busy, sizeof busy,
+                 " (another process held it locked for the whole wait of %.0f s; nothing of "
+                 "this step was stored: try again, or wait longer with --wait S)",
+                 st->wait_s);
+        hint = busy;
+    }
     return pb_error_set(err, PB_ESTORE, "%s: %s: %s%s", st->path, what, msg, hint);
 }
 
@@ -195,71 +248,195 @@ static enum pb_code migrate(struct store *st, struct pb_error *err)
     return PB_OK;
 }
 
-enum pb_code store_open(const char *path, int create, struct store **out, struct pb_error *err)
+/* What the file at hand is, read before anything is written to it. */
+enum owner { OWN_EMPTY, OWN_OURS, OWN_LEGACY, OWN_FOREIGN };
+
+static int scalar_int(sqlite3 *db, const char *sql, int *out)
+{
+    sqlite3_stmt *s = NULL;
+    int rc = sqlite3_prepare_v2(db, sql, -1, &s, NULL);
+    if (rc == SQLITE_OK && (rc = sqlite3_step(s)) == SQLITE_ROW) {
+        *out = sqlite3_column_int(s, 0);
+        rc = SQLITE_OK;
+    }
+    sqlite3_finalize(s);
+    return rc;
+}
+
+static enum pb_code classify(struct store *st, enum owner *own, struct pb_error *err)
+{
+    int app = 0, ver = 0, ntables = 0, packs = 0, flights = 0;
+    char names[160] = "";
+    int rc = scalar_int(st->db, "PRAGMA application_id", &app);
+    if (rc == SQLITE_OK)
+        rc = scalar_int(st->db, "PRAGMA user_version", &ver);
+    sqlite3_stmt *s = NULL;
+    if (rc == SQLITE_OK)
+        rc = sqlite3_prepare_v2(st->db,
+                                "SELECT name FROM sqlite_master WHERE type = 'table' AND name "
+                                "NOT LIKE 'sqlite\\_%' ESCAPE '\\' ORDER BY name",
+                                -1, &s, NULL);
+    while (rc == SQLITE_OK && (rc = sqlite3_step(s)) == SQLITE_ROW) {
+        const char *name = (const char *)sqlite3_column_text(s, 0);
+        name = name ? name : "";
+        packs |= strcmp(name, "packs") == 0;
+        flights |= strcmp(name, "flights") == 0;
+        if (ntables < 3) {
+            size_t used = strlen(names);
+            snprintf(names + used, sizeof names - used, "%s'%.40s'", ntables ? ", " : "", name);
+        }
+        ntables++;
+        rc = SQLITE_OK;
+    }
+    sqlite3_finalize(s);
+    if (rc != SQLITE_DONE && rc != SQLITE_OK) {
+        int code = sqlite3_errcode(st->db);
+        if (code == SQLITE_NOTADB || code == SQLITE_CORRUPT)
+            return pb_error_set(err, PB_ESTORE, "%s: not a packbook database (not an SQLite file)",
+                                st->path);
+        return db_error(st, err, "cannot open");
+    }
+    if (app == STORE_APPLICATION_ID)
+        *own = OWN_OURS;
+    else if (app == 0 && ntables == 0 && ver == 0)
+        *own = OWN_EMPTY;
+    else if (app == 0 && ver >= 1 && packs && flights)
+        *own = OWN_LEGACY;
+    else if (app != 0)
+        return pb_error_set(err, PB_ESTORE,
+                            "%s: not a packbook database (its application id 0x%08x belongs to "
+                            "another program); left untouched",
+                            st->path, (unsigned)app);
+    else
+        return pb_error_set(err, PB_ESTORE,
+                            "%s: not a packbook database (it holds %d table%s: %s%s); left "
+                            "untouched",
+                            st->path, ntables, ntables == 1 ? "" : "s", names,
+                            ntables > 3 ? ", ..." : "");
+    return PB_OK;
+}
+
+/* A reading command on a store of an older schema: the file stays as it is,
+ * the run reads an upgraded copy in memory. */
+static enum pb_code migrate_in_memory(struct store *st, struct pb_error *err)
+{
+    sqlite3 *mem = NULL;
+    if (sqlite3_open(":memory:", &mem) != SQLITE_OK) {
+        sqlite3_close(mem);
+        return pb_error_set(err, PB_ENOMEM, "out of memory");
+    }
+    sqlite3_backup *b = sqlite3_backup_init(mem, "main", st->db, "main");
+    int rc = b ? sqlite3_backup_step(b, -1) : SQLITE_ERROR;
+    if (b)
+        sqlite3_backup_finish(b);
+    if (rc != SQLITE_DONE) {
+        enum pb_code pc = db_error(st, err, "cannot read the database");
+        sqlite3_close(mem);
+        return pc;
+    }
+    sqlite3_close(st->db);
+    st->db = mem;
+    sqlite3_extended_result_codes(st->db, 1);
+    sqlite3_exec(st->db, "PRAGMA foreign_keys = ON", NULL, NULL, NULL);
+    return migrate(st, err);
+}
+
+enum pb_code store_open(const char *path, enum store_mode mode, struct store **out,
+                        struct pb_error *err)
+{
+    return store_open_wait(path, mode, STORE_WAIT_DEFAULT_S, NULL, NULL, out, err);
+}
+
+enum pb_code store_open_wait(const char *path, enum store_mode mode, double wait_s,
+                             void (*on_wait)(void *ctx, double wait_s), void *ctx,
+                             struct store **out, struct pb_error *err)
 {
     *out = NULL;
     struct store *st = calloc(1, sizeof *st);
     if (!st)
         return pb_error_set(err, PB_ENOMEM, "out of memory");
     snprintf(st->path, sizeof st->path, "%s", path);
-    if (!create && access(path, F_OK) != 0) {
+    st->wait_s = wait_s;
+    st->on_wait = on_wait;
+    st->wait_ctx = ctx;
+    if (mode != STORE_CREATE && access(path, F_OK) != 0) {
         free(st);
         return pb_error_set(err, PB_ESTORE,
                             "%s: no history yet (add a pack with 'packbook pack add')", path);
     }
-    if (create && mkdir_parents(path) != 0) {
+    if (mode == STORE_CREATE && mkdir_parents(path) != 0) {
         free(st);
         return pb_error_set(err, PB_ESTORE, "cannot create the folder for '%s': %s", path,
                             strerror(errno));
     }
     /* one thread uses a connection (import's workers never touch the store):
      * no SQLite mutex around every call, which cost a seventh of fleet */
-    int flags = SQLITE_OPEN_READWRITE | SQLITE_OPEN_NOMUTEX | (create ? SQLITE_OPEN_CREATE : 0);
+    int flags = SQLITE_OPEN_NOMUTEX |
+                (mode == STORE_READ
+                     ? SQLITE_OPEN_READONLY
+                     : SQLITE_OPEN_READWRITE | (mode == STORE_CREATE ? SQLITE_OPEN_CREATE : 0));
+    enum pb_code rc = PB_OK;
     if (sqlite3_open_v2(path, &st->db, flags, NULL) != SQLITE_OK) {
-        enum pb_code rc = st->db ? db_error(st, err, "cannot open")
-                                 : pb_error_set(err, PB_ENOMEM, "out of memory");
-        store_close(st);
-        return rc;
+        rc = st->db ? db_error(st, err, "cannot open")
+                    : pb_error_set(err, PB_ENOMEM, "out of memory");
+        goto fail;
     }
     srand((unsigned)getpid()); /* jitter differs between processes */
-    sqlite3_busy_handler(st->db, on_busy, NULL);
+    sqlite3_busy_handler(st->db, on_busy, st);
     sqlite3_extended_result_codes(st->db, 1);
-    /* the first statement that reads the file tells a non-SQLite file */
-    enum pb_code rc = PB_OK;
+    sqlite3_exec(st->db, "PRAGMA foreign_keys = ON", NULL, NULL, NULL);
+    /* whose file this is, before a single byte of it changes (WAL included) */
+    enum owner own;
+    if ((rc = classify(st, &own, err)) != PB_OK)
+        goto fail;
+    if (mode == STORE_READ) {
+        if (own == OWN_EMPTY) {
+            rc = pb_error_set(err, PB_ESTORE,
+                              "%s: no history yet (add a pack with 'packbook pack add')", path);
+            goto fail;
+        }
+        int want = (int)(sizeof migrations / sizeof *migrations);
+        int have = store_schema_version(st);
+        rc = have >= 0 && have < want ? migrate_in_memory(st, err) : migrate(st, err);
+        if (rc != PB_OK)
+            goto fail;
+        *out = st;
+        return PB_OK;
+    }
     char *msg = NULL;
     int prc;
     /* switching a new file to WAL takes an exclusive lock that SQLite does
-     * not wait for (its busy handler is skipped to avoid deadlock): retry */
-    for (int attempt = 0;; attempt++) {
-        prc = sqlite3_exec(st->db,
-                           "PRAGMA foreign_keys = ON; PRAGMA journal_mode = WAL;"
-                           "PRAGMA synchronous = NORMAL;",
-                           NULL, NULL, &msg);
-        if ((prc & 0xff) != SQLITE_BUSY || attempt >= 200)
+     * not wait for (its busy handler is skipped to avoid deadlock): retry,
+     * within the same one wait */
+    wait_reset(st);
+    for (;;) {
+        prc = sqlite3_exec(st->db, "PRAGMA journal_mode = WAL; PRAGMA synchronous = NORMAL;", NULL,
+                           NULL, &msg);
+        if ((prc & 0xff) != SQLITE_BUSY || !wait_more(st))
             break;
         sqlite3_free(msg);
         msg = NULL;
-        struct timespec ts = {0, 5000000L + (rand() % 20000000L)};
-        nanosleep(&ts, NULL);
     }
+    sqlite3_free(msg);
     if (prc != SQLITE_OK) {
-        int code = sqlite3_errcode(st->db);
-        if (code == SQLITE_NOTADB || code == SQLITE_CORRUPT)
-            rc = pb_error_set(err, PB_ESTORE, "%s: not a packbook database (not an SQLite file)",
-                              path);
-        else
-            rc = db_error(st, err, "cannot open");
-        sqlite3_free(msg);
-        store_close(st);
-        return rc;
+        rc = db_error(st, err, "cannot open");
+        goto fail;
     }
-    rc = migrate(st, err);
-    if (rc != PB_OK) {
-        store_close(st);
-        return rc;
+    if ((rc = migrate(st, err)) != PB_OK)
+        goto fail;
+    if (own != OWN_OURS) {
+        char sql[64];
+        snprintf(sql, sizeof sql, "PRAGMA application_id = %d", STORE_APPLICATION_ID);
+        if (sqlite3_exec(st->db, sql, NULL, NULL, NULL) != SQLITE_OK) {
+            rc = db_error(st, err, "cannot mark the database as packbook's");
+            goto fail;
+        }
     }
     *out = st;
     return PB_OK;
+fail:
+    store_close(st);
+    return rc;
 }
 
 void store_close(struct store *st)
@@ -302,10 +479,19 @@ static enum pb_code exec_by_id(struct store *st, const char *sql, int64_t id, in
 
 /* ---- packs ------------------------------------------------------------ */
 
+/* Stored text into a record's field as valid UTF-8. packbook writes text that
+ * fits (the commands cap it at input), so only a file written by an older
+ * packbook or by hand gets here with more, or with bytes that are not UTF-8:
+ * those become U+FFFD, and text too long is cut at a character boundary and
+ * ends in U+2026 so it never passes for the whole. */
 static void copy_text(char *dst, size_t cap, sqlite3_stmt *s, int col)
 {
-    const unsigned char *t = sqlite3_column_text(s, col);
-    snprintf(dst, cap, "%s", t ? (const char *)t : "");
+    const char *t = (const char *)sqlite3_column_text(s, col);
+    size_t len = t ? (size_t)sqlite3_column_bytes(s, col) : 0;
+    if (utf8_repair(dst, cap, t ? t : "", len) && cap > 4) {
+        utf8_repair(dst, cap - 3, t, len);
+        strcat(dst, "\xe2\x80\xa6");
+    }
 }
 
 static void read_pack(sqlite3_stmt *s, struct pack_rec *p)
@@ -339,6 +525,7 @@ static void bind_text_or_null(sqlite3_stmt *s, int i, const char *t)
 
 enum pb_code store_pack_add(struct store *st, struct pack_rec *p, struct pb_error *err)
 {
+    wait_reset(st);
     sqlite3_stmt *s = NULL;
     now_iso(p->created_at, sizeof p->created_at);
     if (sqlite3_prepare_v2(st->db,
@@ -428,6 +615,7 @@ void store_packs_free(struct pack_rec *p)
 enum pb_code store_pack_retire(struct store *st, const char *label, const char *reason,
                                struct pb_error *err)
 {
+    wait_reset(st);
     struct pack_rec p;
     enum pb_code code = store_pack_get(st, label, &p, err);
     if (code != PB_OK)
@@ -534,9 +722,10 @@ static double col_num(sqlite3_stmt *s, int i)
     X(current_mean_a)                                                                              \
     X(power_mean_w)                                                                                \
     X(voltage_min_v)                                                                               \
-    X(cell_voltage_min_v) X(time_below_floor_s) X(r0_mohm) X(r0_ci95_mohm) X(r1_mohm) X(tau_s)     \
-        X(soc_start_pct) X(soc_end_pct) X(capacity_mah) X(capacity_ci95_mah)                       \
-            X(cell_spread_rest_mv) X(cell_spread_load_mv) X(temperature_max_c) X(power_cruise_w)
+    X(cell_voltage_min_v)                                                                          \
+    X(time_below_floor_s) X(r0_mohm) X(r0_ci95_mohm) X(r1_mohm) X(tau_s) X(soc_start_pct)          \
+        X(soc_end_pct) X(capacity_mah) X(capacity_ci95_mah) X(cell_spread_rest_mv)                 \
+            X(cell_spread_load_mv) X(temperature_max_c) X(power_cruise_w)
 
 #define X(name) #name ", "
 static const char flight_num_cols[] = FLIGHT_NUMS;
@@ -551,6 +740,7 @@ static int put_once(struct store *st, const struct flight_rec *f, const char *js
     int rc = sqlite3_exec(st->db, "BEGIN IMMEDIATE", NULL, NULL, NULL);
     if (rc != SQLITE_OK) {
         st->saved_code = sqlite3_extended_errcode(st->db);
+        st->saved_errno = sqlite3_system_errno(st->db);
         snprintf(st->saved_msg, sizeof st->saved_msg, "%s", sqlite3_errmsg(st->db));
         return rc;
     }
@@ -682,6 +872,7 @@ fail:
         /* keep the error of the failing step, not the rollback's */
         int keep = sqlite3_extended_errcode(st->db);
         st->saved_code = keep ? keep : rc;
+        st->saved_errno = sqlite3_system_errno(st->db);
         snprintf(st->saved_msg, sizeof st->saved_msg, "%s", sqlite3_errmsg(st->db));
         sqlite3_exec(st->db, "ROLLBACK", NULL, NULL, NULL);
         return keep ? keep : rc;
@@ -715,16 +906,19 @@ enum pb_code store_flight_find_hash(struct store *st, const char *content_hash, 
 enum pb_code store_flight_put(struct store *st, const struct flight_rec *f, const char *report_json,
                               struct store_dup *dup, struct pb_error *err)
 {
-    for (int attempt = 0; attempt < BUSY_RETRIES; attempt++) {
+    /* one wait in all: the busy handler's and these retries' (a lock SQLite
+     * reports without calling the handler) share one clock */
+    wait_reset(st);
+    for (;;) {
         st->saved_code = 0;
         int rc = put_once(st, f, report_json, dup);
         if (rc == SQLITE_OK)
             return PB_OK;
         if ((rc & 0xff) != SQLITE_BUSY && (rc & 0xff) != SQLITE_LOCKED)
             return db_error(st, err, "cannot store the flight");
-        usleep(50000u * (unsigned)(attempt + 1));
+        if (!wait_more(st))
+            return db_error(st, err, "cannot store the flight");
     }
-    return db_error(st, err, "cannot store the flight");
 }
 
 #define FLIGHT_HEAD_COLS                                                                           \

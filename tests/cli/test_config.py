@@ -89,8 +89,12 @@ class Config(unittest.TestCase):
         self.assertEqual(shown(out)["db"], (file_db, f"{path}:3"))
         rc, out, err = go(home, "config", "--json", env={"PACKBOOK_DB": env_db})
         self.assertEqual(shown(out)["db"], (env_db, "environment PACKBOOK_DB"))
+        # the environment's database is the one read (a reading command names it and does
+        # not create it: "no history yet", exit 4)
         rc, out, err = go(home, "pack", "list", env={"PACKBOOK_DB": env_db})
-        self.assertTrue(os.path.exists(env_db))
+        self.assertEqual(rc, 4, err)
+        self.assertIn(env_db, err)
+        self.assertFalse(os.path.exists(env_db))
         rc, out, err = go(home, "config", "--json", "--db", opt_db, env={"PACKBOOK_DB": env_db})
         self.assertEqual(shown(out)["db"], (opt_db, "option"))
         # text form names the file and each source

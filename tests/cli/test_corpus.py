@@ -29,6 +29,34 @@ def cases():
             yield name, args.split(), int(status), expect
 
 
+def fuzz_args(path):
+    """The analyze arguments for one fuzz input. A file named options-* is in the form of
+    tests/fuzz/fuzz_options.c: the --columns list, the --map list and a line with the
+    delimiter and decimal mark, then the log (written to a temporary file)."""
+    if not os.path.basename(path).startswith("options-"):
+        return [path, "--json"]
+    with open(path, "rb") as f:
+        data = f.read()
+    parts = data.split(b"\n", 3) + [b""] * 3
+    columns, mapping, dd, log = parts[:4]
+    args = [write_temp_bytes(log), "--json"]
+    text = lambda b: b.split(b"\0")[0].decode("utf-8", "surrogateescape")  # argv stops at NUL
+    if text(columns):
+        args += ["--columns", text(columns)]
+    if text(mapping):
+        args += ["--map", text(mapping)]
+    dd = text(dd)
+    if dd and dd[0] not in "0\"":
+        args += ["--delimiter", dd[0]]
+    if len(dd) > 1 and dd[1] in ".,":
+        args += ["--decimal", dd[1]]
+    return args
+
+
+def write_temp_bytes(data):
+    return pbtest.write_temp(data, mode="wb")
+
+
 class Corpus(unittest.TestCase):
     def test_corpus_has_its_outcomes(self):
         listed = {c[0] for c in cases()}
@@ -57,7 +85,7 @@ class Corpus(unittest.TestCase):
             if name.startswith("README"):
                 continue
             with self.subTest(name=name):
-                rc, out, err = pbtest.run("analyze", os.path.join(FUZZ, name), "--json")
+                rc, out, err = pbtest.run("analyze", *fuzz_args(os.path.join(FUZZ, name)))
                 self.assertIn(rc, (0, 2, 3), f"{name}: exit {rc}: {err[-500:]}")
 
 

@@ -1038,8 +1038,18 @@ class History(FigureChecks, unittest.TestCase):
 
     def test_empty_fleet(self):
         with tempfile.TemporaryDirectory() as d:
-            out = os.path.join(d, "empty.png")
-            self.plot("fleet", "-o", out, "--db", os.path.join(d, "empty.db"))
+            out, db = os.path.join(d, "empty.png"), os.path.join(d, "empty.db")
+            # a missing database is "no history yet" (reading commands never create one)
+            rc, _, err = run("plot", "fleet", "-o", out, "--db", db)
+            self.assertEqual(rc, 4, err)
+            self.assertIn("no history yet", err)
+            self.assertFalse(os.path.exists(db))
+            # a fleet whose only pack is retired: nothing in service to draw
+            for args in (("pack", "add", "X", "--cells", 4, "--chemistry", "lipo", "--capacity",
+                          5000), ("pack", "retire", "X", "--reason", "test")):
+                rc, _, err = run(*args[:2], "--db", db, *args[2:])
+                self.assertEqual(rc, 0, err)
+            self.plot("fleet", "-o", out, "--db", db)
             self.assert_png(out, 1400, 1000)
 
 

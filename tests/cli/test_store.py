@@ -228,8 +228,15 @@ class Migrations(unittest.TestCase):
 
     def test_empty_db_gets_current_schema(self):
         db = os.path.join(newdir(self, "mig-empty"), "new.db")
-        rc, out, err = pb(db, "pack", "list")
+        rc, out, err = pb(db, "pack", "list")  # reading never creates (issue 11)
+        self.assertEqual(rc, EXIT_STORE, err)
+        self.assertIn("no history yet", err)
+        self.assertFalse(os.path.exists(db))
+        rc, out, err = pb(db, "pack", "add", "TM-01", "--cells", 4, "--chemistry", "lipo",
+                          "--capacity", 5000)
         self.assertEqual(rc, EXIT_OK, err)
+        # the mark of a packbook file: application_id "PKBK" (src/store/store.h)
+        self.assertEqual(scalar(db, "PRAGMA application_id"), 0x504B424B)
         self.assertEqual(scalar(db, "PRAGMA user_version"), self.current,
                          "user_version = number of steps in migrations[]")
         names = {r[0] for r in query(db, "SELECT name FROM sqlite_master")}
@@ -243,6 +250,11 @@ class Migrations(unittest.TestCase):
         db = os.path.join(newdir(self, "mig-zero"), "zero.db")
         open(db, "w").close()
         rc, out, err = pb(db, "pack", "list")
+        self.assertEqual(rc, EXIT_STORE, err)
+        self.assertIn("no history yet", err)
+        self.assertEqual(os.path.getsize(db), 0, "a reading command leaves the file alone")
+        rc, out, err = pb(db, "pack", "add", "TM-01", "--cells", 4, "--chemistry", "lipo",
+                          "--capacity", 5000)
         self.assertEqual(rc, EXIT_OK, err)
         self.assertEqual(scalar(db, "PRAGMA user_version"), self.current)
 
@@ -276,7 +288,8 @@ class Migrations(unittest.TestCase):
         self.assertEqual(scalar(db, "PRAGMA user_version"), self.current)
         self.assertEqual(query(db, "PRAGMA integrity_check"), [("ok",)])
         # the old rows, column by column, are still there (new columns come after)
-        self.assertEqual([r[:len(packs[0])] for r in query(db, "SELECT * FROM packs")], packs)
+        self.assertEqual([r[:len(packs[0])] for r in query(db, "SELECT * FROM packs")][
+            :len(packs)], packs)
         con = sqlite3.connect(db)
         try:
             cur = con.execute("SELECT f.*, r.report_json FROM flights f JOIN flight_reports r "
@@ -300,9 +313,16 @@ class Migrations(unittest.TestCase):
         db = os.path.join(d, "v1.db")
         packs, flights = self._old_db(1, db)
         self.assertEqual(scalar(db, "PRAGMA user_version"), 1)
-        rc, out, err = pb(db, "fleet")  # any command migrates
+        with open(db, "rb") as f:
+            before = f.read()
+        rc, out, err = pb(db, "fleet")  # reads an upgraded copy in memory
         self.assertEqual(rc, EXIT_OK, err)
         self.assertIn("TM-07", out)
+        with open(db, "rb") as f:
+            self.assertEqual(f.read(), before, "a reading command leaves the file alone")
+        rc, out, err = pb(db, "pack", "add", "TM-08", "--cells", 4, "--chemistry", "lipo",
+                          "--capacity", 5000)  # a writing command migrates the file
+        self.assertEqual(rc, EXIT_OK, err)
         self._check_migrated(db, packs, flights)
         self.assertEqual(scalar(db, "SELECT count(*) FROM flight_cells"), 0)
         # the migrated store takes new flights with their cells
@@ -320,8 +340,12 @@ class Migrations(unittest.TestCase):
             with self.subTest(version=v):
                 db = os.path.join(newdir(self, f"mig-v{v}"), "old.db")
                 packs, flights = self._old_db(v, db)
-                rc, out, err = pb(db, "pack", "list")
+                rc, out, err = pb(db, "pack", "show", "TM-07", "--json")
                 self.assertEqual(rc, EXIT_OK, err)
+                self.assertEqual(len(json.loads(out)["flights"]), 1)
+                self.assertEqual(scalar(db, "PRAGMA user_version"), v, "read: not migrated")
+                rc, out, err = pb(db, "pack", "retire", "TM-99", "--reason", "x")
+                self.assertEqual(rc, EXIT_USAGE, err)  # unknown pack, after the migration
                 self._check_migrated(db, packs, flights)
 
     def test_newer_schema_is_refused(self):
@@ -350,12 +374,14 @@ class Migrations(unittest.TestCase):
             e.update(env)
             return subprocess.run([PACKBOOK, *args], env=e, capture_output=True).returncode
 
-        self.assertEqual(go({"PACKBOOK_DB": env_db, "XDG_DATA_HOME": xdg}, "pack", "list"), 0)
+        add = ("pack", "add", "TM-01", "--cells", "4", "--chemistry", "lipo", "--capacity",
+               "5000")
+        self.assertEqual(go({"PACKBOOK_DB": env_db, "XDG_DATA_HOME": xdg}, *add), 0)
         self.assertTrue(os.path.exists(env_db))
-        self.assertEqual(go({"PACKBOOK_DB": env_db, "XDG_DATA_HOME": xdg}, "pack", "list",
+        self.assertEqual(go({"PACKBOOK_DB": env_db, "XDG_DATA_HOME": xdg}, *add,
                             "--db", opt_db), 0)
         self.assertTrue(os.path.exists(opt_db))
-        self.assertEqual(go({"XDG_DATA_HOME": xdg}, "pack", "list"), 0)
+        self.assertEqual(go({"XDG_DATA_HOME": xdg}, *add), 0)
         self.assertTrue(os.path.exists(os.path.join(xdg, "packbook", "packbook.db")))
 
 

@@ -106,7 +106,7 @@ class Truth(unittest.TestCase):
 
     def test_series_output(self):
         log, truth = generate(self.tmp, "series", "--seed", 71, "--cells", 4, "--soc0", 95)
-        out = os.path.join(self.tmp, "series.csv")
+        out = os.path.join(self.tmp, "series-samples.csv")  # generate() wrote series.csv, the log
         doc = pbtest.analyze_json(log, "--chemistry", "lipo", "--cells", 4, "--series", out)
         import csv
         with open(out) as f:

@@ -93,8 +93,8 @@ static void test_exact_static_model(void **state)
     double q = 0.0;
     for (size_t k = 0; k < 2000; k++) {
         assert_int_equal(series_reserve_one(s), 0);
-        double i = 5.0 + 4.0 * ((k / 50) % 3); /* steps 5, 9, 13 A */
-        s->t_s[k] = 0.1 * k;
+        double i = 5.0 + 4.0 * (double)((k / 50) % 3); /* steps 5, 9, 13 A */
+        s->t_s[k] = 0.1 * (double)k;
         if (k > 0)
             q += 0.1 * 0.5 * (i + s->i_a[k - 1]) / 3600.0;
         s->i_a[k] = i;
@@ -164,7 +164,7 @@ static void test_voltage_only(void **state)
     for (size_t k = 0; k < 100; k++) {
         assert_int_equal(series_reserve_one(s), 0);
         s->t_s[k] = (double)k;
-        s->v_v[k] = 8.32 - 0.005 * k;
+        s->v_v[k] = 8.32 - 0.005 * (double)k;
         s->n = k + 1;
     }
     struct analyze_opts o = {.chemistry = CHEM_LIPO};

@@ -63,13 +63,13 @@ static void test_slope_se(void **state)
     assert_int_equal(fit_linear(d.n, 2, row_line, &d, 0, &f, NULL), PB_OK);
     double xbar = 0, sxx = 0, rss = 0;
     for (size_t k = 0; k < d.n; k++)
-        xbar += d.x[k] / d.n;
+        xbar += d.x[k] / (double)d.n;
     for (size_t k = 0; k < d.n; k++) {
         sxx += (d.x[k] - xbar) * (d.x[k] - xbar);
         double r = d.y[k] - f.beta[0] - f.beta[1] * d.x[k];
         rss += r * r;
     }
-    double s = sqrt(rss / (d.n - 2));
+    double s = sqrt(rss / (double)(d.n - 2));
     check_rel(sqrt(f.cov[1][1]), s / sqrt(sxx), 1e-9, "slope SE = s / sqrt(Sxx)");
     check_rel(f.sigma, s, 1e-9, "residual sigma");
     free(d.x), free(d.y);
@@ -141,6 +141,9 @@ static void test_median_is_the_sorted_middle(void **state)
         free(a);
         free(b);
     }
+    /* no values: 0, as gsl_stats_median gives (a one-sample log's intervals) */
+    double none[1] = {42.0};
+    assert_true(fit_median(none, 0) == 0.0);
 }
 
 int main(void)
