@@ -27,7 +27,7 @@ static const struct command commands[] = {
     {"chemistry", cmd_chemistry, "the OCV tables and limits used, with their sources"},
     {"pack", cmd_pack, "register packs: add, list, show, edit, retire, unretire"},
     {"import", cmd_import, "analyse logs and store them as a pack's flights"},
-    {"flight", cmd_flight, "stored flights: list, remove, move to another pack"},
+    {"flight", cmd_flight, "stored flights: list, remove, move, ack (a flight that left its trend)"},
     {"fleet", cmd_fleet, "every pack's state, with retirement flags and reasons"},
     {"trend", cmd_trend, "a pack's resistance and capacity over weeks and cycles"},
     {"compare", cmd_compare, "packs side by side"},

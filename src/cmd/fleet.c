@@ -20,7 +20,11 @@ static const char usage[] =
     "flights) and against its baseline (median of its first "
     HEALTH_STR(HEALTH_BASELINE_FLIGHTS) "), capacity as % of\n"
     "rated, resting cell imbalance, the weakest cell, over-discharges (flights under\n"
-    "the cut-off voltage), status (ok, watch, retire) and why.\n"
+    "the cut-off voltage), status (ok, watch, retire) and why, and a date to plan\n"
+    "to retire by (the early end of the knee-aware projection in 'packbook trend',\n"
+    "at the pack's use so far). A flight that left its trend shows as 'inspect:\n"
+    "flight N ...' until 'packbook flight ack'; registered pairs ('packbook pack\n"
+    "pair') are listed together, and a pair beyond its limits is a watch finding.\n"
     "  --sort KEY             status (default: retire first), pack, cycles, r0 (resistance\n"
     "                         per cell, highest first), r0-ratio (against the baseline),\n"
     "                         capacity (lowest first), imbalance, last\n"
@@ -203,6 +207,8 @@ enum pb_code cmd_fleet(int argc, char **argv, struct app *app, struct pb_error *
         fp.failed = 1; /* no pack: an empty column all the same */
     if (rc == PB_OK && fp.failed)
         rc = pb_error_set(err, PB_ENOMEM, "out of memory");
+    if (rc == PB_OK)
+        rc = packview_pairs(st, views, nv, err);
     if (rc != PB_OK)
         goto cleanup;
     if (predict) {
@@ -211,6 +217,7 @@ enum pb_code cmd_fleet(int argc, char **argv, struct app *app, struct pb_error *
             views[k].safe_s[0] = safe[2 * k], views[k].safe_s[1] = safe[2 * k + 1];
     }
     qsort(views, nv, sizeof *views, compare_views);
+    packview_keep_pairs_together(views, nv);
     if (predict)
         for (size_t k = 0; k < nv; k++)
             safe[2 * k] = views[k].safe_s[0], safe[2 * k + 1] = views[k].safe_s[1];

@@ -1,5 +1,6 @@
-/* packbook flight list|remove|move: the stored flights, one by one, so a
- * wrong import can be undone. Cycles, baselines and status are computed
+/* packbook flight list|remove|move|ack: the stored flights, one by one, so a
+ * wrong import can be undone, and a flight that left its pack's trend can
+ * be acknowledged once the pack was inspected. Cycles, baselines and status are computed
  * from the flights each time they are shown, so removing or moving a flight
  * recomputes them; each change prints what it changed. */
 #include <getopt.h>
@@ -9,6 +10,7 @@
 #include <strings.h>
 
 #include "../core/isotime.h"
+#include "../core/utf8.h"
 #include "cmd.h"
 #include "packview.h"
 
@@ -16,6 +18,7 @@ static const char usage[] =
     "usage: packbook flight list [PACK] [--json|--csv] [--db PATH]\n"
     "       packbook flight remove ID [--db PATH]\n"
     "       packbook flight move ID --to PACK [--db PATH]\n"
+    "       packbook flight ack ID --note TEXT [--db PATH]\n"
     "\n"
     "list: every stored flight (of PACK, or of all packs) oldest first, with its\n"
     "  id, date (and where the date came from: log, option or mtime), duration,\n"
@@ -23,8 +26,13 @@ static const char usage[] =
     "remove: deletes flight ID; the pack's cycles, baseline and status follow.\n"
     "move: gives flight ID to PACK (same cells and chemistry as it was analysed\n"
     "  with; otherwise remove it and import the log into the right pack).\n"
+    "ack: records that the pack of flight ID, which left its trend (import,\n"
+    "  fleet and pack show name it), was inspected, and what was found: the flag\n"
+    "  stops showing and the trend the next flights are compared with starts\n"
+    "  afresh from it (its level is accepted). Again: replaces the note.\n"
     "Each change prints the packs' flights, cycles, baseline R0 and status\n"
     "before and after.\n"
+    "  --note TEXT            what the inspection found (ack, required)\n"
     "  --to PACK              the pack that really flew (move)\n"
     "  --json, --csv          machine-readable list (CSV cells starting = + - @ are\n"
     "                         prefixed with ' so spreadsheets do not run them)\n"
@@ -32,18 +40,23 @@ static const char usage[] =
     "                         settings file's db, else $XDG_DATA_HOME/packbook/packbook.db;\n"
     "                         see 'packbook config')\n";
 
-enum { FL_JSON = 256, FL_CSV, FL_TO, FL_DB };
+enum { FL_JSON = 256, FL_CSV, FL_TO, FL_DB, FL_NOTE };
 
 static const struct option longopts[] = {
-    {"json", no_argument, NULL, FL_JSON},   {"csv", no_argument, NULL, FL_CSV},
-    {"to", required_argument, NULL, FL_TO}, {"db", required_argument, NULL, FL_DB},
-    {"help", no_argument, NULL, 'h'},       {NULL, 0, NULL, 0},
+    {"json", no_argument, NULL, FL_JSON},
+    {"csv", no_argument, NULL, FL_CSV},
+    {"to", required_argument, NULL, FL_TO},
+    {"db", required_argument, NULL, FL_DB},
+    {"note", required_argument, NULL, FL_NOTE},
+    {"help", no_argument, NULL, 'h'},
+    {NULL, 0, NULL, 0},
 };
 
 struct flight_cli {
     enum fleet_format fmt;
     const char *to, *db;
-    const char *arg; /* PACK for list, ID otherwise; NULL when absent */
+    const char *note; /* ack */
+    const char *arg;  /* PACK for list, ID otherwise; NULL when absent */
 };
 
 static enum pb_code parse_id(const char *verb, const char *arg, int64_t *id, struct pb_error *err)
@@ -193,9 +206,27 @@ static enum pb_code do_move(struct store *st, const struct flight_cli *cli, stru
     return PB_OK;
 }
 
+static enum pb_code do_ack(struct store *st, const struct flight_cli *cli, struct pb_error *err)
+{
+    int64_t id = 0;
+    enum pb_code rc = parse_id("ack", cli->arg, &id, err);
+    if (rc != PB_OK)
+        return rc;
+    if (!cli->note || !cli->note[0])
+        return pb_error_set(err, PB_EUSAGE,
+                            "flight ack: --note TEXT is required (what the inspection found)");
+    char label[128] = "";
+    rc = store_flight_ack(st, id, cli->note, label, sizeof label, err);
+    if (rc == PB_OK)
+        printf("flight %lld of pack '%s' acknowledged: %s\n", (long long)id,
+               utf8_printable((char[4 * 128 + 4]){0}, 4 * 128 + 4, label),
+               utf8_printable((char[4 * 256 + 4]){0}, 4 * 256 + 4, cli->note));
+    return rc;
+}
+
 enum pb_code cmd_flight(int argc, char **argv, struct app *app, struct pb_error *err)
 {
-    struct flight_cli cli = {FLEET_TEXT, NULL, NULL, NULL};
+    struct flight_cli cli = {FLEET_TEXT, NULL, NULL, NULL, NULL};
     int c;
     (void)app;
     optind = 1;
@@ -214,6 +245,9 @@ enum pb_code cmd_flight(int argc, char **argv, struct app *app, struct pb_error 
         case FL_DB:
             cli.db = optarg;
             break;
+        case FL_NOTE:
+            cli.note = optarg;
+            break;
         case 'h':
             fputs(usage, stdout);
             return cmd_finish_stdout(err);
@@ -223,7 +257,8 @@ enum pb_code cmd_flight(int argc, char **argv, struct app *app, struct pb_error 
     }
     if (optind >= argc)
         return pb_error_set(err, PB_EUSAGE,
-                            "flight: expected list, remove or move (see 'packbook flight --help')");
+                            "flight: expected list, remove, move or ack (see 'packbook flight "
+                            "--help')");
     const char *sub = argv[optind];
     enum pb_code (*run)(struct store *, const struct flight_cli *, struct pb_error *) = NULL;
     if (strcmp(sub, "list") == 0)
@@ -232,8 +267,10 @@ enum pb_code cmd_flight(int argc, char **argv, struct app *app, struct pb_error 
         run = do_remove;
     else if (strcmp(sub, "move") == 0)
         run = do_move;
+    else if (strcmp(sub, "ack") == 0)
+        run = do_ack;
     else
-        return pb_error_set(err, PB_EUSAGE, "flight: unknown action '%s' (list, remove, move)",
+        return pb_error_set(err, PB_EUSAGE, "flight: unknown action '%s' (list, remove, move, ack)",
                             sub);
     if (optind + 1 < argc)
         cli.arg = argv[optind + 1];
@@ -245,6 +282,8 @@ enum pb_code cmd_flight(int argc, char **argv, struct app *app, struct pb_error 
                             sub);
     if (run != do_move && cli.to)
         return pb_error_set(err, PB_EUSAGE, "flight %s: --to is for 'flight move'", sub);
+    if (run != do_ack && cli.note)
+        return pb_error_set(err, PB_EUSAGE, "flight %s: --note is for 'flight ack'", sub);
     struct store *st = NULL;
     enum pb_code rc =
         packview_open_store(cli.db, run == do_list ? STORE_READ : STORE_WRITE, &st, err);

@@ -36,6 +36,9 @@ static const char usage_head[] =
     "(exit status 1). When the pack's status changes, it is printed.\n"
     "The pack's remembered reading settings (pack add/edit) apply; the options\n"
     "below override them.\n"
+    "A flight that left its pack's trend (IR or cell imbalance up, capacity down\n"
+    "by 4 standard deviations or more) is named after the summary, with how to\n"
+    "acknowledge it once inspected ('packbook flight ack').\n"
     "\n"
     "  --pack ID              the pack that flew (see 'packbook pack list')\n"
     "  --date DATE            date for logs without absolute time (ISO 8601)\n"
@@ -541,6 +544,40 @@ static void *worker(void *vp)
     return NULL;
 }
 
+/* The flights just stored (by content hash) that left the pack's trend
+ * (departure.h), each with how to acknowledge it. Printed even with
+ * --quiet: it is why the operator should look at the pack now. */
+static enum pb_code report_departures(struct store *st, const struct pack_rec *pack,
+                                      char (*hashes)[40], size_t nh, struct pb_error *err)
+{
+    struct health_rules rules;
+    health_rules_default(&rules);
+    struct pack_view v;
+    enum pb_code rc = packview_load(st, pack, &rules, TREND_WEEK, 0, 1000.0, &v, err);
+    if (rc != PB_OK)
+        return rc;
+    for (size_t k = 0; k < v.nflights; k++) {
+        const struct flight_rec *f = &v.flights[k];
+        if (!v.dep[k].flagged || pack_view_ack(&v, f->id))
+            continue;
+        int fresh = 0;
+        for (size_t j = 0; j < nh && !fresh; j++)
+            fresh = strcmp(hashes[j], f->content_hash) == 0;
+        if (!fresh)
+            continue;
+        char what[128], day[40];
+        departure_text(&v.dep[k], what, sizeof what);
+        isotime_format(f->flown_epoch_s, day, sizeof day);
+        printf("inspect: flight %lld (%.10s, %s): %s; after inspecting the pack: packbook flight "
+               "ack %lld --note TEXT\n",
+               (long long)f->id, day,
+               utf8_printable((char[4 * 256 + 4]){0}, 4 * 256 + 4, f->source),
+               report_units(what, (char[160]){0}, 160), (long long)f->id);
+    }
+    pack_view_release(&v);
+    return PB_OK;
+}
+
 static void progress(size_t done, size_t total)
 {
     int width = 30, filled = (int)((size_t)width * done / (total ? total : 1));
@@ -628,6 +665,7 @@ enum pb_code cmd_import(int argc, char **argv, struct app *app, struct pb_error 
 
     struct store *st = NULL;
     struct path_list paths = {0};
+    char(*hashes)[40] = NULL; /* content hashes of the flights stored now */
     rc = packview_open_store_wait(cli.db, STORE_WRITE, cli.wait_s, &st, err);
     if (rc != PB_OK)
         return rc;
@@ -655,6 +693,11 @@ enum pb_code cmd_import(int argc, char **argv, struct app *app, struct pb_error 
     rc = packview_summary(st, &pack, &before, err);
     if (rc != PB_OK)
         goto cleanup;
+    hashes = calloc(paths.n ? paths.n : 1, sizeof *hashes);
+    if (!hashes) {
+        rc = pb_error_set(err, PB_ENOMEM, "out of memory");
+        goto cleanup;
+    }
     struct pool pool = {.n = paths.n, .pack = &pack, .cli = &cli};
     pool.ahead = (size_t)cli.jobs * IMPORT_AHEAD;
     pool.jobs = calloc(paths.n ? paths.n : 1, sizeof *pool.jobs);
@@ -712,6 +755,8 @@ enum pb_code cmd_import(int argc, char **argv, struct app *app, struct pb_error 
             fprintf(stderr, "packbook: not imported: %s\n",
                     utf8_printable(shown, sizeof shown, j->err.msg));
         } else {
+            if (j->out == OUT_STORED)
+                memcpy(hashes[stored], j->f.content_hash, sizeof hashes[0]);
             stored += j->out == OUT_STORED;
             dups += j->out == OUT_DUPLICATE;
             if (!cli.quiet)
@@ -752,8 +797,11 @@ enum pb_code cmd_import(int argc, char **argv, struct app *app, struct pb_error 
                    after.reason);
     }
     app->some_failed = failed > 0;
-    rc = cmd_finish_stdout(err);
+    rc = stored ? report_departures(st, &pack, hashes, stored, err) : PB_OK;
+    if (rc == PB_OK)
+        rc = cmd_finish_stdout(err);
 cleanup:
+    free(hashes);
     for (size_t k = 0; k < paths.n; k++)
         free(paths.v[k]);
     free(paths.v);

@@ -22,6 +22,7 @@ static const char usage[] =
     "                         [READING] [--clear-settings]\n"
     "       packbook pack retire ID --reason TEXT\n"
     "       packbook pack unretire ID\n"
+    "       packbook pack pair [ID ID] | pack unpair ID   (see packbook pack pair --help)\n"
     "\n"
     "ID is the label written on the pack (free text); the chemistry is lipo, lihv,\n"
     "nmc or lfp, in any case. Retired packs are kept;\n"
@@ -29,7 +30,8 @@ static const char usage[] =
     "each change with the pack's cycles and status before and after; --cells\n"
     "and --chemistry change only while no stored flight was analysed otherwise\n"
     "(remove those flights first, then import their logs again). --since ''\n"
-    "and --note '' clear the field.\n"
+    "and --note '' clear the field. show lists the flights with their numbers and\n"
+    "those that left their trend (acknowledge: 'packbook flight ack N --note TEXT').\n"
     "\n"
     "READING: the options of 'packbook analyze' that say how to read and analyse\n"
     "this pack's logs (--cut-off, --map, --columns, --current-sign, --adc-scale or\n"
@@ -136,6 +138,9 @@ static enum pb_code cmd_show(struct store *st, struct pack_cli *cli, struct pb_e
     config_rules(&rules);
     struct pack_view v;
     rc = packview_load(st, &p, &rules, TREND_WEEK, 0, 1000.0, &v, err);
+    if (rc != PB_OK)
+        return rc;
+    rc = packview_pairs(st, &v, 1, err);
     if (rc == PB_OK && report_pack_show(stdout, &v, format_of(cli)) != 0)
         rc = pb_error_set(err, PB_EOUTPUT, "cannot write the output");
     pack_view_release(&v);
@@ -276,6 +281,9 @@ enum pb_code cmd_pack(int argc, char **argv, struct app *app, struct pb_error *e
     struct pack_cli cli = {0};
     int c;
     (void)app;
+    /* pair and unpair have their own options (pair.c) */
+    if (argc >= 2 && (strcmp(argv[1], "pair") == 0 || strcmp(argv[1], "unpair") == 0))
+        return cmd_pack_pair(argc - 1, argv + 1, err);
     cli.rec.parallel = 1;
     cli.wait_s = STORE_WAIT_DEFAULT_S;
     optind = 1;

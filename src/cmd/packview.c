@@ -1,5 +1,6 @@
 #include "packview.h"
 
+#include "../core/isotime.h"
 #include "../report/report.h"
 #include "config.h"
 
@@ -192,6 +193,7 @@ static void to_health(const struct flight_rec *f, size_t n, struct health_flight
         h[k].epoch_s = f[k].flown_epoch_s;
         h[k].charge_mah = f[k].charge_used_mah;
         h[k].r0_mohm = f[k].r0_mohm;
+        h[k].r0_ci95_mohm = f[k].r0_ci95_mohm;
         h[k].capacity_mah = f[k].capacity_mah;
         h[k].capacity_ci95_mah = f[k].capacity_ci95_mah;
         h[k].spread_rest_mv = f[k].cell_spread_rest_mv;
@@ -223,9 +225,9 @@ enum pb_code packview_load_fleet(struct store *st, const struct health_rules *ru
     for (size_t k = 0; rc == PB_OK && k < np; k++) {
         if (packs[k].retired_at[0] && !all)
             continue;
-        /* the fleet shows each pack's state, not its trend lines, and holds
-         * one pack's flights at a time */
-        rc = load_view(st, &packs[k], rules, TREND_WEEK, 0, 1000.0, 0, &v[n], err);
+        /* the fleet shows each pack's state and life plan (from its trend),
+         * and holds one pack's flights at a time */
+        rc = load_view(st, &packs[k], rules, TREND_WEEK, 0, 1000.0, 1, &v[n], err);
         if (rc != PB_OK)
             break;
         const char *s = packs[k].retired_at[0] ? "retired" : health_status_name(v[n].health.status);
@@ -236,7 +238,9 @@ enum pb_code packview_load_fleet(struct store *st, const struct health_rules *ru
         if (each)
             each(&v[n], n, ctx);
         store_flights_free(v[n].flights);
+        free(v[n].dep); /* per flight; the view keeps the count and the finding */
         v[n].flights = NULL;
+        v[n].dep = NULL;
         v[n].nflights = 0;
         n++;
     }
@@ -259,6 +263,44 @@ void packview_free_all(struct pack_view *views, size_t n)
     free(views);
 }
 
+/* Which flights left their trend (departure.h), with the operator's
+ * acknowledgements; the newest unacknowledged one becomes a finding of the
+ * pack's health ("inspect: ..."), at least watch. Returns 0, or -1 when out
+ * of memory. */
+static int departures(struct pack_view *v, const struct health_flight *h)
+{
+    size_t n = v->nflights;
+    int *acked = calloc(n ? n : 1, sizeof *acked);
+    v->dep = calloc(n ? n : 1, sizeof *v->dep);
+    if (!acked || !v->dep) {
+        free(acked);
+        return -1;
+    }
+    for (size_t k = 0; k < n; k++)
+        acked[k] = pack_view_ack(v, v->flights[k].id) != NULL;
+    int rc = departure_scan(h, n, v->pack.cells, v->pack.capacity_mah, acked, v->dep);
+    size_t newest = n;
+    for (size_t k = 0; rc >= 0 && k < n; k++)
+        if (v->dep[k].flagged && !acked[k]) {
+            v->departures++;
+            newest = k;
+        }
+    free(acked);
+    if (rc < 0)
+        return -1;
+    if (newest < n) {
+        char what[128], text[256], day[32];
+        departure_text(&v->dep[newest], what, sizeof what);
+        isotime_format(v->flights[newest].flown_epoch_s, day, sizeof day);
+        day[10] = '\0';
+        snprintf(text, sizeof text, "inspect: flight %lld (%s) %s%s",
+                 (long long)v->flights[newest].id, day, what,
+                 v->departures > 1 ? " and earlier ones" : "");
+        health_add_finding(&v->health, HEALTH_WATCH, text);
+    }
+    return 0;
+}
+
 enum pb_code packview_load(struct store *st, const struct pack_rec *p,
                            const struct health_rules *rules, enum trend_by by, int plain,
                            double horizon, struct pack_view *v, struct pb_error *err)
@@ -272,6 +314,7 @@ static enum pb_code load_view(struct store *st, const struct pack_rec *p,
                               struct pb_error *err)
 {
     memset(v, 0, sizeof *v);
+    v->pair_distance = NAN;
     v->pack = *p;
     enum pb_code rc = store_flights_of(st, p->id, &v->flights, &v->nflights, err);
     if (rc != PB_OK)
@@ -286,7 +329,16 @@ static enum pb_code load_view(struct store *st, const struct pack_rec *p,
     int trc = with_trend ? health_trend(h, v->nflights, p->cells, p->capacity_mah, rules, by, plain,
                                         horizon, &v->trend)
                          : 0;
+    if (trc == 0) {
+        rc = store_acks_of(st, p->id, &v->acks, &v->nacks, err);
+        if (rc == PB_OK)
+            trc = departures(v, h);
+    }
     free(h);
+    if (rc != PB_OK) {
+        pack_view_release(v);
+        return rc;
+    }
     if (trc != 0) {
         pack_view_release(v);
         return pb_error_set(err, PB_ENOMEM, "out of memory");

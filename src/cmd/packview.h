@@ -53,12 +53,25 @@ enum pb_code packview_load(struct store *st, const struct pack_rec *p,
  * of the result); the flights are freed after it. */
 typedef void (*packview_each_fn)(const struct pack_view *v, size_t k, void *ctx);
 
-/* Every pack (in service, or all) with its state (status: only those in
- * it): one pack's flights in memory at a time, no trend lines; the views
- * come back without flights. each may be NULL. */
+/* Every pack (in service, or all) with its state and trend (status: only
+ * those in it): one pack's flights in memory at a time; the views come back
+ * without flights. each may be NULL. */
 enum pb_code packview_load_fleet(struct store *st, const struct health_rules *rules, int all,
                                  const char *status, packview_each_fn each, void *ctx,
                                  struct pack_view **views, size_t *nv, struct pb_error *err);
+
+/* Registered pairs (pair.c): sets each view's paired_with and, when the
+ * partner is among the views, their mismatch; a pair beyond the limits
+ * (pairs.h) becomes a finding of both packs' health (watch). */
+enum pb_code packview_pairs(struct store *st, struct pack_view *views, size_t n,
+                            struct pb_error *err);
+
+/* Moves each view's registered partner right after it (views already in
+ * the order wanted), so pairs are read together. */
+void packview_keep_pairs_together(struct pack_view *views, size_t n);
+
+/* packbook pack pair|unpair (pair.c); argv[0] is "pair" or "unpair". */
+enum pb_code cmd_pack_pair(int argc, char **argv, struct pb_error *err);
 
 /* Releases n views and frees the array; NULL is a no-op. */
 void packview_free_all(struct pack_view *views, size_t n);

@@ -22,6 +22,10 @@ static const char trend_usage[] =
     "retirement level, or that it does not within N cycles (--horizon, default\n"
     "1000). Several packs: one after another (CSV: one table with a pack column;\n"
     "JSON: an array).\n"
+    "With 10 or more flights, a knee-aware projection under each: fade models\n"
+    "(line, line with a break, exponential, power law) chosen by their held-out\n"
+    "error on this pack's history, and the crossing as a range: '80 % between\n"
+    "cycle X and Y; plan for X' (JSON: crossing_cycles_range [early, middle, late])\n"
     "  --plot FILE            also draw the trend of one pack as FILE.png, .svg or .pdf\n"
     "                         against cycles ('packbook plot trend' has --x date, --size)\n";
 

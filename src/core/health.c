@@ -143,6 +143,14 @@ static void add_reason(struct pack_health *h, enum health_status level, const ch
     va_end(ap);
 }
 
+void health_add_finding(struct pack_health *h, enum health_status level, const char *text)
+{
+    /* "within all limits" no longer holds */
+    if (h->status == HEALTH_OK)
+        h->reason[0] = '\0';
+    add_reason(h, level, "%s", text);
+}
+
 void health_assess(const struct health_flight *f, size_t n, int cells, double rated_mah,
                    const struct health_rules *r, struct pack_health *h)
 {
@@ -335,23 +343,27 @@ static void bucket_key(enum trend_by by, double epoch_s, double cycles, char *ke
     snprintf(key, cap, "%04d-W%02d", y, w);
 }
 
-static void trend_line_fit(struct trend_line *tl, const double *cyc, const double *days,
-                           const double *y, size_t n, int plain, double level, int rising,
-                           double cycles_now, double days_now, double first_epoch, double horizon)
+static int trend_line_fit(struct trend_line *tl, const double *cyc, const double *days,
+                          const double *y, size_t n, int plain, double level, int rising,
+                          double cycles_now, double days_now, double first_epoch, double horizon)
 {
     tl->vs_cycles = health_line(cyc, y, n, plain);
     tl->vs_days = health_line(days, y, n, plain);
     tl->level = level;
-    tl->cross_cycles = tl->cross_epoch_s = NAN;
+    tl->cross_cycles = tl->cross_epoch_s = tl->plan_epoch_s = NAN;
+    if (life_project(cyc, y, n, level, rising, cycles_now, horizon, &tl->life) != 0)
+        return -1;
+    if (isfinite(tl->life.early) && cycles_now > 0.0 && days_now > 0.0)
+        tl->plan_epoch_s = first_epoch + tl->life.early * (days_now / cycles_now) * 86400.0;
     if (!isfinite(level))
-        return;
+        return 0;
     double xc, xd;
     int c = health_crossing(&tl->vs_cycles, level, rising, cycles_now, &xc);
     if (c < 0) {
         /* whether the rule has fired is the caller's to say (from the
          * pack's state), so every view words it the same */
         tl->line_past = 1;
-        return;
+        return 0;
     }
     if (c > 0) {
         if (xc - cycles_now > horizon)
@@ -361,6 +373,7 @@ static void trend_line_fit(struct trend_line *tl, const double *cyc, const doubl
     }
     if (health_crossing(&tl->vs_days, level, rising, days_now, &xd) > 0 && !tl->beyond_horizon)
         tl->cross_epoch_s = first_epoch + xd * 86400.0;
+    return 0;
 }
 
 int health_trend(const struct health_flight *f, size_t n, int cells, double rated_mah,
@@ -372,6 +385,9 @@ int health_trend(const struct health_flight *f, size_t n, int cells, double rate
     t->r0.level = t->capacity.level = NAN;
     t->r0.cross_cycles = t->r0.cross_epoch_s = NAN;
     t->capacity.cross_cycles = t->capacity.cross_epoch_s = NAN;
+    t->r0.plan_epoch_s = t->capacity.plan_epoch_s = NAN;
+    t->r0.life.early = t->r0.life.middle = t->r0.life.late = NAN;
+    t->capacity.life.early = t->capacity.life.middle = t->capacity.life.late = NAN;
     if (n == 0)
         return 0;
     double *cyc = malloc(n * sizeof *cyc), *days = malloc(n * sizeof *days);
@@ -425,17 +441,39 @@ int health_trend(const struct health_flight *f, size_t n, int cells, double rate
     t->days_now = days[n - 1];
     struct pack_health h;
     health_assess(f, n, cells, rated_mah, rules, &h);
-    trend_line_fit(&t->r0, cyc, days, r0, n, plain, rules->retire_r0_ratio * h.r0_base_mohm_cell, 1,
-                   t->cycles_now, t->days_now, f[0].epoch_s, horizon);
-    trend_line_fit(&t->capacity, cyc, days, cap, n, plain, rules->retire_capacity_pct, 0,
-                   t->cycles_now, t->days_now, f[0].epoch_s, horizon);
+    int bad = trend_line_fit(&t->r0, cyc, days, r0, n, plain,
+                             rules->retire_r0_ratio * h.r0_base_mohm_cell, 1, t->cycles_now,
+                             t->days_now, f[0].epoch_s, horizon);
+    bad |= trend_line_fit(&t->capacity, cyc, days, cap, n, plain, rules->retire_capacity_pct, 0,
+                          t->cycles_now, t->days_now, f[0].epoch_s, horizon);
     /* "reached" means what the retirement rule says now (health_assess), in
      * trend, compare, fleet and the figures alike */
     t->r0.crossed = n > (size_t)rules->baseline_flights && isfinite(h.r0_ratio) &&
                     h.r0_ratio >= rules->retire_r0_ratio;
     t->capacity.crossed = isfinite(h.capacity_pct) && h.capacity_pct <= rules->retire_capacity_pct;
     free(cyc), free(days), free(r0), free(cap);
+    if (bad) {
+        health_trend_release(t);
+        return -1;
+    }
     return 0;
+}
+
+int health_plan(const struct pack_trend *t, double *cycles, double *epoch_s, const char **what)
+{
+    const struct trend_line *q[2] = {&t->capacity, &t->r0};
+    static const char *const names[2] = {"capacity", "R0"};
+    *cycles = *epoch_s = NAN;
+    *what = NULL;
+    for (int j = 0; j < 2; j++) {
+        double e = q[j]->life.early;
+        if (isfinite(e) && !(e >= *cycles)) {
+            *cycles = e;
+            *epoch_s = q[j]->plan_epoch_s;
+            *what = names[j];
+        }
+    }
+    return *what != NULL;
 }
 
 void health_trend_release(struct pack_trend *t)

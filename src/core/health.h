@@ -8,6 +8,8 @@
 
 #include <stddef.h>
 
+#include "life.h"
+
 struct health_flight {
     double epoch_s;
     double charge_mah;        /* net charge used */
@@ -17,6 +19,7 @@ struct health_flight {
     double spread_rest_mv;    /* NAN when unknown */
     int below_floor;          /* the loaded voltage crossed the per-cell floor */
     int weakest_cell;         /* 1-based cell lowest under load, 0 when the log had no cells */
+    double r0_ci95_mohm;      /* its 95 % half-width; NAN or 0 when unknown */
 };
 
 /* Thresholds. Defaults (health_rules_default): capacity at or below 80 %
@@ -77,6 +80,10 @@ void health_assess(const struct health_flight *f, size_t n, int cells, double ra
 
 const char *health_status_name(enum health_status s);
 
+/* Adds a finding made outside health_assess (text, e.g. a flight that left
+ * its trend) to h's reason, raising its status to at least level. */
+void health_add_finding(struct pack_health *h, enum health_status level, const char *text);
+
 /* A straight-line fit y = a + b x with the slope's 95 % interval. */
 struct line_fit {
     int ok; /* enough points (>= 3) with spread in x */
@@ -133,6 +140,11 @@ struct trend_line {
     double cross_cycles;  /* equivalent cycles at the crossing */
     double cross_epoch_s; /* date of the crossing, from the time fit */
     int beyond_horizon;   /* a crossing exists, but later than the horizon */
+    /* the knee-aware projection (life.h): its early end is what to plan
+     * for; plan_epoch_s is that early end as a date at the pack's average
+     * use so far (equivalent cycles per day), NAN when unknown */
+    struct life_projection life;
+    double plan_epoch_s;
 };
 
 struct pack_trend {
@@ -149,6 +161,12 @@ struct pack_trend {
 int health_trend(const struct health_flight *f, size_t n, int cells, double rated_mah,
                  const struct health_rules *rules, enum trend_by by, int plain, double horizon,
                  struct pack_trend *out);
+
+/* What to plan for: the earlier of the two quantities' early ends
+ * (life.h). Sets *cycles, *epoch_s (NAN without a date) and *what ("R0" or
+ * "capacity"); returns 0 when neither projects a crossing within the
+ * horizon. */
+int health_plan(const struct pack_trend *t, double *cycles, double *epoch_s, const char **what);
 
 /* Frees the buckets of t (not t itself); safe on a zeroed struct. */
 void health_trend_release(struct pack_trend *t);

@@ -8,6 +8,7 @@
 
 #include "plot.h"
 #include "plots.h"
+#include "report_health.h"
 
 #define LINE_POINTS 120 /* samples along a fitted line and its band */
 
@@ -117,6 +118,10 @@ enum pb_code plot_trend(const char *path, const struct plot_opts *o, const struc
         double xc = by_date ? (tl->cross_epoch_s - first_epoch) / 86400.0 : tl->cross_cycles;
         if (isfinite(xc) && xc > x_hi && xc <= x_now * 3.0)
             x_hi = xc * 1.04;
+        /* and where to plan for, on the same terms */
+        double xp = by_date ? (tl->plan_epoch_s - first_epoch) / 86400.0 : tl->life.early;
+        if (isfinite(xp) && xp > x_hi && xp <= x_now * 3.0)
+            x_hi = xp * 1.04;
     }
 
     double fs = plot_font(p);
@@ -131,11 +136,14 @@ enum pb_code plot_trend(const char *path, const struct plot_opts *o, const struc
     static const struct plot_style st_retire = {PLOT_VERMILION, 1.4, DASH_LONG, 0};
     static const struct plot_style st_watch = {PLOT_ORANGE, 1.3, DASH_DOT, 0};
     static const struct plot_style st_cross = {PLOT_VERMILION, 1.2, DASH_DOT, 0};
+    static const struct plot_style st_fade = {PLOT_PURPLE, 1.6, DASH_SOLID, 0};
+    static const struct plot_style st_plan = {PLOT_PURPLE, 1.4, DASH_LONG, 0};
     const char *bucket_name =
         v->trend.nbuckets && strchr(v->trend.buckets[0].key, 'W')            ? "weekly mean"
         : v->trend.nbuckets && strncmp(v->trend.buckets[0].key, "cycles", 6) ? "monthly mean"
                                                                              : "5-cycle mean";
     struct plot_key keys[2][8];
+    static const struct plot_style st_dep = {PLOT_VERMILION, 2.2, DASH_SOLID, 0};
     size_t nk[2] = {0, 0};
     for (int j = 0; j < 2; j++) {
         keys[j][nk[j]++] = (struct plot_key){"flight", st_pt[j], MARK_CIRCLE, 0, 0};
@@ -145,6 +153,10 @@ enum pb_code plot_trend(const char *path, const struct plot_opts *o, const struc
         keys[j][nk[j]++] = (struct plot_key){"95 % of flights expected", st_pband, -1, 0, 1};
         keys[j][nk[j]++] = (struct plot_key){"retire", st_retire, -1, 0, 0};
         keys[j][nk[j]++] = (struct plot_key){"watch", st_watch, -1, 0, 0};
+        if (!by_date && qs[j].tl->life.model != LIFE_NONE)
+            keys[j][nk[j]++] = (struct plot_key){"fade model", st_fade, -1, 0, 0};
+        if (v->departures)
+            keys[j][nk[j]++] = (struct plot_key){"left its trend", st_dep, MARK_SQUARE, 0, 0};
     }
     double top = fs * 6.8, bottom = h - fs * 4.6, left = fs * 6, right = w - fs * 2;
     double weight[2] = {1, 1};
@@ -223,6 +235,11 @@ enum pb_code plot_trend(const char *path, const struct plot_opts *o, const struc
         const struct trend_line *tl = qs[j].tl;
         crossing_text(tl, by_date ? &tl->vs_days : &tl->vs_cycles, by_date, qs[j].name, qs[j].unit,
                       per, by_date ? "days" : "cycles", ln[j], sizeof ln[j]);
+        char lt[200];
+        size_t used = strlen(ln[j]);
+        if (!tl->crossed &&
+            report_life_text(tl, j == 0 ? "m\u03a9/cell" : "%", 1000.0, lt, sizeof lt))
+            snprintf(ln[j] + used, sizeof ln[j] - used, " \u00b7 %s", lt);
         plot_text(p, left, fs * (3.15 + 1.3 * j), 0,
                   plot_fit_size(p, ln[j], fs * 0.9, 0, right - left), 0, 0x222222u, ln[j]);
     }
@@ -275,6 +292,14 @@ enum pb_code plot_trend(const char *path, const struct plot_opts *o, const struc
             plot_band(p, pp, lx, lo, hi, LINE_POINTS, &st_band);
             plot_line(p, pp, 0, lx, ly, LINE_POINTS, 1.0, 0, &st_line);
         }
+        /* the chosen fade model, in the cycles view (it is fitted on cycles) */
+        if (!by_date && tl->life.model != LIFE_NONE) {
+            for (int k = 0; k < LINE_POINTS; k++) {
+                lx[k] = x[0] + (x_hi - x[0]) * k / (LINE_POINTS - 1);
+                ly[k] = life_value(&tl->life, lx[k]);
+            }
+            plot_line(p, pp, 0, lx, ly, LINE_POINTS, 1.0, 0, &st_fade);
+        }
         /* bucket means at the mean x of their flights */
         for (size_t b = 0; b < v->trend.nbuckets; b++) {
             const struct trend_bucket *tb = &v->trend.buckets[b];
@@ -291,6 +316,17 @@ enum pb_code plot_trend(const char *path, const struct plot_opts *o, const struc
         /* flights over the bucket means: a flight alone in its bucket stays visible */
         for (size_t k = 0; k < n; k++)
             plot_marker(p, pp, x[k], qs[j].y[k], MARK_CIRCLE, 0, &st_pt[j]);
+        /* a flight that left its trend and nobody has acknowledged: a square
+         * round it in the panel of the quantity that left (both panels for
+         * the cell spread, which has none) */
+        for (size_t k = 0; v->dep && k < n; k++) {
+            const struct departure *d = &v->dep[k];
+            if (!d->flagged || pack_view_ack(v, v->flights[k].id))
+                continue;
+            int here = d->quantity == DEP_SPREAD || (d->quantity == DEP_R0) == (j == 0);
+            if (here && isfinite(qs[j].y[k]))
+                plot_marker(p, pp, x[k], qs[j].y[k], MARK_SQUARE, 0, &st_dep);
+        }
         double xc = by_date ? (tl->cross_epoch_s - first_epoch) / 86400.0 : tl->cross_cycles;
         char where[64];
         if (isfinite(xc) && crossing_where(tl, by_date, where, sizeof where)) {
@@ -304,15 +340,29 @@ enum pb_code plot_trend(const char *path, const struct plot_opts *o, const struc
                 plot_vline(p, pp, pp->x.hi, &st_cross, lab);
             }
         }
+        double xp = by_date ? (tl->plan_epoch_s - first_epoch) / 86400.0 : tl->life.early;
+        if (isfinite(xp) && !tl->crossed && xp >= x_now && xp <= pp->x.hi) {
+            char pd[32];
+            iso_day(tl->plan_epoch_s, pd, sizeof pd);
+            if (by_date)
+                snprintf(lab, sizeof lab, "plan for %s", pd);
+            else if (isfinite(tl->life.late))
+                snprintf(lab, sizeof lab, "plan for %.0f (range %.0f\u2013%.0f)", tl->life.early,
+                         tl->life.early, tl->life.late);
+            else
+                snprintf(lab, sizeof lab, "plan for %.0f", tl->life.early);
+            plot_vline(p, pp, xp, &st_plan, lab);
+        }
         if (n == 0)
             plot_text(p, (pp->x0 + pp->x1) / 2, (pp->y0 + pp->y1) / 2, 1, fs, 0, 0x444444u,
                       "no flights recorded for this pack");
         plot_legend(p, pp, keys[j], nk[j]);
     }
-    snprintf(line, sizeof line,
-             "packbook %s \u00b7 projections are straight-line fits, not guarantees: inspect "
-             "packs and follow the manufacturer's limits",
-             PACKBOOK_VERSION);
+    snprintf(
+        line, sizeof line,
+        "packbook %s \u00b7 projections (straight lines, fade models) are not guarantees: inspect "
+        "packs and follow the manufacturer's limits",
+        PACKBOOK_VERSION);
     plot_text(p, left, h - fs * 0.6, 0, plot_fit_size(p, line, fs * 0.72, 0, right - left), 0,
               0x666666u, line);
     rc = plot_finish_map(p, o->axes_json, pa, 2, err);

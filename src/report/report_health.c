@@ -27,6 +27,19 @@ void pack_view_release(struct pack_view *v)
     store_flights_free(v->flights);
     v->flights = NULL;
     health_trend_release(&v->trend);
+    free(v->dep);
+    v->dep = NULL;
+    store_acks_free(v->acks);
+    v->acks = NULL;
+    v->nacks = v->departures = 0;
+}
+
+const struct flight_ack *pack_view_ack(const struct pack_view *v, int64_t id)
+{
+    for (size_t k = 0; k < v->nacks; k++)
+        if (v->acks[k].flight_id == id)
+            return &v->acks[k];
+    return NULL;
 }
 
 /* "IR mOhm" in the milliohm symbol of the output */
@@ -151,6 +164,7 @@ static json_t *health_obj(const struct pack_view *v)
                   "status", v->pack.retired_at[0] ? "retired" : health_status_name(h->status),
                   "reason", jout_str(v->pack.retired_at[0] ? v->pack.retire_reason : h->reason));
     jout_set(o, "weakest_cell", weakest_obj(h));
+    jout_set(o, "departures_unacknowledged", json_integer((json_int_t)v->departures));
     return o;
 }
 
@@ -166,6 +180,20 @@ static const char *why_text(const struct pack_view *v, char *buf, size_t cap)
 static const char *status_of(const struct pack_view *v)
 {
     return v->pack.retired_at[0] ? "retired" : health_status_name(v->health.status);
+}
+
+static json_t *departure_obj(const struct pack_view *v, size_t k)
+{
+    const struct departure *d = v->dep ? &v->dep[k] : NULL;
+    if (!d || !d->flagged)
+        return json_null();
+    const struct flight_ack *a = pack_view_ack(v, v->flights[k].id);
+    return json_pack("{s:s, s:o, s:o, s:o, s:o, s:b, s:o, s:o}", "quantity",
+                     departure_name(d->quantity), "value", jout_num(d->value), "expected",
+                     jout_num(d->expected), "change_pct", jout_num(d->change_pct), "sigmas",
+                     jout_num(d->z), "acknowledged", a != NULL, "note",
+                     a ? jout_str(a->note) : json_null(), "acknowledged_at",
+                     a ? jout_str(a->acked_at) : json_null());
 }
 
 static json_t *flight_obj(const struct flight_rec *f)
@@ -199,9 +227,14 @@ int report_pack_show(FILE *out, const struct pack_view *v, enum fleet_format fmt
     if (fmt == FLEET_JSON) {
         json_t *o = pack_obj(p);
         jout_set(o, "health", health_obj(v));
+        jout_set(o, "paired_with", jout_str(v->paired_with));
         json_t *fl = json_array();
-        for (size_t k = 0; k < v->nflights; k++)
-            jout_append(fl, flight_obj(&v->flights[k]));
+        for (size_t k = 0; k < v->nflights; k++) {
+            json_t *fo = flight_obj(&v->flights[k]);
+            jout_set(fo, "id", json_integer((json_int_t)v->flights[k].id));
+            jout_set(fo, "departure", departure_obj(v, k));
+            jout_append(fl, fo);
+        }
         jout_set(o, "flights", fl);
         return jout_write(out, o);
     }
@@ -214,6 +247,8 @@ int report_pack_show(FILE *out, const struct pack_view *v, enum fleet_format fmt
     fprintf(out, "\n");
     if (p->note[0])
         fprintf(out, "  note: %s\n", SHOW(tb, p->note));
+    if (v->paired_with[0])
+        fprintf(out, "  paired with %s (packbook pack pair)\n", SHOW(lb, v->paired_with));
     if (p->settings[0]) {
         fprintf(out, "  reading settings:");
         for (const char *q = p->settings; *q;) {
@@ -247,6 +282,21 @@ int report_pack_show(FILE *out, const struct pack_view *v, enum fleet_format fmt
                 h->weakest_cell, h->weakest_count, h->weakest_of, h->weakest_of == 1 ? "" : "s");
     fprintf(out, "  status: %s (%s)\n", status_of(v),
             why_text(v, (char[SHOWN_TEXT]){0}, SHOWN_TEXT));
+    for (size_t k = 0; v->dep && k < v->nflights; k++) {
+        if (!v->dep[k].flagged)
+            continue;
+        char what[128];
+        const struct flight_ack *a = pack_view_ack(v, v->flights[k].id);
+        departure_text(&v->dep[k], what, sizeof what);
+        fprintf(out, "  %s flight %lld (%s): %s", a ? "left its trend:" : "inspect:",
+                (long long)v->flights[k].id, day(v->flights[k].flown_epoch_s, b1, sizeof b1),
+                report_units(what, (char[160]){0}, 160));
+        if (a)
+            fprintf(out, "; acknowledged %.10s: %s\n", a->acked_at, SHOW(tb, a->note));
+        else
+            fprintf(out, "; after inspecting: packbook flight ack %lld --note TEXT\n",
+                    (long long)v->flights[k].id);
+    }
     if (v->nflights) {
         char ir[24];
         ir_header(ir, sizeof ir);
@@ -262,11 +312,12 @@ int report_pack_show(FILE *out, const struct pack_view *v, enum fleet_format fmt
             char wk[16] = "-";
             if (f->weakest_cell > 0)
                 snprintf(wk, sizeof wk, "%d", f->weakest_cell);
-            fprintf(out, "  %6lld  %-10s %8.1f %9s %9s %10s %11s %5s %6d\n", (long long)f->id,
+            fprintf(out, "  %6lld  %-10s %8.1f %9s %9s %10s %11s %5s %6d%s\n", (long long)f->id,
                     day(f->flown_epoch_s, b1, sizeof b1), f->duration_s / 60.0,
                     fmt_num(b2, sizeof b2, "%.0f", f->charge_used_mah),
                     fmt_num(b3, sizeof b3, "%.2f", f->r0_mohm),
-                    fmt_num((char[32]){0}, 32, "%.0f", f->capacity_mah), soc, wk, f->warnings);
+                    fmt_num((char[32]){0}, 32, "%.0f", f->capacity_mah), soc, wk, f->warnings,
+                    v->dep && v->dep[k].flagged && !pack_view_ack(v, f->id) ? "  inspect" : "");
         }
     }
     return ferror(out) ? -1 : 0;
@@ -384,6 +435,21 @@ void report_csv_cell(FILE *out, const char *t)
         fputc('"', out);
 }
 
+/* The date to plan the pack's retirement by: "now" when a rule fires or a
+ * fade model is past its level, the early end's date, or "" */
+static const char *plan_by(const struct pack_view *v, char *buf, size_t cap)
+{
+    double pc, pe;
+    const char *what;
+    if (v->pack.retired_at[0])
+        return "";
+    if (v->health.status == HEALTH_RETIRE || v->trend.capacity.life.past || v->trend.r0.life.past)
+        return "now";
+    if (!health_plan(&v->trend, &pc, &pe, &what) || !isfinite(pe))
+        return "";
+    return day(pe, buf, cap);
+}
+
 int report_fleet(FILE *out, const struct pack_view *v, size_t n, enum fleet_format fmt,
                  const double *safe, double reserve_pct)
 {
@@ -397,6 +463,14 @@ int report_fleet(FILE *out, const struct pack_view *v, size_t n, enum fleet_form
             if (!o || !h || json_object_update(o, h) != 0)
                 jout_set(o, "health", NULL); /* marks the document: never a pack without status */
             json_decref(h);
+            double pc, pe;
+            const char *pq;
+            json_object_set_new(o, "paired_with", jout_str(v[k].paired_with));
+            json_object_set_new(o, "pair_distance", jout_num(v[k].pair_distance));
+            health_plan(&v[k].trend, &pc, &pe, &pq);
+            json_object_set_new(o, "plan_retire_by", jout_date(pe));
+            json_object_set_new(o, "plan_retire_cycles", jout_num(pc));
+            json_object_set_new(o, "plan_retire_quantity", jout_str(pq ? pq : ""));
             if (safe)
                 jout_set(o, "safe_time_s",
                          json_pack("{s:o, s:o}", "conservative", jout_num(safe[2 * k]), "median",
@@ -409,7 +483,7 @@ int report_fleet(FILE *out, const struct pack_view *v, size_t n, enum fleet_form
         fprintf(out,
                 "pack,flights,equivalent_cycles,last_flown,r0_mohm_per_cell,r0_ratio,"
                 "capacity_pct,cell_spread_mv,weakest_cell,weakest_cell_flights,overdischarges,"
-                "status,reason%s\n",
+                "status,reason,plan_retire_by%s\n",
                 safe ? ",safe_time_conservative_s,safe_time_median_s" : "");
         char b[32];
         for (size_t k = 0; k < n; k++) {
@@ -428,6 +502,7 @@ int report_fleet(FILE *out, const struct pack_view *v, size_t n, enum fleet_form
                 fprintf(out, ",,");
             fprintf(out, ",%d,%s,", h->overdischarges, status_of(&v[k]));
             report_csv_cell(out, v[k].pack.retired_at[0] ? v[k].pack.retire_reason : h->reason);
+            fprintf(out, ",%s", plan_by(&v[k], b, sizeof b));
             if (safe) {
                 csv_num(out, "%.0f", safe[2 * k]);
                 csv_num(out, "%.0f", safe[2 * k + 1]);
@@ -438,27 +513,39 @@ int report_fleet(FILE *out, const struct pack_view *v, size_t n, enum fleet_form
     }
     char ir[24];
     ir_header(ir, sizeof ir);
-    fprintf(out, "%-14s %7s %7s %-10s %*s %7s %6s %9s %-9s %10s%s  %-7s %s\n", "pack", "flights",
-            "cycles", "last", report_width(ir, 9), ir, "IR vs", "cap %", "cell imb.", "weakest",
-            "over-", safe ? "  safe min" : "", "status", "why");
-    fprintf(out, "%-14s %7s %7s %-10s %9s %7s %6s %9s %-9s %10s%s  %-7s\n", "", "", "", "flown",
-            "per cell", "base", "rated", "mV rest", "cell", "discharges", safe ? "  (5th pct)" : "",
-            "");
+    fprintf(out, "%-14s %7s %7s %-10s %*s %7s %6s %9s %-9s %10s%s  %-10s  %-7s %s\n", "pack",
+            "flights", "cycles", "last", report_width(ir, 9), ir, "IR vs", "cap %", "cell imb.",
+            "weakest", "over-", safe ? "  safe min" : "", "plan to", "status", "why");
+    fprintf(out, "%-14s %7s %7s %-10s %9s %7s %6s %9s %-9s %10s%s  %-10s  %-7s\n", "", "", "",
+            "flown", "per cell", "base", "rated", "mV rest", "cell", "discharges",
+            safe ? "  (5th pct)" : "", "retire by", "");
     for (size_t k = 0; k < n; k++) {
         const struct pack_health *h = &v[k].health;
         char b[7][32];
         char sm[40] = "";
         if (safe)
             snprintf(sm, sizeof sm, "  %9s", fmt_num(b[6], 32, "%.1f", safe[2 * k] / 60.0));
-        char wk[32], lb[SHOWN_LABEL];
-        fprintf(out, "%-14s %7zu %7s %-10s %9s %7s %6s %9s %-9s %10d%s  %-7s %s\n",
+        char wk[32], lb[SHOWN_LABEL], pb[32];
+        const char *plan = plan_by(&v[k], pb, sizeof pb);
+        fprintf(out, "%-14s %7zu %7s %-10s %9s %7s %6s %9s %-9s %10d%s  %-10s  %-7s %s\n",
                 SHOW(lb, v[k].pack.label), h->flights, fmt_num(b[0], 32, "%.1f", h->cycles),
                 day(h->last_epoch_s, b[1], 32), fmt_num(b[2], 32, "%.2f", h->r0_now_mohm_cell),
                 fmt_num(b[3], 32, "x%.2f", h->r0_ratio), fmt_num(b[4], 32, "%.0f", h->capacity_pct),
                 fmt_num(b[5], 32, "%.0f", h->spread_mv), weakest_text(h, wk, sizeof wk),
-                h->overdischarges, sm, status_of(&v[k]),
+                h->overdischarges, sm, plan[0] ? plan : "-", status_of(&v[k]),
                 why_text(&v[k], (char[SHOWN_TEXT]){0}, SHOWN_TEXT));
     }
+    for (size_t k = 0; k < n; k++)
+        if (v[k].paired_with[0] && strcmp(v[k].pack.label, v[k].paired_with) < 0) {
+            char d[32];
+            char la[SHOWN_LABEL], lb[SHOWN_LABEL];
+            fprintf(out, "pair: %s + %s, mismatch d %s (limit 1; packbook pack pair)\n",
+                    SHOW(la, v[k].pack.label), SHOW(lb, v[k].paired_with),
+                    fmt_num(d, sizeof d, "%.2f", v[k].pair_distance));
+        }
+    if (n)
+        fprintf(out, "plan to retire by: the early end of the knee-aware projection of capacity\n"
+                     "or IR (packbook trend ID), as a date at the pack's use so far\n");
     if (safe)
         fprintf(out,
                 "safe min: conservative safe flight time to a %.0f %% reserve at %s; an estimate,\n"
@@ -477,13 +564,55 @@ static json_t *line_obj(const struct line_fit *l)
                      l->b_ci95, "points", (json_int_t)l->n);
 }
 
+static json_t *fade_obj(const struct life_projection *p)
+{
+    if (p->model == LIFE_NONE)
+        return json_null();
+    return json_pack("{s:s, s:o, s:o, s:o, s:b}", "model", life_model_name(p->model), "shape",
+                     jout_num(p->shape), "holdout_error", jout_num(p->holdout_err),
+                     "error_per_cycle", jout_num(p->err_rate), "past", p->past);
+}
+
 static json_t *trend_line_obj(const struct trend_line *t)
 {
-    return json_pack("{s:o, s:o, s:o, s:b, s:b, s:o, s:o, s:b}", "vs_cycles",
-                     line_obj(&t->vs_cycles), "per_day", line_obj(&t->vs_days), "retire_level",
-                     jout_num(t->level), "crossed", t->crossed, "line_past", t->line_past,
-                     "crossing_cycles", jout_num(t->cross_cycles), "crossing_date",
-                     jout_date(t->cross_epoch_s), "beyond_horizon", t->beyond_horizon);
+    const struct life_projection *p = &t->life;
+    return json_pack(
+        "{s:o, s:o, s:o, s:b, s:b, s:o, s:o, s:b, s:[o, o, o], s:o, s:o}", "vs_cycles",
+        line_obj(&t->vs_cycles), "per_day", line_obj(&t->vs_days), "retire_level",
+        jout_num(t->level), "crossed", t->crossed, "line_past", t->line_past, "crossing_cycles",
+        jout_num(t->cross_cycles), "crossing_date", jout_date(t->cross_epoch_s), "beyond_horizon",
+        t->beyond_horizon, "crossing_cycles_range", jout_num(p->early), jout_num(p->middle),
+        jout_num(p->late), "plan_date", jout_date(t->plan_epoch_s), "fade_model", fade_obj(p));
+}
+
+int report_life_text(const struct trend_line *t, const char *unit, double horizon, char *buf,
+                     size_t cap)
+{
+    const struct life_projection *p = &t->life;
+    if (p->model == LIFE_NONE || !isfinite(t->level))
+        return 0;
+    int pct = unit[0] == '%';
+    char lvl[48], d[32];
+    snprintf(lvl, sizeof lvl, pct ? "%.0f %%" : "%.2f %s", t->level, unit);
+    const char *around = isfinite(t->plan_epoch_s) ? ", around " : "";
+    const char *when = isfinite(t->plan_epoch_s) ? day(t->plan_epoch_s, d, sizeof d) : "";
+    if (p->past)
+        snprintf(buf, cap, "%s: the %s fit is at the level already; plan for now", lvl,
+                 life_model_name(p->model));
+    else if (!isfinite(p->early))
+        snprintf(buf, cap, "%s: not within %.0f cycles (%s fit)", lvl, horizon,
+                 life_model_name(p->model));
+    else if (!isfinite(p->late))
+        snprintf(buf, cap,
+                 "%s from cycle %.0f (middle %.0f, late end beyond %.0f cycles; %s fit); "
+                 "plan for %.0f%s%s",
+                 lvl, p->early, p->middle, horizon, life_model_name(p->model), p->early, around,
+                 when);
+    else
+        snprintf(buf, cap,
+                 "%s between cycle %.0f and %.0f (middle %.0f, %s fit); plan for %.0f%s%s", lvl,
+                 p->early, p->late, p->middle, life_model_name(p->model), p->early, around, when);
+    return 1;
 }
 
 static void text_projection(FILE *out, const char *what, const struct trend_line *t,
@@ -518,6 +647,9 @@ static void text_projection(FILE *out, const char *what, const struct trend_line
     else
         fprintf(out, "does not reach the retirement level %.2f %s within %.0f cycles\n", t->level,
                 unit, horizon);
+    char lb[200];
+    if (isfinite(t->level) && !t->crossed && report_life_text(t, unit, horizon, lb, sizeof lb))
+        fprintf(out, "  %-10s %s\n", "", lb);
 }
 
 static const char *const bynames[] = {"week", "month", "cycle"};
@@ -663,7 +795,9 @@ int report_trend(FILE *out, const struct pack_view *v, size_t n, enum trend_by b
         fprintf(out, "\n  status: %s (%s)\n", status_of(&v[k]),
                 why_text(&v[k], (char[400]){0}, 400));
     }
-    fprintf(out, "  Projections extend a straight line; a pack can fail sooner. Inspect it.\n");
+    fprintf(out, "  The first line of each is a straight line; the second chooses among fade\n"
+                 "  models (line, break, exponential, power law) by their held-out error on\n"
+                 "  this pack's history. A pack can fail sooner than any of them: inspect it.\n");
     return ferror(out) ? -1 : 0;
 }
 

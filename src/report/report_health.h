@@ -8,6 +8,7 @@
 
 #include <stdio.h>
 
+#include "../core/departure.h"
 #include "../core/health.h"
 #include "../store/store.h"
 
@@ -17,8 +18,17 @@ struct pack_view {
     size_t nflights;
     struct pack_health health;
     struct pack_trend trend;
-    double safe_s[2]; /* fleet --predict: conservative and median safe time (NAN: none) */
+    double safe_s[2];        /* fleet --predict: conservative and median safe time (NAN: none) */
+    struct departure *dep;   /* per flight (nflights): did it leave its trend */
+    struct flight_ack *acks; /* the operator's acknowledgements, by flight id */
+    size_t nacks;
+    size_t departures;     /* flights that left their trend, not acknowledged */
+    char paired_with[128]; /* the registered partner's label, "" when none */
+    double pair_distance;  /* their mismatch now (pairs.h), NAN when not known */
 };
+
+/* The acknowledgement of flight id in v, or NULL. */
+const struct flight_ack *pack_view_ack(const struct pack_view *v, int64_t id);
 
 void pack_view_release(struct pack_view *v);
 
@@ -37,6 +47,12 @@ int report_fleet(FILE *out, const struct pack_view *v, size_t n, enum fleet_form
  * imbalance, time under the cut-off and warnings. */
 int report_flight_list(FILE *out, const struct flight_rec *f, const char *const *labels, size_t n,
                        enum fleet_format fmt);
+/* The knee-aware projection of one quantity in words ("80 % between cycle
+ * X and Y (middle Z, exponential fit); plan for X, around DATE") into buf;
+ * returns 0 (buf untouched) when there is none to tell. */
+int report_life_text(const struct trend_line *t, const char *unit, double horizon, char *buf,
+                     size_t cap);
+
 /* Slopes against cycles are printed per this many cycles in every text view. */
 #define REPORT_SLOPE_CYCLES 10.0
 

@@ -17,7 +17,7 @@
 #include "../core/pb_error.h"
 #include "../core/series.h"
 
-#define STORE_SCHEMA_VERSION 6
+#define STORE_SCHEMA_VERSION 8
 
 struct store;
 
@@ -181,6 +181,46 @@ enum pb_code store_flight_remove(struct store *st, int64_t id, struct pb_error *
 
 /* Gives a flight to another pack. */
 enum pb_code store_flight_move(struct store *st, int64_t id, int64_t to_pack_id,
+                               struct pb_error *err);
+
+/* An operator's acknowledgement of a flight that left its pack's trend. */
+struct flight_ack {
+    int64_t flight_id;
+    char note[256];
+    char acked_at[32]; /* ISO 8601 UTC */
+};
+
+/* Acknowledgements of one pack's flights, by flight id. Free with
+ * store_acks_free (NULL is a no-op). */
+enum pb_code store_acks_of(struct store *st, int64_t pack_id, struct flight_ack **out, size_t *n,
+                           struct pb_error *err);
+void store_acks_free(struct flight_ack *a);
+
+/* Acknowledges flight flight_id with note (replacing an earlier one) and
+ * copies its pack's label into pack_label; PB_EUSAGE when there is no
+ * such flight. */
+enum pb_code store_flight_ack(struct store *st, int64_t flight_id, const char *note,
+                              char *pack_label, size_t cap, struct pb_error *err);
+
+/* Two packs registered to fly together (pair.c, pairs.h). */
+struct pair_rec {
+    int64_t a_id, b_id;
+    char a[128], b[128]; /* their labels */
+    char created_at[32];
+};
+
+/* Every registered pair, by label. Free with store_pairs_free. */
+enum pb_code store_pairs_list(struct store *st, struct pair_rec **out, size_t *n,
+                              struct pb_error *err);
+void store_pairs_free(struct pair_rec *p);
+
+/* Registers a and b as a pair; PB_EUSAGE when either is in a pair already
+ * or they are the same pack. */
+enum pb_code store_pair_add(struct store *st, const struct pack_rec *a, const struct pack_rec *b,
+                            struct pb_error *err);
+
+/* Removes p's pair; *removed says whether it had one. */
+enum pb_code store_pair_remove(struct store *st, const struct pack_rec *p, int *removed,
                                struct pb_error *err);
 
 /* The default path: $PACKBOOK_DB, else $XDG_DATA_HOME/packbook/packbook.db,

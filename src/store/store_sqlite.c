@@ -79,7 +79,20 @@ static const char *const migrations[] = {
     "CREATE INDEX flights_by_samples ON flights(samples_hash);",
     /* 4 -> 5: a pack's remembered reading options (cut-off, sense chain, map) */
     "ALTER TABLE packs ADD COLUMN read_settings TEXT;",
-    /* 5 -> 6: the report JSON (about 2.5 KB) out of the flights rows, which
+    /* 5 -> 6: the operator's acknowledgement of a flight that left its trend */
+    "CREATE TABLE flight_acks ("
+    "  flight_id INTEGER PRIMARY KEY REFERENCES flights(id) ON DELETE CASCADE,"
+    "  note TEXT NOT NULL,"
+    "  acked_at TEXT NOT NULL);",
+    /* 6 -> 7: packs registered to fly together (each pack in one pair at
+     * most: store_pair_add checks both columns; pack_a is the rowid, so the
+     * table needs no index of its own and a nearly full disk no extra page) */
+    "CREATE TABLE pack_pairs ("
+    "  pack_a INTEGER PRIMARY KEY REFERENCES packs(id),"
+    "  pack_b INTEGER NOT NULL REFERENCES packs(id),"
+    "  created_at TEXT NOT NULL,"
+    "  CHECK (pack_a < pack_b));",
+    /* 7 -> 8: the report JSON (about 2.5 KB) out of the flights rows, which
      * the history views read by the thousand, into a table of its own */
     "CREATE TABLE flight_reports ("
     "  flight_id INTEGER PRIMARY KEY REFERENCES flights(id) ON DELETE CASCADE,"
@@ -245,6 +258,11 @@ static enum pb_code migrate(struct store *st, struct pb_error *err)
         if (sqlite3_exec(st->db, "COMMIT", NULL, NULL, NULL) != SQLITE_OK)
             return db_error(st, err, "schema upgrade failed");
     }
+    /* the steps' pages into the file, so the WAL starts empty (a step that
+     * rewrites a table, as 7 -> 8 does, would otherwise keep the whole table
+     * twice until SQLite's own checkpoint); best effort: a reader may hold it */
+    if (have < want)
+        sqlite3_exec(st->db, "PRAGMA wal_checkpoint(TRUNCATE)", NULL, NULL, NULL);
     return PB_OK;
 }
 
@@ -263,7 +281,7 @@ static int scalar_int(sqlite3 *db, const char *sql, int *out)
     return rc;
 }
 
-static enum pb_code classify(struct store *st, enum owner *own, struct pb_error *err)
+static enum pb_code classify_in(struct store *st, enum owner *own, struct pb_error *err)
 {
     int app = 0, ver = 0, ntables = 0, packs = 0, flights = 0;
     char names[160] = "";
@@ -314,6 +332,18 @@ static enum pb_code classify(struct store *st, enum owner *own, struct pb_error 
                             st->path, ntables, ntables == 1 ? "" : "s", names,
                             ntables > 3 ? ", ..." : "");
     return PB_OK;
+}
+
+/* The header and the table list read in one snapshot: read apart, another
+ * process migrating a new file between them showed tables with schema 0
+ * (an unknown file, refused). */
+static enum pb_code classify(struct store *st, enum owner *own, struct pb_error *err)
+{
+    int began = sqlite3_exec(st->db, "BEGIN", NULL, NULL, NULL) == SQLITE_OK;
+    enum pb_code rc = classify_in(st, own, err);
+    if (began)
+        sqlite3_exec(st->db, "COMMIT", NULL, NULL, NULL);
+    return rc;
 }
 
 /* A reading command on a store of an older schema: the file stays as it is,
@@ -386,7 +416,7 @@ enum pb_code store_open_wait(const char *path, enum store_mode mode, double wait
     sqlite3_extended_result_codes(st->db, 1);
     sqlite3_exec(st->db, "PRAGMA foreign_keys = ON", NULL, NULL, NULL);
     /* whose file this is, before a single byte of it changes (WAL included) */
-    enum owner own;
+    enum owner own = OWN_FOREIGN;
     if ((rc = classify(st, &own, err)) != PB_OK)
         goto fail;
     if (mode == STORE_READ) {
@@ -723,9 +753,11 @@ static double col_num(sqlite3_stmt *s, int i)
     X(power_mean_w)                                                                                \
     X(voltage_min_v)                                                                               \
     X(cell_voltage_min_v)                                                                          \
-    X(time_below_floor_s) X(r0_mohm) X(r0_ci95_mohm) X(r1_mohm) X(tau_s) X(soc_start_pct)          \
-        X(soc_end_pct) X(capacity_mah) X(capacity_ci95_mah) X(cell_spread_rest_mv)                 \
-            X(cell_spread_load_mv) X(temperature_max_c) X(power_cruise_w)
+    X(time_below_floor_s)                                                                          \
+    X(r0_mohm)                                                                                     \
+    X(r0_ci95_mohm)                                                                                \
+    X(r1_mohm) X(tau_s) X(soc_start_pct) X(soc_end_pct) X(capacity_mah) X(capacity_ci95_mah)       \
+        X(cell_spread_rest_mv) X(cell_spread_load_mv) X(temperature_max_c) X(power_cruise_w)
 
 #define X(name) #name ", "
 static const char flight_num_cols[] = FLIGHT_NUMS;
@@ -1133,4 +1165,185 @@ enum pb_code store_flight_move(struct store *st, int64_t id, int64_t to_pack_id,
         return pb_error_set(err, PB_EUSAGE, "no flight %lld (see 'packbook flight list')",
                             (long long)id);
     return rc;
+}
+
+enum pb_code store_acks_of(struct store *st, int64_t pack_id, struct flight_ack **out, size_t *n,
+                           struct pb_error *err)
+{
+    sqlite3_stmt *s = NULL;
+    struct flight_ack *v = NULL;
+    size_t len = 0, cap = 0;
+    *out = NULL;
+    *n = 0;
+    if (sqlite3_prepare_v2(st->db,
+                           "SELECT a.flight_id, a.note, a.acked_at FROM flight_acks a JOIN flights "
+                           "f ON f.id = a.flight_id WHERE f.pack_id = ? ORDER BY a.flight_id",
+                           -1, &s, NULL) != SQLITE_OK)
+        return db_error(st, err, "cannot read acknowledgements");
+    sqlite3_bind_int64(s, 1, pack_id);
+    int rc;
+    while ((rc = sqlite3_step(s)) == SQLITE_ROW) {
+        if (len == cap) {
+            cap = cap ? 2 * cap : 8;
+            struct flight_ack *nv = realloc(v, cap * sizeof *v);
+            if (!nv) {
+                rc = SQLITE_NOMEM;
+                break;
+            }
+            v = nv;
+        }
+        struct flight_ack *a = &v[len++];
+        a->flight_id = sqlite3_column_int64(s, 0);
+        copy_text(a->note, sizeof a->note, s, 1);
+        copy_text(a->acked_at, sizeof a->acked_at, s, 2);
+    }
+    sqlite3_finalize(s);
+    if (rc != SQLITE_DONE) {
+        free(v);
+        return rc == SQLITE_NOMEM ? pb_error_set(err, PB_ENOMEM, "out of memory")
+                                  : db_error(st, err, "cannot read acknowledgements");
+    }
+    *out = v;
+    *n = len;
+    return PB_OK;
+}
+
+void store_acks_free(struct flight_ack *a)
+{
+    free(a);
+}
+
+enum pb_code store_flight_ack(struct store *st, int64_t flight_id, const char *note,
+                              char *pack_label, size_t cap, struct pb_error *err)
+{
+    sqlite3_stmt *s = NULL;
+    if (sqlite3_prepare_v2(st->db,
+                           "SELECT p.label FROM flights f JOIN packs p ON p.id = f.pack_id WHERE "
+                           "f.id = ?",
+                           -1, &s, NULL) != SQLITE_OK)
+        return db_error(st, err, "cannot read the flight");
+    sqlite3_bind_int64(s, 1, flight_id);
+    int r = sqlite3_step(s);
+    if (r == SQLITE_ROW)
+        copy_text(pack_label, cap, s, 0);
+    sqlite3_finalize(s);
+    if (r == SQLITE_DONE)
+        return pb_error_set(err, PB_EUSAGE, "no flight %lld (see 'packbook flight list')",
+                            (long long)flight_id);
+    if (r != SQLITE_ROW)
+        return db_error(st, err, "cannot read the flight");
+    char now[32];
+    now_iso(now, sizeof now);
+    if (sqlite3_prepare_v2(st->db,
+                           "INSERT INTO flight_acks (flight_id, note, acked_at) VALUES (?, ?, ?) "
+                           "ON CONFLICT(flight_id) DO UPDATE SET note = excluded.note, "
+                           "acked_at = excluded.acked_at",
+                           -1, &s, NULL) != SQLITE_OK)
+        return db_error(st, err, "cannot store the acknowledgement");
+    sqlite3_bind_int64(s, 1, flight_id);
+    sqlite3_bind_text(s, 2, note, -1, SQLITE_TRANSIENT);
+    sqlite3_bind_text(s, 3, now, -1, SQLITE_TRANSIENT);
+    r = sqlite3_step(s);
+    sqlite3_finalize(s);
+    return r == SQLITE_DONE ? PB_OK : db_error(st, err, "cannot store the acknowledgement");
+}
+
+enum pb_code store_pairs_list(struct store *st, struct pair_rec **out, size_t *n,
+                              struct pb_error *err)
+{
+    sqlite3_stmt *s = NULL;
+    struct pair_rec *v = NULL;
+    size_t len = 0, cap = 0;
+    *out = NULL;
+    *n = 0;
+    if (sqlite3_prepare_v2(st->db,
+                           "SELECT pp.pack_a, a.label, pp.pack_b, b.label, pp.created_at FROM "
+                           "pack_pairs pp JOIN packs a ON a.id = pp.pack_a JOIN packs b ON b.id = "
+                           "pp.pack_b ORDER BY a.label, b.label",
+                           -1, &s, NULL) != SQLITE_OK)
+        return db_error(st, err, "cannot read the pairs");
+    int rc;
+    while ((rc = sqlite3_step(s)) == SQLITE_ROW) {
+        if (len == cap) {
+            cap = cap ? 2 * cap : 8;
+            struct pair_rec *nv = realloc(v, cap * sizeof *v);
+            if (!nv) {
+                rc = SQLITE_NOMEM;
+                break;
+            }
+            v = nv;
+        }
+        struct pair_rec *r = &v[len++];
+        r->a_id = sqlite3_column_int64(s, 0);
+        copy_text(r->a, sizeof r->a, s, 1);
+        r->b_id = sqlite3_column_int64(s, 2);
+        copy_text(r->b, sizeof r->b, s, 3);
+        copy_text(r->created_at, sizeof r->created_at, s, 4);
+    }
+    sqlite3_finalize(s);
+    if (rc != SQLITE_DONE) {
+        free(v);
+        return rc == SQLITE_NOMEM ? pb_error_set(err, PB_ENOMEM, "out of memory")
+                                  : db_error(st, err, "cannot read the pairs");
+    }
+    *out = v;
+    *n = len;
+    return PB_OK;
+}
+
+void store_pairs_free(struct pair_rec *p)
+{
+    free(p);
+}
+
+enum pb_code store_pair_add(struct store *st, const struct pack_rec *a, const struct pack_rec *b,
+                            struct pb_error *err)
+{
+    if (a->id == b->id)
+        return pb_error_set(err, PB_EUSAGE, "pack pair: '%s' cannot pair with itself", a->label);
+    const struct pack_rec *lo = a->id < b->id ? a : b, *hi = a->id < b->id ? b : a;
+    sqlite3_stmt *s = NULL;
+    if (sqlite3_prepare_v2(st->db,
+                           "SELECT count(*) FROM pack_pairs WHERE pack_a IN (?1, ?2) OR pack_b IN "
+                           "(?1, ?2)",
+                           -1, &s, NULL) != SQLITE_OK)
+        return db_error(st, err, "cannot read the pairs");
+    sqlite3_bind_int64(s, 1, lo->id);
+    sqlite3_bind_int64(s, 2, hi->id);
+    int busy = sqlite3_step(s) == SQLITE_ROW ? sqlite3_column_int(s, 0) : -1;
+    sqlite3_finalize(s);
+    if (busy < 0)
+        return db_error(st, err, "cannot read the pairs");
+    if (busy > 0)
+        return pb_error_set(err, PB_EUSAGE,
+                            "pack pair: '%s' or '%s' is paired already (packbook pack unpair ID)",
+                            a->label, b->label);
+    char now[32];
+    now_iso(now, sizeof now);
+    if (sqlite3_prepare_v2(st->db,
+                           "INSERT INTO pack_pairs (pack_a, pack_b, created_at) VALUES (?, ?, ?)",
+                           -1, &s, NULL) != SQLITE_OK)
+        return db_error(st, err, "cannot store the pair");
+    sqlite3_bind_int64(s, 1, lo->id);
+    sqlite3_bind_int64(s, 2, hi->id);
+    sqlite3_bind_text(s, 3, now, -1, SQLITE_TRANSIENT);
+    int r = sqlite3_step(s);
+    sqlite3_finalize(s);
+    return r == SQLITE_DONE ? PB_OK : db_error(st, err, "cannot store the pair");
+}
+
+enum pb_code store_pair_remove(struct store *st, const struct pack_rec *p, int *removed,
+                               struct pb_error *err)
+{
+    sqlite3_stmt *s = NULL;
+    if (sqlite3_prepare_v2(st->db, "DELETE FROM pack_pairs WHERE pack_a = ?1 OR pack_b = ?1", -1,
+                           &s, NULL) != SQLITE_OK)
+        return db_error(st, err, "cannot remove the pair");
+    sqlite3_bind_int64(s, 1, p->id);
+    int r = sqlite3_step(s);
+    sqlite3_finalize(s);
+    if (r != SQLITE_DONE)
+        return db_error(st, err, "cannot remove the pair");
+    *removed = sqlite3_changes(st->db);
+    return PB_OK;
 }
