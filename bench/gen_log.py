@@ -8,7 +8,11 @@ smoothly from 16.8 V to 14.5 V whatever the length. The OCV is a cubic in q on
 purpose: the least-squares model both packbook and pandas_ref.py fit can then
 recover R0 = 12 mOhm, a quick sanity check of either side's output.
 
-    gen_log.py ROWS OUT.csv
+    gen_log.py ROWS OUT.csv [--rc]
+
+--rc adds a polarisation branch (R1 = 6 mOhm, tau = 4 s: the current through it a
+first-order lag of I, zero-order hold between samples), so packbook's fit of the RC
+branch (its tau search) is measured too.
 """
 import sys
 
@@ -17,10 +21,12 @@ import numpy as np
 SEED = 20231201  # fixed: the same rows give the same file, run after run
 DT_S = 0.1
 R0_OHM = 0.012
+R1_OHM, TAU_S = 0.006, 4.0  # --rc only
 
 
 def main():
     rows, path = int(sys.argv[1]), sys.argv[2]
+    rc = "--rc" in sys.argv[3:]
     if rows < 2:
         sys.exit("gen_log.py: need at least 2 rows")
     rng = np.random.default_rng(SEED)
@@ -38,6 +44,13 @@ def main():
     q = drawn / drawn[-1]
     ocv = 16.8 - 1.2 * q + 0.5 * q**2 - 1.6 * q**3  # monotone, 16.8 -> 14.5 V
     voltage = ocv - R0_OHM * current + rng.normal(0.0, 0.004, rows)
+    if rc:
+        a = np.exp(-DT_S / TAU_S)
+        i1 = np.empty(rows)
+        i1[0] = current[0]
+        for k in range(1, rows):  # a loop: a few seconds for 1M rows
+            i1[k] = a * i1[k - 1] + (1.0 - a) * current[k - 1]
+        voltage -= R1_OHM * i1
 
     np.savetxt(path, np.column_stack((t, voltage, current)), fmt="%.3f", delimiter=",",
                header="time_s,voltage_v,current_a", comments="")

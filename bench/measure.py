@@ -20,6 +20,9 @@ TARGETS = [
     ("packbook speed vs pandas", ">= 10x", 10.0),
     ("packbook speed vs libcsv scan", ">= 0.5", 0.5),
     ("packbook peak RSS per row", "<= 48 B", 48.0),
+    ("packbook (RC branch) speed vs pandas", ">= 10x", 10.0),
+    ("packbook (RC branch) speed vs libcsv scan", ">= 0.5", 0.5),
+    ("packbook plot peak RSS per row", "<= 64 B", 64.0),
 ]
 
 
@@ -51,6 +54,7 @@ def main():
     ap = argparse.ArgumentParser()
     for name in ("--log", "--tmp", "--peakrss", "--csvscan", "--packbook"):
         ap.add_argument(name, required=True)
+    ap.add_argument("--log-rc", help="the same log with a polarisation branch (gen_log.py --rc)")
     ap.add_argument("--rows", type=int, required=True)
     args = ap.parse_args()
 
@@ -63,6 +67,14 @@ def main():
         results["packbook"] = measure([args.packbook, "analyze", args.log, "--json"], args,
                                       os.devnull)
         failed |= results["packbook"] is None
+        if args.log_rc:
+            results["packbook (RC branch)"] = measure(
+                [args.packbook, "analyze", args.log_rc, "--json"], args, os.devnull)
+            failed |= results["packbook (RC branch)"] is None
+        png = os.path.join(args.tmp, "bench.png")
+        results["packbook plot"] = measure([args.packbook, "plot", args.log, "-o", png], args,
+                                           os.devnull)
+        failed |= results["packbook plot"] is None
     else:
         print("packbook not built: run meson setup build && ninja -C build")
 
@@ -79,7 +91,10 @@ def main():
     print(f"| {args.rows} rows, {os.path.getsize(args.log) / 1e6:.1f} MB | best of {REPEATS} (s) "
           f"| peak RSS (MiB) | peak RSS per row (B) |")
     print("| --- | ---: | ---: | ---: |")
-    for name in ("packbook", "libcsv scan", "pandas + numpy"):
+    for name in ("packbook", "packbook (RC branch)", "packbook plot", "libcsv scan",
+                 "pandas + numpy"):
+        if name not in results and name != "packbook":
+            continue
         r = results.get(name)
         if r is None:
             why = "failed" if name in results else "not built"
@@ -88,10 +103,14 @@ def main():
             print(f"| {name} | {r[0]:.3f} | {r[1] / 2**20:.1f} | {r[1] / args.rows:.1f} |")
 
     pb, scan, pd_ = (results.get(k) for k in ("packbook", "libcsv scan", "pandas + numpy"))
+    rc, plot = results.get("packbook (RC branch)"), results.get("packbook plot")
     values = [
         pd_[0] / pb[0] if pb and pd_ else None,     # higher is better
         scan[0] / pb[0] if pb and scan else None,   # higher is better
         pb[1] / args.rows if pb else None,          # lower is better
+        pd_[0] / rc[0] if rc and pd_ else None,
+        scan[0] / rc[0] if rc and scan else None,
+        plot[1] / args.rows if plot else None,
     ]
     print()
     print("| target | wanted | measured | |")

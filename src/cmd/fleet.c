@@ -93,6 +93,32 @@ static int compare_views(const void *pa, const void *pb)
     return c ? c : strcmp(a->pack.label, b->pack.label);
 }
 
+/* fleet --predict: each pack's safe times, while its flights are loaded */
+struct fleet_predict {
+    double power_w;
+    double *safe; /* 2 per pack, grown as packs come */
+    int failed;
+};
+
+static void predict_each(const struct pack_view *v, size_t k, void *ctx)
+{
+    struct fleet_predict *fp = ctx;
+    double *g = realloc(fp->safe, 2 * (k + 1) * sizeof *g);
+    if (!g) {
+        fp->failed = 1;
+        return;
+    }
+    fp->safe = g;
+    struct predict_inputs in;
+    struct predict_mc mc;
+    struct pb_error e = {PB_OK, ""};
+    g[2 * k] = g[2 * k + 1] = NAN;
+    if (predict_view(v, fp->power_w, &in, &mc, &e) == PB_OK) {
+        g[2 * k] = mc.t_p05_s;
+        g[2 * k + 1] = mc.t_median_s;
+    }
+}
+
 enum pb_code cmd_fleet(int argc, char **argv, struct app *app, struct pb_error *err)
 {
     struct health_rules rules;
@@ -173,30 +199,28 @@ enum pb_code cmd_fleet(int argc, char **argv, struct app *app, struct pb_error *
         return rc;
     if (status && strcmp(status, "retired") == 0)
         all = 1;
-    rc = packview_load_fleet(st, &rules, all, status, &views, &nv, err);
+    struct fleet_predict fp = {power_w, NULL, 0};
+    rc = packview_load_fleet(st, &rules, all, status, predict ? predict_each : NULL, &fp, &views,
+                             &nv, err);
+    safe = fp.safe;
+    if (rc == PB_OK && predict && !safe && !(safe = malloc(2 * sizeof *safe)))
+        fp.failed = 1; /* no pack: an empty column all the same */
+    if (rc == PB_OK && fp.failed)
+        rc = pb_error_set(err, PB_ENOMEM, "out of memory");
     if (rc == PB_OK)
         rc = packview_pairs(st, views, nv, err);
     if (rc != PB_OK)
         goto cleanup;
+    if (predict) {
+        /* the safe times travel with their packs through the sort */
+        for (size_t k = 0; k < nv; k++)
+            views[k].safe_s[0] = safe[2 * k], views[k].safe_s[1] = safe[2 * k + 1];
+    }
     qsort(views, nv, sizeof *views, compare_views);
     packview_keep_pairs_together(views, nv);
-    if (predict) {
-        safe = malloc(2 * (nv ? nv : 1) * sizeof *safe);
-        if (!safe) {
-            rc = pb_error_set(err, PB_ENOMEM, "out of memory");
-            goto cleanup;
-        }
-        for (size_t k = 0; k < nv; k++) {
-            struct predict_inputs in;
-            struct predict_mc mc;
-            struct pb_error e = {PB_OK, ""};
-            safe[2 * k] = safe[2 * k + 1] = NAN;
-            if (predict_view(&views[k], power_w, &in, &mc, &e) == PB_OK) {
-                safe[2 * k] = mc.t_p05_s;
-                safe[2 * k + 1] = mc.t_median_s;
-            }
-        }
-    }
+    if (predict)
+        for (size_t k = 0; k < nv; k++)
+            safe[2 * k] = views[k].safe_s[0], safe[2 * k + 1] = views[k].safe_s[1];
     if (report_fleet(stdout, views, nv, fmt, safe, config_reserve()) != 0)
         rc = pb_error_set(err, PB_EOUTPUT, "cannot write the output");
     else

@@ -3,6 +3,7 @@
 #include <dirent.h>
 #include <getopt.h>
 #include <math.h>
+#include <pthread.h>
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
@@ -51,6 +52,8 @@ static const char usage_head[] =
     "                         settings file's db, else $XDG_DATA_HOME/packbook/packbook.db;\n"
     "                         see 'packbook config')\n"
     "  --quiet                no line per log, only the summary\n"
+    "  -j, --jobs N           logs analysed at once (default: the number of\n"
+    "                         cores); one thread writes the store, in order\n"
     "  --wait S               wait up to S seconds for another process's lock on the\n"
     "                         database (default 60, for each flight)\n";
 
@@ -64,6 +67,7 @@ static const struct option longopts[] = {
     {"quiet", no_argument, NULL, I_QUIET},
     {"force", no_argument, NULL, I_FORCE},
     {"recursive", no_argument, NULL, I_RECURSIVE},
+    {"jobs", required_argument, NULL, 'j'},
     {"wait", required_argument, NULL, I_WAIT},
     {"help", no_argument, NULL, 'h'},
     LOGOPTS_LONG,
@@ -75,9 +79,12 @@ struct import_cli {
     struct packopts_seen seen;
     const char *pack, *db;
     int have_date, quiet, force, recursive;
+    int jobs; /* analysing threads (1: none besides the writer) */
     double date_epoch_s;
     double wait_s; /* --wait */
 };
+
+#define IMPORT_MAX_JOBS 64
 
 struct path_list {
     char **v;
@@ -281,26 +288,91 @@ static void fill_flight(struct flight_rec *f, const struct analysis *a, const st
     }
 }
 
-enum outcome { OUT_STORED, OUT_DUPLICATE, OUT_FAILED };
+/* The content hash of a file, as the reader's on_block hook makes it
+ * (every byte as read). Returns 0, or -1 when the file cannot be read (the
+ * reader then says why). */
+static int hash_file(const char *path, char *out, size_t cap)
+{
+    FILE *fp = fopen(path, "rb");
+    if (!fp)
+        return -1;
+    XXH3_state_t *hs = XXH3_createState();
+    char *buf = malloc(1u << 16);
+    int rc = -1;
+    if (hs && buf) {
+        XXH3_128bits_reset(hs);
+        size_t len;
+        while ((len = fread(buf, 1, 1u << 16, fp)) > 0)
+            XXH3_128bits_update(hs, buf, len);
+        if (!ferror(fp)) {
+            XXH128_hash_t h = XXH3_128bits_digest(hs);
+            snprintf(out, cap, "xxh128:%016llx%016llx", (unsigned long long)h.high64,
+                     (unsigned long long)h.low64);
+            rc = 0;
+        }
+    }
+    free(buf);
+    XXH3_freeState(hs);
+    fclose(fp);
+    return rc;
+}
 
-/* Imports one log; on OUT_FAILED err says why. Warnings for the log go to
- * note (empty when none). */
-static enum outcome import_one(struct store *st, const struct pack_rec *pack,
-                               const struct import_cli *cli, const char *path, char *line,
-                               size_t cap, char *note, size_t note_cap, char hash[40],
-                               struct pb_error *err)
+enum outcome { OUT_PENDING = 0, OUT_ANALYSED, OUT_STORED, OUT_DUPLICATE, OUT_FAILED };
+
+/* One log of the batch: found stored by its hash, or analysed (by a
+ * worker) into a flight and its report, then stored (by the one writer). */
+struct job {
+    const char *path;
+    enum outcome out;
+    int done; /* the analysis is over (guarded by the pool's lock) */
+    struct flight_rec f;
+    char *json;
+    size_t nwarnings;
+    int misfit;    /* stored with --force though it does not fit the pack */
+    char why[320]; /* how it does not fit */
+    struct pb_error err;
+    char line[600];  /* the line printed for it */
+    char note[1600]; /* its warnings (stderr), empty when none */
+};
+
+/* Looks the log's hash up in the store before anything is analysed, so
+ * re-importing a folder costs reading it, not analysing it. Sets the job
+ * OUT_DUPLICATE with its line when stored; OUT_FAILED when the store fails. */
+static void find_stored(struct store *st, struct job *j)
+{
+    char hash[40];
+    if (strcmp(j->path, "-") == 0 || hash_file(j->path, hash, sizeof hash) != 0)
+        return; /* stdin is hashed as it is read; an unreadable file fails in the reader */
+    int found = 0;
+    int64_t id = 0;
+    char label[128] = "";
+    if (store_flight_find_hash(st, hash, &found, &id, label, sizeof label, &j->err) != PB_OK) {
+        j->out = OUT_FAILED;
+        return;
+    }
+    if (found) {
+        snprintf(j->line, sizeof j->line, "already imported as flight %lld for pack %s (%s): %s",
+                 (long long)id, label, "same bytes", j->path);
+        j->out = OUT_DUPLICATE;
+    }
+}
+
+/* Analyses one log into j->f and j->json (OUT_ANALYSED), or OUT_FAILED
+ * with j->err. Touches nothing shared: workers run it side by side. */
+static void analyse_job(const struct pack_rec *pack, const struct import_cli *cli, struct job *j)
 {
     struct log_cli lc = cli->log;
+    struct pb_error *err = &j->err;
     XXH3_state_t *hs = XXH3_createState();
     struct analysis *a = NULL;
     struct series *ser = NULL;
     struct logread_stats stats;
     char *json = NULL;
     size_t json_len = 0;
-    enum outcome out = OUT_FAILED;
+    j->out = OUT_FAILED;
     if (!hs) {
         pb_error_set(err, PB_ENOMEM, "out of memory");
-        return OUT_FAILED;
+        return;
     }
     XXH3_128bits_reset(hs);
     lc.read.on_block = hash_block;
@@ -312,20 +384,20 @@ static enum outcome import_one(struct store *st, const struct pack_rec *pack,
         pb_error_set(err, PB_ESTORE, "pack '%s' has an unknown chemistry '%s' in the database",
                      pack->label, pack->chemistry);
         XXH3_freeState(hs);
-        return OUT_FAILED;
+        return;
     }
     lc.an.chemistry = (int)chem->id;
     lc.an.capacity_mah = pack->capacity_mah;
     lc.refuse_implausible = !cli->force; /* nothing impossible reaches the store */
     lc.read_without_cells = 1;           /* packfit_check names another cell count */
+    const char *path = j->path;
     int is_stdin = strcmp(path, "-") == 0;
     const char *name = is_stdin ? "(stdin)" : path;
-    note[0] = '\0';
     if (logopts_analyze(path, &lc, &stats, &a, &ser, err) != PB_OK)
         goto cleanup;
-    char why[320];
+    char *why = j->why;
     struct packfit_pack pf = {pack->cells, chem, pack->capacity_mah};
-    int misfit = packfit_check(a, &pf, why, sizeof why);
+    int misfit = packfit_check(a, &pf, why, sizeof j->why);
     if (misfit && !cli->force) {
         pb_error_set(err, PB_EINPUT,
                      "%s: does not fit pack '%s' (%dS %s, %.0f mAh): %s; --force stores it "
@@ -334,17 +406,17 @@ static enum outcome import_one(struct store *st, const struct pack_rec *pack,
         goto cleanup;
     }
 
-    struct flight_rec f;
-    fill_flight(&f, a, pack);
-    if (samples_hash(ser, f.samples_hash, sizeof f.samples_hash) != 0) {
+    struct flight_rec *f = &j->f;
+    fill_flight(f, a, pack);
+    if (samples_hash(ser, f->samples_hash, sizeof f->samples_hash) != 0) {
         pb_error_set(err, PB_ENOMEM, "out of memory");
         goto cleanup;
     }
     XXH128_hash_t h = XXH3_128bits_digest(hs);
-    snprintf(f.content_hash, sizeof f.content_hash, "xxh128:%016llx%016llx",
+    snprintf(f->content_hash, sizeof f->content_hash, "xxh128:%016llx%016llx",
              (unsigned long long)h.high64, (unsigned long long)h.low64);
     /* the name as valid UTF-8 (a Latin-1 file name gets U+FFFD), cut at a character */
-    utf8_repair(f.source, sizeof f.source, name, strlen(name));
+    utf8_repair(f->source, sizeof f->source, name, strlen(name));
     struct stat sb;
     if (a->has_epoch &&
         !(a->start_epoch_s >= ISOTIME_EPOCH_MIN_S && a->start_epoch_s < ISOTIME_EPOCH_END_S)) {
@@ -354,14 +426,14 @@ static enum outcome import_one(struct store *st, const struct pack_rec *pack,
         goto cleanup;
     }
     if (a->has_epoch) {
-        f.flown_epoch_s = a->start_epoch_s;
-        snprintf(f.date_source, sizeof f.date_source, "log");
+        f->flown_epoch_s = a->start_epoch_s;
+        snprintf(f->date_source, sizeof f->date_source, "log");
     } else if (cli->have_date) {
-        f.flown_epoch_s = cli->date_epoch_s;
-        snprintf(f.date_source, sizeof f.date_source, "option");
+        f->flown_epoch_s = cli->date_epoch_s;
+        snprintf(f->date_source, sizeof f->date_source, "option");
     } else if (!is_stdin && stat(path, &sb) == 0) {
-        f.flown_epoch_s = (double)sb.st_mtim.tv_sec;
-        snprintf(f.date_source, sizeof f.date_source, "mtime");
+        f->flown_epoch_s = (double)sb.st_mtim.tv_sec;
+        snprintf(f->date_source, sizeof f->date_source, "mtime");
     } else {
         pb_error_set(err, PB_EUSAGE, "%s: the log has no absolute time: give --date", name);
         goto cleanup;
@@ -377,50 +449,99 @@ static enum outcome import_one(struct store *st, const struct pack_rec *pack,
         pb_error_set(err, PB_ENOMEM, "cannot build the flight report");
         goto cleanup;
     }
-    struct store_dup dup;
-    if (store_flight_put(st, &f, json, &dup, err) != PB_OK)
-        goto cleanup;
-    char when[40];
-    isotime_format(f.flown_epoch_s, when, sizeof when);
-    if (dup.kind != DUP_NONE) {
-        snprintf(line, cap, "already imported as flight %lld for pack %s (%s): %s",
-                 (long long)dup.id, dup.label,
-                 dup.kind == DUP_BYTES ? "same bytes" : "same samples", name);
-        out = OUT_DUPLICATE;
-        goto cleanup;
-    }
-    char r0[48] = "not identifiable";
-    if (isfinite(f.r0_mohm))
-        snprintf(r0, sizeof r0, "%.2f %s", f.r0_mohm, report_mohm());
-    snprintf(line, cap, "imported %s: %.16s (date from %s), %.0f mAh, IR %s, %zu warning%s", name,
-             when, f.date_source, f.charge_used_mah, r0, a->nwarnings,
-             a->nwarnings == 1 ? "" : "s");
-    size_t used = 0;
-    if (misfit)
-        used += (size_t)snprintf(note + used, note_cap - used,
-                                 "packbook: warning: %s: stored with --force though it does not "
-                                 "fit pack '%s': %s\n",
-                                 name, pack->label, why);
-    if (used < note_cap && strcmp(f.date_source, "mtime") == 0)
-        used += (size_t)snprintf(note + used, note_cap - used,
-                                 "packbook: warning: %s: the log has no absolute time; its date "
-                                 "%.10s is the file's modification time, which copying changes "
-                                 "(give --date)\n",
-                                 name, when);
-    if (used < note_cap && dup.near_id)
-        snprintf(note + used, note_cap - used,
-                 "packbook: warning: %s: starts at the same time and lasts as long as flight "
-                 "%lld of pack %s: the same flight logged twice? ('packbook flight remove ID' "
-                 "undoes one)\n",
-                 name, (long long)dup.near_id, dup.near_label);
-    out = OUT_STORED;
-    memcpy(hash, f.content_hash, sizeof f.content_hash);
+    j->json = json;
+    json = NULL;
+    j->nwarnings = a->nwarnings;
+    j->misfit = misfit;
+    j->out = OUT_ANALYSED;
 cleanup:
     free(json);
     analysis_free(a);
     series_free(ser);
     XXH3_freeState(hs);
-    return out;
+}
+
+/* Stores an analysed log (the writer's part); sets j->out, j->line and
+ * j->note. */
+static void store_job(struct store *st, const struct pack_rec *pack, struct job *j)
+{
+    const struct flight_rec *f = &j->f;
+    const char *name = f->source;
+    j->out = OUT_FAILED;
+    j->note[0] = '\0';
+    struct store_dup dup;
+    if (store_flight_put(st, f, j->json, &dup, &j->err) != PB_OK)
+        return;
+    char when[40];
+    isotime_format(f->flown_epoch_s, when, sizeof when);
+    if (dup.kind != DUP_NONE) {
+        snprintf(j->line, sizeof j->line, "already imported as flight %lld for pack %s (%s): %s",
+                 (long long)dup.id, dup.label,
+                 dup.kind == DUP_BYTES ? "same bytes" : "same samples", name);
+        j->out = OUT_DUPLICATE;
+        return;
+    }
+    char r0[48] = "not identifiable";
+    if (isfinite(f->r0_mohm))
+        snprintf(r0, sizeof r0, "%.2f %s", f->r0_mohm, report_mohm());
+    snprintf(j->line, sizeof j->line,
+             "imported %s: %.16s (date from %s), %.0f mAh, IR %s, %zu warning%s", name, when,
+             f->date_source, f->charge_used_mah, r0, j->nwarnings, j->nwarnings == 1 ? "" : "s");
+
+    size_t used = 0;
+    if (j->misfit)
+        used += (size_t)snprintf(j->note + used, sizeof j->note - used,
+                                 "packbook: warning: %s: stored with --force though it does not "
+                                 "fit pack '%s': %s\n",
+                                 name, pack->label, j->why);
+    if (used < sizeof j->note && strcmp(f->date_source, "mtime") == 0)
+        used += (size_t)snprintf(j->note + used, sizeof j->note - used,
+                                 "packbook: warning: %s: the log has no absolute time; its date "
+                                 "%.10s is the file's modification time, which copying changes "
+                                 "(give --date)\n",
+                                 name, when);
+    if (used < sizeof j->note && dup.near_id)
+        snprintf(j->note + used, sizeof j->note - used,
+                 "packbook: warning: %s: starts at the same time and lasts as long as flight "
+                 "%lld of pack %s: the same flight logged twice? ('packbook flight remove ID' "
+                 "undoes one)\n",
+                 name, (long long)dup.near_id, dup.near_label);
+    j->out = OUT_STORED;
+}
+
+/* Workers analyse logs ahead of the writer, at most IMPORT_AHEAD per
+ * worker: memory stays bounded however many logs are given. */
+#define IMPORT_AHEAD 4
+
+struct pool {
+    pthread_mutex_t mu;
+    pthread_cond_t done_cv, room_cv;
+    struct job *jobs;
+    size_t n, next, written, ahead;
+    int stop;
+    const struct pack_rec *pack;
+    const struct import_cli *cli;
+};
+
+static void *worker(void *vp)
+{
+    struct pool *p = vp;
+    pthread_mutex_lock(&p->mu);
+    for (;;) {
+        while (!p->stop && p->next < p->n && p->next >= p->written + p->ahead)
+            pthread_cond_wait(&p->room_cv, &p->mu);
+        if (p->stop || p->next >= p->n)
+            break;
+        struct job *j = &p->jobs[p->next++];
+        pthread_mutex_unlock(&p->mu);
+        if (j->out == OUT_PENDING)
+            analyse_job(p->pack, p->cli, j);
+        pthread_mutex_lock(&p->mu);
+        j->done = 1;
+        pthread_cond_broadcast(&p->done_cv);
+    }
+    pthread_mutex_unlock(&p->mu);
+    return NULL;
 }
 
 /* The flights just stored (by content hash) that left the pack's trend
@@ -475,7 +596,7 @@ enum pb_code cmd_import(int argc, char **argv, struct app *app, struct pb_error 
     cli.wait_s = STORE_WAIT_DEFAULT_S;
     optind = 1;
     opterr = 0;
-    while ((c = getopt_long(argc, argv, "hr", longopts, NULL)) != -1) {
+    while ((c = getopt_long(argc, argv, "hrj:", longopts, NULL)) != -1) {
         int taken = logopts_take(c, optarg, &cli.log, err);
         if (taken < 0 || (taken && packopts_note(&cli.seen, c, optarg, err) < 0))
             return PB_EUSAGE;
@@ -497,6 +618,16 @@ enum pb_code cmd_import(int argc, char **argv, struct app *app, struct pb_error 
         case I_RECURSIVE:
             cli.recursive = 1;
             break;
+        case 'j': {
+            char *end;
+            long v = strtol(optarg, &end, 10);
+            if (*end || end == optarg || v < 1 || v > IMPORT_MAX_JOBS)
+                return pb_error_set(err, PB_EUSAGE,
+                                    "--jobs: expected a count from 1 to %d, got '%s'",
+                                    IMPORT_MAX_JOBS, optarg);
+            cli.jobs = (int)v;
+            break;
+        }
         case I_WAIT:
             if (cmd_parse_double("--wait", optarg, 0, 86400, &cli.wait_s, err))
                 return PB_EUSAGE;
@@ -525,6 +656,10 @@ enum pb_code cmd_import(int argc, char **argv, struct app *app, struct pb_error 
         return rc;
     if (!cli.pack)
         return pb_error_set(err, PB_EUSAGE, "import: say which pack flew with --pack ID");
+    if (cli.jobs == 0) {
+        long cores = sysconf(_SC_NPROCESSORS_ONLN);
+        cli.jobs = cores < 1 ? 1 : cores > IMPORT_MAX_JOBS ? IMPORT_MAX_JOBS : (int)cores;
+    }
     if (optind >= argc)
         return pb_error_set(err, PB_EUSAGE, "import: no logs given");
 
@@ -563,36 +698,89 @@ enum pb_code cmd_import(int argc, char **argv, struct app *app, struct pb_error 
         rc = pb_error_set(err, PB_ENOMEM, "out of memory");
         goto cleanup;
     }
+    struct pool pool = {.n = paths.n, .pack = &pack, .cli = &cli};
+    pool.ahead = (size_t)cli.jobs * IMPORT_AHEAD;
+    pool.jobs = calloc(paths.n ? paths.n : 1, sizeof *pool.jobs);
+    if (!pool.jobs) {
+        rc = pb_error_set(err, PB_ENOMEM, "out of memory");
+        goto cleanup;
+    }
+    for (size_t k = 0; k < paths.n; k++)
+        pool.jobs[k].path = paths.v[k];
+    /* every hash is looked up before any analysis starts (a few ms a
+     * hundred logs), so the workers never analyse a log already stored */
+    for (size_t k = 0; k < paths.n; k++)
+        find_stored(st, &pool.jobs[k]);
+    /* -j 1: no threads; else the workers analyse while this thread writes
+     * the store in the logs' order, one transaction per flight as before */
+    pthread_t tids[IMPORT_MAX_JOBS];
+    int nthreads = 0;
+    pthread_mutex_init(&pool.mu, NULL);
+    pthread_cond_init(&pool.done_cv, NULL);
+    pthread_cond_init(&pool.room_cv, NULL);
+    for (int t = 0; cli.jobs > 1 && t < cli.jobs; t++)
+        if (pthread_create(&tids[nthreads], NULL, worker, &pool) == 0)
+            nthreads++;
     for (size_t k = 0; k < paths.n; k++) {
-        char line[600], note[1600];
-        char shown[4 * sizeof line]; /* names and messages escaped for the terminal */
-        struct pb_error e = {PB_OK, ""};
-        enum outcome o = import_one(st, &pack, &cli, paths.v[k], line, sizeof line, note,
-                                    sizeof note, hashes[stored], &e);
+        char shown[4 * sizeof pool.jobs[0].line]; /* names and messages escaped for the terminal */
+        struct job *j = &pool.jobs[k];
+        if (nthreads == 0) {
+            if (j->out == OUT_PENDING)
+                analyse_job(&pack, &cli, j);
+        } else {
+            pthread_mutex_lock(&pool.mu);
+            while (!j->done)
+                pthread_cond_wait(&pool.done_cv, &pool.mu);
+            pthread_mutex_unlock(&pool.mu);
+        }
+        if (j->out == OUT_ANALYSED)
+            store_job(st, &pack, j);
+        free(j->json);
+        j->json = NULL;
+        pthread_mutex_lock(&pool.mu);
+        pool.written = k + 1;
+        pthread_cond_broadcast(&pool.room_cv);
+        pthread_mutex_unlock(&pool.mu);
         if (bar)
             fprintf(stderr, "\r%*s\r", 60, "");
-        if (o == OUT_FAILED) {
+        if (j->out == OUT_FAILED) {
             failed++;
-            if (e.code == PB_ESTORE || e.code == PB_ENOMEM) {
+            if (j->err.code == PB_ESTORE || j->err.code == PB_ENOMEM) {
                 /* the store itself failed: later logs would fail the same way */
                 printf("%zu imported, %zu already there; stopped at %s\n", stored, dups,
                        utf8_printable(shown, sizeof shown, paths.v[k]));
-                rc = pb_error_set(err, e.code, "%s", e.msg);
-                goto cleanup;
+                rc = pb_error_set(err, j->err.code, "%s", j->err.msg);
+                break;
             }
             fprintf(stderr, "packbook: not imported: %s\n",
-                    utf8_printable(shown, sizeof shown, e.msg));
+                    utf8_printable(shown, sizeof shown, j->err.msg));
         } else {
-            stored += o == OUT_STORED;
-            dups += o == OUT_DUPLICATE;
+            if (j->out == OUT_STORED)
+                memcpy(hashes[stored], j->f.content_hash, sizeof hashes[0]);
+            stored += j->out == OUT_STORED;
+            dups += j->out == OUT_DUPLICATE;
             if (!cli.quiet)
-                printf("%s\n", utf8_printable(shown, sizeof shown, line));
-            if (o == OUT_STORED && note[0])
-                fputs(note, stderr);
+                printf("%s\n", utf8_printable(shown, sizeof shown, j->line));
+            if (j->out == OUT_STORED && j->note[0])
+                fputs(j->note, stderr);
         }
         if (bar)
             progress(k + 1, paths.n);
     }
+    pthread_mutex_lock(&pool.mu);
+    pool.stop = 1;
+    pthread_cond_broadcast(&pool.room_cv);
+    pthread_mutex_unlock(&pool.mu);
+    for (int t = 0; t < nthreads; t++)
+        pthread_join(tids[t], NULL);
+    for (size_t k = 0; k < paths.n; k++)
+        free(pool.jobs[k].json);
+    free(pool.jobs);
+    pthread_cond_destroy(&pool.room_cv);
+    pthread_cond_destroy(&pool.done_cv);
+    pthread_mutex_destroy(&pool.mu);
+    if (rc != PB_OK)
+        goto cleanup;
     char lb[4 * sizeof pack.label];
     if (ex.skipped)
         printf("%zu imported, %zu already there, %zu failed, %zu skipped as not logs (pack %s)\n",

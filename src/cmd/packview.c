@@ -202,9 +202,14 @@ static void to_health(const struct flight_rec *f, size_t n, struct health_flight
     }
 }
 
+static enum pb_code load_view(struct store *st, const struct pack_rec *p,
+                              const struct health_rules *rules, enum trend_by by, int plain,
+                              double horizon, int with_trend, struct pack_view *v,
+                              struct pb_error *err);
+
 enum pb_code packview_load_fleet(struct store *st, const struct health_rules *rules, int all,
-                                 const char *status, struct pack_view **views, size_t *nv,
-                                 struct pb_error *err)
+                                 const char *status, packview_each_fn each, void *ctx,
+                                 struct pack_view **views, size_t *nv, struct pb_error *err)
 {
     struct pack_rec *packs = NULL;
     size_t np = 0;
@@ -220,14 +225,24 @@ enum pb_code packview_load_fleet(struct store *st, const struct health_rules *ru
     for (size_t k = 0; rc == PB_OK && k < np; k++) {
         if (packs[k].retired_at[0] && !all)
             continue;
-        rc = packview_load(st, &packs[k], rules, TREND_WEEK, 0, 1000.0, &v[n], err);
+        /* the fleet shows each pack's state and life plan (from its trend),
+         * and holds one pack's flights at a time */
+        rc = load_view(st, &packs[k], rules, TREND_WEEK, 0, 1000.0, 1, &v[n], err);
         if (rc != PB_OK)
             break;
         const char *s = packs[k].retired_at[0] ? "retired" : health_status_name(v[n].health.status);
-        if (status && strcmp(s, status) != 0)
+        if (status && strcmp(s, status) != 0) {
             pack_view_release(&v[n]);
-        else
-            n++;
+            continue;
+        }
+        if (each)
+            each(&v[n], n, ctx);
+        store_flights_free(v[n].flights);
+        free(v[n].dep); /* per flight; the view keeps the count and the finding */
+        v[n].flights = NULL;
+        v[n].dep = NULL;
+        v[n].nflights = 0;
+        n++;
     }
     store_packs_free(packs);
     if (rc != PB_OK) {
@@ -290,6 +305,14 @@ enum pb_code packview_load(struct store *st, const struct pack_rec *p,
                            const struct health_rules *rules, enum trend_by by, int plain,
                            double horizon, struct pack_view *v, struct pb_error *err)
 {
+    return load_view(st, p, rules, by, plain, horizon, 1, v, err);
+}
+
+static enum pb_code load_view(struct store *st, const struct pack_rec *p,
+                              const struct health_rules *rules, enum trend_by by, int plain,
+                              double horizon, int with_trend, struct pack_view *v,
+                              struct pb_error *err)
+{
     memset(v, 0, sizeof *v);
     v->pair_distance = NAN;
     v->pack = *p;
@@ -303,8 +326,9 @@ enum pb_code packview_load(struct store *st, const struct pack_rec *p,
     }
     to_health(v->flights, v->nflights, h);
     health_assess(h, v->nflights, p->cells, p->capacity_mah, rules, &v->health);
-    int trc = health_trend(h, v->nflights, p->cells, p->capacity_mah, rules, by, plain, horizon,
-                           &v->trend);
+    int trc = with_trend ? health_trend(h, v->nflights, p->cells, p->capacity_mah, rules, by, plain,
+                                        horizon, &v->trend)
+                         : 0;
     if (trc == 0) {
         rc = store_acks_of(st, p->id, &v->acks, &v->nacks, err);
         if (rc == PB_OK)
@@ -329,7 +353,8 @@ enum pb_code packview_summary(struct store *st, const struct pack_rec *p, struct
     struct pack_view v;
     config_rules(&rules);
     memset(out, 0, sizeof *out);
-    enum pb_code rc = packview_load(st, p, &rules, TREND_WEEK, 0, 1000.0, &v, err);
+    /* the state only: no trend lines */
+    enum pb_code rc = load_view(st, p, &rules, TREND_WEEK, 0, 1000.0, 0, &v, err);
     if (rc != PB_OK)
         return rc;
     snprintf(out->label, sizeof out->label, "%s", p->label);

@@ -49,9 +49,16 @@ enum pb_code packview_load(struct store *st, const struct pack_rec *p,
  * order, assessed with rules (weekly buckets, robust fits); status, when
  * not NULL, keeps only the packs with that status (ok, watch, retire or
  * retired). The caller frees *views with packview_free_all. */
+/* Called for each pack of the fleet while its flights are loaded (view k
+ * of the result); the flights are freed after it. */
+typedef void (*packview_each_fn)(const struct pack_view *v, size_t k, void *ctx);
+
+/* Every pack (in service, or all) with its state and trend (status: only
+ * those in it): one pack's flights in memory at a time; the views come back
+ * without flights. each may be NULL. */
 enum pb_code packview_load_fleet(struct store *st, const struct health_rules *rules, int all,
-                                 const char *status, struct pack_view **views, size_t *nv,
-                                 struct pb_error *err);
+                                 const char *status, packview_each_fn each, void *ctx,
+                                 struct pack_view **views, size_t *nv, struct pb_error *err);
 
 /* Registered pairs (pair.c): sets each view's paired_with and, when the
  * partner is among the views, their mismatch; a pair beyond the limits

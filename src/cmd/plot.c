@@ -319,7 +319,7 @@ static enum pb_code plot_history(const struct plot_cli *cli, const char *id, str
         store_close(st);
         return rc;
     }
-    rc = packview_load_fleet(st, &cli->rules, cli->all, NULL, &views, &nv, err);
+    rc = packview_load_fleet(st, &cli->rules, cli->all, NULL, NULL, NULL, &views, &nv, err);
     if (rc == PB_OK)
         rc = plot_fleet(cli->out, &cli->fig, views, nv, &cli->rules, err);
     packview_free_all(views, nv);

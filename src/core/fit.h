@@ -83,7 +83,7 @@ enum pb_code fit_linear_from(size_t n, int p, fit_row_fn row, void *ctx,
 /* Half-width of the two-sided 95 % interval of coefficient j (Student t). */
 double fit_ci95(const struct fit_result *f, int j);
 
-/* Median of a[0..n) by selection; reorders a. n > 0. */
+/* Median of a[0..n) by selection; reorders a. 0 when n == 0. */
 double fit_median(double *a, size_t n);
 
 #endif

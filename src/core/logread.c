@@ -585,19 +585,13 @@ static void take_time(struct reader *r, const char *f, size_t len, int column)
     r->val[SLOT_T] = v * r->t_scale;
 }
 
-static void on_field(void *data, size_t len, void *ctx)
+/* One field of the record being read; f holds no line break (the caller
+ * counted them). */
+static void take_field(struct reader *r, const char *f, size_t len, size_t start_line)
 {
-    struct reader *r = ctx;
-    const char *f = data ? data : "";
     if (r->failed)
         return;
     int col = r->field++;
-    /* a quoted field's own line breaks: later lines keep their numbers
-     * (the record is placed where it started) */
-    size_t start_line = r->line;
-    for (const char *q = memchr(f, '\n', len); q;
-         q = memchr(q + 1, '\n', len - (size_t)(q + 1 - f)))
-        r->line++;
     if (col == 0) {
         size_t k = 0;
         while (k < len && f[k] == ' ')
@@ -662,6 +656,21 @@ static void on_field(void *data, size_t len, void *ctx)
     }
     r->bad = st == NUM_EMPTY ? BAD_EMPTY : st == NUM_NONFINITE ? BAD_NONFINITE : BAD_NUMBER;
     r->bad_col = col + 1;
+}
+
+static void on_field(void *data, size_t len, void *ctx)
+{
+    struct reader *r = ctx;
+    const char *f = data ? data : "";
+    if (r->failed)
+        return;
+    /* a quoted field's own line breaks: later lines keep their numbers
+     * (the record is placed where it started) */
+    size_t start_line = r->line;
+    for (const char *q = memchr(f, '\n', len); q;
+         q = memchr(q + 1, '\n', len - (size_t)(q + 1 - f)))
+        r->line++;
+    take_field(r, f, len, start_line);
 }
 
 /* The current of the record being read, in A (raw ADC counts converted). */
@@ -1036,9 +1045,7 @@ double logread_adc_a_per_count(int bits, double vref_v, double ratio, double r_o
     return v_per_count / v_per_a;
 }
 
-/* Whole blocks go to libcsv; lines are counted in on_row, which
- * CSV_REPALL_NL calls for every unquoted CR and LF. */
-static void feed(struct reader *r, struct csv_parser *p, const char *buf, size_t len)
+static void feed_csv(struct reader *r, struct csv_parser *p, const char *buf, size_t len)
 {
     if (csv_parse(p, buf, len, on_field, on_row, r) != len && !r->failed) {
         int e = csv_error(p);
@@ -1046,6 +1053,85 @@ static void feed(struct reader *r, struct csv_parser *p, const char *buf, size_t
             fail(r, PB_EINPUT, r->line, r->field + 1, "field longer than %s bytes", "65536");
         else
             fail(r, PB_EINPUT, r->line, r->field + 1, "cannot parse: %s", csv_strerror(e));
+    }
+}
+
+/* Byte classes of the fast path: a line made only of FAST_PLAIN bytes and
+ * delimiters is split exactly as libcsv splits it (no quotes, no spaces to
+ * trim); anything else goes to libcsv. */
+enum { FAST_PLAIN = 0, FAST_DELIM, FAST_CR, FAST_LF, FAST_OTHER };
+#define FAST_MAX_FIELDS 64
+#define FAST_MAX_LINE 4096 /* longer lines (and their field-length bound) go to libcsv */
+
+/* Plain lines at a record boundary are split here and handed to the same
+ * field and row code; a line with a quote or a space, a long line, the
+ * header (columns not yet mapped) and a line cut by the block's end go
+ * through libcsv, which then finishes its record before the fast path
+ * resumes. The output is the same either way (tests/unit/test_logread.c
+ * compares both on every file in tests/data and samples/). Lines are
+ * counted in on_row, which CSV_REPALL_NL calls for every unquoted CR and
+ * LF. */
+static void feed(struct reader *r, struct csv_parser *p, const char *buf, size_t len)
+{
+    if (r->opts->no_fast_path) {
+        feed_csv(r, p, buf, len);
+        return;
+    }
+    unsigned char cls[256] = {0};
+    cls['"'] = cls[' '] = cls['\0'] = FAST_OTHER;
+    cls['\r'] = FAST_CR;
+    cls['\n'] = FAST_LF;
+    cls[(unsigned char)r->st->delimiter] = FAST_DELIM;
+    const unsigned char *u = (const unsigned char *)buf;
+    size_t at = 0;
+    while (at < len) {
+        /* libcsv between records (ROW_NOT_BEGUN is state 0); after a
+         * failure libcsv still counts the block's lines */
+        int clean = p->pstate == 0 && !p->quoted && p->entry_pos == 0 && !r->failed;
+        size_t starts[FAST_MAX_FIELDS + 1];
+        int nf = 0, plain = clean && r->mapped;
+        size_t e = at;
+        starts[nf++] = at;
+        unsigned char c = FAST_PLAIN;
+        while (e < len) {
+            c = cls[u[e]];
+            if (c == FAST_PLAIN) {
+                e++;
+                continue;
+            }
+            if (c == FAST_DELIM) {
+                if (nf == FAST_MAX_FIELDS)
+                    plain = 0;
+                else
+                    starts[nf++] = e + 1;
+                e++;
+                continue;
+            }
+            if (c == FAST_OTHER)
+                plain = 0;
+            if (c != FAST_OTHER)
+                break;
+            e++;
+        }
+        if (e == len) {
+            /* no line end in the block: libcsv keeps the piece */
+            feed_csv(r, p, buf + at, len - at);
+            return;
+        }
+        if (!plain || e - at > FAST_MAX_LINE) {
+            feed_csv(r, p, buf + at, e + 1 - at);
+            at = e + 1;
+            continue;
+        }
+        /* an empty line has no fields: libcsv reports only its line end */
+        if (e > at) {
+            starts[nf] = e + 1;
+            size_t line = r->line;
+            for (int k = 0; k < nf; k++)
+                take_field(r, buf + starts[k], starts[k + 1] - 1 - starts[k], line);
+        }
+        on_row(c == FAST_CR ? '\r' : '\n', r);
+        at = e + 1;
     }
 }
 

@@ -55,6 +55,7 @@ struct logread_opts {
     /* called with every block of raw bytes as read (e.g. to hash the log) */
     void (*on_block)(void *ctx, const char *buf, size_t len);
     void *block_ctx;
+    int no_fast_path; /* every line through libcsv (tests compare the two paths) */
 };
 
 /* A counted event: how often, and where first. */

@@ -19,34 +19,77 @@ enum { P_VOLT = 0, P_CURRENT, P_SOC, P_CELLS, P_TEMP, P_MAX };
 static const struct plot_style tint = {PLOT_VERMILION, 1, DASH_SOLID, 0.16};
 static const struct plot_style hatch = {PLOT_GREY, 1, DASH_SOLID, 0};
 
-/* The per-sample series the panels draw. */
-struct flight_cols {
-    size_t n, k;
-    double *t_s, *v_v, *i_a, *power_w, *ocv_v, *soc_cc, *soc_ocv;
+/* The per-sample figures the analysis makes (analyze_rows) are never all
+ * held at once: one pass finds their ranges, and each line is made into one
+ * scratch column just before it is drawn (the log's own columns are drawn
+ * from the series). A 1M-row log then costs 8 bytes a row here, not 56. */
+enum col { COL_POWER = 0, COL_OCV, COL_SOC_CC, COL_SOC_OCV, COL_N };
+
+struct col_ranges {
+    double lo[COL_N], hi[COL_N], first[COL_N];
+    int any[COL_N]; /* some value is finite */
+    size_t k;
 };
 
-static void collect(void *ctx, const struct sample_row *r)
+static double col_value(const struct sample_row *r, enum col c)
 {
-    struct flight_cols *c = ctx;
-    size_t k = c->k++;
-    c->t_s[k] = r->t_s;
-    c->v_v[k] = r->v_v;
-    c->i_a[k] = r->i_a;
-    c->power_w[k] = r->v_v * r->i_a;
-    c->ocv_v[k] = r->ocv_v;
-    c->soc_cc[k] = r->soc_cc_pct;
-    c->soc_ocv[k] = r->soc_ocv_pct;
+    switch (c) {
+    case COL_POWER:
+        return r->v_v * r->i_a;
+    case COL_OCV:
+        return r->ocv_v;
+    case COL_SOC_CC:
+        return r->soc_cc_pct;
+    default:
+        return r->soc_ocv_pct;
+    }
 }
 
-static void cols_free(struct flight_cols *c)
+static void scan_ranges(void *ctx, const struct sample_row *r)
 {
-    free(c->t_s);
-    free(c->v_v);
-    free(c->i_a);
-    free(c->power_w);
-    free(c->ocv_v);
-    free(c->soc_cc);
-    free(c->soc_ocv);
+    struct col_ranges *c = ctx;
+    for (int j = 0; j < COL_N; j++) {
+        double v = col_value(r, (enum col)j);
+        if (c->k == 0)
+            c->first[j] = v;
+        if (isfinite(v)) {
+            c->any[j] = 1;
+            c->lo[j] = fmin(c->lo[j], v);
+            c->hi[j] = fmax(c->hi[j], v);
+        }
+    }
+    c->k++;
+}
+
+struct col_fill {
+    double *y;
+    enum col which;
+    size_t k;
+};
+
+static void fill_col(void *ctx, const struct sample_row *r)
+{
+    struct col_fill *f = ctx;
+    f->y[f->k++] = col_value(r, f->which);
+}
+
+/* Makes column which into scratch and draws it. */
+static void draw_col(struct plot *p, const struct plot_panel *q, int right, const struct series *s,
+                     const struct analysis *a, double rated_mah, double *scratch, enum col which,
+                     double x_div, const struct plot_style *st)
+{
+    struct col_fill f = {scratch, which, 0};
+    analyze_rows(s, a, rated_mah, fill_col, &f);
+    plot_line(p, q, right, s->t_s, scratch, s->n, x_div, a->gap_s, st);
+}
+
+/* Widens [lo, hi] to the column's finite range. */
+static void range_col(const struct col_ranges *c, enum col j, double *lo, double *hi)
+{
+    if (c->any[j]) {
+        *lo = fmin(*lo, c->lo[j]);
+        *hi = fmax(*hi, c->hi[j]);
+    }
 }
 
 static void range_of(const double *y, size_t n, double *lo, double *hi)
@@ -244,37 +287,30 @@ enum pb_code plot_flight(const char *path, const struct plot_opts *o, const stru
                          const struct analysis *a, double rated_mah, const char *name,
                          struct pb_error *err)
 {
-    struct flight_cols c = {.n = s->n};
+    struct col_ranges c = {0};
+    double *scratch = NULL;
     enum pb_code rc = PB_OK;
     int has_cells = s->ncells > 0;
     int w = o->width ? o->width : 1600, h = o->height ? o->height : (has_cells ? 1300 : 1100);
     struct plot *p = plot_new(path, w, h, err);
     if (!p)
         return err->code;
-    size_t n = s->n ? s->n : 1;
-    c.t_s = malloc(n * sizeof *c.t_s);
-    c.v_v = malloc(n * sizeof *c.v_v);
-    c.i_a = malloc(n * sizeof *c.i_a);
-    c.power_w = malloc(n * sizeof *c.power_w);
-    c.ocv_v = malloc(n * sizeof *c.ocv_v);
-    c.soc_cc = malloc(n * sizeof *c.soc_cc);
-    c.soc_ocv = malloc(n * sizeof *c.soc_ocv);
-    if (!c.t_s || !c.v_v || !c.i_a || !c.power_w || !c.ocv_v || !c.soc_cc || !c.soc_ocv) {
+    scratch = malloc((s->n ? s->n : 1) * sizeof *scratch);
+    if (!scratch) {
         rc = pb_error_set(err, PB_ENOMEM, "out of memory");
         goto cleanup;
     }
-    analyze_rows(s, a, rated_mah, collect, &c);
+    for (int j = 0; j < COL_N; j++) {
+        c.lo[j] = HUGE_VAL;
+        c.hi[j] = -HUGE_VAL;
+    }
+    analyze_rows(s, a, rated_mah, scan_ranges, &c);
 
     double fs = plot_font(p);
     /* minutes read better than seconds beyond a few minutes, hours beyond a few hours */
     double x_div = a->duration_s > 3 * 3600.0 ? 3600.0 : a->duration_s > 180.0 ? 60.0 : 1.0;
     double floor_pack = a->cells > 0 ? a->floor_v * a->cells : NAN;
-    int has_ocv = 0, has_soc_cc = 0, has_soc_ocv = 0;
-    for (size_t k = 0; k < s->n; k++) {
-        has_ocv |= isfinite(c.ocv_v[k]);
-        has_soc_cc |= isfinite(c.soc_cc[k]);
-        has_soc_ocv |= isfinite(c.soc_ocv[k]);
-    }
+    int has_ocv = c.any[COL_OCV], has_soc_cc = c.any[COL_SOC_CC], has_soc_ocv = c.any[COL_SOC_OCV];
 
     struct spans sp;
     spans_count(s, a, &sp);
@@ -306,7 +342,7 @@ enum pb_code plot_flight(const char *path, const struct plot_opts *o, const stru
     snprintf(reserve_key, sizeof reserve_key, "landing reserve %.0f %%", o->reserve_pct);
     double vlo = HUGE_VAL, vhi = -HUGE_VAL;
     range_of(s->v_v, s->n, &vlo, &vhi);
-    range_of(c.ocv_v, s->n, &vlo, &vhi);
+    range_col(&c, COL_OCV, &vlo, &vhi);
     /* the floor is drawn when it is near the data; far below, it would
      * squash the trace into a line, so the key says where it is */
     int floor_shown = isfinite(floor_pack) && floor_pack >= vlo - 0.35 * fmax(vhi - vlo, 0.5);
@@ -391,9 +427,9 @@ enum pb_code plot_flight(const char *path, const struct plot_opts *o, const stru
             snprintf(q->y2.label, sizeof q->y2.label, "power (W)");
             q->has_y2 = 1;
             lo = 0, hi = 0;
-            range_of(c.i_a, s->n, &lo, &hi);
+            range_of(s->i_a, s->n, &lo, &hi);
             double plo = 0, phi = 0;
-            range_of(c.power_w, s->n, &plo, &phi);
+            range_col(&c, COL_POWER, &plo, &phi);
             /* rest-current noise a little below zero is under a pixel at
              * this scale; a whole tick interval for it would waste the panel */
             if (lo < 0 && -lo < 0.01 * hi)
@@ -408,8 +444,8 @@ enum pb_code plot_flight(const char *path, const struct plot_opts *o, const stru
             snprintf(q->name, sizeof q->name, "soc");
             snprintf(q->y.label, sizeof q->y.label, "state of charge (%%)");
             lo = 0, hi = 100;
-            range_of(c.soc_cc, s->n, &lo, &hi);
-            range_of(c.soc_ocv, s->n, &lo, &hi);
+            range_col(&c, COL_SOC_CC, &lo, &hi);
+            range_col(&c, COL_SOC_OCV, &lo, &hi);
             break;
         case P_CELLS:
             snprintf(q->name, sizeof q->name, "cells");
@@ -462,20 +498,20 @@ enum pb_code plot_flight(const char *path, const struct plot_opts *o, const stru
                 plot_hline(p, q, floor_pack, &st_floor, NULL, 0);
             plot_line(p, q, 0, s->t_s, s->v_v, s->n, x_div, a->gap_s, &st_v);
             if (has_ocv)
-                plot_line(p, q, 0, s->t_s, c.ocv_v, s->n, x_div, a->gap_s, &st_ocv);
+                draw_col(p, q, 0, s, a, rated_mah, scratch, COL_OCV, x_div, &st_ocv);
             break;
         case P_CURRENT:
-            plot_line(p, q, 1, s->t_s, c.power_w, s->n, x_div, a->gap_s, &st_pw);
-            plot_line(p, q, 0, s->t_s, c.i_a, s->n, x_div, a->gap_s, &st_i);
+            draw_col(p, q, 1, s, a, rated_mah, scratch, COL_POWER, x_div, &st_pw);
+            plot_line(p, q, 0, s->t_s, s->i_a, s->n, x_div, a->gap_s, &st_i);
             break;
         case P_SOC:
             /* the reserve under the traces: a limit, like the cut-off on the voltage */
             if (o->reserve_pct > 0)
                 plot_hline(p, q, o->reserve_pct, &st_floor, NULL, 0);
             if (has_soc_ocv)
-                plot_line(p, q, 0, s->t_s, c.soc_ocv, s->n, x_div, a->gap_s, &st_socv);
+                draw_col(p, q, 0, s, a, rated_mah, scratch, COL_SOC_OCV, x_div, &st_socv);
             if (has_soc_cc)
-                plot_line(p, q, 0, s->t_s, c.soc_cc, s->n, x_div, a->gap_s, &st_cc);
+                draw_col(p, q, 0, s, a, rated_mah, scratch, COL_SOC_CC, x_div, &st_cc);
             break;
         case P_CELLS:
             plot_hline(p, q, a->floor_v, &st_floor, NULL, 0);
@@ -492,24 +528,24 @@ enum pb_code plot_flight(const char *path, const struct plot_opts *o, const stru
         }
         if (s->n == 1) {
             /* a single sample draws no line: mark it */
-            double *y = which[j] == P_VOLT      ? s->v_v
-                        : which[j] == P_CURRENT ? c.i_a
-                        : which[j] == P_SOC     ? (has_soc_cc ? c.soc_cc : c.soc_ocv)
-                        : which[j] == P_TEMP    ? s->temp_c
-                                                : s->cell_v[0];
+            double y0 = which[j] == P_VOLT      ? s->v_v[0]
+                        : which[j] == P_CURRENT ? s->i_a[0]
+                        : which[j] == P_SOC     ? c.first[has_soc_cc ? COL_SOC_CC : COL_SOC_OCV]
+                        : which[j] == P_TEMP    ? s->temp_c[0]
+                                                : s->cell_v[0][0];
             const struct plot_style *ms = which[j] == P_VOLT      ? &st_v
                                           : which[j] == P_CURRENT ? &st_i
                                           : which[j] == P_SOC     ? (has_soc_cc ? &st_cc : &st_socv)
                                           : which[j] == P_TEMP    ? &st_temp
                                                                   : &st_cell;
-            plot_marker(p, q, s->t_s[0] / x_div, y[0], MARK_CIRCLE, 1, ms);
+            plot_marker(p, q, s->t_s[0] / x_div, y0, MARK_CIRCLE, 1, ms);
         }
         plot_legend(p, q, keys[j], nkeys[j]);
     }
     footer(p, left, right);
     rc = plot_finish_map(p, o->axes_json, pa, (size_t)np, err);
 cleanup:
-    cols_free(&c);
+    free(scratch);
     plot_free(p);
     return rc;
 }

@@ -18,10 +18,11 @@ struct pack_view {
     size_t nflights;
     struct pack_health health;
     struct pack_trend trend;
+    double safe_s[2];        /* fleet --predict: conservative and median safe time (NAN: none) */
     struct departure *dep;   /* per flight (nflights): did it leave its trend */
     struct flight_ack *acks; /* the operator's acknowledgements, by flight id */
     size_t nacks;
-    size_t departures; /* flights that left their trend, not acknowledged */
+    size_t departures;     /* flights that left their trend, not acknowledged */
     char paired_with[128]; /* the registered partner's label, "" when none */
     double pair_distance;  /* their mismatch now (pairs.h), NAN when not known */
 };

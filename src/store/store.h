@@ -1,5 +1,7 @@
 /* store: the pack history, behind one small interface.
  *
+ * A struct store is used by one thread at a time (its connection has no
+ * mutex of its own).
  * Owns struct store (store_open/store_close) and the records it returns
  * (free them with store_packs_free / store_flights_free). The SQLite file
  * is the embedded default; another backend implements these functions.
@@ -15,7 +17,7 @@
 #include "../core/pb_error.h"
 #include "../core/series.h"
 
-#define STORE_SCHEMA_VERSION 7
+#define STORE_SCHEMA_VERSION 8
 
 struct store;
 
@@ -148,6 +150,13 @@ struct store_dup {
  * another writer holds the database, up to the busy timeout. */
 enum pb_code store_flight_put(struct store *st, const struct flight_rec *f, const char *report_json,
                               struct store_dup *dup, struct pb_error *err);
+
+/* Whether a flight with this content hash is stored (*found; its id in *id
+ * and its pack's label in label, which may be NULL). Reads only: import
+ * asks before it analyses, and store_flight_put still decides inside its
+ * transaction. */
+enum pb_code store_flight_find_hash(struct store *st, const char *content_hash, int *found,
+                                    int64_t *id, char *label, size_t cap, struct pb_error *err);
 
 /* Flights of one pack, oldest first. */
 enum pb_code store_flights_of(struct store *st, int64_t pack_id, struct flight_rec **out, size_t *n,

@@ -92,6 +92,13 @@ static const char *const migrations[] = {
     "  pack_b INTEGER NOT NULL REFERENCES packs(id),"
     "  created_at TEXT NOT NULL,"
     "  CHECK (pack_a < pack_b));",
+    /* 7 -> 8: the report JSON (about 2.5 KB) out of the flights rows, which
+     * the history views read by the thousand, into a table of its own */
+    "CREATE TABLE flight_reports ("
+    "  flight_id INTEGER PRIMARY KEY REFERENCES flights(id) ON DELETE CASCADE,"
+    "  report_json TEXT NOT NULL);"
+    "INSERT INTO flight_reports (flight_id, report_json) SELECT id, report_json FROM flights;"
+    "ALTER TABLE flights DROP COLUMN report_json;",
 };
 
 static double mono_s(void)
@@ -251,6 +258,11 @@ static enum pb_code migrate(struct store *st, struct pb_error *err)
         if (sqlite3_exec(st->db, "COMMIT", NULL, NULL, NULL) != SQLITE_OK)
             return db_error(st, err, "schema upgrade failed");
     }
+    /* the steps' pages into the file, so the WAL starts empty (a step that
+     * rewrites a table, as 7 -> 8 does, would otherwise keep the whole table
+     * twice until SQLite's own checkpoint); best effort: a reader may hold it */
+    if (have < want)
+        sqlite3_exec(st->db, "PRAGMA wal_checkpoint(TRUNCATE)", NULL, NULL, NULL);
     return PB_OK;
 }
 
@@ -387,9 +399,12 @@ enum pb_code store_open_wait(const char *path, enum store_mode mode, double wait
         return pb_error_set(err, PB_ESTORE, "cannot create the folder for '%s': %s", path,
                             strerror(errno));
     }
-    int flags = mode == STORE_READ
-                    ? SQLITE_OPEN_READONLY
-                    : SQLITE_OPEN_READWRITE | (mode == STORE_CREATE ? SQLITE_OPEN_CREATE : 0);
+    /* one thread uses a connection (import's workers never touch the store):
+     * no SQLite mutex around every call, which cost a seventh of fleet */
+    int flags = SQLITE_OPEN_NOMUTEX |
+                (mode == STORE_READ
+                     ? SQLITE_OPEN_READONLY
+                     : SQLITE_OPEN_READWRITE | (mode == STORE_CREATE ? SQLITE_OPEN_CREATE : 0));
     enum pb_code rc = PB_OK;
     if (sqlite3_open_v2(path, &st->db, flags, NULL) != SQLITE_OK) {
         rc = st->db ? db_error(st, err, "cannot open")
@@ -738,9 +753,11 @@ static double col_num(sqlite3_stmt *s, int i)
     X(power_mean_w)                                                                                \
     X(voltage_min_v)                                                                               \
     X(cell_voltage_min_v)                                                                          \
-    X(time_below_floor_s) X(r0_mohm) X(r0_ci95_mohm) X(r1_mohm) X(tau_s) X(soc_start_pct)          \
-        X(soc_end_pct) X(capacity_mah) X(capacity_ci95_mah) X(cell_spread_rest_mv)                 \
-            X(cell_spread_load_mv) X(temperature_max_c) X(power_cruise_w)
+    X(time_below_floor_s)                                                                          \
+    X(r0_mohm)                                                                                     \
+    X(r0_ci95_mohm)                                                                                \
+    X(r1_mohm) X(tau_s) X(soc_start_pct) X(soc_end_pct) X(capacity_mah) X(capacity_ci95_mah)       \
+        X(cell_spread_rest_mv) X(cell_spread_load_mv) X(temperature_max_c) X(power_cruise_w)
 
 #define X(name) #name ", "
 static const char flight_num_cols[] = FLIGHT_NUMS;
@@ -810,10 +827,10 @@ static int put_once(struct store *st, const struct flight_rec *f, const char *js
     int used = snprintf(sql, sizeof sql,
                         "INSERT INTO flights (pack_id, content_hash, source, flown_at, "
                         "flown_epoch_s, date_source, imported_at, weakest_cell, warnings, "
-                        "report_json, samples_hash, %.*s) VALUES (?",
+                        "samples_hash, %.*s) VALUES (?",
                         (int)strlen(flight_num_cols) - 2, flight_num_cols);
-    /* one placeholder per column: 11 named above plus the numeric ones */
-    int ncols = 11;
+    /* one placeholder per column: 10 named above plus the numeric ones */
+    int ncols = 10;
     for (const char *q = flight_num_cols; *q; q++)
         ncols += *q == ',';
     for (int k = 1; k < ncols; k++)
@@ -836,9 +853,8 @@ static int put_once(struct store *st, const struct flight_rec *f, const char *js
     else
         sqlite3_bind_null(s, 8);
     sqlite3_bind_int(s, 9, f->warnings);
-    sqlite3_bind_text(s, 10, json, -1, SQLITE_TRANSIENT);
-    bind_text_or_null(s, 11, f->samples_hash);
-    int i = 12;
+    bind_text_or_null(s, 10, f->samples_hash);
+    int i = 11;
 #define X(name) bind_num(s, i++, f->name);
     FLIGHT_NUMS
 #undef X
@@ -848,6 +864,17 @@ static int put_once(struct store *st, const struct flight_rec *f, const char *js
     if (rc != SQLITE_DONE)
         goto fail;
     sqlite3_int64 fid = sqlite3_last_insert_rowid(st->db);
+    rc = sqlite3_prepare_v2(
+        st->db, "INSERT INTO flight_reports (flight_id, report_json) VALUES (?, ?)", -1, &s, NULL);
+    if (rc != SQLITE_OK)
+        goto fail;
+    sqlite3_bind_int64(s, 1, fid);
+    sqlite3_bind_text(s, 2, json, -1, SQLITE_TRANSIENT);
+    rc = sqlite3_step(s);
+    sqlite3_finalize(s);
+    s = NULL;
+    if (rc != SQLITE_DONE)
+        goto fail;
     rc = sqlite3_prepare_v2(st->db,
                             "INSERT INTO flight_cells (flight_id, cell, r0_mohm, voltage_min_v, "
                             "voltage_rest_v) VALUES (?, ?, ?, ?, ?)",
@@ -882,6 +909,30 @@ fail:
         sqlite3_exec(st->db, "ROLLBACK", NULL, NULL, NULL);
         return keep ? keep : rc;
     }
+}
+
+enum pb_code store_flight_find_hash(struct store *st, const char *content_hash, int *found,
+                                    int64_t *id, char *label, size_t cap, struct pb_error *err)
+{
+    sqlite3_stmt *s = NULL;
+    *found = 0;
+    if (sqlite3_prepare_v2(st->db,
+                           "SELECT f.id, p.label FROM flights f JOIN packs p ON p.id = f.pack_id "
+                           "WHERE f.content_hash = ?",
+                           -1, &s, NULL) != SQLITE_OK)
+        return db_error(st, err, "cannot look up the flight");
+    sqlite3_bind_text(s, 1, content_hash, -1, SQLITE_TRANSIENT);
+    int rc = sqlite3_step(s);
+    if (rc == SQLITE_ROW) {
+        *found = 1;
+        *id = sqlite3_column_int64(s, 0);
+        if (label)
+            copy_text(label, cap, s, 1);
+    }
+    sqlite3_finalize(s);
+    if (rc != SQLITE_ROW && rc != SQLITE_DONE)
+        return db_error(st, err, "cannot look up the flight");
+    return PB_OK;
 }
 
 enum pb_code store_flight_put(struct store *st, const struct flight_rec *f, const char *report_json,
@@ -937,8 +988,9 @@ enum pb_code store_flights_of(struct store *st, int64_t pack_id, struct flight_r
              FLIGHT_HEAD_COLS, (int)strlen(flight_num_cols) - 2, flight_num_cols);
     if (sqlite3_prepare_v2(st->db, sql, -1, &s, NULL) != SQLITE_OK ||
         sqlite3_prepare_v2(st->db,
-                           "SELECT cell, r0_mohm, voltage_min_v, voltage_rest_v FROM "
-                           "flight_cells WHERE flight_id = ? ORDER BY cell",
+                           "SELECT c.flight_id, c.cell, c.r0_mohm, c.voltage_min_v, "
+                           "c.voltage_rest_v FROM flights f JOIN flight_cells c ON c.flight_id "
+                           "= f.id WHERE f.pack_id = ? ORDER BY f.flown_epoch_s, f.id, c.cell",
                            -1, &c, NULL) != SQLITE_OK) {
         sqlite3_finalize(s);
         return db_error(st, err, "cannot read flights");
@@ -957,15 +1009,24 @@ enum pb_code store_flights_of(struct store *st, int64_t pack_id, struct flight_r
         }
         struct flight_rec *f = &v[len++];
         read_flight(s, f);
-        sqlite3_reset(c);
-        sqlite3_bind_int64(c, 1, f->id);
-        while (sqlite3_step(c) == SQLITE_ROW && f->ncells < PB_MAX_CELLS) {
-            struct flight_cell_rec *fc = &f->cell[f->ncells++];
-            fc->index = sqlite3_column_int(c, 0);
-            fc->r0_mohm = col_num(c, 1);
-            fc->voltage_min_v = col_num(c, 2);
-            fc->voltage_rest_v = col_num(c, 3);
-        }
+    }
+    /* the cells of the whole pack in one query, in the flights' order */
+    sqlite3_bind_int64(c, 1, pack_id);
+    size_t at = 0;
+    while (rc == SQLITE_DONE && sqlite3_step(c) == SQLITE_ROW) {
+        int64_t fid = sqlite3_column_int64(c, 0);
+        while (at < len && v[at].id != fid)
+            at++;
+        if (at == len)
+            break;
+        struct flight_rec *f = &v[at];
+        if (f->ncells >= PB_MAX_CELLS)
+            continue;
+        struct flight_cell_rec *fc = &f->cell[f->ncells++];
+        fc->index = sqlite3_column_int(c, 1);
+        fc->r0_mohm = col_num(c, 2);
+        fc->voltage_min_v = col_num(c, 3);
+        fc->voltage_rest_v = col_num(c, 4);
     }
     sqlite3_finalize(s);
     sqlite3_finalize(c);
@@ -989,8 +1050,8 @@ enum pb_code store_flight_report(struct store *st, int64_t flight_id, char **out
 {
     sqlite3_stmt *s = NULL;
     *out = NULL;
-    if (sqlite3_prepare_v2(st->db, "SELECT report_json FROM flights WHERE id = ?", -1, &s, NULL) !=
-        SQLITE_OK)
+    if (sqlite3_prepare_v2(st->db, "SELECT report_json FROM flight_reports WHERE flight_id = ?", -1,
+                           &s, NULL) != SQLITE_OK)
         return db_error(st, err, "cannot read a flight's report");
     sqlite3_bind_int64(s, 1, flight_id);
     enum pb_code rc = PB_OK;
@@ -1037,7 +1098,8 @@ enum pb_code store_flight_analysed_as(struct store *st, int64_t id, int *cells, 
     chemistry[0] = '\0';
     if (sqlite3_prepare_v2(st->db,
                            "SELECT json_extract(report_json, '$.cells'), "
-                           "json_extract(report_json, '$.chemistry') FROM flights WHERE id = ?",
+                           "json_extract(report_json, '$.chemistry') FROM flight_reports "
+                           "WHERE flight_id = ?",
                            -1, &s, NULL) != SQLITE_OK)
         return db_error(st, err, "cannot read flights");
     sqlite3_bind_int64(s, 1, id);
@@ -1062,7 +1124,8 @@ enum pb_code store_flights_analysed_otherwise(struct store *st, int64_t pack_id,
     sqlite3_stmt *s = NULL;
     /* a report that does not say (hand-made rows) counts as not contradicting */
     if (sqlite3_prepare_v2(st->db,
-                           "SELECT count(*) FROM flights WHERE pack_id = ? AND ("
+                           "SELECT count(*) FROM flights f JOIN flight_reports r ON "
+                           "r.flight_id = f.id WHERE f.pack_id = ? AND ("
                            "coalesce(json_extract(report_json, '$.cells'), ?2) != ?2 OR "
                            "lower(coalesce(json_extract(report_json, '$.chemistry'), ?3)) "
                            "!= lower(?3))",

@@ -652,7 +652,7 @@ class BadInput(unittest.TestCase):
         import sqlite3  # the schema is documented (man packbook, DATABASE SCHEMA)
         con = sqlite3.connect(db)
         try:
-            (report,) = con.execute("SELECT report_json FROM flights").fetchone()
+            (report,) = con.execute("SELECT report_json FROM flight_reports").fetchone()
         finally:
             con.close()
         self.assertIn("log_of_days", warning_codes(json.loads(report)),

@@ -213,11 +213,12 @@ def nasa_history(cell, cycles, paths, facts, read, dense):
 
 
 def stored_reports(db, paths):
-    """{cycle: the analyze --json document import stored for it} (flights.report_json)."""
+    """{cycle: the analyze --json document import stored for it} (flight_reports.report_json)."""
     by_path = {p: n for n, p in paths.items()}
     con = sqlite3.connect(db)
     try:
-        rows = con.execute("SELECT source, report_json FROM flights").fetchall()
+        rows = con.execute("SELECT source, report_json FROM flights f JOIN flight_reports r "
+                           "ON r.flight_id = f.id").fetchall()
     finally:
         con.close()
     return {by_path[src]: json.loads(rep) for src, rep in rows if src in by_path}
@@ -255,7 +256,7 @@ def check_nasa_cell(cell, tmp):
         same.append(doc is not None and n in docs and
                     all(doc.get(k) == docs[n].get(k) for k in keys))
     row(f"{cell}: stored report = analyze --json (cycles 1, 84, 168; premise)",
-        f"{sum(same)}/3 the same", "3/3", "man packbook: flights.report_json", all(same))
+        f"{sum(same)}/3 the same", "3/3", "man packbook: flight_reports.report_json", all(same))
     checked = sorted(cycles)
     ran = [n for n in checked if n in docs]
     cov = f"{len(ran)}/{len(checked)} cycles"

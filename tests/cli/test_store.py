@@ -240,7 +240,7 @@ class Migrations(unittest.TestCase):
         self.assertEqual(scalar(db, "PRAGMA user_version"), self.current,
                          "user_version = number of steps in migrations[]")
         names = {r[0] for r in query(db, "SELECT name FROM sqlite_master")}
-        for t in ("packs", "flights", "flight_cells", "flights_by_pack_time"):
+        for t in ("packs", "flights", "flight_cells", "flights_by_pack_time", "flight_reports"):
             self.assertIn(t, names)
         self.assertEqual(query(db, "PRAGMA integrity_check"), [("ok",)])
         self.assertEqual(scalar(db, "PRAGMA journal_mode"), "wal")
@@ -277,7 +277,10 @@ class Migrations(unittest.TestCase):
                     "'2025-09-02T09:00:00Z', 600, 2500, 17.5, 4900, 0, ?)", (report,))
         con.commit()
         packs = con.execute("SELECT * FROM packs").fetchall()
-        flights = con.execute("SELECT * FROM flights").fetchall()
+        # the flight's columns by name: schema 6 moves report_json to flight_reports
+        cur = con.execute("SELECT * FROM flights")
+        names = [d[0] for d in cur.description]
+        flights = [dict(zip(names, r)) for r in cur.fetchall()]
         con.close()
         return packs, flights
 
@@ -287,8 +290,15 @@ class Migrations(unittest.TestCase):
         # the old rows, column by column, are still there (new columns come after)
         self.assertEqual([r[:len(packs[0])] for r in query(db, "SELECT * FROM packs")][
             :len(packs)], packs)
-        self.assertEqual([r[:len(flights[0])] for r in query(db, "SELECT * FROM flights")],
-                         flights)
+        con = sqlite3.connect(db)
+        try:
+            cur = con.execute("SELECT f.*, r.report_json FROM flights f JOIN flight_reports r "
+                              "ON r.flight_id = f.id ORDER BY f.id")
+            names = [d[0] for d in cur.description]
+            now = [dict(zip(names, r)) for r in cur.fetchall()]
+        finally:
+            con.close()
+        self.assertEqual([{k: r[k] for k in flights[0]} for r in now], flights)
         rc, out, err = pb(db, "pack", "show", "TM-07", "--json")
         self.assertEqual(rc, EXIT_OK, err)
         doc = json.loads(out)
@@ -395,7 +405,8 @@ class Reimport(unittest.TestCase):
         # what is stored is what analyze says with the pack's cells, chemistry and capacity
         doc = analyze_json(a, "--cells", 4, "--chemistry", "lipo", "--capacity", 5000)
         r0, cap, charge, js = query(db, "SELECT r0_mohm, capacity_mah, charge_used_mah, "
-                                        "report_json FROM flights")[0]
+                                        "report_json FROM flights f JOIN flight_reports r "
+                                        "ON r.flight_id = f.id")[0]
         stored = json.loads(js)
         for key in ("r0_mohm", "capacity_est_mah", "charge_used_mah", "soc_start_pct"):
             self.assertEqual(stored[key], doc[key], key)
@@ -533,6 +544,30 @@ class Concurrency(unittest.TestCase):
         self.assertEqual((imported, already), (24, 24))
         self._check(db, 24)
 
+    def test_workers_store_what_one_thread_stores(self):
+        # import -j N analyses in N threads while one writes: the same flights (every column,
+        # the report included), the same lines in the same order, as -j 1
+        rows, outs = [], []
+        for jobs in (1, 2, 3):
+            db = os.path.join(newdir(self, f"jobs{jobs}"), "j.db")
+            add_pack(self, db, "TM-J")
+            rc, out, err = pb(db, "import", "-j", jobs, "--pack", "TM-J", self.sets["A"],
+                              self.sets["B"])
+            self.assertEqual(rc, EXIT_OK, err)
+            self.assertIn("24 imported, 0 already there, 0 failed", out)
+            self._check(db, 24)
+            outs.append(out)
+            rows.append(query(db, "SELECT pack_id, content_hash, source, flown_epoch_s, "
+                                  "r0_mohm, charge_used_mah, report_json FROM flights f JOIN "
+                                  "flight_reports r ON r.flight_id = f.id ORDER BY f.id"))
+        self.assertEqual(outs[1], outs[0])
+        self.assertEqual(outs[2], outs[0])
+        self.assertEqual(rows[1], rows[0])
+        self.assertEqual(rows[2], rows[0])
+        rc, out, err = pb(db, "import", "--jobs", 0, "--pack", "TM-J", self.sets["A"])
+        self.assertEqual(rc, EXIT_USAGE)
+        self.assertIn("--jobs: expected a count from 1 to 64, got '0'", err)
+
     def test_two_pack_adds_on_a_new_db(self):
         # both processes find no schema: one migrates, the other must wait and see it
         for rnd in range(5):
@@ -584,7 +619,7 @@ class KillDuringImport(unittest.TestCase):
             self.assertEqual(n, nh, f"{label}: flights = distinct content hashes")
             for fid, h, src, r0, cap, js in con.execute(
                     "SELECT id, content_hash, source, r0_mohm, capacity_mah, report_json "
-                    "FROM flights"):
+                    "FROM flights f LEFT JOIN flight_reports r ON r.flight_id = f.id"):
                 self.assertIn(h, self.ref, f"{label}: a flight no import produced")
                 self.assertEqual((src, r0, cap), self.ref[h], f"{label}: flight {fid} differs")
                 self.assertTrue(js, f"{label}: flight {fid} has no report_json")

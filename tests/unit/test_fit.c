@@ -112,12 +112,49 @@ static void test_too_few_rows(void **state)
     free(d.x), free(d.y);
 }
 
+static int cmp_d(const void *a, const void *b)
+{
+    double x = *(const double *)a, y = *(const double *)b;
+    return (x > y) - (x < y);
+}
+
+/* fit_median against the definition (sort, middle element or the mean of
+ * the two middle ones), exact: on random data with many ties (a log's
+ * sampling intervals), all-equal data and both parities. Seed printed. */
+static void test_median_is_the_sorted_middle(void **state)
+{
+    (void)state;
+    unsigned seed = 1414;
+    print_message("seed %u\n", seed);
+    srand(seed);
+    for (int trial = 0; trial < 200; trial++) {
+        size_t n = 1 + (size_t)(rand() % 3000);
+        int distinct = 1 + rand() % (trial % 3 == 0 ? 2 : 500);
+        double *a = malloc(n * sizeof *a), *b = malloc(n * sizeof *b);
+        assert_non_null(a);
+        assert_non_null(b);
+        for (size_t k = 0; k < n; k++)
+            a[k] = b[k] = 0.1 * (rand() % distinct) - 3.0;
+        qsort(b, n, sizeof *b, cmp_d);
+        double want = n % 2 ? b[n / 2] : 0.5 * (b[n / 2 - 1] + b[n / 2]);
+        assert_true(fit_median(a, n) == want);
+        free(a);
+        free(b);
+    }
+    /* no values: 0, as gsl_stats_median gives (a one-sample log's intervals) */
+    double none[1] = {42.0};
+    assert_true(fit_median(none, 0) == 0.0);
+}
+
 int main(void)
 {
     gsl_set_error_handler_off();
     const struct CMUnitTest tests[] = {
-        cmocka_unit_test(test_exact),           cmocka_unit_test(test_slope_se),
-        cmocka_unit_test(test_robust_outliers), cmocka_unit_test(test_rank_deficient),
+        cmocka_unit_test(test_median_is_the_sorted_middle),
+        cmocka_unit_test(test_exact),
+        cmocka_unit_test(test_slope_se),
+        cmocka_unit_test(test_robust_outliers),
+        cmocka_unit_test(test_rank_deficient),
         cmocka_unit_test(test_too_few_rows),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);

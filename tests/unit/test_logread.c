@@ -10,6 +10,8 @@
 #include <string.h>
 
 #include <cmocka.h>
+#include <dirent.h>
+#include <sys/stat.h>
 
 #include "logread.h"
 #include "testutil.h"
@@ -381,6 +383,129 @@ static void test_field_too_long(void **state)
     free(text);
 }
 
+/* ---- the fast path and libcsv read the same ---------------------------- */
+
+static int same_doubles(const double *a, const double *b, size_t n)
+{
+    return (!a && !b) || (a && b && memcmp(a, b, n * sizeof *a) == 0);
+}
+
+/* Reads text both ways (plain lines split by the reader itself, or every
+ * line through libcsv) and fails unless the series, the counted events
+ * and the error are the same bit for bit. */
+static void check_paths_agree(const char *text, size_t len, const char *what,
+                              const struct logread_opts *base)
+{
+    struct logread_opts o[2] = {*base, *base};
+    o[1].no_fast_path = 1;
+    struct logread_stats st[2];
+    struct pb_error err[2] = {{0}, {0}};
+    struct series *s[2];
+    for (int k = 0; k < 2; k++) {
+        FILE *fp = fmemopen((void *)text, len, "r");
+        assert_non_null(fp);
+        s[k] = logread_file(fp, "f.csv", &o[k], &st[k], &err[k]);
+        fclose(fp);
+    }
+    if (memcmp(&st[0], &st[1], sizeof st[0]) != 0 || strcmp(err[0].msg, err[1].msg) != 0 ||
+        err[0].code != err[1].code || !s[0] != !s[1])
+        fail_msg("%s: the two read paths differ (%s | %s)", what, err[0].msg, err[1].msg);
+    if (s[0]) {
+        const struct series *a = s[0], *b = s[1];
+        int same = a->n == b->n && a->ncells == b->ncells && a->nseg == b->nseg &&
+                   a->has_epoch == b->has_epoch && a->start_epoch_s == b->start_epoch_s &&
+                   same_doubles(a->t_s, b->t_s, a->n) && same_doubles(a->v_v, b->v_v, a->n) &&
+                   same_doubles(a->i_a, b->i_a, a->n) && same_doubles(a->temp_c, b->temp_c, a->n) &&
+                   memcmp(a->line, b->line, a->n * sizeof *a->line) == 0 &&
+                   (a->nseg == 0 ||
+                    memcmp(a->seg_start, b->seg_start, a->nseg * sizeof *a->seg_start) == 0);
+        for (int c = 0; same && c < a->ncells; c++)
+            same = same_doubles(a->cell_v[c], b->cell_v[c], a->n);
+        if (!same)
+            fail_msg("%s: the two read paths give different series", what);
+    }
+    series_free(s[0]);
+    series_free(s[1]);
+}
+
+static size_t check_dir(const char *dir)
+{
+    size_t files = 0;
+    DIR *d = opendir(dir);
+    if (!d)
+        fail_msg("cannot open %s", dir);
+    struct dirent *e;
+    while ((e = readdir(d))) {
+        if (e->d_name[0] == '.')
+            continue;
+        char path[4096];
+        snprintf(path, sizeof path, "%s/%s", dir, e->d_name);
+        struct stat sb;
+        if (stat(path, &sb) != 0)
+            continue;
+        if (S_ISDIR(sb.st_mode)) {
+            files += check_dir(path);
+            continue;
+        }
+        FILE *fp = fopen(path, "rb");
+        assert_non_null(fp);
+        char *text = malloc((size_t)sb.st_size + 1);
+        assert_non_null(text);
+        size_t len = fread(text, 1, (size_t)sb.st_size, fp);
+        fclose(fp);
+        if (len > 0) {
+            /* as the CLI reads them, and with a pack's cells and rating (glitch limits) */
+            struct logread_opts plain = {0}, rated = {.cells = 4, .rated_mah = 5000};
+            check_paths_agree(text, len, path, &plain);
+            check_paths_agree(text, len, path, &rated);
+            files++;
+        }
+        free(text);
+    }
+    closedir(d);
+    return files;
+}
+
+static void test_fast_path_same_on_every_file(void **state)
+{
+    (void)state;
+    size_t files = check_dir(TEST_DATA_DIR) + check_dir(TEST_DATA_DIR "/../../samples");
+    print_message("fast path and libcsv agree on %zu files\n", files);
+    assert_true(files > 50);
+}
+
+/* A log longer than the reader's 1 MiB block, with every kind of line the
+ * fast path hands to libcsv (quotes, a quoted line break, spaces, CR LF,
+ * a lone CR, blank lines, comments), so lines are cut by the block's end
+ * in each state. */
+static void test_fast_path_same_across_blocks(void **state)
+{
+    (void)state;
+    static const char *odd[] = {
+        "\"%d.5\",16.1,2\n", "%d.5, 16.1 ,2\n",     "%d.5,16.1,2\r\n", "%d.5,16.1,2\r", "\n",
+        "# note %d\n",       "%d.5,\"16\n.1\",2\n", "%d.5,16.1\n",     "%d.5,x,2,9\n"};
+    size_t cap = 3u << 20, len = 0;
+    char *text = malloc(cap);
+    assert_non_null(text);
+    len += (size_t)snprintf(text, cap, "time_s,voltage_v,current_a\n");
+    unsigned seed = 14;
+    for (int k = 1; len + 64 < cap; k++) {
+        seed = seed * 1103515245u + 12345u;
+        unsigned pick = (seed >> 16) % 40;
+        if (pick < (sizeof odd / sizeof *odd))
+            len += (size_t)snprintf(text + len, cap - len, odd[pick], k);
+        else
+            len += (size_t)snprintf(text + len, cap - len, "%d.25,%.3f,%.2f\n", k, 16.0 - k * 1e-6,
+                                    1.0 + (double)(pick % 7));
+    }
+    struct logread_opts o = {0};
+    check_paths_agree(text, len, "generated 3 MiB log", &o);
+    /* the same cut at every length near a block boundary */
+    for (size_t cut = (1u << 20) - 40; cut < (1u << 20) + 40; cut += 7)
+        check_paths_agree(text, cut, "generated log cut short", &o);
+    free(text);
+}
+
 static void test_clock_time_and_ignored_names(void **state)
 {
     (void)state;
@@ -450,6 +575,8 @@ int main(void)
         cmocka_unit_test(test_cells_and_sign),
         cmocka_unit_test(test_adc_sense_chain),
         cmocka_unit_test(test_field_too_long),
+        cmocka_unit_test(test_fast_path_same_on_every_file),
+        cmocka_unit_test(test_fast_path_same_across_blocks),
         cmocka_unit_test(test_clock_time_and_ignored_names),
         cmocka_unit_test(test_date_and_time_columns),
     };
