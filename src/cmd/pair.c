@@ -14,23 +14,28 @@
 #include "packview.h"
 
 static const char usage[] =
-    "usage: packbook pack pair [--json] [--db PATH]\n"
+    "usage: packbook pack pair [--method optimal|greedy] [--json] [--db PATH]\n"
     "       packbook pack pair ID ID [--db PATH]\n"
     "       packbook pack unpair ID [--db PATH]\n"
     "\n"
     "For aircraft that fly two packs in series or parallel. Without IDs: the\n"
     "registered pairs with how well they match now, then proposed pairs among\n"
-    "the other packs in service (same chemistry and cell count; the closest in\n"
-    "capacity and R0 per cell first, greedy). Mismatch d = sqrt((dC / 5 %)^2 +\n"
+    "the other packs in service (same chemistry and cell count), with their\n"
+    "total d. --method optimal (the default): the least total d, exact up to\n"
+    "20 packs of a chemistry and cell count (above that exact when the\n"
+    "Hungarian method's cover splits into pairs, else greedy with the least\n"
+    "possible total shown); greedy: the closest pair first, then the closest\n"
+    "among the packs left. Mismatch d = sqrt((dC / 5 %)^2 +\n"
     "(dR / 15 %)^2) of the pair's mean: d <= 1 is within the limits. With two\n"
     "IDs: registers them as a pair (fleet keeps them together and warns when\n"
     "they drift beyond the limits). unpair removes a pack's pair.\n";
 
-enum { PP_JSON = 256, PP_DB };
+enum { PP_JSON = 256, PP_DB, PP_METHOD };
 
 static const struct option longopts[] = {
     {"json", no_argument, NULL, PP_JSON},
     {"db", required_argument, NULL, PP_DB},
+    {"method", required_argument, NULL, PP_METHOD},
     {"help", no_argument, NULL, 'h'},
     {NULL, 0, NULL, 0},
 };
@@ -131,7 +136,7 @@ static json_t *match_obj(const struct pair_match *m, const struct pack_view *v)
                      "within_limits", m->distance <= 1.0);
 }
 
-static enum pb_code show(struct store *st, int json, struct pb_error *err)
+static enum pb_code show(struct store *st, int json, enum pair_method method, struct pb_error *err)
 {
     struct health_rules rules;
     health_rules_default(&rules);
@@ -148,6 +153,7 @@ static enum pb_code show(struct store *st, int json, struct pb_error *err)
         rc = packview_pairs(st, views, nv, err);
     size_t nreg = 0;
     int nprop = 0;
+    struct pair_plan plan = {0};
     if (rc == PB_OK) {
         for (size_t k = 0; k < nv; k++) {
             to_pair_pack(&views[k], &pp[k]);
@@ -161,7 +167,7 @@ static enum pb_code show(struct store *st, int json, struct pb_error *err)
             if (j < nv && j > k && pairs_distance(pp, k, j, &reg[nreg]) == 0)
                 nreg++;
         }
-        nprop = pairs_propose(pp, nv, usable, prop);
+        nprop = pairs_plan(pp, nv, usable, method, prop, &plan);
         if (nprop < 0)
             rc = pb_error_set(err, PB_ENOMEM, "out of memory");
     }
@@ -171,8 +177,11 @@ static enum pb_code show(struct store *st, int json, struct pb_error *err)
             json_array_append_new(r, match_obj(&reg[k], views));
         for (int k = 0; k < nprop; k++)
             json_array_append_new(p, match_obj(&prop[k], views));
-        json_t *o = json_pack("{s:o, s:o, s:f, s:f}", "registered", r, "proposed", p,
-                              "limit_capacity_pct", PAIR_CAPACITY_PCT, "limit_r0_pct", PAIR_R0_PCT);
+        json_t *o =
+            json_pack("{s:o, s:o, s:s, s:o, s:o, s:b, s:f, s:f}", "registered", r, "proposed", p,
+                      "method", pairs_method_name(method), "total_distance", jout_num(plan.total),
+                      "least_possible_total", jout_num(plan.lower_bound), "optimal", plan.exact,
+                      "limit_capacity_pct", PAIR_CAPACITY_PCT, "limit_r0_pct", PAIR_R0_PCT);
         if (jout_write(stdout, o) != 0)
             rc = pb_error_set(err, PB_EOUTPUT, "cannot write the output");
     } else if (rc == PB_OK) {
@@ -182,7 +191,16 @@ static enum pb_code show(struct store *st, int json, struct pb_error *err)
             print_match(&reg[k], views);
         if (nreg == 0)
             printf("  (none: packbook pack pair ID ID)\n");
-        printf("proposed pairs (closest first, greedy):\n");
+        if (method == PAIR_GREEDY)
+            printf("proposed pairs (greedy: the closest pair first), total d %.2f%s:\n", plan.total,
+                   plan.exact ? ", the least possible" : "");
+        else if (plan.groups_greedy == 0)
+            printf("proposed pairs (optimal: the least total d), total d %.2f:\n", plan.total);
+        else
+            printf("proposed pairs (optimal where proven, greedy in %zu group%s of over %d "
+                   "packs), total d %.2f, the least possible at least %.2f:\n",
+                   plan.groups_greedy, plan.groups_greedy == 1 ? "" : "s", PAIR_EXACT_MAX,
+                   plan.total, plan.lower_bound);
         for (int k = 0; k < nprop; k++)
             print_match(&prop[k], views);
         if (nprop == 0)
@@ -200,6 +218,7 @@ static enum pb_code show(struct store *st, int json, struct pb_error *err)
 enum pb_code cmd_pack_pair(int argc, char **argv, struct pb_error *err)
 {
     const char *db = NULL;
+    enum pair_method method = PAIR_OPTIMAL;
     int json = 0, c, unpair = strcmp(argv[0], "unpair") == 0;
     optind = 1;
     opterr = 0;
@@ -210,6 +229,15 @@ enum pb_code cmd_pack_pair(int argc, char **argv, struct pb_error *err)
             break;
         case PP_DB:
             db = optarg;
+            break;
+        case PP_METHOD:
+            if (strcmp(optarg, "optimal") == 0)
+                method = PAIR_OPTIMAL;
+            else if (strcmp(optarg, "greedy") == 0)
+                method = PAIR_GREEDY;
+            else
+                return pb_error_set(err, PB_EUSAGE,
+                                    "pack pair: --method '%s': expected optimal or greedy", optarg);
             break;
         case 'h':
             fputs(usage, stdout);
@@ -252,7 +280,7 @@ enum pb_code cmd_pack_pair(int argc, char **argv, struct pb_error *err)
                    utf8_printable((char[4 * 128 + 4]){0}, 4 * 128 + 4, a.label),
                    utf8_printable((char[4 * 128 + 4]){0}, 4 * 128 + 4, b.label));
     } else if (rc == PB_OK) {
-        rc = show(st, json, err);
+        rc = show(st, json, method, err);
     }
     if (rc == PB_OK)
         rc = cmd_finish_stdout(err);

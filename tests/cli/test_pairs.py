@@ -8,10 +8,17 @@ Expected (from the simulator's truth and pairs.h's limits: capacity within 5 %, 
 the proposals pair the 5000 with the 4950 and the 4200 with the 4150 (about 1 % apart, d well
 under 1) and never the LiHV pack; the 5000 registered with the 4200 (17 % apart) is beyond the
 limits, so fleet names the drift for both and shows them one after the other.
+
+The default method is optimal: its total d is checked against every possible pairing of the packs,
+enumerated here from pairs.h's formula and fleet --json's capacity and R0 per cell (tolerance
+1e-7 relative: JSON carries 10 significant digits); --method greedy is never better, and the text output names the
+method and the total.
 """
 import concurrent.futures
 import datetime
+import itertools
 import json
+import math
 import os
 import subprocess
 import sys
@@ -30,6 +37,24 @@ def sim(path, seed, cells, chem, cap, start):
             "--hover-a", 20, "--duration-s", 540, "--rate-hz", 1, "--start-epoch",
             int(start.timestamp()), "--format", "epoch"]
     subprocess.run([str(a) for a in args], check=True, capture_output=True)
+
+
+def distance(x, y):
+    """pairs.h: d of two packs (rated 5000 mAh each here) from fleet --json's values."""
+    ca, cb = x["capacity_pct"] * 50.0, y["capacity_pct"] * 50.0
+    dc = 100.0 * abs(ca - cb) / (0.5 * (ca + cb))
+    ra, rb = x["r0_mohm_per_cell"], y["r0_mohm_per_cell"]
+    dr = 100.0 * abs(ra - rb) / (0.5 * (ra + rb)) if ra and rb else 0.0
+    return math.hypot(dc / 5.0, dr / 15.0)
+
+
+def best_total(packs):
+    """The least total d over every pairing of an even list of packs (enumerated)."""
+    if not packs:
+        return 0.0
+    first, rest = packs[0], packs[1:]
+    return min(distance(first, rest[j]) + best_total(rest[:j] + rest[j + 1:])
+               for j in range(len(rest)))
 
 
 def main():
@@ -61,6 +86,22 @@ def main():
     assert got == [("PA-1", "PA-2"), ("PB-1", "PB-2")], got
     assert all(p["within_limits"] for p in doc["proposed"]), doc
     assert doc["registered"] == []
+    assert doc["method"] == "optimal" and doc["optimal"], doc
+    assert abs(doc["total_distance"] - sum(p["distance"] for p in doc["proposed"])) < 1e-7, doc
+    rc, out, err = run("fleet", "--json", "--db", db)
+    assert rc == 0, err
+    lipo = [p for p in json.loads(out) if p["id"] != "PC-1"]
+    opt = best_total(lipo)
+    print(f"optimal total d {doc['total_distance']:.6f}, by enumeration {opt:.6f}")
+    assert abs(doc["total_distance"] - opt) <= 1e-7 * max(1.0, opt), (doc, opt)
+    rc, out, err = run("pack", "pair", "--json", "--method", "greedy", "--db", db)
+    assert rc == 0, err
+    greedy = json.loads(out)
+    assert greedy["method"] == "greedy" and greedy["total_distance"] >= opt - 1e-7, greedy
+    rc, out, err = run("pack", "pair", "--db", db)
+    assert rc == 0 and "optimal: the least total d), total d " in out, out
+    rc, out, err = run("pack", "pair", "--method", "closest", "--db", db)
+    assert rc == EXIT_USAGE and "expected optimal or greedy" in err, (rc, err)
 
     # usage errors: another chemistry, itself, a pack paired already
     rc, out, err = run("pack", "pair", "PA-1", "PC-1", "--db", db)
