@@ -16,5 +16,6 @@ $pb plot samples/tm12-cells.csv --chemistry lihv --capacity 4200 --size 1400x110
 PACKBOOK_DB="$tmp/season.db" /usr/bin/python3 scripts/make-season.py --import --packbook "$pb" \
     "$tmp/season" >/dev/null
 PACKBOOK_DB="$tmp/season.db" $pb plot trend TM-03 --size 1400x900 -o "$out/trend-tm03.png"
+PACKBOOK_DB="$tmp/season.db" $pb pack pair TM-01 TM-05 >/dev/null # a registered pair, drawn joined
 PACKBOOK_DB="$tmp/season.db" $pb plot fleet --size 1200x850 \
     --title "Tallowmere Survey Co-operative - fleet health" -o "$out/fleet.png"

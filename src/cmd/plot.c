@@ -33,7 +33,8 @@ static const char usage_head[] =
     "           retirement levels and the projected crossing; against cycles also\n"
     "           the chosen fade model and where to plan for (see packbook trend)\n"
     "  fleet    every pack in service (--all: and retired) at capacity % against\n"
-    "           R0 change from its baseline, by status, packs needing attention named\n"
+    "           R0 change from its baseline, by status, every pack labelled (those\n"
+    "           needing attention with why), registered pairs joined by a line\n"
     "\n"
     "figure:\n"
     "  -o, --output FILE      the figure: FILE.png, FILE.svg or FILE.pdf (required)\n"
@@ -320,6 +321,8 @@ static enum pb_code plot_history(const struct plot_cli *cli, const char *id, str
         return rc;
     }
     rc = packview_load_fleet(st, &cli->rules, cli->all, NULL, NULL, NULL, &views, &nv, err);
+    if (rc == PB_OK) /* registered pairs, drawn joined; a drifted pair is a flag */
+        rc = packview_pairs(st, views, nv, err);
     if (rc == PB_OK)
         rc = plot_fleet(cli->out, &cli->fig, views, nv, &cli->rules, err);
     packview_free_all(views, nv);

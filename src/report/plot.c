@@ -30,6 +30,10 @@ struct plot {
     FILE *tmp;           /* its stream */
     int write_failed;
     char *path;
+    double ref_box[4]; /* the last reference-line label drawn (plot_ref_label_box) */
+    int has_ref_box;
+    struct plot_label *labels; /* plot_label's, for the axes map */
+    size_t nlabels, cap_labels;
 };
 
 static int live_plots; /* plots not yet freed: the last one releases the font caches */
@@ -174,6 +178,9 @@ void plot_free(struct plot *p)
     }
     outfile_discard(p->out); /* NULL once finished */
     free(p->path);
+    for (size_t k = 0; k < p->nlabels; k++)
+        free(p->labels[k].text);
+    free(p->labels);
     free(p);
     if (live_plots == 0) {
         /* cairo's and fontconfig's caches live for the process; the tool
@@ -301,6 +308,86 @@ static void text_halo(struct plot *p, double fx, double fy, int anchor, double s
     set_rgb(p, text_rgb(rgb), 1);
     cairo_show_text(p->cr, text);
     cairo_restore(p->cr);
+}
+
+/* The ink box of text drawn from baseline fy with anchor, widened by the
+ * halo: box[4] = left, top, right, bottom. */
+static void text_box(struct plot *p, double fx, double fy, int anchor, double size,
+                     const char *text, double box[4])
+{
+    cairo_text_extents_t e;
+    set_font(p, size, 0);
+    cairo_text_extents(p->cr, text, &e);
+    double x = fx - (anchor == 1 ? e.x_advance / 2 : anchor == 2 ? e.x_advance : 0);
+    double halo = size * 0.15;
+    box[0] = x + fmin(e.x_bearing, 0.0) - halo;
+    box[1] = fy + e.y_bearing - halo;
+    box[2] = x + fmax(e.x_bearing + e.width, e.x_advance) + halo;
+    box[3] = fy + e.y_bearing + e.height + halo;
+}
+
+static void note_ref_box(struct plot *p, double fx, double fy, int anchor, double size,
+                         const char *text)
+{
+    text_box(p, fx, fy, anchor, size, text, p->ref_box);
+    p->has_ref_box = 1;
+}
+
+int plot_ref_label_box(const struct plot *p, double box[4])
+{
+    if (!p->has_ref_box)
+        return -1;
+    for (int k = 0; k < 4; k++)
+        box[k] = p->ref_box[k];
+    return 0;
+}
+
+void plot_label_box(struct plot *p, double fx, double fy, double size, const char *text,
+                    double box[4])
+{
+    text_box(p, fx, fy, 0, size, text, box);
+}
+
+int plot_label(struct plot *p, double fx, double fy, double size, uint32_t rgb, const char *text,
+               double mark_x, double mark_y, const double leader[4])
+{
+    if (leader) {
+        static const struct plot_style st = {PLOT_GREY, 0.9, DASH_SOLID, 0};
+        set_style(p, &st);
+        cairo_move_to(p->cr, leader[0], leader[1]);
+        cairo_line_to(p->cr, leader[2], leader[3]);
+        cairo_stroke(p->cr);
+    }
+    text_halo(p, fx, fy, 0, size, rgb, text);
+    if (p->nlabels == p->cap_labels) {
+        size_t cap = p->cap_labels ? 2 * p->cap_labels : 16;
+        struct plot_label *l = realloc(p->labels, cap * sizeof *l);
+        if (!l)
+            return -1;
+        p->labels = l;
+        p->cap_labels = cap;
+    }
+    struct plot_label *l = &p->labels[p->nlabels];
+    l->text = strdup(text);
+    if (!l->text)
+        return -1;
+    text_box(p, fx, fy, 0, size, text, l->box);
+    l->mark_x = mark_x;
+    l->mark_y = mark_y;
+    l->has_leader = leader != NULL;
+    for (int k = 0; k < 4; k++)
+        l->leader[k] = leader ? leader[k] : 0.0;
+    p->nlabels++;
+    return 0;
+}
+
+void plot_segment(struct plot *p, double fx0, double fy0, double fx1, double fy1,
+                  const struct plot_style *st)
+{
+    set_style(p, st);
+    cairo_move_to(p->cr, fx0, fy0);
+    cairo_line_to(p->cr, fx1, fy1);
+    cairo_stroke(p->cr);
 }
 
 /* ---- axes ---------------------------------------------------------------- */
@@ -689,6 +776,7 @@ void plot_hline(struct plot *p, const struct plot_panel *pa, double y, const str
                 const char *label, int label_left)
 {
     double fy = plot_py(pa, y);
+    p->has_ref_box = 0;
     if (!(fy >= pa->y0 && fy <= pa->y1))
         return;
     clip_panel(p, pa);
@@ -701,8 +789,9 @@ void plot_hline(struct plot *p, const struct plot_panel *pa, double y, const str
         double fs = p->font * 0.8;
         /* above the line unless that leaves the plot area */
         double by = fy - fs * 0.45 - fs > pa->y0 ? fy - fs * 0.45 : fy + fs * 1.15;
-        text_halo(p, label_left ? pa->x0 + p->font * 0.4 : pa->x1 - p->font * 0.4, by,
-                  label_left ? 0 : 2, fs, st->rgb, label);
+        double tx = label_left ? pa->x0 + p->font * 0.4 : pa->x1 - p->font * 0.4;
+        text_halo(p, tx, by, label_left ? 0 : 2, fs, st->rgb, label);
+        note_ref_box(p, tx, by, label_left ? 0 : 2, fs, label);
     }
 }
 
@@ -710,6 +799,7 @@ void plot_vline(struct plot *p, const struct plot_panel *pa, double x, const str
                 const char *label)
 {
     double fx = plot_px(pa, x);
+    p->has_ref_box = 0;
     if (!(fx >= pa->x0 && fx <= pa->x1))
         return;
     clip_panel(p, pa);
@@ -723,8 +813,9 @@ void plot_vline(struct plot *p, const struct plot_panel *pa, double x, const str
         double w = plot_text_width(p, label, fs, 0);
         /* to the left of the line when it would run off the right edge */
         int anchor = fx + fs * 0.4 + w > pa->x1 ? 2 : 0;
-        text_halo(p, anchor ? fx - fs * 0.4 : fx + fs * 0.4, pa->y0 + fs * 1.3, anchor, fs, st->rgb,
-                  label);
+        double tx = anchor ? fx - fs * 0.4 : fx + fs * 0.4;
+        text_halo(p, tx, pa->y0 + fs * 1.3, anchor, fs, st->rgb, label);
+        note_ref_box(p, tx, pa->y0 + fs * 1.3, anchor, fs, label);
     }
 }
 
@@ -972,6 +1063,27 @@ static int plot_axes_json(FILE *out, const struct plot *p, const struct plot_pan
         if (!o || json_array_append_new(arr, o) != 0) {
             json_decref(root);
             return -1;
+        }
+    }
+    if (p->nlabels) {
+        json_t *labels = json_array();
+        if (!labels || json_object_set_new(root, "labels", labels) != 0) {
+            json_decref(root);
+            return -1;
+        }
+        for (size_t k = 0; k < p->nlabels; k++) {
+            const struct plot_label *l = &p->labels[k];
+            json_t *o = json_pack("{s:s, s:f, s:f, s:f, s:f, s:f, s:f}", "text", l->text, "left",
+                                  l->box[0], "top", l->box[1], "right", l->box[2], "bottom",
+                                  l->box[3], "mark_x", l->mark_x, "mark_y", l->mark_y);
+            if (o && l->has_leader)
+                json_object_set_new(o, "leader",
+                                    json_pack("[f, f, f, f]", l->leader[0], l->leader[1],
+                                              l->leader[2], l->leader[3]));
+            if (!o || json_array_append_new(labels, o) != 0) {
+                json_decref(root);
+                return -1;
+            }
         }
     }
     int rc = json_dumpf(root, out, JSON_INDENT(2) | JSON_REAL_PRECISION(12));

@@ -189,6 +189,35 @@ void plot_margins(struct plot *p, const struct plot_panel *pa, size_t n, double 
 int plot_text_wrap(struct plot *p, double fx, double fy, double width_px, double size,
                    int max_lines, uint32_t rgb, const char *text);
 
+/* A label recorded for the axes map ("labels": text, its ink box with the
+ * halo, the point it names and the leader line from it, if any). */
+struct plot_label {
+    char *text;
+    double box[4]; /* left, top, right, bottom */
+    double mark_x, mark_y;
+    double leader[4]; /* x0, y0, x1, y1 when has_leader */
+    int has_leader;
+};
+
+/* Text at baseline (fx, fy), left-anchored, on a white halo, naming the
+ * point (mark_x, mark_y); leader (x0, y0, x1, y1) or NULL: a thin grey line
+ * drawn first. Recorded for the axes map. Returns 0, or -1 out of memory. */
+int plot_label(struct plot *p, double fx, double fy, double size, uint32_t rgb, const char *text,
+               double mark_x, double mark_y, const double leader[4]);
+
+/* The box plot_label would record for the text at (fx, fy): left, top,
+ * right, bottom of its ink with the halo. */
+void plot_label_box(struct plot *p, double fx, double fy, double size, const char *text,
+                    double box[4]);
+
+/* The box of the label the last plot_hline or plot_vline drew; 0, or -1
+ * when none has drawn one. */
+int plot_ref_label_box(const struct plot *p, double box[4]);
+
+/* A straight line in figure coordinates. */
+void plot_segment(struct plot *p, double fx0, double fy0, double fx1, double fy1,
+                  const struct plot_style *st);
+
 /* t with "mOhm" written "m\u03a9" into buf (cut to cap): figures draw the symbol
  * whatever the terminal (reasons come from the core in plain ASCII). */
 void plot_ohm_text(const char *t, char *buf, size_t cap);

@@ -1003,6 +1003,18 @@ class History(FigureChecks, unittest.TestCase):
                 self.assertTrue(near(green, fx, fy, 2),
                                 f"{pid}: no ok mark at ({fx:.0f}, {fy:.0f})")
             self.assertGreater(looked, 10, "ok packs looked at")
+            # labels (plot_fleet tries every pack; a crowd of 99 leaves some without room,
+            # named under the plot): inside the panel and never on one another
+            labels = m.get("labels", [])
+            print(f"fleet of {len(pts)} placed packs: {len(labels)} labelled")
+            self.assertGreater(len(labels), 20, "labels drawn")
+            boxes = [(q["left"], q["top"], q["right"], q["bottom"]) for q in labels]
+            for i, a in enumerate(boxes):
+                self.assertTrue(pan["left"] <= a[0] and a[2] <= pan["right"], labels[i])
+                self.assertTrue(pan["top"] <= a[1] and a[3] <= pan["bottom"], labels[i])
+                for b in boxes[i + 1:]:
+                    self.assertFalse(a[0] < b[2] and b[0] < a[2] and a[1] < b[3] and b[1] < a[3],
+                                     (labels[i], b))
             # green: ok marks (not clipped: 10 px slack) and the legend's "ok" key
             self.assert_colour_only_in(img, GREEN, pan, 10, "the ok marks")
             for ext in ("svg", "pdf"):
@@ -1012,7 +1024,9 @@ class History(FigureChecks, unittest.TestCase):
     def test_fleet_all_draws_the_retired_pack(self):
         """--all adds the retired pack FL-050 and nothing else inside the panel: the two
         figures differ there only within 12 px of where the map puts FL-050 (a grey cross
-        about 6 px in radius), and some of those pixels are its grey #8C8C8C."""
+        about 6 px in radius), in its label's box (+2 px) or within 3 px of its leader line
+        (retired packs are labelled last, so the other labels stay put), and some of those
+        pixels are its grey #8C8C8C."""
         with tempfile.TemporaryDirectory() as d:
             self.assertNotIn("FL-050", [p["id"] for p in self.fleet_json()])
             retired = [p for p in self.placed(self.fleet_json("--all")) if p[0] == "FL-050"]
@@ -1030,8 +1044,27 @@ class History(FigureChecks, unittest.TestCase):
             self.assertGreater(len(rows), 0, "--all draws the retired pack")
             fx, fy = to_px(pan, retired[0][2], retired[0][3])
             off = int(math.ceil(pan["left"])) + SLACK, int(math.ceil(pan["top"])) + SLACK
+            own = [q for q in m1.get("labels", []) if q["text"].startswith("FL-050")]
+            self.assertEqual([q["text"] for q in m0.get("labels", []) if q not in
+                              m1.get("labels", [])], [], "the other labels stay put")
+
+            def fl050(x, y):
+                if math.hypot(x - fx, y - fy) <= 12:
+                    return True
+                for q in own:
+                    if (q["left"] - 2 <= x <= q["right"] + 2
+                            and q["top"] - 2 <= y <= q["bottom"] + 2):
+                        return True
+                    if "leader" in q:
+                        x0, y0, x1, y1 = q["leader"]
+                        t = ((x - x0) * (x1 - x0) + (y - y0) * (y1 - y0)) / max(
+                            (x1 - x0) ** 2 + (y1 - y0) ** 2, 1e-9)
+                        t = min(max(t, 0.0), 1.0)
+                        if math.hypot(x - x0 - t * (x1 - x0), y - y0 - t * (y1 - y0)) <= 3:
+                            return True
+                return False
             far = [(c + off[0], r + off[1]) for r, c in zip(rows, cols)
-                   if math.hypot(c + off[0] + 0.5 - fx, r + off[1] + 0.5 - fy) > 12]
+                   if not fl050(c + off[0] + 0.5, r + off[1] + 0.5)]
             self.assertEqual(far[:10], [], f"{len(far)} px changed away from FL-050's mark")
             grey = colour_mask(img1, GREY, EXACT)
             self.assertTrue(near(grey, fx, fy, 9), "a grey mark at FL-050")
