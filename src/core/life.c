@@ -1,5 +1,6 @@
 #include "life.h"
 
+#include <gsl/gsl_cdf.h>
 #include <gsl/gsl_errno.h>
 #include <gsl/gsl_multifit.h>
 #include <gsl/gsl_statistics_double.h>
@@ -197,7 +198,7 @@ static int holdout(enum life_model m, const double *x, const double *y, size_t n
 {
     size_t h = n / 4 > 3 ? n / 4 : 3;
     size_t origins[2] = {n - h, n - h / 2 - 1};
-    size_t nr = 0;
+    size_t nr = 0, beyond = 0;
     *ne = 0;
     for (int o = 0; o < 2; o++) {
         size_t org = origins[o];
@@ -215,9 +216,20 @@ static int holdout(enum life_model m, const double *x, const double *y, size_t n
              * the crossing is of the pack's state, not of one flight */
             if (d > 0.0)
                 scratch[nr++] = fmax(e - sigma, 0.0) / d;
+            beyond += e > sigma;
         }
     }
     *rate = MAD_SD * median_of(scratch, nr);
+    /* Growth only when the forecasts really did worse than the scatter: a
+     * flight lands beyond one sigma of a right model with probability
+     * 0.3173 (normal), so more such flights than a binomial count gives
+     * with 5 % chance (one-sided sign test; held-out errors of one fit are
+     * correlated, which lets the test pass more often: the cautious side). Without that, a few
+     * noisy held-out flights of a short history would make a growth rate that, extended over many
+     * cycles ahead, brings the early end near. */
+    if (*ne > 0 && beyond > 0 &&
+        !(gsl_cdf_binomial_Q((unsigned)beyond - 1, 0.3173, (unsigned)*ne) <= 0.05))
+        *rate = 0.0;
     memcpy(scratch, err, *ne * sizeof *err);
     *med_err = median_of(scratch, *ne);
     return isfinite(*med_err) && isfinite(*rate) ? 0 : -1;
@@ -279,6 +291,25 @@ static int project_one(enum life_model model, double med, double rate, const dou
     p->early = p->middle = p->late = NAN;
     if (fit_model(model, xs, ys, m, &p->shape, &p->scale_x, p->coef, NULL, NULL, p->cov) != 0)
         return -1;
+    /* A curve's accelerating term (the exponential's or power's amplitude,
+     * the slope change after the break) must differ from zero towards the
+     * level (Wald test, one-sided 2.5 %, its own standard error with the
+     * shape held). The shape was picked from a grid as the best fit, which
+     * makes the best of several tests: Bonferroni divides the 2.5 % by the
+     * grid's size (7 shapes: z 2.69; 12 break points: z 2.87). Curvature the
+     * history cannot tell from zero is its noise, and extrapolated it would
+     * project an early end from nothing. Such a curve takes no part (not
+     * chosen, not in the range). */
+    if (model != LIFE_LINE) {
+        size_t j = model == LIFE_BREAK ? 2 : 1;
+        double grid = model == LIFE_BREAK ? BREAK_GRID
+                      : model == LIFE_EXP ? (double)NGRID(exp_grid)
+                                          : (double)NGRID(pow_grid);
+        double z = gsl_cdf_ugaussian_Qinv(0.025 / grid);
+        double se = sqrt(fmax(p->cov[3 * j + j], 0.0));
+        if (!(sign * p->coef[j] <= -z * se))
+            return -1;
+    }
     p->past = sign * life_value(p, x_now) <= lvl;
     p->middle = first_cross(p, sign, lvl, 0.0, x_now, horizon);
     /* a model that does not reach the level projects no crossing: an early

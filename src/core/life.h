@@ -8,12 +8,17 @@
  * robust least squares (bisquare, GSL) with its shape (break point, rate,
  * power) taken from a fixed grid; the model is chosen by its held-out error
  * on the pack's own history (fitted to the earlier flights, scored on the
- * later ones: the median absolute error at two forecast origins).  Its
+ * later ones: the median absolute error at two forecast origins); a curve
+ * takes part only when its accelerating term differs from zero towards
+ * the level (one-sided Wald test at 2.5 %, Bonferroni over its shape
+ * grid), so a short noisy history projects no early end from noise. Its
  * crossing of the level is the middle of the range. Each end is where the
  * model, 1.96 standard deviations away, reaches the level; the deviation
  * joins the fit's own (its parameters' covariance, shape held) and the
  * held-out error beyond one flight's scatter as it grew per cycle ahead
- * (1.4826 x the median of (|error| - sigma)+ / cycles ahead). The range
+ * (1.4826 x the median of (|error| - sigma)+ / cycles ahead; zero unless
+ * more held-out flights miss by over sigma than a right model gives with
+ * 5 % chance, a binomial sign test). The range
  * then spans every other model whose held-out errors exceed the chosen
  * one's by no more than their standard error (paired), so which model is
  * right is part of the uncertainty. */
