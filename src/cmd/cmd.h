@@ -35,6 +35,12 @@ int cmd_parse_double(const char *opt, const char *val, double lo, double hi, dou
                      struct pb_error *err);
 int cmd_parse_int(const char *opt, const char *val, int lo, int hi, int *out, struct pb_error *err);
 
+/* The index of val among words (a NULL-terminated list) compared in any
+ * case, so --by Week and current-sign = Discharge-Negative read as written
+ * in lower case; -1 with err filled (usage: "OPT: expected a, b or c, got
+ * 'V'") when it is none of them. */
+int cmd_keyword(const char *opt, const char *val, const char *const *words, struct pb_error *err);
+
 /* The usage error for an option getopt_long did not know or that lacked
  * its value; verb names the command for the hint. */
 enum pb_code cmd_bad_option(const char *verb, int argc, char **argv, struct pb_error *err);

@@ -144,25 +144,24 @@ enum pb_code cmd_fleet(int argc, char **argv, struct app *app, struct pb_error *
         case F_CSV:
             fmt = FLEET_CSV;
             break;
-        case F_SORT:
-            if (strcmp(optarg, "status") && strcmp(optarg, "pack") && strcmp(optarg, "cycles") &&
-                strcmp(optarg, "r0") && strcmp(optarg, "r0-ratio") && strcmp(optarg, "capacity") &&
-                strcmp(optarg, "imbalance") && strcmp(optarg, "last"))
-                return pb_error_set(err, PB_EUSAGE,
-                                    "--sort: expected status, pack, cycles, r0, r0-ratio, "
-                                    "capacity, imbalance or last, got '%s'",
-                                    optarg);
-            sort_key = optarg;
+        case F_SORT: {
+            /* the canonical word, whatever the case given */
+            static const char *const keys[] = {"status",   "pack",      "cycles", "r0", "r0-ratio",
+                                               "capacity", "imbalance", "last",   NULL};
+            int k = cmd_keyword("--sort", optarg, keys, err);
+            if (k < 0)
+                return PB_EUSAGE;
+            sort_key = keys[k];
             break;
-        case F_STATUS:
-            if (strcmp(optarg, "ok") && strcmp(optarg, "watch") && strcmp(optarg, "retire") &&
-                strcmp(optarg, "retired"))
-                return pb_error_set(err, PB_EUSAGE,
-                                    "--status: expected ok, watch, retire or "
-                                    "retired, got '%s'",
-                                    optarg);
-            status = optarg;
+        }
+        case F_STATUS: {
+            static const char *const states[] = {"ok", "watch", "retire", "retired", NULL};
+            int k = cmd_keyword("--status", optarg, states, err);
+            if (k < 0)
+                return PB_EUSAGE;
+            status = states[k];
             break;
+        }
         case F_ALL:
             all = 1;
             break;

@@ -33,23 +33,20 @@ void logopts_init(struct log_cli *cli)
 
 static int parse_char_choice(const char *opt, const char *v, char *out, struct pb_error *err)
 {
-    if (strcmp(v, "comma") == 0)
-        *out = ',';
-    else if (strcmp(v, "semicolon") == 0)
-        *out = ';';
-    else if (strcmp(v, "tab") == 0)
-        *out = '\t';
-    else if (strcmp(v, "point") == 0)
-        *out = '.';
-    else if (strlen(v) == 1 && v[0] != '"' && v[0] != '\n')
+    static const char *const names[] = {"comma", "semicolon", "tab", "point", NULL};
+    static const char chars[] = {',', ';', '\t', '.'};
+    if (strlen(v) == 1 && v[0] != '"' && v[0] != '\n') {
         *out = v[0];
-    else {
+        return 0;
+    }
+    int k = cmd_keyword(opt, v, names, err);
+    if (k < 0) {
         pb_error_set(err, PB_EUSAGE,
-                     "%s: expected comma, semicolon, tab, point or one character, "
-                     "got '%s'",
-                     opt, v);
+                     "%s: expected comma, semicolon, tab, point or one character, got '%s'", opt,
+                     v);
         return -1;
     }
+    *out = chars[k];
     return 0;
 }
 
@@ -76,21 +73,17 @@ int logopts_take(int c, const char *v, struct log_cli *cli, struct pb_error *err
             bad = 1;
         }
         break;
-    case LO_SIGN:
-        if (strcmp(v, "auto") == 0)
-            cli->read.sign = SIGN_AUTO;
-        else if (strcmp(v, "discharge-positive") == 0)
-            cli->read.sign = SIGN_DISCHARGE_POSITIVE;
-        else if (strcmp(v, "discharge-negative") == 0)
-            cli->read.sign = SIGN_DISCHARGE_NEGATIVE;
-        else {
-            pb_error_set(err, PB_EUSAGE,
-                         "--current-sign: expected auto, discharge-positive or "
-                         "discharge-negative, got '%s'",
-                         v);
-            bad = 1;
-        }
+    case LO_SIGN: {
+        static const char *const signs[] = {"auto", "discharge-positive", "discharge-negative",
+                                            NULL};
+        static const enum current_sign values[] = {SIGN_AUTO, SIGN_DISCHARGE_POSITIVE,
+                                                   SIGN_DISCHARGE_NEGATIVE};
+        int k = cmd_keyword("--current-sign", v, signs, err);
+        bad = k < 0;
+        if (!bad)
+            cli->read.sign = values[k];
         break;
+    }
     case LO_ADC_SCALE:
         bad = cmd_parse_double("--adc-scale", v, -1e6, 1e6, &cli->read.adc_a_per_count, err);
         cli->read.have_adc = 1;
@@ -116,16 +109,14 @@ int logopts_take(int c, const char *v, struct log_cli *cli, struct pb_error *err
     case LO_REST:
         bad = cmd_parse_double("--rest-current", v, 0.0, 1e4, &cli->an.rest_a, err);
         break;
-    case LO_FIT:
-        if (strcmp(v, "robust") == 0)
-            cli->an.plain_fit = 0;
-        else if (strcmp(v, "ols") == 0)
-            cli->an.plain_fit = 1;
-        else {
-            pb_error_set(err, PB_EUSAGE, "--fit: expected robust or ols, got '%s'", v);
-            bad = 1;
-        }
+    case LO_FIT: {
+        static const char *const fits[] = {"robust", "ols", NULL};
+        int k = cmd_keyword("--fit", v, fits, err);
+        bad = k < 0;
+        if (!bad)
+            cli->an.plain_fit = k == 1;
         break;
+    }
     case LO_CELLS:
         bad = cmd_parse_int("--cells", v, 1, PB_MAX_CELLS, &cli->an.cells, err);
         break;

@@ -104,26 +104,22 @@ const char ruleopts_usage
 
 int trendopts_by(const char *arg, enum trend_by *by, struct pb_error *err)
 {
-    if (strcmp(arg, "week") == 0)
-        *by = TREND_WEEK;
-    else if (strcmp(arg, "month") == 0)
-        *by = TREND_MONTH;
-    else if (strcmp(arg, "cycle") == 0)
-        *by = TREND_CYCLE;
-    else {
-        pb_error_set(err, PB_EUSAGE, "--by: expected week, month or cycle, got '%s'", arg);
+    static const char *const words[] = {"week", "month", "cycle", NULL};
+    static const enum trend_by values[] = {TREND_WEEK, TREND_MONTH, TREND_CYCLE};
+    int k = cmd_keyword("--by", arg, words, err);
+    if (k < 0)
         return -1;
-    }
+    *by = values[k];
     return 0;
 }
 
 int trendopts_fit(const char *arg, int *plain, struct pb_error *err)
 {
-    if (strcmp(arg, "robust") && strcmp(arg, "ols")) {
-        pb_error_set(err, PB_EUSAGE, "--fit: expected robust or ols, got '%s'", arg);
+    static const char *const words[] = {"robust", "ols", NULL};
+    int k = cmd_keyword("--fit", arg, words, err);
+    if (k < 0)
         return -1;
-    }
-    *plain = strcmp(arg, "ols") == 0;
+    *plain = k == 1;
     return 0;
 }
 

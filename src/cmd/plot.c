@@ -145,11 +145,13 @@ static enum pb_code parse(int argc, char **argv, struct plot_cli *cli, int *done
         case P_AXES:
             cli->fig.axes_json = optarg;
             break;
-        case P_X:
-            if (strcmp(optarg, "cycles") && strcmp(optarg, "date"))
-                return pb_error_set(err, PB_EUSAGE, "--x: expected cycles or date, got '%s'",
-                                    optarg);
-            cli->by_date = strcmp(optarg, "date") == 0;
+        case P_X: {
+            static const char *const axes[] = {"cycles", "date", NULL};
+            int k = cmd_keyword("--x", optarg, axes, err);
+            if (k < 0)
+                return PB_EUSAGE;
+            cli->by_date = k == 1;
+        }
             first_history_opt = first_history_opt ? first_history_opt : "--x";
             break;
         case P_BY:
