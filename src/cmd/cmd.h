@@ -1,6 +1,7 @@
 /* cmd: one function per subcommand, called from the table in main.c.
  *
- * Adding a subcommand: (1) write src/cmd/<verb>.c with cmd_<verb>(),
+ * Adding a subcommand: (1) write src/cmd/<verb>.c with cmd_<verb>() and its
+ * option table, parsed by opt_parse (opt.h),
  * (2) add its row to the table in main.c, (3) add a CLI test under
  * tests/cli/, (4) document it in man/packbook.1, README and --help.
  *
@@ -29,6 +30,10 @@ enum pb_code cmd_compare(int argc, char **argv, struct app *app, struct pb_error
 enum pb_code cmd_predict(int argc, char **argv, struct app *app, struct pb_error *err);
 enum pb_code cmd_config(int argc, char **argv, struct app *app, struct pb_error *err);
 enum pb_code cmd_plot(int argc, char **argv, struct app *app, struct pb_error *err);
+
+/* A numeric constant as text, for an option table's default. */
+#define CMD_STR_(x) #x
+#define CMD_STR(x) CMD_STR_(x)
 
 /* Parses a number option value; returns 0 or fills err (usage). */
 int cmd_parse_double(const char *opt, const char *val, double lo, double hi, double *out,

@@ -3,6 +3,7 @@
 #include <getopt.h>
 #include <jansson.h>
 #include <math.h>
+#include <stddef.h>
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
@@ -24,16 +25,23 @@ static const char usage[] =
     "capacity and R0 per cell first, greedy). Mismatch d = sqrt((dC / 5 %)^2 +\n"
     "(dR / 15 %)^2) of the pair's mean: d <= 1 is within the limits. With two\n"
     "IDs: registers them as a pair (fleet keeps them together and warns when\n"
-    "they drift beyond the limits). unpair removes a pack's pair.\n";
+    "they drift beyond the limits). unpair removes a pack's pair.\n"
+    "\n";
 
-enum { PP_JSON = 256, PP_DB };
-
-static const struct option longopts[] = {
-    {"json", no_argument, NULL, PP_JSON},
-    {"db", required_argument, NULL, PP_DB},
-    {"help", no_argument, NULL, 'h'},
-    {NULL, 0, NULL, 0},
+struct pair_cli {
+    const char *db;
+    int json;
 };
+
+/* clang-format off */
+static const struct opt pair_table[] = {
+    {.name = "json", .kind = OPT_FLAG, .off = offsetof(struct pair_cli, json), .set = 1,
+     .help = "JSON on standard output"},
+    {.name = "db", .kind = OPT_PATH, .off = offsetof(struct pair_cli, db), .meta = "PATH",
+     .help = "history database (see 'packbook config')"},
+    {0},
+};
+/* clang-format on */
 
 static void to_pair_pack(const struct pack_view *v, struct pair_pack *p)
 {
@@ -199,25 +207,20 @@ static enum pb_code show(struct store *st, int json, struct pb_error *err)
 
 enum pb_code cmd_pack_pair(int argc, char **argv, struct pb_error *err)
 {
-    const char *db = NULL;
-    int json = 0, c, unpair = strcmp(argv[0], "unpair") == 0;
-    optind = 1;
-    opterr = 0;
-    while ((c = getopt_long(argc, argv, "h", longopts, NULL)) != -1) {
-        switch (c) {
-        case PP_JSON:
-            json = 1;
-            break;
-        case PP_DB:
-            db = optarg;
-            break;
-        case 'h':
-            fputs(usage, stdout);
-            return cmd_finish_stdout(err);
-        default:
-            return cmd_bad_option(unpair ? "pack unpair" : "pack pair", argc, argv, err);
-        }
-    }
+    struct pair_cli cli = {0};
+    int unpair = strcmp(argv[0], "unpair") == 0, done = 0;
+    struct opt_cmd cmd = {unpair ? "pack unpair" : "pack pair",
+                          usage,
+                          NULL,
+                          {{NULL, pair_table, &cli, NULL}},
+                          1,
+                          NULL,
+                          NULL};
+    enum pb_code parsed = opt_parse(&cmd, argc, argv, &done, err);
+    if (parsed != PB_OK || done)
+        return parsed;
+    const char *db = cli.db;
+    int json = cli.json;
     int ids = argc - optind;
     if (unpair ? ids != 1 : ids != 0 && ids != 2)
         return pb_error_set(err, PB_EUSAGE,

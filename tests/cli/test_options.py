@@ -1,12 +1,15 @@
 #!/usr/bin/python3
-"""Options: keywords in any case.
+"""Options: keywords in any case; every verb's option table documented.
 What each check is measured against: the same command with the keyword in lower case (the
 spelling the man page gives) must give the same output, byte for byte; a word that is none
 of the keywords is a usage error (exit 2, man packbook EXIT STATUS) naming the option, the
-value and the words expected. Logs: samples/ (the invented demo fleet).
+value and the words expected. Every option a verb's table holds (VERB --list-options, which
+prints the table the parser uses) must be named in man/packbook.1 and in VERB --help, so the
+documentation cannot drift from the code. Logs: samples/ (the invented demo fleet).
 Run: PACKBOOK=build/packbook /usr/bin/python3 tests/cli/test_options.py -v
 """
 import os
+import re
 import subprocess
 import sys
 import unittest
@@ -85,6 +88,57 @@ class KeywordCase(unittest.TestCase):
             rc, _, err = run(*args)
             self.assertEqual(rc, EXIT_USAGE, args)
             self.assertIn(want, err)
+
+
+class Documented(unittest.TestCase):
+    def verbs(self):
+        rc, out, err = run("--help")
+        self.assertEqual(rc, EXIT_OK, err)
+        names = re.findall(r"^  ([a-z]+) ", out.split("commands:")[1], re.M)
+        self.assertIn("analyze", names)
+        return [[v] for v in names] + [["pack", "pair"], ["pack", "unpair"]]
+
+    def test_every_option_in_man_and_help(self):
+        with open(os.path.join(pbtest.ROOT, "man", "packbook.1")) as f:
+            man = f.read()
+        seen = 0
+        for verb in self.verbs():
+            rc, out, err = run(*verb, "--list-options")
+            self.assertEqual(rc, EXIT_OK, f"{verb}: {err}")
+            names = out.split()
+            self.assertIn("--help", names, verb)
+            rc, helptext, err = run(*verb, "--help")
+            self.assertEqual(rc, EXIT_OK, f"{verb}: {err}")
+            for name in names:
+                self.assertTrue(name.startswith("--"), name)
+                # the man page writes a dash as \-; a name must not be a prefix of a longer one
+                escaped = re.escape(name.replace("-", "\\-"))
+                self.assertRegex(man, escaped + r"(?![a-z0-9]|\\-[a-z])",
+                                 f"{' '.join(verb)} {name}: not in man/packbook.1")
+                self.assertRegex(helptext, re.escape(name) + r"(?![a-z0-9-])",
+                                 f"{' '.join(verb)} {name}: not in its --help")
+                seen += 1
+        self.assertGreater(seen, 100)  # the tables are there, not an empty list
+
+    def test_defaults_in_help(self):
+        # the defaults --help prints come from the tables (man packbook gives the same values)
+        for verb, want in ((["trend"], "(default 1000)"), (["predict"], "(default 30)"),
+                           (["fleet"], "(default 80)"), (["import"], "(default 60")):
+            rc, out, _ = run(*verb, "--help")
+            self.assertEqual(rc, EXIT_OK)
+            self.assertIn(want, out, verb)
+
+    def test_bad_values_name_option_and_range(self):
+        for args, want in ((["trend", "X", "--horizon", "0"],
+                            "--horizon: expected a number from 1 to 1e+06, got '0'"),
+                           (["predict", "X", "--runs", "5"],
+                            "--runs: expected a whole number from 10 to 5000, got '5'"),
+                           (["analyze", "x.csv", "--cells", "many"],
+                            "--cells: expected a whole number from 1 to 24, got 'many'"),
+                           (["fleet", "--no-such-option"], "unknown option '--no-such-option'")):
+            rc, _, err = run(*args)
+            self.assertEqual(rc, EXIT_USAGE, args)
+            self.assertIn(want, err, args)
 
 
 if __name__ == "__main__":
