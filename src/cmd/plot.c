@@ -32,7 +32,9 @@ static const char usage_head[] =
     "           (or --x date): flights, bucket means, fitted line with its 95 % band\n"
     "           and the band where 95 % of flights are expected,\n"
     "           retirement levels and the projected crossing; against cycles also\n"
-    "           the chosen fade model and where to plan for (see packbook trend)\n"
+    "           the chosen fade model and where to plan for (see packbook trend);\n"
+    "           with cell columns, each flight's resting cell imbalance with its\n"
+    "           weakest cell's number, and the weakest cell in the title\n"
     "  fleet    every pack in service (--all: and retired) at capacity % against\n"
     "           R0 change from its baseline, by status, packs needing attention named\n"
     "\n";
