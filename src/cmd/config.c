@@ -75,7 +75,7 @@ static int check_value(const struct entry *e, const char *v, struct pb_error *er
     if (e->opt)
         return ruleopts_take(e->opt, v, &r, err) < 0 ? -1 : 0;
     if (strcmp(e->key, "reserve") == 0)
-        return cmd_parse_double("reserve", v, 0, 99, &x, err);
+        return opt_take(config_reserve_table, &x, v, err);
     if (!*v) {
         pb_error_set(err, PB_EUSAGE, "db: give a path");
         return -1;
@@ -112,8 +112,9 @@ enum pb_code config_load(struct pb_error *err)
         *eq = '\0';
         char *key = trim(s), *val = trim(eq + 1);
         struct entry *e = NULL;
-        if (strcmp(key, "retire-spread") == 0) /* the old name, kept */
-            key = "retire-imbalance";
+        const struct opt *ro = opt_by_name(ruleopts_table, key, strlen(key));
+        if (ro) /* an old name (retire-spread) reads as the new */
+            key = (char *)ro->name;
         for (size_t k = 0; k < NENTRIES; k++)
             if (strcmp(entries[k].key, key) == 0)
                 e = &entries[k];
@@ -232,12 +233,17 @@ struct config_cli {
 #define CONFIG_AT(field) offsetof(struct config_cli, field)
 
 /* clang-format off */
+const struct opt config_reserve_table[] = {
+    {.name = "reserve", .kind = OPT_DOUBLE, .off = 0, .lo = 0, .hi = 99,
+     .def = PREDICT_STR(PREDICT_RESERVE_PCT), .meta = "PCT",
+     .help = "landing reserve SoC for predict, % (common practice;\n"
+     "the settings file's 'reserve' overrides the default)"},
+    {0},
+};
+
 static const struct opt config_table[] = {
     {.name = "db", .kind = OPT_PATH, .off = CONFIG_AT(db), .meta = "PATH",
      .help = "show this database path as in force"},
-    {.name = "reserve", .kind = OPT_DOUBLE, .off = CONFIG_AT(reserve), .lo = 0, .hi = 99,
-     .def = PREDICT_STR(PREDICT_RESERVE_PCT), .meta = "PCT",
-     .help = "show this landing reserve as in force"},
     {.name = "json", .kind = OPT_FLAG, .off = CONFIG_AT(json), .set = 1,
      .help = "JSON on standard output"},
     {0},
@@ -248,7 +254,7 @@ static int config_hook(void *ctx, const struct opt *o, const char *v, struct pb_
 {
     struct config_cli *cli = ctx;
     (void)err;
-    const char *key = o == &config_table[0] ? "db" : o == &config_table[1] ? "reserve" : NULL;
+    const char *key = o == &config_table[0] ? "db" : o == config_reserve_table ? "reserve" : NULL;
     for (size_t k = 0; !key && k < NENTRIES; k++)
         if (entries[k].opt && entries[k].opt == o->id)
             key = entries[k].key;

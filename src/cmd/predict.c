@@ -72,14 +72,6 @@ static const struct opt load_table[] = {
     {0},
 };
 
-static const struct opt limits_table[] = {
-    {.name = "reserve", .kind = OPT_DOUBLE, .off = PRED_AT(reserve), .lo = 0, .hi = 99,
-     .def = PREDICT_STR(PREDICT_RESERVE_PCT), .meta = "PCT",
-     .help = "landing reserve SoC (common practice; the settings file's\n"
-     "'reserve' overrides the default)"},
-    {0},
-};
-
 static const struct opt model_table[] = {
     {.name = "temp", .kind = OPT_DOUBLE, .off = PRED_AT(temp_c), .lo = -60, .hi = 90, .meta = "C",
      .help = "pack temperature: R0 is scaled by the Arrhenius form"},
@@ -497,7 +489,7 @@ enum pb_code cmd_predict(int argc, char **argv, struct app *app, struct pb_error
     cli.soc = cli.ocv_v = cli.power_w = cli.current_a = cli.temp_c = NAN;
     opt_defaults(start_table, &cli);
     opt_defaults(load_table, &cli);
-    opt_defaults(limits_table, &cli);
+    opt_defaults(config_reserve_table, &cli.reserve);
     opt_defaults(model_table, &cli);
     cli.reserve = config_reserve(); /* the settings file's, else the table's default */
     int done = 0;
@@ -508,7 +500,7 @@ enum pb_code cmd_predict(int argc, char **argv, struct app *app, struct pb_error
                            {"load (default: the median cruise power of the last " HEALTH_STR(
                                 HEALTH_RECENT_FLIGHTS) " flights, or of the log):",
                             load_table, &cli, NULL},
-                           {"limits:", limits_table, &cli, NULL},
+                           {"limits:", config_reserve_table, &cli.reserve, NULL},
                            {"model:", model_table, &cli, NULL},
                            LOGOPTS_PACK_GROUP(&cli.log, "the pack of --log:"),
                            LOGOPTS_GROUP(&cli.log)},
