@@ -175,6 +175,7 @@ enum pb_code logopts_analyze(const char *path, const struct log_cli *cli,
     /* the pack's cell count and rating bound what a sample may hold */
     struct logread_opts ro = cli->read;
     ro.cells = cli->read_without_cells ? 0 : cli->an.cells;
+    ro.pack_cells = cli->an.cells; /* a dropped cell column is still the pack's */
     ro.rated_mah = cli->an.capacity_mah;
     s = logread_file(fp, name, &ro, stats, err);
     if (!s) {

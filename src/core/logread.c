@@ -944,7 +944,8 @@ static void settle_cells(struct reader *r)
     }
     st->kept -= n - w;
     s->n = w;
-    int pack_cells = r->opts->cells > top ? r->opts->cells : top;
+    int given = r->opts->cells ? r->opts->cells : r->opts->pack_cells;
+    int pack_cells = given > top ? given : top;
     int kept = 0;
     for (int c = 0; c < r->ncells; c++) {
         const struct logread_event *ev = r->cell_ev[c];

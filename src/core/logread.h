@@ -51,6 +51,9 @@ struct logread_opts {
     double adc_offset_counts;
     size_t min_samples; /* fewest usable samples accepted; 0 means 2 (what analysis needs) */
     int cells;          /* series cells when known (0: unknown), for the voltage check */
+    int pack_cells;     /* the pack's cells when known but not to bound voltages (import
+                           judges the cell count itself): which cell columns are the
+                           pack's when one is dropped; 0: cells */
     double rated_mah;   /* rated capacity when known (0: unknown), for the current check */
     /* called with every block of raw bytes as read (e.g. to hash the log) */
     void (*on_block)(void *ctx, const char *buf, size_t len);

@@ -8,7 +8,8 @@ What each check is measured against:
   - the same log with no cell columns at all: charge, energy and IR come from the pack
     voltage and current, so dropping a cell column must not move them (exact: same numbers);
   - the database (SQLite, read with Python's sqlite3): the flight_cells rows of an imported
-    flight are the cells read, numbered as in the log.
+    flight are the cells read, numbered as in the log; a 6S pack's log with cell 6 empty is
+    the pack's (its cell 6 dropped), not another pack's.
 The log tests/data/cells/tm12-cell3-empty.csv is every 4th row of samples/tm12-cells.csv
 (the invented demo fleet, scripts/make-samples.sh) with cell 3 left empty; the other cases
 are made from it here.
@@ -166,6 +167,26 @@ class DroppedCell(unittest.TestCase):
         finally:
             con.close()
         self.assertEqual(cells, [1, 2, 4, 5, 6])
+
+    def test_import_last_cell_empty(self):
+        # a 6S pack's log with cell 6 empty: the pack says cell 6 is there, so it is a dropped
+        # cell of the pack (not a column the pack lacks) and the log fits the pack
+        db = os.path.join(pbtest.temp_dir("pbcells-"), "h.db")
+        rc, _, err = run("pack", "add", "TM-12", "--cells", "6", *PACK, "--db", db)
+        self.assertEqual(rc, EXIT_OK, err)
+        path = variant(fill={"cell3_v": lambda r: "4.000", "cell6_v": lambda r: ""})
+        rc, out, err = run("import", "--pack", "TM-12", path, "--db", db)
+        self.assertEqual(rc, EXIT_OK, err)
+        con = sqlite3.connect(db)
+        try:
+            cells = [r[0] for r in con.execute("SELECT cell FROM flight_cells ORDER BY cell")]
+            report = json.loads(con.execute("SELECT report_json FROM flight_reports")
+                                .fetchone()[0])
+        finally:
+            con.close()
+        self.assertEqual(cells, [1, 2, 3, 4, 5])
+        self.assertIn("cell_dropped", codes(report))
+        self.assertNotIn("cell_unused", codes(report))
 
 
 if __name__ == "__main__":
