@@ -105,18 +105,11 @@ const struct opt *opt_by_id(const struct opt *opts, int id)
  * continuation lines under it, the old name and the default at the end. */
 static void help_line(FILE *out, const struct opt *o)
 {
-    char left[96];
-    int n = snprintf(left, sizeof left, "  %s%c%s--%s%s%s", o->letter ? "-" : "",
-                     o->letter ? o->letter : ' ', o->letter ? ", " : "", o->name,
-                     o->kind == OPT_FLAG ? "" : " ",
-                     o->kind == OPT_FLAG ? ""
-                     : o->meta           ? o->meta
-                                         : "X");
-    if (!o->letter) /* no letter: no gap where it would be */
-        n = snprintf(left, sizeof left, "  --%s%s%s", o->name, o->kind == OPT_FLAG ? "" : " ",
-                     o->kind == OPT_FLAG ? ""
-                     : o->meta           ? o->meta
-                                         : "X");
+    char left[96], letter[8] = "";
+    const char *meta = o->kind == OPT_FLAG ? "" : o->meta ? o->meta : "X";
+    if (o->letter)
+        snprintf(letter, sizeof letter, "-%c, ", o->letter);
+    int n = snprintf(left, sizeof left, "  %s--%s%s%s", letter, o->name, *meta ? " " : "", meta);
     fputs(left, out);
     if (n >= HELP_COL - 1)
         fprintf(out, "\n%*s", HELP_COL, "");
