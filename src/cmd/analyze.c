@@ -1,5 +1,6 @@
 #include <getopt.h>
 #include <math.h>
+#include <stddef.h>
 #include <stdio.h>
 #include <string.h>
 
@@ -21,37 +22,7 @@ static const char usage_head[] =
     "Reads one flight log (CSV; '-' for standard input) and reports charge and\n"
     "energy used, internal resistance, open-circuit voltage, state of charge,\n"
     "capacity and per-cell figures.\n"
-    "\n"
-    "pack:\n"
-    "  --cells N              series cell count (default: from cell columns or inferred)\n"
-    "  --chemistry C          lipo, lihv, nmc or lfp, any case (default: lipo, with a warning)\n"
-    "  --capacity MAH         rated capacity, for C-rates and capacity as % of rated\n"
-    "  --pack ID [--db PATH]  a registered pack instead: its cells, chemistry, capacity\n"
-    "                         and remembered reading settings (the options below\n"
-    "                         override those)\n";
-
-static const char usage_tail[] =
-    "output:\n"
-    "  --json                 one JSON document on standard output\n"
-    "  --series FILE          every sample as CSV: time, voltage, current, sag-corrected\n"
-    "                         OCV, SoC by counting, SoC from the OCV ('-': stdout)\n"
-    "  --plot FILE            also draw the flight as FILE.png, .svg or .pdf (the\n"
-    "                         figure of 'packbook plot'; that command sets its size)\n"
-    "  -h, --help             this text\n";
-
-enum { OPT_JSON = 256, OPT_SERIES, OPT_PLOT, OPT_PACK, OPT_DB };
-
-static const struct option longopts[] = {
-    {"json", no_argument, NULL, OPT_JSON},
-    {"series", required_argument, NULL, OPT_SERIES},
-    {"plot", required_argument, NULL, OPT_PLOT},
-    {"pack", required_argument, NULL, OPT_PACK},
-    {"db", required_argument, NULL, OPT_DB},
-    {"help", no_argument, NULL, 'h'},
-    LOGOPTS_PACK_LONG,
-    LOGOPTS_LONG,
-    {NULL, 0, NULL, 0},
-};
+    "\n";
 
 struct analyze_cli {
     struct log_cli log;
@@ -65,54 +36,64 @@ struct analyze_cli {
     struct pack_rec rec; /* the pack's, its settings split by packopts_apply */
 };
 
+#define AN_AT(field) offsetof(struct analyze_cli, field)
+
+/* clang-format off */
+static const struct opt pack_table[] = {
+    {.name = "pack", .kind = OPT_STRING, .off = AN_AT(pack), .meta = "ID",
+     .help = "a registered pack instead: its cells, chemistry, capacity and\n"
+     "remembered reading settings (the options below override those)"},
+    {.name = "db", .kind = OPT_PATH, .off = AN_AT(db), .meta = "PATH",
+     .help = "the history database of --pack (see 'packbook config')"},
+    {0},
+};
+
+static const struct opt output_table[] = {
+    {.name = "json", .kind = OPT_FLAG, .off = AN_AT(json), .set = 1,
+     .help = "one JSON document on standard output"},
+    {.name = "series", .kind = OPT_PATH, .off = AN_AT(series), .meta = "FILE",
+     .help = "every sample as CSV: time, voltage, current, sag-corrected\n"
+     "OCV, SoC by counting, SoC from the OCV ('-': stdout)"},
+    {.name = "plot", .kind = OPT_PATH, .off = AN_AT(plot), .meta = "FILE",
+     .help = "also draw the flight as FILE.png, .svg or .pdf (the\n"
+     "figure of 'packbook plot'; that command sets its size)"},
+    {0},
+};
+/* clang-format on */
+
+static int analyze_hook(void *ctx, const struct opt *o, const char *v, struct pb_error *err)
+{
+    struct analyze_cli *cli = ctx;
+    if (logopts_is_reading(o))
+        return packopts_note(&cli->seen, o->id, v, err) < 0 ? -1 : 0;
+    if ((o->id == LO_CELLS || o->id == LO_CHEM || o->id == LO_CAP) && !cli->pack_opt)
+        cli->pack_opt = o->id == LO_CELLS  ? "--cells"
+                        : o->id == LO_CHEM ? "--chemistry"
+                                           : "--capacity";
+    if (o == &output_table[2] && plot_format_of(v) < 0)
+        return pb_error_set(err, PB_EUSAGE,
+                            "--plot: '%s': the figure's name must end in .png, .svg or .pdf", v);
+    return 0;
+}
+
 /* Fills cli from argv; sets *done when --help was printed instead. */
 static enum pb_code parse_args(int argc, char **argv, struct analyze_cli *cli, int *done,
                                struct pb_error *err)
 {
-    int c;
-    optind = 1;
-    opterr = 0;
-    while ((c = getopt_long(argc, argv, "h", longopts, NULL)) != -1) {
-        const char *v = optarg;
-        int taken = logopts_take(c, v, &cli->log, err);
-        if (taken < 0 || (taken && packopts_note(&cli->seen, c, v, err) < 0))
-            return PB_EUSAGE;
-        if (c == LO_CELLS || c == LO_CHEM || c == LO_CAP)
-            cli->pack_opt = c == LO_CELLS ? "--cells" : c == LO_CHEM ? "--chemistry" : "--capacity";
-        if (taken)
-            continue;
-        switch (c) {
-        case OPT_PACK:
-            cli->pack = v;
-            break;
-        case OPT_DB:
-            cli->db = v;
-            break;
-        case OPT_JSON:
-            cli->json = 1;
-            break;
-        case OPT_SERIES:
-            cli->series = v;
-            break;
-        case OPT_PLOT:
-            if (plot_format_of(v) < 0)
-                return pb_error_set(err, PB_EUSAGE,
-                                    "--plot: '%s': the figure's name must end in .png, .svg or "
-                                    ".pdf",
-                                    v);
-            cli->plot = v;
-            break;
-        case 'h':
-            fputs(usage_head, stdout);
-            fputs(logopts_usage, stdout);
-            fputs(usage_tail, stdout);
-            *done = 1;
-            return cmd_finish_stdout(err);
-        default:
-            return cmd_bad_option("analyze", argc, argv, err);
-        }
-    }
-    enum pb_code rc = logopts_finish(&cli->log, err);
+    struct opt_cmd cmd = {"analyze",
+                          usage_head,
+                          NULL,
+                          {LOGOPTS_PACK_GROUP(&cli->log, "pack:"),
+                           {NULL, pack_table, cli, NULL},
+                           LOGOPTS_GROUP(&cli->log),
+                           {"output:", output_table, cli, NULL}},
+                          4,
+                          analyze_hook,
+                          cli};
+    enum pb_code rc = opt_parse(&cmd, argc, argv, done, err);
+    if (rc != PB_OK || *done)
+        return rc;
+    rc = logopts_finish(&cli->log, err);
     if (rc != PB_OK)
         return rc;
     if (optind >= argc)

@@ -1,6 +1,7 @@
 /* cmd: one function per subcommand, called from the table in main.c.
  *
- * Adding a subcommand: (1) write src/cmd/<verb>.c with cmd_<verb>(),
+ * Adding a subcommand: (1) write src/cmd/<verb>.c with cmd_<verb>() and its
+ * option table, parsed by opt_parse (opt.h),
  * (2) add its row to the table in main.c, (3) add a CLI test under
  * tests/cli/, (4) document it in man/packbook.1, README and --help.
  *
@@ -30,10 +31,20 @@ enum pb_code cmd_predict(int argc, char **argv, struct app *app, struct pb_error
 enum pb_code cmd_config(int argc, char **argv, struct app *app, struct pb_error *err);
 enum pb_code cmd_plot(int argc, char **argv, struct app *app, struct pb_error *err);
 
+/* A numeric constant as text, for an option table's default. */
+#define CMD_STR_(x) #x
+#define CMD_STR(x) CMD_STR_(x)
+
 /* Parses a number option value; returns 0 or fills err (usage). */
 int cmd_parse_double(const char *opt, const char *val, double lo, double hi, double *out,
                      struct pb_error *err);
 int cmd_parse_int(const char *opt, const char *val, int lo, int hi, int *out, struct pb_error *err);
+
+/* The index of val among words (a NULL-terminated list) compared in any
+ * case, so --by Week and current-sign = Discharge-Negative read as written
+ * in lower case; -1 with err filled (usage: "OPT: expected a, b or c, got
+ * 'V'") when it is none of them. */
+int cmd_keyword(const char *opt, const char *val, const char *const *words, struct pb_error *err);
 
 /* The usage error for an option getopt_long did not know or that lacked
  * its value; verb names the command for the hint. */

@@ -6,6 +6,7 @@
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
+#include <strings.h>
 #include <sys/stat.h>
 #include <unistd.h>
 
@@ -24,6 +25,22 @@ int cmd_parse_double(const char *opt, const char *val, double lo, double hi, dou
     }
     *out = v;
     return 0;
+}
+
+int cmd_keyword(const char *opt, const char *val, const char *const *words, struct pb_error *err)
+{
+    for (int k = 0; words[k]; k++)
+        if (strcasecmp(words[k], val) == 0)
+            return k;
+    char list[256] = "";
+    size_t used = 0;
+    for (int k = 0; words[k] && used < sizeof list; k++) {
+        const char *sep = k == 0 ? "" : words[k + 1] ? ", " : " or ";
+        int n = snprintf(list + used, sizeof list - used, "%s%s", sep, words[k]);
+        used += n > 0 ? (size_t)n : 0;
+    }
+    pb_error_set(err, PB_EUSAGE, "%s: expected %s, got '%s'", opt, list, val);
+    return -1;
 }
 
 int cmd_parse_int(const char *opt, const char *val, int lo, int hi, int *out, struct pb_error *err)

@@ -3,6 +3,7 @@
 
 #include <ctype.h>
 #include <getopt.h>
+#include <stddef.h>
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
@@ -74,7 +75,7 @@ static int check_value(const struct entry *e, const char *v, struct pb_error *er
     if (e->opt)
         return ruleopts_take(e->opt, v, &r, err) < 0 ? -1 : 0;
     if (strcmp(e->key, "reserve") == 0)
-        return cmd_parse_double("reserve", v, 0, 99, &x, err);
+        return opt_take(config_reserve_table, &x, v, err);
     if (!*v) {
         pb_error_set(err, PB_EUSAGE, "db: give a path");
         return -1;
@@ -111,8 +112,9 @@ enum pb_code config_load(struct pb_error *err)
         *eq = '\0';
         char *key = trim(s), *val = trim(eq + 1);
         struct entry *e = NULL;
-        if (strcmp(key, "retire-spread") == 0) /* the old name, kept */
-            key = "retire-imbalance";
+        const struct opt *ro = opt_by_name(ruleopts_table, key, strlen(key));
+        if (ro) /* an old name (retire-spread) reads as the new */
+            key = (char *)ro->name;
         for (size_t k = 0; k < NENTRIES; k++)
             if (strcmp(entries[k].key, key) == 0)
                 e = &entries[k];
@@ -217,53 +219,64 @@ static const char usage[] =
     "reserve (predict's --reserve), and any reading option of analyze without its\n"
     "dashes (cut-off, map, current-sign, adc-scale, gap, ...) as a default for every\n"
     "log. Options on a command override the file; a pack's remembered reading\n"
-    "settings override its reading defaults.\n";
+    "settings override its reading defaults.\n"
+    "\n";
 
-enum { C_DB = 256, C_RESERVE, C_JSON };
-
-static const struct option longopts[] = {
-    {"db", required_argument, NULL, C_DB},
-    {"reserve", required_argument, NULL, C_RESERVE},
-    {"json", no_argument, NULL, C_JSON},
-    {"help", no_argument, NULL, 'h'},
-    RULEOPTS_LONG,
-    {NULL, 0, NULL, 0},
+struct config_cli {
+    const char *given[NENTRIES];
+    const char *db;
+    double reserve;
+    int json;
+    struct health_rules rules; /* where the rule options' values are checked */
 };
+
+#define CONFIG_AT(field) offsetof(struct config_cli, field)
+
+/* clang-format off */
+const struct opt config_reserve_table[] = {
+    {.name = "reserve", .kind = OPT_DOUBLE, .off = 0, .lo = 0, .hi = 99,
+     .def = PREDICT_STR(PREDICT_RESERVE_PCT), .meta = "PCT",
+     .help = "landing reserve SoC for predict, % (common practice;\n"
+     "the settings file's 'reserve' overrides the default)"},
+    {0},
+};
+
+static const struct opt config_table[] = {
+    {.name = "db", .kind = OPT_PATH, .off = CONFIG_AT(db), .meta = "PATH",
+     .help = "show this database path as in force"},
+    {.name = "json", .kind = OPT_FLAG, .off = CONFIG_AT(json), .set = 1,
+     .help = "JSON on standard output"},
+    {0},
+};
+/* clang-format on */
+
+static int config_hook(void *ctx, const struct opt *o, const char *v, struct pb_error *err)
+{
+    struct config_cli *cli = ctx;
+    (void)err;
+    const char *key = o == &config_table[0] ? "db" : o == config_reserve_table ? "reserve" : NULL;
+    for (size_t k = 0; !key && k < NENTRIES; k++)
+        if (entries[k].opt && entries[k].opt == o->id)
+            key = entries[k].key;
+    if (key)
+        cli->given[entry_of(key) - entries] = v;
+    return 0;
+}
 
 enum pb_code cmd_config(int argc, char **argv, struct app *app, struct pb_error *err)
 {
-    const char *given[NENTRIES] = {0};
-    int json = 0, c;
+    struct config_cli cli = {0};
     (void)app;
-    optind = 1;
-    opterr = 0;
-    while ((c = getopt_long(argc, argv, "h", longopts, NULL)) != -1) {
-        const char *key = NULL;
-        switch (c) {
-        case C_DB:
-            key = "db";
-            break;
-        case C_RESERVE:
-            key = "reserve";
-            break;
-        case C_JSON:
-            json = 1;
-            continue;
-        case 'h':
-            fputs(usage, stdout);
-            return cmd_finish_stdout(err);
-        default:
-            for (size_t k = 0; k < NENTRIES; k++)
-                if (entries[k].opt && entries[k].opt == c)
-                    key = entries[k].key;
-            if (!key)
-                return cmd_bad_option("config", argc, argv, err);
-        }
-        struct entry *e = entry_of(key);
-        if (check_value(e, optarg, err) != 0)
-            return PB_EUSAGE;
-        given[e - entries] = optarg;
-    }
+    health_rules_default(&cli.rules);
+    int done = 0;
+    struct opt_cmd cmd = {
+        "config", usage,       NULL, {{NULL, config_table, &cli, NULL}, RULEOPTS_GROUP(&cli.rules)},
+        2,        config_hook, &cli};
+    enum pb_code parsed = opt_parse(&cmd, argc, argv, &done, err);
+    if (parsed != PB_OK || done)
+        return parsed;
+    const char **given = cli.given;
+    int json = cli.json;
     if (optind < argc)
         return pb_error_set(err, PB_EUSAGE, "config: unexpected argument '%s'", argv[optind]);
     struct health_rules def;

@@ -16,6 +16,7 @@
 
 #include "../core/health.h"
 #include "cmd.h"
+#include "opt.h"
 
 /* Reads the file; a malformed one is a usage error naming file:line. */
 enum pb_code config_load(struct pb_error *err);
@@ -29,6 +30,11 @@ void config_rules(struct health_rules *r);
 
 /* The landing reserve for predictions (%): the file's, else the default. */
 double config_reserve(void);
+
+/* The one entry of the landing reserve (--reserve, the file's 'reserve'):
+ * range, default (PREDICT_RESERVE_PCT) and help, written once; its value
+ * goes into a double (offset 0), for predict's and config's option groups. */
+extern const struct opt config_reserve_table[];
 
 /* The file's reading defaults as "name=value" lines ("" when none). */
 const char *config_reading(void);

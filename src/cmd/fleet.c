@@ -1,6 +1,7 @@
 /* packbook fleet: one row per pack with its state and the reason. */
 #include <getopt.h>
 #include <math.h>
+#include <stddef.h>
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
@@ -25,35 +26,62 @@ static const char usage[] =
     "at the pack's use so far). A flight that left its trend shows as 'inspect:\n"
     "flight N ...' until 'packbook flight ack'; registered pairs ('packbook pack\n"
     "pair') are listed together, and a pair beyond its limits is a watch finding.\n"
-    "  --sort KEY             status (default: retire first), pack, cycles, r0 (resistance\n"
-    "                         per cell, highest first), r0-ratio (against the baseline),\n"
-    "                         capacity (lowest first), imbalance, last\n"
-    "  --status S             only packs with status ok, watch, retire or retired\n"
-    "  --all                  include retired packs\n"
-    "  --predict [--power W]  add the conservative safe flight time (minutes) to the\n"
-    "                         landing reserve (" PREDICT_STR(PREDICT_RESERVE_PCT)
-    " %, or the settings file's 'reserve')\n"
-    "                         at the pack's recent cruise power, or at W\n"
-    "  --json, --csv          machine-readable output (CSV cells starting = + - @, also\n"
-    "                         after spaces or zero-width characters, are prefixed with '\n"
-    "                         so spreadsheets do not run them)\n";
+    "\n";
 /* clang-format on */
 
-enum { F_JSON = 256, F_CSV, F_SORT, F_STATUS, F_ALL, F_DB, F_PREDICT, F_POWER };
-
-static const struct option longopts[] = {
-    {"json", no_argument, NULL, F_JSON},
-    {"csv", no_argument, NULL, F_CSV},
-    {"sort", required_argument, NULL, F_SORT},
-    {"status", required_argument, NULL, F_STATUS},
-    {"all", no_argument, NULL, F_ALL},
-    {"db", required_argument, NULL, F_DB},
-    {"predict", no_argument, NULL, F_PREDICT},
-    {"power", required_argument, NULL, F_POWER},
-    {"help", no_argument, NULL, 'h'},
-    RULEOPTS_LONG,
-    {NULL, 0, NULL, 0},
+struct fleet_cli {
+    int fmt; /* enum fleet_format */
+    int sort, status, all, predict;
+    double power_w;
+    const char *db;
+    struct health_rules rules;
 };
+
+#define FLEET_AT(field) offsetof(struct fleet_cli, field)
+
+static const char *const sort_words[] = {"status",   "pack",      "cycles", "r0", "r0-ratio",
+                                         "capacity", "imbalance", "last",   NULL};
+static const char *const status_words[] = {"ok", "watch", "retire", "retired", NULL};
+
+/* clang-format off */
+static const struct opt fleet_table[] = {
+    {.name = "sort", .kind = OPT_KEYWORD, .off = FLEET_AT(sort), .words = sort_words,
+     .def = "status", .meta = "KEY",
+     .help = "status (retire first), pack, cycles, r0 (resistance\n"
+     "per cell, highest first), r0-ratio (against the baseline),\n"
+     "capacity (lowest first), imbalance, last"},
+    {.name = "status", .kind = OPT_KEYWORD, .off = FLEET_AT(status), .words = status_words,
+     .meta = "S", .help = "only packs with status ok, watch, retire or retired"},
+    {.name = "all", .kind = OPT_FLAG, .off = FLEET_AT(all), .set = 1,
+     .help = "include retired packs"},
+    {.name = "predict", .kind = OPT_FLAG, .off = FLEET_AT(predict), .set = 1,
+     .help = "add the conservative safe flight time (minutes) to the\n"
+     "landing reserve (" PREDICT_STR(PREDICT_RESERVE_PCT) " %, or the settings file's 'reserve')\n"
+     "at the pack's recent cruise power, or at --power"},
+    {.name = "power", .kind = OPT_DOUBLE, .off = FLEET_AT(power_w), .lo = 0, .hi = 1e6,
+     .meta = "W", .help = "--predict at W watts (implies --predict)"},
+    {.name = "json", .kind = OPT_FLAG, .off = FLEET_AT(fmt), .set = FLEET_JSON,
+     .help = "JSON on standard output"},
+    {.name = "csv", .kind = OPT_FLAG, .off = FLEET_AT(fmt), .set = FLEET_CSV,
+     .help = "CSV on standard output (cells starting = + - @, also after\n"
+     "spaces or zero-width characters, are prefixed with ' so\n"
+     "spreadsheets do not run them)"},
+    {.name = "db", .kind = OPT_PATH, .off = FLEET_AT(db), .meta = "PATH",
+     .help = "history database (see 'packbook config')"},
+    {0},
+};
+/* clang-format on */
+
+static int fleet_hook(void *ctx, const struct opt *o, const char *v, struct pb_error *err)
+{
+    struct fleet_cli *cli = ctx;
+    if (o != &fleet_table[4])
+        return 0;
+    if (!(cli->power_w > 0)) /* no load is no flight (see predict) */
+        return pb_error_set(err, PB_EUSAGE, "--power: expected a load above 0 W, got '%s'", v);
+    cli->predict = 1;
+    return 0;
+}
 
 static const char *sort_key;
 
@@ -121,73 +149,27 @@ static void predict_each(const struct pack_view *v, size_t k, void *ctx)
 
 enum pb_code cmd_fleet(int argc, char **argv, struct app *app, struct pb_error *err)
 {
-    struct health_rules rules;
-    enum fleet_format fmt = FLEET_TEXT;
-    const char *db = NULL, *status = NULL;
-    int all = 0, predict = 0, c;
-    double power_w = NAN;
+    struct fleet_cli cli = {0};
     (void)app;
-    config_rules(&rules);
-    sort_key = "status";
-    optind = 1;
-    opterr = 0;
-    while ((c = getopt_long(argc, argv, "h", longopts, NULL)) != -1) {
-        int taken = ruleopts_take(c, optarg, &rules, err);
-        if (taken < 0)
-            return PB_EUSAGE;
-        if (taken)
-            continue;
-        switch (c) {
-        case F_JSON:
-            fmt = FLEET_JSON;
-            break;
-        case F_CSV:
-            fmt = FLEET_CSV;
-            break;
-        case F_SORT:
-            if (strcmp(optarg, "status") && strcmp(optarg, "pack") && strcmp(optarg, "cycles") &&
-                strcmp(optarg, "r0") && strcmp(optarg, "r0-ratio") && strcmp(optarg, "capacity") &&
-                strcmp(optarg, "imbalance") && strcmp(optarg, "last"))
-                return pb_error_set(err, PB_EUSAGE,
-                                    "--sort: expected status, pack, cycles, r0, r0-ratio, "
-                                    "capacity, imbalance or last, got '%s'",
-                                    optarg);
-            sort_key = optarg;
-            break;
-        case F_STATUS:
-            if (strcmp(optarg, "ok") && strcmp(optarg, "watch") && strcmp(optarg, "retire") &&
-                strcmp(optarg, "retired"))
-                return pb_error_set(err, PB_EUSAGE,
-                                    "--status: expected ok, watch, retire or "
-                                    "retired, got '%s'",
-                                    optarg);
-            status = optarg;
-            break;
-        case F_ALL:
-            all = 1;
-            break;
-        case F_PREDICT:
-            predict = 1;
-            break;
-        case F_POWER:
-            if (cmd_parse_double("--power", optarg, 0, 1e6, &power_w, err))
-                return PB_EUSAGE;
-            if (!(power_w > 0)) /* no load is no flight (see predict) */
-                return pb_error_set(err, PB_EUSAGE, "--power: expected a load above 0 W, got '%s'",
-                                    optarg);
-            predict = 1;
-            break;
-        case F_DB:
-            db = optarg;
-            break;
-        case 'h':
-            fputs(usage, stdout);
-            fputs(ruleopts_usage, stdout);
-            return cmd_finish_stdout(err);
-        default:
-            return cmd_bad_option("fleet", argc, argv, err);
-        }
-    }
+    cli.fmt = FLEET_TEXT;
+    cli.status = -1; /* any */
+    cli.power_w = NAN;
+    opt_defaults(fleet_table, &cli);
+    config_rules(&cli.rules);
+    int done = 0;
+    struct opt_cmd cmd = {
+        "fleet", usage,      NULL, {{NULL, fleet_table, &cli, NULL}, RULEOPTS_GROUP(&cli.rules)},
+        2,       fleet_hook, &cli};
+    enum pb_code parsed = opt_parse(&cmd, argc, argv, &done, err);
+    if (parsed != PB_OK || done)
+        return parsed;
+    sort_key = sort_words[cli.sort];
+    const char *status = cli.status < 0 ? NULL : status_words[cli.status];
+    const char *db = cli.db;
+    int all = cli.all, predict = cli.predict;
+    double power_w = cli.power_w;
+    enum fleet_format fmt = (enum fleet_format)cli.fmt;
+    struct health_rules rules = cli.rules;
     if (optind < argc)
         return pb_error_set(err, PB_EUSAGE, "fleet: unexpected argument '%s'", argv[optind]);
     struct store *st = NULL;

@@ -4,6 +4,7 @@
  * from the flights each time they are shown, so removing or moving a flight
  * recomputes them; each change prints what it changed. */
 #include <getopt.h>
+#include <stddef.h>
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
@@ -12,6 +13,7 @@
 #include "../core/isotime.h"
 #include "../core/utf8.h"
 #include "cmd.h"
+#include "opt.h"
 #include "packview.h"
 
 static const char usage[] =
@@ -32,32 +34,35 @@ static const char usage[] =
     "  afresh from it (its level is accepted). Again: replaces the note.\n"
     "Each change prints the packs' flights, cycles, baseline R0 and status\n"
     "before and after.\n"
-    "  --note TEXT            what the inspection found (ack, required)\n"
-    "  --to PACK              the pack that really flew (move)\n"
-    "  --json, --csv          machine-readable list (CSV cells starting = + - @ are\n"
-    "                         prefixed with ' so spreadsheets do not run them)\n"
-    "  --db PATH              history database (default: $PACKBOOK_DB, else the\n"
-    "                         settings file's db, else $XDG_DATA_HOME/packbook/packbook.db;\n"
-    "                         see 'packbook config')\n";
-
-enum { FL_JSON = 256, FL_CSV, FL_TO, FL_DB, FL_NOTE };
-
-static const struct option longopts[] = {
-    {"json", no_argument, NULL, FL_JSON},
-    {"csv", no_argument, NULL, FL_CSV},
-    {"to", required_argument, NULL, FL_TO},
-    {"db", required_argument, NULL, FL_DB},
-    {"note", required_argument, NULL, FL_NOTE},
-    {"help", no_argument, NULL, 'h'},
-    {NULL, 0, NULL, 0},
-};
+    "\n";
 
 struct flight_cli {
-    enum fleet_format fmt;
+    int fmt; /* enum fleet_format */
     const char *to, *db;
     const char *note; /* ack */
     const char *arg;  /* PACK for list, ID otherwise; NULL when absent */
 };
+
+#define FLIGHT_AT(field) offsetof(struct flight_cli, field)
+
+/* clang-format off */
+static const struct opt flight_table[] = {
+    {.name = "note", .kind = OPT_STRING, .off = FLIGHT_AT(note), .meta = "TEXT",
+     .help = "what the inspection found (ack, required)"},
+    {.name = "to", .kind = OPT_STRING, .off = FLIGHT_AT(to), .meta = "PACK",
+     .help = "the pack that really flew (move)"},
+    {.name = "json", .kind = OPT_FLAG, .off = FLIGHT_AT(fmt), .set = FLEET_JSON,
+     .help = "machine-readable list: JSON"},
+    {.name = "csv", .kind = OPT_FLAG, .off = FLIGHT_AT(fmt), .set = FLEET_CSV,
+     .help = "or CSV (cells starting = + - @ are prefixed with ' so\n"
+     "spreadsheets do not run them)"},
+    {.name = "db", .kind = OPT_PATH, .off = FLIGHT_AT(db), .meta = "PATH",
+     .help = "history database (default: $PACKBOOK_DB, else the\n"
+     "settings file's db, else $XDG_DATA_HOME/packbook/packbook.db;\n"
+     "see 'packbook config')"},
+    {0},
+};
+/* clang-format on */
 
 static enum pb_code parse_id(const char *verb, const char *arg, int64_t *id, struct pb_error *err)
 {
@@ -227,34 +232,12 @@ static enum pb_code do_ack(struct store *st, const struct flight_cli *cli, struc
 enum pb_code cmd_flight(int argc, char **argv, struct app *app, struct pb_error *err)
 {
     struct flight_cli cli = {FLEET_TEXT, NULL, NULL, NULL, NULL};
-    int c;
     (void)app;
-    optind = 1;
-    opterr = 0;
-    while ((c = getopt_long(argc, argv, "h", longopts, NULL)) != -1) {
-        switch (c) {
-        case FL_JSON:
-            cli.fmt = FLEET_JSON;
-            break;
-        case FL_CSV:
-            cli.fmt = FLEET_CSV;
-            break;
-        case FL_TO:
-            cli.to = optarg;
-            break;
-        case FL_DB:
-            cli.db = optarg;
-            break;
-        case FL_NOTE:
-            cli.note = optarg;
-            break;
-        case 'h':
-            fputs(usage, stdout);
-            return cmd_finish_stdout(err);
-        default:
-            return cmd_bad_option("flight", argc, argv, err);
-        }
-    }
+    int done = 0;
+    struct opt_cmd cmd = {"flight", usage, NULL, {{NULL, flight_table, &cli, NULL}}, 1, NULL, NULL};
+    enum pb_code parsed = opt_parse(&cmd, argc, argv, &done, err);
+    if (parsed != PB_OK || done)
+        return parsed;
     if (optind >= argc)
         return pb_error_set(err, PB_EUSAGE,
                             "flight: expected list, remove, move or ack (see 'packbook flight "

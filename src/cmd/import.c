@@ -4,6 +4,7 @@
 #include <getopt.h>
 #include <math.h>
 #include <pthread.h>
+#include <stddef.h>
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
@@ -39,52 +40,70 @@ static const char usage_head[] =
     "A flight that left its pack's trend (IR or cell imbalance up, capacity down\n"
     "by 4 standard deviations or more) is named after the summary, with how to\n"
     "acknowledge it once inspected ('packbook flight ack').\n"
-    "\n"
-    "  --pack ID              the pack that flew (see 'packbook pack list')\n"
-    "  --date DATE            date for logs without absolute time (ISO 8601)\n"
-    "  --force                store logs that contradict the pack, or that cannot be\n"
-    "                         one flight (over a day long, or over twice the rated\n"
-    "                         charge drawn), all the same; the warnings are kept\n"
-    "  -r, --recursive        also the logs in sub-folders of a DIR\n"
     "A DIR's files that are not logs (another name than .csv, .tsv, .txt, .log,\n"
     ".dat or none, or binary) are skipped with a note, not counted as failures.\n"
-    "  --db PATH              history database (default: $PACKBOOK_DB, else the\n"
-    "                         settings file's db, else $XDG_DATA_HOME/packbook/packbook.db;\n"
-    "                         see 'packbook config')\n"
-    "  --quiet                no line per log, only the summary\n"
-    "  -j, --jobs N           logs analysed at once (default: the number of\n"
-    "                         cores); one thread writes the store, in order\n"
-    "  --wait S               wait up to S seconds for another process's lock on the\n"
-    "                         database (default 60, for each flight)\n";
+    "\n";
 
-enum { I_PACK = 256, I_DATE, I_DB, I_QUIET, I_FORCE, I_WAIT };
-#define I_RECURSIVE 'r'
-
-static const struct option longopts[] = {
-    {"pack", required_argument, NULL, I_PACK},
-    {"date", required_argument, NULL, I_DATE},
-    {"db", required_argument, NULL, I_DB},
-    {"quiet", no_argument, NULL, I_QUIET},
-    {"force", no_argument, NULL, I_FORCE},
-    {"recursive", no_argument, NULL, I_RECURSIVE},
-    {"jobs", required_argument, NULL, 'j'},
-    {"wait", required_argument, NULL, I_WAIT},
-    {"help", no_argument, NULL, 'h'},
-    LOGOPTS_LONG,
-    {NULL, 0, NULL, 0},
-};
+#define IMPORT_MAX_JOBS 64
 
 struct import_cli {
     struct log_cli log;
     struct packopts_seen seen;
-    const char *pack, *db;
+    const char *pack, *db, *date;
     int have_date, quiet, force, recursive;
-    int jobs; /* analysing threads (1: none besides the writer) */
+    int jobs; /* analysing threads (1: none besides the writer; 0: the cores) */
     double date_epoch_s;
     double wait_s; /* --wait */
 };
 
-#define IMPORT_MAX_JOBS 64
+#define IMP_AT(field) offsetof(struct import_cli, field)
+
+/* clang-format off */
+static const struct opt import_table[] = {
+    {.name = "pack", .kind = OPT_STRING, .off = IMP_AT(pack), .meta = "ID",
+     .help = "the pack that flew (see 'packbook pack list')"},
+    {.name = "date", .kind = OPT_STRING, .off = IMP_AT(date), .meta = "DATE",
+     .help = "date for logs without absolute time (ISO 8601)"},
+    {.name = "force", .kind = OPT_FLAG, .off = IMP_AT(force), .set = 1,
+     .help = "store logs that contradict the pack, or that cannot be\n"
+     "one flight (over a day long, or over twice the rated\n"
+     "charge drawn), all the same; the warnings are kept"},
+    {.name = "recursive", .letter = 'r', .kind = OPT_FLAG, .off = IMP_AT(recursive), .set = 1,
+     .help = "also the logs in sub-folders of a DIR"},
+    {.name = "db", .kind = OPT_PATH, .off = IMP_AT(db), .meta = "PATH",
+     .help = "history database (default: $PACKBOOK_DB, else the\n"
+     "settings file's db, else $XDG_DATA_HOME/packbook/packbook.db;\n"
+     "see 'packbook config')"},
+    {.name = "quiet", .kind = OPT_FLAG, .off = IMP_AT(quiet), .set = 1,
+     .help = "no line per log, only the summary"},
+    {.name = "jobs", .letter = 'j', .kind = OPT_INT, .off = IMP_AT(jobs), .lo = 1,
+     .hi = IMPORT_MAX_JOBS, .meta = "N", .what = "a count",
+     .help = "logs analysed at once (default: the number of\n"
+     "cores); one thread writes the store, in order"},
+    {.name = "wait", .kind = OPT_DOUBLE, .off = IMP_AT(wait_s), .lo = 0, .hi = 86400,
+     .def = CMD_STR(STORE_WAIT_DEFAULT_S), .meta = "S",
+     .help = "wait up to S seconds for another process's lock on the\n"
+     "database, for each flight"},
+    {0},
+};
+/* clang-format on */
+
+static int import_hook(void *ctx, const struct opt *o, const char *v, struct pb_error *err)
+{
+    struct import_cli *cli = ctx;
+    if (logopts_is_reading(o))
+        return packopts_note(&cli->seen, o->id, v, err) < 0 ? -1 : 0;
+    if (o == &import_table[1]) {
+        char why[128];
+        if (isotime_parse_why(v, strlen(v), &cli->date_epoch_s, NULL, why, sizeof why) != 0)
+            return pb_error_set(err, PB_EUSAGE,
+                                "--date: expected an ISO 8601 date such as 2026-04-18 or "
+                                "2026-04-18T07:30:00Z, got '%s': %s",
+                                v, why);
+        cli->have_date = 1;
+    }
+    return 0;
+}
 
 struct path_list {
     char **v;
@@ -591,66 +610,15 @@ static void progress(size_t done, size_t total)
 enum pb_code cmd_import(int argc, char **argv, struct app *app, struct pb_error *err)
 {
     struct import_cli cli = {0};
-    int c;
     logopts_init(&cli.log);
-    cli.wait_s = STORE_WAIT_DEFAULT_S;
-    optind = 1;
-    opterr = 0;
-    while ((c = getopt_long(argc, argv, "hrj:", longopts, NULL)) != -1) {
-        int taken = logopts_take(c, optarg, &cli.log, err);
-        if (taken < 0 || (taken && packopts_note(&cli.seen, c, optarg, err) < 0))
-            return PB_EUSAGE;
-        if (taken)
-            continue;
-        switch (c) {
-        case I_PACK:
-            cli.pack = optarg;
-            break;
-        case I_DB:
-            cli.db = optarg;
-            break;
-        case I_QUIET:
-            cli.quiet = 1;
-            break;
-        case I_FORCE:
-            cli.force = 1;
-            break;
-        case I_RECURSIVE:
-            cli.recursive = 1;
-            break;
-        case 'j': {
-            char *end;
-            long v = strtol(optarg, &end, 10);
-            if (*end || end == optarg || v < 1 || v > IMPORT_MAX_JOBS)
-                return pb_error_set(err, PB_EUSAGE,
-                                    "--jobs: expected a count from 1 to %d, got '%s'",
-                                    IMPORT_MAX_JOBS, optarg);
-            cli.jobs = (int)v;
-            break;
-        }
-        case I_WAIT:
-            if (cmd_parse_double("--wait", optarg, 0, 86400, &cli.wait_s, err))
-                return PB_EUSAGE;
-            break;
-        case I_DATE: {
-            char why[128];
-            if (isotime_parse_why(optarg, strlen(optarg), &cli.date_epoch_s, NULL, why,
-                                  sizeof why) != 0)
-                return pb_error_set(err, PB_EUSAGE,
-                                    "--date: expected an ISO 8601 date such as "
-                                    "2026-04-18 or 2026-04-18T07:30:00Z, got '%s': %s",
-                                    optarg, why);
-            cli.have_date = 1;
-            break;
-        }
-        case 'h':
-            fputs(usage_head, stdout);
-            fputs(logopts_usage, stdout);
-            return cmd_finish_stdout(err);
-        default:
-            return cmd_bad_option("import", argc, argv, err);
-        }
-    }
+    opt_defaults(import_table, &cli);
+    int done = 0;
+    struct opt_cmd cmd = {
+        "import", usage_head,  NULL, {{NULL, import_table, &cli, NULL}, LOGOPTS_GROUP(&cli.log)},
+        2,        import_hook, &cli};
+    enum pb_code parsed = opt_parse(&cmd, argc, argv, &done, err);
+    if (parsed != PB_OK || done)
+        return parsed;
     enum pb_code rc = logopts_finish(&cli.log, err);
     if (rc != PB_OK)
         return rc;

@@ -1,29 +1,9 @@
 #include "logopts.h"
 
+#include <stddef.h>
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
-
-const char logopts_usage[] =
-    "  --cut-off V            cut-off voltage per cell under load (default: per\n"
-    "                         chemistry; --floor is the old name)\n"
-    "reading the log:\n"
-    "  --columns LIST         column layout for a log without a header, e.g.\n"
-    "                         time_s,voltage_v,current_a ('-' skips a column)\n"
-    "  --map LIST             override detection, e.g. voltage_v=VBAT,current_ma=3\n"
-    "  --delimiter D          comma, semicolon, tab or one character (default: detected)\n"
-    "  --decimal D            point or comma (default: detected)\n"
-    "  --current-sign S       auto, discharge-positive or discharge-negative (default: auto)\n"
-    "  --adc-scale A          amps per ADC count for a raw current column\n"
-    "  --adc-offset COUNTS    ADC reading at zero current (default 0)\n"
-    "  --adc-bits N --adc-vref V --sense-ratio R --sense-ohm OHM\n"
-    "                         or the sense chain, from which amps per count follow\n"
-    "analysis:\n"
-    "  --gap S                intervals longer than this are reported as gaps\n"
-    "                         (default: the larger of 1 s and 5 median intervals)\n"
-    "  --rest-current A       |current| at or below this counts as rest\n"
-    "                         (default: the larger of 0.05 A and 1 % of peak)\n"
-    "  --fit M                robust (default) or ols (plain least squares)\n";
 
 void logopts_init(struct log_cli *cli)
 {
@@ -31,122 +11,135 @@ void logopts_init(struct log_cli *cli)
     cli->an.chemistry = -1;
 }
 
+#define LOG_AT(field) offsetof(struct log_cli, field)
+
+static const char *const signs[] = {"auto", "discharge-positive", "discharge-negative", NULL};
+static const int sign_values[] = {SIGN_AUTO, SIGN_DISCHARGE_POSITIVE, SIGN_DISCHARGE_NEGATIVE};
+static const char *const fits[] = {"robust", "ols", NULL};
+
+/* clang-format off */
+const struct opt logopts_table[] = {
+    {.name = "cut-off", .alias = "floor", .kind = OPT_DOUBLE, .id = LO_FLOOR,
+     .off = LOG_AT(an.floor_v), .lo = 0.5, .hi = 5.0, .meta = "V",
+     .help = "cut-off voltage per cell under load (default: per chemistry)"},
+    {.name = "columns", .kind = OPT_STRING, .id = LO_COLUMNS, .off = LOG_AT(read.columns),
+     .meta = "LIST", .help = "column layout for a log without a header, e.g.\n"
+     "time_s,voltage_v,current_a ('-' skips a column)"},
+    {.name = "map", .kind = OPT_STRING, .id = LO_MAP, .off = LOG_AT(read.map), .meta = "LIST",
+     .help = "override detection, e.g. voltage_v=VBAT,current_ma=3"},
+    {.name = "delimiter", .kind = OPT_STRING, .id = LO_DELIM, .off = OPT_NOWHERE, .meta = "D",
+     .help = "comma, semicolon, tab or one character (default: detected)"},
+    {.name = "decimal", .kind = OPT_STRING, .id = LO_DECIMAL, .off = OPT_NOWHERE, .meta = "D",
+     .help = "point or comma (default: detected)"},
+    {.name = "current-sign", .kind = OPT_KEYWORD, .id = LO_SIGN, .off = LOG_AT(read.sign),
+     .words = signs, .values = sign_values, .def = "auto", .meta = "S",
+     .help = "auto, discharge-positive or discharge-negative"},
+    {.name = "adc-scale", .kind = OPT_DOUBLE, .id = LO_ADC_SCALE,
+     .off = LOG_AT(read.adc_a_per_count), .lo = -1e6, .hi = 1e6, .meta = "A",
+     .help = "amps per ADC count for a raw current column"},
+    {.name = "adc-offset", .kind = OPT_DOUBLE, .id = LO_ADC_OFFSET,
+     .off = LOG_AT(read.adc_offset_counts), .lo = -1e9, .hi = 1e9, .def = "0", .meta = "COUNTS",
+     .help = "ADC reading at zero current"},
+    {.name = "adc-bits", .kind = OPT_INT, .id = LO_ADC_BITS, .off = LOG_AT(adc_bits), .lo = 1,
+     .hi = 32, .meta = "N", .help = "or the sense chain, from which amps per count follow:\n"
+     "ADC resolution,"},
+    {.name = "adc-vref", .kind = OPT_DOUBLE, .id = LO_ADC_VREF, .off = LOG_AT(adc_vref),
+     .lo = 1e-3, .hi = 100, .meta = "V", .help = "its reference voltage,"},
+    {.name = "sense-ratio", .kind = OPT_DOUBLE, .id = LO_SENSE_RATIO, .off = LOG_AT(sense_ratio),
+     .lo = 1e-6, .hi = 1e9, .meta = "R", .help = "the current sensor's ratio (I / sense current)"},
+    {.name = "sense-ohm", .kind = OPT_DOUBLE, .id = LO_SENSE_OHM, .off = LOG_AT(sense_ohm),
+     .lo = 1e-9, .hi = 1e9, .meta = "OHM", .help = "and its sense resistor"},
+    {.name = "gap", .kind = OPT_DOUBLE, .id = LO_GAP, .off = LOG_AT(an.gap_s), .lo = 1e-6,
+     .hi = 1e9, .meta = "S", .help = "intervals longer than this are reported as gaps\n"
+     "(default: the larger of 1 s and 5 median intervals)"},
+    {.name = "rest-current", .kind = OPT_DOUBLE, .id = LO_REST, .off = LOG_AT(an.rest_a),
+     .lo = 0.0, .hi = 1e4, .meta = "A", .help = "|current| at or below this counts as rest\n"
+     "(default: the larger of 0.05 A and 1 % of peak)"},
+    {.name = "fit", .kind = OPT_KEYWORD, .id = LO_FIT, .off = LOG_AT(an.plain_fit), .words = fits,
+     .def = "robust", .meta = "M", .help = "robust or ols (plain least squares)"},
+    {0},
+};
+
+const struct opt logopts_pack_table[] = {
+    {.name = "cells", .kind = OPT_INT, .id = LO_CELLS, .off = LOG_AT(an.cells), .lo = 1,
+     .hi = PB_MAX_CELLS, .meta = "N",
+     .help = "series cell count (default: from cell columns or inferred)"},
+    {.name = "chemistry", .kind = OPT_STRING, .id = LO_CHEM, .off = OPT_NOWHERE, .meta = "C",
+     .help = "lipo, lihv, nmc or lfp, any case (default: lipo, with a warning)"},
+    {.name = "capacity", .kind = OPT_DOUBLE, .id = LO_CAP, .off = LOG_AT(an.capacity_mah),
+     .lo = 1, .hi = 1e7, .meta = "MAH",
+     .help = "rated capacity, for C-rates and capacity as % of rated"},
+    {0},
+};
+/* clang-format on */
+
+int logopts_is_reading(const struct opt *o)
+{
+    return o >= logopts_table && o < logopts_table + sizeof logopts_table / sizeof *logopts_table;
+}
+
 static int parse_char_choice(const char *opt, const char *v, char *out, struct pb_error *err)
 {
-    if (strcmp(v, "comma") == 0)
-        *out = ',';
-    else if (strcmp(v, "semicolon") == 0)
-        *out = ';';
-    else if (strcmp(v, "tab") == 0)
-        *out = '\t';
-    else if (strcmp(v, "point") == 0)
-        *out = '.';
-    else if (strlen(v) == 1 && v[0] != '"' && v[0] != '\n')
+    static const char *const names[] = {"comma", "semicolon", "tab", "point", NULL};
+    static const char chars[] = {',', ';', '\t', '.'};
+    if (strlen(v) == 1 && v[0] != '"' && v[0] != '\n') {
         *out = v[0];
-    else {
+        return 0;
+    }
+    int k = cmd_keyword(opt, v, names, err);
+    if (k < 0) {
         pb_error_set(err, PB_EUSAGE,
-                     "%s: expected comma, semicolon, tab, point or one character, "
-                     "got '%s'",
-                     opt, v);
+                     "%s: expected comma, semicolon, tab, point or one character, got '%s'", opt,
+                     v);
         return -1;
     }
+    *out = chars[k];
     return 0;
 }
 
-int logopts_take(int c, const char *v, struct log_cli *cli, struct pb_error *err)
+int logopts_after(void *base, const struct opt *o, const char *v, struct pb_error *err)
 {
-    int bad = 0;
-    switch (c) {
-    case LO_FLOOR:
-        bad = cmd_parse_double("--cut-off", v, 0.5, 5.0, &cli->an.floor_v, err);
-        break;
-    case LO_COLUMNS:
-        cli->read.columns = v;
-        break;
-    case LO_MAP:
-        cli->read.map = v;
-        break;
+    struct log_cli *cli = base;
+    switch (o->id) {
     case LO_DELIM:
-        bad = parse_char_choice("--delimiter", v, &cli->read.delimiter, err);
-        break;
+        return parse_char_choice("--delimiter", v, &cli->read.delimiter, err);
     case LO_DECIMAL:
-        bad = parse_char_choice("--decimal", v, &cli->read.decimal, err);
-        if (!bad && cli->read.decimal != '.' && cli->read.decimal != ',') {
+        if (parse_char_choice("--decimal", v, &cli->read.decimal, err) != 0)
+            return -1;
+        if (cli->read.decimal != '.' && cli->read.decimal != ',') {
             pb_error_set(err, PB_EUSAGE, "--decimal: expected point or comma, got '%s'", v);
-            bad = 1;
+            return -1;
         }
-        break;
-    case LO_SIGN:
-        if (strcmp(v, "auto") == 0)
-            cli->read.sign = SIGN_AUTO;
-        else if (strcmp(v, "discharge-positive") == 0)
-            cli->read.sign = SIGN_DISCHARGE_POSITIVE;
-        else if (strcmp(v, "discharge-negative") == 0)
-            cli->read.sign = SIGN_DISCHARGE_NEGATIVE;
-        else {
-            pb_error_set(err, PB_EUSAGE,
-                         "--current-sign: expected auto, discharge-positive or "
-                         "discharge-negative, got '%s'",
-                         v);
-            bad = 1;
-        }
-        break;
+        return 0;
     case LO_ADC_SCALE:
-        bad = cmd_parse_double("--adc-scale", v, -1e6, 1e6, &cli->read.adc_a_per_count, err);
         cli->read.have_adc = 1;
-        break;
-    case LO_ADC_OFFSET:
-        bad = cmd_parse_double("--adc-offset", v, -1e9, 1e9, &cli->read.adc_offset_counts, err);
-        break;
-    case LO_ADC_BITS:
-        bad = cmd_parse_int("--adc-bits", v, 1, 32, &cli->adc_bits, err);
-        break;
-    case LO_ADC_VREF:
-        bad = cmd_parse_double("--adc-vref", v, 1e-3, 100, &cli->adc_vref, err);
-        break;
-    case LO_SENSE_RATIO:
-        bad = cmd_parse_double("--sense-ratio", v, 1e-6, 1e9, &cli->sense_ratio, err);
-        break;
-    case LO_SENSE_OHM:
-        bad = cmd_parse_double("--sense-ohm", v, 1e-9, 1e9, &cli->sense_ohm, err);
-        break;
-    case LO_GAP:
-        bad = cmd_parse_double("--gap", v, 1e-6, 1e9, &cli->an.gap_s, err);
-        break;
-    case LO_REST:
-        bad = cmd_parse_double("--rest-current", v, 0.0, 1e4, &cli->an.rest_a, err);
-        break;
-    case LO_FIT:
-        if (strcmp(v, "robust") == 0)
-            cli->an.plain_fit = 0;
-        else if (strcmp(v, "ols") == 0)
-            cli->an.plain_fit = 1;
-        else {
-            pb_error_set(err, PB_EUSAGE, "--fit: expected robust or ols, got '%s'", v);
-            bad = 1;
-        }
-        break;
-    case LO_CELLS:
-        bad = cmd_parse_int("--cells", v, 1, PB_MAX_CELLS, &cli->an.cells, err);
-        break;
+        return 0;
     case LO_CHEM: {
         const struct chem_info *ch = ocv_chem_by_name(v);
         if (!ch) {
             pb_error_set(err, PB_EUSAGE, "--chemistry: expected lipo, lihv, nmc or lfp, got '%s'",
                          v);
-            bad = 1;
-        } else {
-            cli->an.chemistry = (int)ch->id;
+            return -1;
         }
-        break;
+        cli->an.chemistry = (int)ch->id;
+        return 0;
     }
-    case LO_CAP:
-        bad = cmd_parse_double("--capacity", v, 1, 1e7, &cli->an.capacity_mah, err);
-        break;
     default:
         return 0;
     }
-    return bad ? -1 : 1;
+}
+
+int logopts_take(int c, const char *v, struct log_cli *cli, struct pb_error *err)
+{
+    const struct opt *o = opt_by_id(logopts_table, c);
+    if (!o)
+        o = opt_by_id(logopts_pack_table, c);
+    if (!o)
+        return 0;
+    if ((o->off != OPT_NOWHERE && opt_take(o, cli, v, err) != 0) ||
+        logopts_after(cli, o, v, err) != 0)
+        return -1;
+    return 1;
 }
 
 enum pb_code logopts_finish(struct log_cli *cli, struct pb_error *err)
@@ -182,6 +175,7 @@ enum pb_code logopts_analyze(const char *path, const struct log_cli *cli,
     /* the pack's cell count and rating bound what a sample may hold */
     struct logread_opts ro = cli->read;
     ro.cells = cli->read_without_cells ? 0 : cli->an.cells;
+    ro.pack_cells = cli->an.cells; /* a dropped cell column is still the pack's */
     ro.rated_mah = cli->an.capacity_mah;
     s = logread_file(fp, name, &ro, stats, err);
     if (!s) {

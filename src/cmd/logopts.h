@@ -4,12 +4,11 @@
 #ifndef PB_LOGOPTS_H
 #define PB_LOGOPTS_H
 
-#include <getopt.h>
-
 #include "../core/analyze.h"
 #include "../core/logread.h"
 #include "../core/plausible.h"
 #include "cmd.h"
+#include "opt.h"
 
 enum {
     LO_FLOOR = 300,
@@ -32,37 +31,30 @@ enum {
     LO_CAP,
 };
 
-/* Entries for a command's getopt_long table. */
-#define LOGOPTS_LONG                                                                               \
-    {"cut-off", required_argument, NULL, LO_FLOOR},                                                \
-        {"floor", required_argument, NULL, LO_FLOOR}, /* the old name, kept */                     \
-        {"columns", required_argument, NULL, LO_COLUMNS},                                          \
-        {"map", required_argument, NULL, LO_MAP},                                                  \
-        {"delimiter", required_argument, NULL, LO_DELIM},                                          \
-        {"decimal", required_argument, NULL, LO_DECIMAL},                                          \
-        {"current-sign", required_argument, NULL, LO_SIGN},                                        \
-        {"adc-scale", required_argument, NULL, LO_ADC_SCALE},                                      \
-        {"adc-offset", required_argument, NULL, LO_ADC_OFFSET},                                    \
-        {"adc-bits", required_argument, NULL, LO_ADC_BITS},                                        \
-        {"adc-vref", required_argument, NULL, LO_ADC_VREF},                                        \
-        {"sense-ratio", required_argument, NULL, LO_SENSE_RATIO},                                  \
-        {"sense-ohm", required_argument, NULL, LO_SENSE_OHM},                                      \
-        {"gap", required_argument, NULL, LO_GAP},                                                  \
-        {"rest-current", required_argument, NULL, LO_REST},                                        \
-    {                                                                                              \
-        "fit", required_argument, NULL, LO_FIT                                                     \
-    }
+/* The reading and analysis options (their values go into struct log_cli),
+ * for a verb's option groups and for the settings a pack or the settings
+ * file remembers (packopts, config: by name, without the dashes). */
+extern const struct opt logopts_table[];
 
 /* The pack of a single log, for commands that read one without the
- * history (analyze, predict --log): --cells, --chemistry, --capacity. */
-#define LOGOPTS_PACK_LONG                                                                          \
-    {"cells", required_argument, NULL, LO_CELLS}, {"chemistry", required_argument, NULL, LO_CHEM}, \
+ * history (analyze, plot, predict --log): --cells, --chemistry, --capacity. */
+extern const struct opt logopts_pack_table[];
+
+/* The follow-up of those options' values (the ADC flag, the delimiter's
+ * words, the chemistry's id): an opt_after_fn with base a struct log_cli. */
+int logopts_after(void *base, const struct opt *o, const char *val, struct pb_error *err);
+
+#define LOGOPTS_GROUP(cli)                                                                         \
     {                                                                                              \
-        "capacity", required_argument, NULL, LO_CAP                                                \
+        "reading the log, and analysis:", logopts_table, (cli), logopts_after                      \
+    }
+#define LOGOPTS_PACK_GROUP(cli, title)                                                             \
+    {                                                                                              \
+        (title), logopts_pack_table, (cli), logopts_after                                          \
     }
 
-/* The help text for those options. */
-extern const char logopts_usage[];
+/* Whether o is one of logopts_table's (a reading option a pack remembers). */
+int logopts_is_reading(const struct opt *o);
 
 struct log_cli {
     struct logread_opts read;
@@ -78,8 +70,9 @@ struct log_cli {
 
 void logopts_init(struct log_cli *cli);
 
-/* Takes option c if it is one of LOGOPTS_LONG: returns 1 (taken), 0 (not
- * ours) or -1 (bad value, err filled). */
+/* Takes the option with id c if it is one of logopts_table or
+ * logopts_pack_table: returns 1 (taken), 0 (not ours) or -1 (bad value, err
+ * filled). */
 int logopts_take(int c, const char *arg, struct log_cli *cli, struct pb_error *err);
 
 /* Checks the options together (the sense chain) once all are parsed. */

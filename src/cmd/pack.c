@@ -1,6 +1,7 @@
 /* packbook pack add|list|show|edit|retire|unretire: the pack register. */
 #include <getopt.h>
 #include <math.h>
+#include <stddef.h>
 #include <stdio.h>
 #include <string.h>
 
@@ -39,54 +40,114 @@ static const char usage[] =
     "every command given --pack ID uses them; options given there override them\n"
     "(any ADC or sense-chain option replaces the whole remembered chain). edit\n"
     "adds to or replaces the remembered ones; --clear-settings forgets them first.\n"
-    "  --db PATH              history database (default: $PACKBOOK_DB, else the\n"
-    "                         settings file's db, else $XDG_DATA_HOME/packbook/packbook.db;\n"
-    "                         see 'packbook config')\n"
-    "  --wait S               wait up to S seconds for another process's lock on the\n"
-    "                         database (default 60)\n";
-
-enum {
-    P_CELLS = 256,
-    P_PAR,
-    P_CHEM,
-    P_CAP,
-    P_SINCE,
-    P_NOTE,
-    P_REASON,
-    P_JSON,
-    P_DB,
-    P_NAME,
-    P_CLEAR,
-    P_CSV,
-    P_WAIT
-};
-
-static const struct option longopts[] = {
-    {"cells", required_argument, NULL, P_CELLS},
-    {"parallel", required_argument, NULL, P_PAR},
-    {"chemistry", required_argument, NULL, P_CHEM},
-    {"capacity", required_argument, NULL, P_CAP},
-    {"since", required_argument, NULL, P_SINCE},
-    {"note", required_argument, NULL, P_NOTE},
-    {"reason", required_argument, NULL, P_REASON},
-    {"name", required_argument, NULL, P_NAME},
-    {"clear-settings", no_argument, NULL, P_CLEAR},
-    LOGOPTS_LONG,
-    {"json", no_argument, NULL, P_JSON},
-    {"csv", no_argument, NULL, P_CSV},
-    {"db", required_argument, NULL, P_DB},
-    {"wait", required_argument, NULL, P_WAIT},
-    {"help", no_argument, NULL, 'h'},
-    {NULL, 0, NULL, 0},
-};
+    "\n";
 
 struct pack_cli {
     struct pack_rec rec;
-    const char *reason, *db, *name;
+    const char *reason, *db, *name, *chem, *since, *note;
     int json, have_cells, have_chem, have_cap, have_par, have_since, have_note, clear;
     struct packopts_seen seen; /* reading options to remember */
     double wait_s;
+    struct log_cli scratch; /* where the reading options' values are checked */
 };
+
+#define PACK_AT(field) offsetof(struct pack_cli, field)
+
+/* clang-format off */
+static const struct opt pack_table[] = {
+    {.name = "cells", .kind = OPT_INT, .off = PACK_AT(rec.cells), .lo = 1, .hi = PB_MAX_CELLS,
+     .meta = "N", .help = "series cell count"},
+    {.name = "parallel", .kind = OPT_INT, .off = PACK_AT(rec.parallel), .lo = 1, .hi = 64,
+     .def = "1", .meta = "P", .help = "cells in parallel"},
+    {.name = "chemistry", .kind = OPT_STRING, .off = PACK_AT(chem), .meta = "C",
+     .help = "lipo, lihv, nmc or lfp, in any case"},
+    {.name = "capacity", .kind = OPT_DOUBLE, .off = PACK_AT(rec.capacity_mah), .lo = 1,
+     .hi = 1e7, .meta = "MAH", .help = "rated capacity"},
+    {.name = "since", .kind = OPT_STRING, .off = PACK_AT(since), .meta = "DATE",
+     .help = "in service since (a date like 2026-03-01; '' clears it)"},
+    {.name = "note", .kind = OPT_STRING, .off = PACK_AT(note), .meta = "TEXT",
+     .help = "a note kept with the pack ('' clears it)"},
+    {.name = "reason", .kind = OPT_STRING, .off = PACK_AT(reason), .meta = "TEXT",
+     .help = "retire: why the pack is retired"},
+    {.name = "name", .kind = OPT_STRING, .off = PACK_AT(name), .meta = "NEW-ID",
+     .help = "edit: a new ID (label) for the pack"},
+    {.name = "clear-settings", .kind = OPT_FLAG, .off = PACK_AT(clear), .set = 1,
+     .help = "edit: forget the remembered reading settings first"},
+    {.name = "json", .kind = OPT_FLAG, .off = PACK_AT(json), .set = 1,
+     .help = "list, show: JSON on standard output"},
+    {.name = "csv", .kind = OPT_FLAG, .off = PACK_AT(json), .set = 2,
+     .help = "list, show: CSV on standard output (show: the flights' table)"},
+    {.name = "db", .kind = OPT_PATH, .off = PACK_AT(db), .meta = "PATH",
+     .help = "history database (default: $PACKBOOK_DB, else the\n"
+     "settings file's db, else $XDG_DATA_HOME/packbook/packbook.db;\n"
+     "see 'packbook config')"},
+    {.name = "wait", .kind = OPT_DOUBLE, .off = PACK_AT(wait_s), .lo = 0, .hi = 86400,
+     .def = CMD_STR(STORE_WAIT_DEFAULT_S), .meta = "S",
+     .help = "wait up to S seconds for another process's lock on the database"},
+    {0},
+};
+/* clang-format on */
+
+static int valid_date(const char *s, char *why, size_t cap);
+static int check_text(const char *what, const char *v, size_t max_bytes, struct pb_error *err);
+
+static int pack_hook(void *ctx, const struct opt *o, const char *v, struct pb_error *err)
+{
+    struct pack_cli *cli = ctx;
+    if (logopts_is_reading(o))
+        return packopts_note(&cli->seen, o->id, v, err) < 0 ? -1 : 0;
+    size_t k = (size_t)(o - pack_table);
+    switch (k) {
+    case 0:
+        cli->have_cells = 1;
+        break;
+    case 1:
+        cli->have_par = 1;
+        break;
+    case 2:
+        if (!ocv_chem_by_name(v))
+            return pb_error_set(err, PB_EUSAGE,
+                                "--chemistry: expected lipo, lihv, nmc or lfp, got '%s'", v);
+        /* the canonical spelling, whatever the case given */
+        snprintf(cli->rec.chemistry, sizeof cli->rec.chemistry, "%s", ocv_chem_by_name(v)->name);
+        cli->have_chem = 1;
+        break;
+    case 3:
+        cli->have_cap = 1;
+        break;
+    case 4: {
+        cli->have_since = 1;
+        if (!*v) {
+            cli->rec.since[0] = '\0';
+            break;
+        }
+        char why[128];
+        if (!valid_date(v, why, sizeof why))
+            return pb_error_set(err, PB_EUSAGE,
+                                "--since: expected a date like 2026-03-01, got '%s': %s", v, why);
+        snprintf(cli->rec.since, sizeof cli->rec.since, "%.10s", v);
+        break;
+    }
+    case 5:
+        if (check_text("--note", v, sizeof cli->rec.note - 1, err) != 0)
+            return -1;
+        snprintf(cli->rec.note, sizeof cli->rec.note, "%s", v);
+        cli->have_note = 1;
+        break;
+    case 6:
+        if (check_text("--reason", v, sizeof cli->rec.retire_reason - 1, err) != 0)
+            return -1;
+        break;
+    case 7:
+        if (!*v || strlen(v) >= sizeof cli->rec.label)
+            return pb_error_set(err, PB_EUSAGE, "--name: the ID must be 1 to %zu bytes",
+                                sizeof cli->rec.label - 1);
+        if (check_text("--name", v, sizeof cli->rec.label - 1, err) != 0)
+            return -1;
+        break;
+    }
+    return 0;
+}
 
 static enum pb_code cmd_add(struct store *st, struct pack_cli *cli, struct pb_error *err)
 {
@@ -279,102 +340,25 @@ static int check_text(const char *what, const char *v, size_t max_bytes, struct 
 enum pb_code cmd_pack(int argc, char **argv, struct app *app, struct pb_error *err)
 {
     struct pack_cli cli = {0};
-    int c;
     (void)app;
     /* pair and unpair have their own options (pair.c) */
     if (argc >= 2 && (strcmp(argv[1], "pair") == 0 || strcmp(argv[1], "unpair") == 0))
         return cmd_pack_pair(argc - 1, argv + 1, err);
-    cli.rec.parallel = 1;
-    cli.wait_s = STORE_WAIT_DEFAULT_S;
-    optind = 1;
-    opterr = 0;
-    while ((c = getopt_long(argc, argv, "h", longopts, NULL)) != -1) {
-        const char *v = optarg;
-        int noted = packopts_note(&cli.seen, c, v, err);
-        if (noted < 0)
-            return PB_EUSAGE;
-        if (noted)
-            continue;
-        switch (c) {
-        case P_CELLS:
-            if (cmd_parse_int("--cells", v, 1, PB_MAX_CELLS, &cli.rec.cells, err))
-                return PB_EUSAGE;
-            cli.have_cells = 1;
-            break;
-        case P_PAR:
-            if (cmd_parse_int("--parallel", v, 1, 64, &cli.rec.parallel, err))
-                return PB_EUSAGE;
-            cli.have_par = 1;
-            break;
-        case P_CHEM:
-            if (!ocv_chem_by_name(v))
-                return pb_error_set(err, PB_EUSAGE,
-                                    "--chemistry: expected lipo, lihv, nmc or lfp, got '%s'", v);
-            /* the canonical spelling, whatever the case given */
-            snprintf(cli.rec.chemistry, sizeof cli.rec.chemistry, "%s", ocv_chem_by_name(v)->name);
-            cli.have_chem = 1;
-            break;
-        case P_CAP:
-            if (cmd_parse_double("--capacity", v, 1, 1e7, &cli.rec.capacity_mah, err))
-                return PB_EUSAGE;
-            cli.have_cap = 1;
-            break;
-        case P_SINCE: {
-            cli.have_since = 1;
-            if (!*v) {
-                cli.rec.since[0] = '\0';
-                break;
-            }
-            char why[128];
-            if (!valid_date(v, why, sizeof why))
-                return pb_error_set(err, PB_EUSAGE,
-                                    "--since: expected a date like 2026-03-01, got '%s': %s", v,
-                                    why);
-            snprintf(cli.rec.since, sizeof cli.rec.since, "%.10s", v);
-            break;
-        }
-        case P_NOTE:
-            if (check_text("--note", v, sizeof cli.rec.note - 1, err) != 0)
-                return PB_EUSAGE;
-            snprintf(cli.rec.note, sizeof cli.rec.note, "%s", v);
-            cli.have_note = 1;
-            break;
-        case P_REASON:
-            if (check_text("--reason", v, sizeof cli.rec.retire_reason - 1, err) != 0)
-                return PB_EUSAGE;
-            cli.reason = v;
-            break;
-        case P_NAME:
-            if (!*v || strlen(v) >= sizeof cli.rec.label)
-                return pb_error_set(err, PB_EUSAGE, "--name: the ID must be 1 to %zu bytes",
-                                    sizeof cli.rec.label - 1);
-            if (check_text("--name", v, sizeof cli.rec.label - 1, err) != 0)
-                return PB_EUSAGE;
-            cli.name = v;
-            break;
-        case P_CLEAR:
-            cli.clear = 1;
-            break;
-        case P_JSON:
-            cli.json = 1;
-            break;
-        case P_CSV:
-            cli.json = 2; /* CSV: the flights' table */
-            break;
-        case P_DB:
-            cli.db = v;
-            break;
-        case P_WAIT:
-            if (cmd_parse_double("--wait", v, 0, 86400, &cli.wait_s, err))
-                return PB_EUSAGE;
-            break;
-        case 'h':
-            fputs(usage, stdout);
-            return cmd_finish_stdout(err);
-        default:
-            return cmd_bad_option("pack", argc, argv, err);
-        }
-    }
+    opt_defaults(pack_table, &cli);
+    logopts_init(&cli.scratch);
+    int done = 0;
+    struct opt_cmd cmd = {
+        "pack",
+        usage,
+        NULL,
+        {{NULL, pack_table, &cli, NULL},
+         {"reading settings to remember (READING):", logopts_table, &cli.scratch, logopts_after}},
+        2,
+        pack_hook,
+        &cli};
+    enum pb_code parsed = opt_parse(&cmd, argc, argv, &done, err);
+    if (parsed != PB_OK || done)
+        return parsed;
     if (optind >= argc)
         return pb_error_set(err, PB_EUSAGE,
                             "pack: expected add, list, show, edit, retire or unretire (see "

@@ -6,22 +6,14 @@
 #include <stdlib.h>
 #include <string.h>
 
-static const struct option reading[] = {LOGOPTS_LONG, {NULL, 0, NULL, 0}};
-
-static const struct option *by_val(int c)
+static const struct opt *by_val(int c)
 {
-    for (const struct option *o = reading; o->name; o++)
-        if (o->val == c)
-            return o;
-    return NULL;
+    return opt_by_id(logopts_table, c);
 }
 
-static const struct option *by_name(const char *name, size_t len)
+static const struct opt *by_name(const char *name, size_t len)
 {
-    for (const struct option *o = reading; o->name; o++)
-        if (strlen(o->name) == len && strncmp(o->name, name, len) == 0)
-            return o;
-    return NULL;
+    return opt_by_name(logopts_table, name, len);
 }
 
 /* The ADC scale and the sense chain say one thing: amps per count. */
@@ -56,8 +48,8 @@ static int text_has(const char *settings, int c)
         const char *end = strchr(p, '\n');
         size_t len = end ? (size_t)(end - p) : strlen(p);
         const char *eq = memchr(p, '=', len);
-        const struct option *o = eq ? by_name(p, (size_t)(eq - p)) : NULL;
-        if (o && (o->val == c || (adc_group(c) && adc_group(o->val))))
+        const struct opt *o = eq ? by_name(p, (size_t)(eq - p)) : NULL;
+        if (o && (o->id == c || (adc_group(c) && adc_group(o->id))))
             return 1;
         p += len + (end != NULL);
     }
@@ -83,13 +75,13 @@ static enum pb_code each_setting(const char *settings, const struct packopts_see
         const char *end = strchr(p, '\n');
         size_t len = end ? (size_t)(end - p) : strlen(p);
         const char *eq = memchr(p, '=', len);
-        const struct option *o = eq ? by_name(p, (size_t)(eq - p)) : NULL;
+        const struct opt *o = eq ? by_name(p, (size_t)(eq - p)) : NULL;
         if (!o)
             return pb_error_set(err, PB_ESTORE,
                                 "a pack's settings hold '%.*s', not a reading "
                                 "option",
                                 (int)len, p);
-        if (!seen_has(seen, o->val) && take(ctx, o->val, eq + 1, err) < 0)
+        if (!seen_has(seen, o->id) && take(ctx, o->id, eq + 1, err) < 0)
             return err->code;
         p += len + (end != NULL);
     }
@@ -116,9 +108,9 @@ enum pb_code packopts_apply(char *settings, const struct packopts_seen *seen, st
         if (end)
             *end = '\0';
         char *eq = strchr(p, '=');
-        const struct option *o = eq ? by_name(p, (size_t)(eq - p)) : NULL;
-        if (o && !seen_has(seen, o->val) && !text_has(settings, o->val) &&
-            logopts_take(o->val, eq + 1, log, err) < 0)
+        const struct opt *o = eq ? by_name(p, (size_t)(eq - p)) : NULL;
+        if (o && !seen_has(seen, o->id) && !text_has(settings, o->id) &&
+            logopts_take(o->id, eq + 1, log, err) < 0)
             return err->code;
         p = end ? end + 1 : p + strlen(p);
     }
@@ -128,11 +120,11 @@ enum pb_code packopts_apply(char *settings, const struct packopts_seen *seen, st
         if (end)
             *end = '\0';
         char *eq = strchr(p, '=');
-        const struct option *o = eq ? by_name(p, (size_t)(eq - p)) : NULL;
+        const struct opt *o = eq ? by_name(p, (size_t)(eq - p)) : NULL;
         if (!o)
             return pb_error_set(err, PB_ESTORE, "a pack's settings hold '%s', not a reading option",
                                 p);
-        if (!seen_has(seen, o->val) && logopts_take(o->val, eq + 1, log, err) < 0)
+        if (!seen_has(seen, o->id) && logopts_take(o->id, eq + 1, log, err) < 0)
             return err->code;
         p = end ? end + 1 : p + strlen(p);
     }
@@ -150,7 +142,7 @@ struct merge_ctx {
 
 static void put(struct merge_ctx *m, int c, const char *value, size_t len)
 {
-    const struct option *o = by_val(c);
+    const struct opt *o = by_val(c);
     int n = snprintf(m->out + m->used, m->cap - m->used, "%s=%.*s\n", o->name, (int)len, value);
     if (n < 0 || (size_t)n >= m->cap - m->used)
         m->overflow = 1;

@@ -18,7 +18,7 @@ struct packopts_seen {
     const char *arg[PACKOPTS_MAX];
 };
 
-/* Records option c (one of LOGOPTS_LONG) with its value; returns 1 when c
+/* Records option c (an id of logopts_table) with its value; returns 1 when c
  * is one, 0 otherwise, -1 (err filled) when there are too many. */
 int packopts_note(struct packopts_seen *seen, int c, const char *arg, struct pb_error *err);
 

@@ -5,153 +5,89 @@
 #include "config.h"
 
 #include <math.h>
+#include <stddef.h>
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
 #include <unistd.h>
 
-const char ruleopts_usage
-    [] = "retirement rules (retire level; watch levels are " HEALTH_STR(HEALTH_WATCH_CAPACITY_PCT) " %, " HEALTH_STR(HEALTH_WATCH_R0_RATIO) "x, " HEALTH_STR(HEALTH_WATCH_IMBALANCE_MV) " mV and " HEALTH_STR(
-        HEALTH_WATCH_OVERDISCHARGES) "):\n"
-                                     "  --retire-capacity PCT  capacity at or below PCT % of rated "
-                                     "(default " HEALTH_STR(
-                                         HEALTH_RETIRE_CAPACITY_PCT) ")\n"
-                                                                     "  --retire-r0-ratio X    "
-                                                                     "internal resistance (R0) at "
-                                                                     "or above X times its\n"
-                                                                     "                         "
-                                                                     "baseline "
-                                                                     "(default " HEALTH_STR(
-                                                                         HEALTH_RETIRE_R0_RATIO) ")"
-                                                                                                 "\n"
-                                                                                                 " "
-                                                                                                 " "
-                                                                                                 "-"
-                                                                                                 "-"
-                                                                                                 "r"
-                                                                                                 "e"
-                                                                                                 "t"
-                                                                                                 "i"
-                                                                                                 "r"
-                                                                                                 "e"
-                                                                                                 "-"
-                                                                                                 "i"
-                                                                                                 "m"
-                                                                                                 "b"
-                                                                                                 "a"
-                                                                                                 "l"
-                                                                                                 "a"
-                                                                                                 "n"
-                                                                                                 "c"
-                                                                                                 "e"
-                                                                                                 " "
-                                                                                                 "M"
-                                                                                                 "V"
-                                                                                                 " "
-                                                                                                 " "
-                                                                                                 "r"
-                                                                                                 "e"
-                                                                                                 "s"
-                                                                                                 "t"
-                                                                                                 "i"
-                                                                                                 "n"
-                                                                                                 "g"
-                                                                                                 " "
-                                                                                                 "c"
-                                                                                                 "e"
-                                                                                                 "l"
-                                                                                                 "l"
-                                                                                                 " "
-                                                                                                 "i"
-                                                                                                 "m"
-                                                                                                 "b"
-                                                                                                 "a"
-                                                                                                 "l"
-                                                                                                 "a"
-                                                                                                 "n"
-                                                                                                 "c"
-                                                                                                 "e"
-                                                                                                 " "
-                                                                                                 "a"
-                                                                                                 "t"
-                                                                                                 " "
-                                                                                                 "o"
-                                                                                                 "r"
-                                                                                                 " "
-                                                                                                 "a"
-                                                                                                 "b"
-                                                                                                 "o"
-                                                                                                 "v"
-                                                                                                 "e"
-                                                                                                 " "
-                                                                                                 "M"
-                                                                                                 "V"
-                                                                                                 " "
-                                                                                                 "("
-                                                                                                 "d"
-                                                                                                 "e"
-                                                                                                 "f"
-                                                                                                 "a"
-                                                                                                 "u"
-                                                                                                 "l"
-                                                                                                 "t"
-                                                                                                 " " HEALTH_STR(
-                                                                                                     HEALTH_RETIRE_IMBALANCE_MV) ";\n"
-                                                                                                                                 "                         --retire-spread is the old name)\n"
-                                                                                                                                 "  --retire-overdischarge N  N over-discharges: flights under the cut-off\n"
-                                                                                                                                 "                         voltage (default " HEALTH_STR(
-                                                                                                                                     HEALTH_RETIRE_OVERDISCHARGES) ")\n";
+#define RULE_AT(field) offsetof(struct health_rules, field)
 
-int trendopts_by(const char *arg, enum trend_by *by, struct pb_error *err)
-{
-    if (strcmp(arg, "week") == 0)
-        *by = TREND_WEEK;
-    else if (strcmp(arg, "month") == 0)
-        *by = TREND_MONTH;
-    else if (strcmp(arg, "cycle") == 0)
-        *by = TREND_CYCLE;
-    else {
-        pb_error_set(err, PB_EUSAGE, "--by: expected week, month or cycle, got '%s'", arg);
-        return -1;
-    }
-    return 0;
-}
+/* clang-format off */
+const struct opt ruleopts_table[] = {
+    {.name = "retire-capacity", .kind = OPT_DOUBLE, .id = RO_CAP,
+     .off = RULE_AT(retire_capacity_pct), .lo = 1, .hi = 100,
+     .def = HEALTH_STR(HEALTH_RETIRE_CAPACITY_PCT), .meta = "PCT",
+     .help = "capacity at or below PCT % of rated"},
+    {.name = "retire-r0-ratio", .kind = OPT_DOUBLE, .id = RO_R0, .off = RULE_AT(retire_r0_ratio),
+     .lo = 1.01, .hi = 100, .def = HEALTH_STR(HEALTH_RETIRE_R0_RATIO), .meta = "X",
+     .help = "internal resistance (R0) at or above X times its baseline"},
+    {.name = "retire-imbalance", .alias = "retire-spread", .kind = OPT_DOUBLE, .id = RO_SPREAD,
+     .off = RULE_AT(retire_spread_mv), .lo = 1, .hi = 5000,
+     .def = HEALTH_STR(HEALTH_RETIRE_IMBALANCE_MV), .meta = "MV",
+     .help = "resting cell imbalance at or above MV"},
+    {.name = "retire-overdischarge", .kind = OPT_INT, .id = RO_OVER,
+     .off = RULE_AT(retire_overdischarge), .lo = 1, .hi = 100000,
+     .def = HEALTH_STR(HEALTH_RETIRE_OVERDISCHARGES), .meta = "N",
+     .help = "N over-discharges: flights under the cut-off voltage"},
+    {0},
+};
+/* clang-format on */
 
-int trendopts_fit(const char *arg, int *plain, struct pb_error *err)
-{
-    if (strcmp(arg, "robust") && strcmp(arg, "ols")) {
-        pb_error_set(err, PB_EUSAGE, "--fit: expected robust or ols, got '%s'", arg);
-        return -1;
-    }
-    *plain = strcmp(arg, "ols") == 0;
-    return 0;
-}
+const char
+    ruleopts_title[] =
+        "retirement rules (retire level; watch levels are " HEALTH_STR(HEALTH_WATCH_CAPACITY_PCT) " %, " HEALTH_STR(
+            HEALTH_WATCH_R0_RATIO) "x, " HEALTH_STR(HEALTH_WATCH_IMBALANCE_MV) " mV "
+                                                                               "and " HEALTH_STR(HEALTH_WATCH_OVERDISCHARGES) "):";
 
-int ruleopts_take(int c, const char *v, struct health_rules *r, struct pb_error *err)
+int ruleopts_after(void *base, const struct opt *o, const char *val, struct pb_error *err)
 {
-    int bad = 0, n = 0;
-    switch (c) {
+    struct health_rules *r = base;
+    (void)val;
+    (void)err;
+    /* a retire level moves its watch level with it */
+    switch (o->id) {
     case RO_CAP:
-        bad = cmd_parse_double("--retire-capacity", v, 1, 100, &r->retire_capacity_pct, err);
         r->watch_capacity_pct = fmin(100.0, r->retire_capacity_pct + 5.0);
         break;
     case RO_R0:
-        bad = cmd_parse_double("--retire-r0-ratio", v, 1.01, 100, &r->retire_r0_ratio, err);
         r->watch_r0_ratio = 1.0 + 0.5 * (r->retire_r0_ratio - 1.0);
         break;
     case RO_SPREAD:
-        bad = cmd_parse_double("--retire-imbalance", v, 1, 5000, &r->retire_spread_mv, err);
         r->watch_spread_mv = 0.5 * r->retire_spread_mv;
         break;
     case RO_OVER:
-        bad = cmd_parse_int("--retire-overdischarge", v, 1, 100000, &n, err);
-        r->retire_overdischarge = n;
         r->watch_overdischarge = 1;
         break;
-    default:
-        return 0;
     }
-    return bad ? -1 : 1;
+    return 0;
+}
+
+static const char *const by_words[] = {"week", "month", "cycle", NULL};
+static const int by_values[] = {TREND_WEEK, TREND_MONTH, TREND_CYCLE};
+static const char *const fit_words[] = {"robust", "ols", NULL};
+
+/* clang-format off */
+const struct opt trendopts_table[] = {
+    {.name = "by", .kind = OPT_KEYWORD, .off = offsetof(struct trendopts, by), .words = by_words,
+     .values = by_values, .def = "week", .meta = "B",
+     .help = "buckets: ISO week, month or cycle (5 cycles each)"},
+    {.name = "fit", .kind = OPT_KEYWORD, .off = offsetof(struct trendopts, plain),
+     .words = fit_words, .def = "robust", .meta = "M",
+     .help = "robust or ols (plain least squares) fits of the trend"},
+    {.name = "horizon", .kind = OPT_DOUBLE, .off = offsetof(struct trendopts, horizon), .lo = 1,
+     .hi = 1e6, .def = "1000", .meta = "N",
+     .help = "project the retirement crossing up to N cycles ahead"},
+    {0},
+};
+/* clang-format on */
+
+int ruleopts_take(int c, const char *v, struct health_rules *r, struct pb_error *err)
+{
+    const struct opt *o = opt_by_id(ruleopts_table, c);
+    if (!o)
+        return 0;
+    return opt_take(o, r, v, err) != 0 || ruleopts_after(r, o, v, err) != 0 ? -1 : 1;
 }
 
 /* Said once when a command has waited a few seconds for another process's

@@ -5,31 +5,35 @@
 #include "../core/predict.h"
 #include "../report/report_health.h"
 #include "cmd.h"
+#include "opt.h"
 
 struct rules_cli {
     struct health_rules rules;
 };
 
-/* Options that change the retirement rules, for a command's table. */
+/* Options that change the retirement rules (values into struct
+ * health_rules), for a verb's option groups; ids for config.c. */
 enum { RO_CAP = 400, RO_R0, RO_SPREAD, RO_OVER };
-#define RULEOPTS_LONG                                                                              \
-    {"retire-capacity", required_argument, NULL, RO_CAP},                                          \
-        {"retire-imbalance", required_argument, NULL, RO_SPREAD},                                  \
-        {"retire-r0-ratio", required_argument, NULL, RO_R0},                                       \
-        {"retire-spread", required_argument, NULL, RO_SPREAD},                                     \
+extern const struct opt ruleopts_table[];
+extern const char ruleopts_title[];
+/* Moves a watch level with its retire level: an opt_after_fn, base a struct health_rules. */
+int ruleopts_after(void *base, const struct opt *o, const char *val, struct pb_error *err);
+#define RULEOPTS_GROUP(rules)                                                                      \
     {                                                                                              \
-        "retire-overdischarge", required_argument, NULL, RO_OVER                                   \
+        ruleopts_title, ruleopts_table, (rules), ruleopts_after                                    \
     }
 
-extern const char ruleopts_usage[];
-
-/* Takes a rule option: 1 taken, 0 not ours, -1 bad value. */
+/* Takes the rule option with id c: 1 taken, 0 not ours, -1 bad value. */
 int ruleopts_take(int c, const char *arg, struct health_rules *r, struct pb_error *err);
 
-/* --by week|month|cycle and --fit robust|ols, as trend and plot trend take
- * them: 0, or -1 with err filled (usage). */
-int trendopts_by(const char *arg, enum trend_by *by, struct pb_error *err);
-int trendopts_fit(const char *arg, int *plain, struct pb_error *err);
+/* --by, --fit and --horizon as trend and plot trend take them (values into
+ * struct trend_cli_opts). */
+struct trendopts {
+    int by; /* enum trend_by */
+    int plain;
+    double horizon;
+};
+extern const struct opt trendopts_table[];
 
 /* Opens the store named by --db (NULL: the default path) in mode. */
 enum pb_code packview_open_store(const char *db, enum store_mode mode, struct store **out,

@@ -3,6 +3,7 @@
 #include <getopt.h>
 #include <jansson.h>
 #include <math.h>
+#include <stddef.h>
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
@@ -28,17 +29,30 @@ static const char usage[] =
     "among the packs left. Mismatch d = sqrt((dC / 5 %)^2 +\n"
     "(dR / 15 %)^2) of the pair's mean: d <= 1 is within the limits. With two\n"
     "IDs: registers them as a pair (fleet keeps them together and warns when\n"
-    "they drift beyond the limits). unpair removes a pack's pair.\n";
+    "they drift beyond the limits). unpair removes a pack's pair.\n"
+    "\n";
 
-enum { PP_JSON = 256, PP_DB, PP_METHOD };
-
-static const struct option longopts[] = {
-    {"json", no_argument, NULL, PP_JSON},
-    {"db", required_argument, NULL, PP_DB},
-    {"method", required_argument, NULL, PP_METHOD},
-    {"help", no_argument, NULL, 'h'},
-    {NULL, 0, NULL, 0},
+struct pair_cli {
+    const char *db;
+    int json;
+    int method; /* enum pair_method */
 };
+
+static const char *const method_words[] = {"optimal", "greedy", NULL};
+static const int method_values[] = {PAIR_OPTIMAL, PAIR_GREEDY};
+
+/* clang-format off */
+static const struct opt pair_table[] = {
+    {.name = "json", .kind = OPT_FLAG, .off = offsetof(struct pair_cli, json), .set = 1,
+     .help = "JSON on standard output"},
+    {.name = "db", .kind = OPT_PATH, .off = offsetof(struct pair_cli, db), .meta = "PATH",
+     .help = "history database (see 'packbook config')"},
+    {.name = "method", .kind = OPT_KEYWORD, .off = offsetof(struct pair_cli, method),
+     .words = method_words, .values = method_values, .def = "optimal", .meta = "M",
+     .help = "optimal (least total d) or greedy (closest pair first)"},
+    {0},
+};
+/* clang-format on */
 
 static void to_pair_pack(const struct pack_view *v, struct pair_pack *p)
 {
@@ -217,35 +231,22 @@ static enum pb_code show(struct store *st, int json, enum pair_method method, st
 
 enum pb_code cmd_pack_pair(int argc, char **argv, struct pb_error *err)
 {
-    const char *db = NULL;
-    enum pair_method method = PAIR_OPTIMAL;
-    int json = 0, c, unpair = strcmp(argv[0], "unpair") == 0;
-    optind = 1;
-    opterr = 0;
-    while ((c = getopt_long(argc, argv, "h", longopts, NULL)) != -1) {
-        switch (c) {
-        case PP_JSON:
-            json = 1;
-            break;
-        case PP_DB:
-            db = optarg;
-            break;
-        case PP_METHOD:
-            if (strcmp(optarg, "optimal") == 0)
-                method = PAIR_OPTIMAL;
-            else if (strcmp(optarg, "greedy") == 0)
-                method = PAIR_GREEDY;
-            else
-                return pb_error_set(err, PB_EUSAGE,
-                                    "pack pair: --method '%s': expected optimal or greedy", optarg);
-            break;
-        case 'h':
-            fputs(usage, stdout);
-            return cmd_finish_stdout(err);
-        default:
-            return cmd_bad_option(unpair ? "pack unpair" : "pack pair", argc, argv, err);
-        }
-    }
+    struct pair_cli cli = {0};
+    opt_defaults(pair_table, &cli);
+    int unpair = strcmp(argv[0], "unpair") == 0, done = 0;
+    struct opt_cmd cmd = {unpair ? "pack unpair" : "pack pair",
+                          usage,
+                          NULL,
+                          {{NULL, pair_table, &cli, NULL}},
+                          1,
+                          NULL,
+                          NULL};
+    enum pb_code parsed = opt_parse(&cmd, argc, argv, &done, err);
+    if (parsed != PB_OK || done)
+        return parsed;
+    const char *db = cli.db;
+    int json = cli.json;
+    enum pair_method method = (enum pair_method)cli.method;
     int ids = argc - optind;
     if (unpair ? ids != 1 : ids != 0 && ids != 2)
         return pb_error_set(err, PB_EUSAGE,

@@ -1,6 +1,7 @@
 /* packbook plot LOG | plot trend ID | plot fleet: the figures. */
 #include <getopt.h>
 #include <math.h>
+#include <stddef.h>
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
@@ -31,57 +32,13 @@ static const char usage_head[] =
     "           (or --x date): flights, bucket means, fitted line with its 95 % band\n"
     "           and the band where 95 % of flights are expected,\n"
     "           retirement levels and the projected crossing; against cycles also\n"
-    "           the chosen fade model and where to plan for (see packbook trend)\n"
+    "           the chosen fade model and where to plan for (see packbook trend);\n"
+    "           with cell columns, each flight's resting cell imbalance with its\n"
+    "           weakest cell's number, and the weakest cell in the title\n"
     "  fleet    every pack in service (--all: and retired) at capacity % against\n"
     "           R0 change from its baseline, by status, every pack labelled (those\n"
     "           needing attention with why), registered pairs joined by a line\n"
-    "\n"
-    "figure:\n"
-    "  -o, --output FILE      the figure: FILE.png, FILE.svg or FILE.pdf (required)\n"
-    "  --size WxH             size in pixels (points for SVG and PDF); default\n"
-    "                         1600x1100 (1600x1300 with cells), trend 1600x1000,\n"
-    "                         fleet 1400x1000\n"
-    "  --title TEXT           the title (default: the log's or pack's name)\n"
-    "  --axes-json FILE       also write each panel's rectangle and axis ranges as JSON\n"
-    "\n"
-    "pack (LOG):\n"
-    "  --pack ID [--db PATH]  a registered pack: its cells, chemistry, capacity and\n"
-    "                         remembered reading settings (options override them), and\n"
-    "                         its name in the title\n"
-    "  --cells N, --chemistry C, --capacity MAH   as for analyze (instead of --pack)\n";
-
-enum {
-    P_OUT = 'o',
-    P_SIZE = 256,
-    P_TITLE,
-    P_AXES,
-    P_X,
-    P_BY,
-    P_FIT,
-    P_HORIZON,
-    P_DB,
-    P_ALL,
-    P_PACK
-};
-
-static const struct option longopts[] = {
-    {"output", required_argument, NULL, P_OUT},
-    {"size", required_argument, NULL, P_SIZE},
-    {"title", required_argument, NULL, P_TITLE},
-    {"axes-json", required_argument, NULL, P_AXES},
-    {"x", required_argument, NULL, P_X},
-    {"by", required_argument, NULL, P_BY},
-    {"fit", required_argument, NULL, P_FIT},
-    {"horizon", required_argument, NULL, P_HORIZON},
-    {"db", required_argument, NULL, P_DB},
-    {"all", no_argument, NULL, P_ALL},
-    {"pack", required_argument, NULL, P_PACK},
-    {"help", no_argument, NULL, 'h'},
-    LOGOPTS_PACK_LONG,
-    LOGOPTS_LONG,
-    RULEOPTS_LONG,
-    {NULL, 0, NULL, 0},
-};
+    "\n";
 
 enum plot_kind { KIND_FLIGHT = 0, KIND_TREND, KIND_FLEET };
 
@@ -90,10 +47,8 @@ struct plot_cli {
     struct plot_opts fig;
     const char *out;
     struct log_cli log;
-    int log_opts_given; /* an analyze option, which only a flight takes */
-    int by_date, plain, all, history_opts_given;
-    enum trend_by by;
-    double horizon;
+    int by_date, all;
+    struct trendopts t;
     const char *db;
     const char *pack;          /* plot LOG --pack ID */
     char pack_opt[48];         /* the first of --cells, --chemistry, --capacity given */
@@ -101,95 +56,101 @@ struct plot_cli {
     struct packopts_seen seen; /* reading options given, over the pack's */
     char pack_settings[1024];  /* the pack's, split by packopts_apply */
     struct health_rules rules;
+    const char *first_history_opt; /* for 'plot trend' or 'plot fleet' only */
+    char first_log_opt[48];        /* for a log only */
 };
+
+#define PLOT_AT(field) offsetof(struct plot_cli, field)
+
+static const char *const x_words[] = {"cycles", "date", NULL};
+
+/* clang-format off */
+static const struct opt figure_table[] = {
+    {.name = "output", .letter = 'o', .kind = OPT_PATH, .off = PLOT_AT(out), .meta = "FILE",
+     .help = "the figure: FILE.png, FILE.svg or FILE.pdf (required)"},
+    {.name = "size", .kind = OPT_STRING, .off = OPT_NOWHERE, .meta = "WxH",
+     .help = "size in pixels (points for SVG and PDF); default\n"
+     "1600x1100 (1600x1300 with cells), trend 1600x1000,\n"
+     "fleet 1400x1000"},
+    {.name = "title", .kind = OPT_STRING, .off = PLOT_AT(fig.title), .meta = "TEXT",
+     .help = "the title (default: the log's or pack's name)"},
+    {.name = "axes-json", .kind = OPT_PATH, .off = PLOT_AT(fig.axes_json), .meta = "FILE",
+     .help = "also write each panel's rectangle and axis ranges as JSON"},
+    {.name = "db", .kind = OPT_PATH, .off = PLOT_AT(db), .meta = "PATH",
+     .help = "history database, for --pack, trend and fleet (see 'packbook config')"},
+    {0},
+};
+
+static const struct opt pack_table[] = {
+    {.name = "pack", .kind = OPT_STRING, .off = PLOT_AT(pack), .meta = "ID",
+     .help = "a registered pack: its cells, chemistry, capacity and\n"
+     "remembered reading settings (options override them), and\n"
+     "its name in the title"},
+    {0},
+};
+
+static const struct opt history_table[] = {
+    {.name = "x", .kind = OPT_KEYWORD, .off = PLOT_AT(by_date), .words = x_words,
+     .def = "cycles", .meta = "AXIS", .help = "trend: against cycles (equivalent full cycles) or date"},
+    {.name = "all", .kind = OPT_FLAG, .off = PLOT_AT(all), .set = 1,
+     .help = "fleet: retired packs too"},
+    {0},
+};
+/* clang-format on */
+
+static int plot_hook(void *ctx, const struct opt *o, const char *v, struct pb_error *err)
+{
+    struct plot_cli *cli = ctx;
+    char name[48];
+    snprintf(name, sizeof name, "--%s", o->name);
+    if (o == &figure_table[1])
+        return plot_parse_size(v, &cli->fig.width, &cli->fig.height, err) != 0 ? -1 : 0;
+    if (logopts_is_reading(o) || o->id == LO_CELLS || o->id == LO_CHEM || o->id == LO_CAP) {
+        if (logopts_is_reading(o) && packopts_note(&cli->seen, o->id, v, err) < 0)
+            return -1;
+        if (!cli->first_log_opt[0])
+            snprintf(cli->first_log_opt, sizeof cli->first_log_opt, "%s", name);
+        if (!logopts_is_reading(o) && !cli->pack_opt[0])
+            snprintf(cli->pack_opt, sizeof cli->pack_opt, "%s", name);
+        return 0;
+    }
+    if (o == &trendopts_table[1]) {
+        /* --fit: the flight's fits follow it too */
+        cli->log.an.plain_fit = cli->t.plain;
+        return packopts_note(&cli->seen, LO_FIT, v, err) < 0 ? -1 : 0;
+    }
+    if ((o >= history_table && o < history_table + 2) || o == &trendopts_table[0] ||
+        o == &trendopts_table[2]) {
+        static char first[48];
+        if (!cli->first_history_opt) {
+            snprintf(first, sizeof first, "%s", name);
+            cli->first_history_opt = first;
+        }
+    }
+    return 0;
+}
 
 static enum pb_code parse(int argc, char **argv, struct plot_cli *cli, int *done,
                           struct pb_error *err)
 {
-    int c;
-    const char *first_history_opt = NULL;
-    char first_log_opt[48] = "";
-    optind = 1;
-    opterr = 0;
-    int li = -1;
-    while ((c = getopt_long(argc, argv, "ho:", longopts, &li)) != -1) {
-        /* the option's own name for messages (argv[optind - 1] may be its value) */
-        char opt[48];
-        snprintf(opt, sizeof opt, "--%s", li >= 0 ? longopts[li].name : "?");
-        li = -1;
-        int taken = logopts_take(c, optarg, &cli->log, err);
-        if (taken < 0 || (taken && packopts_note(&cli->seen, c, optarg, err) < 0))
-            return PB_EUSAGE;
-        if (taken) {
-            if (!first_log_opt[0])
-                snprintf(first_log_opt, sizeof first_log_opt, "%s", opt);
-            if ((c == LO_CELLS || c == LO_CHEM || c == LO_CAP) && !cli->pack_opt[0])
-                snprintf(cli->pack_opt, sizeof cli->pack_opt, "%s", opt);
-            continue;
-        }
-        taken = ruleopts_take(c, optarg, &cli->rules, err);
-        if (taken < 0)
-            return PB_EUSAGE;
-        if (taken)
-            continue;
-        switch (c) {
-        case P_OUT:
-            cli->out = optarg;
-            break;
-        case P_SIZE:
-            if (plot_parse_size(optarg, &cli->fig.width, &cli->fig.height, err))
-                return PB_EUSAGE;
-            break;
-        case P_TITLE:
-            cli->fig.title = optarg;
-            break;
-        case P_AXES:
-            cli->fig.axes_json = optarg;
-            break;
-        case P_X:
-            if (strcmp(optarg, "cycles") && strcmp(optarg, "date"))
-                return pb_error_set(err, PB_EUSAGE, "--x: expected cycles or date, got '%s'",
-                                    optarg);
-            cli->by_date = strcmp(optarg, "date") == 0;
-            first_history_opt = first_history_opt ? first_history_opt : "--x";
-            break;
-        case P_BY:
-            if (trendopts_by(optarg, &cli->by, err))
-                return PB_EUSAGE;
-            first_history_opt = first_history_opt ? first_history_opt : "--by";
-            break;
-        case P_FIT:
-            if (trendopts_fit(optarg, &cli->plain, err))
-                return PB_EUSAGE;
-            cli->log.an.plain_fit = cli->plain; /* the flight's fits follow it too */
-            if (packopts_note(&cli->seen, LO_FIT, optarg, err) < 0)
-                return PB_EUSAGE;
-            break;
-        case P_HORIZON:
-            if (cmd_parse_double("--horizon", optarg, 1, 1e6, &cli->horizon, err))
-                return PB_EUSAGE;
-            first_history_opt = first_history_opt ? first_history_opt : "--horizon";
-            break;
-        case P_DB:
-            cli->db = optarg;
-            break;
-        case P_PACK:
-            cli->pack = optarg;
-            break;
-        case P_ALL:
-            cli->all = 1;
-            first_history_opt = first_history_opt ? first_history_opt : "--all";
-            break;
-        case 'h':
-            fputs(usage_head, stdout);
-            fputs(logopts_usage, stdout);
-            fputs(ruleopts_usage, stdout);
-            *done = 1;
-            return cmd_finish_stdout(err);
-        default:
-            return cmd_bad_option("plot", argc, argv, err);
-        }
-    }
+    struct opt_cmd cmd = {"plot",
+                          usage_head,
+                          NULL,
+                          {{"figure:", figure_table, cli, NULL},
+                           {"pack (LOG):", pack_table, cli, NULL},
+                           LOGOPTS_PACK_GROUP(&cli->log, NULL),
+                           {"trend and fleet:", trendopts_table, &cli->t, NULL},
+                           {NULL, history_table, cli, NULL},
+                           LOGOPTS_GROUP(&cli->log),
+                           RULEOPTS_GROUP(&cli->rules)},
+                          7,
+                          plot_hook,
+                          cli};
+    enum pb_code parsed = opt_parse(&cmd, argc, argv, done, err);
+    if (parsed != PB_OK || *done)
+        return parsed;
+    const char *first_history_opt = cli->first_history_opt;
+    const char *first_log_opt = cli->first_log_opt;
     enum pb_code rc = logopts_finish(&cli->log, err);
     if (rc != PB_OK)
         return rc;
@@ -312,7 +273,8 @@ static enum pb_code plot_history(const struct plot_cli *cli, const char *id, str
         struct pack_view v;
         rc = store_pack_get(st, id, &p, err);
         if (rc == PB_OK)
-            rc = packview_load(st, &p, &cli->rules, cli->by, cli->plain, cli->horizon, &v, err);
+            rc = packview_load(st, &p, &cli->rules, cli->t.by, cli->t.plain, cli->t.horizon, &v,
+                               err);
         if (rc == PB_OK) {
             rc = plot_trend(cli->out, &cli->fig, &v, &cli->rules, cli->by_date, err);
             pack_view_release(&v);
@@ -338,8 +300,7 @@ enum pb_code cmd_plot(int argc, char **argv, struct app *app, struct pb_error *e
     cli.log.read.min_samples = 1; /* a figure of one sample still says what there is */
     config_rules(&cli.rules);
     cli.fig.reserve_pct = config_reserve();
-    cli.by = TREND_WEEK;
-    cli.horizon = 1000.0;
+    opt_defaults(trendopts_table, &cli.t);
     int done = 0;
     enum pb_code rc = parse(argc, argv, &cli, &done, err);
     if (rc != PB_OK || done)

@@ -4,6 +4,7 @@
 #include <gsl/gsl_cdf.h>
 #include <jansson.h>
 #include <math.h>
+#include <stddef.h>
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
@@ -33,78 +34,8 @@ static const char usage_head[] =
     "from their uncertainty (Monte Carlo, fixed seed); the conservative figure is\n"
     "the 5th percentile of the safe time. For a retired pack, or one flagged\n"
     "retire, that is said first.\n"
-    "\n"
-    "start:\n"
-    "  --soc PCT              start SoC (default 100: a full charge)\n"
-    "  --ocv V                or the pack voltage measured at rest\n"
-    "load (default: the median cruise power of the last "
-    HEALTH_STR(HEALTH_RECENT_FLIGHTS) " flights, or of the log):\n"
-    "  --power W | --current A   constant power or current\n"
-    "  --profile LOG          the power of a logged flight, repeated (may be given again:\n"
-    "                         the profiles are flown one after the other)\n"
-    "limits:\n"
-    "  --reserve PCT          landing reserve SoC (default " PREDICT_STR(PREDICT_RESERVE_PCT)
-    ", common practice, or the settings file's)\n"
-    "  --cut-off V            cut-off voltage per cell under load (default: the pack's\n"
-    "                         remembered one, else per chemistry; --floor: old name)\n"
-    "model:\n"
-    "  --temp C               pack temperature: R0 is scaled by the Arrhenius form\n"
-    "  --tref C               temperature R0 was measured at (default 25)\n"
-    "  --ea J_PER_MOL         activation energy for R(T) (default 30000)\n"
-    "  --peukert K            Peukert exponent (rated-capacity form t = H (C/(I H))^K)\n"
-    "  --peukert-hours H      rated discharge time H for Peukert (default 1)\n"
-    "  --runs N --seed N      Monte Carlo runs (default 400, at most 5000) and seed\n"
-    "                         (default 1)\n"
-    "  --for S                also report the state after S seconds (at most 21600)\n"
-    "  --db PATH              history database\n"
-    "  --json                 JSON on standard output\n"
-    "reading --log and --profile logs:\n"
-    "  --cells N --chemistry C --capacity MAH (for --log)\n";
+    "\n";
 /* clang-format on */
-
-enum {
-    R_LOG = 256,
-    R_SOC,
-    R_OCV,
-    R_POWER,
-    R_CURRENT,
-    R_PROFILE,
-    R_RESERVE,
-    R_TEMP,
-    R_TREF,
-    R_EA,
-    R_PEUK,
-    R_PEUKH,
-    R_RUNS,
-    R_SEED,
-    R_FOR,
-    R_DB,
-    R_JSON,
-};
-
-static const struct option longopts[] = {
-    {"log", required_argument, NULL, R_LOG},
-    {"soc", required_argument, NULL, R_SOC},
-    {"ocv", required_argument, NULL, R_OCV},
-    {"power", required_argument, NULL, R_POWER},
-    {"current", required_argument, NULL, R_CURRENT},
-    {"profile", required_argument, NULL, R_PROFILE},
-    {"reserve", required_argument, NULL, R_RESERVE},
-    {"temp", required_argument, NULL, R_TEMP},
-    {"tref", required_argument, NULL, R_TREF},
-    {"ea", required_argument, NULL, R_EA},
-    {"peukert", required_argument, NULL, R_PEUK},
-    {"peukert-hours", required_argument, NULL, R_PEUKH},
-    {"runs", required_argument, NULL, R_RUNS},
-    {"seed", required_argument, NULL, R_SEED},
-    {"for", required_argument, NULL, R_FOR},
-    {"db", required_argument, NULL, R_DB},
-    {"json", no_argument, NULL, R_JSON},
-    {"help", no_argument, NULL, 'h'},
-    LOGOPTS_PACK_LONG,
-    LOGOPTS_LONG,
-    {NULL, 0, NULL, 0},
-};
 
 #define MAX_PROFILES 16
 
@@ -115,9 +46,79 @@ struct predict_cli {
     const char *profiles[MAX_PROFILES];
     int nprofiles;
     double soc, ocv_v, power_w, current_a, reserve, temp_c, tref_c, ea, peuk, peukh, for_s;
-    int runs, json;
+    int runs, json, seed_n;
     unsigned long seed;
 };
+
+#define PRED_AT(field) offsetof(struct predict_cli, field)
+
+/* clang-format off */
+static const struct opt start_table[] = {
+    {.name = "soc", .kind = OPT_DOUBLE, .off = PRED_AT(soc), .lo = 0, .hi = 100, .meta = "PCT",
+     .help = "start SoC (default 100: a full charge)"},
+    {.name = "ocv", .kind = OPT_DOUBLE, .off = PRED_AT(ocv_v), .lo = 0.5, .hi = 200, .meta = "V",
+     .help = "or the pack voltage measured at rest"},
+    {0},
+};
+
+static const struct opt load_table[] = {
+    {.name = "power", .kind = OPT_DOUBLE, .off = PRED_AT(power_w), .lo = 0, .hi = 1e6,
+     .meta = "W", .help = "constant power"},
+    {.name = "current", .kind = OPT_DOUBLE, .off = PRED_AT(current_a), .lo = 0, .hi = 1e5,
+     .meta = "A", .help = "or constant current"},
+    {.name = "profile", .kind = OPT_PATH, .off = OPT_NOWHERE, .meta = "LOG",
+     .help = "or the power of a logged flight, repeated (may be given again:\n"
+     "the profiles are flown one after the other)"},
+    {0},
+};
+
+static const struct opt model_table[] = {
+    {.name = "temp", .kind = OPT_DOUBLE, .off = PRED_AT(temp_c), .lo = -60, .hi = 90, .meta = "C",
+     .help = "pack temperature: R0 is scaled by the Arrhenius form"},
+    {.name = "tref", .kind = OPT_DOUBLE, .off = PRED_AT(tref_c), .lo = -60, .hi = 90,
+     .def = "25", .meta = "C", .help = "temperature R0 was measured at"},
+    {.name = "ea", .kind = OPT_DOUBLE, .off = PRED_AT(ea), .lo = 0, .hi = 500000, .def = "30000",
+     .meta = "J_PER_MOL", .help = "activation energy for R(T)"},
+    {.name = "peukert", .kind = OPT_DOUBLE, .off = PRED_AT(peuk), .lo = 1.0, .hi = 2.0,
+     .meta = "K", .help = "Peukert exponent (rated-capacity form t = H (C/(I H))^K)"},
+    {.name = "peukert-hours", .kind = OPT_DOUBLE, .off = PRED_AT(peukh), .lo = 0.01, .hi = 1000,
+     .def = "1", .meta = "H", .help = "rated discharge time H for Peukert"},
+    /* 5000 runs put the 5th percentile within about 0.3 % (binomial standard
+     * error); more only costs time (each run can step through 6 h) */
+    {.name = "runs", .kind = OPT_INT, .off = PRED_AT(runs), .lo = 10, .hi = PREDICT_RUNS_MAX,
+     .def = "400", .meta = "N", .help = "Monte Carlo runs"},
+    {.name = "seed", .kind = OPT_INT, .off = PRED_AT(seed_n), .lo = 0, .hi = 2000000000,
+     .def = "1", .meta = "N", .help = "Monte Carlo seed"},
+    /* the simulator stops at its horizon: a state later than that is never known */
+    {.name = "for", .kind = OPT_DOUBLE, .off = PRED_AT(for_s), .lo = 0.001,
+     .hi = PREDICT_HORIZON_S, .meta = "S", .help = "also report the state after S seconds"},
+    {.name = "log", .kind = OPT_PATH, .off = PRED_AT(log_path), .meta = "LOG",
+     .help = "predict from one log instead of a pack's history"},
+    {.name = "db", .kind = OPT_PATH, .off = PRED_AT(db), .meta = "PATH",
+     .help = "history database (see 'packbook config')"},
+    {.name = "json", .kind = OPT_FLAG, .off = PRED_AT(json), .set = 1,
+     .help = "JSON on standard output"},
+    {0},
+};
+/* clang-format on */
+
+static int predict_hook(void *ctx, const struct opt *o, const char *v, struct pb_error *err)
+{
+    struct predict_cli *cli = ctx;
+    if (logopts_is_reading(o))
+        return packopts_note(&cli->seen, o->id, v, err) < 0 ? -1 : 0;
+    /* no load is no flight: 0 W "lasted" the simulator's whole horizon */
+    if (o == &load_table[0] && !(cli->power_w > 0))
+        return pb_error_set(err, PB_EUSAGE, "--power: expected a load above 0 W, got '%s'", v);
+    if (o == &load_table[1] && !(cli->current_a > 0))
+        return pb_error_set(err, PB_EUSAGE, "--current: expected a load above 0 A, got '%s'", v);
+    if (o == &load_table[2]) {
+        if (cli->nprofiles == MAX_PROFILES)
+            return pb_error_set(err, PB_EUSAGE, "--profile: at most %d", MAX_PROFILES);
+        cli->profiles[cli->nprofiles++] = v;
+    }
+    return 0;
+}
 
 static double median_sd(const double *v, size_t n, double *sd)
 {
@@ -483,101 +484,33 @@ static enum pb_code load_profiles(const struct predict_cli *cli, double **t, dou
 enum pb_code cmd_predict(int argc, char **argv, struct app *app, struct pb_error *err)
 {
     struct predict_cli cli = {0};
-    int c;
     (void)app;
     logopts_init(&cli.log);
     cli.soc = cli.ocv_v = cli.power_w = cli.current_a = cli.temp_c = NAN;
-    cli.reserve = config_reserve();
-    cli.tref_c = 25.0;
-    cli.ea = 30000.0;
-    cli.peukh = 1.0;
-    cli.runs = 400;
-    cli.seed = 1;
-    optind = 1;
-    opterr = 0;
-    while ((c = getopt_long(argc, argv, "h", longopts, NULL)) != -1) {
-        const char *v = optarg;
-        int bad = 0, n = 0;
-        int taken = logopts_take(c, v, &cli.log, err);
-        if (taken < 0 || (taken && packopts_note(&cli.seen, c, v, err) < 0))
-            return PB_EUSAGE;
-        if (taken)
-            continue;
-        switch (c) {
-        case R_LOG:
-            cli.log_path = v;
-            break;
-        case R_SOC:
-            bad = cmd_parse_double("--soc", v, 0, 100, &cli.soc, err);
-            break;
-        case R_OCV:
-            bad = cmd_parse_double("--ocv", v, 0.5, 200, &cli.ocv_v, err);
-            break;
-        case R_POWER:
-            bad = cmd_parse_double("--power", v, 0, 1e6, &cli.power_w, err);
-            /* no load is no flight: 0 W "lasted" the simulator's whole horizon */
-            if (!bad && !(cli.power_w > 0))
-                bad = pb_error_set(err, PB_EUSAGE, "--power: expected a load above 0 W, got '%s'",
-                                   v) != PB_OK;
-            break;
-        case R_CURRENT:
-            bad = cmd_parse_double("--current", v, 0, 1e5, &cli.current_a, err);
-            if (!bad && !(cli.current_a > 0))
-                bad = pb_error_set(err, PB_EUSAGE, "--current: expected a load above 0 A, got '%s'",
-                                   v) != PB_OK;
-            break;
-        case R_PROFILE:
-            if (cli.nprofiles == MAX_PROFILES)
-                return pb_error_set(err, PB_EUSAGE, "--profile: at most %d", MAX_PROFILES);
-            cli.profiles[cli.nprofiles++] = v;
-            break;
-        case R_RESERVE:
-            bad = cmd_parse_double("--reserve", v, 0, 99, &cli.reserve, err);
-            break;
-        case R_TEMP:
-            bad = cmd_parse_double("--temp", v, -60, 90, &cli.temp_c, err);
-            break;
-        case R_TREF:
-            bad = cmd_parse_double("--tref", v, -60, 90, &cli.tref_c, err);
-            break;
-        case R_EA:
-            bad = cmd_parse_double("--ea", v, 0, 500000, &cli.ea, err);
-            break;
-        case R_PEUK:
-            bad = cmd_parse_double("--peukert", v, 1.0, 2.0, &cli.peuk, err);
-            break;
-        case R_PEUKH:
-            bad = cmd_parse_double("--peukert-hours", v, 0.01, 1000, &cli.peukh, err);
-            break;
-        case R_RUNS:
-            /* 5000 runs put the 5th percentile within about 0.3 % (binomial standard
-             * error); more only costs time (each run can step through 6 h) */
-            bad = cmd_parse_int("--runs", v, 10, PREDICT_RUNS_MAX, &cli.runs, err);
-            break;
-        case R_SEED:
-            bad = cmd_parse_int("--seed", v, 0, 2000000000, &n, err);
-            cli.seed = (unsigned long)n;
-            break;
-        case R_FOR:
-            /* the simulator stops at its horizon: a state later than that is never known */
-            bad = cmd_parse_double("--for", v, 0.001, PREDICT_HORIZON_S, &cli.for_s, err);
-            break;
-        case R_DB:
-            cli.db = v;
-            break;
-        case R_JSON:
-            cli.json = 1;
-            break;
-        case 'h':
-            fputs(usage_head, stdout);
-            fputs(logopts_usage, stdout);
-            return cmd_finish_stdout(err);
-        default:
-            return cmd_bad_option("predict", argc, argv, err);
-        }
-        if (bad)
-            return PB_EUSAGE;
-    }
+    opt_defaults(start_table, &cli);
+    opt_defaults(load_table, &cli);
+    opt_defaults(config_reserve_table, &cli.reserve);
+    opt_defaults(model_table, &cli);
+    cli.reserve = config_reserve(); /* the settings file's, else the table's default */
+    int done = 0;
+    struct opt_cmd cmd = {"predict",
+                          usage_head,
+                          NULL,
+                          {{"start:", start_table, &cli, NULL},
+                           {"load (default: the median cruise power of the last " HEALTH_STR(
+                                HEALTH_RECENT_FLIGHTS) " flights, or of the log):",
+                            load_table, &cli, NULL},
+                           {"limits:", config_reserve_table, &cli.reserve, NULL},
+                           {"model:", model_table, &cli, NULL},
+                           LOGOPTS_PACK_GROUP(&cli.log, "the pack of --log:"),
+                           LOGOPTS_GROUP(&cli.log)},
+                          6,
+                          predict_hook,
+                          &cli};
+    enum pb_code parsed = opt_parse(&cmd, argc, argv, &done, err);
+    if (parsed != PB_OK || done)
+        return parsed;
+    cli.seed = (unsigned long)cli.seed_n;
     enum pb_code rc = logopts_finish(&cli.log, err);
     if (rc != PB_OK)
         return rc;

@@ -1,5 +1,6 @@
 /* packbook trend ID... and packbook compare ID ID...: packs' histories over time. */
 #include <getopt.h>
+#include <stddef.h>
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
@@ -26,99 +27,72 @@ static const char trend_usage[] =
     "(line, line with a break, exponential, power law) chosen by their held-out\n"
     "error on this pack's history, and the crossing as a range: '80 % between\n"
     "cycle X and Y; plan for X' (JSON: crossing_cycles_range [early, middle, late])\n"
-    "  --plot FILE            also draw the trend of one pack as FILE.png, .svg or .pdf\n"
-    "                         against cycles ('packbook plot trend' has --x date, --size)\n";
+    "\n";
 
 static const char compare_usage[] =
     "usage: packbook compare ID ID... [--json|--csv] [--db PATH]\n"
     "\n"
     "The packs side by side: use, resistance and capacity now and per 10 cycles,\n"
-    "the weakest cell, projected limits and status (CSV: one row per pack).\n";
-
-enum { T_BY = 256, T_HORIZON, T_FIT, T_JSON, T_DB, T_PLOT, T_CSV };
-
-static const struct option longopts[] = {
-    {"by", required_argument, NULL, T_BY},
-    {"horizon", required_argument, NULL, T_HORIZON},
-    {"fit", required_argument, NULL, T_FIT},
-    {"json", no_argument, NULL, T_JSON},
-    {"csv", no_argument, NULL, T_CSV},
-    {"db", required_argument, NULL, T_DB},
-    {"plot", required_argument, NULL, T_PLOT},
-    {"help", no_argument, NULL, 'h'},
-    RULEOPTS_LONG,
-    {NULL, 0, NULL, 0},
-};
+    "the weakest cell, projected limits and status (CSV: one row per pack).\n"
+    "\n";
 
 struct trend_cli {
-    enum trend_by by;
-    double horizon;
-    int plain;
-    enum fleet_format fmt;
+    struct trendopts t;
+    int fmt; /* enum fleet_format */
     const char *db;
     const char *plot; /* trend --plot FILE */
+    const char *verb;
     struct health_rules rules;
 };
+
+#define TREND_AT(field) offsetof(struct trend_cli, field)
+
+/* clang-format off */
+static const struct opt trend_table[] = {
+    {.name = "json", .kind = OPT_FLAG, .off = TREND_AT(fmt), .set = FLEET_JSON,
+     .help = "JSON on standard output (several packs: an array)"},
+    {.name = "csv", .kind = OPT_FLAG, .off = TREND_AT(fmt), .set = FLEET_CSV,
+     .help = "CSV on standard output (several packs: one table with a pack column)"},
+    {.name = "plot", .kind = OPT_PATH, .off = TREND_AT(plot), .meta = "FILE",
+     .help = "trend: also draw the trend of one pack as FILE.png, .svg or .pdf\n"
+     "against cycles ('packbook plot trend' has --x date, --size)"},
+    {.name = "db", .kind = OPT_PATH, .off = TREND_AT(db), .meta = "PATH",
+     .help = "history database (see 'packbook config')"},
+    {0},
+};
+/* clang-format on */
+
+static int trend_hook(void *ctx, const struct opt *o, const char *val, struct pb_error *err)
+{
+    struct trend_cli *cli = ctx;
+    if (strcmp(o->name, "plot") != 0)
+        return 0;
+    if (strcmp(cli->verb, "trend") != 0)
+        return pb_error_set(err, PB_EUSAGE,
+                            "compare: --plot draws one pack: use 'packbook trend ID --plot FILE' "
+                            "or 'packbook plot fleet'");
+    if (plot_format_of(val) < 0)
+        return pb_error_set(err, PB_EUSAGE,
+                            "--plot: '%s': the figure's name must end in .png, .svg or .pdf", val);
+    return 0;
+}
 
 static enum pb_code parse(const char *verb, const char *usage, int argc, char **argv,
                           struct trend_cli *cli, int *done, struct pb_error *err)
 {
-    int c;
-    cli->by = TREND_WEEK;
-    cli->horizon = 1000.0;
+    cli->verb = verb;
+    opt_defaults(trendopts_table, &cli->t);
     config_rules(&cli->rules);
-    optind = 1;
-    opterr = 0;
-    while ((c = getopt_long(argc, argv, "h", longopts, NULL)) != -1) {
-        int taken = ruleopts_take(c, optarg, &cli->rules, err);
-        if (taken < 0)
-            return PB_EUSAGE;
-        if (taken)
-            continue;
-        switch (c) {
-        case T_BY:
-            if (trendopts_by(optarg, &cli->by, err))
-                return PB_EUSAGE;
-            break;
-        case T_HORIZON:
-            if (cmd_parse_double("--horizon", optarg, 1, 1e6, &cli->horizon, err))
-                return PB_EUSAGE;
-            break;
-        case T_FIT:
-            if (trendopts_fit(optarg, &cli->plain, err))
-                return PB_EUSAGE;
-            break;
-        case T_JSON:
-            cli->fmt = FLEET_JSON;
-            break;
-        case T_CSV:
-            cli->fmt = FLEET_CSV;
-            break;
-        case T_DB:
-            cli->db = optarg;
-            break;
-        case T_PLOT:
-            if (strcmp(verb, "trend") != 0)
-                return pb_error_set(err, PB_EUSAGE,
-                                    "compare: --plot draws one pack: use 'packbook trend ID "
-                                    "--plot FILE' or 'packbook plot fleet'");
-            if (plot_format_of(optarg) < 0)
-                return pb_error_set(err, PB_EUSAGE,
-                                    "--plot: '%s': the figure's name must end in .png, .svg or "
-                                    ".pdf",
-                                    optarg);
-            cli->plot = optarg;
-            break;
-        case 'h':
-            fputs(usage, stdout);
-            fputs(ruleopts_usage, stdout);
-            *done = 1;
-            return cmd_finish_stdout(err);
-        default:
-            return cmd_bad_option(verb, argc, argv, err);
-        }
-    }
-    return PB_OK;
+    struct opt_cmd cmd = {verb,
+                          usage,
+                          NULL,
+                          {{NULL, trend_table, cli, NULL},
+                           {"trend:", trendopts_table, &cli->t, NULL},
+                           RULEOPTS_GROUP(&cli->rules)},
+                          3,
+                          trend_hook,
+                          cli};
+    return opt_parse(&cmd, argc, argv, done, err);
 }
 
 /* Loads the views of the packs named in argv[optind..]. */
@@ -138,8 +112,8 @@ static enum pb_code load_named(int argc, char **argv, const struct trend_cli *cl
         rc = store_pack_get(*st, argv[k], &p, err);
         if (rc != PB_OK)
             return rc;
-        rc = packview_load(*st, &p, &cli->rules, cli->by, cli->plain, cli->horizon, &(*views)[*nv],
-                           err);
+        rc = packview_load(*st, &p, &cli->rules, cli->t.by, cli->t.plain, cli->t.horizon,
+                           &(*views)[*nv], err);
         if (rc != PB_OK)
             return rc;
         (*nv)++;
@@ -173,7 +147,7 @@ static enum pb_code run(int compare, int argc, char **argv, struct pb_error *err
     }
     if (rc == PB_OK) {
         int w = compare ? report_compare(stdout, views, nv, cli.fmt)
-                        : report_trend(stdout, views, nv, cli.by, cli.horizon, cli.fmt);
+                        : report_trend(stdout, views, nv, cli.t.by, cli.t.horizon, cli.fmt);
         rc = w != 0 ? pb_error_set(err, PB_EOUTPUT, "cannot write the output")
                     : cmd_finish_stdout(err);
     }

@@ -116,7 +116,7 @@ static void reader_warnings(struct analysis *a, const struct logread_stats *st, 
     if (st->truncated_last_line)
         warn(a, "truncated_last_line",
              "the last line of %s is cut short (no final newline); it was dropped", name);
-    /* plausibility and clock events, worded by the reader */
+    /* plausibility, clock events and dropped cells, worded by the reader */
     logread_warnings(st, name, emit_reader_warning, a);
     if (st->sign_flipped)
         warn(a, "current_sign_flipped",
@@ -130,13 +130,15 @@ static void infer_cells(struct analysis *a, const struct series *s, const struct
     if (o->cells > 0) {
         a->cells = o->cells;
         a->cells_source = "given";
-        if (s->ncells > 0 && s->ncells != o->cells)
+        int logged = s->cells_in_pack > s->ncells ? s->cells_in_pack : s->ncells;
+        if (s->ncells > 0 && logged != o->cells)
             warn(a, "cells_mismatch", "--cells %d but the log has %d cell columns", o->cells,
-                 s->ncells);
+                 logged);
         return;
     }
     if (s->ncells > 0) {
-        a->cells = s->ncells;
+        /* a dropped cell still counts: the columns stand for cells_in_pack */
+        a->cells = s->cells_in_pack > s->ncells ? s->cells_in_pack : s->ncells;
         a->cells_source = "cell columns";
         return;
     }
@@ -324,9 +326,10 @@ static void per_cell(struct analysis *a, const struct series *s, const double *q
                      const struct analyze_opts *o, size_t k_rest0, size_t k_rest1)
 {
     a->ncells_detail = s->ncells;
+    a->cells_in_log = s->cells_in_pack > s->ncells ? s->cells_in_pack : s->ncells;
     for (int c = 0; c < s->ncells; c++) {
         struct cell_detail *d = &a->cell[c];
-        d->index = c + 1;
+        d->index = s->cell_no[c] > 0 ? s->cell_no[c] : c + 1;
         d->voltage_min_v = HUGE_VAL;
         for (size_t k = 0; k < s->n; k++)
             d->voltage_min_v = fmin(d->voltage_min_v, s->cell_v[c][k]);
@@ -399,7 +402,7 @@ static void per_cell(struct analysis *a, const struct series *s, const double *q
             (d->voltage_min_v == w->voltage_min_v && d->r0_mohm.value > w->r0_mohm.value))
             weakest = c;
     }
-    a->weakest_cell = weakest + 1;
+    a->weakest_cell = a->cell[weakest].index;
 }
 
 /* ---- entry ------------------------------------------------------------ */
@@ -775,10 +778,13 @@ enum pb_code analyze_series(const struct series *s, const struct logread_stats *
     per_cell(a, s, q_ah, o, k_rest0, k_rest1);
     if (s->ncells > 0 && !st->voltage_from_cells) {
         double worst = 0.0;
+        /* a dropped cell counted at the others' mean */
+        double scale = s->cells_in_pack > s->ncells ? (double)s->cells_in_pack / s->ncells : 1.0;
         for (size_t k = 0; k < s->n; k += 1 + s->n / 1000) {
             double sum = 0.0;
             for (int c = 0; c < s->ncells; c++)
                 sum += s->cell_v[c][k];
+            sum *= scale;
             worst = fmax(worst, fabs(sum - s->v_v[k]) / fmax(s->v_v[k], 1e-9));
         }
         if (worst > 0.03)

@@ -131,6 +131,7 @@ struct analysis {
     double temp_min_c, temp_max_c;
 
     int ncells_detail;
+    int cells_in_log; /* cells the log's cell columns stand for, a dropped one too (0: none) */
     struct cell_detail cell[PB_MAX_CELLS];
     /* imbalance (max - min cell) at rest before take-off, after landing, and
      * the one to judge by (after landing when there is such a rest) */

@@ -60,6 +60,15 @@ struct reader {
     enum bad_kind bad;
     int bad_col;
 
+    /* Cells are judged per column once the whole log is in (settle_cells):
+     * a cell value that is no voltage leaves a NAN in the sample and is
+     * counted here by kind (BAD_NONE's slot: outside the cell range); a
+     * column with no voltage at all is dropped, not the log. */
+    enum bad_kind cell_kind[PB_MAX_CELLS]; /* of the record being read */
+    size_t cell_ok[PB_MAX_CELLS];          /* samples with a voltage for the cell */
+    struct logread_event cell_ev[PB_MAX_CELLS][4];
+    int cell_map_missing[PB_MAX_CELLS]; /* --map named a column that is not there */
+
     struct series *s;
 };
 
@@ -313,6 +322,12 @@ static int apply_map(struct reader *r, char **header, int nheader, char **layout
             col = find_name(header, nheader, target, tlen);
         if (col < 0)
             col = find_name(layout, nlayout, target, tlen);
+        if (col < 0 && sp.role == COL_CELL && sp.cell >= 1 && sp.cell <= PB_MAX_CELLS) {
+            /* one cell's column missing drops that cell, not the log (settle_cells) */
+            r->cell_map_missing[sp.cell - 1] = 1;
+            p = end ? end + 1 : NULL;
+            continue;
+        }
         if (col < 0) {
             pb_error_set(r->err, PB_EUSAGE, "--map: no column '%.*s' in %s", (int)tlen, target,
                          r->name);
@@ -423,20 +438,16 @@ static int map_columns(struct reader *r)
              "no time column found in %s (name one with --map time_s=COLUMN)", where);
         goto cleanup;
     }
+    /* a cell numbered below the highest but with no column is dropped by
+     * settle_cells and named there, as is one whose --map column is missing */
     r->ncells = 0;
-    for (int c = 0; c < PB_MAX_CELLS; c++)
-        if (r->slot_col[SLOT_CELL0 + c] >= 0)
+    int cell_columns = 0;
+    for (int c = 0; c < PB_MAX_CELLS; c++) {
+        if (r->slot_col[SLOT_CELL0 + c] >= 0 || r->cell_map_missing[c])
             r->ncells = c + 1;
-    for (int c = 0; c < r->ncells; c++) {
-        if (r->slot_col[SLOT_CELL0 + c] < 0) {
-            char what[32];
-            snprintf(what, sizeof what, "%d", c + 1);
-            fail(r, PB_EINPUT, r->row_line, 0,
-                 "cell voltage columns skip cell %s (cells must be numbered 1..N)", what);
-            goto cleanup;
-        }
+        cell_columns += r->slot_col[SLOT_CELL0 + c] >= 0;
     }
-    if (r->slot_col[SLOT_V] < 0 && r->ncells == 0) {
+    if (r->slot_col[SLOT_V] < 0 && cell_columns == 0) {
         fail(r, PB_EINPUT, r->row_line, 0,
              "no voltage column found in %s (name one with --map voltage_v=COLUMN)", where);
         goto cleanup;
@@ -645,6 +656,15 @@ static void take_field(struct reader *r, const char *f, size_t len, size_t start
     }
     double v;
     enum num_status st = num_parse(f, len, r->st->decimal, &v);
+    if (slot >= SLOT_CELL0) {
+        /* judged with the whole column (settle_cells) */
+        r->cell_kind[slot - SLOT_CELL0] = st == NUM_OK          ? BAD_NONE
+                                          : st == NUM_EMPTY     ? BAD_EMPTY
+                                          : st == NUM_NONFINITE ? BAD_NONFINITE
+                                                                : BAD_NUMBER;
+        r->val[slot] = st == NUM_OK ? v * r->spec[slot].scale + r->spec[slot].offset : NAN;
+        return;
+    }
     if (st == NUM_OK) {
         r->val[slot] = v * r->spec[slot].scale + r->spec[slot].offset;
         return;
@@ -686,13 +706,7 @@ static double current_a(const struct reader *r)
 static int is_glitch(struct reader *r)
 {
     struct logread_stats *st = r->st;
-    for (int c = 0; c < r->ncells; c++) {
-        double v = r->val[SLOT_CELL0 + c];
-        if (!(v >= LOGREAD_CELL_MIN_V && v <= LOGREAD_CELL_MAX_V)) {
-            count_event(&st->glitch_voltage, r->row_line, r->slot_col[SLOT_CELL0 + c] + 1);
-            return 1;
-        }
-    }
+    /* cells are judged per column by settle_cells */
     if (!st->voltage_from_cells) {
         /* the cell count when given; else at least one cell per cell column */
         int given = r->opts->cells;
@@ -760,7 +774,18 @@ static void keep_sample(struct reader *r)
     s->line[k] = r->row_line < UINT32_MAX ? (uint32_t)r->row_line : UINT32_MAX;
     double v_sum = 0.0;
     for (int c = 0; c < r->ncells; c++) {
-        s->cell_v[c][k] = r->val[SLOT_CELL0 + c];
+        int col = r->slot_col[SLOT_CELL0 + c];
+        double v = col >= 0 ? r->val[SLOT_CELL0 + c] : NAN;
+        if (col >= 0 && r->cell_kind[c] != BAD_NONE) {
+            count_event(&r->cell_ev[c][r->cell_kind[c]], r->row_line, col + 1);
+            v = NAN;
+        } else if (col >= 0 && !(v >= LOGREAD_CELL_MIN_V && v <= LOGREAD_CELL_MAX_V)) {
+            count_event(&r->cell_ev[c][BAD_NONE], r->row_line, col + 1); /* a glitch */
+            v = NAN;
+        } else if (col >= 0) {
+            r->cell_ok[c]++;
+        }
+        s->cell_v[c][k] = v;
         v_sum += s->cell_v[c][k];
     }
     s->v_v[k] = st->voltage_from_cells ? v_sum : r->val[SLOT_V];
@@ -866,6 +891,96 @@ static void move_sample(struct series *s, size_t from, size_t to)
         s->temp_c[to] = s->temp_c[from];
     for (int c = 0; c < s->ncells; c++)
         s->cell_v[c][to] = s->cell_v[c][from];
+}
+
+/* Merges a cell's counted events into the log's (the earliest place wins). */
+static void merge_event(struct logread_event *into, const struct logread_event *ev)
+{
+    if (!ev->count)
+        return;
+    if (!into->count || ev->first_line < into->first_line ||
+        (ev->first_line == into->first_line && ev->first_column < into->first_column)) {
+        into->first_line = ev->first_line;
+        into->first_column = ev->first_column;
+    }
+    into->count += ev->count;
+}
+
+/* Once the whole log is in: a cell column without a voltage in most samples
+ * (absent, empty, text, or outside the cell range) is dropped and named in
+ * stats with the count; in the columns kept, a sample whose cell value was
+ * no voltage is dropped and counted as before. A pack voltage made from cells
+ * with one missing is the kept cells' mean times the pack's cells. */
+static void settle_cells(struct reader *r)
+{
+    struct series *s = r->s;
+    struct logread_stats *st = r->st;
+    if (r->ncells == 0 || s->n == 0)
+        return; /* no samples: the caller says why */
+    int live[PB_MAX_CELLS] = {0}, nlive = 0, top = 0;
+    for (int c = 0; c < r->ncells; c++) {
+        const struct logread_event *ev = r->cell_ev[c];
+        size_t bad = ev[BAD_NONE].count + ev[BAD_NUMBER].count + ev[BAD_NONFINITE].count +
+                     ev[BAD_EMPTY].count;
+        /* a column mostly without a voltage loses the cell, not the samples */
+        live[c] = r->slot_col[SLOT_CELL0 + c] >= 0 && r->cell_ok[c] > bad;
+        nlive += live[c];
+        top = live[c] ? c + 1 : top;
+    }
+    if (nlive == 0 && st->voltage_from_cells) {
+        fail(r, PB_EINPUT, st->header_line, 0,
+             "no voltage: no cell column holds a cell voltage in most samples (empty, text or "
+             "outside 0.5..5 V) and there is no pack voltage column%s",
+             " (name one with --map voltage_v=COLUMN)");
+        return;
+    }
+    size_t n = s->n, w = 0;
+    for (size_t k = 0; k < n; k++) {
+        int bad = 0;
+        for (int c = 0; c < r->ncells && !bad; c++)
+            bad = live[c] && isnan(s->cell_v[c][k]);
+        if (!bad)
+            move_sample(s, k, w++);
+    }
+    st->kept -= n - w;
+    s->n = w;
+    int given = r->opts->cells ? r->opts->cells : r->opts->pack_cells;
+    int pack_cells = given > top ? given : top;
+    int kept = 0;
+    for (int c = 0; c < r->ncells; c++) {
+        const struct logread_event *ev = r->cell_ev[c];
+        if (live[c]) {
+            merge_event(&st->glitch_voltage, &ev[BAD_NONE]);
+            merge_event(&st->bad_number, &ev[BAD_NUMBER]);
+            merge_event(&st->nonfinite, &ev[BAD_NONFINITE]);
+            merge_event(&st->empty_field, &ev[BAD_EMPTY]);
+            s->cell_v[kept] = s->cell_v[c];
+            s->cell_no[kept++] = c + 1;
+            continue;
+        }
+        struct logread_cell_drop *d = &st->cell_dropped[st->ncells_dropped++];
+        d->cell = c + 1;
+        d->column = r->slot_col[SLOT_CELL0 + c] + 1;
+        d->read = r->cell_ok[c];
+        d->unreadable = ev[BAD_NONE].count + ev[BAD_NUMBER].count + ev[BAD_NONFINITE].count +
+                        ev[BAD_EMPTY].count;
+        d->above_pack = pack_cells > 0 && c + 1 > pack_cells;
+        free(s->cell_v[c]);
+    }
+    for (int c = kept; c < r->ncells; c++)
+        s->cell_v[c] = NULL;
+    s->ncells = kept;
+    s->cells_in_pack = kept ? pack_cells : 0;
+    st->cells_in_pack = s->cells_in_pack;
+    if (st->voltage_from_cells) {
+        st->cells_voltage_estimated = kept < pack_cells;
+        for (size_t k = 0; k < s->n; k++) {
+            double sum = 0.0;
+            for (int c = 0; c < kept; c++)
+                sum += s->cell_v[c][k];
+            s->v_v[k] = sum * (double)pack_cells / (double)kept;
+        }
+    }
 }
 
 /* The times were kept as read; here each sample that steps back is sorted
@@ -1206,6 +1321,28 @@ void logread_warnings(const struct logread_stats *st, const char *name,
                  ev->first_line, ev->first_column);
         emit(ctx, evs[k].code, msg);
     }
+    for (int k = 0; k < st->ncells_dropped; k++) {
+        const struct logread_cell_drop *d = &st->cell_dropped[k];
+        const char *then = d->above_pack ? "; taken as a cell the pack does not have (give "
+                                           "--cells if it has)"
+                                         : "; the other cells are analysed";
+        if (d->column == 0)
+            snprintf(msg, sizeof msg, "cell %d dropped: the log has no column for it%s", d->cell,
+                     then);
+        else
+            snprintf(msg, sizeof msg,
+                     "cell %d dropped: its column (%s:%d) holds no cell voltage in %zu of %zu "
+                     "sample(s) (empty, text or outside 0.5..5 V)%s",
+                     d->cell, name, d->column, d->unreadable, d->unreadable + d->read, then);
+        emit(ctx, d->above_pack ? "cell_unused" : "cell_dropped", msg);
+    }
+    if (st->cells_voltage_estimated) {
+        snprintf(msg, sizeof msg,
+                 "pack voltage estimated as %d x the mean of the cells read: a missing cell's "
+                 "sag cannot be seen, so the voltage, SoC and cut-off checks may read high",
+                 st->cells_in_pack);
+        emit(ctx, "pack_voltage_estimated", msg);
+    }
     if (st->clock_restart.count) {
         size_t nseg = st->clock_restart.count + 1;
         snprintf(msg, sizeof msg,
@@ -1330,6 +1467,9 @@ struct series *logread_file(FILE *fp, const char *name, const struct logread_opt
                      name);
         goto cleanup;
     }
+    settle_cells(&r);
+    if (r.failed)
+        goto cleanup;
     if (r.s->n > 1) {
         order_times(&r);
         if (r.failed)

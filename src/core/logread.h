@@ -51,11 +51,23 @@ struct logread_opts {
     double adc_offset_counts;
     size_t min_samples; /* fewest usable samples accepted; 0 means 2 (what analysis needs) */
     int cells;          /* series cells when known (0: unknown), for the voltage check */
+    int pack_cells;     /* the pack's cells when known but not to bound voltages (import
+                           judges the cell count itself): which cell columns are the
+                           pack's when one is dropped; 0: cells */
     double rated_mah;   /* rated capacity when known (0: unknown), for the current check */
     /* called with every block of raw bytes as read (e.g. to hash the log) */
     void (*on_block)(void *ctx, const char *buf, size_t len);
     void *block_ctx;
     int no_fast_path; /* every line through libcsv (tests compare the two paths) */
+};
+
+/* A cell column left out: the log is read with the other cells. */
+struct logread_cell_drop {
+    int cell;          /* 1-based cell number */
+    int column;        /* 1-based column, 0: no such column (or --map named none there) */
+    size_t unreadable; /* samples whose value was no cell voltage (most or all) */
+    size_t read;       /* samples whose value was one (dropped with the column) */
+    int above_pack;    /* numbered above every cell read and the given count: unused */
 };
 
 /* A counted event: how often, and where first. */
@@ -86,6 +98,10 @@ struct logread_stats {
     int date_column;         /* 1-based column of dates joined to the times of day, 0 = none */
     int sign_flipped;        /* auto-detected discharge-negative and flipped */
     int voltage_from_cells;
+    int ncells_dropped; /* cell columns with no voltage at all: dropped, the log read */
+    struct logread_cell_drop cell_dropped[PB_MAX_CELLS];
+    int cells_in_pack;                   /* cells the cell columns stand for (dropped ones too) */
+    int cells_voltage_estimated;         /* pack voltage from cells with one missing: scaled up */
     struct logread_event bad_number;     /* text where a number was due: sample dropped */
     struct logread_event nonfinite;      /* nan/inf/overflow: sample dropped */
     struct logread_event empty_field;    /* empty required field: sample dropped */
@@ -116,7 +132,10 @@ size_t logread_dropped(const struct logread_stats *st);
 /* Calls emit(ctx, code, message) once for each kind of plausibility and
  * time-order event in st (glitch_voltage, glitch_current, glitch_spike,
  * stray_time, clock_restart), with the count and the first place
- * "NAME:LINE:COLUMN". The other reader events are worded by analyze. */
+ * "NAME:LINE:COLUMN", and once per dropped cell column (cell_dropped, or
+ * cell_unused above the pack's cells) and for a pack voltage estimated
+ * from cells with one missing (pack_voltage_estimated). The other reader
+ * events are worded by analyze. */
 void logread_warnings(const struct logread_stats *st, const char *name,
                       void (*emit)(void *ctx, const char *code, const char *message), void *ctx);
 

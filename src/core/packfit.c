@@ -5,9 +5,10 @@
 
 int packfit_check(const struct analysis *a, const struct packfit_pack *p, char *why, size_t cap)
 {
-    if (a->ncells_detail > 0 && a->ncells_detail != p->cells) {
-        snprintf(why, cap, "the log has %d cell columns and the pack is %dS", a->ncells_detail,
-                 p->cells);
+    /* a dropped cell column still stands for a cell of the pack */
+    int logged = a->cells_in_log > a->ncells_detail ? a->cells_in_log : a->ncells_detail;
+    if (logged > 0 && logged != p->cells) {
+        snprintf(why, cap, "the log has %d cell columns and the pack is %dS", logged, p->cells);
         return 1;
     }
     if (p->cells > 0 && p->chem && isfinite(a->voltage_max_v)) {

@@ -21,6 +21,7 @@ struct series *series_new(int has_current, int has_temp, int ncells)
     int bad =
         !s->t_s || !s->v_v || !s->line || (has_current && !s->i_a) || (has_temp && !s->temp_c);
     for (int c = 0; c < ncells; c++) {
+        s->cell_no[c] = c + 1;
         s->cell_v[c] = malloc(sizeof(double));
         bad |= !s->cell_v[c];
     }

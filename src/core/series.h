@@ -4,7 +4,7 @@
  * read: n >= 1; t_s strictly increasing and t_s[0] == 0 (times are relative
  * to the first kept sample, whose absolute time is start_epoch_s when
  * has_epoch); i_a is NULL when the log has no current; temp_c is NULL when
- * it has no temperature; cell_v[c] for c < ncells holds cell c+1's voltage;
+ * it has no temperature; cell_v[c] for c < ncells holds cell cell_no[c]'s voltage;
  * line[k] is the input line sample k came from (saturating at UINT32_MAX).
  * Current is positive when discharging. Values are finite.
  *
@@ -37,6 +37,10 @@ struct series {
     uint32_t *line;
     int ncells;
     double *cell_v[PB_MAX_CELLS];
+    int cell_no[PB_MAX_CELLS]; /* cell_v[c]'s 1-based number in the log (a dropped cell
+                                  leaves a gap); 0 in a series built by hand: c + 1 */
+    int cells_in_pack;         /* cells the log's cell columns stand for, dropped ones
+                                  too; 0: ncells */
     int has_epoch;
     double start_epoch_s;
     size_t nseg;       /* segments; 0 or 1: one */

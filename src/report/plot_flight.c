@@ -515,12 +515,13 @@ enum pb_code plot_flight(const char *path, const struct plot_opts *o, const stru
             break;
         case P_CELLS:
             plot_hline(p, q, a->floor_v, &st_floor, NULL, 0);
-            for (int cl = 0; cl < s->ncells; cl++)
-                if (cl + 1 != a->weakest_cell)
+            /* a dropped cell leaves a gap in the numbers: cell_detail has them */
+            for (int cl = 0; cl < s->ncells && cl < a->ncells_detail; cl++)
+                if (a->cell[cl].index != a->weakest_cell)
                     plot_line(p, q, 0, s->t_s, s->cell_v[cl], s->n, x_div, a->gap_s, &st_cell);
-            if (a->weakest_cell > 0 && a->weakest_cell <= s->ncells)
-                plot_line(p, q, 0, s->t_s, s->cell_v[a->weakest_cell - 1], s->n, x_div, a->gap_s,
-                          &st_weak);
+            for (int cl = 0; cl < s->ncells && cl < a->ncells_detail; cl++)
+                if (a->cell[cl].index == a->weakest_cell)
+                    plot_line(p, q, 0, s->t_s, s->cell_v[cl], s->n, x_div, a->gap_s, &st_weak);
             break;
         case P_TEMP:
             plot_line(p, q, 0, s->t_s, s->temp_c, s->n, x_div, a->gap_s, &st_temp);

@@ -73,6 +73,43 @@ static void crossing_text(const struct trend_line *tl, const struct line_fit *l,
     snprintf(buf, cap, "%s: %s \u00b7 %s", what, slope, when);
 }
 
+/* The cells panel: each flight's resting cell imbalance with the number of
+ * its weakest cell (lowest under load) beside the mark, the retire and watch
+ * levels (the title block says which cell was weakest most often lately).
+ * Numbers are written where the weakest cell changes (and at the last
+ * flight) when there are too many flights to name each. */
+static void draw_cells(struct plot *p, struct plot_panel *pp, const struct pack_view *v,
+                       const struct health_rules *rules, const double *x, const double *imb,
+                       double fs, const struct plot_style *st_imb,
+                       const struct plot_style *st_retire, const struct plot_style *st_watch,
+                       const struct plot_key *keys, size_t nkeys)
+{
+    size_t n = v->nflights;
+    char lab[160];
+    plot_panel_draw(p, pp);
+    snprintf(lab, sizeof lab, "retire %.0f mV", rules->retire_spread_mv);
+    plot_hline(p, pp, rules->retire_spread_mv, st_retire, lab, 1);
+    snprintf(lab, sizeof lab, "watch %.0f mV", rules->watch_spread_mv);
+    plot_hline(p, pp, rules->watch_spread_mv, st_watch, lab, 1);
+    int every = n <= 40;
+    for (size_t k = 0; k < n; k++) {
+        int wc = v->flights[k].weakest_cell;
+        /* a flight without a resting imbalance still names its weakest cell, at the axis */
+        double y = isfinite(imb[k]) ? imb[k] : pp->y.lo;
+        if (isfinite(imb[k]))
+            plot_marker(p, pp, x[k], y, MARK_CIRCLE, 0, st_imb);
+        int changed = k == 0 || wc != v->flights[k - 1].weakest_cell || k + 1 == n;
+        if (wc > 0 && (every || changed)) {
+            char num[16];
+            snprintf(num, sizeof num, "%d", wc);
+            double fx = pp->x0 + (x[k] - pp->x.lo) / (pp->x.hi - pp->x.lo) * (pp->x1 - pp->x0);
+            double fy = pp->y1 - (y - pp->y.lo) / (pp->y.hi - pp->y.lo) * (pp->y1 - pp->y0);
+            plot_text(p, fx, fy - fs * 0.55, 1, fs * 0.7, 1, 0x333333u, num);
+        }
+    }
+    plot_legend(p, pp, keys, nkeys);
+}
+
 enum pb_code plot_trend(const char *path, const struct plot_opts *o, const struct pack_view *v,
                         const struct health_rules *rules, int by_date, struct pb_error *err)
 {
@@ -87,9 +124,10 @@ enum pb_code plot_trend(const char *path, const struct plot_opts *o, const struc
     double *x = malloc((n ? n : 1) * sizeof *x);
     double *r0 = malloc((n ? n : 1) * sizeof *r0);
     double *cap = malloc((n ? n : 1) * sizeof *cap);
+    double *imb = malloc((n ? n : 1) * sizeof *imb);
     double *lx = malloc(LINE_POINTS * sizeof *lx), *ly = malloc(LINE_POINTS * sizeof *ly);
     double *lo = malloc(LINE_POINTS * sizeof *lo), *hi = malloc(LINE_POINTS * sizeof *hi);
-    if (!x || !r0 || !cap || !lx || !ly || !lo || !hi) {
+    if (!x || !r0 || !cap || !imb || !lx || !ly || !lo || !hi) {
         rc = pb_error_set(err, PB_ENOMEM, "out of memory");
         goto cleanup;
     }
@@ -102,7 +140,14 @@ enum pb_code plot_trend(const char *path, const struct plot_opts *o, const struc
         x[k] = by_date ? (f->flown_epoch_s - first_epoch) / 86400.0 : q / rated;
         r0[k] = f->r0_mohm / cells;
         cap[k] = 100.0 * f->capacity_mah / rated;
+        imb[k] = f->cell_spread_rest_mv;
     }
+    /* a third panel, the cells, when the logs had cell columns: the resting
+     * imbalance of each flight with its weakest cell named beside it */
+    int has_cells = 0;
+    for (size_t k = 0; k < n; k++)
+        has_cells |= isfinite(imb[k]) || v->flights[k].weakest_cell > 0;
+    int npan = has_cells ? 3 : 2;
     double x_now = n ? x[n - 1] : 0.0;
     double base_r0 = v->health.r0_base_mohm_cell;
     struct quantity qs[2] = {
@@ -125,7 +170,7 @@ enum pb_code plot_trend(const char *path, const struct plot_opts *o, const struc
     }
 
     double fs = plot_font(p);
-    struct plot_panel pa[2];
+    struct plot_panel pa[3];
     memset(pa, 0, sizeof pa);
     static const struct plot_style st_pt[2] = {{PLOT_BLUE, 1, DASH_SOLID, 0},
                                                {PLOT_GREEN, 1, DASH_SOLID, 0}};
@@ -142,9 +187,9 @@ enum pb_code plot_trend(const char *path, const struct plot_opts *o, const struc
         v->trend.nbuckets && strchr(v->trend.buckets[0].key, 'W')            ? "weekly mean"
         : v->trend.nbuckets && strncmp(v->trend.buckets[0].key, "cycles", 6) ? "monthly mean"
                                                                              : "5-cycle mean";
-    struct plot_key keys[2][8];
+    struct plot_key keys[3][8];
     static const struct plot_style st_dep = {PLOT_VERMILION, 2.2, DASH_SOLID, 0};
-    size_t nk[2] = {0, 0};
+    size_t nk[3] = {0, 0, 0};
     for (int j = 0; j < 2; j++) {
         keys[j][nk[j]++] = (struct plot_key){"flight", st_pt[j], MARK_CIRCLE, 0, 0};
         keys[j][nk[j]++] = (struct plot_key){bucket_name, st_bucket, MARK_DIAMOND, 1, 0};
@@ -158,12 +203,17 @@ enum pb_code plot_trend(const char *path, const struct plot_opts *o, const struc
         if (v->departures)
             keys[j][nk[j]++] = (struct plot_key){"left its trend", st_dep, MARK_SQUARE, 0, 0};
     }
+    static const struct plot_style st_imb = {PLOT_PURPLE, 1, DASH_SOLID, 0};
+    keys[2][nk[2]++] =
+        (struct plot_key){"flight (weakest cell beside it)", st_imb, MARK_CIRCLE, 0, 0};
+    keys[2][nk[2]++] = (struct plot_key){"retire", st_retire, -1, 0, 0};
+    keys[2][nk[2]++] = (struct plot_key){"watch", st_watch, -1, 0, 0};
     double top = fs * 6.8, bottom = h - fs * 4.6, left = fs * 6, right = w - fs * 2;
-    double weight[2] = {1, 1};
-    int rows[2];
-    for (int j = 0; j < 2; j++)
+    double weight[3] = {1, 1, 0.7};
+    int rows[3];
+    for (int j = 0; j < npan; j++)
         rows[j] = plot_legend_rows(p, right - left, keys[j], nk[j]);
-    plot_stack(p, top, bottom, left, right, weight, rows, 2, pa);
+    plot_stack(p, top, bottom, left, right, weight, rows, (size_t)npan, pa);
     for (int j = 0; j < 2; j++) {
         struct plot_panel *pp = &pa[j];
         const struct trend_line *tl = qs[j].tl;
@@ -198,7 +248,17 @@ enum pb_code plot_trend(const char *path, const struct plot_opts *o, const struc
         yhi += pad;
         plot_axis_fit(p, &pp->y, ylo, yhi, pp->y1 - pp->y0, 1);
     }
-    plot_margins(p, pa, 2, &left, &right);
+    if (has_cells) {
+        struct plot_panel *pp = &pa[2];
+        snprintf(pp->name, sizeof pp->name, "imbalance");
+        snprintf(pp->y.label, sizeof pp->y.label, "cell imbalance at rest (mV)");
+        double yhi = fmax(rules->retire_spread_mv, 10.0);
+        for (size_t k = 0; k < n; k++)
+            if (isfinite(imb[k]))
+                yhi = fmax(yhi, imb[k]);
+        plot_axis_fit(p, &pp->y, 0.0, yhi * 1.08, pp->y1 - pp->y0, 1);
+    }
+    plot_margins(p, pa, (size_t)npan, &left, &right);
     right = w - right;
     struct plot_axis xa = {0};
     if (by_date) {
@@ -210,7 +270,7 @@ enum pb_code plot_trend(const char *path, const struct plot_opts *o, const struc
                  "equivalent full cycles (charge drawn / rated %.0f mAh)", rated);
     }
     plot_axis_fit(p, &xa, 0.0, x_hi, right - left, 0);
-    for (int j = 0; j < 2; j++) {
+    for (int j = 0; j < npan; j++) {
         pa[j].x0 = left;
         pa[j].x1 = right;
         pa[j].x = xa;
@@ -223,10 +283,14 @@ enum pb_code plot_trend(const char *path, const struct plot_opts *o, const struc
     char line[512], ln[2][320];
     snprintf(line, sizeof line, "%s", o->title ? o->title : pk->label);
     char meta[256];
-    snprintf(meta, sizeof meta, "%dS %s %.0f mAh \u00b7 %zu flight%s \u00b7 %.1f cycles \u00b7 %s",
-             pk->cells, chem ? chem->label : pk->chemistry, rated, n, n == 1 ? "" : "s",
-             v->health.cycles,
-             pk->retired_at[0] ? "retired" : health_status_name(v->health.status));
+    char weak[96] = "";
+    if (v->health.weakest_cell > 0)
+        snprintf(weak, sizeof weak, " \u00b7 weakest cell %d (%zu of last %zu)",
+                 v->health.weakest_cell, v->health.weakest_count, v->health.weakest_of);
+    snprintf(meta, sizeof meta,
+             "%dS %s %.0f mAh \u00b7 %zu flight%s \u00b7 %.1f cycles%s \u00b7 %s", pk->cells,
+             chem ? chem->label : pk->chemistry, rated, n, n == 1 ? "" : "s", v->health.cycles,
+             weak, pk->retired_at[0] ? "retired" : health_status_name(v->health.status));
     double mw = plot_text_width(p, meta, fs * 1.0, 0);
     plot_text(p, left, fs * 1.7, 0, plot_fit_size(p, line, fs * 1.35, 1, right - left - mw - fs), 1,
               0x111111u, line);
@@ -358,6 +422,8 @@ enum pb_code plot_trend(const char *path, const struct plot_opts *o, const struc
                       "no flights recorded for this pack");
         plot_legend(p, pp, keys[j], nk[j]);
     }
+    if (has_cells)
+        draw_cells(p, &pa[2], v, rules, x, imb, fs, &st_imb, &st_retire, &st_watch, keys[2], nk[2]);
     snprintf(
         line, sizeof line,
         "packbook %s \u00b7 projections (straight lines, fade models) are not guarantees: inspect "
@@ -365,9 +431,9 @@ enum pb_code plot_trend(const char *path, const struct plot_opts *o, const struc
         PACKBOOK_VERSION);
     plot_text(p, left, h - fs * 0.6, 0, plot_fit_size(p, line, fs * 0.72, 0, right - left), 0,
               0x666666u, line);
-    rc = plot_finish_map(p, o->axes_json, pa, 2, err);
+    rc = plot_finish_map(p, o->axes_json, pa, (size_t)npan, err);
 cleanup:
-    free(x), free(r0), free(cap), free(lx), free(ly), free(lo), free(hi);
+    free(x), free(r0), free(cap), free(imb), free(lx), free(ly), free(lo), free(hi);
     plot_free(p);
     return rc;
 }

@@ -28,7 +28,9 @@ enum pb_code plot_flight(const char *path, const struct plot_opts *o, const stru
 
 /* Trend: R0 per cell and capacity % of rated per flight and per bucket,
  * against equivalent cycles (or dates when by_date), with each fitted
- * line, its 95 % band, the retirement levels and the projected crossing. */
+ * line, its 95 % band, the retirement levels and the projected crossing;
+ * with cell data a third panel of each flight's resting cell imbalance
+ * with its weakest cell, and the pack's weakest cell in the title. */
 enum pb_code plot_trend(const char *path, const struct plot_opts *o, const struct pack_view *v,
                         const struct health_rules *rules, int by_date, struct pb_error *err);
 

@@ -38,6 +38,15 @@ static json_t *input_obj(const struct report_input *in)
         st->sign_flipped ? "flipped (logged discharge-negative)" : "as logged", "current_from_adc",
         st->current_is_raw, "voltage_from_cells", st->voltage_from_cells);
     json_object_set_new(o, "ignored_columns", ignored);
+    json_t *drop = json_array();
+    for (int k = 0; k < st->ncells_dropped; k++) {
+        const struct logread_cell_drop *d = &st->cell_dropped[k];
+        jout_append(drop, json_pack("{s:i, s:o, s:I, s:I, s:b}", "cell", d->cell, "column",
+                                    d->column ? json_integer(d->column) : json_null(), "unreadable",
+                                    (json_int_t)d->unreadable, "read", (json_int_t)d->read,
+                                    "unused", d->above_pack));
+    }
+    json_object_set_new(o, "cells_dropped", drop);
     return o;
 }
 

@@ -214,6 +214,12 @@ int report_analysis_text(FILE *out, const struct analysis *a, const struct repor
             st->kept, dropped, st->temp_repaired.count);
     if (st->ignored_names[0])
         fprintf(out, "  columns ignored: %s\n", st->ignored_names);
+    if (st->ncells_dropped) {
+        fprintf(out, "  cells dropped (no voltage in their column): %d:", st->ncells_dropped);
+        for (int k = 0; k < st->ncells_dropped; k++)
+            fprintf(out, " cell %d%s", st->cell_dropped[k].cell,
+                    k + 1 < st->ncells_dropped ? "," : "\n");
+    }
     if (st->time_is_clock && st->date_column)
         fprintf(out, "  dates and times of day from separate columns (%d and %d)\n",
                 st->date_column, st->time_column);

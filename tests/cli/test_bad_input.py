@@ -937,7 +937,7 @@ class BadInput(unittest.TestCase):
     def test_cell_columns_must_start_at_1(self):
         cols = [STD[0], STD[2], ("cell3_v", col_v)]
         path = self.temp(make_log(cols))
-        self.assert_error(EXIT_INPUT, ["analyze", path], f"{path}:1", "skip cell 1")
+        self.assert_error(EXIT_INPUT, ["analyze", path], f"{path}:1", "no voltage")
 
     # -- raw ADC current --
 

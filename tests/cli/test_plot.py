@@ -79,6 +79,7 @@ BLUE = (0x00, 0x72, 0xB2)       # measured pack voltage; trend: R0 per flight
 GREEN = (0x00, 0x9E, 0x73)      # fleet: packs whose status is ok
 GREY = (0x8C, 0x8C, 0x8C)       # fleet: retired packs; flight: the "no data" hatch
 VERMILION = (0xD5, 0x5E, 0x00)  # retire levels and projected crossings
+PURPLE = (0xCC, 0x79, 0xA7)     # trend: resting cell imbalance per flight (and the fade model)
 
 NEAR = 40    # "close to the colour": each channel within 40 of it (antialiased line)
 EXACT = 10   # "that colour": each channel within 10 (a line's fully covered pixels)
@@ -894,6 +895,48 @@ class History(FigureChecks, unittest.TestCase):
         # legend's "flight" key
         self.assert_colour_only_in(img, BLUE, pan, 10, "R0 per flight")
         return looked
+
+    def test_trend_cells_panel(self):
+        """A pack whose logs have cell columns gets a third panel: each flight's resting cell
+        imbalance (the flights table's cell_spread_rest_mv) as a hollow #CC79A7 circle where
+        the map puts it (within 9 px), with the retire level (60 mV, man packbook Retirement
+        rules) on its axis; the stored weakest cell is the simulator's weak cell (pbsim
+        --weak-cell 3: its truth), for every flight. A pack without cells keeps two panels
+        (test_trend_several_flights)."""
+        with tempfile.TemporaryDirectory() as d:
+            db = os.path.join(d, "cells.db")
+            must(pb(db, "pack", "add", "TC-1", "--cells", 4, "--chemistry", "lipo",
+                    "--capacity", 2000), "pack add TC-1")
+            for k in range(4):
+                log = os.path.join(d, f"tc-{k}.csv")
+                cmd = [PY, PBSIM, "--seed", str(SEED + 40 + k), "-o", log, "--format", "cells",
+                       "--cells", "4", "--capacity-mah", "2000", "--weak-cell", "3",
+                       "--duration-s", "240", "--rate-hz", "2", "--rest-end-s", "60"]
+                p = subprocess.run(cmd, capture_output=True, text=True, timeout=120)
+                self.assertEqual(p.returncode, 0, p.stderr)
+                must(pb(db, "import", "--pack", "TC-1", "--quiet", "--date",
+                        f"2026-03-{2 + 3 * k:02d}", log), f"import flight {k}")
+            out, amap = os.path.join(d, "tc.png"), os.path.join(d, "tc.png.json")
+            self.plot("trend", "TC-1", "-o", out, "--axes-json", amap, "--db", db)
+            m = axes_map(amap)
+            self.assert_map_sane(m, 1600, 1000, ["r0", "capacity", "imbalance"])
+            pan = panel(m, "imbalance")
+            self.assertTrue(pan["y"]["min"] <= 60.0 <= pan["y"]["max"], pan["y"])
+            con = sqlite3.connect(db)
+            try:
+                rows = con.execute("SELECT charge_used_mah, cell_spread_rest_mv, weakest_cell "
+                                   "FROM flights ORDER BY flown_epoch_s").fetchall()
+            finally:
+                con.close()
+            self.assertEqual([r[2] for r in rows], [3] * 4)
+            purple = colour_mask(load_rgb(out), PURPLE, NEAR)
+            q = 0.0
+            for charge, spread, _ in rows:
+                q += charge if charge and charge > 0 else 0.0
+                self.assertIsNotNone(spread)
+                self.assertTrue(pan["y"]["min"] <= spread <= pan["y"]["max"], (spread, pan))
+                fx, fy = to_px(pan, q / 2000.0, spread)
+                self.assertTrue(near(purple, fx, fy, 9), f"no imbalance mark near {spread} mV")
 
     def test_trend_several_flights(self):
         with tempfile.TemporaryDirectory() as d:

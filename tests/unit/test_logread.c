@@ -558,6 +558,64 @@ static void test_date_and_time_columns(void **state)
     series_free(s);
 }
 
+static void test_missing_cell_drops_the_cell(void **state)
+{
+    (void)state;
+    /* cell 2 empty throughout, cell 4 text: those cells go, the log stays;
+     * cell 3's one empty value drops that one sample, counted */
+    const char *text = "time_s,current_a,cell1_v,cell2_v,cell3_v,cell4_v\n"
+                       "0,10,4.10,,4.00,n/a\n1,12,4.00,,3.90,n/a\n"
+                       "2,11,3.90,,,n/a\n3,10,3.85,,3.75,n/a\n";
+    struct logread_opts o = {0};
+    struct logread_stats st;
+    struct pb_error err = {0};
+    struct series *s = read_text(text, &o, &st, &err);
+    assert_non_null(s);
+    assert_int_equal(s->ncells, 2);
+    assert_int_equal(s->cell_no[0], 1);
+    assert_int_equal(s->cell_no[1], 3);
+    assert_int_equal(s->n, 3);
+    assert_int_equal(st.ncells_dropped, 2);
+    assert_int_equal(st.cell_dropped[0].cell, 2);
+    assert_int_equal(st.cell_dropped[0].column, 4);
+    assert_int_equal(st.cell_dropped[0].unreadable, 4);
+    assert_int_equal(st.cell_dropped[1].cell, 4);
+    assert_int_equal(st.cell_dropped[1].unreadable, 4);
+    assert_int_equal(st.empty_field.count, 1);
+    assert_int_equal(st.empty_field.first_line, 4);
+    assert_int_equal(st.empty_field.first_column, 5);
+    /* the pack voltage from 2 of 3 cells: 3 x their mean (cells_in_pack 3:
+     * the highest cell read, cell 4 being above it) */
+    assert_int_equal(s->cells_in_pack, 3);
+    assert_int_equal(st.cells_voltage_estimated, 1);
+    check_close(s->v_v[0], 3.0 * (4.10 + 4.00) / 2.0, 1e-12, "pack voltage from the cells read");
+    series_free(s);
+
+    /* a cell with no column at all (cell 2), and one --map names a missing
+     * column for (cell 3), with a pack voltage column */
+    const char *text2 = "time_s,voltage_v,current_a,c1,cell4_v\n0,16.2,10,4.10,4.00\n"
+                        "1,16.0,12,4.00,3.95\n2,15.8,11,3.95,3.90\n";
+    o.map = "cell1_v=c1,cell3_v=nowhere";
+    s = read_text(text2, &o, &st, &err);
+    assert_non_null(s);
+    assert_int_equal(s->ncells, 2);
+    assert_int_equal(s->cell_no[1], 4);
+    assert_int_equal(st.ncells_dropped, 2);
+    assert_int_equal(st.cell_dropped[0].column, 0);
+    assert_int_equal(st.cell_dropped[1].cell, 3);
+    assert_int_equal(st.cell_dropped[1].column, 0);
+    assert_int_equal(st.cells_voltage_estimated, 0);
+    check_close(s->v_v[1], 16.0, 0.0, "the pack voltage column");
+    series_free(s);
+
+    /* no voltage at all: fails */
+    const char *text3 = "time_s,current_a,cell1_v,cell2_v\n0,10,,\n1,12,,\n2,11,,\n";
+    o.map = NULL;
+    s = read_text(text3, &o, &st, &err);
+    assert_null(s);
+    assert_non_null(strstr(err.msg, "no voltage"));
+}
+
 int main(void)
 {
     const struct CMUnitTest tests[] = {
@@ -579,6 +637,7 @@ int main(void)
         cmocka_unit_test(test_fast_path_same_across_blocks),
         cmocka_unit_test(test_clock_time_and_ignored_names),
         cmocka_unit_test(test_date_and_time_columns),
+        cmocka_unit_test(test_missing_cell_drops_the_cell),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
 }
