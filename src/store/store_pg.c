@@ -454,9 +454,17 @@ static enum pb_code pg_open(const char *db, const char *shown, enum store_mode m
              wait_s * 1000.0 < 1.0 ? 1.0 : wait_s * 1000.0);
     if ((rc = exec_simple(st, sql, "CONNECT", "cannot open", err)) != PB_OK)
         goto fail;
+    /* read under the schema lock (shared): a migration another process has
+     * under way is seen whole, never as tables without their version */
     int have = -1;
-    if ((rc = classify(st, &have, err)) != PB_OK)
+    snprintf(sql, sizeof sql, "SELECT pg_advisory_xact_lock_shared(%lld)", LOCK_SCHEMA);
+    if ((rc = begin(st, "cannot open", err)) != PB_OK ||
+        (rc = exec_simple(st, sql, "CONNECT", "cannot open", err)) != PB_OK ||
+        (rc = classify(st, &have, err)) != PB_OK) {
+        rollback(st);
         goto fail;
+    }
+    rollback(st); /* nothing was written: the lock goes */
     st->found_version = have < 0 ? 0 : have;
     if (have > NSTEPS) {
         rc = refuse_newer(st, have, err);
