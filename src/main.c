@@ -45,6 +45,8 @@ static void print_usage(FILE *out)
                  "       packbook --help | --version\n\ncommands:\n");
     for (size_t k = 0; k < sizeof commands / sizeof *commands; k++)
         fprintf(out, "  %-12s %s\n", commands[k].name, commands[k].summary);
+    fprintf(out, "\nThe history (--db, $PACKBOOK_DB) is an SQLite file, or a PostgreSQL database\n"
+                 "named by a connection string (postgresql://..., or 'host=... dbname=...').\n");
     fprintf(out, "\n'packbook COMMAND --help' shows a command's options; man packbook has the\n"
                  "rest, including exit statuses and the JSON keys.\n"
                  "Estimates only: never a substitute for the aircraft's low-voltage protection.\n");
