@@ -21,7 +21,7 @@
 #include "../core/pb_error.h"
 #include "../core/series.h"
 
-#define STORE_SCHEMA_VERSION 8
+#define STORE_SCHEMA_VERSION 9
 
 struct store;
 

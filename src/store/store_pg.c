@@ -106,6 +106,8 @@ static const char *const pg_steps[] = {
     "  report_json text NOT NULL);"
     "INSERT INTO flight_reports (flight_id, report_json) SELECT id, report_json FROM flights;"
     "ALTER TABLE flights DROP COLUMN report_json;",
+    /* 8 -> 9: flights by time alone, for import's same-start check */
+    "CREATE INDEX flights_by_time ON flights(flown_epoch_s);",
 };
 
 #define NSTEPS ((int)(sizeof pg_steps / sizeof *pg_steps))

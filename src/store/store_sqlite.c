@@ -101,6 +101,9 @@ static const char *const migrations[] = {
     "  report_json TEXT NOT NULL);"
     "INSERT INTO flight_reports (flight_id, report_json) SELECT id, report_json FROM flights;"
     "ALTER TABLE flights DROP COLUMN report_json;",
+    /* 8 -> 9: flights by time alone, for import's same-start check across packs
+     * (a range on flown_epoch_s; without it every import scanned all flights) */
+    "CREATE INDEX flights_by_time ON flights(flown_epoch_s);",
 };
 
 static void sq_close(struct store_impl *st);
