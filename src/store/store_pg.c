@@ -327,13 +327,19 @@ static void now_iso(char *buf, size_t cap)
  * has no packbook tables at all. */
 static enum pb_code classify(struct store_impl *st, int *version, struct pb_error *err)
 {
-    PGresult *r = PQexec(st->conn, "SELECT to_regclass('packbook_schema') IS NOT NULL, "
-                                   "to_regclass('packs') IS NOT NULL, "
-                                   "to_regclass('flights') IS NOT NULL");
+    /* pg_class read by a scan, not to_regclass: the scan takes in other
+     * sessions' catalog changes (a migration committed while this one waited
+     * for the schema lock), which a cached name lookup may not have seen */
+    PGresult *r =
+        PQexec(st->conn, "SELECT coalesce(bool_or(c.relname = 'packbook_schema'), false), "
+                         "coalesce(bool_or(c.relname IN ('packs', 'flights')), false) "
+                         "FROM pg_catalog.pg_class c WHERE c.relname IN ('packbook_schema', "
+                         "'packs', 'flights') AND c.relkind IN ('r', 'p') AND "
+                         "pg_catalog.pg_table_is_visible(c.oid)");
     if (!ok(r) || PQntuples(r) != 1)
         return fail(st, r, "SELECT", "cannot read the database's tables", err);
     int ours = PQgetvalue(r, 0, 0)[0] == 't';
-    int theirs = PQgetvalue(r, 0, 1)[0] == 't' || PQgetvalue(r, 0, 2)[0] == 't';
+    int theirs = PQgetvalue(r, 0, 1)[0] == 't';
     PQclear(r);
     *version = -1;
     if (!ours && theirs)

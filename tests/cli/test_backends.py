@@ -31,6 +31,7 @@ import random
 import re
 import shutil
 import signal
+import sqlite3
 import subprocess
 import sys
 import tempfile
@@ -236,6 +237,19 @@ class Cases:
         self.assertEqual(self.check_whole(db, "four imports"), 24)
         self.assertEqual(set(self.hashes(db)), self.ref)
 
+    def test_three_pack_adds_on_a_new_database(self):
+        # all three find no schema: one makes it, the others wait for it and use it
+        for rnd in range(4):
+            db = self.B.fresh(f"new{rnd}")
+            ps = [subprocess.Popen([PACKBOOK, "pack", "add", f"TM-{k + 1:02d}", "--db", db,
+                                    "--cells", "4", "--chemistry", "lipo", "--capacity", "5000"],
+                                   stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+                  for k in range(3)]
+            for p in ps:
+                out, err = p.communicate(timeout=120)
+                self.assertEqual(p.returncode, EXIT_OK, f"round {rnd}: {err}")
+            self.assertEqual(self.B.query(db, "SELECT count(*) FROM packs"), [(3,)])
+
     def test_kill9_mid_import_repeatedly(self):
         rng = random.Random(SEED + 9)
         many = logs(48)
@@ -247,7 +261,7 @@ class Cases:
         full_s = time.monotonic() - t0
         self.assertEqual(rc, EXIT_OK, err)
         mid = 0
-        for it in range(6):
+        for it in range(4):
             db = self.B.fresh(f"kill{it}")
             add_pack(self, db, "TM-25")
             n = 0
@@ -270,9 +284,9 @@ class Cases:
             self.assertEqual(rc, EXIT_OK, err)
             self.assertEqual(counts(out), (48 - n, n, 0))
             self.assertEqual(self.check_whole(db, f"iteration {it}, completed"), 48)
-        print(f"  {self.backend}: kill -9 landed mid-import {mid} times of 12 (full import "
+        print(f"  {self.backend}: kill -9 landed mid-import {mid} times of 8 (full import "
               f"{full_s * 1000:.0f} ms)", file=sys.stderr)
-        self.assertGreaterEqual(mid, 3, "kills came too late to test anything")
+        self.assertGreaterEqual(mid, 2, "kills came too late to test anything")
 
 
 class SyncCases:
@@ -352,6 +366,7 @@ class SyncCases:
         full_s = time.monotonic() - t0
         self.assertEqual(rc, EXIT_OK, err)
         rng = random.Random(SEED + 31)
+        print(f"  sync kill: seed {SEED + 31}", file=sys.stderr)
         mid = 0
         runs = 0
         for it in range(12):  # until two kills landed mid-sync
@@ -361,7 +376,11 @@ class SyncCases:
             dst = self.B.fresh(f"kdst{it}")
             p = subprocess.Popen([PACKBOOK, "sync", "--db", src, "--to", dst],
                                  stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
-            time.sleep(rng.uniform(0.1 * full_s, 0.9 * full_s))
+            # from the first flight sent, a random part of the sync's length
+            t0 = time.monotonic()
+            while p.poll() is None and time.monotonic() - t0 < 60 and self.stored(dst) == 0:
+                time.sleep(0.001)
+            time.sleep(rng.uniform(0.0, 0.3 * full_s))
             p.send_signal(signal.SIGKILL)
             p.wait()
             n = len(self.B.query(dst, "SELECT id FROM flights")) if self.has_tables(dst) else 0
@@ -374,9 +393,18 @@ class SyncCases:
               f"{full_s * 1000:.0f} ms)", file=sys.stderr)
         self.assertGreaterEqual(mid, 1, "kills came too late to test anything")
 
+    def stored(self, db):
+        """Flights in db so far; 0 while it has no tables yet."""
+        try:
+            return self.B.query(db, "SELECT count(*) FROM flights")[0][0] \
+                if self.has_tables(db) else 0
+        except (AssertionError, sqlite3.Error):
+            return 0
+
     def has_tables(self, db):
-        if self.backend == "sqlite":
-            return bool(self.S.query(db, "SELECT 1 FROM sqlite_master WHERE name = 'flights'"))
+        if self.backend == "sqlite":  # (never creating the file by asking)
+            return os.path.exists(db) and bool(
+                self.S.query(db, "SELECT 1 FROM sqlite_master WHERE name = 'flights'"))
         return self.B.query(db, "SELECT to_regclass('flights') IS NOT NULL") == [("t",)]
 
     def test_two_crews_at_once(self):
@@ -385,7 +413,7 @@ class SyncCases:
         want = set(h for (h,) in self.S.query(a, "SELECT content_hash FROM flights")) | set(
             h for (h,) in self.S.query(b, "SELECT content_hash FROM flights"))
         self.assertEqual(len(want), 24)
-        for rnd in range(2):
+        for rnd in range(2):  # twice: the first may find one crew done before the other
             dst = self.B.fresh(f"two{rnd}")
             ps = [subprocess.Popen([PACKBOOK, "sync", "--db", c, "--to", dst],
                                    stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
@@ -525,11 +553,13 @@ class PostgresOnly(unittest.TestCase):
 
     def test_server_stopped_mid_import(self):
         landed = 0
-        for k in range(3):
+        for k in range(3):  # until one stop lands mid-import
             def stop_and_start():
                 pbstore.pg_ctl("stop", "-m", "fast")
                 pbstore.pg_ctl("start")
             landed += self.interrupted(f"stop{k}", stop_and_start)
+            if landed:
+                break
         self.assertGreaterEqual(landed, 1, "the server never stopped mid-import")
 
     def test_connection_dropped(self):
@@ -540,6 +570,8 @@ class PostgresOnly(unittest.TestCase):
                                    "pg_stat_activity WHERE application_name = 'packbook'")
                 print(f"  pg_terminate_backend: {got[0][0]} session(s) ended", file=sys.stderr)
             landed += self.interrupted(f"term{k}", terminate)
+            if landed:
+                break
         self.assertGreaterEqual(landed, 1, "the connection was never dropped mid-import")
 
     def test_migrate_from_every_version(self):
