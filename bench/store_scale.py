@@ -24,7 +24,7 @@ import time
 
 PYTHON = "/usr/bin/python3"
 HERE = os.path.dirname(os.path.abspath(__file__))
-REPEATS = 3
+REPEATS = int(os.environ.get("PB_BENCH_REPEATS", "3"))
 FLIGHT_QUERIES = {
     # what each command asks of flights (store_sql.h, src/store/*.c), with sample values
     "fleet/trend/compare: a pack's flights":
@@ -224,7 +224,10 @@ def main():
         plan, full = B.plan(sql)
         scans += full
         print(f"| {what} | {plan.replace('|', '/')} | {'YES' if full else 'no'} |")
+    # flight list reads every flight through the store and only prints: the store's share
     res = [("fleet", timed([a.packbook, "fleet"], env)),
+           ("flight list (every flight: the store's reads)",
+            timed([a.packbook, "flight", "list", "--csv"], env)),
            ("trend (a pack)", timed([a.packbook, "trend", "P0007"], env)),
            ("compare (2 packs)", timed([a.packbook, "compare", "P0007", "P0008"], env)),
            ("import (a stored log again)", timed([a.packbook, "import", "--pack", "P0000",
