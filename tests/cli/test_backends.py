@@ -592,6 +592,27 @@ class PostgresOnly(unittest.TestCase):
                               subset(self.logs, 0, 1)[0])
             self.assertEqual(rc, EXIT_OK, err)
 
+    def test_libpq_environment(self):
+        # what the string leaves out comes from libpq's environment (PGHOST, PGUSER, a
+        # service file), untouched by packbook
+        db = self.fresh_with_pack("env")
+        parts = dict(kv.split("=", 1) for kv in pbstore.shlex.split(db))
+        env = dict(os.environ, PGHOST=parts["host"], PGPORT=parts["port"], PGUSER=parts["user"])
+        p = subprocess.run([PACKBOOK, "pack", "list", "--db", f"dbname={parts['dbname']}"],
+                           capture_output=True, text=True, env=env, timeout=60)
+        self.assertEqual(p.returncode, EXIT_OK, p.stderr)
+        self.assertIn("TM-41", p.stdout)
+        svc = os.path.join(SCRATCH, "pg_service.conf")
+        with open(svc, "w") as f:
+            f.write(f"[fleet]\nhost={parts['host']}\nport={parts['port']}\n"
+                    f"user={parts['user']}\ndbname={parts['dbname']}\n")
+        env = dict(os.environ, PGSERVICEFILE=svc, PGSERVICE="fleet")
+        env.pop("PGHOST", None)
+        p = subprocess.run([PACKBOOK, "fleet", "--db", "connect_timeout=10"],
+                           capture_output=True, text=True, env=env, timeout=60)
+        self.assertEqual(p.returncode, EXIT_OK, p.stderr)
+        self.assertIn("TM-41", p.stdout)
+
     def test_foreign_database_left_alone(self):
         db = self.B.fresh("foreign")
         self.B.admin("CREATE TABLE packs (x integer)", self.B.dbname(db))
