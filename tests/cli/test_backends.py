@@ -324,15 +324,21 @@ class SyncCases:
 
     def test_twice_and_back(self):
         src = self.crew("src", 0, 10, ack=True)
+        rc, out, err = run("pack", "pair", "TM-31", "TM-32", "--db", src)
+        self.assertEqual(rc, EXIT_OK, err)
         want = set(h for (h,) in self.S.query(src, "SELECT content_hash FROM flights"))
         dst = self.B.fresh("dst")
         rc, out, err = pb(src, "sync", "--to", dst)
         self.assertEqual(rc, EXIT_OK, err)
         self.assertEqual(sync_counts(out), (2, 10, 0, 0))
-        self.assertIn("1 acknowledgement", out)
+        self.assertIn("1 acknowledgement, 1 pair", out)
         rc, out, err = pb(src, "sync", "--to", dst)
         self.assertEqual(rc, EXIT_OK, err)
         self.assertEqual(sync_counts(out), (0, 0, 10, 0))
+        self.assertNotIn("acknowledgement", out)  # nothing sent twice
+        self.assertEqual(self.B.query(dst, "SELECT a.label, b.label FROM pack_pairs pp JOIN "
+                                           "packs a ON a.id = pp.pack_a JOIN packs b ON "
+                                           "b.id = pp.pack_b"), [("TM-31", "TM-32")])
         self.check_exact(dst, want)
         # the stored figures travel unchanged (text on PostgreSQL, %.17g: exact doubles)
         a = sorted(self.S.query(src, "SELECT content_hash, r0_mohm, charge_used_mah, "
