@@ -253,11 +253,12 @@ class Cases:
     def test_kill9_mid_import_repeatedly(self):
         rng = random.Random(SEED + 9)
         many = logs(48)
-        t0 = time.monotonic()
         db = self.B.fresh("killref")
         add_pack(self, db, "TM-25")
+        t0 = time.monotonic()
+        # one thread: each log analysed then stored, so flights go in all along the run
         rc, out, err = pb(db, "import", "--pack", "TM-25", "--date", "2026-04-01", "--quiet",
-                          many)
+                          "-j", 1, many)
         full_s = time.monotonic() - t0
         self.assertEqual(rc, EXIT_OK, err)
         mid = 0
@@ -267,7 +268,7 @@ class Cases:
             n = 0
             for kill in range(2):
                 p = subprocess.Popen([PACKBOOK, "import", "--db", db, "--pack", "TM-25",
-                                      "--date", "2026-04-01", "--quiet", many],
+                                      "--date", "2026-04-01", "--quiet", "-j", "1", many],
                                      stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
                 delay = rng.uniform(0.1 * full_s, 0.9 * full_s)
                 time.sleep(delay)
@@ -278,6 +279,8 @@ class Cases:
                 n2 = self.check_whole(db, label)
                 self.assertGreaterEqual(n2, n, label)
                 mid += running and 0 < n2 < 48
+                if os.environ.get("PB_DEBUG"):
+                    print(f"  {label}: running {running}, {n} -> {n2}", file=sys.stderr)
                 n = n2
             rc, out, err = pb(db, "import", "--pack", "TM-25", "--date", "2026-04-01", "--quiet",
                               many)
