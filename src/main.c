@@ -9,8 +9,8 @@
 
 #include "cmd/cmd.h"
 #include "cmd/config.h"
-#include "report/report.h"
 #include "core/utf8.h"
+#include "report/report.h"
 
 #ifndef PACKBOOK_VERSION
 #define PACKBOOK_VERSION "0.0.0"
@@ -27,11 +27,14 @@ static const struct command commands[] = {
     {"chemistry", cmd_chemistry, "the OCV tables and limits used, with their sources"},
     {"pack", cmd_pack, "register packs: add, list, show, edit, retire, unretire"},
     {"import", cmd_import, "analyse logs and store them as a pack's flights"},
-    {"flight", cmd_flight, "stored flights: list, remove, move, ack (a flight that left its trend)"},
+    {"flight", cmd_flight,
+     "stored flights: list, remove, move, ack (a flight that left its trend)"},
     {"fleet", cmd_fleet, "every pack's state, with retirement flags and reasons"},
     {"trend", cmd_trend, "a pack's resistance and capacity over weeks and cycles"},
     {"compare", cmd_compare, "packs side by side"},
     {"predict", cmd_predict, "safe flight time for the next sortie, with its uncertainty"},
+    {"sync", cmd_sync, "send packs and flights to another store, or bring them from one"},
+    {"db", cmd_db, "the history database: migrate (apply the schema steps)"},
     {"config", cmd_config, "the settings in force and where each comes from"},
     {"plot", cmd_plot, "figures of a flight, a pack's trend or the fleet (PNG, SVG, PDF)"},
 };
@@ -42,6 +45,8 @@ static void print_usage(FILE *out)
                  "       packbook --help | --version\n\ncommands:\n");
     for (size_t k = 0; k < sizeof commands / sizeof *commands; k++)
         fprintf(out, "  %-12s %s\n", commands[k].name, commands[k].summary);
+    fprintf(out, "\nThe history (--db, $PACKBOOK_DB) is an SQLite file, or a PostgreSQL database\n"
+                 "named by a connection string (postgresql://..., or 'host=... dbname=...').\n");
     fprintf(out, "\n'packbook COMMAND --help' shows a command's options; man packbook has the\n"
                  "rest, including exit statuses and the JSON keys.\n"
                  "Estimates only: never a substitute for the aircraft's low-voltage protection.\n");

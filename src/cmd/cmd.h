@@ -28,6 +28,8 @@ enum pb_code cmd_fleet(int argc, char **argv, struct app *app, struct pb_error *
 enum pb_code cmd_trend(int argc, char **argv, struct app *app, struct pb_error *err);
 enum pb_code cmd_compare(int argc, char **argv, struct app *app, struct pb_error *err);
 enum pb_code cmd_predict(int argc, char **argv, struct app *app, struct pb_error *err);
+enum pb_code cmd_sync(int argc, char **argv, struct app *app, struct pb_error *err);
+enum pb_code cmd_db(int argc, char **argv, struct app *app, struct pb_error *err);
 enum pb_code cmd_config(int argc, char **argv, struct app *app, struct pb_error *err);
 enum pb_code cmd_plot(int argc, char **argv, struct app *app, struct pb_error *err);
 

@@ -312,6 +312,11 @@ enum pb_code cmd_config(int argc, char **argv, struct app *app, struct pb_error 
             val = e->value, from = e->where;
         else
             val = k == 0 ? dflt_db : defaults[k], from = "default";
+        char masked[1024];
+        if (k == 0) { /* a connection string's password is never shown */
+            store_mask(val, masked, sizeof masked);
+            val = masked;
+        }
         if (json)
             json_array_append_new(
                 arr, json_pack("{s:s, s:s, s:s}", "key", e->key, "value", val, "from", from));

@@ -3,8 +3,12 @@
  * A struct store is used by one thread at a time (its connection has no
  * mutex of its own).
  * Owns struct store (store_open/store_close) and the records it returns
- * (free them with store_packs_free / store_flights_free). The SQLite file
- * is the embedded default; another backend implements these functions.
+ * (free them with store_packs_free / store_flights_free). The database
+ * argument chooses the backend: a PostgreSQL connection string
+ * (postgresql://..., postgres://... or libpq's key=value form, with libpq's
+ * own environment honoured) selects store_pg.c, anything else is an SQLite
+ * file (store_sqlite.c, the embedded default). Both keep the same schema
+ * steps and the same guarantees; store.c dispatches (backend.h).
  * Writes of one flight are atomic: a flight is stored whole or not at all.
  * Every function returns a pb_code and fills err on failure (PB_ESTORE for
  * the database, PB_EUSAGE for an unknown or duplicate pack). */
@@ -17,7 +21,7 @@
 #include "../core/pb_error.h"
 #include "../core/series.h"
 
-#define STORE_SCHEMA_VERSION 8
+#define STORE_SCHEMA_VERSION 9
 
 struct store;
 
@@ -102,8 +106,26 @@ enum pb_code store_open_wait(const char *path, enum store_mode mode, double wait
 
 void store_close(struct store *st);
 
-/* Schema version of an open store (PRAGMA user_version). */
+/* Schema version of an open store (PRAGMA user_version; PostgreSQL: the
+ * packbook_schema table). */
 int store_schema_version(struct store *st);
+
+/* The schema version the store had when it was opened, before any step
+ * this run applied (0: a new database). */
+int store_schema_version_found(struct store *st);
+
+/* Whether db names a PostgreSQL database (postgresql://, postgres://, or a
+ * libpq key=value string such as "host=/run/pg dbname=fleet"); a file whose
+ * name has that form is written ./name. */
+int store_is_server(const char *db);
+
+/* db as it may be shown: a password (URI user:secret@, password=...) is
+ * replaced by ***. Writes into buf (always terminated). */
+void store_mask(const char *db, char *buf, size_t cap);
+
+/* "sqlite" or "postgresql", and the database as messages name it (masked). */
+const char *store_backend(const struct store *st);
+const char *store_shown(const struct store *st);
 
 enum pb_code store_pack_add(struct store *st, struct pack_rec *p, struct pb_error *err);
 enum pb_code store_pack_get(struct store *st, const char *label, struct pack_rec *out,
@@ -223,8 +245,9 @@ enum pb_code store_pair_add(struct store *st, const struct pack_rec *a, const st
 enum pb_code store_pair_remove(struct store *st, const struct pack_rec *p, int *removed,
                                struct pb_error *err);
 
-/* The default path: $PACKBOOK_DB, else $XDG_DATA_HOME/packbook/packbook.db,
- * else $HOME/.local/share/packbook/packbook.db. Writes into buf. */
+/* The default database: $PACKBOOK_DB (a path or a connection string), else
+ * $XDG_DATA_HOME/packbook/packbook.db, else $HOME/.local/share/packbook/packbook.db. Writes into
+ * buf. */
 int store_default_path(char *buf, size_t cap);
 
 #endif

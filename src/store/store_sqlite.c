@@ -13,11 +13,12 @@
 
 #include "../core/isotime.h"
 #include "../core/utf8.h"
-#include "store.h"
+#include "backend.h"
+#include "store_sql.h"
 
 #define WAIT_NOTICE_AFTER_S 3.0 /* a wait this long is said (on_wait), once */
 
-struct store {
+struct store_impl {
     sqlite3 *db;
     char path[1024];
     /* the one bounded wait for another process's lock (store_open_wait) */
@@ -29,6 +30,7 @@ struct store {
     int saved_code; /* error of a failed transaction step, kept past its ROLLBACK */
     int saved_errno;
     char saved_msg[256];
+    int found_version; /* the schema version the file had when opened */
 };
 
 /* Schema steps: migrations[k] takes the schema from version k to k + 1.
@@ -99,7 +101,12 @@ static const char *const migrations[] = {
     "  report_json TEXT NOT NULL);"
     "INSERT INTO flight_reports (flight_id, report_json) SELECT id, report_json FROM flights;"
     "ALTER TABLE flights DROP COLUMN report_json;",
+    /* 8 -> 9: flights by time alone, for import's same-start check across packs
+     * (a range on flown_epoch_s; without it every import scanned all flights) */
+    "CREATE INDEX flights_by_time ON flights(flown_epoch_s);",
 };
+
+static void sq_close(struct store_impl *st);
 
 static double mono_s(void)
 {
@@ -109,13 +116,13 @@ static double mono_s(void)
 }
 
 /* Starts the clock of one operation's wait (each writing call: one wait). */
-static void wait_reset(struct store *st)
+static void wait_reset(struct store_impl *st)
 {
     st->busy_since_s = 0.0;
 }
 
 /* Seconds the current operation has waited for the lock; starts the clock. */
-static double waited_s(struct store *st)
+static double waited_s(struct store_impl *st)
 {
     double now = mono_s();
     if (st->busy_since_s == 0.0)
@@ -125,7 +132,7 @@ static double waited_s(struct store *st)
 
 /* 1 while the operation may wait on (and has slept a little), 0 when its wait is
  * used up. Says once, after a few seconds, that it is waiting. */
-static int wait_more(struct store *st)
+static int wait_more(struct store_impl *st)
 {
     double w = waited_s(st);
     if (w >= st->wait_s)
@@ -148,7 +155,7 @@ static int on_busy(void *ctx, int count)
     return wait_more(ctx);
 }
 
-static enum pb_code db_error(struct store *st, struct pb_error *err, const char *what)
+static enum pb_code db_error(struct store_impl *st, struct pb_error *err, const char *what)
 {
     int code = sqlite3_extended_errcode(st->db);
     int sys = sqlite3_system_errno(st->db);
@@ -195,20 +202,6 @@ static int mkdir_parents(const char *path)
     return 0;
 }
 
-int store_default_path(char *buf, size_t cap)
-{
-    const char *env = getenv("PACKBOOK_DB");
-    if (env && *env)
-        return snprintf(buf, cap, "%s", env) < (int)cap ? 0 : -1;
-    const char *xdg = getenv("XDG_DATA_HOME");
-    if (xdg && *xdg == '/')
-        return snprintf(buf, cap, "%s/packbook/packbook.db", xdg) < (int)cap ? 0 : -1;
-    const char *home = getenv("HOME");
-    if (!home || !*home)
-        return -1;
-    return snprintf(buf, cap, "%s/.local/share/packbook/packbook.db", home) < (int)cap ? 0 : -1;
-}
-
 static void now_iso(char *buf, size_t cap)
 {
     struct timespec ts;
@@ -216,7 +209,7 @@ static void now_iso(char *buf, size_t cap)
     isotime_format((double)ts.tv_sec, buf, cap);
 }
 
-int store_schema_version(struct store *st)
+static int sq_schema_version(struct store_impl *st)
 {
     sqlite3_stmt *s = NULL;
     int v = -1;
@@ -227,11 +220,12 @@ int store_schema_version(struct store *st)
     return v;
 }
 
-static enum pb_code migrate(struct store *st, struct pb_error *err)
+static enum pb_code migrate(struct store_impl *st, struct pb_error *err)
 {
-    int have = store_schema_version(st);
+    int have = sq_schema_version(st);
     if (have < 0)
         return db_error(st, err, "not a packbook database");
+    st->found_version = have;
     int want = (int)(sizeof migrations / sizeof *migrations);
     if (have > want)
         return pb_error_set(err, PB_ESTORE,
@@ -244,9 +238,9 @@ static enum pb_code migrate(struct store *st, struct pb_error *err)
         if (sqlite3_exec(st->db, "BEGIN IMMEDIATE", NULL, NULL, NULL) != SQLITE_OK)
             return db_error(st, err, "cannot start the schema upgrade");
         /* re-read inside the lock: another process may have migrated */
-        if (store_schema_version(st) != v) {
+        if (sq_schema_version(st) != v) {
             sqlite3_exec(st->db, "ROLLBACK", NULL, NULL, NULL);
-            v = store_schema_version(st) - 1;
+            v = sq_schema_version(st) - 1;
             continue;
         }
         if (sqlite3_exec(st->db, migrations[v], NULL, NULL, NULL) != SQLITE_OK ||
@@ -281,7 +275,7 @@ static int scalar_int(sqlite3 *db, const char *sql, int *out)
     return rc;
 }
 
-static enum pb_code classify_in(struct store *st, enum owner *own, struct pb_error *err)
+static enum pb_code classify_in(struct store_impl *st, enum owner *own, struct pb_error *err)
 {
     int app = 0, ver = 0, ntables = 0, packs = 0, flights = 0;
     char names[160] = "";
@@ -337,7 +331,7 @@ static enum pb_code classify_in(struct store *st, enum owner *own, struct pb_err
 /* The header and the table list read in one snapshot: read apart, another
  * process migrating a new file between them showed tables with schema 0
  * (an unknown file, refused). */
-static enum pb_code classify(struct store *st, enum owner *own, struct pb_error *err)
+static enum pb_code classify(struct store_impl *st, enum owner *own, struct pb_error *err)
 {
     int began = sqlite3_exec(st->db, "BEGIN", NULL, NULL, NULL) == SQLITE_OK;
     enum pb_code rc = classify_in(st, own, err);
@@ -348,7 +342,7 @@ static enum pb_code classify(struct store *st, enum owner *own, struct pb_error 
 
 /* A reading command on a store of an older schema: the file stays as it is,
  * the run reads an upgraded copy in memory. */
-static enum pb_code migrate_in_memory(struct store *st, struct pb_error *err)
+static enum pb_code migrate_in_memory(struct store_impl *st, struct pb_error *err)
 {
     sqlite3 *mem = NULL;
     if (sqlite3_open(":memory:", &mem) != SQLITE_OK) {
@@ -371,18 +365,13 @@ static enum pb_code migrate_in_memory(struct store *st, struct pb_error *err)
     return migrate(st, err);
 }
 
-enum pb_code store_open(const char *path, enum store_mode mode, struct store **out,
-                        struct pb_error *err)
+static enum pb_code sq_open(const char *path, const char *shown, enum store_mode mode,
+                            double wait_s, void (*on_wait)(void *ctx, double wait_s), void *ctx,
+                            struct store_impl **out, struct pb_error *err)
 {
-    return store_open_wait(path, mode, STORE_WAIT_DEFAULT_S, NULL, NULL, out, err);
-}
-
-enum pb_code store_open_wait(const char *path, enum store_mode mode, double wait_s,
-                             void (*on_wait)(void *ctx, double wait_s), void *ctx,
-                             struct store **out, struct pb_error *err)
-{
+    (void)shown; /* a file's path is shown as it is */
     *out = NULL;
-    struct store *st = calloc(1, sizeof *st);
+    struct store_impl *st = calloc(1, sizeof *st);
     if (!st)
         return pb_error_set(err, PB_ENOMEM, "out of memory");
     snprintf(st->path, sizeof st->path, "%s", path);
@@ -426,7 +415,7 @@ enum pb_code store_open_wait(const char *path, enum store_mode mode, double wait
             goto fail;
         }
         int want = (int)(sizeof migrations / sizeof *migrations);
-        int have = store_schema_version(st);
+        int have = sq_schema_version(st);
         rc = have >= 0 && have < want ? migrate_in_memory(st, err) : migrate(st, err);
         if (rc != PB_OK)
             goto fail;
@@ -465,11 +454,11 @@ enum pb_code store_open_wait(const char *path, enum store_mode mode, double wait
     *out = st;
     return PB_OK;
 fail:
-    store_close(st);
+    sq_close(st);
     return rc;
 }
 
-void store_close(struct store *st)
+static void sq_close(struct store_impl *st)
 {
     if (!st)
         return;
@@ -479,7 +468,7 @@ void store_close(struct store *st)
 
 /* Runs one statement with an id (and a second id when id2 >= 0) in its own
  * transaction; *changed is the number of rows it changed. */
-static enum pb_code exec_by_id(struct store *st, const char *sql, int64_t id, int64_t id2,
+static enum pb_code exec_by_id(struct store_impl *st, const char *sql, int64_t id, int64_t id2,
                                int *changed, const char *what, struct pb_error *err)
 {
     sqlite3_stmt *s = NULL;
@@ -541,10 +530,6 @@ static void read_pack(sqlite3_stmt *s, struct pack_rec *p)
     copy_text(p->settings, sizeof p->settings, s, 11);
 }
 
-#define PACK_COLS                                                                                  \
-    "id, label, cells, parallel, chemistry, capacity_mah, since, note, created_at, "               \
-    "retired_at, retire_reason, read_settings"
-
 static void bind_text_or_null(sqlite3_stmt *s, int i, const char *t)
 {
     if (t && *t)
@@ -553,16 +538,12 @@ static void bind_text_or_null(sqlite3_stmt *s, int i, const char *t)
         sqlite3_bind_null(s, i);
 }
 
-enum pb_code store_pack_add(struct store *st, struct pack_rec *p, struct pb_error *err)
+static enum pb_code sq_pack_add(struct store_impl *st, struct pack_rec *p, struct pb_error *err)
 {
     wait_reset(st);
     sqlite3_stmt *s = NULL;
     now_iso(p->created_at, sizeof p->created_at);
-    if (sqlite3_prepare_v2(st->db,
-                           "INSERT INTO packs (label, cells, parallel, chemistry, capacity_mah, "
-                           "since, note, created_at, read_settings) VALUES (?, ?, ?, ?, ?, ?, ?, "
-                           "?, ?)",
-                           -1, &s, NULL) != SQLITE_OK)
+    if (sqlite3_prepare_v2(st->db, SQL_PACK_ADD, -1, &s, NULL) != SQLITE_OK)
         return db_error(st, err, "cannot add the pack");
     sqlite3_bind_text(s, 1, p->label, -1, SQLITE_TRANSIENT);
     sqlite3_bind_int(s, 2, p->cells);
@@ -583,12 +564,11 @@ enum pb_code store_pack_add(struct store *st, struct pack_rec *p, struct pb_erro
     return PB_OK;
 }
 
-enum pb_code store_pack_get(struct store *st, const char *label, struct pack_rec *out,
-                            struct pb_error *err)
+static enum pb_code sq_pack_get(struct store_impl *st, const char *label, struct pack_rec *out,
+                                struct pb_error *err)
 {
     sqlite3_stmt *s = NULL;
-    if (sqlite3_prepare_v2(st->db, "SELECT " PACK_COLS " FROM packs WHERE label = ?", -1, &s,
-                           NULL) != SQLITE_OK)
+    if (sqlite3_prepare_v2(st->db, SQL_PACK_GET, -1, &s, NULL) != SQLITE_OK)
         return db_error(st, err, "cannot read packs");
     sqlite3_bind_text(s, 1, label, -1, SQLITE_TRANSIENT);
     int rc = sqlite3_step(s);
@@ -602,16 +582,15 @@ enum pb_code store_pack_get(struct store *st, const char *label, struct pack_rec
     return PB_OK;
 }
 
-enum pb_code store_pack_list(struct store *st, struct pack_rec **out, size_t *n,
-                             struct pb_error *err)
+static enum pb_code sq_pack_list(struct store_impl *st, struct pack_rec **out, size_t *n,
+                                 struct pb_error *err)
 {
     sqlite3_stmt *s = NULL;
     struct pack_rec *v = NULL;
     size_t len = 0, cap = 0;
     *out = NULL;
     *n = 0;
-    if (sqlite3_prepare_v2(st->db, "SELECT " PACK_COLS " FROM packs ORDER BY label", -1, &s,
-                           NULL) != SQLITE_OK)
+    if (sqlite3_prepare_v2(st->db, SQL_PACK_LIST, -1, &s, NULL) != SQLITE_OK)
         return db_error(st, err, "cannot read packs");
     int rc;
     while ((rc = sqlite3_step(s)) == SQLITE_ROW) {
@@ -637,17 +616,12 @@ enum pb_code store_pack_list(struct store *st, struct pack_rec **out, size_t *n,
     return PB_OK;
 }
 
-void store_packs_free(struct pack_rec *p)
-{
-    free(p);
-}
-
-enum pb_code store_pack_retire(struct store *st, const char *label, const char *reason,
-                               struct pb_error *err)
+static enum pb_code sq_pack_retire(struct store_impl *st, const char *label, const char *reason,
+                                   struct pb_error *err)
 {
     wait_reset(st);
     struct pack_rec p;
-    enum pb_code code = store_pack_get(st, label, &p, err);
+    enum pb_code code = sq_pack_get(st, label, &p, err);
     if (code != PB_OK)
         return code;
     if (p.retired_at[0])
@@ -656,9 +630,7 @@ enum pb_code store_pack_retire(struct store *st, const char *label, const char *
     char now[32];
     now_iso(now, sizeof now);
     sqlite3_stmt *s = NULL;
-    if (sqlite3_prepare_v2(st->db,
-                           "UPDATE packs SET retired_at = ?, retire_reason = ? WHERE id = ?", -1,
-                           &s, NULL) != SQLITE_OK)
+    if (sqlite3_prepare_v2(st->db, SQL_PACK_RETIRE, -1, &s, NULL) != SQLITE_OK)
         return db_error(st, err, "cannot retire the pack");
     sqlite3_bind_text(s, 1, now, -1, SQLITE_TRANSIENT);
     sqlite3_bind_text(s, 2, reason, -1, SQLITE_TRANSIENT);
@@ -670,12 +642,11 @@ enum pb_code store_pack_retire(struct store *st, const char *label, const char *
     return PB_OK;
 }
 
-enum pb_code store_pack_by_id(struct store *st, int64_t id, struct pack_rec *out,
-                              struct pb_error *err)
+static enum pb_code sq_pack_by_id(struct store_impl *st, int64_t id, struct pack_rec *out,
+                                  struct pb_error *err)
 {
     sqlite3_stmt *s = NULL;
-    if (sqlite3_prepare_v2(st->db, "SELECT " PACK_COLS " FROM packs WHERE id = ?", -1, &s, NULL) !=
-        SQLITE_OK)
+    if (sqlite3_prepare_v2(st->db, SQL_PACK_BY_ID, -1, &s, NULL) != SQLITE_OK)
         return db_error(st, err, "cannot read packs");
     sqlite3_bind_int64(s, 1, id);
     int rc = sqlite3_step(s);
@@ -690,13 +661,11 @@ enum pb_code store_pack_by_id(struct store *st, int64_t id, struct pack_rec *out
     return PB_OK;
 }
 
-enum pb_code store_pack_update(struct store *st, const struct pack_rec *p, struct pb_error *err)
+static enum pb_code sq_pack_update(struct store_impl *st, const struct pack_rec *p,
+                                   struct pb_error *err)
 {
     sqlite3_stmt *s = NULL;
-    if (sqlite3_prepare_v2(st->db,
-                           "UPDATE packs SET label = ?, cells = ?, parallel = ?, chemistry = ?, "
-                           "capacity_mah = ?, since = ?, note = ?, read_settings = ? WHERE id = ?",
-                           -1, &s, NULL) != SQLITE_OK)
+    if (sqlite3_prepare_v2(st->db, SQL_PACK_UPDATE, -1, &s, NULL) != SQLITE_OK)
         return db_error(st, err, "cannot change the pack");
     sqlite3_bind_text(s, 1, p->label, -1, SQLITE_TRANSIENT);
     sqlite3_bind_int(s, 2, p->cells);
@@ -716,17 +685,17 @@ enum pb_code store_pack_update(struct store *st, const struct pack_rec *p, struc
     return PB_OK;
 }
 
-enum pb_code store_pack_unretire(struct store *st, const char *label, struct pb_error *err)
+static enum pb_code sq_pack_unretire(struct store_impl *st, const char *label, struct pb_error *err)
 {
     struct pack_rec p;
-    enum pb_code code = store_pack_get(st, label, &p, err);
+    enum pb_code code = sq_pack_get(st, label, &p, err);
     if (code != PB_OK)
         return code;
     if (!p.retired_at[0])
         return pb_error_set(err, PB_EUSAGE, "pack '%s' is in service already", label);
     int changed = 0;
-    return exec_by_id(st, "UPDATE packs SET retired_at = NULL, retire_reason = NULL WHERE id = ?",
-                      p.id, -1, &changed, "cannot return the pack to service", err);
+    return exec_by_id(st, SQL_PACK_UNRETIRE, p.id, -1, &changed,
+                      "cannot return the pack to service", err);
 }
 
 /* ---- flights ---------------------------------------------------------- */
@@ -744,27 +713,12 @@ static double col_num(sqlite3_stmt *s, int i)
     return sqlite3_column_type(s, i) == SQLITE_NULL ? NAN : sqlite3_column_double(s, i);
 }
 
-#define FLIGHT_NUMS                                                                                \
-    X(duration_s)                                                                                  \
-    X(charge_used_mah)                                                                             \
-    X(energy_used_wh)                                                                              \
-    X(current_max_a)                                                                               \
-    X(current_mean_a)                                                                              \
-    X(power_mean_w)                                                                                \
-    X(voltage_min_v)                                                                               \
-    X(cell_voltage_min_v)                                                                          \
-    X(time_below_floor_s)                                                                          \
-    X(r0_mohm)                                                                                     \
-    X(r0_ci95_mohm)                                                                                \
-    X(r1_mohm) X(tau_s) X(soc_start_pct) X(soc_end_pct) X(capacity_mah) X(capacity_ci95_mah)       \
-        X(cell_spread_rest_mv) X(cell_spread_load_mv) X(temperature_max_c) X(power_cruise_w)
-
 #define X(name) #name ", "
 static const char flight_num_cols[] = FLIGHT_NUMS;
 #undef X
 
 /* One attempt at storing a flight inside a transaction. */
-static int put_once(struct store *st, const struct flight_rec *f, const char *json,
+static int put_once(struct store_impl *st, const struct flight_rec *f, const char *json,
                     struct store_dup *dup)
 {
     sqlite3_stmt *s = NULL;
@@ -777,12 +731,7 @@ static int put_once(struct store *st, const struct flight_rec *f, const char *js
         return rc;
     }
     /* the same bytes first, then the same samples under other bytes */
-    rc = sqlite3_prepare_v2(st->db,
-                            "SELECT f.id, p.label, f.content_hash = ?1 FROM flights f "
-                            "JOIN packs p ON p.id = f.pack_id "
-                            "WHERE f.content_hash = ?1 OR (?2 != '' AND f.samples_hash = ?2) "
-                            "ORDER BY f.content_hash = ?1 DESC LIMIT 1",
-                            -1, &s, NULL);
+    rc = sqlite3_prepare_v2(st->db, SQL_FLIGHT_DUP, -1, &s, NULL);
     if (rc != SQLITE_OK)
         goto fail;
     sqlite3_bind_text(s, 1, f->content_hash, -1, SQLITE_TRANSIENT);
@@ -802,12 +751,7 @@ static int put_once(struct store *st, const struct flight_rec *f, const char *js
         goto fail;
     if (strcmp(f->date_source, "log") == 0) {
         /* dates given by option or file time say nothing about sameness */
-        rc = sqlite3_prepare_v2(st->db,
-                                "SELECT f.id, p.label FROM flights f JOIN packs p ON "
-                                "p.id = f.pack_id WHERE f.date_source = 'log' AND "
-                                "abs(f.flown_epoch_s - ?1) <= 1 AND abs(f.duration_s - ?2) <= 1 "
-                                "ORDER BY f.id LIMIT 1",
-                                -1, &s, NULL);
+        rc = sqlite3_prepare_v2(st->db, SQL_FLIGHT_NEAR, -1, &s, NULL);
         if (rc != SQLITE_OK)
             goto fail;
         sqlite3_bind_double(s, 1, f->flown_epoch_s);
@@ -864,8 +808,7 @@ static int put_once(struct store *st, const struct flight_rec *f, const char *js
     if (rc != SQLITE_DONE)
         goto fail;
     sqlite3_int64 fid = sqlite3_last_insert_rowid(st->db);
-    rc = sqlite3_prepare_v2(
-        st->db, "INSERT INTO flight_reports (flight_id, report_json) VALUES (?, ?)", -1, &s, NULL);
+    rc = sqlite3_prepare_v2(st->db, SQL_REPORT_PUT, -1, &s, NULL);
     if (rc != SQLITE_OK)
         goto fail;
     sqlite3_bind_int64(s, 1, fid);
@@ -875,10 +818,7 @@ static int put_once(struct store *st, const struct flight_rec *f, const char *js
     s = NULL;
     if (rc != SQLITE_DONE)
         goto fail;
-    rc = sqlite3_prepare_v2(st->db,
-                            "INSERT INTO flight_cells (flight_id, cell, r0_mohm, voltage_min_v, "
-                            "voltage_rest_v) VALUES (?, ?, ?, ?, ?)",
-                            -1, &s, NULL);
+    rc = sqlite3_prepare_v2(st->db, SQL_CELL_PUT, -1, &s, NULL);
     if (rc != SQLITE_OK)
         goto fail;
     for (int c = 0; c < f->ncells; c++) {
@@ -911,15 +851,12 @@ fail:
     }
 }
 
-enum pb_code store_flight_find_hash(struct store *st, const char *content_hash, int *found,
-                                    int64_t *id, char *label, size_t cap, struct pb_error *err)
+static enum pb_code sq_flight_find_hash(struct store_impl *st, const char *content_hash, int *found,
+                                        int64_t *id, char *label, size_t cap, struct pb_error *err)
 {
     sqlite3_stmt *s = NULL;
     *found = 0;
-    if (sqlite3_prepare_v2(st->db,
-                           "SELECT f.id, p.label FROM flights f JOIN packs p ON p.id = f.pack_id "
-                           "WHERE f.content_hash = ?",
-                           -1, &s, NULL) != SQLITE_OK)
+    if (sqlite3_prepare_v2(st->db, SQL_FIND_HASH, -1, &s, NULL) != SQLITE_OK)
         return db_error(st, err, "cannot look up the flight");
     sqlite3_bind_text(s, 1, content_hash, -1, SQLITE_TRANSIENT);
     int rc = sqlite3_step(s);
@@ -935,8 +872,9 @@ enum pb_code store_flight_find_hash(struct store *st, const char *content_hash, 
     return PB_OK;
 }
 
-enum pb_code store_flight_put(struct store *st, const struct flight_rec *f, const char *report_json,
-                              struct store_dup *dup, struct pb_error *err)
+static enum pb_code sq_flight_put(struct store_impl *st, const struct flight_rec *f,
+                                  const char *report_json, struct store_dup *dup,
+                                  struct pb_error *err)
 {
     /* one wait in all: the busy handler's and these retries' (a lock SQLite
      * reports without calling the handler) share one clock */
@@ -952,9 +890,6 @@ enum pb_code store_flight_put(struct store *st, const struct flight_rec *f, cons
             return db_error(st, err, "cannot store the flight");
     }
 }
-
-#define FLIGHT_HEAD_COLS                                                                           \
-    "id, pack_id, content_hash, source, flown_epoch_s, date_source, weakest_cell, warnings"
 
 /* A row of FLIGHT_HEAD_COLS then the numeric columns; cells are not read. */
 static void read_flight(sqlite3_stmt *s, struct flight_rec *f)
@@ -974,8 +909,8 @@ static void read_flight(sqlite3_stmt *s, struct flight_rec *f)
 #undef X
 }
 
-enum pb_code store_flights_of(struct store *st, int64_t pack_id, struct flight_rec **out, size_t *n,
-                              struct pb_error *err)
+static enum pb_code sq_flights_of(struct store_impl *st, int64_t pack_id, struct flight_rec **out,
+                                  size_t *n, struct pb_error *err)
 {
     char sql[2048];
     sqlite3_stmt *s = NULL, *c = NULL;
@@ -987,11 +922,7 @@ enum pb_code store_flights_of(struct store *st, int64_t pack_id, struct flight_r
              "SELECT %s, %.*s FROM flights WHERE pack_id = ? ORDER BY flown_epoch_s, id",
              FLIGHT_HEAD_COLS, (int)strlen(flight_num_cols) - 2, flight_num_cols);
     if (sqlite3_prepare_v2(st->db, sql, -1, &s, NULL) != SQLITE_OK ||
-        sqlite3_prepare_v2(st->db,
-                           "SELECT c.flight_id, c.cell, c.r0_mohm, c.voltage_min_v, "
-                           "c.voltage_rest_v FROM flights f JOIN flight_cells c ON c.flight_id "
-                           "= f.id WHERE f.pack_id = ? ORDER BY f.flown_epoch_s, f.id, c.cell",
-                           -1, &c, NULL) != SQLITE_OK) {
+        sqlite3_prepare_v2(st->db, SQL_CELLS_OF, -1, &c, NULL) != SQLITE_OK) {
         sqlite3_finalize(s);
         return db_error(st, err, "cannot read flights");
     }
@@ -1040,18 +971,12 @@ enum pb_code store_flights_of(struct store *st, int64_t pack_id, struct flight_r
     return PB_OK;
 }
 
-void store_flights_free(struct flight_rec *f)
-{
-    free(f);
-}
-
-enum pb_code store_flight_report(struct store *st, int64_t flight_id, char **out,
-                                 struct pb_error *err)
+static enum pb_code sq_flight_report(struct store_impl *st, int64_t flight_id, char **out,
+                                     struct pb_error *err)
 {
     sqlite3_stmt *s = NULL;
     *out = NULL;
-    if (sqlite3_prepare_v2(st->db, "SELECT report_json FROM flight_reports WHERE flight_id = ?", -1,
-                           &s, NULL) != SQLITE_OK)
+    if (sqlite3_prepare_v2(st->db, SQL_REPORT_GET, -1, &s, NULL) != SQLITE_OK)
         return db_error(st, err, "cannot read a flight's report");
     sqlite3_bind_int64(s, 1, flight_id);
     enum pb_code rc = PB_OK;
@@ -1068,8 +993,8 @@ enum pb_code store_flight_report(struct store *st, int64_t flight_id, char **out
     return rc;
 }
 
-enum pb_code store_flight_get(struct store *st, int64_t id, struct flight_rec *out,
-                              struct pb_error *err)
+static enum pb_code sq_flight_get(struct store_impl *st, int64_t id, struct flight_rec *out,
+                                  struct pb_error *err)
 {
     char sql[2048];
     sqlite3_stmt *s = NULL;
@@ -1090,8 +1015,8 @@ enum pb_code store_flight_get(struct store *st, int64_t id, struct flight_rec *o
     return PB_OK;
 }
 
-enum pb_code store_flight_analysed_as(struct store *st, int64_t id, int *cells, char *chemistry,
-                                      size_t cap, struct pb_error *err)
+static enum pb_code sq_flight_analysed_as(struct store_impl *st, int64_t id, int *cells,
+                                          char *chemistry, size_t cap, struct pb_error *err)
 {
     sqlite3_stmt *s = NULL;
     *cells = 0;
@@ -1117,9 +1042,9 @@ enum pb_code store_flight_analysed_as(struct store *st, int64_t id, int *cells, 
     return PB_OK;
 }
 
-enum pb_code store_flights_analysed_otherwise(struct store *st, int64_t pack_id, int cells,
-                                              const char *chemistry, size_t *n,
-                                              struct pb_error *err)
+static enum pb_code sq_flights_analysed_otherwise(struct store_impl *st, int64_t pack_id, int cells,
+                                                  const char *chemistry, size_t *n,
+                                                  struct pb_error *err)
 {
     sqlite3_stmt *s = NULL;
     /* a report that does not say (hand-made rows) counts as not contradicting */
@@ -1143,42 +1068,39 @@ enum pb_code store_flights_analysed_otherwise(struct store *st, int64_t pack_id,
     return PB_OK;
 }
 
-enum pb_code store_flight_remove(struct store *st, int64_t id, struct pb_error *err)
+static enum pb_code sq_flight_remove(struct store_impl *st, int64_t id, struct pb_error *err)
 {
     int changed = 0;
     /* flight_cells rows go with it (ON DELETE CASCADE, foreign keys on) */
-    enum pb_code rc = exec_by_id(st, "DELETE FROM flights WHERE id = ?", id, -1, &changed,
-                                 "cannot remove the flight", err);
+    enum pb_code rc =
+        exec_by_id(st, SQL_FLIGHT_REMOVE, id, -1, &changed, "cannot remove the flight", err);
     if (rc == PB_OK && changed == 0)
         return pb_error_set(err, PB_EUSAGE, "no flight %lld (see 'packbook flight list')",
                             (long long)id);
     return rc;
 }
 
-enum pb_code store_flight_move(struct store *st, int64_t id, int64_t to_pack_id,
-                               struct pb_error *err)
+static enum pb_code sq_flight_move(struct store_impl *st, int64_t id, int64_t to_pack_id,
+                                   struct pb_error *err)
 {
     int changed = 0;
-    enum pb_code rc = exec_by_id(st, "UPDATE flights SET pack_id = ?2 WHERE id = ?1", id,
-                                 to_pack_id, &changed, "cannot move the flight", err);
+    enum pb_code rc =
+        exec_by_id(st, SQL_FLIGHT_MOVE, id, to_pack_id, &changed, "cannot move the flight", err);
     if (rc == PB_OK && changed == 0)
         return pb_error_set(err, PB_EUSAGE, "no flight %lld (see 'packbook flight list')",
                             (long long)id);
     return rc;
 }
 
-enum pb_code store_acks_of(struct store *st, int64_t pack_id, struct flight_ack **out, size_t *n,
-                           struct pb_error *err)
+static enum pb_code sq_acks_of(struct store_impl *st, int64_t pack_id, struct flight_ack **out,
+                               size_t *n, struct pb_error *err)
 {
     sqlite3_stmt *s = NULL;
     struct flight_ack *v = NULL;
     size_t len = 0, cap = 0;
     *out = NULL;
     *n = 0;
-    if (sqlite3_prepare_v2(st->db,
-                           "SELECT a.flight_id, a.note, a.acked_at FROM flight_acks a JOIN flights "
-                           "f ON f.id = a.flight_id WHERE f.pack_id = ? ORDER BY a.flight_id",
-                           -1, &s, NULL) != SQLITE_OK)
+    if (sqlite3_prepare_v2(st->db, SQL_ACKS_OF, -1, &s, NULL) != SQLITE_OK)
         return db_error(st, err, "cannot read acknowledgements");
     sqlite3_bind_int64(s, 1, pack_id);
     int rc;
@@ -1208,19 +1130,11 @@ enum pb_code store_acks_of(struct store *st, int64_t pack_id, struct flight_ack 
     return PB_OK;
 }
 
-void store_acks_free(struct flight_ack *a)
-{
-    free(a);
-}
-
-enum pb_code store_flight_ack(struct store *st, int64_t flight_id, const char *note,
-                              char *pack_label, size_t cap, struct pb_error *err)
+static enum pb_code sq_flight_ack(struct store_impl *st, int64_t flight_id, const char *note,
+                                  char *pack_label, size_t cap, struct pb_error *err)
 {
     sqlite3_stmt *s = NULL;
-    if (sqlite3_prepare_v2(st->db,
-                           "SELECT p.label FROM flights f JOIN packs p ON p.id = f.pack_id WHERE "
-                           "f.id = ?",
-                           -1, &s, NULL) != SQLITE_OK)
+    if (sqlite3_prepare_v2(st->db, SQL_FLIGHT_LABEL, -1, &s, NULL) != SQLITE_OK)
         return db_error(st, err, "cannot read the flight");
     sqlite3_bind_int64(s, 1, flight_id);
     int r = sqlite3_step(s);
@@ -1234,11 +1148,7 @@ enum pb_code store_flight_ack(struct store *st, int64_t flight_id, const char *n
         return db_error(st, err, "cannot read the flight");
     char now[32];
     now_iso(now, sizeof now);
-    if (sqlite3_prepare_v2(st->db,
-                           "INSERT INTO flight_acks (flight_id, note, acked_at) VALUES (?, ?, ?) "
-                           "ON CONFLICT(flight_id) DO UPDATE SET note = excluded.note, "
-                           "acked_at = excluded.acked_at",
-                           -1, &s, NULL) != SQLITE_OK)
+    if (sqlite3_prepare_v2(st->db, SQL_ACK_PUT, -1, &s, NULL) != SQLITE_OK)
         return db_error(st, err, "cannot store the acknowledgement");
     sqlite3_bind_int64(s, 1, flight_id);
     sqlite3_bind_text(s, 2, note, -1, SQLITE_TRANSIENT);
@@ -1248,19 +1158,15 @@ enum pb_code store_flight_ack(struct store *st, int64_t flight_id, const char *n
     return r == SQLITE_DONE ? PB_OK : db_error(st, err, "cannot store the acknowledgement");
 }
 
-enum pb_code store_pairs_list(struct store *st, struct pair_rec **out, size_t *n,
-                              struct pb_error *err)
+static enum pb_code sq_pairs_list(struct store_impl *st, struct pair_rec **out, size_t *n,
+                                  struct pb_error *err)
 {
     sqlite3_stmt *s = NULL;
     struct pair_rec *v = NULL;
     size_t len = 0, cap = 0;
     *out = NULL;
     *n = 0;
-    if (sqlite3_prepare_v2(st->db,
-                           "SELECT pp.pack_a, a.label, pp.pack_b, b.label, pp.created_at FROM "
-                           "pack_pairs pp JOIN packs a ON a.id = pp.pack_a JOIN packs b ON b.id = "
-                           "pp.pack_b ORDER BY a.label, b.label",
-                           -1, &s, NULL) != SQLITE_OK)
+    if (sqlite3_prepare_v2(st->db, SQL_PAIRS_LIST, -1, &s, NULL) != SQLITE_OK)
         return db_error(st, err, "cannot read the pairs");
     int rc;
     while ((rc = sqlite3_step(s)) == SQLITE_ROW) {
@@ -1291,22 +1197,14 @@ enum pb_code store_pairs_list(struct store *st, struct pair_rec **out, size_t *n
     return PB_OK;
 }
 
-void store_pairs_free(struct pair_rec *p)
-{
-    free(p);
-}
-
-enum pb_code store_pair_add(struct store *st, const struct pack_rec *a, const struct pack_rec *b,
-                            struct pb_error *err)
+static enum pb_code sq_pair_add(struct store_impl *st, const struct pack_rec *a,
+                                const struct pack_rec *b, struct pb_error *err)
 {
     if (a->id == b->id)
         return pb_error_set(err, PB_EUSAGE, "pack pair: '%s' cannot pair with itself", a->label);
     const struct pack_rec *lo = a->id < b->id ? a : b, *hi = a->id < b->id ? b : a;
     sqlite3_stmt *s = NULL;
-    if (sqlite3_prepare_v2(st->db,
-                           "SELECT count(*) FROM pack_pairs WHERE pack_a IN (?1, ?2) OR pack_b IN "
-                           "(?1, ?2)",
-                           -1, &s, NULL) != SQLITE_OK)
+    if (sqlite3_prepare_v2(st->db, SQL_PAIR_BUSY, -1, &s, NULL) != SQLITE_OK)
         return db_error(st, err, "cannot read the pairs");
     sqlite3_bind_int64(s, 1, lo->id);
     sqlite3_bind_int64(s, 2, hi->id);
@@ -1320,9 +1218,7 @@ enum pb_code store_pair_add(struct store *st, const struct pack_rec *a, const st
                             a->label, b->label);
     char now[32];
     now_iso(now, sizeof now);
-    if (sqlite3_prepare_v2(st->db,
-                           "INSERT INTO pack_pairs (pack_a, pack_b, created_at) VALUES (?, ?, ?)",
-                           -1, &s, NULL) != SQLITE_OK)
+    if (sqlite3_prepare_v2(st->db, SQL_PAIR_PUT, -1, &s, NULL) != SQLITE_OK)
         return db_error(st, err, "cannot store the pair");
     sqlite3_bind_int64(s, 1, lo->id);
     sqlite3_bind_int64(s, 2, hi->id);
@@ -1332,12 +1228,11 @@ enum pb_code store_pair_add(struct store *st, const struct pack_rec *a, const st
     return r == SQLITE_DONE ? PB_OK : db_error(st, err, "cannot store the pair");
 }
 
-enum pb_code store_pair_remove(struct store *st, const struct pack_rec *p, int *removed,
-                               struct pb_error *err)
+static enum pb_code sq_pair_remove(struct store_impl *st, const struct pack_rec *p, int *removed,
+                                   struct pb_error *err)
 {
     sqlite3_stmt *s = NULL;
-    if (sqlite3_prepare_v2(st->db, "DELETE FROM pack_pairs WHERE pack_a = ?1 OR pack_b = ?1", -1,
-                           &s, NULL) != SQLITE_OK)
+    if (sqlite3_prepare_v2(st->db, SQL_PAIR_REMOVE, -1, &s, NULL) != SQLITE_OK)
         return db_error(st, err, "cannot remove the pair");
     sqlite3_bind_int64(s, 1, p->id);
     int r = sqlite3_step(s);
@@ -1347,3 +1242,37 @@ enum pb_code store_pair_remove(struct store *st, const struct pack_rec *p, int *
     *removed = sqlite3_changes(st->db);
     return PB_OK;
 }
+
+static int sq_schema_version_found(struct store_impl *st)
+{
+    return st->found_version;
+}
+
+const struct store_ops store_sqlite_ops = {
+    .name = "sqlite",
+    .open = sq_open,
+    .close = sq_close,
+    .schema_version = sq_schema_version,
+    .schema_version_found = sq_schema_version_found,
+    .pack_add = sq_pack_add,
+    .pack_get = sq_pack_get,
+    .pack_list = sq_pack_list,
+    .pack_retire = sq_pack_retire,
+    .pack_by_id = sq_pack_by_id,
+    .pack_update = sq_pack_update,
+    .pack_unretire = sq_pack_unretire,
+    .flights_analysed_otherwise = sq_flights_analysed_otherwise,
+    .flight_put = sq_flight_put,
+    .flight_find_hash = sq_flight_find_hash,
+    .flights_of = sq_flights_of,
+    .flight_report = sq_flight_report,
+    .flight_get = sq_flight_get,
+    .flight_analysed_as = sq_flight_analysed_as,
+    .flight_remove = sq_flight_remove,
+    .flight_move = sq_flight_move,
+    .acks_of = sq_acks_of,
+    .flight_ack = sq_flight_ack,
+    .pairs_list = sq_pairs_list,
+    .pair_add = sq_pair_add,
+    .pair_remove = sq_pair_remove,
+};

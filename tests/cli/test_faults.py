@@ -20,7 +20,9 @@ import pbtest  # noqa: E402
 class DiskFull(unittest.TestCase):
     def setUp(self):
         self.mnt = tempfile.mkdtemp(prefix="pbfull-")
-        p = subprocess.run(["mount", "-t", "tmpfs", "-o", "size=160k", "tmpfs", self.mnt],
+        # 192k: the new file with its schema steps (9 from schema 9) and WAL fits, and
+        # three flights or so before the disk is full
+        p = subprocess.run(["mount", "-t", "tmpfs", "-o", "size=192k", "tmpfs", self.mnt],
                            capture_output=True, text=True)
         if p.returncode != 0:
             os.rmdir(self.mnt)

@@ -270,11 +270,18 @@ class Migrations(unittest.TestCase):
                     "note, created_at) VALUES ('TM-07', 4, 1, 'lipo', 5000, '2025-09-01', "
                     "'old airframe', '2025-09-01T10:00:00Z')")
         report = json.dumps({"file": "old.csv", "r0_mohm": {"value": 17.5, "ci95": 0.3}})
+        # from schema 8 the report is in flight_reports
+        in_flights = version < 8
         con.execute("INSERT INTO flights (pack_id, content_hash, source, flown_at, flown_epoch_s, "
                     "date_source, imported_at, duration_s, charge_used_mah, r0_mohm, "
-                    "capacity_mah, warnings, report_json) VALUES (1, 'xxh128:00000000000000000000"
-                    "00000000beef', 'old.csv', '2025-09-02T08:00:00Z', 1756800000, 'log', "
-                    "'2025-09-02T09:00:00Z', 600, 2500, 17.5, 4900, 0, ?)", (report,))
+                    "capacity_mah, warnings" + (", report_json" if in_flights else "") +
+                    ") VALUES (1, 'xxh128:0000000000000000000000000000beef', 'old.csv', "
+                    "'2025-09-02T08:00:00Z', 1756800000, 'log', '2025-09-02T09:00:00Z', 600, "
+                    "2500, 17.5, 4900, 0" + (", ?)" if in_flights else ")"),
+                    (report,) if in_flights else ())
+        if not in_flights:
+            con.execute("INSERT INTO flight_reports (flight_id, report_json) VALUES (1, ?)",
+                        (report,))
         con.commit()
         packs = con.execute("SELECT * FROM packs").fetchall()
         # the flight's columns by name: schema 6 moves report_json to flight_reports
