@@ -2,11 +2,12 @@
 
 #include <gsl/gsl_cdf.h>
 #include <gsl/gsl_errno.h>
-#include <gsl/gsl_multifit.h>
 #include <gsl/gsl_statistics_double.h>
 #include <math.h>
 #include <stdlib.h>
 #include <string.h>
+
+#include "rlsq.h"
 
 /* Shape grids. Break points at the 30th to 85th percentile of the history's
  * cycles (a break needs points on both sides); exponential rates and powers
@@ -78,61 +79,46 @@ double life_value(const struct life_projection *p, double x)
 /* One robust fit of a model with a given shape to n points; sets coef and
  * the bisquare-weighted residual sum of squares. Returns 0, or -1. */
 static int fit_shape(enum life_model m, double shape, double scale, const double *x,
-                     const double *y, size_t n, double coef[3], double *wsse, double *sigma,
-                     double cov_out[9])
+                     const double *y, size_t n, struct rlsq_work *w, double *design, double coef[3],
+                     double *wsse, double *sigma, double cov_out[9])
 {
     double row[3];
     size_t p = basis(m, shape, scale, 0.0, row);
     if (n <= p + 1)
         return -1;
-    int ok = -1;
-    gsl_matrix *X = gsl_matrix_alloc(n, p);
-    gsl_vector *Y = gsl_vector_alloc(n), *c = gsl_vector_alloc(p);
-    gsl_matrix *cov = gsl_matrix_alloc(p, p);
-    gsl_multifit_robust_workspace *w =
-        gsl_multifit_robust_alloc(gsl_multifit_robust_bisquare, n, p);
-    if (!X || !Y || !c || !cov || !w)
-        goto cleanup;
     for (size_t k = 0; k < n; k++) {
         basis(m, shape, scale, x[k], row);
         for (size_t j = 0; j < p; j++)
-            gsl_matrix_set(X, k, j, row[j]);
-        gsl_vector_set(Y, k, y[k]);
+            design[k * p + j] = row[j];
     }
-    int rc = gsl_multifit_robust(X, Y, c, cov, w);
-    /* out of iterations still leaves a usable reweighted fit */
-    if (rc != GSL_SUCCESS && rc != GSL_EMAXITER)
-        goto cleanup;
-    gsl_multifit_robust_stats st = gsl_multifit_robust_statistics(w);
-    double s = 0.0;
-    for (size_t k = 0; k < n; k++) {
-        double r = gsl_vector_get(st.r, k);
-        s += gsl_vector_get(st.weights, k) * r * r;
-    }
+    struct rlsq_fit f;
+    /* stopped after its rounds, a reweighted fit is still usable */
+    if (rlsq_bisquare(design, y, n, p, w, &f) != 0)
+        return -1;
     coef[0] = coef[1] = coef[2] = 0.0;
-    for (size_t j = 0; j < p; j++)
-        coef[j] = gsl_vector_get(c, j);
-    *wsse = s;
-    *sigma = st.sigma;
     for (size_t i = 0; i < 9; i++)
         cov_out[i] = 0.0;
-    for (size_t i = 0; i < p; i++)
+    for (size_t i = 0; i < p; i++) {
+        coef[i] = f.coef[i];
         for (size_t j = 0; j < p; j++)
-            cov_out[3 * i + j] = gsl_matrix_get(cov, i, j);
-    ok = isfinite(s) && isfinite(coef[0]) && isfinite(coef[1]) && isfinite(coef[2]) ? 0 : -1;
-cleanup:
-    gsl_multifit_robust_free(w);
-    gsl_matrix_free(X);
-    gsl_vector_free(Y);
-    gsl_vector_free(c);
-    gsl_matrix_free(cov);
-    return ok;
+            cov_out[3 * i + j] = f.cov[i * p + j];
+    }
+    *wsse = f.wsse;
+    *sigma = f.sigma;
+    return isfinite(f.wsse) && isfinite(coef[0]) && isfinite(coef[1]) && isfinite(coef[2]) ? 0 : -1;
 }
+
+/* Scratch for one projection's fits. */
+struct life_scratch {
+    struct rlsq_work *w;
+    double *design; /* n x 3 */
+};
 
 /* The best shape of a model on n points (least weighted residual); sets
  * that residual and the fit's robust scale when wsse, sigma are not NULL. */
-static int fit_model(enum life_model m, const double *x, const double *y, size_t n, double *shape,
-                     double *scale, double coef[3], double *wsse, double *sigma, double cov[9])
+static int fit_model(enum life_model m, const double *x, const double *y, size_t n,
+                     struct life_scratch *sc, double *shape, double *scale, double coef[3],
+                     double *wsse, double *sigma, double cov[9])
 {
     double grid[BREAK_GRID > 7 ? BREAK_GRID : 7];
     size_t ng = 1;
@@ -158,7 +144,8 @@ static int fit_model(enum life_model m, const double *x, const double *y, size_t
     double best = HUGE_VAL, best_sigma = NAN;
     for (size_t g = 0; g < ng; g++) {
         double c[3], s, sg, cv[9];
-        if (fit_shape(m, grid[g], *scale, x, y, n, c, &s, &sg, cv) != 0 || !(s < best))
+        if (fit_shape(m, grid[g], *scale, x, y, n, sc->w, sc->design, c, &s, &sg, cv) != 0 ||
+            !(s < best))
             continue;
         best = s;
         best_sigma = sg;
@@ -193,8 +180,9 @@ static double median_of(double *v, size_t m)
  * the flights after it. err gets the absolute errors point by point (the
  * same points for every model, so they pair), *ne their count; scratch
  * needs room for 2 n values. */
-static int holdout(enum life_model m, const double *x, const double *y, size_t n, double *err,
-                   size_t *ne, double *scratch, double *med_err, double *rate)
+static int holdout(enum life_model m, const double *x, const double *y, size_t n,
+                   struct life_scratch *sc, double *err, size_t *ne, double *scratch,
+                   double *med_err, double *rate)
 {
     size_t h = n / 4 > 3 ? n / 4 : 3;
     size_t origins[2] = {n - h, n - h / 2 - 1};
@@ -203,7 +191,7 @@ static int holdout(enum life_model m, const double *x, const double *y, size_t n
     for (int o = 0; o < 2; o++) {
         size_t org = origins[o];
         double shape = NAN, scale, coef[3], sigma;
-        if (fit_model(m, x, y, org, &shape, &scale, coef, NULL, &sigma, NULL) != 0)
+        if (fit_model(m, x, y, org, sc, &shape, &scale, coef, NULL, &sigma, NULL) != 0)
             return -1;
         if (!isfinite(sigma))
             sigma = 0.0;
@@ -278,18 +266,15 @@ static double first_cross(const struct life_projection *p, double sign, double l
 #undef G
 }
 
-/* One model fitted to the whole history and projected: its crossing
- * (middle) and range. Returns 0, or -1 when it cannot be fitted. */
-static int project_one(enum life_model model, double med, double rate, const double *xs,
-                       const double *ys, size_t m, double sign, double lvl, double x_now,
-                       double horizon, struct life_projection *p)
+/* One model fitted to the whole history. Returns 0, or -1 when it cannot
+ * be fitted or takes no part (below). */
+static int project_fit(enum life_model model, const double *xs, const double *ys, size_t m,
+                       struct life_scratch *sc, double sign, struct life_projection *p)
 {
     memset(p, 0, sizeof *p);
     p->model = model;
-    p->holdout_err = med;
-    p->err_rate = rate;
     p->early = p->middle = p->late = NAN;
-    if (fit_model(model, xs, ys, m, &p->shape, &p->scale_x, p->coef, NULL, NULL, p->cov) != 0)
+    if (fit_model(model, xs, ys, m, sc, &p->shape, &p->scale_x, p->coef, NULL, NULL, p->cov) != 0)
         return -1;
     /* A curve's accelerating term (the exponential's or power's amplitude,
      * the slope change after the break) must differ from zero towards the
@@ -310,16 +295,25 @@ static int project_one(enum life_model model, double med, double rate, const dou
         if (!(sign * p->coef[j] <= -z * se))
             return -1;
     }
+    return 0;
+}
+
+/* The fitted model projected with its held-out error: its crossing
+ * (middle) and range. */
+static void project_cross(struct life_projection *p, double med, double rate, double sign,
+                          double lvl, double x_now, double horizon)
+{
+    p->holdout_err = med;
+    p->err_rate = rate;
     p->past = sign * life_value(p, x_now) <= lvl;
     p->middle = first_cross(p, sign, lvl, 0.0, x_now, horizon);
     /* a model that does not reach the level projects no crossing: an early
      * end from the error allowance alone would be noise (a new pack's
      * falling resistance would get a date) */
     if (!isfinite(p->middle))
-        return 0;
+        return;
     p->early = first_cross(p, sign, lvl, Z95, x_now, horizon);
     p->late = first_cross(p, sign, lvl, -Z95, x_now, horizon);
-    return 0;
 }
 
 int life_project(const double *x, const double *y, size_t n, double level, int rising, double x_now,
@@ -340,8 +334,10 @@ int life_project(const double *x, const double *y, size_t n, double level, int r
     static const enum life_model cand[] = {LIFE_LINE, LIFE_EXP, LIFE_POWER, LIFE_BREAK};
     enum { NC = sizeof cand / sizeof cand[0] };
     double *err = malloc(NC * 2 * m * sizeof *err), *pc = malloc(2 * m * sizeof *pc);
-    if (!xs || !ys || !err || !pc) {
-        free(xs), free(ys), free(err), free(pc);
+    struct life_scratch sc = {rlsq_work_new(m), malloc(3 * m * sizeof(double))};
+    if (!xs || !ys || !err || !pc || !sc.w || !sc.design) {
+        free(xs), free(ys), free(err), free(pc), free(sc.design);
+        rlsq_work_free(sc.w);
         return -1;
     }
     m = 0;
@@ -354,10 +350,13 @@ int life_project(const double *x, const double *y, size_t n, double level, int r
     struct life_projection pr[NC];
     double sign = rising ? -1.0 : 1.0, lvl = sign * level;
     for (int c = 0; c < NC; c++) {
-        ok[c] = holdout(cand[c], xs, ys, m, err + (size_t)c * 2 * m, &ne[c], pc, &med[c],
-                        &rate[c]) == 0 &&
-                project_one(cand[c], med[c], rate[c], xs, ys, m, sign, lvl, x_now, horizon,
-                            &pr[c]) == 0;
+        /* the held-out fits only for a model that takes part: a curve
+         * whose accelerating term fails its test costs one grid of fits */
+        ok[c] = project_fit(cand[c], xs, ys, m, &sc, sign, &pr[c]) == 0 &&
+                holdout(cand[c], xs, ys, m, &sc, err + (size_t)c * 2 * m, &ne[c], pc, &med[c],
+                        &rate[c]) == 0;
+        if (ok[c])
+            project_cross(&pr[c], med[c], rate[c], sign, lvl, x_now, horizon);
         /* the least median held-out error wins; the simpler model keeps a tie */
         if (ok[c] && (best < 0 || med[c] < med[best]))
             best = c;
@@ -394,6 +393,7 @@ int life_project(const double *x, const double *y, size_t n, double level, int r
         if (late_open)
             out->late = NAN;
     }
-    free(xs), free(ys), free(err), free(pc);
+    free(xs), free(ys), free(err), free(pc), free(sc.design);
+    rlsq_work_free(sc.w);
     return 0;
 }

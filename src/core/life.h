@@ -5,7 +5,7 @@
  * models are fitted to the pack's own history (equivalent cycles x, the
  * quantity y): a straight line, a line with a break point, an exponential
  * and a power law in cycles (the last two accelerate). Each is fitted by
- * robust least squares (bisquare, GSL) with its shape (break point, rate,
+ * robust least squares (bisquare, rlsq.h: GSL's method) with its shape (break point, rate,
  * power) taken from a fixed grid; the model is chosen by its held-out error
  * on the pack's own history (fitted to the earlier flights, scored on the
  * later ones: the median absolute error at two forecast origins); a curve
