@@ -499,10 +499,16 @@ static void test_fast_path_same_across_blocks(void **state)
                                     1.0 + (double)(pick % 7));
     }
     struct logread_opts o = {0};
+    /* past the first 1 MiB block, a machine with a second core reads the
+     * rest ahead in 256 KiB blocks (logread.c, read_ahead): compared too */
     check_paths_agree(text, len, "generated 3 MiB log", &o);
-    /* the same cut at every length near a block boundary */
+    /* the same cut at every length near a block boundary, of the first
+     * block and of the read-ahead blocks after it */
     for (size_t cut = (1u << 20) - 40; cut < (1u << 20) + 40; cut += 7)
         check_paths_agree(text, cut, "generated log cut short", &o);
+    for (size_t cut = (1u << 20) + (256u << 10) - 40; cut < (1u << 20) + (256u << 10) + 40;
+         cut += 7)
+        check_paths_agree(text, cut, "generated log cut short after a read-ahead block", &o);
     free(text);
 }
 
