@@ -9,7 +9,10 @@
  *
  * Robust mode is iteratively reweighted least squares with Tukey's
  * bisquare weight (c = 4.685) and scale = 1.4826 * median |residual|, the
- * median taken over an even sample of at most 65536 rows. */
+ * median taken over an even sample of at most 65536 rows. When those rows
+ * are at most a quarter of all, the reweighting iterates on them alone and
+ * one pass over every row then weights all rows at that fit (more passes
+ * only when it moves a coefficient beyond the subsample's own error). */
 #ifndef PB_FIT_H
 #define PB_FIT_H
 
