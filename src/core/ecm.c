@@ -670,7 +670,10 @@ enum pb_code ecm_ocv_trend(const struct series *s, const double *q_ah, double q_
                           .r1 = tau_s > 0.0 ? r1_ohm : 0.0,
                           .tau = tau_s,
                           .v_ref = s->v_v[0]};
-    enum pb_code rc = fit_blocks(s->n, degree + 1, trend_block, &c, robust, out, err);
+    /* without an RC branch a row is its own sample's alone: made in any order */
+    enum pb_code rc = robust && !(c.r1 > 0.0)
+                          ? fit_blocks_any_order(s->n, degree + 1, trend_block, &c, out, err)
+                          : fit_blocks(s->n, degree + 1, trend_block, &c, robust, out, err);
     if (work)
         *work += out->rows_visited;
     /* the reference voltage back into the constant term */

@@ -42,6 +42,7 @@ struct scale_sample {
 struct source {
     fit_block_fn block;
     void *ctx;
+    int any_order;  /* block() makes any rows asked for, in any order */
     fit_row_fn row; /* when the caller gave rows, not blocks */
     void *row_ctx;
 };
@@ -191,6 +192,30 @@ static void kept_pass(int p, struct scale_sample *ss, const double *beta, double
     ss->n = every.n;
 }
 
+/* The kept rows (every m-th row, those the block uses) made without a
+ * pass over the others, for rows made in any order; their plain sums in
+ * ne. Returns the rows asked for. */
+static size_t sample_rows(size_t n, int p, const struct source *src, struct scale_sample *ss,
+                          struct normal_eq *ne)
+{
+    double x[FIT_MAX_P], y;
+    unsigned char use;
+    size_t asked = 0;
+    ss->nk = 0;
+    for (size_t k = 0; k < n && ss->nk < SCALE_SAMPLES; k += ss->m, asked++) {
+        src->block(src->ctx, k, 1, p, x, &y, &use);
+        if (!use)
+            continue;
+        memcpy(ss->x + ss->nk * (size_t)p, x, (size_t)p * sizeof *x);
+        ss->u[ss->nk] = use;
+        ss->y[ss->nk++] = y;
+    }
+    size_t left = 1;
+    memset(ne, 0, sizeof *ne);
+    sums_of(p, ss->nk, ss->x, ss->y, ss->u, NULL, 0.0, NULL, &left, ne);
+    return asked;
+}
+
 /* Largest move of beta from prev, in standard errors at the given scale
  * (inv the unscaled inverse of the last solve). */
 static double change_in_se(int p, const double *beta, const double *prev,
@@ -321,6 +346,7 @@ static enum pb_code fit_core(size_t n, int p, const struct source *src, int robu
     struct scale_sample ss = {.m = n / SCALE_SAMPLES + 1};
     double scale = 0.0;
     size_t visited = 0;
+    int sampled = 0; /* the plain fit is the kept rows' (sample_rows) */
 
     memset(out, 0, sizeof *out);
     if (p < 1 || p > FIT_MAX_P)
@@ -336,8 +362,15 @@ static enum pb_code fit_core(size_t n, int p, const struct source *src, int robu
             ss.u = malloc(SCALE_SAMPLES);
         }
         int keep_rows = ss.x && ss.y && ss.u;
-        run_pass(n, p, src, NULL, 0.0, keep_rows ? &ss : NULL, &ne);
-        visited += n;
+        size_t asked = 0;
+        sampled = keep_rows && src->any_order && n >= SUBSAMPLE_RATIO * SCALE_SAMPLES;
+        if (sampled) {
+            asked = sample_rows(n, p, src, &ss, &ne);
+            visited += asked;
+        } else {
+            run_pass(n, p, src, NULL, 0.0, keep_rows ? &ss : NULL, &ne);
+            visited += n;
+        }
         if (!keep_rows) {
             free(ss.x);
             free(ss.y);
@@ -358,6 +391,8 @@ static enum pb_code fit_core(size_t n, int p, const struct source *src, int robu
         for (int j = 0; j < p; j++)
             out->rss_plain -= beta[j] * ne.b[j];
         out->rss_plain = fmax(out->rss_plain, 0.0);
+        if (sampled) /* the sample's, scaled to every row */
+            out->rss_plain *= (double)n / (double)asked;
     }
     if (robust) {
         ss.r = malloc(SCALE_SAMPLES * sizeof *ss.r);
@@ -376,7 +411,9 @@ static enum pb_code fit_core(size_t n, int p, const struct source *src, int robu
          * these very rows. */
         int it = 1, iters = 0;
         double limit = 0.05; /* converged: no move beyond this many standard errors */
-        int sub = ss.x && ss.nk > (size_t)(4 * p) && ne.n_used >= SUBSAMPLE_RATIO * ss.nk;
+        int sub =
+            ss.x && ss.nk > (size_t)(4 * p) && (sampled || ne.n_used >= SUBSAMPLE_RATIO * ss.nk);
+        double rows = sampled ? (double)n : (double)ne.n_used;
         if (sub) {
             double y_rms = sqrt(ne.yy / (double)ne.n_used);
             struct normal_eq sne;
@@ -403,8 +440,21 @@ static enum pb_code fit_core(size_t n, int p, const struct source *src, int robu
                 scale = next;
             }
             /* the subsample's standard errors are sqrt(n / kept) times the full data's */
-            limit = 3.0 * sqrt((double)ne.n_used / (double)ss.nk);
+            limit = 3.0 * sqrt(rows / (double)ss.nk);
             it = 2; /* the full passes below start weighted */
+            if (sampled && !(scale > 0.0)) {
+                /* an exact fit: the plain fit of every row after all */
+                run_pass(n, p, src, NULL, 0.0, NULL, &ne);
+                visited += n;
+                if (ne.n_used <= (size_t)p || solve(&ne, p, beta, inv, &rank) != 0) {
+                    free(ss.r);
+                    free(ss.x);
+                    free(ss.y);
+                    free(ss.u);
+                    return pb_error_set(err, PB_ENUMERIC, "fit: %zu rows for %d unknowns",
+                                        ne.n_used, p);
+                }
+            }
         }
         /* each pass weights by the scale of the previous pass's residuals
          * and samples its own; at convergence the two agree */
@@ -495,7 +545,7 @@ static enum pb_code fit_core(size_t n, int p, const struct source *src, int robu
 enum pb_code fit_linear(size_t n, int p, fit_row_fn row, void *ctx, int robust,
                         struct fit_result *out, struct pb_error *err)
 {
-    struct source src = {rows_as_block, NULL, row, ctx};
+    struct source src = {rows_as_block, NULL, 0, row, ctx};
     src.ctx = &src;
     return fit_core(n, p, &src, robust, NULL, out, err);
 }
@@ -503,15 +553,22 @@ enum pb_code fit_linear(size_t n, int p, fit_row_fn row, void *ctx, int robust,
 enum pb_code fit_blocks(size_t n, int p, fit_block_fn block, void *ctx, int robust,
                         struct fit_result *out, struct pb_error *err)
 {
-    struct source src = {block, ctx, NULL, NULL};
+    struct source src = {block, ctx, 0, NULL, NULL};
     return fit_core(n, p, &src, robust, NULL, out, err);
+}
+
+enum pb_code fit_blocks_any_order(size_t n, int p, fit_block_fn block, void *ctx,
+                                  struct fit_result *out, struct pb_error *err)
+{
+    struct source src = {block, ctx, 1, NULL, NULL};
+    return fit_core(n, p, &src, 1, NULL, out, err);
 }
 
 enum pb_code fit_linear_from(size_t n, int p, fit_row_fn row, void *ctx,
                              const struct fit_result *start, struct fit_result *out,
                              struct pb_error *err)
 {
-    struct source src = {rows_as_block, NULL, row, ctx};
+    struct source src = {rows_as_block, NULL, 0, row, ctx};
     src.ctx = &src;
     return fit_core(n, p, &src, 1, start, out, err);
 }

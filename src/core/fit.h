@@ -71,6 +71,13 @@ enum pb_code fit_linear(size_t n, int p, fit_row_fn row, void *ctx, int robust,
 enum pb_code fit_blocks(size_t n, int p, fit_block_fn block, void *ctx, int robust,
                         struct fit_result *out, struct pb_error *err);
 
+/* Robust fit_blocks for rows that do not depend on each other, so block()
+ * makes any rows asked for in any order: on a long log the plain fit too is
+ * the even sample's, made without a pass over every row (rss_plain is then
+ * the sample's, scaled to n rows); then one pass over every row as above. */
+enum pb_code fit_blocks_any_order(size_t n, int p, fit_block_fn block, void *ctx,
+                                  struct fit_result *out, struct pb_error *err);
+
 /* The plain fit of sums made by the caller (e.g. shared walks over the
  * data for many candidate models); rows_visited is left 0. */
 enum pb_code fit_solve_sums(const struct fit_sums *sums, int p, struct fit_result *out,
