@@ -1280,9 +1280,12 @@ static int ahead_fill(struct ahead *a, struct ahead_block *b)
                 struct pre_num *pn = &b->pre[b->nfield + (size_t)k];
                 pn->st = NUM_BAD;
                 if (k < a->ncols && a->col_slot[k] >= 0) {
+                    const char *f = b->buf + starts[k];
+                    size_t flen = starts[k + 1] - 1 - starts[k];
                     double v = 0.0;
-                    pn->st = (unsigned char)num_parse(
-                        b->buf + starts[k], starts[k + 1] - 1 - starts[k], a->decimal, &v);
+                    pn->st = num_parse_plain(f, flen, a->decimal, &v)
+                                 ? NUM_OK
+                                 : (unsigned char)num_parse(f, flen, a->decimal, &v);
                     pn->v = v;
                 }
             }

@@ -11,7 +11,7 @@
 #include <strings.h>
 
 /* Powers of ten that are exact in binary64 (10^22 is the largest). */
-static const double exact_pow10[] = {
+const double num_exact_pow10[23] = {
     1e0,  1e1,  1e2,  1e3,  1e4,  1e5,  1e6,  1e7,  1e8,  1e9,  1e10, 1e11,
     1e12, 1e13, 1e14, 1e15, 1e16, 1e17, 1e18, 1e19, 1e20, 1e21, 1e22,
 };
@@ -59,32 +59,8 @@ static enum num_status slow_parse(const char *s, size_t len, char decimal, doubl
 
 enum num_status num_parse(const char *s, size_t len, char decimal, double *out)
 {
-    /* The common field, [-]digits[decimal digits] with at most 19 digits
-     * and nothing else: the same mantissa and power of ten as the general
-     * path below gives, with one test per character. */
-    if (len > 0 && len <= 21) {
-        size_t k = s[0] == '-';
-        int neg = (int)k, frac = -1, nd = 0;
-        uint64_t mant = 0;
-        for (; k < len; k++) {
-            unsigned d = (unsigned)((unsigned char)s[k] - '0');
-            if (d <= 9) {
-                mant = mant * 10 + d;
-                nd++;
-            } else if (s[k] == decimal && frac < 0) {
-                frac = (int)(len - k - 1);
-            } else {
-                break;
-            }
-        }
-        if (k == len && nd > 0 && nd <= 19 && mant <= (UINT64_C(1) << 53)) {
-            double v = (double)mant;
-            if (frac > 0)
-                v /= exact_pow10[frac];
-            *out = neg ? -v : v;
-            return NUM_OK;
-        }
-    }
+    if (num_parse_plain(s, len, decimal, out))
+        return NUM_OK;
     while (len > 0 && is_blank(*s)) {
         s++;
         len--;
@@ -161,7 +137,7 @@ enum num_status num_parse(const char *s, size_t len, char decimal, double *out)
      * correctly rounded multiply or divide gives the correctly rounded result. */
     if (!lost && mant <= (UINT64_C(1) << 53) && e >= -22 && e <= 22) {
         double v = (double)mant;
-        v = e < 0 ? v / exact_pow10[-e] : v * exact_pow10[e];
+        v = e < 0 ? v / num_exact_pow10[-e] : v * num_exact_pow10[e];
         *out = neg ? -v : v;
         return NUM_OK;
     }
