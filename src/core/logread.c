@@ -1366,11 +1366,19 @@ static int read_ahead(struct reader *r, struct csv_parser *p, FILE *fp, char *la
     struct ahead a = {
         .fp = fp, .decimal = r->st->decimal, .col_slot = r->col_slot, .ncols = r->ncols};
     fast_classes(a.cls, r->st->delimiter);
-    for (int i = 0; i < 2; i++)
-        if (!(a.blk[i].buf = malloc(AHEAD_BYTES))) {
+    /* the tables sized here for lines of 16 bytes or more, so that the
+     * thread, which grows them only for shorter lines, keeps no heap of
+     * its own */
+    for (int i = 0; i < 2; i++) {
+        struct ahead_block *b = &a.blk[i];
+        b->buf = malloc(AHEAD_BYTES);
+        if (!b->buf || grow((void **)&b->line, &b->cap_line, AHEAD_BYTES / 16, sizeof *b->line) ||
+            grow((void **)&b->start, &b->cap_start, AHEAD_BYTES / 4, sizeof *b->start) ||
+            grow((void **)&b->pre, &b->cap_pre, AHEAD_BYTES / 4, sizeof *b->pre)) {
             ahead_release(&a);
             return -1;
         }
+    }
     if (pthread_mutex_init(&a.mu, NULL) != 0) {
         ahead_release(&a);
         return -1;
