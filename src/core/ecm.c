@@ -272,7 +272,8 @@ static double honest_cov(struct ctx *c, struct fit_result *f)
     return rho;
 }
 
-#define TAU_WALK_MAX 16 /* time constants summed in one walk */
+#define TAU_WALK_MAX 16             /* time constants summed in one walk */
+#define GRID_THREAD_MIN_ROWS 100000 /* the grid walked in a thread of its own from here */
 
 /* The plain residual sums of squares of the RC model at nt time constants
  * (nt <= TAU_WALK_MAX) in one walk over the log: the lag of each runs over
@@ -416,7 +417,10 @@ static void grid_start(struct tau_grid *gr, const struct ctx *c, double lo_s, do
         gr->taus[j] = exp(gr->g[j]);
     }
     gr->ok = 1;
-    if (sysconf(_SC_NPROCESSORS_ONLN) > 1 && pthread_create(&gr->tid, NULL, grid_walk, gr) == 0)
+    /* a short log's walk costs less than a thread (and import runs one
+     * analysis per core already) */
+    if (c->s->n >= GRID_THREAD_MIN_ROWS && sysconf(_SC_NPROCESSORS_ONLN) > 1 &&
+        pthread_create(&gr->tid, NULL, grid_walk, gr) == 0)
         gr->threaded = 1;
 }
 
