@@ -1247,6 +1247,83 @@ static int grow(void **p, size_t *cap, size_t need, size_t size)
     return 0;
 }
 
+/* What split_parse_line saw of a field: its digits as one mantissa, where
+ * its decimal mark is, and whether it is nothing but [-]digits[.digits]. */
+struct field_scan {
+    uint64_t mant;
+    int nd, frac_at, ok;
+};
+
+/* split_line that also reads each field's digits as it passes them, so a
+ * plain number costs no second walk (the same fields, starts and ends). */
+static inline size_t split_parse_line(const unsigned char *cls, const unsigned char *u, size_t at,
+                                      size_t len, unsigned char decimal, size_t *starts,
+                                      struct field_scan *fs, int *nf, int *plain,
+                                      unsigned char *term)
+{
+    int n = 1, pl = 1;
+    size_t e = at;
+    starts[0] = at;
+    struct field_scan cur = {0, 0, -1, 1};
+    unsigned char c = FAST_PLAIN;
+    while (e < len) {
+        unsigned char byte = u[e];
+        c = cls[byte];
+        if (c == FAST_PLAIN) {
+            unsigned d = (unsigned)byte - '0';
+            if (d <= 9) {
+                cur.mant = cur.mant * 10 + d;
+                cur.nd++;
+            } else if (byte == decimal && cur.frac_at < 0) {
+                cur.frac_at = (int)(e - starts[n - 1]);
+            } else if (!(byte == '-' && e == starts[n - 1])) {
+                cur.ok = 0;
+            }
+            e++;
+            continue;
+        }
+        if (c == FAST_DELIM) {
+            if (n == FAST_MAX_FIELDS) {
+                pl = 0;
+            } else {
+                fs[n - 1] = cur;
+                starts[n++] = e + 1;
+            }
+            cur = (struct field_scan){0, 0, -1, 1};
+            e++;
+            continue;
+        }
+        if (c == FAST_OTHER)
+            pl = 0;
+        if (c != FAST_OTHER)
+            break;
+        e++;
+    }
+    fs[n - 1] = cur;
+    if (e < len)
+        starts[n] = e + 1;
+    *nf = n;
+    *plain = pl;
+    *term = c;
+    return e;
+}
+
+/* The number of field f[0..len) from its scan: num_parse_plain's result
+ * when the scan says the field has that shape, else num_parse's. */
+static inline enum num_status scanned_number(const struct field_scan *fs, const char *f, size_t len,
+                                             char decimal, double *v)
+{
+    if (fs->ok && fs->nd > 0 && fs->nd <= 19 && len <= 21 && fs->mant <= (UINT64_C(1) << 53)) {
+        double x = (double)fs->mant;
+        int frac = fs->frac_at >= 0 ? (int)len - fs->frac_at - 1 : -1;
+        if (frac > 0)
+            x /= num_exact_pow10[frac];
+        *v = f[0] == '-' ? -x : x;
+        return NUM_OK;
+    }
+    return num_parse(f, len, decimal, v);
+}
+
 /* Reads and splits one block; returns 0 at the end of the file, a read
  * error or out of memory (the block says which), else 1. */
 static int ahead_fill(struct ahead *a, struct ahead_block *b)
@@ -1259,8 +1336,10 @@ static int ahead_fill(struct ahead *a, struct ahead_block *b)
     size_t at = 0;
     while (at < b->len) {
         size_t starts[FAST_MAX_FIELDS + 1];
+        struct field_scan fs[FAST_MAX_FIELDS];
         struct ahead_line l = {0};
-        l.end = split_line(a->cls, u, at, b->len, starts, &l.nf, &l.plain, &l.term);
+        l.end = split_parse_line(a->cls, u, at, b->len, (unsigned char)a->decimal, starts, fs,
+                                 &l.nf, &l.plain, &l.term);
         if (grow((void **)&b->line, &b->cap_line, b->nline + 1, sizeof *b->line) != 0) {
             b->oom = 1;
             return 0;
@@ -1283,9 +1362,7 @@ static int ahead_fill(struct ahead *a, struct ahead_block *b)
                     const char *f = b->buf + starts[k];
                     size_t flen = starts[k + 1] - 1 - starts[k];
                     double v = 0.0;
-                    pn->st = num_parse_plain(f, flen, a->decimal, &v)
-                                 ? NUM_OK
-                                 : (unsigned char)num_parse(f, flen, a->decimal, &v);
+                    pn->st = (unsigned char)scanned_number(&fs[k], f, flen, a->decimal, &v);
                     pn->v = v;
                 }
             }
