@@ -178,6 +178,9 @@ enum pb_code packview_load_fleet(struct store *st, const struct health_rules *ru
         v[n].flights = NULL;
         v[n].dep = NULL;
         v[n].nflights = 0;
+        /* the trend's weekly means too (a slot per flight: 88 MB at 1,000,000
+         * flights); the fleet views keep its lines and life plan */
+        health_trend_release(&v[n].trend);
         n++;
     }
     store_packs_free(packs);

@@ -175,32 +175,59 @@ static void infer_cells(struct analysis *a, const struct series *s, const struct
     }
 }
 
-static void voltage_stats(struct analysis *a, const struct series *s)
+/* fmax and fmin of finite numbers (the reader keeps no other) without a
+ * call per sample: the same choice as the SSE instructions libm uses. */
+static inline double max_of(double m, double x)
 {
-    a->voltage_min_v = HUGE_VAL;
-    a->voltage_max_v = -HUGE_VAL;
-    for (size_t k = 0; k < s->n; k++) {
-        a->voltage_min_v = fmin(a->voltage_min_v, s->v_v[k]);
-        a->voltage_max_v = fmax(a->voltage_max_v, s->v_v[k]);
+    return m > x ? m : x;
+}
+
+static inline double min_of(double m, double x)
+{
+    return m < x ? m : x;
+}
+
+static void floor_warning(struct analysis *a, double v_min_loaded, double floor_pack);
+
+/* The voltage's range and, with a current, the current's and the peak
+ * power, in one walk; the lowest current in *imin_a. */
+static void voltage_stats(struct analysis *a, const struct series *s, double *imin_a)
+{
+    double vmin = HUGE_VAL, vmax = -HUGE_VAL;
+    const double *v = s->v_v, *i = s->i_a;
+    if (i) {
+        double imax = -HUGE_VAL, imin = HUGE_VAL, pmax = -HUGE_VAL;
+        for (size_t k = 0; k < s->n; k++) {
+            vmin = min_of(vmin, v[k]);
+            vmax = max_of(vmax, v[k]);
+            imax = max_of(imax, i[k]);
+            imin = min_of(imin, i[k]);
+            pmax = max_of(pmax, i[k] * v[k]);
+        }
+        a->current_max_a = imax;
+        a->power_max_w = pmax;
+        *imin_a = imin;
+    } else {
+        for (size_t k = 0; k < s->n; k++) {
+            vmin = min_of(vmin, v[k]);
+            vmax = max_of(vmax, v[k]);
+        }
     }
+    a->voltage_min_v = vmin;
+    a->voltage_max_v = vmax;
     a->voltage_start_v = s->v_v[0];
     a->voltage_end_v = s->v_v[s->n - 1];
 }
 
+/* The current's figures (after voltage_stats, which found its range and
+ * imin_a): charge, energy, rest threshold and rest runs; the walks that
+ * need the rest threshold are loaded_stats'. */
 static void current_stats(struct analysis *a, const struct series *s, const struct analyze_opts *o,
-                          const char *name)
+                          double imin)
 {
     coulomb_count_segments(s->t_s, s->v_v, s->i_a, s->n, s->seg_start, s->nseg, a->gap_s, &a->cc);
     a->charge_used_mah = a->cc.discharged_mah - a->cc.regen_mah;
     a->energy_used_wh = a->cc.discharged_wh - a->cc.regen_wh;
-    a->current_max_a = -HUGE_VAL;
-    a->power_max_w = -HUGE_VAL;
-    double imin = HUGE_VAL;
-    for (size_t k = 0; k < s->n; k++) {
-        a->current_max_a = fmax(a->current_max_a, s->i_a[k]);
-        imin = fmin(imin, s->i_a[k]);
-        a->power_max_w = fmax(a->power_max_w, s->i_a[k] * s->v_v[k]);
-    }
     a->current_mean_a = a->charge_used_mah * 3.6 / a->duration_s;
     a->power_mean_w = a->energy_used_wh * 3600.0 / a->duration_s;
     double peak = fmax(fabs(a->current_max_a), fabs(imin));
@@ -218,19 +245,14 @@ static void current_stats(struct analysis *a, const struct series *s, const stru
             e--;
         a->rest_end_s = s->t_s[s->n - 1] - s->t_s[e + (e + 1 < s->n ? 1 : 0)];
     }
-    /* cruise: intervals whose both ends draw more than the rest current */
-    double e_ws = 0.0, t_loaded = 0.0;
-    for (size_t j = 1; j < s->n; j++) {
-        if (s->i_a[j - 1] > a->rest_a && s->i_a[j] > a->rest_a) {
-            double dt = s->t_s[j] - s->t_s[j - 1];
-            e_ws += dt * 0.5 * (s->v_v[j - 1] * s->i_a[j - 1] + s->v_v[j] * s->i_a[j]);
-            t_loaded += dt;
-        }
+    if (o->capacity_mah > 0.0) {
+        a->c_rate_max = a->current_max_a / (o->capacity_mah / 1000.0);
+        a->c_rate_mean = a->current_mean_a / (o->capacity_mah / 1000.0);
     }
-    a->power_cruise_w = t_loaded > 0.0 ? e_ws / t_loaded : NAN;
-    double step_a = fmax(0.25 * (a->current_max_a - imin), 0.5);
-    for (size_t j = 1; j < s->n; j++)
-        a->current_steps += fabs(s->i_a[j] - s->i_a[j - 1]) > step_a;
+}
+
+static void gap_warning(struct analysis *a, const struct series *s, const char *name)
+{
     if (a->cc.gaps)
         warn(a, "gaps",
              "%zu gap(s) longer than %.3g s in the log (%.1f s in all, longest %.1f s, the first "
@@ -238,9 +260,50 @@ static void current_stats(struct analysis *a, const struct series *s, const stru
              a->cc.gaps, a->gap_s, a->cc.gap_total_s, a->cc.gap_longest_s,
              s->t_s[a->cc.gap_first_index], name, s->line[a->cc.gap_first_index],
              a->cc.gap_charge_mah);
-    if (o->capacity_mah > 0.0) {
-        a->c_rate_max = a->current_max_a / (o->capacity_mah / 1000.0);
-        a->c_rate_mean = a->current_mean_a / (o->capacity_mah / 1000.0);
+}
+
+/* One walk, after current_stats, for what needs the rest threshold and the
+ * cell count: cruise power (intervals whose both ends draw more than the
+ * rest current), current steps, the loaded voltage against the cut-off
+ * (floor_stats' figures), and the charge drawn by each sample in q_ah
+ * (nothing bridged across a joint of clock segments: unknown length). Each
+ * sum is taken in sample order, as separate walks would. */
+static void loaded_stats(struct analysis *a, const struct series *s, double imin, double *q_ah)
+{
+    const double *t = s->t_s, *v = s->v_v, *i = s->i_a;
+    const double rest_a = a->rest_a;
+    const double step_a = fmax(0.25 * (a->current_max_a - imin), 0.5);
+    const int floor = a->cells > 0;
+    const double floor_pack = a->floor_v * a->cells;
+    double e_ws = 0.0, t_loaded = 0.0, below_s = a->time_below_floor_s, v_min_loaded = HUGE_VAL;
+    size_t steps = a->current_steps, js = 1; /* js: the next joint is at seg_start[js] */
+    q_ah[0] = 0.0;
+    for (size_t k = 0; k < s->n; k++) {
+        int loaded = fabs(i[k]) > rest_a;
+        if (k + 1 < s->n) {
+            /* interval k -> k + 1 */
+            while (js < s->nseg && s->seg_start[js] <= k)
+                js++;
+            int joint = js < s->nseg && s->seg_start[js] == k + 1;
+            double dt = t[k + 1] - t[k];
+            if (i[k] > rest_a && i[k + 1] > rest_a) {
+                e_ws += dt * 0.5 * (v[k] * i[k] + v[k + 1] * i[k + 1]);
+                t_loaded += dt;
+            }
+            steps += fabs(i[k + 1] - i[k]) > step_a;
+            q_ah[k + 1] = q_ah[k] + (joint ? 0.0 : coulomb_step_ah(dt, i[k], i[k + 1]));
+            if (floor && loaded && v[k] < floor_pack && !joint)
+                below_s += dt;
+        }
+        if (loaded)
+            v_min_loaded = min_of(v_min_loaded, v[k]);
+    }
+    a->power_cruise_w = t_loaded > 0.0 ? e_ws / t_loaded : NAN;
+    a->current_steps = steps;
+    if (floor) {
+        a->cell_min_loaded_v = a->voltage_min_v / a->cells;
+        a->time_below_floor_s = below_s;
+        floor_warning(a, v_min_loaded, floor_pack);
     }
 }
 
@@ -262,6 +325,11 @@ static void floor_stats(struct analysis *a, const struct series *s)
         if (k + 1 < s->n && s->v_v[k] < floor_pack && !series_is_joint(s, k + 1))
             a->time_below_floor_s += s->t_s[k + 1] - s->t_s[k];
     }
+    floor_warning(a, v_min_loaded, floor_pack);
+}
+
+static void floor_warning(struct analysis *a, double v_min_loaded, double floor_pack)
+{
     if (v_min_loaded < floor_pack)
         warn(a, "below_floor",
              "the loaded voltage went below the %.2f V/cell cut-off voltage (lowest %.3f V/cell, "
@@ -706,7 +774,8 @@ enum pb_code analyze_series(const struct series *s, const struct logread_stats *
     a->median_dt_s = median_interval(s);
     a->gap_s = o->gap_s > 0.0 ? o->gap_s : fmax(1.0, 5.0 * a->median_dt_s);
 
-    voltage_stats(a, s);
+    double imin = NAN;
+    voltage_stats(a, s, &imin);
     infer_cells(a, s, o);
     if (s->temp_c) {
         a->temp_min_c = HUGE_VAL;
@@ -727,24 +796,18 @@ enum pb_code analyze_series(const struct series *s, const struct logread_stats *
              "the log has no current: charge, energy, resistance and capacity need a current "
              "sensor; SoC is read from the loaded voltage and is a lower bound");
     } else {
-        current_stats(a, s, o, name);
-        floor_stats(a, s);
-        k_rest0 = initial_rest_end(s, a->rest_a);
-        k_rest1 = final_rest_start(s, a->rest_a);
-        if (k_rest1 == 0) /* all rest: one run, read at the start */
-            k_rest1 = s->n;
+        current_stats(a, s, o, imin);
+        gap_warning(a, s, name);
         q_ah = malloc(s->n * sizeof *q_ah);
         if (!q_ah) {
             rc = pb_error_set(err, PB_ENOMEM, "out of memory");
             goto cleanup;
         }
-        q_ah[0] = 0.0;
-        /* nothing is bridged across a joint of clock segments (unknown length) */
-        for (size_t k = 1; k < s->n; k++)
-            q_ah[k] = q_ah[k - 1] +
-                      (series_is_joint(s, k)
-                           ? 0.0
-                           : coulomb_step_ah(s->t_s[k] - s->t_s[k - 1], s->i_a[k - 1], s->i_a[k]));
+        loaded_stats(a, s, imin, q_ah);
+        k_rest0 = initial_rest_end(s, a->rest_a);
+        k_rest1 = final_rest_start(s, a->rest_a);
+        if (k_rest1 == 0) /* all rest: one run, read at the start */
+            k_rest1 = s->n;
         if (s->n < MIN_FIT_SAMPLES) {
             warn(a, "too_few_samples",
                  "%zu samples are too few to fit resistance or open-circuit voltage (need %d)",

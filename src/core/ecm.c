@@ -1,3 +1,4 @@
+#define _POSIX_C_SOURCE 200809L /* sysconf */
 #include "ecm.h"
 
 #include "edges.h"
@@ -5,8 +6,10 @@
 #include <gsl/gsl_errno.h>
 #include <gsl/gsl_min.h>
 #include <math.h>
+#include <pthread.h>
 #include <stdlib.h>
 #include <string.h>
+#include <unistd.h>
 
 #include "edges.h"
 
@@ -240,7 +243,7 @@ static double honest_cov(struct ctx *c, struct fit_result *f)
         return NAN;
     }
     /* lag-1 autocorrelation of the residuals, in sample order */
-    double x[FIT_MAX_P], y, prev = NAN, s01 = 0.0, s00 = 0.0;
+    double x[FIT_MAX_P] = {0}, y, prev = NAN, s01 = 0.0, s00 = 0.0;
     size_t prev_w = (size_t)-1;
     for (size_t k = 0; k < c->s->n; k++) {
         if (k == 0)
@@ -269,7 +272,8 @@ static double honest_cov(struct ctx *c, struct fit_result *f)
     return rho;
 }
 
-#define TAU_WALK_MAX 16 /* time constants summed in one walk */
+#define TAU_WALK_MAX 16             /* time constants summed in one walk */
+#define GRID_THREAD_MIN_ROWS 100000 /* the grid walked in a thread of its own from here */
 
 /* The plain residual sums of squares of the RC model at nt time constants
  * (nt <= TAU_WALK_MAX) in one walk over the log: the lag of each runs over
@@ -367,6 +371,71 @@ struct tau_search {
     int failed;
 };
 
+/* The grid of time constants from lo_s to hi_s and its plain RSS, walked
+ * by a second thread while the static model is fitted when a core is free
+ * (the walk only reads the windows and the series; its own copy of the
+ * context keeps the running state apart). */
+struct tau_grid {
+    struct ctx c;
+    double g[TAU_GRID], taus[TAU_GRID], f[TAU_GRID];
+    double *buf;
+    pthread_t tid;
+    int threaded, ok, walked;
+};
+
+static size_t longest_window(const struct ctx *c)
+{
+    size_t longest = 0;
+    for (size_t j = 0; j < c->nw; j++)
+        if (c->w[j].use && c->w[j].k1 - c->w[j].k0 > longest)
+            longest = c->w[j].k1 - c->w[j].k0;
+    return longest;
+}
+
+static void *grid_walk(void *vg)
+{
+    struct tau_grid *gr = vg;
+    rss_walk(&gr->c, gr->taus, TAU_GRID, gr->buf, gr->f);
+    return NULL;
+}
+
+/* Starts the grid's walk (in a thread when one can run beside this one);
+ * ok is 0 when the range is too short or memory is short. */
+static void grid_start(struct tau_grid *gr, const struct ctx *c, double lo_s, double hi_s)
+{
+    double lo = log(lo_s), hi = log(hi_s);
+    gr->threaded = gr->ok = gr->walked = 0;
+    gr->buf = NULL;
+    if (!(hi - lo > 1.0))
+        return;
+    gr->c = *c;
+    gr->buf = malloc(TAU_WALK_MAX * longest_window(c) * sizeof(double));
+    if (!gr->buf)
+        return;
+    for (int j = 0; j < TAU_GRID; j++) {
+        gr->g[j] = lo + (hi - lo) * j / (TAU_GRID - 1);
+        gr->taus[j] = exp(gr->g[j]);
+    }
+    gr->ok = 1;
+    /* a short log's walk costs less than a thread (and import runs one
+     * analysis per core already) */
+    if (c->s->n >= GRID_THREAD_MIN_ROWS && sysconf(_SC_NPROCESSORS_ONLN) > 1 &&
+        pthread_create(&gr->tid, NULL, grid_walk, gr) == 0)
+        gr->threaded = 1;
+}
+
+/* The grid's RSS known (joins the thread, or walks here). */
+static void grid_finish(struct tau_grid *gr)
+{
+    if (gr->threaded) {
+        pthread_join(gr->tid, NULL);
+        gr->threaded = 0;
+    } else if (gr->ok && !gr->walked) {
+        grid_walk(gr);
+    }
+    gr->walked = 1;
+}
+
 static double rss_at(double log_tau, void *vts)
 {
     struct tau_search *ts = vts;
@@ -379,28 +448,17 @@ static double rss_at(double log_tau, void *vts)
     return rss;
 }
 
-/* Profiles the plain RSS over log tau on a grid, then Brent's method on the
- * best bracket. NAN when the best tau is at a grid end (not resolved). */
-static double search_tau(struct ctx *c, double lo_s, double hi_s, size_t *work)
+/* Profiles the plain RSS over log tau on the grid (walked by grid_start),
+ * then Brent's method on the best bracket. NAN when the best tau is at a
+ * grid end (not resolved). Frees the grid's buffer. */
+static double search_tau(struct ctx *c, struct tau_grid *gr, size_t *work)
 {
-    double lo = log(lo_s), hi = log(hi_s);
-    if (!(hi - lo > 1.0))
+    if (!gr->ok)
         return NAN;
-    size_t longest = 0;
-    for (size_t j = 0; j < c->nw; j++)
-        if (c->w[j].use && c->w[j].k1 - c->w[j].k0 > longest)
-            longest = c->w[j].k1 - c->w[j].k0;
-    struct tau_search ts = {c, work, malloc(TAU_WALK_MAX * longest * sizeof(double)), 0};
-    if (!ts.buf)
-        return NAN;
-    double g[TAU_GRID], f[TAU_GRID], taus[TAU_GRID];
+    grid_finish(gr);
+    struct tau_search ts = {c, work, gr->buf, 0};
+    const double *g = gr->g, *f = gr->f;
     int best = 0;
-    for (int j = 0; j < TAU_GRID; j++) {
-        g[j] = lo + (hi - lo) * j / (TAU_GRID - 1);
-        taus[j] = exp(g[j]);
-    }
-    /* the whole grid in one walk */
-    rss_walk(c, taus, TAU_GRID, ts.buf, f);
     if (work)
         *work += c->s->n;
     for (int j = 0; j < TAU_GRID; j++) {
@@ -409,7 +467,8 @@ static double search_tau(struct ctx *c, double lo_s, double hi_s, size_t *work)
             best = j;
     }
     if (ts.failed || best == 0 || best == TAU_GRID - 1) {
-        free(ts.buf);
+        free(gr->buf);
+        gr->buf = NULL;
         return NAN;
     }
     gsl_function fn = {rss_at, &ts};
@@ -428,7 +487,8 @@ static double search_tau(struct ctx *c, double lo_s, double hi_s, size_t *work)
         }
     }
     gsl_min_fminimizer_free(mz);
-    free(ts.buf);
+    free(gr->buf);
+    gr->buf = NULL;
     return ts.failed ? NAN : exp(x);
 }
 
@@ -445,6 +505,7 @@ enum pb_code ecm_fit(const struct series *s, const double *q_ah, const struct ec
     out->r1_mohm = out->r1_ci95_mohm = out->tau_s = out->sigma_mv = out->rho = NAN;
     out->window_s = ecm_window_s(o->dt_med_s);
     struct ctx c = {.s = s, .y = o->y_v, .q = q_ah, .step_a = o->step_a};
+    struct tau_grid grid = {.ok = 0, .threaded = 0, .walked = 0, .buf = NULL};
     c.w = make_windows(s, out->window_s, o->gap_s, &c.nw);
     if (!c.w)
         return pb_error_set(err, PB_ENOMEM, "out of memory");
@@ -480,6 +541,10 @@ enum pb_code ecm_fit(const struct series *s, const double *q_ah, const struct ec
                       "open-circuit voltage";
         goto done;
     }
+    int try_rc = (o->try_rc || o->tau_fixed_s > 0.0) && s->n >= 50;
+    /* resolvable: slower than the sampling, faster than half a window */
+    if (try_rc && !(o->tau_fixed_s > 0.0))
+        grid_start(&grid, &c, fmax(2.0 * o->dt_med_s, 1e-3), 0.5 * out->window_s);
     struct fit_result fs;
     if (fit_at(&c, 1, 0.0, o->robust, o->work, &fs, NULL) != PB_OK || fs.rank < 1) {
         out->reason = "the resistance fit failed (too few samples inside the windows)";
@@ -496,14 +561,10 @@ enum pb_code ecm_fit(const struct series *s, const double *q_ah, const struct ec
     out->r0_mohm = r_static;
     out->r0_ci95_mohm = r_static_ci;
 
-    int try_rc = (o->try_rc || o->tau_fixed_s > 0.0) && s->n >= 50;
     if (try_rc) {
         double tau = o->tau_fixed_s;
-        if (!(tau > 0.0)) {
-            /* resolvable: slower than the sampling, faster than half a window */
-            double lo = fmax(2.0 * o->dt_med_s, 1e-3), hi = 0.5 * out->window_s;
-            tau = search_tau(&c, lo, hi, o->work);
-        }
+        if (!(tau > 0.0))
+            tau = search_tau(&c, &grid, o->work);
         struct fit_result fr;
         if (isfinite(tau) && fit_at(&c, 2, tau, o->robust, o->work, &fr, NULL) == PB_OK &&
             fr.rank == 2) {
@@ -542,6 +603,9 @@ enum pb_code ecm_fit(const struct series *s, const double *q_ah, const struct ec
         out->reason = "the resistance fit is too uncertain to report";
     }
 done:
+    if (grid.threaded) /* a walk still running is waited for, its result unused */
+        pthread_join(grid.tid, NULL);
+    free(grid.buf);
     if (out->reason) {
         out->r0_mohm = out->r0_ci95_mohm = NAN;
         out->r1_mohm = out->r1_ci95_mohm = out->tau_s = NAN;
@@ -610,7 +674,10 @@ enum pb_code ecm_ocv_trend(const struct series *s, const double *q_ah, double q_
                           .r1 = tau_s > 0.0 ? r1_ohm : 0.0,
                           .tau = tau_s,
                           .v_ref = s->v_v[0]};
-    enum pb_code rc = fit_blocks(s->n, degree + 1, trend_block, &c, robust, out, err);
+    /* without an RC branch a row is its own sample's alone: made in any order */
+    enum pb_code rc = robust && !(c.r1 > 0.0)
+                          ? fit_blocks_any_order(s->n, degree + 1, trend_block, &c, out, err)
+                          : fit_blocks(s->n, degree + 1, trend_block, &c, robust, out, err);
     if (work)
         *work += out->rows_visited;
     /* the reference voltage back into the constant term */

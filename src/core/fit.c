@@ -22,6 +22,9 @@ struct normal_eq {
 
 #define SCALE_SAMPLES 65536 /* residuals kept for the robust scale */
 #define FIT_BLOCK 256       /* rows made per call */
+/* the reweighting iterates on the kept rows when they are at most this
+ * fraction of the rows */
+#define SUBSAMPLE_RATIO 4
 /* the kernels' loops over columns unrolled, so the sums stay in registers */
 #define PB_UNROLL _Pragma("GCC unroll 8")
 
@@ -31,6 +34,7 @@ struct scale_sample {
     /* the same rows themselves, kept by the plain pass (when not NULL) so
      * the first scale, at the plain fit, needs no pass over every row */
     double *x, *y;
+    unsigned char *u; /* and what the row callback said of each */
     size_t nk;
 };
 
@@ -38,6 +42,7 @@ struct scale_sample {
 struct source {
     fit_block_fn block;
     void *ctx;
+    int any_order;  /* block() makes any rows asked for, in any order */
     fit_row_fn row; /* when the caller gave rows, not blocks */
     void *row_ctx;
 };
@@ -84,6 +89,7 @@ block_sums(const int p, size_t m, const double *restrict x, const double *restri
                 PB_UNROLL
                 for (int j = 0; j < p; j++)
                     ss->x[ss->nk * (size_t)p + (size_t)j] = xr[j];
+                ss->u[ss->nk] = (unsigned char)u;
                 ss->y[ss->nk++] = yr;
             }
         }
@@ -130,6 +136,27 @@ block_sums(const int p, size_t m, const double *restrict x, const double *restri
     ne->n_low = n_low;
 }
 
+/* block_sums with p made a constant where it is common. */
+static void sums_of(int p, size_t m, const double *x, const double *y, const unsigned char *use,
+                    const double *beta, double scale, struct scale_sample *ss, size_t *ss_left,
+                    struct normal_eq *ne)
+{
+    switch (p) {
+    case 1:
+        block_sums(1, m, x, y, use, beta, scale, ss, ss_left, ne);
+        break;
+    case 2:
+        block_sums(2, m, x, y, use, beta, scale, ss, ss_left, ne);
+        break;
+    case 4:
+        block_sums(4, m, x, y, use, beta, scale, ss, ss_left, ne);
+        break;
+    default:
+        block_sums(p, m, x, y, use, beta, scale, ss, ss_left, ne);
+        break;
+    }
+}
+
 /* One pass over the rows: sums the normal equations, weighted by Tukey's
  * bisquare at the given scale when beta is not NULL; keeps a sample of the
  * |residuals| at beta for the next scale when ss is not NULL. */
@@ -148,21 +175,58 @@ static void run_pass(size_t n, int p, const struct source *src, const double *be
     for (size_t k0 = 0; k0 < n; k0 += FIT_BLOCK) {
         size_t m = n - k0 < FIT_BLOCK ? n - k0 : FIT_BLOCK;
         src->block(src->ctx, k0, m, p, x, y, use);
-        switch (p) {
-        case 1:
-            block_sums(1, m, x, y, use, beta, scale, ss, &ss_left, ne);
-            break;
-        case 2:
-            block_sums(2, m, x, y, use, beta, scale, ss, &ss_left, ne);
-            break;
-        case 4:
-            block_sums(4, m, x, y, use, beta, scale, ss, &ss_left, ne);
-            break;
-        default:
-            block_sums(p, m, x, y, use, beta, scale, ss, &ss_left, ne);
-            break;
-        }
+        sums_of(p, m, x, y, use, beta, scale, ss, &ss_left, ne);
     }
+}
+
+/* run_pass over the rows the plain pass kept (ss->x, ss->y, ss->u) alone:
+ * the weighted sums of the subsample in ne, and |residual| at beta of every
+ * kept row in ss->r, the same rows a full pass samples for the scale. */
+static void kept_pass(int p, struct scale_sample *ss, const double *beta, double scale,
+                      struct normal_eq *ne)
+{
+    struct scale_sample every = {.r = ss->r, .m = 1};
+    size_t left = 1;
+    memset(ne, 0, sizeof *ne);
+    sums_of(p, ss->nk, ss->x, ss->y, ss->u, beta, scale, &every, &left, ne);
+    ss->n = every.n;
+}
+
+/* The kept rows (every m-th row, those the block uses) made without a
+ * pass over the others, for rows made in any order; their plain sums in
+ * ne. Returns the rows asked for. */
+static size_t sample_rows(size_t n, int p, const struct source *src, struct scale_sample *ss,
+                          struct normal_eq *ne)
+{
+    double x[FIT_MAX_P], y;
+    unsigned char use;
+    size_t asked = 0;
+    ss->nk = 0;
+    for (size_t k = 0; k < n && ss->nk < SCALE_SAMPLES; k += ss->m, asked++) {
+        src->block(src->ctx, k, 1, p, x, &y, &use);
+        if (!use)
+            continue;
+        memcpy(ss->x + ss->nk * (size_t)p, x, (size_t)p * sizeof *x);
+        ss->u[ss->nk] = use;
+        ss->y[ss->nk++] = y;
+    }
+    size_t left = 1;
+    memset(ne, 0, sizeof *ne);
+    sums_of(p, ss->nk, ss->x, ss->y, ss->u, NULL, 0.0, NULL, &left, ne);
+    return asked;
+}
+
+/* Largest move of beta from prev, in standard errors at the given scale
+ * (inv the unscaled inverse of the last solve). */
+static double change_in_se(int p, const double *beta, const double *prev,
+                           double inv[FIT_MAX_P][FIT_MAX_P], double scale)
+{
+    double change = 0.0;
+    for (int j = 0; j < p; j++) {
+        double se = scale * sqrt(fmax(inv[j][j], 0.0));
+        change = fmax(change, fabs(beta[j] - prev[j]) / (se + 1e-300));
+    }
+    return change;
 }
 
 /* Solves the normal equations; fills beta, the unscaled inverse in inv and
@@ -282,6 +346,7 @@ static enum pb_code fit_core(size_t n, int p, const struct source *src, int robu
     struct scale_sample ss = {.m = n / SCALE_SAMPLES + 1};
     double scale = 0.0;
     size_t visited = 0;
+    int sampled = 0; /* the plain fit is the kept rows' (sample_rows) */
 
     memset(out, 0, sizeof *out);
     if (p < 1 || p > FIT_MAX_P)
@@ -294,18 +359,29 @@ static enum pb_code fit_core(size_t n, int p, const struct source *src, int robu
         if (robust) {
             ss.x = malloc(SCALE_SAMPLES * (size_t)p * sizeof *ss.x);
             ss.y = malloc(SCALE_SAMPLES * sizeof *ss.y);
+            ss.u = malloc(SCALE_SAMPLES);
         }
-        int keep_rows = ss.x && ss.y;
-        run_pass(n, p, src, NULL, 0.0, keep_rows ? &ss : NULL, &ne);
-        visited += n;
+        int keep_rows = ss.x && ss.y && ss.u;
+        size_t asked = 0;
+        sampled = keep_rows && src->any_order && n >= SUBSAMPLE_RATIO * SCALE_SAMPLES;
+        if (sampled) {
+            asked = sample_rows(n, p, src, &ss, &ne);
+            visited += asked;
+        } else {
+            run_pass(n, p, src, NULL, 0.0, keep_rows ? &ss : NULL, &ne);
+            visited += n;
+        }
         if (!keep_rows) {
             free(ss.x);
             free(ss.y);
+            free(ss.u);
             ss.x = ss.y = NULL;
+            ss.u = NULL;
         }
         if (ne.n_used <= (size_t)p || solve(&ne, p, beta, inv, &rank) != 0) {
             free(ss.x);
             free(ss.y);
+            free(ss.u);
             if (ne.n_used <= (size_t)p)
                 return pb_error_set(err, PB_ENUMERIC, "fit: %zu rows for %d unknowns", ne.n_used,
                                     p);
@@ -315,17 +391,74 @@ static enum pb_code fit_core(size_t n, int p, const struct source *src, int robu
         for (int j = 0; j < p; j++)
             out->rss_plain -= beta[j] * ne.b[j];
         out->rss_plain = fmax(out->rss_plain, 0.0);
+        if (sampled) /* the sample's, scaled to every row */
+            out->rss_plain *= (double)n / (double)asked;
     }
     if (robust) {
         ss.r = malloc(SCALE_SAMPLES * sizeof *ss.r);
         if (!ss.r) {
             free(ss.x);
             free(ss.y);
+            free(ss.u);
             return pb_error_set(err, PB_ENOMEM, "out of memory");
+        }
+        /* Many rows: the reweighting iterates on the rows the plain pass
+         * kept (an even sample of at most SCALE_SAMPLES), then one pass
+         * over every row weights them at the subsample's fit and scale.
+         * Full passes go on only when that pass moves a coefficient by
+         * more than the subsample's own sampling error allows. The scale
+         * is the same either way: a full pass samples its residuals at
+         * these very rows. */
+        int it = 1, iters = 0;
+        double limit = 0.05; /* converged: no move beyond this many standard errors */
+        int sub =
+            ss.x && ss.nk > (size_t)(4 * p) && (sampled || ne.n_used >= SUBSAMPLE_RATIO * ss.nk);
+        double rows = sampled ? (double)n : (double)ne.n_used;
+        if (sub) {
+            double y_rms = sqrt(ne.yy / (double)ne.n_used);
+            struct normal_eq sne;
+            for (; it <= 15; it++) {
+                double prev[FIT_MAX_P];
+                memcpy(prev, beta, sizeof prev);
+                kept_pass(p, &ss, beta, scale, &sne);
+                visited += ss.nk;
+                double next = MAD_TO_SIGMA * fit_median(ss.r, ss.n);
+                if (!(next > 1e-12 * y_rms))
+                    break; /* an exact fit: at the first pass, the plain fit stands */
+                if (scale > 0.0) {
+                    if (sne.n_used <= (size_t)p || sne.wsum <= p ||
+                        solve(&sne, p, beta, inv, &rank) != 0) {
+                        memcpy(beta, prev, sizeof prev);
+                        break;
+                    }
+                    iters++;
+                    if (change_in_se(p, beta, prev, inv, next) < 0.05) {
+                        scale = next;
+                        break;
+                    }
+                }
+                scale = next;
+            }
+            /* the subsample's standard errors are sqrt(n / kept) times the full data's */
+            limit = 3.0 * sqrt(rows / (double)ss.nk);
+            it = 2; /* the full passes below start weighted */
+            if (sampled && !(scale > 0.0)) {
+                /* an exact fit: the plain fit of every row after all */
+                run_pass(n, p, src, NULL, 0.0, NULL, &ne);
+                visited += n;
+                if (ne.n_used <= (size_t)p || solve(&ne, p, beta, inv, &rank) != 0) {
+                    free(ss.r);
+                    free(ss.x);
+                    free(ss.y);
+                    free(ss.u);
+                    return pb_error_set(err, PB_ENUMERIC, "fit: %zu rows for %d unknowns",
+                                        ne.n_used, p);
+                }
+            }
         }
         /* each pass weights by the scale of the previous pass's residuals
          * and samples its own; at convergence the two agree */
-        for (int it = 1; it <= 15; it++) {
+        for (int left = 15; (!sub || scale > 0.0) && left > 0; left--, it++) {
             double prev[FIT_MAX_P];
             memcpy(prev, beta, sizeof prev);
             struct normal_eq keep = ne;
@@ -362,23 +495,22 @@ static enum pb_code fit_core(size_t n, int p, const struct source *src, int robu
                     solve(&ne, p, beta, inv, &rank);
                     break;
                 }
-                out->iterations = it - 1;
+                iters++;
                 /* converged when no coefficient moves by more than a
                  * twentieth of its own standard error: far below what
                  * is reported, and IRLS on a misfitting model creeps */
-                double change = 0.0;
-                for (int j = 0; j < p; j++) {
-                    double se = next * sqrt(fmax(inv[j][j], 0.0));
-                    change = fmax(change, fabs(beta[j] - prev[j]) / (se + 1e-300));
-                }
-                if (change < 0.05)
+                double change = change_in_se(p, beta, prev, inv, next);
+                if (change < limit)
                     break;
+                limit = 0.05;
             }
             scale = next;
         }
+        out->iterations = iters;
         free(ss.r);
         free(ss.x);
         free(ss.y);
+        free(ss.u);
         out->n_downweighted = ne.n_low;
         out->scale = scale;
     }
@@ -413,7 +545,7 @@ static enum pb_code fit_core(size_t n, int p, const struct source *src, int robu
 enum pb_code fit_linear(size_t n, int p, fit_row_fn row, void *ctx, int robust,
                         struct fit_result *out, struct pb_error *err)
 {
-    struct source src = {rows_as_block, NULL, row, ctx};
+    struct source src = {rows_as_block, NULL, 0, row, ctx};
     src.ctx = &src;
     return fit_core(n, p, &src, robust, NULL, out, err);
 }
@@ -421,15 +553,22 @@ enum pb_code fit_linear(size_t n, int p, fit_row_fn row, void *ctx, int robust,
 enum pb_code fit_blocks(size_t n, int p, fit_block_fn block, void *ctx, int robust,
                         struct fit_result *out, struct pb_error *err)
 {
-    struct source src = {block, ctx, NULL, NULL};
+    struct source src = {block, ctx, 0, NULL, NULL};
     return fit_core(n, p, &src, robust, NULL, out, err);
+}
+
+enum pb_code fit_blocks_any_order(size_t n, int p, fit_block_fn block, void *ctx,
+                                  struct fit_result *out, struct pb_error *err)
+{
+    struct source src = {block, ctx, 1, NULL, NULL};
+    return fit_core(n, p, &src, 1, NULL, out, err);
 }
 
 enum pb_code fit_linear_from(size_t n, int p, fit_row_fn row, void *ctx,
                              const struct fit_result *start, struct fit_result *out,
                              struct pb_error *err)
 {
-    struct source src = {rows_as_block, NULL, row, ctx};
+    struct source src = {rows_as_block, NULL, 0, row, ctx};
     src.ctx = &src;
     return fit_core(n, p, &src, 1, start, out, err);
 }

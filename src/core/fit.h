@@ -9,7 +9,10 @@
  *
  * Robust mode is iteratively reweighted least squares with Tukey's
  * bisquare weight (c = 4.685) and scale = 1.4826 * median |residual|, the
- * median taken over an even sample of at most 65536 rows. */
+ * median taken over an even sample of at most 65536 rows. When those rows
+ * are at most a quarter of all, the reweighting iterates on them alone and
+ * one pass over every row then weights all rows at that fit (more passes
+ * only when it moves a coefficient beyond the subsample's own error). */
 #ifndef PB_FIT_H
 #define PB_FIT_H
 
@@ -67,6 +70,13 @@ enum pb_code fit_linear(size_t n, int p, fit_row_fn row, void *ctx, int robust,
 /* fit_linear with rows made a block at a time (no call per row). */
 enum pb_code fit_blocks(size_t n, int p, fit_block_fn block, void *ctx, int robust,
                         struct fit_result *out, struct pb_error *err);
+
+/* Robust fit_blocks for rows that do not depend on each other, so block()
+ * makes any rows asked for in any order: on a long log the plain fit too is
+ * the even sample's, made without a pass over every row (rss_plain is then
+ * the sample's, scaled to n rows); then one pass over every row as above. */
+enum pb_code fit_blocks_any_order(size_t n, int p, fit_block_fn block, void *ctx,
+                                  struct fit_result *out, struct pb_error *err);
 
 /* The plain fit of sums made by the caller (e.g. shared walks over the
  * data for many candidate models); rows_visited is left 0. */

@@ -5,8 +5,10 @@
 #include <ctype.h>
 #include <errno.h>
 #include <math.h>
+#include <pthread.h>
 #include <stdlib.h>
 #include <string.h>
+#include <unistd.h>
 
 #include "isotime.h"
 #include "numparse.h"
@@ -537,11 +539,29 @@ static double clock_seconds(const char *f, size_t len)
     return k == len ? part[0] * 3600.0 + part[1] * 60.0 + part[2] + frac : -1;
 }
 
-static void take_time(struct reader *r, const char *f, size_t len, int column)
+/* A field's number parsed ahead of the reader (see struct ahead). */
+struct pre_num {
+    double v;
+    unsigned char st; /* enum num_status */
+};
+
+/* num_parse of the field, or what was parsed ahead for it. */
+static inline enum num_status field_number(const struct reader *r, const char *f, size_t len,
+                                           const struct pre_num *pre, double *v)
+{
+    if (pre) {
+        *v = pre->v;
+        return (enum num_status)pre->st;
+    }
+    return num_parse(f, len, r->st->decimal, v);
+}
+
+static void take_time(struct reader *r, const char *f, size_t len, int column,
+                      const struct pre_num *pre)
 {
     double v = 0.0;
     if (r->tmode == TM_UNDECIDED) {
-        enum num_status st = num_parse(f, len, r->st->decimal, &v);
+        enum num_status st = field_number(r, f, len, pre, &v);
         if (st == NUM_OK || st == NUM_NONFINITE)
             r->tmode = TM_NUMBER;
         else if (isotime_parse(f, len, &v, NULL) == 0)
@@ -587,7 +607,7 @@ static void take_time(struct reader *r, const char *f, size_t len, int column)
         r->val[SLOT_T] = v;
         return;
     }
-    enum num_status st = num_parse(f, len, r->st->decimal, &v);
+    enum num_status st = field_number(r, f, len, pre, &v);
     if (st != NUM_OK) {
         r->bad = st == NUM_EMPTY ? BAD_EMPTY : st == NUM_NONFINITE ? BAD_NONFINITE : BAD_NUMBER;
         r->bad_col = column;
@@ -597,8 +617,9 @@ static void take_time(struct reader *r, const char *f, size_t len, int column)
 }
 
 /* One field of the record being read; f holds no line break (the caller
- * counted them). */
-static void take_field(struct reader *r, const char *f, size_t len, size_t start_line)
+ * counted them). pre: its number when parsed ahead, else NULL. */
+static void take_field(struct reader *r, const char *f, size_t len, size_t start_line,
+                       const struct pre_num *pre)
 {
     if (r->failed)
         return;
@@ -638,7 +659,7 @@ static void take_field(struct reader *r, const char *f, size_t len, size_t start
     if (slot < 0)
         return;
     if (slot == SLOT_T) {
-        take_time(r, f, len, col + 1);
+        take_time(r, f, len, col + 1, pre);
         return;
     }
     if (slot == SLOT_DATE) {
@@ -655,7 +676,7 @@ static void take_field(struct reader *r, const char *f, size_t len, size_t start
         return;
     }
     double v;
-    enum num_status st = num_parse(f, len, r->st->decimal, &v);
+    enum num_status st = field_number(r, f, len, pre, &v);
     if (slot >= SLOT_CELL0) {
         /* judged with the whole column (settle_cells) */
         r->cell_kind[slot - SLOT_CELL0] = st == NUM_OK          ? BAD_NONE
@@ -690,7 +711,7 @@ static void on_field(void *data, size_t len, void *ctx)
     for (const char *q = memchr(f, '\n', len); q;
          q = memchr(q + 1, '\n', len - (size_t)(q + 1 - f)))
         r->line++;
-    take_field(r, f, len, start_line);
+    take_field(r, f, len, start_line, NULL);
 }
 
 /* The current of the record being read, in A (raw ADC counts converted). */
@@ -1186,68 +1207,422 @@ enum { FAST_PLAIN = 0, FAST_DELIM, FAST_CR, FAST_LF, FAST_OTHER };
  * compares both on every file in tests/data and samples/). Lines are
  * counted in on_row, which CSV_REPALL_NL calls for every unquoted CR and
  * LF. */
+/* The line from at: returns its end (the first CR or LF at or after at, or
+ * len when the block holds none), with its fields' starts (*nf of them, then
+ * the end + 1), whether it is plain (only plain bytes and delimiters, at
+ * most FAST_MAX_FIELDS fields) and the class of the byte that ends it. */
+static inline size_t split_line(const unsigned char *cls, const unsigned char *u, size_t at,
+                                size_t len, size_t *starts, int *nf, int *plain,
+                                unsigned char *term)
+{
+    int n = 0, pl = 1;
+    size_t e = at;
+    starts[n++] = at;
+    unsigned char c = FAST_PLAIN;
+    while (e < len) {
+        c = cls[u[e]];
+        if (c == FAST_PLAIN) {
+            e++;
+            continue;
+        }
+        if (c == FAST_DELIM) {
+            if (n == FAST_MAX_FIELDS)
+                pl = 0;
+            else
+                starts[n++] = e + 1;
+            e++;
+            continue;
+        }
+        if (c == FAST_OTHER)
+            pl = 0;
+        if (c != FAST_OTHER)
+            break;
+        e++;
+    }
+    if (e < len)
+        starts[n] = e + 1;
+    *nf = n;
+    *plain = pl;
+    *term = c;
+    return e;
+}
+
+static void fast_classes(unsigned char cls[256], char delimiter)
+{
+    memset(cls, FAST_PLAIN, 256);
+    cls['"'] = cls[' '] = cls['\0'] = FAST_OTHER;
+    cls['\r'] = FAST_CR;
+    cls['\n'] = FAST_LF;
+    cls[(unsigned char)delimiter] = FAST_DELIM;
+}
+
+/* libcsv between records (ROW_NOT_BEGUN is state 0); after a failure
+ * libcsv still counts the block's lines */
+static inline int at_record_start(const struct reader *r, const struct csv_parser *p)
+{
+    return p->pstate == 0 && !p->quoted && p->entry_pos == 0 && !r->failed;
+}
+
+/* Plain lines at a record boundary are split here and handed to the same
+ * field and row code; a line with a quote or a space, a long line, the
+ * header (columns not yet mapped) and a line cut by the block's end go
+ * through libcsv, which then finishes its record before the fast path
+ * resumes. The output is the same either way (tests/unit/test_logread.c
+ * compares both on every file in tests/data and samples/). Lines are
+ * counted in on_row, which CSV_REPALL_NL calls for every unquoted CR and
+ * LF. */
 static void feed(struct reader *r, struct csv_parser *p, const char *buf, size_t len)
 {
     if (r->opts->no_fast_path) {
         feed_csv(r, p, buf, len);
         return;
     }
-    unsigned char cls[256] = {0};
-    cls['"'] = cls[' '] = cls['\0'] = FAST_OTHER;
-    cls['\r'] = FAST_CR;
-    cls['\n'] = FAST_LF;
-    cls[(unsigned char)r->st->delimiter] = FAST_DELIM;
+    unsigned char cls[256];
+    fast_classes(cls, r->st->delimiter);
     const unsigned char *u = (const unsigned char *)buf;
     size_t at = 0;
     while (at < len) {
-        /* libcsv between records (ROW_NOT_BEGUN is state 0); after a
-         * failure libcsv still counts the block's lines */
-        int clean = p->pstate == 0 && !p->quoted && p->entry_pos == 0 && !r->failed;
         size_t starts[FAST_MAX_FIELDS + 1];
-        int nf = 0, plain = clean && r->mapped;
-        size_t e = at;
-        starts[nf++] = at;
-        unsigned char c = FAST_PLAIN;
-        while (e < len) {
-            c = cls[u[e]];
-            if (c == FAST_PLAIN) {
-                e++;
-                continue;
-            }
-            if (c == FAST_DELIM) {
-                if (nf == FAST_MAX_FIELDS)
-                    plain = 0;
-                else
-                    starts[nf++] = e + 1;
-                e++;
-                continue;
-            }
-            if (c == FAST_OTHER)
-                plain = 0;
-            if (c != FAST_OTHER)
-                break;
-            e++;
-        }
+        int nf, plain;
+        unsigned char c;
+        size_t e = split_line(cls, u, at, len, starts, &nf, &plain, &c);
         if (e == len) {
             /* no line end in the block: libcsv keeps the piece */
             feed_csv(r, p, buf + at, len - at);
             return;
         }
-        if (!plain || e - at > FAST_MAX_LINE) {
+        if (!(plain && r->mapped && at_record_start(r, p)) || e - at > FAST_MAX_LINE) {
             feed_csv(r, p, buf + at, e + 1 - at);
             at = e + 1;
             continue;
         }
         /* an empty line has no fields: libcsv reports only its line end */
         if (e > at) {
-            starts[nf] = e + 1;
             size_t line = r->line;
             for (int k = 0; k < nf; k++)
-                take_field(r, buf + starts[k], starts[k + 1] - 1 - starts[k], line);
+                take_field(r, buf + starts[k], starts[k + 1] - 1 - starts[k], line, NULL);
         }
         on_row(c == FAST_CR ? '\r' : '\n', r);
         at = e + 1;
     }
+}
+
+/* ---- reading ahead ----------------------------------------------------
+ * With a core free, a second thread reads the next block and splits its
+ * lines and parses the numbers of its plain lines (the mapped columns)
+ * while this one runs the reader over the block before: the same splitting
+ * and the same num_parse, so the reader gets the same fields and numbers
+ * in the same order as feed() would make them. */
+#define AHEAD_BYTES (256u << 10)
+
+struct ahead_line {
+    size_t end;    /* its CR or LF; len: cut by the block's end */
+    size_t field0; /* its first field in start[] and pre[] */
+    int nf, plain;
+    unsigned char term;
+};
+
+struct ahead_block {
+    char *buf;
+    size_t len;
+    int read_errno; /* a read error's errno, else 0 */
+    int oom;
+    struct ahead_line *line;
+    size_t nline, cap_line;
+    size_t *start; /* each plain line's field starts, then its end + 1 */
+    struct pre_num *pre;
+    size_t nfield, cap_start, cap_pre;
+};
+
+struct ahead {
+    FILE *fp;
+    unsigned char cls[256];
+    char decimal;
+    const int *col_slot;
+    int ncols;
+    struct ahead_block blk[2];
+    int full[2], stop;
+    pthread_mutex_t mu;
+    pthread_cond_t cv;
+    pthread_t tid;
+};
+
+static int grow(void **p, size_t *cap, size_t need, size_t size)
+{
+    if (need <= *cap)
+        return 0;
+    size_t c = *cap ? *cap : 1024;
+    while (c < need)
+        c *= 2;
+    void *g = realloc(*p, c * size);
+    if (!g)
+        return -1;
+    *p = g;
+    *cap = c;
+    return 0;
+}
+
+/* What split_parse_line saw of a field: its digits as one mantissa, where
+ * its decimal mark is, and whether it is nothing but [-]digits[.digits]. */
+struct field_scan {
+    uint64_t mant;
+    int nd, frac_at, ok;
+};
+
+/* split_line that also reads each field's digits as it passes them, so a
+ * plain number costs no second walk (the same fields, starts and ends). */
+static inline size_t split_parse_line(const unsigned char *cls, const unsigned char *u, size_t at,
+                                      size_t len, unsigned char decimal, size_t *starts,
+                                      struct field_scan *fs, int *nf, int *plain,
+                                      unsigned char *term)
+{
+    int n = 1, pl = 1;
+    size_t e = at;
+    starts[0] = at;
+    struct field_scan cur = {0, 0, -1, 1};
+    unsigned char c = FAST_PLAIN;
+    while (e < len) {
+        unsigned char byte = u[e];
+        c = cls[byte];
+        if (c == FAST_PLAIN) {
+            unsigned d = (unsigned)byte - '0';
+            if (d <= 9) {
+                cur.mant = cur.mant * 10 + d;
+                cur.nd++;
+            } else if (byte == decimal && cur.frac_at < 0) {
+                cur.frac_at = (int)(e - starts[n - 1]);
+            } else if (!(byte == '-' && e == starts[n - 1])) {
+                cur.ok = 0;
+            }
+            e++;
+            continue;
+        }
+        if (c == FAST_DELIM) {
+            if (n == FAST_MAX_FIELDS) {
+                pl = 0;
+            } else {
+                fs[n - 1] = cur;
+                starts[n++] = e + 1;
+            }
+            cur = (struct field_scan){0, 0, -1, 1};
+            e++;
+            continue;
+        }
+        if (c == FAST_OTHER)
+            pl = 0;
+        if (c != FAST_OTHER)
+            break;
+        e++;
+    }
+    fs[n - 1] = cur;
+    if (e < len)
+        starts[n] = e + 1;
+    *nf = n;
+    *plain = pl;
+    *term = c;
+    return e;
+}
+
+/* The number of field f[0..len) from its scan: num_parse_plain's result
+ * when the scan says the field has that shape, else num_parse's. */
+static inline enum num_status scanned_number(const struct field_scan *fs, const char *f, size_t len,
+                                             char decimal, double *v)
+{
+    if (fs->ok && fs->nd > 0 && fs->nd <= 19 && len <= 21 && fs->mant <= (UINT64_C(1) << 53)) {
+        double x = (double)fs->mant;
+        int frac = fs->frac_at >= 0 ? (int)len - fs->frac_at - 1 : -1;
+        if (frac > 0)
+            x /= num_exact_pow10[frac];
+        *v = f[0] == '-' ? -x : x;
+        return NUM_OK;
+    }
+    return num_parse(f, len, decimal, v);
+}
+
+/* Reads and splits one block; returns 0 at the end of the file, a read
+ * error or out of memory (the block says which), else 1. */
+static int ahead_fill(struct ahead *a, struct ahead_block *b)
+{
+    b->len = fread(b->buf, 1, AHEAD_BYTES, a->fp);
+    b->read_errno = ferror(a->fp) ? (errno ? errno : EIO) : 0;
+    b->nline = b->nfield = 0;
+    b->oom = 0;
+    const unsigned char *u = (const unsigned char *)b->buf;
+    size_t at = 0;
+    while (at < b->len) {
+        size_t starts[FAST_MAX_FIELDS + 1];
+        struct field_scan fs[FAST_MAX_FIELDS];
+        struct ahead_line l = {0};
+        l.end = split_parse_line(a->cls, u, at, b->len, (unsigned char)a->decimal, starts, fs,
+                                 &l.nf, &l.plain, &l.term);
+        if (grow((void **)&b->line, &b->cap_line, b->nline + 1, sizeof *b->line) != 0) {
+            b->oom = 1;
+            return 0;
+        }
+        l.plain = l.plain && l.end < b->len && l.end - at <= FAST_MAX_LINE;
+        l.field0 = b->nfield;
+        if (l.plain) {
+            size_t need = b->nfield + (size_t)l.nf + 1;
+            if (grow((void **)&b->start, &b->cap_start, need, sizeof *b->start) != 0 ||
+                grow((void **)&b->pre, &b->cap_pre, need, sizeof *b->pre) != 0) {
+                b->oom = 1;
+                return 0;
+            }
+            for (int k = 0; k <= l.nf; k++)
+                b->start[b->nfield + (size_t)k] = starts[k];
+            for (int k = 0; k < l.nf; k++) {
+                struct pre_num *pn = &b->pre[b->nfield + (size_t)k];
+                pn->st = NUM_BAD;
+                if (k < a->ncols && a->col_slot[k] >= 0) {
+                    const char *f = b->buf + starts[k];
+                    size_t flen = starts[k + 1] - 1 - starts[k];
+                    double v = 0.0;
+                    pn->st = (unsigned char)scanned_number(&fs[k], f, flen, a->decimal, &v);
+                    pn->v = v;
+                }
+            }
+            b->nfield += (size_t)l.nf + 1;
+        }
+        b->line[b->nline++] = l;
+        if (l.end == b->len)
+            break;
+        at = l.end + 1;
+    }
+    return b->len > 0 && !b->read_errno;
+}
+
+static void *ahead_run(void *va)
+{
+    struct ahead *a = va;
+    for (int i = 0;; i ^= 1) {
+        pthread_mutex_lock(&a->mu);
+        while (a->full[i] && !a->stop)
+            pthread_cond_wait(&a->cv, &a->mu);
+        int stop = a->stop;
+        pthread_mutex_unlock(&a->mu);
+        if (stop)
+            break;
+        int more = ahead_fill(a, &a->blk[i]);
+        pthread_mutex_lock(&a->mu);
+        a->full[i] = 1;
+        pthread_cond_broadcast(&a->cv);
+        pthread_mutex_unlock(&a->mu);
+        if (!more)
+            break;
+    }
+    return NULL;
+}
+
+/* feed() of a block split ahead: the same decisions, line by line. */
+static void feed_ahead(struct reader *r, struct csv_parser *p, const struct ahead_block *b)
+{
+    size_t at = 0;
+    for (size_t li = 0; li < b->nline; li++) {
+        const struct ahead_line *l = &b->line[li];
+        if (l->end == b->len) {
+            feed_csv(r, p, b->buf + at, b->len - at);
+            return;
+        }
+        if (!(l->plain && r->mapped && at_record_start(r, p))) {
+            feed_csv(r, p, b->buf + at, l->end + 1 - at);
+            at = l->end + 1;
+            continue;
+        }
+        if (l->end > at) {
+            size_t line = r->line;
+            const size_t *st = b->start + l->field0;
+            for (int k = 0; k < l->nf; k++)
+                take_field(r, b->buf + st[k], st[k + 1] - 1 - st[k], line,
+                           &b->pre[l->field0 + (size_t)k]);
+        }
+        on_row(l->term == FAST_CR ? '\r' : '\n', r);
+        at = l->end + 1;
+    }
+}
+
+static void ahead_release(struct ahead *a)
+{
+    for (int i = 0; i < 2; i++) {
+        free(a->blk[i].buf);
+        free(a->blk[i].line);
+        free(a->blk[i].start);
+        free(a->blk[i].pre);
+    }
+}
+
+/* Reads the rest of fp through a second thread; returns 0, or -1 when
+ * the thread cannot start (nothing read yet: the caller reads on). The
+ * block's last byte goes in *last. */
+static int read_ahead(struct reader *r, struct csv_parser *p, FILE *fp, char *last)
+{
+    struct ahead a = {
+        .fp = fp, .decimal = r->st->decimal, .col_slot = r->col_slot, .ncols = r->ncols};
+    fast_classes(a.cls, r->st->delimiter);
+    /* the tables sized here for lines of 16 bytes or more, so that the
+     * thread, which grows them only for shorter lines, keeps no heap of
+     * its own */
+    for (int i = 0; i < 2; i++) {
+        struct ahead_block *b = &a.blk[i];
+        b->buf = malloc(AHEAD_BYTES);
+        if (!b->buf || grow((void **)&b->line, &b->cap_line, AHEAD_BYTES / 16, sizeof *b->line) ||
+            grow((void **)&b->start, &b->cap_start, AHEAD_BYTES / 4, sizeof *b->start) ||
+            grow((void **)&b->pre, &b->cap_pre, AHEAD_BYTES / 4, sizeof *b->pre)) {
+            ahead_release(&a);
+            return -1;
+        }
+    }
+    if (pthread_mutex_init(&a.mu, NULL) != 0) {
+        ahead_release(&a);
+        return -1;
+    }
+    if (pthread_cond_init(&a.cv, NULL) != 0) {
+        pthread_mutex_destroy(&a.mu);
+        ahead_release(&a);
+        return -1;
+    }
+    if (pthread_create(&a.tid, NULL, ahead_run, &a) != 0) {
+        pthread_cond_destroy(&a.cv);
+        pthread_mutex_destroy(&a.mu);
+        ahead_release(&a);
+        return -1;
+    }
+    for (int i = 0; !r->failed; i ^= 1) {
+        pthread_mutex_lock(&a.mu);
+        while (!a.full[i])
+            pthread_cond_wait(&a.cv, &a.mu);
+        pthread_mutex_unlock(&a.mu);
+        const struct ahead_block *b = &a.blk[i];
+        if (b->oom) {
+            fail(r, PB_ENOMEM, 0, 0, "out of memory%s", NULL);
+            break;
+        }
+        if (b->len > 0) {
+            if (r->opts->on_block)
+                r->opts->on_block(r->opts->block_ctx, b->buf, b->len);
+            feed_ahead(r, p, b);
+            *last = b->buf[b->len - 1];
+        }
+        if (b->read_errno) {
+            pb_error_set(r->err, PB_EINPUT, "%s: read error: %s", r->name, strerror(b->read_errno));
+            r->failed = 1;
+            break;
+        }
+        if (b->len == 0)
+            break;
+        pthread_mutex_lock(&a.mu);
+        a.full[i] = 0;
+        pthread_cond_broadcast(&a.cv);
+        pthread_mutex_unlock(&a.mu);
+    }
+    pthread_mutex_lock(&a.mu);
+    a.stop = 1;
+    pthread_cond_broadcast(&a.cv);
+    pthread_mutex_unlock(&a.mu);
+    pthread_join(a.tid, NULL);
+    pthread_cond_destroy(&a.cv);
+    pthread_mutex_destroy(&a.mu);
+    ahead_release(&a);
+    return 0;
 }
 
 /* The earliest line any sample was dropped at, 0 when none was. */
@@ -1434,7 +1809,10 @@ struct series *logread_file(FILE *fp, const char *name, const struct logread_opt
 
     feed(&r, &p, buf + start, len - start);
     char last = buf[len - 1];
-    while (!r.failed && (len = fread(buf, 1, BLOCK_BYTES, fp)) > 0) {
+    /* a long log (its first block full) is read ahead when a core is free */
+    int ahead = len == BLOCK_BYTES && r.mapped && !r.failed && !opts->no_fast_path &&
+                sysconf(_SC_NPROCESSORS_ONLN) > 1 && read_ahead(&r, &p, fp, &last) == 0;
+    while (!ahead && !r.failed && (len = fread(buf, 1, BLOCK_BYTES, fp)) > 0) {
         if (opts->on_block)
             opts->on_block(opts->block_ctx, buf, len);
         feed(&r, &p, buf, len);

@@ -1,7 +1,10 @@
 /* logread: one flight log (CSV-like text) into a series.
  *
  * Owns the dialect detection and the per-sample checks. Reads a FILE in
- * large blocks through libcsv and never holds the whole text. Every sample
+ * large blocks through libcsv (plain numeric lines split by its own fast
+ * path, the same fields) and never holds the whole text; past the first
+ * block of a long log, a second thread reads and parses ahead when a core
+ * is free (the same fields and numbers in the same order). Every sample
  * it drops or repairs is counted in struct logread_stats with the first
  * place (line, column) it happened. The caller owns the returned series.
  *

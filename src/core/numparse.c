@@ -11,7 +11,7 @@
 #include <strings.h>
 
 /* Powers of ten that are exact in binary64 (10^22 is the largest). */
-static const double exact_pow10[] = {
+const double num_exact_pow10[23] = {
     1e0,  1e1,  1e2,  1e3,  1e4,  1e5,  1e6,  1e7,  1e8,  1e9,  1e10, 1e11,
     1e12, 1e13, 1e14, 1e15, 1e16, 1e17, 1e18, 1e19, 1e20, 1e21, 1e22,
 };
@@ -59,6 +59,8 @@ static enum num_status slow_parse(const char *s, size_t len, char decimal, doubl
 
 enum num_status num_parse(const char *s, size_t len, char decimal, double *out)
 {
+    if (num_parse_plain(s, len, decimal, out))
+        return NUM_OK;
     while (len > 0 && is_blank(*s)) {
         s++;
         len--;
@@ -135,7 +137,7 @@ enum num_status num_parse(const char *s, size_t len, char decimal, double *out)
      * correctly rounded multiply or divide gives the correctly rounded result. */
     if (!lost && mant <= (UINT64_C(1) << 53) && e >= -22 && e <= 22) {
         double v = (double)mant;
-        v = e < 0 ? v / exact_pow10[-e] : v * exact_pow10[e];
+        v = e < 0 ? v / num_exact_pow10[-e] : v * num_exact_pow10[e];
         *out = neg ? -v : v;
         return NUM_OK;
     }

@@ -91,6 +91,42 @@ static void test_robust_outliers(void **state)
     free(d.x), free(d.y);
 }
 
+static void block_line(void *ctx, size_t k0, size_t m, int p, double *x, double *y,
+                       unsigned char *use)
+{
+    for (size_t j = 0; j < m; j++)
+        use[j] = (unsigned char)row_line(ctx, k0 + j, x + j * (size_t)p, &y[j]);
+}
+
+/* A long log: the reweighting iterates on the kept sample of 65536 rows
+ * and ends with one pass over all 400,000 (fit.h). The glitches must still
+ * be ignored (truth of the generator: intercept 16, slope -0.05, uniform
+ * noise of half-width 0.001 V, so each coefficient's standard error is of
+ * order 1e-6 here and the tolerances below are far outside it), and the
+ * fit whose plain start is the sample's (rows made in any order) must agree
+ * with the one whose plain start is every row's within a quarter of the
+ * 95 % half-width (issue 14: speed may not move an estimate further). */
+static void test_robust_long(void **state)
+{
+    (void)state;
+    struct data d = make(400000, 16.0, -0.05, 0.002, 5);
+    for (size_t k = 0; k < d.n; k += 20)
+        d.y[k] += 3.0;
+    struct fit_result a, b;
+    assert_int_equal(fit_blocks(d.n, 2, block_line, &d, 1, &a, NULL), PB_OK);
+    assert_int_equal(fit_blocks_any_order(d.n, 2, block_line, &d, &b, NULL), PB_OK);
+    check_close(a.beta[0], 16.0, 1e-4, "long robust intercept ignores glitches");
+    check_close(a.beta[1], -0.05, 2e-5, "long robust slope ignores glitches");
+    assert_true(a.n_downweighted >= d.n / 20);
+    for (int j = 0; j < 2; j++)
+        check_close(b.beta[j], a.beta[j], 0.25 * fit_ci95(&a, j), "sampled start agrees");
+    /* fewer row visits than a pass per iteration: the plain pass, the
+     * sample's iterations and one full pass */
+    assert_true(a.rows_visited < 3 * d.n);
+    assert_true(b.rows_visited < 2 * d.n);
+    free(d.x), free(d.y);
+}
+
 static void test_rank_deficient(void **state)
 {
     (void)state;
@@ -154,6 +190,7 @@ int main(void)
         cmocka_unit_test(test_exact),
         cmocka_unit_test(test_slope_se),
         cmocka_unit_test(test_robust_outliers),
+        cmocka_unit_test(test_robust_long),
         cmocka_unit_test(test_rank_deficient),
         cmocka_unit_test(test_too_few_rows),
     };

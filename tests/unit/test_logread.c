@@ -482,8 +482,12 @@ static void test_fast_path_same_across_blocks(void **state)
 {
     (void)state;
     static const char *odd[] = {
-        "\"%d.5\",16.1,2\n", "%d.5, 16.1 ,2\n",     "%d.5,16.1,2\r\n", "%d.5,16.1,2\r", "\n",
-        "# note %d\n",       "%d.5,\"16\n.1\",2\n", "%d.5,16.1\n",     "%d.5,x,2,9\n"};
+        "\"%d.5\",16.1,2\n", "%d.5, 16.1 ,2\n", "%d.5,16.1,2\r\n", "%d.5,16.1,2\r", "\n",
+        "# note %d\n", "%d.5,\"16\n.1\",2\n", "%d.5,16.1\n", "%d.5,x,2,9\n",
+        /* number shapes the reader's own parse takes or hands to num_parse */
+        "%d.5,-16.10,-2\n", "%d.5,16.,2\n", "%d.5,.5,2\n", "%d.5,1.6e1,2\n", "%d.5,+16.1,2\n",
+        "%d.5,16.1.1,2\n", "%d.5,-,2\n", "%d.5,1-6,2\n", "%d.5,16.100000000000000000001,2\n",
+        "%d.5,12345678901234567890,2\n", "%d.5,9007199254740993,2\n", "%d.50000,16.1,02\n"};
     size_t cap = 3u << 20, len = 0;
     char *text = malloc(cap);
     assert_non_null(text);
@@ -499,10 +503,16 @@ static void test_fast_path_same_across_blocks(void **state)
                                     1.0 + (double)(pick % 7));
     }
     struct logread_opts o = {0};
+    /* past the first 1 MiB block, a machine with a second core reads the
+     * rest ahead in 256 KiB blocks (logread.c, read_ahead): compared too */
     check_paths_agree(text, len, "generated 3 MiB log", &o);
-    /* the same cut at every length near a block boundary */
+    /* the same cut at every length near a block boundary, of the first
+     * block and of the read-ahead blocks after it */
     for (size_t cut = (1u << 20) - 40; cut < (1u << 20) + 40; cut += 7)
         check_paths_agree(text, cut, "generated log cut short", &o);
+    for (size_t cut = (1u << 20) + (256u << 10) - 40; cut < (1u << 20) + (256u << 10) + 40;
+         cut += 7)
+        check_paths_agree(text, cut, "generated log cut short after a read-ahead block", &o);
     free(text);
 }
 
