@@ -12,6 +12,7 @@
 #include <time.h>
 
 #include "isotime.h"
+#include "rlsq.h"
 
 void health_rules_default(struct health_rules *r)
 {
@@ -263,14 +264,24 @@ struct line_fit health_line(const double *x, const double *y, size_t n, int plai
         sigma = sqrt(chisq / (double)(m - 2));
         /* gsl_multifit_linear's cov is (X'X)^-1 scaled by the residual variance */
     } else {
-        gsl_multifit_robust_workspace *w =
-            gsl_multifit_robust_alloc(gsl_multifit_robust_bisquare, m, 2);
+        /* GSL's bisquare method without its per-call SVD (rlsq.h): the
+         * departure scan fits a line for every flight. X is m x 2,
+         * row-major and contiguous (tda 2). A fit that did not settle in
+         * its rounds is no line, as GSL's GSL_EMAXITER was. */
+        struct rlsq_work *w = rlsq_work_new(m);
         if (!w)
             goto cleanup;
-        rc = gsl_multifit_robust(X, Y, c, cov, w);
-        gsl_multifit_robust_stats st = gsl_multifit_robust_statistics(w);
-        sigma = st.sigma;
-        gsl_multifit_robust_free(w);
+        struct rlsq_fit f;
+        rc = rlsq_bisquare(X->data, Y->data, m, 2, w, &f) == 0 && f.converged ? 0 : -1;
+        rlsq_work_free(w);
+        if (rc == 0) {
+            gsl_vector_set(c, 0, f.coef[0]);
+            gsl_vector_set(c, 1, f.coef[1]);
+            gsl_matrix_set(cov, 0, 0, f.cov[0]);
+            gsl_matrix_set(cov, 0, 1, f.cov[1]);
+            gsl_matrix_set(cov, 1, 1, f.cov[3]);
+        }
+        sigma = f.sigma;
     }
     if (rc != 0)
         goto cleanup;
