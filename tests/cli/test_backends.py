@@ -401,14 +401,6 @@ class SyncCases:
               f"{full_s * 1000:.0f} ms)", file=sys.stderr)
         self.assertGreaterEqual(mid, 1, "kills came too late to test anything")
 
-    def stored(self, db):
-        """Flights in db so far; 0 while it has no tables yet."""
-        try:
-            return self.B.query(db, "SELECT count(*) FROM flights")[0][0] \
-                if self.has_tables(db) else 0
-        except (AssertionError, sqlite3.Error):
-            return 0
-
     def has_tables(self, db):
         if self.backend == "sqlite":  # (never creating the file by asking)
             return os.path.exists(db) and bool(
