@@ -31,7 +31,6 @@ import random
 import re
 import shutil
 import signal
-import sqlite3
 import subprocess
 import sys
 import tempfile
