@@ -29,7 +29,8 @@ static const char usage[] =
     "among the packs left. Mismatch d = sqrt((dC / 5 %)^2 +\n"
     "(dR / 15 %)^2) of the pair's mean: d <= 1 is within the limits. With two\n"
     "IDs: registers them as a pair (fleet keeps them together and warns when\n"
-    "they drift beyond the limits). unpair removes a pack's pair.\n"
+    "they drift beyond the limits). unpair removes a pack's pair. --method is for\n"
+    "proposals only.\n"
     "\n";
 
 struct pair_cli {
@@ -229,18 +230,28 @@ static enum pb_code show(struct store *st, int json, enum pair_method method, st
     return rc;
 }
 
+/* Notes that --method was given (its default cannot tell). */
+static int note_method(void *ctx, const struct opt *o, const char *val, struct pb_error *err)
+{
+    (void)val;
+    (void)err;
+    if (strcmp(o->name, "method") == 0)
+        *(int *)ctx = 1;
+    return 0;
+}
+
 enum pb_code cmd_pack_pair(int argc, char **argv, struct pb_error *err)
 {
     struct pair_cli cli = {0};
     opt_defaults(pair_table, &cli);
-    int unpair = strcmp(argv[0], "unpair") == 0, done = 0;
+    int unpair = strcmp(argv[0], "unpair") == 0, done = 0, method_given = 0;
     struct opt_cmd cmd = {unpair ? "pack unpair" : "pack pair",
                           usage,
                           NULL,
                           {{NULL, pair_table, &cli, NULL}},
                           1,
-                          NULL,
-                          NULL};
+                          note_method,
+                          &method_given};
     enum pb_code parsed = opt_parse(&cmd, argc, argv, &done, err);
     if (parsed != PB_OK || done)
         return parsed;
@@ -252,6 +263,12 @@ enum pb_code cmd_pack_pair(int argc, char **argv, struct pb_error *err)
         return pb_error_set(err, PB_EUSAGE,
                             unpair ? "pack unpair: give one pack ID"
                                    : "pack pair: give no IDs (proposals) or two (register)");
+    /* a method chooses among proposals; registering or removing one has none to choose */
+    if (ids && method_given)
+        return pb_error_set(err, PB_EUSAGE,
+                            "%s: --method chooses how pairs are proposed; with pack IDs it has "
+                            "nothing to choose",
+                            unpair ? "pack unpair" : "pack pair");
     struct store *st = NULL;
     enum pb_code rc = packview_open_store(db, ids ? STORE_WRITE : STORE_READ, &st, err);
     struct pack_rec a, b;

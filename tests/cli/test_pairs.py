@@ -108,6 +108,8 @@ def main():
     assert rc == EXIT_USAGE and "differ" in err, (rc, err)
     rc, out, err = run("pack", "pair", "PA-1", "PA-1", "--db", db)
     assert rc == EXIT_USAGE, (rc, err)
+    rc, out, err = run("pack", "pair", "PA-1", "PA-2", "--method", "greedy", "--db", db)
+    assert rc == EXIT_USAGE and "nothing to choose" in err, (rc, err)
 
     # a badly matched pair: beyond the limits, named by fleet for both, shown together
     rc, out, err = run("pack", "pair", "PA-1", "PB-1", "--db", db)
