@@ -323,15 +323,20 @@ double fit_median(double *a, size_t n)
 {
     if (n == 0)
         return 0.0; /* as gsl_stats_median did: a one-sample log has no interval */
-    size_t lhs = (n - 1) / 2, rhs = n / 2;
-    double m = select_kth(a, n, lhs);
+    return fit_median_above(a, n, 0);
+}
+
+double fit_median_above(double *a, size_t n, size_t from)
+{
+    size_t m = n - from, lhs = from + (m - 1) / 2, rhs = from + m / 2;
+    double m_lhs = select_kth(a, n, lhs);
     if (lhs == rhs)
-        return m;
+        return m_lhs;
     /* the next order statistic: the smallest of what lies above lhs */
     double next = a[rhs];
     for (size_t k = rhs + 1; k < n; k++)
         next = a[k] < next ? a[k] : next;
-    return 0.5 * (m + next);
+    return 0.5 * (m_lhs + next);
 }
 
 static enum pb_code fit_core(size_t n, int p, const struct source *src, int robust,

@@ -96,4 +96,8 @@ double fit_ci95(const struct fit_result *f, int j);
 /* Median of a[0..n) by selection; reorders a. 0 when n == 0. */
 double fit_median(double *a, size_t n);
 
+/* Median of the order statistics from..n-1 of a[0..n) (from < n): the
+ * median with the from smallest values left out; reorders a. */
+double fit_median_above(double *a, size_t n, size_t from);
+
 #endif

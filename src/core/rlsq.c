@@ -5,6 +5,8 @@
 #include <stdlib.h>
 #include <string.h>
 
+#include "fit.h"
+
 #define TUNE 4.685        /* bisquare, 95 % efficiency at the normal (GSL's default) */
 #define MAD_NORMAL 0.6745 /* median |z| of the standard normal */
 #define MAX_ROUNDS 100
@@ -126,50 +128,13 @@ static void residuals(const struct rlsq_work *w, const double *y, size_t n, size
     }
 }
 
-/* The k-th smallest of v[0..n) (0-based), v reordered so that those left
- * of k are no larger (Wirth's selection). */
-static double select_kth(double *v, size_t n, size_t k)
-{
-    long l = 0, m = (long)n - 1, kk = (long)k;
-    while (l < m) {
-        double x = v[kk];
-        long i = l, j = m;
-        do {
-            while (v[i] < x)
-                i++;
-            while (x < v[j])
-                j--;
-            if (i <= j) {
-                double t = v[i];
-                v[i] = v[j];
-                v[j] = t;
-                i++;
-                j--;
-            }
-        } while (i <= j);
-        if (j < kk)
-            l = i;
-        if (kk < i)
-            m = j;
-    }
-    return v[kk];
-}
-
 /* The MAD scale of r with the p smallest |r| but one left out (Street et
  * al. 1988, as GSL): the median of the sorted |r| from index p - 1 on. */
 static double madsigma(const double *r, size_t n, size_t p, double *tmp)
 {
     for (size_t i = 0; i < n; i++)
         tmp[i] = fabs(r[i]);
-    size_t m = n - p + 1, k = p - 1 + m / 2;
-    double hi = select_kth(tmp, n, k);
-    if (m % 2)
-        return hi / MAD_NORMAL;
-    /* the element below: the largest of those left of k */
-    double lo = tmp[0];
-    for (size_t i = 1; i < k; i++)
-        lo = tmp[i] > lo ? tmp[i] : lo;
-    return 0.5 * (lo + hi) / MAD_NORMAL;
+    return fit_median_above(tmp, n, p - 1) / MAD_NORMAL;
 }
 
 static double bisquare_w(double u)
