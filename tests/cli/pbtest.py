@@ -5,6 +5,7 @@ PACKBOOK in the environment is the binary under test; meson sets it.
 import atexit
 import json
 import os
+import re
 import shutil
 import subprocess
 import tempfile
@@ -71,3 +72,25 @@ def write_temp(text, suffix=".csv", mode="w"):
 
 def warning_codes(doc):
     return [w["code"] for w in doc["warnings"]]
+
+
+def c_string_array(path, array):
+    """The entries of `static const char *const ARRAY[] = {...};` in a C source: each entry's
+    adjacent string literals joined (a schema step's SQL), comments (which may hold commas)
+    left out."""
+    with open(path) as f:
+        text = f.read()
+    m = re.search(array + r"\[\]\s*=\s*\{(.*?)\n\};", text, re.S)
+    assert m, f"no {array}[] in {path}"
+    body = re.sub(r"/\*.*?\*/", " ", m.group(1), flags=re.S)
+    steps, cur = [], []
+    for tok in re.finditer(r'"((?:[^"\\]|\\.)*)"|(,)', body):
+        if tok.group(2):
+            if cur:
+                steps.append("".join(cur))
+                cur = []
+        else:
+            cur.append(tok.group(1).encode().decode("unicode_escape"))
+    if cur:
+        steps.append("".join(cur))
+    return steps

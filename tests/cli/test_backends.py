@@ -61,23 +61,8 @@ ALL = {"sqlite": pbstore.Sqlite(SCRATCH), "postgresql": pbstore.Postgres(SCRATCH
 
 
 def steps_in(path, array):
-    """How many schema steps the array in a backend's source has (C string groups)."""
-    with open(os.path.join(ROOT, "src", "store", path)) as f:
-        text = f.read()
-    m = re.search(array + r"\[\]\s*=\s*\{(.*?)\n\};", text, re.S)
-    assert m, f"no {array}[] in {path}"
-    body = re.sub(r"/\*.*?\*/", " ", m.group(1), flags=re.S)
-    steps, cur = [], []
-    for tok in re.finditer(r'"((?:[^"\\]|\\.)*)"|(,)', body):
-        if tok.group(2):
-            if cur:
-                steps.append("".join(cur))
-                cur = []
-        else:
-            cur.append(tok.group(1).encode().decode("unicode_escape"))
-    if cur:
-        steps.append("".join(cur))
-    return steps
+    """The schema steps of the array in a backend's source (C string groups)."""
+    return pbtest.c_string_array(os.path.join(ROOT, "src", "store", path), array)
 
 
 SQLITE_STEPS = steps_in("store_sqlite.c", "migrations")

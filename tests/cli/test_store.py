@@ -107,22 +107,7 @@ STEP0_SQL = (
 
 def source_migrations():
     """The SQL of each step of migrations[] in store_sqlite.c (C literals joined)."""
-    with open(STORE_C) as f:
-        text = f.read()
-    m = re.search(r"migrations\[\]\s*=\s*\{(.*?)\n\};", text, re.S)
-    assert m, f"no migrations[] in {STORE_C}"
-    body = re.sub(r"/\*.*?\*/", " ", m.group(1), flags=re.S)  # comments may hold commas
-    steps, cur = [], []
-    for tok in re.finditer(r'"((?:[^"\\]|\\.)*)"|(,)', body):
-        if tok.group(2):
-            if cur:
-                steps.append("".join(cur))
-                cur = []
-        else:
-            cur.append(tok.group(1).encode().decode("unicode_escape"))
-    if cur:
-        steps.append("".join(cur))
-    return steps
+    return pbtest.c_string_array(STORE_C, "migrations")
 
 
 def pb(db, *args, stdin=None):
