@@ -20,7 +20,9 @@ static const char usage[] =
     "SQLite file; on PostgreSQL the database's owner runs it once after an upgrade\n"
     "(crews' roles need no right to change tables), and on an empty PostgreSQL\n"
     "database it creates the tables, so the owner can grant rights before anyone\n"
-    "imports (see ROLES in man packbook).\n"
+    "imports (see ROLES in man packbook). Then every pack whose kept assessment\n"
+    "(what 'packbook fleet' shows of it) is missing or stale -- after an upgrade,\n"
+    "or changes by an older packbook -- is assessed from its flights and kept.\n"
     "\n";
 /* clang-format on */
 
@@ -76,6 +78,11 @@ enum pb_code cmd_db(int argc, char **argv, struct app *app, struct pb_error *err
         printf("%s: schema version %d, up to date\n", store_shown(st), now);
     else
         printf("%s: schema version %d (was %d)\n", store_shown(st), now, was);
+    size_t assessed = 0, current = 0;
+    rc = packview_keep_stale(st, &assessed, &current, err);
+    if (rc == PB_OK)
+        printf("%s: %zu pack%s assessed and kept for the fleet view, %zu current already\n",
+               store_shown(st), assessed, assessed == 1 ? "" : "s", current);
     store_close(st);
-    return cmd_finish_stdout(err);
+    return rc == PB_OK ? cmd_finish_stdout(err) : rc;
 }

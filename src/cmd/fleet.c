@@ -13,7 +13,8 @@
 /* A help text reads best as the lines it prints. */
 /* clang-format off */
 static const char usage[] =
-    "usage: packbook fleet [--json|--csv] [--sort KEY] [--status S] [--all] [--db PATH]\n"
+    "usage: packbook fleet [--json|--csv] [--sort KEY] [--status S] [--all] [--reassess]\n"
+    "                      [--db PATH]\n"
     "\n"
     "One row per pack in service: flights, equivalent full cycles, last flown,\n"
     "internal resistance (IR, mOhm per cell, median of the last "
@@ -26,12 +27,15 @@ static const char usage[] =
     "at the pack's use so far). A flight that left its trend shows as 'inspect:\n"
     "flight N ...' until 'packbook flight ack'; registered pairs ('packbook pack\n"
     "pair') are listed together, and a pair beyond its limits is a watch finding.\n"
+    "Each pack's assessment is kept in the history by the commands that change it\n"
+    "(import, flight remove, move and ack, pack edit, sync, db migrate) and read\n"
+    "back while it is current, so the fleet view does not read every flight.\n"
     "\n";
 /* clang-format on */
 
 struct fleet_cli {
     int fmt; /* enum fleet_format */
-    int sort, status, all, predict;
+    int sort, status, all, predict, reassess;
     double power_w;
     const char *db;
     struct health_rules rules;
@@ -60,6 +64,10 @@ static const struct opt fleet_table[] = {
      "at the pack's recent cruise power, or at --power"},
     {.name = "power", .kind = OPT_DOUBLE, .off = FLEET_AT(power_w), .lo = 0, .hi = 1e6,
      .meta = "W", .help = "--predict at W watts (implies --predict)"},
+    {.name = "reassess", .kind = OPT_FLAG, .off = FLEET_AT(reassess), .set = 1,
+     .help = "assess every pack from its flights, not from the\n"
+     "assessment kept when its history last changed (the same\n"
+     "numbers; slower, for checking)"},
     {.name = "json", .kind = OPT_FLAG, .off = FLEET_AT(fmt), .set = FLEET_JSON,
      .help = "JSON on standard output"},
     {.name = "csv", .kind = OPT_FLAG, .off = FLEET_AT(fmt), .set = FLEET_CSV,
@@ -182,8 +190,8 @@ enum pb_code cmd_fleet(int argc, char **argv, struct app *app, struct pb_error *
     if (status && strcmp(status, "retired") == 0)
         all = 1;
     struct fleet_predict fp = {power_w, NULL, 0};
-    rc = packview_load_fleet(st, &rules, all, status, predict ? predict_each : NULL, &fp, &views,
-                             &nv, err);
+    rc = packview_load_fleet(st, &rules, all, status, cli.reassess, predict ? predict_each : NULL,
+                             &fp, &views, &nv, err);
     safe = fp.safe;
     if (rc == PB_OK && predict && !safe && !(safe = malloc(2 * sizeof *safe)))
         fp.failed = 1; /* no pack: an empty column all the same */

@@ -757,7 +757,7 @@ enum pb_code cmd_import(int argc, char **argv, struct app *app, struct pb_error 
         printf("%zu imported, %zu already there, %zu failed (pack %s)\n", stored, dups, failed,
                utf8_printable(lb, sizeof lb, pack.label));
     if (stored > 0) {
-        rc = packview_summary(st, &pack, &after, err);
+        rc = packview_keep(st, &pack, &after, err);
         if (rc != PB_OK)
             goto cleanup;
         if (strcmp(before.status, after.status) != 0)

@@ -2,6 +2,7 @@
 
 #include "../core/isotime.h"
 #include "../report/report.h"
+#include "assessment.h"
 #include "config.h"
 
 #include <math.h>
@@ -34,11 +35,11 @@ const struct opt ruleopts_table[] = {
 };
 /* clang-format on */
 
-const char
-    ruleopts_title[] =
-        "retirement rules (retire level; watch levels are " HEALTH_STR(HEALTH_WATCH_CAPACITY_PCT) " %, " HEALTH_STR(
-            HEALTH_WATCH_R0_RATIO) "x, " HEALTH_STR(HEALTH_WATCH_IMBALANCE_MV) " mV "
-                                                                               "and " HEALTH_STR(HEALTH_WATCH_OVERDISCHARGES) "):";
+const char ruleopts_title
+    [] = "retirement rules (retire level; watch levels are " HEALTH_STR(HEALTH_WATCH_CAPACITY_PCT) " %, " HEALTH_STR(
+        HEALTH_WATCH_R0_RATIO) "x, " HEALTH_STR(HEALTH_WATCH_IMBALANCE_MV) " mV "
+                                                                           "and " HEALTH_STR(
+                                                                               HEALTH_WATCH_OVERDISCHARGES) "):";
 
 int ruleopts_after(void *base, const struct opt *o, const char *val, struct pb_error *err)
 {
@@ -143,17 +144,58 @@ static enum pb_code load_view(struct store *st, const struct pack_rec *p,
                               double horizon, int with_trend, struct pack_view *v,
                               struct pb_error *err);
 
+/* A fleet view: each pack's state and life plan (from its trend) as fleet,
+ * plot fleet and pack pair show them, and as an assessment keeps them. */
+static enum pb_code fleet_view(struct store *st, const struct pack_rec *p,
+                               const struct health_rules *rules, struct pack_view *v,
+                               struct pb_error *err)
+{
+    return load_view(st, p, rules, TREND_WEEK, 0, 1000.0, 1, v, err);
+}
+
+static int by_pack_id(const void *key, const void *elem)
+{
+    int64_t id = *(const int64_t *)key, other = ((const struct assessment_rec *)elem)->pack_id;
+    return id < other ? -1 : id > other;
+}
+
+/* v from pack p's kept assessment when its key says it was made from what
+ * the store holds now under these rules: 1, else 0 (v untouched). */
+static int kept_view(const struct assessment_rec *kept, size_t nkept, const struct pack_rec *p,
+                     const struct health_rules *rules, struct pack_view *v)
+{
+    const struct assessment_rec *a = bsearch(&p->id, kept, nkept, sizeof *kept, by_pack_id);
+    if (!a || !a->inputs_key || !a->assessment)
+        return 0;
+    char key[ASSESSMENT_KEY_CAP];
+    assessment_key(p, rules, a->history_gen, key, sizeof key);
+    struct pack_view w;
+    memset(&w, 0, sizeof w);
+    if (strcmp(key, a->inputs_key) != 0 || assessment_decode(a->assessment, &w) != 0)
+        return 0;
+    w.pack = *p;
+    w.pair_distance = NAN;
+    *v = w;
+    return 1;
+}
+
 enum pb_code packview_load_fleet(struct store *st, const struct health_rules *rules, int all,
-                                 const char *status, packview_each_fn each, void *ctx,
+                                 const char *status, int reassess, packview_each_fn each, void *ctx,
                                  struct pack_view **views, size_t *nv, struct pb_error *err)
 {
     struct pack_rec *packs = NULL;
-    size_t np = 0;
+    struct assessment_rec *kept = NULL;
+    size_t np = 0, nkept = 0;
     *views = NULL;
     *nv = 0;
     enum pb_code rc = store_pack_list(st, &packs, &np, err);
-    if (rc != PB_OK)
+    /* each wants the flights: no kept view then */
+    if (rc == PB_OK && !each && !reassess)
+        rc = store_assessments_list(st, &kept, &nkept, err);
+    if (rc != PB_OK) {
+        store_packs_free(packs);
         return rc;
+    }
     struct pack_view *v = calloc(np ? np : 1, sizeof *v);
     size_t n = 0;
     if (!v)
@@ -161,9 +203,10 @@ enum pb_code packview_load_fleet(struct store *st, const struct health_rules *ru
     for (size_t k = 0; rc == PB_OK && k < np; k++) {
         if (packs[k].retired_at[0] && !all)
             continue;
-        /* the fleet shows each pack's state and life plan (from its trend),
-         * and holds one pack's flights at a time */
-        rc = load_view(st, &packs[k], rules, TREND_WEEK, 0, 1000.0, 1, &v[n], err);
+        /* the kept assessment when it is current, else the pack's flights,
+         * one pack's at a time */
+        if (!kept_view(kept, nkept, &packs[k], rules, &v[n]))
+            rc = fleet_view(st, &packs[k], rules, &v[n], err);
         if (rc != PB_OK)
             break;
         const char *s = packs[k].retired_at[0] ? "retired" : health_status_name(v[n].health.status);
@@ -184,6 +227,7 @@ enum pb_code packview_load_fleet(struct store *st, const struct health_rules *ru
         n++;
     }
     store_packs_free(packs);
+    store_assessments_free(kept, nkept);
     if (rc != PB_OK) {
         packview_free_all(v, n);
         return rc;
@@ -306,6 +350,73 @@ enum pb_code packview_summary(struct store *st, const struct pack_rec *p, struct
              p->retired_at[0] ? p->retire_reason : v.health.reason);
     pack_view_release(&v);
     return PB_OK;
+}
+
+enum pb_code packview_keep(struct store *st, const struct pack_rec *p, struct pack_summary *out,
+                           struct pb_error *err)
+{
+    struct health_rules rules;
+    struct pack_view v;
+    int64_t gen = 0;
+    config_rules(&rules);
+    /* the generation before the flights: a change in between leaves the key stale, never wrong */
+    enum pb_code rc = store_history_gen(st, p->id, &gen, err);
+    if (rc == PB_OK)
+        rc = fleet_view(st, p, &rules, &v, err);
+    if (rc != PB_OK)
+        return rc;
+    if (out) {
+        memset(out, 0, sizeof *out);
+        snprintf(out->label, sizeof out->label, "%s", p->label);
+        out->flights = v.health.flights;
+        out->cycles = isfinite(v.health.cycles) ? v.health.cycles : 0.0;
+        out->r0_base_mohm_cell = v.health.r0_base_mohm_cell;
+        snprintf(out->status, sizeof out->status, "%s",
+                 p->retired_at[0] ? "retired" : health_status_name(v.health.status));
+        snprintf(out->reason, sizeof out->reason, "%s",
+                 p->retired_at[0] ? p->retire_reason : v.health.reason);
+    }
+    char key[ASSESSMENT_KEY_CAP];
+    assessment_key(p, &rules, gen, key, sizeof key);
+    char *text = assessment_encode(&v);
+    pack_view_release(&v);
+    if (!text)
+        return pb_error_set(err, PB_ENOMEM, "out of memory");
+    /* only the fleet view's speed depends on it: a failure is said, not fatal */
+    struct pb_error e = {PB_OK, ""};
+    if (store_assessment_put(st, p->id, key, text, &e) != PB_OK)
+        fprintf(stderr,
+                "packbook: note: %s (pack %s: 'packbook fleet' assesses it from its flights "
+                "until its assessment can be kept)\n",
+                e.msg, p->label);
+    free(text);
+    return PB_OK;
+}
+
+enum pb_code packview_keep_stale(struct store *st, size_t *assessed, size_t *current,
+                                 struct pb_error *err)
+{
+    struct pack_rec *packs = NULL;
+    struct assessment_rec *kept = NULL;
+    size_t np = 0, nkept = 0;
+    struct health_rules rules;
+    config_rules(&rules);
+    *assessed = *current = 0;
+    enum pb_code rc = store_pack_list(st, &packs, &np, err);
+    if (rc == PB_OK)
+        rc = store_assessments_list(st, &kept, &nkept, err);
+    for (size_t k = 0; rc == PB_OK && k < np; k++) {
+        struct pack_view v;
+        if (kept_view(kept, nkept, &packs[k], &rules, &v)) {
+            (*current)++;
+            continue;
+        }
+        rc = packview_keep(st, &packs[k], NULL, err);
+        *assessed += rc == PB_OK;
+    }
+    store_packs_free(packs);
+    store_assessments_free(kept, nkept);
+    return rc;
 }
 
 static int same_num(double a, double b)

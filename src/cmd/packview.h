@@ -58,10 +58,12 @@ enum pb_code packview_load(struct store *st, const struct pack_rec *p,
 typedef void (*packview_each_fn)(const struct pack_view *v, size_t k, void *ctx);
 
 /* Every pack (in service, or all) with its state and trend (status: only
- * those in it): one pack's flights in memory at a time; the views come back
- * without flights. each may be NULL. */
+ * those in it): a pack's kept assessment when its key is current (unless
+ * reassess is set or each is given), else from its flights, one pack's
+ * flights in memory at a time; the views come back without flights. each
+ * may be NULL. */
 enum pb_code packview_load_fleet(struct store *st, const struct health_rules *rules, int all,
-                                 const char *status, packview_each_fn each, void *ctx,
+                                 const char *status, int reassess, packview_each_fn each, void *ctx,
                                  struct pack_view **views, size_t *nv, struct pb_error *err);
 
 /* Registered pairs (pair.c): sets each view's paired_with and, when the
@@ -93,6 +95,20 @@ struct pack_summary {
 /* The summary of pack p as the store holds it now, under the default rules. */
 enum pb_code packview_summary(struct store *st, const struct pack_rec *p, struct pack_summary *out,
                               struct pb_error *err);
+
+/* Assesses pack p from its flights as the fleet view does (the settings'
+ * rules) and keeps that assessment in the store (assessment.h) for fleet;
+ * out, when not NULL, gets the summary. A failure to keep it (a role
+ * without the right, say) is not an error: a note on standard error says
+ * why (only the fleet view's speed depends on it). Writing commands call it
+ * for each pack whose history they changed. */
+enum pb_code packview_keep(struct store *st, const struct pack_rec *p, struct pack_summary *out,
+                           struct pb_error *err);
+
+/* packview_keep for every pack whose kept assessment is missing or stale
+ * (db migrate); counts the packs assessed and those already current. */
+enum pb_code packview_keep_stale(struct store *st, size_t *assessed, size_t *current,
+                                 struct pb_error *err);
 
 /* Prints "  LABEL: flights a -> b, cycles, baseline and status" lines for
  * what differs between before and after (flights and cycles always). */

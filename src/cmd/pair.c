@@ -157,7 +157,7 @@ static enum pb_code show(struct store *st, int json, enum pair_method method, st
     health_rules_default(&rules);
     struct pack_view *views = NULL;
     size_t nv = 0;
-    enum pb_code rc = packview_load_fleet(st, &rules, 0, NULL, NULL, NULL, &views, &nv, err);
+    enum pb_code rc = packview_load_fleet(st, &rules, 0, NULL, 0, NULL, NULL, &views, &nv, err);
     struct pair_pack *pp = calloc(nv ? nv : 1, sizeof *pp);
     int *usable = calloc(nv ? nv : 1, sizeof *usable);
     struct pair_match *reg = calloc(nv ? nv : 1, sizeof *reg);

@@ -282,7 +282,7 @@ static enum pb_code plot_history(const struct plot_cli *cli, const char *id, str
         store_close(st);
         return rc;
     }
-    rc = packview_load_fleet(st, &cli->rules, cli->all, NULL, NULL, NULL, &views, &nv, err);
+    rc = packview_load_fleet(st, &cli->rules, cli->all, NULL, 0, NULL, NULL, &views, &nv, err);
     if (rc == PB_OK) /* registered pairs, drawn joined; a drifted pair is a flag */
         rc = packview_pairs(st, views, nv, err);
     if (rc == PB_OK)

@@ -1,7 +1,7 @@
 /* packbook sync: packs and flights from one history store to another (a
  * crew's SQLite file and the shared PostgreSQL database, or any two). */
-#include <math.h>
 #include <getopt.h>
+#include <math.h>
 #include <stddef.h>
 #include <stdio.h>
 #include <stdlib.h>
@@ -278,8 +278,13 @@ enum pb_code cmd_sync(int argc, char **argv, struct app *app, struct pb_error *e
         rc = dest_pack(dst, &packs[k], &dp, &conflict, &n, err);
         if (rc == PB_OK && conflict)
             skip[k] = 1;
-        else if (rc == PB_OK)
+        else if (rc == PB_OK) {
+            size_t had = n.flights_sent + n.acks;
             rc = send_flights(src, dst, &packs[k], &dp, &n, err);
+            /* the receiving side's fleet view of the pack, kept as import keeps it */
+            if (rc == PB_OK && n.flights_sent + n.acks > had)
+                rc = packview_keep(dst, &dp, NULL, err);
+        }
     }
     if (rc == PB_OK)
         rc = send_pairs(src, dst, skip, packs, np, &n, err);

@@ -63,6 +63,12 @@ struct store_ops {
                              const struct pack_rec *b, struct pb_error *err);
     enum pb_code (*pair_remove)(struct store_impl *st, const struct pack_rec *p, int *removed,
                                 struct pb_error *err);
+    enum pb_code (*assessments_list)(struct store_impl *st, struct assessment_rec **out, size_t *n,
+                                     struct pb_error *err);
+    enum pb_code (*history_gen)(struct store_impl *st, int64_t pack_id, int64_t *gen,
+                                struct pb_error *err);
+    enum pb_code (*assessment_put)(struct store_impl *st, int64_t pack_id, const char *inputs_key,
+                                   const char *assessment, struct pb_error *err);
 };
 
 extern const struct store_ops store_sqlite_ops;

@@ -293,6 +293,35 @@ enum pb_code store_pair_remove(struct store *st, const struct pack_rec *p, int *
     return st->ops->pair_remove(st->impl, p, removed, err);
 }
 
+enum pb_code store_assessments_list(struct store *st, struct assessment_rec **out, size_t *n,
+                                    struct pb_error *err)
+{
+    return st->ops->assessments_list(st->impl, out, n, err);
+}
+
+void store_assessments_free(struct assessment_rec *a, size_t n)
+{
+    if (!a)
+        return;
+    for (size_t k = 0; k < n; k++) {
+        free(a[k].inputs_key);
+        free(a[k].assessment);
+    }
+    free(a);
+}
+
+enum pb_code store_history_gen(struct store *st, int64_t pack_id, int64_t *gen,
+                               struct pb_error *err)
+{
+    return st->ops->history_gen(st->impl, pack_id, gen, err);
+}
+
+enum pb_code store_assessment_put(struct store *st, int64_t pack_id, const char *inputs_key,
+                                  const char *assessment, struct pb_error *err)
+{
+    return st->ops->assessment_put(st->impl, pack_id, inputs_key, assessment, err);
+}
+
 int store_default_path(char *buf, size_t cap)
 {
     const char *env = getenv("PACKBOOK_DB");

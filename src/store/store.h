@@ -21,7 +21,7 @@
 #include "../core/pb_error.h"
 #include "../core/series.h"
 
-#define STORE_SCHEMA_VERSION 9
+#define STORE_SCHEMA_VERSION 10
 
 struct store;
 
@@ -244,6 +244,35 @@ enum pb_code store_pair_add(struct store *st, const struct pack_rec *a, const st
 /* Removes p's pair; *removed says whether it had one. */
 enum pb_code store_pair_remove(struct store *st, const struct pack_rec *p, int *removed,
                                struct pb_error *err);
+
+/* A pack's kept assessment: what fleet shows of it, as text packview.c
+ * writes and reads (the store does not look inside), and the key of the
+ * inputs it was made from. The database bumps a pack's history generation
+ * itself (triggers of schema step 10) whenever a flight of the pack is
+ * stored, changed, moved or removed, or an acknowledgement of one is, so a
+ * key that names the generation goes stale with any such change, whoever
+ * makes it. */
+struct assessment_rec {
+    int64_t pack_id;
+    int64_t history_gen;
+    char *inputs_key; /* NULL when none is kept */
+    char *assessment; /* NULL when none is kept */
+};
+
+/* Every pack's history generation and kept assessment, by pack id; reads
+ * no flight. Free with store_assessments_free. */
+enum pb_code store_assessments_list(struct store *st, struct assessment_rec **out, size_t *n,
+                                    struct pb_error *err);
+/* Frees n records and the array; NULL is a no-op. */
+void store_assessments_free(struct assessment_rec *a, size_t n);
+
+/* The history generation of pack pack_id now. */
+enum pb_code store_history_gen(struct store *st, int64_t pack_id, int64_t *gen,
+                               struct pb_error *err);
+
+/* Keeps an assessment of pack pack_id (replacing the one kept). */
+enum pb_code store_assessment_put(struct store *st, int64_t pack_id, const char *inputs_key,
+                                  const char *assessment, struct pb_error *err);
 
 /* The default database: $PACKBOOK_DB (a path or a connection string), else
  * $XDG_DATA_HOME/packbook/packbook.db, else $HOME/.local/share/packbook/packbook.db. Writes into

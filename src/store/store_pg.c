@@ -108,6 +108,40 @@ static const char *const pg_steps[] = {
     "ALTER TABLE flights DROP COLUMN report_json;",
     /* 8 -> 9: flights by time alone, for import's same-start check */
     "CREATE INDEX flights_by_time ON flights(flown_epoch_s);",
+    /* 9 -> 10: each pack's kept assessment and its history generation,
+     * bumped by triggers (a single UPDATE for a move locks both packs in
+     * one statement) */
+    "ALTER TABLE packs ADD COLUMN history_gen bigint NOT NULL DEFAULT 0;"
+    "CREATE TABLE pack_assessments ("
+    "  pack_id bigint PRIMARY KEY REFERENCES packs(id) ON DELETE CASCADE,"
+    "  inputs_key text NOT NULL,"
+    "  assessment text NOT NULL,"
+    "  written_at text NOT NULL);"
+    "CREATE FUNCTION packbook_flights_history() RETURNS trigger LANGUAGE plpgsql AS $$ BEGIN"
+    "  IF TG_OP = 'INSERT' THEN"
+    "    UPDATE packs SET history_gen = history_gen + 1 WHERE id = NEW.pack_id;"
+    "  ELSIF TG_OP = 'DELETE' THEN"
+    "    UPDATE packs SET history_gen = history_gen + 1 WHERE id = OLD.pack_id;"
+    "  ELSE"
+    "    UPDATE packs SET history_gen = history_gen + 1 WHERE id IN (OLD.pack_id, NEW.pack_id);"
+    "  END IF;"
+    "  RETURN NULL; END $$;"
+    "CREATE TRIGGER flights_history AFTER INSERT OR UPDATE OR DELETE ON flights"
+    "  FOR EACH ROW EXECUTE FUNCTION packbook_flights_history();"
+    "CREATE FUNCTION packbook_acks_history() RETURNS trigger LANGUAGE plpgsql AS $$ BEGIN"
+    "  IF TG_OP = 'INSERT' THEN"
+    "    UPDATE packs SET history_gen = history_gen + 1"
+    "    WHERE id = (SELECT pack_id FROM flights WHERE id = NEW.flight_id);"
+    "  ELSIF TG_OP = 'DELETE' THEN"
+    "    UPDATE packs SET history_gen = history_gen + 1"
+    "    WHERE id = (SELECT pack_id FROM flights WHERE id = OLD.flight_id);"
+    "  ELSE"
+    "    UPDATE packs SET history_gen = history_gen + 1 WHERE id IN"
+    "    (SELECT pack_id FROM flights WHERE id IN (OLD.flight_id, NEW.flight_id));"
+    "  END IF;"
+    "  RETURN NULL; END $$;"
+    "CREATE TRIGGER acks_history AFTER INSERT OR UPDATE OR DELETE ON flight_acks"
+    "  FOR EACH ROW EXECUTE FUNCTION packbook_acks_history();",
 };
 
 #define NSTEPS ((int)(sizeof pg_steps / sizeof *pg_steps))
@@ -1144,6 +1178,75 @@ static enum pb_code pg_pair_remove(struct store_impl *st, const struct pack_rec 
     return write_one(st, SQL_PAIR_REMOVE, &q, removed, "DELETE", "cannot remove the pair", err);
 }
 
+/* A column's text in a new string (NULL for SQL NULL); -1 when out of memory. */
+static int dup_value(char **dst, const PGresult *r, int row, int col)
+{
+    *dst = NULL;
+    if (PQgetisnull(r, row, col))
+        return 0;
+    *dst = strdup(PQgetvalue(r, row, col));
+    return *dst ? 0 : -1;
+}
+
+static enum pb_code pg_assessments_list(struct store_impl *st, struct assessment_rec **out,
+                                        size_t *n, struct pb_error *err)
+{
+    *out = NULL;
+    *n = 0;
+    PGresult *r = run(st, SQL_ASSESS_LIST, NULL);
+    if (!ok(r))
+        return fail(st, r, "SELECT", "cannot read the kept assessments", err);
+    int rows = PQntuples(r);
+    struct assessment_rec *v = calloc(rows > 0 ? (size_t)rows : 1, sizeof *v);
+    int bad = !v;
+    for (int k = 0; !bad && k < rows; k++) {
+        v[k].pack_id = get_int(r, k, 0);
+        v[k].history_gen = get_int(r, k, 1);
+        bad =
+            dup_value(&v[k].inputs_key, r, k, 2) != 0 || dup_value(&v[k].assessment, r, k, 3) != 0;
+    }
+    PQclear(r);
+    if (bad) {
+        store_assessments_free(v, rows > 0 ? (size_t)rows : 0);
+        return pb_error_set(err, PB_ENOMEM, "out of memory");
+    }
+    *out = v;
+    *n = (size_t)rows;
+    return PB_OK;
+}
+
+static enum pb_code pg_history_gen(struct store_impl *st, int64_t pack_id, int64_t *gen,
+                                   struct pb_error *err)
+{
+    struct params q = {0};
+    p_int(&q, pack_id);
+    PGresult *r = run(st, SQL_HISTORY_GEN, &q);
+    if (!ok(r))
+        return fail(st, r, "SELECT", "cannot read packs", err);
+    int found = PQntuples(r) > 0;
+    if (found)
+        *gen = get_int(r, 0, 0);
+    PQclear(r);
+    if (!found)
+        return pb_error_set(err, PB_ESTORE, "%s: no pack row %lld", st->shown, (long long)pack_id);
+    return PB_OK;
+}
+
+static enum pb_code pg_assessment_put(struct store_impl *st, int64_t pack_id,
+                                      const char *inputs_key, const char *assessment,
+                                      struct pb_error *err)
+{
+    struct params q = {0};
+    char now[32];
+    now_iso(now, sizeof now);
+    p_int(&q, pack_id);
+    p_text(&q, inputs_key);
+    p_text(&q, assessment);
+    p_text(&q, now);
+    return write_one(st, SQL_ASSESS_PUT, &q, NULL, "INSERT", "cannot keep the pack's assessment",
+                     err);
+}
+
 const struct store_ops store_pg_ops = {
     .name = "postgresql",
     .open = pg_open,
@@ -1171,4 +1274,7 @@ const struct store_ops store_pg_ops = {
     .pairs_list = pg_pairs_list,
     .pair_add = pg_pair_add,
     .pair_remove = pg_pair_remove,
+    .assessments_list = pg_assessments_list,
+    .history_gen = pg_history_gen,
+    .assessment_put = pg_assessment_put,
 };

@@ -81,5 +81,15 @@
     "SELECT count(*) FROM pack_pairs WHERE pack_a IN (?1, ?2) OR pack_b IN (?1, ?2)"
 #define SQL_PAIR_PUT "INSERT INTO pack_pairs (pack_a, pack_b, created_at) VALUES (?, ?, ?)"
 #define SQL_PAIR_REMOVE "DELETE FROM pack_pairs WHERE pack_a = ?1 OR pack_b = ?1"
+/* every pack's history generation with its kept assessment, if any (one
+ * row per pack: a read of the packs, never of the flights) */
+#define SQL_ASSESS_LIST                                                                            \
+    "SELECT p.id, p.history_gen, a.inputs_key, a.assessment FROM packs p "                         \
+    "LEFT JOIN pack_assessments a ON a.pack_id = p.id ORDER BY p.id"
+#define SQL_HISTORY_GEN "SELECT history_gen FROM packs WHERE id = ?"
+#define SQL_ASSESS_PUT                                                                             \
+    "INSERT INTO pack_assessments (pack_id, inputs_key, assessment, written_at) "                  \
+    "VALUES (?1, ?2, ?3, ?4) ON CONFLICT (pack_id) DO UPDATE SET inputs_key = excluded.inputs_key, " \
+    "assessment = excluded.assessment, written_at = excluded.written_at"
 
 #endif

@@ -104,6 +104,30 @@ static const char *const migrations[] = {
     /* 8 -> 9: flights by time alone, for import's same-start check across packs
      * (a range on flown_epoch_s; without it every import scanned all flights) */
     "CREATE INDEX flights_by_time ON flights(flown_epoch_s);",
+    /* 9 -> 10: each pack's assessment kept for the fleet view (which then
+     * reads no flight), made stale by a generation the database itself
+     * bumps on every change to the pack's flights or acknowledgements */
+    "ALTER TABLE packs ADD COLUMN history_gen INTEGER NOT NULL DEFAULT 0;"
+    "CREATE TABLE pack_assessments ("
+    "  pack_id INTEGER PRIMARY KEY REFERENCES packs(id) ON DELETE CASCADE,"
+    "  inputs_key TEXT NOT NULL,"
+    "  assessment TEXT NOT NULL,"
+    "  written_at TEXT NOT NULL);"
+    "CREATE TRIGGER flights_history_ins AFTER INSERT ON flights BEGIN"
+    "  UPDATE packs SET history_gen = history_gen + 1 WHERE id = NEW.pack_id; END;"
+    "CREATE TRIGGER flights_history_del AFTER DELETE ON flights BEGIN"
+    "  UPDATE packs SET history_gen = history_gen + 1 WHERE id = OLD.pack_id; END;"
+    "CREATE TRIGGER flights_history_upd AFTER UPDATE ON flights BEGIN"
+    "  UPDATE packs SET history_gen = history_gen + 1 WHERE id IN (OLD.pack_id, NEW.pack_id); END;"
+    "CREATE TRIGGER acks_history_ins AFTER INSERT ON flight_acks BEGIN"
+    "  UPDATE packs SET history_gen = history_gen + 1"
+    "  WHERE id = (SELECT pack_id FROM flights WHERE id = NEW.flight_id); END;"
+    "CREATE TRIGGER acks_history_del AFTER DELETE ON flight_acks BEGIN"
+    "  UPDATE packs SET history_gen = history_gen + 1"
+    "  WHERE id = (SELECT pack_id FROM flights WHERE id = OLD.flight_id); END;"
+    "CREATE TRIGGER acks_history_upd AFTER UPDATE ON flight_acks BEGIN"
+    "  UPDATE packs SET history_gen = history_gen + 1 WHERE id IN"
+    "  (SELECT pack_id FROM flights WHERE id IN (OLD.flight_id, NEW.flight_id)); END;",
 };
 
 static void sq_close(struct store_impl *st);
@@ -1243,6 +1267,93 @@ static enum pb_code sq_pair_remove(struct store_impl *st, const struct pack_rec 
     return PB_OK;
 }
 
+/* A column's text in a new string (NULL for SQL NULL); -1 when out of memory. */
+static int dup_text(char **dst, sqlite3_stmt *s, int col)
+{
+    const unsigned char *t = sqlite3_column_text(s, col);
+    *dst = NULL;
+    if (!t)
+        return 0;
+    *dst = strdup((const char *)t);
+    return *dst ? 0 : -1;
+}
+
+static enum pb_code sq_assessments_list(struct store_impl *st, struct assessment_rec **out,
+                                        size_t *n, struct pb_error *err)
+{
+    sqlite3_stmt *s = NULL;
+    struct assessment_rec *v = NULL;
+    size_t len = 0, cap = 0;
+    *out = NULL;
+    *n = 0;
+    if (sqlite3_prepare_v2(st->db, SQL_ASSESS_LIST, -1, &s, NULL) != SQLITE_OK)
+        return db_error(st, err, "cannot read the kept assessments");
+    int rc;
+    while ((rc = sqlite3_step(s)) == SQLITE_ROW) {
+        if (len == cap) {
+            cap = cap ? 2 * cap : 64;
+            struct assessment_rec *nv = realloc(v, cap * sizeof *v);
+            if (!nv) {
+                rc = SQLITE_NOMEM;
+                break;
+            }
+            v = nv;
+        }
+        struct assessment_rec *r = &v[len++];
+        r->pack_id = sqlite3_column_int64(s, 0);
+        r->history_gen = sqlite3_column_int64(s, 1);
+        r->assessment = NULL;
+        if (dup_text(&r->inputs_key, s, 2) != 0 || dup_text(&r->assessment, s, 3) != 0) {
+            rc = SQLITE_NOMEM;
+            break;
+        }
+    }
+    sqlite3_finalize(s);
+    if (rc != SQLITE_DONE) {
+        store_assessments_free(v, len);
+        return rc == SQLITE_NOMEM ? pb_error_set(err, PB_ENOMEM, "out of memory")
+                                  : db_error(st, err, "cannot read the kept assessments");
+    }
+    *out = v;
+    *n = len;
+    return PB_OK;
+}
+
+static enum pb_code sq_history_gen(struct store_impl *st, int64_t pack_id, int64_t *gen,
+                                   struct pb_error *err)
+{
+    sqlite3_stmt *s = NULL;
+    if (sqlite3_prepare_v2(st->db, SQL_HISTORY_GEN, -1, &s, NULL) != SQLITE_OK)
+        return db_error(st, err, "cannot read packs");
+    sqlite3_bind_int64(s, 1, pack_id);
+    int rc = sqlite3_step(s);
+    if (rc == SQLITE_ROW)
+        *gen = sqlite3_column_int64(s, 0);
+    sqlite3_finalize(s);
+    if (rc == SQLITE_DONE)
+        return pb_error_set(err, PB_ESTORE, "%s: no pack row %lld", st->path, (long long)pack_id);
+    return rc == SQLITE_ROW ? PB_OK : db_error(st, err, "cannot read packs");
+}
+
+static enum pb_code sq_assessment_put(struct store_impl *st, int64_t pack_id,
+                                      const char *inputs_key, const char *assessment,
+                                      struct pb_error *err)
+{
+    wait_reset(st);
+    char now[32];
+    now_iso(now, sizeof now);
+    sqlite3_stmt *s = NULL;
+    if (sqlite3_prepare_v2(st->db, SQL_ASSESS_PUT, -1, &s, NULL) != SQLITE_OK)
+        return db_error(st, err, "cannot keep the pack's assessment");
+    sqlite3_bind_int64(s, 1, pack_id);
+    sqlite3_bind_text(s, 2, inputs_key, -1, SQLITE_TRANSIENT);
+    sqlite3_bind_text(s, 3, assessment, -1, SQLITE_TRANSIENT);
+    sqlite3_bind_text(s, 4, now, -1, SQLITE_TRANSIENT);
+    int rc = sqlite3_step(s);
+    sqlite3_finalize(s);
+    return rc == SQLITE_DONE ? PB_OK : db_error(st, err, "cannot keep the pack's assessment");
+}
+
 static int sq_schema_version_found(struct store_impl *st)
 {
     return st->found_version;
@@ -1275,4 +1386,7 @@ const struct store_ops store_sqlite_ops = {
     .pairs_list = sq_pairs_list,
     .pair_add = sq_pair_add,
     .pair_remove = sq_pair_remove,
+    .assessments_list = sq_assessments_list,
+    .history_gen = sq_history_gen,
+    .assessment_put = sq_assessment_put,
 };
