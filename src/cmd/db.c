@@ -79,10 +79,20 @@ enum pb_code cmd_db(int argc, char **argv, struct app *app, struct pb_error *err
     else
         printf("%s: schema version %d (was %d)\n", store_shown(st), now, was);
     size_t assessed = 0, current = 0;
-    rc = packview_keep_stale(st, &assessed, &current, err);
+    struct pb_error e = {PB_OK, ""};
+    rc = packview_keep_stale(st, &assessed, &current, &e);
     if (rc == PB_OK)
         printf("%s: %zu pack%s assessed and kept for the fleet view, %zu current already\n",
                store_shown(st), assessed, assessed == 1 ? "" : "s", current);
+    else if (rc == PB_ESTORE) {
+        /* the schema is done; the kept assessments only make fleet faster */
+        fprintf(stderr,
+                "packbook: note: %s (the packs' kept assessments were not brought up to "
+                "date: 'packbook fleet' assesses such packs from their flights)\n",
+                e.msg);
+        rc = PB_OK;
+    } else
+        *err = e;
     store_close(st);
     return rc == PB_OK ? cmd_finish_stdout(err) : rc;
 }

@@ -33,7 +33,9 @@ class Sqlite:
     def query(self, db, sql):
         con = sqlite3.connect(db, timeout=30)
         try:
-            return [tuple(r) for r in con.execute(sql).fetchall()]
+            rows = [tuple(r) for r in con.execute(sql).fetchall()]
+            con.commit()  # a change made here is kept, as psql's is
+            return rows
         finally:
             con.close()
 

@@ -16,6 +16,9 @@ What is checked, against what:
   - failures of the server: stopped (pg_ctl stop -m fast) or the session ended
     (pg_terminate_backend) mid-import: exit 4, the flights stored are whole, a retry stores
     the rest and the set is exact.
+  - kept assessments (schema 10): fleet from them prints the same bytes as fleet --reassess
+    after every kind of change (packbook's commands, and plain SQL as another program would
+    make), and a kept text that is stale or does not read back is not used.
 Exit statuses (man packbook, EXIT STATUS): 0 ok, 1 some inputs failed or sync conflicts,
 2 usage, 4 store error.
 
@@ -276,6 +279,128 @@ class Cases:
         self.assertGreaterEqual(mid, 2, "kills came too late to test anything")
 
 
+def fading_rows(pack_id, n, seed):
+    """INSERT text for n flights of a 4S 5000 mAh pack a day apart, written as another program
+    would (plain SQL): capacity fading with a knee after flight 0.6 n, R0 rising, some values
+    unknown (NULL), resting imbalance growing, one flight with a resistance jump. Invented
+    numbers, for the kept-assessment check only: what fleet prints from them is compared with
+    fleet --reassess on the same store, not with outside values."""
+    rng = random.Random(seed)
+    rows = []
+    for k in range(n):
+        knee = max(0, k - 0.6 * n)
+        cap = 5000 * (1 - 0.0015 * k - 0.004 * knee) * (1 + rng.gauss(0, 0.004))
+        r0 = 42 * (1 + 0.004 * k) * (1 + rng.gauss(0, 0.02)) * (1.35 if k == n - 3 else 1)
+        vals = {
+            "pack_id": pack_id, "content_hash": f"'xxh128:{seed:08x}{k:024x}'",
+            "source": f"'sortie-{k}.csv'", "flown_at": "'2026-05-01T08:00:00Z'",
+            "flown_epoch_s": 1777622400 + 86400 * k, "date_source": "'log'",
+            "imported_at": "'2026-05-01T09:00:00Z'", "duration_s": 900,
+            "charge_used_mah": round(3600 + rng.gauss(0, 150), 3),
+            "r0_mohm": "NULL" if k % 11 == 5 else round(r0, 4),
+            "r0_ci95_mohm": round(0.05 * r0, 4),
+            "capacity_mah": "NULL" if k % 7 == 3 else round(cap, 3),
+            "capacity_ci95_mah": round(0.02 * cap, 3),
+            "cell_spread_rest_mv": round(6 + 0.3 * k + rng.gauss(0, 1), 3),
+            "time_below_floor_s": 4.0 if k in (17, 41) else 0.0,
+            "weakest_cell": 1 + (k // 9) % 4, "warnings": 0,
+        }
+        rows.append(f"INSERT INTO flights ({', '.join(vals)}) VALUES "
+                    f"({', '.join(str(v) for v in vals.values())})")
+    return rows
+
+
+class Kept:
+    """fleet from the kept assessments (schema 10) prints what fleet --reassess prints, which
+    assesses every pack from its flights (that computation is checked against outside
+    sources in the life, departure, views and real-cell suites); whatever changed the history
+    -- packbook's own commands, or plain SQL as another program would -- the kept assessment is
+    either current or not used."""
+
+    def fleets(self, db, *extra):
+        got = []
+        for fmt in ((), ("--json",), ("--csv", "--all")):
+            a = pb(db, "fleet", *fmt, *extra)
+            b = pb(db, "fleet", "--reassess", *fmt, *extra)
+            self.assertEqual(a[0], EXIT_OK, a[2])
+            self.assertEqual(b[0], EXIT_OK, b[2])
+            self.assertEqual(a[1], b[1], f"fleet {fmt} {extra}: kept and reassessed differ")
+            got.append(a[1])
+        return got
+
+    def kept_current(self, db):
+        """Packs whose kept key names their generation now."""
+        rows = self.B.query(db, "SELECT p.label, p.history_gen, a.inputs_key FROM packs p "
+                                "JOIN pack_assessments a ON a.pack_id = p.id")
+        return sorted(r[0] for r in rows if f" gen={r[1]} " in r[2])
+
+    def test_kept_assessments(self):
+        db = self.B.fresh("kept")
+        for label in ("TM-41", "TM-42", "TM-43", "TM-44"):
+            add_pack(self, db, label)
+        for label, lo, hi in (("TM-41", 0, 12), ("TM-42", 12, 24)):
+            rc, out, err = pb(db, "import", "--pack", label, "--date", "2026-04-01", "--quiet",
+                              *subset(self.logs, lo, hi))
+            self.assertEqual(rc, EXIT_OK, err)
+        # import kept both; TM-43 has no flight, TM-44's come by plain SQL (no assessment)
+        self.assertEqual(self.kept_current(db), ["TM-41", "TM-42"])
+        (pid,), = self.B.query(db, "SELECT id FROM packs WHERE label = 'TM-44'")
+        for sql in fading_rows(pid, 70, SEED):
+            self.B.query(db, sql)
+        self.fleets(db)
+        rc, out, err = pb(db, "db", "migrate")
+        self.assertEqual(rc, EXIT_OK, err)
+        self.assertIn("2 packs assessed and kept for the fleet view, 2 current already", out)
+        self.assertEqual(self.kept_current(db), ["TM-41", "TM-42", "TM-43", "TM-44"])
+        text, js, _ = self.fleets(db)
+        import json
+        life = [p for p in json.loads(js) if p["id"] == "TM-44"][0]
+        self.assertIsNotNone(life.get("plan_retire_cycles"), "the fading pack has a life plan")
+        # fleet does read the kept text: a reason changed there (key untouched) is shown
+        self.B.query(db, "UPDATE pack_assessments SET assessment = replace(assessment, "
+                         "'within all limits', 'KEPT TEXT') WHERE pack_id = (SELECT id FROM "
+                         "packs WHERE label = 'TM-41')")
+        self.assertIn("KEPT TEXT", pb(db, "fleet")[1])
+        self.assertNotIn("KEPT TEXT", pb(db, "fleet", "--reassess")[1])
+        # a kept text that does not read back is not used
+        self.B.query(db, "UPDATE pack_assessments SET assessment = 'packbook-assessment 1' || "
+                         "chr(10) || '1 2 3' WHERE pack_id = (SELECT id FROM packs WHERE label "
+                         "= 'TM-41')".replace("chr(10)", "char(10)" if self.backend == "sqlite"
+                                              else "chr(10)"))
+        self.fleets(db)
+        # changes by plain SQL (another program, an older packbook): the triggers make the kept
+        # assessment stale, so fleet follows them at once
+        before = pb(db, "fleet", "--json")[1]
+        self.B.query(db, "UPDATE flights SET r0_mohm = 3 * r0_mohm WHERE pack_id = "
+                         f"{pid} AND flown_epoch_s > (SELECT max(flown_epoch_s) - 5 * 86400 "
+                         f"FROM flights WHERE pack_id = {pid})")
+        after = self.fleets(db)[1]
+        self.assertNotEqual(before, after, "the resistance change shows")
+        self.assertNotIn("TM-44", self.kept_current(db))
+        self.B.query(db, f"DELETE FROM flights WHERE id = (SELECT max(id) FROM flights WHERE "
+                         f"pack_id = {pid})")
+        self.fleets(db)
+        (fid,), = self.B.query(db, f"SELECT max(id) FROM flights WHERE pack_id = {pid}")
+        self.B.query(db, "INSERT INTO flight_acks (flight_id, note, acked_at) VALUES "
+                         f"({fid}, 'checked', '2026-07-01T00:00:00Z')")
+        self.fleets(db)
+        # packbook's own changes keep the assessment current
+        for args in (("flight", "remove", fid), ("flight", "ack", fid - 1, "--note", "ok"),
+                     ("pack", "edit", "TM-44", "--capacity", 4800)):
+            rc, out, err = pb(db, *args)
+            self.assertEqual(rc, EXIT_OK, f"{args}: {err}")
+            self.assertIn("TM-44", self.kept_current(db), args)
+            self.fleets(db)
+        (f41,), = self.B.query(db, "SELECT min(id) FROM flights WHERE pack_id = (SELECT id "
+                                   "FROM packs WHERE label = 'TM-41')")
+        rc, out, err = pb(db, "flight", "move", f41, "--to", "TM-43")
+        self.assertEqual(rc, EXIT_OK, err)
+        self.assertEqual(self.kept_current(db), ["TM-41", "TM-42", "TM-43", "TM-44"])
+        # other rules than the kept ones: assessed afresh, the same as --reassess
+        self.fleets(db, "--retire-capacity", "90", "--retire-r0-ratio", "1.2")
+        self.fleets(db)
+
+
 class SyncCases:
     """sync from a crew's SQLite file to the backend (and back): each flight exactly once."""
 
@@ -494,6 +619,21 @@ class PostgresOnly(unittest.TestCase):
         rc, out, err = pb(as_viewer, "fleet")
         self.assertEqual(rc, EXIT_OK, err)
         self.assertIn("TM-41", out)
+        # rights granted before a step added pack_assessments (man packbook, ROLES): the
+        # import still stores, says the assessment could not be kept, and fleet assesses the
+        # pack from its flights (the same as --reassess)
+        self.B.admin(f"REVOKE ALL ON pack_assessments FROM {writer}", dbname)
+        rc, out, err = pb(as_writer, "import", "--pack", "TM-41", "--date", "2026-04-01",
+                          *subset(self.logs, 3, 6))
+        self.assertEqual(rc, EXIT_OK, err)
+        self.assertEqual(counts(out), (3, 0, 0))
+        self.assertIn("permission denied for table pack_assessments", err)
+        self.assertIn("assesses it from its flights", err)
+        kept = pb(as_viewer, "fleet", "--json")
+        fresh = pb(as_viewer, "fleet", "--json", "--reassess")
+        self.assertEqual((kept[0], fresh[0]), (EXIT_OK, EXIT_OK), kept[2] + fresh[2])
+        self.assertEqual(kept[1], fresh[1])
+        self.assertIn('"flights": 6', kept[1])
         # a writer cannot change the tables: the schema is the owner's (db migrate)
         rc, out, err = pb(as_writer, "db", "migrate")
         self.assertEqual(rc, EXIT_OK, err)
@@ -617,12 +757,12 @@ class PostgresOnly(unittest.TestCase):
                          [("t",)])
 
 
-class SqliteStore(Cases, unittest.TestCase):
+class SqliteStore(Cases, Kept, unittest.TestCase):
     backend = "sqlite"
 
 
 @unittest.skipUnless(pbstore.PG_ADMIN, pbstore.PG_SKIP)
-class PostgresStore(Cases, unittest.TestCase):
+class PostgresStore(Cases, Kept, unittest.TestCase):
     backend = "postgresql"
 
 
