@@ -2,8 +2,11 @@
 """The history store at fleet scale on either backend: 500 packs x 400 flights (200,000
 flights), then the query plans of what fleet, trend, compare and import run (EXPLAIN: each
 must reach flights through an index, never a scan of the whole table) and the time of
-`fleet`, `trend`, `compare` and a one-log `import`. A report, not a gate: exit status 1 only
-when a command failed or a plan scans the flights table.
+`fleet` (from the packs' kept assessments, and with --reassess from every flight), `db
+migrate` (which assesses and keeps every pack once, as import does for the packs it changes),
+`trend`, `compare`, a one-log `import` of a new log (stored, then its pack assessed and kept)
+and of a stored one. A report, not a gate: exit status 1 only when a command failed or a plan
+scans the flights table.
 
     store_scale.py --packbook EXE --tmp DIR [--packs 500] [--per-pack 400]
     sh tests/pg/cluster /usr/bin/python3 bench/store_scale.py --packbook EXE --tmp DIR \
@@ -224,8 +227,32 @@ def main():
         plan, full = B.plan(sql)
         scans += full
         print(f"| {what} | {plan.replace('|', '/')} | {'YES' if full else 'no'} |")
+    # the packs' kept assessments, as import keeps them pack by pack: once for the whole store
+    t1 = time.perf_counter()
+    subprocess.run([a.packbook, "db", "migrate"], check=True, env=env, stdout=subprocess.DEVNULL)
+    migrate_s = time.perf_counter() - t1
+    # a new flight into a pack of per_pack flights: stored, then the pack assessed and kept
+    news = []
+    with open(log) as f:
+        lines = f.read().splitlines()
+    for k in range(REPEATS):
+        last = lines[-1].split(",")
+        last[0] = f"{float(last[0]) + 0.001 * (k + 1):.3f}"
+        news.append(os.path.join(a.tmp, f"scale-new-{k}.csv"))
+        with open(news[-1], "w") as f:
+            f.write("\n".join(lines[:-1] + [",".join(last)]) + "\n")
+    new_s = []
+    for path in news:
+        t1 = time.perf_counter()
+        subprocess.run([a.packbook, "import", "--pack", "P0007", "--date", "2026-01-01",
+                        "--quiet", path], check=True, env=env, stdout=subprocess.DEVNULL)
+        new_s.append(time.perf_counter() - t1)
     # flight list reads every flight through the store and only prints: the store's share
     res = [("fleet", timed([a.packbook, "fleet"], env)),
+           ("fleet --reassess (every pack from its flights)",
+            timed([a.packbook, "fleet", "--reassess"], env)),
+           ("db migrate (every pack assessed and kept, once)", migrate_s),
+           ("import (a new log: stored, its pack assessed and kept)", min(new_s)),
            ("flight list (every flight: the store's reads)",
             timed([a.packbook, "flight", "list", "--csv"], env)),
            ("trend (a pack)", timed([a.packbook, "trend", "P0007"], env)),
