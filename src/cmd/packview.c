@@ -329,6 +329,20 @@ static enum pb_code load_view(struct store *st, const struct pack_rec *p,
     return PB_OK;
 }
 
+/* What a change to the history can change of pack p, from its view v. */
+static void summarize(const struct pack_rec *p, const struct pack_view *v, struct pack_summary *out)
+{
+    memset(out, 0, sizeof *out);
+    snprintf(out->label, sizeof out->label, "%s", p->label);
+    out->flights = v->health.flights;
+    out->cycles = isfinite(v->health.cycles) ? v->health.cycles : 0.0;
+    out->r0_base_mohm_cell = v->health.r0_base_mohm_cell;
+    snprintf(out->status, sizeof out->status, "%s",
+             p->retired_at[0] ? "retired" : health_status_name(v->health.status));
+    snprintf(out->reason, sizeof out->reason, "%s",
+             p->retired_at[0] ? p->retire_reason : v->health.reason);
+}
+
 enum pb_code packview_summary(struct store *st, const struct pack_rec *p, struct pack_summary *out,
                               struct pb_error *err)
 {
@@ -340,14 +354,7 @@ enum pb_code packview_summary(struct store *st, const struct pack_rec *p, struct
     enum pb_code rc = load_view(st, p, &rules, TREND_WEEK, 0, 1000.0, 0, &v, err);
     if (rc != PB_OK)
         return rc;
-    snprintf(out->label, sizeof out->label, "%s", p->label);
-    out->flights = v.health.flights;
-    out->cycles = isfinite(v.health.cycles) ? v.health.cycles : 0.0;
-    out->r0_base_mohm_cell = v.health.r0_base_mohm_cell;
-    snprintf(out->status, sizeof out->status, "%s",
-             p->retired_at[0] ? "retired" : health_status_name(v.health.status));
-    snprintf(out->reason, sizeof out->reason, "%s",
-             p->retired_at[0] ? p->retire_reason : v.health.reason);
+    summarize(p, &v, out);
     pack_view_release(&v);
     return PB_OK;
 }
@@ -365,17 +372,8 @@ enum pb_code packview_keep(struct store *st, const struct pack_rec *p, struct pa
         rc = fleet_view(st, p, &rules, &v, err);
     if (rc != PB_OK)
         return rc;
-    if (out) {
-        memset(out, 0, sizeof *out);
-        snprintf(out->label, sizeof out->label, "%s", p->label);
-        out->flights = v.health.flights;
-        out->cycles = isfinite(v.health.cycles) ? v.health.cycles : 0.0;
-        out->r0_base_mohm_cell = v.health.r0_base_mohm_cell;
-        snprintf(out->status, sizeof out->status, "%s",
-                 p->retired_at[0] ? "retired" : health_status_name(v.health.status));
-        snprintf(out->reason, sizeof out->reason, "%s",
-                 p->retired_at[0] ? p->retire_reason : v.health.reason);
-    }
+    if (out)
+        summarize(p, &v, out);
     char key[ASSESSMENT_KEY_CAP];
     assessment_key(p, &rules, gen, key, sizeof key);
     char *text = assessment_encode(&v);
