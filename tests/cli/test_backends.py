@@ -334,6 +334,15 @@ class Kept:
                                 "JOIN pack_assessments a ON a.pack_id = p.id")
         return sorted(r[0] for r in rows if f" gen={r[1]} " in r[2])
 
+    def test_code_hash_covers_the_core(self):
+        # the key's code hash (meson.build: assess_code.h) must change with any core source
+        with open(os.path.join(ROOT, "meson.build")) as f:
+            build = f.read()
+        listed = set(re.findall(r"'(src/core/[a-z_0-9]+\.[ch])'", build))
+        have = {f"src/core/{n}" for n in os.listdir(os.path.join(ROOT, "src", "core"))
+                if n.endswith((".c", ".h"))}
+        self.assertEqual(have - listed, set(), "core files outside the assessment code hash")
+
     def test_kept_assessments(self):
         db = self.B.fresh("kept")
         for label in ("TM-41", "TM-42", "TM-43", "TM-44"):
