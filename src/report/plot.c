@@ -670,53 +670,106 @@ static void column_flush(struct column *c, struct pen *pen)
     c->used = 0;
 }
 
+/* A line being drawn: the pen, the pixel column being reduced, where the
+ * last sample was and how many were fed. */
+struct plot_run {
+    struct plot *p;
+    const struct plot_panel *pa;
+    const struct plot_axis *ay;
+    struct pen pen;
+    struct column c;
+    int reduce;
+    double x_div, break_dx, xprev;
+    size_t k;
+};
+
+static void run_init(struct plot_run *r, struct plot *p, const struct plot_panel *pa, int right,
+                     size_t n, double x_div, double break_dx, const struct plot_style *st)
+{
+    memset(r, 0, sizeof *r);
+    r->p = p;
+    r->pa = pa;
+    r->ay = right ? &pa->y2 : &pa->y;
+    r->pen = (struct pen){p->cr, 0};
+    /* reduce only when there are several points per pixel column */
+    r->reduce = (double)n > 4.0 * (pa->x1 - pa->x0);
+    r->x_div = x_div;
+    r->break_dx = break_dx;
+    r->xprev = NAN;
+    clip_panel(p, pa);
+    set_style(p, st);
+    cairo_new_path(p->cr);
+}
+
+static void run_finish(struct plot_run *r)
+{
+    column_flush(&r->c, &r->pen);
+    cairo_stroke(r->p->cr);
+    unclip(r->p);
+}
+
+struct plot_run *plot_line_start(struct plot *p, const struct plot_panel *pa, int right, size_t n,
+                                 double x_div, double break_dx, const struct plot_style *st)
+{
+    struct plot_run *r = malloc(sizeof *r);
+    if (r)
+        run_init(r, p, pa, right, n, x_div, break_dx, st);
+    return r;
+}
+
+void plot_line_feed(struct plot_run *r, const double *x, const double *y, size_t n)
+{
+    struct column *c = &r->c;
+    for (size_t j = 0; j < n; j++) {
+        size_t k = r->k++;
+        int ok = isfinite(x[j]) && isfinite(y[j]);
+        if (!ok || (r->break_dx > 0 && isfinite(r->xprev) && x[j] - r->xprev > r->break_dx)) {
+            column_flush(c, &r->pen);
+            r->pen.down = 0;
+        }
+        if (isfinite(x[j]))
+            r->xprev = x[j];
+        if (!ok)
+            continue;
+        double fx = plot_px(r->pa, x[j] / r->x_div), fy = map_y(r->pa, r->ay, y[j]);
+        if (!r->reduce) {
+            pen_to(&r->pen, fx, fy);
+            continue;
+        }
+        long col = (long)floor(fx);
+        if (c->used && col != c->col)
+            column_flush(c, &r->pen);
+        if (!c->used) {
+            *c = (struct column){1, col, fx, fy, fx, fy, fy, fy, fx, fx, k, k};
+            continue;
+        }
+        c->fx_last = fx;
+        c->fy_last = fy;
+        if (fy < c->fy_lo) {
+            c->fy_lo = fy, c->fx_lo = fx, c->k_lo = k;
+        }
+        if (fy > c->fy_hi) {
+            c->fy_hi = fy, c->fx_hi = fx, c->k_hi = k;
+        }
+    }
+}
+
+void plot_line_end(struct plot_run *r)
+{
+    if (!r)
+        return;
+    run_finish(r);
+    free(r);
+}
+
 void plot_line(struct plot *p, const struct plot_panel *pa, int right, const double *x,
                const double *y, size_t n, double x_div, double break_dx,
                const struct plot_style *st)
 {
-    const struct plot_axis *ay = right ? &pa->y2 : &pa->y;
-    struct pen pen = {p->cr, 0};
-    struct column c = {0};
-    /* reduce only when there are several points per pixel column */
-    int reduce = (double)n > 4.0 * (pa->x1 - pa->x0);
-    clip_panel(p, pa);
-    set_style(p, st);
-    cairo_new_path(p->cr);
-    double xprev = NAN;
-    for (size_t k = 0; k < n; k++) {
-        int ok = isfinite(x[k]) && isfinite(y[k]);
-        if (!ok || (break_dx > 0 && isfinite(xprev) && x[k] - xprev > break_dx)) {
-            column_flush(&c, &pen);
-            pen.down = 0;
-        }
-        if (isfinite(x[k]))
-            xprev = x[k];
-        if (!ok)
-            continue;
-        double fx = plot_px(pa, x[k] / x_div), fy = map_y(pa, ay, y[k]);
-        if (!reduce) {
-            pen_to(&pen, fx, fy);
-            continue;
-        }
-        long col = (long)floor(fx);
-        if (c.used && col != c.col)
-            column_flush(&c, &pen);
-        if (!c.used) {
-            c = (struct column){1, col, fx, fy, fx, fy, fy, fy, fx, fx, k, k};
-            continue;
-        }
-        c.fx_last = fx;
-        c.fy_last = fy;
-        if (fy < c.fy_lo) {
-            c.fy_lo = fy, c.fx_lo = fx, c.k_lo = k;
-        }
-        if (fy > c.fy_hi) {
-            c.fy_hi = fy, c.fx_hi = fx, c.k_hi = k;
-        }
-    }
-    column_flush(&c, &pen);
-    cairo_stroke(p->cr);
-    unclip(p);
+    struct plot_run r;
+    run_init(&r, p, pa, right, n, x_div, break_dx, st);
+    plot_line_feed(&r, x, y, n);
+    run_finish(&r);
 }
 
 void plot_band(struct plot *p, const struct plot_panel *pa, const double *x, const double *lo,

@@ -125,6 +125,16 @@ void plot_line(struct plot *p, const struct plot_panel *pa, int right, const dou
                const double *y, size_t n, double x_div, double break_dx,
                const struct plot_style *st);
 
+/* The same line fed in pieces, so its values need not all be held at once:
+ * start (n: the samples that will be fed in all; NULL when out of memory),
+ * feed x[k], y[k] in order, end (draws it and frees the run; NULL is a
+ * no-op). The figure is the same as plot_line's. */
+struct plot_run;
+struct plot_run *plot_line_start(struct plot *p, const struct plot_panel *pa, int right, size_t n,
+                                 double x_div, double break_dx, const struct plot_style *st);
+void plot_line_feed(struct plot_run *r, const double *x, const double *y, size_t n);
+void plot_line_end(struct plot_run *r);
+
 /* Filled band between lo[k] and hi[k]. */
 void plot_band(struct plot *p, const struct plot_panel *pa, const double *x, const double *lo,
                const double *hi, size_t n, const struct plot_style *st);

@@ -21,8 +21,8 @@ static const struct plot_style hatch = {PLOT_GREY, 1, DASH_SOLID, 0};
 
 /* The per-sample figures the analysis makes (analyze_rows) are never all
  * held at once: one pass finds their ranges, and each line is made into one
- * scratch column just before it is drawn (the log's own columns are drawn
- * from the series). A 1M-row log then costs 8 bytes a row here, not 56. */
+ * block at a time as its line is drawn (the log's own columns are drawn
+ * from the series). A 1M-row log then costs 32 KiB here, not 56 bytes a row. */
 enum col { COL_POWER = 0, COL_OCV, COL_SOC_CC, COL_SOC_OCV, COL_N };
 
 struct col_ranges {
@@ -61,26 +61,42 @@ static void scan_ranges(void *ctx, const struct sample_row *r)
     c->k++;
 }
 
+/* A column made a block at a time and fed to its line as it is made. */
+#define COL_BLOCK 4096
 struct col_fill {
-    double *y;
+    double y[COL_BLOCK];
     enum col which;
-    size_t k;
+    size_t k, fed;
+    const double *t_s;
+    struct plot_run *run;
 };
 
 static void fill_col(void *ctx, const struct sample_row *r)
 {
     struct col_fill *f = ctx;
     f->y[f->k++] = col_value(r, f->which);
+    if (f->k == COL_BLOCK) {
+        plot_line_feed(f->run, f->t_s + f->fed, f->y, f->k);
+        f->fed += f->k;
+        f->k = 0;
+    }
 }
 
-/* Makes column which into scratch and draws it. */
-static void draw_col(struct plot *p, const struct plot_panel *q, int right, const struct series *s,
-                     const struct analysis *a, double rated_mah, double *scratch, enum col which,
-                     double x_div, const struct plot_style *st)
+/* Makes column which and draws it; -1 when out of memory. */
+static int draw_col(struct plot *p, const struct plot_panel *q, int right, const struct series *s,
+                    const struct analysis *a, double rated_mah, struct col_fill *f, enum col which,
+                    double x_div, const struct plot_style *st)
 {
-    struct col_fill f = {scratch, which, 0};
-    analyze_rows(s, a, rated_mah, fill_col, &f);
-    plot_line(p, q, right, s->t_s, scratch, s->n, x_div, a->gap_s, st);
+    f->which = which;
+    f->k = f->fed = 0;
+    f->t_s = s->t_s;
+    f->run = plot_line_start(p, q, right, s->n, x_div, a->gap_s, st);
+    if (!f->run)
+        return -1;
+    analyze_rows(s, a, rated_mah, fill_col, f);
+    plot_line_feed(f->run, f->t_s + f->fed, f->y, f->k);
+    plot_line_end(f->run);
+    return 0;
 }
 
 /* Widens [lo, hi] to the column's finite range. */
@@ -288,14 +304,14 @@ enum pb_code plot_flight(const char *path, const struct plot_opts *o, const stru
                          struct pb_error *err)
 {
     struct col_ranges c = {0};
-    double *scratch = NULL;
+    struct col_fill *scratch = NULL;
     enum pb_code rc = PB_OK;
     int has_cells = s->ncells > 0;
     int w = o->width ? o->width : 1600, h = o->height ? o->height : (has_cells ? 1300 : 1100);
     struct plot *p = plot_new(path, w, h, err);
     if (!p)
         return err->code;
-    scratch = malloc((s->n ? s->n : 1) * sizeof *scratch);
+    scratch = malloc(sizeof *scratch);
     if (!scratch) {
         rc = pb_error_set(err, PB_ENOMEM, "out of memory");
         goto cleanup;
@@ -488,6 +504,7 @@ enum pb_code plot_flight(const char *path, const struct plot_opts *o, const stru
     }
 
     (void)title_block(p, 1, s, a, rated_mah, o, name, &sp, left, right);
+    int oom = 0;
     for (int j = 0; j < np; j++) {
         struct plot_panel *q = &pa[j];
         shade(p, q, s, a, x_div);
@@ -498,10 +515,10 @@ enum pb_code plot_flight(const char *path, const struct plot_opts *o, const stru
                 plot_hline(p, q, floor_pack, &st_floor, NULL, 0);
             plot_line(p, q, 0, s->t_s, s->v_v, s->n, x_div, a->gap_s, &st_v);
             if (has_ocv)
-                draw_col(p, q, 0, s, a, rated_mah, scratch, COL_OCV, x_div, &st_ocv);
+                oom |= draw_col(p, q, 0, s, a, rated_mah, scratch, COL_OCV, x_div, &st_ocv);
             break;
         case P_CURRENT:
-            draw_col(p, q, 1, s, a, rated_mah, scratch, COL_POWER, x_div, &st_pw);
+            oom |= draw_col(p, q, 1, s, a, rated_mah, scratch, COL_POWER, x_div, &st_pw);
             plot_line(p, q, 0, s->t_s, s->i_a, s->n, x_div, a->gap_s, &st_i);
             break;
         case P_SOC:
@@ -509,9 +526,9 @@ enum pb_code plot_flight(const char *path, const struct plot_opts *o, const stru
             if (o->reserve_pct > 0)
                 plot_hline(p, q, o->reserve_pct, &st_floor, NULL, 0);
             if (has_soc_ocv)
-                draw_col(p, q, 0, s, a, rated_mah, scratch, COL_SOC_OCV, x_div, &st_socv);
+                oom |= draw_col(p, q, 0, s, a, rated_mah, scratch, COL_SOC_OCV, x_div, &st_socv);
             if (has_soc_cc)
-                draw_col(p, q, 0, s, a, rated_mah, scratch, COL_SOC_CC, x_div, &st_cc);
+                oom |= draw_col(p, q, 0, s, a, rated_mah, scratch, COL_SOC_CC, x_div, &st_cc);
             break;
         case P_CELLS:
             plot_hline(p, q, a->floor_v, &st_floor, NULL, 0);
@@ -542,6 +559,10 @@ enum pb_code plot_flight(const char *path, const struct plot_opts *o, const stru
             plot_marker(p, q, s->t_s[0] / x_div, y0, MARK_CIRCLE, 1, ms);
         }
         plot_legend(p, q, keys[j], nkeys[j]);
+    }
+    if (oom) {
+        rc = pb_error_set(err, PB_ENOMEM, "out of memory");
+        goto cleanup;
     }
     footer(p, left, right);
     rc = plot_finish_map(p, o->axes_json, pa, (size_t)np, err);
