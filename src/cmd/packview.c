@@ -190,8 +190,15 @@ enum pb_code packview_load_fleet(struct store *st, const struct health_rules *ru
     *nv = 0;
     enum pb_code rc = store_pack_list(st, &packs, &np, err);
     /* each wants the flights: no kept view then */
-    if (rc == PB_OK && !each && !reassess)
-        rc = store_assessments_list(st, &kept, &nkept, err);
+    if (rc == PB_OK && !each && !reassess) {
+        struct pb_error e = {PB_OK, ""};
+        enum pb_code krc = store_assessments_list(st, &kept, &nkept, &e);
+        if (krc == PB_ESTORE) /* a viewer granted rights before step 10: slower, not wrong */
+            fprintf(stderr, "packbook: note: %s (every pack is assessed from its flights)\n",
+                    e.msg);
+        else if (krc != PB_OK)
+            rc = pb_error_set(err, krc, "%s", e.msg);
+    }
     if (rc != PB_OK) {
         store_packs_free(packs);
         return rc;

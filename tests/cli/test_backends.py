@@ -643,6 +643,12 @@ class PostgresOnly(unittest.TestCase):
         self.assertEqual((kept[0], fresh[0]), (EXIT_OK, EXIT_OK), kept[2] + fresh[2])
         self.assertEqual(kept[1], fresh[1])
         self.assertIn('"flights": 6', kept[1])
+        # and a viewer granted SELECT before the step: fleet assesses from the flights
+        self.B.admin(f"REVOKE ALL ON pack_assessments FROM {viewer}", dbname)
+        late = pb(as_viewer, "fleet", "--json")
+        self.assertEqual(late[0], EXIT_OK, late[2])
+        self.assertEqual(late[1], fresh[1])
+        self.assertIn("permission denied for table pack_assessments", late[2])
         # a writer cannot change the tables: the schema is the owner's (db migrate)
         rc, out, err = pb(as_writer, "db", "migrate")
         self.assertEqual(rc, EXIT_OK, err)
