@@ -1,6 +1,5 @@
 #include "assessment.h"
 
-#include <errno.h>
 #include <math.h>
 #include <stdio.h>
 #include <stdlib.h>
@@ -117,7 +116,6 @@ char *assessment_encode(const struct pack_view *v)
 static int take(const char **p, double *x)
 {
     char *end;
-    errno = 0;
     *x = strtod(*p, &end);
     if (end == *p || (*end != ' ' && *end != '\n'))
         return -1;
