@@ -537,6 +537,52 @@ static void copy_text(char *dst, size_t cap, sqlite3_stmt *s, int col)
     }
 }
 
+/* Steps s (prepared and bound) to its end, each row made by fill into a
+ * growing array of size-byte records, and finalises s. fill returns -1 when
+ * out of memory; release (may be NULL) frees what n records own. On
+ * failure nothing is left to free. */
+static enum pb_code collect(struct store_impl *st, sqlite3_stmt *s, size_t size,
+                            int (*fill)(sqlite3_stmt *s, void *rec),
+                            void (*release)(void *recs, size_t n), void **out, size_t *n,
+                            const char *what, struct pb_error *err)
+{
+    char *v = NULL;
+    size_t len = 0, cap = 0;
+    int rc;
+    *out = NULL;
+    *n = 0;
+    while ((rc = sqlite3_step(s)) == SQLITE_ROW) {
+        if (len == cap) {
+            cap = cap ? 2 * cap : 16;
+            char *nv = realloc(v, cap * size);
+            if (!nv) {
+                rc = SQLITE_NOMEM;
+                break;
+            }
+            v = nv;
+        }
+        memset(v + len * size, 0, size);
+        int bad = fill(s, v + len * size) != 0;
+        len++;
+        if (bad) {
+            rc = SQLITE_NOMEM;
+            break;
+        }
+    }
+    sqlite3_finalize(s);
+    if (rc != SQLITE_DONE) {
+        if (release && v)
+            release(v, len);
+        else
+            free(v);
+        return rc == SQLITE_NOMEM ? pb_error_set(err, PB_ENOMEM, "out of memory")
+                                  : db_error(st, err, what);
+    }
+    *out = v;
+    *n = len;
+    return PB_OK;
+}
+
 static void read_pack(sqlite3_stmt *s, struct pack_rec *p)
 {
     memset(p, 0, sizeof *p);
@@ -606,38 +652,21 @@ static enum pb_code sq_pack_get(struct store_impl *st, const char *label, struct
     return PB_OK;
 }
 
+static int fill_pack(sqlite3_stmt *s, void *rec)
+{
+    read_pack(s, rec);
+    return 0;
+}
+
 static enum pb_code sq_pack_list(struct store_impl *st, struct pack_rec **out, size_t *n,
                                  struct pb_error *err)
 {
     sqlite3_stmt *s = NULL;
-    struct pack_rec *v = NULL;
-    size_t len = 0, cap = 0;
     *out = NULL;
     *n = 0;
     if (sqlite3_prepare_v2(st->db, SQL_PACK_LIST, -1, &s, NULL) != SQLITE_OK)
         return db_error(st, err, "cannot read packs");
-    int rc;
-    while ((rc = sqlite3_step(s)) == SQLITE_ROW) {
-        if (len == cap) {
-            cap = cap ? 2 * cap : 16;
-            struct pack_rec *nv = realloc(v, cap * sizeof *v);
-            if (!nv) {
-                free(v);
-                sqlite3_finalize(s);
-                return pb_error_set(err, PB_ENOMEM, "out of memory");
-            }
-            v = nv;
-        }
-        read_pack(s, &v[len++]);
-    }
-    sqlite3_finalize(s);
-    if (rc != SQLITE_DONE) {
-        free(v);
-        return db_error(st, err, "cannot read packs");
-    }
-    *out = v;
-    *n = len;
-    return PB_OK;
+    return collect(st, s, sizeof **out, fill_pack, NULL, (void **)out, n, "cannot read packs", err);
 }
 
 static enum pb_code sq_pack_retire(struct store_impl *st, const char *label, const char *reason,
@@ -933,13 +962,19 @@ static void read_flight(sqlite3_stmt *s, struct flight_rec *f)
 #undef X
 }
 
+static int fill_flight(sqlite3_stmt *s, void *rec)
+{
+    read_flight(s, rec);
+    return 0;
+}
+
 static enum pb_code sq_flights_of(struct store_impl *st, int64_t pack_id, struct flight_rec **out,
                                   size_t *n, struct pb_error *err)
 {
     char sql[2048];
     sqlite3_stmt *s = NULL, *c = NULL;
     struct flight_rec *v = NULL;
-    size_t len = 0, cap = 0;
+    size_t len = 0;
     *out = NULL;
     *n = 0;
     snprintf(sql, sizeof sql,
@@ -951,29 +986,24 @@ static enum pb_code sq_flights_of(struct store_impl *st, int64_t pack_id, struct
         return db_error(st, err, "cannot read flights");
     }
     sqlite3_bind_int64(s, 1, pack_id);
-    int rc;
-    while ((rc = sqlite3_step(s)) == SQLITE_ROW) {
-        if (len == cap) {
-            cap = cap ? 2 * cap : 32;
-            struct flight_rec *nv = realloc(v, cap * sizeof *v);
-            if (!nv) {
-                rc = SQLITE_NOMEM;
-                break;
-            }
-            v = nv;
-        }
-        struct flight_rec *f = &v[len++];
-        read_flight(s, f);
+    enum pb_code code =
+        collect(st, s, sizeof *v, fill_flight, NULL, (void **)&v, &len, "cannot read flights", err);
+    if (code != PB_OK) {
+        sqlite3_finalize(c);
+        return code;
     }
     /* the cells of the whole pack in one query, in the flights' order */
     sqlite3_bind_int64(c, 1, pack_id);
     size_t at = 0;
-    while (rc == SQLITE_DONE && sqlite3_step(c) == SQLITE_ROW) {
+    int rc;
+    while ((rc = sqlite3_step(c)) == SQLITE_ROW) {
         int64_t fid = sqlite3_column_int64(c, 0);
         while (at < len && v[at].id != fid)
             at++;
-        if (at == len)
+        if (at == len) { /* a flight stored since the first query: its cells wait */
+            rc = SQLITE_DONE;
             break;
+        }
         struct flight_rec *f = &v[at];
         if (f->ncells >= PB_MAX_CELLS)
             continue;
@@ -983,12 +1013,11 @@ static enum pb_code sq_flights_of(struct store_impl *st, int64_t pack_id, struct
         fc->voltage_min_v = col_num(c, 3);
         fc->voltage_rest_v = col_num(c, 4);
     }
-    sqlite3_finalize(s);
+    code = rc == SQLITE_DONE ? PB_OK : db_error(st, err, "cannot read flights");
     sqlite3_finalize(c);
-    if (rc != SQLITE_DONE) {
+    if (code != PB_OK) {
         free(v);
-        return rc == SQLITE_NOMEM ? pb_error_set(err, PB_ENOMEM, "out of memory")
-                                  : db_error(st, err, "cannot read flights");
+        return code;
     }
     *out = v;
     *n = len;
@@ -1116,42 +1145,26 @@ static enum pb_code sq_flight_move(struct store_impl *st, int64_t id, int64_t to
     return rc;
 }
 
+static int fill_ack(sqlite3_stmt *s, void *rec)
+{
+    struct flight_ack *a = rec;
+    a->flight_id = sqlite3_column_int64(s, 0);
+    copy_text(a->note, sizeof a->note, s, 1);
+    copy_text(a->acked_at, sizeof a->acked_at, s, 2);
+    return 0;
+}
+
 static enum pb_code sq_acks_of(struct store_impl *st, int64_t pack_id, struct flight_ack **out,
                                size_t *n, struct pb_error *err)
 {
     sqlite3_stmt *s = NULL;
-    struct flight_ack *v = NULL;
-    size_t len = 0, cap = 0;
     *out = NULL;
     *n = 0;
     if (sqlite3_prepare_v2(st->db, SQL_ACKS_OF, -1, &s, NULL) != SQLITE_OK)
         return db_error(st, err, "cannot read acknowledgements");
     sqlite3_bind_int64(s, 1, pack_id);
-    int rc;
-    while ((rc = sqlite3_step(s)) == SQLITE_ROW) {
-        if (len == cap) {
-            cap = cap ? 2 * cap : 8;
-            struct flight_ack *nv = realloc(v, cap * sizeof *v);
-            if (!nv) {
-                rc = SQLITE_NOMEM;
-                break;
-            }
-            v = nv;
-        }
-        struct flight_ack *a = &v[len++];
-        a->flight_id = sqlite3_column_int64(s, 0);
-        copy_text(a->note, sizeof a->note, s, 1);
-        copy_text(a->acked_at, sizeof a->acked_at, s, 2);
-    }
-    sqlite3_finalize(s);
-    if (rc != SQLITE_DONE) {
-        free(v);
-        return rc == SQLITE_NOMEM ? pb_error_set(err, PB_ENOMEM, "out of memory")
-                                  : db_error(st, err, "cannot read acknowledgements");
-    }
-    *out = v;
-    *n = len;
-    return PB_OK;
+    return collect(st, s, sizeof **out, fill_ack, NULL, (void **)out, n,
+                   "cannot read acknowledgements", err);
 }
 
 static enum pb_code sq_flight_ack(struct store_impl *st, int64_t flight_id, const char *note,
@@ -1182,43 +1195,27 @@ static enum pb_code sq_flight_ack(struct store_impl *st, int64_t flight_id, cons
     return r == SQLITE_DONE ? PB_OK : db_error(st, err, "cannot store the acknowledgement");
 }
 
+static int fill_pair(sqlite3_stmt *s, void *rec)
+{
+    struct pair_rec *r = rec;
+    r->a_id = sqlite3_column_int64(s, 0);
+    copy_text(r->a, sizeof r->a, s, 1);
+    r->b_id = sqlite3_column_int64(s, 2);
+    copy_text(r->b, sizeof r->b, s, 3);
+    copy_text(r->created_at, sizeof r->created_at, s, 4);
+    return 0;
+}
+
 static enum pb_code sq_pairs_list(struct store_impl *st, struct pair_rec **out, size_t *n,
                                   struct pb_error *err)
 {
     sqlite3_stmt *s = NULL;
-    struct pair_rec *v = NULL;
-    size_t len = 0, cap = 0;
     *out = NULL;
     *n = 0;
     if (sqlite3_prepare_v2(st->db, SQL_PAIRS_LIST, -1, &s, NULL) != SQLITE_OK)
         return db_error(st, err, "cannot read the pairs");
-    int rc;
-    while ((rc = sqlite3_step(s)) == SQLITE_ROW) {
-        if (len == cap) {
-            cap = cap ? 2 * cap : 8;
-            struct pair_rec *nv = realloc(v, cap * sizeof *v);
-            if (!nv) {
-                rc = SQLITE_NOMEM;
-                break;
-            }
-            v = nv;
-        }
-        struct pair_rec *r = &v[len++];
-        r->a_id = sqlite3_column_int64(s, 0);
-        copy_text(r->a, sizeof r->a, s, 1);
-        r->b_id = sqlite3_column_int64(s, 2);
-        copy_text(r->b, sizeof r->b, s, 3);
-        copy_text(r->created_at, sizeof r->created_at, s, 4);
-    }
-    sqlite3_finalize(s);
-    if (rc != SQLITE_DONE) {
-        free(v);
-        return rc == SQLITE_NOMEM ? pb_error_set(err, PB_ENOMEM, "out of memory")
-                                  : db_error(st, err, "cannot read the pairs");
-    }
-    *out = v;
-    *n = len;
-    return PB_OK;
+    return collect(st, s, sizeof **out, fill_pair, NULL, (void **)out, n, "cannot read the pairs",
+                   err);
 }
 
 static enum pb_code sq_pair_add(struct store_impl *st, const struct pack_rec *a,
@@ -1278,45 +1275,29 @@ static int dup_text(char **dst, sqlite3_stmt *s, int col)
     return *dst ? 0 : -1;
 }
 
+static int fill_assessment(sqlite3_stmt *s, void *rec)
+{
+    struct assessment_rec *r = rec;
+    r->pack_id = sqlite3_column_int64(s, 0);
+    r->history_gen = sqlite3_column_int64(s, 1);
+    return dup_text(&r->inputs_key, s, 2) != 0 || dup_text(&r->assessment, s, 3) != 0 ? -1 : 0;
+}
+
+static void release_assessments(void *recs, size_t n)
+{
+    store_assessments_free(recs, n);
+}
+
 static enum pb_code sq_assessments_list(struct store_impl *st, struct assessment_rec **out,
                                         size_t *n, struct pb_error *err)
 {
     sqlite3_stmt *s = NULL;
-    struct assessment_rec *v = NULL;
-    size_t len = 0, cap = 0;
     *out = NULL;
     *n = 0;
     if (sqlite3_prepare_v2(st->db, SQL_ASSESS_LIST, -1, &s, NULL) != SQLITE_OK)
         return db_error(st, err, "cannot read the kept assessments");
-    int rc;
-    while ((rc = sqlite3_step(s)) == SQLITE_ROW) {
-        if (len == cap) {
-            cap = cap ? 2 * cap : 64;
-            struct assessment_rec *nv = realloc(v, cap * sizeof *v);
-            if (!nv) {
-                rc = SQLITE_NOMEM;
-                break;
-            }
-            v = nv;
-        }
-        struct assessment_rec *r = &v[len++];
-        r->pack_id = sqlite3_column_int64(s, 0);
-        r->history_gen = sqlite3_column_int64(s, 1);
-        r->assessment = NULL;
-        if (dup_text(&r->inputs_key, s, 2) != 0 || dup_text(&r->assessment, s, 3) != 0) {
-            rc = SQLITE_NOMEM;
-            break;
-        }
-    }
-    sqlite3_finalize(s);
-    if (rc != SQLITE_DONE) {
-        store_assessments_free(v, len);
-        return rc == SQLITE_NOMEM ? pb_error_set(err, PB_ENOMEM, "out of memory")
-                                  : db_error(st, err, "cannot read the kept assessments");
-    }
-    *out = v;
-    *n = len;
-    return PB_OK;
+    return collect(st, s, sizeof **out, fill_assessment, release_assessments, (void **)out, n,
+                   "cannot read the kept assessments", err);
 }
 
 static enum pb_code sq_history_gen(struct store_impl *st, int64_t pack_id, int64_t *gen,
