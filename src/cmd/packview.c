@@ -389,7 +389,7 @@ enum pb_code packview_keep(struct store *st, const struct pack_rec *p, struct pa
         return pb_error_set(err, PB_ENOMEM, "out of memory");
     /* only the fleet view's speed depends on it: a failure is said, not fatal */
     struct pb_error e = {PB_OK, ""};
-    if (store_assessment_put(st, p->id, key, text, &e) != PB_OK)
+    if (store_assessment_put(st, p->id, gen, key, text, &e) != PB_OK)
         fprintf(stderr,
                 "packbook: note: %s (pack %s: 'packbook fleet' assesses it from its flights "
                 "until its assessment can be kept)\n",

@@ -67,8 +67,9 @@ struct store_ops {
                                      struct pb_error *err);
     enum pb_code (*history_gen)(struct store_impl *st, int64_t pack_id, int64_t *gen,
                                 struct pb_error *err);
-    enum pb_code (*assessment_put)(struct store_impl *st, int64_t pack_id, const char *inputs_key,
-                                   const char *assessment, struct pb_error *err);
+    enum pb_code (*assessment_put)(struct store_impl *st, int64_t pack_id, int64_t history_gen,
+                                   const char *inputs_key, const char *assessment,
+                                   struct pb_error *err);
 };
 
 extern const struct store_ops store_sqlite_ops;

@@ -316,10 +316,11 @@ enum pb_code store_history_gen(struct store *st, int64_t pack_id, int64_t *gen,
     return st->ops->history_gen(st->impl, pack_id, gen, err);
 }
 
-enum pb_code store_assessment_put(struct store *st, int64_t pack_id, const char *inputs_key,
-                                  const char *assessment, struct pb_error *err)
+enum pb_code store_assessment_put(struct store *st, int64_t pack_id, int64_t history_gen,
+                                  const char *inputs_key, const char *assessment,
+                                  struct pb_error *err)
 {
-    return st->ops->assessment_put(st->impl, pack_id, inputs_key, assessment, err);
+    return st->ops->assessment_put(st->impl, pack_id, history_gen, inputs_key, assessment, err);
 }
 
 int store_default_path(char *buf, size_t cap)

@@ -270,9 +270,12 @@ void store_assessments_free(struct assessment_rec *a, size_t n);
 enum pb_code store_history_gen(struct store *st, int64_t pack_id, int64_t *gen,
                                struct pb_error *err);
 
-/* Keeps an assessment of pack pack_id (replacing the one kept). */
-enum pb_code store_assessment_put(struct store *st, int64_t pack_id, const char *inputs_key,
-                                  const char *assessment, struct pb_error *err);
+/* Keeps an assessment of pack pack_id made at history generation
+ * history_gen, replacing the one kept unless that one was made at a newer
+ * generation. */
+enum pb_code store_assessment_put(struct store *st, int64_t pack_id, int64_t history_gen,
+                                  const char *inputs_key, const char *assessment,
+                                  struct pb_error *err);
 
 /* The default database: $PACKBOOK_DB (a path or a connection string), else
  * $XDG_DATA_HOME/packbook/packbook.db, else $HOME/.local/share/packbook/packbook.db. Writes into

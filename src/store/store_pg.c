@@ -114,6 +114,7 @@ static const char *const pg_steps[] = {
     "ALTER TABLE packs ADD COLUMN history_gen bigint NOT NULL DEFAULT 0;"
     "CREATE TABLE pack_assessments ("
     "  pack_id bigint PRIMARY KEY REFERENCES packs(id) ON DELETE CASCADE,"
+    "  history_gen bigint NOT NULL,"
     "  inputs_key text NOT NULL,"
     "  assessment text NOT NULL,"
     "  written_at text NOT NULL);"
@@ -1232,7 +1233,7 @@ static enum pb_code pg_history_gen(struct store_impl *st, int64_t pack_id, int64
     return PB_OK;
 }
 
-static enum pb_code pg_assessment_put(struct store_impl *st, int64_t pack_id,
+static enum pb_code pg_assessment_put(struct store_impl *st, int64_t pack_id, int64_t history_gen,
                                       const char *inputs_key, const char *assessment,
                                       struct pb_error *err)
 {
@@ -1240,6 +1241,7 @@ static enum pb_code pg_assessment_put(struct store_impl *st, int64_t pack_id,
     char now[32];
     now_iso(now, sizeof now);
     p_int(&q, pack_id);
+    p_int(&q, history_gen);
     p_text(&q, inputs_key);
     p_text(&q, assessment);
     p_text(&q, now);

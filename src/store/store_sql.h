@@ -24,8 +24,9 @@
     X(r0_mohm)                                                                                     \
     X(r0_ci95_mohm)                                                                                \
     X(r1_mohm)                                                                                     \
-    X(tau_s) X(soc_start_pct) X(soc_end_pct) X(capacity_mah) X(capacity_ci95_mah)                  \
-        X(cell_spread_rest_mv) X(cell_spread_load_mv) X(temperature_max_c) X(power_cruise_w)
+    X(tau_s)                                                                                       \
+    X(soc_start_pct) X(soc_end_pct) X(capacity_mah) X(capacity_ci95_mah) X(cell_spread_rest_mv)    \
+        X(cell_spread_load_mv) X(temperature_max_c) X(power_cruise_w)
 
 #define FLIGHT_HEAD_COLS                                                                           \
     "id, pack_id, content_hash, source, flown_epoch_s, date_source, weakest_cell, warnings"
@@ -87,9 +88,13 @@
     "SELECT p.id, p.history_gen, a.inputs_key, a.assessment FROM packs p "                         \
     "LEFT JOIN pack_assessments a ON a.pack_id = p.id ORDER BY p.id"
 #define SQL_HISTORY_GEN "SELECT history_gen FROM packs WHERE id = ?"
+/* the newest history wins: a writer that assessed an older generation
+ * (another crew stored a flight meanwhile) does not replace a newer one */
 #define SQL_ASSESS_PUT                                                                             \
-    "INSERT INTO pack_assessments (pack_id, inputs_key, assessment, written_at) "                  \
-    "VALUES (?1, ?2, ?3, ?4) ON CONFLICT (pack_id) DO UPDATE SET inputs_key = excluded.inputs_key, " \
-    "assessment = excluded.assessment, written_at = excluded.written_at"
+    "INSERT INTO pack_assessments (pack_id, history_gen, inputs_key, assessment, written_at) "     \
+    "VALUES (?1, ?2, ?3, ?4, ?5) ON CONFLICT (pack_id) DO UPDATE SET "                             \
+    "history_gen = excluded.history_gen, inputs_key = excluded.inputs_key, "                       \
+    "assessment = excluded.assessment, written_at = excluded.written_at "                          \
+    "WHERE pack_assessments.history_gen <= excluded.history_gen"
 
 #endif

@@ -110,6 +110,7 @@ static const char *const migrations[] = {
     "ALTER TABLE packs ADD COLUMN history_gen INTEGER NOT NULL DEFAULT 0;"
     "CREATE TABLE pack_assessments ("
     "  pack_id INTEGER PRIMARY KEY REFERENCES packs(id) ON DELETE CASCADE,"
+    "  history_gen INTEGER NOT NULL,"
     "  inputs_key TEXT NOT NULL,"
     "  assessment TEXT NOT NULL,"
     "  written_at TEXT NOT NULL);"
@@ -1316,7 +1317,7 @@ static enum pb_code sq_history_gen(struct store_impl *st, int64_t pack_id, int64
     return rc == SQLITE_ROW ? PB_OK : db_error(st, err, "cannot read packs");
 }
 
-static enum pb_code sq_assessment_put(struct store_impl *st, int64_t pack_id,
+static enum pb_code sq_assessment_put(struct store_impl *st, int64_t pack_id, int64_t history_gen,
                                       const char *inputs_key, const char *assessment,
                                       struct pb_error *err)
 {
@@ -1327,9 +1328,10 @@ static enum pb_code sq_assessment_put(struct store_impl *st, int64_t pack_id,
     if (sqlite3_prepare_v2(st->db, SQL_ASSESS_PUT, -1, &s, NULL) != SQLITE_OK)
         return db_error(st, err, "cannot keep the pack's assessment");
     sqlite3_bind_int64(s, 1, pack_id);
-    sqlite3_bind_text(s, 2, inputs_key, -1, SQLITE_TRANSIENT);
-    sqlite3_bind_text(s, 3, assessment, -1, SQLITE_TRANSIENT);
-    sqlite3_bind_text(s, 4, now, -1, SQLITE_TRANSIENT);
+    sqlite3_bind_int64(s, 2, history_gen);
+    sqlite3_bind_text(s, 3, inputs_key, -1, SQLITE_TRANSIENT);
+    sqlite3_bind_text(s, 4, assessment, -1, SQLITE_TRANSIENT);
+    sqlite3_bind_text(s, 5, now, -1, SQLITE_TRANSIENT);
     int rc = sqlite3_step(s);
     sqlite3_finalize(s);
     return rc == SQLITE_DONE ? PB_OK : db_error(st, err, "cannot keep the pack's assessment");

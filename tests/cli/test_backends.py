@@ -405,6 +405,19 @@ class Kept:
         rc, out, err = pb(db, "flight", "move", f41, "--to", "TM-43")
         self.assertEqual(rc, EXIT_OK, err)
         self.assertEqual(self.kept_current(db), ["TM-41", "TM-42", "TM-43", "TM-44"])
+        # a writer that assessed an older generation (another crew stored a flight meanwhile)
+        # does not replace a newer assessment: here the kept one claims a far newer one
+        self.B.query(db, "UPDATE pack_assessments SET history_gen = 1000000000 WHERE pack_id = "
+                         "(SELECT id FROM packs WHERE label = 'TM-42')")
+        (f42,), = self.B.query(db, "SELECT max(id) FROM flights WHERE pack_id = (SELECT id "
+                                   "FROM packs WHERE label = 'TM-42')")
+        rc, out, err = pb(db, "flight", "ack", f42, "--note", "late writer")
+        self.assertEqual(rc, EXIT_OK, err)
+        self.assertEqual(self.B.query(db, "SELECT history_gen FROM pack_assessments WHERE "
+                                          "pack_id = (SELECT id FROM packs WHERE label = "
+                                          "'TM-42')"), [(1000000000,)])
+        self.assertNotIn("TM-42", self.kept_current(db))
+        self.fleets(db)
         # other rules than the kept ones: assessed afresh, the same as --reassess
         self.fleets(db, "--retire-capacity", "90", "--retire-r0-ratio", "1.2")
         self.fleets(db)
