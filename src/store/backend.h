@@ -27,13 +27,13 @@ struct store_ops {
                              struct pb_error *err);
     enum pb_code (*pack_list)(struct store_impl *st, struct pack_rec **out, size_t *n,
                               struct pb_error *err);
-    enum pb_code (*pack_retire)(struct store_impl *st, const char *label, const char *reason,
-                                struct pb_error *err);
+    /* retired_at NULL: back in service (reason NULL too) */
+    enum pb_code (*pack_set_retired)(struct store_impl *st, int64_t id, const char *retired_at,
+                                     const char *reason, struct pb_error *err);
     enum pb_code (*pack_by_id)(struct store_impl *st, int64_t id, struct pack_rec *out,
                                struct pb_error *err);
     enum pb_code (*pack_update)(struct store_impl *st, const struct pack_rec *p,
                                 struct pb_error *err);
-    enum pb_code (*pack_unretire)(struct store_impl *st, const char *label, struct pb_error *err);
     enum pb_code (*flights_analysed_otherwise)(struct store_impl *st, int64_t pack_id, int cells,
                                                const char *chemistry, size_t *n,
                                                struct pb_error *err);
@@ -55,12 +55,20 @@ struct store_ops {
                                 struct pb_error *err);
     enum pb_code (*acks_of)(struct store_impl *st, int64_t pack_id, struct flight_ack **out,
                             size_t *n, struct pb_error *err);
-    enum pb_code (*flight_ack)(struct store_impl *st, int64_t flight_id, const char *note,
-                               char *pack_label, size_t cap, struct pb_error *err);
+    /* the label of flight id's pack into label; *found 0 when there is no such flight */
+    enum pb_code (*flight_label)(struct store_impl *st, int64_t id, char *label, size_t cap,
+                                 int *found, struct pb_error *err);
+    /* stores (or replaces) the acknowledgement of flight_id */
+    enum pb_code (*ack_put)(struct store_impl *st, int64_t flight_id, const char *note,
+                            const char *acked_at, struct pb_error *err);
     enum pb_code (*pairs_list)(struct store_impl *st, struct pair_rec **out, size_t *n,
                                struct pb_error *err);
-    enum pb_code (*pair_add)(struct store_impl *st, const struct pack_rec *a,
-                             const struct pack_rec *b, struct pb_error *err);
+    /* how many registered pairs hold pack lo or hi */
+    enum pb_code (*pairs_busy)(struct store_impl *st, int64_t lo, int64_t hi, int64_t *busy,
+                               struct pb_error *err);
+    /* registers lo < hi as a pair */
+    enum pb_code (*pair_put)(struct store_impl *st, int64_t lo, int64_t hi, const char *created_at,
+                             struct pb_error *err);
     enum pb_code (*pair_remove)(struct store_impl *st, const struct pack_rec *p, int *removed,
                                 struct pb_error *err);
     enum pb_code (*assessments_list)(struct store_impl *st, struct assessment_rec **out, size_t *n,
@@ -71,6 +79,9 @@ struct store_ops {
                                    const char *inputs_key, const char *assessment,
                                    struct pb_error *err);
 };
+
+/* Now as ISO 8601 UTC (what the tables' *_at columns hold), into buf. */
+void store_now_iso(char *buf, size_t cap);
 
 extern const struct store_ops store_sqlite_ops;
 extern const struct store_ops store_pg_ops;

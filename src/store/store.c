@@ -6,7 +6,9 @@
 #include <stdlib.h>
 #include <string.h>
 #include <strings.h>
+#include <time.h>
 
+#include "../core/isotime.h"
 #include "backend.h"
 
 struct store {
@@ -14,6 +16,13 @@ struct store {
     struct store_impl *impl;
     char shown[1024]; /* the database as messages name it: no password */
 };
+
+void store_now_iso(char *buf, size_t cap)
+{
+    struct timespec ts;
+    clock_gettime(CLOCK_REALTIME, &ts);
+    isotime_format((double)ts.tv_sec, buf, cap);
+}
 
 int store_is_server(const char *db)
 {
@@ -170,7 +179,16 @@ enum pb_code store_pack_list(struct store *st, struct pack_rec **out, size_t *n,
 enum pb_code store_pack_retire(struct store *st, const char *label, const char *reason,
                                struct pb_error *err)
 {
-    return st->ops->pack_retire(st->impl, label, reason, err);
+    struct pack_rec p;
+    enum pb_code rc = st->ops->pack_get(st->impl, label, &p, err);
+    if (rc != PB_OK)
+        return rc;
+    if (p.retired_at[0])
+        return pb_error_set(err, PB_EUSAGE, "pack '%s' was retired already on %s (%s)", label,
+                            p.retired_at, p.retire_reason);
+    char now[32];
+    store_now_iso(now, sizeof now);
+    return st->ops->pack_set_retired(st->impl, p.id, now, reason, err);
 }
 
 void store_packs_free(struct pack_rec *p)
@@ -191,7 +209,13 @@ enum pb_code store_pack_update(struct store *st, const struct pack_rec *p, struc
 
 enum pb_code store_pack_unretire(struct store *st, const char *label, struct pb_error *err)
 {
-    return st->ops->pack_unretire(st->impl, label, err);
+    struct pack_rec p;
+    enum pb_code rc = st->ops->pack_get(st->impl, label, &p, err);
+    if (rc != PB_OK)
+        return rc;
+    if (!p.retired_at[0])
+        return pb_error_set(err, PB_EUSAGE, "pack '%s' is in service already", label);
+    return st->ops->pack_set_retired(st->impl, p.id, NULL, NULL, err);
 }
 
 enum pb_code store_flights_analysed_otherwise(struct store *st, int64_t pack_id, int cells,
@@ -267,7 +291,16 @@ void store_acks_free(struct flight_ack *a)
 enum pb_code store_flight_ack(struct store *st, int64_t flight_id, const char *note,
                               char *pack_label, size_t cap, struct pb_error *err)
 {
-    return st->ops->flight_ack(st->impl, flight_id, note, pack_label, cap, err);
+    int found = 0;
+    enum pb_code rc = st->ops->flight_label(st->impl, flight_id, pack_label, cap, &found, err);
+    if (rc != PB_OK)
+        return rc;
+    if (!found)
+        return pb_error_set(err, PB_EUSAGE, "no flight %lld (see 'packbook flight list')",
+                            (long long)flight_id);
+    char now[32];
+    store_now_iso(now, sizeof now);
+    return st->ops->ack_put(st->impl, flight_id, note, now, err);
 }
 
 enum pb_code store_pairs_list(struct store *st, struct pair_rec **out, size_t *n,
@@ -284,7 +317,19 @@ void store_pairs_free(struct pair_rec *p)
 enum pb_code store_pair_add(struct store *st, const struct pack_rec *a, const struct pack_rec *b,
                             struct pb_error *err)
 {
-    return st->ops->pair_add(st->impl, a, b, err);
+    if (a->id == b->id)
+        return pb_error_set(err, PB_EUSAGE, "pack pair: '%s' cannot pair with itself", a->label);
+    int64_t lo = a->id < b->id ? a->id : b->id, hi = a->id < b->id ? b->id : a->id, busy = 0;
+    enum pb_code rc = st->ops->pairs_busy(st->impl, lo, hi, &busy, err);
+    if (rc != PB_OK)
+        return rc;
+    if (busy > 0)
+        return pb_error_set(err, PB_EUSAGE,
+                            "pack pair: '%s' or '%s' is paired already (packbook pack unpair ID)",
+                            a->label, b->label);
+    char now[32];
+    store_now_iso(now, sizeof now);
+    return st->ops->pair_put(st->impl, lo, hi, now, err);
 }
 
 enum pb_code store_pair_remove(struct store *st, const struct pack_rec *p, int *removed,

@@ -349,13 +349,6 @@ static void get_text(char *dst, size_t cap, const PGresult *r, int row, int col)
     }
 }
 
-static void now_iso(char *buf, size_t cap)
-{
-    struct timespec ts;
-    clock_gettime(CLOCK_REALTIME, &ts);
-    isotime_format((double)ts.tv_sec, buf, cap);
-}
-
 /* ---- opening and schema ------------------------------------------------- */
 
 /* What the database holds before anything is written: *version -1 when it
@@ -576,7 +569,7 @@ static void read_pack(const PGresult *r, int row, struct pack_rec *p)
 static enum pb_code pg_pack_add(struct store_impl *st, struct pack_rec *p, struct pb_error *err)
 {
     struct params q = {0};
-    now_iso(p->created_at, sizeof p->created_at);
+    store_now_iso(p->created_at, sizeof p->created_at);
     p_text(&q, p->label);
     p_int(&q, p->cells);
     p_int(&q, p->parallel);
@@ -674,22 +667,18 @@ static enum pb_code write_one(struct store_impl *st, const char *sql, const stru
     return PB_OK;
 }
 
-static enum pb_code pg_pack_retire(struct store_impl *st, const char *label, const char *reason,
-                                   struct pb_error *err)
+static enum pb_code pg_pack_set_retired(struct store_impl *st, int64_t id, const char *retired_at,
+                                        const char *reason, struct pb_error *err)
 {
-    struct pack_rec p;
-    enum pb_code rc = pg_pack_get(st, label, &p, err);
-    if (rc != PB_OK)
-        return rc;
-    if (p.retired_at[0])
-        return pb_error_set(err, PB_EUSAGE, "pack '%s' was retired already on %s (%s)", label,
-                            p.retired_at, p.retire_reason);
-    char now[32];
-    now_iso(now, sizeof now);
     struct params q = {0};
-    p_text(&q, now);
+    if (!retired_at) {
+        p_int(&q, id);
+        return write_one(st, SQL_PACK_UNRETIRE, &q, NULL, "UPDATE",
+                         "cannot return the pack to service", err);
+    }
+    p_text(&q, retired_at);
     p_text(&q, reason);
-    p_int(&q, p.id);
+    p_int(&q, id);
     return write_one(st, SQL_PACK_RETIRE, &q, NULL, "UPDATE", "cannot retire the pack", err);
 }
 
@@ -715,20 +704,6 @@ static enum pb_code pg_pack_update(struct store_impl *st, const struct pack_rec 
         return fail(st, r, "UPDATE", "cannot change the pack", err);
     PQclear(r);
     return PB_OK;
-}
-
-static enum pb_code pg_pack_unretire(struct store_impl *st, const char *label, struct pb_error *err)
-{
-    struct pack_rec p;
-    enum pb_code rc = pg_pack_get(st, label, &p, err);
-    if (rc != PB_OK)
-        return rc;
-    if (!p.retired_at[0])
-        return pb_error_set(err, PB_EUSAGE, "pack '%s' is in service already", label);
-    struct params q = {0};
-    p_int(&q, p.id);
-    return write_one(st, SQL_PACK_UNRETIRE, &q, NULL, "UPDATE", "cannot return the pack to service",
-                     err);
 }
 
 /* ---- flights ------------------------------------------------------------ */
@@ -814,7 +789,7 @@ static enum pb_code put_once(struct store_impl *st, const struct flight_rec *f, 
     /* two crews' imports of one log: the second finds the first's row */
     snprintf(sql + used, sizeof sql - (size_t)used,
              ") ON CONFLICT (content_hash) DO NOTHING RETURNING id");
-    now_iso(now, sizeof now);
+    store_now_iso(now, sizeof now);
     isotime_format(f->flown_epoch_s, when, sizeof when);
     q.n = 0;
     p_int(&q, f->pack_id);
@@ -1099,24 +1074,28 @@ static enum pb_code pg_acks_of(struct store_impl *st, int64_t pack_id, struct fl
     return PB_OK;
 }
 
-static enum pb_code pg_flight_ack(struct store_impl *st, int64_t flight_id, const char *note,
-                                  char *pack_label, size_t cap, struct pb_error *err)
+static enum pb_code pg_flight_label(struct store_impl *st, int64_t id, char *label, size_t cap,
+                                    int *found, struct pb_error *err)
 {
     struct params q = {0};
-    p_int(&q, flight_id);
+    p_int(&q, id);
     PGresult *r = run(st, SQL_FLIGHT_LABEL, &q);
     if (!ok(r))
         return fail(st, r, "SELECT", "cannot read the flight", err);
-    int found = PQntuples(r) > 0;
-    if (found)
-        get_text(pack_label, cap, r, 0, 0);
+    *found = PQntuples(r) > 0;
+    if (*found)
+        get_text(label, cap, r, 0, 0);
     PQclear(r);
-    if (!found)
-        return no_flight(flight_id, err);
-    char now[32];
-    now_iso(now, sizeof now);
+    return PB_OK;
+}
+
+static enum pb_code pg_ack_put(struct store_impl *st, int64_t flight_id, const char *note,
+                               const char *acked_at, struct pb_error *err)
+{
+    struct params q = {0};
+    p_int(&q, flight_id);
     p_text(&q, note);
-    p_text(&q, now);
+    p_text(&q, acked_at);
     return write_one(st, SQL_ACK_PUT, &q, NULL, "INSERT", "cannot store the acknowledgement", err);
 }
 
@@ -1147,27 +1126,27 @@ static enum pb_code pg_pairs_list(struct store_impl *st, struct pair_rec **out, 
     return PB_OK;
 }
 
-static enum pb_code pg_pair_add(struct store_impl *st, const struct pack_rec *a,
-                                const struct pack_rec *b, struct pb_error *err)
+static enum pb_code pg_pairs_busy(struct store_impl *st, int64_t lo, int64_t hi, int64_t *busy,
+                                  struct pb_error *err)
 {
-    if (a->id == b->id)
-        return pb_error_set(err, PB_EUSAGE, "pack pair: '%s' cannot pair with itself", a->label);
-    const struct pack_rec *lo = a->id < b->id ? a : b, *hi = a->id < b->id ? b : a;
     struct params q = {0};
-    p_int(&q, lo->id);
-    p_int(&q, hi->id);
+    p_int(&q, lo);
+    p_int(&q, hi);
     PGresult *r = run(st, SQL_PAIR_BUSY, &q);
     if (!ok(r))
         return fail(st, r, "SELECT", "cannot read the pairs", err);
-    int64_t busy = get_int(r, 0, 0);
+    *busy = get_int(r, 0, 0);
     PQclear(r);
-    if (busy > 0)
-        return pb_error_set(err, PB_EUSAGE,
-                            "pack pair: '%s' or '%s' is paired already (packbook pack unpair ID)",
-                            a->label, b->label);
-    char now[32];
-    now_iso(now, sizeof now);
-    p_text(&q, now);
+    return PB_OK;
+}
+
+static enum pb_code pg_pair_put(struct store_impl *st, int64_t lo, int64_t hi,
+                                const char *created_at, struct pb_error *err)
+{
+    struct params q = {0};
+    p_int(&q, lo);
+    p_int(&q, hi);
+    p_text(&q, created_at);
     return write_one(st, SQL_PAIR_PUT, &q, NULL, "INSERT", "cannot store the pair", err);
 }
 
@@ -1239,7 +1218,7 @@ static enum pb_code pg_assessment_put(struct store_impl *st, int64_t pack_id, in
 {
     struct params q = {0};
     char now[32];
-    now_iso(now, sizeof now);
+    store_now_iso(now, sizeof now);
     p_int(&q, pack_id);
     p_int(&q, history_gen);
     p_text(&q, inputs_key);
@@ -1258,10 +1237,9 @@ const struct store_ops store_pg_ops = {
     .pack_add = pg_pack_add,
     .pack_get = pg_pack_get,
     .pack_list = pg_pack_list,
-    .pack_retire = pg_pack_retire,
+    .pack_set_retired = pg_pack_set_retired,
     .pack_by_id = pg_pack_by_id,
     .pack_update = pg_pack_update,
-    .pack_unretire = pg_pack_unretire,
     .flights_analysed_otherwise = pg_flights_analysed_otherwise,
     .flight_put = pg_flight_put,
     .flight_find_hash = pg_flight_find_hash,
@@ -1272,9 +1250,11 @@ const struct store_ops store_pg_ops = {
     .flight_remove = pg_flight_remove,
     .flight_move = pg_flight_move,
     .acks_of = pg_acks_of,
-    .flight_ack = pg_flight_ack,
+    .flight_label = pg_flight_label,
+    .ack_put = pg_ack_put,
     .pairs_list = pg_pairs_list,
-    .pair_add = pg_pair_add,
+    .pairs_busy = pg_pairs_busy,
+    .pair_put = pg_pair_put,
     .pair_remove = pg_pair_remove,
     .assessments_list = pg_assessments_list,
     .history_gen = pg_history_gen,

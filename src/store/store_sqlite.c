@@ -227,13 +227,6 @@ static int mkdir_parents(const char *path)
     return 0;
 }
 
-static void now_iso(char *buf, size_t cap)
-{
-    struct timespec ts;
-    clock_gettime(CLOCK_REALTIME, &ts);
-    isotime_format((double)ts.tv_sec, buf, cap);
-}
-
 static int sq_schema_version(struct store_impl *st)
 {
     sqlite3_stmt *s = NULL;
@@ -613,7 +606,7 @@ static enum pb_code sq_pack_add(struct store_impl *st, struct pack_rec *p, struc
 {
     wait_reset(st);
     sqlite3_stmt *s = NULL;
-    now_iso(p->created_at, sizeof p->created_at);
+    store_now_iso(p->created_at, sizeof p->created_at);
     if (sqlite3_prepare_v2(st->db, SQL_PACK_ADD, -1, &s, NULL) != SQLITE_OK)
         return db_error(st, err, "cannot add the pack");
     sqlite3_bind_text(s, 1, p->label, -1, SQLITE_TRANSIENT);
@@ -670,30 +663,23 @@ static enum pb_code sq_pack_list(struct store_impl *st, struct pack_rec **out, s
     return collect(st, s, sizeof **out, fill_pack, NULL, (void **)out, n, "cannot read packs", err);
 }
 
-static enum pb_code sq_pack_retire(struct store_impl *st, const char *label, const char *reason,
-                                   struct pb_error *err)
+static enum pb_code sq_pack_set_retired(struct store_impl *st, int64_t id, const char *retired_at,
+                                        const char *reason, struct pb_error *err)
 {
     wait_reset(st);
-    struct pack_rec p;
-    enum pb_code code = sq_pack_get(st, label, &p, err);
-    if (code != PB_OK)
-        return code;
-    if (p.retired_at[0])
-        return pb_error_set(err, PB_EUSAGE, "pack '%s' was retired already on %s (%s)", label,
-                            p.retired_at, p.retire_reason);
-    char now[32];
-    now_iso(now, sizeof now);
+    int changed = 0;
+    if (!retired_at)
+        return exec_by_id(st, SQL_PACK_UNRETIRE, id, -1, &changed,
+                          "cannot return the pack to service", err);
     sqlite3_stmt *s = NULL;
     if (sqlite3_prepare_v2(st->db, SQL_PACK_RETIRE, -1, &s, NULL) != SQLITE_OK)
         return db_error(st, err, "cannot retire the pack");
-    sqlite3_bind_text(s, 1, now, -1, SQLITE_TRANSIENT);
+    sqlite3_bind_text(s, 1, retired_at, -1, SQLITE_TRANSIENT);
     sqlite3_bind_text(s, 2, reason, -1, SQLITE_TRANSIENT);
-    sqlite3_bind_int64(s, 3, p.id);
+    sqlite3_bind_int64(s, 3, id);
     int rc = sqlite3_step(s);
     sqlite3_finalize(s);
-    if (rc != SQLITE_DONE)
-        return db_error(st, err, "cannot retire the pack");
-    return PB_OK;
+    return rc == SQLITE_DONE ? PB_OK : db_error(st, err, "cannot retire the pack");
 }
 
 static enum pb_code sq_pack_by_id(struct store_impl *st, int64_t id, struct pack_rec *out,
@@ -737,19 +723,6 @@ static enum pb_code sq_pack_update(struct store_impl *st, const struct pack_rec 
     if (rc != SQLITE_DONE)
         return db_error(st, err, "cannot change the pack");
     return PB_OK;
-}
-
-static enum pb_code sq_pack_unretire(struct store_impl *st, const char *label, struct pb_error *err)
-{
-    struct pack_rec p;
-    enum pb_code code = sq_pack_get(st, label, &p, err);
-    if (code != PB_OK)
-        return code;
-    if (!p.retired_at[0])
-        return pb_error_set(err, PB_EUSAGE, "pack '%s' is in service already", label);
-    int changed = 0;
-    return exec_by_id(st, SQL_PACK_UNRETIRE, p.id, -1, &changed,
-                      "cannot return the pack to service", err);
 }
 
 /* ---- flights ---------------------------------------------------------- */
@@ -837,7 +810,7 @@ static int put_once(struct store_impl *st, const struct flight_rec *f, const cha
     rc = sqlite3_prepare_v2(st->db, sql, -1, &s, NULL);
     if (rc != SQLITE_OK)
         goto fail;
-    now_iso(now, sizeof now);
+    store_now_iso(now, sizeof now);
     isotime_format(f->flown_epoch_s, when, sizeof when);
     sqlite3_bind_int64(s, 1, f->pack_id);
     sqlite3_bind_text(s, 2, f->content_hash, -1, SQLITE_TRANSIENT);
@@ -1168,30 +1141,32 @@ static enum pb_code sq_acks_of(struct store_impl *st, int64_t pack_id, struct fl
                    "cannot read acknowledgements", err);
 }
 
-static enum pb_code sq_flight_ack(struct store_impl *st, int64_t flight_id, const char *note,
-                                  char *pack_label, size_t cap, struct pb_error *err)
+static enum pb_code sq_flight_label(struct store_impl *st, int64_t id, char *label, size_t cap,
+                                    int *found, struct pb_error *err)
 {
     sqlite3_stmt *s = NULL;
     if (sqlite3_prepare_v2(st->db, SQL_FLIGHT_LABEL, -1, &s, NULL) != SQLITE_OK)
         return db_error(st, err, "cannot read the flight");
-    sqlite3_bind_int64(s, 1, flight_id);
+    sqlite3_bind_int64(s, 1, id);
     int r = sqlite3_step(s);
-    if (r == SQLITE_ROW)
-        copy_text(pack_label, cap, s, 0);
+    *found = r == SQLITE_ROW;
+    if (*found)
+        copy_text(label, cap, s, 0);
     sqlite3_finalize(s);
-    if (r == SQLITE_DONE)
-        return pb_error_set(err, PB_EUSAGE, "no flight %lld (see 'packbook flight list')",
-                            (long long)flight_id);
-    if (r != SQLITE_ROW)
-        return db_error(st, err, "cannot read the flight");
-    char now[32];
-    now_iso(now, sizeof now);
+    return r == SQLITE_ROW || r == SQLITE_DONE ? PB_OK
+                                               : db_error(st, err, "cannot read the flight");
+}
+
+static enum pb_code sq_ack_put(struct store_impl *st, int64_t flight_id, const char *note,
+                               const char *acked_at, struct pb_error *err)
+{
+    sqlite3_stmt *s = NULL;
     if (sqlite3_prepare_v2(st->db, SQL_ACK_PUT, -1, &s, NULL) != SQLITE_OK)
         return db_error(st, err, "cannot store the acknowledgement");
     sqlite3_bind_int64(s, 1, flight_id);
     sqlite3_bind_text(s, 2, note, -1, SQLITE_TRANSIENT);
-    sqlite3_bind_text(s, 3, now, -1, SQLITE_TRANSIENT);
-    r = sqlite3_step(s);
+    sqlite3_bind_text(s, 3, acked_at, -1, SQLITE_TRANSIENT);
+    int r = sqlite3_step(s);
     sqlite3_finalize(s);
     return r == SQLITE_DONE ? PB_OK : db_error(st, err, "cannot store the acknowledgement");
 }
@@ -1219,32 +1194,30 @@ static enum pb_code sq_pairs_list(struct store_impl *st, struct pair_rec **out, 
                    err);
 }
 
-static enum pb_code sq_pair_add(struct store_impl *st, const struct pack_rec *a,
-                                const struct pack_rec *b, struct pb_error *err)
+static enum pb_code sq_pairs_busy(struct store_impl *st, int64_t lo, int64_t hi, int64_t *busy,
+                                  struct pb_error *err)
 {
-    if (a->id == b->id)
-        return pb_error_set(err, PB_EUSAGE, "pack pair: '%s' cannot pair with itself", a->label);
-    const struct pack_rec *lo = a->id < b->id ? a : b, *hi = a->id < b->id ? b : a;
     sqlite3_stmt *s = NULL;
     if (sqlite3_prepare_v2(st->db, SQL_PAIR_BUSY, -1, &s, NULL) != SQLITE_OK)
         return db_error(st, err, "cannot read the pairs");
-    sqlite3_bind_int64(s, 1, lo->id);
-    sqlite3_bind_int64(s, 2, hi->id);
-    int busy = sqlite3_step(s) == SQLITE_ROW ? sqlite3_column_int(s, 0) : -1;
+    sqlite3_bind_int64(s, 1, lo);
+    sqlite3_bind_int64(s, 2, hi);
+    int r = sqlite3_step(s);
+    if (r == SQLITE_ROW)
+        *busy = sqlite3_column_int64(s, 0);
     sqlite3_finalize(s);
-    if (busy < 0)
-        return db_error(st, err, "cannot read the pairs");
-    if (busy > 0)
-        return pb_error_set(err, PB_EUSAGE,
-                            "pack pair: '%s' or '%s' is paired already (packbook pack unpair ID)",
-                            a->label, b->label);
-    char now[32];
-    now_iso(now, sizeof now);
+    return r == SQLITE_ROW ? PB_OK : db_error(st, err, "cannot read the pairs");
+}
+
+static enum pb_code sq_pair_put(struct store_impl *st, int64_t lo, int64_t hi,
+                                const char *created_at, struct pb_error *err)
+{
+    sqlite3_stmt *s = NULL;
     if (sqlite3_prepare_v2(st->db, SQL_PAIR_PUT, -1, &s, NULL) != SQLITE_OK)
         return db_error(st, err, "cannot store the pair");
-    sqlite3_bind_int64(s, 1, lo->id);
-    sqlite3_bind_int64(s, 2, hi->id);
-    sqlite3_bind_text(s, 3, now, -1, SQLITE_TRANSIENT);
+    sqlite3_bind_int64(s, 1, lo);
+    sqlite3_bind_int64(s, 2, hi);
+    sqlite3_bind_text(s, 3, created_at, -1, SQLITE_TRANSIENT);
     int r = sqlite3_step(s);
     sqlite3_finalize(s);
     return r == SQLITE_DONE ? PB_OK : db_error(st, err, "cannot store the pair");
@@ -1323,7 +1296,7 @@ static enum pb_code sq_assessment_put(struct store_impl *st, int64_t pack_id, in
 {
     wait_reset(st);
     char now[32];
-    now_iso(now, sizeof now);
+    store_now_iso(now, sizeof now);
     sqlite3_stmt *s = NULL;
     if (sqlite3_prepare_v2(st->db, SQL_ASSESS_PUT, -1, &s, NULL) != SQLITE_OK)
         return db_error(st, err, "cannot keep the pack's assessment");
@@ -1351,10 +1324,9 @@ const struct store_ops store_sqlite_ops = {
     .pack_add = sq_pack_add,
     .pack_get = sq_pack_get,
     .pack_list = sq_pack_list,
-    .pack_retire = sq_pack_retire,
+    .pack_set_retired = sq_pack_set_retired,
     .pack_by_id = sq_pack_by_id,
     .pack_update = sq_pack_update,
-    .pack_unretire = sq_pack_unretire,
     .flights_analysed_otherwise = sq_flights_analysed_otherwise,
     .flight_put = sq_flight_put,
     .flight_find_hash = sq_flight_find_hash,
@@ -1365,9 +1337,11 @@ const struct store_ops store_sqlite_ops = {
     .flight_remove = sq_flight_remove,
     .flight_move = sq_flight_move,
     .acks_of = sq_acks_of,
-    .flight_ack = sq_flight_ack,
+    .flight_label = sq_flight_label,
+    .ack_put = sq_ack_put,
     .pairs_list = sq_pairs_list,
-    .pair_add = sq_pair_add,
+    .pairs_busy = sq_pairs_busy,
+    .pair_put = sq_pair_put,
     .pair_remove = sq_pair_remove,
     .assessments_list = sq_assessments_list,
     .history_gen = sq_history_gen,
