@@ -594,6 +594,40 @@ class Masking(unittest.TestCase):
                 self.assertIn("***", err)
 
 
+class ClientLibrary(unittest.TestCase):
+    """libpq is loaded when a server database is opened (dlopen of libpq.so.5), not linked, so
+    the other commands do not carry it (no server needed)."""
+
+    def test_not_linked(self):
+        p = subprocess.run(["ldd", PACKBOOK], capture_output=True, text=True)
+        self.assertEqual(p.returncode, 0, p.stderr)
+        self.assertNotIn("libpq", p.stdout)
+
+    @unittest.skipUnless(shutil.which("cc"), "no C compiler to make a stand-in library")
+    def test_missing_library_is_a_clear_store_error(self):
+        # a libpq.so.5 without libpq's functions, found first through LD_LIBRARY_PATH
+        d = tempfile.mkdtemp(dir=SCRATCH)
+        src = os.path.join(d, "empty.c")
+        with open(src, "w") as f:
+            f.write("int packbook_stand_in;\n")
+        subprocess.run(["cc", "-shared", "-fPIC", "-o", os.path.join(d, "libpq.so.5"), src],
+                       check=True)
+        env = dict(os.environ, LD_LIBRARY_PATH=d)
+        p = subprocess.run([PACKBOOK, "fleet", "--db", "postgresql://crew:topsecret@/fleet"],
+                           capture_output=True, text=True, env=env, timeout=60)
+        self.assertEqual(p.returncode, EXIT_STORE, p.stderr)
+        self.assertIn("cannot load PostgreSQL's client library", p.stderr)
+        self.assertIn("has no PQ", p.stderr)
+        self.assertIn("install Debian's libpq5", p.stderr)
+        self.assertNotIn("topsecret", p.stderr)
+        # an SQLite history needs none of it
+        db = ALL["sqlite"].fresh("nolibpq")
+        p = subprocess.run([PACKBOOK, "pack", "add", "TM-51", "--cells", "4", "--chemistry",
+                            "lipo", "--capacity", "5000", "--db", db], capture_output=True,
+                           text=True, env=env, timeout=60)
+        self.assertEqual(p.returncode, EXIT_OK, p.stderr)
+
+
 @unittest.skipUnless(pbstore.PG_ADMIN, pbstore.PG_SKIP)
 class PostgresOnly(unittest.TestCase):
     """Rights, a stopped server and a dropped connection."""
