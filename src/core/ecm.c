@@ -371,14 +371,17 @@ struct tau_search {
     int failed;
 };
 
-/* The grid of time constants from lo_s to hi_s and its plain RSS, walked
- * by a second thread while the static model is fitted when a core is free
- * (the walk only reads the windows and the series; its own copy of the
- * context keeps the running state apart). */
+/* The search for tau: the plain RSS on a grid of time constants from lo_s
+ * to hi_s, then Brent's method on the best bracket. It only reads the
+ * windows and the series (its own copy of the context keeps the running
+ * state apart), so when a core is free a second thread runs all of it
+ * while the static model is fitted. */
 struct tau_grid {
     struct ctx c;
     double g[TAU_GRID], taus[TAU_GRID], f[TAU_GRID];
     double *buf;
+    double tau;  /* the result: NAN when the best tau is at a grid end */
+    size_t work; /* rows the search visited, added to the caller's count at the end */
     pthread_t tid;
     int threaded, ok, walked;
 };
@@ -390,50 +393,6 @@ static size_t longest_window(const struct ctx *c)
         if (c->w[j].use && c->w[j].k1 - c->w[j].k0 > longest)
             longest = c->w[j].k1 - c->w[j].k0;
     return longest;
-}
-
-static void *grid_walk(void *vg)
-{
-    struct tau_grid *gr = vg;
-    rss_walk(&gr->c, gr->taus, TAU_GRID, gr->buf, gr->f);
-    return NULL;
-}
-
-/* Starts the grid's walk (in a thread when one can run beside this one);
- * ok is 0 when the range is too short or memory is short. */
-static void grid_start(struct tau_grid *gr, const struct ctx *c, double lo_s, double hi_s)
-{
-    double lo = log(lo_s), hi = log(hi_s);
-    gr->threaded = gr->ok = gr->walked = 0;
-    gr->buf = NULL;
-    if (!(hi - lo > 1.0))
-        return;
-    gr->c = *c;
-    gr->buf = malloc(TAU_WALK_MAX * longest_window(c) * sizeof(double));
-    if (!gr->buf)
-        return;
-    for (int j = 0; j < TAU_GRID; j++) {
-        gr->g[j] = lo + (hi - lo) * j / (TAU_GRID - 1);
-        gr->taus[j] = exp(gr->g[j]);
-    }
-    gr->ok = 1;
-    /* a short log's walk costs less than a thread (and import runs one
-     * analysis per core already) */
-    if (c->s->n >= GRID_THREAD_MIN_ROWS && sysconf(_SC_NPROCESSORS_ONLN) > 1 &&
-        pthread_create(&gr->tid, NULL, grid_walk, gr) == 0)
-        gr->threaded = 1;
-}
-
-/* The grid's RSS known (joins the thread, or walks here). */
-static void grid_finish(struct tau_grid *gr)
-{
-    if (gr->threaded) {
-        pthread_join(gr->tid, NULL);
-        gr->threaded = 0;
-    } else if (gr->ok && !gr->walked) {
-        grid_walk(gr);
-    }
-    gr->walked = 1;
 }
 
 static double rss_at(double log_tau, void *vts)
@@ -448,29 +407,25 @@ static double rss_at(double log_tau, void *vts)
     return rss;
 }
 
-/* Profiles the plain RSS over log tau on the grid (walked by grid_start),
- * then Brent's method on the best bracket. NAN when the best tau is at a
- * grid end (not resolved). Frees the grid's buffer. */
-static double search_tau(struct ctx *c, struct tau_grid *gr, size_t *work)
+/* Profiles the plain RSS over log tau on the grid, then Brent's method on
+ * the best bracket; gr->tau is NAN when the best tau is at a grid end (not
+ * resolved). */
+static void *tau_run(void *vg)
 {
-    if (!gr->ok)
-        return NAN;
-    grid_finish(gr);
-    struct tau_search ts = {c, work, gr->buf, 0};
+    struct tau_grid *gr = vg;
+    rss_walk(&gr->c, gr->taus, TAU_GRID, gr->buf, gr->f);
+    gr->tau = NAN;
+    struct tau_search ts = {&gr->c, &gr->work, gr->buf, 0};
     const double *g = gr->g, *f = gr->f;
     int best = 0;
-    if (work)
-        *work += c->s->n;
+    gr->work += gr->c.s->n;
     for (int j = 0; j < TAU_GRID; j++) {
         ts.failed |= !(f[j] < HUGE_VAL);
         if (f[j] < f[best])
             best = j;
     }
-    if (ts.failed || best == 0 || best == TAU_GRID - 1) {
-        free(gr->buf);
-        gr->buf = NULL;
-        return NAN;
-    }
+    if (ts.failed || best == 0 || best == TAU_GRID - 1)
+        return NULL;
     gsl_function fn = {rss_at, &ts};
     gsl_min_fminimizer *mz = gsl_min_fminimizer_alloc(gsl_min_fminimizer_brent);
     double x = g[best];
@@ -487,9 +442,55 @@ static double search_tau(struct ctx *c, struct tau_grid *gr, size_t *work)
         }
     }
     gsl_min_fminimizer_free(mz);
+    gr->tau = ts.failed ? NAN : exp(x);
+    return NULL;
+}
+
+/* Starts the search (in a thread when one can run beside this one); ok is
+ * 0 when the range is too short or memory is short. */
+static void grid_start(struct tau_grid *gr, const struct ctx *c, double lo_s, double hi_s)
+{
+    double lo = log(lo_s), hi = log(hi_s);
+    gr->threaded = gr->ok = gr->walked = 0;
+    gr->buf = NULL;
+    gr->tau = NAN;
+    gr->work = 0;
+    if (!(hi - lo > 1.0))
+        return;
+    gr->c = *c;
+    gr->buf = malloc(TAU_WALK_MAX * longest_window(c) * sizeof(double));
+    if (!gr->buf)
+        return;
+    for (int j = 0; j < TAU_GRID; j++) {
+        gr->g[j] = lo + (hi - lo) * j / (TAU_GRID - 1);
+        gr->taus[j] = exp(gr->g[j]);
+    }
+    gr->ok = 1;
+    /* a short log's walk costs less than a thread (and import runs one
+     * analysis per core already) */
+    if (c->s->n >= GRID_THREAD_MIN_ROWS && sysconf(_SC_NPROCESSORS_ONLN) > 1 &&
+        pthread_create(&gr->tid, NULL, tau_run, gr) == 0)
+        gr->threaded = 1;
+}
+
+/* The search's tau (joins the thread, or searches here); NAN when not
+ * resolved. Frees the search's buffer. */
+static double search_tau(struct tau_grid *gr, size_t *work)
+{
+    if (!gr->ok)
+        return NAN;
+    if (gr->threaded) {
+        pthread_join(gr->tid, NULL);
+        gr->threaded = 0;
+    } else if (!gr->walked) {
+        tau_run(gr);
+    }
+    gr->walked = 1;
+    if (work)
+        *work += gr->work;
     free(gr->buf);
     gr->buf = NULL;
-    return ts.failed ? NAN : exp(x);
+    return gr->tau;
 }
 
 static double bic(double rss, double n, int k)
@@ -505,7 +506,7 @@ enum pb_code ecm_fit(const struct series *s, const double *q_ah, const struct ec
     out->r1_mohm = out->r1_ci95_mohm = out->tau_s = out->sigma_mv = out->rho = NAN;
     out->window_s = ecm_window_s(o->dt_med_s);
     struct ctx c = {.s = s, .y = o->y_v, .q = q_ah, .step_a = o->step_a};
-    struct tau_grid grid = {.ok = 0, .threaded = 0, .walked = 0, .buf = NULL};
+    struct tau_grid grid = {.ok = 0, .threaded = 0, .walked = 0, .buf = NULL, .tau = NAN};
     c.w = make_windows(s, out->window_s, o->gap_s, &c.nw);
     if (!c.w)
         return pb_error_set(err, PB_ENOMEM, "out of memory");
@@ -564,7 +565,7 @@ enum pb_code ecm_fit(const struct series *s, const double *q_ah, const struct ec
     if (try_rc) {
         double tau = o->tau_fixed_s;
         if (!(tau > 0.0))
-            tau = search_tau(&c, &grid, o->work);
+            tau = search_tau(&grid, o->work);
         struct fit_result fr;
         if (isfinite(tau) && fit_at(&c, 2, tau, o->robust, o->work, &fr, NULL) == PB_OK &&
             fr.rank == 2) {

@@ -5,9 +5,9 @@
  * q is the charge drawn, i1 the current through the RC branch (a first-order
  * lag of I with time constant tau; zero-order hold between samples).
  *
- * Owns nothing beyond one call (when a core is free, a second thread walks
- * the tau search's grid while the static model is fitted, and is joined
- * before the call returns). The OCV term is local: the log is cut into
+ * Owns nothing beyond one call (when a core is free, a second thread runs
+ * the tau search, its grid and Brent's steps, while the static model is
+ * fitted, and is joined before the call returns). The OCV term is local: the log is cut into
  * windows (at most ecm_window_s() long, none across a gap or a clock
  * joint) and in each window OCV is a straight line in q, so the falling OCV
  * of a discharge cannot leak into R; each window's line is projected out
