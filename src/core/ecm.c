@@ -498,21 +498,34 @@ static double bic(double rss, double n, int k)
     return n * log(fmax(rss, 1e-300) / n) + k * log(n);
 }
 
-enum pb_code ecm_fit(const struct series *s, const double *q_ah, const struct ecm_opts *o,
-                     struct ecm_result *out, struct pb_error *err)
+struct ecm_run {
+    struct ecm_opts o;
+    struct ctx c;
+    struct tau_grid grid;
+    struct ecm_result out;
+    int try_rc;
+};
+
+struct ecm_run *ecm_begin(const struct series *s, const double *q_ah, const struct ecm_opts *o)
 {
-    *out = (struct ecm_result){0};
+    struct ecm_run *run = calloc(1, sizeof *run);
+    if (!run)
+        return NULL;
+    run->o = *o;
+    struct ecm_result *out = &run->out;
     out->r0_mohm = out->r0_ci95_mohm = out->r_static_mohm = out->r_static_ci95_mohm = NAN;
     out->r1_mohm = out->r1_ci95_mohm = out->tau_s = out->sigma_mv = out->rho = NAN;
     out->window_s = ecm_window_s(o->dt_med_s);
-    struct ctx c = {.s = s, .y = o->y_v, .q = q_ah, .step_a = o->step_a};
-    struct tau_grid grid = {.ok = 0, .threaded = 0, .walked = 0, .buf = NULL, .tau = NAN};
-    c.w = make_windows(s, out->window_s, o->gap_s, &c.nw);
-    if (!c.w)
-        return pb_error_set(err, PB_ENOMEM, "out of memory");
-    out->windows = c.nw;
-    enum pb_code rc = PB_OK;
-    base_lines(&c);
+    run->grid = (struct tau_grid){.ok = 0, .threaded = 0, .walked = 0, .buf = NULL, .tau = NAN};
+    struct ctx *c = &run->c;
+    *c = (struct ctx){.s = s, .y = o->y_v, .q = q_ah, .step_a = o->step_a};
+    c->w = make_windows(s, out->window_s, o->gap_s, &c->nw);
+    if (!c->w) {
+        free(run);
+        return NULL;
+    }
+    out->windows = c->nw;
+    base_lines(c);
     /* A window informs R only if its current varies well above the current
      * sensor's noise: noise in a regressor biases its coefficient toward
      * zero by var(noise) / var(total), so at least 5 noise deviations (bias
@@ -522,8 +535,8 @@ enum pb_code ecm_fit(const struct series *s, const double *q_ah, const struct ec
     if (!isfinite(sigma_i))
         sigma_i = 0.0;
     size_t informative = 0;
-    for (size_t j = 0; j < c.nw; j++) {
-        struct win *w = &c.w[j];
+    for (size_t j = 0; j < c->nw; j++) {
+        struct win *w = &c->w[j];
         double ss = 0.0, vmin = HUGE_VAL;
         for (size_t k = w->k0; k < w->k1; k++) {
             double d = s->i_a[k] - (w->mi + w->bi * (q_ah[k] - w->mq));
@@ -540,12 +553,27 @@ enum pb_code ecm_fit(const struct series *s, const double *q_ah, const struct ec
         out->reason = "the current does not vary above its noise within any part of the log "
                       "away from the cut-off: resistance cannot be told apart from the falling "
                       "open-circuit voltage";
-        goto done;
+        return run;
     }
-    int try_rc = (o->try_rc || o->tau_fixed_s > 0.0) && s->n >= 50;
+    run->try_rc = (o->try_rc || o->tau_fixed_s > 0.0) && s->n >= 50;
     /* resolvable: slower than the sampling, faster than half a window */
-    if (try_rc && !(o->tau_fixed_s > 0.0))
-        grid_start(&grid, &c, fmax(2.0 * o->dt_med_s, 1e-3), 0.5 * out->window_s);
+    if (run->try_rc && !(o->tau_fixed_s > 0.0))
+        grid_start(&run->grid, c, fmax(2.0 * o->dt_med_s, 1e-3), 0.5 * out->window_s);
+    return run;
+}
+
+enum pb_code ecm_end(struct ecm_run *run, struct ecm_result *res)
+{
+    if (!run)
+        return PB_ENOMEM;
+    enum pb_code rc = PB_OK;
+    const struct ecm_opts *o = &run->o;
+    struct ecm_result *out = &run->out;
+    struct ctx c = run->c;
+    struct tau_grid *grid = &run->grid;
+    int try_rc = run->try_rc;
+    if (out->reason)
+        goto done;
     struct fit_result fs;
     if (fit_at(&c, 1, 0.0, o->robust, o->work, &fs, NULL) != PB_OK || fs.rank < 1) {
         out->reason = "the resistance fit failed (too few samples inside the windows)";
@@ -565,7 +593,7 @@ enum pb_code ecm_fit(const struct series *s, const double *q_ah, const struct ec
     if (try_rc) {
         double tau = o->tau_fixed_s;
         if (!(tau > 0.0))
-            tau = search_tau(&grid, o->work);
+            tau = search_tau(grid, o->work);
         struct fit_result fr;
         if (isfinite(tau) && fit_at(&c, 2, tau, o->robust, o->work, &fr, NULL) == PB_OK &&
             fr.rank == 2) {
@@ -604,16 +632,29 @@ enum pb_code ecm_fit(const struct series *s, const double *q_ah, const struct ec
         out->reason = "the resistance fit is too uncertain to report";
     }
 done:
-    if (grid.threaded) /* a walk still running is waited for, its result unused */
-        pthread_join(grid.tid, NULL);
-    free(grid.buf);
+    if (grid->threaded) /* a search still running is waited for, its result unused */
+        pthread_join(grid->tid, NULL);
+    free(grid->buf);
     if (out->reason) {
         out->r0_mohm = out->r0_ci95_mohm = NAN;
         out->r1_mohm = out->r1_ci95_mohm = out->tau_s = NAN;
         out->rc = 0;
     }
     free(c.w);
+    *res = *out;
+    free(run);
     return rc;
+}
+
+enum pb_code ecm_fit(const struct series *s, const double *q_ah, const struct ecm_opts *o,
+                     struct ecm_result *out, struct pb_error *err)
+{
+    struct ecm_run *run = ecm_begin(s, q_ah, o);
+    if (!run) {
+        *out = (struct ecm_result){0};
+        return pb_error_set(err, PB_ENOMEM, "out of memory");
+    }
+    return ecm_end(run, out);
 }
 
 /* ---- OCV trend with R fixed ------------------------------------------- */
