@@ -90,30 +90,11 @@ static void rc_lines(struct ctx *c)
     }
 }
 
-static int row(void *vc, size_t k, double *x, double *y)
-{
-    struct ctx *c = vc;
-    const struct series *s = c->s;
-    if (k == 0)
-        c->at = 0;
-    if (c->p == 2)
-        rc_advance(c, k);
-    while (c->at < c->nw && k >= c->w[c->at].k1)
-        c->at++;
-    if (c->at == c->nw || k < c->w[c->at].k0 || !c->w[c->at].use)
-        return 0;
-    const struct win *w = &c->w[c->at];
-    double dq = c->q[k] - w->mq;
-    x[0] = -(s->i_a[k] - (w->mi + w->bi * dq));
-    if (c->p == 2)
-        x[1] = -(c->i1 - (w->m1 + w->b1 * dq));
-    *y = c->y[k] - (w->mv + w->bv * dq);
-    int step = (k > 0 && fabs(s->i_a[k] - s->i_a[k - 1]) >= c->step_a) ||
-               (k + 1 < s->n && fabs(s->i_a[k + 1] - s->i_a[k]) >= c->step_a);
-    return step ? FIT_ROW_KEEP : 1;
-}
-
-/* row() for a block of rows, without a call per row. */
+/* A block of the model's rows (x: minus the current, and minus the RC
+ * current when p == 2, each less its window's line in q; y: the voltage
+ * less its line), without a call per row; a row outside the windows that
+ * inform R is not used, and one either side of a current step is kept at
+ * full weight. */
 static void ecm_block(void *vc, size_t k0, size_t m, int p, double *x, double *y,
                       unsigned char *use)
 {
@@ -242,24 +223,35 @@ static double honest_cov(struct ctx *c, struct fit_result *f)
         f->dof = 0.0;
         return NAN;
     }
-    /* lag-1 autocorrelation of the residuals, in sample order */
-    double x[FIT_MAX_P] = {0}, y, prev = NAN, s01 = 0.0, s00 = 0.0;
-    size_t prev_w = (size_t)-1;
-    for (size_t k = 0; k < c->s->n; k++) {
-        if (k == 0)
-            c->at = 0;
-        if (!row(c, k, x, &y)) {
-            prev = NAN;
-            continue;
+    /* lag-1 autocorrelation of the residuals, in sample order, within a
+     * window (the rows made a block at a time by ecm_block, as the fit made
+     * them) */
+    enum { HC_BLOCK = 256 };
+    double xb[HC_BLOCK * FIT_MAX_P], yb[HC_BLOCK], prev = NAN, s01 = 0.0, s00 = 0.0;
+    unsigned char ub[HC_BLOCK];
+    size_t prev_w = (size_t)-1, at = 0;
+    const int p = f->p;
+    for (size_t k0 = 0; k0 < c->s->n; k0 += HC_BLOCK) {
+        size_t m = c->s->n - k0 < HC_BLOCK ? c->s->n - k0 : HC_BLOCK;
+        ecm_block(c, k0, m, p, xb, yb, ub);
+        for (size_t j = 0; j < m; j++) {
+            if (!ub[j]) {
+                prev = NAN;
+                continue;
+            }
+            size_t k = k0 + j;
+            while (k >= c->w[at].k1) /* a used row lies in a window */
+                at++;
+            const double *x = xb + j * (size_t)p;
+            double r = yb[j];
+            for (int i = 0; i < p; i++)
+                r -= x[i] * f->beta[i];
+            if (isfinite(prev) && prev_w == at)
+                s01 += r * prev;
+            s00 += r * r;
+            prev = r;
+            prev_w = at;
         }
-        double r = y;
-        for (int j = 0; j < f->p; j++)
-            r -= x[j] * f->beta[j];
-        if (isfinite(prev) && prev_w == c->at)
-            s01 += r * prev;
-        s00 += r * r;
-        prev = r;
-        prev_w = c->at;
     }
     double rho = s00 > 0.0 ? s01 / s00 : 0.0;
     double infl = rho > 0.0 ? (1.0 + rho) / (1.0 - fmin(rho, 0.99)) : 1.0;
@@ -275,14 +267,25 @@ static double honest_cov(struct ctx *c, struct fit_result *f)
 #define TAU_WALK_MAX 16             /* time constants summed in one walk */
 #define GRID_THREAD_MIN_ROWS 100000 /* the grid walked in a thread of its own from here */
 
+/* The sums of the RC model's normal equations that do not depend on tau
+ * (those of the current and voltage columns). */
+struct tau_free_sums {
+    double a00, b0, yy;
+    size_t n_used;
+};
+
 /* The plain residual sums of squares of the RC model at nt time constants
  * (nt <= TAU_WALK_MAX) in one walk over the log: the lag of each runs over
  * every sample; within a window the lags are kept (buf) until the window's
  * lines are known, then the normal equations of every tau are summed in the
  * same order as the row-by-row fit would. The voltage and current columns
- * do not depend on tau. rss[j] is HUGE_VAL where a fit fails. */
+ * do not depend on tau: their sums are made into *fs when have_fs is 0,
+ * else taken from it (the same numbers, summed once for every walk of the
+ * search). rss[j] is HUGE_VAL where a fit fails. */
 static inline __attribute__((always_inline)) void rss_walk(struct ctx *c, const double *tau_s,
-                                                           const int nt, double *buf, double *rss)
+                                                           const int nt, double *buf, double *rss,
+                                                           struct tau_free_sums *fs_tau_free,
+                                                           const int have_fs)
 {
     const struct series *s = c->s;
     const double *ia = s->i_a, *t = s->t_s, *q = c->q;
@@ -338,9 +341,11 @@ static inline __attribute__((always_inline)) void rss_walk(struct ctx *c, const 
             double dq = q[kk] - w->mq;
             double x0 = -(ia[kk] - (w->mi + w->bi * dq));
             double y = c->y[kk] - (w->mv + w->bv * dq);
-            a00 += x0 * x0;
-            b0 += x0 * y;
-            yy += y * y;
+            if (!have_fs) {
+                a00 += x0 * x0;
+                b0 += x0 * y;
+                yy += y * y;
+            }
             _Pragma("GCC unroll 16") for (int j = 0; j < nt; j++)
             {
                 double x1 = -(buf[(size_t)j * len + r] - (m1[j] + bq[j] * dq));
@@ -352,6 +357,14 @@ static inline __attribute__((always_inline)) void rss_walk(struct ctx *c, const 
         n_used += len;
     }
 #undef ADVANCE
+    if (have_fs) {
+        a00 = fs_tau_free->a00;
+        b0 = fs_tau_free->b0;
+        yy = fs_tau_free->yy;
+        n_used = fs_tau_free->n_used;
+    } else {
+        *fs_tau_free = (struct tau_free_sums){a00, b0, yy, n_used};
+    }
     for (int j = 0; j < nt; j++) {
         struct fit_sums fs = {.yy = yy, .n_used = n_used};
         fs.a[0][0] = a00;
@@ -368,6 +381,7 @@ struct tau_search {
     struct ctx *c;
     size_t *work;
     double *buf; /* TAU_WALK_MAX times the longest window */
+    struct tau_free_sums fs;
     int failed;
 };
 
@@ -399,7 +413,7 @@ static double rss_at(double log_tau, void *vts)
 {
     struct tau_search *ts = vts;
     double tau = exp(log_tau), rss;
-    rss_walk(ts->c, &tau, 1, ts->buf, &rss);
+    rss_walk(ts->c, &tau, 1, ts->buf, &rss, &ts->fs, 1);
     if (ts->work)
         *ts->work += ts->c->s->n;
     if (!(rss < HUGE_VAL))
@@ -413,9 +427,9 @@ static double rss_at(double log_tau, void *vts)
 static void *tau_run(void *vg)
 {
     struct tau_grid *gr = vg;
-    rss_walk(&gr->c, gr->taus, TAU_GRID, gr->buf, gr->f);
+    struct tau_search ts = {.c = &gr->c, .work = &gr->work, .buf = gr->buf};
+    rss_walk(&gr->c, gr->taus, TAU_GRID, gr->buf, gr->f, &ts.fs, 0);
     gr->tau = NAN;
-    struct tau_search ts = {&gr->c, &gr->work, gr->buf, 0};
     const double *g = gr->g, *f = gr->f;
     int best = 0;
     gr->work += gr->c.s->n;
