@@ -680,7 +680,26 @@ struct trend_ctx {
     int degree;
     double r0, r1, tau, v_ref;
     double i1, a_dt, a_val;
+    size_t next; /* the sample whose lag is due next (0: none made yet) */
 };
+
+/* The RC branch's current from sample k - 1 to k (k == 0: its start). */
+static inline void trend_lag(struct trend_ctx *c, size_t k)
+{
+    const struct series *s = c->s;
+    if (k == 0) {
+        c->i1 = s->i_a[0];
+        c->a_dt = -1.0;
+    } else {
+        double dt = s->t_s[k] - s->t_s[k - 1];
+        if (fabs(dt - c->a_dt) > 1e-9 * dt) {
+            c->a_dt = dt;
+            c->a_val = exp(-dt / c->tau);
+        }
+        c->i1 = c->a_val * c->i1 + (1.0 - c->a_val) * s->i_a[k - 1];
+    }
+    c->next = k + 1;
+}
 
 static inline int trend_row(void *vc, size_t k, double *x, double *y)
 {
@@ -688,17 +707,7 @@ static inline int trend_row(void *vc, size_t k, double *x, double *y)
     const struct series *s = c->s;
     double v = s->v_v[k] + c->r0 * s->i_a[k];
     if (c->r1 > 0.0) {
-        if (k == 0) {
-            c->i1 = s->i_a[0];
-            c->a_dt = -1.0;
-        } else {
-            double dt = s->t_s[k] - s->t_s[k - 1];
-            if (fabs(dt - c->a_dt) > 1e-9 * dt) {
-                c->a_dt = dt;
-                c->a_val = exp(-dt / c->tau);
-            }
-            c->i1 = c->a_val * c->i1 + (1.0 - c->a_val) * s->i_a[k - 1];
-        }
+        trend_lag(c, k);
         v += c->r1 * c->i1;
     }
     double u = c->degree > 0 ? 2.0 * c->q[k] * c->q_scale - 1.0 : 0.0;
@@ -711,9 +720,21 @@ static inline int trend_row(void *vc, size_t k, double *x, double *y)
     return 1;
 }
 
+/* Rows in any order: with an RC branch a row needs the lag of every
+ * sample before it, so rows asked for out of turn (the kept sample's,
+ * ascending, then every row from the first) run the lag on from the last
+ * row made, or from the first sample when asked for an earlier one: the
+ * same lag, number for number, as a walk in order. */
 static void trend_block(void *vc, size_t k0, size_t m, int p, double *x, double *y,
                         unsigned char *use)
 {
+    struct trend_ctx *c = vc;
+    if (c->r1 > 0.0 && k0 > 0 && k0 != c->next) {
+        if (c->next == 0 || c->next > k0)
+            trend_lag(c, 0);
+        for (size_t k = c->next; k < k0; k++)
+            trend_lag(c, k);
+    }
     for (size_t j = 0; j < m; j++)
         use[j] = (unsigned char)trend_row(vc, k0 + j, x + j * (size_t)p, &y[j]);
 }
@@ -730,10 +751,10 @@ enum pb_code ecm_ocv_trend(const struct series *s, const double *q_ah, double q_
                           .r1 = tau_s > 0.0 ? r1_ohm : 0.0,
                           .tau = tau_s,
                           .v_ref = s->v_v[0]};
-    /* without an RC branch a row is its own sample's alone: made in any order */
-    enum pb_code rc = robust && !(c.r1 > 0.0)
-                          ? fit_blocks_any_order(s->n, degree + 1, trend_block, &c, out, err)
-                          : fit_blocks(s->n, degree + 1, trend_block, &c, robust, out, err);
+    /* rows are made in any order (trend_block), so a robust fit of a long
+     * log takes its plain start from the even sample */
+    enum pb_code rc = robust ? fit_blocks_any_order(s->n, degree + 1, trend_block, &c, out, err)
+                             : fit_blocks(s->n, degree + 1, trend_block, &c, robust, out, err);
     if (work)
         *work += out->rows_visited;
     /* the reference voltage back into the constant term */
