@@ -100,7 +100,9 @@ static void ecm_block(void *vc, size_t k0, size_t m, int p, double *x, double *y
 {
     struct ctx *c = vc;
     const struct series *s = c->s;
-    if (k0 == 0)
+    /* the window search runs on from the last row made; rows asked for
+     * before it (the static model's rows come in any order) start it over */
+    if (k0 == 0 || (c->at > 0 && k0 < c->w[c->at - 1].k1))
         c->at = 0;
     const double step_a = c->step_a;
     for (size_t j = 0; j < m; j++) {
@@ -208,7 +210,12 @@ static enum pb_code fit_at(struct ctx *c, int p, double tau_s, int robust, size_
     c->tau_s = tau_s;
     if (p == 2)
         rc_lines(c);
-    enum pb_code rc = fit_blocks(c->s->n, p, ecm_block, c, robust, f, err);
+    /* the static model's rows are each their own sample's (the RC current
+     * needs every sample before it): made in any order, a robust fit of a
+     * long log takes its plain start from the even sample (its rss_plain
+     * then the sample's: see static_rss_plain) */
+    enum pb_code rc = p == 1 && robust ? fit_blocks_any_order(c->s->n, p, ecm_block, c, f, err)
+                                       : fit_blocks(c->s->n, p, ecm_block, c, robust, f, err);
     if (work)
         *work += f->rows_visited + (p == 2 ? c->s->n : 0);
     return rc;
@@ -396,8 +403,9 @@ struct tau_grid {
     double *buf;
     double tau;  /* the result: NAN when the best tau is at a grid end */
     size_t work; /* rows the search visited, added to the caller's count at the end */
+    struct tau_free_sums free_sums; /* the static model's plain sums, every row */
     pthread_t tid;
-    int threaded, ok, walked;
+    int threaded, ok, walked, free_ok;
 };
 
 static size_t longest_window(const struct ctx *c)
@@ -429,6 +437,8 @@ static void *tau_run(void *vg)
     struct tau_grid *gr = vg;
     struct tau_search ts = {.c = &gr->c, .work = &gr->work, .buf = gr->buf};
     rss_walk(&gr->c, gr->taus, TAU_GRID, gr->buf, gr->f, &ts.fs, 0);
+    gr->free_sums = ts.fs;
+    gr->free_ok = 1;
     gr->tau = NAN;
     const double *g = gr->g, *f = gr->f;
     int best = 0;
@@ -505,6 +515,21 @@ static double search_tau(struct tau_grid *gr, size_t *work)
     free(gr->buf);
     gr->buf = NULL;
     return gr->tau;
+}
+
+/* The static model's plain residual sum of squares over every row: from
+ * the search's walk when it ran (the same sums, in the same order, as a
+ * plain pass of the static fit), else the fit's own (which, for a robust
+ * fit of a long log, is its even sample's scaled to every row). */
+static double static_rss_plain(const struct tau_grid *gr, const struct fit_result *fs)
+{
+    if (!gr->free_ok)
+        return fs->rss_plain;
+    struct fit_sums sm = {.yy = gr->free_sums.yy, .n_used = gr->free_sums.n_used};
+    sm.a[0][0] = gr->free_sums.a00;
+    sm.b[0] = gr->free_sums.b0;
+    struct fit_result pf;
+    return fit_solve_sums(&sm, 1, &pf, NULL) == PB_OK ? pf.rss_plain : fs->rss_plain;
 }
 
 static double bic(double rss, double n, int k)
@@ -612,6 +637,7 @@ enum pb_code ecm_end(struct ecm_run *run, struct ecm_result *res)
         if (isfinite(tau) && fit_at(&c, 2, tau, o->robust, o->work, &fr, NULL) == PB_OK &&
             fr.rank == 2) {
             double rss_plain_rc = fr.rss_plain;
+            double rss_plain_static = static_rss_plain(grid, &fs);
             double rho_rc = honest_cov(&c, &fr);
             double r0 = 1000.0 * fr.beta[0], r1 = 1000.0 * fr.beta[1];
             double r1_ci = 1000.0 * fit_ci95(&fr, 1);
@@ -621,10 +647,10 @@ enum pb_code ecm_end(struct ecm_run *run, struct ecm_result *res)
              * (paying for R1 and tau) and be significant; a fixed tau (the
              * pack's, for a cell) needs only the physical part */
             int fixed = o->tau_fixed_s > 0.0;
-            int better =
-                fixed || (fr.rss_plain < 0.95 * fs.rss_plain &&
-                          bic(rss_plain_rc, n_eff, 3) < bic(fs.rss_plain, n_eff, 1) - BIC_MARGIN &&
-                          r1 > r1_ci);
+            int better = fixed || (fr.rss_plain < 0.95 * rss_plain_static &&
+                                   bic(rss_plain_rc, n_eff, 3) <
+                                       bic(rss_plain_static, n_eff, 1) - BIC_MARGIN &&
+                                   r1 > r1_ci);
             if (r0 > 0.0 && r1 >= 0.0 && better) {
                 out->rc = 1;
                 out->r0_mohm = r0;
