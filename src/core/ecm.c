@@ -334,7 +334,7 @@ static inline __attribute__((always_inline)) void rss_walk(struct ctx *c, const 
             double dq = q[kk] - w->mq;
             _Pragma("GCC unroll 16") for (int j = 0; j < nt; j++)
             {
-                buf[(size_t)j * len + r] = i1[j];
+                buf[r * (size_t)nt + (size_t)j] = i1[j];
                 m1[j] += i1[j];
                 bq[j] += dq * i1[j];
             }
@@ -355,7 +355,7 @@ static inline __attribute__((always_inline)) void rss_walk(struct ctx *c, const 
             }
             _Pragma("GCC unroll 16") for (int j = 0; j < nt; j++)
             {
-                double x1 = -(buf[(size_t)j * len + r] - (m1[j] + bq[j] * dq));
+                double x1 = -(buf[r * (size_t)nt + (size_t)j] - (m1[j] + bq[j] * dq));
                 a01[j] += x0 * x1;
                 a11[j] += x1 * x1;
                 b1[j] += x1 * y;
