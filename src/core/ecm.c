@@ -45,11 +45,13 @@ struct ctx {
     size_t at; /* current window */
     double i1; /* RC branch current */
     double a_dt, a_val;
+    size_t next; /* the sample whose lag is due next (0: none made yet) */
 };
 
 static inline void rc_advance(struct ctx *c, size_t k)
 {
     const struct series *s = c->s;
+    c->next = k + 1;
     if (k == 0) {
         c->i1 = s->i_a[0];
         c->a_dt = -1.0;
@@ -104,6 +106,14 @@ static void ecm_block(void *vc, size_t k0, size_t m, int p, double *x, double *y
      * before it (the static model's rows come in any order) start it over */
     if (k0 == 0 || (c->at > 0 && k0 < c->w[c->at - 1].k1))
         c->at = 0;
+    /* and the lag runs on from the last row made (from the first sample
+     * when asked for an earlier one): the same lag as a walk in order */
+    if (p == 2 && k0 > 0 && k0 != c->next) {
+        if (c->next == 0 || c->next > k0)
+            rc_advance(c, 0);
+        for (size_t k = c->next; k < k0; k++)
+            rc_advance(c, k);
+    }
     const double step_a = c->step_a;
     for (size_t j = 0; j < m; j++) {
         size_t k = k0 + j;
@@ -210,12 +220,13 @@ static enum pb_code fit_at(struct ctx *c, int p, double tau_s, int robust, size_
     c->tau_s = tau_s;
     if (p == 2)
         rc_lines(c);
-    /* the static model's rows are each their own sample's (the RC current
-     * needs every sample before it): made in any order, a robust fit of a
-     * long log takes its plain start from the even sample (its rss_plain
-     * then the sample's: see static_rss_plain) */
-    enum pb_code rc = p == 1 && robust ? fit_blocks_any_order(c->s->n, p, ecm_block, c, f, err)
-                                       : fit_blocks(c->s->n, p, ecm_block, c, robust, f, err);
+    /* rows made in any order (ecm_block), a robust fit of a long log
+     * takes its plain start from the even sample (its rss_plain then the
+     * sample's: the model choice takes the plain residuals over every row
+     * from the tau search, see static_rss_plain and ecm_end) */
+    c->next = 0;
+    enum pb_code rc = robust ? fit_blocks_any_order(c->s->n, p, ecm_block, c, f, err)
+                             : fit_blocks(c->s->n, p, ecm_block, c, robust, f, err);
     if (work)
         *work += f->rows_visited + (p == 2 ? c->s->n : 0);
     return rc;
@@ -401,8 +412,9 @@ struct tau_grid {
     struct ctx c;
     double g[TAU_GRID], taus[TAU_GRID], f[TAU_GRID];
     double *buf;
-    double tau;  /* the result: NAN when the best tau is at a grid end */
-    size_t work; /* rows the search visited, added to the caller's count at the end */
+    double tau;     /* the result: NAN when the best tau is at a grid end */
+    double tau_rss; /* the RC model's plain residual sum of squares there */
+    size_t work;    /* rows the search visited, added to the caller's count at the end */
     struct tau_free_sums free_sums; /* the static model's plain sums, every row */
     pthread_t tid;
     int threaded, ok, walked, free_ok;
@@ -452,7 +464,7 @@ static void *tau_run(void *vg)
         return NULL;
     gsl_function fn = {rss_at, &ts};
     gsl_min_fminimizer *mz = gsl_min_fminimizer_alloc(gsl_min_fminimizer_brent);
-    double x = g[best];
+    double x = g[best], fx = f[best];
     if (mz &&
         gsl_min_fminimizer_set_with_values(mz, &fn, g[best], f[best], g[best - 1], f[best - 1],
                                            g[best + 1], f[best + 1]) == GSL_SUCCESS) {
@@ -460,6 +472,7 @@ static void *tau_run(void *vg)
             if (gsl_min_fminimizer_iterate(mz) != GSL_SUCCESS)
                 break;
             x = gsl_min_fminimizer_x_minimum(mz);
+            fx = gsl_min_fminimizer_f_minimum(mz);
             if (gsl_min_test_interval(gsl_min_fminimizer_x_lower(mz),
                                       gsl_min_fminimizer_x_upper(mz), 1e-3, 0.0) == GSL_SUCCESS)
                 break;
@@ -467,6 +480,7 @@ static void *tau_run(void *vg)
     }
     gsl_min_fminimizer_free(mz);
     gr->tau = ts.failed ? NAN : exp(x);
+    gr->tau_rss = fx;
     return NULL;
 }
 
@@ -636,7 +650,10 @@ enum pb_code ecm_end(struct ecm_run *run, struct ecm_result *res)
         struct fit_result fr;
         if (isfinite(tau) && fit_at(&c, 2, tau, o->robust, o->work, &fr, NULL) == PB_OK &&
             fr.rank == 2) {
-            double rss_plain_rc = fr.rss_plain;
+            /* the search's walk at this tau summed the RC model's plain
+             * normal equations over every row in the same order as a plain
+             * pass (a robust fit's own rss_plain is its sample's) */
+            double rss_plain_rc = tau == grid->tau ? grid->tau_rss : fr.rss_plain;
             double rss_plain_static = static_rss_plain(grid, &fs);
             double rho_rc = honest_cov(&c, &fr);
             double r0 = 1000.0 * fr.beta[0], r1 = 1000.0 * fr.beta[1];
@@ -647,7 +664,7 @@ enum pb_code ecm_end(struct ecm_run *run, struct ecm_result *res)
              * (paying for R1 and tau) and be significant; a fixed tau (the
              * pack's, for a cell) needs only the physical part */
             int fixed = o->tau_fixed_s > 0.0;
-            int better = fixed || (fr.rss_plain < 0.95 * rss_plain_static &&
+            int better = fixed || (rss_plain_rc < 0.95 * rss_plain_static &&
                                    bic(rss_plain_rc, n_eff, 3) <
                                        bic(rss_plain_static, n_eff, 1) - BIC_MARGIN &&
                                    r1 > r1_ci);
