@@ -1,5 +1,6 @@
 #include "analyze.h"
 
+#include <assert.h>
 #include <gsl/gsl_errno.h>
 #include <gsl/gsl_min.h>
 #include <math.h>
@@ -492,8 +493,24 @@ static enum pb_code stage_resistance(struct analysis *a, const struct series *s,
                             .series = s,
                             .chem = a->cells > 0 ? a->chem : NULL,
                             .cells = a->cells};
+    /* the model's windows and its tau search (in a second thread when a
+     * core is free) start first, with the steps' threshold; the steps are
+     * measured while the search runs */
+    double step_a = edges_step_a(o->capacity_mah, a->peak_a);
+    struct ecm_opts mo = {.y_v = s->v_v,
+                          .dt_med_s = a->median_dt_s,
+                          .gap_s = a->gap_s,
+                          .step_a = step_a,
+                          .cutoff_v = a->cells > 0 ? a->floor_v * a->cells : 0.0,
+                          .robust = !o->plain_fit,
+                          .try_rc = a->current_steps > 0,
+                          .work = &a->fit_rows_visited};
+    struct ecm_run *run = ecm_begin(s, q_ah, &mo);
+    if (!run)
+        return pb_error_set(err, PB_ENOMEM, "out of memory");
     struct edges_result er;
     edges_estimate(s->t_s, s->v_v, s->i_a, s->n, &eo, &er);
+    assert(er.step_a == step_a);
     a->step_a = er.step_a;
     a->r_edge_steps = er.steps;
     a->r_edge_time_scale_s = er.time_scale_s;
@@ -501,18 +518,10 @@ static enum pb_code stage_resistance(struct analysis *a, const struct series *s,
     if (isfinite(er.r_mohm))
         a->r_edge_mohm = (struct estimate){er.r_mohm, er.ci95_mohm};
 
-    struct ecm_opts mo = {.y_v = s->v_v,
-                          .dt_med_s = a->median_dt_s,
-                          .gap_s = a->gap_s,
-                          .step_a = er.step_a,
-                          .cutoff_v = a->cells > 0 ? a->floor_v * a->cells : 0.0,
-                          .robust = !o->plain_fit,
-                          .try_rc = a->current_steps > 0,
-                          .work = &a->fit_rows_visited};
     struct ecm_result mr;
-    enum pb_code rc = ecm_fit(s, q_ah, &mo, &mr, err);
+    enum pb_code rc = ecm_end(run, &mr);
     if (rc != PB_OK)
-        return rc;
+        return pb_error_set(err, rc, "out of memory");
     a->r0_reason = mr.reason;
     a->fit_sigma_mv = mr.sigma_mv;
     a->fit_rho = mr.rho;

@@ -45,11 +45,13 @@ struct ctx {
     size_t at; /* current window */
     double i1; /* RC branch current */
     double a_dt, a_val;
+    size_t next; /* the sample whose lag is due next (0: none made yet) */
 };
 
 static inline void rc_advance(struct ctx *c, size_t k)
 {
     const struct series *s = c->s;
+    c->next = k + 1;
     if (k == 0) {
         c->i1 = s->i_a[0];
         c->a_dt = -1.0;
@@ -90,37 +92,28 @@ static void rc_lines(struct ctx *c)
     }
 }
 
-static int row(void *vc, size_t k, double *x, double *y)
-{
-    struct ctx *c = vc;
-    const struct series *s = c->s;
-    if (k == 0)
-        c->at = 0;
-    if (c->p == 2)
-        rc_advance(c, k);
-    while (c->at < c->nw && k >= c->w[c->at].k1)
-        c->at++;
-    if (c->at == c->nw || k < c->w[c->at].k0 || !c->w[c->at].use)
-        return 0;
-    const struct win *w = &c->w[c->at];
-    double dq = c->q[k] - w->mq;
-    x[0] = -(s->i_a[k] - (w->mi + w->bi * dq));
-    if (c->p == 2)
-        x[1] = -(c->i1 - (w->m1 + w->b1 * dq));
-    *y = c->y[k] - (w->mv + w->bv * dq);
-    int step = (k > 0 && fabs(s->i_a[k] - s->i_a[k - 1]) >= c->step_a) ||
-               (k + 1 < s->n && fabs(s->i_a[k + 1] - s->i_a[k]) >= c->step_a);
-    return step ? FIT_ROW_KEEP : 1;
-}
-
-/* row() for a block of rows, without a call per row. */
+/* A block of the model's rows (x: minus the current, and minus the RC
+ * current when p == 2, each less its window's line in q; y: the voltage
+ * less its line), without a call per row; a row outside the windows that
+ * inform R is not used, and one either side of a current step is kept at
+ * full weight. */
 static void ecm_block(void *vc, size_t k0, size_t m, int p, double *x, double *y,
                       unsigned char *use)
 {
     struct ctx *c = vc;
     const struct series *s = c->s;
-    if (k0 == 0)
+    /* the window search runs on from the last row made; rows asked for
+     * before it (the static model's rows come in any order) start it over */
+    if (k0 == 0 || (c->at > 0 && k0 < c->w[c->at - 1].k1))
         c->at = 0;
+    /* and the lag runs on from the last row made (from the first sample
+     * when asked for an earlier one): the same lag as a walk in order */
+    if (p == 2 && k0 > 0 && k0 != c->next) {
+        if (c->next == 0 || c->next > k0)
+            rc_advance(c, 0);
+        for (size_t k = c->next; k < k0; k++)
+            rc_advance(c, k);
+    }
     const double step_a = c->step_a;
     for (size_t j = 0; j < m; j++) {
         size_t k = k0 + j;
@@ -227,7 +220,13 @@ static enum pb_code fit_at(struct ctx *c, int p, double tau_s, int robust, size_
     c->tau_s = tau_s;
     if (p == 2)
         rc_lines(c);
-    enum pb_code rc = fit_blocks(c->s->n, p, ecm_block, c, robust, f, err);
+    /* rows made in any order (ecm_block), a robust fit of a long log
+     * takes its plain start from the even sample (its rss_plain then the
+     * sample's: the model choice takes the plain residuals over every row
+     * from the tau search, see static_rss_plain and ecm_end) */
+    c->next = 0;
+    enum pb_code rc = robust ? fit_blocks_any_order(c->s->n, p, ecm_block, c, f, err)
+                             : fit_blocks(c->s->n, p, ecm_block, c, robust, f, err);
     if (work)
         *work += f->rows_visited + (p == 2 ? c->s->n : 0);
     return rc;
@@ -242,24 +241,35 @@ static double honest_cov(struct ctx *c, struct fit_result *f)
         f->dof = 0.0;
         return NAN;
     }
-    /* lag-1 autocorrelation of the residuals, in sample order */
-    double x[FIT_MAX_P] = {0}, y, prev = NAN, s01 = 0.0, s00 = 0.0;
-    size_t prev_w = (size_t)-1;
-    for (size_t k = 0; k < c->s->n; k++) {
-        if (k == 0)
-            c->at = 0;
-        if (!row(c, k, x, &y)) {
-            prev = NAN;
-            continue;
+    /* lag-1 autocorrelation of the residuals, in sample order, within a
+     * window (the rows made a block at a time by ecm_block, as the fit made
+     * them) */
+    enum { HC_BLOCK = 256 };
+    double xb[HC_BLOCK * FIT_MAX_P], yb[HC_BLOCK], prev = NAN, s01 = 0.0, s00 = 0.0;
+    unsigned char ub[HC_BLOCK];
+    size_t prev_w = (size_t)-1, at = 0;
+    const int p = f->p;
+    for (size_t k0 = 0; k0 < c->s->n; k0 += HC_BLOCK) {
+        size_t m = c->s->n - k0 < HC_BLOCK ? c->s->n - k0 : HC_BLOCK;
+        ecm_block(c, k0, m, p, xb, yb, ub);
+        for (size_t j = 0; j < m; j++) {
+            if (!ub[j]) {
+                prev = NAN;
+                continue;
+            }
+            size_t k = k0 + j;
+            while (k >= c->w[at].k1) /* a used row lies in a window */
+                at++;
+            const double *x = xb + j * (size_t)p;
+            double r = yb[j];
+            for (int i = 0; i < p; i++)
+                r -= x[i] * f->beta[i];
+            if (isfinite(prev) && prev_w == at)
+                s01 += r * prev;
+            s00 += r * r;
+            prev = r;
+            prev_w = at;
         }
-        double r = y;
-        for (int j = 0; j < f->p; j++)
-            r -= x[j] * f->beta[j];
-        if (isfinite(prev) && prev_w == c->at)
-            s01 += r * prev;
-        s00 += r * r;
-        prev = r;
-        prev_w = c->at;
     }
     double rho = s00 > 0.0 ? s01 / s00 : 0.0;
     double infl = rho > 0.0 ? (1.0 + rho) / (1.0 - fmin(rho, 0.99)) : 1.0;
@@ -275,14 +285,25 @@ static double honest_cov(struct ctx *c, struct fit_result *f)
 #define TAU_WALK_MAX 16             /* time constants summed in one walk */
 #define GRID_THREAD_MIN_ROWS 100000 /* the grid walked in a thread of its own from here */
 
+/* The sums of the RC model's normal equations that do not depend on tau
+ * (those of the current and voltage columns). */
+struct tau_free_sums {
+    double a00, b0, yy;
+    size_t n_used;
+};
+
 /* The plain residual sums of squares of the RC model at nt time constants
  * (nt <= TAU_WALK_MAX) in one walk over the log: the lag of each runs over
  * every sample; within a window the lags are kept (buf) until the window's
  * lines are known, then the normal equations of every tau are summed in the
  * same order as the row-by-row fit would. The voltage and current columns
- * do not depend on tau. rss[j] is HUGE_VAL where a fit fails. */
+ * do not depend on tau: their sums are made into *fs when have_fs is 0,
+ * else taken from it (the same numbers, summed once for every walk of the
+ * search). rss[j] is HUGE_VAL where a fit fails. */
 static inline __attribute__((always_inline)) void rss_walk(struct ctx *c, const double *tau_s,
-                                                           const int nt, double *buf, double *rss)
+                                                           const int nt, double *buf, double *rss,
+                                                           struct tau_free_sums *fs_tau_free,
+                                                           const int have_fs)
 {
     const struct series *s = c->s;
     const double *ia = s->i_a, *t = s->t_s, *q = c->q;
@@ -324,7 +345,7 @@ static inline __attribute__((always_inline)) void rss_walk(struct ctx *c, const 
             double dq = q[kk] - w->mq;
             _Pragma("GCC unroll 16") for (int j = 0; j < nt; j++)
             {
-                buf[(size_t)j * len + r] = i1[j];
+                buf[r * (size_t)nt + (size_t)j] = i1[j];
                 m1[j] += i1[j];
                 bq[j] += dq * i1[j];
             }
@@ -338,12 +359,14 @@ static inline __attribute__((always_inline)) void rss_walk(struct ctx *c, const 
             double dq = q[kk] - w->mq;
             double x0 = -(ia[kk] - (w->mi + w->bi * dq));
             double y = c->y[kk] - (w->mv + w->bv * dq);
-            a00 += x0 * x0;
-            b0 += x0 * y;
-            yy += y * y;
+            if (!have_fs) {
+                a00 += x0 * x0;
+                b0 += x0 * y;
+                yy += y * y;
+            }
             _Pragma("GCC unroll 16") for (int j = 0; j < nt; j++)
             {
-                double x1 = -(buf[(size_t)j * len + r] - (m1[j] + bq[j] * dq));
+                double x1 = -(buf[r * (size_t)nt + (size_t)j] - (m1[j] + bq[j] * dq));
                 a01[j] += x0 * x1;
                 a11[j] += x1 * x1;
                 b1[j] += x1 * y;
@@ -352,6 +375,14 @@ static inline __attribute__((always_inline)) void rss_walk(struct ctx *c, const 
         n_used += len;
     }
 #undef ADVANCE
+    if (have_fs) {
+        a00 = fs_tau_free->a00;
+        b0 = fs_tau_free->b0;
+        yy = fs_tau_free->yy;
+        n_used = fs_tau_free->n_used;
+    } else {
+        *fs_tau_free = (struct tau_free_sums){a00, b0, yy, n_used};
+    }
     for (int j = 0; j < nt; j++) {
         struct fit_sums fs = {.yy = yy, .n_used = n_used};
         fs.a[0][0] = a00;
@@ -368,19 +399,25 @@ struct tau_search {
     struct ctx *c;
     size_t *work;
     double *buf; /* TAU_WALK_MAX times the longest window */
+    struct tau_free_sums fs;
     int failed;
 };
 
-/* The grid of time constants from lo_s to hi_s and its plain RSS, walked
- * by a second thread while the static model is fitted when a core is free
- * (the walk only reads the windows and the series; its own copy of the
- * context keeps the running state apart). */
+/* The search for tau: the plain RSS on a grid of time constants from lo_s
+ * to hi_s, then Brent's method on the best bracket. It only reads the
+ * windows and the series (its own copy of the context keeps the running
+ * state apart), so when a core is free a second thread runs all of it
+ * while the static model is fitted. */
 struct tau_grid {
     struct ctx c;
     double g[TAU_GRID], taus[TAU_GRID], f[TAU_GRID];
     double *buf;
+    double tau;     /* the result: NAN when the best tau is at a grid end */
+    double tau_rss; /* the RC model's plain residual sum of squares there */
+    size_t work;    /* rows the search visited, added to the caller's count at the end */
+    struct tau_free_sums free_sums; /* the static model's plain sums, every row */
     pthread_t tid;
-    int threaded, ok, walked;
+    int threaded, ok, walked, free_ok;
 };
 
 static size_t longest_window(const struct ctx *c)
@@ -392,20 +429,70 @@ static size_t longest_window(const struct ctx *c)
     return longest;
 }
 
-static void *grid_walk(void *vg)
+static double rss_at(double log_tau, void *vts)
+{
+    struct tau_search *ts = vts;
+    double tau = exp(log_tau), rss;
+    rss_walk(ts->c, &tau, 1, ts->buf, &rss, &ts->fs, 1);
+    if (ts->work)
+        *ts->work += ts->c->s->n;
+    if (!(rss < HUGE_VAL))
+        ts->failed = 1;
+    return rss;
+}
+
+/* Profiles the plain RSS over log tau on the grid, then Brent's method on
+ * the best bracket; gr->tau is NAN when the best tau is at a grid end (not
+ * resolved). */
+static void *tau_run(void *vg)
 {
     struct tau_grid *gr = vg;
-    rss_walk(&gr->c, gr->taus, TAU_GRID, gr->buf, gr->f);
+    struct tau_search ts = {.c = &gr->c, .work = &gr->work, .buf = gr->buf};
+    rss_walk(&gr->c, gr->taus, TAU_GRID, gr->buf, gr->f, &ts.fs, 0);
+    gr->free_sums = ts.fs;
+    gr->free_ok = 1;
+    gr->tau = NAN;
+    const double *g = gr->g, *f = gr->f;
+    int best = 0;
+    gr->work += gr->c.s->n;
+    for (int j = 0; j < TAU_GRID; j++) {
+        ts.failed |= !(f[j] < HUGE_VAL);
+        if (f[j] < f[best])
+            best = j;
+    }
+    if (ts.failed || best == 0 || best == TAU_GRID - 1)
+        return NULL;
+    gsl_function fn = {rss_at, &ts};
+    gsl_min_fminimizer *mz = gsl_min_fminimizer_alloc(gsl_min_fminimizer_brent);
+    double x = g[best], fx = f[best];
+    if (mz &&
+        gsl_min_fminimizer_set_with_values(mz, &fn, g[best], f[best], g[best - 1], f[best - 1],
+                                           g[best + 1], f[best + 1]) == GSL_SUCCESS) {
+        for (int it = 0; it < 40; it++) {
+            if (gsl_min_fminimizer_iterate(mz) != GSL_SUCCESS)
+                break;
+            x = gsl_min_fminimizer_x_minimum(mz);
+            fx = gsl_min_fminimizer_f_minimum(mz);
+            if (gsl_min_test_interval(gsl_min_fminimizer_x_lower(mz),
+                                      gsl_min_fminimizer_x_upper(mz), 1e-3, 0.0) == GSL_SUCCESS)
+                break;
+        }
+    }
+    gsl_min_fminimizer_free(mz);
+    gr->tau = ts.failed ? NAN : exp(x);
+    gr->tau_rss = fx;
     return NULL;
 }
 
-/* Starts the grid's walk (in a thread when one can run beside this one);
- * ok is 0 when the range is too short or memory is short. */
+/* Starts the search (in a thread when one can run beside this one); ok is
+ * 0 when the range is too short or memory is short. */
 static void grid_start(struct tau_grid *gr, const struct ctx *c, double lo_s, double hi_s)
 {
     double lo = log(lo_s), hi = log(hi_s);
     gr->threaded = gr->ok = gr->walked = 0;
     gr->buf = NULL;
+    gr->tau = NAN;
+    gr->work = 0;
     if (!(hi - lo > 1.0))
         return;
     gr->c = *c;
@@ -420,76 +507,43 @@ static void grid_start(struct tau_grid *gr, const struct ctx *c, double lo_s, do
     /* a short log's walk costs less than a thread (and import runs one
      * analysis per core already) */
     if (c->s->n >= GRID_THREAD_MIN_ROWS && sysconf(_SC_NPROCESSORS_ONLN) > 1 &&
-        pthread_create(&gr->tid, NULL, grid_walk, gr) == 0)
+        pthread_create(&gr->tid, NULL, tau_run, gr) == 0)
         gr->threaded = 1;
 }
 
-/* The grid's RSS known (joins the thread, or walks here). */
-static void grid_finish(struct tau_grid *gr)
-{
-    if (gr->threaded) {
-        pthread_join(gr->tid, NULL);
-        gr->threaded = 0;
-    } else if (gr->ok && !gr->walked) {
-        grid_walk(gr);
-    }
-    gr->walked = 1;
-}
-
-static double rss_at(double log_tau, void *vts)
-{
-    struct tau_search *ts = vts;
-    double tau = exp(log_tau), rss;
-    rss_walk(ts->c, &tau, 1, ts->buf, &rss);
-    if (ts->work)
-        *ts->work += ts->c->s->n;
-    if (!(rss < HUGE_VAL))
-        ts->failed = 1;
-    return rss;
-}
-
-/* Profiles the plain RSS over log tau on the grid (walked by grid_start),
- * then Brent's method on the best bracket. NAN when the best tau is at a
- * grid end (not resolved). Frees the grid's buffer. */
-static double search_tau(struct ctx *c, struct tau_grid *gr, size_t *work)
+/* The search's tau (joins the thread, or searches here); NAN when not
+ * resolved. Frees the search's buffer. */
+static double search_tau(struct tau_grid *gr, size_t *work)
 {
     if (!gr->ok)
         return NAN;
-    grid_finish(gr);
-    struct tau_search ts = {c, work, gr->buf, 0};
-    const double *g = gr->g, *f = gr->f;
-    int best = 0;
+    if (gr->threaded) {
+        pthread_join(gr->tid, NULL);
+        gr->threaded = 0;
+    } else if (!gr->walked) {
+        tau_run(gr);
+    }
+    gr->walked = 1;
     if (work)
-        *work += c->s->n;
-    for (int j = 0; j < TAU_GRID; j++) {
-        ts.failed |= !(f[j] < HUGE_VAL);
-        if (f[j] < f[best])
-            best = j;
-    }
-    if (ts.failed || best == 0 || best == TAU_GRID - 1) {
-        free(gr->buf);
-        gr->buf = NULL;
-        return NAN;
-    }
-    gsl_function fn = {rss_at, &ts};
-    gsl_min_fminimizer *mz = gsl_min_fminimizer_alloc(gsl_min_fminimizer_brent);
-    double x = g[best];
-    if (mz &&
-        gsl_min_fminimizer_set_with_values(mz, &fn, g[best], f[best], g[best - 1], f[best - 1],
-                                           g[best + 1], f[best + 1]) == GSL_SUCCESS) {
-        for (int it = 0; it < 40; it++) {
-            if (gsl_min_fminimizer_iterate(mz) != GSL_SUCCESS)
-                break;
-            x = gsl_min_fminimizer_x_minimum(mz);
-            if (gsl_min_test_interval(gsl_min_fminimizer_x_lower(mz),
-                                      gsl_min_fminimizer_x_upper(mz), 1e-3, 0.0) == GSL_SUCCESS)
-                break;
-        }
-    }
-    gsl_min_fminimizer_free(mz);
+        *work += gr->work;
     free(gr->buf);
     gr->buf = NULL;
-    return ts.failed ? NAN : exp(x);
+    return gr->tau;
+}
+
+/* The static model's plain residual sum of squares over every row: from
+ * the search's walk when it ran (the same sums, in the same order, as a
+ * plain pass of the static fit), else the fit's own (which, for a robust
+ * fit of a long log, is its even sample's scaled to every row). */
+static double static_rss_plain(const struct tau_grid *gr, const struct fit_result *fs)
+{
+    if (!gr->free_ok)
+        return fs->rss_plain;
+    struct fit_sums sm = {.yy = gr->free_sums.yy, .n_used = gr->free_sums.n_used};
+    sm.a[0][0] = gr->free_sums.a00;
+    sm.b[0] = gr->free_sums.b0;
+    struct fit_result pf;
+    return fit_solve_sums(&sm, 1, &pf, NULL) == PB_OK ? pf.rss_plain : fs->rss_plain;
 }
 
 static double bic(double rss, double n, int k)
@@ -497,21 +551,34 @@ static double bic(double rss, double n, int k)
     return n * log(fmax(rss, 1e-300) / n) + k * log(n);
 }
 
-enum pb_code ecm_fit(const struct series *s, const double *q_ah, const struct ecm_opts *o,
-                     struct ecm_result *out, struct pb_error *err)
+struct ecm_run {
+    struct ecm_opts o;
+    struct ctx c;
+    struct tau_grid grid;
+    struct ecm_result out;
+    int try_rc;
+};
+
+struct ecm_run *ecm_begin(const struct series *s, const double *q_ah, const struct ecm_opts *o)
 {
-    *out = (struct ecm_result){0};
+    struct ecm_run *run = calloc(1, sizeof *run);
+    if (!run)
+        return NULL;
+    run->o = *o;
+    struct ecm_result *out = &run->out;
     out->r0_mohm = out->r0_ci95_mohm = out->r_static_mohm = out->r_static_ci95_mohm = NAN;
     out->r1_mohm = out->r1_ci95_mohm = out->tau_s = out->sigma_mv = out->rho = NAN;
     out->window_s = ecm_window_s(o->dt_med_s);
-    struct ctx c = {.s = s, .y = o->y_v, .q = q_ah, .step_a = o->step_a};
-    struct tau_grid grid = {.ok = 0, .threaded = 0, .walked = 0, .buf = NULL};
-    c.w = make_windows(s, out->window_s, o->gap_s, &c.nw);
-    if (!c.w)
-        return pb_error_set(err, PB_ENOMEM, "out of memory");
-    out->windows = c.nw;
-    enum pb_code rc = PB_OK;
-    base_lines(&c);
+    run->grid = (struct tau_grid){.ok = 0, .threaded = 0, .walked = 0, .buf = NULL, .tau = NAN};
+    struct ctx *c = &run->c;
+    *c = (struct ctx){.s = s, .y = o->y_v, .q = q_ah, .step_a = o->step_a};
+    c->w = make_windows(s, out->window_s, o->gap_s, &c->nw);
+    if (!c->w) {
+        free(run);
+        return NULL;
+    }
+    out->windows = c->nw;
+    base_lines(c);
     /* A window informs R only if its current varies well above the current
      * sensor's noise: noise in a regressor biases its coefficient toward
      * zero by var(noise) / var(total), so at least 5 noise deviations (bias
@@ -521,8 +588,8 @@ enum pb_code ecm_fit(const struct series *s, const double *q_ah, const struct ec
     if (!isfinite(sigma_i))
         sigma_i = 0.0;
     size_t informative = 0;
-    for (size_t j = 0; j < c.nw; j++) {
-        struct win *w = &c.w[j];
+    for (size_t j = 0; j < c->nw; j++) {
+        struct win *w = &c->w[j];
         double ss = 0.0, vmin = HUGE_VAL;
         for (size_t k = w->k0; k < w->k1; k++) {
             double d = s->i_a[k] - (w->mi + w->bi * (q_ah[k] - w->mq));
@@ -539,12 +606,27 @@ enum pb_code ecm_fit(const struct series *s, const double *q_ah, const struct ec
         out->reason = "the current does not vary above its noise within any part of the log "
                       "away from the cut-off: resistance cannot be told apart from the falling "
                       "open-circuit voltage";
-        goto done;
+        return run;
     }
-    int try_rc = (o->try_rc || o->tau_fixed_s > 0.0) && s->n >= 50;
+    run->try_rc = (o->try_rc || o->tau_fixed_s > 0.0) && s->n >= 50;
     /* resolvable: slower than the sampling, faster than half a window */
-    if (try_rc && !(o->tau_fixed_s > 0.0))
-        grid_start(&grid, &c, fmax(2.0 * o->dt_med_s, 1e-3), 0.5 * out->window_s);
+    if (run->try_rc && !(o->tau_fixed_s > 0.0))
+        grid_start(&run->grid, c, fmax(2.0 * o->dt_med_s, 1e-3), 0.5 * out->window_s);
+    return run;
+}
+
+enum pb_code ecm_end(struct ecm_run *run, struct ecm_result *res)
+{
+    if (!run)
+        return PB_ENOMEM;
+    enum pb_code rc = PB_OK;
+    const struct ecm_opts *o = &run->o;
+    struct ecm_result *out = &run->out;
+    struct ctx c = run->c;
+    struct tau_grid *grid = &run->grid;
+    int try_rc = run->try_rc;
+    if (out->reason)
+        goto done;
     struct fit_result fs;
     if (fit_at(&c, 1, 0.0, o->robust, o->work, &fs, NULL) != PB_OK || fs.rank < 1) {
         out->reason = "the resistance fit failed (too few samples inside the windows)";
@@ -564,11 +646,15 @@ enum pb_code ecm_fit(const struct series *s, const double *q_ah, const struct ec
     if (try_rc) {
         double tau = o->tau_fixed_s;
         if (!(tau > 0.0))
-            tau = search_tau(&c, &grid, o->work);
+            tau = search_tau(grid, o->work);
         struct fit_result fr;
         if (isfinite(tau) && fit_at(&c, 2, tau, o->robust, o->work, &fr, NULL) == PB_OK &&
             fr.rank == 2) {
-            double rss_plain_rc = fr.rss_plain;
+            /* the search's walk at this tau summed the RC model's plain
+             * normal equations over every row in the same order as a plain
+             * pass (a robust fit's own rss_plain is its sample's) */
+            double rss_plain_rc = tau == grid->tau ? grid->tau_rss : fr.rss_plain;
+            double rss_plain_static = static_rss_plain(grid, &fs);
             double rho_rc = honest_cov(&c, &fr);
             double r0 = 1000.0 * fr.beta[0], r1 = 1000.0 * fr.beta[1];
             double r1_ci = 1000.0 * fit_ci95(&fr, 1);
@@ -578,10 +664,10 @@ enum pb_code ecm_fit(const struct series *s, const double *q_ah, const struct ec
              * (paying for R1 and tau) and be significant; a fixed tau (the
              * pack's, for a cell) needs only the physical part */
             int fixed = o->tau_fixed_s > 0.0;
-            int better =
-                fixed || (fr.rss_plain < 0.95 * fs.rss_plain &&
-                          bic(rss_plain_rc, n_eff, 3) < bic(fs.rss_plain, n_eff, 1) - BIC_MARGIN &&
-                          r1 > r1_ci);
+            int better = fixed || (rss_plain_rc < 0.95 * rss_plain_static &&
+                                   bic(rss_plain_rc, n_eff, 3) <
+                                       bic(rss_plain_static, n_eff, 1) - BIC_MARGIN &&
+                                   r1 > r1_ci);
             if (r0 > 0.0 && r1 >= 0.0 && better) {
                 out->rc = 1;
                 out->r0_mohm = r0;
@@ -603,16 +689,29 @@ enum pb_code ecm_fit(const struct series *s, const double *q_ah, const struct ec
         out->reason = "the resistance fit is too uncertain to report";
     }
 done:
-    if (grid.threaded) /* a walk still running is waited for, its result unused */
-        pthread_join(grid.tid, NULL);
-    free(grid.buf);
+    if (grid->threaded) /* a search still running is waited for, its result unused */
+        pthread_join(grid->tid, NULL);
+    free(grid->buf);
     if (out->reason) {
         out->r0_mohm = out->r0_ci95_mohm = NAN;
         out->r1_mohm = out->r1_ci95_mohm = out->tau_s = NAN;
         out->rc = 0;
     }
     free(c.w);
+    *res = *out;
+    free(run);
     return rc;
+}
+
+enum pb_code ecm_fit(const struct series *s, const double *q_ah, const struct ecm_opts *o,
+                     struct ecm_result *out, struct pb_error *err)
+{
+    struct ecm_run *run = ecm_begin(s, q_ah, o);
+    if (!run) {
+        *out = (struct ecm_result){0};
+        return pb_error_set(err, PB_ENOMEM, "out of memory");
+    }
+    return ecm_end(run, out);
 }
 
 /* ---- OCV trend with R fixed ------------------------------------------- */
@@ -624,7 +723,26 @@ struct trend_ctx {
     int degree;
     double r0, r1, tau, v_ref;
     double i1, a_dt, a_val;
+    size_t next; /* the sample whose lag is due next (0: none made yet) */
 };
+
+/* The RC branch's current from sample k - 1 to k (k == 0: its start). */
+static inline void trend_lag(struct trend_ctx *c, size_t k)
+{
+    const struct series *s = c->s;
+    if (k == 0) {
+        c->i1 = s->i_a[0];
+        c->a_dt = -1.0;
+    } else {
+        double dt = s->t_s[k] - s->t_s[k - 1];
+        if (fabs(dt - c->a_dt) > 1e-9 * dt) {
+            c->a_dt = dt;
+            c->a_val = exp(-dt / c->tau);
+        }
+        c->i1 = c->a_val * c->i1 + (1.0 - c->a_val) * s->i_a[k - 1];
+    }
+    c->next = k + 1;
+}
 
 static inline int trend_row(void *vc, size_t k, double *x, double *y)
 {
@@ -632,17 +750,7 @@ static inline int trend_row(void *vc, size_t k, double *x, double *y)
     const struct series *s = c->s;
     double v = s->v_v[k] + c->r0 * s->i_a[k];
     if (c->r1 > 0.0) {
-        if (k == 0) {
-            c->i1 = s->i_a[0];
-            c->a_dt = -1.0;
-        } else {
-            double dt = s->t_s[k] - s->t_s[k - 1];
-            if (fabs(dt - c->a_dt) > 1e-9 * dt) {
-                c->a_dt = dt;
-                c->a_val = exp(-dt / c->tau);
-            }
-            c->i1 = c->a_val * c->i1 + (1.0 - c->a_val) * s->i_a[k - 1];
-        }
+        trend_lag(c, k);
         v += c->r1 * c->i1;
     }
     double u = c->degree > 0 ? 2.0 * c->q[k] * c->q_scale - 1.0 : 0.0;
@@ -655,9 +763,21 @@ static inline int trend_row(void *vc, size_t k, double *x, double *y)
     return 1;
 }
 
+/* Rows in any order: with an RC branch a row needs the lag of every
+ * sample before it, so rows asked for out of turn (the kept sample's,
+ * ascending, then every row from the first) run the lag on from the last
+ * row made, or from the first sample when asked for an earlier one: the
+ * same lag, number for number, as a walk in order. */
 static void trend_block(void *vc, size_t k0, size_t m, int p, double *x, double *y,
                         unsigned char *use)
 {
+    struct trend_ctx *c = vc;
+    if (c->r1 > 0.0 && k0 > 0 && k0 != c->next) {
+        if (c->next == 0 || c->next > k0)
+            trend_lag(c, 0);
+        for (size_t k = c->next; k < k0; k++)
+            trend_lag(c, k);
+    }
     for (size_t j = 0; j < m; j++)
         use[j] = (unsigned char)trend_row(vc, k0 + j, x + j * (size_t)p, &y[j]);
 }
@@ -674,10 +794,10 @@ enum pb_code ecm_ocv_trend(const struct series *s, const double *q_ah, double q_
                           .r1 = tau_s > 0.0 ? r1_ohm : 0.0,
                           .tau = tau_s,
                           .v_ref = s->v_v[0]};
-    /* without an RC branch a row is its own sample's alone: made in any order */
-    enum pb_code rc = robust && !(c.r1 > 0.0)
-                          ? fit_blocks_any_order(s->n, degree + 1, trend_block, &c, out, err)
-                          : fit_blocks(s->n, degree + 1, trend_block, &c, robust, out, err);
+    /* rows are made in any order (trend_block), so a robust fit of a long
+     * log takes its plain start from the even sample */
+    enum pb_code rc = robust ? fit_blocks_any_order(s->n, degree + 1, trend_block, &c, out, err)
+                             : fit_blocks(s->n, degree + 1, trend_block, &c, robust, out, err);
     if (work)
         *work += out->rows_visited;
     /* the reference voltage back into the constant term */

@@ -5,9 +5,9 @@
  * q is the charge drawn, i1 the current through the RC branch (a first-order
  * lag of I with time constant tau; zero-order hold between samples).
  *
- * Owns nothing beyond one call (when a core is free, a second thread walks
- * the tau search's grid while the static model is fitted, and is joined
- * before the call returns). The OCV term is local: the log is cut into
+ * Owns nothing beyond one call (when a core is free, a second thread runs
+ * the tau search, its grid and Brent's steps, while the static model is
+ * fitted, and is joined before the call returns). The OCV term is local: the log is cut into
  * windows (at most ecm_window_s() long, none across a gap or a clock
  * joint) and in each window OCV is a straight line in q, so the falling OCV
  * of a discharge cannot leak into R; each window's line is projected out
@@ -61,9 +61,19 @@ struct ecm_result {
 /* Window length for a log: 60 s, or 8 sample intervals when longer. */
 double ecm_window_s(double dt_med_s);
 
-/* Fits the model to s (its current must not be NULL). */
+/* Fits the model to s (its current must not be NULL): ecm_begin then
+ * ecm_end. Fails only when out of memory. */
 enum pb_code ecm_fit(const struct series *s, const double *q_ah, const struct ecm_opts *o,
                      struct ecm_result *out, struct pb_error *err);
+
+/* The same fit in two halves, so the caller can work while the tau search
+ * runs: ecm_begin cuts the windows and starts the search (in a second
+ * thread when a core is free); NULL when out of memory. s, q_ah, o->y_v and
+ * o->work must stay as they are until ecm_end, which fits, joins the
+ * search, fills out and frees run (NULL: PB_ENOMEM, out untouched). */
+struct ecm_run;
+struct ecm_run *ecm_begin(const struct series *s, const double *q_ah, const struct ecm_opts *o);
+enum pb_code ecm_end(struct ecm_run *run, struct ecm_result *out);
 
 /* The OCV trend of the whole log with the resistance fixed: a polynomial of
  * the given degree in u = 2 q / q_end - 1 (the normalised charge, -1 at the

@@ -55,13 +55,17 @@ static double median_ci95(const double *sorted, size_t n, double med)
     return fmax(med - lo, hi - med);
 }
 
+double edges_step_a(double rated_mah, double peak_a)
+{
+    return fmax(rated_mah > 0.0 ? 0.2 * rated_mah / 1000.0 : 0.2 * peak_a, 0.1);
+}
+
 void edges_estimate(const double *t_s, const double *v_v, const double *i_a, size_t n,
                     const struct edges_opts *o, struct edges_result *out)
 {
     *out = (struct edges_result){0};
     out->r_mohm = out->ci95_mohm = out->time_scale_s = out->noise_mv = NAN;
-    double step_a = o->rated_mah > 0.0 ? 0.2 * o->rated_mah / 1000.0 : 0.2 * o->peak_a;
-    step_a = fmax(step_a, 0.1);
+    double step_a = edges_step_a(o->rated_mah, o->peak_a);
     out->step_a = step_a;
     if (!i_a || n < 2) {
         out->reason = "no current";

@@ -53,6 +53,10 @@ struct edges_result {
     const char *reason;  /* why r_mohm is NAN, else NULL */
 };
 
+/* The step threshold edges_estimate uses (see above): 0.2 It, else 20 % of
+ * the peak |current|, never below 0.1 A. */
+double edges_step_a(double rated_mah, double peak_a);
+
 /* Noise of one sample of y (a voltage, or the current itself) from second
  * differences where the current i holds steady (no change of 5 % of step_a):
  * 1.4826 MAD / sqrt(6) for white noise, floored at the logger's resolution
