@@ -366,8 +366,10 @@ enum pb_code packview_summary(struct store *st, const struct pack_rec *p, struct
     return PB_OK;
 }
 
-enum pb_code packview_keep(struct store *st, const struct pack_rec *p, struct pack_summary *out,
-                           struct pb_error *err)
+/* packview_keep without its note: a failure to store the assessment is
+ * left in *kept (PB_OK when it was kept). */
+static enum pb_code keep(struct store *st, const struct pack_rec *p, struct pack_summary *out,
+                         struct pb_error *kept, struct pb_error *err)
 {
     struct health_rules rules;
     struct pack_view v;
@@ -387,15 +389,23 @@ enum pb_code packview_keep(struct store *st, const struct pack_rec *p, struct pa
     pack_view_release(&v);
     if (!text)
         return pb_error_set(err, PB_ENOMEM, "out of memory");
+    store_assessment_put(st, p->id, gen, key, text, kept);
+    free(text);
+    return PB_OK;
+}
+
+enum pb_code packview_keep(struct store *st, const struct pack_rec *p, struct pack_summary *out,
+                           struct pb_error *err)
+{
     /* only the fleet view's speed depends on it: a failure is said, not fatal */
-    struct pb_error e = {PB_OK, ""};
-    if (store_assessment_put(st, p->id, gen, key, text, &e) != PB_OK)
+    struct pb_error kept = {PB_OK, ""};
+    enum pb_code rc = keep(st, p, out, &kept, err);
+    if (rc == PB_OK && kept.code != PB_OK)
         fprintf(stderr,
                 "packbook: note: %s (pack %s: 'packbook fleet' assesses it from its flights "
                 "until its assessment can be kept)\n",
-                e.msg, p->label);
-    free(text);
-    return PB_OK;
+                kept.msg, p->label);
+    return rc;
 }
 
 enum pb_code packview_keep_stale(struct store *st, size_t *assessed, size_t *current,
@@ -410,15 +420,24 @@ enum pb_code packview_keep_stale(struct store *st, size_t *assessed, size_t *cur
     enum pb_code rc = store_pack_list(st, &packs, &np, err);
     if (rc == PB_OK)
         rc = store_assessments_list(st, &kept, &nkept, err);
+    /* a store filled by another program can take minutes: say how far on a terminal */
+    int say = isatty(STDERR_FILENO) && np > 20;
     for (size_t k = 0; rc == PB_OK && k < np; k++) {
         struct pack_view v;
+        if (say)
+            fprintf(stderr, "\rassessing packs: %zu of %zu", k + 1, np);
         if (kept_view(kept, nkept, &packs[k], &rules, &v)) {
             (*current)++;
             continue;
         }
-        rc = packview_keep(st, &packs[k], NULL, err);
+        struct pb_error kept = {PB_OK, ""};
+        rc = keep(st, &packs[k], NULL, &kept, err);
+        if (rc == PB_OK && kept.code != PB_OK) /* the next ones would fail alike */
+            rc = pb_error_set(err, kept.code, "%s", kept.msg);
         *assessed += rc == PB_OK;
     }
+    if (say)
+        fprintf(stderr, "\r\033[K");
     store_packs_free(packs);
     store_assessments_free(kept, nkept);
     return rc;
