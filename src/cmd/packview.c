@@ -164,6 +164,8 @@ static int by_pack_id(const void *key, const void *elem)
 static int kept_view(const struct assessment_rec *kept, size_t nkept, const struct pack_rec *p,
                      const struct health_rules *rules, struct pack_view *v)
 {
+    if (nkept == 0) /* bsearch wants an array, even of none */
+        return 0;
     const struct assessment_rec *a = bsearch(&p->id, kept, nkept, sizeof *kept, by_pack_id);
     if (!a || !a->inputs_key || !a->assessment)
         return 0;
