@@ -155,7 +155,7 @@ static enum pb_code do_remove(struct store *st, const struct flight_cli *cli, st
     char what[512];
     describe(&f, p.label, what, sizeof what);
     printf("removed %s\n", what);
-    rc = packview_keep(st, &p, &after, err);
+    rc = packview_keep(st, &p, &after, NULL, err);
     if (rc == PB_OK)
         packview_print_change(stdout, &before, &after);
     return rc;
@@ -203,8 +203,8 @@ static enum pb_code do_move(struct store *st, const struct flight_cli *cli, stru
     char what[512];
     describe(&f, from.label, what, sizeof what);
     printf("moved %s to %s\n", what, to.label);
-    if ((rc = packview_keep(st, &from, &a_from, err)) != PB_OK ||
-        (rc = packview_keep(st, &to, &a_to, err)) != PB_OK)
+    if ((rc = packview_keep(st, &from, &a_from, NULL, err)) != PB_OK ||
+        (rc = packview_keep(st, &to, &a_to, NULL, err)) != PB_OK)
         return rc;
     packview_print_change(stdout, &b_from, &a_from);
     packview_print_change(stdout, &b_to, &a_to);
@@ -230,7 +230,7 @@ static enum pb_code do_ack(struct store *st, const struct flight_cli *cli, struc
     /* an acknowledged departure is no longer the pack's finding */
     struct pack_rec p;
     rc = store_pack_get(st, label, &p, err);
-    return rc == PB_OK ? packview_keep(st, &p, NULL, err) : rc;
+    return rc == PB_OK ? packview_keep(st, &p, NULL, NULL, err) : rc;
 }
 
 enum pb_code cmd_flight(int argc, char **argv, struct app *app, struct pb_error *err)

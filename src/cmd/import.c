@@ -566,18 +566,13 @@ static void *worker(void *vp)
 /* The flights just stored (by content hash) that left the pack's trend
  * (departure.h), each with how to acknowledge it. Printed even with
  * --quiet: it is why the operator should look at the pack now. */
-static enum pb_code report_departures(struct store *st, const struct pack_rec *pack,
-                                      char (*hashes)[40], size_t nh, struct pb_error *err)
+/* The flights just stored (hashes) that left their trend, from the pack's
+ * view as import kept it (the flags do not depend on the rules). */
+static void report_departures(const struct pack_view *v, char (*hashes)[40], size_t nh)
 {
-    struct health_rules rules;
-    health_rules_default(&rules);
-    struct pack_view v;
-    enum pb_code rc = packview_load(st, pack, &rules, TREND_WEEK, 0, 1000.0, &v, err);
-    if (rc != PB_OK)
-        return rc;
-    for (size_t k = 0; k < v.nflights; k++) {
-        const struct flight_rec *f = &v.flights[k];
-        if (!v.dep[k].flagged || pack_view_ack(&v, f->id))
+    for (size_t k = 0; k < v->nflights; k++) {
+        const struct flight_rec *f = &v->flights[k];
+        if (!v->dep[k].flagged || pack_view_ack(v, f->id))
             continue;
         int fresh = 0;
         for (size_t j = 0; j < nh && !fresh; j++)
@@ -585,7 +580,7 @@ static enum pb_code report_departures(struct store *st, const struct pack_rec *p
         if (!fresh)
             continue;
         char what[128], day[40];
-        departure_text(&v.dep[k], what, sizeof what);
+        departure_text(&v->dep[k], what, sizeof what);
         isotime_format(f->flown_epoch_s, day, sizeof day);
         printf("inspect: flight %lld (%.10s, %s): %s; after inspecting the pack: packbook flight "
                "ack %lld --note TEXT\n",
@@ -593,8 +588,6 @@ static enum pb_code report_departures(struct store *st, const struct pack_rec *p
                utf8_printable((char[4 * 256 + 4]){0}, 4 * 256 + 4, f->source),
                report_units(what, (char[160]){0}, 160), (long long)f->id);
     }
-    pack_view_release(&v);
-    return PB_OK;
 }
 
 static void progress(size_t done, size_t total)
@@ -757,17 +750,19 @@ enum pb_code cmd_import(int argc, char **argv, struct app *app, struct pb_error 
         printf("%zu imported, %zu already there, %zu failed (pack %s)\n", stored, dups, failed,
                utf8_printable(lb, sizeof lb, pack.label));
     if (stored > 0) {
-        rc = packview_keep(st, &pack, &after, err);
+        /* one assessment: kept for fleet, and the new flights' departures from it */
+        struct pack_view v;
+        rc = packview_keep(st, &pack, &after, &v, err);
         if (rc != PB_OK)
             goto cleanup;
         if (strcmp(before.status, after.status) != 0)
             printf("pack %s: status %s -> %s (%s)\n", lb, before.status, after.status,
                    after.reason);
+        report_departures(&v, hashes, stored);
+        pack_view_release(&v);
     }
     app->some_failed = failed > 0;
-    rc = stored ? report_departures(st, &pack, hashes, stored, err) : PB_OK;
-    if (rc == PB_OK)
-        rc = cmd_finish_stdout(err);
+    rc = cmd_finish_stdout(err);
 cleanup:
     free(hashes);
     for (size_t k = 0; k < paths.n; k++)

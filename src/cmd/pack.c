@@ -304,7 +304,7 @@ static enum pb_code cmd_edit(struct store *st, struct pack_cli *cli, struct pb_e
     packopts_describe(old.settings, ds, sizeof ds);
     packopts_describe(p.settings, dn, sizeof dn);
     say_change("reading settings", ds, dn);
-    rc = packview_keep(st, &p, &after, err);
+    rc = packview_keep(st, &p, &after, NULL, err);
     if (rc == PB_OK && (before.cycles != after.cycles || strcmp(before.status, after.status) != 0 ||
                         strcmp(before.label, after.label) != 0))
         packview_print_change(stdout, &before, &after);

@@ -371,7 +371,7 @@ enum pb_code packview_summary(struct store *st, const struct pack_rec *p, struct
 /* packview_keep without its note: a failure to store the assessment is
  * left in *kept (PB_OK when it was kept). */
 static enum pb_code keep(struct store *st, const struct pack_rec *p, struct pack_summary *out,
-                         struct pb_error *kept, struct pb_error *err)
+                         struct pack_view *view, struct pb_error *kept, struct pb_error *err)
 {
     struct health_rules rules;
     struct pack_view v;
@@ -388,7 +388,10 @@ static enum pb_code keep(struct store *st, const struct pack_rec *p, struct pack
     char key[ASSESSMENT_KEY_CAP];
     assessment_key(p, &rules, gen, key, sizeof key);
     char *text = assessment_encode(&v);
-    pack_view_release(&v);
+    if (view && text)
+        *view = v; /* the caller's now, flights and departures included */
+    else
+        pack_view_release(&v);
     if (!text)
         return pb_error_set(err, PB_ENOMEM, "out of memory");
     store_assessment_put(st, p->id, gen, key, text, kept);
@@ -397,11 +400,11 @@ static enum pb_code keep(struct store *st, const struct pack_rec *p, struct pack
 }
 
 enum pb_code packview_keep(struct store *st, const struct pack_rec *p, struct pack_summary *out,
-                           struct pb_error *err)
+                           struct pack_view *view, struct pb_error *err)
 {
     /* only the fleet view's speed depends on it: a failure is said, not fatal */
     struct pb_error kept = {PB_OK, ""};
-    enum pb_code rc = keep(st, p, out, &kept, err);
+    enum pb_code rc = keep(st, p, out, view, &kept, err);
     if (rc == PB_OK && kept.code != PB_OK)
         fprintf(stderr,
                 "packbook: note: %s (pack %s: 'packbook fleet' assesses it from its flights "
@@ -433,7 +436,7 @@ enum pb_code packview_keep_stale(struct store *st, size_t *assessed, size_t *cur
             continue;
         }
         struct pb_error kept = {PB_OK, ""};
-        rc = keep(st, &packs[k], NULL, &kept, err);
+        rc = keep(st, &packs[k], NULL, NULL, &kept, err);
         if (rc == PB_OK && kept.code != PB_OK) /* the next ones would fail alike */
             rc = pb_error_set(err, kept.code, "%s", kept.msg);
         *assessed += rc == PB_OK;

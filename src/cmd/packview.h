@@ -98,12 +98,14 @@ enum pb_code packview_summary(struct store *st, const struct pack_rec *p, struct
 
 /* Assesses pack p from its flights as the fleet view does (the settings'
  * rules) and keeps that assessment in the store (assessment.h) for fleet;
- * out, when not NULL, gets the summary. A failure to keep it (a role
+ * out, when not NULL, gets the summary; view, when not NULL, the view it
+ * was made from, with its flights and departures (release it with
+ * pack_view_release). A failure to keep it (a role
  * without the right, say) is not an error: a note on standard error says
  * why (only the fleet view's speed depends on it). Writing commands call it
  * for each pack whose history they changed. */
 enum pb_code packview_keep(struct store *st, const struct pack_rec *p, struct pack_summary *out,
-                           struct pb_error *err);
+                           struct pack_view *view, struct pb_error *err);
 
 /* packview_keep for every pack whose kept assessment is missing or stale
  * (db migrate); counts the packs assessed and those already current. */

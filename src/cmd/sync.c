@@ -283,7 +283,7 @@ enum pb_code cmd_sync(int argc, char **argv, struct app *app, struct pb_error *e
             rc = send_flights(src, dst, &packs[k], &dp, &n, err);
             /* the receiving side's fleet view of the pack, kept as import keeps it */
             if (rc == PB_OK && n.flights_sent + n.acks > had)
-                rc = packview_keep(dst, &dp, NULL, err);
+                rc = packview_keep(dst, &dp, NULL, NULL, err);
         }
     }
     if (rc == PB_OK)
