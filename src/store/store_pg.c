@@ -629,6 +629,39 @@ static int pg_schema_version_found(struct store_impl *st)
 
 /* ---- packs -------------------------------------------------------------- */
 
+/* The rows sql returns (with q; may be NULL), each made by fill into an
+ * array of size-byte records (zeroed first). fill returns -1 when out of
+ * memory; release (may be NULL) frees what n records own. On failure
+ * nothing is left to free. */
+static enum pb_code rows_of(struct store_impl *st, const char *sql, const struct params *q,
+                            size_t size, int (*fill)(const PGresult *r, int row, void *rec),
+                            void (*release)(void *recs, size_t n), void **out, size_t *n,
+                            const char *what, struct pb_error *err)
+{
+    *out = NULL;
+    *n = 0;
+    PGresult *r = run(st, sql, q);
+    if (!ok(r))
+        return fail(st, r, "SELECT", what, err);
+    size_t rows = (size_t)PQntuples(r);
+    char *v = calloc(rows ? rows : 1, size);
+    int bad = !v;
+    size_t k = 0;
+    for (; !bad && k < rows; k++)
+        bad = fill(r, (int)k, v + k * size) != 0;
+    PQclear(r);
+    if (bad) {
+        if (release && v)
+            release(v, k);
+        else
+            free(v);
+        return pb_error_set(err, PB_ENOMEM, "out of memory");
+    }
+    *out = v;
+    *n = rows;
+    return PB_OK;
+}
+
 static void read_pack(const PGresult *r, int row, struct pack_rec *p)
 {
     memset(p, 0, sizeof *p);
@@ -711,26 +744,17 @@ static enum pb_code pg_pack_by_id(struct store_impl *st, int64_t id, struct pack
     return rc;
 }
 
+static int fill_pack(const PGresult *r, int row, void *rec)
+{
+    read_pack(r, row, rec);
+    return 0;
+}
+
 static enum pb_code pg_pack_list(struct store_impl *st, struct pack_rec **out, size_t *n,
                                  struct pb_error *err)
 {
-    *out = NULL;
-    *n = 0;
-    PGresult *r = run(st, SQL_PACK_LIST, NULL);
-    if (!ok(r))
-        return fail(st, r, "SELECT", "cannot read packs", err);
-    int rows = PQntuples(r);
-    struct pack_rec *v = calloc(rows > 0 ? (size_t)rows : 1, sizeof *v);
-    if (!v) {
-        PQclear(r);
-        return pb_error_set(err, PB_ENOMEM, "out of memory");
-    }
-    for (int k = 0; k < rows; k++)
-        read_pack(r, k, &v[k]);
-    PQclear(r);
-    *out = v;
-    *n = (size_t)rows;
-    return PB_OK;
+    return rows_of(st, SQL_PACK_LIST, NULL, sizeof **out, fill_pack, NULL, (void **)out, n,
+                   "cannot read packs", err);
 }
 
 /* A writing statement in its own transaction; *changed is the rows it changed. */
@@ -965,6 +989,12 @@ static enum pb_code pg_flight_find_hash(struct store_impl *st, const char *conte
     return PB_OK;
 }
 
+static int fill_flight(const PGresult *r, int row, void *rec)
+{
+    read_flight(r, row, rec);
+    return 0;
+}
+
 static enum pb_code pg_flights_of(struct store_impl *st, int64_t pack_id, struct flight_rec **out,
                                   size_t *n, struct pb_error *err)
 {
@@ -976,20 +1006,15 @@ static enum pb_code pg_flights_of(struct store_impl *st, int64_t pack_id, struct
              FLIGHT_HEAD_COLS, (int)strlen(flight_num_cols) - 2, flight_num_cols);
     struct params q = {0};
     p_int(&q, pack_id);
-    PGresult *r = run(st, sql, &q);
-    if (!ok(r))
-        return fail(st, r, "SELECT", "cannot read flights", err);
-    int rows = PQntuples(r);
-    struct flight_rec *v = malloc((rows > 0 ? (size_t)rows : 1) * sizeof *v);
-    if (!v) {
-        PQclear(r);
-        return pb_error_set(err, PB_ENOMEM, "out of memory");
-    }
-    for (int k = 0; k < rows; k++)
-        read_flight(r, k, &v[k]);
-    PQclear(r);
+    struct flight_rec *v = NULL;
+    size_t nv = 0;
+    enum pb_code rc = rows_of(st, sql, &q, sizeof *v, fill_flight, NULL, (void **)&v, &nv,
+                              "cannot read flights", err);
+    if (rc != PB_OK)
+        return rc;
+    int rows = (int)nv;
     /* the cells of the whole pack in one query, in the flights' order */
-    r = run(st, SQL_CELLS_OF, &q);
+    PGresult *r = run(st, SQL_CELLS_OF, &q);
     if (!ok(r)) {
         free(v);
         return fail(st, r, "SELECT", "cannot read flights", err);
@@ -1127,31 +1152,22 @@ static enum pb_code pg_flight_move(struct store_impl *st, int64_t id, int64_t to
     return rc == PB_OK && changed == 0 ? no_flight(id, err) : rc;
 }
 
+static int fill_ack(const PGresult *r, int row, void *rec)
+{
+    struct flight_ack *a = rec;
+    a->flight_id = get_int(r, row, 0);
+    get_text(a->note, sizeof a->note, r, row, 1);
+    get_text(a->acked_at, sizeof a->acked_at, r, row, 2);
+    return 0;
+}
+
 static enum pb_code pg_acks_of(struct store_impl *st, int64_t pack_id, struct flight_ack **out,
                                size_t *n, struct pb_error *err)
 {
-    *out = NULL;
-    *n = 0;
     struct params q = {0};
     p_int(&q, pack_id);
-    PGresult *r = run(st, SQL_ACKS_OF, &q);
-    if (!ok(r))
-        return fail(st, r, "SELECT", "cannot read acknowledgements", err);
-    int rows = PQntuples(r);
-    struct flight_ack *v = calloc(rows > 0 ? (size_t)rows : 1, sizeof *v);
-    if (!v) {
-        PQclear(r);
-        return pb_error_set(err, PB_ENOMEM, "out of memory");
-    }
-    for (int k = 0; k < rows; k++) {
-        v[k].flight_id = get_int(r, k, 0);
-        get_text(v[k].note, sizeof v[k].note, r, k, 1);
-        get_text(v[k].acked_at, sizeof v[k].acked_at, r, k, 2);
-    }
-    PQclear(r);
-    *out = v;
-    *n = (size_t)rows;
-    return PB_OK;
+    return rows_of(st, SQL_ACKS_OF, &q, sizeof **out, fill_ack, NULL, (void **)out, n,
+                   "cannot read acknowledgements", err);
 }
 
 static enum pb_code pg_flight_label(struct store_impl *st, int64_t id, char *label, size_t cap,
@@ -1179,31 +1195,22 @@ static enum pb_code pg_ack_put(struct store_impl *st, int64_t flight_id, const c
     return write_one(st, SQL_ACK_PUT, &q, NULL, "INSERT", "cannot store the acknowledgement", err);
 }
 
+static int fill_pair(const PGresult *r, int row, void *rec)
+{
+    struct pair_rec *p = rec;
+    p->a_id = get_int(r, row, 0);
+    get_text(p->a, sizeof p->a, r, row, 1);
+    p->b_id = get_int(r, row, 2);
+    get_text(p->b, sizeof p->b, r, row, 3);
+    get_text(p->created_at, sizeof p->created_at, r, row, 4);
+    return 0;
+}
+
 static enum pb_code pg_pairs_list(struct store_impl *st, struct pair_rec **out, size_t *n,
                                   struct pb_error *err)
 {
-    *out = NULL;
-    *n = 0;
-    PGresult *r = run(st, SQL_PAIRS_LIST, NULL);
-    if (!ok(r))
-        return fail(st, r, "SELECT", "cannot read the pairs", err);
-    int rows = PQntuples(r);
-    struct pair_rec *v = calloc(rows > 0 ? (size_t)rows : 1, sizeof *v);
-    if (!v) {
-        PQclear(r);
-        return pb_error_set(err, PB_ENOMEM, "out of memory");
-    }
-    for (int k = 0; k < rows; k++) {
-        v[k].a_id = get_int(r, k, 0);
-        get_text(v[k].a, sizeof v[k].a, r, k, 1);
-        v[k].b_id = get_int(r, k, 2);
-        get_text(v[k].b, sizeof v[k].b, r, k, 3);
-        get_text(v[k].created_at, sizeof v[k].created_at, r, k, 4);
-    }
-    PQclear(r);
-    *out = v;
-    *n = (size_t)rows;
-    return PB_OK;
+    return rows_of(st, SQL_PAIRS_LIST, NULL, sizeof **out, fill_pair, NULL, (void **)out, n,
+                   "cannot read the pairs", err);
 }
 
 static enum pb_code pg_pairs_busy(struct store_impl *st, int64_t lo, int64_t hi, int64_t *busy,
@@ -1248,31 +1255,26 @@ static int dup_value(char **dst, const PGresult *r, int row, int col)
     return *dst ? 0 : -1;
 }
 
+static int fill_assessment(const PGresult *r, int row, void *rec)
+{
+    struct assessment_rec *a = rec;
+    a->pack_id = get_int(r, row, 0);
+    a->history_gen = get_int(r, row, 1);
+    return dup_value(&a->inputs_key, r, row, 2) != 0 || dup_value(&a->assessment, r, row, 3) != 0
+               ? -1
+               : 0;
+}
+
+static void release_assessments(void *recs, size_t n)
+{
+    store_assessments_free(recs, n);
+}
+
 static enum pb_code pg_assessments_list(struct store_impl *st, struct assessment_rec **out,
                                         size_t *n, struct pb_error *err)
 {
-    *out = NULL;
-    *n = 0;
-    PGresult *r = run(st, SQL_ASSESS_LIST, NULL);
-    if (!ok(r))
-        return fail(st, r, "SELECT", "cannot read the kept assessments", err);
-    int rows = PQntuples(r);
-    struct assessment_rec *v = calloc(rows > 0 ? (size_t)rows : 1, sizeof *v);
-    int bad = !v;
-    for (int k = 0; !bad && k < rows; k++) {
-        v[k].pack_id = get_int(r, k, 0);
-        v[k].history_gen = get_int(r, k, 1);
-        bad =
-            dup_value(&v[k].inputs_key, r, k, 2) != 0 || dup_value(&v[k].assessment, r, k, 3) != 0;
-    }
-    PQclear(r);
-    if (bad) {
-        store_assessments_free(v, rows > 0 ? (size_t)rows : 0);
-        return pb_error_set(err, PB_ENOMEM, "out of memory");
-    }
-    *out = v;
-    *n = (size_t)rows;
-    return PB_OK;
+    return rows_of(st, SQL_ASSESS_LIST, NULL, sizeof **out, fill_assessment, release_assessments,
+                   (void **)out, n, "cannot read the kept assessments", err);
 }
 
 static enum pb_code pg_history_gen(struct store_impl *st, int64_t pack_id, int64_t *gen,
