@@ -2,6 +2,7 @@
 #include "ecm.h"
 
 #include "edges.h"
+#include "twin.h"
 
 #include <gsl/gsl_errno.h>
 #include <gsl/gsl_min.h>
@@ -39,6 +40,7 @@ struct ctx {
     struct win *w;
     size_t nw;
     double step_a;
+    int whole;    /* no pass cut in two (ecm_opts) */
     int p;        /* 1: R only; 2: R0 and R1 */
     double tau_s; /* RC branch */
     /* running state, reset at k == 0 */
@@ -225,32 +227,40 @@ static enum pb_code fit_at(struct ctx *c, int p, double tau_s, int robust, size_
      * sample's: the model choice takes the plain residuals over every row
      * from the tau search, see static_rss_plain and ecm_end) */
     c->next = 0;
-    enum pb_code rc = robust ? fit_blocks_any_order(c->s->n, p, ecm_block, c, f, err)
-                             : fit_blocks(c->s->n, p, ecm_block, c, robust, f, err);
+    enum pb_code rc =
+        robust ? fit_blocks_any_order(c->s->n, p, ecm_block, c, c->whole ? 0 : sizeof *c, f, err)
+               : fit_blocks(c->s->n, p, ecm_block, c, c->whole ? 0 : sizeof *c, robust, f, err);
     if (work)
         *work += f->rows_visited + (p == 2 ? c->s->n : 0);
     return rc;
 }
 
-/* Charges the windows' own parameters to the degrees of freedom and widens
- * the covariance for serially correlated residuals; returns rho. */
-static double honest_cov(struct ctx *c, struct fit_result *f)
+/* The lag-1 sums of the residuals at beta over samples [k0, k1), in sample
+ * order within a window (the rows made a block at a time by ecm_block, as
+ * the fit made them, on a context of its own). */
+struct lag1 {
+    struct ctx c;
+    const double *beta;
+    int p;
+    size_t k0, k1;
+    double s01, s00;
+    double first, last;         /* the residual of row k0 and of row k1 - 1 (NAN: not used) */
+    size_t first_win, last_win; /* their windows */
+};
+
+static void lag1_sums(void *vl)
 {
-    double dof = f->dof - (double)window_params(c);
-    if (dof < 1.0) {
-        f->dof = 0.0;
-        return NAN;
-    }
-    /* lag-1 autocorrelation of the residuals, in sample order, within a
-     * window (the rows made a block at a time by ecm_block, as the fit made
-     * them) */
     enum { HC_BLOCK = 256 };
+    struct lag1 *l = vl;
+    struct ctx *c = &l->c;
     double xb[HC_BLOCK * FIT_MAX_P], yb[HC_BLOCK], prev = NAN, s01 = 0.0, s00 = 0.0;
     unsigned char ub[HC_BLOCK];
     size_t prev_w = (size_t)-1, at = 0;
-    const int p = f->p;
-    for (size_t k0 = 0; k0 < c->s->n; k0 += HC_BLOCK) {
-        size_t m = c->s->n - k0 < HC_BLOCK ? c->s->n - k0 : HC_BLOCK;
+    const int p = l->p;
+    l->first = NAN;
+    l->first_win = (size_t)-1;
+    for (size_t k0 = l->k0; k0 < l->k1; k0 += HC_BLOCK) {
+        size_t m = l->k1 - k0 < HC_BLOCK ? l->k1 - k0 : HC_BLOCK;
         ecm_block(c, k0, m, p, xb, yb, ub);
         for (size_t j = 0; j < m; j++) {
             if (!ub[j]) {
@@ -263,13 +273,50 @@ static double honest_cov(struct ctx *c, struct fit_result *f)
             const double *x = xb + j * (size_t)p;
             double r = yb[j];
             for (int i = 0; i < p; i++)
-                r -= x[i] * f->beta[i];
+                r -= x[i] * l->beta[i];
             if (isfinite(prev) && prev_w == at)
                 s01 += r * prev;
             s00 += r * r;
+            if (k == l->k0) {
+                l->first = r;
+                l->first_win = at;
+            }
             prev = r;
             prev_w = at;
         }
+    }
+    l->s01 = s01;
+    l->s00 = s00;
+    l->last = prev;
+    l->last_win = prev_w;
+}
+
+/* Charges the windows' own parameters to the degrees of freedom and widens
+ * the covariance for serially correlated residuals; returns rho. A long log
+ * is summed in two halves (twin.h), joined where the second starts. */
+static double honest_cov(struct ctx *c, struct fit_result *f)
+{
+    double dof = f->dof - (double)window_params(c);
+    if (dof < 1.0) {
+        f->dof = 0.0;
+        return NAN;
+    }
+    size_t n = c->s->n, h = n >= TWIN_MIN_ROWS && !c->whole ? twin_split(n) : n;
+    struct lag1 a = {.c = *c, .beta = f->beta, .p = f->p, .k0 = 0, .k1 = h};
+    struct lag1 b = {.c = *c, .beta = f->beta, .p = f->p, .k0 = h, .k1 = n};
+    double s01, s00;
+    if (h < n) {
+        twin_run(lag1_sums, &a, &b);
+        /* the pair across the cut: both rows used, in one window */
+        double across = isfinite(a.last) && isfinite(b.first) && a.last_win == b.first_win
+                            ? a.last * b.first
+                            : 0.0;
+        s01 = a.s01 + across + b.s01;
+        s00 = a.s00 + b.s00;
+    } else {
+        lag1_sums(&a);
+        s01 = a.s01;
+        s00 = a.s00;
     }
     double rho = s00 > 0.0 ? s01 / s00 : 0.0;
     double infl = rho > 0.0 ? (1.0 + rho) / (1.0 - fmin(rho, 0.99)) : 1.0;
@@ -292,21 +339,30 @@ struct tau_free_sums {
     size_t n_used;
 };
 
-/* The plain residual sums of squares of the RC model at nt time constants
- * (nt <= TAU_WALK_MAX) in one walk over the log: the lag of each runs over
- * every sample; within a window the lags are kept (buf) until the window's
- * lines are known, then the normal equations of every tau are summed in the
- * same order as the row-by-row fit would. The voltage and current columns
- * do not depend on tau: their sums are made into *fs when have_fs is 0,
- * else taken from it (the same numbers, summed once for every walk of the
- * search). rss[j] is HUGE_VAL where a fit fails. */
-static inline __attribute__((always_inline)) void rss_walk(struct ctx *c, const double *tau_s,
-                                                           const int nt, double *buf, double *rss,
-                                                           struct tau_free_sums *fs_tau_free,
-                                                           const int have_fs)
+/* One part of a walk over the log for nt time constants (nt <= TAU_WALK_MAX):
+ * the windows [w0, w1) in use, their sums of the RC model's normal
+ * equations. The lag of each tau runs over every sample from the first (so a
+ * part that starts later runs it on, cheaply, to its first window: the same
+ * lags, number for number, as one walk). Within a window the lags are kept
+ * (buf) until the window's lines are known, then summed in row order. The
+ * voltage and current columns do not depend on tau: their sums are made
+ * only when want_free is set. */
+struct walk_part {
+    const struct ctx *c;
+    const double *tau_s;
+    double *buf; /* TAU_WALK_MAX times the longest window */
+    size_t w0, w1;
+    int want_free;
+    double a01[TAU_WALK_MAX], a11[TAU_WALK_MAX], b1[TAU_WALK_MAX];
+    struct tau_free_sums free_sums;
+};
+
+static inline __attribute__((always_inline)) void walk_windows(struct walk_part *wp, const int nt)
 {
+    const struct ctx *c = wp->c;
     const struct series *s = c->s;
-    const double *ia = s->i_a, *t = s->t_s, *q = c->q;
+    const double *ia = s->i_a, *t = s->t_s, *q = c->q, *tau_s = wp->tau_s;
+    double *buf = wp->buf;
     double i1[TAU_WALK_MAX], a_val[TAU_WALK_MAX], a_dt = -1.0; /* one interval for all taus */
     double a01[TAU_WALK_MAX] = {0}, a11[TAU_WALK_MAX] = {0}, b1[TAU_WALK_MAX] = {0};
     double a00 = 0.0, b0 = 0.0, yy = 0.0;
@@ -328,7 +384,7 @@ static inline __attribute__((always_inline)) void rss_walk(struct ctx *c, const 
             a_val[j] * i1[j] + (1.0 - a_val[j]) * ia[(k)-1];                                       \
     } while (0)
     k = 1; /* the next sample whose lag is due; i1 holds sample k - 1's */
-    for (size_t wj = 0; wj < c->nw; wj++) {
+    for (size_t wj = wp->w0; wj < wp->w1; wj++) {
         const struct win *w = &c->w[wj];
         if (!w->use)
             continue;
@@ -359,7 +415,7 @@ static inline __attribute__((always_inline)) void rss_walk(struct ctx *c, const 
             double dq = q[kk] - w->mq;
             double x0 = -(ia[kk] - (w->mi + w->bi * dq));
             double y = c->y[kk] - (w->mv + w->bv * dq);
-            if (!have_fs) {
+            if (wp->want_free) {
                 a00 += x0 * x0;
                 b0 += x0 * y;
                 yy += y * y;
@@ -375,30 +431,73 @@ static inline __attribute__((always_inline)) void rss_walk(struct ctx *c, const 
         n_used += len;
     }
 #undef ADVANCE
+    for (int j = 0; j < nt; j++) {
+        wp->a01[j] = a01[j];
+        wp->a11[j] = a11[j];
+        wp->b1[j] = b1[j];
+    }
+    wp->free_sums = (struct tau_free_sums){a00, b0, yy, n_used};
+}
+
+static void walk_grid(void *wp)
+{
+    walk_windows(wp, TAU_GRID);
+}
+
+static void walk_one(void *wp)
+{
+    walk_windows(wp, 1);
+}
+
+/* The plain residual sums of squares of the RC model at nt time constants
+ * (TAU_GRID or 1) in one walk over the log; a long log walked in two parts
+ * (the windows before and after twin_split, each with a buffer of its own
+ * in bufs[0] and bufs[1]), added in that order whether or not they ran side
+ * by side. The tau-free sums are made into *fs when have_fs is 0, else
+ * taken from it (the same numbers, made once for every walk of the
+ * search). rss[j] is HUGE_VAL where a fit fails. */
+static void rss_walk(const struct ctx *c, const double *tau_s, int nt, double *const bufs[2],
+                     double *rss, struct tau_free_sums *fs, int have_fs)
+{
+    size_t cut = c->nw;
+    if (c->s->n >= TWIN_MIN_ROWS && !c->whole) {
+        size_t h = twin_split(c->s->n);
+        cut = 0;
+        while (cut < c->nw && c->w[cut].k0 < h)
+            cut++;
+    }
+    struct walk_part a = {c, tau_s, bufs[0], 0, cut, !have_fs, {0}, {0}, {0}, {0, 0, 0, 0}};
+    struct walk_part b = {c, tau_s, bufs[1], cut, c->nw, !have_fs, {0}, {0}, {0}, {0, 0, 0, 0}};
+    void (*walk)(void *) = nt == 1 ? walk_one : walk_grid;
+    if (cut < c->nw)
+        twin_run(walk, &a, &b);
+    else
+        walk(&a);
     if (have_fs) {
-        a00 = fs_tau_free->a00;
-        b0 = fs_tau_free->b0;
-        yy = fs_tau_free->yy;
-        n_used = fs_tau_free->n_used;
+        a.free_sums = *fs;
     } else {
-        *fs_tau_free = (struct tau_free_sums){a00, b0, yy, n_used};
+        a.free_sums.a00 += b.free_sums.a00;
+        a.free_sums.b0 += b.free_sums.b0;
+        a.free_sums.yy += b.free_sums.yy;
+        a.free_sums.n_used += b.free_sums.n_used;
+        *fs = a.free_sums;
     }
     for (int j = 0; j < nt; j++) {
-        struct fit_sums fs = {.yy = yy, .n_used = n_used};
-        fs.a[0][0] = a00;
-        fs.a[0][1] = a01[j];
-        fs.a[1][1] = a11[j];
-        fs.b[0] = b0;
-        fs.b[1] = b1[j];
+        struct fit_sums sm = {.yy = a.free_sums.yy, .n_used = a.free_sums.n_used};
+        sm.a[0][0] = a.free_sums.a00;
+        sm.a[0][1] = a.a01[j] + b.a01[j];
+        sm.a[1][1] = a.a11[j] + b.a11[j];
+        sm.b[0] = a.free_sums.b0;
+        sm.b[1] = a.b1[j] + b.b1[j];
         struct fit_result f;
-        rss[j] = fit_solve_sums(&fs, 2, &f, NULL) == PB_OK ? f.rss : HUGE_VAL;
+        rss[j] = fit_solve_sums(&sm, 2, &f, NULL) == PB_OK ? f.rss : HUGE_VAL;
     }
 }
 
 struct tau_search {
     struct ctx *c;
     size_t *work;
-    double *buf; /* TAU_WALK_MAX times the longest window */
+    double *bufs[2]; /* each TAU_WALK_MAX times the longest window */
     struct tau_free_sums fs;
     int failed;
 };
@@ -411,7 +510,8 @@ struct tau_search {
 struct tau_grid {
     struct ctx c;
     double g[TAU_GRID], taus[TAU_GRID], f[TAU_GRID];
-    double *buf;
+    double *buf; /* the walks' two buffers (rss_walk) */
+    size_t buf_len;
     double tau;     /* the result: NAN when the best tau is at a grid end */
     double tau_rss; /* the RC model's plain residual sum of squares there */
     size_t work;    /* rows the search visited, added to the caller's count at the end */
@@ -433,7 +533,7 @@ static double rss_at(double log_tau, void *vts)
 {
     struct tau_search *ts = vts;
     double tau = exp(log_tau), rss;
-    rss_walk(ts->c, &tau, 1, ts->buf, &rss, &ts->fs, 1);
+    rss_walk(ts->c, &tau, 1, ts->bufs, &rss, &ts->fs, 1);
     if (ts->work)
         *ts->work += ts->c->s->n;
     if (!(rss < HUGE_VAL))
@@ -447,8 +547,10 @@ static double rss_at(double log_tau, void *vts)
 static void *tau_run(void *vg)
 {
     struct tau_grid *gr = vg;
-    struct tau_search ts = {.c = &gr->c, .work = &gr->work, .buf = gr->buf};
-    rss_walk(&gr->c, gr->taus, TAU_GRID, gr->buf, gr->f, &ts.fs, 0);
+    struct tau_search ts = {.c = &gr->c, .work = &gr->work};
+    ts.bufs[0] = gr->buf;
+    ts.bufs[1] = gr->buf + gr->buf_len;
+    rss_walk(&gr->c, gr->taus, TAU_GRID, ts.bufs, gr->f, &ts.fs, 0);
     gr->free_sums = ts.fs;
     gr->free_ok = 1;
     gr->tau = NAN;
@@ -496,7 +598,8 @@ static void grid_start(struct tau_grid *gr, const struct ctx *c, double lo_s, do
     if (!(hi - lo > 1.0))
         return;
     gr->c = *c;
-    gr->buf = malloc(TAU_WALK_MAX * longest_window(c) * sizeof(double));
+    gr->buf_len = TAU_WALK_MAX * longest_window(c);
+    gr->buf = malloc(2 * gr->buf_len * sizeof(double));
     if (!gr->buf)
         return;
     for (int j = 0; j < TAU_GRID; j++) {
@@ -571,7 +674,7 @@ struct ecm_run *ecm_begin(const struct series *s, const double *q_ah, const stru
     out->window_s = ecm_window_s(o->dt_med_s);
     run->grid = (struct tau_grid){.ok = 0, .threaded = 0, .walked = 0, .buf = NULL, .tau = NAN};
     struct ctx *c = &run->c;
-    *c = (struct ctx){.s = s, .y = o->y_v, .q = q_ah, .step_a = o->step_a};
+    *c = (struct ctx){.s = s, .y = o->y_v, .q = q_ah, .step_a = o->step_a, .whole = o->whole};
     c->w = make_windows(s, out->window_s, o->gap_s, &c->nw);
     if (!c->w) {
         free(run);
@@ -796,8 +899,9 @@ enum pb_code ecm_ocv_trend(const struct series *s, const double *q_ah, double q_
                           .v_ref = s->v_v[0]};
     /* rows are made in any order (trend_block), so a robust fit of a long
      * log takes its plain start from the even sample */
-    enum pb_code rc = robust ? fit_blocks_any_order(s->n, degree + 1, trend_block, &c, out, err)
-                             : fit_blocks(s->n, degree + 1, trend_block, &c, robust, out, err);
+    enum pb_code rc =
+        robust ? fit_blocks_any_order(s->n, degree + 1, trend_block, &c, sizeof c, out, err)
+               : fit_blocks(s->n, degree + 1, trend_block, &c, sizeof c, robust, out, err);
     if (work)
         *work += out->rows_visited;
     /* the reference voltage back into the constant term */

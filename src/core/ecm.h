@@ -40,6 +40,7 @@ struct ecm_opts {
     int try_rc;         /* also fit the RC branch (tau searched) */
     double tau_fixed_s; /* > 0: fit the RC branch at this tau only (no search) */
     size_t *work;       /* rows visited, summed (may be NULL) */
+    int whole;          /* every pass in one walk, never cut in two (twin.h): for tests */
 };
 
 struct ecm_result {

@@ -1,5 +1,7 @@
 #include "fit.h"
 
+#include "twin.h"
+
 #include <gsl/gsl_cdf.h>
 #include <gsl/gsl_eigen.h>
 #include <gsl/gsl_matrix.h>
@@ -29,8 +31,9 @@ struct normal_eq {
 #define PB_UNROLL _Pragma("GCC unroll 8")
 
 struct scale_sample {
-    double *r; /* |residual| of every m-th used row */
+    double *r; /* |residual| of every used row whose index is a multiple of m */
     size_t n, m;
+    size_t cap; /* room in r (and in x, y, u) */
     /* the same rows themselves, kept by the plain pass (when not NULL) so
      * the first scale, at the plain fit, needs no pass over every row */
     double *x, *y;
@@ -42,8 +45,10 @@ struct scale_sample {
 struct source {
     fit_block_fn block;
     void *ctx;
-    int any_order;  /* block() makes any rows asked for, in any order */
-    fit_row_fn row; /* when the caller gave rows, not blocks */
+    int any_order;   /* block() makes any rows asked for, in any order */
+    size_t ctx_size; /* ctx may be copied (0: it may not; a pass is not cut) */
+    void *copy;      /* room for that copy, made by fit_core for a long fit */
+    fit_row_fn row;  /* when the caller gave rows, not blocks */
     void *row_ctx;
 };
 
@@ -78,14 +83,18 @@ block_sums(const int p, size_t m, const double *restrict x, const double *restri
     double inv_cs = scale > 0.0 ? 1.0 / (BISQUARE_C * scale) : 0.0;
     for (size_t r = 0; r < m; r++) {
         int u = use[r];
+        /* the sample is of rows by index (so the halves of a cut pass take
+         * the same rows as one whole pass), those in use */
+        int take = ss && --*ss_left == 0;
+        if (take)
+            *ss_left = ss->m;
         if (!u)
             continue;
         const double *xr = x + r * (size_t)p;
         double yr = y[r];
         double w = 1.0;
-        if (!beta && ss && --*ss_left == 0) {
-            *ss_left = ss->m;
-            if (ss->nk < SCALE_SAMPLES) {
+        if (!beta && take) {
+            if (ss->nk < ss->cap) {
                 PB_UNROLL
                 for (int j = 0; j < p; j++)
                     ss->x[ss->nk * (size_t)p + (size_t)j] = xr[j];
@@ -98,11 +107,8 @@ block_sums(const int p, size_t m, const double *restrict x, const double *restri
             PB_UNROLL
             for (int j = 0; j < p; j++)
                 res -= xr[j] * beta[j];
-            if (ss && --*ss_left == 0) {
-                *ss_left = ss->m;
-                if (ss->n < SCALE_SAMPLES)
-                    ss->r[ss->n++] = fabs(res);
-            }
+            if (take && ss->n < ss->cap)
+                ss->r[ss->n++] = fabs(res);
             if (scale > 0.0 && u != FIT_ROW_KEEP) {
                 double v = res * inv_cs;
                 w = fabs(v) < 1.0 ? (1.0 - v * v) * (1.0 - v * v) : 0.0;
@@ -157,25 +163,117 @@ static void sums_of(int p, size_t m, const double *x, const double *y, const uns
     }
 }
 
+/* One piece of a pass: rows [k0, k1) made with ctx (the source's own, or
+ * a copy of it for the second half of a cut pass). */
+struct half {
+    const struct source *src;
+    void *ctx;
+    size_t k0, k1;
+    int p;
+    const double *beta;
+    double scale;
+    struct scale_sample *ss; /* NULL: no sample */
+    size_t ss_left;          /* rows to the next sampled one, counting it */
+    struct normal_eq ne;
+};
+
+static void half_pass(void *vh)
+{
+    struct half *h = vh;
+    double x[FIT_BLOCK * FIT_MAX_P], y[FIT_BLOCK];
+    unsigned char use[FIT_BLOCK];
+    memset(&h->ne, 0, sizeof h->ne);
+    for (size_t k0 = h->k0; k0 < h->k1; k0 += FIT_BLOCK) {
+        size_t m = h->k1 - k0 < FIT_BLOCK ? h->k1 - k0 : FIT_BLOCK;
+        h->src->block(h->ctx, k0, m, h->p, x, y, use);
+        sums_of(h->p, m, x, y, use, h->beta, h->scale, h->ss, &h->ss_left, &h->ne);
+    }
+}
+
+/* into += from (the second half's sums after the first's) */
+static void add_sums(struct normal_eq *into, const struct normal_eq *from, int p)
+{
+    for (int i = 0; i < p; i++) {
+        into->b[i] += from->b[i];
+        for (int j = i; j < p; j++)
+            into->a[i][j] += from->a[i][j];
+    }
+    into->yy += from->yy;
+    into->wsum += from->wsum;
+    into->n_used += from->n_used;
+    into->n_low += from->n_low;
+}
+
 /* One pass over the rows: sums the normal equations, weighted by Tukey's
  * bisquare at the given scale when beta is not NULL; keeps a sample of the
- * |residuals| at beta for the next scale when ss is not NULL. */
+ * |residuals| at beta (or, without beta, the rows themselves) for the next
+ * scale when ss is not NULL. A long pass of a source that may be copied is
+ * cut in two (twin.h), the second half run on a copy, beside the first
+ * when a core is free; its sample is put after the first's, so the sample
+ * is the one a whole pass takes. */
 static void run_pass(size_t n, int p, const struct source *src, const double *beta, double scale,
                      struct scale_sample *ss, struct normal_eq *ne)
 {
-    double x[FIT_BLOCK * FIT_MAX_P], y[FIT_BLOCK];
-    unsigned char use[FIT_BLOCK];
-    memset(ne, 0, sizeof *ne);
-    /* the first used row is taken, then every m-th (as n_used % m == 0) */
-    size_t ss_left = 1;
     if (ss && beta)
         ss->n = 0;
     if (ss && !beta)
         ss->nk = 0;
-    for (size_t k0 = 0; k0 < n; k0 += FIT_BLOCK) {
-        size_t m = n - k0 < FIT_BLOCK ? n - k0 : FIT_BLOCK;
-        src->block(src->ctx, k0, m, p, x, y, use);
-        sums_of(p, m, x, y, use, beta, scale, ss, &ss_left, ne);
+    size_t h = src->copy ? twin_split(n) : 0;
+    struct half a = {.src = src,
+                     .ctx = src->ctx,
+                     .k1 = h ? h : n,
+                     .p = p,
+                     .beta = beta,
+                     .scale = scale,
+                     .ss = ss,
+                     .ss_left = 1};
+    if (h == 0) {
+        half_pass(&a);
+        *ne = a.ne;
+        return;
+    }
+    memcpy(src->copy, src->ctx, src->ctx_size);
+    struct half b = {.src = src,
+                     .ctx = src->copy,
+                     .k0 = h,
+                     .k1 = n,
+                     .p = p,
+                     .beta = beta,
+                     .scale = scale,
+                     .ss_left = 1};
+    struct scale_sample sa, sb;
+    size_t marks = 0; /* sampled indices below h: the first half's room */
+    if (ss) {
+        marks = (h + ss->m - 1) / ss->m;
+        if (marks > ss->cap)
+            marks = ss->cap;
+        sa = *ss;
+        sa.cap = marks;
+        sb = *ss;
+        sb.cap = ss->cap - marks;
+        sb.n = sb.nk = 0;
+        if (beta) {
+            sb.r = ss->r + marks;
+        } else {
+            sb.x = ss->x + marks * (size_t)p;
+            sb.y = ss->y + marks;
+            sb.u = ss->u + marks;
+        }
+        a.ss = &sa;
+        b.ss = &sb;
+        b.ss_left = marks * ss->m - h + 1; /* the first multiple of m at or after h */
+    }
+    twin_run(half_pass, &a, &b);
+    *ne = a.ne;
+    add_sums(ne, &b.ne, p);
+    if (ss && beta) {
+        memmove(ss->r + sa.n, sb.r, sb.n * sizeof *sb.r);
+        ss->n = sa.n + sb.n;
+    } else if (ss) {
+        memmove(ss->x + sa.nk * (size_t)p, sb.x, sb.nk * (size_t)p * sizeof *sb.x);
+        memmove(ss->y + sa.nk, sb.y, sb.nk * sizeof *sb.y);
+        memmove(ss->u + sa.nk, sb.u, sb.nk);
+        ss->nk = sa.nk + sb.nk;
     }
 }
 
@@ -185,7 +283,7 @@ static void run_pass(size_t n, int p, const struct source *src, const double *be
 static void kept_pass(int p, struct scale_sample *ss, const double *beta, double scale,
                       struct normal_eq *ne)
 {
-    struct scale_sample every = {.r = ss->r, .m = 1};
+    struct scale_sample every = {.r = ss->r, .m = 1, .cap = SCALE_SAMPLES};
     size_t left = 1;
     memset(ne, 0, sizeof *ne);
     sums_of(p, ss->nk, ss->x, ss->y, ss->u, beta, scale, &every, &left, ne);
@@ -339,16 +437,16 @@ double fit_median_above(double *a, size_t n, size_t from)
     return 0.5 * (m_lhs + next);
 }
 
-static enum pb_code fit_core(size_t n, int p, const struct source *src, int robust,
-                             const struct fit_result *start, struct fit_result *out,
-                             struct pb_error *err)
+static enum pb_code fit_passes(size_t n, int p, const struct source *src, int robust,
+                               const struct fit_result *start, struct fit_result *out,
+                               struct pb_error *err)
 {
     struct normal_eq ne = {0};
 
     double inv[FIT_MAX_P][FIT_MAX_P];
     double beta[FIT_MAX_P] = {0};
     int rank = 0;
-    struct scale_sample ss = {.m = n / SCALE_SAMPLES + 1};
+    struct scale_sample ss = {.m = n / SCALE_SAMPLES + 1, .cap = SCALE_SAMPLES};
     double scale = 0.0;
     size_t visited = 0;
     int sampled = 0; /* the plain fit is the kept rows' (sample_rows) */
@@ -547,25 +645,42 @@ static enum pb_code fit_core(size_t n, int p, const struct source *src, int robu
     return PB_OK;
 }
 
+/* fit_passes with the room for a copy of the source's context when a long
+ * pass is to be cut (run_pass). */
+static enum pb_code fit_core(size_t n, int p, struct source *src, int robust,
+                             const struct fit_result *start, struct fit_result *out,
+                             struct pb_error *err)
+{
+    src->copy = NULL;
+    if (src->ctx_size && n >= TWIN_MIN_ROWS && !(src->copy = malloc(src->ctx_size))) {
+        memset(out, 0, sizeof *out);
+        return pb_error_set(err, PB_ENOMEM, "out of memory");
+    }
+    enum pb_code rc = fit_passes(n, p, src, robust, start, out, err);
+    free(src->copy);
+    src->copy = NULL;
+    return rc;
+}
+
 enum pb_code fit_linear(size_t n, int p, fit_row_fn row, void *ctx, int robust,
                         struct fit_result *out, struct pb_error *err)
 {
-    struct source src = {rows_as_block, NULL, 0, row, ctx};
+    struct source src = {.block = rows_as_block, .row = row, .row_ctx = ctx};
     src.ctx = &src;
     return fit_core(n, p, &src, robust, NULL, out, err);
 }
 
-enum pb_code fit_blocks(size_t n, int p, fit_block_fn block, void *ctx, int robust,
+enum pb_code fit_blocks(size_t n, int p, fit_block_fn block, void *ctx, size_t ctx_size, int robust,
                         struct fit_result *out, struct pb_error *err)
 {
-    struct source src = {block, ctx, 0, NULL, NULL};
+    struct source src = {.block = block, .ctx = ctx, .ctx_size = ctx_size};
     return fit_core(n, p, &src, robust, NULL, out, err);
 }
 
-enum pb_code fit_blocks_any_order(size_t n, int p, fit_block_fn block, void *ctx,
+enum pb_code fit_blocks_any_order(size_t n, int p, fit_block_fn block, void *ctx, size_t ctx_size,
                                   struct fit_result *out, struct pb_error *err)
 {
-    struct source src = {block, ctx, 1, NULL, NULL};
+    struct source src = {.block = block, .ctx = ctx, .any_order = 1, .ctx_size = ctx_size};
     return fit_core(n, p, &src, 1, NULL, out, err);
 }
 
@@ -573,7 +688,7 @@ enum pb_code fit_linear_from(size_t n, int p, fit_row_fn row, void *ctx,
                              const struct fit_result *start, struct fit_result *out,
                              struct pb_error *err)
 {
-    struct source src = {rows_as_block, NULL, 0, row, ctx};
+    struct source src = {.block = rows_as_block, .row = row, .row_ctx = ctx};
     src.ctx = &src;
     return fit_core(n, p, &src, 1, start, out, err);
 }

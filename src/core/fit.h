@@ -9,7 +9,8 @@
  *
  * Robust mode is iteratively reweighted least squares with Tukey's
  * bisquare weight (c = 4.685) and scale = 1.4826 * median |residual|, the
- * median taken over an even sample of at most 65536 rows. When those rows
+ * median taken over an even sample of at most 65536 rows (every m-th row by
+ * index, those in use). When those rows
  * are at most a quarter of all, the reweighting iterates on them alone and
  * one pass over every row then weights all rows at that fit (more passes
  * only when it moves a coefficient beyond the subsample's own error). */
@@ -33,7 +34,14 @@ typedef int (*fit_row_fn)(void *ctx, size_t k, double *x, double *y);
 /* Makes rows k0..k0+m-1 (m <= 256) in order: row j's columns in
  * x[j*p .. j*p+p), its value in y[j] and in use[j] what a row callback
  * returns. Asked for in order 0..n-1 on every pass (k0 == 0 starts one), so
- * it may carry state from block to block. */
+ * it may carry state from block to block.
+ *
+ * A context given with its size (ctx_size > 0) may be copied byte for byte
+ * and the copy asked for rows from any k0 on (it runs its state on from the
+ * first row, or resets it, as for rows asked for out of turn): a pass over
+ * at least TWIN_MIN_ROWS rows is then summed in two fixed halves (twin.h),
+ * the second on the copy, beside the first when a core is free. ctx_size 0:
+ * one walk in order. */
 typedef void (*fit_block_fn)(void *ctx, size_t k0, size_t m, int p, double *x, double *y,
                              unsigned char *use);
 
@@ -68,15 +76,15 @@ enum pb_code fit_linear(size_t n, int p, fit_row_fn row, void *ctx, int robust,
                         struct fit_result *out, struct pb_error *err);
 
 /* fit_linear with rows made a block at a time (no call per row). */
-enum pb_code fit_blocks(size_t n, int p, fit_block_fn block, void *ctx, int robust,
-                        struct fit_result *out, struct pb_error *err);
+enum pb_code fit_blocks(size_t n, int p, fit_block_fn block, void *ctx, size_t ctx_size,
+                        int robust, struct fit_result *out, struct pb_error *err);
 
 /* Robust fit_blocks for rows that do not depend on each other, so block()
  * makes any rows asked for in any order: on a long log the plain fit too is
  * the even sample's, made without a pass over every row (rss_plain is then
  * the sample's, scaled to n rows); then one pass over every row as above. */
 enum pb_code fit_blocks_any_order(size_t n, int p, fit_block_fn block, void *ctx,
-                                  struct fit_result *out, struct pb_error *err);
+                                  size_t ctx_size, struct fit_result *out, struct pb_error *err);
 
 /* The plain fit of sums made by the caller (e.g. shared walks over the
  * data for many candidate models); rows_visited is left 0. */

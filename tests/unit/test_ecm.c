@@ -13,6 +13,12 @@
  * - ecm_begin/ecm_end with work between them against ecm_fit: the same
  *   computation in two halves, so the results must be identical, number
  *   for number (mathematics: no tolerance).
+ * - The passes of a long log cut in two halves (twin.h) against the same
+ *   passes walked whole: the same rows and sums added in another order, so
+ *   R0, R1 and their intervals agree within 1e-6 relative (far above the
+ *   rounding of reordered sums, far below the intervals) and tau within
+ *   1e-3 relative (the search's own tolerance in log tau: a reordered sum
+ *   may move one of Brent's steps).
  * - The robust trend (rows in any order, its plain start from the sample)
  *   against the plain trend (rows in order, every row): on Gaussian noise
  *   both estimate the same line; within 0.2 mV at both ends. */
@@ -137,6 +143,28 @@ static void test_rc_truth_and_split(void **state)
     series_free(s);
 }
 
+static void test_cut_in_two(void **state)
+{
+    (void)state;
+    double *q, q_end;
+    struct series *s = gen(&q, &q_end);
+    struct ecm_opts o = opts(s);
+    struct ecm_result cut, whole;
+    assert_int_equal(ecm_fit(s, q, &o, &cut, NULL), PB_OK);
+    o.whole = 1;
+    assert_int_equal(ecm_fit(s, q, &o, &whole, NULL), PB_OK);
+    assert_true(cut.rc && whole.rc);
+    check_rel(cut.r0_mohm, whole.r0_mohm, 1e-6, "R0 cut in two against whole");
+    check_rel(cut.r0_ci95_mohm, whole.r0_ci95_mohm, 1e-6, "R0's interval cut against whole");
+    check_rel(cut.r_static_mohm, whole.r_static_mohm, 1e-6, "static R cut against whole");
+    check_rel(cut.r1_mohm, whole.r1_mohm, 1e-6, "R1 cut in two against whole");
+    check_rel(cut.tau_s, whole.tau_s, 1e-3, "tau cut in two against whole");
+    check_close(cut.rho, whole.rho, 1e-6, "residual correlation cut against whole");
+    assert_int_equal(cut.downweighted, whole.downweighted);
+    free(q);
+    series_free(s);
+}
+
 static void test_rc_trend(void **state)
 {
     (void)state;
@@ -163,6 +191,7 @@ int main(void)
     gsl_set_error_handler_off();
     const struct CMUnitTest tests[] = {
         cmocka_unit_test(test_rc_truth_and_split),
+        cmocka_unit_test(test_cut_in_two),
         cmocka_unit_test(test_rc_trend),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);

@@ -4,6 +4,7 @@
  * (mathematics; any regression text). The outlier case checks the robust
  * reweighting recovers the clean coefficients. */
 #include <gsl/gsl_errno.h>
+#include <math.h>
 #include <setjmp.h>
 #include <stdarg.h>
 #include <stddef.h>
@@ -113,8 +114,8 @@ static void test_robust_long(void **state)
     for (size_t k = 0; k < d.n; k += 20)
         d.y[k] += 3.0;
     struct fit_result a, b;
-    assert_int_equal(fit_blocks(d.n, 2, block_line, &d, 1, &a, NULL), PB_OK);
-    assert_int_equal(fit_blocks_any_order(d.n, 2, block_line, &d, &b, NULL), PB_OK);
+    assert_int_equal(fit_blocks(d.n, 2, block_line, &d, 0, 1, &a, NULL), PB_OK);
+    assert_int_equal(fit_blocks_any_order(d.n, 2, block_line, &d, 0, &b, NULL), PB_OK);
     check_close(a.beta[0], 16.0, 1e-4, "long robust intercept ignores glitches");
     check_close(a.beta[1], -0.05, 2e-5, "long robust slope ignores glitches");
     assert_true(a.n_downweighted >= d.n / 20);
@@ -124,6 +125,77 @@ static void test_robust_long(void **state)
      * sample's iterations and one full pass */
     assert_true(a.rows_visited < 3 * d.n);
     assert_true(b.rows_visited < 2 * d.n);
+    free(d.x), free(d.y);
+}
+
+/* Rows with running state (a first-order lag of x, as the RC branch's
+ * current is one): reset at k0 == 0, and run on from the first row when
+ * asked for rows out of turn. */
+struct lagged {
+    const struct data *d;
+    double lag;
+    size_t next;
+};
+
+static void lag_to(struct lagged *c, size_t k0)
+{
+    if (k0 == 0 || c->next > k0) {
+        c->lag = c->d->x[0];
+        c->next = 1;
+    }
+    for (; c->next <= k0; c->next++)
+        c->lag = 0.9 * c->lag + 0.1 * c->d->x[c->next];
+}
+
+static void block_lagged(void *ctx, size_t k0, size_t m, int p, double *x, double *y,
+                         unsigned char *use)
+{
+    struct lagged *c = ctx;
+    for (size_t j = 0; j < m; j++) {
+        lag_to(c, k0 + j);
+        x[j * (size_t)p] = 1.0;
+        x[j * (size_t)p + 1] = c->lag;
+        y[j] = c->d->y[k0 + j];
+        use[j] = (k0 + j) % 7 != 3; /* some rows not in use, as outside a fit's windows */
+    }
+}
+
+/* A long pass of a context that may be copied is cut in two halves
+ * (twin.h): the same rows, sampled at the same places, so the fit is the
+ * one-walk fit up to the rounding of sums taken in another order. Expected
+ * values: the one-walk fit of the same rows (ctx_size 0). Tolerances:
+ * coefficients and scale 1e-9 relative, far above the rounding of 400,000
+ * added terms (~1e-16 each) and far below the coefficients' standard
+ * errors (~1e-5 relative); variances and the plain residual 1e-3 relative,
+ * since the residual sum of squares is y'y - beta'X'y, a difference of
+ * numbers ~1e8 leaving ~0.1 here, where a reordered sum moves the last
+ * ~1e-5 of it. */
+static void test_cut_pass(void **state)
+{
+    (void)state;
+    struct data d = make(400000, 16.0, -0.05, 0.002, 9);
+    for (size_t k = 0; k < d.n; k += 20)
+        d.y[k] -= 2.0;
+    for (int any = 0; any < 2; any++) {
+        struct lagged ca = {&d, 0.0, 0}, cb = {&d, 0.0, 0};
+        struct fit_result a, b;
+        enum pb_code ra = any ? fit_blocks_any_order(d.n, 2, block_lagged, &ca, 0, &a, NULL)
+                              : fit_blocks(d.n, 2, block_lagged, &ca, 0, 1, &a, NULL);
+        enum pb_code rb = any ? fit_blocks_any_order(d.n, 2, block_lagged, &cb, sizeof cb, &b, NULL)
+                              : fit_blocks(d.n, 2, block_lagged, &cb, sizeof cb, 1, &b, NULL);
+        assert_int_equal(ra, PB_OK);
+        assert_int_equal(rb, PB_OK);
+        assert_int_equal(a.n_used, b.n_used);
+        assert_int_equal(a.n_downweighted, b.n_downweighted);
+        assert_int_equal(a.iterations, b.iterations);
+        assert_int_equal(a.rows_visited, b.rows_visited);
+        for (int j = 0; j < 2; j++) {
+            check_close(b.beta[j], a.beta[j], 1e-9 * fabs(a.beta[j]), "cut pass: coefficient");
+            check_close(b.cov[j][j], a.cov[j][j], 1e-3 * a.cov[j][j], "cut pass: variance");
+        }
+        check_close(b.scale, a.scale, 1e-9 * a.scale, "cut pass: the same scale sample");
+        check_close(b.rss_plain, a.rss_plain, 1e-3 * a.rss_plain, "cut pass: plain residual");
+    }
     free(d.x), free(d.y);
 }
 
@@ -191,6 +263,7 @@ int main(void)
         cmocka_unit_test(test_slope_se),
         cmocka_unit_test(test_robust_outliers),
         cmocka_unit_test(test_robust_long),
+        cmocka_unit_test(test_cut_pass),
         cmocka_unit_test(test_rank_deficient),
         cmocka_unit_test(test_too_few_rows),
     };
