@@ -14,6 +14,7 @@
 #include "edges.h"
 #include "fit.h"
 #include "socest.h"
+#include "twin.h"
 
 #define DT_SAMPLE_MAX 20001 /* intervals sampled for the median interval */
 #define REST_MIN_END_S 60.0 /* a final rest this long is fitted for its relaxation */
@@ -220,17 +221,23 @@ static void voltage_stats(struct analysis *a, const struct series *s, double *im
     a->voltage_end_v = s->v_v[s->n - 1];
 }
 
-/* The current's figures (after voltage_stats, which found its range and
- * imin_a): charge, energy, rest threshold and rest runs; the walks that
- * need the rest threshold are loaded_stats'. */
-static void current_stats(struct analysis *a, const struct series *s, const struct analyze_opts *o,
-                          double imin)
+/* The charge's figures from the count in a->cc. */
+static void charge_stats(struct analysis *a, const struct analyze_opts *o)
 {
-    coulomb_count_segments(s->t_s, s->v_v, s->i_a, s->n, s->seg_start, s->nseg, a->gap_s, &a->cc);
     a->charge_used_mah = a->cc.discharged_mah - a->cc.regen_mah;
     a->energy_used_wh = a->cc.discharged_wh - a->cc.regen_wh;
     a->current_mean_a = a->charge_used_mah * 3.6 / a->duration_s;
     a->power_mean_w = a->energy_used_wh * 3600.0 / a->duration_s;
+    if (o->capacity_mah > 0.0)
+        a->c_rate_mean = a->current_mean_a / (o->capacity_mah / 1000.0);
+}
+
+/* The current's range figures (after voltage_stats, which found its range
+ * and imin_a): peak, rest threshold and rest runs; the walks that need the
+ * rest threshold are loaded_stats'. */
+static void rest_stats(struct analysis *a, const struct series *s, const struct analyze_opts *o,
+                       double imin)
+{
     double peak = fmax(fabs(a->current_max_a), fabs(imin));
     a->peak_a = peak;
     a->rest_a = o->rest_a > 0.0 ? o->rest_a : fmax(0.05, 0.01 * peak);
@@ -246,10 +253,8 @@ static void current_stats(struct analysis *a, const struct series *s, const stru
             e--;
         a->rest_end_s = s->t_s[s->n - 1] - s->t_s[e + (e + 1 < s->n ? 1 : 0)];
     }
-    if (o->capacity_mah > 0.0) {
+    if (o->capacity_mah > 0.0)
         a->c_rate_max = a->current_max_a / (o->capacity_mah / 1000.0);
-        a->c_rate_mean = a->current_mean_a / (o->capacity_mah / 1000.0);
-    }
 }
 
 static void gap_warning(struct analysis *a, const struct series *s, const char *name)
@@ -266,10 +271,12 @@ static void gap_warning(struct analysis *a, const struct series *s, const char *
 /* One walk, after current_stats, for what needs the rest threshold and the
  * cell count: cruise power (intervals whose both ends draw more than the
  * rest current), current steps, the loaded voltage against the cut-off
- * (floor_stats' figures), and the charge drawn by each sample in q_ah
- * (nothing bridged across a joint of clock segments: unknown length). Each
- * sum is taken in sample order, as separate walks would. */
-static void loaded_stats(struct analysis *a, const struct series *s, double imin, double *q_ah)
+ * (floor_stats' figures; its lowest in *v_min_loaded_out, for
+ * floor_warning), and the charge drawn by each sample in q_ah (nothing
+ * bridged across a joint of clock segments: unknown length). Each sum is
+ * taken in sample order, as separate walks would. */
+static void loaded_stats(struct analysis *a, const struct series *s, double imin, double *q_ah,
+                         double *v_min_loaded_out)
 {
     const double *t = s->t_s, *v = s->v_v, *i = s->i_a;
     const double rest_a = a->rest_a;
@@ -304,8 +311,8 @@ static void loaded_stats(struct analysis *a, const struct series *s, double imin
     if (floor) {
         a->cell_min_loaded_v = a->voltage_min_v / a->cells;
         a->time_below_floor_s = below_s;
-        floor_warning(a, v_min_loaded, floor_pack);
     }
+    *v_min_loaded_out = v_min_loaded;
 }
 
 /* Time under the cut-off voltage: only while loaded (|I| above the rest
@@ -483,33 +490,89 @@ static void per_cell(struct analysis *a, const struct series *s, const double *q
  * interval widened to cover the model's R0 when that is identified (the
  * two measure over different time scales); else the model's R0; else none,
  * with the reasons. */
-static enum pb_code stage_resistance(struct analysis *a, const struct series *s, const double *q_ah,
-                                     const struct analyze_opts *o, struct pb_error *err)
+/* What runs beside the model's start (beside_run): the charge count and
+ * the current steps, neither of which needs the per-sample charge. */
+struct beside {
+    const struct series *s;
+    double gap_s;
+    struct coulomb_result cc;
+    struct edges_opts eo;
+    struct edges_result er;
+};
+
+static void beside_run(void *vb)
 {
-    struct edges_opts eo = {.rated_mah = o->capacity_mah,
-                            .cutoff_v = a->cells > 0 ? a->floor_v * a->cells : 0.0,
-                            .gap_s = a->gap_s,
-                            .peak_a = a->peak_a,
-                            .series = s,
-                            .chem = a->cells > 0 ? a->chem : NULL,
-                            .cells = a->cells};
-    /* the model's windows and its tau search (in a second thread when a
-     * core is free) start first, with the steps' threshold; the steps are
-     * measured while the search runs */
+    struct beside *b = vb;
+    const struct series *s = b->s;
+    coulomb_count_segments(s->t_s, s->v_v, s->i_a, s->n, s->seg_start, s->nseg, b->gap_s, &b->cc);
+    edges_estimate(s->t_s, s->v_v, s->i_a, s->n, &b->eo, &b->er);
+}
+
+/* The model's start: the walk that needs the rest threshold (charge per
+ * sample into q_ah, the current steps), then the model's windows and its
+ * tau search (ecm_begin, in a thread of its own when a core is free). */
+struct start {
+    struct analysis *a;
+    const struct series *s;
+    double imin, v_min_loaded;
+    double *q_ah;
+    struct ecm_opts mo;
+    struct ecm_run *run;
+};
+
+static void start_run(void *vs)
+{
+    struct start *st = vs;
+    loaded_stats(st->a, st->s, st->imin, st->q_ah, &st->v_min_loaded);
+    st->mo.try_rc = st->a->current_steps > 0;
+    st->run = ecm_begin(st->s, st->q_ah, &st->mo);
+}
+
+/* Stage: the loaded walk and the charge, then internal resistance, from the
+ * current steps (edges.h) and from the circuit model (ecm.h). The model's
+ * start and the charge count with the steps run side by side when a core
+ * is free (twin.h; they share nothing, so the results are the same either
+ * way), the tau search then beside the static model's fit. */
+static enum pb_code stage_resistance(struct analysis *a, const struct series *s, double *q_ah,
+                                     const struct analyze_opts *o, double imin, const char *name,
+                                     struct pb_error *err)
+{
     double step_a = edges_step_a(o->capacity_mah, a->peak_a);
-    struct ecm_opts mo = {.y_v = s->v_v,
-                          .dt_med_s = a->median_dt_s,
-                          .gap_s = a->gap_s,
-                          .step_a = step_a,
-                          .cutoff_v = a->cells > 0 ? a->floor_v * a->cells : 0.0,
-                          .robust = !o->plain_fit,
-                          .try_rc = a->current_steps > 0,
-                          .work = &a->fit_rows_visited};
-    struct ecm_run *run = ecm_begin(s, q_ah, &mo);
+    struct beside b = {.s = s,
+                       .gap_s = a->gap_s,
+                       .eo = {.rated_mah = o->capacity_mah,
+                              .cutoff_v = a->cells > 0 ? a->floor_v * a->cells : 0.0,
+                              .gap_s = a->gap_s,
+                              .peak_a = a->peak_a,
+                              .series = s,
+                              .chem = a->cells > 0 ? a->chem : NULL,
+                              .cells = a->cells}};
+    struct start st = {.a = a,
+                       .s = s,
+                       .imin = imin,
+                       .q_ah = q_ah,
+                       .mo = {.y_v = s->v_v,
+                              .dt_med_s = a->median_dt_s,
+                              .gap_s = a->gap_s,
+                              .step_a = step_a,
+                              .cutoff_v = a->cells > 0 ? a->floor_v * a->cells : 0.0,
+                              .robust = !o->plain_fit,
+                              .work = &a->fit_rows_visited}};
+    if (s->n >= TWIN_MIN_ROWS)
+        twin_run(start_run, &st, beside_run, &b); /* the same results run in turn */
+    else {
+        start_run(&st);
+        beside_run(&b);
+    }
+    a->cc = b.cc;
+    charge_stats(a, o);
+    gap_warning(a, s, name);
+    if (a->cells > 0)
+        floor_warning(a, st.v_min_loaded, a->floor_v * a->cells);
+    struct ecm_run *run = st.run;
     if (!run)
         return pb_error_set(err, PB_ENOMEM, "out of memory");
-    struct edges_result er;
-    edges_estimate(s->t_s, s->v_v, s->i_a, s->n, &eo, &er);
+    struct edges_result er = b.er;
     assert(er.step_a == step_a);
     a->step_a = er.step_a;
     a->r_edge_steps = er.steps;
@@ -805,24 +868,30 @@ enum pb_code analyze_series(const struct series *s, const struct logread_stats *
              "the log has no current: charge, energy, resistance and capacity need a current "
              "sensor; SoC is read from the loaded voltage and is a lower bound");
     } else {
-        current_stats(a, s, o, imin);
-        gap_warning(a, s, name);
+        rest_stats(a, s, o, imin);
         q_ah = malloc(s->n * sizeof *q_ah);
         if (!q_ah) {
             rc = pb_error_set(err, PB_ENOMEM, "out of memory");
             goto cleanup;
         }
-        loaded_stats(a, s, imin, q_ah);
         k_rest0 = initial_rest_end(s, a->rest_a);
         k_rest1 = final_rest_start(s, a->rest_a);
         if (k_rest1 == 0) /* all rest: one run, read at the start */
             k_rest1 = s->n;
         if (s->n < MIN_FIT_SAMPLES) {
+            coulomb_count_segments(s->t_s, s->v_v, s->i_a, s->n, s->seg_start, s->nseg, a->gap_s,
+                                   &a->cc);
+            charge_stats(a, o);
+            gap_warning(a, s, name);
+            double v_min_loaded;
+            loaded_stats(a, s, imin, q_ah, &v_min_loaded);
+            if (a->cells > 0)
+                floor_warning(a, v_min_loaded, a->floor_v * a->cells);
             warn(a, "too_few_samples",
                  "%zu samples are too few to fit resistance or open-circuit voltage (need %d)",
                  s->n, MIN_FIT_SAMPLES);
         } else {
-            rc = stage_resistance(a, s, q_ah, o, err);
+            rc = stage_resistance(a, s, q_ah, o, imin, name, err);
             if (rc == PB_OK)
                 rc = stage_ocv(a, s, q_ah, o, k_rest0, k_rest1, err);
             if (rc != PB_OK)

@@ -306,7 +306,7 @@ static double honest_cov(struct ctx *c, struct fit_result *f)
     struct lag1 b = {.c = *c, .beta = f->beta, .p = f->p, .k0 = h, .k1 = n};
     double s01, s00;
     if (h < n) {
-        twin_run(lag1_sums, &a, &b);
+        twin_run(lag1_sums, &a, lag1_sums, &b);
         /* the pair across the cut: both rows used, in one window */
         double across = isfinite(a.last) && isfinite(b.first) && a.last_win == b.first_win
                             ? a.last * b.first
@@ -470,7 +470,7 @@ static void rss_walk(const struct ctx *c, const double *tau_s, int nt, double *c
     struct walk_part b = {c, tau_s, bufs[1], cut, c->nw, !have_fs, {0}, {0}, {0}, {0, 0, 0, 0}};
     void (*walk)(void *) = nt == 1 ? walk_one : walk_grid;
     if (cut < c->nw)
-        twin_run(walk, &a, &b);
+        twin_run(walk, &a, walk, &b);
     else
         walk(&a);
     if (have_fs) {

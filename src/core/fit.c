@@ -263,7 +263,7 @@ static void run_pass(size_t n, int p, const struct source *src, const double *be
         b.ss = &sb;
         b.ss_left = marks * ss->m - h + 1; /* the first multiple of m at or after h */
     }
-    twin_run(half_pass, &a, &b);
+    twin_run(half_pass, &a, half_pass, &b);
     *ne = a.ne;
     add_sums(ne, &b.ne, p);
     if (ss && beta) {

@@ -29,17 +29,17 @@ static int cores_online(void)
     return n;
 }
 
-void twin_run(void (*fn)(void *arg), void *here, void *there)
+void twin_run(void (*here_fn)(void *arg), void *here, void (*there_fn)(void *arg), void *there)
 {
-    struct job j = {fn, there};
+    struct job j = {there_fn, there};
     pthread_t tid;
     if (cores_online() > 1 && pthread_create(&tid, NULL, job_run, &j) == 0) {
-        fn(here);
+        here_fn(here);
         pthread_join(tid, NULL);
         return;
     }
-    fn(here);
-    fn(there);
+    here_fn(here);
+    there_fn(there);
 }
 
 size_t twin_split(size_t n)

@@ -12,10 +12,10 @@
 /* Passes of at least this many rows are cut in two halves. */
 #define TWIN_MIN_ROWS 200000
 
-/* Runs fn(there) in a second thread when more than one core is online and
- * a thread starts, and fn(here) in this one; returns when both are done.
- * Without a second thread both run here, here first. */
-void twin_run(void (*fn)(void *arg), void *here, void *there);
+/* Runs there_fn(there) in a second thread when more than one core is online
+ * and a thread starts, and here_fn(here) in this one; returns when both are
+ * done. Without a second thread both run here, here first. */
+void twin_run(void (*here_fn)(void *arg), void *here, void (*there_fn)(void *arg), void *there);
 
 /* Where [0, n) is cut: near the middle, on a multiple of 256 rows (the
  * fits' block) so that each half's blocks are whole. */
