@@ -383,36 +383,57 @@ cleanup:
     return rc;
 }
 
-/* The k-th smallest of a[0..n) (k < n), reordering a: quickselect with a
- * three-way partition, so runs of equal values (a log's sampling
- * intervals are mostly one value) cost one pass, not a quadratic walk
- * (gsl_stats_select took 2 ms per 9,000 equal intervals). */
+/* Moves the values of a[lo..hi) that are below pivot (below_or_equal: at
+ * most pivot) to its front, in one walk without a branch per value (a
+ * partition's branches are coin flips on residuals: mispredicted half the
+ * time); returns where the rest starts. */
+static size_t partition_front(double *a, size_t lo, size_t hi, double pivot, int below_or_equal)
+{
+    size_t st = lo;
+    if (below_or_equal) {
+        for (size_t i = lo; i < hi; i++) {
+            double v = a[i];
+            a[i] = a[st];
+            a[st] = v;
+            st += v <= pivot;
+        }
+    } else {
+        for (size_t i = lo; i < hi; i++) {
+            double v = a[i];
+            a[i] = a[st];
+            a[st] = v;
+            st += v < pivot;
+        }
+    }
+    return st;
+}
+
+/* The k-th smallest of a[0..n) (k < n), reordering a so that no value
+ * before k is above it and none after it below: quickselect, the pivot the
+ * median of three. A pivot that is its range's least value (runs of equal
+ * values: a log's sampling intervals are mostly one value) takes its equals
+ * to the front in one more walk, so equal runs cost one pass, not a
+ * quadratic walk (gsl_stats_select took 2 ms per 9,000 equal intervals). */
 static double select_kth(double *a, size_t n, size_t k)
 {
     size_t lo = 0, hi = n; /* the answer is in a[lo..hi) */
     while (hi - lo > 1) {
         double x = a[lo], y = a[lo + (hi - lo) / 2], z = a[hi - 1];
         double pivot = x < y ? (y < z ? y : (x < z ? z : x)) : (x < z ? x : (y < z ? z : y));
-        /* a[lo..lt) < pivot, a[lt..i) == pivot, a[gt..hi) > pivot */
-        size_t lt = lo, i = lo, gt = hi;
-        while (i < gt) {
-            double v = a[i];
-            if (v < pivot) {
-                a[i++] = a[lt];
-                a[lt++] = v;
-            } else if (v > pivot) {
-                a[i] = a[--gt];
-                a[gt] = v;
-            } else {
-                i++;
-            }
-        }
-        if (k < lt)
+        size_t lt = partition_front(a, lo, hi, pivot, 0); /* a[lo..lt) < pivot */
+        if (k < lt) {
             hi = lt;
-        else if (k >= gt)
-            lo = gt;
-        else
+            continue;
+        }
+        if (lt > lo) {
+            lo = lt;
+            continue;
+        }
+        /* nothing below the pivot: its equals first */
+        size_t eq = partition_front(a, lo, hi, pivot, 1);
+        if (k < eq)
             return pivot;
+        lo = eq;
     }
     return a[lo];
 }

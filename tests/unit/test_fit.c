@@ -226,9 +226,10 @@ static int cmp_d(const void *a, const void *b)
     return (x > y) - (x < y);
 }
 
-/* fit_median against the definition (sort, middle element or the mean of
- * the two middle ones), exact: on random data with many ties (a log's
- * sampling intervals), all-equal data and both parities. Seed printed. */
+/* fit_median and fit_median_above against the definition (sort with the C
+ * library's qsort, middle element or the mean of the two middle ones),
+ * exact: on random data with many ties (a log's sampling intervals),
+ * all-equal data and both parities. Seed printed. */
 static void test_median_is_the_sorted_middle(void **state)
 {
     (void)state;
@@ -246,6 +247,10 @@ static void test_median_is_the_sorted_middle(void **state)
         qsort(b, n, sizeof *b, cmp_d);
         double want = n % 2 ? b[n / 2] : 0.5 * (b[n / 2 - 1] + b[n / 2]);
         assert_true(fit_median(a, n) == want);
+        /* the median of the order statistics from..n-1: of the sorted tail */
+        size_t from = (size_t)rand() % n, m = n - from;
+        double want_above = m % 2 ? b[from + m / 2] : 0.5 * (b[from + m / 2 - 1] + b[from + m / 2]);
+        assert_true(fit_median_above(a, n, from) == want_above);
         free(a);
         free(b);
     }
