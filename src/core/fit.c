@@ -290,28 +290,77 @@ static void kept_pass(int p, struct scale_sample *ss, const double *beta, double
     ss->n = every.n;
 }
 
+/* The kept rows of [k0, k1): every row whose index is a multiple of m,
+ * those the block uses, into x, y, u (room for cap). */
+struct sample_half {
+    const struct source *src;
+    void *ctx;
+    size_t k0, k1, m;
+    int p;
+    double *x, *y;
+    unsigned char *u;
+    size_t nk, cap, asked;
+};
+
+static void sample_half_run(void *vh)
+{
+    struct sample_half *h = vh;
+    double x[FIT_MAX_P], y;
+    unsigned char use;
+    const int p = h->p;
+    for (size_t k = (h->k0 + h->m - 1) / h->m * h->m; k < h->k1 && h->nk < h->cap;
+         k += h->m, h->asked++) {
+        h->src->block(h->ctx, k, 1, p, x, &y, &use);
+        if (!use)
+            continue;
+        memcpy(h->x + h->nk * (size_t)p, x, (size_t)p * sizeof *x);
+        h->u[h->nk] = use;
+        h->y[h->nk++] = y;
+    }
+}
+
 /* The kept rows (every m-th row, those the block uses) made without a
  * pass over the others, for rows made in any order; their plain sums in
- * ne. Returns the rows asked for. */
+ * ne. Returns the rows asked for. A long log's rows are made in two
+ * halves as run_pass cuts a pass (the second half's after the first's:
+ * the same rows in the same order either way). */
 static size_t sample_rows(size_t n, int p, const struct source *src, struct scale_sample *ss,
                           struct normal_eq *ne)
 {
-    double x[FIT_MAX_P], y;
-    unsigned char use;
-    size_t asked = 0;
-    ss->nk = 0;
-    for (size_t k = 0; k < n && ss->nk < SCALE_SAMPLES; k += ss->m, asked++) {
-        src->block(src->ctx, k, 1, p, x, &y, &use);
-        if (!use)
-            continue;
-        memcpy(ss->x + ss->nk * (size_t)p, x, (size_t)p * sizeof *x);
-        ss->u[ss->nk] = use;
-        ss->y[ss->nk++] = y;
+    size_t h = src->copy ? twin_split(n) : n;
+    size_t marks = (h + ss->m - 1) / ss->m;
+    if (marks > SCALE_SAMPLES)
+        marks = SCALE_SAMPLES;
+    struct sample_half a = {src, src->ctx, 0, h, ss->m, p, ss->x, ss->y, ss->u, 0, marks, 0};
+    if (h < n) {
+        memcpy(src->copy, src->ctx, src->ctx_size);
+        struct sample_half b = {src,
+                                src->copy,
+                                h,
+                                n,
+                                ss->m,
+                                p,
+                                ss->x + marks * (size_t)p,
+                                ss->y + marks,
+                                ss->u + marks,
+                                0,
+                                SCALE_SAMPLES - marks,
+                                0};
+        twin_run(sample_half_run, &a, sample_half_run, &b);
+        memmove(ss->x + a.nk * (size_t)p, b.x, b.nk * (size_t)p * sizeof *b.x);
+        memmove(ss->y + a.nk, b.y, b.nk * sizeof *b.y);
+        memmove(ss->u + a.nk, b.u, b.nk);
+        a.nk += b.nk;
+        a.asked += b.asked;
+    } else {
+        a.cap = SCALE_SAMPLES;
+        sample_half_run(&a);
     }
+    ss->nk = a.nk;
     size_t left = 1;
     memset(ne, 0, sizeof *ne);
     sums_of(p, ss->nk, ss->x, ss->y, ss->u, NULL, 0.0, NULL, &left, ne);
-    return asked;
+    return a.asked;
 }
 
 /* Largest move of beta from prev, in standard errors at the given scale
