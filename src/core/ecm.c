@@ -215,13 +215,22 @@ static size_t window_params(const struct ctx *c)
     return k;
 }
 
+/* lines: the windows' RC lines at tau_s when the tau search made them (its
+ * walk at this very tau), else NULL and they are made here. */
 static enum pb_code fit_at(struct ctx *c, int p, double tau_s, int robust, size_t *work,
-                           struct fit_result *f, struct pb_error *err)
+                           const double *lines, struct fit_result *f, struct pb_error *err)
 {
     c->p = p;
     c->tau_s = tau_s;
-    if (p == 2)
+    if (p == 2 && lines) {
+        for (size_t j = 0; j < c->nw; j++)
+            if (c->w[j].use) {
+                c->w[j].m1 = lines[2 * j];
+                c->w[j].b1 = lines[2 * j + 1];
+            }
+    } else if (p == 2) {
         rc_lines(c);
+    }
     /* rows made in any order (ecm_block), a robust fit of a long log
      * takes its plain start from the even sample (its rss_plain then the
      * sample's: the model choice takes the plain residuals over every row
@@ -231,7 +240,7 @@ static enum pb_code fit_at(struct ctx *c, int p, double tau_s, int robust, size_
         robust ? fit_blocks_any_order(c->s->n, p, ecm_block, c, c->whole ? 0 : sizeof *c, f, err)
                : fit_blocks(c->s->n, p, ecm_block, c, c->whole ? 0 : sizeof *c, robust, f, err);
     if (work)
-        *work += f->rows_visited + (p == 2 ? c->s->n : 0);
+        *work += f->rows_visited + (p == 2 && !lines ? c->s->n : 0);
     return rc;
 }
 
@@ -350,7 +359,8 @@ struct tau_free_sums {
 struct walk_part {
     const struct ctx *c;
     const double *tau_s;
-    double *buf; /* TAU_WALK_MAX times the longest window */
+    double *buf;   /* TAU_WALK_MAX times the longest window */
+    double *lines; /* nt == 1: each used window's RC line (mean, slope), else NULL */
     size_t w0, w1;
     int want_free;
     double a01[TAU_WALK_MAX], a11[TAU_WALK_MAX], b1[TAU_WALK_MAX];
@@ -410,6 +420,10 @@ static inline __attribute__((always_inline)) void walk_windows(struct walk_part 
             m1[j] /= (double)len;
             bq[j] = w->sqq > 0.0 ? bq[j] / w->sqq : 0.0;
         }
+        if (nt == 1 && wp->lines) {
+            wp->lines[2 * wj] = m1[0];
+            wp->lines[2 * wj + 1] = bq[0];
+        }
         for (size_t r = 0; r < len; r++) {
             size_t kk = w->k0 + r;
             double dq = q[kk] - w->mq;
@@ -453,11 +467,14 @@ static void walk_one(void *wp)
  * (TAU_GRID or 1) in one walk over the log; a long log walked in two parts
  * (the windows before and after twin_split, each with a buffer of its own
  * in bufs[0] and bufs[1]), added in that order whether or not they ran side
- * by side. The tau-free sums are made into *fs when have_fs is 0, else
+ * by side. With nt == 1 and lines not NULL, each used window's RC line
+ * (mean and slope in q of the lag, as rc_lines makes them, number for
+ * number) goes in lines[2 j], lines[2 j + 1]. The tau-free sums are made
+ * into *fs when have_fs is 0, else
  * taken from it (the same numbers, made once for every walk of the
  * search). rss[j] is HUGE_VAL where a fit fails. */
 static void rss_walk(const struct ctx *c, const double *tau_s, int nt, double *const bufs[2],
-                     double *rss, struct tau_free_sums *fs, int have_fs)
+                     double *lines, double *rss, struct tau_free_sums *fs, int have_fs)
 {
     size_t cut = c->nw;
     if (c->s->n >= TWIN_MIN_ROWS && !c->whole) {
@@ -466,8 +483,9 @@ static void rss_walk(const struct ctx *c, const double *tau_s, int nt, double *c
         while (cut < c->nw && c->w[cut].k0 < h)
             cut++;
     }
-    struct walk_part a = {c, tau_s, bufs[0], 0, cut, !have_fs, {0}, {0}, {0}, {0, 0, 0, 0}};
-    struct walk_part b = {c, tau_s, bufs[1], cut, c->nw, !have_fs, {0}, {0}, {0}, {0, 0, 0, 0}};
+    struct walk_part a = {c, tau_s, bufs[0], lines, 0, cut, !have_fs, {0}, {0}, {0}, {0, 0, 0, 0}};
+    struct walk_part b = {c,        tau_s, bufs[1], lines, cut,         c->nw,
+                          !have_fs, {0},   {0},     {0},   {0, 0, 0, 0}};
     void (*walk)(void *) = nt == 1 ? walk_one : walk_grid;
     if (cut < c->nw)
         twin_run(walk, &a, walk, &b);
@@ -498,6 +516,10 @@ struct tau_search {
     struct ctx *c;
     size_t *work;
     double *bufs[2]; /* each TAU_WALK_MAX times the longest window */
+    /* the windows' RC lines of the walk in hand and of the best walk so
+     * far (its tau and RSS), kept for the RC fit (NULL: not kept) */
+    double *lines_try, *lines_best;
+    double best_tau, best_rss;
     struct tau_free_sums fs;
     int failed;
 };
@@ -512,9 +534,11 @@ struct tau_grid {
     double g[TAU_GRID], taus[TAU_GRID], f[TAU_GRID];
     double *buf; /* the walks' two buffers (rss_walk) */
     size_t buf_len;
-    double tau;     /* the result: NAN when the best tau is at a grid end */
-    double tau_rss; /* the RC model's plain residual sum of squares there */
-    size_t work;    /* rows the search visited, added to the caller's count at the end */
+    double tau;          /* the result: NAN when the best tau is at a grid end */
+    double tau_rss;      /* the RC model's plain residual sum of squares there */
+    double *lines_mem;   /* room for two sets of the windows' RC lines */
+    const double *lines; /* the RC lines of the walk at tau (in lines_mem), else NULL */
+    size_t work;         /* rows the search visited, added to the caller's count at the end */
     struct tau_free_sums free_sums; /* the static model's plain sums, every row */
     pthread_t tid;
     int threaded, ok, walked, free_ok;
@@ -533,11 +557,18 @@ static double rss_at(double log_tau, void *vts)
 {
     struct tau_search *ts = vts;
     double tau = exp(log_tau), rss;
-    rss_walk(ts->c, &tau, 1, ts->bufs, &rss, &ts->fs, 1);
+    rss_walk(ts->c, &tau, 1, ts->bufs, ts->lines_try, &rss, &ts->fs, 1);
     if (ts->work)
         *ts->work += ts->c->s->n;
     if (!(rss < HUGE_VAL))
         ts->failed = 1;
+    if (ts->lines_try && rss < ts->best_rss) {
+        double *keep = ts->lines_best;
+        ts->lines_best = ts->lines_try;
+        ts->lines_try = keep;
+        ts->best_rss = rss;
+        ts->best_tau = tau;
+    }
     return rss;
 }
 
@@ -547,10 +578,14 @@ static double rss_at(double log_tau, void *vts)
 static void *tau_run(void *vg)
 {
     struct tau_grid *gr = vg;
-    struct tau_search ts = {.c = &gr->c, .work = &gr->work};
+    struct tau_search ts = {.c = &gr->c, .work = &gr->work, .best_rss = HUGE_VAL};
     ts.bufs[0] = gr->buf;
     ts.bufs[1] = gr->buf + gr->buf_len;
-    rss_walk(&gr->c, gr->taus, TAU_GRID, ts.bufs, gr->f, &ts.fs, 0);
+    if (gr->lines_mem) {
+        ts.lines_try = gr->lines_mem;
+        ts.lines_best = gr->lines_mem + 2 * gr->c.nw;
+    }
+    rss_walk(&gr->c, gr->taus, TAU_GRID, ts.bufs, NULL, gr->f, &ts.fs, 0);
     gr->free_sums = ts.fs;
     gr->free_ok = 1;
     gr->tau = NAN;
@@ -583,6 +618,9 @@ static void *tau_run(void *vg)
     gsl_min_fminimizer_free(mz);
     gr->tau = ts.failed ? NAN : exp(x);
     gr->tau_rss = fx;
+    /* the best point is a walked one (not the grid's): its lines are kept */
+    if (!ts.failed && ts.lines_best && ts.best_rss < HUGE_VAL && gr->tau == ts.best_tau)
+        gr->lines = ts.lines_best;
     return NULL;
 }
 
@@ -593,6 +631,8 @@ static void grid_start(struct tau_grid *gr, const struct ctx *c, double lo_s, do
     double lo = log(lo_s), hi = log(hi_s);
     gr->threaded = gr->ok = gr->walked = 0;
     gr->buf = NULL;
+    gr->lines_mem = NULL;
+    gr->lines = NULL;
     gr->tau = NAN;
     gr->work = 0;
     if (!(hi - lo > 1.0))
@@ -602,6 +642,7 @@ static void grid_start(struct tau_grid *gr, const struct ctx *c, double lo_s, do
     gr->buf = malloc(2 * gr->buf_len * sizeof(double));
     if (!gr->buf)
         return;
+    gr->lines_mem = malloc(4 * c->nw * sizeof(double)); /* NULL: the RC fit makes its lines */
     for (int j = 0; j < TAU_GRID; j++) {
         gr->g[j] = lo + (hi - lo) * j / (TAU_GRID - 1);
         gr->taus[j] = exp(gr->g[j]);
@@ -672,7 +713,8 @@ struct ecm_run *ecm_begin(const struct series *s, const double *q_ah, const stru
     out->r0_mohm = out->r0_ci95_mohm = out->r_static_mohm = out->r_static_ci95_mohm = NAN;
     out->r1_mohm = out->r1_ci95_mohm = out->tau_s = out->sigma_mv = out->rho = NAN;
     out->window_s = ecm_window_s(o->dt_med_s);
-    run->grid = (struct tau_grid){.ok = 0, .threaded = 0, .walked = 0, .buf = NULL, .tau = NAN};
+    run->grid = (struct tau_grid){
+        .ok = 0, .threaded = 0, .walked = 0, .buf = NULL, .lines_mem = NULL, .tau = NAN};
     struct ctx *c = &run->c;
     *c = (struct ctx){.s = s, .y = o->y_v, .q = q_ah, .step_a = o->step_a, .whole = o->whole};
     c->w = make_windows(s, out->window_s, o->gap_s, &c->nw);
@@ -731,7 +773,7 @@ enum pb_code ecm_end(struct ecm_run *run, struct ecm_result *res)
     if (out->reason)
         goto done;
     struct fit_result fs;
-    if (fit_at(&c, 1, 0.0, o->robust, o->work, &fs, NULL) != PB_OK || fs.rank < 1) {
+    if (fit_at(&c, 1, 0.0, o->robust, o->work, NULL, &fs, NULL) != PB_OK || fs.rank < 1) {
         out->reason = "the resistance fit failed (too few samples inside the windows)";
         goto done;
     }
@@ -751,7 +793,8 @@ enum pb_code ecm_end(struct ecm_run *run, struct ecm_result *res)
         if (!(tau > 0.0))
             tau = search_tau(grid, o->work);
         struct fit_result fr;
-        if (isfinite(tau) && fit_at(&c, 2, tau, o->robust, o->work, &fr, NULL) == PB_OK &&
+        const double *lines = grid->lines && tau == grid->tau ? grid->lines : NULL;
+        if (isfinite(tau) && fit_at(&c, 2, tau, o->robust, o->work, lines, &fr, NULL) == PB_OK &&
             fr.rank == 2) {
             /* the search's walk at this tau summed the RC model's plain
              * normal equations over every row in the same order as a plain
@@ -795,6 +838,7 @@ done:
     if (grid->threaded) /* a search still running is waited for, its result unused */
         pthread_join(grid->tid, NULL);
     free(grid->buf);
+    free(grid->lines_mem);
     if (out->reason) {
         out->r0_mohm = out->r0_ci95_mohm = NAN;
         out->r1_mohm = out->r1_ci95_mohm = out->tau_s = NAN;

@@ -13,6 +13,10 @@
  * - ecm_begin/ecm_end with work between them against ecm_fit: the same
  *   computation in two halves, so the results must be identical, number
  *   for number (mathematics: no tolerance).
+ * - The RC fit at the searched tau takes the windows' lines of the lag from
+ *   the search's own walk at that tau; a fit at the same tau given as fixed
+ *   makes them itself (rc_lines): the same lines, so the same fit, number
+ *   for number (no tolerance).
  * - The passes of a long log cut in two halves (twin.h) against the same
  *   passes walked whole: the same rows and sums added in another order, so
  *   R0, R1 and their intervals agree within 1e-6 relative (far above the
@@ -143,6 +147,30 @@ static void test_rc_truth_and_split(void **state)
     series_free(s);
 }
 
+static void test_lines_from_the_search(void **state)
+{
+    (void)state;
+    double *q, q_end;
+    struct series *s = gen(&q, &q_end);
+    struct ecm_opts o = opts(s);
+    struct ecm_result searched, fixed;
+    size_t work_searched = 0, work_fixed = 0;
+    o.work = &work_searched;
+    assert_int_equal(ecm_fit(s, q, &o, &searched, NULL), PB_OK);
+    assert_true(searched.rc);
+    o.tau_fixed_s = searched.tau_s;
+    o.work = &work_fixed;
+    assert_int_equal(ecm_fit(s, q, &o, &fixed, NULL), PB_OK);
+    assert_true(fixed.rc);
+    assert_true(searched.tau_s == fixed.tau_s);
+    assert_true(searched.r0_mohm == fixed.r0_mohm && searched.r0_ci95_mohm == fixed.r0_ci95_mohm);
+    assert_true(searched.r1_mohm == fixed.r1_mohm && searched.r1_ci95_mohm == fixed.r1_ci95_mohm);
+    assert_true(searched.sigma_mv == fixed.sigma_mv && searched.rho == fixed.rho);
+    assert_int_equal(searched.downweighted, fixed.downweighted);
+    free(q);
+    series_free(s);
+}
+
 static void test_cut_in_two(void **state)
 {
     (void)state;
@@ -191,6 +219,7 @@ int main(void)
     gsl_set_error_handler_off();
     const struct CMUnitTest tests[] = {
         cmocka_unit_test(test_rc_truth_and_split),
+        cmocka_unit_test(test_lines_from_the_search),
         cmocka_unit_test(test_cut_in_two),
         cmocka_unit_test(test_rc_trend),
     };
