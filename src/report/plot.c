@@ -6,6 +6,7 @@
 #include <cairo-pdf.h>
 #include <cairo-svg.h>
 #include <cairo.h>
+#include <dlfcn.h>
 #include <errno.h>
 #include <fontconfig/fontconfig.h>
 #include <jansson.h>
@@ -16,6 +17,138 @@
 #include <sys/stat.h>
 #include <time.h>
 #include <unistd.h>
+
+/* cairo (and fontconfig behind it) is loaded when the first figure is
+ * started, not linked: linked, it cost every command about 2.5 ms of
+ * start-up and 2 MiB for libraries only figures use (X11, fontconfig,
+ * freetype, pixman, png). The library is kept for the process's life, as
+ * a linked one would be. */
+#define CAIRO_FUNCS(X)                                                                             \
+    X(cairo_arc)                                                                                   \
+    X(cairo_clip)                                                                                  \
+    X(cairo_close_path)                                                                            \
+    X(cairo_create)                                                                                \
+    X(cairo_debug_reset_static_data)                                                               \
+    X(cairo_destroy)                                                                               \
+    X(cairo_fill)                                                                                  \
+    X(cairo_fill_preserve)                                                                         \
+    X(cairo_font_options_create)                                                                   \
+    X(cairo_font_options_destroy)                                                                  \
+    X(cairo_font_options_set_hint_metrics)                                                         \
+    X(cairo_image_surface_create)                                                                  \
+    X(cairo_line_to)                                                                               \
+    X(cairo_move_to)                                                                               \
+    X(cairo_new_path)                                                                              \
+    X(cairo_paint)                                                                                 \
+    X(cairo_pdf_surface_create_for_stream)                                                         \
+    X(cairo_pdf_surface_set_metadata)                                                              \
+    X(cairo_rectangle)                                                                             \
+    X(cairo_restore)                                                                               \
+    X(cairo_rotate)                                                                                \
+    X(cairo_save)                                                                                  \
+    X(cairo_select_font_face)                                                                      \
+    X(cairo_set_dash)                                                                              \
+    X(cairo_set_font_options)                                                                      \
+    X(cairo_set_font_size)                                                                         \
+    X(cairo_set_line_cap)                                                                          \
+    X(cairo_set_line_join)                                                                         \
+    X(cairo_set_line_width)                                                                        \
+    X(cairo_set_source_rgb)                                                                        \
+    X(cairo_set_source_rgba)                                                                       \
+    X(cairo_show_text)                                                                             \
+    X(cairo_status)                                                                                \
+    X(cairo_status_to_string)                                                                      \
+    X(cairo_stroke)                                                                                \
+    X(cairo_surface_destroy)                                                                       \
+    X(cairo_surface_finish)                                                                        \
+    X(cairo_surface_status)                                                                        \
+    X(cairo_surface_write_to_png_stream)                                                           \
+    X(cairo_svg_surface_create_for_stream)                                                         \
+    X(cairo_text_extents)                                                                          \
+    X(cairo_text_path)                                                                             \
+    X(cairo_translate)
+
+#define CAIRO_LIBRARY "libcairo.so.2"
+#define FONTCONFIG_LIBRARY "libfontconfig.so.1"
+
+#define CAIRO_POINTER(name) __typeof__(name) *name;
+static struct {
+    void *lib;
+    CAIRO_FUNCS(CAIRO_POINTER)
+    __typeof__(FcFini) *FcFini;
+} cx;
+#undef CAIRO_POINTER
+
+/* Loads cairo once; 0, or -1 with the reason in why. */
+static int cairo_load(char *why, size_t cap)
+{
+    if (cx.lib)
+        return 0;
+    void *lib = dlopen(CAIRO_LIBRARY, RTLD_NOW | RTLD_LOCAL);
+    if (!lib) {
+        snprintf(why, cap, "%s", dlerror());
+        return -1;
+    }
+#define CAIRO_FIND(name)                                                                           \
+    if (!(*(void **)&cx.name = dlsym(lib, #name))) {                                               \
+        snprintf(why, cap, "%s has no %s", CAIRO_LIBRARY, #name);                                  \
+        dlclose(lib);                                                                              \
+        return -1;                                                                                 \
+    }
+    CAIRO_FUNCS(CAIRO_FIND)
+#undef CAIRO_FIND
+    /* cairo's own fontconfig (already mapped by cairo: this only finds it) */
+    void *fc = dlopen(FONTCONFIG_LIBRARY, RTLD_NOW | RTLD_LOCAL);
+    if (fc)
+        *(void **)&cx.FcFini = dlsym(fc, "FcFini");
+    cx.lib = lib;
+    return 0;
+}
+
+/* Every cairo call below goes through the table. */
+#define cairo_arc cx.cairo_arc
+#define cairo_clip cx.cairo_clip
+#define cairo_close_path cx.cairo_close_path
+#define cairo_create cx.cairo_create
+#define cairo_debug_reset_static_data cx.cairo_debug_reset_static_data
+#define cairo_destroy cx.cairo_destroy
+#define cairo_fill cx.cairo_fill
+#define cairo_fill_preserve cx.cairo_fill_preserve
+#define cairo_font_options_create cx.cairo_font_options_create
+#define cairo_font_options_destroy cx.cairo_font_options_destroy
+#define cairo_font_options_set_hint_metrics cx.cairo_font_options_set_hint_metrics
+#define cairo_image_surface_create cx.cairo_image_surface_create
+#define cairo_line_to cx.cairo_line_to
+#define cairo_move_to cx.cairo_move_to
+#define cairo_new_path cx.cairo_new_path
+#define cairo_paint cx.cairo_paint
+#define cairo_pdf_surface_create_for_stream cx.cairo_pdf_surface_create_for_stream
+#define cairo_pdf_surface_set_metadata cx.cairo_pdf_surface_set_metadata
+#define cairo_rectangle cx.cairo_rectangle
+#define cairo_restore cx.cairo_restore
+#define cairo_rotate cx.cairo_rotate
+#define cairo_save cx.cairo_save
+#define cairo_select_font_face cx.cairo_select_font_face
+#define cairo_set_dash cx.cairo_set_dash
+#define cairo_set_font_options cx.cairo_set_font_options
+#define cairo_set_font_size cx.cairo_set_font_size
+#define cairo_set_line_cap cx.cairo_set_line_cap
+#define cairo_set_line_join cx.cairo_set_line_join
+#define cairo_set_line_width cx.cairo_set_line_width
+#define cairo_set_source_rgb cx.cairo_set_source_rgb
+#define cairo_set_source_rgba cx.cairo_set_source_rgba
+#define cairo_show_text cx.cairo_show_text
+#define cairo_status cx.cairo_status
+#define cairo_status_to_string cx.cairo_status_to_string
+#define cairo_stroke cx.cairo_stroke
+#define cairo_surface_destroy cx.cairo_surface_destroy
+#define cairo_surface_finish cx.cairo_surface_finish
+#define cairo_surface_status cx.cairo_surface_status
+#define cairo_surface_write_to_png_stream cx.cairo_surface_write_to_png_stream
+#define cairo_svg_surface_create_for_stream cx.cairo_svg_surface_create_for_stream
+#define cairo_text_extents cx.cairo_text_extents
+#define cairo_text_path cx.cairo_text_path
+#define cairo_translate cx.cairo_translate
 
 enum { FMT_PNG = 0, FMT_SVG, FMT_PDF };
 
@@ -69,6 +202,14 @@ struct plot *plot_new(const char *path, int w, int h, struct pb_error *err)
     int fmt = plot_format_of(path);
     if (fmt < 0) {
         pb_error_set(err, PB_EUSAGE, "'%s': the plot's name must end in .png, .svg or .pdf", path);
+        return NULL;
+    }
+    char why[256];
+    if (cairo_load(why, sizeof why) != 0) {
+        pb_error_set(err, PB_EOUTPUT,
+                     "cannot draw '%s': cannot load the drawing library (%s); install Debian's "
+                     "libcairo2",
+                     path, why);
         return NULL;
     }
     struct plot *p = calloc(1, sizeof *p);
@@ -187,7 +328,8 @@ void plot_free(struct plot *p)
          * draws one or two figures, so hand them back and leak checkers
          * (ASan, valgrind) see a clean exit */
         cairo_debug_reset_static_data();
-        FcFini();
+        if (cx.FcFini)
+            cx.FcFini();
     }
 }
 

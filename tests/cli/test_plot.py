@@ -50,6 +50,7 @@ import os
 import random
 import re
 import resource
+import shutil
 import signal
 import sqlite3
 import subprocess
@@ -1355,6 +1356,42 @@ class Shortcuts(FigureChecks, unittest.TestCase):
             rc, _, _ = pb(db, "trend", "NOPE", "--plot", os.path.join(d, "n.png"))
             self.assertEqual(rc, EXIT_USAGE)
             self.assertFalse(os.path.exists(os.path.join(d, "n.png")))
+
+
+class DrawingLibrary(unittest.TestCase):
+    """cairo is loaded when a figure is started (dlopen of libcairo.so.2), not linked, so the
+    commands that draw nothing do not map it (README, "Libraries")."""
+
+    def test_not_linked(self):
+        p = subprocess.run(["ldd", PACKBOOK], capture_output=True, text=True)
+        self.assertEqual(p.returncode, 0, p.stderr)
+        self.assertNotIn("libcairo", p.stdout)
+        self.assertNotIn("libfontconfig", p.stdout)
+
+    @unittest.skipUnless(shutil.which("cc"), "no C compiler to make a stand-in library")
+    def test_missing_library_is_a_clear_error(self):
+        with tempfile.TemporaryDirectory() as d:
+            # a libcairo.so.2 without cairo's functions, found first through LD_LIBRARY_PATH
+            src = os.path.join(d, "empty.c")
+            with open(src, "w") as f:
+                f.write("int packbook_stand_in;\n")
+            subprocess.run(["cc", "-shared", "-fPIC", "-o", os.path.join(d, "libcairo.so.2"),
+                            src], check=True)
+            env = dict(os.environ, LD_LIBRARY_PATH=d)
+            log = sample("tm07-plain.csv")
+            fig = os.path.join(d, "f.png")
+            p = subprocess.run([PACKBOOK, "plot", log, "-o", fig], capture_output=True,
+                               text=True, env=env, timeout=60)
+            self.assertEqual(p.returncode, EXIT_OUTPUT, p.stderr)  # man: 5, output not written
+            self.assertIn("cannot load the drawing library", p.stderr)
+            self.assertIn("has no cairo_", p.stderr)
+            self.assertIn("install Debian's libcairo2", p.stderr)
+            self.assertFalse(os.path.exists(fig), "nothing half-written")
+            # analysing needs none of it
+            p = subprocess.run([PACKBOOK, "analyze", log, "--json"], capture_output=True,
+                               text=True, env=env, timeout=60)
+            self.assertEqual(p.returncode, EXIT_OK, p.stderr)
+            self.assertIn("charge_used_mah", p.stdout)
 
 
 if __name__ == "__main__":
