@@ -1,6 +1,7 @@
 #define _GNU_SOURCE /* mkstemp, fchmod, strdup, gmtime_r, M_PI */
 #include "plot.h"
 
+#include "../dlfuncs.h"
 #include "outfile.h"
 
 #include <cairo-pdf.h>
@@ -79,29 +80,22 @@ static struct {
 } cx;
 #undef CAIRO_POINTER
 
+#define CAIRO_SLOT(name) {#name, (void **)&cx.name},
+static const struct dl_func cairo_funcs[] = {CAIRO_FUNCS(CAIRO_SLOT)};
+#undef CAIRO_SLOT
+
 /* Loads cairo once; 0, or -1 with the reason in why. */
 static int cairo_load(char *why, size_t cap)
 {
     if (cx.lib)
         return 0;
-    void *lib = dlopen(CAIRO_LIBRARY, RTLD_NOW | RTLD_LOCAL);
-    if (!lib) {
-        snprintf(why, cap, "%s", dlerror());
+    if (dl_funcs_load(CAIRO_LIBRARY, cairo_funcs, sizeof cairo_funcs / sizeof *cairo_funcs, &cx.lib,
+                      why, cap) != 0)
         return -1;
-    }
-#define CAIRO_FIND(name)                                                                           \
-    if (!(*(void **)&cx.name = dlsym(lib, #name))) {                                               \
-        snprintf(why, cap, "%s has no %s", CAIRO_LIBRARY, #name);                                  \
-        dlclose(lib);                                                                              \
-        return -1;                                                                                 \
-    }
-    CAIRO_FUNCS(CAIRO_FIND)
-#undef CAIRO_FIND
     /* cairo's own fontconfig (already mapped by cairo: this only finds it) */
     void *fc = dlopen(FONTCONFIG_LIBRARY, RTLD_NOW | RTLD_LOCAL);
     if (fc)
         *(void **)&cx.FcFini = dlsym(fc, "FcFini");
-    cx.lib = lib;
     return 0;
 }
 

@@ -18,10 +18,9 @@
 #include <string.h>
 #include <time.h>
 
-#include <dlfcn.h>
-
 #include "../core/isotime.h"
 #include "../core/utf8.h"
+#include "../dlfuncs.h"
 #include "backend.h"
 #include "store_sql.h"
 
@@ -57,26 +56,17 @@ static struct {
 } pq;
 #undef PQ_POINTER
 
+#define PQ_SLOT(name) {#name, (void **)&pq.name},
+static const struct dl_func pq_funcs[] = {PQ_FUNCS(PQ_SLOT)};
+#undef PQ_SLOT
+
 /* Loads libpq once; 0, or -1 with the reason in why. */
 static int pq_load(char *why, size_t cap)
 {
     if (pq.lib)
         return 0;
-    void *lib = dlopen(PQ_LIBRARY, RTLD_NOW | RTLD_LOCAL);
-    if (!lib) {
-        snprintf(why, cap, "%s", dlerror());
-        return -1;
-    }
-#define PQ_FIND(name)                                                                              \
-    if (!(*(void **)&pq.name = dlsym(lib, #name))) {                                               \
-        snprintf(why, cap, "%s has no %s", PQ_LIBRARY, #name);                                     \
-        dlclose(lib);                                                                              \
-        return -1;                                                                                 \
-    }
-    PQ_FUNCS(PQ_FIND)
-#undef PQ_FIND
-    pq.lib = lib; /* kept for the process's life, as a linked library would be */
-    return 0;
+    return dl_funcs_load(PQ_LIBRARY, pq_funcs, sizeof pq_funcs / sizeof *pq_funcs, &pq.lib, why,
+                         cap);
 }
 
 /* Every PQ... below calls through the table. */
