@@ -57,6 +57,7 @@ struct reader {
     double t_prev;
     double temp_prev;
     int have_temp_prev;
+    int not_rising; /* a kept time was not above the one before (order_times has work) */
 
     double val[NSLOTS];
     enum bad_kind bad;
@@ -786,6 +787,7 @@ static void keep_sample(struct reader *r)
     }
     if (is_glitch(r))
         return;
+    r->not_rising |= s->n > 0 && !(rel > r->t_prev);
     if (series_reserve_one(s) != 0) {
         fail(r, PB_ENOMEM, 0, 0, "out of memory%s", NULL);
         return;
@@ -898,8 +900,20 @@ static void end_record(struct reader *r)
 
 /* ---- time order and spikes -------------------------------------------- */
 
+/* fmin and fmax as the C library defines them (a NaN loses to a number),
+ * inline: through the PLT they cost more than the rest of a pass's step. */
+static inline double min_of(double a, double b)
+{
+    return a < b ? a : b == b ? b : a;
+}
+
+static inline double max_of(double a, double b)
+{
+    return a > b ? a : b == b ? b : a;
+}
+
 /* Copies sample from into place to (to <= from) in every column. */
-static void move_sample(struct series *s, size_t from, size_t to)
+static inline void move_sample(struct series *s, size_t from, size_t to)
 {
     if (from == to)
         return;
@@ -1091,8 +1105,8 @@ static void drop_spikes(struct reader *r)
         return;
     double peak = 0.0;
     for (size_t k = 0; s->i_a && k < n; k++)
-        peak = fmax(peak, fabs(s->i_a[k]));
-    double tol_a = fmax(0.1, 0.05 * peak);
+        peak = max_of(peak, fabs(s->i_a[k]));
+    double tol_a = max_of(0.1, 0.05 * peak);
     size_t seg = 1; /* the next segment start, by index as read */
     int vcol = r->st->voltage_from_cells ? r->slot_col[SLOT_CELL0] + 1 : r->slot_col[SLOT_V] + 1;
     for (size_t k = 1; k < n; k++) {
@@ -1106,7 +1120,7 @@ static void drop_spikes(struct reader *r)
         int last_of_segment = k + 1 == n || (seg < s->nseg && s->seg_start[seg] == k + 1);
         if (!last_of_segment) {
             double vp = s->v_v[w - 1], v = s->v_v[k], vn = s->v_v[k + 1];
-            double lo = fmin(vp, vn), hi = fmax(vp, vn);
+            double lo = min_of(vp, vn), hi = max_of(vp, vn);
             int spike =
                 v < lo * (1.0 - LOGREAD_SPIKE_FRACTION) || v > hi * (1.0 + LOGREAD_SPIKE_FRACTION);
             if (spike && s->i_a) {
@@ -1263,6 +1277,127 @@ static inline int at_record_start(const struct reader *r, const struct csv_parse
     return p->pstate == 0 && !p->quoted && p->entry_pos == 0 && !r->failed;
 }
 
+/* ---- numeric lines ------------------------------------------------------
+ * Most lines of a long log are nothing but numbers in the mapped columns:
+ * such a line is read in one walk (each number's digits as they pass, no
+ * field table, no per-field dispatch) and its sample taken straight into
+ * the keep logic. Anything else about a line (a comment, an empty field,
+ * an exponent, a quote or a space, a short or long row, a line cut by the
+ * block's end) sends that line down the general path; so does every line
+ * while the log has cell or date columns or times that are not numbers. */
+
+#define NUMLINE_CRLF 1 /* the term of a line ended by CR LF */
+
+/* What the numeric-line scanner needs, copied so a second thread can use it. */
+struct numline {
+    unsigned char cls[256];
+    unsigned char delimiter, decimal;
+    const int *col_slot;
+    int ncols, need_fields;
+};
+
+/* The reader's state allows numeric lines: mapped, numeric times, no cells
+ * and no dates (their checks are per column), few enough columns. */
+static int numline_ok(const struct reader *r)
+{
+    return r->mapped && !r->failed && !r->opts->no_fast_path && r->tmode == TM_NUMBER &&
+           r->slot_col[SLOT_DATE] < 0 && r->ncells == 0 && r->ncols <= FAST_MAX_FIELDS;
+}
+
+static void numline_init(struct numline *nl, const struct reader *r)
+{
+    fast_classes(nl->cls, r->st->delimiter);
+    nl->delimiter = (unsigned char)r->st->delimiter;
+    nl->decimal = (unsigned char)r->st->decimal;
+    nl->col_slot = r->col_slot;
+    nl->ncols = r->ncols;
+    nl->need_fields = r->need_fields;
+}
+
+/* The line at u[at]: 1 when it is a numeric line, with its line end's
+ * offset in *end, that byte in *term and each mapped column's number in
+ * val[slot] (exactly as num_parse reads the field: the field is
+ * [-]digits[decimal digits], 1 to 19 digits, at most 21 bytes, a mantissa
+ * of at most 2^53, so one correctly rounded division); else 0. The block
+ * must hold a byte after its end that is no digit, mark, delimiter or line
+ * end (the scan stops there: a line cut by the block's end is not one). */
+static inline int numline_scan(const struct numline *nl, const unsigned char *u, size_t at,
+                               size_t *end, unsigned char *term, double *val)
+{
+    const unsigned char *p = u + at;
+    if (*p == '#')
+        return 0;
+    for (int col = 0;; col++) {
+        if (col >= nl->ncols)
+            return 0; /* a long row: counted by the general path */
+        int slot = nl->col_slot[col];
+        if (slot < 0) {
+            while (nl->cls[*p] == FAST_PLAIN)
+                p++;
+        } else {
+            const unsigned char *f = p;
+            int neg = *p == '-';
+            p += neg;
+            const unsigned char *d0 = p;
+            uint64_t m = 0;
+            unsigned d;
+            while ((d = (unsigned)*p - '0') <= 9) {
+                m = m * 10 + d;
+                p++;
+            }
+            long nd = (long)(p - d0);
+            int frac = 0;
+            if (*p == nl->decimal) {
+                const unsigned char *f0 = ++p;
+                while ((d = (unsigned)*p - '0') <= 9) {
+                    m = m * 10 + d;
+                    p++;
+                }
+                frac = (int)(p - f0);
+                nd += frac;
+            }
+            if (nd <= 0 || nd > 19 || p - f > 21 || m > (UINT64_C(1) << 53))
+                return 0;
+            double x = (double)m;
+            if (frac > 0)
+                x /= num_exact_pow10[frac];
+            val[slot] = neg ? -x : x;
+        }
+        unsigned char c = *p;
+        if (c == nl->delimiter) {
+            p++;
+            continue;
+        }
+        if ((c != '\n' && c != '\r') || col + 1 < nl->need_fields ||
+            (size_t)(p - u) - at > FAST_MAX_LINE)
+            return 0;
+        /* a CR LF pair ends the line at its LF (the empty record between
+         * the two would change nothing) */
+        *term = c == '\r' && p[1] == '\n' ? NUMLINE_CRLF : c;
+        *end = (size_t)(p - u) + (*term == NUMLINE_CRLF);
+        return 1;
+    }
+}
+
+/* A numeric line's sample (numline_scan's val), as take_field, on_row and
+ * end_record would take it field by field; the reader is at a record's
+ * start. */
+static inline void take_numline(struct reader *r, const double *val, unsigned char term)
+{
+    r->row_line = r->line;
+    r->st->records++;
+    r->val[SLOT_T] = val[SLOT_T] * r->t_scale;
+    for (int slot = SLOT_V; slot <= SLOT_TEMP; slot++)
+        if (r->slot_col[slot] >= 0)
+            r->val[slot] = val[slot] * r->spec[slot].scale + r->spec[slot].offset;
+    keep_sample(r);
+    /* as on_row counts a CR, an LF or a CR LF pair */
+    if (term != '\n' || !r->after_cr)
+        r->line++;
+    r->after_cr = term == '\r';
+    r->record_line = r->line;
+}
+
 /* Plain lines at a record boundary are split here and handed to the same
  * field and row code; a line with a quote or a space, a long line, the
  * header (columns not yet mapped) and a line cut by the block's end go
@@ -1270,7 +1405,8 @@ static inline int at_record_start(const struct reader *r, const struct csv_parse
  * resumes. The output is the same either way (tests/unit/test_logread.c
  * compares both on every file in tests/data and samples/). Lines are
  * counted in on_row, which CSV_REPALL_NL calls for every unquoted CR and
- * LF. */
+ * LF. Numeric lines take their own path (numline_scan); buf[len] must be
+ * a stop byte for it ('\0'). */
 static void feed(struct reader *r, struct csv_parser *p, const char *buf, size_t len)
 {
     if (r->opts->no_fast_path) {
@@ -1281,11 +1417,28 @@ static void feed(struct reader *r, struct csv_parser *p, const char *buf, size_t
     fast_classes(cls, r->st->delimiter);
     const unsigned char *u = (const unsigned char *)buf;
     size_t at = 0;
+    struct numline nl;
+    int num = numline_ok(r);
+    if (num)
+        numline_init(&nl, r);
+    double val[SLOT_TEMP + 1];
     while (at < len) {
+        size_t e;
+        unsigned char term;
+        if (num && at_record_start(r, p) && numline_scan(&nl, u, at, &e, &term, val)) {
+            take_numline(r, val, term);
+            at = e + 1;
+            continue;
+        }
+        if (!num && numline_ok(r)) { /* the layout and the time's form are known now */
+            numline_init(&nl, r);
+            num = 1;
+            continue;
+        }
         size_t starts[FAST_MAX_FIELDS + 1];
         int nf, plain;
         unsigned char c;
-        size_t e = split_line(cls, u, at, len, starts, &nf, &plain, &c);
+        e = split_line(cls, u, at, len, starts, &nf, &plain, &c);
         if (e == len) {
             /* no line end in the block: libcsv keeps the piece */
             feed_csv(r, p, buf + at, len - at);
@@ -1316,11 +1469,13 @@ static void feed(struct reader *r, struct csv_parser *p, const char *buf, size_t
 #define AHEAD_BYTES (256u << 10)
 
 struct ahead_line {
-    size_t end;    /* its CR or LF; len: cut by the block's end */
-    size_t field0; /* its first field in start[] and pre[] */
+    size_t end;    /* its CR or LF (a CR LF pair's LF); len: cut by the block's end */
+    size_t field0; /* its first field in start[] and pre[]; a numeric line's in num[] */
     int nf, plain;
-    unsigned char term;
+    unsigned char term, numeric;
 };
+
+#define NUMLINE_VALS (SLOT_TEMP + 1) /* a numeric line's values, by slot */
 
 struct ahead_block {
     char *buf;
@@ -1332,10 +1487,14 @@ struct ahead_block {
     size_t *start; /* each plain line's field starts, then its end + 1 */
     struct pre_num *pre;
     size_t nfield, cap_start, cap_pre;
+    double *num; /* each numeric line's values (NUMLINE_VALS, by slot) */
+    size_t nnum, cap_num;
 };
 
 struct ahead {
     FILE *fp;
+    struct numline nl;
+    int numeric; /* the reader takes numeric lines (numline_ok) */
     unsigned char cls[256];
     char decimal;
     const int *col_slot;
@@ -1444,15 +1603,31 @@ static inline enum num_status scanned_number(const struct field_scan *fs, const 
 static int ahead_fill(struct ahead *a, struct ahead_block *b)
 {
     b->len = fread(b->buf, 1, AHEAD_BYTES, a->fp);
+    b->buf[b->len] = '\0'; /* numline_scan's stop byte */
     b->read_errno = ferror(a->fp) ? (errno ? errno : EIO) : 0;
-    b->nline = b->nfield = 0;
+    b->nline = b->nfield = b->nnum = 0;
     b->oom = 0;
     const unsigned char *u = (const unsigned char *)b->buf;
     size_t at = 0;
+    double val[NUMLINE_VALS] = {0};
     while (at < b->len) {
         size_t starts[FAST_MAX_FIELDS + 1];
         struct field_scan fs[FAST_MAX_FIELDS];
         struct ahead_line l = {0};
+        if (a->numeric && numline_scan(&a->nl, u, at, &l.end, &l.term, val)) {
+            if (grow((void **)&b->line, &b->cap_line, b->nline + 1, sizeof *b->line) != 0 ||
+                grow((void **)&b->num, &b->cap_num, b->nnum + NUMLINE_VALS, sizeof *b->num) != 0) {
+                b->oom = 1;
+                return 0;
+            }
+            l.numeric = 1;
+            l.field0 = b->nnum;
+            memcpy(b->num + b->nnum, val, sizeof val);
+            b->nnum += NUMLINE_VALS;
+            b->line[b->nline++] = l;
+            at = l.end + 1;
+            continue;
+        }
         l.end = split_parse_line(a->cls, u, at, b->len, (unsigned char)a->decimal, starts, fs,
                                  &l.nf, &l.plain, &l.term);
         if (grow((void **)&b->line, &b->cap_line, b->nline + 1, sizeof *b->line) != 0) {
@@ -1519,6 +1694,11 @@ static void feed_ahead(struct reader *r, struct csv_parser *p, const struct ahea
     size_t at = 0;
     for (size_t li = 0; li < b->nline; li++) {
         const struct ahead_line *l = &b->line[li];
+        if (l->numeric && at_record_start(r, p)) {
+            take_numline(r, b->num + l->field0, l->term);
+            at = l->end + 1;
+            continue;
+        }
         if (l->end == b->len) {
             feed_csv(r, p, b->buf + at, b->len - at);
             return;
@@ -1547,6 +1727,7 @@ static void ahead_release(struct ahead *a)
         free(a->blk[i].line);
         free(a->blk[i].start);
         free(a->blk[i].pre);
+        free(a->blk[i].num);
     }
 }
 
@@ -1558,13 +1739,16 @@ static int read_ahead(struct reader *r, struct csv_parser *p, FILE *fp, char *la
     struct ahead a = {
         .fp = fp, .decimal = r->st->decimal, .col_slot = r->col_slot, .ncols = r->ncols};
     fast_classes(a.cls, r->st->delimiter);
+    a.numeric = numline_ok(r);
+    numline_init(&a.nl, r);
     /* the tables sized here for lines of 16 bytes or more, so that the
      * thread, which grows them only for shorter lines, keeps no heap of
      * its own */
     for (int i = 0; i < 2; i++) {
         struct ahead_block *b = &a.blk[i];
-        b->buf = malloc(AHEAD_BYTES);
+        b->buf = malloc(AHEAD_BYTES + 1);
         if (!b->buf || grow((void **)&b->line, &b->cap_line, AHEAD_BYTES / 16, sizeof *b->line) ||
+            grow((void **)&b->num, &b->cap_num, AHEAD_BYTES / 16 * NUMLINE_VALS, sizeof *b->num) ||
             grow((void **)&b->start, &b->cap_start, AHEAD_BYTES / 4, sizeof *b->start) ||
             grow((void **)&b->pre, &b->cap_pre, AHEAD_BYTES / 4, sizeof *b->pre)) {
             ahead_release(&a);
@@ -1748,12 +1932,13 @@ struct series *logread_file(FILE *fp, const char *name, const struct logread_opt
     for (int s = 0; s < NSLOTS; s++)
         r.slot_col[s] = -1;
 
-    buf = malloc(BLOCK_BYTES);
+    buf = malloc(BLOCK_BYTES + 1); /* + a stop byte for numline_scan */
     if (!buf) {
         pb_error_set(err, PB_ENOMEM, "out of memory");
         goto cleanup;
     }
     size_t len = fread(buf, 1, BLOCK_BYTES, fp);
+    buf[len] = '\0';
     if (opts->on_block && len)
         opts->on_block(opts->block_ctx, buf, len);
     if (ferror(fp)) {
@@ -1813,6 +1998,7 @@ struct series *logread_file(FILE *fp, const char *name, const struct logread_opt
     int ahead = len == BLOCK_BYTES && r.mapped && !r.failed && !opts->no_fast_path &&
                 sysconf(_SC_NPROCESSORS_ONLN) > 1 && read_ahead(&r, &p, fp, &last) == 0;
     while (!ahead && !r.failed && (len = fread(buf, 1, BLOCK_BYTES, fp)) > 0) {
+        buf[len] = '\0';
         if (opts->on_block)
             opts->on_block(opts->block_ctx, buf, len);
         feed(&r, &p, buf, len);
@@ -1849,7 +2035,9 @@ struct series *logread_file(FILE *fp, const char *name, const struct logread_opt
     if (r.failed)
         goto cleanup;
     if (r.s->n > 1) {
-        order_times(&r);
+        /* times that only rise (most logs) leave order_times nothing to do */
+        if (r.not_rising)
+            order_times(&r);
         if (r.failed)
             goto cleanup;
         /* a clock restarts now and then, a buffered logger writes a row late
