@@ -912,6 +912,24 @@ static inline double max_of(double a, double b)
     return a > b ? a : b == b ? b : a;
 }
 
+/* The largest |x[k]| of x[0..n) (NaNs left out, as fmax leaves them), 0
+ * when none: four running maxima, so the pass is not one long chain of
+ * dependent steps (a maximum is the same in any order). */
+static double abs_max(const double *x, size_t n)
+{
+    double m0 = 0.0, m1 = 0.0, m2 = 0.0, m3 = 0.0;
+    size_t k = 0;
+    for (; k + 4 <= n; k += 4) {
+        m0 = max_of(m0, fabs(x[k]));
+        m1 = max_of(m1, fabs(x[k + 1]));
+        m2 = max_of(m2, fabs(x[k + 2]));
+        m3 = max_of(m3, fabs(x[k + 3]));
+    }
+    for (; k < n; k++)
+        m0 = max_of(m0, fabs(x[k]));
+    return max_of(max_of(m0, m1), max_of(m2, m3));
+}
+
 /* Copies sample from into place to (to <= from) in every column. */
 static inline void move_sample(struct series *s, size_t from, size_t to)
 {
@@ -1103,38 +1121,46 @@ static void drop_spikes(struct reader *r)
     size_t n = s->n, w = 1;
     if (n < 3)
         return;
-    double peak = 0.0;
-    for (size_t k = 0; s->i_a && k < n; k++)
-        peak = max_of(peak, fabs(s->i_a[k]));
+    double peak = s->i_a ? abs_max(s->i_a, n) : 0.0;
     double tol_a = max_of(0.1, 0.05 * peak);
     size_t seg = 1; /* the next segment start, by index as read */
+    size_t seg_at = seg < s->nseg ? s->seg_start[seg] : SIZE_MAX;
     int vcol = r->st->voltage_from_cells ? r->slot_col[SLOT_CELL0] + 1 : r->slot_col[SLOT_V] + 1;
+    const double *vv = s->v_v, *ia = s->i_a;
     for (size_t k = 1; k < n; k++) {
-        if (seg < s->nseg && s->seg_start[seg] == k) {
+        if (k == seg_at) {
             s->seg_start[seg++] = w; /* a segment's first sample stays, at its new index */
+            seg_at = seg < s->nseg ? s->seg_start[seg] : SIZE_MAX;
             move_sample(s, k, w++);
             continue;
         }
         /* neighbours: the last kept sample (w - 1, same segment: segment starts
          * are kept) and the next one read, unless a segment starts there */
-        int last_of_segment = k + 1 == n || (seg < s->nseg && s->seg_start[seg] == k + 1);
-        if (!last_of_segment) {
-            double vp = s->v_v[w - 1], v = s->v_v[k], vn = s->v_v[k + 1];
-            double lo = min_of(vp, vn), hi = max_of(vp, vn);
-            int spike =
-                v < lo * (1.0 - LOGREAD_SPIKE_FRACTION) || v > hi * (1.0 + LOGREAD_SPIKE_FRACTION);
-            if (spike && s->i_a) {
+        if (k + 1 != n && k + 1 != seg_at) {
+            double vp = vv[w - 1], v = vv[k], vn = vv[k + 1];
+            /* minsd and maxsd, no branch to mispredict on noise; fmin's and
+             * fmax's answer where a NaN is in (none is: the voltage checks) */
+            double lo = vp < vn ? vp : vn, hi = vp > vn ? vp : vn;
+            if (vp != vp || vn != vn) {
+                lo = min_of(vp, vn);
+                hi = max_of(vp, vn);
+            }
+            int spike = (v < lo * (1.0 - LOGREAD_SPIKE_FRACTION)) |
+                        (v > hi * (1.0 + LOGREAD_SPIKE_FRACTION));
+            if (spike && ia) {
                 /* a current that moves on either side explains the voltage (a load
                  * switched off right after the cut-off sample, say) */
-                double i = s->i_a[k];
-                spike = fabs(i - s->i_a[w - 1]) <= tol_a && fabs(i - s->i_a[k + 1]) <= tol_a;
+                double i = ia[k];
+                spike = fabs(i - ia[w - 1]) <= tol_a && fabs(i - ia[k + 1]) <= tol_a;
             }
             if (spike) {
                 count_event(&r->st->glitch_spike, s->line[k], vcol);
                 continue;
             }
         }
-        move_sample(s, k, w++);
+        if (w != k) /* nothing dropped yet: every sample is in its place */
+            move_sample(s, k, w);
+        w++;
     }
     r->st->kept -= n - w;
     s->n = w;
@@ -1147,17 +1173,15 @@ static void drop_spikes(struct reader *r)
 static int looks_discharge_negative(const struct series *s)
 {
     size_t neg = 0, loaded = 0;
-    double imax = 0.0;
-    for (size_t k = 0; k < s->n; k++)
-        if (fabs(s->i_a[k]) > imax)
-            imax = fabs(s->i_a[k]);
+    double imax = abs_max(s->i_a, s->n);
     if (imax <= 0.0)
         return 0;
-    for (size_t k = 0; k < s->n; k++) {
-        if (fabs(s->i_a[k]) > 0.1 * imax) {
-            loaded++;
-            neg += s->i_a[k] < 0.0;
-        }
+    double loaded_a = 0.1 * imax;
+    for (size_t k = 0; k < s->n; k++) { /* no branch: a load comes and goes */
+        double i = s->i_a[k];
+        int on = fabs(i) > loaded_a;
+        loaded += (size_t)on;
+        neg += (size_t)(on & (i < 0.0));
     }
     size_t w = s->n / 20 + 1;
     double v0 = 0.0, v1 = 0.0;
