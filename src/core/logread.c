@@ -58,6 +58,7 @@ struct reader {
     double temp_prev;
     int have_temp_prev;
     int not_rising; /* a kept time was not above the one before (order_times has work) */
+    double max_a;   /* |current| above this is a glitch */
 
     double val[NSLOTS];
     enum bad_kind bad;
@@ -742,10 +743,7 @@ static int is_glitch(struct reader *r)
     }
     if (r->slot_col[SLOT_I] >= 0) {
         double i = current_a(r);
-        double max_a = LOGREAD_MAX_CURRENT_A;
-        if (r->opts->rated_mah > 0.0)
-            max_a = fmin(max_a, LOGREAD_MAX_C_RATE * r->opts->rated_mah / 1000.0);
-        if (!(fabs(i) <= max_a)) {
+        if (!(fabs(i) <= r->max_a)) {
             count_event(&st->glitch_current, r->row_line, r->slot_col[SLOT_I] + 1);
             return 1;
         }
@@ -788,7 +786,7 @@ static void keep_sample(struct reader *r)
     if (is_glitch(r))
         return;
     r->not_rising |= s->n > 0 && !(rel > r->t_prev);
-    if (series_reserve_one(s) != 0) {
+    if (s->n >= s->cap && series_reserve_one(s) != 0) {
         fail(r, PB_ENOMEM, 0, 0, "out of memory%s", NULL);
         return;
     }
@@ -1345,8 +1343,10 @@ static void numline_init(struct numline *nl, const struct reader *r)
  * of at most 2^53, so one correctly rounded division); else 0. The block
  * must hold a byte after its end that is no digit, mark, delimiter or line
  * end (the scan stops there: a line cut by the block's end is not one). */
-static inline int numline_scan(const struct numline *nl, const unsigned char *u, size_t at,
-                               size_t *end, unsigned char *term, double *val)
+__attribute__((always_inline)) static inline int numline_scan(const struct numline *nl,
+                                                              const unsigned char *u, size_t at,
+                                                              size_t *end, unsigned char *term,
+                                                              double *val)
 {
     const unsigned char *p = u + at;
     if (*p == '#')
@@ -1406,7 +1406,8 @@ static inline int numline_scan(const struct numline *nl, const unsigned char *u,
 /* A numeric line's sample (numline_scan's val), as take_field, on_row and
  * end_record would take it field by field; the reader is at a record's
  * start. */
-static inline void take_numline(struct reader *r, const double *val, unsigned char term)
+__attribute__((always_inline)) static inline void take_numline(struct reader *r, const double *val,
+                                                               unsigned char term)
 {
     r->row_line = r->line;
     r->st->records++;
@@ -1485,12 +1486,20 @@ static void feed(struct reader *r, struct csv_parser *p, const char *buf, size_t
 }
 
 /* ---- reading ahead ----------------------------------------------------
- * With a core free, a second thread reads the next block and splits its
- * lines and parses the numbers of its plain lines (the mapped columns)
- * while this one runs the reader over the block before: the same splitting
- * and the same num_parse, so the reader gets the same fields and numbers
- * in the same order as feed() would make them. */
+ * With a core free, a second thread reads the blocks after the first into
+ * a ring of AHEAD_BLOCKS buffers and splits and parses the oldest block read
+ * (its numeric lines' numbers, its plain lines' fields and numbers) into the
+ * block's tables, while this thread runs the reader over the blocks in
+ * order. Both cores parse: a block that this thread finds read but not yet
+ * claimed it reads itself with feed(), and while the next block is still
+ * being parsed it parses a later one into its tables. The splitting and
+ * the numbers are the same either way (numline_scan, split_line and
+ * num_parse), so the reader takes the same fields and numbers in the same
+ * order as feed() would give them. */
 #define AHEAD_BYTES (256u << 10)
+#define AHEAD_BLOCKS 4
+
+enum ahead_state { BLK_FREE = 0, BLK_READ, BLK_PARSING, BLK_PARSED };
 
 struct ahead_line {
     size_t end;    /* its CR or LF (a CR LF pair's LF); len: cut by the block's end */
@@ -1502,6 +1511,7 @@ struct ahead_line {
 #define NUMLINE_VALS (SLOT_TEMP + 1) /* a numeric line's values, by slot */
 
 struct ahead_block {
+    enum ahead_state state; /* under the ring's mutex */
     char *buf;
     size_t len;
     int read_errno; /* a read error's errno, else 0 */
@@ -1523,8 +1533,11 @@ struct ahead {
     char decimal;
     const int *col_slot;
     int ncols;
-    struct ahead_block blk[2];
-    int full[2], stop;
+    struct ahead_block blk[AHEAD_BLOCKS];
+    size_t nread;    /* blocks read so far; block k is blk[k % AHEAD_BLOCKS] */
+    size_t ntaken;   /* blocks the reader has taken (the oldest one in the ring) */
+    int ended, stop; /* the last block (empty, or a read error) is read; leave */
+    int split;       /* who parses (logread_opts.ahead_split) */
     pthread_mutex_t mu;
     pthread_cond_t cv;
     pthread_t tid;
@@ -1622,31 +1635,42 @@ static inline enum num_status scanned_number(const struct field_scan *fs, const 
     return num_parse(f, len, decimal, v);
 }
 
-/* Reads and splits one block; returns 0 at the end of the file, a read
- * error or out of memory (the block says which), else 1. */
-static int ahead_fill(struct ahead *a, struct ahead_block *b)
+/* Reads the next block; returns 0 at the end of the file or a read error
+ * (the block says which), else 1. */
+static int ahead_read(struct ahead *a, struct ahead_block *b)
 {
     b->len = fread(b->buf, 1, AHEAD_BYTES, a->fp);
     b->buf[b->len] = '\0'; /* numline_scan's stop byte */
     b->read_errno = ferror(a->fp) ? (errno ? errno : EIO) : 0;
+    return b->len > 0 && !b->read_errno;
+}
+
+static inline int room(void **p, size_t *cap, size_t need, size_t size)
+{
+    return need <= *cap || grow(p, cap, need, size) == 0;
+}
+
+/* Splits a block read into its tables (b->oom when they cannot grow). */
+static void ahead_parse(const struct ahead *a, struct ahead_block *b)
+{
     b->nline = b->nfield = b->nnum = 0;
     b->oom = 0;
     const unsigned char *u = (const unsigned char *)b->buf;
     size_t at = 0;
-    double val[NUMLINE_VALS] = {0};
     while (at < b->len) {
         size_t starts[FAST_MAX_FIELDS + 1];
         struct field_scan fs[FAST_MAX_FIELDS];
         struct ahead_line l = {0};
-        if (a->numeric && numline_scan(&a->nl, u, at, &l.end, &l.term, val)) {
-            if (grow((void **)&b->line, &b->cap_line, b->nline + 1, sizeof *b->line) != 0 ||
-                grow((void **)&b->num, &b->cap_num, b->nnum + NUMLINE_VALS, sizeof *b->num) != 0) {
-                b->oom = 1;
-                return 0;
-            }
+        if (!room((void **)&b->line, &b->cap_line, b->nline + 1, sizeof *b->line) ||
+            !room((void **)&b->num, &b->cap_num, b->nnum + NUMLINE_VALS, sizeof *b->num)) {
+            b->oom = 1;
+            return;
+        }
+        /* the numbers go straight into place (a copy through a local would
+         * wait on each division's store) */
+        if (a->numeric && numline_scan(&a->nl, u, at, &l.end, &l.term, b->num + b->nnum)) {
             l.numeric = 1;
             l.field0 = b->nnum;
-            memcpy(b->num + b->nnum, val, sizeof val);
             b->nnum += NUMLINE_VALS;
             b->line[b->nline++] = l;
             at = l.end + 1;
@@ -1654,18 +1678,14 @@ static int ahead_fill(struct ahead *a, struct ahead_block *b)
         }
         l.end = split_parse_line(a->cls, u, at, b->len, (unsigned char)a->decimal, starts, fs,
                                  &l.nf, &l.plain, &l.term);
-        if (grow((void **)&b->line, &b->cap_line, b->nline + 1, sizeof *b->line) != 0) {
-            b->oom = 1;
-            return 0;
-        }
         l.plain = l.plain && l.end < b->len && l.end - at <= FAST_MAX_LINE;
         l.field0 = b->nfield;
         if (l.plain) {
             size_t need = b->nfield + (size_t)l.nf + 1;
-            if (grow((void **)&b->start, &b->cap_start, need, sizeof *b->start) != 0 ||
-                grow((void **)&b->pre, &b->cap_pre, need, sizeof *b->pre) != 0) {
+            if (!room((void **)&b->start, &b->cap_start, need, sizeof *b->start) ||
+                !room((void **)&b->pre, &b->cap_pre, need, sizeof *b->pre)) {
                 b->oom = 1;
-                return 0;
+                return;
             }
             for (int k = 0; k <= l.nf; k++)
                 b->start[b->nfield + (size_t)k] = starts[k];
@@ -1687,28 +1707,59 @@ static int ahead_fill(struct ahead *a, struct ahead_block *b)
             break;
         at = l.end + 1;
     }
-    return b->len > 0 && !b->read_errno;
 }
 
+/* The oldest block read and not yet claimed, from block k on, or NULL;
+ * under the mutex. */
+static struct ahead_block *unclaimed(struct ahead *a, size_t k)
+{
+    for (; k < a->nread; k++)
+        if (a->blk[k % AHEAD_BLOCKS].state == BLK_READ)
+            return &a->blk[k % AHEAD_BLOCKS];
+    return NULL;
+}
+
+/* Parses a claimed block and hands it back; called without the mutex. */
+static void parse_claimed(struct ahead *a, struct ahead_block *b)
+{
+    ahead_parse(a, b);
+    pthread_mutex_lock(&a->mu);
+    b->state = BLK_PARSED;
+    pthread_cond_broadcast(&a->cv);
+    pthread_mutex_unlock(&a->mu);
+}
+
+/* The second thread: reads while the ring has room, else parses the oldest
+ * block read. */
 static void *ahead_run(void *va)
 {
     struct ahead *a = va;
-    for (int i = 0;; i ^= 1) {
-        pthread_mutex_lock(&a->mu);
-        while (a->full[i] && !a->stop)
-            pthread_cond_wait(&a->cv, &a->mu);
-        int stop = a->stop;
-        pthread_mutex_unlock(&a->mu);
-        if (stop)
+    pthread_mutex_lock(&a->mu);
+    while (!a->stop) {
+        struct ahead_block *b = &a->blk[a->nread % AHEAD_BLOCKS];
+        if (!a->ended && b->state == BLK_FREE && a->nread - a->ntaken < AHEAD_BLOCKS) {
+            pthread_mutex_unlock(&a->mu);
+            int more = ahead_read(a, b);
+            pthread_mutex_lock(&a->mu);
+            b->state = BLK_READ;
+            a->nread++;
+            a->ended = !more;
+            pthread_cond_broadcast(&a->cv);
+            continue;
+        }
+        b = a->split == LOGREAD_SPLIT_READER ? NULL : unclaimed(a, a->ntaken);
+        if (b) {
+            b->state = BLK_PARSING;
+            pthread_mutex_unlock(&a->mu);
+            parse_claimed(a, b);
+            pthread_mutex_lock(&a->mu);
+            continue;
+        }
+        if (a->ended)
             break;
-        int more = ahead_fill(a, &a->blk[i]);
-        pthread_mutex_lock(&a->mu);
-        a->full[i] = 1;
-        pthread_cond_broadcast(&a->cv);
-        pthread_mutex_unlock(&a->mu);
-        if (!more)
-            break;
+        pthread_cond_wait(&a->cv, &a->mu);
     }
+    pthread_mutex_unlock(&a->mu);
     return NULL;
 }
 
@@ -1727,7 +1778,7 @@ static void feed_ahead(struct reader *r, struct csv_parser *p, const struct ahea
             feed_csv(r, p, b->buf + at, b->len - at);
             return;
         }
-        if (!(l->plain && r->mapped && at_record_start(r, p))) {
+        if (!(l->plain && !l->numeric && r->mapped && at_record_start(r, p))) {
             feed_csv(r, p, b->buf + at, l->end + 1 - at);
             at = l->end + 1;
             continue;
@@ -1746,7 +1797,7 @@ static void feed_ahead(struct reader *r, struct csv_parser *p, const struct ahea
 
 static void ahead_release(struct ahead *a)
 {
-    for (int i = 0; i < 2; i++) {
+    for (int i = 0; i < AHEAD_BLOCKS; i++) {
         free(a->blk[i].buf);
         free(a->blk[i].line);
         free(a->blk[i].start);
@@ -1755,20 +1806,59 @@ static void ahead_release(struct ahead *a)
     }
 }
 
+/* The next block in order for the reader, read (and parsed, or claimed for
+ * this thread to read with feed(): *own); NULL when every block is taken.
+ * While it waits, this thread parses a later block. */
+static struct ahead_block *next_block(struct ahead *a, int *own)
+{
+    pthread_mutex_lock(&a->mu);
+    struct ahead_block *b = &a->blk[a->ntaken % AHEAD_BLOCKS];
+    for (;;) {
+        if (a->ntaken < a->nread && b->state == BLK_PARSED) {
+            *own = 0;
+            break;
+        }
+        if (a->ntaken < a->nread && b->state == BLK_READ && a->split != LOGREAD_SPLIT_THREAD) {
+            b->state = BLK_PARSING;
+            *own = 1;
+            break;
+        }
+        if (a->ntaken == a->nread && a->ended) {
+            b = NULL;
+            break;
+        }
+        struct ahead_block *later =
+            a->split == LOGREAD_SPLIT_BOTH ? unclaimed(a, a->ntaken + 1) : NULL;
+        if (later) {
+            later->state = BLK_PARSING;
+            pthread_mutex_unlock(&a->mu);
+            parse_claimed(a, later);
+            pthread_mutex_lock(&a->mu);
+            continue;
+        }
+        pthread_cond_wait(&a->cv, &a->mu);
+    }
+    pthread_mutex_unlock(&a->mu);
+    return b;
+}
+
 /* Reads the rest of fp through a second thread; returns 0, or -1 when
  * the thread cannot start (nothing read yet: the caller reads on). The
  * block's last byte goes in *last. */
 static int read_ahead(struct reader *r, struct csv_parser *p, FILE *fp, char *last)
 {
-    struct ahead a = {
-        .fp = fp, .decimal = r->st->decimal, .col_slot = r->col_slot, .ncols = r->ncols};
+    struct ahead a = {.fp = fp,
+                      .decimal = r->st->decimal,
+                      .col_slot = r->col_slot,
+                      .ncols = r->ncols,
+                      .split = r->opts->ahead_split};
     fast_classes(a.cls, r->st->delimiter);
     a.numeric = numline_ok(r);
     numline_init(&a.nl, r);
     /* the tables sized here for lines of 16 bytes or more, so that the
      * thread, which grows them only for shorter lines, keeps no heap of
      * its own */
-    for (int i = 0; i < 2; i++) {
+    for (int i = 0; i < AHEAD_BLOCKS; i++) {
         struct ahead_block *b = &a.blk[i];
         b->buf = malloc(AHEAD_BYTES + 1);
         if (!b->buf || grow((void **)&b->line, &b->cap_line, AHEAD_BYTES / 16, sizeof *b->line) ||
@@ -1794,20 +1884,22 @@ static int read_ahead(struct reader *r, struct csv_parser *p, FILE *fp, char *la
         ahead_release(&a);
         return -1;
     }
-    for (int i = 0; !r->failed; i ^= 1) {
-        pthread_mutex_lock(&a.mu);
-        while (!a.full[i])
-            pthread_cond_wait(&a.cv, &a.mu);
-        pthread_mutex_unlock(&a.mu);
-        const struct ahead_block *b = &a.blk[i];
-        if (b->oom) {
+    while (!r->failed) {
+        int own = 0;
+        struct ahead_block *b = next_block(&a, &own);
+        if (!b)
+            break;
+        if (!own && b->oom) {
             fail(r, PB_ENOMEM, 0, 0, "out of memory%s", NULL);
             break;
         }
         if (b->len > 0) {
             if (r->opts->on_block)
                 r->opts->on_block(r->opts->block_ctx, b->buf, b->len);
-            feed_ahead(r, p, b);
+            if (own)
+                feed(r, p, b->buf, b->len);
+            else
+                feed_ahead(r, p, b);
             *last = b->buf[b->len - 1];
         }
         if (b->read_errno) {
@@ -1818,7 +1910,8 @@ static int read_ahead(struct reader *r, struct csv_parser *p, FILE *fp, char *la
         if (b->len == 0)
             break;
         pthread_mutex_lock(&a.mu);
-        a.full[i] = 0;
+        b->state = BLK_FREE;
+        a.ntaken++;
         pthread_cond_broadcast(&a.cv);
         pthread_mutex_unlock(&a.mu);
     }
@@ -1953,6 +2046,9 @@ struct series *logread_file(FILE *fp, const char *name, const struct logread_opt
     r.err = err;
     r.line = 1;
     r.record_line = 1;
+    r.max_a = LOGREAD_MAX_CURRENT_A;
+    if (opts->rated_mah > 0.0)
+        r.max_a = fmin(r.max_a, LOGREAD_MAX_C_RATE * opts->rated_mah / 1000.0);
     for (int s = 0; s < NSLOTS; s++)
         r.slot_col[s] = -1;
 
