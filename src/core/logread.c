@@ -59,6 +59,8 @@ struct reader {
     int have_temp_prev;
     int not_rising; /* a kept time was not above the one before (order_times has work) */
     double max_a;   /* |current| above this is a glitch */
+    double peak_a;  /* the largest |current| of the samples kept while reading */
+    size_t n_read;  /* samples when the reading was done (peak_a holds while s->n is this) */
 
     double val[NSLOTS];
     enum bad_kind bad;
@@ -75,6 +77,18 @@ struct reader {
 
     struct series *s;
 };
+
+/* fmin and fmax as the C library defines them (a NaN loses to a number),
+ * inline: through the PLT they cost more than the rest of a pass's step. */
+static inline double min_of(double a, double b)
+{
+    return a < b ? a : b == b ? b : a;
+}
+
+static inline double max_of(double a, double b)
+{
+    return a > b ? a : b == b ? b : a;
+}
 
 static void count_event(struct logread_event *ev, size_t line, int column)
 {
@@ -751,7 +765,7 @@ static int is_glitch(struct reader *r)
     return 0;
 }
 
-static void keep_sample(struct reader *r)
+__attribute__((always_inline)) static inline void keep_sample(struct reader *r)
 {
     struct logread_stats *st = r->st;
     struct series *s = r->s;
@@ -810,8 +824,11 @@ static void keep_sample(struct reader *r)
         v_sum += s->cell_v[c][k];
     }
     s->v_v[k] = st->voltage_from_cells ? v_sum : r->val[SLOT_V];
-    if (s->i_a)
-        s->i_a[k] = current_a(r);
+    if (s->i_a) {
+        double i = current_a(r);
+        s->i_a[k] = i;
+        r->peak_a = max_of(r->peak_a, fabs(i));
+    }
     if (s->temp_c) {
         double tc = r->val[SLOT_TEMP];
         if (!isfinite(tc)) {
@@ -897,18 +914,6 @@ static void end_record(struct reader *r)
 }
 
 /* ---- time order and spikes -------------------------------------------- */
-
-/* fmin and fmax as the C library defines them (a NaN loses to a number),
- * inline: through the PLT they cost more than the rest of a pass's step. */
-static inline double min_of(double a, double b)
-{
-    return a < b ? a : b == b ? b : a;
-}
-
-static inline double max_of(double a, double b)
-{
-    return a > b ? a : b == b ? b : a;
-}
 
 /* The largest |x[k]| of x[0..n) (NaNs left out, as fmax leaves them), 0
  * when none: four running maxima, so the pass is not one long chain of
@@ -1119,7 +1124,7 @@ static void drop_spikes(struct reader *r)
     size_t n = s->n, w = 1;
     if (n < 3)
         return;
-    double peak = s->i_a ? abs_max(s->i_a, n) : 0.0;
+    double peak = !s->i_a ? 0.0 : n == r->n_read ? r->peak_a : abs_max(s->i_a, n);
     double tol_a = max_of(0.1, 0.05 * peak);
     size_t seg = 1; /* the next segment start, by index as read */
     size_t seg_at = seg < s->nseg ? s->seg_start[seg] : SIZE_MAX;
@@ -1167,11 +1172,11 @@ static void drop_spikes(struct reader *r)
 /* ---- sign ------------------------------------------------------------- */
 
 /* Discharge-negative logs: most loaded samples negative while the voltage
- * falls from start to end. Charging logs (voltage rising) are left alone. */
-static int looks_discharge_negative(const struct series *s)
+ * falls from start to end. Charging logs (voltage rising) are left alone.
+ * imax: the largest |current| of the series. */
+static int looks_discharge_negative(const struct series *s, double imax)
 {
     size_t neg = 0, loaded = 0;
-    double imax = abs_max(s->i_a, s->n);
     if (imax <= 0.0)
         return 0;
     double loaded_a = 0.1 * imax;
@@ -1198,7 +1203,8 @@ static void resolve_sign(struct reader *r)
         return;
     if (r->opts->sign == SIGN_DISCHARGE_NEGATIVE)
         flip = 1;
-    else if (r->opts->sign == SIGN_AUTO && looks_discharge_negative(s)) {
+    else if (r->opts->sign == SIGN_AUTO &&
+             looks_discharge_negative(s, s->n == r->n_read ? r->peak_a : abs_max(s->i_a, s->n))) {
         flip = 1;
         r->st->sign_flipped = 1;
     }
@@ -2151,6 +2157,7 @@ struct series *logread_file(FILE *fp, const char *name, const struct logread_opt
                      name);
         goto cleanup;
     }
+    r.n_read = r.s->n;
     settle_cells(&r);
     if (r.failed)
         goto cleanup;
