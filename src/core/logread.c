@@ -1429,6 +1429,169 @@ __attribute__((always_inline)) static inline void take_numline(struct reader *r,
     r->record_line = r->line;
 }
 
+/* A run of numeric lines taken with the reader's state in locals: what
+ * take_numline and keep_sample do for each, once the log has a sample (the
+ * first one decides the time's origin and scale) and while nothing but
+ * numeric lines come (libcsv is not fed meanwhile, so the reader stays at a
+ * record's start). numrun_end puts the state back. */
+struct numrun {
+    struct reader *r;
+    struct logread_stats *st;
+    double *t_s, *v_v, *i_a, *temp_c;
+    uint32_t *line_of;
+    size_t n, cap, line, row, records, kept;
+    int after_cr, not_rising, have_temp_prev, raw;
+    double t_first, t_prev, t_scale, peak_a, temp_prev;
+    double v_scale, v_offset, i_scale, i_offset, tc_scale, tc_offset;
+    double v_lo, v_hi, max_a, adc_offset, adc_a;
+    int tcol, vcol, icol, tempcol;
+};
+
+static int numrun_ok(const struct reader *r)
+{
+    return numline_ok(r) && r->s->n > 0 && !r->st->voltage_from_cells;
+}
+
+static void numrun_begin(struct numrun *q, struct reader *r)
+{
+    const struct series *s = r->s;
+    int given = r->opts->cells;
+    *q = (struct numrun){
+        .r = r,
+        .st = r->st,
+        .t_s = s->t_s,
+        .v_v = s->v_v,
+        .i_a = s->i_a,
+        .temp_c = s->temp_c,
+        .line_of = s->line,
+        .n = s->n,
+        .cap = s->cap,
+        .line = r->line,
+        .row = r->row_line,
+        .records = r->st->records,
+        .kept = r->st->kept,
+        .after_cr = r->after_cr,
+        .not_rising = r->not_rising,
+        .have_temp_prev = r->have_temp_prev,
+        .raw = r->st->current_is_raw,
+        .t_first = r->t_first,
+        .t_prev = r->t_prev,
+        .t_scale = r->t_scale,
+        .peak_a = r->peak_a,
+        .temp_prev = r->temp_prev,
+        .v_scale = r->spec[SLOT_V].scale,
+        .v_offset = r->spec[SLOT_V].offset,
+        .i_scale = r->spec[SLOT_I].scale,
+        .i_offset = r->spec[SLOT_I].offset,
+        .tc_scale = r->spec[SLOT_TEMP].scale,
+        .tc_offset = r->spec[SLOT_TEMP].offset,
+        /* as is_glitch works them out */
+        .v_lo = LOGREAD_CELL_MIN_V * (given > 0       ? given
+                                      : r->ncells > 0 ? r->ncells
+                                                      : 1),
+        .v_hi = LOGREAD_CELL_MAX_V * (given > 0 ? given : PB_MAX_CELLS),
+        .max_a = r->max_a,
+        .adc_offset = r->opts->adc_offset_counts,
+        .adc_a = r->opts->adc_a_per_count,
+        .tcol = r->slot_col[SLOT_T] + 1,
+        .vcol = r->slot_col[SLOT_V] + 1,
+        .icol = r->slot_col[SLOT_I] + 1,
+        .tempcol = r->slot_col[SLOT_TEMP] + 1,
+    };
+}
+
+static void numrun_end(struct numrun *q)
+{
+    struct reader *r = q->r;
+    r->s->n = q->n;
+    r->line = q->line;
+    r->record_line = q->line;
+    r->row_line = q->row;
+    r->after_cr = q->after_cr;
+    r->st->records = q->records;
+    r->st->kept = q->kept;
+    r->not_rising = q->not_rising;
+    r->t_prev = q->t_prev;
+    r->peak_a = q->peak_a;
+    r->have_temp_prev = q->have_temp_prev;
+    r->temp_prev = q->temp_prev;
+    /* r->val is left as it was: a record's values are all set by its own
+     * fields before they are read */
+}
+
+/* One numeric line of a run (take_numline and keep_sample for a log with a
+ * sample); -1 when the series cannot grow (the reader has failed; the run
+ * must still be ended). */
+__attribute__((always_inline)) static inline int numrun_line(struct numrun *q, const double *val,
+                                                             unsigned char term)
+{
+    int ok = 0;
+    size_t row = q->line;
+    q->row = row;
+    q->records++;
+    double t = val[SLOT_T] * q->t_scale;
+    double rel = t - q->t_first;
+    if (rel == q->t_prev) {
+        count_event(&q->st->duplicate_time, row, q->tcol);
+        goto next;
+    }
+    double v = val[SLOT_V] * q->v_scale + q->v_offset;
+    if (!(v >= q->v_lo && v <= q->v_hi)) {
+        count_event(&q->st->glitch_voltage, row, q->vcol);
+        goto next;
+    }
+    double i = 0.0;
+    if (q->i_a) {
+        i = val[SLOT_I] * q->i_scale + q->i_offset;
+        if (q->raw)
+            i = (i - q->adc_offset) * q->adc_a;
+        if (!(fabs(i) <= q->max_a)) {
+            count_event(&q->st->glitch_current, row, q->icol);
+            goto next;
+        }
+    }
+    q->not_rising |= !(rel > q->t_prev);
+    if (q->n >= q->cap) {
+        struct reader *r = q->r;
+        numrun_end(q);
+        if (series_reserve_one(r->s) != 0) {
+            fail(r, PB_ENOMEM, 0, 0, "out of memory%s", NULL);
+            ok = -1;
+            goto next;
+        }
+        numrun_begin(q, r); /* the columns have moved */
+    }
+    size_t k = q->n;
+    q->t_s[k] = rel;
+    q->line_of[k] = row < UINT32_MAX ? (uint32_t)row : UINT32_MAX;
+    q->v_v[k] = v;
+    if (q->i_a) {
+        q->i_a[k] = i;
+        q->peak_a = max_of(q->peak_a, fabs(i));
+    }
+    if (q->temp_c) {
+        double tc = val[SLOT_TEMP] * q->tc_scale + q->tc_offset;
+        if (!isfinite(tc)) {
+            count_event(&q->st->temp_repaired, row, q->tempcol);
+            tc = q->have_temp_prev ? q->temp_prev : NAN;
+        }
+        if (isfinite(tc)) {
+            q->temp_prev = tc;
+            q->have_temp_prev = 1;
+        }
+        q->temp_c[k] = tc;
+    }
+    q->t_prev = rel;
+    q->n++;
+    q->kept++;
+next:
+    /* as on_row counts a CR, an LF or a CR LF pair */
+    if (term != '\n' || !q->after_cr)
+        q->line++;
+    q->after_cr = term == '\r';
+    return ok;
+}
+
 /* Plain lines at a record boundary are split here and handed to the same
  * field and row code; a line with a quote or a space, a long line, the
  * header (columns not yet mapped) and a line cut by the block's end go
@@ -1436,8 +1599,8 @@ __attribute__((always_inline)) static inline void take_numline(struct reader *r,
  * resumes. The output is the same either way (tests/unit/test_logread.c
  * compares both on every file in tests/data and samples/). Lines are
  * counted in on_row, which CSV_REPALL_NL calls for every unquoted CR and
- * LF. Numeric lines take their own path (numline_scan); buf[len] must be
- * a stop byte for it ('\0'). */
+ * LF. Numeric lines take their own path (numline_scan, runs of them
+ * numrun_line); buf[len] must be a stop byte for it ('\0'). */
 static void feed(struct reader *r, struct csv_parser *p, const char *buf, size_t len)
 {
     if (r->opts->no_fast_path) {
@@ -1453,13 +1616,28 @@ static void feed(struct reader *r, struct csv_parser *p, const char *buf, size_t
     if (num)
         numline_init(&nl, r);
     double val[SLOT_TEMP + 1];
+    struct numrun q;
+    int run = 0;
     while (at < len) {
         size_t e;
         unsigned char term;
-        if (num && at_record_start(r, p) && numline_scan(&nl, u, at, &e, &term, val)) {
-            take_numline(r, val, term);
+        if (num && (run || at_record_start(r, p)) && numline_scan(&nl, u, at, &e, &term, val)) {
+            if (!run && numrun_ok(r)) {
+                numrun_begin(&q, r);
+                run = 1;
+            }
+            if (!run)
+                take_numline(r, val, term);
+            else if (numrun_line(&q, val, term) != 0) {
+                numrun_end(&q); /* out of memory: the reader has failed */
+                return;
+            }
             at = e + 1;
             continue;
+        }
+        if (run) {
+            numrun_end(&q);
+            run = 0;
         }
         if (!num && numline_ok(r)) { /* the layout and the time's form are known now */
             numline_init(&nl, r);
@@ -1489,6 +1667,8 @@ static void feed(struct reader *r, struct csv_parser *p, const char *buf, size_t
         on_row(c == FAST_CR ? '\r' : '\n', r);
         at = e + 1;
     }
+    if (run)
+        numrun_end(&q);
 }
 
 /* ---- reading ahead ----------------------------------------------------
@@ -1773,12 +1953,27 @@ static void *ahead_run(void *va)
 static void feed_ahead(struct reader *r, struct csv_parser *p, const struct ahead_block *b)
 {
     size_t at = 0;
+    struct numrun q;
+    int run = 0;
     for (size_t li = 0; li < b->nline; li++) {
         const struct ahead_line *l = &b->line[li];
-        if (l->numeric && at_record_start(r, p)) {
-            take_numline(r, b->num + l->field0, l->term);
+        if (l->numeric && (run || at_record_start(r, p))) {
+            if (!run && numrun_ok(r)) {
+                numrun_begin(&q, r);
+                run = 1;
+            }
+            if (!run)
+                take_numline(r, b->num + l->field0, l->term);
+            else if (numrun_line(&q, b->num + l->field0, l->term) != 0) {
+                numrun_end(&q); /* out of memory: the reader has failed */
+                return;
+            }
             at = l->end + 1;
             continue;
+        }
+        if (run) {
+            numrun_end(&q);
+            run = 0;
         }
         if (l->end == b->len) {
             feed_csv(r, p, b->buf + at, b->len - at);
@@ -1799,6 +1994,8 @@ static void feed_ahead(struct reader *r, struct csv_parser *p, const struct ahea
         on_row(l->term == FAST_CR ? '\r' : '\n', r);
         at = l->end + 1;
     }
+    if (run)
+        numrun_end(&q);
 }
 
 static void ahead_release(struct ahead *a)

@@ -588,7 +588,10 @@ static void test_fast_path_same_across_blocks(void **state)
         "%d.5,16.1,2\r\r\n", "%d.5,0000000000000000016.10,2\n", "%d.5,16.100000000000000000,2\n",
         "%d.5,16.1;2\n", "%d,16.1,2\n", "%d.5,16.1,2\n\n", "%d.5,16.1,-\n", "%d.5,16.1,.\n",
         "%d.5,16.1,2.\r", "%d.5,16.1,+2\n", "%d.5,1e1,2\n", "%d.5,16.1,2 \n", "%d.5,16.1,\"2\"\n",
-        "%d.5,16.1,2\t\n", "%d.5,16.1,2\x01\n"};
+        "%d.5,16.1,2\t\n", "%d.5,16.1,2\x01\n",
+        /* numeric lines the keep logic drops: glitches, a time seen before */
+        "%d.5,999.9,2\n", "%d.5,0.1,2\n", "%d.5,16.1,200000\n", "%d.5,16.1,-200000\n",
+        "%1$d.75,16.1,2\n%1$d.75,16.2,2\n"};
     size_t cap = 3u << 20, len = 0;
     char *text = malloc(cap);
     assert_non_null(text);
@@ -596,7 +599,7 @@ static void test_fast_path_same_across_blocks(void **state)
     unsigned seed = 14;
     for (int k = 1; len + 64 < cap; k++) {
         seed = seed * 1103515245u + 12345u;
-        unsigned pick = (seed >> 16) % 80;
+        unsigned pick = (seed >> 16) % 90;
         if (pick < (sizeof odd / sizeof *odd))
             len += (size_t)snprintf(text + len, cap - len, odd[pick], k);
         else
@@ -617,6 +620,9 @@ static void test_fast_path_same_across_blocks(void **state)
             (size_t)snprintf(text + plen, cap - plen, "%d.%03d,%.3f,%.3f,%d\r\n", k / 10,
                              k % 10 * 100, 16.8 - k * 1e-6, 9.0 + (k * 7 % 13) * 0.25, 20 + k % 5);
     check_paths_agree(text, plen, "numeric 3 MiB log", &o);
+    /* with a pack's cells and a small rating: currents over 200 C dropped */
+    struct logread_opts rated = {.cells = 4, .rated_mah = 55};
+    check_paths_agree(text, plen, "numeric 3 MiB log, rated", &rated);
     check_paths_agree_from(text, plen, "numeric 3 MiB log through a pipe", &o, SRC_PIPE);
     /* the same cut at every length near a block boundary, of the first
      * block and of the read-ahead blocks after it */
