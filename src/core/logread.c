@@ -61,6 +61,9 @@ struct reader {
     double max_a;   /* |current| above this is a glitch */
     double peak_a;  /* the largest |current| of the samples kept while reading */
     size_t n_read;  /* samples when the reading was done (peak_a holds while s->n is this) */
+    int counted;    /* the sign check's counts, made by spikes_and_counts, still hold */
+    double counted_imax;
+    size_t counted_loaded[2]; /* loaded samples, negative ones */
 
     double val[NSLOTS];
     enum bad_kind bad;
@@ -1169,22 +1172,138 @@ static void drop_spikes(struct reader *r)
     s->n = w;
 }
 
+/* Counts samples k in [from, to) with |current| above loaded_a, and of
+ * those the negative ones. */
+static void count_loaded(const double *i_a, size_t from, size_t to, double loaded_a, size_t *loaded,
+                         size_t *neg)
+{
+    size_t nl = 0, nn = 0;
+    for (size_t k = from; k < to; k++) { /* no branch: a load comes and goes */
+        double i = i_a[k];
+        int on = fabs(i) > loaded_a;
+        nl += (size_t)on;
+        nn += (size_t)(on & (i < 0.0));
+    }
+    *loaded = nl;
+    *neg = nn;
+}
+
+/* ---- spikes and the sign's counts on two cores ------------------------
+ * While nothing is dropped, drop_spikes tests each sample against the
+ * samples read beside it; so when that test fires for no sample (most
+ * logs), it would drop nothing and leave the series as it is, and the sign
+ * check's counts of loaded samples can be made in the same pass. The pass
+ * is split between two threads on a long log; where a spike is found,
+ * drop_spikes runs as before and the sign check counts afresh. */
+#define POST_SPLIT_MIN 65536 /* samples, below which one thread does the pass */
+
+struct post_part {
+    const struct series *s;
+    size_t from, to;
+    double tol_a, loaded_a;
+    int spike;
+    size_t loaded[2];
+};
+
+static void post_scan(struct post_part *pp)
+{
+    const struct series *s = pp->s;
+    const double *vv = s->v_v, *ia = s->i_a;
+    size_t n = s->n;
+    /* drop_spikes tests 1..n-2, not a segment's first sample nor its last */
+    size_t k = pp->from > 1 ? pp->from : 1, end = pp->to < n - 1 ? pp->to : n - 1;
+    size_t seg = 1;
+    while (seg < s->nseg && s->seg_start[seg] < k)
+        seg++;
+    size_t seg_at = seg < s->nseg ? s->seg_start[seg] : SIZE_MAX;
+    int spikes = 0;
+    for (; k < end; k++) {
+        if (k == seg_at) {
+            seg++;
+            seg_at = seg < s->nseg ? s->seg_start[seg] : SIZE_MAX;
+            continue;
+        }
+        if (k + 1 == seg_at)
+            continue;
+        /* drop_spikes' test with w - 1 == k - 1 */
+        double vp = vv[k - 1], v = vv[k], vn = vv[k + 1];
+        double lo = vp < vn ? vp : vn, hi = vp > vn ? vp : vn;
+        if (vp != vp || vn != vn) {
+            lo = min_of(vp, vn);
+            hi = max_of(vp, vn);
+        }
+        int spike =
+            (v < lo * (1.0 - LOGREAD_SPIKE_FRACTION)) | (v > hi * (1.0 + LOGREAD_SPIKE_FRACTION));
+        if (spike && ia) {
+            double i = ia[k];
+            spike = fabs(i - ia[k - 1]) <= pp->tol_a && fabs(i - ia[k + 1]) <= pp->tol_a;
+        }
+        spikes |= spike;
+    }
+    pp->spike = spikes;
+    if (ia)
+        count_loaded(ia, pp->from, pp->to, pp->loaded_a, &pp->loaded[0], &pp->loaded[1]);
+}
+
+static void *post_run(void *va)
+{
+    post_scan(va);
+    return NULL;
+}
+
+/* drop_spikes, and the sign check's counts made where they will hold. */
+static void spikes_and_counts(struct reader *r)
+{
+    struct series *s = r->s;
+    size_t n = s->n;
+    r->counted = 0;
+    if (n < 3)
+        return; /* drop_spikes has nothing to test */
+    /* drop_spikes' peak, and the sign check's while nothing is dropped */
+    double peak = !s->i_a ? 0.0 : n == r->n_read ? r->peak_a : abs_max(s->i_a, n);
+    struct post_part part[2];
+    for (int h = 0; h < 2; h++)
+        part[h] = (struct post_part){.s = s,
+                                     .from = h ? n / 2 : 0,
+                                     .to = h ? n : n / 2,
+                                     .tol_a = max_of(0.1, 0.05 * peak),
+                                     .loaded_a = 0.1 * peak};
+    pthread_t tid;
+    if (n >= POST_SPLIT_MIN && sysconf(_SC_NPROCESSORS_ONLN) > 1 &&
+        pthread_create(&tid, NULL, post_run, &part[1]) == 0) {
+        post_scan(&part[0]);
+        pthread_join(tid, NULL);
+    } else {
+        post_scan(&part[0]);
+        post_scan(&part[1]);
+    }
+    if (part[0].spike || part[1].spike) {
+        drop_spikes(r);
+        return;
+    }
+    r->counted = s->i_a != NULL;
+    r->counted_imax = peak;
+    r->counted_loaded[0] = part[0].loaded[0] + part[1].loaded[0];
+    r->counted_loaded[1] = part[0].loaded[1] + part[1].loaded[1];
+}
+
 /* ---- sign ------------------------------------------------------------- */
 
 /* Discharge-negative logs: most loaded samples negative while the voltage
  * falls from start to end. Charging logs (voltage rising) are left alone.
  * imax: the largest |current| of the series. */
-static int looks_discharge_negative(const struct series *s, double imax)
+/* counted: count_loaded's answer for the whole series with imax's
+ * threshold, or NULL (counted here). */
+static int looks_discharge_negative(const struct series *s, double imax, const size_t *counted)
 {
     size_t neg = 0, loaded = 0;
     if (imax <= 0.0)
         return 0;
-    double loaded_a = 0.1 * imax;
-    for (size_t k = 0; k < s->n; k++) { /* no branch: a load comes and goes */
-        double i = s->i_a[k];
-        int on = fabs(i) > loaded_a;
-        loaded += (size_t)on;
-        neg += (size_t)(on & (i < 0.0));
+    if (counted) {
+        loaded = counted[0];
+        neg = counted[1];
+    } else {
+        count_loaded(s->i_a, 0, s->n, 0.1 * imax, &loaded, &neg);
     }
     size_t w = s->n / 20 + 1;
     double v0 = 0.0, v1 = 0.0;
@@ -1204,7 +1323,11 @@ static void resolve_sign(struct reader *r)
     if (r->opts->sign == SIGN_DISCHARGE_NEGATIVE)
         flip = 1;
     else if (r->opts->sign == SIGN_AUTO &&
-             looks_discharge_negative(s, s->n == r->n_read ? r->peak_a : abs_max(s->i_a, s->n))) {
+             looks_discharge_negative(s,
+                                      r->counted          ? r->counted_imax
+                                      : s->n == r->n_read ? r->peak_a
+                                                          : abs_max(s->i_a, s->n),
+                                      r->counted ? r->counted_loaded : NULL)) {
         flip = 1;
         r->st->sign_flipped = 1;
     }
@@ -2374,7 +2497,7 @@ struct series *logread_file(FILE *fp, const char *name, const struct logread_opt
                          name, first_back_line(stats), stats->time_column, stats->time_back_steps);
             goto cleanup;
         }
-        drop_spikes(&r);
+        spikes_and_counts(&r);
     }
     size_t need = opts && opts->min_samples ? opts->min_samples : 2;
     if (r.s->n < need || r.s->n == 0) {

@@ -289,6 +289,49 @@ static void test_voltage_spike_is_not_a_crossing(void **state)
     series_free(s);
 }
 
+/* A long log (its spike pass split between two threads at the middle
+ * sample): a spike on either side of the split, or on it, is found, and a
+ * log without one keeps every sample and is judged discharge-negative from
+ * counts made in that pass. The expected values are the logs' own: one
+ * 3 V sample among 16.4-16.8 V ones (falling) at a steady current. */
+static void test_spikes_on_a_long_log(void **state)
+{
+    (void)state;
+    const int rows = 200000;
+    size_t cap = (size_t)rows * 32 + 64;
+    char *text = malloc(cap);
+    assert_non_null(text);
+    const int spikes[] = {0, rows / 2 - 1, rows / 2, rows / 2 + 1, rows - 3, 77777};
+    for (size_t t = 0; t < sizeof spikes / sizeof *spikes; t++) {
+        size_t len = (size_t)snprintf(text, cap, "time_s,voltage_v,current_a\n");
+        for (int k = 0; k < rows; k++) /* spike 0: none, a discharge logged negative */
+            len += (size_t)snprintf(text + len, cap - len, "%d.5,%.6f,%s10\n", k,
+                                    spikes[t] && k == spikes[t] ? 3.0 : 16.8 - k * 2e-6,
+                                    spikes[t] ? "" : "-");
+        struct logread_opts o = {0};
+        struct logread_stats st;
+        struct pb_error err = {0};
+        FILE *fp = fmemopen(text, len, "r");
+        assert_non_null(fp);
+        struct series *s = logread_file(fp, "long.csv", &o, &st, &err);
+        fclose(fp);
+        assert_non_null(s);
+        if (spikes[t]) {
+            assert_int_equal(s->n, rows - 1);
+            assert_int_equal(st.glitch_spike.count, 1);
+            assert_int_equal(st.glitch_spike.first_line, spikes[t] + 2); /* header, 0-based */
+            assert_int_equal(st.sign_flipped, 0);
+        } else {
+            assert_int_equal(s->n, rows);
+            assert_int_equal(st.glitch_spike.count, 0);
+            assert_int_equal(st.sign_flipped, 1);
+            check_close(s->i_a[rows / 2], 10.0, 0.0, "flipped to discharge-positive");
+        }
+        series_free(s);
+    }
+    free(text);
+}
+
 static void test_headerless_needs_columns(void **state)
 {
     (void)state;
@@ -757,6 +800,7 @@ int main(void)
         cmocka_unit_test(test_time_that_is_not_a_clock),
         cmocka_unit_test(test_glitches_dropped_with_place),
         cmocka_unit_test(test_voltage_spike_is_not_a_crossing),
+        cmocka_unit_test(test_spikes_on_a_long_log),
         cmocka_unit_test(test_headerless_needs_columns),
         cmocka_unit_test(test_epoch_and_iso),
         cmocka_unit_test(test_cells_and_sign),
