@@ -1807,6 +1807,7 @@ static void feed(struct reader *r, struct csv_parser *p, const char *buf, size_t
  * order as feed() would give them. */
 #define AHEAD_BYTES (256u << 10)
 #define AHEAD_BLOCKS 4
+#define AHEAD_START (64u << 10) /* of the first block read before the thread starts */
 
 enum ahead_state { BLK_FREE = 0, BLK_READ, BLK_PARSING, BLK_PARSED };
 
@@ -2168,51 +2169,59 @@ static struct ahead_block *next_block(struct ahead *a, int *own)
     return b;
 }
 
-/* Reads the rest of fp through a second thread; returns 0, or -1 when
- * the thread cannot start (nothing read yet: the caller reads on). The
- * block's last byte goes in *last. */
-static int read_ahead(struct reader *r, struct csv_parser *p, FILE *fp, char *last)
+/* Starts the second thread reading the rest of fp (the reader's layout is
+ * known); returns 0, or -1 when it cannot start (nothing read: the caller
+ * reads on). */
+static int ahead_start(struct ahead *a_out, const struct reader *r, FILE *fp)
 {
-    struct ahead a = {.fp = fp,
-                      .decimal = r->st->decimal,
-                      .col_slot = r->col_slot,
-                      .ncols = r->ncols,
-                      .split = r->opts->ahead_split};
-    fast_classes(a.cls, r->st->delimiter);
-    a.numeric = numline_ok(r);
-    numline_init(&a.nl, r);
+    *a_out = (struct ahead){.fp = fp,
+                            .decimal = r->st->decimal,
+                            .col_slot = r->col_slot,
+                            .ncols = r->ncols,
+                            .split = r->opts->ahead_split};
+    struct ahead *a = a_out;
+    fast_classes(a->cls, r->st->delimiter);
+    a->numeric = numline_ok(r);
+    numline_init(&a->nl, r);
     /* the tables sized here for lines of 16 bytes or more, so that the
      * thread, which grows them only for shorter lines, keeps no heap of
      * its own */
     for (int i = 0; i < AHEAD_BLOCKS; i++) {
-        struct ahead_block *b = &a.blk[i];
+        struct ahead_block *b = &a->blk[i];
         b->buf = malloc(AHEAD_BYTES + 1);
         if (!b->buf || grow((void **)&b->line, &b->cap_line, AHEAD_BYTES / 16, sizeof *b->line) ||
             grow((void **)&b->num, &b->cap_num, AHEAD_BYTES / 16 * NUMLINE_VALS, sizeof *b->num) ||
             grow((void **)&b->start, &b->cap_start, AHEAD_BYTES / 4, sizeof *b->start) ||
             grow((void **)&b->pre, &b->cap_pre, AHEAD_BYTES / 4, sizeof *b->pre)) {
-            ahead_release(&a);
+            ahead_release(a);
             return -1;
         }
     }
-    if (pthread_mutex_init(&a.mu, NULL) != 0) {
-        ahead_release(&a);
+    if (pthread_mutex_init(&a->mu, NULL) != 0) {
+        ahead_release(a);
         return -1;
     }
-    if (pthread_cond_init(&a.cv, NULL) != 0) {
-        pthread_mutex_destroy(&a.mu);
-        ahead_release(&a);
+    if (pthread_cond_init(&a->cv, NULL) != 0) {
+        pthread_mutex_destroy(&a->mu);
+        ahead_release(a);
         return -1;
     }
-    if (pthread_create(&a.tid, NULL, ahead_run, &a) != 0) {
-        pthread_cond_destroy(&a.cv);
-        pthread_mutex_destroy(&a.mu);
-        ahead_release(&a);
+    if (pthread_create(&a->tid, NULL, ahead_run, a) != 0) {
+        pthread_cond_destroy(&a->cv);
+        pthread_mutex_destroy(&a->mu);
+        ahead_release(a);
         return -1;
     }
+    return 0;
+}
+
+/* Takes the blocks of the rest of the file in order (the last one's last
+ * byte in *last), then stops the second thread and frees the ring. */
+static void ahead_take(struct ahead *a, struct reader *r, struct csv_parser *p, char *last)
+{
     while (!r->failed) {
         int own = 0;
-        struct ahead_block *b = next_block(&a, &own);
+        struct ahead_block *b = next_block(a, &own);
         if (!b)
             break;
         if (!own && b->oom) {
@@ -2235,21 +2244,20 @@ static int read_ahead(struct reader *r, struct csv_parser *p, FILE *fp, char *la
         }
         if (b->len == 0)
             break;
-        pthread_mutex_lock(&a.mu);
+        pthread_mutex_lock(&a->mu);
         b->state = BLK_FREE;
-        a.ntaken++;
-        pthread_cond_broadcast(&a.cv);
-        pthread_mutex_unlock(&a.mu);
+        a->ntaken++;
+        pthread_cond_broadcast(&a->cv);
+        pthread_mutex_unlock(&a->mu);
     }
-    pthread_mutex_lock(&a.mu);
-    a.stop = 1;
-    pthread_cond_broadcast(&a.cv);
-    pthread_mutex_unlock(&a.mu);
-    pthread_join(a.tid, NULL);
-    pthread_cond_destroy(&a.cv);
-    pthread_mutex_destroy(&a.mu);
-    ahead_release(&a);
-    return 0;
+    pthread_mutex_lock(&a->mu);
+    a->stop = 1;
+    pthread_cond_broadcast(&a->cv);
+    pthread_mutex_unlock(&a->mu);
+    pthread_join(a->tid, NULL);
+    pthread_cond_destroy(&a->cv);
+    pthread_mutex_destroy(&a->mu);
+    ahead_release(a);
 }
 
 /* The earliest line any sample was dropped at, 0 when none was. */
@@ -2438,11 +2446,26 @@ struct series *logread_file(FILE *fp, const char *name, const struct logread_opt
     csv_set_realloc_func(&p, bounded_realloc);
     csv_set_free_func(&p, free);
 
-    feed(&r, &p, buf + start, len - start);
+    /* a long log (its first block full) is read ahead when a core is free:
+     * the second thread starts once the layout is known, at the first line
+     * end past AHEAD_START, and reads and parses the blocks after the first
+     * while this thread reads the rest of it */
+    int can_ahead = len == BLOCK_BYTES && !opts->no_fast_path && sysconf(_SC_NPROCESSORS_ONLN) > 1;
+    size_t cut = len - start;
+    const char *eol = can_ahead && cut > AHEAD_START
+                          ? memchr(buf + start + AHEAD_START, '\n', cut - AHEAD_START)
+                          : NULL;
+    if (eol) /* every line scanned before the cut ends before it: no stop byte needed */
+        cut = (size_t)(eol + 1 - (buf + start));
+    struct ahead a;
+    feed(&r, &p, buf + start, cut);
+    int ahead = can_ahead && r.mapped && !r.failed && ahead_start(&a, &r, fp) == 0;
+    feed(&r, &p, buf + start + cut, len - start - cut);
+    if (!ahead && can_ahead && r.mapped && !r.failed)
+        ahead = ahead_start(&a, &r, fp) == 0;
     char last = buf[len - 1];
-    /* a long log (its first block full) is read ahead when a core is free */
-    int ahead = len == BLOCK_BYTES && r.mapped && !r.failed && !opts->no_fast_path &&
-                sysconf(_SC_NPROCESSORS_ONLN) > 1 && read_ahead(&r, &p, fp, &last) == 0;
+    if (ahead)
+        ahead_take(&a, &r, &p, &last);
     while (!ahead && !r.failed && (len = fread(buf, 1, BLOCK_BYTES, fp)) > 0) {
         buf[len] = '\0';
         if (opts->on_block)

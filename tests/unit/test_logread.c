@@ -663,6 +663,22 @@ static void test_fast_path_same_across_blocks(void **state)
             (size_t)snprintf(text + plen, cap - plen, "%d.%03d,%.3f,%.3f,%d\r\n", k / 10,
                              k % 10 * 100, 16.8 - k * 1e-6, 9.0 + (k * 7 % 13) * 0.25, 20 + k % 5);
     check_paths_agree(text, plen, "numeric 3 MiB log", &o);
+    /* the second thread starts once the layout is known, 64 KiB into the
+     * first block, or after that block: comments before the header, or
+     * before the first data line, for 70 KiB */
+    for (int where = 0; where < 2; where++) {
+        size_t clen = 0;
+        if (where == 1)
+            clen += (size_t)snprintf(text, cap, "time_s,voltage_v,current_a\n");
+        while (clen < (70u << 10))
+            clen += (size_t)snprintf(text + clen, cap - clen, "# a comment line\n");
+        if (where == 0)
+            clen += (size_t)snprintf(text + clen, cap - clen, "time_s,voltage_v,current_a\n");
+        for (int k = 0; clen + 64 < cap; k++)
+            clen +=
+                (size_t)snprintf(text + clen, cap - clen, "%d.25,%.3f,9.5\n", k, 16.8 - k * 1e-6);
+        check_paths_agree(text, clen, where ? "data after 70 KiB" : "header after 70 KiB", &o);
+    }
     /* with a pack's cells and a small rating: currents over 200 C dropped */
     struct logread_opts rated = {.cells = 4, .rated_mah = 55};
     check_paths_agree(text, plen, "numeric 3 MiB log, rated", &rated);
