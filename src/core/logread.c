@@ -1291,9 +1291,8 @@ static void spikes_and_counts(struct reader *r)
 
 /* Discharge-negative logs: most loaded samples negative while the voltage
  * falls from start to end. Charging logs (voltage rising) are left alone.
- * imax: the largest |current| of the series. */
-/* counted: count_loaded's answer for the whole series with imax's
- * threshold, or NULL (counted here). */
+ * imax: the largest |current| of the series; counted: count_loaded's answer
+ * for the whole series with imax's threshold, or NULL (counted here). */
 static int looks_discharge_negative(const struct series *s, double imax, const size_t *counted)
 {
     size_t neg = 0, loaded = 0;

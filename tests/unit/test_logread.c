@@ -651,7 +651,7 @@ static void test_fast_path_same_across_blocks(void **state)
     }
     struct logread_opts o = {0};
     /* past the first 1 MiB block, a machine with a second core reads the
-     * rest ahead in 256 KiB blocks (logread.c, read_ahead), parsed by either
+     * rest ahead in 256 KiB blocks (logread.c, ahead_start), parsed by either
      * thread: compared too, from memory, a file and a pipe */
     check_paths_agree(text, len, "generated 3 MiB log", &o);
     check_paths_agree_from(text, len, "generated 3 MiB log in a file", &o, SRC_FILE);
