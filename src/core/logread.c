@@ -57,6 +57,13 @@ struct reader {
     double t_prev;
     double temp_prev;
     int have_temp_prev;
+    int not_rising; /* a kept time was not above the one before (order_times has work) */
+    double max_a;   /* |current| above this is a glitch */
+    double peak_a;  /* the largest |current| of the samples kept while reading */
+    size_t n_read;  /* samples when the reading was done (peak_a holds while s->n is this) */
+    int counted;    /* the sign check's counts, made by spikes_and_counts, still hold */
+    double counted_imax;
+    size_t counted_loaded[2]; /* loaded samples, negative ones */
 
     double val[NSLOTS];
     enum bad_kind bad;
@@ -73,6 +80,18 @@ struct reader {
 
     struct series *s;
 };
+
+/* fmin and fmax as the C library defines them (a NaN loses to a number),
+ * inline: through the PLT they cost more than the rest of a pass's step. */
+static inline double min_of(double a, double b)
+{
+    return a < b ? a : b == b ? b : a;
+}
+
+static inline double max_of(double a, double b)
+{
+    return a > b ? a : b == b ? b : a;
+}
 
 static void count_event(struct logread_event *ev, size_t line, int column)
 {
@@ -741,10 +760,7 @@ static int is_glitch(struct reader *r)
     }
     if (r->slot_col[SLOT_I] >= 0) {
         double i = current_a(r);
-        double max_a = LOGREAD_MAX_CURRENT_A;
-        if (r->opts->rated_mah > 0.0)
-            max_a = fmin(max_a, LOGREAD_MAX_C_RATE * r->opts->rated_mah / 1000.0);
-        if (!(fabs(i) <= max_a)) {
+        if (!(fabs(i) <= r->max_a)) {
             count_event(&st->glitch_current, r->row_line, r->slot_col[SLOT_I] + 1);
             return 1;
         }
@@ -752,7 +768,7 @@ static int is_glitch(struct reader *r)
     return 0;
 }
 
-static void keep_sample(struct reader *r)
+__attribute__((always_inline)) static inline void keep_sample(struct reader *r)
 {
     struct logread_stats *st = r->st;
     struct series *s = r->s;
@@ -786,7 +802,8 @@ static void keep_sample(struct reader *r)
     }
     if (is_glitch(r))
         return;
-    if (series_reserve_one(s) != 0) {
+    r->not_rising |= s->n > 0 && !(rel > r->t_prev);
+    if (s->n >= s->cap && series_reserve_one(s) != 0) {
         fail(r, PB_ENOMEM, 0, 0, "out of memory%s", NULL);
         return;
     }
@@ -810,8 +827,11 @@ static void keep_sample(struct reader *r)
         v_sum += s->cell_v[c][k];
     }
     s->v_v[k] = st->voltage_from_cells ? v_sum : r->val[SLOT_V];
-    if (s->i_a)
-        s->i_a[k] = current_a(r);
+    if (s->i_a) {
+        double i = current_a(r);
+        s->i_a[k] = i;
+        r->peak_a = max_of(r->peak_a, fabs(i));
+    }
     if (s->temp_c) {
         double tc = r->val[SLOT_TEMP];
         if (!isfinite(tc)) {
@@ -898,8 +918,26 @@ static void end_record(struct reader *r)
 
 /* ---- time order and spikes -------------------------------------------- */
 
+/* The largest |x[k]| of x[0..n) (NaNs left out, as fmax leaves them), 0
+ * when none: four running maxima, so the pass is not one long chain of
+ * dependent steps (a maximum is the same in any order). */
+static double abs_max(const double *x, size_t n)
+{
+    double m0 = 0.0, m1 = 0.0, m2 = 0.0, m3 = 0.0;
+    size_t k = 0;
+    for (; k + 4 <= n; k += 4) {
+        m0 = max_of(m0, fabs(x[k]));
+        m1 = max_of(m1, fabs(x[k + 1]));
+        m2 = max_of(m2, fabs(x[k + 2]));
+        m3 = max_of(m3, fabs(x[k + 3]));
+    }
+    for (; k < n; k++)
+        m0 = max_of(m0, fabs(x[k]));
+    return max_of(max_of(m0, m1), max_of(m2, m3));
+}
+
 /* Copies sample from into place to (to <= from) in every column. */
-static void move_sample(struct series *s, size_t from, size_t to)
+static inline void move_sample(struct series *s, size_t from, size_t to)
 {
     if (from == to)
         return;
@@ -1089,61 +1127,182 @@ static void drop_spikes(struct reader *r)
     size_t n = s->n, w = 1;
     if (n < 3)
         return;
-    double peak = 0.0;
-    for (size_t k = 0; s->i_a && k < n; k++)
-        peak = fmax(peak, fabs(s->i_a[k]));
-    double tol_a = fmax(0.1, 0.05 * peak);
+    double peak = !s->i_a ? 0.0 : n == r->n_read ? r->peak_a : abs_max(s->i_a, n);
+    double tol_a = max_of(0.1, 0.05 * peak);
     size_t seg = 1; /* the next segment start, by index as read */
+    size_t seg_at = seg < s->nseg ? s->seg_start[seg] : SIZE_MAX;
     int vcol = r->st->voltage_from_cells ? r->slot_col[SLOT_CELL0] + 1 : r->slot_col[SLOT_V] + 1;
+    const double *vv = s->v_v, *ia = s->i_a;
     for (size_t k = 1; k < n; k++) {
-        if (seg < s->nseg && s->seg_start[seg] == k) {
+        if (k == seg_at) {
             s->seg_start[seg++] = w; /* a segment's first sample stays, at its new index */
+            seg_at = seg < s->nseg ? s->seg_start[seg] : SIZE_MAX;
             move_sample(s, k, w++);
             continue;
         }
         /* neighbours: the last kept sample (w - 1, same segment: segment starts
          * are kept) and the next one read, unless a segment starts there */
-        int last_of_segment = k + 1 == n || (seg < s->nseg && s->seg_start[seg] == k + 1);
-        if (!last_of_segment) {
-            double vp = s->v_v[w - 1], v = s->v_v[k], vn = s->v_v[k + 1];
-            double lo = fmin(vp, vn), hi = fmax(vp, vn);
-            int spike =
-                v < lo * (1.0 - LOGREAD_SPIKE_FRACTION) || v > hi * (1.0 + LOGREAD_SPIKE_FRACTION);
-            if (spike && s->i_a) {
+        if (k + 1 != n && k + 1 != seg_at) {
+            double vp = vv[w - 1], v = vv[k], vn = vv[k + 1];
+            /* minsd and maxsd, no branch to mispredict on noise; fmin's and
+             * fmax's answer where a NaN is in (none is: the voltage checks) */
+            double lo = vp < vn ? vp : vn, hi = vp > vn ? vp : vn;
+            if (vp != vp || vn != vn) {
+                lo = min_of(vp, vn);
+                hi = max_of(vp, vn);
+            }
+            int spike = (v < lo * (1.0 - LOGREAD_SPIKE_FRACTION)) |
+                        (v > hi * (1.0 + LOGREAD_SPIKE_FRACTION));
+            if (spike && ia) {
                 /* a current that moves on either side explains the voltage (a load
                  * switched off right after the cut-off sample, say) */
-                double i = s->i_a[k];
-                spike = fabs(i - s->i_a[w - 1]) <= tol_a && fabs(i - s->i_a[k + 1]) <= tol_a;
+                double i = ia[k];
+                spike = fabs(i - ia[w - 1]) <= tol_a && fabs(i - ia[k + 1]) <= tol_a;
             }
             if (spike) {
                 count_event(&r->st->glitch_spike, s->line[k], vcol);
                 continue;
             }
         }
-        move_sample(s, k, w++);
+        if (w != k) /* nothing dropped yet: every sample is in its place */
+            move_sample(s, k, w);
+        w++;
     }
     r->st->kept -= n - w;
     s->n = w;
 }
 
+/* Counts samples k in [from, to) with |current| above loaded_a, and of
+ * those the negative ones. */
+static void count_loaded(const double *i_a, size_t from, size_t to, double loaded_a, size_t *loaded,
+                         size_t *neg)
+{
+    size_t nl = 0, nn = 0;
+    for (size_t k = from; k < to; k++) { /* no branch: a load comes and goes */
+        double i = i_a[k];
+        int on = fabs(i) > loaded_a;
+        nl += (size_t)on;
+        nn += (size_t)(on & (i < 0.0));
+    }
+    *loaded = nl;
+    *neg = nn;
+}
+
+/* ---- spikes and the sign's counts on two cores ------------------------
+ * While nothing is dropped, drop_spikes tests each sample against the
+ * samples read beside it; so when that test fires for no sample (most
+ * logs), it would drop nothing and leave the series as it is, and the sign
+ * check's counts of loaded samples can be made in the same pass. The pass
+ * is split between two threads on a long log; where a spike is found,
+ * drop_spikes runs as before and the sign check counts afresh. */
+#define POST_SPLIT_MIN 65536 /* samples, below which one thread does the pass */
+
+struct post_part {
+    const struct series *s;
+    size_t from, to;
+    double tol_a, loaded_a;
+    int spike;
+    size_t loaded[2];
+};
+
+static void post_scan(struct post_part *pp)
+{
+    const struct series *s = pp->s;
+    const double *vv = s->v_v, *ia = s->i_a;
+    size_t n = s->n;
+    /* drop_spikes tests 1..n-2, not a segment's first sample nor its last */
+    size_t k = pp->from > 1 ? pp->from : 1, end = pp->to < n - 1 ? pp->to : n - 1;
+    size_t seg = 1;
+    while (seg < s->nseg && s->seg_start[seg] < k)
+        seg++;
+    size_t seg_at = seg < s->nseg ? s->seg_start[seg] : SIZE_MAX;
+    int spikes = 0;
+    for (; k < end; k++) {
+        if (k == seg_at) {
+            seg++;
+            seg_at = seg < s->nseg ? s->seg_start[seg] : SIZE_MAX;
+            continue;
+        }
+        if (k + 1 == seg_at)
+            continue;
+        /* drop_spikes' test with w - 1 == k - 1 */
+        double vp = vv[k - 1], v = vv[k], vn = vv[k + 1];
+        double lo = vp < vn ? vp : vn, hi = vp > vn ? vp : vn;
+        if (vp != vp || vn != vn) {
+            lo = min_of(vp, vn);
+            hi = max_of(vp, vn);
+        }
+        int spike =
+            (v < lo * (1.0 - LOGREAD_SPIKE_FRACTION)) | (v > hi * (1.0 + LOGREAD_SPIKE_FRACTION));
+        if (spike && ia) {
+            double i = ia[k];
+            spike = fabs(i - ia[k - 1]) <= pp->tol_a && fabs(i - ia[k + 1]) <= pp->tol_a;
+        }
+        spikes |= spike;
+    }
+    pp->spike = spikes;
+    if (ia)
+        count_loaded(ia, pp->from, pp->to, pp->loaded_a, &pp->loaded[0], &pp->loaded[1]);
+}
+
+static void *post_run(void *va)
+{
+    post_scan(va);
+    return NULL;
+}
+
+/* drop_spikes, and the sign check's counts made where they will hold. */
+static void spikes_and_counts(struct reader *r)
+{
+    struct series *s = r->s;
+    size_t n = s->n;
+    r->counted = 0;
+    if (n < 3)
+        return; /* drop_spikes has nothing to test */
+    /* drop_spikes' peak, and the sign check's while nothing is dropped */
+    double peak = !s->i_a ? 0.0 : n == r->n_read ? r->peak_a : abs_max(s->i_a, n);
+    struct post_part part[2];
+    for (int h = 0; h < 2; h++)
+        part[h] = (struct post_part){.s = s,
+                                     .from = h ? n / 2 : 0,
+                                     .to = h ? n : n / 2,
+                                     .tol_a = max_of(0.1, 0.05 * peak),
+                                     .loaded_a = 0.1 * peak};
+    pthread_t tid;
+    if (n >= POST_SPLIT_MIN && sysconf(_SC_NPROCESSORS_ONLN) > 1 &&
+        pthread_create(&tid, NULL, post_run, &part[1]) == 0) {
+        post_scan(&part[0]);
+        pthread_join(tid, NULL);
+    } else {
+        post_scan(&part[0]);
+        post_scan(&part[1]);
+    }
+    if (part[0].spike || part[1].spike) {
+        drop_spikes(r);
+        return;
+    }
+    r->counted = s->i_a != NULL;
+    r->counted_imax = peak;
+    r->counted_loaded[0] = part[0].loaded[0] + part[1].loaded[0];
+    r->counted_loaded[1] = part[0].loaded[1] + part[1].loaded[1];
+}
+
 /* ---- sign ------------------------------------------------------------- */
 
 /* Discharge-negative logs: most loaded samples negative while the voltage
- * falls from start to end. Charging logs (voltage rising) are left alone. */
-static int looks_discharge_negative(const struct series *s)
+ * falls from start to end. Charging logs (voltage rising) are left alone.
+ * imax: the largest |current| of the series; counted: count_loaded's answer
+ * for the whole series with imax's threshold, or NULL (counted here). */
+static int looks_discharge_negative(const struct series *s, double imax, const size_t *counted)
 {
     size_t neg = 0, loaded = 0;
-    double imax = 0.0;
-    for (size_t k = 0; k < s->n; k++)
-        if (fabs(s->i_a[k]) > imax)
-            imax = fabs(s->i_a[k]);
     if (imax <= 0.0)
         return 0;
-    for (size_t k = 0; k < s->n; k++) {
-        if (fabs(s->i_a[k]) > 0.1 * imax) {
-            loaded++;
-            neg += s->i_a[k] < 0.0;
-        }
+    if (counted) {
+        loaded = counted[0];
+        neg = counted[1];
+    } else {
+        count_loaded(s->i_a, 0, s->n, 0.1 * imax, &loaded, &neg);
     }
     size_t w = s->n / 20 + 1;
     double v0 = 0.0, v1 = 0.0;
@@ -1162,7 +1321,12 @@ static void resolve_sign(struct reader *r)
         return;
     if (r->opts->sign == SIGN_DISCHARGE_NEGATIVE)
         flip = 1;
-    else if (r->opts->sign == SIGN_AUTO && looks_discharge_negative(s)) {
+    else if (r->opts->sign == SIGN_AUTO &&
+             looks_discharge_negative(s,
+                                      r->counted          ? r->counted_imax
+                                      : s->n == r->n_read ? r->peak_a
+                                                          : abs_max(s->i_a, s->n),
+                                      r->counted ? r->counted_loaded : NULL)) {
         flip = 1;
         r->st->sign_flipped = 1;
     }
@@ -1263,6 +1427,293 @@ static inline int at_record_start(const struct reader *r, const struct csv_parse
     return p->pstate == 0 && !p->quoted && p->entry_pos == 0 && !r->failed;
 }
 
+/* ---- numeric lines ------------------------------------------------------
+ * Most lines of a long log are nothing but numbers in the mapped columns:
+ * such a line is read in one walk (each number's digits as they pass, no
+ * field table, no per-field dispatch) and its sample taken straight into
+ * the keep logic. Anything else about a line (a comment, an empty field,
+ * an exponent, a quote or a space, a short or long row, a line cut by the
+ * block's end) sends that line down the general path; so does every line
+ * while the log has cell or date columns or times that are not numbers. */
+
+#define NUMLINE_CRLF 1 /* the term of a line ended by CR LF */
+
+/* What the numeric-line scanner needs, copied so a second thread can use it. */
+struct numline {
+    unsigned char cls[256];
+    unsigned char delimiter, decimal;
+    const int *col_slot;
+    int ncols, need_fields;
+};
+
+/* The reader's state allows numeric lines: mapped, numeric times, no cells
+ * and no dates (their checks are per column), few enough columns. */
+static int numline_ok(const struct reader *r)
+{
+    return r->mapped && !r->failed && !r->opts->no_fast_path && r->tmode == TM_NUMBER &&
+           r->slot_col[SLOT_DATE] < 0 && r->ncells == 0 && r->ncols <= FAST_MAX_FIELDS;
+}
+
+static void numline_init(struct numline *nl, const struct reader *r)
+{
+    fast_classes(nl->cls, r->st->delimiter);
+    nl->delimiter = (unsigned char)r->st->delimiter;
+    nl->decimal = (unsigned char)r->st->decimal;
+    nl->col_slot = r->col_slot;
+    nl->ncols = r->ncols;
+    nl->need_fields = r->need_fields;
+}
+
+/* The line at u[at]: 1 when it is a numeric line, with its line end's
+ * offset in *end, that byte in *term and each mapped column's number in
+ * val[slot] (exactly as num_parse reads the field: the field is
+ * [-]digits[decimal digits], 1 to 19 digits, at most 21 bytes, a mantissa
+ * of at most 2^53, so one correctly rounded division); else 0. The block
+ * must hold a byte after its end that is no digit, mark, delimiter or line
+ * end (the scan stops there: a line cut by the block's end is not one). */
+__attribute__((always_inline)) static inline int numline_scan(const struct numline *nl,
+                                                              const unsigned char *u, size_t at,
+                                                              size_t *end, unsigned char *term,
+                                                              double *val)
+{
+    const unsigned char *p = u + at;
+    if (*p == '#')
+        return 0;
+    for (int col = 0;; col++) {
+        if (col >= nl->ncols)
+            return 0; /* a long row: counted by the general path */
+        int slot = nl->col_slot[col];
+        if (slot < 0) {
+            while (nl->cls[*p] == FAST_PLAIN)
+                p++;
+        } else {
+            const unsigned char *f = p;
+            int neg = *p == '-';
+            p += neg;
+            const unsigned char *d0 = p;
+            uint64_t m = 0;
+            unsigned d;
+            while ((d = (unsigned)*p - '0') <= 9) {
+                m = m * 10 + d;
+                p++;
+            }
+            long nd = (long)(p - d0);
+            int frac = 0;
+            if (*p == nl->decimal) {
+                const unsigned char *f0 = ++p;
+                while ((d = (unsigned)*p - '0') <= 9) {
+                    m = m * 10 + d;
+                    p++;
+                }
+                frac = (int)(p - f0);
+                nd += frac;
+            }
+            if (nd <= 0 || nd > 19 || p - f > 21 || m > (UINT64_C(1) << 53))
+                return 0;
+            double x = (double)m;
+            if (frac > 0)
+                x /= num_exact_pow10[frac];
+            val[slot] = neg ? -x : x;
+        }
+        unsigned char c = *p;
+        if (c == nl->delimiter) {
+            p++;
+            continue;
+        }
+        if ((c != '\n' && c != '\r') || col + 1 < nl->need_fields ||
+            (size_t)(p - u) - at > FAST_MAX_LINE)
+            return 0;
+        /* a CR LF pair ends the line at its LF (the empty record between
+         * the two would change nothing) */
+        *term = c == '\r' && p[1] == '\n' ? NUMLINE_CRLF : c;
+        *end = (size_t)(p - u) + (*term == NUMLINE_CRLF);
+        return 1;
+    }
+}
+
+/* A numeric line's sample (numline_scan's val), as take_field, on_row and
+ * end_record would take it field by field; the reader is at a record's
+ * start. */
+__attribute__((always_inline)) static inline void take_numline(struct reader *r, const double *val,
+                                                               unsigned char term)
+{
+    r->row_line = r->line;
+    r->st->records++;
+    r->val[SLOT_T] = val[SLOT_T] * r->t_scale;
+    for (int slot = SLOT_V; slot <= SLOT_TEMP; slot++)
+        if (r->slot_col[slot] >= 0)
+            r->val[slot] = val[slot] * r->spec[slot].scale + r->spec[slot].offset;
+    keep_sample(r);
+    /* as on_row counts a CR, an LF or a CR LF pair */
+    if (term != '\n' || !r->after_cr)
+        r->line++;
+    r->after_cr = term == '\r';
+    r->record_line = r->line;
+}
+
+/* A run of numeric lines taken with the reader's state in locals: what
+ * take_numline and keep_sample do for each, once the log has a sample (the
+ * first one decides the time's origin and scale) and while nothing but
+ * numeric lines come (libcsv is not fed meanwhile, so the reader stays at a
+ * record's start). numrun_end puts the state back. */
+struct numrun {
+    struct reader *r;
+    struct logread_stats *st;
+    double *t_s, *v_v, *i_a, *temp_c;
+    uint32_t *line_of;
+    size_t n, cap, line, row, records, kept;
+    int after_cr, not_rising, have_temp_prev, raw;
+    double t_first, t_prev, t_scale, peak_a, temp_prev;
+    double v_scale, v_offset, i_scale, i_offset, tc_scale, tc_offset;
+    double v_lo, v_hi, max_a, adc_offset, adc_a;
+    int tcol, vcol, icol, tempcol;
+};
+
+static int numrun_ok(const struct reader *r)
+{
+    return numline_ok(r) && r->s->n > 0 && !r->st->voltage_from_cells;
+}
+
+static void numrun_begin(struct numrun *q, struct reader *r)
+{
+    const struct series *s = r->s;
+    int given = r->opts->cells;
+    *q = (struct numrun){
+        .r = r,
+        .st = r->st,
+        .t_s = s->t_s,
+        .v_v = s->v_v,
+        .i_a = s->i_a,
+        .temp_c = s->temp_c,
+        .line_of = s->line,
+        .n = s->n,
+        .cap = s->cap,
+        .line = r->line,
+        .row = r->row_line,
+        .records = r->st->records,
+        .kept = r->st->kept,
+        .after_cr = r->after_cr,
+        .not_rising = r->not_rising,
+        .have_temp_prev = r->have_temp_prev,
+        .raw = r->st->current_is_raw,
+        .t_first = r->t_first,
+        .t_prev = r->t_prev,
+        .t_scale = r->t_scale,
+        .peak_a = r->peak_a,
+        .temp_prev = r->temp_prev,
+        .v_scale = r->spec[SLOT_V].scale,
+        .v_offset = r->spec[SLOT_V].offset,
+        .i_scale = r->spec[SLOT_I].scale,
+        .i_offset = r->spec[SLOT_I].offset,
+        .tc_scale = r->spec[SLOT_TEMP].scale,
+        .tc_offset = r->spec[SLOT_TEMP].offset,
+        /* as is_glitch works them out */
+        .v_lo = LOGREAD_CELL_MIN_V * (given > 0       ? given
+                                      : r->ncells > 0 ? r->ncells
+                                                      : 1),
+        .v_hi = LOGREAD_CELL_MAX_V * (given > 0 ? given : PB_MAX_CELLS),
+        .max_a = r->max_a,
+        .adc_offset = r->opts->adc_offset_counts,
+        .adc_a = r->opts->adc_a_per_count,
+        .tcol = r->slot_col[SLOT_T] + 1,
+        .vcol = r->slot_col[SLOT_V] + 1,
+        .icol = r->slot_col[SLOT_I] + 1,
+        .tempcol = r->slot_col[SLOT_TEMP] + 1,
+    };
+}
+
+static void numrun_end(struct numrun *q)
+{
+    struct reader *r = q->r;
+    r->s->n = q->n;
+    r->line = q->line;
+    r->record_line = q->line;
+    r->row_line = q->row;
+    r->after_cr = q->after_cr;
+    r->st->records = q->records;
+    r->st->kept = q->kept;
+    r->not_rising = q->not_rising;
+    r->t_prev = q->t_prev;
+    r->peak_a = q->peak_a;
+    r->have_temp_prev = q->have_temp_prev;
+    r->temp_prev = q->temp_prev;
+    /* r->val is left as it was: a record's values are all set by its own
+     * fields before they are read */
+}
+
+/* One numeric line of a run (take_numline and keep_sample for a log with a
+ * sample); -1 when the series cannot grow (the reader has failed; the run
+ * must still be ended). */
+__attribute__((always_inline)) static inline int numrun_line(struct numrun *q, const double *val,
+                                                             unsigned char term)
+{
+    int ok = 0;
+    size_t row = q->line;
+    q->row = row;
+    q->records++;
+    double t = val[SLOT_T] * q->t_scale;
+    double rel = t - q->t_first;
+    if (rel == q->t_prev) {
+        count_event(&q->st->duplicate_time, row, q->tcol);
+        goto next;
+    }
+    double v = val[SLOT_V] * q->v_scale + q->v_offset;
+    if (!(v >= q->v_lo && v <= q->v_hi)) {
+        count_event(&q->st->glitch_voltage, row, q->vcol);
+        goto next;
+    }
+    double i = 0.0;
+    if (q->i_a) {
+        i = val[SLOT_I] * q->i_scale + q->i_offset;
+        if (q->raw)
+            i = (i - q->adc_offset) * q->adc_a;
+        if (!(fabs(i) <= q->max_a)) {
+            count_event(&q->st->glitch_current, row, q->icol);
+            goto next;
+        }
+    }
+    q->not_rising |= !(rel > q->t_prev);
+    if (q->n >= q->cap) {
+        struct reader *r = q->r;
+        numrun_end(q);
+        if (series_reserve_one(r->s) != 0) {
+            fail(r, PB_ENOMEM, 0, 0, "out of memory%s", NULL);
+            ok = -1;
+            goto next;
+        }
+        numrun_begin(q, r); /* the columns have moved */
+    }
+    size_t k = q->n;
+    q->t_s[k] = rel;
+    q->line_of[k] = row < UINT32_MAX ? (uint32_t)row : UINT32_MAX;
+    q->v_v[k] = v;
+    if (q->i_a) {
+        q->i_a[k] = i;
+        q->peak_a = max_of(q->peak_a, fabs(i));
+    }
+    if (q->temp_c) {
+        double tc = val[SLOT_TEMP] * q->tc_scale + q->tc_offset;
+        if (!isfinite(tc)) {
+            count_event(&q->st->temp_repaired, row, q->tempcol);
+            tc = q->have_temp_prev ? q->temp_prev : NAN;
+        }
+        if (isfinite(tc)) {
+            q->temp_prev = tc;
+            q->have_temp_prev = 1;
+        }
+        q->temp_c[k] = tc;
+    }
+    q->t_prev = rel;
+    q->n++;
+    q->kept++;
+next:
+    /* as on_row counts a CR, an LF or a CR LF pair */
+    if (term != '\n' || !q->after_cr)
+        q->line++;
+    q->after_cr = term == '\r';
+    return ok;
+}
+
 /* Plain lines at a record boundary are split here and handed to the same
  * field and row code; a line with a quote or a space, a long line, the
  * header (columns not yet mapped) and a line cut by the block's end go
@@ -1270,7 +1721,8 @@ static inline int at_record_start(const struct reader *r, const struct csv_parse
  * resumes. The output is the same either way (tests/unit/test_logread.c
  * compares both on every file in tests/data and samples/). Lines are
  * counted in on_row, which CSV_REPALL_NL calls for every unquoted CR and
- * LF. */
+ * LF. Numeric lines take their own path (numline_scan, runs of them
+ * numrun_line); buf[len] must be a stop byte for it ('\0'). */
 static void feed(struct reader *r, struct csv_parser *p, const char *buf, size_t len)
 {
     if (r->opts->no_fast_path) {
@@ -1281,11 +1733,43 @@ static void feed(struct reader *r, struct csv_parser *p, const char *buf, size_t
     fast_classes(cls, r->st->delimiter);
     const unsigned char *u = (const unsigned char *)buf;
     size_t at = 0;
+    struct numline nl;
+    int num = numline_ok(r);
+    if (num)
+        numline_init(&nl, r);
+    double val[SLOT_TEMP + 1];
+    struct numrun q;
+    int run = 0;
     while (at < len) {
+        size_t e;
+        unsigned char term;
+        if (num && (run || at_record_start(r, p)) && numline_scan(&nl, u, at, &e, &term, val)) {
+            if (!run && numrun_ok(r)) {
+                numrun_begin(&q, r);
+                run = 1;
+            }
+            if (!run)
+                take_numline(r, val, term);
+            else if (numrun_line(&q, val, term) != 0) {
+                numrun_end(&q); /* out of memory: the reader has failed */
+                return;
+            }
+            at = e + 1;
+            continue;
+        }
+        if (run) {
+            numrun_end(&q);
+            run = 0;
+        }
+        if (!num && numline_ok(r)) { /* the layout and the time's form are known now */
+            numline_init(&nl, r);
+            num = 1;
+            continue;
+        }
         size_t starts[FAST_MAX_FIELDS + 1];
         int nf, plain;
         unsigned char c;
-        size_t e = split_line(cls, u, at, len, starts, &nf, &plain, &c);
+        e = split_line(cls, u, at, len, starts, &nf, &plain, &c);
         if (e == len) {
             /* no line end in the block: libcsv keeps the piece */
             feed_csv(r, p, buf + at, len - at);
@@ -1305,24 +1789,38 @@ static void feed(struct reader *r, struct csv_parser *p, const char *buf, size_t
         on_row(c == FAST_CR ? '\r' : '\n', r);
         at = e + 1;
     }
+    if (run)
+        numrun_end(&q);
 }
 
 /* ---- reading ahead ----------------------------------------------------
- * With a core free, a second thread reads the next block and splits its
- * lines and parses the numbers of its plain lines (the mapped columns)
- * while this one runs the reader over the block before: the same splitting
- * and the same num_parse, so the reader gets the same fields and numbers
- * in the same order as feed() would make them. */
+ * With a core free, a second thread reads the blocks after the first into
+ * a ring of AHEAD_BLOCKS buffers and splits and parses the oldest block read
+ * (its numeric lines' numbers, its plain lines' fields and numbers) into the
+ * block's tables, while this thread runs the reader over the blocks in
+ * order. Both cores parse: a block that this thread finds read but not yet
+ * claimed it reads itself with feed(), and while the next block is still
+ * being parsed it parses a later one into its tables. The splitting and
+ * the numbers are the same either way (numline_scan, split_line and
+ * num_parse), so the reader takes the same fields and numbers in the same
+ * order as feed() would give them. */
 #define AHEAD_BYTES (256u << 10)
+#define AHEAD_BLOCKS 4
+#define AHEAD_START (64u << 10) /* of the first block read before the thread starts */
+
+enum ahead_state { BLK_FREE = 0, BLK_READ, BLK_PARSING, BLK_PARSED };
 
 struct ahead_line {
-    size_t end;    /* its CR or LF; len: cut by the block's end */
-    size_t field0; /* its first field in start[] and pre[] */
+    size_t end;    /* its CR or LF (a CR LF pair's LF); len: cut by the block's end */
+    size_t field0; /* its first field in start[] and pre[]; a numeric line's in num[] */
     int nf, plain;
-    unsigned char term;
+    unsigned char term, numeric;
 };
 
+#define NUMLINE_VALS (SLOT_TEMP + 1) /* a numeric line's values, by slot */
+
 struct ahead_block {
+    enum ahead_state state; /* under the ring's mutex */
     char *buf;
     size_t len;
     int read_errno; /* a read error's errno, else 0 */
@@ -1332,16 +1830,23 @@ struct ahead_block {
     size_t *start; /* each plain line's field starts, then its end + 1 */
     struct pre_num *pre;
     size_t nfield, cap_start, cap_pre;
+    double *num; /* each numeric line's values (NUMLINE_VALS, by slot) */
+    size_t nnum, cap_num;
 };
 
 struct ahead {
     FILE *fp;
+    struct numline nl;
+    int numeric; /* the reader takes numeric lines (numline_ok) */
     unsigned char cls[256];
     char decimal;
     const int *col_slot;
     int ncols;
-    struct ahead_block blk[2];
-    int full[2], stop;
+    struct ahead_block blk[AHEAD_BLOCKS];
+    size_t nread;    /* blocks read so far; block k is blk[k % AHEAD_BLOCKS] */
+    size_t ntaken;   /* blocks the reader has taken (the oldest one in the ring) */
+    int ended, stop; /* the last block (empty, or a read error) is read; leave */
+    int split;       /* who parses (logread_opts.ahead_split) */
     pthread_mutex_t mu;
     pthread_cond_t cv;
     pthread_t tid;
@@ -1439,13 +1944,25 @@ static inline enum num_status scanned_number(const struct field_scan *fs, const 
     return num_parse(f, len, decimal, v);
 }
 
-/* Reads and splits one block; returns 0 at the end of the file, a read
- * error or out of memory (the block says which), else 1. */
-static int ahead_fill(struct ahead *a, struct ahead_block *b)
+/* Reads the next block; returns 0 at the end of the file or a read error
+ * (the block says which), else 1. */
+static int ahead_read(struct ahead *a, struct ahead_block *b)
 {
     b->len = fread(b->buf, 1, AHEAD_BYTES, a->fp);
+    b->buf[b->len] = '\0'; /* numline_scan's stop byte */
     b->read_errno = ferror(a->fp) ? (errno ? errno : EIO) : 0;
-    b->nline = b->nfield = 0;
+    return b->len > 0 && !b->read_errno;
+}
+
+static inline int room(void **p, size_t *cap, size_t need, size_t size)
+{
+    return need <= *cap || grow(p, cap, need, size) == 0;
+}
+
+/* Splits a block read into its tables (b->oom when they cannot grow). */
+static void ahead_parse(const struct ahead *a, struct ahead_block *b)
+{
+    b->nline = b->nfield = b->nnum = 0;
     b->oom = 0;
     const unsigned char *u = (const unsigned char *)b->buf;
     size_t at = 0;
@@ -1453,20 +1970,31 @@ static int ahead_fill(struct ahead *a, struct ahead_block *b)
         size_t starts[FAST_MAX_FIELDS + 1];
         struct field_scan fs[FAST_MAX_FIELDS];
         struct ahead_line l = {0};
+        if (!room((void **)&b->line, &b->cap_line, b->nline + 1, sizeof *b->line) ||
+            !room((void **)&b->num, &b->cap_num, b->nnum + NUMLINE_VALS, sizeof *b->num)) {
+            b->oom = 1;
+            return;
+        }
+        /* the numbers go straight into place (a copy through a local would
+         * wait on each division's store) */
+        if (a->numeric && numline_scan(&a->nl, u, at, &l.end, &l.term, b->num + b->nnum)) {
+            l.numeric = 1;
+            l.field0 = b->nnum;
+            b->nnum += NUMLINE_VALS;
+            b->line[b->nline++] = l;
+            at = l.end + 1;
+            continue;
+        }
         l.end = split_parse_line(a->cls, u, at, b->len, (unsigned char)a->decimal, starts, fs,
                                  &l.nf, &l.plain, &l.term);
-        if (grow((void **)&b->line, &b->cap_line, b->nline + 1, sizeof *b->line) != 0) {
-            b->oom = 1;
-            return 0;
-        }
         l.plain = l.plain && l.end < b->len && l.end - at <= FAST_MAX_LINE;
         l.field0 = b->nfield;
         if (l.plain) {
             size_t need = b->nfield + (size_t)l.nf + 1;
-            if (grow((void **)&b->start, &b->cap_start, need, sizeof *b->start) != 0 ||
-                grow((void **)&b->pre, &b->cap_pre, need, sizeof *b->pre) != 0) {
+            if (!room((void **)&b->start, &b->cap_start, need, sizeof *b->start) ||
+                !room((void **)&b->pre, &b->cap_pre, need, sizeof *b->pre)) {
                 b->oom = 1;
-                return 0;
+                return;
             }
             for (int k = 0; k <= l.nf; k++)
                 b->start[b->nfield + (size_t)k] = starts[k];
@@ -1488,28 +2016,59 @@ static int ahead_fill(struct ahead *a, struct ahead_block *b)
             break;
         at = l.end + 1;
     }
-    return b->len > 0 && !b->read_errno;
 }
 
+/* The oldest block read and not yet claimed, from block k on, or NULL;
+ * under the mutex. */
+static struct ahead_block *unclaimed(struct ahead *a, size_t k)
+{
+    for (; k < a->nread; k++)
+        if (a->blk[k % AHEAD_BLOCKS].state == BLK_READ)
+            return &a->blk[k % AHEAD_BLOCKS];
+    return NULL;
+}
+
+/* Parses a claimed block and hands it back; called without the mutex. */
+static void parse_claimed(struct ahead *a, struct ahead_block *b)
+{
+    ahead_parse(a, b);
+    pthread_mutex_lock(&a->mu);
+    b->state = BLK_PARSED;
+    pthread_cond_broadcast(&a->cv);
+    pthread_mutex_unlock(&a->mu);
+}
+
+/* The second thread: reads while the ring has room, else parses the oldest
+ * block read. */
 static void *ahead_run(void *va)
 {
     struct ahead *a = va;
-    for (int i = 0;; i ^= 1) {
-        pthread_mutex_lock(&a->mu);
-        while (a->full[i] && !a->stop)
-            pthread_cond_wait(&a->cv, &a->mu);
-        int stop = a->stop;
-        pthread_mutex_unlock(&a->mu);
-        if (stop)
+    pthread_mutex_lock(&a->mu);
+    while (!a->stop) {
+        struct ahead_block *b = &a->blk[a->nread % AHEAD_BLOCKS];
+        if (!a->ended && b->state == BLK_FREE && a->nread - a->ntaken < AHEAD_BLOCKS) {
+            pthread_mutex_unlock(&a->mu);
+            int more = ahead_read(a, b);
+            pthread_mutex_lock(&a->mu);
+            b->state = BLK_READ;
+            a->nread++;
+            a->ended = !more;
+            pthread_cond_broadcast(&a->cv);
+            continue;
+        }
+        b = a->split == LOGREAD_SPLIT_READER ? NULL : unclaimed(a, a->ntaken);
+        if (b) {
+            b->state = BLK_PARSING;
+            pthread_mutex_unlock(&a->mu);
+            parse_claimed(a, b);
+            pthread_mutex_lock(&a->mu);
+            continue;
+        }
+        if (a->ended)
             break;
-        int more = ahead_fill(a, &a->blk[i]);
-        pthread_mutex_lock(&a->mu);
-        a->full[i] = 1;
-        pthread_cond_broadcast(&a->cv);
-        pthread_mutex_unlock(&a->mu);
-        if (!more)
-            break;
+        pthread_cond_wait(&a->cv, &a->mu);
     }
+    pthread_mutex_unlock(&a->mu);
     return NULL;
 }
 
@@ -1517,13 +2076,33 @@ static void *ahead_run(void *va)
 static void feed_ahead(struct reader *r, struct csv_parser *p, const struct ahead_block *b)
 {
     size_t at = 0;
+    struct numrun q;
+    int run = 0;
     for (size_t li = 0; li < b->nline; li++) {
         const struct ahead_line *l = &b->line[li];
+        if (l->numeric && (run || at_record_start(r, p))) {
+            if (!run && numrun_ok(r)) {
+                numrun_begin(&q, r);
+                run = 1;
+            }
+            if (!run)
+                take_numline(r, b->num + l->field0, l->term);
+            else if (numrun_line(&q, b->num + l->field0, l->term) != 0) {
+                numrun_end(&q); /* out of memory: the reader has failed */
+                return;
+            }
+            at = l->end + 1;
+            continue;
+        }
+        if (run) {
+            numrun_end(&q);
+            run = 0;
+        }
         if (l->end == b->len) {
             feed_csv(r, p, b->buf + at, b->len - at);
             return;
         }
-        if (!(l->plain && r->mapped && at_record_start(r, p))) {
+        if (!(l->plain && !l->numeric && r->mapped && at_record_start(r, p))) {
             feed_csv(r, p, b->buf + at, l->end + 1 - at);
             at = l->end + 1;
             continue;
@@ -1538,68 +2117,123 @@ static void feed_ahead(struct reader *r, struct csv_parser *p, const struct ahea
         on_row(l->term == FAST_CR ? '\r' : '\n', r);
         at = l->end + 1;
     }
+    if (run)
+        numrun_end(&q);
 }
 
 static void ahead_release(struct ahead *a)
 {
-    for (int i = 0; i < 2; i++) {
+    for (int i = 0; i < AHEAD_BLOCKS; i++) {
         free(a->blk[i].buf);
         free(a->blk[i].line);
         free(a->blk[i].start);
         free(a->blk[i].pre);
+        free(a->blk[i].num);
     }
 }
 
-/* Reads the rest of fp through a second thread; returns 0, or -1 when
- * the thread cannot start (nothing read yet: the caller reads on). The
- * block's last byte goes in *last. */
-static int read_ahead(struct reader *r, struct csv_parser *p, FILE *fp, char *last)
+/* The next block in order for the reader, read (and parsed, or claimed for
+ * this thread to read with feed(): *own); NULL when every block is taken.
+ * While it waits, this thread parses a later block. */
+static struct ahead_block *next_block(struct ahead *a, int *own)
 {
-    struct ahead a = {
-        .fp = fp, .decimal = r->st->decimal, .col_slot = r->col_slot, .ncols = r->ncols};
-    fast_classes(a.cls, r->st->delimiter);
+    pthread_mutex_lock(&a->mu);
+    struct ahead_block *b = &a->blk[a->ntaken % AHEAD_BLOCKS];
+    for (;;) {
+        if (a->ntaken < a->nread && b->state == BLK_PARSED) {
+            *own = 0;
+            break;
+        }
+        if (a->ntaken < a->nread && b->state == BLK_READ && a->split != LOGREAD_SPLIT_THREAD) {
+            b->state = BLK_PARSING;
+            *own = 1;
+            break;
+        }
+        if (a->ntaken == a->nread && a->ended) {
+            b = NULL;
+            break;
+        }
+        struct ahead_block *later =
+            a->split == LOGREAD_SPLIT_BOTH ? unclaimed(a, a->ntaken + 1) : NULL;
+        if (later) {
+            later->state = BLK_PARSING;
+            pthread_mutex_unlock(&a->mu);
+            parse_claimed(a, later);
+            pthread_mutex_lock(&a->mu);
+            continue;
+        }
+        pthread_cond_wait(&a->cv, &a->mu);
+    }
+    pthread_mutex_unlock(&a->mu);
+    return b;
+}
+
+/* Starts the second thread reading the rest of fp (the reader's layout is
+ * known); returns 0, or -1 when it cannot start (nothing read: the caller
+ * reads on). */
+static int ahead_start(struct ahead *a_out, const struct reader *r, FILE *fp)
+{
+    *a_out = (struct ahead){.fp = fp,
+                            .decimal = r->st->decimal,
+                            .col_slot = r->col_slot,
+                            .ncols = r->ncols,
+                            .split = r->opts->ahead_split};
+    struct ahead *a = a_out;
+    fast_classes(a->cls, r->st->delimiter);
+    a->numeric = numline_ok(r);
+    numline_init(&a->nl, r);
     /* the tables sized here for lines of 16 bytes or more, so that the
      * thread, which grows them only for shorter lines, keeps no heap of
      * its own */
-    for (int i = 0; i < 2; i++) {
-        struct ahead_block *b = &a.blk[i];
-        b->buf = malloc(AHEAD_BYTES);
+    for (int i = 0; i < AHEAD_BLOCKS; i++) {
+        struct ahead_block *b = &a->blk[i];
+        b->buf = malloc(AHEAD_BYTES + 1);
         if (!b->buf || grow((void **)&b->line, &b->cap_line, AHEAD_BYTES / 16, sizeof *b->line) ||
+            grow((void **)&b->num, &b->cap_num, AHEAD_BYTES / 16 * NUMLINE_VALS, sizeof *b->num) ||
             grow((void **)&b->start, &b->cap_start, AHEAD_BYTES / 4, sizeof *b->start) ||
             grow((void **)&b->pre, &b->cap_pre, AHEAD_BYTES / 4, sizeof *b->pre)) {
-            ahead_release(&a);
+            ahead_release(a);
             return -1;
         }
     }
-    if (pthread_mutex_init(&a.mu, NULL) != 0) {
-        ahead_release(&a);
+    if (pthread_mutex_init(&a->mu, NULL) != 0) {
+        ahead_release(a);
         return -1;
     }
-    if (pthread_cond_init(&a.cv, NULL) != 0) {
-        pthread_mutex_destroy(&a.mu);
-        ahead_release(&a);
+    if (pthread_cond_init(&a->cv, NULL) != 0) {
+        pthread_mutex_destroy(&a->mu);
+        ahead_release(a);
         return -1;
     }
-    if (pthread_create(&a.tid, NULL, ahead_run, &a) != 0) {
-        pthread_cond_destroy(&a.cv);
-        pthread_mutex_destroy(&a.mu);
-        ahead_release(&a);
+    if (pthread_create(&a->tid, NULL, ahead_run, a) != 0) {
+        pthread_cond_destroy(&a->cv);
+        pthread_mutex_destroy(&a->mu);
+        ahead_release(a);
         return -1;
     }
-    for (int i = 0; !r->failed; i ^= 1) {
-        pthread_mutex_lock(&a.mu);
-        while (!a.full[i])
-            pthread_cond_wait(&a.cv, &a.mu);
-        pthread_mutex_unlock(&a.mu);
-        const struct ahead_block *b = &a.blk[i];
-        if (b->oom) {
+    return 0;
+}
+
+/* Takes the blocks of the rest of the file in order (the last one's last
+ * byte in *last), then stops the second thread and frees the ring. */
+static void ahead_take(struct ahead *a, struct reader *r, struct csv_parser *p, char *last)
+{
+    while (!r->failed) {
+        int own = 0;
+        struct ahead_block *b = next_block(a, &own);
+        if (!b)
+            break;
+        if (!own && b->oom) {
             fail(r, PB_ENOMEM, 0, 0, "out of memory%s", NULL);
             break;
         }
         if (b->len > 0) {
             if (r->opts->on_block)
                 r->opts->on_block(r->opts->block_ctx, b->buf, b->len);
-            feed_ahead(r, p, b);
+            if (own)
+                feed(r, p, b->buf, b->len);
+            else
+                feed_ahead(r, p, b);
             *last = b->buf[b->len - 1];
         }
         if (b->read_errno) {
@@ -1609,20 +2243,20 @@ static int read_ahead(struct reader *r, struct csv_parser *p, FILE *fp, char *la
         }
         if (b->len == 0)
             break;
-        pthread_mutex_lock(&a.mu);
-        a.full[i] = 0;
-        pthread_cond_broadcast(&a.cv);
-        pthread_mutex_unlock(&a.mu);
+        pthread_mutex_lock(&a->mu);
+        b->state = BLK_FREE;
+        a->ntaken++;
+        pthread_cond_broadcast(&a->cv);
+        pthread_mutex_unlock(&a->mu);
     }
-    pthread_mutex_lock(&a.mu);
-    a.stop = 1;
-    pthread_cond_broadcast(&a.cv);
-    pthread_mutex_unlock(&a.mu);
-    pthread_join(a.tid, NULL);
-    pthread_cond_destroy(&a.cv);
-    pthread_mutex_destroy(&a.mu);
-    ahead_release(&a);
-    return 0;
+    pthread_mutex_lock(&a->mu);
+    a->stop = 1;
+    pthread_cond_broadcast(&a->cv);
+    pthread_mutex_unlock(&a->mu);
+    pthread_join(a->tid, NULL);
+    pthread_cond_destroy(&a->cv);
+    pthread_mutex_destroy(&a->mu);
+    ahead_release(a);
 }
 
 /* The earliest line any sample was dropped at, 0 when none was. */
@@ -1745,15 +2379,19 @@ struct series *logread_file(FILE *fp, const char *name, const struct logread_opt
     r.err = err;
     r.line = 1;
     r.record_line = 1;
+    r.max_a = LOGREAD_MAX_CURRENT_A;
+    if (opts->rated_mah > 0.0)
+        r.max_a = fmin(r.max_a, LOGREAD_MAX_C_RATE * opts->rated_mah / 1000.0);
     for (int s = 0; s < NSLOTS; s++)
         r.slot_col[s] = -1;
 
-    buf = malloc(BLOCK_BYTES);
+    buf = malloc(BLOCK_BYTES + 1); /* + a stop byte for numline_scan */
     if (!buf) {
         pb_error_set(err, PB_ENOMEM, "out of memory");
         goto cleanup;
     }
     size_t len = fread(buf, 1, BLOCK_BYTES, fp);
+    buf[len] = '\0';
     if (opts->on_block && len)
         opts->on_block(opts->block_ctx, buf, len);
     if (ferror(fp)) {
@@ -1807,12 +2445,28 @@ struct series *logread_file(FILE *fp, const char *name, const struct logread_opt
     csv_set_realloc_func(&p, bounded_realloc);
     csv_set_free_func(&p, free);
 
-    feed(&r, &p, buf + start, len - start);
+    /* a long log (its first block full) is read ahead when a core is free:
+     * the second thread starts once the layout is known, at the first line
+     * end past AHEAD_START, and reads and parses the blocks after the first
+     * while this thread reads the rest of it */
+    int can_ahead = len == BLOCK_BYTES && !opts->no_fast_path && sysconf(_SC_NPROCESSORS_ONLN) > 1;
+    size_t cut = len - start;
+    const char *eol = can_ahead && cut > AHEAD_START
+                          ? memchr(buf + start + AHEAD_START, '\n', cut - AHEAD_START)
+                          : NULL;
+    if (eol) /* every line scanned before the cut ends before it: no stop byte needed */
+        cut = (size_t)(eol + 1 - (buf + start));
+    struct ahead a;
+    feed(&r, &p, buf + start, cut);
+    int ahead = can_ahead && r.mapped && !r.failed && ahead_start(&a, &r, fp) == 0;
+    feed(&r, &p, buf + start + cut, len - start - cut);
+    if (!ahead && can_ahead && r.mapped && !r.failed)
+        ahead = ahead_start(&a, &r, fp) == 0;
     char last = buf[len - 1];
-    /* a long log (its first block full) is read ahead when a core is free */
-    int ahead = len == BLOCK_BYTES && r.mapped && !r.failed && !opts->no_fast_path &&
-                sysconf(_SC_NPROCESSORS_ONLN) > 1 && read_ahead(&r, &p, fp, &last) == 0;
+    if (ahead)
+        ahead_take(&a, &r, &p, &last);
     while (!ahead && !r.failed && (len = fread(buf, 1, BLOCK_BYTES, fp)) > 0) {
+        buf[len] = '\0';
         if (opts->on_block)
             opts->on_block(opts->block_ctx, buf, len);
         feed(&r, &p, buf, len);
@@ -1845,11 +2499,14 @@ struct series *logread_file(FILE *fp, const char *name, const struct logread_opt
                      name);
         goto cleanup;
     }
+    r.n_read = r.s->n;
     settle_cells(&r);
     if (r.failed)
         goto cleanup;
     if (r.s->n > 1) {
-        order_times(&r);
+        /* times that only rise (most logs) leave order_times nothing to do */
+        if (r.not_rising)
+            order_times(&r);
         if (r.failed)
             goto cleanup;
         /* a clock restarts now and then, a buffered logger writes a row late
@@ -1862,7 +2519,7 @@ struct series *logread_file(FILE *fp, const char *name, const struct logread_opt
                          name, first_back_line(stats), stats->time_column, stats->time_back_steps);
             goto cleanup;
         }
-        drop_spikes(&r);
+        spikes_and_counts(&r);
     }
     size_t need = opts && opts->min_samples ? opts->min_samples : 2;
     if (r.s->n < need || r.s->n == 0) {

@@ -1,10 +1,11 @@
 /* logread: one flight log (CSV-like text) into a series.
  *
  * Owns the dialect detection and the per-sample checks. Reads a FILE in
- * large blocks through libcsv (plain numeric lines split by its own fast
- * path, the same fields) and never holds the whole text; past the first
- * block of a long log, a second thread reads and parses ahead when a core
- * is free (the same fields and numbers in the same order). Every sample
+ * large blocks through libcsv (plain lines split by its own fast path, the
+ * same fields; lines of plain numbers read in one walk, the same numbers)
+ * and never holds the whole text; past the first block of a long log, a
+ * second thread reads ahead when a core is free and both threads parse
+ * (the same fields and numbers, taken in the same order). Every sample
  * it drops or repairs is counted in struct logread_stats with the first
  * place (line, column) it happened. The caller owns the returned series.
  *
@@ -62,6 +63,14 @@ struct logread_opts {
     void (*on_block)(void *ctx, const char *buf, size_t len);
     void *block_ctx;
     int no_fast_path; /* every line through libcsv (tests compare the two paths) */
+    int ahead_split;  /* who parses a long log's blocks after the first (tests take each
+                         way): LOGREAD_SPLIT_BOTH, _THREAD or _READER */
+};
+
+enum {
+    LOGREAD_SPLIT_BOTH = 0, /* both threads, whichever is free (the default) */
+    LOGREAD_SPLIT_THREAD,   /* the read-ahead thread parses every block into tables */
+    LOGREAD_SPLIT_READER,   /* the reading thread parses every block itself */
 };
 
 /* A cell column left out: the log is read with the other cells. */

@@ -11,7 +11,10 @@
 
 #include <cmocka.h>
 #include <dirent.h>
+#include <pthread.h>
+#include <signal.h>
 #include <sys/stat.h>
+#include <unistd.h>
 
 #include "logread.h"
 #include "testutil.h"
@@ -286,6 +289,49 @@ static void test_voltage_spike_is_not_a_crossing(void **state)
     series_free(s);
 }
 
+/* A long log (its spike pass split between two threads at the middle
+ * sample): a spike on either side of the split, or on it, is found, and a
+ * log without one keeps every sample and is judged discharge-negative from
+ * counts made in that pass. The expected values are the logs' own: one
+ * 3 V sample among 16.4-16.8 V ones (falling) at a steady current. */
+static void test_spikes_on_a_long_log(void **state)
+{
+    (void)state;
+    const int rows = 200000;
+    size_t cap = (size_t)rows * 32 + 64;
+    char *text = malloc(cap);
+    assert_non_null(text);
+    const int spikes[] = {0, rows / 2 - 1, rows / 2, rows / 2 + 1, rows - 3, 77777};
+    for (size_t t = 0; t < sizeof spikes / sizeof *spikes; t++) {
+        size_t len = (size_t)snprintf(text, cap, "time_s,voltage_v,current_a\n");
+        for (int k = 0; k < rows; k++) /* spike 0: none, a discharge logged negative */
+            len += (size_t)snprintf(text + len, cap - len, "%d.5,%.6f,%s10\n", k,
+                                    spikes[t] && k == spikes[t] ? 3.0 : 16.8 - k * 2e-6,
+                                    spikes[t] ? "" : "-");
+        struct logread_opts o = {0};
+        struct logread_stats st;
+        struct pb_error err = {0};
+        FILE *fp = fmemopen(text, len, "r");
+        assert_non_null(fp);
+        struct series *s = logread_file(fp, "long.csv", &o, &st, &err);
+        fclose(fp);
+        assert_non_null(s);
+        if (spikes[t]) {
+            assert_int_equal(s->n, rows - 1);
+            assert_int_equal(st.glitch_spike.count, 1);
+            assert_int_equal(st.glitch_spike.first_line, spikes[t] + 2); /* header, 0-based */
+            assert_int_equal(st.sign_flipped, 0);
+        } else {
+            assert_int_equal(s->n, rows);
+            assert_int_equal(st.glitch_spike.count, 0);
+            assert_int_equal(st.sign_flipped, 1);
+            check_close(s->i_a[rows / 2], 10.0, 0.0, "flipped to discharge-positive");
+        }
+        series_free(s);
+    }
+    free(text);
+}
+
 static void test_headerless_needs_columns(void **state)
 {
     (void)state;
@@ -390,42 +436,111 @@ static int same_doubles(const double *a, const double *b, size_t n)
     return (!a && !b) || (a && b && memcmp(a, b, n * sizeof *a) == 0);
 }
 
-/* Reads text both ways (plain lines split by the reader itself, or every
- * line through libcsv) and fails unless the series, the counted events
- * and the error are the same bit for bit. */
+/* Where a log is read from: memory (fmemopen), a regular file, a pipe (no
+ * seeking, reads that return what the writer has written so far). */
+enum source { SRC_MEMORY, SRC_FILE, SRC_PIPE };
+
+struct pipe_writer {
+    int fd;
+    const char *text;
+    size_t len;
+};
+
+static void *write_all(void *va)
+{
+    struct pipe_writer *w = va;
+    size_t at = 0;
+    while (at < w->len) {
+        /* odd sizes, so reads end anywhere */
+        size_t n = w->len - at < 4093 ? w->len - at : 4093;
+        ssize_t done = write(w->fd, w->text + at, n);
+        if (done <= 0)
+            break; /* the reader stopped early (EPIPE: SIGPIPE is ignored) */
+        at += (size_t)done;
+    }
+    close(w->fd);
+    return NULL;
+}
+
+static struct series *read_from(const char *text, size_t len, enum source src,
+                                const struct logread_opts *o, struct logread_stats *st,
+                                struct pb_error *err)
+{
+    struct series *s;
+    if (src == SRC_PIPE) {
+        int fd[2];
+        assert_int_equal(pipe(fd), 0);
+        struct pipe_writer w = {fd[1], text, len};
+        pthread_t t;
+        assert_int_equal(pthread_create(&t, NULL, write_all, &w), 0);
+        FILE *fp = fdopen(fd[0], "r");
+        assert_non_null(fp);
+        s = logread_file(fp, "f.csv", o, st, err);
+        fclose(fp);
+        pthread_join(t, NULL);
+        return s;
+    }
+    FILE *fp;
+    if (src == SRC_FILE || len == 0) {
+        fp = tmpfile();
+        assert_non_null(fp);
+        assert_int_equal(fwrite(text, 1, len, fp), len);
+        rewind(fp);
+    } else {
+        fp = fmemopen((void *)text, len, "r");
+    }
+    assert_non_null(fp);
+    s = logread_file(fp, "f.csv", o, st, err);
+    fclose(fp);
+    return s;
+}
+
+/* Reads text both ways (numeric and plain lines split by the reader itself,
+ * past the first block parsed by either thread or both, or every line
+ * through libcsv from memory) and fails unless the series, the counted
+ * events and the error are the same bit for bit. */
+static void check_paths_agree_from(const char *text, size_t len, const char *what,
+                                   const struct logread_opts *base, enum source src)
+{
+    static const int splits[] = {LOGREAD_SPLIT_BOTH, LOGREAD_SPLIT_THREAD, LOGREAD_SPLIT_READER};
+    for (size_t sp = 0; sp < sizeof splits / sizeof *splits; sp++) {
+        struct logread_opts o[2] = {*base, *base};
+        o[0].ahead_split = splits[sp];
+        o[1].no_fast_path = 1;
+        struct logread_stats st[2];
+        struct pb_error err[2] = {{0}, {0}};
+        struct series *s[2];
+        for (int k = 0; k < 2; k++)
+            s[k] = read_from(text, len, k == 0 ? src : SRC_MEMORY, &o[k], &st[k], &err[k]);
+        if (memcmp(&st[0], &st[1], sizeof st[0]) != 0 || strcmp(err[0].msg, err[1].msg) != 0 ||
+            err[0].code != err[1].code || !s[0] != !s[1])
+            fail_msg("%s: the two read paths differ (split %d, source %d: %s | %s)", what,
+                     splits[sp], (int)src, err[0].msg, err[1].msg);
+        if (s[0]) {
+            const struct series *a = s[0], *b = s[1];
+            int same = a->n == b->n && a->ncells == b->ncells && a->nseg == b->nseg &&
+                       a->has_epoch == b->has_epoch && a->start_epoch_s == b->start_epoch_s &&
+                       same_doubles(a->t_s, b->t_s, a->n) && same_doubles(a->v_v, b->v_v, a->n) &&
+                       same_doubles(a->i_a, b->i_a, a->n) &&
+                       same_doubles(a->temp_c, b->temp_c, a->n) &&
+                       memcmp(a->line, b->line, a->n * sizeof *a->line) == 0 &&
+                       (a->nseg == 0 ||
+                        memcmp(a->seg_start, b->seg_start, a->nseg * sizeof *a->seg_start) == 0);
+            for (int c = 0; same && c < a->ncells; c++)
+                same = same_doubles(a->cell_v[c], b->cell_v[c], a->n);
+            if (!same)
+                fail_msg("%s: the two read paths give different series (split %d, source %d)", what,
+                         splits[sp], (int)src);
+        }
+        series_free(s[0]);
+        series_free(s[1]);
+    }
+}
+
 static void check_paths_agree(const char *text, size_t len, const char *what,
                               const struct logread_opts *base)
 {
-    struct logread_opts o[2] = {*base, *base};
-    o[1].no_fast_path = 1;
-    struct logread_stats st[2];
-    struct pb_error err[2] = {{0}, {0}};
-    struct series *s[2];
-    for (int k = 0; k < 2; k++) {
-        FILE *fp = fmemopen((void *)text, len, "r");
-        assert_non_null(fp);
-        s[k] = logread_file(fp, "f.csv", &o[k], &st[k], &err[k]);
-        fclose(fp);
-    }
-    if (memcmp(&st[0], &st[1], sizeof st[0]) != 0 || strcmp(err[0].msg, err[1].msg) != 0 ||
-        err[0].code != err[1].code || !s[0] != !s[1])
-        fail_msg("%s: the two read paths differ (%s | %s)", what, err[0].msg, err[1].msg);
-    if (s[0]) {
-        const struct series *a = s[0], *b = s[1];
-        int same = a->n == b->n && a->ncells == b->ncells && a->nseg == b->nseg &&
-                   a->has_epoch == b->has_epoch && a->start_epoch_s == b->start_epoch_s &&
-                   same_doubles(a->t_s, b->t_s, a->n) && same_doubles(a->v_v, b->v_v, a->n) &&
-                   same_doubles(a->i_a, b->i_a, a->n) && same_doubles(a->temp_c, b->temp_c, a->n) &&
-                   memcmp(a->line, b->line, a->n * sizeof *a->line) == 0 &&
-                   (a->nseg == 0 ||
-                    memcmp(a->seg_start, b->seg_start, a->nseg * sizeof *a->seg_start) == 0);
-        for (int c = 0; same && c < a->ncells; c++)
-            same = same_doubles(a->cell_v[c], b->cell_v[c], a->n);
-        if (!same)
-            fail_msg("%s: the two read paths give different series", what);
-    }
-    series_free(s[0]);
-    series_free(s[1]);
+    check_paths_agree_from(text, len, what, base, SRC_MEMORY);
 }
 
 static size_t check_dir(const char *dir)
@@ -466,6 +581,29 @@ static size_t check_dir(const char *dir)
     return files;
 }
 
+static void test_fast_path_same_on_tiny_files(void **state)
+{
+    (void)state;
+    static const char *tiny[] = {
+        "",
+        "\n",
+        "time_s,voltage_v,current_a",
+        "time_s,voltage_v,current_a\n",
+        "time_s,voltage_v,current_a\n0,16.1,2",
+        "time_s,voltage_v,current_a\n0,16.1,2\n",
+        "time_s,voltage_v,current_a\r\n0,16.1,2\r\n1,16.0,2\r\n",
+        "time_s,voltage_v,current_a\r0,16.1,2\r1,16.0,2\r",
+        "time_s,voltage_v,current_a\n0,16.1,2\n1,16.0,2\n1,16.0,2\n0.5,16.0,2\n2,16,2",
+        "time_s,voltage_v,current_a\n# c\n\n0,16.1,2\n1,,2\n2,16.0\n3,16,2,4\n4,1e1,2\n5,16,2\n",
+        "time_ms,voltage_mv,current_ma\n0,16100,2000\n100,16000,2000\n",
+        "t,v,i\n1700000000.5,16.1,2\n1700000001.5,16.0,2\n"};
+    for (size_t k = 0; k < sizeof tiny / sizeof *tiny; k++) {
+        struct logread_opts plain = {0};
+        check_paths_agree_from(tiny[k], strlen(tiny[k]), tiny[k], &plain, SRC_FILE);
+        check_paths_agree_from(tiny[k], strlen(tiny[k]), tiny[k], &plain, SRC_PIPE);
+    }
+}
+
 static void test_fast_path_same_on_every_file(void **state)
 {
     (void)state;
@@ -487,7 +625,16 @@ static void test_fast_path_same_across_blocks(void **state)
         /* number shapes the reader's own parse takes or hands to num_parse */
         "%d.5,-16.10,-2\n", "%d.5,16.,2\n", "%d.5,.5,2\n", "%d.5,1.6e1,2\n", "%d.5,+16.1,2\n",
         "%d.5,16.1.1,2\n", "%d.5,-,2\n", "%d.5,1-6,2\n", "%d.5,16.100000000000000000001,2\n",
-        "%d.5,12345678901234567890,2\n", "%d.5,9007199254740993,2\n", "%d.50000,16.1,02\n"};
+        "%d.5,12345678901234567890,2\n", "%d.5,9007199254740993,2\n", "%d.50000,16.1,02\n",
+        /* what the numeric-line path (numline_scan) must hand on, or take */
+        "#%d.5,16.1,2\n", "%d.5,16.1,2,\n", "%d.5,16.1\r\n", "%d.5,-0,2\n", "%d.5,0016.100,2\n",
+        "%d.5,16.1,2\r\r\n", "%d.5,0000000000000000016.10,2\n", "%d.5,16.100000000000000000,2\n",
+        "%d.5,16.1;2\n", "%d,16.1,2\n", "%d.5,16.1,2\n\n", "%d.5,16.1,-\n", "%d.5,16.1,.\n",
+        "%d.5,16.1,2.\r", "%d.5,16.1,+2\n", "%d.5,1e1,2\n", "%d.5,16.1,2 \n", "%d.5,16.1,\"2\"\n",
+        "%d.5,16.1,2\t\n", "%d.5,16.1,2\x01\n",
+        /* numeric lines the keep logic drops: glitches, a time seen before */
+        "%d.5,999.9,2\n", "%d.5,0.1,2\n", "%d.5,16.1,200000\n", "%d.5,16.1,-200000\n",
+        "%1$d.75,16.1,2\n%1$d.75,16.2,2\n"};
     size_t cap = 3u << 20, len = 0;
     char *text = malloc(cap);
     assert_non_null(text);
@@ -495,7 +642,7 @@ static void test_fast_path_same_across_blocks(void **state)
     unsigned seed = 14;
     for (int k = 1; len + 64 < cap; k++) {
         seed = seed * 1103515245u + 12345u;
-        unsigned pick = (seed >> 16) % 40;
+        unsigned pick = (seed >> 16) % 90;
         if (pick < (sizeof odd / sizeof *odd))
             len += (size_t)snprintf(text + len, cap - len, odd[pick], k);
         else
@@ -504,8 +651,38 @@ static void test_fast_path_same_across_blocks(void **state)
     }
     struct logread_opts o = {0};
     /* past the first 1 MiB block, a machine with a second core reads the
-     * rest ahead in 256 KiB blocks (logread.c, read_ahead): compared too */
+     * rest ahead in 256 KiB blocks (logread.c, ahead_start), parsed by either
+     * thread: compared too, from memory, a file and a pipe */
     check_paths_agree(text, len, "generated 3 MiB log", &o);
+    check_paths_agree_from(text, len, "generated 3 MiB log in a file", &o, SRC_FILE);
+    check_paths_agree_from(text, len, "generated 3 MiB log through a pipe", &o, SRC_PIPE);
+    /* a log of nothing but numeric lines (the benchmark's kind), CR LF ends */
+    size_t plen = (size_t)snprintf(text, cap, "time_s,voltage_v,current_a,temp_c\r\n");
+    for (int k = 0; plen + 64 < cap; k++)
+        plen +=
+            (size_t)snprintf(text + plen, cap - plen, "%d.%03d,%.3f,%.3f,%d\r\n", k / 10,
+                             k % 10 * 100, 16.8 - k * 1e-6, 9.0 + (k * 7 % 13) * 0.25, 20 + k % 5);
+    check_paths_agree(text, plen, "numeric 3 MiB log", &o);
+    /* the second thread starts once the layout is known, 64 KiB into the
+     * first block, or after that block: comments before the header, or
+     * before the first data line, for 70 KiB */
+    for (int where = 0; where < 2; where++) {
+        size_t clen = 0;
+        if (where == 1)
+            clen += (size_t)snprintf(text, cap, "time_s,voltage_v,current_a\n");
+        while (clen < (70u << 10))
+            clen += (size_t)snprintf(text + clen, cap - clen, "# a comment line\n");
+        if (where == 0)
+            clen += (size_t)snprintf(text + clen, cap - clen, "time_s,voltage_v,current_a\n");
+        for (int k = 0; clen + 64 < cap; k++)
+            clen +=
+                (size_t)snprintf(text + clen, cap - clen, "%d.25,%.3f,9.5\n", k, 16.8 - k * 1e-6);
+        check_paths_agree(text, clen, where ? "data after 70 KiB" : "header after 70 KiB", &o);
+    }
+    /* with a pack's cells and a small rating: currents over 200 C dropped */
+    struct logread_opts rated = {.cells = 4, .rated_mah = 55};
+    check_paths_agree(text, plen, "numeric 3 MiB log, rated", &rated);
+    check_paths_agree_from(text, plen, "numeric 3 MiB log through a pipe", &o, SRC_PIPE);
     /* the same cut at every length near a block boundary, of the first
      * block and of the read-ahead blocks after it */
     for (size_t cut = (1u << 20) - 40; cut < (1u << 20) + 40; cut += 7)
@@ -628,6 +805,7 @@ static void test_missing_cell_drops_the_cell(void **state)
 
 int main(void)
 {
+    signal(SIGPIPE, SIG_IGN); /* a reader that stops early closes the test's pipe */
     const struct CMUnitTest tests[] = {
         cmocka_unit_test(test_semicolon_decimal_comma_ms_mv),
         cmocka_unit_test(test_tab_quotes_trailing_empty),
@@ -638,11 +816,13 @@ int main(void)
         cmocka_unit_test(test_time_that_is_not_a_clock),
         cmocka_unit_test(test_glitches_dropped_with_place),
         cmocka_unit_test(test_voltage_spike_is_not_a_crossing),
+        cmocka_unit_test(test_spikes_on_a_long_log),
         cmocka_unit_test(test_headerless_needs_columns),
         cmocka_unit_test(test_epoch_and_iso),
         cmocka_unit_test(test_cells_and_sign),
         cmocka_unit_test(test_adc_sense_chain),
         cmocka_unit_test(test_field_too_long),
+        cmocka_unit_test(test_fast_path_same_on_tiny_files),
         cmocka_unit_test(test_fast_path_same_on_every_file),
         cmocka_unit_test(test_fast_path_same_across_blocks),
         cmocka_unit_test(test_clock_time_and_ignored_names),
