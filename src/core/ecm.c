@@ -149,9 +149,10 @@ static struct win *make_windows(const struct series *s, double win_s, double gap
     if (!w)
         return NULL;
     size_t k0 = 0;
+    const int joints = s->nseg > 1; /* else no call per sample */
     for (size_t k = 1; k <= s->n; k++) {
         int cut = k == s->n || s->t_s[k] - s->t_s[k - 1] > gap_s ||
-                  s->t_s[k] - s->t_s[k0] > win_s || series_is_joint(s, k);
+                  s->t_s[k] - s->t_s[k0] > win_s || (joints && series_is_joint(s, k));
         if (!cut)
             continue;
         if (k - k0 >= WINDOW_MIN_ROWS) {
@@ -739,7 +740,9 @@ struct ecm_run *ecm_begin(const struct series *s, const double *q_ah, const stru
         for (size_t k = w->k0; k < w->k1; k++) {
             double d = s->i_a[k] - (w->mi + w->bi * (q_ah[k] - w->mq));
             ss += d * d;
-            vmin = fmin(vmin, s->v_v[k]);
+            /* fmin without a call per sample: the reader keeps no voltage
+             * that is not a number */
+            vmin = s->v_v[k] < vmin ? s->v_v[k] : vmin;
         }
         double n = (double)(w->k1 - w->k0);
         w->use = ss > 25.0 * sigma_i * sigma_i * n && ss > 1e-12 * n &&
