@@ -12,6 +12,7 @@
 
 #include "isotime.h"
 #include "numparse.h"
+#include "twin.h"
 
 #define BLOCK_BYTES (1u << 20)
 #define SNIFF_LINES 32
@@ -59,10 +60,9 @@ struct reader {
     int have_temp_prev;
     int not_rising; /* a kept time was not above the one before (order_times has work) */
     double max_a;   /* |current| above this is a glitch */
-    double peak_a;  /* the largest |current| of the samples kept while reading */
-    size_t n_read;  /* samples when the reading was done (peak_a holds while s->n is this) */
+    double peak_a;  /* the largest |current| of the series (kept_peak_a) */
+    size_t peak_n;  /* the sample count peak_a holds for (samples are only dropped after reading) */
     int counted;    /* the sign check's counts, made by spikes_and_counts, still hold */
-    double counted_imax;
     size_t counted_loaded[2]; /* loaded samples, negative ones */
 
     double val[NSLOTS];
@@ -1121,14 +1121,57 @@ static void order_times(struct reader *r)
 /* Drops a voltage that leaves both its neighbours (in its segment) by more
  * than LOGREAD_SPIKE_FRACTION for one sample while the current holds steady
  * across all three: no cell does that, a sensor or a logger does. */
+/* The largest |current| now in the series (0 without a current): the one
+ * taken while reading, walked again only after samples were dropped. */
+static double kept_peak_a(struct reader *r)
+{
+    const struct series *s = r->s;
+    if (!s->i_a)
+        return 0.0;
+    if (s->n != r->peak_n) {
+        r->peak_a = abs_max(s->i_a, s->n);
+        r->peak_n = s->n;
+    }
+    return r->peak_a;
+}
+
+/* The spike test of sample k against its neighbours kp (the last kept) and
+ * k + 1: a voltage that leaves both by more than LOGREAD_SPIKE_FRACTION
+ * while the current holds within tol_a across the three (a current that
+ * moves on either side explains the voltage: a load switched off right
+ * after the cut-off sample, say). */
+static inline int is_spike(const double *vv, const double *ia, size_t kp, size_t k, double tol_a)
+{
+    double vp = vv[kp], v = vv[k], vn = vv[k + 1];
+    /* minsd and maxsd, no branch to mispredict on noise; fmin's and fmax's
+     * answer where a NaN is in (none is: the voltage checks) */
+    double lo = vp < vn ? vp : vn, hi = vp > vn ? vp : vn;
+    if (vp != vp || vn != vn) {
+        lo = min_of(vp, vn);
+        hi = max_of(vp, vn);
+    }
+    int spike =
+        (v < lo * (1.0 - LOGREAD_SPIKE_FRACTION)) | (v > hi * (1.0 + LOGREAD_SPIKE_FRACTION));
+    if (spike && ia) {
+        double i = ia[k];
+        spike = fabs(i - ia[kp]) <= tol_a && fabs(i - ia[k + 1]) <= tol_a;
+    }
+    return spike;
+}
+
+/* drop_spikes' current tolerance: 5 % of the peak, at least 0.1 A */
+static double spike_tol_a(double peak_a)
+{
+    return max_of(0.1, 0.05 * peak_a);
+}
+
 static void drop_spikes(struct reader *r)
 {
     struct series *s = r->s;
     size_t n = s->n, w = 1;
     if (n < 3)
         return;
-    double peak = !s->i_a ? 0.0 : n == r->n_read ? r->peak_a : abs_max(s->i_a, n);
-    double tol_a = max_of(0.1, 0.05 * peak);
+    double tol_a = spike_tol_a(kept_peak_a(r));
     size_t seg = 1; /* the next segment start, by index as read */
     size_t seg_at = seg < s->nseg ? s->seg_start[seg] : SIZE_MAX;
     int vcol = r->st->voltage_from_cells ? r->slot_col[SLOT_CELL0] + 1 : r->slot_col[SLOT_V] + 1;
@@ -1142,27 +1185,9 @@ static void drop_spikes(struct reader *r)
         }
         /* neighbours: the last kept sample (w - 1, same segment: segment starts
          * are kept) and the next one read, unless a segment starts there */
-        if (k + 1 != n && k + 1 != seg_at) {
-            double vp = vv[w - 1], v = vv[k], vn = vv[k + 1];
-            /* minsd and maxsd, no branch to mispredict on noise; fmin's and
-             * fmax's answer where a NaN is in (none is: the voltage checks) */
-            double lo = vp < vn ? vp : vn, hi = vp > vn ? vp : vn;
-            if (vp != vp || vn != vn) {
-                lo = min_of(vp, vn);
-                hi = max_of(vp, vn);
-            }
-            int spike = (v < lo * (1.0 - LOGREAD_SPIKE_FRACTION)) |
-                        (v > hi * (1.0 + LOGREAD_SPIKE_FRACTION));
-            if (spike && ia) {
-                /* a current that moves on either side explains the voltage (a load
-                 * switched off right after the cut-off sample, say) */
-                double i = ia[k];
-                spike = fabs(i - ia[w - 1]) <= tol_a && fabs(i - ia[k + 1]) <= tol_a;
-            }
-            if (spike) {
-                count_event(&r->st->glitch_spike, s->line[k], vcol);
-                continue;
-            }
+        if (k + 1 != n && k + 1 != seg_at && is_spike(vv, ia, w - 1, k, tol_a)) {
+            count_event(&r->st->glitch_spike, s->line[k], vcol);
+            continue;
         }
         if (w != k) /* nothing dropped yet: every sample is in its place */
             move_sample(s, k, w);
@@ -1205,8 +1230,9 @@ struct post_part {
     size_t loaded[2];
 };
 
-static void post_scan(struct post_part *pp)
+static void post_scan(void *vp)
 {
+    struct post_part *pp = vp;
     const struct series *s = pp->s;
     const double *vv = s->v_v, *ia = s->i_a;
     size_t n = s->n;
@@ -1225,30 +1251,11 @@ static void post_scan(struct post_part *pp)
         }
         if (k + 1 == seg_at)
             continue;
-        /* drop_spikes' test with w - 1 == k - 1 */
-        double vp = vv[k - 1], v = vv[k], vn = vv[k + 1];
-        double lo = vp < vn ? vp : vn, hi = vp > vn ? vp : vn;
-        if (vp != vp || vn != vn) {
-            lo = min_of(vp, vn);
-            hi = max_of(vp, vn);
-        }
-        int spike =
-            (v < lo * (1.0 - LOGREAD_SPIKE_FRACTION)) | (v > hi * (1.0 + LOGREAD_SPIKE_FRACTION));
-        if (spike && ia) {
-            double i = ia[k];
-            spike = fabs(i - ia[k - 1]) <= pp->tol_a && fabs(i - ia[k + 1]) <= pp->tol_a;
-        }
-        spikes |= spike;
+        spikes |= is_spike(vv, ia, k - 1, k, pp->tol_a); /* drop_spikes' w - 1 is k - 1 */
     }
     pp->spike = spikes;
     if (ia)
         count_loaded(ia, pp->from, pp->to, pp->loaded_a, &pp->loaded[0], &pp->loaded[1]);
-}
-
-static void *post_run(void *va)
-{
-    post_scan(va);
-    return NULL;
 }
 
 /* drop_spikes, and the sign check's counts made where they will hold. */
@@ -1260,19 +1267,16 @@ static void spikes_and_counts(struct reader *r)
     if (n < 3)
         return; /* drop_spikes has nothing to test */
     /* drop_spikes' peak, and the sign check's while nothing is dropped */
-    double peak = !s->i_a ? 0.0 : n == r->n_read ? r->peak_a : abs_max(s->i_a, n);
+    double peak = kept_peak_a(r);
     struct post_part part[2];
     for (int h = 0; h < 2; h++)
         part[h] = (struct post_part){.s = s,
                                      .from = h ? n / 2 : 0,
                                      .to = h ? n : n / 2,
-                                     .tol_a = max_of(0.1, 0.05 * peak),
+                                     .tol_a = spike_tol_a(peak),
                                      .loaded_a = 0.1 * peak};
-    pthread_t tid;
-    if (n >= POST_SPLIT_MIN && sysconf(_SC_NPROCESSORS_ONLN) > 1 &&
-        pthread_create(&tid, NULL, post_run, &part[1]) == 0) {
-        post_scan(&part[0]);
-        pthread_join(tid, NULL);
+    if (n >= POST_SPLIT_MIN) {
+        twin_run(post_scan, &part[0], post_scan, &part[1]);
     } else {
         post_scan(&part[0]);
         post_scan(&part[1]);
@@ -1282,7 +1286,6 @@ static void spikes_and_counts(struct reader *r)
         return;
     }
     r->counted = s->i_a != NULL;
-    r->counted_imax = peak;
     r->counted_loaded[0] = part[0].loaded[0] + part[1].loaded[0];
     r->counted_loaded[1] = part[0].loaded[1] + part[1].loaded[1];
 }
@@ -1322,11 +1325,7 @@ static void resolve_sign(struct reader *r)
     if (r->opts->sign == SIGN_DISCHARGE_NEGATIVE)
         flip = 1;
     else if (r->opts->sign == SIGN_AUTO &&
-             looks_discharge_negative(s,
-                                      r->counted          ? r->counted_imax
-                                      : s->n == r->n_read ? r->peak_a
-                                                          : abs_max(s->i_a, s->n),
-                                      r->counted ? r->counted_loaded : NULL)) {
+             looks_discharge_negative(s, kept_peak_a(r), r->counted ? r->counted_loaded : NULL)) {
         flip = 1;
         r->st->sign_flipped = 1;
     }
@@ -2499,7 +2498,7 @@ struct series *logread_file(FILE *fp, const char *name, const struct logread_opt
                      name);
         goto cleanup;
     }
-    r.n_read = r.s->n;
+    r.peak_n = r.s->n;
     settle_cells(&r);
     if (r.failed)
         goto cleanup;
