@@ -490,11 +490,13 @@ static void per_cell(struct analysis *a, const struct series *s, const double *q
  * interval widened to cover the model's R0 when that is identified (the
  * two measure over different time scales); else the model's R0; else none,
  * with the reasons. */
-/* What runs beside the model's start (beside_run): the charge count and
- * the current steps, neither of which needs the per-sample charge. */
+/* What runs beside the loaded walk (beside_run): the charge count and,
+ * when steps is set, the current steps; neither needs the per-sample
+ * charge. */
 struct beside {
     const struct series *s;
     double gap_s;
+    int steps;
     struct coulomb_result cc;
     struct edges_opts eo;
     struct edges_result er;
@@ -505,17 +507,19 @@ static void beside_run(void *vb)
     struct beside *b = vb;
     const struct series *s = b->s;
     coulomb_count_segments(s->t_s, s->v_v, s->i_a, s->n, s->seg_start, s->nseg, b->gap_s, &b->cc);
-    edges_estimate(s->t_s, s->v_v, s->i_a, s->n, &b->eo, &b->er);
+    if (b->steps)
+        edges_estimate(s->t_s, s->v_v, s->i_a, s->n, &b->eo, &b->er);
 }
 
-/* The model's start: the walk that needs the rest threshold (charge per
- * sample into q_ah, the current steps), then the model's windows and its
- * tau search (ecm_begin, in a thread of its own when a core is free). */
+/* The walk that needs the rest threshold (charge per sample into q_ah, the
+ * current steps), then, when model is set, the model's windows and its tau
+ * search (ecm_begin, in a thread of its own when a core is free). */
 struct start {
     struct analysis *a;
     const struct series *s;
     double imin, v_min_loaded;
     double *q_ah;
+    int model;
     struct ecm_opts mo;
     struct ecm_run *run;
 };
@@ -524,15 +528,35 @@ static void start_run(void *vs)
 {
     struct start *st = vs;
     loaded_stats(st->a, st->s, st->imin, st->q_ah, &st->v_min_loaded);
+    if (!st->model)
+        return;
     st->mo.try_rc = st->a->current_steps > 0;
     st->run = ecm_begin(st->s, st->q_ah, &st->mo);
 }
 
-/* Stage: the loaded walk and the charge, then internal resistance, from the
- * current steps (edges.h) and from the circuit model (ecm.h). The model's
- * start and the charge count with the steps run side by side when a core
- * is free (twin.h; they share nothing, so the results are the same either
- * way), the tau search then beside the static model's fit. */
+/* The walks after the rest threshold: start and beside side by side when
+ * a core is free (twin.h; they share nothing, so the results are the same
+ * either way), then the charge's figures and the warnings in their order
+ * (gaps, then the cut-off). */
+static void current_walks(struct analysis *a, const struct series *s, const struct analyze_opts *o,
+                          const char *name, struct start *st, struct beside *b)
+{
+    if (s->n >= TWIN_MIN_ROWS) {
+        twin_run(start_run, st, beside_run, b);
+    } else {
+        start_run(st);
+        beside_run(b);
+    }
+    a->cc = b->cc;
+    charge_stats(a, o);
+    gap_warning(a, s, name);
+    if (a->cells > 0)
+        floor_warning(a, st->v_min_loaded, a->floor_v * a->cells);
+}
+
+/* Stage: the loaded walk and the charge (current_walks), then internal
+ * resistance, from the current steps (edges.h) and from the circuit model
+ * (ecm.h), the tau search beside the static model's fit. */
 static enum pb_code stage_resistance(struct analysis *a, const struct series *s, double *q_ah,
                                      const struct analyze_opts *o, double imin, const char *name,
                                      struct pb_error *err)
@@ -540,6 +564,7 @@ static enum pb_code stage_resistance(struct analysis *a, const struct series *s,
     double step_a = edges_step_a(o->capacity_mah, a->peak_a);
     struct beside b = {.s = s,
                        .gap_s = a->gap_s,
+                       .steps = 1,
                        .eo = {.rated_mah = o->capacity_mah,
                               .cutoff_v = a->cells > 0 ? a->floor_v * a->cells : 0.0,
                               .gap_s = a->gap_s,
@@ -551,6 +576,7 @@ static enum pb_code stage_resistance(struct analysis *a, const struct series *s,
                        .s = s,
                        .imin = imin,
                        .q_ah = q_ah,
+                       .model = 1,
                        .mo = {.y_v = s->v_v,
                               .dt_med_s = a->median_dt_s,
                               .gap_s = a->gap_s,
@@ -558,17 +584,7 @@ static enum pb_code stage_resistance(struct analysis *a, const struct series *s,
                               .cutoff_v = a->cells > 0 ? a->floor_v * a->cells : 0.0,
                               .robust = !o->plain_fit,
                               .work = &a->fit_rows_visited}};
-    if (s->n >= TWIN_MIN_ROWS)
-        twin_run(start_run, &st, beside_run, &b); /* the same results run in turn */
-    else {
-        start_run(&st);
-        beside_run(&b);
-    }
-    a->cc = b.cc;
-    charge_stats(a, o);
-    gap_warning(a, s, name);
-    if (a->cells > 0)
-        floor_warning(a, st.v_min_loaded, a->floor_v * a->cells);
+    current_walks(a, s, o, name, &st, &b);
     struct ecm_run *run = st.run;
     if (!run)
         return pb_error_set(err, PB_ENOMEM, "out of memory");
@@ -879,14 +895,9 @@ enum pb_code analyze_series(const struct series *s, const struct logread_stats *
         if (k_rest1 == 0) /* all rest: one run, read at the start */
             k_rest1 = s->n;
         if (s->n < MIN_FIT_SAMPLES) {
-            coulomb_count_segments(s->t_s, s->v_v, s->i_a, s->n, s->seg_start, s->nseg, a->gap_s,
-                                   &a->cc);
-            charge_stats(a, o);
-            gap_warning(a, s, name);
-            double v_min_loaded;
-            loaded_stats(a, s, imin, q_ah, &v_min_loaded);
-            if (a->cells > 0)
-                floor_warning(a, v_min_loaded, a->floor_v * a->cells);
+            struct start st = {.a = a, .s = s, .imin = imin, .q_ah = q_ah};
+            struct beside b = {.s = s, .gap_s = a->gap_s};
+            current_walks(a, s, o, name, &st, &b);
             warn(a, "too_few_samples",
                  "%zu samples are too few to fit resistance or open-circuit voltage (need %d)",
                  s->n, MIN_FIT_SAMPLES);
