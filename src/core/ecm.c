@@ -237,9 +237,9 @@ static enum pb_code fit_at(struct ctx *c, int p, double tau_s, int robust, size_
      * sample's: the model choice takes the plain residuals over every row
      * from the tau search, see static_rss_plain and ecm_end) */
     c->next = 0;
-    enum pb_code rc =
-        robust ? fit_blocks_any_order(c->s->n, p, ecm_block, c, c->whole ? 0 : sizeof *c, f, err)
-               : fit_blocks(c->s->n, p, ecm_block, c, c->whole ? 0 : sizeof *c, robust, f, err);
+    size_t ctx_size = c->whole ? 0 : sizeof *c; /* 0: no pass cut in two */
+    enum pb_code rc = robust ? fit_blocks_any_order(c->s->n, p, ecm_block, c, ctx_size, f, err)
+                             : fit_blocks(c->s->n, p, ecm_block, c, ctx_size, robust, f, err);
     if (work)
         *work += f->rows_visited + (p == 2 && !lines ? c->s->n : 0);
     return rc;
@@ -471,9 +471,8 @@ static void walk_one(void *wp)
  * by side. With nt == 1 and lines not NULL, each used window's RC line
  * (mean and slope in q of the lag, as rc_lines makes them, number for
  * number) goes in lines[2 j], lines[2 j + 1]. The tau-free sums are made
- * into *fs when have_fs is 0, else
- * taken from it (the same numbers, made once for every walk of the
- * search). rss[j] is HUGE_VAL where a fit fails. */
+ * into *fs when have_fs is 0, else taken from it (the same numbers, made
+ * once for every walk of the search). rss[j] is HUGE_VAL where a fit fails. */
 static void rss_walk(const struct ctx *c, const double *tau_s, int nt, double *const bufs[2],
                      double *lines, double *rss, struct tau_free_sums *fs, int have_fs)
 {
@@ -484,9 +483,17 @@ static void rss_walk(const struct ctx *c, const double *tau_s, int nt, double *c
         while (cut < c->nw && c->w[cut].k0 < h)
             cut++;
     }
-    struct walk_part a = {c, tau_s, bufs[0], lines, 0, cut, !have_fs, {0}, {0}, {0}, {0, 0, 0, 0}};
-    struct walk_part b = {c,        tau_s, bufs[1], lines, cut,         c->nw,
-                          !have_fs, {0},   {0},     {0},   {0, 0, 0, 0}};
+    struct walk_part a = {.c = c,
+                          .tau_s = tau_s,
+                          .buf = bufs[0],
+                          .lines = lines,
+                          .w0 = 0,
+                          .w1 = cut,
+                          .want_free = !have_fs};
+    struct walk_part b = a;
+    b.buf = bufs[1];
+    b.w0 = cut;
+    b.w1 = c->nw;
     void (*walk)(void *) = nt == 1 ? walk_one : walk_grid;
     if (cut < c->nw)
         twin_run(walk, &a, walk, &b);
@@ -677,9 +684,10 @@ static double search_tau(struct tau_grid *gr, size_t *work)
 }
 
 /* The static model's plain residual sum of squares over every row: from
- * the search's walk when it ran (the same sums, in the same order, as a
- * plain pass of the static fit), else the fit's own (which, for a robust
- * fit of a long log, is its even sample's scaled to every row). */
+ * the search's walk when it ran (the sums of a plain pass of the static
+ * fit, cut at a window's start rather than a row, so equal up to rounding),
+ * else the fit's own (which, for a robust fit of a long log, is its even
+ * sample's scaled to every row). */
 static double static_rss_plain(const struct tau_grid *gr, const struct fit_result *fs)
 {
     if (!gr->free_ok)
@@ -800,8 +808,8 @@ enum pb_code ecm_end(struct ecm_run *run, struct ecm_result *res)
         if (isfinite(tau) && fit_at(&c, 2, tau, o->robust, o->work, lines, &fr, NULL) == PB_OK &&
             fr.rank == 2) {
             /* the search's walk at this tau summed the RC model's plain
-             * normal equations over every row in the same order as a plain
-             * pass (a robust fit's own rss_plain is its sample's) */
+             * normal equations over every row, as a plain pass would (a
+             * robust fit's own rss_plain is its sample's) */
             double rss_plain_rc = tau == grid->tau ? grid->tau_rss : fr.rss_plain;
             double rss_plain_static = static_rss_plain(grid, &fs);
             double rho_rc = honest_cov(&c, &fr);
