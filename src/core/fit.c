@@ -204,6 +204,23 @@ static void add_sums(struct normal_eq *into, const struct normal_eq *from, int p
     into->n_low += from->n_low;
 }
 
+/* Sampled row indices below h (multiples of m), at most cap: the first
+ * half's room in the sample of a cut pass. */
+static size_t marks_below(size_t h, size_t m, size_t cap)
+{
+    size_t k = (h + m - 1) / m;
+    return k < cap ? k : cap;
+}
+
+/* The kept rows of a cut pass closed up: the second half's nk rows, made
+ * from row from on, moved to follow the first half's, from row to on. */
+static void close_up_rows(struct scale_sample *ss, int p, size_t to, size_t from, size_t nk)
+{
+    memmove(ss->x + to * (size_t)p, ss->x + from * (size_t)p, nk * (size_t)p * sizeof *ss->x);
+    memmove(ss->y + to, ss->y + from, nk * sizeof *ss->y);
+    memmove(ss->u + to, ss->u + from, nk);
+}
+
 /* One pass over the rows: sums the normal equations, weighted by Tukey's
  * bisquare at the given scale when beta is not NULL; keeps a sample of the
  * |residuals| at beta (or, without beta, the rows themselves) for the next
@@ -244,9 +261,7 @@ static void run_pass(size_t n, int p, const struct source *src, const double *be
     struct scale_sample sa, sb;
     size_t marks = 0; /* sampled indices below h: the first half's room */
     if (ss) {
-        marks = (h + ss->m - 1) / ss->m;
-        if (marks > ss->cap)
-            marks = ss->cap;
+        marks = marks_below(h, ss->m, ss->cap);
         sa = *ss;
         sa.cap = marks;
         sb = *ss;
@@ -270,9 +285,7 @@ static void run_pass(size_t n, int p, const struct source *src, const double *be
         memmove(ss->r + sa.n, sb.r, sb.n * sizeof *sb.r);
         ss->n = sa.n + sb.n;
     } else if (ss) {
-        memmove(ss->x + sa.nk * (size_t)p, sb.x, sb.nk * (size_t)p * sizeof *sb.x);
-        memmove(ss->y + sa.nk, sb.y, sb.nk * sizeof *sb.y);
-        memmove(ss->u + sa.nk, sb.u, sb.nk);
+        close_up_rows(ss, p, sa.nk, marks, sb.nk);
         ss->nk = sa.nk + sb.nk;
     }
 }
@@ -328,32 +341,33 @@ static size_t sample_rows(size_t n, int p, const struct source *src, struct scal
                           struct normal_eq *ne)
 {
     size_t h = src->copy ? twin_split(n) : n;
-    size_t marks = (h + ss->m - 1) / ss->m;
-    if (marks > SCALE_SAMPLES)
-        marks = SCALE_SAMPLES;
-    struct sample_half a = {src, src->ctx, 0, h, ss->m, p, ss->x, ss->y, ss->u, 0, marks, 0};
+    size_t marks = marks_below(h, ss->m, SCALE_SAMPLES); /* all of a whole pass's */
+    struct sample_half a = {.src = src,
+                            .ctx = src->ctx,
+                            .k1 = h,
+                            .m = ss->m,
+                            .p = p,
+                            .x = ss->x,
+                            .y = ss->y,
+                            .u = ss->u,
+                            .cap = marks};
     if (h < n) {
         memcpy(src->copy, src->ctx, src->ctx_size);
-        struct sample_half b = {src,
-                                src->copy,
-                                h,
-                                n,
-                                ss->m,
-                                p,
-                                ss->x + marks * (size_t)p,
-                                ss->y + marks,
-                                ss->u + marks,
-                                0,
-                                SCALE_SAMPLES - marks,
-                                0};
+        struct sample_half b = {.src = src,
+                                .ctx = src->copy,
+                                .k0 = h,
+                                .k1 = n,
+                                .m = ss->m,
+                                .p = p,
+                                .x = ss->x + marks * (size_t)p,
+                                .y = ss->y + marks,
+                                .u = ss->u + marks,
+                                .cap = SCALE_SAMPLES - marks};
         twin_run(sample_half_run, &a, sample_half_run, &b);
-        memmove(ss->x + a.nk * (size_t)p, b.x, b.nk * (size_t)p * sizeof *b.x);
-        memmove(ss->y + a.nk, b.y, b.nk * sizeof *b.y);
-        memmove(ss->u + a.nk, b.u, b.nk);
+        close_up_rows(ss, p, a.nk, marks, b.nk);
         a.nk += b.nk;
         a.asked += b.asked;
     } else {
-        a.cap = SCALE_SAMPLES;
         sample_half_run(&a);
     }
     ss->nk = a.nk;
