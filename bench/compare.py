@@ -11,7 +11,9 @@ log in tests/data and samples/ plus the logs given, and compares the two reports
   reference's 95 % half-width (issue 14: "results identical within 1/4 of each reported
   interval"); an estimate without a finite interval must agree to 1e-9 (relative);
 - so must the SoC at each end and its range (soc_start_pct, soc_start_range_pct against
-  soc_start_ci95; the same at the end), and each ci95 within a quarter of itself;
+  soc_start_ci95; the same at the end), and tau (tau_s against tau_ci95_s, the reference's
+  or, from a build before tau had an interval, the new one's), and each such ci95 within a
+  quarter of itself; a report may add tau_ci95_s (ADDED_KEYS) to one without it;
 - the robust fits' descriptive numbers, which reweighting on a subsample of a long log
   moves slightly (fit.c), within stated bounds: the OCV at the ends and the OCV trend's
   coefficients within 1 mV (every OCV packbook reports carries at least 50 mV per cell,
@@ -48,31 +50,36 @@ SOC_CI = {
     ".soc_start_range_pct": "soc_start_ci95",
     ".soc_end_pct": "soc_end_ci95",
     ".soc_end_range_pct": "soc_end_ci95",
+    ".tau_s": "tau_ci95_s",
 }
+# keys a newer report may have where the reference has none
+ADDED_KEYS = {"tau_ci95_s"}
 
 
 def close(a, b, tol):
     return a == b or abs(a - b) <= tol
 
 
-def tolerance(path, root):
+def tolerance(path, roots):
     """The tolerance of the number at path (None: the default 1e-9 relative)."""
     base = path.split("[")[0]
     if base in FIT_TOL:
         return FIT_TOL[base]
     if base in SOC_CI:
-        ci = root.get(SOC_CI[base])
-        if isinstance(ci, (int, float)) and math.isfinite(ci) and ci > 0:
-            return (0.25 * ci, 0.0)
-    if base in (".soc_start_ci95", ".soc_end_ci95"):
+        for root in roots:
+            ci = root.get(SOC_CI[base])
+            if isinstance(ci, (int, float)) and math.isfinite(ci) and ci > 0:
+                return (0.25 * ci, 0.0)
+    if base in (".soc_start_ci95", ".soc_end_ci95", ".tau_ci95_s"):
         return (0.0, 0.25)
     return None
 
 
-def walk(ref, new, path, out, root=None):
-    root = ref if root is None else root
+def walk(ref, new, path, out, roots=None):
+    roots = (ref, new) if roots is None else roots
     if isinstance(ref, dict) and isinstance(new, dict):
-        if set(ref) != set(new):
+        added = set(new) - set(ref)
+        if set(ref) - set(new) or (added - ADDED_KEYS if path == "" else added):
             out.append(f"{path}: keys differ: {sorted(set(ref) ^ set(new))}")
             return
         if "value" in ref and "ci95" in ref and isinstance(ref["value"], (int, float)):
@@ -89,19 +96,19 @@ def walk(ref, new, path, out, root=None):
         for k in ref:
             if k in WORK_KEYS:
                 continue
-            walk(ref[k], new[k], f"{path}.{k}", out, root)
+            walk(ref[k], new[k], f"{path}.{k}", out, roots)
     elif isinstance(ref, list) and isinstance(new, list):
         if len(ref) != len(new):
             out.append(f"{path}: {len(new)} items vs {len(ref)}")
             return
         for k, (a, b) in enumerate(zip(ref, new)):
-            walk(a, b, f"{path}[{k}]", out, root)
+            walk(a, b, f"{path}[{k}]", out, roots)
     elif isinstance(ref, bool) or isinstance(new, bool) or not (
             isinstance(ref, (int, float)) and isinstance(new, (int, float))):
         if ref != new:
             out.append(f"{path}: {new!r} vs {ref!r}")
     else:
-        tol = tolerance(path, root)
+        tol = tolerance(path, roots)
         if tol is None:
             tol = (0.0, REL)
         bound = max(tol[0], tol[1] * max(abs(ref), abs(new)), REL * max(abs(ref), abs(new), 1e-300))

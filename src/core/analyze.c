@@ -2,7 +2,6 @@
 
 #include <assert.h>
 #include <gsl/gsl_errno.h>
-#include <gsl/gsl_min.h>
 #include <math.h>
 #include <stdarg.h>
 #include <stdio.h>
@@ -614,7 +613,7 @@ static enum pb_code stage_resistance(struct analysis *a, const struct series *s,
         a->r0_model_mohm = (struct estimate){mr.r0_mohm, mr.r0_ci95_mohm};
         if (mr.rc) {
             a->r1_mohm = (struct estimate){mr.r1_mohm, mr.r1_ci95_mohm};
-            a->tau_s = (struct estimate){mr.tau_s, NAN};
+            a->tau_s = (struct estimate){mr.tau_s, mr.tau_ci95_s};
         }
     }
     if (isfinite(a->r_edge_mohm.value)) {

@@ -5,7 +5,7 @@
 #include "twin.h"
 
 #include <gsl/gsl_errno.h>
-#include <gsl/gsl_min.h>
+#include <gsl/gsl_cdf.h>
 #include <math.h>
 #include <pthread.h>
 #include <stdlib.h>
@@ -19,6 +19,27 @@
 #define WINDOW_MIN_ROWS 3 /* windows with fewer samples are left out */
 #define TAU_GRID 12
 #define BIC_MARGIN 10.0 /* the RC model must beat the static one by this */
+/* A lag started this many time constants before it is needed has forgotten
+ * how it was started (exp(-40) = 4e-18, below a double's rounding of the
+ * lag): a part of a pass after the first starts its lag there, not at the
+ * first sample. */
+#define WARM_TAUS 40.0
+
+/* The first sample of [0, k0] at most warm_s before sample k0: where a lag
+ * needed from k0 on starts (times strictly increasing). */
+static size_t warm_start(const double *t_s, size_t k0, double warm_s)
+{
+    double from = t_s[k0] - warm_s;
+    size_t lo = 0, hi = k0;
+    while (lo < hi) {
+        size_t mid = lo + (hi - lo) / 2;
+        if (t_s[mid] < from)
+            lo = mid + 1;
+        else
+            hi = mid;
+    }
+    return lo;
+}
 
 double ecm_window_s(double dt_med_s)
 {
@@ -43,6 +64,7 @@ struct ctx {
     int whole;    /* no pass cut in two (ecm_opts) */
     int p;        /* 1: R only; 2: R0 and R1 */
     double tau_s; /* RC branch */
+    double warm_s; /* a lag's start before it is needed (WARM_TAUS times the longest tau) */
     /* running state, reset at k == 0 */
     size_t at; /* current window */
     double i1; /* RC branch current */
@@ -50,15 +72,22 @@ struct ctx {
     size_t next; /* the sample whose lag is due next (0: none made yet) */
 };
 
+/* The lag started at sample k (the current held there before it). */
+static inline void rc_start(struct ctx *c, size_t k)
+{
+    c->next = k + 1;
+    c->i1 = c->s->i_a[k];
+    c->a_dt = -1.0;
+}
+
 static inline void rc_advance(struct ctx *c, size_t k)
 {
     const struct series *s = c->s;
-    c->next = k + 1;
     if (k == 0) {
-        c->i1 = s->i_a[0];
-        c->a_dt = -1.0;
+        rc_start(c, 0);
         return;
     }
+    c->next = k + 1;
     double dt = s->t_s[k] - s->t_s[k - 1];
     if (fabs(dt - c->a_dt) > 1e-9 * dt) {
         c->a_dt = dt;
@@ -67,31 +96,71 @@ static inline void rc_advance(struct ctx *c, size_t k)
     c->i1 = c->a_val * c->i1 + (1.0 - c->a_val) * s->i_a[k - 1];
 }
 
+/* Where a walk over the windows is cut (twin.h): the first window that
+ * starts at or after twin_split, nw when the log is short or c->whole. */
+static size_t walk_cut(const struct ctx *c)
+{
+    size_t cut = c->nw;
+    if (c->s->n >= TWIN_MIN_ROWS && !c->whole) {
+        size_t h = twin_split(c->s->n);
+        cut = 0;
+        while (cut < c->nw && c->w[cut].k0 < h)
+            cut++;
+    }
+    return cut;
+}
+
+/* The sample where the lag of a walk over windows [w0, ...) starts: the
+ * first sample for the first part, else warm_s before its first window in
+ * use (n: none in use). */
+static size_t part_lag_start(const struct ctx *c, size_t w0)
+{
+    if (w0 == 0)
+        return 0;
+    while (w0 < c->nw && !c->w[w0].use)
+        w0++;
+    return w0 < c->nw ? warm_start(c->s->t_s, c->w[w0].k0, c->warm_s) : c->s->n;
+}
+
+/* The RC lines of the windows in use in [w0, w1), the lag started where
+ * part_lag_start says. */
+static void rc_lines_part(struct ctx *c, size_t w0, size_t w1)
+{
+    size_t k = part_lag_start(c, w0);
+    if (k >= c->s->n)
+        return;
+    rc_start(c, k);
+    for (size_t j = w0; j < w1; j++) {
+        struct win *w = &c->w[j];
+        if (!w->use)
+            continue;
+        double m1 = 0.0, b1 = 0.0;
+        for (k = c->next; k < w->k0; k++)
+            rc_advance(c, k);
+        for (k = w->k0; k < w->k1; k++) {
+            if (k == c->next)
+                rc_advance(c, k);
+            m1 += c->i1;
+            b1 += (c->q[k] - w->mq) * c->i1;
+        }
+        w->m1 = m1 / (double)(w->k1 - w->k0);
+        w->b1 = w->sqq > 0.0 ? b1 / w->sqq : 0.0;
+    }
+}
+
 /* Each window's line of the RC current (the voltage and current lines are
- * made once, by base_lines): one pass, the lag running over every sample.
- * Since the deviations of q sum to zero in a window, the slope is
+ * made once, by base_lines), the lag run as the tau search's walk runs it
+ * (in two parts where it is cut), so that a fit at the search's tau and one
+ * at the same tau fixed have the same lines, number for number. Since the
+ * deviations of q sum to zero in a window, the slope is
  * sum (q - mq) i1 / sqq. */
 static void rc_lines(struct ctx *c)
 {
-    const struct series *s = c->s;
     for (size_t j = 0; j < c->nw; j++)
         c->w[j].m1 = c->w[j].b1 = 0.0;
-    size_t at = 0;
-    for (size_t k = 0; k < s->n; k++) {
-        rc_advance(c, k);
-        while (at < c->nw && k >= c->w[at].k1)
-            at++;
-        if (at == c->nw || k < c->w[at].k0)
-            continue;
-        struct win *w = &c->w[at];
-        w->m1 += c->i1;
-        w->b1 += (c->q[k] - w->mq) * c->i1;
-    }
-    for (size_t j = 0; j < c->nw; j++) {
-        struct win *w = &c->w[j];
-        w->m1 /= (double)(w->k1 - w->k0);
-        w->b1 = w->sqq > 0.0 ? w->b1 / w->sqq : 0.0;
-    }
+    size_t cut = walk_cut(c);
+    rc_lines_part(c, 0, cut);
+    rc_lines_part(c, cut, c->nw);
 }
 
 /* A block of the model's rows (x: minus the current, and minus the RC
@@ -108,11 +177,12 @@ static void ecm_block(void *vc, size_t k0, size_t m, int p, double *x, double *y
      * before it (the static model's rows come in any order) start it over */
     if (k0 == 0 || (c->at > 0 && k0 < c->w[c->at - 1].k1))
         c->at = 0;
-    /* and the lag runs on from the last row made (from the first sample
-     * when asked for an earlier one): the same lag as a walk in order */
+    /* and the lag runs on from the last row made, or starts afresh warm_s
+     * before k0 when that row is earlier than k0 or further back */
     if (p == 2 && k0 > 0 && k0 != c->next) {
-        if (c->next == 0 || c->next > k0)
-            rc_advance(c, 0);
+        size_t ks = warm_start(s->t_s, k0, c->warm_s);
+        if (c->next == 0 || c->next > k0 || c->next < ks)
+            rc_start(c, ks);
         for (size_t k = c->next; k < k0; k++)
             rc_advance(c, k);
     }
@@ -361,7 +431,8 @@ struct walk_part {
     const struct ctx *c;
     const double *tau_s;
     double *buf;   /* TAU_WALK_MAX times the longest window */
-    double *lines; /* nt == 1: each used window's RC line (mean, slope), else NULL */
+    double *lines; /* each used window's RC line (mean, slope) of tau_s[keep], else NULL */
+    int keep;
     size_t w0, w1;
     int want_free;
     double a01[TAU_WALK_MAX], a11[TAU_WALK_MAX], b1[TAU_WALK_MAX];
@@ -378,8 +449,12 @@ static inline __attribute__((always_inline)) void walk_windows(struct walk_part 
     double a01[TAU_WALK_MAX] = {0}, a11[TAU_WALK_MAX] = {0}, b1[TAU_WALK_MAX] = {0};
     double a00 = 0.0, b0 = 0.0, yy = 0.0;
     size_t n_used = 0, k;
+    /* the lag of sample k - 1 is in i1 */
+    k = part_lag_start(c, wp->w0) + 1;
+    if (k > s->n)
+        k = s->n;
     for (int j = 0; j < nt; j++) {
-        i1[j] = ia[0];
+        i1[j] = ia[k - 1];
         a_val[j] = 0.0;
     }
 /* the RC lag of every tau from sample k - 1 to k (as rc_advance) */
@@ -394,7 +469,6 @@ static inline __attribute__((always_inline)) void walk_windows(struct walk_part 
         _Pragma("GCC unroll 16") for (int j = 0; j < nt; j++) i1[j] =                              \
             a_val[j] * i1[j] + (1.0 - a_val[j]) * ia[(k)-1];                                       \
     } while (0)
-    k = 1; /* the next sample whose lag is due; i1 holds sample k - 1's */
     for (size_t wj = wp->w0; wj < wp->w1; wj++) {
         const struct win *w = &c->w[wj];
         if (!w->use)
@@ -421,9 +495,9 @@ static inline __attribute__((always_inline)) void walk_windows(struct walk_part 
             m1[j] /= (double)len;
             bq[j] = w->sqq > 0.0 ? bq[j] / w->sqq : 0.0;
         }
-        if (nt == 1 && wp->lines) {
-            wp->lines[2 * wj] = m1[0];
-            wp->lines[2 * wj + 1] = bq[0];
+        if (wp->lines) {
+            wp->lines[2 * wj] = m1[wp->keep];
+            wp->lines[2 * wj + 1] = bq[wp->keep];
         }
         for (size_t r = 0; r < len; r++) {
             size_t kk = w->k0 + r;
@@ -459,34 +533,29 @@ static void walk_grid(void *wp)
     walk_windows(wp, TAU_GRID);
 }
 
-static void walk_one(void *wp)
+static void walk_three(void *wp)
 {
-    walk_windows(wp, 1);
+    walk_windows(wp, 3);
 }
 
 /* The plain residual sums of squares of the RC model at nt time constants
- * (TAU_GRID or 1) in one walk over the log; a long log walked in two parts
+ * (TAU_GRID or 3) in one walk over the log; a long log walked in two parts
  * (the windows before and after twin_split, each with a buffer of its own
  * in bufs[0] and bufs[1]), added in that order whether or not they ran side
- * by side. With nt == 1 and lines not NULL, each used window's RC line
+ * by side. With lines not NULL, each used window's RC line at tau_s[keep]
  * (mean and slope in q of the lag, as rc_lines makes them, number for
  * number) goes in lines[2 j], lines[2 j + 1]. The tau-free sums are made
  * into *fs when have_fs is 0, else taken from it (the same numbers, made
  * once for every walk of the search). rss[j] is HUGE_VAL where a fit fails. */
 static void rss_walk(const struct ctx *c, const double *tau_s, int nt, double *const bufs[2],
-                     double *lines, double *rss, struct tau_free_sums *fs, int have_fs)
+                     double *lines, int keep, double *rss, struct tau_free_sums *fs, int have_fs)
 {
-    size_t cut = c->nw;
-    if (c->s->n >= TWIN_MIN_ROWS && !c->whole) {
-        size_t h = twin_split(c->s->n);
-        cut = 0;
-        while (cut < c->nw && c->w[cut].k0 < h)
-            cut++;
-    }
+    size_t cut = walk_cut(c);
     struct walk_part a = {.c = c,
                           .tau_s = tau_s,
                           .buf = bufs[0],
                           .lines = lines,
+                          .keep = keep,
                           .w0 = 0,
                           .w1 = cut,
                           .want_free = !have_fs};
@@ -494,7 +563,7 @@ static void rss_walk(const struct ctx *c, const double *tau_s, int nt, double *c
     b.buf = bufs[1];
     b.w0 = cut;
     b.w1 = c->nw;
-    void (*walk)(void *) = nt == 1 ? walk_one : walk_grid;
+    void (*walk)(void *) = nt == 3 ? walk_three : walk_grid;
     if (cut < c->nw)
         twin_run(walk, &a, walk, &b);
     else
@@ -520,31 +589,21 @@ static void rss_walk(const struct ctx *c, const double *tau_s, int nt, double *c
     }
 }
 
-struct tau_search {
-    struct ctx *c;
-    size_t *work;
-    double *bufs[2]; /* each TAU_WALK_MAX times the longest window */
-    /* the windows' RC lines of the walk in hand and of the best walk so
-     * far (its tau and RSS), kept for the RC fit (NULL: not kept) */
-    double *lines_try, *lines_best;
-    double best_tau, best_rss;
-    struct tau_free_sums fs;
-    int failed;
-};
-
 /* The search for tau: the plain RSS on a grid of time constants from lo_s
- * to hi_s, then Brent's method on the best bracket. It only reads the
- * windows and the series (its own copy of the context keeps the running
- * state apart), so when a core is free a second thread runs all of it
- * while the static model is fitted. */
+ * to hi_s, then Newton's method on the profile between the best grid
+ * point's neighbours. It only reads the windows and the series (its own
+ * copy of the context keeps the running state apart), so when a core is
+ * free a second thread runs all of it while the static model is fitted. */
 struct tau_grid {
     struct ctx c;
     double g[TAU_GRID], taus[TAU_GRID], f[TAU_GRID];
     double *buf; /* the walks' two buffers (rss_walk) */
     size_t buf_len;
-    double tau;          /* the result: NAN when the best tau is at a grid end */
-    double tau_rss;      /* the RC model's plain residual sum of squares there */
-    double *lines_mem;   /* room for two sets of the windows' RC lines */
+    double tau;     /* the result: NAN when the best tau is at a grid end */
+    double tau_rss; /* the RC model's plain residual sum of squares there */
+    double tau_d2;  /* the profile's curvature there, d2 RSS / d (ln tau)2 */
+    int steps;      /* profile walks after the grid */
+    double *lines_mem;   /* room for the windows' RC lines */
     const double *lines; /* the RC lines of the walk at tau (in lines_mem), else NULL */
     size_t work;         /* rows the search visited, added to the caller's count at the end */
     struct tau_free_sums free_sums; /* the static model's plain sums, every row */
@@ -561,74 +620,86 @@ static size_t longest_window(const struct ctx *c)
     return longest;
 }
 
-static double rss_at(double log_tau, void *vts)
+/* ln tau either side of a point for the profile's slope and curvature
+ * (central differences: their own error moves the minimum by about
+ * TAU_H^2 / 6 times the profile's third over second derivative) */
+#define TAU_H 5e-3
+#define TAU_STEPS_MAX 16
+/* Newton's step, in standard errors of ln tau, below which the search ends:
+ * the tau reported is then within a hundredth of its error of the
+ * profile's minimum */
+#define TAU_TOL_SE 0.01
+
+/* The profile's vertex through three points (x0 < x1 < x2, f1 the least):
+ * inside [x0, x2]. */
+static double vertex(double x0, double f0, double x1, double f1, double x2, double f2)
 {
-    struct tau_search *ts = vts;
-    double tau = exp(log_tau), rss;
-    rss_walk(ts->c, &tau, 1, ts->bufs, ts->lines_try, &rss, &ts->fs, 1);
-    if (ts->work)
-        *ts->work += ts->c->s->n;
-    if (!(rss < HUGE_VAL))
-        ts->failed = 1;
-    if (ts->lines_try && rss < ts->best_rss) {
-        double *keep = ts->lines_best;
-        ts->lines_best = ts->lines_try;
-        ts->lines_try = keep;
-        ts->best_rss = rss;
-        ts->best_tau = tau;
-    }
-    return rss;
+    double d0 = (f1 - f0) / (x1 - x0), d1 = (f2 - f1) / (x2 - x1), c = (d1 - d0) / (x2 - x0);
+    double v = c > 0.0 ? 0.5 * (x0 + x1) - 0.5 * d0 / c : x1;
+    return v > x0 && v < x2 ? v : x1;
 }
 
-/* Profiles the plain RSS over log tau on the grid, then Brent's method on
- * the best bracket; gr->tau is NAN when the best tau is at a grid end (not
- * resolved). */
+/* Profiles the plain RSS over u = ln tau on the grid, then Newton's method
+ * from the vertex of the best grid point and its neighbours, each step one
+ * walk at u - TAU_H, u, u + TAU_H (the slope and curvature by central
+ * differences, the bracket narrowed by the slope's sign, a bisection
+ * where the step would leave it). gr->tau is NAN when the best tau is at a
+ * grid end (not resolved) or a walk failed. The last point walked is the
+ * result: its RC lines are kept for the fit, its curvature for tau's
+ * interval. */
 static void *tau_run(void *vg)
 {
     struct tau_grid *gr = vg;
-    struct tau_search ts = {.c = &gr->c, .work = &gr->work, .best_rss = HUGE_VAL};
-    ts.bufs[0] = gr->buf;
-    ts.bufs[1] = gr->buf + gr->buf_len;
-    if (gr->lines_mem) {
-        ts.lines_try = gr->lines_mem;
-        ts.lines_best = gr->lines_mem + 2 * gr->c.nw;
-    }
-    rss_walk(&gr->c, gr->taus, TAU_GRID, ts.bufs, NULL, gr->f, &ts.fs, 0);
-    gr->free_sums = ts.fs;
+    struct ctx *c = &gr->c;
+    struct tau_free_sums fs;
+    double *bufs[2] = {gr->buf, gr->buf + gr->buf_len};
+    rss_walk(c, gr->taus, TAU_GRID, bufs, NULL, 0, gr->f, &fs, 0);
+    gr->free_sums = fs;
     gr->free_ok = 1;
     gr->tau = NAN;
+    gr->work += c->s->n;
     const double *g = gr->g, *f = gr->f;
-    int best = 0;
-    gr->work += gr->c.s->n;
+    int best = 0, failed = 0;
     for (int j = 0; j < TAU_GRID; j++) {
-        ts.failed |= !(f[j] < HUGE_VAL);
+        failed |= !(f[j] < HUGE_VAL);
         if (f[j] < f[best])
             best = j;
     }
-    if (ts.failed || best == 0 || best == TAU_GRID - 1)
+    if (failed || best == 0 || best == TAU_GRID - 1)
         return NULL;
-    gsl_function fn = {rss_at, &ts};
-    gsl_min_fminimizer *mz = gsl_min_fminimizer_alloc(gsl_min_fminimizer_brent);
-    double x = g[best], fx = f[best];
-    if (mz &&
-        gsl_min_fminimizer_set_with_values(mz, &fn, g[best], f[best], g[best - 1], f[best - 1],
-                                           g[best + 1], f[best + 1]) == GSL_SUCCESS) {
-        for (int it = 0; it < 40; it++) {
-            if (gsl_min_fminimizer_iterate(mz) != GSL_SUCCESS)
-                break;
-            x = gsl_min_fminimizer_x_minimum(mz);
-            fx = gsl_min_fminimizer_f_minimum(mz);
-            if (gsl_min_test_interval(gsl_min_fminimizer_x_lower(mz),
-                                      gsl_min_fminimizer_x_upper(mz), 1e-3, 0.0) == GSL_SUCCESS)
-                break;
-        }
+    double lo = g[best - 1], hi = g[best + 1];
+    double u = vertex(lo, f[best - 1], g[best], f[best], hi, f[best + 1]);
+    /* the residual variance's degrees of freedom, for the tolerance */
+    double dof = (double)fs.n_used - (double)window_params(c) - 3.0;
+    if (!(dof >= 1.0))
+        return NULL;
+    for (gr->steps = 1; gr->steps <= TAU_STEPS_MAX; gr->steps++) {
+        double taus[3] = {exp(u - TAU_H), exp(u), exp(u + TAU_H)}, p[3];
+        rss_walk(c, taus, 3, bufs, gr->lines_mem, 1, p, &fs, 1);
+        gr->work += c->s->n;
+        if (!(p[0] < HUGE_VAL && p[1] < HUGE_VAL && p[2] < HUGE_VAL))
+            return NULL;
+        double d1 = (p[2] - p[0]) / (2.0 * TAU_H);
+        double d2 = (p[2] - 2.0 * p[1] + p[0]) / (TAU_H * TAU_H);
+        gr->tau = taus[1];
+        gr->tau_rss = p[1];
+        gr->tau_d2 = d2;
+        if (d1 > 0.0)
+            hi = u;
+        else
+            lo = u;
+        double step = d2 > 0.0 ? -d1 / d2 : NAN;
+        double se = d2 > 0.0 ? sqrt(2.0 * p[1] / dof / d2) : NAN;
+        if (fabs(step) <= fmax(TAU_TOL_SE * se, 1e-9))
+            break;
+        double next = u + step;
+        if (!(next > lo && next < hi))
+            next = 0.5 * (lo + hi);
+        if (!(hi - lo > 1e-9))
+            break;
+        u = next;
     }
-    gsl_min_fminimizer_free(mz);
-    gr->tau = ts.failed ? NAN : exp(x);
-    gr->tau_rss = fx;
-    /* the best point is a walked one (not the grid's): its lines are kept */
-    if (!ts.failed && ts.lines_best && ts.best_rss < HUGE_VAL && gr->tau == ts.best_tau)
-        gr->lines = ts.lines_best;
+    gr->lines = gr->lines_mem;
     return NULL;
 }
 
@@ -650,7 +721,7 @@ static void grid_start(struct tau_grid *gr, const struct ctx *c, double lo_s, do
     gr->buf = malloc(2 * gr->buf_len * sizeof(double));
     if (!gr->buf)
         return;
-    gr->lines_mem = malloc(4 * c->nw * sizeof(double)); /* NULL: the RC fit makes its lines */
+    gr->lines_mem = malloc(2 * c->nw * sizeof(double)); /* NULL: the RC fit makes its lines */
     for (int j = 0; j < TAU_GRID; j++) {
         gr->g[j] = lo + (hi - lo) * j / (TAU_GRID - 1);
         gr->taus[j] = exp(gr->g[j]);
@@ -699,6 +770,22 @@ static double static_rss_plain(const struct tau_grid *gr, const struct fit_resul
     return fit_solve_sums(&sm, 1, &pf, NULL) == PB_OK ? pf.rss_plain : fs->rss_plain;
 }
 
+/* tau's 95 % half-width from the profile's curvature at the search's
+ * result: var(ln tau) = 2 sigma^2 / (d2 RSS / d (ln tau)^2), the residual
+ * variance over every row in use (n_eff of them after the windows' own
+ * parameters, less R0, R1 and tau), widened for serial correlation as the
+ * other intervals are (rho); tau times ln tau's half-width (the delta
+ * method). NAN where the search did not give a curvature at this tau. */
+static double tau_ci95(const struct tau_grid *gr, double tau, double rss, double n_eff, double rho)
+{
+    double dof = n_eff - 3.0;
+    if (!(tau == gr->tau && gr->tau_d2 > 0.0 && dof >= 1.0))
+        return NAN;
+    double infl = rho > 0.0 ? (1.0 + rho) / (1.0 - fmin(rho, 0.99)) : 1.0;
+    double se = sqrt(2.0 * rss / dof * infl / gr->tau_d2);
+    return tau * gsl_cdf_tdist_Pinv(0.975, dof) * se;
+}
+
 static double bic(double rss, double n, int k)
 {
     return n * log(fmax(rss, 1e-300) / n) + k * log(n);
@@ -720,12 +807,18 @@ struct ecm_run *ecm_begin(const struct series *s, const double *q_ah, const stru
     run->o = *o;
     struct ecm_result *out = &run->out;
     out->r0_mohm = out->r0_ci95_mohm = out->r_static_mohm = out->r_static_ci95_mohm = NAN;
-    out->r1_mohm = out->r1_ci95_mohm = out->tau_s = out->sigma_mv = out->rho = NAN;
+    out->r1_mohm = out->r1_ci95_mohm = out->tau_s = out->tau_ci95_s = out->sigma_mv = out->rho = NAN;
     out->window_s = ecm_window_s(o->dt_med_s);
     run->grid = (struct tau_grid){
         .ok = 0, .threaded = 0, .walked = 0, .buf = NULL, .lines_mem = NULL, .tau = NAN};
     struct ctx *c = &run->c;
-    *c = (struct ctx){.s = s, .y = o->y_v, .q = q_ah, .step_a = o->step_a, .whole = o->whole};
+    *c = (struct ctx){.s = s,
+                      .y = o->y_v,
+                      .q = q_ah,
+                      .step_a = o->step_a,
+                      .whole = o->whole,
+                      /* the search's longest tau is half a window (ecm_begin) */
+                      .warm_s = WARM_TAUS * fmax(0.5 * out->window_s, o->tau_fixed_s)};
     c->w = make_windows(s, out->window_s, o->gap_s, &c->nw);
     if (!c->w) {
         free(run);
@@ -832,6 +925,7 @@ enum pb_code ecm_end(struct ecm_run *run, struct ecm_result *res)
                 out->r1_mohm = r1;
                 out->r1_ci95_mohm = r1_ci;
                 out->tau_s = tau;
+                out->tau_ci95_s = fixed ? NAN : tau_ci95(grid, tau, rss_plain_rc, n_eff, rho_rc);
                 out->sigma_mv = 1000.0 * fr.sigma;
                 out->rho = rho_rc;
                 out->downweighted = fr.n_downweighted;
@@ -852,7 +946,7 @@ done:
     free(grid->lines_mem);
     if (out->reason) {
         out->r0_mohm = out->r0_ci95_mohm = NAN;
-        out->r1_mohm = out->r1_ci95_mohm = out->tau_s = NAN;
+        out->r1_mohm = out->r1_ci95_mohm = out->tau_s = out->tau_ci95_s = NAN;
         out->rc = 0;
     }
     free(c.w);
@@ -921,18 +1015,22 @@ static inline int trend_row(void *vc, size_t k, double *x, double *y)
     return 1;
 }
 
-/* Rows in any order: with an RC branch a row needs the lag of every
- * sample before it, so rows asked for out of turn (the kept sample's,
- * ascending, then every row from the first) run the lag on from the last
- * row made, or from the first sample when asked for an earlier one: the
- * same lag, number for number, as a walk in order. */
+/* Rows in any order: with an RC branch a row needs the lag of the samples
+ * before it, so rows asked for out of turn (the kept sample's, ascending,
+ * then every row from the first) run the lag on from the last row made, or
+ * start it afresh WARM_TAUS time constants before when that row is earlier
+ * or further back: the same lag as a walk in order, up to rounding. */
 static void trend_block(void *vc, size_t k0, size_t m, int p, double *x, double *y,
                         unsigned char *use)
 {
     struct trend_ctx *c = vc;
     if (c->r1 > 0.0 && k0 > 0 && k0 != c->next) {
-        if (c->next == 0 || c->next > k0)
-            trend_lag(c, 0);
+        size_t ks = warm_start(c->s->t_s, k0, WARM_TAUS * c->tau);
+        if (c->next == 0 || c->next > k0 || c->next < ks) {
+            c->i1 = c->s->i_a[ks];
+            c->a_dt = -1.0;
+            c->next = ks + 1;
+        }
         for (size_t k = c->next; k < k0; k++)
             trend_lag(c, k);
     }

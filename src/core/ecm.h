@@ -6,7 +6,7 @@
  * lag of I with time constant tau; zero-order hold between samples).
  *
  * Owns nothing beyond one call (when a core is free, a second thread runs
- * the tau search, its grid and Brent's steps, while the static model is
+ * the tau search, its grid and Newton's steps, while the static model is
  * fitted, and is joined before the call returns). The OCV term is local: the log is cut into
  * windows (at most ecm_window_s() long, none across a gap or a clock
  * joint) and in each window OCV is a straight line in q, so the falling OCV
@@ -49,6 +49,7 @@ struct ecm_result {
     double r0_mohm, r0_ci95_mohm;
     double r_static_mohm, r_static_ci95_mohm; /* the model without RC branch */
     double r1_mohm, r1_ci95_mohm, tau_s;      /* NAN unless the RC model was chosen */
+    double tau_ci95_s; /* tau's 95 % half-width (profile curvature); NAN when tau was fixed */
     int rc;                                   /* the chosen model has the RC branch */
     double sigma_mv;                          /* residual standard deviation */
     double rho;                               /* lag-1 autocorrelation of the residuals */

@@ -103,6 +103,7 @@ static json_t *analysis_obj(const struct analysis *a, const struct report_input 
     jout_set(o, "r_static_mohm", est(a->r_static_mohm));
     jout_set(o, "r1_mohm", est(a->r1_mohm));
     jout_set(o, "tau_s", jout_num(a->tau_s.value));
+    jout_set(o, "tau_ci95_s", jout_num(a->tau_s.ci95));
     jout_set(o, "ocv_start_v", jout_num(a->ocv_start_v));
     jout_set(o, "ocv_end_v", jout_num(a->ocv_end_v));
     jout_set(o, "ocv_start_method", jout_str(a->ocv_start_method));

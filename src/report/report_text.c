@@ -148,7 +148,16 @@ int report_analysis_text(FILE *out, const struct analysis *a, const struct repor
         if (isfinite(a->tau_s.value)) {
             key(out, "polarisation");
             est(out, a->r1_mohm, "%.2f", report_mohm());
-            fprintf(out, ", time constant %.2f s\n", a->tau_s.value);
+            /* decimals enough for two digits of the half-width (a long
+             * log's tau is known to a few milliseconds) */
+            int dec = 2;
+            while (dec < 6 && isfinite(a->tau_s.ci95) && a->tau_s.ci95 < 10.0 * pow(10.0, -dec))
+                dec++;
+            char fmt[8];
+            snprintf(fmt, sizeof fmt, "%%.%df", dec);
+            fprintf(out, ", time constant ");
+            est(out, a->tau_s, fmt, "s");
+            fprintf(out, "\n");
         }
     }
     key(out, "open circuit");

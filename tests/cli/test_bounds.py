@@ -4,8 +4,8 @@
 Doubling a log must double the reading (lines read) and keep the fits' work
 per sample bounded: the fits report the rows their passes visited
 (fit.rows_visited in the JSON). Each fit makes a bounded number of passes
-(at most 16 reweighting passes, 11 grid points and 40 Brent steps for the
-time constant), so rows visited per sample stays under a constant: 150 is
+(at most 16 reweighting passes; for the time constant one walk for its
+grid and at most 16 Newton steps), so rows visited per sample stays under a constant: 150 is
 stated here, and across sizes 1x, 2x, 4x it may vary with the data (passes
 to converge) but not grow with the size: the largest per-sample work is at
 most 2.5x the smallest. Quadratic work would grow 4x per doubling.

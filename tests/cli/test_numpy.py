@@ -15,6 +15,17 @@ a + b (q - mean q), q the trapezoid charge in Ah; minus R I, and for the RC
 model minus R1 i_rc with i_rc[k] = a i_rc[k-1] + (1 - a) I[k-1],
 a = exp(-dt / tau), i_rc[0] = I[0]. The OCV trend over the log is a cubic in
 u = 2 q / q_end - 1 fitted to V + R0 I (+ R1 i_rc) with R fixed.
+
+tau (the RC model) is where the residual sum of squares, profiled over the
+other coefficients, is least in ln tau; its 95 % half-width comes from that
+profile's curvature, var(ln tau) = 2 sigma^2 / (d2 RSS / d(ln tau)^2) with
+the same allowance for correlated residuals (the profile likelihood's
+quadratic approximation: Bates and Watts, Nonlinear Regression Analysis and
+Its Applications, 1988, ch. 6; from memory). numpy's own profile, three
+lstsq fits at ln tau and 0.01 either side, must put its minimum within a
+twentieth of a standard error of packbook's tau (one Newton step from it),
+and give the same half-width within 2 % (the two curvatures are taken over
+different spans, 0.01 and packbook's 0.005 in ln tau).
 """
 import math
 import os
@@ -133,12 +144,32 @@ class AgainstNumpy(unittest.TestCase):
         c = np.linalg.lstsq(np.column_stack([u ** 0, u, u * u, u ** 3]), yo, rcond=None)[0]
         for j, cj in enumerate(fit["ocv_coef_v"]):
             self.assertLess(abs(cj - c[j]), 1e-9 + 1e-9 * abs(c[j]), f"OCV coefficient {j}")
+        if rc:
+            self.check_tau(t, v, i, q, wins, doc, infl)
+
+    def check_tau(self, t, v, i, q, wins, doc, infl):
+        tau, h = doc["tau_s"], 0.01
+        rss = []
+        for u in (math.log(tau) - h, math.log(tau), math.log(tau) + h):
+            x, rows = design(t, i, q, wins, math.exp(u))
+            rss.append(float(np.linalg.lstsq(x, v[rows], rcond=None)[1][0]))
+        n, p = x.shape
+        d1 = (rss[2] - rss[0]) / (2 * h)
+        d2 = (rss[2] - 2 * rss[1] + rss[0]) / (h * h)
+        self.assertGreater(d2, 0.0, "the profile curves up at packbook's tau")
+        se_u = math.sqrt(2 * rss[1] / (n - p - 1) * infl / d2)
+        step, ci = -d1 / d2, tau * T975 * se_u
+        print(f"  tau packbook {tau:.6f} +/- {doc['tau_ci95_s']:.6f} s, numpy's profile: "
+              f"minimum {step / se_u:+.4f} standard errors away, +/- {ci:.6f} s")
+        self.assertLess(abs(step), 0.05 * se_u, "packbook's tau is the profile's minimum")
+        self.assertLess(abs(doc["tau_ci95_s"] - ci), 0.02 * ci, "tau's half-width")
 
     def test_static_model(self):
         tmp = tempfile.mkdtemp()
         path, t, v, i = make_log(tmp, "--seed", 5, "--r1-mohm-cell", 0, "--cells", 4)
         doc = pbtest.analyze_json(path, "--fit", "ols", "--cells", 4, "--chemistry", "lipo")
         self.assertIsNone(doc["tau_s"], "no RC branch in the data")
+        self.assertIsNone(doc["tau_ci95_s"], "nor its interval")
         self.check(path, t, v, i, doc, False)
 
     def test_rc_model_at_packbooks_tau(self):

@@ -20,9 +20,9 @@
  * - The passes of a long log cut in two halves (twin.h) against the same
  *   passes walked whole: the same rows and sums added in another order, so
  *   R0, R1 and their intervals agree within 1e-6 relative (far above the
- *   rounding of reordered sums, far below the intervals) and tau within
- *   1e-3 relative (the search's own tolerance in log tau: a reordered sum
- *   may move one of Brent's steps).
+ *   rounding of reordered sums and of a lag started 40 time constants
+ *   early, far below the intervals) and tau within 1e-3 relative (a tenth
+ *   of its interval here: a reordered sum may move a Newton step).
  * - The robust trend (rows in any order, its plain start from the sample)
  *   against the plain trend (rows in order, every row): on Gaussian noise
  *   both estimate the same line; within 0.2 mV at both ends. */
@@ -68,16 +68,15 @@ static double ocv_truth(double x) /* x: the charge drawn as a fraction of the wh
     return 16.6 - 1.4 * x + 0.5 * x * x - 0.9 * x * x * x;
 }
 
-static struct series *gen(double **q_out, double *q_end)
+static struct series *gen_log(size_t rows, uint64_t seed, double **q_out, double *q_end)
 {
     struct series *s = series_new(1, 0, 0);
     assert_non_null(s);
-    double *q = malloc(ROWS * sizeof *q);
+    double *q = malloc(rows * sizeof *q);
     assert_non_null(q);
-    rng_state = SEED;
-    print_message("seed %u\n", SEED);
+    rng_state = seed;
     double level = 20.0, hold = 0.0;
-    for (size_t k = 0; k < ROWS; k++) {
+    for (size_t k = 0; k < rows; k++) {
         assert_int_equal(series_reserve_one(s), 0);
         if (hold <= 0.0) { /* a new level every 2-8 s, 3-38 A */
             level = 3.0 + 35.0 * uniform();
@@ -89,9 +88,9 @@ static struct series *gen(double **q_out, double *q_end)
         q[k] = k ? q[k - 1] + DT_S * 0.5 * (s->i_a[k - 1] + level) / 3600.0 : 0.0;
         s->n = k + 1;
     }
-    *q_end = q[ROWS - 1];
+    *q_end = q[rows - 1];
     double a = exp(-DT_S / TAU_S), i1 = s->i_a[0];
-    for (size_t k = 0; k < ROWS; k++) {
+    for (size_t k = 0; k < rows; k++) {
         if (k)
             i1 = a * i1 + (1.0 - a) * s->i_a[k - 1];
         s->v_v[k] =
@@ -99,6 +98,12 @@ static struct series *gen(double **q_out, double *q_end)
     }
     *q_out = q;
     return s;
+}
+
+static struct series *gen(double **q_out, double *q_end)
+{
+    print_message("seed %u\n", SEED);
+    return gen_log(ROWS, SEED, q_out, q_end);
 }
 
 static struct ecm_opts opts(const struct series *s)
@@ -171,6 +176,50 @@ static void test_lines_from_the_search(void **state)
     series_free(s);
 }
 
+/* tau's interval against the scatter of tau over independent logs (the
+ * meaning of a 95 % interval: it holds the truth in 95 % of logs, and its
+ * half-width is 1.96 standard deviations of the estimate; statistics
+ * textbook, e.g. NIST/SEMATECH e-Handbook of Statistical Methods, 7.1.4).
+ * TAU_LOGS logs of TAU_ROWS rows, each with its own noise and current:
+ * - coverage: with a true 95 %, more than 5 misses of 60 has probability
+ *   0.08 and more than 8 of 60 under 0.005 (binomial), so at most 8;
+ * - width: the mean half-width over 1.96 times the standard deviation of
+ *   the 60 estimates, 1 for a true interval; the sample deviation of 60
+ *   scatters by about 9 % (1 / sqrt(2 * 59)), so 0.8-1.25, about 2.3 of
+ *   that either side (a variance off by a factor of 2 is outside). */
+#define TAU_LOGS 60
+#define TAU_ROWS 20000
+static void test_tau_interval(void **state)
+{
+    (void)state;
+    double tau[TAU_LOGS], sum = 0.0, sum_ci = 0.0;
+    int misses = 0;
+    for (int j = 0; j < TAU_LOGS; j++) {
+        double *q, q_end;
+        struct series *s = gen_log(TAU_ROWS, SEED + 7919u * (uint64_t)(j + 1), &q, &q_end);
+        struct ecm_opts o = opts(s);
+        struct ecm_result r;
+        assert_int_equal(ecm_fit(s, q, &o, &r, NULL), PB_OK);
+        assert_true(r.rc);
+        assert_true(r.tau_ci95_s > 0.0);
+        tau[j] = r.tau_s;
+        sum += r.tau_s;
+        sum_ci += r.tau_ci95_s;
+        misses += fabs(r.tau_s - TAU_S) > r.tau_ci95_s;
+        free(q);
+        series_free(s);
+    }
+    double mean = sum / TAU_LOGS, ss = 0.0;
+    for (int j = 0; j < TAU_LOGS; j++)
+        ss += (tau[j] - mean) * (tau[j] - mean);
+    double sd = sqrt(ss / (TAU_LOGS - 1)), ratio = sum_ci / TAU_LOGS / (1.96 * sd);
+    print_message("tau over %d logs: mean %.5f s, sd %.5f s, mean half-width %.5f s "
+                  "(ratio %.3f), %d misses\n",
+                  TAU_LOGS, mean, sd, sum_ci / TAU_LOGS, ratio, misses);
+    assert_true(misses <= 8);
+    assert_true(ratio > 0.8 && ratio < 1.25);
+}
+
 static void test_cut_in_two(void **state)
 {
     (void)state;
@@ -221,6 +270,7 @@ int main(void)
         cmocka_unit_test(test_rc_truth_and_split),
         cmocka_unit_test(test_lines_from_the_search),
         cmocka_unit_test(test_cut_in_two),
+        cmocka_unit_test(test_tau_interval),
         cmocka_unit_test(test_rc_trend),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
