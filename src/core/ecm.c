@@ -4,8 +4,8 @@
 #include "edges.h"
 #include "twin.h"
 
-#include <gsl/gsl_errno.h>
 #include <gsl/gsl_cdf.h>
+#include <gsl/gsl_errno.h>
 #include <math.h>
 #include <pthread.h>
 #include <stdlib.h>
@@ -61,9 +61,9 @@ struct ctx {
     struct win *w;
     size_t nw;
     double step_a;
-    int whole;    /* no pass cut in two (ecm_opts) */
-    int p;        /* 1: R only; 2: R0 and R1 */
-    double tau_s; /* RC branch */
+    int whole;     /* no pass cut in two (ecm_opts) */
+    int p;         /* 1: R only; 2: R0 and R1 */
+    double tau_s;  /* RC branch */
     double warm_s; /* a lag's start before it is needed (WARM_TAUS times the longest tau) */
     /* running state, reset at k == 0 */
     size_t at; /* current window */
@@ -599,10 +599,10 @@ struct tau_grid {
     double g[TAU_GRID], taus[TAU_GRID], f[TAU_GRID];
     double *buf; /* the walks' two buffers (rss_walk) */
     size_t buf_len;
-    double tau;     /* the result: NAN when the best tau is at a grid end */
-    double tau_rss; /* the RC model's plain residual sum of squares there */
-    double tau_d2;  /* the profile's curvature there, d2 RSS / d (ln tau)2 */
-    int steps;      /* profile walks after the grid */
+    double tau;          /* the result: NAN when the best tau is at a grid end */
+    double tau_rss;      /* the RC model's plain residual sum of squares there */
+    double tau_d2;       /* the profile's curvature there, d2 RSS / d (ln tau)2 */
+    int steps;           /* profile walks after the grid */
     double *lines_mem;   /* room for the windows' RC lines */
     const double *lines; /* the RC lines of the walk at tau (in lines_mem), else NULL */
     size_t work;         /* rows the search visited, added to the caller's count at the end */
@@ -807,7 +807,8 @@ struct ecm_run *ecm_begin(const struct series *s, const double *q_ah, const stru
     run->o = *o;
     struct ecm_result *out = &run->out;
     out->r0_mohm = out->r0_ci95_mohm = out->r_static_mohm = out->r_static_ci95_mohm = NAN;
-    out->r1_mohm = out->r1_ci95_mohm = out->tau_s = out->tau_ci95_s = out->sigma_mv = out->rho = NAN;
+    out->r1_mohm = out->r1_ci95_mohm = out->tau_s = out->tau_ci95_s = out->sigma_mv = out->rho =
+        NAN;
     out->window_s = ecm_window_s(o->dt_med_s);
     run->grid = (struct tau_grid){
         .ok = 0, .threaded = 0, .walked = 0, .buf = NULL, .lines_mem = NULL, .tau = NAN};

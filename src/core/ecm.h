@@ -50,9 +50,9 @@ struct ecm_result {
     double r_static_mohm, r_static_ci95_mohm; /* the model without RC branch */
     double r1_mohm, r1_ci95_mohm, tau_s;      /* NAN unless the RC model was chosen */
     double tau_ci95_s; /* tau's 95 % half-width (profile curvature); NAN when tau was fixed */
-    int rc;                                   /* the chosen model has the RC branch */
-    double sigma_mv;                          /* residual standard deviation */
-    double rho;                               /* lag-1 autocorrelation of the residuals */
+    int rc;            /* the chosen model has the RC branch */
+    double sigma_mv;   /* residual standard deviation */
+    double rho;        /* lag-1 autocorrelation of the residuals */
     size_t downweighted;
     int iterations;
     size_t windows; /* windows that inform R */

@@ -267,10 +267,8 @@ int main(void)
 {
     gsl_set_error_handler_off();
     const struct CMUnitTest tests[] = {
-        cmocka_unit_test(test_rc_truth_and_split),
-        cmocka_unit_test(test_lines_from_the_search),
-        cmocka_unit_test(test_cut_in_two),
-        cmocka_unit_test(test_tau_interval),
+        cmocka_unit_test(test_rc_truth_and_split), cmocka_unit_test(test_lines_from_the_search),
+        cmocka_unit_test(test_cut_in_two),         cmocka_unit_test(test_tau_interval),
         cmocka_unit_test(test_rc_trend),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
