@@ -206,7 +206,7 @@ static void ecm_block(void *vc, size_t k0, size_t m, int p, double *x, double *y
         y[j] = c->y[k] - (w->mv + w->bv * dq);
         int step = (k > 0 && fabs(s->i_a[k] - s->i_a[k - 1]) >= step_a) ||
                    (k + 1 < s->n && fabs(s->i_a[k + 1] - s->i_a[k]) >= step_a);
-        use[j] = step ? FIT_ROW_KEEP : 1;
+        use[j] = (unsigned char)((step ? FIT_ROW_KEEP : 1) | (k == w->k0 ? FIT_ROW_FIRST : 0));
     }
 }
 
@@ -287,9 +287,11 @@ static size_t window_params(const struct ctx *c)
 }
 
 /* lines: the windows' RC lines at tau_s when the tau search made them (its
- * walk at this very tau), else NULL and they are made here. */
+ * walk at this very tau), else NULL and they are made here. The lag-1
+ * moments of the rows go in *lag1 (honest_cov). */
 static enum pb_code fit_at(struct ctx *c, int p, double tau_s, int robust, size_t *work,
-                           const double *lines, struct fit_result *f, struct pb_error *err)
+                           const double *lines, struct fit_lag1 *lag1, struct fit_result *f,
+                           struct pb_error *err)
 {
     c->p = p;
     c->tau_s = tau_s;
@@ -308,97 +310,26 @@ static enum pb_code fit_at(struct ctx *c, int p, double tau_s, int robust, size_
      * from the tau search, see static_rss_plain and ecm_end) */
     c->next = 0;
     size_t ctx_size = c->whole ? 0 : sizeof *c; /* 0: no pass cut in two */
-    enum pb_code rc = robust ? fit_blocks_any_order(c->s->n, p, ecm_block, c, ctx_size, f, err)
-                             : fit_blocks(c->s->n, p, ecm_block, c, ctx_size, robust, f, err);
+    enum pb_code rc = robust
+                          ? fit_blocks_any_order(c->s->n, p, ecm_block, c, ctx_size, lag1, f, err)
+                          : fit_blocks(c->s->n, p, ecm_block, c, ctx_size, robust, lag1, f, err);
     if (work)
         *work += f->rows_visited + (p == 2 && !lines ? c->s->n : 0);
     return rc;
 }
 
-/* The lag-1 sums of the residuals at beta over samples [k0, k1), in sample
- * order within a window (the rows made a block at a time by ecm_block, as
- * the fit made them, on a context of its own). */
-struct lag1 {
-    struct ctx c;
-    const double *beta;
-    int p;
-    size_t k0, k1;
-    double s01, s00;
-    double first, last;         /* the residual of row k0 and of row k1 - 1 (NAN: not used) */
-    size_t first_win, last_win; /* their windows */
-};
-
-static void lag1_sums(void *vl)
-{
-    enum { HC_BLOCK = 256 };
-    struct lag1 *l = vl;
-    struct ctx *c = &l->c;
-    double xb[HC_BLOCK * FIT_MAX_P], yb[HC_BLOCK], prev = NAN, s01 = 0.0, s00 = 0.0;
-    unsigned char ub[HC_BLOCK];
-    size_t prev_w = (size_t)-1, at = 0;
-    const int p = l->p;
-    l->first = NAN;
-    l->first_win = (size_t)-1;
-    for (size_t k0 = l->k0; k0 < l->k1; k0 += HC_BLOCK) {
-        size_t m = l->k1 - k0 < HC_BLOCK ? l->k1 - k0 : HC_BLOCK;
-        ecm_block(c, k0, m, p, xb, yb, ub);
-        for (size_t j = 0; j < m; j++) {
-            if (!ub[j]) {
-                prev = NAN;
-                continue;
-            }
-            size_t k = k0 + j;
-            while (k >= c->w[at].k1) /* a used row lies in a window */
-                at++;
-            const double *x = xb + j * (size_t)p;
-            double r = yb[j];
-            for (int i = 0; i < p; i++)
-                r -= x[i] * l->beta[i];
-            if (isfinite(prev) && prev_w == at)
-                s01 += r * prev;
-            s00 += r * r;
-            if (k == l->k0) {
-                l->first = r;
-                l->first_win = at;
-            }
-            prev = r;
-            prev_w = at;
-        }
-    }
-    l->s01 = s01;
-    l->s00 = s00;
-    l->last = prev;
-    l->last_win = prev_w;
-}
-
 /* Charges the windows' own parameters to the degrees of freedom and widens
- * the covariance for serially correlated residuals; returns rho. A long log
- * is summed in two halves (twin.h), joined where the second starts. */
-static double honest_cov(struct ctx *c, struct fit_result *f)
+ * the covariance for serially correlated residuals; returns rho, the lag-1
+ * autocorrelation of the residuals within windows, from the moments the
+ * fit's pass made (lag1; NAN when it made none, and then no widening). */
+static double honest_cov(const struct ctx *c, const struct fit_lag1 *lag1, struct fit_result *f)
 {
     double dof = f->dof - (double)window_params(c);
     if (dof < 1.0) {
         f->dof = 0.0;
         return NAN;
     }
-    size_t n = c->s->n, h = n >= TWIN_MIN_ROWS && !c->whole ? twin_split(n) : n;
-    struct lag1 a = {.c = *c, .beta = f->beta, .p = f->p, .k0 = 0, .k1 = h};
-    struct lag1 b = {.c = *c, .beta = f->beta, .p = f->p, .k0 = h, .k1 = n};
-    double s01, s00;
-    if (h < n) {
-        twin_run(lag1_sums, &a, lag1_sums, &b);
-        /* the pair across the cut: both rows used, in one window */
-        double across = isfinite(a.last) && isfinite(b.first) && a.last_win == b.first_win
-                            ? a.last * b.first
-                            : 0.0;
-        s01 = a.s01 + across + b.s01;
-        s00 = a.s00 + b.s00;
-    } else {
-        lag1_sums(&a);
-        s01 = a.s01;
-        s00 = a.s00;
-    }
-    double rho = s00 > 0.0 ? s01 / s00 : 0.0;
+    double rho = fit_lag1_rho(lag1, f->beta, f->p);
     double infl = rho > 0.0 ? (1.0 + rho) / (1.0 - fmin(rho, 0.99)) : 1.0;
     double k = f->dof / dof * infl;
     for (int i = 0; i < f->p; i++)
@@ -878,11 +809,12 @@ enum pb_code ecm_end(struct ecm_run *run, struct ecm_result *res)
     if (out->reason)
         goto done;
     struct fit_result fs;
-    if (fit_at(&c, 1, 0.0, o->robust, o->work, NULL, &fs, NULL) != PB_OK || fs.rank < 1) {
+    struct fit_lag1 lag1;
+    if (fit_at(&c, 1, 0.0, o->robust, o->work, NULL, &lag1, &fs, NULL) != PB_OK || fs.rank < 1) {
         out->reason = "the resistance fit failed (too few samples inside the windows)";
         goto done;
     }
-    double rho = honest_cov(&c, &fs);
+    double rho = honest_cov(&c, &lag1, &fs);
     double r_static = 1000.0 * fs.beta[0], r_static_ci = 1000.0 * fit_ci95(&fs, 0);
     out->r_static_mohm = r_static;
     out->r_static_ci95_mohm = r_static_ci;
@@ -899,14 +831,15 @@ enum pb_code ecm_end(struct ecm_run *run, struct ecm_result *res)
             tau = search_tau(grid, o->work);
         struct fit_result fr;
         const double *lines = grid->lines && tau == grid->tau ? grid->lines : NULL;
-        if (isfinite(tau) && fit_at(&c, 2, tau, o->robust, o->work, lines, &fr, NULL) == PB_OK &&
+        if (isfinite(tau) &&
+            fit_at(&c, 2, tau, o->robust, o->work, lines, &lag1, &fr, NULL) == PB_OK &&
             fr.rank == 2) {
             /* the search's walk at this tau summed the RC model's plain
              * normal equations over every row, as a plain pass would (a
              * robust fit's own rss_plain is its sample's) */
             double rss_plain_rc = tau == grid->tau ? grid->tau_rss : fr.rss_plain;
             double rss_plain_static = static_rss_plain(grid, &fs);
-            double rho_rc = honest_cov(&c, &fr);
+            double rho_rc = honest_cov(&c, &lag1, &fr);
             double r0 = 1000.0 * fr.beta[0], r1 = 1000.0 * fr.beta[1];
             double r1_ci = 1000.0 * fit_ci95(&fr, 1);
             double n_eff = (double)fs.n_used - (double)window_params(&c);
@@ -1054,8 +987,8 @@ enum pb_code ecm_ocv_trend(const struct series *s, const double *q_ah, double q_
     /* rows are made in any order (trend_block), so a robust fit of a long
      * log takes its plain start from the even sample */
     enum pb_code rc =
-        robust ? fit_blocks_any_order(s->n, degree + 1, trend_block, &c, sizeof c, out, err)
-               : fit_blocks(s->n, degree + 1, trend_block, &c, sizeof c, robust, out, err);
+        robust ? fit_blocks_any_order(s->n, degree + 1, trend_block, &c, sizeof c, NULL, out, err)
+               : fit_blocks(s->n, degree + 1, trend_block, &c, sizeof c, robust, NULL, out, err);
     if (work)
         *work += out->rows_visited;
     /* the reference voltage back into the constant term */

@@ -50,7 +50,138 @@ struct source {
     void *copy;      /* room for that copy, made by fit_core for a long fit */
     fit_row_fn row;  /* when the caller gave rows, not blocks */
     void *row_ctx;
+    struct fit_lag1 *lag1; /* the lag-1 moments wanted (NULL: not), made by the first full pass */
 };
+
+/* The lag-1 moments of one piece of a pass, with the last row in hand (to
+ * pair with the next) and the piece's first row (to pair with the row
+ * before the piece, where a pass is cut). */
+struct lag_acc {
+    struct fit_lag1 m;
+    int prev_used;
+    double px[FIT_MAX_P], py;
+    int first_seen;
+    unsigned char first_u;
+    double fx[FIT_MAX_P], fy;
+};
+
+static inline void lag_pair(const int p, struct fit_lag1 *m, const double *x, double y,
+                            const double *px, double py)
+{
+    m->pyy += y * py;
+    PB_UNROLL
+    for (int i = 0; i < p; i++) {
+        m->pxy[i] += x[i] * py;
+        m->pyx[i] += y * px[i];
+        PB_UNROLL
+        for (int j = 0; j < p; j++)
+            m->pxx[i][j] += x[i] * px[j];
+    }
+}
+
+static inline __attribute__((always_inline)) void
+lag_block(const int p, size_t n, const double *restrict x, const double *restrict y,
+          const unsigned char *restrict use, struct lag_acc *acc)
+{
+    if (p < 1 || p > FIT_MAX_P)
+        __builtin_unreachable();
+    struct fit_lag1 m = acc->m;
+    double px[FIT_MAX_P] = {0}, py = acc->py;
+    int prev_used = acc->prev_used;
+    PB_UNROLL
+    for (int i = 0; i < p; i++)
+        px[i] = acc->px[i];
+    if (!acc->first_seen && n > 0) {
+        acc->first_seen = 1;
+        acc->first_u = use[0];
+        acc->fy = y[0];
+        for (int i = 0; i < p; i++)
+            acc->fx[i] = x[i];
+    }
+    for (size_t r = 0; r < n; r++) {
+        if (!use[r]) {
+            prev_used = 0;
+            continue;
+        }
+        const double *xr = x + r * (size_t)p;
+        double yr = y[r];
+        m.yy += yr * yr;
+        PB_UNROLL
+        for (int i = 0; i < p; i++) {
+            m.xy[i] += xr[i] * yr;
+            PB_UNROLL
+            for (int j = i; j < p; j++)
+                m.xx[i][j] += xr[i] * xr[j];
+        }
+        if (prev_used && !(use[r] & FIT_ROW_FIRST))
+            lag_pair(p, &m, xr, yr, px, py);
+        prev_used = 1;
+        py = yr;
+        PB_UNROLL
+        for (int i = 0; i < p; i++)
+            px[i] = xr[i];
+    }
+    acc->m = m;
+    acc->py = py;
+    acc->prev_used = prev_used;
+    PB_UNROLL
+    for (int i = 0; i < p; i++)
+        acc->px[i] = px[i];
+}
+
+/* lag_block with p made a constant where it is common. */
+static void lag_of(int p, size_t n, const double *x, const double *y, const unsigned char *use,
+                   struct lag_acc *acc)
+{
+    switch (p) {
+    case 1:
+        lag_block(1, n, x, y, use, acc);
+        break;
+    case 2:
+        lag_block(2, n, x, y, use, acc);
+        break;
+    default:
+        lag_block(p, n, x, y, use, acc);
+        break;
+    }
+}
+
+/* b's moments after a's; b's first row paired with a's last where both are
+ * in use and b's does not start a run. */
+static void lag_join(int p, struct fit_lag1 *into, const struct lag_acc *a, const struct lag_acc *b)
+{
+    *into = a->m;
+    const struct fit_lag1 *m = &b->m;
+    into->yy += m->yy;
+    into->pyy += m->pyy;
+    for (int i = 0; i < p; i++) {
+        into->xy[i] += m->xy[i];
+        into->pxy[i] += m->pxy[i];
+        into->pyx[i] += m->pyx[i];
+        for (int j = 0; j < p; j++) {
+            into->xx[i][j] += m->xx[i][j];
+            into->pxx[i][j] += m->pxx[i][j];
+        }
+    }
+    if (a->prev_used && b->first_seen && b->first_u && !(b->first_u & FIT_ROW_FIRST))
+        lag_pair(p, into, b->fx, b->fy, a->px, a->py);
+}
+
+double fit_lag1_rho(const struct fit_lag1 *m, const double *beta, int p)
+{
+    if (!m->have)
+        return NAN;
+    double s00 = m->yy, s01 = m->pyy;
+    for (int i = 0; i < p; i++) {
+        s00 -= 2.0 * beta[i] * m->xy[i];
+        s01 -= beta[i] * (m->pxy[i] + m->pyx[i]);
+        for (int j = 0; j < p; j++) {
+            s00 += beta[i] * beta[j] * (i <= j ? m->xx[i][j] : m->xx[j][i]);
+            s01 += beta[i] * beta[j] * m->pxx[i][j];
+        }
+    }
+    return s00 > 0.0 ? s01 / s00 : 0.0;
+}
 
 static void rows_as_block(void *vsrc, size_t k0, size_t m, int p, double *x, double *y,
                           unsigned char *use)
@@ -109,7 +240,7 @@ block_sums(const int p, size_t m, const double *restrict x, const double *restri
                 res -= xr[j] * beta[j];
             if (take && ss->n < ss->cap)
                 ss->r[ss->n++] = fabs(res);
-            if (scale > 0.0 && u != FIT_ROW_KEEP) {
+            if (scale > 0.0 && !(u & FIT_ROW_KEEP)) {
                 double v = res * inv_cs;
                 w = fabs(v) < 1.0 ? (1.0 - v * v) * (1.0 - v * v) : 0.0;
                 n_low += w < 0.5;
@@ -174,6 +305,7 @@ struct half {
     double scale;
     struct scale_sample *ss; /* NULL: no sample */
     size_t ss_left;          /* rows to the next sampled one, counting it */
+    struct lag_acc *lag;     /* NULL: no lag-1 moments */
     struct normal_eq ne;
 };
 
@@ -187,6 +319,8 @@ static void half_pass(void *vh)
         size_t m = h->k1 - k0 < FIT_BLOCK ? h->k1 - k0 : FIT_BLOCK;
         h->src->block(h->ctx, k0, m, h->p, x, y, use);
         sums_of(h->p, m, x, y, use, h->beta, h->scale, h->ss, &h->ss_left, &h->ne);
+        if (h->lag)
+            lag_of(h->p, m, x, y, use, h->lag);
     }
 }
 
@@ -236,6 +370,12 @@ static void run_pass(size_t n, int p, const struct source *src, const double *be
     if (ss && !beta)
         ss->nk = 0;
     size_t h = src->copy ? twin_split(n) : 0;
+    /* the lag-1 moments on the first pass over every row */
+    struct lag_acc lag_room[2], *lag = NULL;
+    if (src->lag1 && !src->lag1->have) {
+        memset(lag_room, 0, sizeof lag_room);
+        lag = lag_room;
+    }
     struct half a = {.src = src,
                      .ctx = src->ctx,
                      .k1 = h ? h : n,
@@ -243,10 +383,15 @@ static void run_pass(size_t n, int p, const struct source *src, const double *be
                      .beta = beta,
                      .scale = scale,
                      .ss = ss,
-                     .ss_left = 1};
+                     .ss_left = 1,
+                     .lag = lag};
     if (h == 0) {
         half_pass(&a);
         *ne = a.ne;
+        if (lag) {
+            *src->lag1 = lag[0].m;
+            src->lag1->have = 1;
+        }
         return;
     }
     memcpy(src->copy, src->ctx, src->ctx_size);
@@ -257,7 +402,8 @@ static void run_pass(size_t n, int p, const struct source *src, const double *be
                      .p = p,
                      .beta = beta,
                      .scale = scale,
-                     .ss_left = 1};
+                     .ss_left = 1,
+                     .lag = lag ? lag + 1 : NULL};
     struct scale_sample sa, sb;
     size_t marks = 0; /* sampled indices below h: the first half's room */
     if (ss) {
@@ -281,6 +427,10 @@ static void run_pass(size_t n, int p, const struct source *src, const double *be
     twin_run(half_pass, &a, half_pass, &b);
     *ne = a.ne;
     add_sums(ne, &b.ne, p);
+    if (lag) {
+        lag_join(p, src->lag1, &lag[0], &lag[1]);
+        src->lag1->have = 1;
+    }
     if (ss && beta) {
         memmove(ss->r + sa.n, sb.r, sb.n * sizeof *sb.r);
         ss->n = sa.n + sb.n;
@@ -755,16 +905,22 @@ enum pb_code fit_linear(size_t n, int p, fit_row_fn row, void *ctx, int robust,
 }
 
 enum pb_code fit_blocks(size_t n, int p, fit_block_fn block, void *ctx, size_t ctx_size, int robust,
-                        struct fit_result *out, struct pb_error *err)
+                        struct fit_lag1 *lag1, struct fit_result *out, struct pb_error *err)
 {
-    struct source src = {.block = block, .ctx = ctx, .ctx_size = ctx_size};
+    struct source src = {.block = block, .ctx = ctx, .ctx_size = ctx_size, .lag1 = lag1};
+    if (lag1)
+        lag1->have = 0;
     return fit_core(n, p, &src, robust, NULL, out, err);
 }
 
 enum pb_code fit_blocks_any_order(size_t n, int p, fit_block_fn block, void *ctx, size_t ctx_size,
-                                  struct fit_result *out, struct pb_error *err)
+                                  struct fit_lag1 *lag1, struct fit_result *out,
+                                  struct pb_error *err)
 {
-    struct source src = {.block = block, .ctx = ctx, .any_order = 1, .ctx_size = ctx_size};
+    struct source src = {
+        .block = block, .ctx = ctx, .any_order = 1, .ctx_size = ctx_size, .lag1 = lag1};
+    if (lag1)
+        lag1->have = 0;
     return fit_core(n, p, &src, 1, NULL, out, err);
 }
 

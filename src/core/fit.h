@@ -13,7 +13,11 @@
  * index, those in use). When those rows
  * are at most a quarter of all, the reweighting iterates on them alone and
  * one pass over every row then weights all rows at that fit (more passes
- * only when it moves a coefficient beyond the subsample's own error). */
+ * only when it moves a coefficient beyond the subsample's own error).
+ *
+ * On request the first pass over every row also makes the rows' lag-1
+ * moments (struct fit_lag1), from which the residuals' serial correlation
+ * at the final coefficients follows without a pass of its own. */
 #ifndef PB_FIT_H
 #define PB_FIT_H
 
@@ -31,10 +35,15 @@
 #define FIT_ROW_KEEP 2
 typedef int (*fit_row_fn)(void *ctx, size_t k, double *x, double *y);
 
+/* Or'ed into a block's use[j] (fit_block_fn): row j starts a run of its
+ * own, its residual is not paired with the row before it in the lag-1
+ * moments (struct fit_lag1), e.g. the first row of a window. */
+#define FIT_ROW_FIRST 4
+
 /* Makes rows k0..k0+m-1 (m <= 256) in order: row j's columns in
  * x[j*p .. j*p+p), its value in y[j] and in use[j] what a row callback
- * returns. Asked for in order 0..n-1 on every pass (k0 == 0 starts one), so
- * it may carry state from block to block.
+ * returns, with FIT_ROW_FIRST or'ed in where a run starts. Asked for in order 0..n-1 on every pass
+ * (k0 == 0 starts one), so it may carry state from block to block.
  *
  * A context given with its size (ctx_size > 0) may be copied byte for byte
  * and the copy asked for rows from any k0 on (it runs its state on from the
@@ -53,6 +62,23 @@ struct fit_sums {
     double yy;
     size_t n_used;
 };
+
+/* The lag-1 moments of the rows in use, for the serial correlation of the
+ * residuals at any coefficients (fit_lag1_rho) without another pass: sums
+ * over the rows of y^2, x y and x x', and over the pairs of consecutive
+ * rows in use (the later not flagged FIT_ROW_FIRST) of y_k y_k-1,
+ * x_k y_k-1, y_k x_k-1 and x_k x_k-1'. The rows in use do not depend on
+ * the weights, so one pass makes them. */
+struct fit_lag1 {
+    int have; /* made (a fit that passed over every row) */
+    double yy, xy[FIT_MAX_P], xx[FIT_MAX_P][FIT_MAX_P];
+    double pyy, pxy[FIT_MAX_P], pyx[FIT_MAX_P], pxx[FIT_MAX_P][FIT_MAX_P];
+};
+
+/* The lag-1 autocorrelation of the residuals y - x beta from the moments:
+ * sum r_k r_k-1 over the pairs / sum r_k^2 over the rows; 0 when the
+ * residuals are all 0, NAN when m was not made. */
+double fit_lag1_rho(const struct fit_lag1 *m, const double *beta, int p);
 
 struct fit_result {
     int p;
@@ -75,16 +101,19 @@ struct fit_result {
 enum pb_code fit_linear(size_t n, int p, fit_row_fn row, void *ctx, int robust,
                         struct fit_result *out, struct pb_error *err);
 
-/* fit_linear with rows made a block at a time (no call per row). */
-enum pb_code fit_blocks(size_t n, int p, fit_block_fn block, void *ctx, size_t ctx_size,
-                        int robust, struct fit_result *out, struct pb_error *err);
+/* fit_linear with rows made a block at a time (no call per row). lag1 not
+ * NULL: the lag-1 moments of the rows are made into it on the first pass
+ * over every row (lag1->have set). */
+enum pb_code fit_blocks(size_t n, int p, fit_block_fn block, void *ctx, size_t ctx_size, int robust,
+                        struct fit_lag1 *lag1, struct fit_result *out, struct pb_error *err);
 
 /* Robust fit_blocks for rows that do not depend on each other, so block()
  * makes any rows asked for in any order: on a long log the plain fit too is
  * the even sample's, made without a pass over every row (rss_plain is then
  * the sample's, scaled to n rows); then one pass over every row as above. */
-enum pb_code fit_blocks_any_order(size_t n, int p, fit_block_fn block, void *ctx,
-                                  size_t ctx_size, struct fit_result *out, struct pb_error *err);
+enum pb_code fit_blocks_any_order(size_t n, int p, fit_block_fn block, void *ctx, size_t ctx_size,
+                                  struct fit_lag1 *lag1, struct fit_result *out,
+                                  struct pb_error *err);
 
 /* The plain fit of sums made by the caller (e.g. shared walks over the
  * data for many candidate models); rows_visited is left 0. */

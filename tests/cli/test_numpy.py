@@ -7,7 +7,9 @@ the full design, window columns and all, by SVD. With --fit ols both are plain
 least squares on the same rows, so the resistances must agree to rounding
 (relative 1e-6) and the 95 % half-widths to 0.1 % once packbook's documented
 allowance for correlated residuals, (1 + rho) / (1 - rho) on the variance with
-the rho it reports, is applied (at over 5000 degrees of freedom t(0.975) =
+the rho it reports, is applied; that rho must be numpy's residuals' lag-1
+autocorrelation within windows to 1e-6 (packbook sums it from moments made
+on its pass, not from the residuals) (at over 5000 degrees of freedom t(0.975) =
 1.9604, used here too). Designs are the documented ones (man packbook, MODEL):
 in each window of at most fit.window_s seconds (cut at gaps, at least 3
 samples, used when its current varies above 5 noise deviations), OCV is
@@ -125,6 +127,15 @@ class AgainstNumpy(unittest.TestCase):
         self.assertEqual(rank, p)
         cov = float(rss[0]) / (n - p) * np.linalg.inv(x.T @ x)
         rho = fit["residual_lag1_corr"]
+        # rho itself: numpy's residuals, consecutive rows paired within a window
+        res, at, s01 = y - x @ beta, 0, 0.0
+        for k0, k1 in wins:
+            r = res[at:at + k1 - k0]
+            s01 += float(r[1:] @ r[:-1])
+            at += k1 - k0
+        rho_np = s01 / float(res @ res)
+        print(f"  rho numpy {rho_np:.9f}, packbook {rho:.9f}")
+        self.assertLess(abs(rho - rho_np), 1e-6, "residual lag-1 correlation")
         infl = (1 + rho) / (1 - rho) if rho > 0 else 1.0
         jr = p - 2 if rc else p - 1
         r0, ci = 1000 * beta[jr], 1000 * T975 * math.sqrt(cov[jr, jr] * infl)

@@ -114,8 +114,8 @@ static void test_robust_long(void **state)
     for (size_t k = 0; k < d.n; k += 20)
         d.y[k] += 3.0;
     struct fit_result a, b;
-    assert_int_equal(fit_blocks(d.n, 2, block_line, &d, 0, 1, &a, NULL), PB_OK);
-    assert_int_equal(fit_blocks_any_order(d.n, 2, block_line, &d, 0, &b, NULL), PB_OK);
+    assert_int_equal(fit_blocks(d.n, 2, block_line, &d, 0, 1, NULL, &a, NULL), PB_OK);
+    assert_int_equal(fit_blocks_any_order(d.n, 2, block_line, &d, 0, NULL, &b, NULL), PB_OK);
     check_close(a.beta[0], 16.0, 1e-4, "long robust intercept ignores glitches");
     check_close(a.beta[1], -0.05, 2e-5, "long robust slope ignores glitches");
     assert_true(a.n_downweighted >= d.n / 20);
@@ -179,10 +179,11 @@ static void test_cut_pass(void **state)
     for (int any = 0; any < 2; any++) {
         struct lagged ca = {&d, 0.0, 0}, cb = {&d, 0.0, 0};
         struct fit_result a, b;
-        enum pb_code ra = any ? fit_blocks_any_order(d.n, 2, block_lagged, &ca, 0, &a, NULL)
-                              : fit_blocks(d.n, 2, block_lagged, &ca, 0, 1, &a, NULL);
-        enum pb_code rb = any ? fit_blocks_any_order(d.n, 2, block_lagged, &cb, sizeof cb, &b, NULL)
-                              : fit_blocks(d.n, 2, block_lagged, &cb, sizeof cb, 1, &b, NULL);
+        enum pb_code ra = any ? fit_blocks_any_order(d.n, 2, block_lagged, &ca, 0, NULL, &a, NULL)
+                              : fit_blocks(d.n, 2, block_lagged, &ca, 0, 1, NULL, &a, NULL);
+        enum pb_code rb =
+            any ? fit_blocks_any_order(d.n, 2, block_lagged, &cb, sizeof cb, NULL, &b, NULL)
+                : fit_blocks(d.n, 2, block_lagged, &cb, sizeof cb, 1, NULL, &b, NULL);
         assert_int_equal(ra, PB_OK);
         assert_int_equal(rb, PB_OK);
         assert_int_equal(a.n_used, b.n_used);
@@ -195,6 +196,70 @@ static void test_cut_pass(void **state)
         }
         check_close(b.scale, a.scale, 1e-9 * a.scale, "cut pass: the same scale sample");
         check_close(b.rss_plain, a.rss_plain, 1e-3 * a.rss_plain, "cut pass: plain residual");
+    }
+    free(d.x), free(d.y);
+}
+
+/* The lag-1 moments (fit_lag1) against the residuals' autocorrelation
+ * summed directly at the fitted coefficients (its definition: sum of
+ * r_k r_k-1 over pairs of consecutive rows in use within a run, over the
+ * sum of r_k^2), with and without a cut pass, plain and robust. Rows: the
+ * lagged column above, some not in use, a run starting every 50 rows
+ * (FIT_ROW_FIRST), AR(1) noise with coefficient 0.6. Tolerance 1e-9
+ * absolute: the moments give the sums as differences of much larger
+ * numbers (y^2 and x y against r^2), which leaves ~2e-10 of rounding
+ * here; one pair left out (the one across a cut) moves rho by ~1e-6. */
+static void block_runs(void *ctx, size_t k0, size_t m, int p, double *x, double *y,
+                       unsigned char *use)
+{
+    block_lagged(ctx, k0, m, p, x, y, use);
+    for (size_t j = 0; j < m; j++)
+        if ((k0 + j) % 50 == 0)
+            use[j] |= FIT_ROW_FIRST;
+}
+
+static void test_lag1_moments(void **state)
+{
+    (void)state;
+    struct data d = make(400000, 0.5, -0.05, 0.0, 11);
+    srand(12);
+    double e = 0.0;
+    for (size_t k = 0; k < d.n; k++) {
+        e = 0.6 * e + 0.01 * ((double)rand() / RAND_MAX - 0.5);
+        d.y[k] += e;
+    }
+    for (int variant = 0; variant < 4; variant++) {
+        int any = variant & 1, cut = variant >> 1;
+        struct lagged c = {&d, 0.0, 0};
+        struct fit_lag1 m;
+        struct fit_result f;
+        size_t size = cut ? sizeof c : 0;
+        enum pb_code rc = any ? fit_blocks_any_order(d.n, 2, block_runs, &c, size, &m, &f, NULL)
+                              : fit_blocks(d.n, 2, block_runs, &c, size, 0, &m, &f, NULL);
+        assert_int_equal(rc, PB_OK);
+        assert_true(m.have);
+        struct lagged w = {&d, 0.0, 0};
+        double s01 = 0.0, s00 = 0.0, prev = 0.0;
+        int prev_used = 0;
+        for (size_t k = 0; k < d.n; k++) {
+            double x[2], y;
+            unsigned char u;
+            block_runs(&w, k, 1, 2, x, &y, &u);
+            if (!u) {
+                prev_used = 0;
+                continue;
+            }
+            double r = y - x[0] * f.beta[0] - x[1] * f.beta[1];
+            if (prev_used && !(u & FIT_ROW_FIRST))
+                s01 += r * prev;
+            s00 += r * r;
+            prev = r;
+            prev_used = 1;
+        }
+        double rho = fit_lag1_rho(&m, f.beta, 2);
+        print_message("variant %d: rho %.12f, direct %.12f\n", variant, rho, s01 / s00);
+        check_close(rho, s01 / s00, 1e-9, "lag-1 moments against the residuals");
+        assert_true(rho > 0.3); /* the noise's own correlation shows */
     }
     free(d.x), free(d.y);
 }
@@ -269,6 +334,7 @@ int main(void)
         cmocka_unit_test(test_robust_outliers),
         cmocka_unit_test(test_robust_long),
         cmocka_unit_test(test_cut_pass),
+        cmocka_unit_test(test_lag1_moments),
         cmocka_unit_test(test_rank_deficient),
         cmocka_unit_test(test_too_few_rows),
     };
