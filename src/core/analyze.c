@@ -558,7 +558,7 @@ static void current_walks(struct analysis *a, const struct series *s, const stru
  * (ecm.h), the tau search beside the static model's fit. */
 static enum pb_code stage_resistance(struct analysis *a, const struct series *s, double *q_ah,
                                      const struct analyze_opts *o, double imin, const char *name,
-                                     struct pb_error *err)
+                                     struct ecm_lag_rows *lag_rows, struct pb_error *err)
 {
     double step_a = edges_step_a(o->capacity_mah, a->peak_a);
     struct beside b = {.s = s,
@@ -582,7 +582,8 @@ static enum pb_code stage_resistance(struct analysis *a, const struct series *s,
                               .step_a = step_a,
                               .cutoff_v = a->cells > 0 ? a->floor_v * a->cells : 0.0,
                               .robust = !o->plain_fit,
-                              .work = &a->fit_rows_visited}};
+                              .work = &a->fit_rows_visited,
+                              .lag_rows = lag_rows}};
     current_walks(a, s, o, name, &st, &b);
     struct ecm_run *run = st.run;
     if (!run)
@@ -659,7 +660,7 @@ static size_t final_rest_start(const struct series *s, double rest_a)
  * the rest is shorter or missing. Half-widths (95 %, pack) go with each. */
 static enum pb_code stage_ocv(struct analysis *a, const struct series *s, const double *q_ah,
                               const struct analyze_opts *o, size_t k_rest0, size_t k_rest1,
-                              struct pb_error *err)
+                              const struct ecm_lag_rows *lag_rows, struct pb_error *err)
 {
     double r_ohm = 0.0, r1_ohm = 0.0, tau = 0.0, r_ci_ohm = 0.0;
     if (isfinite(a->r0_model_mohm.value)) {
@@ -680,7 +681,7 @@ static enum pb_code stage_ocv(struct analysis *a, const struct series *s, const 
     a->ocv_degree = fabs(a->q_end_ah) > 1e-6 && s->n >= 40 ? 3 : 0;
     struct fit_result f;
     enum pb_code rc = ecm_ocv_trend(s, q_ah, a->q_end_ah, a->ocv_degree, r_ohm, r1_ohm, tau,
-                                    !o->plain_fit, &a->fit_rows_visited, &f, err);
+                                    !o->plain_fit, lag_rows, &a->fit_rows_visited, &f, err);
     if (rc != PB_OK)
         return rc;
     for (int j = 0; j <= a->ocv_degree && j < OCV_POLY_MAX; j++)
@@ -901,9 +902,15 @@ enum pb_code analyze_series(const struct series *s, const struct logread_stats *
                  "%zu samples are too few to fit resistance or open-circuit voltage (need %d)",
                  s->n, MIN_FIT_SAMPLES);
         } else {
-            rc = stage_resistance(a, s, q_ah, o, imin, name, err);
+            /* the model's lag at the sampled rows, for the trend's
+             * (NULL when memory is short: the trend runs the lag itself) */
+            struct ecm_lag_rows lr = {.every = fit_sample_every(s->n), .tau_s = NAN};
+            lr.i1_a = malloc((s->n / lr.every + 1) * sizeof *lr.i1_a);
+            struct ecm_lag_rows *lag_rows = lr.i1_a ? &lr : NULL;
+            rc = stage_resistance(a, s, q_ah, o, imin, name, lag_rows, err);
             if (rc == PB_OK)
-                rc = stage_ocv(a, s, q_ah, o, k_rest0, k_rest1, err);
+                rc = stage_ocv(a, s, q_ah, o, k_rest0, k_rest1, lag_rows, err);
+            free(lr.i1_a);
             if (rc != PB_OK)
                 goto cleanup;
             stage_soc_capacity(a, s, q_ah, o);

@@ -65,6 +65,7 @@ struct ctx {
     int p;         /* 1: R only; 2: R0 and R1 */
     double tau_s;  /* RC branch */
     double warm_s; /* a lag's start before it is needed (WARM_TAUS times the longest tau) */
+    struct ecm_lag_rows *lr; /* the lag at the sampled rows, made by the search or rc_lines */
     /* running state, reset at k == 0 */
     size_t at; /* current window */
     double i1; /* RC branch current */
@@ -122,30 +123,76 @@ static size_t part_lag_start(const struct ctx *c, size_t w0)
     return w0 < c->nw ? warm_start(c->s->t_s, c->w[w0].k0, c->warm_s) : c->s->n;
 }
 
+/* Where a part of a walk over windows [w0, ...) starts keeping the lag at
+ * the sampled rows (lag_rows): the first part from its first sample, a
+ * later one from its first window in use (before it, its lag is still
+ * forgetting its start). */
+static size_t part_keep_from(const struct ctx *c, size_t w0)
+{
+    if (w0 == 0)
+        return 0;
+    while (w0 < c->nw && !c->w[w0].use)
+        w0++;
+    return w0 < c->nw ? c->w[w0].k0 : c->s->n;
+}
+
+/* The first sampled row at or after k (lag_rows; SIZE_MAX: none kept). */
+static size_t next_mark(const struct ecm_lag_rows *lr, size_t k)
+{
+    return lr ? (k + lr->every - 1) / lr->every * lr->every : SIZE_MAX;
+}
+
+/* lag_rows made afresh: NAN where no walk keeps a value. */
+static void lag_rows_clear(const struct ctx *c)
+{
+    if (!c->lr)
+        return;
+    size_t m = c->s->n / c->lr->every + 1;
+    for (size_t j = 0; j < m; j++)
+        c->lr->i1_a[j] = NAN;
+    c->lr->tau_s = NAN;
+}
+
 /* The RC lines of the windows in use in [w0, w1), the lag started where
- * part_lag_start says. */
+ * part_lag_start says, kept at the sampled rows as the search's walk keeps
+ * it (part_keep_from). */
 static void rc_lines_part(struct ctx *c, size_t w0, size_t w1)
 {
     size_t k = part_lag_start(c, w0);
     if (k >= c->s->n)
         return;
     rc_start(c, k);
+    size_t keep_from = part_keep_from(c, w0);
+    size_t mark = next_mark(c->lr, k > keep_from ? k : keep_from);
+#define KEEP_LAG(k)                                                                                \
+    do {                                                                                           \
+        if ((k) == mark) {                                                                         \
+            c->lr->i1_a[(k) / c->lr->every] = c->i1;                                               \
+            mark += c->lr->every;                                                                  \
+        }                                                                                          \
+    } while (0)
+    KEEP_LAG(k);
     for (size_t j = w0; j < w1; j++) {
         struct win *w = &c->w[j];
         if (!w->use)
             continue;
         double m1 = 0.0, b1 = 0.0;
-        for (k = c->next; k < w->k0; k++)
+        for (k = c->next; k < w->k0; k++) {
             rc_advance(c, k);
+            KEEP_LAG(k);
+        }
         for (k = w->k0; k < w->k1; k++) {
-            if (k == c->next)
+            if (k == c->next) {
                 rc_advance(c, k);
+                KEEP_LAG(k);
+            }
             m1 += c->i1;
             b1 += (c->q[k] - w->mq) * c->i1;
         }
         w->m1 = m1 / (double)(w->k1 - w->k0);
         w->b1 = w->sqq > 0.0 ? b1 / w->sqq : 0.0;
     }
+#undef KEEP_LAG
 }
 
 /* Each window's line of the RC current (the voltage and current lines are
@@ -158,9 +205,21 @@ static void rc_lines(struct ctx *c)
 {
     for (size_t j = 0; j < c->nw; j++)
         c->w[j].m1 = c->w[j].b1 = 0.0;
+    lag_rows_clear(c);
     size_t cut = walk_cut(c);
     rc_lines_part(c, 0, cut);
     rc_lines_part(c, cut, c->nw);
+    if (c->lr)
+        c->lr->tau_s = c->tau_s;
+}
+
+/* The lag at row k from lag_rows when they were made at the fit's tau and
+ * keep a value there, else NULL. */
+static const double *kept_lag(const struct ecm_lag_rows *lr, double tau_s, size_t k)
+{
+    if (!lr || lr->tau_s != tau_s || k % lr->every != 0 || !isfinite(lr->i1_a[k / lr->every]))
+        return NULL;
+    return &lr->i1_a[k / lr->every];
 }
 
 /* A block of the model's rows (x: minus the current, and minus the RC
@@ -177,9 +236,12 @@ static void ecm_block(void *vc, size_t k0, size_t m, int p, double *x, double *y
      * before it (the static model's rows come in any order) start it over */
     if (k0 == 0 || (c->at > 0 && k0 < c->w[c->at - 1].k1))
         c->at = 0;
-    /* and the lag runs on from the last row made, or starts afresh warm_s
-     * before k0 when that row is earlier than k0 or further back */
-    if (p == 2 && k0 > 0 && k0 != c->next) {
+    /* a sampled row's lag kept by the search (or rc_lines) saves running
+     * the lag up to it; otherwise the lag runs on from the last row made,
+     * or starts afresh warm_s before k0 when that row is earlier than k0
+     * or further back */
+    const double *kept = p == 2 && m == 1 ? kept_lag(c->lr, c->tau_s, k0) : NULL;
+    if (p == 2 && !kept && k0 > 0 && k0 != c->next) {
         size_t ks = warm_start(s->t_s, k0, c->warm_s);
         if (c->next == 0 || c->next > k0 || c->next < ks)
             rc_start(c, ks);
@@ -189,8 +251,13 @@ static void ecm_block(void *vc, size_t k0, size_t m, int p, double *x, double *y
     const double step_a = c->step_a;
     for (size_t j = 0; j < m; j++) {
         size_t k = k0 + j;
-        if (p == 2)
+        double i1 = 0.0;
+        if (kept) {
+            i1 = *kept;
+        } else if (p == 2) {
             rc_advance(c, k);
+            i1 = c->i1;
+        }
         while (c->at < c->nw && k >= c->w[c->at].k1)
             c->at++;
         if (c->at == c->nw || k < c->w[c->at].k0 || !c->w[c->at].use) {
@@ -202,7 +269,7 @@ static void ecm_block(void *vc, size_t k0, size_t m, int p, double *x, double *y
         double *xr = x + j * (size_t)p;
         xr[0] = -(s->i_a[k] - (w->mi + w->bi * dq));
         if (p == 2)
-            xr[1] = -(c->i1 - (w->m1 + w->b1 * dq));
+            xr[1] = -(i1 - (w->m1 + w->b1 * dq));
         y[j] = c->y[k] - (w->mv + w->bv * dq);
         int step = (k > 0 && fabs(s->i_a[k] - s->i_a[k - 1]) >= step_a) ||
                    (k + 1 < s->n && fabs(s->i_a[k + 1] - s->i_a[k]) >= step_a);
@@ -365,6 +432,7 @@ struct walk_part {
     double *lines; /* each used window's RC line (mean, slope) of tau_s[keep], else NULL */
     int keep;
     size_t w0, w1;
+    struct ecm_lag_rows *lr; /* not NULL: the lag of tau_s[keep] kept at the sampled rows */
     int want_free;
     double a01[TAU_WALK_MAX], a11[TAU_WALK_MAX], b1[TAU_WALK_MAX];
     struct tau_free_sums free_sums;
@@ -388,6 +456,15 @@ static inline __attribute__((always_inline)) void walk_windows(struct walk_part 
         i1[j] = ia[k - 1];
         a_val[j] = 0.0;
     }
+    /* the lag kept at the sampled rows from here (lag_rows, as rc_lines) */
+    struct ecm_lag_rows *lr = wp->lr;
+    size_t keep_from = part_keep_from(c, wp->w0);
+    size_t mark = next_mark(lr, k - 1 > keep_from ? k - 1 : keep_from);
+    const int keep = wp->keep;
+    if (mark == k - 1) {
+        lr->i1_a[mark / lr->every] = i1[keep];
+        mark += lr->every;
+    }
 /* the RC lag of every tau from sample k - 1 to k (as rc_advance) */
 #define ADVANCE(k)                                                                                 \
     do {                                                                                           \
@@ -399,6 +476,10 @@ static inline __attribute__((always_inline)) void walk_windows(struct walk_part 
         }                                                                                          \
         _Pragma("GCC unroll 16") for (int j = 0; j < nt; j++) i1[j] =                              \
             a_val[j] * i1[j] + (1.0 - a_val[j]) * ia[(k)-1];                                       \
+        if ((k) == mark) {                                                                         \
+            lr->i1_a[(k) / lr->every] = i1[keep];                                                  \
+            mark += lr->every;                                                                     \
+        }                                                                                          \
     } while (0)
     for (size_t wj = wp->w0; wj < wp->w1; wj++) {
         const struct win *w = &c->w[wj];
@@ -475,11 +556,14 @@ static void walk_three(void *wp)
  * in bufs[0] and bufs[1]), added in that order whether or not they ran side
  * by side. With lines not NULL, each used window's RC line at tau_s[keep]
  * (mean and slope in q of the lag, as rc_lines makes them, number for
- * number) goes in lines[2 j], lines[2 j + 1]. The tau-free sums are made
+ * number) goes in lines[2 j], lines[2 j + 1]. With lr not NULL, the lag of
+ * tau_s[keep] is kept at the sampled rows (as rc_lines keeps it). The
+ * tau-free sums are made
  * into *fs when have_fs is 0, else taken from it (the same numbers, made
  * once for every walk of the search). rss[j] is HUGE_VAL where a fit fails. */
 static void rss_walk(const struct ctx *c, const double *tau_s, int nt, double *const bufs[2],
-                     double *lines, int keep, double *rss, struct tau_free_sums *fs, int have_fs)
+                     double *lines, int keep, struct ecm_lag_rows *lr, double *rss,
+                     struct tau_free_sums *fs, int have_fs)
 {
     size_t cut = walk_cut(c);
     struct walk_part a = {.c = c,
@@ -487,6 +571,7 @@ static void rss_walk(const struct ctx *c, const double *tau_s, int nt, double *c
                           .buf = bufs[0],
                           .lines = lines,
                           .keep = keep,
+                          .lr = lr,
                           .w0 = 0,
                           .w1 = cut,
                           .want_free = !have_fs};
@@ -584,7 +669,7 @@ static void *tau_run(void *vg)
     struct ctx *c = &gr->c;
     struct tau_free_sums fs;
     double *bufs[2] = {gr->buf, gr->buf + gr->buf_len};
-    rss_walk(c, gr->taus, TAU_GRID, bufs, NULL, 0, gr->f, &fs, 0);
+    rss_walk(c, gr->taus, TAU_GRID, bufs, NULL, 0, NULL, gr->f, &fs, 0);
     gr->free_sums = fs;
     gr->free_ok = 1;
     gr->tau = NAN;
@@ -604,9 +689,10 @@ static void *tau_run(void *vg)
     double dof = (double)fs.n_used - (double)window_params(c) - 3.0;
     if (!(dof >= 1.0))
         return NULL;
+    lag_rows_clear(c); /* each walk keeps the lag of its middle tau */
     for (gr->steps = 1; gr->steps <= TAU_STEPS_MAX; gr->steps++) {
         double taus[3] = {exp(u - TAU_H), exp(u), exp(u + TAU_H)}, p[3];
-        rss_walk(c, taus, 3, bufs, gr->lines_mem, 1, p, &fs, 1);
+        rss_walk(c, taus, 3, bufs, gr->lines_mem, 1, c->lr, p, &fs, 1);
         gr->work += c->s->n;
         if (!(p[0] < HUGE_VAL && p[1] < HUGE_VAL && p[2] < HUGE_VAL))
             return NULL;
@@ -630,6 +716,8 @@ static void *tau_run(void *vg)
             break;
         u = next;
     }
+    if (c->lr)
+        c->lr->tau_s = gr->tau;
     gr->lines = gr->lines_mem;
     return NULL;
 }
@@ -744,13 +832,17 @@ struct ecm_run *ecm_begin(const struct series *s, const double *q_ah, const stru
     run->grid = (struct tau_grid){
         .ok = 0, .threaded = 0, .walked = 0, .buf = NULL, .lines_mem = NULL, .tau = NAN};
     struct ctx *c = &run->c;
-    *c = (struct ctx){.s = s,
-                      .y = o->y_v,
-                      .q = q_ah,
-                      .step_a = o->step_a,
-                      .whole = o->whole,
-                      /* the search's longest tau is half a window (ecm_begin) */
-                      .warm_s = WARM_TAUS * fmax(0.5 * out->window_s, o->tau_fixed_s)};
+    *c = (struct ctx){
+        .s = s,
+        .y = o->y_v,
+        .q = q_ah,
+        .step_a = o->step_a,
+        .whole = o->whole,
+        /* the search's longest tau is half a window (ecm_begin) */
+        .warm_s = WARM_TAUS * fmax(0.5 * out->window_s, o->tau_fixed_s),
+        .lr = o->lag_rows && o->lag_rows->every == fit_sample_every(s->n) ? o->lag_rows : NULL};
+    if (c->lr)
+        c->lr->tau_s = NAN;
     c->w = make_windows(s, out->window_s, o->gap_s, &c->nw);
     if (!c->w) {
         free(run);
@@ -908,6 +1000,7 @@ struct trend_ctx {
     double q_scale;
     int degree;
     double r0, r1, tau, v_ref;
+    const struct ecm_lag_rows *lr; /* the lag at the sampled rows (may be NULL) */
     double i1, a_dt, a_val;
     size_t next; /* the sample whose lag is due next (0: none made yet) */
 };
@@ -930,15 +1023,13 @@ static inline void trend_lag(struct trend_ctx *c, size_t k)
     c->next = k + 1;
 }
 
-static inline int trend_row(void *vc, size_t k, double *x, double *y)
+/* Row k with the RC branch's current i1 (ignored without a branch). */
+static inline int trend_row(const struct trend_ctx *c, size_t k, double i1, double *x, double *y)
 {
-    struct trend_ctx *c = vc;
     const struct series *s = c->s;
     double v = s->v_v[k] + c->r0 * s->i_a[k];
-    if (c->r1 > 0.0) {
-        trend_lag(c, k);
-        v += c->r1 * c->i1;
-    }
+    if (c->r1 > 0.0)
+        v += c->r1 * i1;
     double u = c->degree > 0 ? 2.0 * c->q[k] * c->q_scale - 1.0 : 0.0;
     double p = 1.0;
     for (int j = 0; j <= c->degree; j++) {
@@ -958,6 +1049,12 @@ static void trend_block(void *vc, size_t k0, size_t m, int p, double *x, double 
                         unsigned char *use)
 {
     struct trend_ctx *c = vc;
+    /* a sampled row's lag kept by the model fit (lag_rows) */
+    const double *kept = c->r1 > 0.0 && m == 1 ? kept_lag(c->lr, c->tau, k0) : NULL;
+    if (kept) {
+        use[0] = (unsigned char)trend_row(c, k0, *kept, x, &y[0]);
+        return;
+    }
     if (c->r1 > 0.0 && k0 > 0 && k0 != c->next) {
         size_t ks = warm_start(c->s->t_s, k0, WARM_TAUS * c->tau);
         if (c->next == 0 || c->next > k0 || c->next < ks) {
@@ -968,12 +1065,16 @@ static void trend_block(void *vc, size_t k0, size_t m, int p, double *x, double 
         for (size_t k = c->next; k < k0; k++)
             trend_lag(c, k);
     }
-    for (size_t j = 0; j < m; j++)
-        use[j] = (unsigned char)trend_row(vc, k0 + j, x + j * (size_t)p, &y[j]);
+    for (size_t j = 0; j < m; j++) {
+        if (c->r1 > 0.0)
+            trend_lag(c, k0 + j);
+        use[j] = (unsigned char)trend_row(c, k0 + j, c->i1, x + j * (size_t)p, &y[j]);
+    }
 }
 
 enum pb_code ecm_ocv_trend(const struct series *s, const double *q_ah, double q_end_ah, int degree,
-                           double r0_ohm, double r1_ohm, double tau_s, int robust, size_t *work,
+                           double r0_ohm, double r1_ohm, double tau_s, int robust,
+                           const struct ecm_lag_rows *lag_rows, size_t *work,
                            struct fit_result *out, struct pb_error *err)
 {
     struct trend_ctx c = {.s = s,
@@ -983,7 +1084,9 @@ enum pb_code ecm_ocv_trend(const struct series *s, const double *q_ah, double q_
                           .r0 = r0_ohm,
                           .r1 = tau_s > 0.0 ? r1_ohm : 0.0,
                           .tau = tau_s,
-                          .v_ref = s->v_v[0]};
+                          .v_ref = s->v_v[0],
+                          .lr = lag_rows && lag_rows->every == fit_sample_every(s->n) ? lag_rows
+                                                                                      : NULL};
     /* rows are made in any order (trend_block), so a robust fit of a long
      * log takes its plain start from the even sample */
     enum pb_code rc =

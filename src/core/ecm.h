@@ -30,6 +30,17 @@
 #include "pb_error.h"
 #include "series.h"
 
+/* The RC branch's current (the lag of I) at the rows the robust fits
+ * sample (every fit_sample_every(n)-th row), as the model fit made it at
+ * tau_s: the trend's sampled rows take it from here instead of running the
+ * lag up to each. Owned by the caller (room for n / every + 1 values); NAN
+ * at rows the fit's walk did not reach, tau_s NAN when none was made. */
+struct ecm_lag_rows {
+    double *i1_a;
+    size_t every;
+    double tau_s;
+};
+
 struct ecm_opts {
     const double *y_v;  /* the voltage to fit: the pack's or one cell's */
     double dt_med_s;    /* median sample interval */
@@ -41,6 +52,7 @@ struct ecm_opts {
     double tau_fixed_s; /* > 0: fit the RC branch at this tau only (no search) */
     size_t *work;       /* rows visited, summed (may be NULL) */
     int whole;          /* every pass in one walk, never cut in two (twin.h): for tests */
+    struct ecm_lag_rows *lag_rows; /* filled at the chosen or fixed tau (may be NULL) */
 };
 
 struct ecm_result {
@@ -83,7 +95,8 @@ enum pb_code ecm_end(struct ecm_run *run, struct ecm_result *out);
  * V + R0 I + R1 i1. r1_ohm = 0 or tau_s <= 0: no RC branch. out->beta[0]
  * includes the reference voltage, so the polynomial is the OCV itself. */
 enum pb_code ecm_ocv_trend(const struct series *s, const double *q_ah, double q_end_ah, int degree,
-                           double r0_ohm, double r1_ohm, double tau_s, int robust, size_t *work,
+                           double r0_ohm, double r1_ohm, double tau_s, int robust,
+                           const struct ecm_lag_rows *lag_rows, size_t *work,
                            struct fit_result *out, struct pb_error *err);
 
 /* The trend's OCV at u (e.g. -1 for the start) and its standard error. */

@@ -680,7 +680,7 @@ static enum pb_code fit_passes(size_t n, int p, const struct source *src, int ro
     double inv[FIT_MAX_P][FIT_MAX_P];
     double beta[FIT_MAX_P] = {0};
     int rank = 0;
-    struct scale_sample ss = {.m = n / SCALE_SAMPLES + 1, .cap = SCALE_SAMPLES};
+    struct scale_sample ss = {.m = fit_sample_every(n), .cap = SCALE_SAMPLES};
     double scale = 0.0;
     size_t visited = 0;
     int sampled = 0; /* the plain fit is the kept rows' (sample_rows) */
@@ -968,6 +968,11 @@ enum pb_code fit_solve_sums(const struct fit_sums *sums, int p, struct fit_resul
             out->cov[i][j] = out->sigma * out->sigma * inv[i][j];
     }
     return PB_OK;
+}
+
+size_t fit_sample_every(size_t n)
+{
+    return n / SCALE_SAMPLES + 1;
 }
 
 double fit_ci95(const struct fit_result *f, int j)

@@ -127,6 +127,10 @@ enum pb_code fit_linear_from(size_t n, int p, fit_row_fn row, void *ctx,
                              const struct fit_result *start, struct fit_result *out,
                              struct pb_error *err);
 
+/* The robust fits' even sample of n rows: every this many rows by index
+ * (row 0, this, twice this, ...), at most 65536 of them. */
+size_t fit_sample_every(size_t n);
+
 /* Half-width of the two-sided 95 % interval of coefficient j (Student t). */
 double fit_ci95(const struct fit_result *f, int j);
 
