@@ -224,7 +224,7 @@ class HppcPulseResistance(unittest.TestCase):
                   f" mean {edge2:.3f}; relaxation after pulse {1000 * relax:.0f} mV"
                   f" ({1000 * relax / di_off:.2f} mOhm)")
             print(f"    packbook r0 {r0} +/- {ci} mOhm ({doc['r0_method']}), r1 "
-                  f"{doc['r1_mohm']['value']} mOhm, tau {doc['tau_s']} s, static R "
+                  f"{doc['r1_mohm']['value']} mOhm, tau {doc['tau_s']} +/- {doc.get('tau_ci95_s')} s, static R "
                   f"{doc['r_static_mohm']['value']} mOhm; r0 - edge {r0 - edge:+.3f} mOhm"
                   f" ({100 * (r0 - edge) / edge:+.1f} %), tol {tol:.3f} mOhm"
                   f" ({100 * tol / edge:.1f} %)")
