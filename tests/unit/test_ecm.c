@@ -179,7 +179,8 @@ static void test_lines_from_the_search(void **state)
 /* tau's interval against the scatter of tau over independent logs (the
  * meaning of a 95 % interval: it holds the truth in 95 % of logs, and its
  * half-width is 1.96 standard deviations of the estimate; statistics
- * textbook, e.g. NIST/SEMATECH e-Handbook of Statistical Methods, 7.1.4).
+ * textbook, e.g. NIST/SEMATECH e-Handbook of Statistical Methods, 7.1.4,
+ * from memory).
  * TAU_LOGS logs of TAU_ROWS rows, each with its own noise and current:
  * - coverage: with a true 95 %, more than 5 misses of 60 has probability
  *   0.08 and more than 8 of 60 under 0.005 (binomial), so at most 8;
