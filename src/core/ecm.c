@@ -24,6 +24,12 @@
  * lag): a part of a pass after the first starts its lag there, not at the
  * first sample. */
 #define WARM_TAUS 40.0
+/* The OCV trend of a long log stays its even sample's fit when that pins
+ * the OCV at both ends to this 95 % half-width: a fiftieth of the 50 mV per
+ * cell every OCV interval carries (SOCEST_LOADED_V, socest.h), so the
+ * interval moves by under 0.02 % (hypot) and the OCV by about as much as
+ * this; otherwise one pass weights every row, as for the other fits. */
+#define TREND_SAMPLE_CI_V 0.001
 
 /* The first sample of [0, k0] at most warm_s before sample k0: where a lag
  * needed from k0 on starts (times strictly increasing). */
@@ -1088,10 +1094,26 @@ enum pb_code ecm_ocv_trend(const struct series *s, const double *q_ah, double q_
                           .lr = lag_rows && lag_rows->every == fit_sample_every(s->n) ? lag_rows
                                                                                       : NULL};
     /* rows are made in any order (trend_block), so a robust fit of a long
-     * log takes its plain start from the even sample */
-    enum pb_code rc =
-        robust ? fit_blocks_any_order(s->n, degree + 1, trend_block, &c, sizeof c, NULL, out, err)
-               : fit_blocks(s->n, degree + 1, trend_block, &c, sizeof c, robust, NULL, out, err);
+     * log takes its plain start from the even sample, and ends there when
+     * the sample pins the trend's ends to TREND_SAMPLE_CI_V */
+    enum pb_code rc;
+    if (robust) {
+        rc = fit_blocks_sampled(s->n, degree + 1, trend_block, &c, sizeof c, out, err);
+        if (rc == PB_OK && out->n_used < s->n) {
+            double v, se_start, se_end;
+            ecm_ocv_at(out, degree, -1.0, &v, &se_start);
+            ecm_ocv_at(out, degree, 1.0, &v, &se_end);
+            if (!(1.96 * fmax(se_start, se_end) <= TREND_SAMPLE_CI_V)) {
+                if (work)
+                    *work += out->rows_visited;
+                c.next = 0;
+                rc = fit_blocks_any_order(s->n, degree + 1, trend_block, &c, sizeof c, NULL, out,
+                                          err);
+            }
+        }
+    } else {
+        rc = fit_blocks(s->n, degree + 1, trend_block, &c, sizeof c, robust, NULL, out, err);
+    }
     if (work)
         *work += out->rows_visited;
     /* the reference voltage back into the constant term */

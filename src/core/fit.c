@@ -51,6 +51,7 @@ struct source {
     fit_row_fn row;  /* when the caller gave rows, not blocks */
     void *row_ctx;
     struct fit_lag1 *lag1; /* the lag-1 moments wanted (NULL: not), made by the first full pass */
+    int sample_only;       /* a long log's fit ends with its even sample's (fit_blocks_sampled) */
 };
 
 /* The lag-1 moments of one piece of a pass, with the last row in hand (to
@@ -751,9 +752,11 @@ static enum pb_code fit_passes(size_t n, int p, const struct source *src, int ro
         int sub =
             ss.x && ss.nk > (size_t)(4 * p) && (sampled || ne.n_used >= SUBSAMPLE_RATIO * ss.nk);
         double rows = sampled ? (double)n : (double)ne.n_used;
+        int sample_fit = 0; /* the sample's fit stands (sample_only) */
         if (sub) {
             double y_rms = sqrt(ne.yy / (double)ne.n_used);
             struct normal_eq sne;
+            int solved = 0; /* beta is the solution of sne */
             for (; it <= 15; it++) {
                 double prev[FIT_MAX_P];
                 memcpy(prev, beta, sizeof prev);
@@ -766,15 +769,21 @@ static enum pb_code fit_passes(size_t n, int p, const struct source *src, int ro
                     if (sne.n_used <= (size_t)p || sne.wsum <= p ||
                         solve(&sne, p, beta, inv, &rank) != 0) {
                         memcpy(beta, prev, sizeof prev);
+                        solved = 0;
                         break;
                     }
                     iters++;
+                    solved = 1;
                     if (change_in_se(p, beta, prev, inv, next) < 0.05) {
                         scale = next;
                         break;
                     }
                 }
                 scale = next;
+            }
+            if (src->sample_only && sampled && solved && scale > 0.0) {
+                ne = sne;
+                sample_fit = 1;
             }
             /* the subsample's standard errors are sqrt(n / kept) times the full data's */
             limit = 3.0 * sqrt(rows / (double)ss.nk);
@@ -795,7 +804,7 @@ static enum pb_code fit_passes(size_t n, int p, const struct source *src, int ro
         }
         /* each pass weights by the scale of the previous pass's residuals
          * and samples its own; at convergence the two agree */
-        for (int left = 15; (!sub || scale > 0.0) && left > 0; left--, it++) {
+        for (int left = 15; !sample_fit && (!sub || scale > 0.0) && left > 0; left--, it++) {
             double prev[FIT_MAX_P];
             memcpy(prev, beta, sizeof prev);
             struct normal_eq keep = ne;
@@ -921,6 +930,14 @@ enum pb_code fit_blocks_any_order(size_t n, int p, fit_block_fn block, void *ctx
         .block = block, .ctx = ctx, .any_order = 1, .ctx_size = ctx_size, .lag1 = lag1};
     if (lag1)
         lag1->have = 0;
+    return fit_core(n, p, &src, 1, NULL, out, err);
+}
+
+enum pb_code fit_blocks_sampled(size_t n, int p, fit_block_fn block, void *ctx, size_t ctx_size,
+                                struct fit_result *out, struct pb_error *err)
+{
+    struct source src = {
+        .block = block, .ctx = ctx, .any_order = 1, .ctx_size = ctx_size, .sample_only = 1};
     return fit_core(n, p, &src, 1, NULL, out, err);
 }
 

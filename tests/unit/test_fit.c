@@ -125,6 +125,27 @@ static void test_robust_long(void **state)
      * sample's iterations and one full pass */
     assert_true(a.rows_visited < 3 * d.n);
     assert_true(b.rows_visited < 2 * d.n);
+    /* ended at the even sample (fit_blocks_sampled): the same robust line
+     * within the sample's own 95 % interval (it is a sample of these rows),
+     * an interval sqrt(rows / sample) = sqrt(400000 / 57143) = 2.6 times
+     * the full fit's within 20 % (least squares' 1 / sqrt(n)), and no pass
+     * over every row */
+    struct fit_result c;
+    assert_int_equal(fit_blocks_sampled(d.n, 2, block_line, &d, 0, &c, NULL), PB_OK);
+    assert_true(c.n_used < d.n / 4);
+    assert_true(c.rows_visited + d.n <= b.rows_visited); /* b passed over every row */
+    for (int j = 0; j < 2; j++) {
+        check_close(c.beta[j], b.beta[j], fit_ci95(&c, j), "sample's fit agrees");
+        check_close(fit_ci95(&c, j) / fit_ci95(&b, j), sqrt((double)b.n_used / (double)c.n_used),
+                    0.2 * sqrt((double)b.n_used / (double)c.n_used), "sample's interval");
+    }
+    /* a log too short for a sample: the fit of every row, number for number */
+    struct data e = make(20000, 16.0, -0.05, 0.002, 6);
+    struct fit_result f, g;
+    assert_int_equal(fit_blocks_any_order(e.n, 2, block_line, &e, 0, NULL, &f, NULL), PB_OK);
+    assert_int_equal(fit_blocks_sampled(e.n, 2, block_line, &e, 0, &g, NULL), PB_OK);
+    assert_true(f.beta[0] == g.beta[0] && f.beta[1] == g.beta[1] && f.n_used == g.n_used);
+    free(e.x), free(e.y);
     free(d.x), free(d.y);
 }
 
