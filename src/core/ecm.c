@@ -700,8 +700,10 @@ static void *tau_run(void *vg)
         double taus[3] = {exp(u - TAU_H), exp(u), exp(u + TAU_H)}, p[3];
         rss_walk(c, taus, 3, bufs, gr->lines_mem, 1, c->lr, p, &fs, 1);
         gr->work += c->s->n;
-        if (!(p[0] < HUGE_VAL && p[1] < HUGE_VAL && p[2] < HUGE_VAL))
+        if (!(p[0] < HUGE_VAL && p[1] < HUGE_VAL && p[2] < HUGE_VAL)) {
+            gr->tau = NAN; /* a fit failed near tau: not resolved, as on the grid */
             return NULL;
+        }
         double d1 = (p[2] - p[0]) / (2.0 * TAU_H);
         double d2 = (p[2] - 2.0 * p[1] + p[0]) / (TAU_H * TAU_H);
         gr->tau = taus[1];
