@@ -316,10 +316,14 @@ static struct win *make_windows(const struct series *s, double win_s, double gap
     return w;
 }
 
-/* Means and slopes in q of voltage and current per window. */
-static void base_lines(struct ctx *c)
+/* Means and slopes in q of voltage and current per window, and whether the
+ * window informs R (use): its current varies around its line by more than
+ * 5 deviations of the current's noise sigma_i, and its voltage stays above
+ * cutoff_v (0: no cut-off); each window's samples walked while in cache. */
+static size_t base_lines(struct ctx *c, double sigma_i, double cutoff_v)
 {
     const struct series *s = c->s;
+    size_t informative = 0;
     for (size_t j = 0; j < c->nw; j++) {
         struct win *w = &c->w[j];
         double n = (double)(w->k1 - w->k0), mq = 0.0, mv = 0.0, mi = 0.0;
@@ -347,7 +351,19 @@ static void base_lines(struct ctx *c)
         w->bv = slope ? sqv / sqq : 0.0;
         w->bi = slope ? sqi / sqq : 0.0;
         w->m1 = w->b1 = 0.0;
+        double ss = 0.0, vmin = HUGE_VAL;
+        for (size_t k = w->k0; k < w->k1; k++) {
+            double d = s->i_a[k] - (w->mi + w->bi * (c->q[k] - w->mq));
+            ss += d * d;
+            /* fmin without a call per sample: the reader keeps no voltage
+             * that is not a number */
+            vmin = s->v_v[k] < vmin ? s->v_v[k] : vmin;
+        }
+        w->use = ss > 25.0 * sigma_i * sigma_i * n && ss > 1e-12 * n &&
+                 !(cutoff_v > 0.0 && vmin <= cutoff_v);
+        informative += (size_t)w->use;
     }
+    return informative;
 }
 
 static size_t window_params(const struct ctx *c)
@@ -857,7 +873,6 @@ struct ecm_run *ecm_begin(const struct series *s, const double *q_ah, const stru
         return NULL;
     }
     out->windows = c->nw;
-    base_lines(c);
     /* A window informs R only if its current varies well above the current
      * sensor's noise: noise in a regressor biases its coefficient toward
      * zero by var(noise) / var(total), so at least 5 noise deviations (bias
@@ -866,22 +881,7 @@ struct ecm_run *ecm_begin(const struct series *s, const double *q_ah, const stru
     double sigma_i = edges_noise(s->i_a, s->i_a, s->n, o->step_a);
     if (!isfinite(sigma_i))
         sigma_i = 0.0;
-    size_t informative = 0;
-    for (size_t j = 0; j < c->nw; j++) {
-        struct win *w = &c->w[j];
-        double ss = 0.0, vmin = HUGE_VAL;
-        for (size_t k = w->k0; k < w->k1; k++) {
-            double d = s->i_a[k] - (w->mi + w->bi * (q_ah[k] - w->mq));
-            ss += d * d;
-            /* fmin without a call per sample: the reader keeps no voltage
-             * that is not a number */
-            vmin = s->v_v[k] < vmin ? s->v_v[k] : vmin;
-        }
-        double n = (double)(w->k1 - w->k0);
-        w->use = ss > 25.0 * sigma_i * sigma_i * n && ss > 1e-12 * n &&
-                 !(o->cutoff_v > 0.0 && vmin <= o->cutoff_v);
-        informative += (size_t)w->use;
-    }
+    size_t informative = base_lines(c, sigma_i, o->cutoff_v);
     out->windows = informative;
     if (informative == 0) {
         out->reason = "the current does not vary above its noise within any part of the log "
