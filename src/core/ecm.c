@@ -318,8 +318,9 @@ static struct win *make_windows(const struct series *s, double win_s, double gap
 
 /* Means and slopes in q of voltage and current per window, and whether the
  * window informs R (use): its current varies around its line by more than
- * 5 deviations of the current's noise sigma_i, and its voltage stays above
- * cutoff_v (0: no cut-off); each window's samples walked while in cache. */
+ * 5 deviations of the current's noise sigma_i, and the voltage fitted (the
+ * pack's, or one cell's for a cell's fit) stays above cutoff_v (0: no
+ * cut-off); each window's samples walked while in cache. */
 static size_t base_lines(struct ctx *c, double sigma_i, double cutoff_v)
 {
     const struct series *s = c->s;
@@ -357,7 +358,7 @@ static size_t base_lines(struct ctx *c, double sigma_i, double cutoff_v)
             ss += d * d;
             /* fmin without a call per sample: the reader keeps no voltage
              * that is not a number */
-            vmin = s->v_v[k] < vmin ? s->v_v[k] : vmin;
+            vmin = c->y[k] < vmin ? c->y[k] : vmin;
         }
         w->use = ss > 25.0 * sigma_i * sigma_i * n && ss > 1e-12 * n &&
                  !(cutoff_v > 0.0 && vmin <= cutoff_v);

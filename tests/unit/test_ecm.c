@@ -288,6 +288,38 @@ static void test_lag_rows(void **state)
     series_free(s);
 }
 
+/* Windows that touch the cut-off are left out (man packbook, MODEL), judged
+ * on the voltage being fitted: a cell's fit (y_v one cell's voltage, the
+ * cut-off per cell) leaves out the windows where that cell is at its
+ * cut-off, whatever the pack's voltage. Here the "cell" is the pack's
+ * voltage over 4 and the cut-off that cell's voltage 95 % of the way
+ * through the log: some windows near the end touch it, so fewer windows
+ * inform R than without a cut-off (but most still do). */
+static void test_cutoff_on_the_fitted_voltage(void **state)
+{
+    (void)state;
+    double *q, q_end;
+    struct series *s = gen(&q, &q_end);
+    double *cell = malloc(s->n * sizeof *cell);
+    assert_non_null(cell);
+    for (size_t k = 0; k < s->n; k++)
+        cell[k] = s->v_v[k] / 4.0;
+    struct ecm_opts o = opts(s);
+    o.y_v = cell;
+    o.try_rc = 0;
+    struct ecm_result all, cut;
+    assert_int_equal(ecm_fit(s, q, &o, &all, NULL), PB_OK);
+    o.cutoff_v = cell[s->n / 20 * 19];
+    assert_int_equal(ecm_fit(s, q, &o, &cut, NULL), PB_OK);
+    print_message("windows informing R: %zu without a cut-off, %zu with %.4f V per cell\n",
+                  all.windows, cut.windows, o.cutoff_v);
+    assert_true(cut.windows < all.windows);
+    assert_true(cut.windows > all.windows / 2);
+    free(cell);
+    free(q);
+    series_free(s);
+}
+
 static void test_cut_in_two(void **state)
 {
     (void)state;
@@ -350,9 +382,13 @@ int main(void)
 {
     gsl_set_error_handler_off();
     const struct CMUnitTest tests[] = {
-        cmocka_unit_test(test_rc_truth_and_split), cmocka_unit_test(test_lines_from_the_search),
-        cmocka_unit_test(test_cut_in_two),         cmocka_unit_test(test_lag_rows),
-        cmocka_unit_test(test_tau_interval),       cmocka_unit_test(test_rc_trend),
+        cmocka_unit_test(test_rc_truth_and_split),
+        cmocka_unit_test(test_lines_from_the_search),
+        cmocka_unit_test(test_cut_in_two),
+        cmocka_unit_test(test_cutoff_on_the_fitted_voltage),
+        cmocka_unit_test(test_lag_rows),
+        cmocka_unit_test(test_tau_interval),
+        cmocka_unit_test(test_rc_trend),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
 }
