@@ -31,20 +31,23 @@
  * this; otherwise one pass weights every row, as for the other fits. */
 #define TREND_SAMPLE_CI_V 0.001
 
-/* The first sample of [0, k0] at most warm_s before sample k0: where a lag
- * needed from k0 on starts (times strictly increasing). */
+/* Where a lag needed from sample k0 on starts: the last sample of [0, k0]
+ * at least warm_s before k0 (0 when none is; times strictly increasing).
+ * Not the first sample after that time: across a gap the lag holds the
+ * current from before the gap (a = exp(-dt / tau) ~ 0 takes I[k-1]), so a
+ * start after it would miss the gap. */
 static size_t warm_start(const double *t_s, size_t k0, double warm_s)
 {
     double from = t_s[k0] - warm_s;
     size_t lo = 0, hi = k0;
-    while (lo < hi) {
+    while (lo < hi) { /* the first sample at or after from */
         size_t mid = lo + (hi - lo) / 2;
         if (t_s[mid] < from)
             lo = mid + 1;
         else
             hi = mid;
     }
-    return lo;
+    return lo > 0 && t_s[lo] > from ? lo - 1 : lo;
 }
 
 double ecm_window_s(double dt_med_s)
