@@ -644,7 +644,6 @@ struct tau_grid {
     double tau;          /* the result: NAN when the best tau is at a grid end */
     double tau_rss;      /* the RC model's plain residual sum of squares there */
     double tau_d2;       /* the profile's curvature there, d2 RSS / d (ln tau)2 */
-    int steps;           /* profile walks after the grid */
     double *lines_mem;   /* room for the windows' RC lines */
     const double *lines; /* the RC lines of the walk at tau (in lines_mem), else NULL */
     size_t work;         /* rows the search visited, added to the caller's count at the end */
@@ -667,10 +666,15 @@ static size_t longest_window(const struct ctx *c)
  * TAU_H^2 / 6 times the profile's third over second derivative) */
 #define TAU_H 5e-3
 #define TAU_STEPS_MAX 16
-/* Newton's step, in standard errors of ln tau, below which the search ends:
- * the tau reported is then within a hundredth of its error of the
- * profile's minimum */
+/* Newton's step, in standard errors of ln tau (before the allowance for
+ * correlated residuals, which only widens them), below which the search
+ * ends: the tau reported is then within a hundredth of its error of the
+ * profile's minimum; or below TAU_TOL_MIN in ln tau (a millionth: a log
+ * without noise, whose error is rounding). A search that gets to neither
+ * (TAU_STEPS_MAX walks, or the profile not curving up) leaves tau
+ * unresolved. */
 #define TAU_TOL_SE 0.01
+#define TAU_TOL_MIN 1e-6
 
 /* The profile's vertex through three points (x0 < x1 < x2, f1 the least):
  * inside [x0, x2]. */
@@ -716,7 +720,8 @@ static void *tau_run(void *vg)
     if (!(dof >= 1.0))
         return NULL;
     lag_rows_clear(c); /* each walk keeps the lag of its middle tau */
-    for (gr->steps = 1; gr->steps <= TAU_STEPS_MAX; gr->steps++) {
+    int converged = 0;
+    for (int steps = 1; steps <= TAU_STEPS_MAX && !converged; steps++) {
         double taus[3] = {exp(u - TAU_H), exp(u), exp(u + TAU_H)}, p[3];
         rss_walk(c, taus, 3, bufs, gr->lines_mem, 1, c->lr, p, &fs, 1);
         gr->work += c->s->n;
@@ -735,14 +740,17 @@ static void *tau_run(void *vg)
             lo = u;
         double step = d2 > 0.0 ? -d1 / d2 : NAN;
         double se = d2 > 0.0 ? sqrt(2.0 * p[1] / dof / d2) : NAN;
-        if (fabs(step) <= fmax(TAU_TOL_SE * se, 1e-9))
-            break;
+        converged = fabs(step) <= fmax(TAU_TOL_SE * se, TAU_TOL_MIN);
         double next = u + step;
         if (!(next > lo && next < hi))
             next = 0.5 * (lo + hi);
-        if (!(hi - lo > 1e-9))
+        if (!(hi - lo > TAU_TOL_MIN))
             break;
         u = next;
+    }
+    if (!converged) { /* no minimum found to the tolerance: not resolved */
+        gr->tau = NAN;
+        return NULL;
     }
     if (c->lr)
         c->lr->tau_s = gr->tau;
@@ -827,6 +835,10 @@ static double tau_ci95(const struct tau_grid *gr, double tau, double rss, double
 {
     double dof = n_eff - 3.0;
     if (!(tau == gr->tau && gr->tau_d2 > 0.0 && dof >= 1.0))
+        return NAN;
+    /* residuals at the rounding of the sums (a log without noise): the
+     * curvature is rounding too, and no interval can be told */
+    if (!(rss > 1e-12 * gr->free_sums.yy))
         return NAN;
     double infl = rho > 0.0 ? (1.0 + rho) / (1.0 - fmin(rho, 0.99)) : 1.0;
     double se = sqrt(2.0 * rss / dof * infl / gr->tau_d2);

@@ -181,7 +181,12 @@ double fit_lag1_rho(const struct fit_lag1 *m, const double *beta, int p)
             s01 += beta[i] * beta[j] * m->pxx[i][j];
         }
     }
-    return s00 > 0.0 ? s01 / s00 : 0.0;
+    /* residuals at the rounding of the sums (an exact fit): no correlation
+     * can be told from them */
+    if (!(s00 > 1e-10 * m->yy))
+        return NAN;
+    double rho = s01 / s00;
+    return rho > 1.0 ? 1.0 : rho < -1.0 ? -1.0 : rho;
 }
 
 static void rows_as_block(void *vsrc, size_t k0, size_t m, int p, double *x, double *y,

@@ -76,8 +76,9 @@ struct fit_lag1 {
 };
 
 /* The lag-1 autocorrelation of the residuals y - x beta from the moments:
- * sum r_k r_k-1 over the pairs / sum r_k^2 over the rows; 0 when the
- * residuals are all 0, NAN when m was not made. */
+ * sum r_k r_k-1 over the pairs / sum r_k^2 over the rows, within [-1, 1];
+ * NAN when m was not made or the residuals are at the rounding of the sums
+ * (sum r^2 under 1e-10 of sum y^2: an exact fit). */
 double fit_lag1_rho(const struct fit_lag1 *m, const double *beta, int p);
 
 struct fit_result {
