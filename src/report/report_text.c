@@ -148,11 +148,12 @@ int report_analysis_text(FILE *out, const struct analysis *a, const struct repor
         if (isfinite(a->tau_s.value)) {
             key(out, "polarisation");
             est(out, a->r1_mohm, "%.2f", report_mohm());
-            /* decimals enough for two digits of the half-width (a long
-             * log's tau is known to a few milliseconds) */
+            /* decimals enough for two digits of the half-width, to the
+             * millisecond at most (a long log pins tau to a few ms within
+             * the model; README: How accurate is it) */
             int dec = 2;
-            while (dec < 6 && isfinite(a->tau_s.ci95) && a->tau_s.ci95 < 10.0 * pow(10.0, -dec))
-                dec++;
+            if (isfinite(a->tau_s.ci95) && a->tau_s.ci95 < 0.1)
+                dec = 3;
             char fmt[8];
             snprintf(fmt, sizeof fmt, "%%.%df", dec);
             fprintf(out, ", time constant ");
