@@ -120,18 +120,6 @@ static size_t walk_cut(const struct ctx *c)
     return cut;
 }
 
-/* The sample where the lag of a walk over windows [w0, ...) starts: the
- * first sample for the first part, else warm_s before its first window in
- * use (n: none in use). */
-static size_t part_lag_start(const struct ctx *c, size_t w0)
-{
-    if (w0 == 0)
-        return 0;
-    while (w0 < c->nw && !c->w[w0].use)
-        w0++;
-    return w0 < c->nw ? warm_start(c->s->t_s, c->w[w0].k0, c->warm_s) : c->s->n;
-}
-
 /* Where a part of a walk over windows [w0, ...) starts keeping the lag at
  * the sampled rows (lag_rows): the first part from its first sample, a
  * later one from its first window in use (before it, its lag is still
@@ -143,6 +131,17 @@ static size_t part_keep_from(const struct ctx *c, size_t w0)
     while (w0 < c->nw && !c->w[w0].use)
         w0++;
     return w0 < c->nw ? c->w[w0].k0 : c->s->n;
+}
+
+/* The sample where the lag of a walk over windows [w0, ...) starts: the
+ * first sample for the first part, else warm_s before its first window in
+ * use (n: none in use). */
+static size_t part_lag_start(const struct ctx *c, size_t w0)
+{
+    if (w0 == 0)
+        return 0;
+    size_t k0 = part_keep_from(c, w0);
+    return k0 < c->s->n ? warm_start(c->s->t_s, k0, c->warm_s) : k0;
 }
 
 /* The first sampled row at or after k (lag_rows; SIZE_MAX: none kept). */
@@ -1029,21 +1028,28 @@ struct trend_ctx {
     size_t next; /* the sample whose lag is due next (0: none made yet) */
 };
 
+/* The lag started at sample k (the current held there before it). */
+static inline void trend_start(struct trend_ctx *c, size_t k)
+{
+    c->i1 = c->s->i_a[k];
+    c->a_dt = -1.0;
+    c->next = k + 1;
+}
+
 /* The RC branch's current from sample k - 1 to k (k == 0: its start). */
 static inline void trend_lag(struct trend_ctx *c, size_t k)
 {
     const struct series *s = c->s;
     if (k == 0) {
-        c->i1 = s->i_a[0];
-        c->a_dt = -1.0;
-    } else {
-        double dt = s->t_s[k] - s->t_s[k - 1];
-        if (fabs(dt - c->a_dt) > 1e-9 * dt) {
-            c->a_dt = dt;
-            c->a_val = exp(-dt / c->tau);
-        }
-        c->i1 = c->a_val * c->i1 + (1.0 - c->a_val) * s->i_a[k - 1];
+        trend_start(c, 0);
+        return;
     }
+    double dt = s->t_s[k] - s->t_s[k - 1];
+    if (fabs(dt - c->a_dt) > 1e-9 * dt) {
+        c->a_dt = dt;
+        c->a_val = exp(-dt / c->tau);
+    }
+    c->i1 = c->a_val * c->i1 + (1.0 - c->a_val) * s->i_a[k - 1];
     c->next = k + 1;
 }
 
@@ -1081,11 +1087,8 @@ static void trend_block(void *vc, size_t k0, size_t m, int p, double *x, double 
     }
     if (c->r1 > 0.0 && k0 > 0 && k0 != c->next) {
         size_t ks = warm_start(c->s->t_s, k0, WARM_TAUS * c->tau);
-        if (c->next == 0 || c->next > k0 || c->next < ks) {
-            c->i1 = c->s->i_a[ks];
-            c->a_dt = -1.0;
-            c->next = ks + 1;
-        }
+        if (c->next == 0 || c->next > k0 || c->next < ks)
+            trend_start(c, ks);
         for (size_t k = c->next; k < k0; k++)
             trend_lag(c, k);
     }
