@@ -1,7 +1,10 @@
+#define _GNU_SOURCE
 #include "series.h"
 
+#include <stdint.h>
 #include <stdlib.h>
 #include <string.h>
+#include <sys/mman.h>
 
 struct series *series_new(int has_current, int has_temp, int ncells)
 {
@@ -75,6 +78,66 @@ int series_reserve_one(struct series *s)
     for (int c = 0; c < s->ncells; c++)
         if (grow(&s->cell_v[c], cap))
             return -1;
+    s->cap = cap;
+    return 0;
+}
+
+#define HUGE_PAGE_BYTES ((size_t)2 << 20)
+
+/* Room for cap items of size bytes, on huge pages as series_reserve says
+ * for the first sure ones; NULL when out of memory. */
+static void *new_column(size_t cap, size_t size, size_t sure)
+{
+    size_t bytes = cap * size;
+    if (bytes < SERIES_HUGE_BYTES)
+        return malloc(bytes);
+    void *p = NULL;
+    if (posix_memalign(&p, HUGE_PAGE_BYTES, bytes) != 0)
+        return NULL;
+#ifdef MADV_HUGEPAGE
+    /* a hint: where huge pages are off or run short, small ones */
+    size_t huge = sure * size / HUGE_PAGE_BYTES * HUGE_PAGE_BYTES;
+    if (huge > 0)
+        (void)madvise(p, huge, MADV_HUGEPAGE);
+#else
+    (void)sure;
+#endif
+    return p;
+}
+
+int series_reserve(struct series *s, size_t cap)
+{
+    if (cap <= s->cap)
+        return 0;
+    if (cap > SIZE_MAX / sizeof(double))
+        return -1;
+    /* the samples surely come to 7/8 of an estimate near the truth */
+    size_t sure = cap - cap / 8;
+    void **cols[5 + PB_MAX_CELLS] = {(void **)&s->t_s, (void **)&s->v_v, (void **)&s->i_a,
+                                     (void **)&s->temp_c, (void **)&s->line};
+    size_t sizes[5 + PB_MAX_CELLS] = {sizeof(double), sizeof(double), sizeof(double),
+                                      sizeof(double), sizeof *s->line};
+    int ncol = 5;
+    for (int c = 0; c < s->ncells; c++) {
+        cols[ncol] = (void **)&s->cell_v[c];
+        sizes[ncol++] = sizeof(double);
+    }
+    /* every new column first, so that a failure leaves s as it was */
+    void *fresh[5 + PB_MAX_CELLS] = {0};
+    for (int k = 0; k < ncol; k++) {
+        if (*cols[k] && !(fresh[k] = new_column(cap, sizes[k], sure))) {
+            for (int j = 0; j < k; j++)
+                free(fresh[j]);
+            return -1;
+        }
+    }
+    for (int k = 0; k < ncol; k++) {
+        if (!fresh[k])
+            continue;
+        memcpy(fresh[k], *cols[k], s->n * sizes[k]);
+        free(*cols[k]);
+        *cols[k] = fresh[k];
+    }
     s->cap = cap;
     return 0;
 }

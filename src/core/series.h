@@ -26,6 +26,7 @@
 #include <stdint.h>
 
 #define PB_MAX_CELLS 24
+#define SERIES_HUGE_BYTES (4u << 20)
 
 struct series {
     size_t n;
@@ -55,6 +56,14 @@ void series_free(struct series *s);
 
 /* Makes room for one more sample; returns 0, or -1 when out of memory. */
 int series_reserve_one(struct series *s);
+
+/* Makes room for cap samples at once (a long log's estimated length), so
+ * the columns are not grown and moved again and again; columns of
+ * SERIES_HUGE_BYTES or more are asked for huge pages over the part the
+ * samples will surely fill (fewer page faults), so an estimate off by much
+ * costs at most one huge page per column. Returns 0 (also when cap is
+ * already there), or -1 when out of memory (s is unchanged). */
+int series_reserve(struct series *s, size_t cap);
 
 /* Records that a new segment starts at sample index start (after the last
  * one recorded; the first call also records segment 0 at index 0). Returns
