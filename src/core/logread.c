@@ -2558,6 +2558,7 @@ struct series *logread_file(FILE *fp, const char *name, const struct logread_opt
         goto cleanup;
     }
     resolve_sign(&r);
+    series_trim(r.s); /* reserve_rows' estimate was more than the rows */
     out = r.s;
     r.s = NULL;
 cleanup:

@@ -5,6 +5,7 @@
 #include <stdlib.h>
 #include <string.h>
 #include <sys/mman.h>
+#include <unistd.h>
 
 struct series *series_new(int has_current, int has_temp, int ncells)
 {
@@ -84,9 +85,9 @@ int series_reserve_one(struct series *s)
 
 #define HUGE_PAGE_BYTES ((size_t)2 << 20)
 
-/* Room for cap items of size bytes, on huge pages as series_reserve says
- * for the first sure ones; NULL when out of memory. */
-static void *new_column(size_t cap, size_t size, size_t sure)
+/* Room for cap items of size bytes, on huge pages as series_reserve says;
+ * NULL when out of memory. */
+static void *new_column(size_t cap, size_t size)
 {
     size_t bytes = cap * size;
     if (bytes < SERIES_HUGE_BYTES)
@@ -95,12 +96,9 @@ static void *new_column(size_t cap, size_t size, size_t sure)
     if (posix_memalign(&p, HUGE_PAGE_BYTES, bytes) != 0)
         return NULL;
 #ifdef MADV_HUGEPAGE
-    /* a hint: where huge pages are off or run short, small ones */
-    size_t huge = sure * size / HUGE_PAGE_BYTES * HUGE_PAGE_BYTES;
-    if (huge > 0)
-        (void)madvise(p, huge, MADV_HUGEPAGE);
-#else
-    (void)sure;
+    /* a hint: where huge pages are off or run short, small ones; only the
+     * pages written are ever taken */
+    (void)madvise(p, bytes / HUGE_PAGE_BYTES * HUGE_PAGE_BYTES, MADV_HUGEPAGE);
 #endif
     return p;
 }
@@ -111,8 +109,6 @@ int series_reserve(struct series *s, size_t cap)
         return 0;
     if (cap > SIZE_MAX / sizeof(double))
         return -1;
-    /* the samples surely come to 7/8 of an estimate near the truth */
-    size_t sure = cap - cap / 8;
     void **cols[5 + PB_MAX_CELLS] = {(void **)&s->t_s, (void **)&s->v_v, (void **)&s->i_a,
                                      (void **)&s->temp_c, (void **)&s->line};
     size_t sizes[5 + PB_MAX_CELLS] = {sizeof(double), sizeof(double), sizeof(double),
@@ -125,7 +121,7 @@ int series_reserve(struct series *s, size_t cap)
     /* every new column first, so that a failure leaves s as it was */
     void *fresh[5 + PB_MAX_CELLS] = {0};
     for (int k = 0; k < ncol; k++) {
-        if (*cols[k] && !(fresh[k] = new_column(cap, sizes[k], sure))) {
+        if (*cols[k] && !(fresh[k] = new_column(cap, sizes[k]))) {
             for (int j = 0; j < k; j++)
                 free(fresh[j]);
             return -1;
@@ -140,6 +136,33 @@ int series_reserve(struct series *s, size_t cap)
     }
     s->cap = cap;
     return 0;
+}
+
+/* The column's pages past its first n items given back (large columns:
+ * series_reserve's). */
+static void give_back(void *col, size_t n, size_t cap, size_t size)
+{
+    long page = sysconf(_SC_PAGESIZE);
+    if (!col || cap * size < SERIES_HUGE_BYTES || page <= 0)
+        return;
+    uintptr_t from =
+        ((uintptr_t)col + n * size + (uintptr_t)page - 1) / (uintptr_t)page * (uintptr_t)page;
+    uintptr_t to = ((uintptr_t)col + cap * size) / (uintptr_t)page * (uintptr_t)page;
+    if (from < to)
+        (void)madvise((void *)from, to - from, MADV_DONTNEED);
+}
+
+void series_trim(struct series *s)
+{
+    if (!s)
+        return;
+    give_back(s->t_s, s->n, s->cap, sizeof(double));
+    give_back(s->v_v, s->n, s->cap, sizeof(double));
+    give_back(s->i_a, s->n, s->cap, sizeof(double));
+    give_back(s->temp_c, s->n, s->cap, sizeof(double));
+    give_back(s->line, s->n, s->cap, sizeof *s->line);
+    for (int c = 0; c < s->ncells; c++)
+        give_back(s->cell_v[c], s->n, s->cap, sizeof(double));
 }
 
 int series_add_segment(struct series *s, size_t start)

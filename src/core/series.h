@@ -59,11 +59,16 @@ int series_reserve_one(struct series *s);
 
 /* Makes room for cap samples at once (a long log's estimated length), so
  * the columns are not grown and moved again and again; columns of
- * SERIES_HUGE_BYTES or more are asked for huge pages over the part the
- * samples will surely fill (fewer page faults), so an estimate off by much
- * costs at most one huge page per column. Returns 0 (also when cap is
+ * SERIES_HUGE_BYTES or more are asked for huge pages (fewer page faults):
+ * a page is taken when first written, so the room past the samples costs
+ * at most part of one huge page per column. Returns 0 (also when cap is
  * already there), or -1 when out of memory (s is unchanged). */
 int series_reserve(struct series *s, size_t cap);
+
+/* Gives the memory of series_reserve's room past the samples back to the
+ * system (its part of a huge page too); the room stays usable (zeros).
+ * For when no more samples will come. NULL is a no-op. */
+void series_trim(struct series *s);
 
 /* Records that a new segment starts at sample index start (after the last
  * one recorded; the first call also records segment 0 at index 0). Returns

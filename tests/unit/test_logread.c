@@ -726,7 +726,8 @@ static void test_room_estimated_from_first_lines(void **state)
 }
 
 /* series_reserve keeps the samples and makes room; a column of 4 MiB or
- * more (SERIES_HUGE_BYTES) takes the aligned allocation */
+ * more (SERIES_HUGE_BYTES) takes the aligned allocation, whose pages past
+ * the samples series_trim gives back */
 static void test_series_reserve_keeps_samples(void **state)
 {
     (void)state;
@@ -756,6 +757,14 @@ static void test_series_reserve_keeps_samples(void **state)
     s->t_s[big - 1] = s->v_v[big - 1] = s->i_a[big - 1] = 1.0;
     s->cell_v[1][big - 1] = 1.0;
     s->line[big - 1] = 1;
+    /* trimmed, the samples stay and the room past them is still usable */
+    series_trim(s);
+    for (size_t k = 0; k < 3000; k++)
+        assert_true(s->t_s[k] == (double)k && s->cell_v[1][k] == 3.0 + (double)k &&
+                    s->line[k] == (uint32_t)(k + 2));
+    s->t_s[big - 1] = s->v_v[3000] = 2.0;
+    assert_true(s->t_s[big - 1] == 2.0 && s->v_v[3000] == 2.0);
+    series_trim(NULL);
     series_free(s);
 }
 
