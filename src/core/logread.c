@@ -8,6 +8,7 @@
 #include <pthread.h>
 #include <stdlib.h>
 #include <string.h>
+#include <sys/mman.h>
 #include <sys/stat.h>
 #include <unistd.h>
 
@@ -1832,6 +1833,7 @@ struct ahead_block {
     size_t nfield, cap_start, cap_pre;
     double *num; /* each numeric line's values (NUMLINE_VALS, by slot) */
     size_t nnum, cap_num;
+    const void *line0, *num0; /* the tables' first room, in the ring's arena */
 };
 
 struct ahead {
@@ -1843,6 +1845,7 @@ struct ahead {
     const int *col_slot;
     int ncols;
     struct ahead_block blk[AHEAD_BLOCKS];
+    char *arena;     /* every block's buffer and first tables (huge pages) */
     size_t nread;    /* blocks read so far; block k is blk[k % AHEAD_BLOCKS] */
     size_t ntaken;   /* blocks the reader has taken (the oldest one in the ring) */
     int ended, stop; /* the last block (empty, or a read error) is read; leave */
@@ -1852,19 +1855,33 @@ struct ahead {
     pthread_t tid;
 };
 
-static int grow(void **p, size_t *cap, size_t need, size_t size)
+/* Room for need items in *p (of *cap), doubled; a table still in its
+ * first room fixed (the ring's arena) is copied out, not moved. */
+static int grow_from(void **p, size_t *cap, size_t need, size_t size, const void *fixed)
 {
     if (need <= *cap)
         return 0;
     size_t c = *cap ? *cap : 1024;
     while (c < need)
         c *= 2;
-    void *g = realloc(*p, c * size);
+    void *g;
+    if (*p && *p == fixed) {
+        g = malloc(c * size);
+        if (g)
+            memcpy(g, *p, *cap * size);
+    } else {
+        g = realloc(*p, c * size);
+    }
     if (!g)
         return -1;
     *p = g;
     *cap = c;
     return 0;
+}
+
+static int grow(void **p, size_t *cap, size_t need, size_t size)
+{
+    return grow_from(p, cap, need, size, NULL);
 }
 
 /* What split_parse_line saw of a field: its digits as one mantissa, where
@@ -1954,9 +1971,9 @@ static int ahead_read(struct ahead *a, struct ahead_block *b)
     return b->len > 0 && !b->read_errno;
 }
 
-static inline int room(void **p, size_t *cap, size_t need, size_t size)
+static inline int room(void **p, size_t *cap, size_t need, size_t size, const void *fixed)
 {
-    return need <= *cap || grow(p, cap, need, size) == 0;
+    return need <= *cap || grow_from(p, cap, need, size, fixed) == 0;
 }
 
 /* Splits a block read into its tables (b->oom when they cannot grow). */
@@ -1970,8 +1987,8 @@ static void ahead_parse(const struct ahead *a, struct ahead_block *b)
         size_t starts[FAST_MAX_FIELDS + 1];
         struct field_scan fs[FAST_MAX_FIELDS];
         struct ahead_line l = {0};
-        if (!room((void **)&b->line, &b->cap_line, b->nline + 1, sizeof *b->line) ||
-            !room((void **)&b->num, &b->cap_num, b->nnum + NUMLINE_VALS, sizeof *b->num)) {
+        if (!room((void **)&b->line, &b->cap_line, b->nline + 1, sizeof *b->line, b->line0) ||
+            !room((void **)&b->num, &b->cap_num, b->nnum + NUMLINE_VALS, sizeof *b->num, b->num0)) {
             b->oom = 1;
             return;
         }
@@ -1991,8 +2008,8 @@ static void ahead_parse(const struct ahead *a, struct ahead_block *b)
         l.field0 = b->nfield;
         if (l.plain) {
             size_t need = b->nfield + (size_t)l.nf + 1;
-            if (!room((void **)&b->start, &b->cap_start, need, sizeof *b->start) ||
-                !room((void **)&b->pre, &b->cap_pre, need, sizeof *b->pre)) {
+            if (!room((void **)&b->start, &b->cap_start, need, sizeof *b->start, NULL) ||
+                !room((void **)&b->pre, &b->cap_pre, need, sizeof *b->pre, NULL)) {
                 b->oom = 1;
                 return;
             }
@@ -2124,12 +2141,52 @@ static void feed_ahead(struct reader *r, struct csv_parser *p, const struct ahea
 static void ahead_release(struct ahead *a)
 {
     for (int i = 0; i < AHEAD_BLOCKS; i++) {
-        free(a->blk[i].buf);
-        free(a->blk[i].line);
-        free(a->blk[i].start);
-        free(a->blk[i].pre);
-        free(a->blk[i].num);
+        struct ahead_block *b = &a->blk[i];
+        if (b->line != b->line0)
+            free(b->line);
+        if (b->num != b->num0)
+            free(b->num);
+        free(b->start);
+        free(b->pre);
     }
+    free(a->arena);
+}
+
+/* The ring's arena: each block's buffer (with numline_scan's stop byte),
+ * line table and number table for lines of 16 bytes or more, so that the
+ * thread, which grows them only for shorter lines, keeps no heap of its
+ * own. One allocation on huge pages where the system gives them: the ring
+ * is written all over at once, and page by page that was a thousand page
+ * faults. */
+#define ARENA_BUF_BYTES (AHEAD_BYTES + 64)
+#define ARENA_LINES (AHEAD_BYTES / 16)
+#define ARENA_BLOCK_BYTES                                                                          \
+    (ARENA_BUF_BYTES + ARENA_LINES * sizeof(struct ahead_line) +                                   \
+     ARENA_LINES * NUMLINE_VALS * sizeof(double))
+#define HUGE_PAGE_BYTES ((size_t)2 << 20)
+
+static int ahead_arena(struct ahead *a)
+{
+    size_t bytes = (size_t)AHEAD_BLOCKS * ARENA_BLOCK_BYTES;
+    void *p = NULL;
+    if (posix_memalign(&p, HUGE_PAGE_BYTES, bytes) != 0)
+        return -1;
+#ifdef MADV_HUGEPAGE
+    (void)madvise(p, bytes / HUGE_PAGE_BYTES * HUGE_PAGE_BYTES, MADV_HUGEPAGE);
+#endif
+    a->arena = p;
+    for (int i = 0; i < AHEAD_BLOCKS; i++) {
+        struct ahead_block *b = &a->blk[i];
+        char *at = a->arena + (size_t)i * ARENA_BLOCK_BYTES;
+        b->buf = at;
+        b->line = (struct ahead_line *)(void *)(at + ARENA_BUF_BYTES);
+        b->num = (double *)(void *)(at + ARENA_BUF_BYTES + ARENA_LINES * sizeof *b->line);
+        b->line0 = b->line;
+        b->num0 = b->num;
+        b->cap_line = ARENA_LINES;
+        b->cap_num = ARENA_LINES * NUMLINE_VALS;
+    }
+    return 0;
 }
 
 /* The next block in order for the reader, read (and parsed, or claimed for
@@ -2182,15 +2239,13 @@ static int ahead_start(struct ahead *a_out, const struct reader *r, FILE *fp)
     fast_classes(a->cls, r->st->delimiter);
     a->numeric = numline_ok(r);
     numline_init(&a->nl, r);
-    /* the tables sized here for lines of 16 bytes or more, so that the
-     * thread, which grows them only for shorter lines, keeps no heap of
-     * its own */
+    /* the tables sized here for lines of 16 bytes or more (the plain
+     * lines' for 4-byte fields), as the arena's */
+    if (ahead_arena(a) != 0)
+        return -1;
     for (int i = 0; i < AHEAD_BLOCKS; i++) {
         struct ahead_block *b = &a->blk[i];
-        b->buf = malloc(AHEAD_BYTES + 1);
-        if (!b->buf || grow((void **)&b->line, &b->cap_line, AHEAD_BYTES / 16, sizeof *b->line) ||
-            grow((void **)&b->num, &b->cap_num, AHEAD_BYTES / 16 * NUMLINE_VALS, sizeof *b->num) ||
-            grow((void **)&b->start, &b->cap_start, AHEAD_BYTES / 4, sizeof *b->start) ||
+        if (grow((void **)&b->start, &b->cap_start, AHEAD_BYTES / 4, sizeof *b->start) ||
             grow((void **)&b->pre, &b->cap_pre, AHEAD_BYTES / 4, sizeof *b->pre)) {
             ahead_release(a);
             return -1;

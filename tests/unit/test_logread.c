@@ -700,7 +700,9 @@ static void test_fast_path_same_across_blocks(void **state)
  * lines (logread.c, reserve_rows): lines much shorter at first than later
  * (the estimate far too high) or much longer (far too low, the series
  * grows past it) read as from memory and a pipe, where nothing is
- * estimated. */
+ * estimated. The short lines (under 16 bytes) also overflow a read-ahead
+ * block's first tables, which are then copied out of the ring's arena
+ * (logread.c, grow_from). */
 static void test_room_estimated_from_first_lines(void **state)
 {
     (void)state;
