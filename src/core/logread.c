@@ -1794,6 +1794,23 @@ static void feed(struct reader *r, struct csv_parser *p, const char *buf, size_t
         numrun_end(&q);
 }
 
+/* ---- huge pages ---------------------------------------------------------
+ * Memory written all over at once (the first block, the read-ahead ring)
+ * on huge pages where the system gives them: page by page it was hundreds
+ * of page faults, each costing microseconds. free() releases it. */
+#define HUGE_PAGE_BYTES ((size_t)2 << 20)
+
+static void *huge_alloc(size_t bytes)
+{
+    void *p = NULL;
+    if (posix_memalign(&p, HUGE_PAGE_BYTES, bytes) != 0)
+        return NULL;
+#ifdef MADV_HUGEPAGE
+    (void)madvise(p, bytes / HUGE_PAGE_BYTES * HUGE_PAGE_BYTES, MADV_HUGEPAGE);
+#endif
+    return p;
+}
+
 /* ---- reading ahead ----------------------------------------------------
  * With a core free, a second thread reads the blocks after the first into
  * a ring of AHEAD_BLOCKS buffers and splits and parses the oldest block read
@@ -2155,26 +2172,17 @@ static void ahead_release(struct ahead *a)
 /* The ring's arena: each block's buffer (with numline_scan's stop byte),
  * line table and number table for lines of 16 bytes or more, so that the
  * thread, which grows them only for shorter lines, keeps no heap of its
- * own. One allocation on huge pages where the system gives them: the ring
- * is written all over at once, and page by page that was a thousand page
- * faults. */
+ * own. One allocation on huge pages (page by page, a thousand faults). */
 #define ARENA_BUF_BYTES (AHEAD_BYTES + 64)
 #define ARENA_LINES (AHEAD_BYTES / 16)
 #define ARENA_BLOCK_BYTES                                                                          \
     (ARENA_BUF_BYTES + ARENA_LINES * sizeof(struct ahead_line) +                                   \
      ARENA_LINES * NUMLINE_VALS * sizeof(double))
-#define HUGE_PAGE_BYTES ((size_t)2 << 20)
-
 static int ahead_arena(struct ahead *a)
 {
-    size_t bytes = (size_t)AHEAD_BLOCKS * ARENA_BLOCK_BYTES;
-    void *p = NULL;
-    if (posix_memalign(&p, HUGE_PAGE_BYTES, bytes) != 0)
+    a->arena = huge_alloc((size_t)AHEAD_BLOCKS * ARENA_BLOCK_BYTES);
+    if (!a->arena)
         return -1;
-#ifdef MADV_HUGEPAGE
-    (void)madvise(p, bytes / HUGE_PAGE_BYTES * HUGE_PAGE_BYTES, MADV_HUGEPAGE);
-#endif
-    a->arena = p;
     for (int i = 0; i < AHEAD_BLOCKS; i++) {
         struct ahead_block *b = &a->blk[i];
         char *at = a->arena + (size_t)i * ARENA_BLOCK_BYTES;
@@ -2456,7 +2464,14 @@ struct series *logread_file(FILE *fp, const char *name, const struct logread_opt
     for (int s = 0; s < NSLOTS; s++)
         r.slot_col[s] = -1;
 
-    buf = malloc(BLOCK_BYTES + 1); /* + a stop byte for numline_scan */
+    /* + a stop byte for numline_scan; a regular file that fills the first
+     * block in one huge page (a small one keeps small pages) */
+    struct stat sb;
+    _Static_assert(BLOCK_BYTES + 1 <= HUGE_PAGE_BYTES, "the first block fits a huge page");
+    if (fstat(fileno(fp), &sb) == 0 && S_ISREG(sb.st_mode) && sb.st_size >= (off_t)BLOCK_BYTES)
+        buf = huge_alloc(HUGE_PAGE_BYTES);
+    else
+        buf = malloc(BLOCK_BYTES + 1);
     if (!buf) {
         pb_error_set(err, PB_ENOMEM, "out of memory");
         goto cleanup;
