@@ -693,6 +693,17 @@ static void test_fast_path_same_across_blocks(void **state)
     for (size_t cut = (1u << 20) + (256u << 10) - 40; cut < (1u << 20) + (256u << 10) + 40;
          cut += 7)
         check_paths_agree(text, cut, "generated log cut short after a read-ahead block", &o);
+    /* from a regular file a log of a block or more takes its first block on
+     * a huge page and its series' room at once (logread.c, huge_alloc and
+     * reserve_rows): files just under, at and over 1 MiB, the last line cut
+     * (no final newline) or whole */
+    for (size_t cut = (1u << 20) - 2; cut < (1u << 20) + 3; cut++)
+        check_paths_agree_from(text, cut, "numeric log in a file near 1 MiB", &o, SRC_FILE);
+    size_t whole = plen;
+    while (whole > 0 && text[whole - 1] != '\n')
+        whole--;
+    check_paths_agree_from(text, whole, "numeric log in a file, whole lines", &o, SRC_FILE);
+    check_paths_agree_from(text, whole - 3, "numeric log in a file, last line cut", &o, SRC_FILE);
     free(text);
 }
 
