@@ -8,7 +8,6 @@
 #include <pthread.h>
 #include <stdlib.h>
 #include <string.h>
-#include <sys/mman.h>
 #include <sys/stat.h>
 #include <unistd.h>
 
@@ -1794,23 +1793,6 @@ static void feed(struct reader *r, struct csv_parser *p, const char *buf, size_t
         numrun_end(&q);
 }
 
-/* ---- huge pages ---------------------------------------------------------
- * Memory written all over at once (the first block, the read-ahead ring)
- * on huge pages where the system gives them: page by page it was hundreds
- * of page faults, each costing microseconds. free() releases it. */
-#define HUGE_PAGE_BYTES ((size_t)2 << 20)
-
-static void *huge_alloc(size_t bytes)
-{
-    void *p = NULL;
-    if (posix_memalign(&p, HUGE_PAGE_BYTES, bytes) != 0)
-        return NULL;
-#ifdef MADV_HUGEPAGE
-    (void)madvise(p, bytes / HUGE_PAGE_BYTES * HUGE_PAGE_BYTES, MADV_HUGEPAGE);
-#endif
-    return p;
-}
-
 /* ---- reading ahead ----------------------------------------------------
  * With a core free, a second thread reads the blocks after the first into
  * a ring of AHEAD_BLOCKS buffers and splits and parses the oldest block read
@@ -1850,7 +1832,6 @@ struct ahead_block {
     size_t nfield, cap_start, cap_pre;
     double *num; /* each numeric line's values (NUMLINE_VALS, by slot) */
     size_t nnum, cap_num;
-    const void *line0, *num0; /* the tables' first room, in the ring's arena */
 };
 
 struct ahead {
@@ -1862,7 +1843,6 @@ struct ahead {
     const int *col_slot;
     int ncols;
     struct ahead_block blk[AHEAD_BLOCKS];
-    char *arena;     /* every block's buffer and first tables (huge pages) */
     size_t nread;    /* blocks read so far; block k is blk[k % AHEAD_BLOCKS] */
     size_t ntaken;   /* blocks the reader has taken (the oldest one in the ring) */
     int ended, stop; /* the last block (empty, or a read error) is read; leave */
@@ -1872,33 +1852,19 @@ struct ahead {
     pthread_t tid;
 };
 
-/* Room for need items in *p (of *cap), doubled; a table still in its
- * first room fixed (the ring's arena) is copied out, not moved. */
-static int grow_from(void **p, size_t *cap, size_t need, size_t size, const void *fixed)
+static int grow(void **p, size_t *cap, size_t need, size_t size)
 {
     if (need <= *cap)
         return 0;
     size_t c = *cap ? *cap : 1024;
     while (c < need)
         c *= 2;
-    void *g;
-    if (*p && *p == fixed) {
-        g = malloc(c * size);
-        if (g)
-            memcpy(g, *p, *cap * size);
-    } else {
-        g = realloc(*p, c * size);
-    }
+    void *g = realloc(*p, c * size);
     if (!g)
         return -1;
     *p = g;
     *cap = c;
     return 0;
-}
-
-static int grow(void **p, size_t *cap, size_t need, size_t size)
-{
-    return grow_from(p, cap, need, size, NULL);
 }
 
 /* What split_parse_line saw of a field: its digits as one mantissa, where
@@ -1988,9 +1954,9 @@ static int ahead_read(struct ahead *a, struct ahead_block *b)
     return b->len > 0 && !b->read_errno;
 }
 
-static inline int room(void **p, size_t *cap, size_t need, size_t size, const void *fixed)
+static inline int room(void **p, size_t *cap, size_t need, size_t size)
 {
-    return need <= *cap || grow_from(p, cap, need, size, fixed) == 0;
+    return need <= *cap || grow(p, cap, need, size) == 0;
 }
 
 /* Splits a block read into its tables (b->oom when they cannot grow). */
@@ -2004,8 +1970,8 @@ static void ahead_parse(const struct ahead *a, struct ahead_block *b)
         size_t starts[FAST_MAX_FIELDS + 1];
         struct field_scan fs[FAST_MAX_FIELDS];
         struct ahead_line l = {0};
-        if (!room((void **)&b->line, &b->cap_line, b->nline + 1, sizeof *b->line, b->line0) ||
-            !room((void **)&b->num, &b->cap_num, b->nnum + NUMLINE_VALS, sizeof *b->num, b->num0)) {
+        if (!room((void **)&b->line, &b->cap_line, b->nline + 1, sizeof *b->line) ||
+            !room((void **)&b->num, &b->cap_num, b->nnum + NUMLINE_VALS, sizeof *b->num)) {
             b->oom = 1;
             return;
         }
@@ -2025,8 +1991,8 @@ static void ahead_parse(const struct ahead *a, struct ahead_block *b)
         l.field0 = b->nfield;
         if (l.plain) {
             size_t need = b->nfield + (size_t)l.nf + 1;
-            if (!room((void **)&b->start, &b->cap_start, need, sizeof *b->start, NULL) ||
-                !room((void **)&b->pre, &b->cap_pre, need, sizeof *b->pre, NULL)) {
+            if (!room((void **)&b->start, &b->cap_start, need, sizeof *b->start) ||
+                !room((void **)&b->pre, &b->cap_pre, need, sizeof *b->pre)) {
                 b->oom = 1;
                 return;
             }
@@ -2158,43 +2124,12 @@ static void feed_ahead(struct reader *r, struct csv_parser *p, const struct ahea
 static void ahead_release(struct ahead *a)
 {
     for (int i = 0; i < AHEAD_BLOCKS; i++) {
-        struct ahead_block *b = &a->blk[i];
-        if (b->line != b->line0)
-            free(b->line);
-        if (b->num != b->num0)
-            free(b->num);
-        free(b->start);
-        free(b->pre);
+        free(a->blk[i].buf);
+        free(a->blk[i].line);
+        free(a->blk[i].start);
+        free(a->blk[i].pre);
+        free(a->blk[i].num);
     }
-    free(a->arena);
-}
-
-/* The ring's arena: each block's buffer (with numline_scan's stop byte),
- * line table and number table for lines of 16 bytes or more, so that the
- * thread, which grows them only for shorter lines, keeps no heap of its
- * own. One allocation on huge pages (page by page, a thousand faults). */
-#define ARENA_BUF_BYTES (AHEAD_BYTES + 64)
-#define ARENA_LINES (AHEAD_BYTES / 16)
-#define ARENA_BLOCK_BYTES                                                                          \
-    (ARENA_BUF_BYTES + ARENA_LINES * sizeof(struct ahead_line) +                                   \
-     ARENA_LINES * NUMLINE_VALS * sizeof(double))
-static int ahead_arena(struct ahead *a)
-{
-    a->arena = huge_alloc((size_t)AHEAD_BLOCKS * ARENA_BLOCK_BYTES);
-    if (!a->arena)
-        return -1;
-    for (int i = 0; i < AHEAD_BLOCKS; i++) {
-        struct ahead_block *b = &a->blk[i];
-        char *at = a->arena + (size_t)i * ARENA_BLOCK_BYTES;
-        b->buf = at;
-        b->line = (struct ahead_line *)(void *)(at + ARENA_BUF_BYTES);
-        b->num = (double *)(void *)(at + ARENA_BUF_BYTES + ARENA_LINES * sizeof *b->line);
-        b->line0 = b->line;
-        b->num0 = b->num;
-        b->cap_line = ARENA_LINES;
-        b->cap_num = ARENA_LINES * NUMLINE_VALS;
-    }
-    return 0;
 }
 
 /* The next block in order for the reader, read (and parsed, or claimed for
@@ -2247,13 +2182,15 @@ static int ahead_start(struct ahead *a_out, const struct reader *r, FILE *fp)
     fast_classes(a->cls, r->st->delimiter);
     a->numeric = numline_ok(r);
     numline_init(&a->nl, r);
-    /* the tables sized here for lines of 16 bytes or more (the plain
-     * lines' for 4-byte fields), as the arena's */
-    if (ahead_arena(a) != 0)
-        return -1;
+    /* the tables sized here for lines of 16 bytes or more, so that the
+     * thread, which grows them only for shorter lines, keeps no heap of
+     * its own */
     for (int i = 0; i < AHEAD_BLOCKS; i++) {
         struct ahead_block *b = &a->blk[i];
-        if (grow((void **)&b->start, &b->cap_start, AHEAD_BYTES / 4, sizeof *b->start) ||
+        b->buf = malloc(AHEAD_BYTES + 1);
+        if (!b->buf || grow((void **)&b->line, &b->cap_line, AHEAD_BYTES / 16, sizeof *b->line) ||
+            grow((void **)&b->num, &b->cap_num, AHEAD_BYTES / 16 * NUMLINE_VALS, sizeof *b->num) ||
+            grow((void **)&b->start, &b->cap_start, AHEAD_BYTES / 4, sizeof *b->start) ||
             grow((void **)&b->pre, &b->cap_pre, AHEAD_BYTES / 4, sizeof *b->pre)) {
             ahead_release(a);
             return -1;
@@ -2464,14 +2401,7 @@ struct series *logread_file(FILE *fp, const char *name, const struct logread_opt
     for (int s = 0; s < NSLOTS; s++)
         r.slot_col[s] = -1;
 
-    /* + a stop byte for numline_scan; a regular file that fills the first
-     * block in one huge page (a small one keeps small pages) */
-    struct stat sb;
-    _Static_assert(BLOCK_BYTES + 1 <= HUGE_PAGE_BYTES, "the first block fits a huge page");
-    if (fstat(fileno(fp), &sb) == 0 && S_ISREG(sb.st_mode) && sb.st_size >= (off_t)BLOCK_BYTES)
-        buf = huge_alloc(HUGE_PAGE_BYTES);
-    else
-        buf = malloc(BLOCK_BYTES + 1);
+    buf = malloc(BLOCK_BYTES + 1); /* + a stop byte for numline_scan */
     if (!buf) {
         pb_error_set(err, PB_ENOMEM, "out of memory");
         goto cleanup;
@@ -2628,7 +2558,6 @@ struct series *logread_file(FILE *fp, const char *name, const struct logread_opt
         goto cleanup;
     }
     resolve_sign(&r);
-    series_trim(r.s); /* reserve_rows' estimate was more than the rows */
     out = r.s;
     r.s = NULL;
 cleanup:

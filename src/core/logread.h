@@ -7,8 +7,7 @@
  * second thread reads ahead when a core is free and both threads parse
  * (the same fields and numbers, taken in the same order). A long regular
  * file's series is sized once, for as many rows as the file holds of
- * lines like its first ones (series_reserve); it, the first block and the
- * read-ahead ring are asked for huge pages (fewer page faults). Every sample
+ * lines like its first ones (series_reserve). Every sample
  * it drops or repairs is counted in struct logread_stats with the first
  * place (line, column) it happened. The caller owns the returned series.
  *

@@ -1,11 +1,8 @@
-#define _GNU_SOURCE
 #include "series.h"
 
 #include <stdint.h>
 #include <stdlib.h>
 #include <string.h>
-#include <sys/mman.h>
-#include <unistd.h>
 
 struct series *series_new(int has_current, int has_temp, int ncells)
 {
@@ -63,13 +60,10 @@ static int grow(double **col, size_t cap)
     return 0;
 }
 
-int series_reserve_one(struct series *s)
+/* Every column grown to cap; on failure a column grown before keeps its
+ * room (harmless) and s->cap its value. */
+static int grow_all(struct series *s, size_t cap)
 {
-    if (s->n < s->cap)
-        return 0;
-    /* Grow by half: large blocks are mremap'd by glibc, so growth costs no
-     * copy and peak memory stays near 1.5x the data. */
-    size_t cap = s->cap < 1024 ? 1024 : s->cap + s->cap / 2;
     if (grow(&s->t_s, cap) || grow(&s->v_v, cap) || grow(&s->i_a, cap) || grow(&s->temp_c, cap))
         return -1;
     uint32_t *l = realloc(s->line, cap * sizeof *l);
@@ -83,24 +77,13 @@ int series_reserve_one(struct series *s)
     return 0;
 }
 
-#define HUGE_PAGE_BYTES ((size_t)2 << 20)
-
-/* Room for cap items of size bytes, on huge pages as series_reserve says;
- * NULL when out of memory. */
-static void *new_column(size_t cap, size_t size)
+int series_reserve_one(struct series *s)
 {
-    size_t bytes = cap * size;
-    if (bytes < SERIES_HUGE_BYTES)
-        return malloc(bytes);
-    void *p = NULL;
-    if (posix_memalign(&p, HUGE_PAGE_BYTES, bytes) != 0)
-        return NULL;
-#ifdef MADV_HUGEPAGE
-    /* a hint: where huge pages are off or run short, small ones; only the
-     * pages written are ever taken */
-    (void)madvise(p, bytes / HUGE_PAGE_BYTES * HUGE_PAGE_BYTES, MADV_HUGEPAGE);
-#endif
-    return p;
+    if (s->n < s->cap)
+        return 0;
+    /* Grow by half: large blocks are mremap'd by glibc, so growth costs no
+     * copy and peak memory stays near 1.5x the data. */
+    return grow_all(s, s->cap < 1024 ? 1024 : s->cap + s->cap / 2);
 }
 
 int series_reserve(struct series *s, size_t cap)
@@ -109,60 +92,7 @@ int series_reserve(struct series *s, size_t cap)
         return 0;
     if (cap > SIZE_MAX / sizeof(double))
         return -1;
-    void **cols[5 + PB_MAX_CELLS] = {(void **)&s->t_s, (void **)&s->v_v, (void **)&s->i_a,
-                                     (void **)&s->temp_c, (void **)&s->line};
-    size_t sizes[5 + PB_MAX_CELLS] = {sizeof(double), sizeof(double), sizeof(double),
-                                      sizeof(double), sizeof *s->line};
-    int ncol = 5;
-    for (int c = 0; c < s->ncells; c++) {
-        cols[ncol] = (void **)&s->cell_v[c];
-        sizes[ncol++] = sizeof(double);
-    }
-    /* every new column first, so that a failure leaves s as it was */
-    void *fresh[5 + PB_MAX_CELLS] = {0};
-    for (int k = 0; k < ncol; k++) {
-        if (*cols[k] && !(fresh[k] = new_column(cap, sizes[k]))) {
-            for (int j = 0; j < k; j++)
-                free(fresh[j]);
-            return -1;
-        }
-    }
-    for (int k = 0; k < ncol; k++) {
-        if (!fresh[k])
-            continue;
-        memcpy(fresh[k], *cols[k], s->n * sizes[k]);
-        free(*cols[k]);
-        *cols[k] = fresh[k];
-    }
-    s->cap = cap;
-    return 0;
-}
-
-/* The column's pages past its first n items given back (large columns:
- * series_reserve's). */
-static void give_back(void *col, size_t n, size_t cap, size_t size)
-{
-    long page = sysconf(_SC_PAGESIZE);
-    if (!col || cap * size < SERIES_HUGE_BYTES || page <= 0)
-        return;
-    uintptr_t from =
-        ((uintptr_t)col + n * size + (uintptr_t)page - 1) / (uintptr_t)page * (uintptr_t)page;
-    uintptr_t to = ((uintptr_t)col + cap * size) / (uintptr_t)page * (uintptr_t)page;
-    if (from < to)
-        (void)madvise((void *)from, to - from, MADV_DONTNEED);
-}
-
-void series_trim(struct series *s)
-{
-    if (!s)
-        return;
-    give_back(s->t_s, s->n, s->cap, sizeof(double));
-    give_back(s->v_v, s->n, s->cap, sizeof(double));
-    give_back(s->i_a, s->n, s->cap, sizeof(double));
-    give_back(s->temp_c, s->n, s->cap, sizeof(double));
-    give_back(s->line, s->n, s->cap, sizeof *s->line);
-    for (int c = 0; c < s->ncells; c++)
-        give_back(s->cell_v[c], s->n, s->cap, sizeof(double));
+    return grow_all(s, cap);
 }
 
 int series_add_segment(struct series *s, size_t start)

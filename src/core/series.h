@@ -26,7 +26,6 @@
 #include <stdint.h>
 
 #define PB_MAX_CELLS 24
-#define SERIES_HUGE_BYTES (4u << 20)
 
 struct series {
     size_t n;
@@ -58,17 +57,10 @@ void series_free(struct series *s);
 int series_reserve_one(struct series *s);
 
 /* Makes room for cap samples at once (a long log's estimated length), so
- * the columns are not grown and moved again and again; columns of
- * SERIES_HUGE_BYTES or more are asked for huge pages (fewer page faults):
- * a page is taken when first written, so the room past the samples costs
- * at most part of one huge page per column. Returns 0 (also when cap is
- * already there), or -1 when out of memory (s is unchanged). */
+ * the columns are not grown again and again. Returns 0 (also when cap is
+ * already there), or -1 when out of memory (the samples kept, s->cap as it
+ * was). */
 int series_reserve(struct series *s, size_t cap);
-
-/* Gives the memory of series_reserve's room past the samples back to the
- * system (its part of a huge page too); the room stays usable (zeros).
- * For when no more samples will come. NULL is a no-op. */
-void series_trim(struct series *s);
 
 /* Records that a new segment starts at sample index start (after the last
  * one recorded; the first call also records segment 0 at index 0). Returns

@@ -693,10 +693,9 @@ static void test_fast_path_same_across_blocks(void **state)
     for (size_t cut = (1u << 20) + (256u << 10) - 40; cut < (1u << 20) + (256u << 10) + 40;
          cut += 7)
         check_paths_agree(text, cut, "generated log cut short after a read-ahead block", &o);
-    /* from a regular file a log of a block or more takes its first block on
-     * a huge page and its series' room at once (logread.c, huge_alloc and
-     * reserve_rows): files just under, at and over 1 MiB, the last line cut
-     * (no final newline) or whole */
+    /* from a regular file a log of a block or more takes its series' room
+     * at once (logread.c, reserve_rows): files just under, at and over
+     * 1 MiB, the last line cut (no final newline) or whole */
     for (size_t cut = (1u << 20) - 2; cut < (1u << 20) + 3; cut++)
         check_paths_agree_from(text, cut, "numeric log in a file near 1 MiB", &o, SRC_FILE);
     size_t whole = plen;
@@ -711,9 +710,7 @@ static void test_fast_path_same_across_blocks(void **state)
  * lines (logread.c, reserve_rows): lines much shorter at first than later
  * (the estimate far too high) or much longer (far too low, the series
  * grows past it) read as from memory and a pipe, where nothing is
- * estimated. The short lines (under 16 bytes) also overflow a read-ahead
- * block's first tables, which are then copied out of the ring's arena
- * (logread.c, grow_from). */
+ * estimated. */
 static void test_room_estimated_from_first_lines(void **state)
 {
     (void)state;
@@ -738,9 +735,7 @@ static void test_room_estimated_from_first_lines(void **state)
     free(text);
 }
 
-/* series_reserve keeps the samples and makes room; a column of 4 MiB or
- * more (SERIES_HUGE_BYTES) takes the aligned allocation, whose pages past
- * the samples series_trim gives back */
+/* series_reserve keeps the samples and makes room for the count asked */
 static void test_series_reserve_keeps_samples(void **state)
 {
     (void)state;
@@ -757,7 +752,7 @@ static void test_series_reserve_keeps_samples(void **state)
         s->n++;
     }
     assert_int_equal(series_reserve(s, 100), 0); /* already there: nothing to do */
-    size_t big = (SERIES_HUGE_BYTES / sizeof(double)) * 2;
+    size_t big = (size_t)1 << 20;
     assert_int_equal(series_reserve(s, big), 0);
     assert_true(s->cap == big);
     assert_null(s->temp_c);
@@ -770,14 +765,6 @@ static void test_series_reserve_keeps_samples(void **state)
     s->t_s[big - 1] = s->v_v[big - 1] = s->i_a[big - 1] = 1.0;
     s->cell_v[1][big - 1] = 1.0;
     s->line[big - 1] = 1;
-    /* trimmed, the samples stay and the room past them is still usable */
-    series_trim(s);
-    for (size_t k = 0; k < 3000; k++)
-        assert_true(s->t_s[k] == (double)k && s->cell_v[1][k] == 3.0 + (double)k &&
-                    s->line[k] == (uint32_t)(k + 2));
-    s->t_s[big - 1] = s->v_v[3000] = 2.0;
-    assert_true(s->t_s[big - 1] == 2.0 && s->v_v[3000] == 2.0);
-    series_trim(NULL);
     series_free(s);
 }
 
