@@ -8,7 +8,6 @@
 #include <pthread.h>
 #include <stdlib.h>
 #include <string.h>
-#include <sys/stat.h>
 #include <unistd.h>
 
 #include "isotime.h"
@@ -2259,22 +2258,6 @@ static void ahead_take(struct ahead *a, struct reader *r, struct csv_parser *p, 
     ahead_release(a);
 }
 
-/* Room in the series, at once, for as many rows as a regular file of
- * lines like its first ones holds (whose first bytes read were the
- * first_bytes taken), so that a long log's columns are not grown and moved
- * again and again. Only a hint: on any failure the series grows as usual. */
-static void reserve_rows(struct reader *r, FILE *fp, size_t first_bytes)
-{
-    struct stat sb;
-    size_t lines = r->line - 1;
-    if (lines == 0 || first_bytes == 0 || fstat(fileno(fp), &sb) != 0 || !S_ISREG(sb.st_mode) ||
-        sb.st_size <= 0)
-        return;
-    double rows = (double)sb.st_size / (double)first_bytes * (double)lines;
-    if (rows > (double)r->s->cap && rows < (double)(SIZE_MAX / 64))
-        (void)series_reserve(r->s, (size_t)rows);
-}
-
 /* The earliest line any sample was dropped at, 0 when none was. */
 static size_t first_problem_line(const struct logread_stats *st)
 {
@@ -2474,8 +2457,6 @@ struct series *logread_file(FILE *fp, const char *name, const struct logread_opt
         cut = (size_t)(eol + 1 - (buf + start));
     struct ahead a;
     feed(&r, &p, buf + start, cut);
-    if (eol && r.mapped && !r.failed)
-        reserve_rows(&r, fp, cut);
     int ahead = can_ahead && r.mapped && !r.failed && ahead_start(&a, &r, fp) == 0;
     feed(&r, &p, buf + start + cut, len - start - cut);
     if (!ahead && can_ahead && r.mapped && !r.failed)

@@ -5,9 +5,7 @@
  * same fields; lines of plain numbers read in one walk, the same numbers)
  * and never holds the whole text; past the first block of a long log, a
  * second thread reads ahead when a core is free and both threads parse
- * (the same fields and numbers, taken in the same order). A long regular
- * file's series is sized once, for as many rows as the file holds of
- * lines like its first ones (series_reserve). Every sample
+ * (the same fields and numbers, taken in the same order). Every sample
  * it drops or repairs is counted in struct logread_stats with the first
  * place (line, column) it happened. The caller owns the returned series.
  *

@@ -1,6 +1,5 @@
 #include "series.h"
 
-#include <stdint.h>
 #include <stdlib.h>
 #include <string.h>
 
@@ -60,10 +59,13 @@ static int grow(double **col, size_t cap)
     return 0;
 }
 
-/* Every column grown to cap; on failure a column grown before keeps its
- * room (harmless) and s->cap its value. */
-static int grow_all(struct series *s, size_t cap)
+int series_reserve_one(struct series *s)
 {
+    if (s->n < s->cap)
+        return 0;
+    /* Grow by half: large blocks are mremap'd by glibc, so growth costs no
+     * copy and peak memory stays near 1.5x the data. */
+    size_t cap = s->cap < 1024 ? 1024 : s->cap + s->cap / 2;
     if (grow(&s->t_s, cap) || grow(&s->v_v, cap) || grow(&s->i_a, cap) || grow(&s->temp_c, cap))
         return -1;
     uint32_t *l = realloc(s->line, cap * sizeof *l);
@@ -75,24 +77,6 @@ static int grow_all(struct series *s, size_t cap)
             return -1;
     s->cap = cap;
     return 0;
-}
-
-int series_reserve_one(struct series *s)
-{
-    if (s->n < s->cap)
-        return 0;
-    /* Grow by half: large blocks are mremap'd by glibc, so growth costs no
-     * copy and peak memory stays near 1.5x the data. */
-    return grow_all(s, s->cap < 1024 ? 1024 : s->cap + s->cap / 2);
-}
-
-int series_reserve(struct series *s, size_t cap)
-{
-    if (cap <= s->cap)
-        return 0;
-    if (cap > SIZE_MAX / sizeof(double))
-        return -1;
-    return grow_all(s, cap);
 }
 
 int series_add_segment(struct series *s, size_t start)

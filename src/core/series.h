@@ -56,12 +56,6 @@ void series_free(struct series *s);
 /* Makes room for one more sample; returns 0, or -1 when out of memory. */
 int series_reserve_one(struct series *s);
 
-/* Makes room for cap samples at once (a long log's estimated length), so
- * the columns are not grown again and again. Returns 0 (also when cap is
- * already there), or -1 when out of memory (the samples kept, s->cap as it
- * was). */
-int series_reserve(struct series *s, size_t cap);
-
 /* Records that a new segment starts at sample index start (after the last
  * one recorded; the first call also records segment 0 at index 0). Returns
  * 0, or -1 when out of memory. */

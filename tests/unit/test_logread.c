@@ -663,8 +663,7 @@ static void test_fast_path_same_across_blocks(void **state)
             (size_t)snprintf(text + plen, cap - plen, "%d.%03d,%.3f,%.3f,%d\r\n", k / 10,
                              k % 10 * 100, 16.8 - k * 1e-6, 9.0 + (k * 7 % 13) * 0.25, 20 + k % 5);
     check_paths_agree(text, plen, "numeric 3 MiB log", &o);
-    /* from a regular file the series is sized at once from the file's size
-     * (logread.c, reserve_rows): the same series as from memory */
+    /* and from a regular file (whole reads, not a pipe's pieces) */
     check_paths_agree_from(text, plen, "numeric 3 MiB log in a file", &o, SRC_FILE);
     /* the second thread starts once the layout is known, 64 KiB into the
      * first block, or after that block: comments before the header, or
@@ -693,9 +692,9 @@ static void test_fast_path_same_across_blocks(void **state)
     for (size_t cut = (1u << 20) + (256u << 10) - 40; cut < (1u << 20) + (256u << 10) + 40;
          cut += 7)
         check_paths_agree(text, cut, "generated log cut short after a read-ahead block", &o);
-    /* from a regular file a log of a block or more takes its series' room
-     * at once (logread.c, reserve_rows): files just under, at and over
-     * 1 MiB, the last line cut (no final newline) or whole */
+    /* from a regular file too: just under, at and over the 1 MiB first
+     * block (only a full one is read ahead), the last line cut (no final
+     * newline) or whole */
     for (size_t cut = (1u << 20) - 2; cut < (1u << 20) + 3; cut++)
         check_paths_agree_from(text, cut, "numeric log in a file near 1 MiB", &o, SRC_FILE);
     size_t whole = plen;
@@ -706,12 +705,10 @@ static void test_fast_path_same_across_blocks(void **state)
     free(text);
 }
 
-/* The series' room for a long regular file is estimated from its first
- * lines (logread.c, reserve_rows): lines much shorter at first than later
- * (the estimate far too high) or much longer (far too low, the series
- * grows past it) read as from memory and a pipe, where nothing is
- * estimated. */
-static void test_room_estimated_from_first_lines(void **state)
+/* Lines much shorter at first than later, or much longer, read from a file
+ * and a pipe as from memory (a read-ahead block's tables are sized for
+ * lines of 16 bytes or more: the short lines make them grow). */
+static void test_line_lengths_change(void **state)
 {
     (void)state;
     size_t cap = 3u << 20;
@@ -733,39 +730,6 @@ static void test_room_estimated_from_first_lines(void **state)
         check_paths_agree_from(text, len, what, &o, SRC_PIPE);
     }
     free(text);
-}
-
-/* series_reserve keeps the samples and makes room for the count asked */
-static void test_series_reserve_keeps_samples(void **state)
-{
-    (void)state;
-    struct series *s = series_new(1, 0, 2);
-    assert_non_null(s);
-    for (size_t k = 0; k < 3000; k++) {
-        assert_int_equal(series_reserve_one(s), 0);
-        s->t_s[k] = (double)k;
-        s->v_v[k] = 16.0 + (double)k;
-        s->i_a[k] = -(double)k;
-        s->cell_v[0][k] = 4.0 + (double)k;
-        s->cell_v[1][k] = 3.0 + (double)k;
-        s->line[k] = (uint32_t)(k + 2);
-        s->n++;
-    }
-    assert_int_equal(series_reserve(s, 100), 0); /* already there: nothing to do */
-    size_t big = (size_t)1 << 20;
-    assert_int_equal(series_reserve(s, big), 0);
-    assert_true(s->cap == big);
-    assert_null(s->temp_c);
-    for (size_t k = 0; k < 3000; k++) {
-        assert_true(s->t_s[k] == (double)k && s->v_v[k] == 16.0 + (double)k &&
-                    s->i_a[k] == -(double)k && s->cell_v[0][k] == 4.0 + (double)k &&
-                    s->cell_v[1][k] == 3.0 + (double)k && s->line[k] == (uint32_t)(k + 2));
-    }
-    /* the whole room is usable (ASan and valgrind see any short one) */
-    s->t_s[big - 1] = s->v_v[big - 1] = s->i_a[big - 1] = 1.0;
-    s->cell_v[1][big - 1] = 1.0;
-    s->line[big - 1] = 1;
-    series_free(s);
 }
 
 static void test_clock_time_and_ignored_names(void **state)
@@ -900,8 +864,7 @@ int main(void)
         cmocka_unit_test(test_fast_path_same_on_tiny_files),
         cmocka_unit_test(test_fast_path_same_on_every_file),
         cmocka_unit_test(test_fast_path_same_across_blocks),
-        cmocka_unit_test(test_room_estimated_from_first_lines),
-        cmocka_unit_test(test_series_reserve_keeps_samples),
+        cmocka_unit_test(test_line_lengths_change),
         cmocka_unit_test(test_clock_time_and_ignored_names),
         cmocka_unit_test(test_date_and_time_columns),
         cmocka_unit_test(test_missing_cell_drops_the_cell),
