@@ -663,6 +663,8 @@ static void test_fast_path_same_across_blocks(void **state)
             (size_t)snprintf(text + plen, cap - plen, "%d.%03d,%.3f,%.3f,%d\r\n", k / 10,
                              k % 10 * 100, 16.8 - k * 1e-6, 9.0 + (k * 7 % 13) * 0.25, 20 + k % 5);
     check_paths_agree(text, plen, "numeric 3 MiB log", &o);
+    /* and from a regular file (whole reads, not a pipe's pieces) */
+    check_paths_agree_from(text, plen, "numeric 3 MiB log in a file", &o, SRC_FILE);
     /* the second thread starts once the layout is known, 64 KiB into the
      * first block, or after that block: comments before the header, or
      * before the first data line, for 70 KiB */
@@ -690,6 +692,43 @@ static void test_fast_path_same_across_blocks(void **state)
     for (size_t cut = (1u << 20) + (256u << 10) - 40; cut < (1u << 20) + (256u << 10) + 40;
          cut += 7)
         check_paths_agree(text, cut, "generated log cut short after a read-ahead block", &o);
+    /* from a regular file too: just under, at and over the 1 MiB first
+     * block (only a full one is read ahead), the last line cut (no final
+     * newline) or whole */
+    for (size_t cut = (1u << 20) - 2; cut < (1u << 20) + 3; cut++)
+        check_paths_agree_from(text, cut, "numeric log in a file near 1 MiB", &o, SRC_FILE);
+    size_t whole = plen;
+    while (whole > 0 && text[whole - 1] != '\n')
+        whole--;
+    check_paths_agree_from(text, whole, "numeric log in a file, whole lines", &o, SRC_FILE);
+    check_paths_agree_from(text, whole - 3, "numeric log in a file, last line cut", &o, SRC_FILE);
+    free(text);
+}
+
+/* Lines much shorter at first than later, or much longer, read from a file
+ * and a pipe as from memory (a read-ahead block's tables are sized for
+ * lines of 16 bytes or more: the short lines make them grow). */
+static void test_line_lengths_change(void **state)
+{
+    (void)state;
+    size_t cap = 3u << 20;
+    char *text = malloc(cap);
+    assert_non_null(text);
+    for (int first_short = 0; first_short < 2; first_short++) {
+        size_t len = (size_t)snprintf(text, cap, "time_s,voltage_v,current_a\n");
+        for (int k = 0; len + 96 < cap; k++) {
+            int early = len < (200u << 10);
+            if (early == first_short)
+                len += (size_t)snprintf(text + len, cap - len, "%d,16,2\n", k);
+            else
+                len += (size_t)snprintf(text + len, cap - len,
+                                        "%d.000000,16.000000000,2.0000000000000\n", k);
+        }
+        const char *what = first_short ? "short lines first" : "long lines first";
+        struct logread_opts o = {0};
+        check_paths_agree_from(text, len, what, &o, SRC_FILE);
+        check_paths_agree_from(text, len, what, &o, SRC_PIPE);
+    }
     free(text);
 }
 
@@ -825,6 +864,7 @@ int main(void)
         cmocka_unit_test(test_fast_path_same_on_tiny_files),
         cmocka_unit_test(test_fast_path_same_on_every_file),
         cmocka_unit_test(test_fast_path_same_across_blocks),
+        cmocka_unit_test(test_line_lengths_change),
         cmocka_unit_test(test_clock_time_and_ignored_names),
         cmocka_unit_test(test_date_and_time_columns),
         cmocka_unit_test(test_missing_cell_drops_the_cell),
