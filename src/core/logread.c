@@ -101,6 +101,22 @@ static void count_event(struct logread_event *ev, size_t line, int column)
     }
 }
 
+/* A temperature sample as kept: tc, or where it is not a number the last
+ * one kept (NAN before any), the repair counted in ev at line, column. */
+static inline double temp_kept(double tc, double *prev, int *have_prev, struct logread_event *ev,
+                               size_t line, int column)
+{
+    if (!isfinite(tc)) {
+        count_event(ev, line, column);
+        tc = *have_prev ? *prev : NAN;
+    }
+    if (isfinite(tc)) {
+        *prev = tc;
+        *have_prev = 1;
+    }
+    return tc;
+}
+
 static void fail(struct reader *r, enum pb_code code, size_t line, int column, const char *fmt,
                  const char *detail)
 {
@@ -833,16 +849,8 @@ __attribute__((always_inline)) static inline void keep_sample(struct reader *r)
         r->peak_a = max_of(r->peak_a, fabs(i));
     }
     if (s->temp_c) {
-        double tc = r->val[SLOT_TEMP];
-        if (!isfinite(tc)) {
-            count_event(&st->temp_repaired, r->row_line, r->slot_col[SLOT_TEMP] + 1);
-            tc = r->have_temp_prev ? r->temp_prev : NAN;
-        }
-        if (isfinite(tc)) {
-            r->temp_prev = tc;
-            r->have_temp_prev = 1;
-        }
-        s->temp_c[k] = tc;
+        s->temp_c[k] = temp_kept(r->val[SLOT_TEMP], &r->temp_prev, &r->have_temp_prev,
+                                 &st->temp_repaired, r->row_line, r->slot_col[SLOT_TEMP] + 1);
     }
     r->t_prev = rel;
     s->n++;
@@ -1691,16 +1699,8 @@ __attribute__((always_inline)) static inline int numrun_line(struct numrun *q, c
         q->peak_a = max_of(q->peak_a, fabs(i));
     }
     if (q->temp_c) {
-        double tc = val[SLOT_TEMP] * q->tc_scale + q->tc_offset;
-        if (!isfinite(tc)) {
-            count_event(&q->st->temp_repaired, row, q->tempcol);
-            tc = q->have_temp_prev ? q->temp_prev : NAN;
-        }
-        if (isfinite(tc)) {
-            q->temp_prev = tc;
-            q->have_temp_prev = 1;
-        }
-        q->temp_c[k] = tc;
+        q->temp_c[k] = temp_kept(val[SLOT_TEMP] * q->tc_scale + q->tc_offset, &q->temp_prev,
+                                 &q->have_temp_prev, &q->st->temp_repaired, row, q->tempcol);
     }
     q->t_prev = rel;
     q->n++;
