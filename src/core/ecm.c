@@ -5,14 +5,11 @@
 #include "twin.h"
 
 #include <gsl/gsl_cdf.h>
-#include <gsl/gsl_errno.h>
 #include <math.h>
 #include <pthread.h>
 #include <stdlib.h>
 #include <string.h>
 #include <unistd.h>
-
-#include "edges.h"
 
 #define WINDOW_MIN_S 60.0
 #define WINDOW_DT 8.0     /* a window spans at least this many sample intervals */
@@ -432,7 +429,7 @@ static double honest_cov(const struct ctx *c, const struct fit_lag1 *lag1, struc
     return rho;
 }
 
-#define TAU_WALK_MAX 16             /* time constants summed in one walk */
+#define TAU_WALK_MAX TAU_GRID       /* time constants summed in one walk */
 #define GRID_THREAD_MIN_ROWS 100000 /* the grid walked in a thread of its own from here */
 
 /* The sums of the RC model's normal equations that do not depend on tau
