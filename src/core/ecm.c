@@ -431,14 +431,6 @@ static double honest_cov(const struct ctx *c, const struct fit_lag1 *lag1, struc
 
 #define TAU_WALK_MAX TAU_GRID       /* time constants summed in one walk */
 #define GRID_THREAD_MIN_ROWS 100000 /* the grid walked in a thread of its own from here */
-/* Time constants walked over a window together: one group's running lags
- * and sums stay in registers (all twelve of the grid's spilled to memory on
- * every sample). */
-#define TAU_GROUP 4
-#define TAU_GROUPS_MAX ((TAU_WALK_MAX + TAU_GROUP - 1) / TAU_GROUP)
-/* A walk's buffer per row of its longest window: one group's lags, and the
- * row's charge offset, current and voltage columns (tau-free, made once). */
-#define WALK_ROW_DOUBLES (TAU_GROUP + 3)
 
 /* The sums of the RC model's normal equations that do not depend on tau
  * (those of the current and voltage columns). */
@@ -450,11 +442,11 @@ struct tau_free_sums {
 /* One part of a walk over the log for nt time constants (nt <= TAU_WALK_MAX):
  * the windows [w0, w1) in use, their sums of the RC model's normal
  * equations. The lag of each tau starts where part_lag_start says and runs
- * over every sample from there. Within a window each group of TAU_GROUP
- * taus keeps its lags (buf) until the window's lines are known, then sums
- * them in row order: per tau, the same operations in the same order as a
- * walk of one tau. The voltage and current columns do not depend on tau:
- * their sums are made only when want_free is set. */
+ * over every sample from there. Within a window the lags are kept (buf)
+ * until the window's lines are known, then summed in row order: per tau,
+ * the same operations in the same order as a walk of one tau. The voltage
+ * and current columns do not depend on tau: their sums are made only when
+ * want_free is set. */
 struct walk_part {
     const struct ctx *c;
     const double *tau_s;
@@ -470,196 +462,125 @@ struct walk_part {
 
 /* Two doubles operated on together (GCC's vector extension: an SSE2
  * register on the baseline x86-64), each lane with exactly the operations
- * of scalar code, so a lane's numbers are a scalar walk's; a group of
- * TAU_GROUP taus is VH of them. v2d_mem loads and stores at any double's
- * alignment. */
+ * of scalar code, so a lane's numbers are a scalar walk's. A walk's taus
+ * are vh such pairs (the last padded with a copy of the last tau, its sums
+ * not used). v2d_mem loads and stores at any double's alignment. */
 typedef double v2d __attribute__((vector_size(2 * sizeof(double))));
 typedef double v2d_mem __attribute__((vector_size(2 * sizeof(double)), aligned(sizeof(double))));
-#define VH (TAU_GROUP / 2)
-#define VH_UNROLL _Pragma("GCC unroll 2")
+#define VH_MAX ((TAU_WALK_MAX + 1) / 2)
+#define VH_UNROLL _Pragma("GCC unroll 6")
+/* A walk's buffer per row of its longest window: the lags, and the row's
+ * charge offset, current and voltage columns (tau-free, made once). */
+#define WALK_ROW_DOUBLES (2 * VH_MAX + 3)
 
-/* The running lags of one group of TAU_GROUP taus (as rc_advance runs one). */
-struct lag_group {
-    v2d i1[VH], a_val[VH], oma[VH];
-    double a_dt; /* the interval a_val was made for */
+/* The running lags of a walk's taus (as rc_advance runs one). */
+struct lag_pairs {
+    v2d i1[VH_MAX], a_val[VH_MAX], oma[VH_MAX];
 };
 
 /* Whether sample k's interval makes the lag's factors anew (as rc_advance
- * decides it). */
+ * decides it; a_dt the interval they were made for). */
 static inline int new_interval(const double *t, size_t k, double a_dt)
 {
     double dt = t[k] - t[k - 1];
     return fabs(dt - a_dt) > 1e-9 * dt;
 }
 
-/* One group's lags over samples [k, k_end) (each from sample k - 1, as
- * rc_advance runs it), the lag of lane keep_j (-1: none in this group) kept
- * at the sampled rows from *mark on. With acc set, the rows are a window's
- * from its row r = k - k0 on: each row's lags into buf, their sums into m1
- * and, times the row's charge offset dq, into bq. A run of samples at one
- * interval is walked without a call (exp() between the runs only), so the
- * lags and sums stay in registers; steady: the caller knows the interval
- * stays the one the factors were made for, and no sample is checked. */
-static inline __attribute__((always_inline)) void
-group_run(const int acc, const int steady, struct lag_group *lg, const double *tau_s,
-          const double *t, const double *ia, size_t k, size_t k_end, struct ecm_lag_rows *lr,
-          int keep_j, size_t *mark, size_t r, const double *dq, double *buf, v2d *m1, v2d *bq)
+/* The lags' factors for sample k's interval. */
+static void new_factors(int vh, struct lag_pairs *lp, const double *tau_s, const double *t,
+                        size_t k, double *a_dt)
 {
-    v2d i1[VH], a_val[VH], oma[VH], s1[VH], sq[VH];
-    double a_dt = lg->a_dt;
+    double dt = t[k] - t[k - 1];
+    *a_dt = dt;
+    for (int j = 0; j < 2 * vh; j++) {
+        lp->a_val[j / 2][j % 2] = exp(-dt / tau_s[j]);
+        lp->oma[j / 2][j % 2] = 1.0 - lp->a_val[j / 2][j % 2];
+    }
+}
+
+/* The lags over samples [k, k_end) (each from sample k - 1, as rc_advance
+ * runs it), the lag of tau keep (-1: none) kept at the sampled rows from
+ * *mark on. With acc set, the rows are a window's from its row r = k - k0
+ * on: each row's lags into buf, their sums into m1 and, times the row's
+ * charge offset dq, into bq. A run of samples at one interval is walked
+ * without a call (exp() between the runs only), so the lags and sums stay
+ * in registers. */
+static inline __attribute__((always_inline)) void
+lag_run(const int vh, const int acc, struct lag_pairs *lp, double *a_dt, const double *tau_s,
+        const double *t, const double *ia, size_t k, size_t k_end, struct ecm_lag_rows *lr,
+        int keep, size_t *mark, size_t r, const double *dq, double *buf, v2d *m1, v2d *bq)
+{
+    v2d i1[VH_MAX], s1[VH_MAX], sq[VH_MAX];
     VH_UNROLL
-    for (int h = 0; h < VH; h++) {
-        i1[h] = lg->i1[h];
-        a_val[h] = lg->a_val[h];
-        oma[h] = lg->oma[h];
+    for (int h = 0; h < vh; h++) {
+        i1[h] = lp->i1[h];
         s1[h] = acc ? m1[h] : (v2d){0};
         sq[h] = acc ? bq[h] : (v2d){0};
     }
     size_t mk = *mark;
     while (k < k_end) {
-        if (!steady && new_interval(t, k, a_dt)) {
-            double dt = t[k] - t[k - 1];
-            a_dt = dt;
-            for (int j = 0; j < TAU_GROUP; j++) {
-                a_val[j / 2][j % 2] = exp(-dt / tau_s[j]);
-                oma[j / 2][j % 2] = 1.0 - a_val[j / 2][j % 2];
-            }
-        }
+        if (new_interval(t, k, *a_dt))
+            new_factors(vh, lp, tau_s, t, k, a_dt);
+        const v2d *a_val = lp->a_val, *oma = lp->oma;
         do {
             double ip = ia[k - 1];
             VH_UNROLL
-            for (int h = 0; h < VH; h++)
+            for (int h = 0; h < vh; h++)
                 i1[h] = a_val[h] * i1[h] + oma[h] * ip;
-            if (keep_j >= 0 && k == mk) {
-                lr->i1_a[k / lr->every] = i1[keep_j / 2][keep_j % 2];
+            if (keep >= 0 && k == mk) {
+                lr->i1_a[k / lr->every] = i1[keep / 2][keep % 2];
                 mk += lr->every;
             }
             if (acc) {
                 double d = dq[r];
                 VH_UNROLL
-                for (int h = 0; h < VH; h++) {
-                    *(v2d_mem *)(buf + r * TAU_GROUP + 2 * (size_t)h) = i1[h];
+                for (int h = 0; h < vh; h++) {
+                    *(v2d_mem *)(buf + r * 2 * (size_t)vh + 2 * (size_t)h) = i1[h];
                     s1[h] += i1[h];
                     sq[h] += d * i1[h];
                 }
                 r++;
             }
             k++;
-        } while (k < k_end && (steady || !new_interval(t, k, a_dt)));
+        } while (k < k_end && !new_interval(t, k, *a_dt));
     }
     VH_UNROLL
-    for (int h = 0; h < VH; h++) {
-        lg->i1[h] = i1[h];
-        lg->a_val[h] = a_val[h];
-        lg->oma[h] = oma[h];
+    for (int h = 0; h < vh; h++) {
+        lp->i1[h] = i1[h];
         if (acc) {
             m1[h] = s1[h];
             bq[h] = sq[h];
         }
     }
-    lg->a_dt = a_dt;
     *mark = mk;
 }
 
-/* One group over one window in use (rows k0 + r, r < len): the lags from
- * sample kadv on run on (those before kept), each row's lags buffered, the
- * window's RC line of each tau, then the sums of the RC column with the
- * tau-free columns (dq, x0, y: the rows' charge offset, current and voltage
- * columns) in row order into a01, a11, b1 (VH vectors each); steady as
- * group_run's. */
-static void group_window(struct lag_group *lg, const double *tau_s, const struct win *w,
-                         const double *t, const double *ia, size_t kadv, int steady,
-                         const double *dq, const double *x0, const double *y, double *buf,
-                         struct ecm_lag_rows *lr, int keep_j, size_t *mark, double *lines, v2d *a01,
-                         v2d *a11, v2d *b1)
+static inline __attribute__((always_inline)) void walk_windows(struct walk_part *wp, const int nt)
 {
-    size_t len = w->k1 - w->k0;
-    v2d m1[VH] = {{0}}, bq[VH] = {{0}};
-    /* rows before kadv (a part's first sample) hold the lag they start with */
-    size_t r = 0;
-    for (; r < len && w->k0 + r < kadv; r++)
-        for (int h = 0; h < VH; h++) {
-            *(v2d_mem *)(buf + r * TAU_GROUP + 2 * (size_t)h) = lg->i1[h];
-            m1[h] += lg->i1[h];
-            bq[h] += dq[r] * lg->i1[h];
-        }
-    if (r < len && steady)
-        group_run(1, 1, lg, tau_s, t, ia, w->k0 + r, w->k1, lr, keep_j, mark, r, dq, buf, m1, bq);
-    else if (r < len)
-        group_run(1, 0, lg, tau_s, t, ia, w->k0 + r, w->k1, lr, keep_j, mark, r, dq, buf, m1, bq);
-    v2d s01[VH], s11[VH], s1y[VH];
-    VH_UNROLL
-    for (int h = 0; h < VH; h++) {
-        m1[h] /= (double)len;
-        bq[h] = w->sqq > 0.0 ? bq[h] / w->sqq : (v2d){0};
-        s01[h] = a01[h];
-        s11[h] = a11[h];
-        s1y[h] = b1[h];
-    }
-    if (lines && keep_j >= 0) {
-        lines[0] = m1[keep_j / 2][keep_j % 2];
-        lines[1] = bq[keep_j / 2][keep_j % 2];
-    }
-    for (r = 0; r < len; r++) {
-        double d = dq[r], xr = x0[r], yr = y[r];
-        VH_UNROLL
-        for (int h = 0; h < VH; h++) {
-            /* the RC column -(lag - line), written line - lag: the same number */
-            v2d x1 = (m1[h] + bq[h] * d) - *(const v2d_mem *)(buf + r * TAU_GROUP + 2 * (size_t)h);
-            s01[h] += xr * x1;
-            s11[h] += x1 * x1;
-            s1y[h] += x1 * yr;
-        }
-    }
-    VH_UNROLL
-    for (int h = 0; h < VH; h++) {
-        a01[h] = s01[h];
-        a11[h] = s11[h];
-        b1[h] = s1y[h];
-    }
-}
-
-/* group_run without a window (the samples between windows in use) */
-static void group_gap(struct lag_group *lg, const double *tau_s, const double *t, const double *ia,
-                      size_t k, size_t k_end, struct ecm_lag_rows *lr, int keep_j, size_t *mark)
-{
-    group_run(0, 0, lg, tau_s, t, ia, k, k_end, lr, keep_j, mark, 0, NULL, NULL, NULL, NULL);
-}
-
-static void walk_windows(struct walk_part *wp, const int nt)
-{
+    const int vh = (nt + 1) / 2;
     const struct ctx *c = wp->c;
     const struct series *s = c->s;
     const double *ia = s->i_a, *t = s->t_s, *q = c->q;
-    const int ng = (nt + TAU_GROUP - 1) / TAU_GROUP;
-    /* each group's taus, the last group's padded with copies of the last
-     * tau (their sums are not used) */
-    double taus[TAU_GROUPS_MAX * TAU_GROUP];
-    for (int j = 0; j < ng * TAU_GROUP; j++)
+    double taus[2 * VH_MAX];
+    for (int j = 0; j < 2 * vh; j++)
         taus[j] = wp->tau_s[j < nt ? j : nt - 1];
-    struct lag_group lg[TAU_GROUPS_MAX];
-    v2d a01[TAU_GROUPS_MAX * VH] = {{0}};
-    v2d a11[TAU_GROUPS_MAX * VH] = {{0}};
-    v2d b1[TAU_GROUPS_MAX * VH] = {{0}};
-    double a00 = 0.0, b0 = 0.0, yy = 0.0;
-    double a_dt = -1.0; /* every group's: their factors change at the same samples */
+    struct lag_pairs lp;
+    v2d a01[VH_MAX] = {{0}}, a11[VH_MAX] = {{0}}, b1[VH_MAX] = {{0}};
+    double a00 = 0.0, b0 = 0.0, yy = 0.0, a_dt = -1.0;
     size_t n_used = 0, k;
     /* the lag of sample k - 1 is in i1 */
     k = part_lag_start(c, wp->w0) + 1;
     if (k > s->n)
         k = s->n;
-    for (int gi = 0; gi < ng; gi++) {
-        lg[gi].a_dt = -1.0;
-        for (int h = 0; h < VH; h++) {
-            lg[gi].i1[h] = (v2d){0} + ia[k - 1];
-            lg[gi].a_val[h] = lg[gi].oma[h] = (v2d){0};
-        }
+    for (int h = 0; h < vh; h++) {
+        lp.i1[h] = (v2d){0} + ia[k - 1];
+        lp.a_val[h] = lp.oma[h] = (v2d){0};
     }
     /* the lag kept at the sampled rows from here (lag_rows, as rc_lines) */
     struct ecm_lag_rows *lr = wp->lr;
     size_t keep_from = part_keep_from(c, wp->w0);
     size_t mark = next_mark(lr, k - 1 > keep_from ? k - 1 : keep_from);
-    const int keep = wp->keep;
+    const int keep = lr || wp->lines ? wp->keep : -1;
     if (mark == k - 1) {
         lr->i1_a[mark / lr->every] = ia[k - 1];
         mark += lr->every;
@@ -669,8 +590,8 @@ static void walk_windows(struct walk_part *wp, const int nt)
         if (!w->use)
             continue;
         size_t len = w->k1 - w->k0;
-        /* the tau-free columns, once for every group */
-        double *dq = wp->buf + TAU_GROUP * len, *x0 = dq + len, *y = x0 + len;
+        double *buf = wp->buf, *dq = buf + 2 * (size_t)vh * len, *x0 = dq + len, *y = x0 + len;
+        /* the tau-free columns */
         for (size_t r = 0; r < len; r++) {
             size_t kk = w->k0 + r;
             dq[r] = q[kk] - w->mq;
@@ -682,29 +603,55 @@ static void walk_windows(struct walk_part *wp, const int nt)
                 yy += y[r] * y[r];
             }
         }
-        /* samples [k, w->k0) run the lags on; the window's own from kadv */
-        size_t kadv = k > w->k0 ? k : w->k0;
-        /* steady: no interval in the window makes the factors anew */
-        for (size_t kk = k; kk < w->k0; kk++)
-            if (new_interval(t, kk, a_dt))
-                a_dt = t[kk] - t[kk - 1];
-        int steady = 1;
-        for (size_t kk = kadv; kk < w->k1; kk++)
-            if (new_interval(t, kk, a_dt)) {
-                a_dt = t[kk] - t[kk - 1];
-                steady = 0;
+        /* the lags run on over [k, w->k0), then over the window's rows
+         * from kadv (a part's first sample holds the lag it starts with) */
+        if (k < w->k0)
+            lag_run(vh, 0, &lp, &a_dt, taus, t, ia, k, w->k0, lr, keep, &mark, 0, NULL, NULL, NULL,
+                    NULL);
+        size_t kadv = k > w->k0 ? k : w->k0, r = 0;
+        v2d m1[VH_MAX] = {{0}}, bq[VH_MAX] = {{0}};
+        for (; r < len && w->k0 + r < kadv; r++)
+            for (int h = 0; h < vh; h++) {
+                *(v2d_mem *)(buf + r * 2 * (size_t)vh + 2 * (size_t)h) = lp.i1[h];
+                m1[h] += lp.i1[h];
+                bq[h] += dq[r] * lp.i1[h];
             }
-        for (int gi = 0; gi < ng; gi++) {
-            int j0 = gi * TAU_GROUP, g = nt - j0 < TAU_GROUP ? nt - j0 : TAU_GROUP;
-            int keep_j = lr || wp->lines ? keep - j0 : -1;
-            if (keep_j >= g)
-                keep_j = -1;
-            size_t *mk = lr && keep_j >= 0 ? &mark : &(size_t){SIZE_MAX};
-            if (k < w->k0)
-                group_gap(&lg[gi], taus + j0, t, ia, k, w->k0, lr, keep_j, mk);
-            group_window(&lg[gi], taus + j0, w, t, ia, kadv, steady, dq, x0, y, wp->buf, lr, keep_j,
-                         mk, wp->lines && keep_j >= 0 ? wp->lines + 2 * wj : NULL, a01 + gi * VH,
-                         a11 + gi * VH, b1 + gi * VH);
+        if (r < len)
+            lag_run(vh, 1, &lp, &a_dt, taus, t, ia, w->k0 + r, w->k1, lr, keep, &mark, r, dq, buf,
+                    m1, bq);
+        VH_UNROLL
+        for (int h = 0; h < vh; h++) {
+            m1[h] /= (double)len;
+            bq[h] = w->sqq > 0.0 ? bq[h] / w->sqq : (v2d){0};
+        }
+        if (wp->lines) {
+            wp->lines[2 * wj] = m1[keep / 2][keep % 2];
+            wp->lines[2 * wj + 1] = bq[keep / 2][keep % 2];
+        }
+        v2d s01[VH_MAX], s11[VH_MAX], s1y[VH_MAX];
+        VH_UNROLL
+        for (int h = 0; h < vh; h++) {
+            s01[h] = a01[h];
+            s11[h] = a11[h];
+            s1y[h] = b1[h];
+        }
+        for (r = 0; r < len; r++) {
+            double d = dq[r], xr = x0[r], yr = y[r];
+            VH_UNROLL
+            for (int h = 0; h < vh; h++) {
+                /* the RC column -(lag - line), written line - lag: the same number */
+                v2d x1 = (m1[h] + bq[h] * d) -
+                         *(const v2d_mem *)(buf + r * 2 * (size_t)vh + 2 * (size_t)h);
+                s01[h] += xr * x1;
+                s11[h] += x1 * x1;
+                s1y[h] += x1 * yr;
+            }
+        }
+        VH_UNROLL
+        for (int h = 0; h < vh; h++) {
+            a01[h] = s01[h];
+            a11[h] = s11[h];
+            b1[h] = s1y[h];
         }
         if (k < w->k1)
             k = w->k1;
