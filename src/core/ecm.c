@@ -87,6 +87,14 @@ static inline void rc_start(struct ctx *c, size_t k)
     c->a_dt = -1.0;
 }
 
+/* Whether sample k's interval makes the lag's factor anew (a_dt the
+ * interval it was made for): jitter within a billionth keeps it. */
+static inline int new_interval(const double *t, size_t k, double a_dt)
+{
+    double dt = t[k] - t[k - 1];
+    return fabs(dt - a_dt) > 1e-9 * dt;
+}
+
 static inline void rc_advance(struct ctx *c, size_t k)
 {
     const struct series *s = c->s;
@@ -95,12 +103,42 @@ static inline void rc_advance(struct ctx *c, size_t k)
         return;
     }
     c->next = k + 1;
-    double dt = s->t_s[k] - s->t_s[k - 1];
-    if (fabs(dt - c->a_dt) > 1e-9 * dt) {
-        c->a_dt = dt;
-        c->a_val = exp(-dt / c->tau_s);
+    if (new_interval(s->t_s, k, c->a_dt)) {
+        c->a_dt = s->t_s[k] - s->t_s[k - 1];
+        c->a_val = exp(-c->a_dt / c->tau_s);
     }
     c->i1 = c->a_val * c->i1 + (1.0 - c->a_val) * s->i_a[k - 1];
+}
+
+/* rc_advance over samples [k0, k0 + m), each one's lag into lag[]; a run of
+ * samples at one interval without a call (exp() between runs only), so the
+ * lag stays in a register. */
+static void rc_lags(struct ctx *c, size_t k0, size_t m, double *lag)
+{
+    const double *t = c->s->t_s, *ia = c->s->i_a;
+    size_t j = 0;
+    if (k0 == 0 && m > 0) {
+        rc_start(c, 0);
+        lag[j++] = c->i1;
+    }
+    double i1 = c->i1, a_val = c->a_val, a_dt = c->a_dt;
+    while (j < m) {
+        size_t k = k0 + j;
+        if (new_interval(t, k, a_dt)) {
+            a_dt = t[k] - t[k - 1];
+            a_val = exp(-a_dt / c->tau_s);
+        }
+        const double oma = 1.0 - a_val;
+        do {
+            i1 = a_val * i1 + oma * ia[k - 1];
+            lag[j++] = i1;
+            k++;
+        } while (j < m && !new_interval(t, k, a_dt));
+    }
+    c->i1 = i1;
+    c->a_val = a_val;
+    c->a_dt = a_dt;
+    c->next = k0 + m;
 }
 
 /* Where a walk over the windows is cut (twin.h): the first window that
@@ -253,32 +291,45 @@ static void ecm_block(void *vc, size_t k0, size_t m, int p, double *x, double *y
         for (size_t k = c->next; k < k0; k++)
             rc_advance(c, k);
     }
-    const double step_a = c->step_a;
-    for (size_t j = 0; j < m; j++) {
+    double lag[FIT_BLOCK_ROWS];
+    if (kept)
+        lag[0] = *kept;
+    else if (p == 2)
+        rc_lags(c, k0, m, lag);
+    const double step_a = c->step_a, *ia = s->i_a;
+    size_t j = 0;
+    while (j < m) {
         size_t k = k0 + j;
-        double i1 = 0.0;
-        if (kept) {
-            i1 = *kept;
-        } else if (p == 2) {
-            rc_advance(c, k);
-            i1 = c->i1;
-        }
         while (c->at < c->nw && k >= c->w[c->at].k1)
             c->at++;
-        if (c->at == c->nw || k < c->w[c->at].k0 || !c->w[c->at].use) {
-            use[j] = 0;
+        /* rows [k, end) all in the window c->at, or all outside any in use */
+        const struct win *w = c->at < c->nw ? &c->w[c->at] : NULL;
+        size_t end = k0 + m;
+        if (w && k < w->k0)
+            end = w->k0 < end ? w->k0 : end;
+        else if (w)
+            end = w->k1 < end ? w->k1 : end;
+        if (!w || k < w->k0 || !w->use) {
+            memset(use + j, 0, end - k);
+            j += end - k;
             continue;
         }
-        const struct win *w = &c->w[c->at];
-        double dq = c->q[k] - w->mq;
-        double *xr = x + j * (size_t)p;
-        xr[0] = -(s->i_a[k] - (w->mi + w->bi * dq));
-        if (p == 2)
-            xr[1] = -(i1 - (w->m1 + w->b1 * dq));
-        y[j] = c->y[k] - (w->mv + w->bv * dq);
-        int step = (k > 0 && fabs(s->i_a[k] - s->i_a[k - 1]) >= step_a) ||
-                   (k + 1 < s->n && fabs(s->i_a[k + 1] - s->i_a[k]) >= step_a);
-        use[j] = (unsigned char)((step ? FIT_ROW_KEEP : 1) | (k == w->k0 ? FIT_ROW_FIRST : 0));
+        const double mq = w->mq, mi = w->mi, bi = w->bi, mv = w->mv, bv = w->bv;
+        const double m1 = w->m1, b1 = w->b1;
+        /* a current step either side of a row keeps it at full weight */
+        int big_before = k > 0 && fabs(ia[k] - ia[k - 1]) >= step_a;
+        for (; k < end; k++, j++) {
+            double dq = c->q[k] - mq;
+            double *xr = x + j * (size_t)p;
+            xr[0] = -(ia[k] - (mi + bi * dq));
+            if (p == 2)
+                xr[1] = -(lag[j] - (m1 + b1 * dq));
+            y[j] = c->y[k] - (mv + bv * dq);
+            int big_after = k + 1 < s->n && fabs(ia[k + 1] - ia[k]) >= step_a;
+            use[j] = (unsigned char)((big_before || big_after ? FIT_ROW_KEEP : 1) |
+                                     (k == w->k0 ? FIT_ROW_FIRST : 0));
+            big_before = big_after;
+        }
     }
 }
 
@@ -477,14 +528,6 @@ typedef double v2d_mem __attribute__((vector_size(2 * sizeof(double)), aligned(s
 struct lag_pairs {
     v2d i1[VH_MAX], a_val[VH_MAX], oma[VH_MAX];
 };
-
-/* Whether sample k's interval makes the lag's factors anew (as rc_advance
- * decides it; a_dt the interval they were made for). */
-static inline int new_interval(const double *t, size_t k, double a_dt)
-{
-    double dt = t[k] - t[k - 1];
-    return fabs(dt - a_dt) > 1e-9 * dt;
-}
 
 /* The lags' factors for sample k's interval. */
 static void new_factors(int vh, struct lag_pairs *lp, const double *tau_s, const double *t,

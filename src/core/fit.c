@@ -22,8 +22,8 @@ struct normal_eq {
     size_t n_low;
 };
 
-#define SCALE_SAMPLES 65536 /* residuals kept for the robust scale */
-#define FIT_BLOCK 256       /* rows made per call */
+#define SCALE_SAMPLES 65536      /* residuals kept for the robust scale */
+#define FIT_BLOCK FIT_BLOCK_ROWS /* rows made per call */
 /* the reweighting iterates on the kept rows when they are at most this
  * fraction of the rows */
 #define SUBSAMPLE_RATIO 4

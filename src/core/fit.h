@@ -26,6 +26,7 @@
 #include "pb_error.h"
 
 #define FIT_MAX_P 8
+#define FIT_BLOCK_ROWS 256 /* the most rows a block callback is asked for at once */
 
 /* Makes row k; returns 0 to leave the row out, 1 to use it, FIT_ROW_KEEP
  * to use it at full weight even in robust mode (rows that carry what the fit
@@ -40,7 +41,7 @@ typedef int (*fit_row_fn)(void *ctx, size_t k, double *x, double *y);
  * moments (struct fit_lag1), e.g. the first row of a window. */
 #define FIT_ROW_FIRST 4
 
-/* Makes rows k0..k0+m-1 (m <= 256) in order: row j's columns in
+/* Makes rows k0..k0+m-1 (m <= FIT_BLOCK_ROWS) in order: row j's columns in
  * x[j*p .. j*p+p), its value in y[j] and in use[j] what a row callback
  * returns, with FIT_ROW_FIRST or'ed in where a run starts. Asked for in order 0..n-1 on every pass
  * (k0 == 0 starts one), so it may carry state from block to block.
