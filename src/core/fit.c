@@ -218,13 +218,14 @@ block_sums(const int p, size_t m, const double *restrict x, const double *restri
     double yy = ne->yy, wsum = ne->wsum;
     size_t n_used = ne->n_used, n_low = ne->n_low;
     double inv_cs = scale > 0.0 ? 1.0 / (BISQUARE_C * scale) : 0.0;
+    size_t left = ss ? *ss_left : 0; /* a local: not stored back on every row */
     for (size_t r = 0; r < m; r++) {
         int u = use[r];
         /* the sample is of rows by index (so the halves of a cut pass take
          * the same rows as one whole pass), those in use */
-        int take = ss && --*ss_left == 0;
+        int take = ss && --left == 0;
         if (take)
-            *ss_left = ss->m;
+            left = ss->m;
         if (!u)
             continue;
         const double *xr = x + r * (size_t)p;
@@ -277,6 +278,8 @@ block_sums(const int p, size_t m, const double *restrict x, const double *restri
     ne->wsum = wsum;
     ne->n_used = n_used;
     ne->n_low = n_low;
+    if (ss)
+        *ss_left = left;
 }
 
 /* block_sums with p made a constant where it is common. */
