@@ -7,11 +7,13 @@ is 1 only when a measured command failed.
 """
 import argparse
 import os
+import statistics
 import subprocess
 import sys
 import time
 
 REPEATS = 3
+ROUNDS = 10  # the drift check: rounds of all three, one right after another
 PYTHON = "/usr/bin/python3"  # Debian's, with numpy and pandas
 HERE = os.path.dirname(os.path.abspath(__file__))
 
@@ -130,7 +132,47 @@ def main():
     if args.rows < 1000000:
         print("\n(per-row memory is only meaningful at the default 1,000,000 rows: "
               "fixed costs dominate smaller logs)")
+    if not failed and pb and scan and pd_:
+        rounds(args, out_path)
     return 1 if failed else 0
+
+
+def rounds(args, out_path):
+    """The speed ratios over ROUNDS rounds, each the best of REPEATS of the scan, both logs
+    and pandas taken one right after another: a machine whose speed drifts between the
+    single measurements above (a shared virtual machine does) moves their ratios, but
+    within a round all run at about the same speed."""
+    cmds = [("scan", [args.csvscan, args.log]),
+            ("plain", [args.packbook, "analyze", args.log, "--json"])]
+    if args.log_rc:
+        cmds.append(("rc", [args.packbook, "analyze", args.log_rc, "--json"]))
+    cmds.append(("pandas", [PYTHON, os.path.join(HERE, "pandas_ref.py"), args.log]))
+    got = []
+    for _ in range(ROUNDS):
+        t = {}
+        for name, cmd in cmds:
+            r = measure(cmd, args, out_path)
+            if r is None:
+                return
+            t[name] = r[0]
+        got.append(t)
+
+    def spread(values):
+        return min(values), statistics.median(values), max(values)
+
+    print()
+    print(f"| {ROUNDS} rounds | vs the scan: least / median / most | "
+          f"vs pandas: least / median / most | rounds at 10x |")
+    print("| --- | --- | --- | ---: |")
+    for name, label in (("plain", "packbook"), ("rc", "packbook (RC branch)")):
+        if name not in got[0]:
+            continue
+        s_lo, s_md, s_hi = spread([g["scan"] / g[name] for g in got])
+        p = [g["pandas"] / g[name] for g in got]
+        p_lo, p_md, p_hi = spread(p)
+        at10 = sum(x >= 10.0 for x in p)
+        print(f"| {label} | {s_lo:.2f} / {s_md:.2f} / {s_hi:.2f} | "
+              f"{p_lo:.1f}x / {p_md:.1f}x / {p_hi:.1f}x | {at10} of {ROUNDS} |")
 
 
 if __name__ == "__main__":
