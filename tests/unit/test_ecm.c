@@ -16,7 +16,10 @@
  * - The RC fit at the searched tau takes the windows' lines of the lag from
  *   the search's own walk at that tau; a fit at the same tau given as fixed
  *   makes them itself (rc_lines): the same lines, so the same fit, number
- *   for number (no tolerance).
+ *   for number (no tolerance), on this log's clock and on one whose every
+ *   interval differs (jittered by up to 1 %): the search's walks run their
+ *   lags as lanes of vectors, rc_lines one scalar lag, and both make the
+ *   lag's factor anew where the interval changes.
  * - The passes of a long log cut in two halves (twin.h) against the same
  *   passes walked whole: the same rows and sums added in another order, so
  *   R0, R1, tau and their intervals agree within 1e-6 relative (far above
@@ -75,10 +78,14 @@ static double ocv_truth(double x) /* x: the charge drawn as a fraction of the wh
 
 /* With gap_at > 0, the clock jumps by GAP_S before sample gap_at (no charge
  * drawn across it) and the current is 3 A for the 30 s before it and 38 A
- * for the 30 s after: a lag must carry the 3 A across the gap. */
+ * for the 30 s after: a lag must carry the 3 A across the gap. With jitter
+ * > 0 each interval is DT_S times 1 + jitter * (a uniform draw - 1/2): a
+ * clock that never repeats an interval, so every sample makes the lag's
+ * factor anew (the path between the walks' runs at one interval). */
 #define GAP_S 5000.0
-static struct series *gen_log(size_t rows, uint64_t seed, size_t gap_at, double **q_out,
-                              double *q_end)
+#define JITTER 0.02
+static struct series *gen_log(size_t rows, uint64_t seed, size_t gap_at, double jitter,
+                              double **q_out, double *q_end)
 {
     struct series *s = series_new(1, 0, 0);
     assert_non_null(s);
@@ -94,11 +101,15 @@ static struct series *gen_log(size_t rows, uint64_t seed, size_t gap_at, double 
         }
         hold -= DT_S;
         s->t_s[k] = DT_S * (double)k + (gap_at && k >= gap_at ? GAP_S : 0.0);
+        if (jitter > 0.0 && k > 0)
+            s->t_s[k] = s->t_s[k - 1] + DT_S * (1.0 + jitter * (uniform() - 0.5)) +
+                        (gap_at && k == gap_at ? GAP_S : 0.0);
+        double dt = jitter > 0.0 && k > 0 && k != gap_at ? s->t_s[k] - s->t_s[k - 1] : DT_S;
         if (gap_at && k + 300 >= gap_at && k < gap_at + 300)
             level = k < gap_at ? 3.0 : 38.0;
         s->i_a[k] = level;
         int across = gap_at && k == gap_at;
-        q[k] = k && !across ? q[k - 1] + DT_S * 0.5 * (s->i_a[k - 1] + level) / 3600.0
+        q[k] = k && !across ? q[k - 1] + dt * 0.5 * (s->i_a[k - 1] + level) / 3600.0
                             : (k ? q[k - 1] : 0.0);
         s->n = k + 1;
     }
@@ -119,7 +130,7 @@ static struct series *gen_log(size_t rows, uint64_t seed, size_t gap_at, double 
 static struct series *gen(double **q_out, double *q_end)
 {
     print_message("seed %u\n", SEED);
-    return gen_log(ROWS, SEED, 0, q_out, q_end);
+    return gen_log(ROWS, SEED, 0, 0.0, q_out, q_end);
 }
 
 static struct ecm_opts opts(const struct series *s)
@@ -171,25 +182,32 @@ static void test_rc_truth_and_split(void **state)
 static void test_lines_from_the_search(void **state)
 {
     (void)state;
-    double *q, q_end;
-    struct series *s = gen(&q, &q_end);
-    struct ecm_opts o = opts(s);
-    struct ecm_result searched, fixed;
-    size_t work_searched = 0, work_fixed = 0;
-    o.work = &work_searched;
-    assert_int_equal(ecm_fit(s, q, &o, &searched, NULL), PB_OK);
-    assert_true(searched.rc);
-    o.tau_fixed_s = searched.tau_s;
-    o.work = &work_fixed;
-    assert_int_equal(ecm_fit(s, q, &o, &fixed, NULL), PB_OK);
-    assert_true(fixed.rc);
-    assert_true(searched.tau_s == fixed.tau_s);
-    assert_true(searched.r0_mohm == fixed.r0_mohm && searched.r0_ci95_mohm == fixed.r0_ci95_mohm);
-    assert_true(searched.r1_mohm == fixed.r1_mohm && searched.r1_ci95_mohm == fixed.r1_ci95_mohm);
-    assert_true(searched.sigma_mv == fixed.sigma_mv && searched.rho == fixed.rho);
-    assert_int_equal(searched.downweighted, fixed.downweighted);
-    free(q);
-    series_free(s);
+    for (int jittered = 0; jittered < 2; jittered++) {
+        double *q, q_end;
+        struct series *s = jittered ? gen_log(ROWS, SEED, 0, JITTER, &q, &q_end) : gen(&q, &q_end);
+        struct ecm_opts o = opts(s);
+        struct ecm_result searched, fixed;
+        size_t work_searched = 0, work_fixed = 0;
+        o.work = &work_searched;
+        assert_int_equal(ecm_fit(s, q, &o, &searched, NULL), PB_OK);
+        assert_true(searched.rc);
+        o.tau_fixed_s = searched.tau_s;
+        o.work = &work_fixed;
+        assert_int_equal(ecm_fit(s, q, &o, &fixed, NULL), PB_OK);
+        assert_true(fixed.rc);
+        assert_true(searched.tau_s == fixed.tau_s);
+        assert_true(searched.r0_mohm == fixed.r0_mohm &&
+                    searched.r0_ci95_mohm == fixed.r0_ci95_mohm);
+        assert_true(searched.r1_mohm == fixed.r1_mohm &&
+                    searched.r1_ci95_mohm == fixed.r1_ci95_mohm);
+        assert_true(searched.sigma_mv == fixed.sigma_mv && searched.rho == fixed.rho);
+        assert_int_equal(searched.downweighted, fixed.downweighted);
+        /* the truth within 1 %, as test_rc_truth_and_split holds it */
+        check_rel(searched.r0_mohm, 1000.0 * R0_OHM, 0.01, "R0, jittered clock or not");
+        check_rel(searched.tau_s, TAU_S, 0.01, "tau, jittered clock or not");
+        free(q);
+        series_free(s);
+    }
 }
 
 /* tau's interval against the scatter of tau over independent logs (the
@@ -213,7 +231,7 @@ static void test_tau_interval(void **state)
     int misses = 0;
     for (int j = 0; j < TAU_LOGS; j++) {
         double *q, q_end;
-        struct series *s = gen_log(TAU_ROWS, SEED + 7919u * (uint64_t)(j + 1), 0, &q, &q_end);
+        struct series *s = gen_log(TAU_ROWS, SEED + 7919u * (uint64_t)(j + 1), 0, 0.0, &q, &q_end);
         struct ecm_opts o = opts(s);
         struct ecm_result r;
         assert_int_equal(ecm_fit(s, q, &o, &r, NULL), PB_OK);
@@ -248,7 +266,8 @@ static void test_tau_interval(void **state)
  * search's walk, so at least the rows inside the windows (here nearly all). The same values whether
  * the search made them or rc_lines at that tau fixed (number for number,
  * test_lines_from_the_search's reason). The trend's sampled rows take them: the trend with and
- * without them within 1e-9 relative. */
+ * without them within 1e-9 relative. On a clean clock, with a gap before the cut, and on a
+ * jittered clock (every sample a new interval: the lag's factor made anew at each). */
 /* Just before where a long pass is cut (twin_split(ROWS) = 149,760), so a
  * later half's early-started lag reaches back across the gap. */
 #define GAP_AT 149660
@@ -256,9 +275,11 @@ static void test_tau_interval(void **state)
 static void test_lag_rows(void **state)
 {
     (void)state;
-    for (int gap = 0; gap < 2; gap++) {
+    for (int run = 0; run < 3; run++) {
+        int gap = run == 1, jittered = run == 2;
         double *q, q_end;
-        struct series *s = gen_log(ROWS, SEED, gap ? GAP_AT : 0, &q, &q_end);
+        struct series *s =
+            gen_log(ROWS, SEED, gap ? GAP_AT : 0, jittered ? JITTER : 0.0, &q, &q_end);
         struct ecm_opts o = opts(s);
         size_t every = fit_sample_every(s->n), m = s->n / every + 1;
         struct ecm_lag_rows searched = {.i1_a = malloc(m * sizeof(double)), .every = every};
@@ -290,7 +311,10 @@ static void test_lag_rows(void **state)
             worst = fmax(worst, fabs(v - i1) / fabs(i1));
         }
         print_message("%s: lag kept at %zu of %zu sampled rows, worst %.2e relative\n",
-                      gap ? "a gap before the cut" : "no gap", kept, m, worst);
+                      gap        ? "a gap before the cut"
+                      : jittered ? "a jittered clock"
+                                 : "no gap",
+                      kept, m, worst);
         assert_true(worst < 1e-10);
         assert_true(kept > 9 * m / 10);
         struct fit_result with, without;
@@ -346,7 +370,7 @@ static void test_cut_in_two(void **state)
     (void)state;
     for (int gap = 0; gap < 2; gap++) {
         double *q, q_end;
-        struct series *s = gen_log(ROWS, SEED, gap ? GAP_AT : 0, &q, &q_end);
+        struct series *s = gen_log(ROWS, SEED, gap ? GAP_AT : 0, 0.0, &q, &q_end);
         struct ecm_opts o = opts(s);
         struct ecm_result cut, whole;
         assert_int_equal(ecm_fit(s, q, &o, &cut, NULL), PB_OK);
