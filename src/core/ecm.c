@@ -682,7 +682,8 @@ static inline __attribute__((always_inline)) void walk_windows(struct walk_part 
             double d = dq[r], xr = x0[r], yr = y[r];
             VH_UNROLL
             for (int h = 0; h < vh; h++) {
-                /* the RC column -(lag - line), written line - lag: the same number */
+                /* the RC column -(lag - line), written line - lag: the same number
+                 * but for a zero's sign, which no sum keeps */
                 v2d x1 = (m1[h] + bq[h] * d) -
                          *(const v2d_mem *)(buf + r * 2 * (size_t)vh + 2 * (size_t)h);
                 s01[h] += xr * x1;
