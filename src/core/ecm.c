@@ -1188,10 +1188,9 @@ static inline void trend_lag(struct trend_ctx *c, size_t k)
         trend_start(c, 0);
         return;
     }
-    double dt = s->t_s[k] - s->t_s[k - 1];
-    if (fabs(dt - c->a_dt) > 1e-9 * dt) {
-        c->a_dt = dt;
-        c->a_val = exp(-dt / c->tau);
+    if (new_interval(s->t_s, k, c->a_dt)) {
+        c->a_dt = s->t_s[k] - s->t_s[k - 1];
+        c->a_val = exp(-c->a_dt / c->tau);
     }
     c->i1 = c->a_val * c->i1 + (1.0 - c->a_val) * s->i_a[k - 1];
     c->next = k + 1;
