@@ -183,9 +183,11 @@ enum pb_code cmd_analyze(int argc, char **argv, struct app *app, struct pb_error
     rc = cli.pack ? take_pack(&cli, err) : packopts_apply(NULL, &cli.seen, &cli.log, err);
     if (rc != PB_OK)
         return rc;
+    cli.log.an.stages = cmd_stage_hook(); /* bench/stages */
     rc = logopts_analyze(cli.path, &cli.log, &stats, &a, cli.series || cli.plot ? &s : NULL, err);
     if (rc != PB_OK)
         return rc;
+    stage_begin(cli.log.an.stages, "report");
     const char *name = strcmp(cli.path, "-") == 0 ? "(stdin)" : cli.path;
     struct report_input in = {name, &stats, &cli.log.an, cli.log.an.plain_fit};
     if (cli.series && (rc = write_series(cli.series, s, a, cli.log.an.capacity_mah, err)) != PB_OK)
@@ -205,5 +207,6 @@ enum pb_code cmd_analyze(int argc, char **argv, struct app *app, struct pb_error
 cleanup:
     series_free(s);
     analysis_free(a);
+    stage_begin(cli.log.an.stages, "end");
     return rc;
 }

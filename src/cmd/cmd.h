@@ -13,6 +13,7 @@
 #include <stdio.h>
 
 #include "../core/pb_error.h"
+#include "../core/stage.h"
 
 struct app {
     const char *prog; /* argv[0] as shown in messages */
@@ -61,5 +62,11 @@ FILE *cmd_open_log(const char *path, struct pb_error *err);
 
 /* Flushes stdout and checks every write reached it. */
 enum pb_code cmd_finish_stdout(struct pb_error *err);
+
+/* With PACKBOOK_STAGES set in the environment, a hook (core/stage.h) that
+ * writes each stage's label and its start in milliseconds from the first
+ * stage's to stderr, a line each ("stage LABEL MS"), for bench/stages;
+ * else NULL. For one analysis in one thread (analyze). */
+const struct stage_hook *cmd_stage_hook(void);
 
 #endif

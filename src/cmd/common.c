@@ -8,6 +8,7 @@
 #include <string.h>
 #include <strings.h>
 #include <sys/stat.h>
+#include <time.h>
 #include <unistd.h>
 
 #include "../core/numparse.h"
@@ -106,4 +107,23 @@ int cmd_cmp_double(const void *a, const void *b)
 {
     double x = *(const double *)a, y = *(const double *)b;
     return (x > y) - (x < y);
+}
+
+static double stage_t0_ms = -1.0;
+
+static void stage_print(void *ctx, const char *stage)
+{
+    (void)ctx;
+    struct timespec t;
+    clock_gettime(CLOCK_MONOTONIC, &t);
+    double now_ms = 1e3 * (double)t.tv_sec + 1e-6 * (double)t.tv_nsec;
+    if (stage_t0_ms < 0.0)
+        stage_t0_ms = now_ms;
+    fprintf(stderr, "stage %s %.3f\n", stage, now_ms - stage_t0_ms);
+}
+
+const struct stage_hook *cmd_stage_hook(void)
+{
+    static const struct stage_hook hook = {stage_print, NULL};
+    return getenv("PACKBOOK_STAGES") ? &hook : NULL;
 }

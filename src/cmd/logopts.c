@@ -177,6 +177,7 @@ enum pb_code logopts_analyze(const char *path, const struct log_cli *cli,
     ro.cells = cli->read_without_cells ? 0 : cli->an.cells;
     ro.pack_cells = cli->an.cells; /* a dropped cell column is still the pack's */
     ro.rated_mah = cli->an.capacity_mah;
+    stage_begin(cli->an.stages, "read");
     s = logread_file(fp, name, &ro, stats, err);
     if (!s) {
         rc = err->code;
@@ -190,6 +191,7 @@ enum pb_code logopts_analyze(const char *path, const struct log_cli *cli,
     rc = analyze_series(s, stats, name, &cli->an, a, err);
     if (rc != PB_OK)
         goto cleanup;
+    stage_begin(cli->an.stages, "checks");
     struct plausible pl;
     plausible_log(s, stats, name, cli->an.capacity_mah, &pl);
     for (size_t k = 0; k < pl.n; k++) {

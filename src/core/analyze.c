@@ -583,7 +583,9 @@ static enum pb_code stage_resistance(struct analysis *a, const struct series *s,
                               .cutoff_v = a->cells > 0 ? a->floor_v * a->cells : 0.0,
                               .robust = !o->plain_fit,
                               .work = &a->fit_rows_visited,
-                              .lag_rows = lag_rows}};
+                              .lag_rows = lag_rows,
+                              .stages = o->stages}};
+    stage_begin(o->stages, "walks");
     current_walks(a, s, o, name, &st, &b);
     struct ecm_run *run = st.run;
     if (!run)
@@ -675,6 +677,7 @@ static enum pb_code stage_ocv(struct analysis *a, const struct series *s, const 
         r_ci_ohm = a->r0_mohm.ci95 / 1000.0;
     }
     int have_r = r_ohm > 0.0;
+    stage_begin(o->stages, "OCV trend");
     /* the OCV trend over the log with R fixed: cubic in the normalised
      * charge when the charge moves, constant when it does not */
     a->q_end_ah = q_ah[s->n - 1];
@@ -853,6 +856,7 @@ enum pb_code analyze_series(const struct series *s, const struct logread_stats *
     a->fit_sigma_mv = a->fit_rho = a->fit_window_s = NAN;
     a->peak_a = a->step_a = NAN;
 
+    stage_begin(o->stages, "levels");
     reader_warnings(a, st, name);
     a->chem = ocv_chem(o->chemistry >= 0 ? (enum chemistry)o->chemistry : CHEM_LIPO);
     a->chem_assumed = o->chemistry < 0;
@@ -913,6 +917,7 @@ enum pb_code analyze_series(const struct series *s, const struct logread_stats *
             free(lr.i1_a);
             if (rc != PB_OK)
                 goto cleanup;
+            stage_begin(o->stages, "SoC and capacity");
             stage_soc_capacity(a, s, q_ah, o);
         }
     }
@@ -933,6 +938,7 @@ enum pb_code analyze_series(const struct series *s, const struct logread_stats *
     }
     if (a->cells <= 0)
         warn(a, "soc_not_estimable", "SoC needs the cell count (give --cells)");
+    stage_begin(o->stages, "cells");
     per_cell(a, s, q_ah, o, k_rest0, k_rest1);
     if (s->ncells > 0 && !st->voltage_from_cells) {
         double worst = 0.0;

@@ -16,6 +16,7 @@
 #include "ocv.h"
 #include "pb_error.h"
 #include "series.h"
+#include "stage.h"
 
 #define OCV_POLY_MAX 4 /* OCV drift polynomial: up to cubic (4 coefficients) */
 
@@ -27,6 +28,8 @@ struct analyze_opts {
     double gap_s;        /* gap threshold; 0 = max(1 s, 5 x median interval) */
     double rest_a;       /* rest current threshold; 0 = max(0.05 A, 1 % of peak) */
     int plain_fit;       /* 1 = ordinary least squares, no reweighting */
+    /* told as each stage begins (stage.h), for timing them; NULL: not told */
+    const struct stage_hook *stages;
 };
 
 /* A value with the half-width of its 95 % interval (NAN when unknown). */

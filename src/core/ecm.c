@@ -1069,6 +1069,7 @@ enum pb_code ecm_end(struct ecm_run *run, struct ecm_result *res)
         goto done;
     struct fit_result fs;
     struct fit_lag1 lag1;
+    stage_begin(o->stages, "static fit");
     if (fit_at(&c, 1, 0.0, o->robust, o->work, NULL, &lag1, &fs, NULL) != PB_OK || fs.rank < 1) {
         out->reason = "the resistance fit failed (too few samples inside the windows)";
         goto done;
@@ -1086,8 +1087,11 @@ enum pb_code ecm_end(struct ecm_run *run, struct ecm_result *res)
 
     if (try_rc) {
         double tau = o->tau_fixed_s;
-        if (!(tau > 0.0))
+        if (!(tau > 0.0)) {
+            stage_begin(o->stages, "tau search");
             tau = search_tau(grid, o->work);
+        }
+        stage_begin(o->stages, "RC fit");
         struct fit_result fr;
         const double *lines = grid->lines && tau == grid->tau ? grid->lines : NULL;
         if (isfinite(tau) &&

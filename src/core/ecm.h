@@ -29,6 +29,7 @@
 #include "fit.h"
 #include "pb_error.h"
 #include "series.h"
+#include "stage.h"
 
 /* The RC branch's current (the lag of I) at the rows the robust fits
  * sample (every fit_sample_every(n)-th row), as the model fit made it at
@@ -53,6 +54,8 @@ struct ecm_opts {
     size_t *work;       /* rows visited, summed (may be NULL) */
     int whole;          /* every pass in one walk, never cut in two (twin.h): for tests */
     struct ecm_lag_rows *lag_rows; /* filled at the chosen or fixed tau (may be NULL) */
+    /* told as ecm_end's stages begin (may be NULL) */
+    const struct stage_hook *stages;
 };
 
 struct ecm_result {

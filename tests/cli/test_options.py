@@ -141,5 +141,41 @@ class Documented(unittest.TestCase):
             self.assertIn(want, err, args)
 
 
+class StageMarks(unittest.TestCase):
+    """PACKBOOK_STAGES (man packbook FILES; bench/stages.py reads it): a mark on stderr as each
+    stage of the analysis begins, in the pipeline's order, times from the start of reading
+    and never falling, and the report itself byte for byte the same as without it."""
+
+    def marks(self, path):
+        plain = subprocess.run([pbtest.PACKBOOK, "analyze", path, "--json"], capture_output=True)
+        env = dict(os.environ, PACKBOOK_STAGES="1")
+        told = subprocess.run([pbtest.PACKBOOK, "analyze", path, "--json"], capture_output=True,
+                              env=env)
+        self.assertEqual(plain.returncode, EXIT_OK)
+        self.assertEqual(told.returncode, EXIT_OK)
+        self.assertEqual(plain.stdout, told.stdout, path)
+        self.assertNotIn(b"stage ", plain.stderr)
+        marks = []
+        for line in told.stderr.decode().splitlines():
+            m = re.fullmatch(r"stage ([A-Za-z ]+) (\d+\.\d{3})", line)
+            self.assertIsNotNone(m, line)
+            marks.append((m.group(1), float(m.group(2))))
+        times = [t for _, t in marks]
+        self.assertEqual(times[0], 0.0)
+        self.assertEqual(times, sorted(times))
+        return [label for label, _ in marks]
+
+    def test_model_log(self):
+        # tm07 has current steps: the static fit, the tau search and the RC fit all run
+        self.assertEqual(self.marks(PLAIN),
+                         ["read", "levels", "walks", "static fit", "tau search", "RC fit",
+                          "OCV trend", "SoC and capacity", "cells", "checks", "report", "end"])
+
+    def test_voltage_only_log(self):
+        # no current: no walks and no fits, the stages the analysis has still told
+        self.assertEqual(self.marks(os.path.join(SAMPLES, "tm09-voltage-only.csv")),
+                         ["read", "levels", "cells", "checks", "report", "end"])
+
+
 if __name__ == "__main__":
     unittest.main()
