@@ -60,6 +60,62 @@ struct win {
     double mv, bv, mi, bi, m1, b1; /* voltage, current, RC current */
 };
 
+/* Whether sample k's interval makes the lag's factor anew (a_dt the
+ * interval it was made for): jitter within a billionth keeps it. */
+static inline int new_interval(const double *t, size_t k, double a_dt)
+{
+    double dt = t[k] - t[k - 1];
+    return fabs(dt - a_dt) > 1e-9 * dt;
+}
+
+/* The RC branch's current run sample by sample: the first-order lag of the
+ * current (zero-order hold between samples) with time constant tau, its
+ * factor made for the interval a_dt. The model's rows (struct ctx) and the
+ * OCV trend's (struct trend_ctx) each run one. */
+struct lag {
+    double i1; /* the lag at sample next - 1 */
+    double a_dt, a_val;
+    size_t next; /* the sample whose lag is due next (0: none made yet) */
+};
+
+/* The lag started at sample k (the current held there before it). */
+static inline void lag_start(struct lag *l, const double *ia, size_t k)
+{
+    l->next = k + 1;
+    l->i1 = ia[k];
+    l->a_dt = -1.0;
+}
+
+/* The lag from sample k - 1 to k (k == 0: its start). */
+static inline void lag_advance(struct lag *l, const double *t, const double *ia, double tau_s,
+                               size_t k)
+{
+    if (k == 0) {
+        lag_start(l, ia, 0);
+        return;
+    }
+    l->next = k + 1;
+    if (new_interval(t, k, l->a_dt)) {
+        l->a_dt = t[k] - t[k - 1];
+        l->a_val = exp(-l->a_dt / tau_s);
+    }
+    l->i1 = l->a_val * l->i1 + (1.0 - l->a_val) * ia[k - 1];
+}
+
+/* The lag brought to sample k0 > 0 (its value at k0 - 1 made) for rows
+ * asked for out of turn: run on from the last sample made, or started
+ * afresh warm_s before k0 when that sample is at or past k0 or further
+ * back. */
+static void lag_catch_up(struct lag *l, const double *t, const double *ia, double tau_s,
+                         double warm_s, size_t k0)
+{
+    size_t ks = warm_start(t, k0, warm_s);
+    if (l->next == 0 || l->next > k0 || l->next < ks)
+        lag_start(l, ia, ks);
+    for (size_t k = l->next; k < k0; k++)
+        lag_advance(l, t, ia, tau_s, k);
+}
+
 struct ctx {
     const struct series *s;
     const double *y;
@@ -73,44 +129,11 @@ struct ctx {
     double warm_s; /* a lag's start before it is needed (WARM_TAUS times the longest tau) */
     struct ecm_lag_rows *lr; /* the lag at the sampled rows, made by the search or rc_lines */
     /* running state, reset at k == 0 */
-    size_t at; /* current window */
-    double i1; /* RC branch current */
-    double a_dt, a_val;
-    size_t next; /* the sample whose lag is due next (0: none made yet) */
+    size_t at;      /* current window */
+    struct lag lag; /* the RC branch's current */
 };
 
-/* The lag started at sample k (the current held there before it). */
-static inline void rc_start(struct ctx *c, size_t k)
-{
-    c->next = k + 1;
-    c->i1 = c->s->i_a[k];
-    c->a_dt = -1.0;
-}
-
-/* Whether sample k's interval makes the lag's factor anew (a_dt the
- * interval it was made for): jitter within a billionth keeps it. */
-static inline int new_interval(const double *t, size_t k, double a_dt)
-{
-    double dt = t[k] - t[k - 1];
-    return fabs(dt - a_dt) > 1e-9 * dt;
-}
-
-static inline void rc_advance(struct ctx *c, size_t k)
-{
-    const struct series *s = c->s;
-    if (k == 0) {
-        rc_start(c, 0);
-        return;
-    }
-    c->next = k + 1;
-    if (new_interval(s->t_s, k, c->a_dt)) {
-        c->a_dt = s->t_s[k] - s->t_s[k - 1];
-        c->a_val = exp(-c->a_dt / c->tau_s);
-    }
-    c->i1 = c->a_val * c->i1 + (1.0 - c->a_val) * s->i_a[k - 1];
-}
-
-/* rc_advance over samples [k0, k0 + m), each one's lag into lag[]; a run of
+/* lag_advance over samples [k0, k0 + m), each one's lag into lag[]; a run of
  * samples at one interval without a call (exp() between runs only), so the
  * lag stays in a register. */
 static void rc_lags(struct ctx *c, size_t k0, size_t m, double *lag)
@@ -118,10 +141,10 @@ static void rc_lags(struct ctx *c, size_t k0, size_t m, double *lag)
     const double *t = c->s->t_s, *ia = c->s->i_a;
     size_t j = 0;
     if (k0 == 0 && m > 0) {
-        rc_start(c, 0);
-        lag[j++] = c->i1;
+        lag_start(&c->lag, ia, 0);
+        lag[j++] = c->lag.i1;
     }
-    double i1 = c->i1, a_val = c->a_val, a_dt = c->a_dt;
+    double i1 = c->lag.i1, a_val = c->lag.a_val, a_dt = c->lag.a_dt;
     while (j < m) {
         size_t k = k0 + j;
         if (new_interval(t, k, a_dt)) {
@@ -135,10 +158,10 @@ static void rc_lags(struct ctx *c, size_t k0, size_t m, double *lag)
             k++;
         } while (j < m && !new_interval(t, k, a_dt));
     }
-    c->i1 = i1;
-    c->a_val = a_val;
-    c->a_dt = a_dt;
-    c->next = k0 + m;
+    c->lag.i1 = i1;
+    c->lag.a_val = a_val;
+    c->lag.a_dt = a_dt;
+    c->lag.next = k0 + m;
 }
 
 /* Where a walk over the windows is cut (twin.h): the first window that
@@ -204,13 +227,15 @@ static void rc_lines_part(struct ctx *c, size_t w0, size_t w1)
     size_t k = part_lag_start(c, w0);
     if (k >= c->s->n)
         return;
-    rc_start(c, k);
+    const double *t = c->s->t_s, *ia = c->s->i_a;
+    struct lag *l = &c->lag;
+    lag_start(l, ia, k);
     size_t keep_from = part_keep_from(c, w0);
     size_t mark = next_mark(c->lr, k > keep_from ? k : keep_from);
 #define KEEP_LAG(k)                                                                                \
     do {                                                                                           \
         if ((k) == mark) {                                                                         \
-            c->lr->i1_a[(k) / c->lr->every] = c->i1;                                               \
+            c->lr->i1_a[(k) / c->lr->every] = l->i1;                                               \
             mark += c->lr->every;                                                                  \
         }                                                                                          \
     } while (0)
@@ -220,17 +245,17 @@ static void rc_lines_part(struct ctx *c, size_t w0, size_t w1)
         if (!w->use)
             continue;
         double m1 = 0.0, b1 = 0.0;
-        for (k = c->next; k < w->k0; k++) {
-            rc_advance(c, k);
+        for (k = l->next; k < w->k0; k++) {
+            lag_advance(l, t, ia, c->tau_s, k);
             KEEP_LAG(k);
         }
         for (k = w->k0; k < w->k1; k++) {
-            if (k == c->next) {
-                rc_advance(c, k);
+            if (k == l->next) {
+                lag_advance(l, t, ia, c->tau_s, k);
                 KEEP_LAG(k);
             }
-            m1 += c->i1;
-            b1 += (c->q[k] - w->mq) * c->i1;
+            m1 += l->i1;
+            b1 += (c->q[k] - w->mq) * l->i1;
         }
         w->m1 = m1 / (double)(w->k1 - w->k0);
         w->b1 = w->sqq > 0.0 ? b1 / w->sqq : 0.0;
@@ -284,13 +309,8 @@ static void ecm_block(void *vc, size_t k0, size_t m, int p, double *x, double *y
      * or starts afresh warm_s before k0 when that row is earlier than k0
      * or further back */
     const double *kept = p == 2 && m == 1 ? kept_lag(c->lr, c->tau_s, k0) : NULL;
-    if (p == 2 && !kept && k0 > 0 && k0 != c->next) {
-        size_t ks = warm_start(s->t_s, k0, c->warm_s);
-        if (c->next == 0 || c->next > k0 || c->next < ks)
-            rc_start(c, ks);
-        for (size_t k = c->next; k < k0; k++)
-            rc_advance(c, k);
-    }
+    if (p == 2 && !kept && k0 > 0 && k0 != c->lag.next)
+        lag_catch_up(&c->lag, s->t_s, s->i_a, c->tau_s, c->warm_s, k0);
     double lag[FIT_BLOCK_ROWS];
     if (kept)
         lag[0] = *kept;
@@ -448,7 +468,7 @@ static enum pb_code fit_at(struct ctx *c, int p, double tau_s, int robust, size_
      * takes its plain start from the even sample (its rss_plain then the
      * sample's: the model choice takes the plain residuals over every row
      * from the tau search, see static_rss_plain and ecm_end) */
-    c->next = 0;
+    c->lag.next = 0;
     size_t ctx_size = c->whole ? 0 : sizeof *c; /* 0: no pass cut in two */
     enum pb_code rc = robust
                           ? fit_blocks_any_order(c->s->n, p, ecm_block, c, ctx_size, lag1, f, err)
@@ -524,7 +544,7 @@ typedef double v2d_mem __attribute__((vector_size(2 * sizeof(double)), aligned(s
  * charge offset, current and voltage columns (tau-free, made once). */
 #define WALK_ROW_DOUBLES (2 * VH_MAX + 3)
 
-/* The running lags of a walk's taus (as rc_advance runs one). */
+/* The running lags of a walk's taus (as lag_advance runs one). */
 struct lag_pairs {
     v2d i1[VH_MAX], a_val[VH_MAX], oma[VH_MAX];
 };
@@ -541,7 +561,7 @@ static void new_factors(int vh, struct lag_pairs *lp, const double *tau_s, const
     }
 }
 
-/* The lags over samples [k, k_end) (each from sample k - 1, as rc_advance
+/* The lags over samples [k, k_end) (each from sample k - 1, as lag_advance
  * runs it), the lag of tau keep (-1: none) kept at the sampled rows from
  * *mark on. With acc set, the rows are a window's from its row r = k - k0
  * on: each row's lags into buf, their sums into m1 and, times the row's
@@ -1172,33 +1192,8 @@ struct trend_ctx {
     int degree;
     double r0, r1, tau, v_ref;
     const struct ecm_lag_rows *lr; /* the lag at the sampled rows (may be NULL) */
-    double i1, a_dt, a_val;
-    size_t next; /* the sample whose lag is due next (0: none made yet) */
+    struct lag lag;                /* the RC branch's current */
 };
-
-/* The lag started at sample k (the current held there before it). */
-static inline void trend_start(struct trend_ctx *c, size_t k)
-{
-    c->i1 = c->s->i_a[k];
-    c->a_dt = -1.0;
-    c->next = k + 1;
-}
-
-/* The RC branch's current from sample k - 1 to k (k == 0: its start). */
-static inline void trend_lag(struct trend_ctx *c, size_t k)
-{
-    const struct series *s = c->s;
-    if (k == 0) {
-        trend_start(c, 0);
-        return;
-    }
-    if (new_interval(s->t_s, k, c->a_dt)) {
-        c->a_dt = s->t_s[k] - s->t_s[k - 1];
-        c->a_val = exp(-c->a_dt / c->tau);
-    }
-    c->i1 = c->a_val * c->i1 + (1.0 - c->a_val) * s->i_a[k - 1];
-    c->next = k + 1;
-}
 
 /* Row k with the RC branch's current i1 (ignored without a branch). */
 static inline int trend_row(const struct trend_ctx *c, size_t k, double i1, double *x, double *y)
@@ -1232,17 +1227,13 @@ static void trend_block(void *vc, size_t k0, size_t m, int p, double *x, double 
         use[0] = (unsigned char)trend_row(c, k0, *kept, x, &y[0]);
         return;
     }
-    if (c->r1 > 0.0 && k0 > 0 && k0 != c->next) {
-        size_t ks = warm_start(c->s->t_s, k0, WARM_TAUS * c->tau);
-        if (c->next == 0 || c->next > k0 || c->next < ks)
-            trend_start(c, ks);
-        for (size_t k = c->next; k < k0; k++)
-            trend_lag(c, k);
-    }
+    const double *t = c->s->t_s, *ia = c->s->i_a;
+    if (c->r1 > 0.0 && k0 > 0 && k0 != c->lag.next)
+        lag_catch_up(&c->lag, t, ia, c->tau, WARM_TAUS * c->tau, k0);
     for (size_t j = 0; j < m; j++) {
         if (c->r1 > 0.0)
-            trend_lag(c, k0 + j);
-        use[j] = (unsigned char)trend_row(c, k0 + j, c->i1, x + j * (size_t)p, &y[j]);
+            lag_advance(&c->lag, t, ia, c->tau, k0 + j);
+        use[j] = (unsigned char)trend_row(c, k0 + j, c->lag.i1, x + j * (size_t)p, &y[j]);
     }
 }
 
@@ -1274,7 +1265,7 @@ enum pb_code ecm_ocv_trend(const struct series *s, const double *q_ah, double q_
             if (!(1.96 * fmax(se_start, se_end) <= TREND_SAMPLE_CI_V)) {
                 if (work)
                     *work += out->rows_visited;
-                c.next = 0;
+                c.lag.next = 0;
                 rc = fit_blocks_any_order(s->n, degree + 1, trend_block, &c, sizeof c, NULL, out,
                                           err);
             }
