@@ -58,6 +58,7 @@ struct win {
     int use;       /* the window informs R (see ecm_fit) */
     double mq, sqq;
     double mv, bv, mi, bi, m1, b1; /* voltage, current, RC current */
+    double si;                     /* the current's variation about its line: sum of squares */
 };
 
 /* Whether sample k's interval makes the lag's factor anew (a_dt the
@@ -124,6 +125,7 @@ struct ctx {
     size_t nw;
     double step_a;
     int whole;     /* no pass cut in two (ecm_opts) */
+    int no_scout;  /* no scout for the tau search (ecm_opts) */
     int p;         /* 1: R only; 2: R0 and R1 */
     double tau_s;  /* RC branch */
     double warm_s; /* a lag's start before it is needed (WARM_TAUS times the longest tau) */
@@ -430,6 +432,7 @@ static size_t base_lines(struct ctx *c, double sigma_i, double cutoff_v)
              * that is not a number */
             vmin = c->y[k] < vmin ? c->y[k] : vmin;
         }
+        w->si = ss;
         w->use = ss > 25.0 * sigma_i * sigma_i * n && ss > 1e-12 * n &&
                  !(cutoff_v > 0.0 && vmin <= cutoff_v);
         informative += (size_t)w->use;
@@ -794,6 +797,124 @@ static void rss_walk(const struct ctx *c, const double *tau_s, int nt, double *c
     }
 }
 
+/* The scout of a long log's tau search: SCOUT_PARTS runs of windows spread
+ * evenly over the log, together about 1 / SCOUT_SHARE of its windows, each
+ * walked as a later part of a cut pass is (its lags started warm_s before
+ * its first window in use, so its sums are those a walk of every row makes
+ * for these windows). Where its profile says there is no RC branch to
+ * find, or where one clearly is, the search is spared the grid's walk of
+ * every row (tau_run). */
+#define SCOUT_MIN_ROWS 262144 /* logs this long are scouted (4 fits' even samples) */
+#define SCOUT_PARTS 4
+#define SCOUT_SHARE 8
+#define SCOUT_MIN_WINDOWS 8 /* in each run of the scout, else no scout */
+/* The scout must hold at least half its share of the current's variation in
+ * the windows in use (what informs R0 and the branch): a log whose current
+ * varies mostly elsewhere (a few hard manoeuvres in a long hover) is
+ * searched on every row. */
+#define SCOUT_MIN_VARIATION (0.5 / SCOUT_SHARE)
+/* The RC model is chosen only where it cuts the plain RSS by at least 5 %
+ * (ecm_end). A scout whose best grid point cuts it by under 1 % leaves the
+ * whole log far from that: the search ends unresolved, as it would when its
+ * best point is at a grid end or the branch is rejected. One that cuts it
+ * by more than 10 % has found the branch: Newton's method starts from the
+ * scout's own minimum. In between, the grid walks every row. */
+#define SCOUT_NO_BRANCH 0.99
+#define SCOUT_BRANCH 0.90
+#define SCOUT_STEPS_MAX 8
+
+struct scout {
+    size_t w0[SCOUT_PARTS], w1[SCOUT_PARTS];
+};
+
+/* The scout's runs of windows; 0 when the log is too short for one or
+ * the runs are not representative (SCOUT_MIN_VARIATION). */
+static int scout_parts(const struct ctx *c, struct scout *sc)
+{
+    size_t len = c->nw / (SCOUT_PARTS * SCOUT_SHARE);
+    if (c->no_scout || c->s->n < SCOUT_MIN_ROWS || len < SCOUT_MIN_WINDOWS)
+        return 0;
+    double all = 0.0, held = 0.0;
+    for (size_t j = 0; j < c->nw; j++)
+        all += c->w[j].use ? c->w[j].si : 0.0;
+    for (int i = 0; i < SCOUT_PARTS; i++) {
+        /* centred in the i-th of SCOUT_PARTS equal shares of the windows */
+        size_t mid = (2 * (size_t)i + 1) * c->nw / (2 * SCOUT_PARTS);
+        sc->w0[i] = mid - len / 2;
+        sc->w1[i] = sc->w0[i] + len;
+        for (size_t j = sc->w0[i]; j < sc->w1[i]; j++)
+            held += c->w[j].use ? c->w[j].si : 0.0;
+    }
+    return held >= SCOUT_MIN_VARIATION * all && held > 0.0;
+}
+
+/* Half of the scout's runs walked in turn, sums added in run order. */
+struct scout_half {
+    struct walk_part part;
+    const struct scout *sc;
+    int i0, i1, nt;
+    double a01[TAU_WALK_MAX], a11[TAU_WALK_MAX], b1[TAU_WALK_MAX];
+    struct tau_free_sums free_sums;
+};
+
+static void scout_half_run(void *vh)
+{
+    struct scout_half *h = vh;
+    memset(h->a01, 0, sizeof h->a01);
+    memset(h->a11, 0, sizeof h->a11);
+    memset(h->b1, 0, sizeof h->b1);
+    h->free_sums = (struct tau_free_sums){0};
+    for (int i = h->i0; i < h->i1; i++) {
+        h->part.w0 = h->sc->w0[i];
+        h->part.w1 = h->sc->w1[i];
+        if (h->nt == 3)
+            walk_three(&h->part);
+        else
+            walk_grid(&h->part);
+        for (int j = 0; j < h->nt; j++) {
+            h->a01[j] += h->part.a01[j];
+            h->a11[j] += h->part.a11[j];
+            h->b1[j] += h->part.b1[j];
+        }
+        h->free_sums.a00 += h->part.free_sums.a00;
+        h->free_sums.b0 += h->part.free_sums.b0;
+        h->free_sums.yy += h->part.free_sums.yy;
+        h->free_sums.n_used += h->part.free_sums.n_used;
+    }
+}
+
+/* rss_walk over the scout's windows alone (the first half of its runs
+ * beside the second); the static model's plain RSS there in *rss_static,
+ * its rows in use in *n_used. */
+static void scout_walk(const struct ctx *c, const struct scout *sc, const double *tau_s, int nt,
+                       double *const bufs[2], double *rss, double *rss_static, size_t *n_used)
+{
+    struct scout_half a = {
+        .part = {.c = c, .tau_s = tau_s, .buf = bufs[0], .keep = 0, .want_free = 1},
+        .sc = sc,
+        .i0 = 0,
+        .i1 = SCOUT_PARTS / 2,
+        .nt = nt};
+    struct scout_half b = a;
+    b.part.buf = bufs[1];
+    b.i0 = SCOUT_PARTS / 2;
+    b.i1 = SCOUT_PARTS;
+    twin_run(scout_half_run, &a, scout_half_run, &b);
+    struct fit_sums sm = {.yy = a.free_sums.yy + b.free_sums.yy,
+                          .n_used = a.free_sums.n_used + b.free_sums.n_used};
+    sm.a[0][0] = a.free_sums.a00 + b.free_sums.a00;
+    sm.b[0] = a.free_sums.b0 + b.free_sums.b0;
+    struct fit_result f;
+    *rss_static = fit_solve_sums(&sm, 1, &f, NULL) == PB_OK ? f.rss : HUGE_VAL;
+    *n_used = sm.n_used;
+    for (int j = 0; j < nt; j++) {
+        sm.a[0][1] = a.a01[j] + b.a01[j];
+        sm.a[1][1] = a.a11[j] + b.a11[j];
+        sm.b[1] = a.b1[j] + b.b1[j];
+        rss[j] = fit_solve_sums(&sm, 2, &f, NULL) == PB_OK ? f.rss : HUGE_VAL;
+    }
+}
+
 /* The search for tau: the plain RSS on a grid of time constants from lo_s
  * to hi_s, then Newton's method on the profile between the best grid
  * point's neighbours. It only reads the windows and the series (its own
@@ -848,26 +969,11 @@ static double vertex(double x0, double f0, double x1, double f1, double x2, doub
     return v > x0 && v < x2 ? v : x1;
 }
 
-/* Profiles the plain RSS over u = ln tau on the grid, then Newton's method
- * from the vertex of the best grid point and its neighbours, each step one
- * walk at u - TAU_H, u, u + TAU_H (the slope and curvature by central
- * differences, the bracket narrowed by the slope's sign, a bisection
- * where the step would leave it). gr->tau is NAN when the best tau is at a
- * grid end (not resolved) or a walk failed. The last point walked is the
- * result: its RC lines are kept for the fit, its curvature for tau's
- * interval. */
-static void *tau_run(void *vg)
+/* The grid's best point (f: the plain RSS at g, ln tau): its neighbours the
+ * bracket in *lo, *hi, the vertex of the three the start in *u; 0 when a
+ * fit failed or the best point is at a grid end (tau not resolved). */
+static int grid_point(const double *g, const double *f, double *lo, double *hi, double *u)
 {
-    struct tau_grid *gr = vg;
-    struct ctx *c = &gr->c;
-    struct tau_free_sums fs;
-    double *bufs[2] = {gr->buf, gr->buf + gr->buf_len};
-    rss_walk(c, gr->taus, TAU_GRID, bufs, NULL, 0, NULL, gr->f, &fs, 0);
-    gr->free_sums = fs;
-    gr->free_ok = 1;
-    gr->tau = NAN;
-    gr->work += c->s->n;
-    const double *g = gr->g, *f = gr->f;
     int best = 0, failed = 0;
     for (int j = 0; j < TAU_GRID; j++) {
         failed |= !(f[j] < HUGE_VAL);
@@ -875,23 +981,99 @@ static void *tau_run(void *vg)
             best = j;
     }
     if (failed || best == 0 || best == TAU_GRID - 1)
-        return NULL;
-    double lo = g[best - 1], hi = g[best + 1];
-    double u = vertex(lo, f[best - 1], g[best], f[best], hi, f[best + 1]);
-    /* the residual variance's degrees of freedom, for the tolerance */
-    double dof = (double)fs.n_used - (double)window_params(c) - 3.0;
+        return 0;
+    *lo = g[best - 1];
+    *hi = g[best + 1];
+    *u = vertex(*lo, f[best - 1], g[best], f[best], *hi, f[best + 1]);
+    return 1;
+}
+
+enum { SCOUT_UNSURE, SCOUT_NONE, SCOUT_FOUND };
+
+/* The scout's part of the search (struct scout): SCOUT_NONE when it finds
+ * no branch the RC model could be chosen for; SCOUT_FOUND when it finds
+ * one, with the grid's bracket in *lo, *hi and the scout's own minimum of
+ * the profile in *u (Newton's method on its windows, as tau_run's on every
+ * row); else SCOUT_UNSURE (or a short log, or a fit that failed). */
+static int scout_search(struct tau_grid *gr, double *const bufs[2], double *lo, double *hi,
+                        double *u)
+{
+    const struct ctx *c = &gr->c;
+    struct scout sc;
+    if (!scout_parts(c, &sc))
+        return SCOUT_UNSURE;
+    double f[TAU_GRID], rss_static;
+    size_t n_used, rows = 0, params = 0;
+    for (int i = 0; i < SCOUT_PARTS; i++)
+        for (size_t j = sc.w0[i]; j < sc.w1[i]; j++)
+            if (c->w[j].use) {
+                rows += c->w[j].k1 - c->w[j].k0;
+                params += c->w[j].sqq > 0.0 ? 2 : 1;
+            }
+    scout_walk(c, &sc, gr->taus, TAU_GRID, bufs, f, &rss_static, &n_used);
+    gr->work += rows;
+    double best = HUGE_VAL;
+    for (int j = 0; j < TAU_GRID; j++)
+        best = f[j] < best ? f[j] : best;
+    if (!(rss_static > 0.0 && rss_static < HUGE_VAL && best < HUGE_VAL))
+        return SCOUT_UNSURE;
+    if (best > SCOUT_NO_BRANCH * rss_static)
+        return SCOUT_NONE;
+    if (!(best < SCOUT_BRANCH * rss_static) || !grid_point(gr->g, f, lo, hi, u))
+        return SCOUT_UNSURE;
+    double dof = (double)n_used - (double)params - 3.0, l = *lo, h = *hi;
     if (!(dof >= 1.0))
-        return NULL;
+        return SCOUT_UNSURE;
+    for (int steps = 1; steps <= SCOUT_STEPS_MAX; steps++) {
+        double taus[3] = {exp(*u - TAU_H), exp(*u), exp(*u + TAU_H)}, p[3];
+        scout_walk(c, &sc, taus, 3, bufs, p, &rss_static, &n_used);
+        gr->work += rows;
+        if (!(p[0] < HUGE_VAL && p[1] < HUGE_VAL && p[2] < HUGE_VAL))
+            break;
+        double d1 = (p[2] - p[0]) / (2.0 * TAU_H);
+        double d2 = (p[2] - 2.0 * p[1] + p[0]) / (TAU_H * TAU_H);
+        if (d1 > 0.0)
+            h = *u;
+        else
+            l = *u;
+        double step = d2 > 0.0 ? -d1 / d2 : NAN;
+        double se = d2 > 0.0 ? sqrt(2.0 * p[1] / dof / d2) : NAN;
+        if (fabs(step) <= fmax(TAU_TOL_SE * se, TAU_TOL_MIN) || !(h - l > TAU_TOL_MIN))
+            break;
+        double next = *u + step;
+        *u = next > l && next < h ? next : 0.5 * (l + h);
+    }
+    return SCOUT_FOUND;
+}
+
+/* Newton's method on the profile from u in [lo, hi] (tau_run), each step a
+ * walk of every row; the tau-free sums in *fs (have_fs), else made by the
+ * first walk. Returns 1 when it converged: gr->tau the last tau walked, its
+ * RC lines kept for the fit; else 0, gr->tau NAN. */
+static int newton_search(struct tau_grid *gr, double *const bufs[2], struct tau_free_sums *fs,
+                         int have_fs, double lo, double hi, double u)
+{
+    struct ctx *c = &gr->c;
+    /* the residual variance's degrees of freedom, for the tolerance */
+    double dof = have_fs ? (double)fs->n_used - (double)window_params(c) - 3.0 : NAN;
+    if (have_fs && !(dof >= 1.0))
+        return 0;
     lag_rows_clear(c); /* each walk keeps the lag of its middle tau */
     int converged = 0;
     for (int steps = 1; steps <= TAU_STEPS_MAX && !converged; steps++) {
         double taus[3] = {exp(u - TAU_H), exp(u), exp(u + TAU_H)}, p[3];
-        rss_walk(c, taus, 3, bufs, gr->lines_mem, 1, c->lr, p, &fs, 1);
+        rss_walk(c, taus, 3, bufs, gr->lines_mem, 1, c->lr, p, fs, have_fs);
         gr->work += c->s->n;
-        if (!(p[0] < HUGE_VAL && p[1] < HUGE_VAL && p[2] < HUGE_VAL)) {
-            gr->tau = NAN; /* a fit failed near tau: not resolved, as on the grid */
-            return NULL;
+        if (!have_fs) {
+            have_fs = 1;
+            gr->free_sums = *fs;
+            gr->free_ok = 1;
+            dof = (double)fs->n_used - (double)window_params(c) - 3.0;
+            if (!(dof >= 1.0))
+                break;
         }
+        if (!(p[0] < HUGE_VAL && p[1] < HUGE_VAL && p[2] < HUGE_VAL))
+            break; /* a fit failed near tau: not resolved, as on the grid */
         double d1 = (p[2] - p[0]) / (2.0 * TAU_H);
         double d2 = (p[2] - 2.0 * p[1] + p[0]) / (TAU_H * TAU_H);
         gr->tau = taus[1];
@@ -913,11 +1095,49 @@ static void *tau_run(void *vg)
     }
     if (!converged) { /* no minimum found to the tolerance: not resolved */
         gr->tau = NAN;
-        return NULL;
+        return 0;
     }
     if (c->lr)
         c->lr->tau_s = gr->tau;
     gr->lines = gr->lines_mem;
+    return 1;
+}
+
+/* Profiles the plain RSS over u = ln tau on the grid, then Newton's method
+ * from the vertex of the best grid point and its neighbours, each step one
+ * walk at u - TAU_H, u, u + TAU_H (the slope and curvature by central
+ * differences, the bracket narrowed by the slope's sign, a bisection
+ * where the step would leave it). gr->tau is NAN when the best tau is at a
+ * grid end (not resolved) or a walk failed. The last point walked is the
+ * result: its RC lines are kept for the fit, its curvature for tau's
+ * interval. A long log is scouted first (struct scout): where the scout
+ * finds no branch to choose, the search ends unresolved; where it finds
+ * one, Newton's method starts from the scout's minimum, and the grid walks
+ * every row only if that does not converge. */
+static void *tau_run(void *vg)
+{
+    struct tau_grid *gr = vg;
+    struct ctx *c = &gr->c;
+    struct tau_free_sums fs;
+    double *bufs[2] = {gr->buf, gr->buf + gr->buf_len};
+    gr->tau = NAN;
+    double lo, hi, u;
+    switch (scout_search(gr, bufs, &lo, &hi, &u)) {
+    case SCOUT_NONE:
+        return NULL;
+    case SCOUT_FOUND:
+        if (newton_search(gr, bufs, &fs, 0, lo, hi, u))
+            return NULL;
+        break;
+    default:
+        break;
+    }
+    rss_walk(c, gr->taus, TAU_GRID, bufs, NULL, 0, NULL, gr->f, &fs, 0);
+    gr->free_sums = fs;
+    gr->free_ok = 1;
+    gr->work += c->s->n;
+    if (grid_point(gr->g, gr->f, &lo, &hi, &u))
+        newton_search(gr, bufs, &fs, 1, lo, hi, u);
     return NULL;
 }
 
@@ -1041,6 +1261,7 @@ struct ecm_run *ecm_begin(const struct series *s, const double *q_ah, const stru
         .q = q_ah,
         .step_a = o->step_a,
         .whole = o->whole,
+        .no_scout = o->no_scout,
         /* the search's longest tau is half a window (ecm_begin) */
         .warm_s = WARM_TAUS * fmax(0.5 * out->window_s, o->tau_fixed_s),
         .lr = o->lag_rows && o->lag_rows->every == fit_sample_every(s->n) ? o->lag_rows : NULL};

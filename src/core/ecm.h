@@ -53,6 +53,8 @@ struct ecm_opts {
     double tau_fixed_s; /* > 0: fit the RC branch at this tau only (no search) */
     size_t *work;       /* rows visited, summed (may be NULL) */
     int whole;          /* every pass in one walk, never cut in two (twin.h): for tests */
+    int no_scout;       /* the tau search without its scout (ecm.c), every walk of every row:
+                           for tests */
     struct ecm_lag_rows *lag_rows; /* filled at the chosen or fixed tau (may be NULL) */
     /* told as ecm_end's stages begin (may be NULL) */
     const struct stage_hook *stages;
