@@ -6,7 +6,6 @@
 
 #include <gsl/gsl_cdf.h>
 #include <math.h>
-#include <pthread.h>
 #include <stdlib.h>
 #include <string.h>
 #include <unistd.h>
@@ -932,7 +931,7 @@ struct tau_grid {
     const double *lines; /* the RC lines of the walk at tau (in lines_mem), else NULL */
     size_t work;         /* rows the search visited, added to the caller's count at the end */
     struct tau_free_sums free_sums; /* the static model's plain sums, every row */
-    pthread_t tid;
+    struct twin_job job; /* the search beside the static fit (threaded) */
     int threaded, ok, walked, free_ok;
 };
 
@@ -1114,7 +1113,7 @@ static int newton_search(struct tau_grid *gr, double *const bufs[2], struct tau_
  * finds no branch to choose, the search ends unresolved; where it finds
  * one, Newton's method starts from the scout's minimum, and the grid walks
  * every row only if that does not converge. */
-static void *tau_run(void *vg)
+static void tau_run(void *vg)
 {
     struct tau_grid *gr = vg;
     struct ctx *c = &gr->c;
@@ -1124,10 +1123,10 @@ static void *tau_run(void *vg)
     double lo, hi, u;
     switch (scout_search(gr, bufs, &lo, &hi, &u)) {
     case SCOUT_NONE:
-        return NULL;
+        return;
     case SCOUT_FOUND:
         if (newton_search(gr, bufs, &fs, 0, lo, hi, u))
-            return NULL;
+            return;
         break;
     default:
         break;
@@ -1138,7 +1137,7 @@ static void *tau_run(void *vg)
     gr->work += c->s->n;
     if (grid_point(gr->g, gr->f, &lo, &hi, &u))
         newton_search(gr, bufs, &fs, 1, lo, hi, u);
-    return NULL;
+    return;
 }
 
 /* Starts the search (in a thread when one can run beside this one); ok is
@@ -1168,7 +1167,7 @@ static void grid_start(struct tau_grid *gr, const struct ctx *c, double lo_s, do
     /* a short log's walk costs less than a thread (and import runs one
      * analysis per core already) */
     if (c->s->n >= GRID_THREAD_MIN_ROWS && sysconf(_SC_NPROCESSORS_ONLN) > 1 &&
-        pthread_create(&gr->tid, NULL, tau_run, gr) == 0)
+        twin_start(&gr->job, tau_run, gr) == 0)
         gr->threaded = 1;
 }
 
@@ -1179,7 +1178,7 @@ static double search_tau(struct tau_grid *gr, size_t *work)
     if (!gr->ok)
         return NAN;
     if (gr->threaded) {
-        pthread_join(gr->tid, NULL);
+        twin_join(&gr->job);
         gr->threaded = 0;
     } else if (!gr->walked) {
         tau_run(gr);
@@ -1379,7 +1378,7 @@ enum pb_code ecm_end(struct ecm_run *run, struct ecm_result *res)
     }
 done:
     if (grid->threaded) /* a search still running is waited for, its result unused */
-        pthread_join(grid->tid, NULL);
+        twin_join(&grid->job);
     free(grid->buf);
     free(grid->lines_mem);
     if (out->reason) {

@@ -1848,7 +1848,7 @@ struct ahead {
     int split;       /* who parses (logread_opts.ahead_split) */
     pthread_mutex_t mu;
     pthread_cond_t cv;
-    pthread_t tid;
+    struct twin_job job; /* the second thread (twin.h) */
 };
 
 static int grow(void **p, size_t *cap, size_t need, size_t size)
@@ -2039,7 +2039,7 @@ static void parse_claimed(struct ahead *a, struct ahead_block *b)
 
 /* The second thread: reads while the ring has room, else parses the oldest
  * block read. */
-static void *ahead_run(void *va)
+static void ahead_run(void *va)
 {
     struct ahead *a = va;
     pthread_mutex_lock(&a->mu);
@@ -2068,7 +2068,6 @@ static void *ahead_run(void *va)
         pthread_cond_wait(&a->cv, &a->mu);
     }
     pthread_mutex_unlock(&a->mu);
-    return NULL;
 }
 
 /* feed() of a block split ahead: the same decisions, line by line. */
@@ -2204,7 +2203,7 @@ static int ahead_start(struct ahead *a_out, const struct reader *r, FILE *fp)
         ahead_release(a);
         return -1;
     }
-    if (pthread_create(&a->tid, NULL, ahead_run, a) != 0) {
+    if (twin_start(&a->job, ahead_run, a) != 0) {
         pthread_cond_destroy(&a->cv);
         pthread_mutex_destroy(&a->mu);
         ahead_release(a);
@@ -2252,7 +2251,7 @@ static void ahead_take(struct ahead *a, struct reader *r, struct csv_parser *p, 
     a->stop = 1;
     pthread_cond_broadcast(&a->cv);
     pthread_mutex_unlock(&a->mu);
-    pthread_join(a->tid, NULL);
+    twin_join(&a->job);
     pthread_cond_destroy(&a->cv);
     pthread_mutex_destroy(&a->mu);
     ahead_release(a);
@@ -2449,6 +2448,8 @@ struct series *logread_file(FILE *fp, const char *name, const struct logread_opt
      * end past AHEAD_START, and reads and parses the blocks after the first
      * while this thread reads the rest of it */
     int can_ahead = len == BLOCK_BYTES && !opts->no_fast_path && sysconf(_SC_NPROCESSORS_ONLN) > 1;
+    if (can_ahead) /* a long log: its passes will want the second core */
+        twin_ready();
     size_t cut = len - start;
     const char *eol = can_ahead && cut > AHEAD_START
                           ? memchr(buf + start + AHEAD_START, '\n', cut - AHEAD_START)
