@@ -2448,8 +2448,6 @@ struct series *logread_file(FILE *fp, const char *name, const struct logread_opt
      * end past AHEAD_START, and reads and parses the blocks after the first
      * while this thread reads the rest of it */
     int can_ahead = len == BLOCK_BYTES && !opts->no_fast_path && sysconf(_SC_NPROCESSORS_ONLN) > 1;
-    if (can_ahead) /* a long log: its passes will want the second core */
-        twin_ready();
     size_t cut = len - start;
     const char *eol = can_ahead && cut > AHEAD_START
                           ? memchr(buf + start + AHEAD_START, '\n', cut - AHEAD_START)

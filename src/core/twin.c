@@ -81,17 +81,6 @@ static int start_worker(struct worker *w)
     return 0;
 }
 
-void twin_ready(void)
-{
-    if (sysconf(_SC_NPROCESSORS_ONLN) < 2)
-        return;
-    pthread_mutex_lock(&mu);
-    for (int i = 0; i < TWIN_WORKERS; i++)
-        if (!pool[i].started)
-            start_worker(&pool[i]);
-    pthread_mutex_unlock(&mu);
-}
-
 /* A sleeping worker handed fn(arg), or NULL when none is free (or one
  * cannot be started). */
 static struct worker *hand_over(void (*fn)(void *arg), void *arg)

@@ -6,8 +6,8 @@
  * second core was free, only the time does.
  *
  * Owns a few worker threads for the life of the process (at most
- * TWIN_WORKERS, each started when first needed, asleep between jobs,
- * stopped and joined at exit): a job handed to a sleeping worker starts on a
+ * TWIN_WORKERS, each started for the first job it takes, asleep between
+ * jobs, stopped and joined at exit): a job handed to a sleeping worker starts on a
  * free core within about 0.1 ms, where a thread made for it waits for the
  * scheduler to move it off its parent's busy core (2-5 ms on a shared
  * virtual machine, a tenth of a long log's analysis in all). When every
@@ -44,11 +44,6 @@ int twin_start(struct twin_job *job, void (*fn)(void *arg), void *arg);
 
 /* Waits for a job twin_start started (a no-op for one it did not). */
 void twin_join(struct twin_job *job);
-
-/* Starts the workers not yet started, asleep, so that a job handed to one
- * later starts at once (a thread made just then waits to be placed): for a
- * caller about to need them, e.g. the reader of a long log. */
-void twin_ready(void);
 
 /* Where [0, n) is cut: near the middle, on a multiple of 256 rows (the
  * fits' block) so that each half's blocks are whole. */
