@@ -23,7 +23,7 @@ WHAT = {
     "static fit": "static model's robust fit (beside: the tau grid, then its Newton walks)",
     "tau search": "waiting for the tau search (grid, then Newton walks, each in two halves)",
     "RC fit": "RC model's robust fit",
-    "OCV trend": "OCV trend (its even sample)",
+    "OCV trend": "OCV trend (its even sample, or from it a pass over every row)",
     "SoC and capacity": "SoC and capacity",
     "cells": "per-cell figures",
     "checks": "the whole log's plausibility checks",

@@ -931,7 +931,7 @@ struct tau_grid {
     const double *lines; /* the RC lines of the walk at tau (in lines_mem), else NULL */
     size_t work;         /* rows the search visited, added to the caller's count at the end */
     struct tau_free_sums free_sums; /* the static model's plain sums, every row */
-    struct twin_job job; /* the search beside the static fit (threaded) */
+    struct twin_job job;            /* the search beside the static fit (threaded) */
     int threaded, ok, walked, free_ok;
 };
 
@@ -1457,6 +1457,17 @@ static void trend_block(void *vc, size_t k0, size_t m, int p, double *x, double 
     }
 }
 
+/* A sample's trend stands for the log when it pins the OCV at both ends to
+ * TREND_SAMPLE_CI_V (ctx: the degree). */
+static int trend_pinned(void *ctx, const struct fit_result *f)
+{
+    int degree = *(const int *)ctx;
+    double v, se_start, se_end;
+    ecm_ocv_at(f, degree, -1.0, &v, &se_start);
+    ecm_ocv_at(f, degree, 1.0, &v, &se_end);
+    return 1.96 * fmax(se_start, se_end) <= TREND_SAMPLE_CI_V;
+}
+
 enum pb_code ecm_ocv_trend(const struct series *s, const double *q_ah, double q_end_ah, int degree,
                            double r0_ohm, double r1_ohm, double tau_s, int robust,
                            const struct ecm_lag_rows *lag_rows, size_t *work,
@@ -1477,19 +1488,8 @@ enum pb_code ecm_ocv_trend(const struct series *s, const double *q_ah, double q_
      * the sample pins the trend's ends to TREND_SAMPLE_CI_V */
     enum pb_code rc;
     if (robust) {
-        rc = fit_blocks_sampled(s->n, degree + 1, trend_block, &c, sizeof c, out, err);
-        if (rc == PB_OK && out->n_used < s->n) {
-            double v, se_start, se_end;
-            ecm_ocv_at(out, degree, -1.0, &v, &se_start);
-            ecm_ocv_at(out, degree, 1.0, &v, &se_end);
-            if (!(1.96 * fmax(se_start, se_end) <= TREND_SAMPLE_CI_V)) {
-                if (work)
-                    *work += out->rows_visited;
-                c.lag.next = 0;
-                rc = fit_blocks_any_order(s->n, degree + 1, trend_block, &c, sizeof c, NULL, out,
-                                          err);
-            }
-        }
+        rc = fit_blocks_sampled(s->n, degree + 1, trend_block, &c, sizeof c, trend_pinned, &degree,
+                                out, err);
     } else {
         rc = fit_blocks(s->n, degree + 1, trend_block, &c, sizeof c, robust, NULL, out, err);
     }

@@ -52,6 +52,8 @@ struct source {
     void *row_ctx;
     struct fit_lag1 *lag1; /* the lag-1 moments wanted (NULL: not), made by the first full pass */
     int sample_only;       /* a long log's fit ends with its even sample's (fit_blocks_sampled) */
+    fit_stands_fn stands;  /* ... when this says so of it (NULL: always) */
+    void *stands_ctx;
 };
 
 /* The lag-1 moments of one piece of a pass, with the last row in hand (to
@@ -680,6 +682,30 @@ double fit_median_above(double *a, size_t n, size_t from)
     return 0.5 * (m_lhs + next);
 }
 
+/* The fit's figures from its weighted sums, solution and inverse. */
+static void fill_result(const struct normal_eq *ne, int p, const double *beta,
+                        double inv[FIT_MAX_P][FIT_MAX_P], int rank, struct fit_result *out)
+{
+    /* residual sum of squares from the sums: y'Wy - beta'X'Wy */
+    double rss = ne->yy;
+    for (int j = 0; j < p; j++)
+        rss -= beta[j] * ne->b[j];
+    if (rss < 0.0)
+        rss = 0.0;
+    double dof = ne->wsum - rank;
+    out->rank = rank;
+    out->rss = rss;
+    out->dof = dof;
+    out->n_used = ne->n_used;
+    out->sigma = dof > 0 ? sqrt(rss / dof) : 0.0;
+    double s2 = out->sigma * out->sigma;
+    for (int i = 0; i < p; i++) {
+        out->beta[i] = beta[i];
+        for (int j = 0; j < p; j++)
+            out->cov[i][j] = s2 * inv[i][j];
+    }
+}
+
 static enum pb_code fit_passes(size_t n, int p, const struct source *src, int robust,
                                const struct fit_result *start, struct fit_result *out,
                                struct pb_error *err)
@@ -790,8 +816,15 @@ static enum pb_code fit_passes(size_t n, int p, const struct source *src, int ro
                 scale = next;
             }
             if (src->sample_only && sampled && solved && scale > 0.0) {
-                ne = sne;
-                sample_fit = 1;
+                /* the sample's fit, as it would be returned, for the
+                 * caller to judge; a fit it does not take goes on to the
+                 * passes over every row (fit_blocks_any_order's) */
+                struct fit_result judged = *out;
+                fill_result(&sne, p, beta, inv, rank, &judged);
+                if (!src->stands || src->stands(src->stands_ctx, &judged)) {
+                    ne = sne;
+                    sample_fit = 1;
+                }
             }
             /* the subsample's standard errors are sqrt(n / kept) times the full data's */
             limit = 3.0 * sqrt(rows / (double)ss.nk);
@@ -874,25 +907,8 @@ static enum pb_code fit_passes(size_t n, int p, const struct source *src, int ro
         /* the start's plain residual, scaled from its rows to these */
         out->rss_plain = start->rss_plain * (double)ne.n_used / (double)start->n_used;
     }
-    /* residual sum of squares from the sums: y'Wy - beta'X'Wy */
-    double rss = ne.yy;
-    for (int j = 0; j < p; j++)
-        rss -= beta[j] * ne.b[j];
-    if (rss < 0.0)
-        rss = 0.0;
-    double dof = ne.wsum - rank;
-    out->rank = rank;
     out->rows_visited = visited;
-    out->rss = rss;
-    out->dof = dof;
-    out->n_used = ne.n_used;
-    out->sigma = dof > 0 ? sqrt(rss / dof) : 0.0;
-    double s2 = out->sigma * out->sigma;
-    for (int i = 0; i < p; i++) {
-        out->beta[i] = beta[i];
-        for (int j = 0; j < p; j++)
-            out->cov[i][j] = s2 * inv[i][j];
-    }
+    fill_result(&ne, p, beta, inv, rank, out);
     return PB_OK;
 }
 
@@ -942,10 +958,16 @@ enum pb_code fit_blocks_any_order(size_t n, int p, fit_block_fn block, void *ctx
 }
 
 enum pb_code fit_blocks_sampled(size_t n, int p, fit_block_fn block, void *ctx, size_t ctx_size,
-                                struct fit_result *out, struct pb_error *err)
+                                fit_stands_fn stands, void *stands_ctx, struct fit_result *out,
+                                struct pb_error *err)
 {
-    struct source src = {
-        .block = block, .ctx = ctx, .any_order = 1, .ctx_size = ctx_size, .sample_only = 1};
+    struct source src = {.block = block,
+                         .ctx = ctx,
+                         .any_order = 1,
+                         .ctx_size = ctx_size,
+                         .sample_only = 1,
+                         .stands = stands,
+                         .stands_ctx = stands_ctx};
     return fit_core(n, p, &src, 1, NULL, out, err);
 }
 

@@ -117,15 +117,22 @@ enum pb_code fit_blocks_any_order(size_t n, int p, fit_block_fn block, void *ctx
                                   struct fit_lag1 *lag1, struct fit_result *out,
                                   struct pb_error *err);
 
+/* Whether a fit of a sample of the rows stands for them all (ctx: the
+ * caller's), judged on the fit as fit_blocks_sampled would return it. */
+typedef int (*fit_stands_fn)(void *ctx, const struct fit_result *f);
+
 /* fit_blocks_any_order ended at the even sample's fit when the sample
- * stands for the rows (n at least 4 times its 65536 rows): no pass over
- * every row; coefficients, intervals, scale and n_used are the sample's
- * (intervals about sqrt(n / 65536) times a fit of every row's), rss_plain
- * the sample's scaled to n. Otherwise (fewer rows, or an exact or failed
- * sample fit) the same as fit_blocks_any_order. For a curve that the
- * sample already pins far closer than anything that uses it needs. */
+ * stands for the rows (n at least 4 times its 65536 rows) and stands()
+ * says so of its fit (stands NULL: always): no pass over every row;
+ * coefficients, intervals, scale and n_used are the sample's (intervals
+ * about sqrt(n / 65536) times a fit of every row's), rss_plain the
+ * sample's scaled to n. Otherwise (fewer rows, an exact or failed sample
+ * fit, or one stands() rejects) the same as fit_blocks_any_order, from the
+ * same sample's fit without making it again. For a curve that the sample
+ * already pins far closer than anything that uses it needs. */
 enum pb_code fit_blocks_sampled(size_t n, int p, fit_block_fn block, void *ctx, size_t ctx_size,
-                                struct fit_result *out, struct pb_error *err);
+                                fit_stands_fn stands, void *stands_ctx, struct fit_result *out,
+                                struct pb_error *err);
 
 /* The plain fit of sums made by the caller (e.g. shared walks over the
  * data for many candidate models); rows_visited is left 0. */

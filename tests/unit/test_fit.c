@@ -99,6 +99,21 @@ static void block_line(void *ctx, size_t k0, size_t m, int p, double *x, double 
         use[j] = (unsigned char)row_line(ctx, k0 + j, x + j * (size_t)p, &y[j]);
 }
 
+/* A stands() that sees the sample's fit (the intercept it was shown, and
+ * how often it was asked) and never takes it. */
+struct seen {
+    int calls;
+    double beta0;
+};
+
+static int rejects(void *ctx, const struct fit_result *f)
+{
+    struct seen *s = ctx;
+    s->calls++;
+    assert_true(f->beta[0] == s->beta0);
+    return 0;
+}
+
 /* A long log: the reweighting iterates on the kept sample of 65536 rows
  * and ends with one pass over all 400,000 (fit.h). The glitches must still
  * be ignored (truth of the generator: intercept 16, slope -0.05, uniform
@@ -131,7 +146,7 @@ static void test_robust_long(void **state)
      * the full fit's within 20 % (least squares' 1 / sqrt(n)), and no pass
      * over every row */
     struct fit_result c;
-    assert_int_equal(fit_blocks_sampled(d.n, 2, block_line, &d, 0, &c, NULL), PB_OK);
+    assert_int_equal(fit_blocks_sampled(d.n, 2, block_line, &d, 0, NULL, NULL, &c, NULL), PB_OK);
     assert_true(c.n_used < d.n / 4);
     assert_true(c.rows_visited + d.n <= b.rows_visited); /* b passed over every row */
     for (int j = 0; j < 2; j++) {
@@ -139,11 +154,23 @@ static void test_robust_long(void **state)
         check_close(fit_ci95(&c, j) / fit_ci95(&b, j), sqrt((double)b.n_used / (double)c.n_used),
                     0.2 * sqrt((double)b.n_used / (double)c.n_used), "sample's interval");
     }
+    /* a sample's fit the caller does not take (stands() says no, having
+     * seen the very fit fit_blocks_sampled returned above): the fit of
+     * every row that fit_blocks_any_order makes from the same sample,
+     * number for number, without making the sample's fit again */
+    struct seen judge = {0, c.beta[0]};
+    struct fit_result h;
+    assert_int_equal(fit_blocks_sampled(d.n, 2, block_line, &d, 0, rejects, &judge, &h, NULL),
+                     PB_OK);
+    assert_int_equal(judge.calls, 1);
+    assert_true(h.beta[0] == b.beta[0] && h.beta[1] == b.beta[1] && h.n_used == b.n_used);
+    assert_true(h.cov[0][0] == b.cov[0][0] && h.cov[1][1] == b.cov[1][1] && h.scale == b.scale);
+    assert_int_equal(h.rows_visited, b.rows_visited);
     /* a log too short for a sample: the fit of every row, number for number */
     struct data e = make(20000, 16.0, -0.05, 0.002, 6);
     struct fit_result f, g;
     assert_int_equal(fit_blocks_any_order(e.n, 2, block_line, &e, 0, NULL, &f, NULL), PB_OK);
-    assert_int_equal(fit_blocks_sampled(e.n, 2, block_line, &e, 0, &g, NULL), PB_OK);
+    assert_int_equal(fit_blocks_sampled(e.n, 2, block_line, &e, 0, NULL, NULL, &g, NULL), PB_OK);
     assert_true(f.beta[0] == g.beta[0] && f.beta[1] == g.beta[1] && f.n_used == g.n_used);
     free(e.x), free(e.y);
     free(d.x), free(d.y);
