@@ -1,6 +1,7 @@
 #define _POSIX_C_SOURCE 200809L /* sysconf */
 #include "twin.h"
 
+#include <signal.h>
 #include <stdlib.h>
 #include <unistd.h>
 
@@ -58,6 +59,20 @@ static void stop_workers(void)
     }
 }
 
+/* pthread_create of a thread that takes no signal meant for the process
+ * (every signal blocked, a mask it is born with): a worker outlives the
+ * job it was made for, and a handler must run in the thread that set up
+ * what it cleans up (the outputs' temporary files: report/outfile.c). */
+static int spawn(pthread_t *tid, void *(*fn)(void *arg), void *arg)
+{
+    sigset_t all, prev;
+    sigfillset(&all);
+    pthread_sigmask(SIG_SETMASK, &all, &prev);
+    int made = pthread_create(tid, NULL, fn, arg);
+    pthread_sigmask(SIG_SETMASK, &prev, NULL);
+    return made;
+}
+
 /* Starts w's thread, asleep until handed a job; under mu. 0 or -1. */
 static int start_worker(struct worker *w)
 {
@@ -72,7 +87,7 @@ static int start_worker(struct worker *w)
         return -1;
     }
     w->has_job = 0;
-    if (pthread_create(&w->tid, NULL, worker_main, w) != 0) {
+    if (spawn(&w->tid, worker_main, w) != 0) {
         pthread_cond_destroy(&w->go);
         pthread_cond_destroy(&w->fin);
         return -1;
@@ -132,7 +147,7 @@ int twin_start(struct twin_job *job, void (*fn)(void *arg), void *arg)
         job->worker = w;
         return 0;
     }
-    if (pthread_create(&job->tid, NULL, thread_main, job) == 0) {
+    if (spawn(&job->tid, thread_main, job) == 0) {
         job->how = 2;
         return 0;
     }

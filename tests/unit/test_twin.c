@@ -5,12 +5,15 @@
  * caller (it sees the caller's flag change while both run); the workers are
  * kept (over many jobs one after another, at most TWIN_WORKERS threads ever
  * run them: kernel thread ids, which a new thread does not reuse at once);
+ * a worker takes no signal meant for the process (SIGTERM blocked in it,
+ * so an output's handler runs in the thread that made the output);
  * more callers at once than workers still get every job run (a thread of
  * its own, or in the caller), as do jobs that hand out jobs themselves (the
  * tau search cuts its walks in two). */
 #define _GNU_SOURCE /* syscall(SYS_gettid) */
 #include <pthread.h>
 #include <setjmp.h>
+#include <signal.h>
 #include <stdarg.h>
 #include <stddef.h>
 #include <stdint.h>
@@ -30,6 +33,7 @@ static long tid_now(void)
 struct cell {
     int runs;
     long tid;
+    int term_blocked; /* SIGTERM in the running thread's mask */
 };
 
 static void mark(void *vc)
@@ -37,6 +41,9 @@ static void mark(void *vc)
     struct cell *c = vc;
     __atomic_add_fetch(&c->runs, 1, __ATOMIC_SEQ_CST);
     c->tid = tid_now();
+    sigset_t now;
+    pthread_sigmask(SIG_BLOCK, NULL, &now);
+    c->term_blocked = sigismember(&now, SIGTERM);
 }
 
 static int two_cores(void)
@@ -50,7 +57,7 @@ static void test_once_each_and_kept(void **state)
     long seen[64];
     int distinct = 0;
     for (int k = 0; k < 64; k++) {
-        struct cell here = {0, 0}, there = {0, 0};
+        struct cell here = {0, 0, 0}, there = {0, 0, 0};
         twin_run(mark, &here, mark, &there);
         assert_int_equal(here.runs, 1);
         assert_int_equal(there.runs, 1);
@@ -58,6 +65,8 @@ static void test_once_each_and_kept(void **state)
         if (!two_cores())
             continue;
         assert_true(there.tid != tid_now());
+        assert_int_equal(there.term_blocked, 1);
+        assert_int_equal(here.term_blocked, 0);
         int known = 0;
         for (int j = 0; j < distinct; j++)
             known |= seen[j] == there.tid;
@@ -123,8 +132,8 @@ static void *caller(void *vcount)
 {
     int *count = vcount;
     for (int r = 0; r < ROUNDS; r++) {
-        struct cell here = {0, 0};
-        struct nested n = {{0, 0}, {0, 0}};
+        struct cell here = {0, 0, 0};
+        struct nested n = {{0, 0, 0}, {0, 0, 0}};
         twin_run(mark, &here, nest, &n);
         *count += here.runs + n.inner_here.runs + n.inner_there.runs;
     }
