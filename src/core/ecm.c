@@ -968,6 +968,45 @@ static double vertex(double x0, double f0, double x1, double f1, double x2, doub
     return v > x0 && v < x2 ? v : x1;
 }
 
+/* The residual variance's degrees of freedom for Newton's tolerance: the
+ * rows in use less the windows' own parameters and R0, R1, tau. */
+static double search_dof(size_t n_used, size_t window_params)
+{
+    return (double)n_used - (double)window_params - 3.0;
+}
+
+enum newton { NEWTON_ON, NEWTON_DONE, NEWTON_STUCK, NEWTON_FAILED };
+
+/* One step of Newton's method on the profile at u from its plain RSS at
+ * u - TAU_H, u, u + TAU_H (p): the slope and curvature (*d2) by central
+ * differences, the bracket [*lo, *hi] narrowed by the slope's sign.
+ * NEWTON_DONE when the step is under TAU_TOL_SE standard errors (dof: the
+ * residual variance's) or TAU_TOL_MIN; NEWTON_STUCK when the bracket is
+ * narrower than TAU_TOL_MIN; NEWTON_FAILED when a fit failed (p HUGE_VAL);
+ * else NEWTON_ON with the next point in *u (a bisection where the step
+ * would leave the bracket). */
+static enum newton newton_step(const double p[3], double dof, double *u, double *lo, double *hi,
+                               double *d2)
+{
+    if (!(p[0] < HUGE_VAL && p[1] < HUGE_VAL && p[2] < HUGE_VAL))
+        return NEWTON_FAILED;
+    double d1 = (p[2] - p[0]) / (2.0 * TAU_H);
+    *d2 = (p[2] - 2.0 * p[1] + p[0]) / (TAU_H * TAU_H);
+    if (d1 > 0.0)
+        *hi = *u;
+    else
+        *lo = *u;
+    double step = *d2 > 0.0 ? -d1 / *d2 : NAN;
+    double se = *d2 > 0.0 ? sqrt(2.0 * p[1] / dof / *d2) : NAN;
+    if (fabs(step) <= fmax(TAU_TOL_SE * se, TAU_TOL_MIN))
+        return NEWTON_DONE;
+    if (!(*hi - *lo > TAU_TOL_MIN))
+        return NEWTON_STUCK;
+    double next = *u + step;
+    *u = next > *lo && next < *hi ? next : 0.5 * (*lo + *hi);
+    return NEWTON_ON;
+}
+
 /* The grid's best point (f: the plain RSS at g, ln tau): its neighbours the
  * bracket in *lo, *hi, the vertex of the three the start in *u; 0 when a
  * fit failed or the best point is at a grid end (tau not resolved). */
@@ -1020,27 +1059,15 @@ static int scout_search(struct tau_grid *gr, double *const bufs[2], double *lo, 
         return SCOUT_NONE;
     if (!(best < SCOUT_BRANCH * rss_static) || !grid_point(gr->g, f, lo, hi, u))
         return SCOUT_UNSURE;
-    double dof = (double)n_used - (double)params - 3.0, l = *lo, h = *hi;
+    double dof = search_dof(n_used, params), l = *lo, h = *hi, d2;
     if (!(dof >= 1.0))
         return SCOUT_UNSURE;
-    for (int steps = 1; steps <= SCOUT_STEPS_MAX; steps++) {
+    enum newton state = NEWTON_ON;
+    for (int steps = 1; steps <= SCOUT_STEPS_MAX && state == NEWTON_ON; steps++) {
         double taus[3] = {exp(*u - TAU_H), exp(*u), exp(*u + TAU_H)}, p[3];
         scout_walk(c, &sc, taus, 3, bufs, p, &rss_static, &n_used);
         gr->work += rows;
-        if (!(p[0] < HUGE_VAL && p[1] < HUGE_VAL && p[2] < HUGE_VAL))
-            break;
-        double d1 = (p[2] - p[0]) / (2.0 * TAU_H);
-        double d2 = (p[2] - 2.0 * p[1] + p[0]) / (TAU_H * TAU_H);
-        if (d1 > 0.0)
-            h = *u;
-        else
-            l = *u;
-        double step = d2 > 0.0 ? -d1 / d2 : NAN;
-        double se = d2 > 0.0 ? sqrt(2.0 * p[1] / dof / d2) : NAN;
-        if (fabs(step) <= fmax(TAU_TOL_SE * se, TAU_TOL_MIN) || !(h - l > TAU_TOL_MIN))
-            break;
-        double next = *u + step;
-        *u = next > l && next < h ? next : 0.5 * (l + h);
+        state = newton_step(p, dof, u, &l, &h, &d2);
     }
     return SCOUT_FOUND;
 }
@@ -1053,13 +1080,12 @@ static int newton_search(struct tau_grid *gr, double *const bufs[2], struct tau_
                          int have_fs, double lo, double hi, double u)
 {
     struct ctx *c = &gr->c;
-    /* the residual variance's degrees of freedom, for the tolerance */
-    double dof = have_fs ? (double)fs->n_used - (double)window_params(c) - 3.0 : NAN;
+    double dof = have_fs ? search_dof(fs->n_used, window_params(c)) : NAN;
     if (have_fs && !(dof >= 1.0))
         return 0;
     lag_rows_clear(c); /* each walk keeps the lag of its middle tau */
-    int converged = 0;
-    for (int steps = 1; steps <= TAU_STEPS_MAX && !converged; steps++) {
+    enum newton state = NEWTON_ON;
+    for (int steps = 1; steps <= TAU_STEPS_MAX && state == NEWTON_ON; steps++) {
         double taus[3] = {exp(u - TAU_H), exp(u), exp(u + TAU_H)}, p[3];
         rss_walk(c, taus, 3, bufs, gr->lines_mem, 1, c->lr, p, fs, have_fs);
         gr->work += c->s->n;
@@ -1067,32 +1093,20 @@ static int newton_search(struct tau_grid *gr, double *const bufs[2], struct tau_
             have_fs = 1;
             gr->free_sums = *fs;
             gr->free_ok = 1;
-            dof = (double)fs->n_used - (double)window_params(c) - 3.0;
+            dof = search_dof(fs->n_used, window_params(c));
             if (!(dof >= 1.0))
                 break;
         }
-        if (!(p[0] < HUGE_VAL && p[1] < HUGE_VAL && p[2] < HUGE_VAL))
-            break; /* a fit failed near tau: not resolved, as on the grid */
-        double d1 = (p[2] - p[0]) / (2.0 * TAU_H);
-        double d2 = (p[2] - 2.0 * p[1] + p[0]) / (TAU_H * TAU_H);
-        gr->tau = taus[1];
-        gr->tau_rss = p[1];
-        gr->tau_d2 = d2;
-        if (d1 > 0.0)
-            hi = u;
-        else
-            lo = u;
-        double step = d2 > 0.0 ? -d1 / d2 : NAN;
-        double se = d2 > 0.0 ? sqrt(2.0 * p[1] / dof / d2) : NAN;
-        converged = fabs(step) <= fmax(TAU_TOL_SE * se, TAU_TOL_MIN);
-        double next = u + step;
-        if (!(next > lo && next < hi))
-            next = 0.5 * (lo + hi);
-        if (!(hi - lo > TAU_TOL_MIN))
-            break;
-        u = next;
+        double d2;
+        /* a fit failed near tau: not resolved, as on the grid */
+        state = newton_step(p, dof, &u, &lo, &hi, &d2);
+        if (state != NEWTON_FAILED) {
+            gr->tau = taus[1];
+            gr->tau_rss = p[1];
+            gr->tau_d2 = d2;
+        }
     }
-    if (!converged) { /* no minimum found to the tolerance: not resolved */
+    if (state != NEWTON_DONE) { /* no minimum found to the tolerance: not resolved */
         gr->tau = NAN;
         return 0;
     }
@@ -1137,7 +1151,6 @@ static void tau_run(void *vg)
     gr->work += c->s->n;
     if (grid_point(gr->g, gr->f, &lo, &hi, &u))
         newton_search(gr, bufs, &fs, 1, lo, hi, u);
-    return;
 }
 
 /* Starts the search (in a thread when one can run beside this one); ok is
