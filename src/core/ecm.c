@@ -512,6 +512,59 @@ struct tau_free_sums {
     size_t n_used;
 };
 
+/* What a walk (or a part of one) sums: per time constant, those of the RC
+ * column with the current's, with itself and with the voltage; and the
+ * tau-free ones. */
+struct walk_sums {
+    double a01[TAU_WALK_MAX], a11[TAU_WALK_MAX], b1[TAU_WALK_MAX];
+    struct tau_free_sums free_sums;
+};
+
+/* into += from (nt time constants; the tau-free sums too when free_too). */
+static void walk_sums_add(struct walk_sums *into, const struct walk_sums *from, int nt,
+                          int free_too)
+{
+    for (int j = 0; j < nt; j++) {
+        into->a01[j] += from->a01[j];
+        into->a11[j] += from->a11[j];
+        into->b1[j] += from->b1[j];
+    }
+    if (free_too) {
+        into->free_sums.a00 += from->free_sums.a00;
+        into->free_sums.b0 += from->free_sums.b0;
+        into->free_sums.yy += from->free_sums.yy;
+        into->free_sums.n_used += from->free_sums.n_used;
+    }
+}
+
+/* The static model's plain residual sum of squares from the tau-free sums;
+ * HUGE_VAL where the fit fails. */
+static double free_rss(const struct tau_free_sums *fs)
+{
+    struct fit_sums sm = {.yy = fs->yy, .n_used = fs->n_used};
+    sm.a[0][0] = fs->a00;
+    sm.b[0] = fs->b0;
+    struct fit_result f;
+    return fit_solve_sums(&sm, 1, &f, NULL) == PB_OK ? f.rss : HUGE_VAL;
+}
+
+/* The RC model's plain residual sum of squares at each of nt time
+ * constants from a walk's sums; HUGE_VAL where a fit fails. */
+static void walk_rss(const struct walk_sums *ws, int nt, double *rss)
+{
+    const struct tau_free_sums *fs = &ws->free_sums;
+    for (int j = 0; j < nt; j++) {
+        struct fit_sums sm = {.yy = fs->yy, .n_used = fs->n_used};
+        sm.a[0][0] = fs->a00;
+        sm.a[0][1] = ws->a01[j];
+        sm.a[1][1] = ws->a11[j];
+        sm.b[0] = fs->b0;
+        sm.b[1] = ws->b1[j];
+        struct fit_result f;
+        rss[j] = fit_solve_sums(&sm, 2, &f, NULL) == PB_OK ? f.rss : HUGE_VAL;
+    }
+}
+
 /* One part of a walk over the log for nt time constants (nt <= TAU_WALK_MAX):
  * the windows [w0, w1) in use, their sums of the RC model's normal
  * equations. The lag of each tau starts where part_lag_start says and runs
@@ -529,8 +582,7 @@ struct walk_part {
     size_t w0, w1;
     struct ecm_lag_rows *lr; /* not NULL: the lag of tau_s[keep] kept at the sampled rows */
     int want_free;
-    double a01[TAU_WALK_MAX], a11[TAU_WALK_MAX], b1[TAU_WALK_MAX];
-    struct tau_free_sums free_sums;
+    struct walk_sums sums;
 };
 
 /* Two doubles operated on together (GCC's vector extension: an SSE2
@@ -724,11 +776,11 @@ static inline __attribute__((always_inline)) void walk_windows(struct walk_part 
         n_used += len;
     }
     for (int j = 0; j < nt; j++) {
-        wp->a01[j] = a01[j / 2][j % 2];
-        wp->a11[j] = a11[j / 2][j % 2];
-        wp->b1[j] = b1[j / 2][j % 2];
+        wp->sums.a01[j] = a01[j / 2][j % 2];
+        wp->sums.a11[j] = a11[j / 2][j % 2];
+        wp->sums.b1[j] = b1[j / 2][j % 2];
     }
-    wp->free_sums = (struct tau_free_sums){a00, b0, yy, n_used};
+    wp->sums.free_sums = (struct tau_free_sums){a00, b0, yy, n_used};
 }
 
 static void walk_grid(void *wp)
@@ -775,25 +827,12 @@ static void rss_walk(const struct ctx *c, const double *tau_s, int nt, double *c
         twin_run(walk, &a, walk, &b);
     else
         walk(&a);
-    if (have_fs) {
-        a.free_sums = *fs;
-    } else {
-        a.free_sums.a00 += b.free_sums.a00;
-        a.free_sums.b0 += b.free_sums.b0;
-        a.free_sums.yy += b.free_sums.yy;
-        a.free_sums.n_used += b.free_sums.n_used;
-        *fs = a.free_sums;
-    }
-    for (int j = 0; j < nt; j++) {
-        struct fit_sums sm = {.yy = a.free_sums.yy, .n_used = a.free_sums.n_used};
-        sm.a[0][0] = a.free_sums.a00;
-        sm.a[0][1] = a.a01[j] + b.a01[j];
-        sm.a[1][1] = a.a11[j] + b.a11[j];
-        sm.b[0] = a.free_sums.b0;
-        sm.b[1] = a.b1[j] + b.b1[j];
-        struct fit_result f;
-        rss[j] = fit_solve_sums(&sm, 2, &f, NULL) == PB_OK ? f.rss : HUGE_VAL;
-    }
+    walk_sums_add(&a.sums, &b.sums, nt, !have_fs);
+    if (have_fs)
+        a.sums.free_sums = *fs;
+    else
+        *fs = a.sums.free_sums;
+    walk_rss(&a.sums, nt, rss);
 }
 
 /* The scout of a long log's tau search: SCOUT_PARTS runs of windows spread
@@ -852,17 +891,13 @@ struct scout_half {
     struct walk_part part;
     const struct scout *sc;
     int i0, i1, nt;
-    double a01[TAU_WALK_MAX], a11[TAU_WALK_MAX], b1[TAU_WALK_MAX];
-    struct tau_free_sums free_sums;
+    struct walk_sums sums;
 };
 
 static void scout_half_run(void *vh)
 {
     struct scout_half *h = vh;
-    memset(h->a01, 0, sizeof h->a01);
-    memset(h->a11, 0, sizeof h->a11);
-    memset(h->b1, 0, sizeof h->b1);
-    h->free_sums = (struct tau_free_sums){0};
+    memset(&h->sums, 0, sizeof h->sums);
     for (int i = h->i0; i < h->i1; i++) {
         h->part.w0 = h->sc->w0[i];
         h->part.w1 = h->sc->w1[i];
@@ -870,15 +905,7 @@ static void scout_half_run(void *vh)
             walk_three(&h->part);
         else
             walk_grid(&h->part);
-        for (int j = 0; j < h->nt; j++) {
-            h->a01[j] += h->part.a01[j];
-            h->a11[j] += h->part.a11[j];
-            h->b1[j] += h->part.b1[j];
-        }
-        h->free_sums.a00 += h->part.free_sums.a00;
-        h->free_sums.b0 += h->part.free_sums.b0;
-        h->free_sums.yy += h->part.free_sums.yy;
-        h->free_sums.n_used += h->part.free_sums.n_used;
+        walk_sums_add(&h->sums, &h->part.sums, h->nt, 1);
     }
 }
 
@@ -899,19 +926,10 @@ static void scout_walk(const struct ctx *c, const struct scout *sc, const double
     b.i0 = SCOUT_PARTS / 2;
     b.i1 = SCOUT_PARTS;
     twin_run(scout_half_run, &a, scout_half_run, &b);
-    struct fit_sums sm = {.yy = a.free_sums.yy + b.free_sums.yy,
-                          .n_used = a.free_sums.n_used + b.free_sums.n_used};
-    sm.a[0][0] = a.free_sums.a00 + b.free_sums.a00;
-    sm.b[0] = a.free_sums.b0 + b.free_sums.b0;
-    struct fit_result f;
-    *rss_static = fit_solve_sums(&sm, 1, &f, NULL) == PB_OK ? f.rss : HUGE_VAL;
-    *n_used = sm.n_used;
-    for (int j = 0; j < nt; j++) {
-        sm.a[0][1] = a.a01[j] + b.a01[j];
-        sm.a[1][1] = a.a11[j] + b.a11[j];
-        sm.b[1] = a.b1[j] + b.b1[j];
-        rss[j] = fit_solve_sums(&sm, 2, &f, NULL) == PB_OK ? f.rss : HUGE_VAL;
-    }
+    walk_sums_add(&a.sums, &b.sums, nt, 1);
+    *rss_static = free_rss(&a.sums.free_sums);
+    *n_used = a.sums.free_sums.n_used;
+    walk_rss(&a.sums, nt, rss);
 }
 
 /* The search for tau: the plain RSS on a grid of time constants from lo_s
@@ -1211,13 +1229,8 @@ static double search_tau(struct tau_grid *gr, size_t *work)
  * sample's scaled to every row). */
 static double static_rss_plain(const struct tau_grid *gr, const struct fit_result *fs)
 {
-    if (!gr->free_ok)
-        return fs->rss_plain;
-    struct fit_sums sm = {.yy = gr->free_sums.yy, .n_used = gr->free_sums.n_used};
-    sm.a[0][0] = gr->free_sums.a00;
-    sm.b[0] = gr->free_sums.b0;
-    struct fit_result pf;
-    return fit_solve_sums(&sm, 1, &pf, NULL) == PB_OK ? pf.rss_plain : fs->rss_plain;
+    double rss = gr->free_ok ? free_rss(&gr->free_sums) : HUGE_VAL;
+    return rss < HUGE_VAL ? rss : fs->rss_plain;
 }
 
 /* tau's 95 % half-width from the profile's curvature at the search's
