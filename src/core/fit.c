@@ -998,22 +998,9 @@ enum pb_code fit_solve_sums(const struct fit_sums *sums, int p, struct fit_resul
         return pb_error_set(err, PB_ENUMERIC, "fit: %zu rows for %d unknowns", ne.n_used, p);
     if (solve(&ne, p, beta, inv, &rank) != 0)
         return pb_error_set(err, PB_ENUMERIC, "fit: eigensolver failed");
-    double rss = ne.yy;
-    for (int j = 0; j < p; j++)
-        rss -= beta[j] * ne.b[j];
-    rss = fmax(rss, 0.0);
-    double dof = ne.wsum - rank;
     out->p = p;
-    out->rank = rank;
-    out->rss = out->rss_plain = rss;
-    out->dof = dof;
-    out->n_used = ne.n_used;
-    out->sigma = dof > 0 ? sqrt(rss / dof) : 0.0;
-    for (int i = 0; i < p; i++) {
-        out->beta[i] = beta[i];
-        for (int j = 0; j < p; j++)
-            out->cov[i][j] = out->sigma * out->sigma * inv[i][j];
-    }
+    fill_result(&ne, p, beta, inv, rank, out);
+    out->rss_plain = out->rss;
     return PB_OK;
 }
 
