@@ -439,10 +439,12 @@ static size_t base_lines(struct ctx *c, double sigma_i, double cutoff_v)
     return informative;
 }
 
-static size_t window_params(const struct ctx *c)
+/* The windows' own parameters (a line in q, or a level where the charge
+ * does not move) over the windows in use among [w0, w1). */
+static size_t window_params(const struct ctx *c, size_t w0, size_t w1)
 {
     size_t k = 0;
-    for (size_t j = 0; j < c->nw; j++)
+    for (size_t j = w0; j < w1; j++)
         if (c->w[j].use)
             k += c->w[j].sqq > 0.0 ? 2 : 1;
     return k;
@@ -486,7 +488,7 @@ static enum pb_code fit_at(struct ctx *c, int p, double tau_s, int robust, size_
  * fit's pass made (lag1; NAN when it made none, and then no widening). */
 static double honest_cov(const struct ctx *c, const struct fit_lag1 *lag1, struct fit_result *f)
 {
-    double dof = f->dof - (double)window_params(c);
+    double dof = f->dof - (double)window_params(c, 0, c->nw);
     if (dof < 1.0) {
         f->dof = 0.0;
         return NAN;
@@ -1059,15 +1061,11 @@ static int scout_search(struct tau_grid *gr, double *const bufs[2], double *lo, 
     if (!scout_parts(c, &sc))
         return SCOUT_UNSURE;
     double f[TAU_GRID], rss_static;
-    size_t n_used, rows = 0, params = 0;
+    size_t n_used, params = 0; /* n_used: the rows of the scout's windows in use */
     for (int i = 0; i < SCOUT_PARTS; i++)
-        for (size_t j = sc.w0[i]; j < sc.w1[i]; j++)
-            if (c->w[j].use) {
-                rows += c->w[j].k1 - c->w[j].k0;
-                params += c->w[j].sqq > 0.0 ? 2 : 1;
-            }
+        params += window_params(c, sc.w0[i], sc.w1[i]);
     scout_walk(c, &sc, gr->taus, TAU_GRID, bufs, f, &rss_static, &n_used);
-    gr->work += rows;
+    gr->work += n_used;
     double best = HUGE_VAL;
     for (int j = 0; j < TAU_GRID; j++)
         best = f[j] < best ? f[j] : best;
@@ -1084,7 +1082,7 @@ static int scout_search(struct tau_grid *gr, double *const bufs[2], double *lo, 
     for (int steps = 1; steps <= SCOUT_STEPS_MAX && state == NEWTON_ON; steps++) {
         double taus[3] = {exp(*u - TAU_H), exp(*u), exp(*u + TAU_H)}, p[3];
         scout_walk(c, &sc, taus, 3, bufs, p, &rss_static, &n_used);
-        gr->work += rows;
+        gr->work += n_used;
         state = newton_step(p, dof, u, &l, &h, &d2);
     }
     return SCOUT_FOUND;
@@ -1098,7 +1096,7 @@ static int newton_search(struct tau_grid *gr, double *const bufs[2], struct tau_
                          int have_fs, double lo, double hi, double u)
 {
     struct ctx *c = &gr->c;
-    double dof = have_fs ? search_dof(fs->n_used, window_params(c)) : NAN;
+    double dof = have_fs ? search_dof(fs->n_used, window_params(c, 0, c->nw)) : NAN;
     if (have_fs && !(dof >= 1.0))
         return 0;
     lag_rows_clear(c); /* each walk keeps the lag of its middle tau */
@@ -1111,7 +1109,7 @@ static int newton_search(struct tau_grid *gr, double *const bufs[2], struct tau_
             have_fs = 1;
             gr->free_sums = *fs;
             gr->free_ok = 1;
-            dof = search_dof(fs->n_used, window_params(c));
+            dof = search_dof(fs->n_used, window_params(c, 0, c->nw));
             if (!(dof >= 1.0))
                 break;
         }
@@ -1371,7 +1369,7 @@ enum pb_code ecm_end(struct ecm_run *run, struct ecm_result *res)
             double rho_rc = honest_cov(&c, &lag1, &fr);
             double r0 = 1000.0 * fr.beta[0], r1 = 1000.0 * fr.beta[1];
             double r1_ci = 1000.0 * fit_ci95(&fr, 1);
-            double n_eff = (double)fs.n_used - (double)window_params(&c);
+            double n_eff = (double)fs.n_used - (double)window_params(&c, 0, c.nw);
             /* the branch must be physical (R0 > 0, R1 >= 0), explain real
              * residual, beat the static model by the information criterion
              * (paying for R1 and tau) and be significant; a fixed tau (the
