@@ -199,13 +199,14 @@ static void rows_as_block(void *vsrc, size_t k0, size_t m, int p, double *x, dou
         use[j] = (unsigned char)src->row(src->row_ctx, k0 + j, x + j * (size_t)p, &y[j]);
 }
 
-/* The sums of one block of rows, for a p known at compile time where it is
- * inlined (the kernels below): no call, no division per row, the sums in
+/* The sums of one block of rows over their first p columns (rows of
+ * stride columns each), for a p known at compile time where it is inlined
+ * (the kernels below): no call, no division per row, the sums in
  * registers. */
 static inline __attribute__((always_inline)) void
-block_sums(const int p, size_t m, const double *restrict x, const double *restrict y,
-           const unsigned char *restrict use, const double *beta, double scale,
-           struct scale_sample *ss, size_t *ss_left, struct normal_eq *ne)
+block_sums(const int p, const int stride, size_t m, const double *restrict x,
+           const double *restrict y, const unsigned char *restrict use, const double *beta,
+           double scale, struct scale_sample *ss, size_t *ss_left, struct normal_eq *ne)
 {
     if (p < 1 || p > FIT_MAX_P)
         __builtin_unreachable(); /* fit_core checked it; lets the unrolled loops end */
@@ -230,7 +231,7 @@ block_sums(const int p, size_t m, const double *restrict x, const double *restri
             left = ss->m;
         if (!u)
             continue;
-        const double *xr = x + r * (size_t)p;
+        const double *xr = x + r * (size_t)stride;
         double yr = y[r];
         double w = 1.0;
         if (!beta && take) {
@@ -284,40 +285,61 @@ block_sums(const int p, size_t m, const double *restrict x, const double *restri
         *ss_left = left;
 }
 
-/* block_sums with p made a constant where it is common. */
-static void sums_of(int p, size_t m, const double *x, const double *y, const unsigned char *use,
-                    const double *beta, double scale, struct scale_sample *ss, size_t *ss_left,
-                    struct normal_eq *ne)
+/* block_sums with p (and the rows' stride) made constants where they are
+ * common: rows of p columns, or one column of rows of two (a shared pass,
+ * fit_part_share). */
+static void sums_of(int p, int stride, size_t m, const double *x, const double *y,
+                    const unsigned char *use, const double *beta, double scale,
+                    struct scale_sample *ss, size_t *ss_left, struct normal_eq *ne)
 {
+    if (p == 1 && stride == 2) {
+        block_sums(1, 2, m, x, y, use, beta, scale, ss, ss_left, ne);
+        return;
+    }
+    if (p != stride) {
+        block_sums(p, stride, m, x, y, use, beta, scale, ss, ss_left, ne);
+        return;
+    }
     switch (p) {
     case 1:
-        block_sums(1, m, x, y, use, beta, scale, ss, ss_left, ne);
+        block_sums(1, 1, m, x, y, use, beta, scale, ss, ss_left, ne);
         break;
     case 2:
-        block_sums(2, m, x, y, use, beta, scale, ss, ss_left, ne);
+        block_sums(2, 2, m, x, y, use, beta, scale, ss, ss_left, ne);
         break;
     case 4:
-        block_sums(4, m, x, y, use, beta, scale, ss, ss_left, ne);
+        block_sums(4, 4, m, x, y, use, beta, scale, ss, ss_left, ne);
         break;
     default:
-        block_sums(p, m, x, y, use, beta, scale, ss, ss_left, ne);
+        block_sums(p, p, m, x, y, use, beta, scale, ss, ss_left, ne);
         break;
     }
 }
 
-/* One piece of a pass: rows [k0, k1) made with ctx (the source's own, or
- * a copy of it for the second half of a cut pass). */
+/* One fit's sums in a pass: over the first p columns of the rows made (all
+ * of them, or the first of a wider fit's rows in a shared pass). */
+struct pass_sums {
+    int p;
+    const double *beta; /* NULL: the plain sums */
+    double scale;
+    struct scale_sample *ss; /* NULL: no sample */
+    size_t ss_left;          /* rows to the next sampled one, counting it */
+    struct normal_eq ne;
+};
+
+#define PASS_FITS 2 /* fits summed in one pass at most (fit_part_share) */
+
+/* One piece of a pass: rows [k0, k1) of p columns made with ctx (the
+ * source's own, or a copy of it for the second half of a cut pass), summed
+ * for nfit fits. */
 struct half {
     const struct source *src;
     void *ctx;
     size_t k0, k1;
     int p;
-    const double *beta;
-    double scale;
-    struct scale_sample *ss; /* NULL: no sample */
-    size_t ss_left;          /* rows to the next sampled one, counting it */
-    struct lag_acc *lag;     /* NULL: no lag-1 moments */
-    struct normal_eq ne;
+    int nfit;
+    struct pass_sums fit[PASS_FITS];
+    struct lag_acc *lag; /* NULL: no lag-1 moments */
 };
 
 static void half_pass(void *vh)
@@ -325,11 +347,15 @@ static void half_pass(void *vh)
     struct half *h = vh;
     double x[FIT_BLOCK * FIT_MAX_P], y[FIT_BLOCK];
     unsigned char use[FIT_BLOCK];
-    memset(&h->ne, 0, sizeof h->ne);
+    for (int f = 0; f < h->nfit; f++)
+        memset(&h->fit[f].ne, 0, sizeof h->fit[f].ne);
     for (size_t k0 = h->k0; k0 < h->k1; k0 += FIT_BLOCK) {
         size_t m = h->k1 - k0 < FIT_BLOCK ? h->k1 - k0 : FIT_BLOCK;
         h->src->block(h->ctx, k0, m, h->p, x, y, use);
-        sums_of(h->p, m, x, y, use, h->beta, h->scale, h->ss, &h->ss_left, &h->ne);
+        for (int f = 0; f < h->nfit; f++) {
+            struct pass_sums *ps = &h->fit[f];
+            sums_of(ps->p, h->p, m, x, y, use, ps->beta, ps->scale, ps->ss, &ps->ss_left, &ps->ne);
+        }
         if (h->lag)
             lag_of(h->p, m, x, y, use, h->lag);
     }
@@ -366,20 +392,23 @@ static void close_up_rows(struct scale_sample *ss, int p, size_t to, size_t from
     memmove(ss->u + to, ss->u + from, nk);
 }
 
-/* One pass over the rows: sums the normal equations, weighted by Tukey's
- * bisquare at the given scale when beta is not NULL; keeps a sample of the
+/* One pass over the rows of p columns, summed for nfit fits (each over its
+ * first fits[f].p columns): the normal equations, weighted by Tukey's
+ * bisquare at the fit's scale when its beta is not NULL; a sample of the
  * |residuals| at beta (or, without beta, the rows themselves) for the next
- * scale when ss is not NULL. A long pass of a source that may be copied is
- * cut in two (twin.h), the second half run on a copy, beside the first
+ * scale when its ss is not NULL. A long pass of a source that may be copied
+ * is cut in two (twin.h), the second half run on a copy, beside the first
  * when a core is free; its sample is put after the first's, so the sample
  * is the one a whole pass takes. */
-static void run_pass(size_t n, int p, const struct source *src, const double *beta, double scale,
-                     struct scale_sample *ss, struct normal_eq *ne)
+static void run_passes(size_t n, int p, const struct source *src, int nfit, struct pass_sums *fits)
 {
-    if (ss && beta)
-        ss->n = 0;
-    if (ss && !beta)
-        ss->nk = 0;
+    for (int f = 0; f < nfit; f++) {
+        struct scale_sample *ss = fits[f].ss;
+        if (ss && fits[f].beta)
+            ss->n = 0;
+        if (ss && !fits[f].beta)
+            ss->nk = 0;
+    }
     size_t h = src->copy ? twin_split(n) : 0;
     /* the lag-1 moments on the first pass over every row */
     struct lag_acc lag_room[2], *lag = NULL;
@@ -387,18 +416,16 @@ static void run_pass(size_t n, int p, const struct source *src, const double *be
         memset(lag_room, 0, sizeof lag_room);
         lag = lag_room;
     }
-    struct half a = {.src = src,
-                     .ctx = src->ctx,
-                     .k1 = h ? h : n,
-                     .p = p,
-                     .beta = beta,
-                     .scale = scale,
-                     .ss = ss,
-                     .ss_left = 1,
-                     .lag = lag};
+    struct half a = {
+        .src = src, .ctx = src->ctx, .k1 = h ? h : n, .p = p, .nfit = nfit, .lag = lag};
+    for (int f = 0; f < nfit; f++) {
+        a.fit[f] = fits[f];
+        a.fit[f].ss_left = 1;
+    }
     if (h == 0) {
         half_pass(&a);
-        *ne = a.ne;
+        for (int f = 0; f < nfit; f++)
+            fits[f].ne = a.fit[f].ne;
         if (lag) {
             *src->lag1 = lag[0].m;
             src->lag1->have = 1;
@@ -406,49 +433,60 @@ static void run_pass(size_t n, int p, const struct source *src, const double *be
         return;
     }
     memcpy(src->copy, src->ctx, src->ctx_size);
-    struct half b = {.src = src,
-                     .ctx = src->copy,
-                     .k0 = h,
-                     .k1 = n,
-                     .p = p,
-                     .beta = beta,
-                     .scale = scale,
-                     .ss_left = 1,
-                     .lag = lag ? lag + 1 : NULL};
-    struct scale_sample sa, sb;
-    size_t marks = 0; /* sampled indices below h: the first half's room */
-    if (ss) {
-        marks = marks_below(h, ss->m, ss->cap);
-        sa = *ss;
-        sa.cap = marks;
-        sb = *ss;
-        sb.cap = ss->cap - marks;
-        sb.n = sb.nk = 0;
-        if (beta) {
-            sb.r = ss->r + marks;
+    struct half b = a;
+    b.ctx = src->copy;
+    b.k0 = h;
+    b.k1 = n;
+    b.lag = lag ? lag + 1 : NULL;
+    struct scale_sample sa[PASS_FITS], sb[PASS_FITS];
+    size_t marks[PASS_FITS] = {0}; /* sampled indices below h: the first half's room */
+    for (int f = 0; f < nfit; f++) {
+        struct scale_sample *ss = fits[f].ss;
+        if (!ss)
+            continue;
+        marks[f] = marks_below(h, ss->m, ss->cap);
+        sa[f] = *ss;
+        sa[f].cap = marks[f];
+        sb[f] = *ss;
+        sb[f].cap = ss->cap - marks[f];
+        sb[f].n = sb[f].nk = 0;
+        if (fits[f].beta) {
+            sb[f].r = ss->r + marks[f];
         } else {
-            sb.x = ss->x + marks * (size_t)p;
-            sb.y = ss->y + marks;
-            sb.u = ss->u + marks;
+            sb[f].x = ss->x + marks[f] * (size_t)fits[f].p;
+            sb[f].y = ss->y + marks[f];
+            sb[f].u = ss->u + marks[f];
         }
-        a.ss = &sa;
-        b.ss = &sb;
-        b.ss_left = marks * ss->m - h + 1; /* the first multiple of m at or after h */
+        a.fit[f].ss = &sa[f];
+        b.fit[f].ss = &sb[f];
+        b.fit[f].ss_left = marks[f] * ss->m - h + 1; /* the first multiple of m at or after h */
     }
     twin_run(half_pass, &a, half_pass, &b);
-    *ne = a.ne;
-    add_sums(ne, &b.ne, p);
+    for (int f = 0; f < nfit; f++) {
+        struct scale_sample *ss = fits[f].ss;
+        fits[f].ne = a.fit[f].ne;
+        add_sums(&fits[f].ne, &b.fit[f].ne, fits[f].p);
+        if (ss && fits[f].beta) {
+            memmove(ss->r + sa[f].n, sb[f].r, sb[f].n * sizeof *sb[f].r);
+            ss->n = sa[f].n + sb[f].n;
+        } else if (ss) {
+            close_up_rows(ss, fits[f].p, sa[f].nk, marks[f], sb[f].nk);
+            ss->nk = sa[f].nk + sb[f].nk;
+        }
+    }
     if (lag) {
         lag_join(p, src->lag1, &lag[0], &lag[1]);
         src->lag1->have = 1;
     }
-    if (ss && beta) {
-        memmove(ss->r + sa.n, sb.r, sb.n * sizeof *sb.r);
-        ss->n = sa.n + sb.n;
-    } else if (ss) {
-        close_up_rows(ss, p, sa.nk, marks, sb.nk);
-        ss->nk = sa.nk + sb.nk;
-    }
+}
+
+/* run_passes for one fit. */
+static void run_pass(size_t n, int p, const struct source *src, const double *beta, double scale,
+                     struct scale_sample *ss, struct normal_eq *ne)
+{
+    struct pass_sums f = {.p = p, .beta = beta, .scale = scale, .ss = ss};
+    run_passes(n, p, src, 1, &f);
+    *ne = f.ne;
 }
 
 /* run_pass over the rows the plain pass kept (ss->x, ss->y, ss->u) alone:
@@ -460,7 +498,7 @@ static void kept_pass(int p, struct scale_sample *ss, const double *beta, double
     struct scale_sample every = {.r = ss->r, .m = 1, .cap = SCALE_SAMPLES};
     size_t left = 1;
     memset(ne, 0, sizeof *ne);
-    sums_of(p, ss->nk, ss->x, ss->y, ss->u, beta, scale, &every, &left, ne);
+    sums_of(p, p, ss->nk, ss->x, ss->y, ss->u, beta, scale, &every, &left, ne);
     ss->n = every.n;
 }
 
@@ -534,7 +572,7 @@ static size_t sample_rows(size_t n, int p, const struct source *src, struct scal
     ss->nk = a.nk;
     size_t left = 1;
     memset(ne, 0, sizeof *ne);
-    sums_of(p, ss->nk, ss->x, ss->y, ss->u, NULL, 0.0, NULL, &left, ne);
+    sums_of(p, p, ss->nk, ss->x, ss->y, ss->u, NULL, 0.0, NULL, &left, ne);
     return a.asked;
 }
 
@@ -706,226 +744,357 @@ static void fill_result(const struct normal_eq *ne, int p, const double *beta,
     }
 }
 
-static enum pb_code fit_passes(size_t n, int p, const struct source *src, int robust,
-                               const struct fit_result *start, struct fit_result *out,
-                               struct pb_error *err)
-{
-    struct normal_eq ne = {0};
-
+/* A fit under way: what fit_core does, cut where its passes over every
+ * row begin (part_begin, then part_end), so that a fit over the same rows
+ * may make its first such pass with another's (fit_part_share). An error
+ * is kept in rc and err, and part_end returns it. */
+struct fit_part {
+    size_t n;
+    int p, robust;
+    struct source src; /* its copy room (src.copy) owned here */
+    const struct fit_result *start;
+    enum pb_code rc;
+    struct pb_error err;
+    struct normal_eq ne, keep; /* keep: the sums before the pass under way */
     double inv[FIT_MAX_P][FIT_MAX_P];
-    double beta[FIT_MAX_P] = {0};
-    int rank = 0;
-    struct scale_sample ss = {.m = fit_sample_every(n), .cap = SCALE_SAMPLES};
-    double scale = 0.0;
-    size_t visited = 0;
-    int sampled = 0; /* the plain fit is the kept rows' (sample_rows) */
+    double beta[FIT_MAX_P], prev[FIT_MAX_P];
+    int rank;
+    struct scale_sample ss;
+    double scale, limit;
+    size_t visited;
+    int sub, sample_fit, it, iters, left, ended;
+    struct fit_result out;
+};
 
-    memset(out, 0, sizeof *out);
-    if (p < 1 || p > FIT_MAX_P)
-        return pb_error_set(err, PB_ENUMERIC, "fit: %d columns is out of range", p);
-    out->p = p;
+static void free_sample(struct scale_sample *ss)
+{
+    free(ss->r);
+    free(ss->x);
+    free(ss->y);
+    free(ss->u);
+    ss->r = ss->x = ss->y = NULL;
+    ss->u = NULL;
+}
+
+/* The fit up to its passes over every row: the plain fit (of the even
+ * sample, or a pass), and for a long robust fit the reweighting on the
+ * kept rows. */
+static void part_begin(struct fit_part *fp, size_t n, int p, const struct source *src, int robust,
+                       const struct fit_result *start)
+{
+    memset(fp, 0, sizeof *fp);
+    fp->n = n;
+    fp->p = p;
+    fp->robust = robust;
+    fp->src = *src;
+    if (src->ctx == src) /* a row callback's adapter, whose context is its source */
+        fp->src.ctx = &fp->src;
+    fp->src.copy = NULL;
+    fp->start = start;
+    fp->ss = (struct scale_sample){.m = fit_sample_every(n), .cap = SCALE_SAMPLES};
+    fp->it = 1;
+    fp->left = 15;
+    fp->limit = 0.05; /* converged: no move beyond this many standard errors */
+    if (fp->src.ctx_size && n >= TWIN_MIN_ROWS && !(fp->src.copy = malloc(fp->src.ctx_size))) {
+        fp->rc = pb_error_set(&fp->err, PB_ENOMEM, "out of memory");
+        return;
+    }
+    if (p < 1 || p > FIT_MAX_P) {
+        fp->rc = pb_error_set(&fp->err, PB_ENUMERIC, "fit: %d columns is out of range", p);
+        return;
+    }
+    fp->out.p = p;
+    struct scale_sample *ss = &fp->ss;
+    struct normal_eq *ne = &fp->ne;
+    src = &fp->src;
+    int sampled = 0; /* the plain fit is the kept rows' (sample_rows) */
     if (start) {
-        memcpy(beta, start->beta, sizeof beta);
-        scale = start->scale;
+        memcpy(fp->beta, start->beta, sizeof fp->beta);
+        fp->scale = start->scale;
     } else {
         if (robust) {
-            ss.x = malloc(SCALE_SAMPLES * (size_t)p * sizeof *ss.x);
-            ss.y = malloc(SCALE_SAMPLES * sizeof *ss.y);
-            ss.u = malloc(SCALE_SAMPLES);
+            ss->x = malloc(SCALE_SAMPLES * (size_t)p * sizeof *ss->x);
+            ss->y = malloc(SCALE_SAMPLES * sizeof *ss->y);
+            ss->u = malloc(SCALE_SAMPLES);
         }
-        int keep_rows = ss.x && ss.y && ss.u;
+        int keep_rows = ss->x && ss->y && ss->u;
         size_t asked = 0;
         sampled = keep_rows && src->any_order && n >= SUBSAMPLE_RATIO * SCALE_SAMPLES;
         if (sampled) {
-            asked = sample_rows(n, p, src, &ss, &ne);
-            visited += asked;
+            asked = sample_rows(n, p, src, ss, ne);
+            fp->visited += asked;
         } else {
-            run_pass(n, p, src, NULL, 0.0, keep_rows ? &ss : NULL, &ne);
-            visited += n;
+            run_pass(n, p, src, NULL, 0.0, keep_rows ? ss : NULL, ne);
+            fp->visited += n;
         }
-        if (!keep_rows) {
-            free(ss.x);
-            free(ss.y);
-            free(ss.u);
-            ss.x = ss.y = NULL;
-            ss.u = NULL;
+        if (!keep_rows)
+            free_sample(ss);
+        if (ne->n_used <= (size_t)p || solve(ne, p, fp->beta, fp->inv, &fp->rank) != 0) {
+            free_sample(ss);
+            if (ne->n_used <= (size_t)p)
+                fp->rc = pb_error_set(&fp->err, PB_ENUMERIC, "fit: %zu rows for %d unknowns",
+                                      ne->n_used, p);
+            else
+                fp->rc = pb_error_set(&fp->err, PB_ENUMERIC, "fit: eigensolver failed");
+            return;
         }
-        if (ne.n_used <= (size_t)p || solve(&ne, p, beta, inv, &rank) != 0) {
-            free(ss.x);
-            free(ss.y);
-            free(ss.u);
-            if (ne.n_used <= (size_t)p)
-                return pb_error_set(err, PB_ENUMERIC, "fit: %zu rows for %d unknowns", ne.n_used,
-                                    p);
-            return pb_error_set(err, PB_ENUMERIC, "fit: eigensolver failed");
-        }
-        out->rss_plain = ne.yy;
+        fp->out.rss_plain = ne->yy;
         for (int j = 0; j < p; j++)
-            out->rss_plain -= beta[j] * ne.b[j];
-        out->rss_plain = fmax(out->rss_plain, 0.0);
+            fp->out.rss_plain -= fp->beta[j] * ne->b[j];
+        fp->out.rss_plain = fmax(fp->out.rss_plain, 0.0);
         if (sampled) /* the sample's, scaled to every row */
-            out->rss_plain *= (double)n / (double)asked;
+            fp->out.rss_plain *= (double)n / (double)asked;
     }
-    if (robust) {
-        ss.r = malloc(SCALE_SAMPLES * sizeof *ss.r);
-        if (!ss.r) {
-            free(ss.x);
-            free(ss.y);
-            free(ss.u);
-            return pb_error_set(err, PB_ENOMEM, "out of memory");
-        }
-        /* Many rows: the reweighting iterates on the rows the plain pass
-         * kept (an even sample of at most SCALE_SAMPLES), then one pass
-         * over every row weights them at the subsample's fit and scale.
-         * Full passes go on only when that pass moves a coefficient by
-         * more than the subsample's own sampling error allows. The scale
-         * is the same either way: a full pass samples its residuals at
-         * these very rows. */
-        int it = 1, iters = 0;
-        double limit = 0.05; /* converged: no move beyond this many standard errors */
-        int sub =
-            ss.x && ss.nk > (size_t)(4 * p) && (sampled || ne.n_used >= SUBSAMPLE_RATIO * ss.nk);
-        double rows = sampled ? (double)n : (double)ne.n_used;
-        int sample_fit = 0; /* the sample's fit stands (sample_only) */
-        if (sub) {
-            double y_rms = sqrt(ne.yy / (double)ne.n_used);
-            struct normal_eq sne;
-            int solved = 0; /* beta is the solution of sne */
-            for (; it <= 15; it++) {
-                double prev[FIT_MAX_P];
-                memcpy(prev, beta, sizeof prev);
-                kept_pass(p, &ss, beta, scale, &sne);
-                visited += ss.nk;
-                double next = MAD_TO_SIGMA * fit_median(ss.r, ss.n);
-                if (!(next > 1e-12 * y_rms))
-                    break; /* an exact fit: at the first pass, the plain fit stands */
-                if (scale > 0.0) {
-                    if (sne.n_used <= (size_t)p || sne.wsum <= p ||
-                        solve(&sne, p, beta, inv, &rank) != 0) {
-                        memcpy(beta, prev, sizeof prev);
-                        solved = 0;
-                        break;
-                    }
-                    iters++;
-                    solved = 1;
-                    if (change_in_se(p, beta, prev, inv, next) < 0.05) {
-                        scale = next;
-                        break;
-                    }
-                }
-                scale = next;
-            }
-            if (src->sample_only && sampled && solved && scale > 0.0) {
-                /* the sample's fit, as it would be returned, for the
-                 * caller to judge; a fit it does not take goes on to the
-                 * passes over every row (fit_blocks_any_order's) */
-                struct fit_result judged = *out;
-                fill_result(&sne, p, beta, inv, rank, &judged);
-                if (!src->stands || src->stands(src->stands_ctx, &judged)) {
-                    ne = sne;
-                    sample_fit = 1;
-                }
-            }
-            /* the subsample's standard errors are sqrt(n / kept) times the full data's */
-            limit = 3.0 * sqrt(rows / (double)ss.nk);
-            it = 2; /* the full passes below start weighted */
-            if (sampled && !(scale > 0.0)) {
-                /* an exact fit: the plain fit of every row after all */
-                run_pass(n, p, src, NULL, 0.0, NULL, &ne);
-                visited += n;
-                if (ne.n_used <= (size_t)p || solve(&ne, p, beta, inv, &rank) != 0) {
-                    free(ss.r);
-                    free(ss.x);
-                    free(ss.y);
-                    free(ss.u);
-                    return pb_error_set(err, PB_ENUMERIC, "fit: %zu rows for %d unknowns",
-                                        ne.n_used, p);
-                }
-            }
-        }
-        /* each pass weights by the scale of the previous pass's residuals
-         * and samples its own; at convergence the two agree */
-        for (int left = 15; !sample_fit && (!sub || scale > 0.0) && left > 0; left--, it++) {
-            double prev[FIT_MAX_P];
-            memcpy(prev, beta, sizeof prev);
-            struct normal_eq keep = ne;
-            if (it == 1 && ss.x) {
-                /* the scale at the plain fit from the kept rows: the same
-                 * residuals a pass at weight 1 would sample, and that pass's
-                 * sums are the plain pass's */
-                for (size_t k = 0; k < ss.nk; k++) {
-                    double res = ss.y[k];
-                    for (int j = 0; j < p; j++)
-                        res -= ss.x[k * (size_t)p + (size_t)j] * beta[j];
-                    ss.r[k] = fabs(res);
-                }
-                ss.n = ss.nk;
-                visited += ss.nk;
-            } else {
-                run_pass(n, p, src, beta, scale, &ss, &ne);
-                visited += n;
-            }
-            double next = MAD_TO_SIGMA * fit_median(ss.r, ss.n);
-            /* an exact fit (residuals at rounding level): nothing to reweight */
-            double y_rms = ne.n_used ? sqrt(fmax(ne.yy, keep.yy) / (double)ne.n_used) : 0.0;
-            if (!(next > 1e-12 * y_rms)) {
-                if (scale > 0.0)
-                    ne = keep;
+    if (!robust)
+        return;
+    ss->r = malloc(SCALE_SAMPLES * sizeof *ss->r);
+    if (!ss->r) {
+        free_sample(ss);
+        fp->rc = pb_error_set(&fp->err, PB_ENOMEM, "out of memory");
+        return;
+    }
+    /* Many rows: the reweighting iterates on the rows the plain pass kept
+     * (an even sample of at most SCALE_SAMPLES), then one pass over every
+     * row weights them at the subsample's fit and scale. Full passes go on
+     * only when that pass moves a coefficient by more than the subsample's
+     * own sampling error allows. The scale is the same either way: a full
+     * pass samples its residuals at these very rows. */
+    fp->sub =
+        ss->x && ss->nk > (size_t)(4 * p) && (sampled || ne->n_used >= SUBSAMPLE_RATIO * ss->nk);
+    if (!fp->sub)
+        return;
+    double rows = sampled ? (double)n : (double)ne->n_used;
+    double y_rms = sqrt(ne->yy / (double)ne->n_used);
+    struct normal_eq sne;
+    int solved = 0; /* beta is the solution of sne */
+    for (; fp->it <= 15; fp->it++) {
+        double prev[FIT_MAX_P];
+        memcpy(prev, fp->beta, sizeof prev);
+        kept_pass(p, ss, fp->beta, fp->scale, &sne);
+        fp->visited += ss->nk;
+        double next = MAD_TO_SIGMA * fit_median(ss->r, ss->n);
+        if (!(next > 1e-12 * y_rms))
+            break; /* an exact fit: at the first pass, the plain fit stands */
+        if (fp->scale > 0.0) {
+            if (sne.n_used <= (size_t)p || sne.wsum <= p ||
+                solve(&sne, p, fp->beta, fp->inv, &fp->rank) != 0) {
+                memcpy(fp->beta, prev, sizeof prev);
+                solved = 0;
                 break;
             }
-            if (scale > 0.0) {
-                if (ne.n_used <= (size_t)p || ne.wsum <= p ||
-                    solve(&ne, p, beta, inv, &rank) != 0) {
-                    /* reweighting cannot leave fewer rows than unknowns: keep the last fit */
-                    memcpy(beta, prev, sizeof prev);
-                    ne = keep;
-                    solve(&ne, p, beta, inv, &rank);
-                    break;
-                }
-                iters++;
-                /* converged when no coefficient moves by more than a
-                 * twentieth of its own standard error: far below what
-                 * is reported, and IRLS on a misfitting model creeps */
-                double change = change_in_se(p, beta, prev, inv, next);
-                if (change < limit)
-                    break;
-                limit = 0.05;
+            fp->iters++;
+            solved = 1;
+            if (change_in_se(p, fp->beta, prev, fp->inv, next) < 0.05) {
+                fp->scale = next;
+                break;
             }
-            scale = next;
         }
-        out->iterations = iters;
-        free(ss.r);
-        free(ss.x);
-        free(ss.y);
-        free(ss.u);
-        out->n_downweighted = ne.n_low;
-        out->scale = scale;
+        fp->scale = next;
     }
-    if (start) {
-        if (!robust || ne.n_used <= (size_t)p)
-            return pb_error_set(err, PB_ENUMERIC, "fit: a warm start needs a robust fit");
-        /* the start's plain residual, scaled from its rows to these */
-        out->rss_plain = start->rss_plain * (double)ne.n_used / (double)start->n_used;
+    if (src->sample_only && sampled && solved && fp->scale > 0.0) {
+        /* the sample's fit, as it would be returned, for the caller to
+         * judge; a fit it does not take goes on to the passes over every
+         * row (fit_blocks_any_order's) */
+        struct fit_result judged = fp->out;
+        fill_result(&sne, p, fp->beta, fp->inv, fp->rank, &judged);
+        if (!src->stands || src->stands(src->stands_ctx, &judged)) {
+            *ne = sne;
+            fp->sample_fit = 1;
+        }
     }
-    out->rows_visited = visited;
-    fill_result(&ne, p, beta, inv, rank, out);
-    return PB_OK;
+    /* the subsample's standard errors are sqrt(n / kept) times the full data's */
+    fp->limit = 3.0 * sqrt(rows / (double)ss->nk);
+    fp->it = 2; /* the full passes below start weighted */
+    if (sampled && !(fp->scale > 0.0)) {
+        /* an exact fit: the plain fit of every row after all */
+        run_pass(n, p, src, NULL, 0.0, NULL, ne);
+        fp->visited += n;
+        if (ne->n_used <= (size_t)p || solve(ne, p, fp->beta, fp->inv, &fp->rank) != 0) {
+            free_sample(ss);
+            fp->rc =
+                pb_error_set(&fp->err, PB_ENUMERIC, "fit: %zu rows for %d unknowns", ne->n_used, p);
+        }
+    }
 }
 
-/* fit_passes with the room for a copy of the source's context when a long
- * pass is to be cut (run_pass). */
+/* Whether the reweighting goes on: another pass, each weighting by the
+ * scale of the previous pass's residuals and sampling its own (at
+ * convergence the two agree). */
+static int part_going(const struct fit_part *fp)
+{
+    return fp->rc == PB_OK && fp->robust && !fp->ended && !fp->sample_fit &&
+           (!fp->sub || fp->scale > 0.0) && fp->left > 0;
+}
+
+/* ... and that its next pass is over every row (not the first scale's,
+ * which the kept rows give). */
+static int part_due(const struct fit_part *fp)
+{
+    return part_going(fp) && !(fp->it == 1 && fp->ss.x);
+}
+
+static void part_before(struct fit_part *fp)
+{
+    memcpy(fp->prev, fp->beta, sizeof fp->prev);
+    fp->keep = fp->ne;
+}
+
+/* A pass of the reweighting (part_before first, part_after next). */
+static void part_pass(struct fit_part *fp)
+{
+    struct scale_sample *ss = &fp->ss;
+    if (!part_due(fp)) {
+        /* the scale at the plain fit from the kept rows: the same residuals
+         * a pass at weight 1 would sample, and that pass's sums are the
+         * plain pass's */
+        for (size_t k = 0; k < ss->nk; k++) {
+            double res = ss->y[k];
+            for (int j = 0; j < fp->p; j++)
+                res -= ss->x[k * (size_t)fp->p + (size_t)j] * fp->beta[j];
+            ss->r[k] = fabs(res);
+        }
+        ss->n = ss->nk;
+        fp->visited += ss->nk;
+    } else {
+        run_pass(fp->n, fp->p, &fp->src, fp->beta, fp->scale, ss, &fp->ne);
+        fp->visited += fp->n;
+    }
+}
+
+/* The new scale, fit and convergence after a pass. */
+static void part_after(struct fit_part *fp)
+{
+    const int p = fp->p;
+    struct normal_eq *ne = &fp->ne;
+    double next = MAD_TO_SIGMA * fit_median(fp->ss.r, fp->ss.n);
+    /* an exact fit (residuals at rounding level): nothing to reweight */
+    double y_rms = ne->n_used ? sqrt(fmax(ne->yy, fp->keep.yy) / (double)ne->n_used) : 0.0;
+    if (!(next > 1e-12 * y_rms)) {
+        if (fp->scale > 0.0)
+            *ne = fp->keep;
+        fp->ended = 1;
+        return;
+    }
+    if (fp->scale > 0.0) {
+        if (ne->n_used <= (size_t)p || ne->wsum <= p ||
+            solve(ne, p, fp->beta, fp->inv, &fp->rank) != 0) {
+            /* reweighting cannot leave fewer rows than unknowns: keep the last fit */
+            memcpy(fp->beta, fp->prev, sizeof fp->prev);
+            *ne = fp->keep;
+            solve(ne, p, fp->beta, fp->inv, &fp->rank);
+            fp->ended = 1;
+            return;
+        }
+        fp->iters++;
+        /* converged when no coefficient moves by more than a twentieth of
+         * its own standard error: far below what is reported, and IRLS on
+         * a misfitting model creeps */
+        if (change_in_se(p, fp->beta, fp->prev, fp->inv, next) < fp->limit) {
+            fp->ended = 1;
+            return;
+        }
+        fp->limit = 0.05;
+    }
+    fp->scale = next;
+    fp->left--;
+    fp->it++;
+}
+
+/* The rest of the reweighting, then the fit's figures into out; frees what
+ * the part holds (not the part). */
+static enum pb_code part_end(struct fit_part *fp, struct fit_result *out, struct pb_error *err)
+{
+    while (part_going(fp)) {
+        part_before(fp);
+        part_pass(fp);
+        part_after(fp);
+    }
+    if (fp->rc == PB_OK) {
+        if (fp->robust) {
+            fp->out.iterations = fp->iters;
+            fp->out.n_downweighted = fp->ne.n_low;
+            fp->out.scale = fp->scale;
+        }
+        if (fp->start && (!fp->robust || fp->ne.n_used <= (size_t)fp->p))
+            fp->rc = pb_error_set(&fp->err, PB_ENUMERIC, "fit: a warm start needs a robust fit");
+        else if (fp->start) /* the start's plain residual, scaled from its rows to these */
+            fp->out.rss_plain =
+                fp->start->rss_plain * (double)fp->ne.n_used / (double)fp->start->n_used;
+    }
+    if (fp->rc == PB_OK) {
+        fp->out.rows_visited = fp->visited;
+        fill_result(&fp->ne, fp->p, fp->beta, fp->inv, fp->rank, &fp->out);
+    }
+    free_sample(&fp->ss);
+    free(fp->src.copy);
+    fp->src.copy = NULL;
+    *out = fp->out;
+    if (fp->rc != PB_OK && err)
+        *err = fp->err;
+    return fp->rc;
+}
+
+/* A whole fit (both parts). */
 static enum pb_code fit_core(size_t n, int p, struct source *src, int robust,
                              const struct fit_result *start, struct fit_result *out,
                              struct pb_error *err)
 {
-    src->copy = NULL;
-    if (src->ctx_size && n >= TWIN_MIN_ROWS && !(src->copy = malloc(src->ctx_size))) {
+    struct fit_part fp;
+    part_begin(&fp, n, p, src, robust, start);
+    return part_end(&fp, out, err);
+}
+
+struct fit_part *fit_part_begin(size_t n, int p, fit_block_fn block, void *ctx, size_t ctx_size,
+                                struct fit_lag1 *lag1)
+{
+    struct fit_part *fp = malloc(sizeof *fp);
+    if (!fp)
+        return NULL;
+    struct source src = {
+        .block = block, .ctx = ctx, .any_order = 1, .ctx_size = ctx_size, .lag1 = lag1};
+    if (lag1)
+        lag1->have = 0;
+    part_begin(fp, n, p, &src, 1, NULL);
+    return fp;
+}
+
+int fit_part_due(const struct fit_part *part)
+{
+    return part && part_due(part);
+}
+
+void fit_part_share(struct fit_part *narrow, struct fit_part *wide)
+{
+    struct fit_lag1 *m = narrow ? narrow->src.lag1 : NULL, *w = wide ? wide->src.lag1 : NULL;
+    /* the narrow fit's lag-1 moments, when it still wants them, come from
+     * the wide's made in this pass (their first columns) */
+    int wants = m && !m->have;
+    if (!(fit_part_due(narrow) && fit_part_due(wide) && narrow->n == wide->n &&
+          narrow->p <= wide->p && (!wants || (w && !w->have))))
+        return;
+    part_before(narrow);
+    part_before(wide);
+    struct pass_sums f[2] = {
+        {.p = narrow->p, .beta = narrow->beta, .scale = narrow->scale, .ss = &narrow->ss},
+        {.p = wide->p, .beta = wide->beta, .scale = wide->scale, .ss = &wide->ss}};
+    run_passes(wide->n, wide->p, &wide->src, 2, f);
+    narrow->ne = f[0].ne;
+    wide->ne = f[1].ne;
+    wide->visited += wide->n; /* the rows were made once */
+    if (wants && m != w)
+        *m = *w;
+    part_after(narrow);
+    part_after(wide);
+}
+
+enum pb_code fit_part_end(struct fit_part *part, struct fit_result *out, struct pb_error *err)
+{
+    if (!part) {
         memset(out, 0, sizeof *out);
         return pb_error_set(err, PB_ENOMEM, "out of memory");
     }
-    enum pb_code rc = fit_passes(n, p, src, robust, start, out, err);
-    free(src->copy);
-    src->copy = NULL;
+    enum pb_code rc = part_end(part, out, err);
+    free(part);
     return rc;
 }
 

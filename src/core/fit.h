@@ -134,6 +134,32 @@ enum pb_code fit_blocks_sampled(size_t n, int p, fit_block_fn block, void *ctx, 
                                 fit_stands_fn stands, void *stands_ctx, struct fit_result *out,
                                 struct pb_error *err);
 
+/* A robust fit_blocks_any_order in two steps, so that a fit over the same
+ * rows with more columns may make its first pass over every row for both
+ * (fit_part_share), e.g. a model and the same model with a term added.
+ * fit_part_begin makes the plain fit and, for a long log, the reweighting
+ * on the even sample; NULL when memory is short. fit_part_end makes the
+ * rest and fills out exactly as fit_blocks_any_order would (an error met
+ * in either step is returned here), and frees the part (NULL: out of
+ * memory, out cleared). */
+struct fit_part;
+struct fit_part *fit_part_begin(size_t n, int p, fit_block_fn block, void *ctx, size_t ctx_size,
+                                struct fit_lag1 *lag1);
+enum pb_code fit_part_end(struct fit_part *part, struct fit_result *out, struct pb_error *err);
+
+/* Whether the fit's next step is a pass over every row (0 for NULL, a
+ * failed fit, one whose sample's fit stands, or one ended). */
+int fit_part_due(const struct fit_part *part);
+
+/* When both are due one (fit_part_due), makes the next pass over every row
+ * of two fits begun over the same n rows at once: wide's block() makes the
+ * rows, and narrow's rows must be their first narrow->p columns (the same
+ * rows in use, the same values). Each fit's sums, sample and lag-1 moments
+ * are then exactly those of its own pass (narrow's moments the first
+ * columns' of wide's, so lag1 may be one struct for both); the rows made
+ * are counted once, in wide's rows_visited. Otherwise a no-op. */
+void fit_part_share(struct fit_part *narrow, struct fit_part *wide);
+
 /* The plain fit of sums made by the caller (e.g. shared walks over the
  * data for many candidate models); rows_visited is left 0. */
 enum pb_code fit_solve_sums(const struct fit_sums *sums, int p, struct fit_result *out,
