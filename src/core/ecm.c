@@ -453,9 +453,7 @@ static size_t window_params(const struct ctx *c, size_t w0, size_t w1)
 /* lines: the windows' RC lines at tau_s when the tau search made them (its
  * walk at this very tau), else NULL and they are made here. The lag-1
  * moments of the rows go in *lag1 (honest_cov). */
-static enum pb_code fit_at(struct ctx *c, int p, double tau_s, int robust, size_t *work,
-                           const double *lines, struct fit_lag1 *lag1, struct fit_result *f,
-                           struct pb_error *err)
+static void fit_setup(struct ctx *c, int p, double tau_s, const double *lines)
 {
     c->p = p;
     c->tau_s = tau_s;
@@ -468,17 +466,48 @@ static enum pb_code fit_at(struct ctx *c, int p, double tau_s, int robust, size_
     } else if (p == 2) {
         rc_lines(c);
     }
+    c->lag.next = 0;
+}
+
+/* A pass cut in two runs its second half on a copy of the context (fit.h). */
+static size_t ctx_size(const struct ctx *c)
+{
+    return c->whole ? 0 : sizeof *c;
+}
+
+static enum pb_code fit_at(struct ctx *c, int p, double tau_s, int robust, size_t *work,
+                           const double *lines, struct fit_lag1 *lag1, struct fit_result *f,
+                           struct pb_error *err)
+{
+    fit_setup(c, p, tau_s, lines);
     /* rows made in any order (ecm_block), a robust fit of a long log
      * takes its plain start from the even sample (its rss_plain then the
      * sample's: the model choice takes the plain residuals over every row
      * from the tau search, see static_rss_plain and ecm_end) */
-    c->lag.next = 0;
-    size_t ctx_size = c->whole ? 0 : sizeof *c; /* 0: no pass cut in two */
-    enum pb_code rc = robust
-                          ? fit_blocks_any_order(c->s->n, p, ecm_block, c, ctx_size, lag1, f, err)
-                          : fit_blocks(c->s->n, p, ecm_block, c, ctx_size, robust, lag1, f, err);
+    enum pb_code rc =
+        robust ? fit_blocks_any_order(c->s->n, p, ecm_block, c, ctx_size(c), lag1, f, err)
+               : fit_blocks(c->s->n, p, ecm_block, c, ctx_size(c), robust, lag1, f, err);
     if (work)
         *work += f->rows_visited + (p == 2 && !lines ? c->s->n : 0);
+    return rc;
+}
+
+/* fit_at's robust fit begun (fit_part_begin), to be ended by part_end_at;
+ * NULL when memory is short. */
+static struct fit_part *part_begin_at(struct ctx *c, int p, double tau_s, size_t *work,
+                                      const double *lines, struct fit_lag1 *lag1)
+{
+    fit_setup(c, p, tau_s, lines);
+    if (work && p == 2 && !lines)
+        *work += c->s->n;
+    return fit_part_begin(c->s->n, p, ecm_block, c, ctx_size(c), lag1);
+}
+
+static enum pb_code part_end_at(struct fit_part *part, size_t *work, struct fit_result *f)
+{
+    enum pb_code rc = fit_part_end(part, f, NULL);
+    if (work)
+        *work += f->rows_visited;
     return rc;
 }
 
@@ -1331,10 +1360,41 @@ enum pb_code ecm_end(struct ecm_run *run, struct ecm_result *res)
     int try_rc = run->try_rc;
     if (out->reason)
         goto done;
-    struct fit_result fs;
+    struct fit_result fs, fr;
     struct fit_lag1 lag1;
+    double tau = o->tau_fixed_s;
+    int searched = 0, rc_marked = 0;
+    struct fit_part *rc_part = NULL; /* the RC fit begun, sharing the static fit's pass */
     stage_begin(o->stages, "static fit");
-    if (fit_at(&c, 1, 0.0, o->robust, o->work, NULL, &lag1, &fs, NULL) != PB_OK || fs.rank < 1) {
+    enum pb_code fs_rc;
+    if (o->robust) {
+        struct fit_part *part = part_begin_at(&c, 1, 0.0, o->work, NULL, &lag1);
+        /* A static fit due a pass over every row waits for the tau
+         * search, and when that gives a tau, the pass is made with the RC
+         * fit's (fit_part_share: the rows made once, the same sums). The
+         * search's walks keep both cores busy (each in two halves), so
+         * the static pass gained nothing by running beside them; without a
+         * tau it runs after the search. */
+        if (try_rc && !(tau > 0.0) && grid->ok && fit_part_due(part) && !o->no_share) {
+            stage_begin(o->stages, "tau search");
+            tau = search_tau(grid, o->work);
+            searched = 1;
+            stage_begin(o->stages, "RC fit");
+            rc_marked = 1;
+            if (isfinite(tau)) {
+                rc_part =
+                    part_begin_at(&c, 2, tau, o->work,
+                                  grid->lines && tau == grid->tau ? grid->lines : NULL, &lag1);
+                fit_part_share(part, rc_part);
+            }
+        }
+        fs_rc = part_end_at(part, o->work, &fs);
+    } else {
+        fs_rc = fit_at(&c, 1, 0.0, o->robust, o->work, NULL, &lag1, &fs, NULL);
+    }
+    if (fs_rc != PB_OK || fs.rank < 1) {
+        if (rc_part)
+            part_end_at(rc_part, NULL, &fr);
         out->reason = "the resistance fit failed (too few samples inside the windows)";
         goto done;
     }
@@ -1350,17 +1410,20 @@ enum pb_code ecm_end(struct ecm_run *run, struct ecm_result *res)
     out->r0_ci95_mohm = r_static_ci;
 
     if (try_rc) {
-        double tau = o->tau_fixed_s;
-        if (!(tau > 0.0)) {
+        if (!(tau > 0.0) && !searched) {
             stage_begin(o->stages, "tau search");
             tau = search_tau(grid, o->work);
         }
-        stage_begin(o->stages, "RC fit");
-        struct fit_result fr;
-        const double *lines = grid->lines && tau == grid->tau ? grid->lines : NULL;
-        if (isfinite(tau) &&
-            fit_at(&c, 2, tau, o->robust, o->work, lines, &lag1, &fr, NULL) == PB_OK &&
-            fr.rank == 2) {
+        enum pb_code fr_rc = PB_ENUMERIC;
+        if (!rc_marked)
+            stage_begin(o->stages, "RC fit");
+        if (rc_part) {
+            fr_rc = part_end_at(rc_part, o->work, &fr);
+        } else if (isfinite(tau)) {
+            const double *lines = grid->lines && tau == grid->tau ? grid->lines : NULL;
+            fr_rc = fit_at(&c, 2, tau, o->robust, o->work, lines, &lag1, &fr, NULL);
+        }
+        if (fr_rc == PB_OK && fr.rank == 2) {
             /* the search's walk at this tau summed the RC model's plain
              * normal equations over every row, as a plain pass would (a
              * robust fit's own rss_plain is its sample's) */

@@ -55,6 +55,9 @@ struct ecm_opts {
     int whole;          /* every pass in one walk, never cut in two (twin.h): for tests */
     int no_scout;       /* the tau search without its scout (ecm.c), every walk of every row:
                            for tests */
+    int no_share;       /* the static fit ends beside the tau search, its pass over every
+                           row not shared with the RC fit's (ecm_end; the same numbers):
+                           for tests */
     struct ecm_lag_rows *lag_rows; /* filled at the chosen or fixed tau (may be NULL) */
     /* told as ecm_end's stages begin (may be NULL) */
     const struct stage_hook *stages;

@@ -27,6 +27,9 @@
  *   early, far below the intervals: tau's half-width is 6e-4 of tau here),
  *   on this log and on the same with a long gap just before the cut, which
  *   the later half's early-started lag must carry across.
+ * - The static fit's pass over every row made with the RC fit's
+ *   (fit_part_share) against each fit making its own: the same sums, so
+ *   the same results, number for number (no tolerance), one pass fewer.
  * - The robust trend (rows in any order, its plain start from the sample)
  *   against the plain trend (rows in order, every row): on Gaussian noise
  *   both estimate the same line; within 0.2 mV at both ends. The robust
@@ -510,6 +513,43 @@ static void test_scout(void **state)
     series_free(s);
 }
 
+/* The static fit's pass over every row made with the RC fit's (ecm_end,
+ * fit_part_share) against the static fit ending beside the search
+ * (no_share): the same fits, number for number (the same sums; no
+ * tolerance), the rows made once (the work less by the log's rows), on
+ * this log and on one without the branch (no tau: the static fit's pass
+ * after the search, the same work). */
+static void test_shared_pass(void **state)
+{
+    (void)state;
+    for (int branch = 1; branch >= 0; branch--) {
+        gen_r1_ohm = branch ? R1_OHM : 0.0;
+        double *q, q_end;
+        struct series *s = gen(&q, &q_end);
+        struct ecm_opts o = opts(s);
+        struct ecm_result a, b;
+        size_t wa = 0, wb = 0;
+        o.work = &wa;
+        assert_int_equal(ecm_fit(s, q, &o, &a, NULL), PB_OK);
+        o.work = &wb;
+        o.no_share = 1;
+        assert_int_equal(ecm_fit(s, q, &o, &b, NULL), PB_OK);
+        print_message("branch %d: work shared %zu, apart %zu (%zu rows)\n", branch, wa, wb, s->n);
+        assert_int_equal(a.rc, branch);
+        same_result(&a, &b);
+        assert_true(a.r_static_ci95_mohm == b.r_static_ci95_mohm);
+        assert_int_equal(a.iterations, b.iterations);
+        if (branch) {
+            assert_true(a.r1_mohm == b.r1_mohm && a.r1_ci95_mohm == b.r1_ci95_mohm);
+            assert_true(a.tau_s == b.tau_s && a.tau_ci95_s == b.tau_ci95_s);
+        }
+        assert_int_equal(wa + (branch ? s->n : 0), wb);
+        free(q);
+        series_free(s);
+    }
+    gen_r1_ohm = R1_OHM;
+}
+
 int main(void)
 {
     gsl_set_error_handler_off();
@@ -522,6 +562,7 @@ int main(void)
         cmocka_unit_test(test_tau_interval),
         cmocka_unit_test(test_rc_trend),
         cmocka_unit_test(test_scout),
+        cmocka_unit_test(test_shared_pass),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
 }

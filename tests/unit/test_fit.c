@@ -312,6 +312,95 @@ static void test_lag1_moments(void **state)
     free(d.x), free(d.y);
 }
 
+/* Two fits over the same rows, the narrow one's rows the first column of
+ * the wide one's (a model and the same model with a term added, as ecm.c's
+ * static and RC models), begun apart and their first pass over every row
+ * made once (fit_part_share). Expected: each fit as fit_blocks_any_order
+ * makes it alone, number for number (the same sums in the same order; no
+ * tolerance), its lag-1 moments too, the wide fit's rows_visited the same
+ * and the narrow's less by the rows made once for both. Rows: x, its lag
+ * and glitches (so the reweighting has work), some rows not in use, runs
+ * starting every 50 rows; walked whole and cut in two. A log too short for
+ * the even sample: no pass is due after the first step, and sharing is a
+ * no-op (the same fits again). */
+static void block_pair(void *ctx, size_t k0, size_t m, int p, double *x, double *y,
+                       unsigned char *use)
+{
+    struct lagged *c = ctx;
+    for (size_t j = 0; j < m; j++) {
+        lag_to(c, k0 + j);
+        x[j * (size_t)p] = c->d->x[k0 + j];
+        if (p > 1)
+            x[j * (size_t)p + 1] = c->lag;
+        y[j] = c->d->y[k0 + j] + 0.3 * c->lag;
+        use[j] = (unsigned char)(((k0 + j) % 7 != 3) | ((k0 + j) % 50 == 0 ? FIT_ROW_FIRST : 0));
+    }
+}
+
+static void same_fit(const struct fit_result *a, const struct fit_result *b)
+{
+    assert_int_equal(a->rank, b->rank);
+    for (int i = 0; i < a->p; i++) {
+        assert_true(a->beta[i] == b->beta[i]);
+        for (int j = 0; j < a->p; j++)
+            assert_true(a->cov[i][j] == b->cov[i][j]);
+    }
+    assert_true(a->sigma == b->sigma && a->rss == b->rss && a->rss_plain == b->rss_plain);
+    assert_true(a->scale == b->scale && a->dof == b->dof);
+    assert_int_equal(a->n_used, b->n_used);
+    assert_int_equal(a->n_downweighted, b->n_downweighted);
+    assert_int_equal(a->iterations, b->iterations);
+}
+
+static void shared_against_alone(const struct data *d, size_t ctx_size, int due)
+{
+    struct lagged c1 = {d, 0.0, 0}, c2 = {d, 0.0, 0}, cs = {d, 0.0, 0};
+    struct fit_lag1 m1, m2, ms;
+    struct fit_result a1, a2, s1, s2;
+    assert_int_equal(fit_blocks_any_order(d->n, 1, block_pair, &c1, ctx_size, &m1, &a1, NULL),
+                     PB_OK);
+    assert_int_equal(fit_blocks_any_order(d->n, 2, block_pair, &c2, ctx_size, &m2, &a2, NULL),
+                     PB_OK);
+    /* one context and one struct of moments for both, as ecm.c has them */
+    struct fit_part *narrow = fit_part_begin(d->n, 1, block_pair, &cs, ctx_size, &ms);
+    struct fit_part *wide = fit_part_begin(d->n, 2, block_pair, &cs, ctx_size, &ms);
+    assert_int_equal(fit_part_due(narrow), due);
+    assert_int_equal(fit_part_due(wide), due);
+    fit_part_share(narrow, wide);
+    assert_int_equal(fit_part_end(narrow, &s1, NULL), PB_OK);
+    assert_int_equal(fit_part_end(wide, &s2, NULL), PB_OK);
+    same_fit(&s1, &a1);
+    same_fit(&s2, &a2);
+    assert_int_equal(s2.rows_visited, a2.rows_visited);
+    assert_int_equal(s1.rows_visited + (due ? d->n : 0), a1.rows_visited);
+    assert_true(ms.have && m1.have && m2.have);
+    assert_true(fit_lag1_rho(&ms, s1.beta, 1) == fit_lag1_rho(&m1, a1.beta, 1));
+    assert_true(fit_lag1_rho(&ms, s2.beta, 2) == fit_lag1_rho(&m2, a2.beta, 2));
+    print_message("shared pass (n %zu, cut %d): narrow %.9g, wide %.9g %.9g, rho %.6f %.6f\n", d->n,
+                  ctx_size > 0, s1.beta[0], s2.beta[0], s2.beta[1], fit_lag1_rho(&ms, s1.beta, 1),
+                  fit_lag1_rho(&ms, s2.beta, 2));
+}
+
+static void test_shared_pass(void **state)
+{
+    (void)state;
+    struct data d = make(400000, 0.0, 0.5, 0.004, 13);
+    for (size_t k = 0; k < d.n; k += 20)
+        d.y[k] += 1.0;
+    for (int cut = 0; cut < 2; cut++)
+        shared_against_alone(&d, cut ? sizeof(struct lagged) : 0, 1);
+    free(d.x), free(d.y);
+    struct data e = make(20000, 0.0, 0.5, 0.004, 14);
+    shared_against_alone(&e, 0, 0);
+    free(e.x), free(e.y);
+    /* a NULL part (fit_part_begin short of memory): not due, and ended as
+     * out of memory */
+    struct fit_result f;
+    assert_false(fit_part_due(NULL));
+    fit_part_share(NULL, NULL);
+    assert_int_equal(fit_part_end(NULL, &f, NULL), PB_ENOMEM);
+}
+
 static void test_rank_deficient(void **state)
 {
     (void)state;
@@ -383,6 +472,7 @@ int main(void)
         cmocka_unit_test(test_robust_long),
         cmocka_unit_test(test_cut_pass),
         cmocka_unit_test(test_lag1_moments),
+        cmocka_unit_test(test_shared_pass),
         cmocka_unit_test(test_rank_deficient),
         cmocka_unit_test(test_too_few_rows),
     };
