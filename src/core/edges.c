@@ -45,10 +45,18 @@ static int cmp_double(const void *a, const void *b)
  * half-width reported is the larger distance from the median. */
 static double median_ci95(const double *sorted, size_t n, double med)
 {
-    /* largest j with P(B <= j - 1) <= 0.025, B ~ Bin(n, 1/2) */
-    size_t j = 0;
-    while (j + 1 <= n / 2 && gsl_cdf_binomial_P((unsigned)j, 0.5, (unsigned)n) <= 0.025)
-        j++;
+    /* largest j <= n / 2 with P(B <= j - 1) <= 0.025, B ~ Bin(n, 1/2): the
+     * first j below n / 2 where P(B <= j) > 0.025 (or n / 2), found by
+     * bisection, as P rises with j (a long log has ten thousand steps:
+     * the walk up to j took ~5,000 evaluations, 2 ms) */
+    size_t j = 0, top = n / 2;
+    while (j < top) {
+        size_t mid = j + (top - j) / 2;
+        if (gsl_cdf_binomial_P((unsigned)mid, 0.5, (unsigned)n) > 0.025)
+            top = mid;
+        else
+            j = mid + 1;
+    }
     if (j == 0)
         return NAN;
     double lo = sorted[j - 1], hi = sorted[n - j];
