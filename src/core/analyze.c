@@ -824,26 +824,6 @@ static void stage_soc_capacity(struct analysis *a, const struct series *s, const
              o->capacity_mah);
 }
 
-/* A long log's charge per sample is allocated and first written beside the
- * levels' walks: the kernel's first touch of fresh memory costs about 2 us
- * a page on this project's machine (some 4 ms for 1,000,000 samples), and
- * would otherwise fall in the loaded walk, the longer of the two that run
- * side by side after the levels (current_walks). */
-struct charge_room {
-    size_t n;
-    double *q_ah;
-    struct twin_job job;
-    int beside; /* started in another thread */
-};
-
-static void charge_room_run(void *vc)
-{
-    struct charge_room *cr = vc;
-    cr->q_ah = malloc(cr->n * sizeof *cr->q_ah);
-    if (cr->q_ah)
-        memset(cr->q_ah, 0, cr->n * sizeof *cr->q_ah);
-}
-
 enum pb_code analyze_series(const struct series *s, const struct logread_stats *st,
                             const char *name, const struct analyze_opts *o, struct analysis *a,
                             struct pb_error *err)
@@ -877,9 +857,6 @@ enum pb_code analyze_series(const struct series *s, const struct logread_stats *
     a->peak_a = a->step_a = NAN;
 
     stage_begin(o->stages, "levels");
-    struct charge_room room = {.n = s->n};
-    if (s->i_a && s->n >= TWIN_MIN_ROWS)
-        room.beside = twin_start(&room.job, charge_room_run, &room) == 0;
     reader_warnings(a, st, name);
     a->chem = ocv_chem(o->chemistry >= 0 ? (enum chemistry)o->chemistry : CHEM_LIPO);
     a->chem_assumed = o->chemistry < 0;
@@ -912,9 +889,7 @@ enum pb_code analyze_series(const struct series *s, const struct logread_stats *
              "sensor; SoC is read from the loaded voltage and is a lower bound");
     } else {
         rest_stats(a, s, o, imin);
-        if (room.beside)
-            twin_join(&room.job);
-        q_ah = room.beside ? room.q_ah : malloc(s->n * sizeof *q_ah);
+        q_ah = malloc(s->n * sizeof *q_ah);
         if (!q_ah) {
             rc = pb_error_set(err, PB_ENOMEM, "out of memory");
             goto cleanup;
