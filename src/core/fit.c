@@ -47,7 +47,7 @@ struct source {
     void *ctx;
     int any_order;   /* block() makes any rows asked for, in any order */
     size_t ctx_size; /* ctx may be copied (0: it may not; a pass is not cut) */
-    void *copy;      /* room for that copy, made by fit_core for a long fit */
+    void *copy;      /* room for that copy, made by part_begin for a long fit */
     fit_row_fn row;  /* when the caller gave rows, not blocks */
     void *row_ctx;
     struct fit_lag1 *lag1; /* the lag-1 moments wanted (NULL: not), made by the first full pass */
@@ -209,7 +209,7 @@ block_sums(const int p, const int stride, size_t m, const double *restrict x,
            double scale, struct scale_sample *ss, size_t *ss_left, struct normal_eq *ne)
 {
     if (p < 1 || p > FIT_MAX_P)
-        __builtin_unreachable(); /* fit_core checked it; lets the unrolled loops end */
+        __builtin_unreachable(); /* part_begin checked it; lets the unrolled loops end */
     double a[FIT_MAX_P][FIT_MAX_P] = {{0}}, b[FIT_MAX_P] = {0};
     PB_UNROLL
     for (int i = 0; i < p; i++) {
