@@ -1249,6 +1249,13 @@ static double search_tau(struct tau_grid *gr, size_t *work)
     return gr->tau;
 }
 
+/* The windows' RC lines the search's walk made at tau, or NULL (another
+ * tau: the RC fit makes them, rc_lines). */
+static const double *search_lines(const struct tau_grid *gr, double tau)
+{
+    return gr->lines && tau == gr->tau ? gr->lines : NULL;
+}
+
 /* The static model's plain residual sum of squares over every row: from
  * the search's walk when it ran (the sums of a plain pass of the static
  * fit, cut at a window's start rather than a row, so equal up to rounding),
@@ -1363,7 +1370,7 @@ enum pb_code ecm_end(struct ecm_run *run, struct ecm_result *res)
     struct fit_result fs, fr;
     struct fit_lag1 lag1;
     double tau = o->tau_fixed_s;
-    int searched = 0, rc_marked = 0;
+    int searched = 0; /* the search waited for and the "RC fit" stage told, sharing the pass */
     struct fit_part *rc_part = NULL; /* the RC fit begun, sharing the static fit's pass */
     stage_begin(o->stages, "static fit");
     enum pb_code fs_rc;
@@ -1380,11 +1387,8 @@ enum pb_code ecm_end(struct ecm_run *run, struct ecm_result *res)
             tau = search_tau(grid, o->work);
             searched = 1;
             stage_begin(o->stages, "RC fit");
-            rc_marked = 1;
             if (isfinite(tau)) {
-                rc_part =
-                    part_begin_at(&c, 2, tau, o->work,
-                                  grid->lines && tau == grid->tau ? grid->lines : NULL, &lag1);
+                rc_part = part_begin_at(&c, 2, tau, o->work, search_lines(grid, tau), &lag1);
                 fit_part_share(part, rc_part);
             }
         }
@@ -1415,13 +1419,13 @@ enum pb_code ecm_end(struct ecm_run *run, struct ecm_result *res)
             tau = search_tau(grid, o->work);
         }
         enum pb_code fr_rc = PB_ENUMERIC;
-        if (!rc_marked)
+        if (!searched)
             stage_begin(o->stages, "RC fit");
         if (rc_part) {
             fr_rc = part_end_at(rc_part, o->work, &fr);
         } else if (isfinite(tau)) {
-            const double *lines = grid->lines && tau == grid->tau ? grid->lines : NULL;
-            fr_rc = fit_at(&c, 2, tau, o->robust, o->work, lines, &lag1, &fr, NULL);
+            fr_rc =
+                fit_at(&c, 2, tau, o->robust, o->work, search_lines(grid, tau), &lag1, &fr, NULL);
         }
         if (fr_rc == PB_OK && fr.rank == 2) {
             /* the search's walk at this tau summed the RC model's plain

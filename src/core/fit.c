@@ -1044,16 +1044,24 @@ static enum pb_code fit_core(size_t n, int p, struct source *src, int robust,
     return part_end(&fp, out, err);
 }
 
+/* The source of a robust fit of rows made in any order (fit_blocks_any_order
+ * and fit_part_begin), its lag-1 moments (when wanted) not yet made. */
+static struct source any_order_source(fit_block_fn block, void *ctx, size_t ctx_size,
+                                      struct fit_lag1 *lag1)
+{
+    if (lag1)
+        lag1->have = 0;
+    return (struct source){
+        .block = block, .ctx = ctx, .any_order = 1, .ctx_size = ctx_size, .lag1 = lag1};
+}
+
 struct fit_part *fit_part_begin(size_t n, int p, fit_block_fn block, void *ctx, size_t ctx_size,
                                 struct fit_lag1 *lag1)
 {
     struct fit_part *fp = malloc(sizeof *fp);
     if (!fp)
         return NULL;
-    struct source src = {
-        .block = block, .ctx = ctx, .any_order = 1, .ctx_size = ctx_size, .lag1 = lag1};
-    if (lag1)
-        lag1->have = 0;
+    struct source src = any_order_source(block, ctx, ctx_size, lag1);
     part_begin(fp, n, p, &src, 1, NULL);
     return fp;
 }
@@ -1119,10 +1127,7 @@ enum pb_code fit_blocks_any_order(size_t n, int p, fit_block_fn block, void *ctx
                                   struct fit_lag1 *lag1, struct fit_result *out,
                                   struct pb_error *err)
 {
-    struct source src = {
-        .block = block, .ctx = ctx, .any_order = 1, .ctx_size = ctx_size, .lag1 = lag1};
-    if (lag1)
-        lag1->have = 0;
+    struct source src = any_order_source(block, ctx, ctx_size, lag1);
     return fit_core(n, p, &src, 1, NULL, out, err);
 }
 
@@ -1130,13 +1135,10 @@ enum pb_code fit_blocks_sampled(size_t n, int p, fit_block_fn block, void *ctx, 
                                 fit_stands_fn stands, void *stands_ctx, struct fit_result *out,
                                 struct pb_error *err)
 {
-    struct source src = {.block = block,
-                         .ctx = ctx,
-                         .any_order = 1,
-                         .ctx_size = ctx_size,
-                         .sample_only = 1,
-                         .stands = stands,
-                         .stands_ctx = stands_ctx};
+    struct source src = any_order_source(block, ctx, ctx_size, NULL);
+    src.sample_only = 1;
+    src.stands = stands;
+    src.stands_ctx = stands_ctx;
     return fit_core(n, p, &src, 1, NULL, out, err);
 }
 
