@@ -1397,8 +1397,7 @@ enum pb_code ecm_end(struct ecm_run *run, struct ecm_result *res)
         fs_rc = fit_at(&c, 1, 0.0, o->robust, o->work, NULL, &lag1, &fs, NULL);
     }
     if (fs_rc != PB_OK || fs.rank < 1) {
-        if (rc_part)
-            part_end_at(rc_part, NULL, &fr);
+        fit_part_free(rc_part); /* its fit is not wanted: no passes made for it */
         out->reason = "the resistance fit failed (too few samples inside the windows)";
         goto done;
     }

@@ -1095,6 +1095,15 @@ void fit_part_share(struct fit_part *narrow, struct fit_part *wide)
     part_after(wide);
 }
 
+void fit_part_free(struct fit_part *part)
+{
+    if (!part)
+        return;
+    free_sample(&part->ss);
+    free(part->src.copy);
+    free(part);
+}
+
 enum pb_code fit_part_end(struct fit_part *part, struct fit_result *out, struct pb_error *err)
 {
     if (!part) {

@@ -147,6 +147,10 @@ struct fit_part *fit_part_begin(size_t n, int p, fit_block_fn block, void *ctx, 
                                 struct fit_lag1 *lag1);
 enum pb_code fit_part_end(struct fit_part *part, struct fit_result *out, struct pb_error *err);
 
+/* Frees a part begun and not wanted, without the passes fit_part_end would
+ * make (NULL: a no-op). */
+void fit_part_free(struct fit_part *part);
+
 /* Whether the fit's next step is a pass over every row (0 for NULL, a
  * failed fit, one whose sample's fit stands, or one ended). */
 int fit_part_due(const struct fit_part *part);

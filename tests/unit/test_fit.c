@@ -399,6 +399,16 @@ static void test_shared_pass(void **state)
     assert_false(fit_part_due(NULL));
     fit_part_share(NULL, NULL);
     assert_int_equal(fit_part_end(NULL, &f, NULL), PB_ENOMEM);
+    /* a part begun and not wanted is freed without its passes (its sample
+     * and copy room too: ASan's leak check and valgrind in the CI and
+     * scripts/memcheck would name them), and NULL is a no-op */
+    struct data g = make(400000, 0.0, 0.5, 0.004, 15);
+    struct lagged cg = {&g, 0.0, 0};
+    struct fit_part *unwanted = fit_part_begin(g.n, 2, block_pair, &cg, sizeof cg, NULL);
+    assert_true(fit_part_due(unwanted));
+    fit_part_free(unwanted);
+    fit_part_free(NULL);
+    free(g.x), free(g.y);
 }
 
 static void test_rank_deficient(void **state)
